@@ -1,0 +1,1 @@
+"""Pure numerics of a check: no printing, no click, no rich."""

@@ -1,0 +1,174 @@
+"""The one path by which the user's forward is evaluated.
+
+A :class:`Perturbation` says which coordinates of which tensor take which values; an
+:class:`Evaluator` turns a batch of them into loss values, counting every forward call and
+reporting progress, serially or through an executor backend. The loss is the forward's
+scalar, or ``sum(grad_output * forward(...))`` when the forward returns an array.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any, Callable, Protocol, Sequence
+
+import numpy as np
+
+from ..errors import BadOutputError, InPlaceWriteError, UserCodeError
+from ..tensors import Workspace, format_index
+
+
+@dataclass(frozen=True)
+class Perturbation:
+    """Set ``tensor.flat[index] = values`` for one forward call."""
+
+    tensor: str
+    index: np.ndarray  # flat indices, int64, 1-D
+    values: np.ndarray  # one value per index, in the tensor's dtype (complex for complex step)
+
+    def describe(self, shape: tuple[int, ...]) -> str:
+        if self.index.size == 1:
+            return f"{self.tensor}{format_index(np.unravel_index(int(self.index[0]), shape))}"
+        return f"{self.index.size} coordinates of {self.tensor}"
+
+
+def summarise(exc: BaseException) -> str:
+    text = str(exc).strip().splitlines()[0] if str(exc).strip() else ""
+    return f"{type(exc).__name__}: {text}" if text else type(exc).__name__
+
+
+def is_read_only_write(exc: BaseException) -> bool:
+    return isinstance(exc, ValueError) and "read-only" in str(exc)
+
+
+def output_to_loss(out: Any, grad_output: np.ndarray | None, where: str) -> float | complex:
+    """The scalar loss of one forward result; BadOutputError for anything unusable."""
+    if isinstance(out, (tuple, list, str, bytes, dict)) or out is None:
+        raise BadOutputError(
+            f"forward returned a {type(out).__name__}{where}, not a number or an array", value=out
+        )
+    try:
+        array = np.asarray(out)
+    except Exception as exc:
+        raise BadOutputError(f"forward returned {type(out).__name__}{where}", value=out) from exc
+    if not (np.issubdtype(array.dtype, np.number) or array.dtype == np.bool_):
+        raise BadOutputError(
+            f"forward returned an array of dtype {array.dtype}{where}, not numbers", value=out
+        )
+    finite = np.isfinite(array)
+    if not finite.all():
+        bad = int(array.size - finite.sum())
+        raise BadOutputError(
+            f"forward returned {bad} non-finite value{'s' if bad > 1 else ''}{where}", value=out
+        )
+    if grad_output is None:
+        if array.size != 1:
+            raise BadOutputError(
+                f"forward returned an array of shape {array.shape}{where} where a scalar was "
+                "returned before", value=out,
+            )
+        value = array.reshape(())[()]
+        return complex(value) if np.iscomplexobj(array) else float(value)
+    if array.shape != grad_output.shape:
+        raise BadOutputError(
+            f"forward returned shape {array.shape}{where} where it returned "
+            f"{grad_output.shape} before", value=out,
+        )
+    if np.iscomplexobj(array):
+        return complex(np.sum(grad_output * array))
+    return float(np.sum(grad_output * array.astype(np.float64, copy=False)))
+
+
+class LossFunction:
+    """forward as a scalar function of the workspace's current values."""
+
+    def __init__(
+        self, forward: Callable[..., Any], workspace: Workspace, grad_output: np.ndarray | None
+    ) -> None:
+        self.forward = forward
+        self.workspace = workspace
+        self.grad_output = grad_output
+        self._complex: dict[str, np.ndarray] = {}
+
+    def _call(self, params: Any, inputs: Any, where: str) -> float | complex:
+        try:
+            out = self.forward(params, inputs)
+        except Exception as exc:
+            if is_read_only_write(exc):
+                raise InPlaceWriteError(
+                    f"forward writes into the arrays it is given{where} ({summarise(exc)})"
+                ) from exc
+            raise UserCodeError(f"forward raised {summarise(exc)}{where}") from exc
+        return output_to_loss(out, self.grad_output, where)
+
+    def base(self) -> float:
+        ws = self.workspace
+        return float(np.real(self._call(ws.params_tree, ws.inputs_tree, "")))
+
+    def at(self, p: Perturbation) -> float | complex:
+        owner = self.workspace.owners[p.tensor]
+        where = f" when {p.describe(owner.shape)} was perturbed"
+        if np.iscomplexobj(p.values) and not np.iscomplexobj(owner):
+            return self._at_complex(p, where)
+        old = owner.flat[p.index].copy()
+        owner.flat[p.index] = p.values
+        try:
+            return self._call(self.workspace.params_tree, self.workspace.inputs_tree, where)
+        finally:
+            owner.flat[p.index] = old
+
+    def _at_complex(self, p: Perturbation, where: str) -> complex:
+        work = self._complex.get(p.tensor)
+        if work is None:
+            work = self.workspace.owners[p.tensor].astype(np.complex128)
+            self._complex[p.tensor] = work
+        old = work.flat[p.index].copy()
+        work.flat[p.index] = p.values
+        try:
+            params, inputs = self.workspace.trees_with({p.tensor: work})
+            return complex(self._call(params, inputs, where))
+        finally:
+            work.flat[p.index] = old
+
+
+class Backend(Protocol):
+    """Evaluates a batch of perturbations somewhere (worker processes, a cluster)."""
+
+    def losses(self, perturbations: Sequence[Perturbation]) -> list[float]: ...
+
+
+class Evaluator:
+    """Counts and runs every forward call of a check, serially or through a backend."""
+
+    def __init__(
+        self,
+        loss: LossFunction,
+        backend: Backend | None = None,
+        progress: Callable[[int], None] | None = None,
+    ) -> None:
+        self.loss = loss
+        self.backend = backend
+        self.progress = progress
+        self.count = 0
+
+    def base(self) -> float:
+        self.count += 1
+        return self.loss.base()
+
+    def losses(self, perturbations: Sequence[Perturbation]) -> np.ndarray:
+        """Loss values, one per perturbation, in order."""
+        if not perturbations:
+            return np.empty(0)
+        complex_step = np.iscomplexobj(perturbations[0].values)
+        if self.backend is not None and not complex_step and len(perturbations) > 1:
+            values = np.asarray(self.backend.losses(perturbations), dtype=np.float64)
+            self.count += len(perturbations)
+            if self.progress:
+                self.progress(len(perturbations))
+            return values
+        out = np.empty(len(perturbations), dtype=np.complex128 if complex_step else np.float64)
+        for i, p in enumerate(perturbations):
+            out[i] = self.loss.at(p)
+            self.count += 1
+            if self.progress:
+                self.progress(1)
+        return out

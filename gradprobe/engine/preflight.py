@@ -1,0 +1,82 @@
+"""Calls made before any perturbation: what the forward returns, whether it is repeatable,
+and whether forward or backward write into the arrays they are given."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from typing import Any, Callable
+
+import numpy as np
+
+from ..errors import InPlaceWriteError, NondeterminismError, UserCodeError
+from ..tensors import Workspace
+from .evaluate import Evaluator, output_to_loss, summarise
+
+
+@dataclass(frozen=True)
+class ForwardInfo:
+    f0: float  # the loss at the base point
+    out_dtype: np.dtype  # the floating type of forward's result
+    grad_output: np.ndarray | None  # drawn when forward returns an array
+
+
+def _name_writes(ws: Workspace, flat: dict[str, np.ndarray], who: str) -> None:
+    changed = ws.changed(flat)
+    if changed:
+        names = ", ".join(f"{ws.kind(n)} {n}" for n in changed)
+        raise InPlaceWriteError(f"{who} writes into the arrays it is given ({names})", value=changed)
+
+
+def _result_dtype(out: Any) -> np.dtype:
+    array = np.asarray(out)
+    if np.issubdtype(array.dtype, np.floating):
+        return array.dtype
+    if np.issubdtype(array.dtype, np.complexfloating):
+        return np.finfo(array.dtype).dtype
+    return np.dtype(np.float64)  # Python ints, bools: assume double precision
+
+
+def inspect_forward(
+    forward: Callable[..., Any], ws: Workspace, evaluator: Evaluator, rng: np.random.Generator
+) -> ForwardInfo:
+    """Two base calls: one on writable scratch copies (to name in-place writes), one on the
+    read-only views; they must agree."""
+    params, inputs, flat = ws.scratch_trees()
+    evaluator.count += 1
+    try:
+        out = forward(params, inputs)
+    except Exception as exc:
+        raise UserCodeError(f"forward raised {summarise(exc)}") from exc
+    _name_writes(ws, flat, "forward")
+    grad_output = None
+    shape = np.shape(out) if not isinstance(out, (tuple, list, str, bytes, dict)) else ()
+    if int(np.prod(shape, dtype=np.int64)) != 1 and np.ndim(out) > 0:
+        grad_output = rng.standard_normal(shape)
+    first = output_to_loss(out, grad_output, "")
+    evaluator.loss.grad_output = grad_output
+    second = evaluator.base()
+    dtype = _result_dtype(out)
+    tol = 16 * float(np.finfo(dtype).eps) * max(abs(first), abs(second))
+    if abs(first - second) > tol:
+        raise NondeterminismError(
+            f"forward is not deterministic: two calls with the same arguments gave "
+            f"{first!r} and {second!r} (random state or dropout?)",
+            value=(first, second),
+        )
+    return ForwardInfo(f0=second, out_dtype=dtype, grad_output=grad_output)
+
+
+def call_backward(
+    backward: Callable[..., Any], ws: Workspace, grad_output: np.ndarray | None
+) -> Any:
+    """backward on scratch copies; in-place writes are named."""
+    params, inputs, flat = ws.scratch_trees()
+    args: tuple[Any, ...] = (params, inputs)
+    if grad_output is not None:
+        args += (grad_output.copy(),)
+    try:
+        result = backward(*args)
+    except Exception as exc:
+        raise UserCodeError(f"backward raised {summarise(exc)}") from exc
+    _name_writes(ws, flat, "backward")
+    return result

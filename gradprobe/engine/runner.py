@@ -1,0 +1,136 @@
+"""One check of one target, from loaded functions and arrays to a :class:`Report`."""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass
+from typing import Any, Callable
+
+import numpy as np
+
+from ..errors import ProbeError, TargetLoadError
+from ..options import CheckOptions, default_threshold
+from ..report import LayerResult, Report, TensorResult
+from ..target import Target
+from ..tensors import INPUT_LAYER, Workspace, is_float, layer_of
+from .evaluate import Backend, Evaluator, LossFunction
+from .gradients import validate
+from .preflight import call_backward, inspect_forward
+from .summary import problem_result, unknown_result
+from .tensor import check_tensor
+
+# Builds an executor backend once the workspace and grad_output are known.
+BackendFactory = Callable[[Workspace, "np.ndarray | None"], Backend]
+
+
+@dataclass(frozen=True)
+class Context:
+    """What every tensor's check shares."""
+
+    evaluator: Evaluator
+    workspace: Workspace
+    f0: float
+    compute_dtype: np.dtype
+    threshold: float
+    options: CheckOptions
+    rng: np.random.Generator
+
+
+def _threshold_note(dtype: np.dtype, threshold: float, why: str) -> str:
+    eps = float(np.finfo(dtype).eps)
+    return (
+        f"forward computes in {dtype}{why}: its rounding unit is {eps:.1e}, so central differences "
+        f"are good to about {eps ** (2 / 3):.0e} relative at best and the default threshold is "
+        f"{threshold:g}"
+    )
+
+
+def _group(results: list[TensorResult]) -> tuple[LayerResult, ...]:
+    layers: dict[str, list[TensorResult]] = {}
+    for r in results:
+        layers.setdefault(r.layer, []).append(r)
+    ordered = sorted(layers, key=lambda name: name == INPUT_LAYER)  # inputs last, stable
+    return tuple(LayerResult(name, tuple(layers[name])) for name in ordered)
+
+
+def run_check(
+    target: Target,
+    options: CheckOptions | None = None,
+    *,
+    backend: BackendFactory | None = None,
+    progress: Callable[[int], None] | None = None,
+    clock: Callable[[], float] = time.perf_counter,
+) -> Report:
+    """Check ``target``; ProbeError subclasses when the check cannot run."""
+    try:
+        return _run(target, options or CheckOptions(), backend, progress, clock)
+    except ProbeError as exc:
+        raise exc.with_target(target.label)
+
+
+def _run(
+    target: Target,
+    options: CheckOptions,
+    backend: BackendFactory | None,
+    progress: Callable[[int], None] | None,
+    clock: Callable[[], float],
+) -> Report:
+    started = clock()
+    ws = Workspace(target.params, target.inputs)
+    if not any(is_float(ws.owners[n]) for n in ws.param_names):
+        raise TargetLoadError("the target has no floating-point params to check")
+    rng = np.random.default_rng(options.seed)
+    loss = LossFunction(target.forward, ws, None)
+    evaluator = Evaluator(loss, None, progress)
+    info = inspect_forward(target.forward, ws, evaluator, rng)
+    grads = validate(call_backward(target.backward, ws, info.grad_output), ws)
+    if backend is not None:
+        evaluator.backend = backend(ws, info.grad_output)
+    compute_dtype = info.out_dtype
+    notes = list(grads.notes)
+    from .precision import narrower_compute_type  # local: keeps the import graph acyclic
+
+    hidden = narrower_compute_type(evaluator, ws, info.f0, compute_dtype)
+    if hidden is not None:
+        compute_dtype = hidden.dtype
+    threshold = options.threshold or default_threshold(compute_dtype)
+    if compute_dtype != np.float64:
+        why = hidden.evidence if hidden is not None else ""
+        notes.append(_threshold_note(compute_dtype, threshold, why))
+    ctx = Context(evaluator, ws, info.f0, compute_dtype, threshold, options, rng)
+    results: list[TensorResult] = []
+    for name in ws.names():
+        layer = ws.layer(name)
+        if name in grads.problems:
+            results.append(problem_result(name, layer, ws.kind(name), ws.owners[name], grads.problems[name]))
+        elif name in grads.values:
+            results.append(check_tensor(ctx, name, grads.values[name]))
+    for name, (shape, sentence) in grads.unknown.items():
+        results.append(unknown_result(name, layer_of(name), shape, sentence))
+    errors = [r.hint for r in results if r.checked == 0 and r.status == "fail" and r.hint]
+    return Report(
+        target=target.label,
+        threshold=threshold,
+        seed=options.seed,
+        layers=_group(results),
+        evaluations=evaluator.count,
+        seconds=clock() - started,
+        method=options.method,
+        compute_dtype=str(np.dtype(compute_dtype)),
+        errors=tuple(errors),
+        notes=tuple(notes),
+    )
+
+
+def check(
+    forward: Callable[..., Any],
+    backward: Callable[..., Any],
+    params: Any,
+    inputs: Any = None,
+    options: CheckOptions | None = None,
+    label: str = "<python>",
+    **kwargs: Any,
+) -> Report:
+    """Check functions and arrays directly (the engine's Python entry)."""
+    target = Target(label, forward, backward, params, inputs or {})
+    return run_check(target, options, **kwargs)

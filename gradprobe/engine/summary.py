@@ -1,0 +1,98 @@
+"""Turning per-coordinate outcomes into a :class:`TensorResult` (pure)."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..report import DirectionResult, TensorResult
+from .compare import FAIL, INCONCLUSIVE, KINK
+from .coordinates import CoordinateOutcome
+
+MAX_LISTED = 100
+
+
+def _indices(flat: np.ndarray, shape: tuple[int, ...]) -> tuple[tuple[int, ...], ...]:
+    flat = np.sort(flat)
+    return tuple(tuple(int(i) for i in np.unravel_index(int(k), shape)) for k in flat)
+
+
+def _worst_first(flat: np.ndarray, rel: np.ndarray) -> np.ndarray:
+    return flat[np.argsort(-rel, kind="stable")[:MAX_LISTED]]
+
+
+def status_of(failed: int, inconclusive: int, kinks: int) -> str:
+    if failed:
+        return "fail"
+    if inconclusive:
+        return "inconclusive"
+    return "kink" if kinks else "pass"
+
+
+def tensor_result(
+    name: str,
+    layer: str,
+    kind: str,
+    tensor: np.ndarray,
+    outcome: CoordinateOutcome,
+    hint: str | None = None,
+    directions: tuple[DirectionResult, ...] = (),
+    located_evaluations: int | None = None,
+    evaluations: int | None = None,
+) -> TensorResult:
+    """Summarise the checked coordinates of one tensor (and its direction checks)."""
+    shape = tuple(tensor.shape)
+    s = outcome.status
+    failing = s == FAIL
+    judged = s != KINK
+    worst = max_abs = max_rel = None
+    if judged.any():
+        k = int(np.argmax(np.where(judged, outcome.rel, -np.inf)))
+        worst = tuple(int(i) for i in np.unravel_index(int(outcome.flat[k]), shape))
+        max_rel = float(outcome.rel[k])
+        max_abs = float(outcome.abs[judged].max())
+    estimates = outcome.error_estimate[np.isfinite(outcome.error_estimate)]
+    failed = int(failing.sum())
+    error_map = np.full(shape, np.nan)
+    error_map.reshape(-1)[outcome.flat] = outcome.rel
+    inconclusive = int((s == INCONCLUSIVE).sum())
+    kinks = int((s == KINK).sum())
+    status = status_of(failed, inconclusive, kinks)
+    return TensorResult(
+        name=name,
+        layer=layer,
+        kind=kind,
+        shape=shape,
+        dtype=str(tensor.dtype),
+        checked=int(outcome.flat.size),
+        failed=failed,
+        kinks=kinks,
+        inconclusive=inconclusive,
+        status=status,
+        max_abs_error=max_abs,
+        max_rel_error=max_rel,
+        worst_index=worst,
+        bad_indices=_indices(_worst_first(outcome.flat[failing], outcome.rel[failing]), shape),
+        kink_indices=_indices(outcome.flat[s == KINK][:MAX_LISTED], shape),
+        max_error_estimate=float(estimates.max()) if estimates.size else None,
+        hint=hint,
+        evaluations=outcome.evaluations if evaluations is None else evaluations,
+        directions=directions,
+        located_evaluations=located_evaluations,
+        error_map=error_map,
+    )
+
+
+def problem_result(name: str, layer: str, kind: str, tensor: np.ndarray, sentence: str) -> TensorResult:
+    """A tensor whose gradient could not be compared at all (missing, misshaped, non-finite)."""
+    return TensorResult(
+        name=name, layer=layer, kind=kind, shape=tuple(tensor.shape), dtype=str(tensor.dtype),
+        checked=0, failed=0, kinks=0, status="fail", hint=sentence,
+    )
+
+
+def unknown_result(name: str, layer: str, shape: tuple[int, ...], sentence: str) -> TensorResult:
+    """A gradient returned for a name that is neither a param nor an input."""
+    return TensorResult(
+        name=name, layer=layer, kind="unknown", shape=shape, dtype="unknown",
+        checked=0, failed=0, kinks=0, status="fail", hint=sentence,
+    )

@@ -1,0 +1,63 @@
+"""Typed errors for checks that cannot run.
+
+Every error carries the one sentence the CLI prints and the exit code it maps to; deeper
+code raises these, and only :mod:`gradprobe.cli` turns them into an exit.
+"""
+
+from __future__ import annotations
+
+from typing import Any
+
+
+class ProbeError(Exception):
+    """Root of gradprobe's errors: the check could not run (exit code 2)."""
+
+    exit_code = 2
+
+    def __init__(self, message: str, *, target: str | None = None, value: Any = None) -> None:
+        super().__init__(message)
+        self.message = message
+        self.target = target
+        self.value = value
+
+    def with_target(self, target: str) -> "ProbeError":
+        """Return this error naming ``target`` (set once; later calls keep the first)."""
+        if self.target is None:
+            self.target = target
+        return self
+
+    def sentence(self) -> str:
+        """The one sentence shown to the user, naming the target when known."""
+        text = self.message.rstrip(".") + "."
+        return f"{self.target}: {text}" if self.target else text
+
+    def __str__(self) -> str:
+        return self.sentence()
+
+
+class UsageProblem(ProbeError):
+    """An option or argument has a value that cannot work."""
+
+
+class TargetLoadError(ProbeError):
+    """The target cannot be found, imported or turned into forward/backward/params."""
+
+
+class UserCodeError(ProbeError):
+    """The user's forward or backward raised; the original exception is chained."""
+
+
+class BadOutputError(ProbeError):
+    """forward returned something that is not a finite number or array."""
+
+
+class NondeterminismError(ProbeError):
+    """forward gave different results for the same arguments."""
+
+
+class InPlaceWriteError(ProbeError):
+    """forward or backward wrote into an array it was given."""
+
+
+class ComplexStepError(ProbeError):
+    """The complex-step method was asked for, but forward does not carry complex values."""

@@ -1,0 +1,1 @@
+"""Renderers: functions of a Report that return text. They never compute numerics."""

@@ -1,0 +1,92 @@
+"""The JSON report of the protocol (schema ``gradprobe.report/1``)."""
+
+from __future__ import annotations
+
+import json
+import math
+from typing import Any
+
+from ..report import DirectionResult, Report, TensorResult
+
+SCHEMA = "gradprobe.report/1"
+
+
+def _num(value: float | None) -> float | None:
+    """JSON has no NaN or infinity: they become null."""
+    if value is None or not math.isfinite(value):
+        return None
+    return float(value)
+
+
+def _direction(d: DirectionResult) -> dict[str, Any]:
+    return {
+        "analytic": _num(d.analytic),
+        "numeric": _num(d.numeric),
+        "error_estimate": _num(d.error_estimate),
+        "rel_error": _num(d.rel_error),
+        "ok": d.ok,
+        "evaluations": d.evaluations,
+    }
+
+
+def tensor_dict(t: TensorResult) -> dict[str, Any]:
+    return {
+        "name": t.name,
+        "layer": t.layer,
+        "kind": t.kind,
+        "shape": list(t.shape),
+        "dtype": t.dtype,
+        "size": t.size,
+        "checked": t.checked,
+        "failed": t.failed,
+        "kinks": t.kinks,
+        "inconclusive": t.inconclusive,
+        "max_abs_error": _num(t.max_abs_error),
+        "max_rel_error": _num(t.max_rel_error),
+        "max_error_estimate": _num(t.max_error_estimate),
+        "worst_index": list(t.worst_index) if t.worst_index is not None else None,
+        "bad_indices": [list(i) for i in t.bad_indices],
+        "kink_indices": [list(i) for i in t.kink_indices],
+        "status": t.status,
+        "hint": t.hint,
+        "evaluations": t.evaluations,
+        "directions": [_direction(d) for d in t.directions],
+        "located_evaluations": t.located_evaluations,
+    }
+
+
+def report_dict(report: Report) -> dict[str, Any]:
+    return {
+        "schema": SCHEMA,
+        "target": report.target,
+        "ok": report.ok,
+        "threshold": report.threshold,
+        "seed": report.seed,
+        "method": report.method,
+        "compute_dtype": report.compute_dtype,
+        "summary": {
+            "tensors": len(report.tensors),
+            "checked": report.checked,
+            "failed": report.failed,
+            "kinks": report.kinks,
+            "inconclusive": sum(t.inconclusive for t in report.tensors),
+            "failed_tensors": len(report.failing_tensors),
+            "evaluations": report.evaluations,
+            "seconds": round(report.seconds, 6),
+        },
+        "layers": [
+            {
+                "name": layer.name,
+                "ok": layer.ok,
+                "max_rel_error": _num(layer.max_rel_error),
+                "tensors": [tensor_dict(t) for t in layer.tensors],
+            }
+            for layer in report.layers
+        ],
+        "errors": list(report.errors),
+        "notes": list(report.notes),
+    }
+
+
+def render_json(report: Report) -> str:
+    return json.dumps(report_dict(report), indent=2) + "\n"

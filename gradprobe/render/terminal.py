@@ -1,0 +1,133 @@
+"""The per-layer table and the verdict line, with rich.
+
+Styling is data: a colour theme and a plain theme with the same keys. The plain theme
+(no colour, ASCII rules) is used when output is not a terminal or ``NO_COLOR`` is set.
+"""
+
+from __future__ import annotations
+
+import io
+from dataclasses import dataclass
+from typing import Iterable
+
+from rich import box
+from rich.console import Console, RenderableType
+from rich.table import Table
+from rich.text import Text
+
+from ..report import Report, TensorResult
+from ..tensors import format_index
+
+
+@dataclass(frozen=True)
+class Theme:
+    box: box.Box
+    styles: dict[str, str]
+
+    def style(self, key: str) -> str:
+        return self.styles.get(key, "")
+
+
+COLOUR = Theme(
+    box=box.SIMPLE_HEAD,
+    styles={
+        "pass": "green", "kink": "cyan", "inconclusive": "yellow", "fail": "bold red",
+        "layer": "bold", "dim": "dim", "ok": "bold green", "bad": "bold red", "note": "yellow",
+    },
+)
+# Only a rule under the header, in ASCII, so plain output pastes cleanly into logs.
+RULED = box.Box("    \n    \n -- \n    \n    \n    \n    \n    \n", ascii=True)
+PLAIN = Theme(box=RULED, styles={})
+
+
+def fmt(value: float | None) -> str:
+    return "-" if value is None else f"{value:.1e}"
+
+
+def shape_text(shape: tuple[int, ...]) -> str:
+    return "x".join(str(n) for n in shape) if shape else "scalar"
+
+
+def _row(t: TensorResult, theme: Theme) -> list[Text | str]:
+    checked = f"{t.checked}/{t.size}" if t.kind != "unknown" else "-"
+    if t.directions:
+        bad = sum(1 for d in t.directions if not d.ok)
+        checked += f" +{len(t.directions)}dir" + (f"({bad} off)" if bad else "")
+    where = format_index(t.worst_index) if t.worst_index is not None else "-"
+    return [
+        Text("  " + t.name),
+        shape_text(t.shape),
+        checked,
+        fmt(t.max_rel_error),
+        fmt(t.max_abs_error),
+        where,
+        Text(t.status, style=theme.style(t.status)),
+        t.hint or "",
+    ]
+
+
+def table(report: Report, theme: Theme) -> Table:
+    grid = Table(box=theme.box, show_edge=False, pad_edge=False, expand=False)
+    for title, justify in (
+        ("layer / tensor", "left"), ("shape", "left"), ("checked", "right"),
+        ("worst rel", "right"), ("worst abs", "right"), ("at", "left"),
+        ("status", "left"), ("hint", "left"),
+    ):
+        grid.add_column(title, justify=justify, overflow="fold")  # type: ignore[arg-type]
+    for layer in report.layers:
+        grid.add_row(Text(layer.name, style=theme.style("layer")), *[""] * 7)
+        for t in layer.tensors:
+            grid.add_row(*_row(t, theme))
+    return grid
+
+
+def header(report: Report) -> str:
+    return (
+        f"gradprobe · {report.target} · {report.method} · threshold {report.threshold:g} "
+        f"({report.compute_dtype}) · seed {report.seed}"
+    )
+
+
+def verdict(report: Report) -> str:
+    """One line: the outcome, what is wrong, what it cost."""
+    n = len(report.tensors)
+    cost = f"{report.evaluations} evaluations in {report.seconds:.2f} s"
+    if not report.ok:
+        bad = report.failing_tensors
+        names = ", ".join(t.name for t in bad[:5]) + (" ..." if len(bad) > 5 else "")
+        return f"FAIL  {len(bad)} of {n} tensors disagree beyond {report.threshold:g}: {names} · {cost}"
+    extras = []
+    kinked = report.count("kink")
+    unsure = report.count("inconclusive")
+    if kinked:
+        extras.append(f"{kinked} at a kink")
+    if unsure:
+        extras.append(f"{unsure} inconclusive (numeric noise above the threshold)")
+    more = f" ({', '.join(extras)})" if extras else ""
+    return f"ok  {n} tensors agree within {report.threshold:g}{more} · {cost}"
+
+
+def renderables(report: Report, theme: Theme, quiet: bool = False) -> Iterable[RenderableType]:
+    style = theme.style("ok") if report.ok else theme.style("bad")
+    if not quiet:
+        yield Text(header(report), style=theme.style("dim"))
+        yield table(report, theme)
+        for note in report.notes:
+            yield Text(f"note: {note}", style=theme.style("note"))
+    yield Text(verdict(report), style=style)
+
+
+def plain_console(file: io.TextIOBase | io.StringIO, width: int = 100) -> Console:
+    return Console(
+        file=file, width=width, no_color=True, color_system=None, force_terminal=False,
+        highlight=False, emoji=False, markup=False, soft_wrap=False,
+    )
+
+
+def render_text(report: Report, width: int = 100, quiet: bool = False) -> str:
+    """The report as plain text (no colour), e.g. for pytest messages and logs."""
+    buffer = io.StringIO()
+    console = plain_console(buffer, width)
+    for item in renderables(report, PLAIN, quiet):
+        console.print(item)
+    return buffer.getvalue()

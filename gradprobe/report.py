@@ -1,0 +1,146 @@
+"""The report model: what a check found, consumed by every renderer.
+
+Frozen dataclasses; derived numbers are properties. The engine builds a :class:`Report`;
+renderers (terminal, JSON, JUnit, pytest messages) only read it.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+STATUS_ORDER = ("pass", "kink", "inconclusive", "fail")
+
+
+@dataclass(frozen=True)
+class DirectionResult:
+    """One random-direction check of a tensor: analytic gradient . v against the numeric slope."""
+
+    analytic: float
+    numeric: float
+    error_estimate: float
+    rel_error: float
+    ok: bool
+    evaluations: int
+
+
+@dataclass(frozen=True)
+class TensorResult:
+    """The verdict on one tensor's gradient."""
+
+    name: str
+    layer: str
+    kind: str  # "param", "input", or "unknown" (a gradient for a name that is neither)
+    shape: tuple[int, ...]
+    dtype: str
+    checked: int
+    failed: int
+    kinks: int
+    status: str
+    max_abs_error: float | None = None
+    max_rel_error: float | None = None
+    worst_index: tuple[int, ...] | None = None
+    bad_indices: tuple[tuple[int, ...], ...] = ()
+    kink_indices: tuple[tuple[int, ...], ...] = ()
+    inconclusive: int = 0
+    max_error_estimate: float | None = None  # largest numeric error estimate among checked
+    hint: str | None = None
+    evaluations: int = 0
+    directions: tuple[DirectionResult, ...] = ()
+    located_evaluations: int | None = None  # spent finding wrong coordinates from directions
+    error_map: Any = field(default=None, compare=False, repr=False)  # rel error per element
+
+    @property
+    def size(self) -> int:
+        return int(np.prod(self.shape, dtype=np.int64))
+
+    @property
+    def ok(self) -> bool:
+        return self.status != "fail"
+
+
+@dataclass(frozen=True)
+class LayerResult:
+    name: str
+    tensors: tuple[TensorResult, ...]
+
+    @property
+    def ok(self) -> bool:
+        return all(t.ok for t in self.tensors)
+
+    @property
+    def max_rel_error(self) -> float | None:
+        values = [t.max_rel_error for t in self.tensors if t.max_rel_error is not None]
+        return max(values) if values else None
+
+
+@dataclass(frozen=True)
+class Report:
+    """Everything one check of one target found."""
+
+    target: str
+    threshold: float
+    seed: int
+    layers: tuple[LayerResult, ...]
+    evaluations: int
+    seconds: float
+    method: str = "central"
+    compute_dtype: str = "float64"
+    errors: tuple[str, ...] = ()
+    notes: tuple[str, ...] = ()
+
+    @property
+    def tensors(self) -> tuple[TensorResult, ...]:
+        return tuple(t for layer in self.layers for t in layer.tensors)
+
+    @property
+    def ok(self) -> bool:
+        return all(layer.ok for layer in self.layers)
+
+    def count(self, status: str) -> int:
+        """How many tensors have ``status``."""
+        return sum(1 for t in self.tensors if t.status == status)
+
+    @property
+    def checked(self) -> int:
+        return sum(t.checked for t in self.tensors)
+
+    @property
+    def failed(self) -> int:
+        return sum(t.failed for t in self.tensors)
+
+    @property
+    def kinks(self) -> int:
+        return sum(t.kinks for t in self.tensors)
+
+    @property
+    def failing_tensors(self) -> tuple[TensorResult, ...]:
+        return tuple(t for t in self.tensors if t.status == "fail")
+
+    def tensor(self, name: str) -> TensorResult:
+        """The result for tensor ``name`` (KeyError naming the known ones otherwise)."""
+        for t in self.tensors:
+            if t.name == name:
+                return t
+        raise KeyError(f"no tensor {name!r}; the report has {[t.name for t in self.tensors]}")
+
+    def to_dict(self) -> dict[str, Any]:
+        """The JSON report of the protocol as a dict."""
+        from .render.json import report_dict
+
+        return report_dict(self)
+
+    def render(self, width: int = 100) -> str:
+        """The per-layer table as plain text."""
+        from .render.terminal import render_text
+
+        return render_text(self, width=width)
+
+    def raise_if_failed(self) -> "Report":
+        """Raise AssertionError carrying the per-layer report when any tensor fails."""
+        __tracebackhide__ = True
+        if not self.ok:
+            raise AssertionError("gradient check failed\n" + self.render())
+        return self

@@ -1,0 +1,203 @@
+"""Loading a target from its entry-point string (protocol section 1 and 2).
+
+``load_target("nets/mlp.py:dense_case")`` imports the module, takes the attribute, calls it
+when it is a class or function, and reads forward/backward/params/inputs off the result.
+Every failure is a :class:`TargetLoadError` with one sentence naming what is wrong.
+"""
+
+from __future__ import annotations
+
+import difflib
+import hashlib
+import importlib
+import importlib.util
+import inspect
+import os
+import sys
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any, Callable
+
+from .errors import TargetLoadError
+
+
+@dataclass(frozen=True)
+class Target:
+    """What a check needs: the two functions and the arrays at which to check them."""
+
+    label: str
+    forward: Callable[..., Any]
+    backward: Callable[..., Any]
+    params: Mapping[str, Any]
+    inputs: Mapping[str, Any] = field(default_factory=dict)
+    spec: str | None = None  # the entry-point string, when loaded from one
+
+
+def split_spec(spec: str) -> tuple[str, str | None]:
+    """``"nets/mlp.py:case"`` -> ``("nets/mlp.py", "case")``; no ``:NAME`` -> ``(spec, None)``."""
+    head, sep, tail = spec.rpartition(":")
+    if sep and head and tail.isidentifier():
+        return head, tail
+    return spec, None
+
+
+def is_file_spec(location: str) -> bool:
+    return location.endswith(".py") or "/" in location or os.sep in location
+
+
+def _summarise(exc: BaseException) -> str:
+    text = str(exc).strip().splitlines()[0] if str(exc).strip() else ""
+    return f"{type(exc).__name__}: {text}" if text else type(exc).__name__
+
+
+def _import_file(location: str) -> Any:
+    path = Path(location)
+    if not path.is_file():
+        hint = " (it is a folder)" if path.is_dir() else ""
+        raise TargetLoadError(f"no such file {location}{hint}", value=location)
+    resolved = path.resolve()
+    name = "_gradprobe_target_" + hashlib.sha1(str(resolved).encode()).hexdigest()[:12]
+    spec = importlib.util.spec_from_file_location(name, resolved)
+    if spec is None or spec.loader is None:
+        raise TargetLoadError(f"{location} cannot be imported as a Python file", value=location)
+    module = importlib.util.module_from_spec(spec)
+    folder = str(resolved.parent)
+    sys.path.insert(0, folder)
+    sys.modules[name] = module
+    try:
+        spec.loader.exec_module(module)
+    except BaseException as exc:
+        sys.modules.pop(name, None)
+        if isinstance(exc, KeyboardInterrupt):
+            raise
+        raise TargetLoadError(f"importing it raised {_summarise(exc)}", value=location) from exc
+    finally:
+        _remove_first(sys.path, folder)
+    return module
+
+
+def _import_module(location: str) -> Any:
+    here = os.getcwd()
+    sys.path.insert(0, here)
+    try:
+        return importlib.import_module(location)
+    except ModuleNotFoundError as exc:
+        if exc.name and (location == exc.name or location.startswith(exc.name + ".")):
+            raise TargetLoadError(
+                f"no module named {location} on sys.path or in the current folder "
+                "(name a file as path/to/file.py)",
+                value=location,
+            ) from exc
+        raise TargetLoadError(f"importing it raised {_summarise(exc)}", value=location) from exc
+    except BaseException as exc:
+        if isinstance(exc, KeyboardInterrupt):
+            raise
+        raise TargetLoadError(f"importing it raised {_summarise(exc)}", value=location) from exc
+    finally:
+        _remove_first(sys.path, here)
+
+
+def _remove_first(items: list[str], value: str) -> None:
+    if value in items:
+        items.remove(value)
+
+
+def _attribute_names(obj: Any) -> list[str]:
+    if isinstance(obj, Mapping):
+        return [str(k) for k in obj]
+    return [n for n in dir(obj) if not n.startswith("_")]
+
+
+def _get(obj: Any, name: str, default: Any = None) -> Any:
+    if isinstance(obj, Mapping):
+        return obj.get(name, default)
+    return getattr(obj, name, default)
+
+
+def resolve_object(spec: str) -> Any:
+    """The target object named by ``spec`` (section 1 of the protocol)."""
+    location, attr = split_spec(spec)
+    module = _import_file(location) if is_file_spec(location) else _import_module(location)
+    if attr is None:
+        return module
+    if not hasattr(module, attr):
+        close = difflib.get_close_matches(attr, _attribute_names(module), n=1)
+        tip = f"; did you mean {close[0]!r}?" if close else ""
+        raise TargetLoadError(f"{location} has no attribute {attr!r}{tip}", value=attr)
+    obj = getattr(module, attr)
+    if inspect.isclass(obj) or inspect.isfunction(obj):
+        try:
+            obj = obj()
+        except BaseException as exc:
+            if isinstance(exc, KeyboardInterrupt):
+                raise
+            raise TargetLoadError(f"calling {attr}() raised {_summarise(exc)}", value=attr) from exc
+    return obj
+
+
+def _functions(obj: Any) -> tuple[Callable[..., Any], Callable[..., Any]]:
+    found = []
+    for name in ("forward", "backward"):
+        fn = _get(obj, name)
+        if fn is None:
+            raise TargetLoadError(f"the target has no {name} function", value=name)
+        if not callable(fn):
+            raise TargetLoadError(
+                f"the target's {name} is a {type(fn).__name__}, not a function", value=fn
+            )
+        found.append(fn)
+    return found[0], found[1]
+
+
+def _arrays(obj: Any) -> tuple[Mapping[str, Any], Mapping[str, Any]]:
+    setup = _get(obj, "setup")
+    if setup is not None:
+        if not callable(setup):
+            raise TargetLoadError("the target's setup is not a function", value=setup)
+        try:
+            result = setup()
+        except BaseException as exc:
+            if isinstance(exc, KeyboardInterrupt):
+                raise
+            raise TargetLoadError(f"setup() raised {_summarise(exc)}", value=setup) from exc
+        if not (isinstance(result, tuple) and len(result) == 2):
+            got = f"a tuple of {len(result)}" if isinstance(result, tuple) else type(result).__name__
+            raise TargetLoadError(
+                f"setup() must return (params, inputs) but returned {got}", value=result
+            )
+        params, inputs = result
+    else:
+        params = _get(obj, "params")
+        if params is None:
+            raise TargetLoadError("the target has neither setup() nor params", value=obj)
+        inputs = _get(obj, "inputs", None)
+        inputs = {} if inputs is None else inputs
+    for what, value in (("params", params), ("inputs", inputs)):
+        if not isinstance(value, Mapping):
+            raise TargetLoadError(
+                f"{what} must be a mapping of name -> array, not {type(value).__name__}",
+                value=value,
+            )
+    return params, inputs
+
+
+def target_from_object(obj: Any, label: str, spec: str | None = None) -> Target:
+    """Read forward, backward and the arrays off a target object."""
+    forward, backward = _functions(obj)
+    params, inputs = _arrays(obj)
+    return Target(label, forward, backward, params, inputs, spec)
+
+
+def load_target(spec: str) -> Target:
+    """Load the target named by ``spec``; errors name the spec."""
+    try:
+        return target_from_object(resolve_object(spec), label=spec, spec=spec)
+    except TargetLoadError as exc:
+        raise exc.with_target(spec)
+
+
+def load_functions(spec: str) -> tuple[Callable[..., Any], Callable[..., Any]]:
+    """forward and backward of ``spec``, for worker processes (setup runs, its result is unused)."""
+    target = load_target(spec)
+    return target.forward, target.backward

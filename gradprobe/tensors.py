@@ -1,0 +1,133 @@
+"""Nested mappings of arrays: flattening to dotted names, private copies, read-only views.
+
+The user's arrays are never handed to their own code: a :class:`Workspace` holds private
+copies, gives forward/backward read-only views of them, and perturbs the copies only.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Mapping
+from typing import Any, Iterator
+
+import numpy as np
+
+from .errors import TargetLoadError
+
+INPUT_LAYER = "inputs"
+
+
+def flatten(tree: Mapping[str, Any], prefix: str = "") -> dict[str, Any]:
+    """Flatten a nested mapping to ``{"hidden.W": leaf, ...}`` in insertion order."""
+    flat: dict[str, Any] = {}
+    for key, value in tree.items():
+        name = f"{prefix}{key}"
+        if isinstance(value, Mapping):
+            flat.update(flatten(value, prefix=f"{name}."))
+        else:
+            flat[name] = value
+    return flat
+
+
+def unflatten(flat: Mapping[str, Any], shape_of: Mapping[str, Any]) -> dict[str, Any]:
+    """Rebuild the nesting of ``shape_of`` (a nested mapping) with leaves taken from ``flat``."""
+    out: dict[str, Any] = {}
+    for key, value in shape_of.items():
+        if isinstance(value, Mapping):
+            out[key] = unflatten(
+                {k[len(key) + 1 :]: v for k, v in flat.items() if k.startswith(f"{key}.")}, value
+            )
+        else:
+            out[key] = flat[str(key)]
+    return out
+
+
+def layer_of(name: str) -> str:
+    """The layer of a param: its name up to the last dot (a name without a dot is its own)."""
+    return name.rpartition(".")[0] or name
+
+
+def is_float(array: np.ndarray) -> bool:
+    """True for real floating-point arrays, the only ones gradprobe perturbs."""
+    return bool(np.issubdtype(array.dtype, np.floating))
+
+
+def as_array(value: Any, what: str) -> np.ndarray:
+    """``value`` as a private numeric array, or a TargetLoadError naming ``what``."""
+    try:
+        array = np.array(value, copy=True, order="K")
+    except Exception as exc:  # numpy raises many types for ragged or odd input
+        raise TargetLoadError(f"{what} cannot be made into an array ({exc})", value=value) from exc
+    if not (np.issubdtype(array.dtype, np.number) or array.dtype == np.bool_):
+        raise TargetLoadError(
+            f"{what} is not a numeric array (it is {type(value).__name__} of dtype {array.dtype})",
+            value=value,
+        )
+    return array
+
+
+def format_index(index: tuple[int, ...]) -> str:
+    """``(1, 0)`` as ``[1, 0]`` for messages."""
+    return "[" + ", ".join(str(i) for i in index) + "]"
+
+
+class Workspace:
+    """Private copies of params and inputs, with the read-only trees the user's code sees.
+
+    ``owners`` are writable copies that only gradprobe touches; ``params_tree`` and
+    ``inputs_tree`` hold read-only views of them with the user's nesting, so a perturbation
+    written into an owner is seen by the next forward call, and an in-place write by the
+    user's code raises instead of corrupting the check.
+    """
+
+    def __init__(self, params: Mapping[str, Any], inputs: Mapping[str, Any]) -> None:
+        self._param_shape = params
+        self._input_shape = inputs
+        flat_params = {n: as_array(v, f"param {n}") for n, v in flatten(params).items()}
+        flat_inputs = {n: as_array(v, f"input {n}") for n, v in flatten(inputs).items()}
+        clash = sorted(set(flat_params) & set(flat_inputs))
+        if clash:
+            raise TargetLoadError(f"a param and an input share the name {clash[0]!r}", value=clash)
+        self.param_names = list(flat_params)
+        self._params = set(flat_params)
+        self.input_names = list(flat_inputs)
+        self.owners: dict[str, np.ndarray] = {**flat_params, **flat_inputs}
+        self.views: dict[str, np.ndarray] = {}
+        for name, owner in self.owners.items():
+            view = owner.view()
+            view.flags.writeable = False
+            self.views[name] = view
+        self.params_tree = unflatten({n: self.views[n] for n in self.param_names}, params)
+        self.inputs_tree = unflatten({n: self.views[n] for n in self.input_names}, inputs)
+
+    def names(self) -> Iterator[str]:
+        yield from self.owners
+
+    def kind(self, name: str) -> str:
+        return "param" if name in self._params else "input"
+
+    def layer(self, name: str) -> str:
+        return layer_of(name) if self.kind(name) == "param" else INPUT_LAYER
+
+    def scratch_trees(self) -> tuple[dict[str, Any], dict[str, Any], dict[str, np.ndarray]]:
+        """Fresh writable copies in the user's nesting, to see what a call writes into."""
+        flat = {n: a.copy() for n, a in self.owners.items()}
+        params = unflatten({n: flat[n] for n in self.param_names}, self._param_shape)
+        inputs = unflatten({n: flat[n] for n in self.input_names}, self._input_shape)
+        return params, inputs, flat
+
+    def changed(self, flat: Mapping[str, np.ndarray]) -> list[str]:
+        """Names whose array in ``flat`` is no longer bitwise equal to the private copy."""
+        return [n for n, a in flat.items() if not same_bits(a, self.owners[n])]
+
+    def trees_with(self, replaced: Mapping[str, np.ndarray]) -> tuple[dict, dict]:
+        """The user-facing trees with some tensors swapped for other arrays (complex step)."""
+        flat = {**self.views, **replaced}
+        return (
+            unflatten({n: flat[n] for n in self.param_names}, self._param_shape),
+            unflatten({n: flat[n] for n in self.input_names}, self._input_shape),
+        )
+
+
+def same_bits(a: np.ndarray, b: np.ndarray) -> bool:
+    """Bitwise equality of two arrays (NaNs with the same payload compare equal)."""
+    return a.shape == b.shape and a.dtype == b.dtype and a.tobytes() == b.tobytes()
