@@ -8,6 +8,7 @@ scalar, or ``sum(grad_output * forward(...))`` when the forward returns an array
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 from typing import Any, Callable, Protocol, Sequence
 
@@ -42,6 +43,8 @@ def is_read_only_write(exc: BaseException) -> bool:
 
 def output_to_loss(out: Any, grad_output: np.ndarray | None, where: str) -> float | complex:
     """The scalar loss of one forward result; BadOutputError for anything unusable."""
+    if grad_output is None and type(out) in (float, np.float64, np.float32) and math.isfinite(out):
+        return float(out)  # the common case, kept cheap
     if isinstance(out, (tuple, list, str, bytes, dict)) or out is None:
         raise BadOutputError(
             f"forward returned a {type(out).__name__}{where}, not a number or an array", value=out
@@ -89,34 +92,50 @@ class LossFunction:
         self.grad_output = grad_output
         self._complex: dict[str, np.ndarray] = {}
 
-    def _call(self, params: Any, inputs: Any, where: str) -> float | complex:
+    def _call(self, params: Any, inputs: Any, p: Perturbation | None) -> float | complex:
         try:
             out = self.forward(params, inputs)
         except Exception as exc:
+            where = self._where(p)
             if is_read_only_write(exc):
                 raise InPlaceWriteError(
                     f"forward writes into the arrays it is given{where} ({summarise(exc)})"
                 ) from exc
             raise UserCodeError(f"forward raised {summarise(exc)}{where}") from exc
-        return output_to_loss(out, self.grad_output, where)
+        try:
+            return output_to_loss(out, self.grad_output, "")
+        except BadOutputError as exc:
+            raise BadOutputError(exc.message + self._where(p), value=out) from None
+
+    def _where(self, p: Perturbation | None) -> str:
+        if p is None:
+            return ""
+        return f" when {p.describe(self.workspace.owners[p.tensor].shape)} was perturbed"
 
     def base(self) -> float:
         ws = self.workspace
-        return float(np.real(self._call(ws.params_tree, ws.inputs_tree, "")))
+        return float(np.real(self._call(ws.params_tree, ws.inputs_tree, None)))
 
     def at(self, p: Perturbation) -> float | complex:
         owner = self.workspace.owners[p.tensor]
-        where = f" when {p.describe(owner.shape)} was perturbed"
-        if np.iscomplexobj(p.values) and not np.iscomplexobj(owner):
-            return self._at_complex(p, where)
-        old = owner.flat[p.index].copy()
+        if p.values.dtype.kind == "c" and owner.dtype.kind != "c":
+            return self._at_complex(p)
+        if p.index.size == 1:  # one coordinate: scalar indexing is much cheaper
+            k = int(p.index[0])
+            old = owner.flat[k]
+            owner.flat[k] = p.values[0]
+            try:
+                return self._call(self.workspace.params_tree, self.workspace.inputs_tree, p)
+            finally:
+                owner.flat[k] = old
+        saved = owner.flat[p.index].copy()
         owner.flat[p.index] = p.values
         try:
-            return self._call(self.workspace.params_tree, self.workspace.inputs_tree, where)
+            return self._call(self.workspace.params_tree, self.workspace.inputs_tree, p)
         finally:
-            owner.flat[p.index] = old
+            owner.flat[p.index] = saved
 
-    def _at_complex(self, p: Perturbation, where: str) -> complex:
+    def _at_complex(self, p: Perturbation) -> complex:
         work = self._complex.get(p.tensor)
         if work is None:
             work = self.workspace.owners[p.tensor].astype(np.complex128)
@@ -125,7 +144,7 @@ class LossFunction:
         work.flat[p.index] = p.values
         try:
             params, inputs = self.workspace.trees_with({p.tensor: work})
-            return complex(self._call(params, inputs, where))
+            return complex(self._call(params, inputs, p))
         finally:
             work.flat[p.index] = old
 

@@ -13,6 +13,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..errors import BadOutputError, UserCodeError
 from ..tensors import Workspace
 from .evaluate import Evaluator, Perturbation
 
@@ -56,9 +57,12 @@ def narrower_compute_type(
     names = [n for n in ws.param_names if ws.owners[n].dtype == np.float64 and ws.owners[n].any()]
     if out_dtype != np.float64 or not names:
         return None
-    rounded = _evaluate_all(evaluator, _moved(ws, names, 0.0))
-    nudged = _evaluate_all(evaluator, _moved(ws, names, SMALL))
-    moved = _evaluate_all(evaluator, _moved(ws, names, LARGE))
+    try:
+        rounded = _evaluate_all(evaluator, _moved(ws, names, 0.0))
+        nudged = _evaluate_all(evaluator, _moved(ws, names, SMALL))
+        moved = _evaluate_all(evaluator, _moved(ws, names, LARGE))
+    except (UserCodeError, BadOutputError):
+        return None  # the moved points are outside forward's domain: no evidence either way
     expected = abs(moved - rounded) * (SMALL / LARGE)
     resolvable = expected > 64 * np.finfo(np.float64).eps * max(abs(rounded), abs(f0))
     if resolvable and nudged == rounded:

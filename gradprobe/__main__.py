@@ -1,0 +1,5 @@
+"""``python -m gradprobe``."""
+
+from .cli import main
+
+main()

@@ -1,0 +1,124 @@
+"""The CLI's outputs: JSON report layout, stdout discipline, plain text, options."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+
+from conftest import SAMPLES
+from gradprobe.engine.runner import check
+
+TENSOR_KEYS = {
+    "name", "layer", "kind", "shape", "dtype", "checked", "failed", "kinks", "max_abs_error",
+    "max_rel_error", "worst_index", "bad_indices", "status", "hint",
+}
+
+
+def test_json_report_has_the_protocol_layout(run_cli, tmp_path):
+    result = run_cli("check", str(SAMPLES / "crop_yield_buggy.py"), "--json", "report.json")
+    assert result.exit_code == 1
+    report = json.loads((tmp_path / "report.json").read_text())
+    assert report["schema"] == "gradprobe.report/1"
+    assert {"target", "ok", "threshold", "seed", "summary", "layers", "errors"} <= set(report)
+    assert {"tensors", "checked", "failed", "kinks", "evaluations", "seconds"} <= set(report["summary"])
+    for layer in report["layers"]:
+        assert {"name", "ok", "max_rel_error", "tensors"} <= set(layer)
+        for t in layer["tensors"]:
+            assert TENSOR_KEYS <= set(t)
+            assert t["status"] in {"pass", "fail", "kink", "inconclusive"}
+    out_w = next(t for l in report["layers"] for t in l["tensors"] if t["name"] == "out.W")
+    assert out_w["shape"] == [6, 1] and out_w["layer"] == "out" and out_w["kind"] == "param"
+    assert out_w["failed"] == len(out_w["bad_indices"]) and out_w["worst_index"] in out_w["bad_indices"]
+    # the table still goes to stdout when the JSON goes to a file
+    assert "out.W" in result.stdout
+
+
+def test_json_to_stdout_leaves_nothing_else_there(run_cli):
+    result = run_cli("check", str(SAMPLES / "sensor_mixer.py"), "--json", "-")
+    assert result.exit_code == 0
+    json.loads(result.stdout)  # the whole of stdout is the report
+    assert "agree" in result.stderr  # the verdict line moved to stderr
+
+
+def test_quiet_prints_only_the_verdict(run_cli):
+    result = run_cli("check", str(SAMPLES / "sensor_mixer.py"), "--quiet")
+    assert result.exit_code == 0
+    assert result.stdout.strip().splitlines() == [result.stdout.strip()]
+    assert result.stdout.startswith("ok  4 tensors agree within 1e-06")
+
+
+def test_output_is_plain_when_not_a_terminal(run_cli, monkeypatch):
+    monkeypatch.setenv("NO_COLOR", "1")
+    result = run_cli("check", str(SAMPLES / "crop_yield.py"))
+    assert "\x1b[" not in result.output
+    assert "layer / tensor" in result.output
+
+
+def test_help_has_examples_and_exit_codes(run_cli):
+    result = run_cli("check", "--help")
+    assert "Examples:" in result.output and "Exit codes:" in result.output
+    for option in ("--fail-above", "--json", "--seed", "--quiet", "--traceback"):
+        assert option in result.output
+
+
+def test_version(run_cli):
+    from gradprobe import __version__
+
+    assert run_cli("--version").output.strip() == f"gradprobe {__version__}"
+
+
+def test_threshold_option_decides_the_exit_code(write_target, run_cli):
+    write_target(
+        """
+        import numpy as np
+        params = {"w": np.array([1.0, 2.0])}
+        def forward(p, i):
+            return float(np.sum(p["w"] ** 2))
+        def backward(p, i):
+            return {"w": 2 * p["w"] * (1 + 1e-4)}
+        """,
+        "slightly.py",
+    )
+    assert run_cli("check", "slightly.py").exit_code == 1
+    assert run_cli("check", "slightly.py", "--fail-above", "1e-3").exit_code == 0
+    bad = run_cli("check", "slightly.py", "--fail-above", "-1")
+    assert bad.exit_code == 2 and "threshold must be a positive number" in bad.output
+
+
+def test_unknown_option_is_a_usage_error(run_cli):
+    assert run_cli("check", "x.py", "--no-such-flag").exit_code == 2
+
+
+def test_full_sweep_costs_two_evaluations_per_coordinate_plus_a_constant():
+    w = np.linspace(-1, 1, 40)
+    report = check(lambda p, i: float(np.sum(np.cos(p["w"]))), lambda p, i: {"w": -np.sin(p["w"])}, {"w": w})
+    assert report.ok
+    assert 2 * w.size <= report.evaluations <= 2 * w.size + 6
+
+
+def test_grad_output_is_seeded():
+    """Array outputs are checked as sum(g * out) with g ~ N(0, 1) from the seed."""
+    drawn = []
+
+    def bwd(p, i, g):
+        drawn.append(g.copy())
+        return {"w": g * 2 * p["w"]}
+
+    w = np.array([0.5, -1.5, 2.0])
+    check(lambda p, i: p["w"] ** 2, bwd, {"w": w}, options=None)
+    from gradprobe.options import CheckOptions
+
+    check(lambda p, i: p["w"] ** 2, bwd, {"w": w}, options=CheckOptions(seed=0))
+    check(lambda p, i: p["w"] ** 2, bwd, {"w": w}, options=CheckOptions(seed=1))
+    assert np.array_equal(drawn[0], drawn[1]) and not np.array_equal(drawn[0], drawn[2])
+    assert np.array_equal(drawn[0], np.random.default_rng(0).standard_normal(3))
+
+
+def test_float32_code_gets_a_looser_default_and_a_note():
+    w = np.linspace(0.1, 1.0, 8, dtype=np.float32)
+    report = check(lambda p, i: np.sum(np.exp(p["w"])), lambda p, i: {"w": np.exp(p["w"])}, {"w": w})
+    assert report.ok and report.compute_dtype == "float32" and report.threshold == 1e-2
+    assert any("float32" in n for n in report.notes)
+    wrong = check(lambda p, i: np.sum(np.exp(p["w"])), lambda p, i: {"w": 1.1 * np.exp(p["w"])}, {"w": w})
+    assert not wrong.ok

@@ -1,0 +1,72 @@
+"""Kinks at the point and inside the step are told apart from bugs and from curvature."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from gradprobe.engine.runner import check
+from gradprobe.engine.steps import make_steps
+
+
+def _abs_case(w, c, analytic):
+    return check(
+        lambda p, i: float(np.sum(np.abs(p["w"] - i["c"]))),
+        lambda p, i: {"w": analytic(p["w"] - i["c"])},
+        {"w": w}, {"c": c},
+    )
+
+
+def test_kink_exactly_at_the_point_with_a_subgradient_is_a_kink():
+    """|w - c| at w = c: any analytic value in [-1, 1] is a valid subgradient."""
+    w = np.array([0.7, -0.2, 1.5])
+    c = np.array([0.7, 0.4, -1.0])  # coordinate 0 sits on the kink
+    for pick in (0.0, 1.0, -1.0, 0.5):
+        report = _abs_case(w, c, lambda r: np.where(r == 0, pick, np.sign(r)))
+        t = report.tensor("w")
+        assert report.ok and t.status == "kink" and t.kink_indices == ((0,),), pick
+
+
+def test_analytic_outside_the_one_sided_slopes_fails_at_a_kink():
+    w = np.array([0.7, -0.2])
+    c = np.array([0.7, 0.4])
+    report = _abs_case(w, c, lambda r: np.where(r == 0, 3.0, np.sign(r)))
+    t = report.tensor("w")
+    assert not report.ok and t.bad_indices == ((0,),)
+
+
+@pytest.mark.parametrize("fraction", [0.2, 1.0 / 3.0, 0.5, 0.8])
+def test_kink_inside_the_step_is_a_kink_not_a_failure(fraction):
+    """The kink sits a fraction of the step away from the point; sign(w - c) is exact there."""
+    w = np.array([0.9, 2.0])
+    h = make_steps(w, np.dtype(np.float64)).h_plus[0]
+    c = np.array([0.9 - fraction * h, 0.0])
+    report = _abs_case(w, c, np.sign)
+    t = report.tensor("w")
+    assert report.ok, report.render()
+    assert t.status == "kink" and t.kink_indices == ((0,),)
+
+
+def test_relu_at_zero_is_a_kink():
+    w = np.array([0.0, 0.5, -0.5])
+    report = check(lambda p, i: float(np.sum(3.0 * np.maximum(p["w"], 0))),
+                   lambda p, i: {"w": 3.0 * (p["w"] > 0)}, {"w": w})
+    assert report.ok and report.tensor("w").kink_indices == ((0,),)
+
+
+def test_max_tie_is_a_kink():
+    """max(a, b) with a == b: the derivative picks one side."""
+    w = np.array([1.25, 1.25])
+    report = check(lambda p, i: float(np.max(p["w"])),
+                   lambda p, i: {"w": np.array([1.0, 0.0])}, {"w": w})
+    assert report.ok and report.tensor("w").status == "kink"
+
+
+def test_curvature_is_not_mistaken_for_a_kink():
+    """w**2 at 0 has one-sided slopes -h and +h: they halve with the step, so no kink."""
+    w = np.array([0.0, 1.0, -0.3])
+    report = check(lambda p, i: float(np.sum(p["w"] ** 2)), lambda p, i: {"w": 2 * p["w"]}, {"w": w})
+    assert report.ok and report.tensor("w").status == "pass"
+    steep = check(lambda p, i: float(np.sum(np.exp(30 * p["w"]))),
+                  lambda p, i: {"w": 30 * np.exp(30 * p["w"])}, {"w": w / 10})
+    assert steep.ok and steep.tensor("w").status == "pass"

@@ -1,0 +1,144 @@
+"""The user's arrays stay bitwise unchanged; misbehaving forward/backward exit 2 by name."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from gradprobe.engine.runner import check
+from gradprobe.errors import BadOutputError, InPlaceWriteError, NondeterminismError, UserCodeError
+
+
+def _arrays():
+    rng = np.random.default_rng(3)
+    params = {"layer": {"W": rng.normal(size=(3, 4)), "b": rng.normal(size=4)}}
+    inputs = {"x": rng.normal(size=(5, 3)), "labels": np.array([0, 1, 2, 1, 0])}
+    return params, inputs
+
+
+def _snapshot(tree):
+    out = {}
+    for key, value in tree.items():
+        if isinstance(value, dict):
+            out.update({f"{key}.{k}": v for k, v in _snapshot(value).items()})
+        else:
+            out[key] = (value.dtype, value.shape, value.tobytes(), value.flags.writeable)
+    return out
+
+
+def forward(params, inputs):
+    z = inputs["x"] @ params["layer"]["W"] + params["layer"]["b"]
+    return float(np.sum(np.tanh(z)))
+
+
+def backward(params, inputs):
+    z = inputs["x"] @ params["layer"]["W"] + params["layer"]["b"]
+    dz = 1 - np.tanh(z) ** 2
+    return {"layer": {"W": inputs["x"].T @ dz, "b": dz.sum(axis=0)}}
+
+
+def _assert_unchanged(call):
+    params, inputs = _arrays()
+    before = (_snapshot(params), _snapshot(inputs))
+    try:
+        call(params, inputs)
+    except BaseException:
+        pass
+    assert (_snapshot(params), _snapshot(inputs)) == before
+
+
+def test_unchanged_after_a_pass():
+    _assert_unchanged(lambda p, i: check(forward, backward, p, i))
+
+
+def test_unchanged_after_a_failure():
+    _assert_unchanged(lambda p, i: check(forward, lambda p2, i2: {"layer": {"W": 0 * p2["layer"]["W"], "b": 0 * p2["layer"]["b"]}}, p, i))
+
+
+def test_unchanged_when_backward_raises():
+    def boom(p, i):
+        raise FloatingPointError("overflow in the adjoint")
+
+    params, inputs = _arrays()
+    with pytest.raises(UserCodeError, match="backward raised FloatingPointError: overflow in the adjoint"):
+        check(forward, boom, params, inputs)
+    _assert_unchanged(lambda p, i: check(forward, boom, p, i))
+
+
+def test_unchanged_when_interrupted_mid_sweep():
+    calls = {"n": 0}
+
+    def interrupted(p, i):
+        calls["n"] += 1
+        if calls["n"] == 9:
+            raise KeyboardInterrupt
+        return forward(p, i)
+
+    params, inputs = _arrays()
+    with pytest.raises(KeyboardInterrupt):
+        check(interrupted, backward, params, inputs)
+    calls["n"] = 0
+    _assert_unchanged(lambda p, i: check(interrupted, backward, p, i))
+
+
+def test_forward_raising_mid_sweep_names_the_coordinate():
+    def fragile(p, i):
+        if p["layer"]["W"][1, 2] > 10:
+            raise ValueError("negative rainfall")
+        return forward(p, i)
+
+    params, inputs = _arrays()
+    params["layer"]["W"][1, 2] = 10.0 - 1e-9
+    with pytest.raises(UserCodeError, match=r"when layer.W\[1, 2\] was perturbed"):
+        check(fragile, backward, params, inputs)
+
+
+def test_nondeterministic_forward_is_reported():
+    rng = np.random.default_rng()
+
+    def dropout(p, i):
+        keep = rng.random(4) > 0.5
+        return float(np.sum(np.tanh(i["x"] @ p["layer"]["W"] * keep)))
+
+    params, inputs = _arrays()
+    with pytest.raises(NondeterminismError, match="not deterministic"):
+        check(dropout, backward, params, inputs)
+
+
+def test_forward_writing_into_an_input_is_named():
+    def normalise_in_place(p, i):
+        i["x"] -= i["x"].mean(axis=0)
+        return forward(p, i)
+
+    params, inputs = _arrays()
+    with pytest.raises(InPlaceWriteError, match="forward writes into the arrays it is given \\(input x\\)"):
+        check(normalise_in_place, backward, params, inputs)
+
+
+def test_backward_writing_into_a_param_is_named():
+    def scribbles(p, i):
+        g = backward(p, i)
+        p["layer"]["b"][:] = 0.0
+        return g
+
+    params, inputs = _arrays()
+    with pytest.raises(InPlaceWriteError, match="backward writes into .*param layer.b"):
+        check(forward, scribbles, params, inputs)
+
+
+@pytest.mark.parametrize(
+    "value, message",
+    [((1.0, 2.0), "forward returned a tuple"), ("loss", "forward returned a str"),
+     (float("nan"), "non-finite"), (np.array([1.0, np.inf]), "non-finite"),
+     (np.array(["a", "b"]), "not numbers"), (None, "forward returned a NoneType")],
+)
+def test_unusable_forward_results(value, message):
+    params, inputs = _arrays()
+    with pytest.raises(BadOutputError, match=message):
+        check(lambda p, i: value, backward, params, inputs)
+
+
+def test_backward_must_return_a_mapping():
+    params, inputs = _arrays()
+    with pytest.raises(BadOutputError, match="backward must return a mapping"):
+        check(forward, lambda p, i: [1.0, 2.0], params, inputs)
