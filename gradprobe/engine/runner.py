@@ -3,11 +3,13 @@
 from __future__ import annotations
 
 import time
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from typing import Any, Callable
 
 import numpy as np
 
+from ..diagnose import Context as HintContext
+from ..diagnose import Evidence, diagnose
 from ..errors import ProbeError, TargetLoadError
 from ..options import CheckOptions, default_threshold
 from ..report import LayerResult, Report, TensorResult
@@ -43,6 +45,14 @@ def _threshold_note(dtype: np.dtype, threshold: float, why: str) -> str:
         f"are good to about {eps ** (2 / 3):.0e} relative at best and the default threshold is "
         f"{threshold:g}"
     )
+
+
+def hint_context(ws: Workspace) -> HintContext:
+    """Batch sizes (inputs' leading dimensions) and integer index inputs, for hints."""
+    batches = tuple(ws.owners[n].shape[0] for n in ws.input_names if ws.owners[n].ndim >= 1)
+    indices = {n: ws.owners[n] for n in ws.input_names
+               if np.issubdtype(ws.owners[n].dtype, np.integer)}
+    return HintContext(batch_sizes=batches, index_inputs=indices)
 
 
 def _group(results: list[TensorResult]) -> tuple[LayerResult, ...]:
@@ -99,12 +109,17 @@ def _run(
         notes.append(_threshold_note(compute_dtype, threshold, why))
     ctx = Context(evaluator, ws, info.f0, compute_dtype, threshold, options, rng)
     results: list[TensorResult] = []
+    evidence: list[Evidence] = []
     for name in ws.names():
         layer = ws.layer(name)
         if name in grads.problems:
             results.append(problem_result(name, layer, ws.kind(name), ws.owners[name], grads.problems[name]))
         elif name in grads.values:
-            results.append(check_tensor(ctx, name, grads.values[name]))
+            result, found = check_tensor(ctx, name, grads.values[name])
+            results.append(result)
+            evidence.append(found)
+    hints = diagnose(evidence, hint_context(ws))
+    results = [replace(r, hint=hints[r.name]) if r.name in hints and r.hint is None else r for r in results]
     for name, (shape, sentence) in grads.unknown.items():
         results.append(unknown_result(name, layer_of(name), shape, sentence))
     errors = [r.hint for r in results if r.checked == 0 and r.status == "fail" and r.hint]

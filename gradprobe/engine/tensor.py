@@ -6,6 +6,8 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
+from ..diagnose import Evidence
+from .compare import FAIL
 from .coordinates import Problem, check_coordinates
 from .summary import tensor_result
 
@@ -14,7 +16,8 @@ if TYPE_CHECKING:
     from .runner import Context
 
 
-def check_tensor(ctx: "Context", name: str, grad: np.ndarray) -> "TensorResult":
+def check_tensor(ctx: "Context", name: str, grad: np.ndarray) -> tuple["TensorResult", Evidence]:
+    """The tensor's result (without a hint) and the evidence hints are drawn from."""
     ws = ctx.workspace
     owner = ws.owners[name]
     flat = np.arange(owner.size, dtype=np.int64)
@@ -29,4 +32,6 @@ def check_tensor(ctx: "Context", name: str, grad: np.ndarray) -> "TensorResult":
         threshold=ctx.threshold,
     )
     outcome = check_coordinates(ctx.evaluator, problem, ctx.options.method, ctx.options.recheck)
-    return tensor_result(name, ws.layer(name), ws.kind(name), owner, outcome)
+    evidence = Evidence(name, tuple(owner.shape), outcome.flat, outcome.analytic,
+                        outcome.numeric, outcome.status == FAIL)
+    return tensor_result(name, ws.layer(name), ws.kind(name), owner, outcome), evidence
