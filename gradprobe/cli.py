@@ -49,6 +49,7 @@ class Output:
     json_path: str | None
     quiet: bool
     traceback: bool
+    maps: bool = False
 
     def stdout_free(self) -> bool:
         return self.json_path != "-"
@@ -86,7 +87,7 @@ def _show(report: Report, out: Output) -> None:
     console = _console(stderr=not out.stdout_free())
     theme = PLAIN if console.no_color else COLOUR
     quiet = out.quiet or not out.stdout_free()
-    for item in renderables(report, theme, quiet=quiet):
+    for item in renderables(report, theme, quiet=quiet, with_maps=out.maps):
         console.print(item)
 
 
@@ -130,14 +131,21 @@ def cli() -> None:
 @click.option("--method", type=click.Choice(METHODS), default="central", show_default=True,
               help="Numeric derivative: central differences, Richardson extrapolation, or "
                    "the complex step.")
+@click.option("--no-recheck", is_flag=True,
+              help="Fail coordinates on the plain central difference, without re-checking them "
+                   "by extrapolation first.")
+@click.option("--map", "show_maps", is_flag=True,
+              help="Draw a map of per-element relative error for each failing tensor.")
 @click.option("--quiet", "-q", is_flag=True, help="Print only the verdict line.")
 @click.option("--traceback", "show_traceback", is_flag=True,
               help="Show the full traceback when the check cannot run.")
 def check_command(target: str, threshold: float | None, json_path: str | None, seed: int,
-                  method: str, quiet: bool, show_traceback: bool) -> None:
-    out = Output(json_path, quiet, show_traceback)
+                  method: str, no_recheck: bool, show_maps: bool, quiet: bool,
+                  show_traceback: bool) -> None:
+    out = Output(json_path, quiet, show_traceback, show_maps)
     try:
-        options = CheckOptions(threshold=threshold, seed=seed, method=method)
+        options = CheckOptions(threshold=threshold, seed=seed, method=method,
+                               recheck=not no_recheck)
     except ProbeError as exc:
         _say_error(exc.sentence(), exc, show_traceback)
         sys.exit(EXIT_ERROR)

@@ -27,6 +27,18 @@ class DirectionResult:
 
 
 @dataclass(frozen=True)
+class CoordinateDetail:
+    """One failing or inconclusive coordinate, with the numeric value's error estimate."""
+
+    index: tuple[int, ...]
+    analytic: float
+    numeric: float
+    error_estimate: float
+    rel_error: float
+    status: str
+
+
+@dataclass(frozen=True)
 class TensorResult:
     """The verdict on one tensor's gradient."""
 
@@ -46,6 +58,8 @@ class TensorResult:
     kink_indices: tuple[tuple[int, ...], ...] = ()
     inconclusive: int = 0
     max_error_estimate: float | None = None  # largest numeric error estimate among checked
+    worst_noise: float | None = None  # the worst coordinate's error estimate, relative
+    details: tuple[CoordinateDetail, ...] = ()  # failing and inconclusive coordinates
     hint: str | None = None
     evaluations: int = 0
     directions: tuple[DirectionResult, ...] = ()
@@ -132,7 +146,7 @@ class Report:
 
         return report_dict(self)
 
-    def render(self, width: int = 100) -> str:
+    def render(self, width: int = 120) -> str:
         """The per-layer table as plain text."""
         from .render.terminal import render_text
 

@@ -25,7 +25,7 @@ SMOOTH = {
     "exp_sin": (lambda w: np.exp(np.sin(w)), lambda t: mpmath.exp(mpmath.sin(t))),
     "log1p_sq": (lambda w: np.log1p(w**2), lambda t: mpmath.log(1 + t**2)),
     "cubic_cos": (lambda w: w**3 * np.cos(w), lambda t: t**3 * mpmath.cos(t)),
-    "softplus": (lambda w: np.logaddexp(0.0, 3 * w), lambda t: mpmath.log(1 + mpmath.exp(3 * t))),
+    "softplus": (lambda w: np.log1p(np.exp(3 * w)), lambda t: mpmath.log(1 + mpmath.exp(3 * t))),
 }
 POINTS = np.array([-1.7, -0.3, 0.05, 0.9, 2.4, 11.0])
 

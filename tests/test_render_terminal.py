@@ -29,14 +29,14 @@ def _report(**over) -> Report:
 
 GOLDEN = """\
 gradprobe · nets/mlp.py · central · threshold 1e-06 (float64) · seed 0
-layer / tensor   shape   checked   worst rel   worst abs   at       status   hint
-----------------------------------------------------------------------------------------------------
+layer / tensor   shape   checked   worst rel   ± noise   worst abs   at       status   hint
+------------------------------------------------------------------------------------------------------------------------
 dense
-  dense.W        3x2         6/6     1.0e+00     3.1e-01   [1, 0]   fail     analytic is -1.0 x
-                                                                             numeric: sign flipped
-  dense.b        2           2/2           -           -   -        kink
+  dense.W        3x2         6/6     1.0e+00         -     3.1e-01   [1, 0]   fail     analytic is -1.0 x numeric: sign
+                                                                                       flipped
+  dense.b        2           2/2           -         -           -   -        kink
 inputs
-  x              5x3       15/15     7.5e-10     2.0e-10   [0, 0]   pass
+  x              5x3       15/15     7.5e-10         -     2.0e-10   [0, 0]   pass
 note: a note
 FAIL  1 of 3 tensors disagree beyond 1e-06: dense.W · 51 evaluations in 0.08 s
 """
@@ -44,7 +44,7 @@ FAIL  1 of 3 tensors disagree beyond 1e-06: dense.W · 51 evaluations in 0.08 s
 
 def test_plain_table_golden():
     """Layer rows, tensor rows, notes and the verdict, in a fixed layout."""
-    text = render_text(_report(), width=100)
+    text = render_text(_report(), width=120)
     assert "\n".join(line.rstrip() for line in text.splitlines()) + "\n" == GOLDEN
 
 

@@ -97,8 +97,8 @@ def test_nondeterministic_forward_is_reported():
     rng = np.random.default_rng()
 
     def dropout(p, i):
-        keep = rng.random(4) > 0.5
-        return float(np.sum(np.tanh(i["x"] @ p["layer"]["W"] * keep)))
+        keep = rng.random((5, 4)) > 0.5  # 20 units: two equal masks are vanishingly rare
+        return float(np.sum(np.tanh(i["x"] @ p["layer"]["W"]) * keep) + rng.random())
 
     params, inputs = _arrays()
     with pytest.raises(NondeterminismError, match="not deterministic"):

@@ -6,7 +6,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..errors import ComplexStepError
+from ..errors import BadOutputError, ComplexStepError, UserCodeError
 from . import compare
 from .compare import FAIL, INCONCLUSIVE, KINK, PASS
 from .differences import Slopes, slopes
@@ -28,6 +28,7 @@ class CoordinateOutcome:
     error_estimate: np.ndarray
     rel: np.ndarray
     abs: np.ndarray
+    scale: np.ndarray  # the denominator of rel per coordinate
     status: np.ndarray
     evaluations: int
 
@@ -55,8 +56,14 @@ def _complex_step(evaluator: Evaluator, p: Problem) -> tuple[np.ndarray, np.ndar
         Perturbation(p.tensor, p.flat[i : i + 1], np.array([p.x[i] + 1j * h[i]]))
         for i in range(p.flat.size)
     ]
-    values = evaluator.losses(requests)
-    if not np.iscomplexobj(values) or not np.any(values.imag) and np.any(p.analytic):
+    try:
+        values = evaluator.losses(requests)
+    except (UserCodeError, BadOutputError) as exc:
+        raise ComplexStepError(
+            f"forward cannot take complex inputs, so --method complex cannot be used "
+            f"({exc.message})"
+        ) from exc
+    if not np.any(values.imag) and np.any(p.analytic):
         raise ComplexStepError(
             "forward drops the imaginary part of complex inputs, so --method complex cannot "
             "be used (np.real, float(), astype(float) or abs() in forward?)"
@@ -142,6 +149,7 @@ def check_coordinates(
         error_estimate=noise,
         rel=compare.relative_errors(p.analytic, numeric, floor),
         abs=err,
+        scale=compare.denominators(p.analytic, numeric, floor),
         status=status,
         evaluations=evaluator.count - start,
     )

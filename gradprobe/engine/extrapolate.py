@@ -46,7 +46,7 @@ def coordinate_central(
     base_scale = FIRST_STEP_FACTOR * eps**FIRST_STEP_EXPONENT / eps ** (1.0 / 3.0)
 
     def central(which: np.ndarray, scale: float) -> tuple[np.ndarray, np.ndarray]:
-        steps = make_steps(x[which], compute_dtype, scale * base_scale)
+        steps = make_steps(x[which], compute_dtype, scale * base_scale, power_of_two=False)
         requests: list[Perturbation] = []
         for k, i in enumerate(which):
             index = flat[i : i + 1]

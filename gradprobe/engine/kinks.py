@@ -14,6 +14,7 @@ import numpy as np
 from .differences import Slopes
 
 GAP_SUSPECT = 0.1  # one-sided slopes 10% apart cannot come from curvature at these steps
+CENTRAL_SHARE = 0.05  # a kink inside the step moves the central difference by >= 5% of the gap
 
 
 def gap_suspects(s: Slopes, floor: float) -> np.ndarray:
@@ -32,7 +33,10 @@ def classify(
     margin = tol + 4.0 * np.maximum(wide.noise, narrow.noise)
     jump = np.abs(wide.gap) > margin
     not_halving = np.abs(narrow.gap - 0.5 * wide.gap) > 0.25 * np.abs(wide.gap) + margin
-    central_moved = np.abs(narrow.central - wide.central) > margin
+    # For smooth f the central difference moves by ~h**2 |f'''|, a vanishing fraction of the
+    # gap h |f''|; a kink inside the step moves it by a fixed fraction of the jump.
+    share = CENTRAL_SHARE * np.abs(wide.gap)
+    central_moved = np.abs(narrow.central - wide.central) > share + margin
     at_kink = jump & (not_halving | central_moved)
     sides = np.stack([wide.left, wide.right, narrow.left, narrow.right])
     low = sides.min(axis=0) - margin

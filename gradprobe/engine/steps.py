@@ -36,11 +36,17 @@ def _seen(values: np.ndarray, compute_dtype: np.dtype) -> np.ndarray:
     return values.astype(np.float64)
 
 
-def make_steps(x: np.ndarray, compute_dtype: np.dtype, scale: float = 1.0) -> Steps:
-    """Steps for the 1-D float array ``x`` (values of the coordinates to perturb)."""
+def make_steps(
+    x: np.ndarray, compute_dtype: np.dtype, scale: float = 1.0, power_of_two: bool = True
+) -> Steps:
+    """Steps for the 1-D float array ``x`` (values of the coordinates to perturb).
+
+    ``power_of_two=False`` keeps the nominal step, for tableaux whose steps must shrink by
+    a fixed ratio.
+    """
     x = np.asarray(x)
     raw = relative_step(compute_dtype) * scale * np.maximum(1.0, np.abs(x.astype(np.float64)))
-    h = np.exp2(np.round(np.log2(raw)))
+    h = np.exp2(np.round(np.log2(raw))) if power_of_two else raw
     for _ in range(4):  # a step below the resolution of x reads back as 0: widen it
         plus = (x + h).astype(x.dtype)
         minus = (x - h).astype(x.dtype)

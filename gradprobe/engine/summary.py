@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..report import DirectionResult, TensorResult
-from .compare import FAIL, INCONCLUSIVE, KINK
+from ..report import CoordinateDetail, DirectionResult, TensorResult
+from .compare import FAIL, INCONCLUSIVE, KINK, STATUS_NAMES
 from .coordinates import CoordinateOutcome
 
 MAX_LISTED = 100
@@ -18,6 +18,23 @@ def _indices(flat: np.ndarray, shape: tuple[int, ...]) -> tuple[tuple[int, ...],
 
 def _worst_first(flat: np.ndarray, rel: np.ndarray) -> np.ndarray:
     return flat[np.argsort(-rel, kind="stable")[:MAX_LISTED]]
+
+
+def _details(outcome: CoordinateOutcome, shape: tuple[int, ...]) -> tuple[CoordinateDetail, ...]:
+    doubtful = np.flatnonzero((outcome.status == FAIL) | (outcome.status == INCONCLUSIVE))
+    doubtful = doubtful[np.argsort(-outcome.rel[doubtful], kind="stable")[:MAX_LISTED]]
+    doubtful = doubtful[np.argsort(outcome.flat[doubtful], kind="stable")]
+    return tuple(
+        CoordinateDetail(
+            index=tuple(int(i) for i in np.unravel_index(int(outcome.flat[k]), shape)),
+            analytic=float(outcome.analytic[k]),
+            numeric=float(outcome.numeric[k]),
+            error_estimate=float(outcome.error_estimate[k]),
+            rel_error=float(outcome.rel[k]),
+            status=STATUS_NAMES[int(outcome.status[k])],
+        )
+        for k in doubtful
+    )
 
 
 def status_of(failed: int, inconclusive: int, kinks: int) -> str:
@@ -44,12 +61,13 @@ def tensor_result(
     s = outcome.status
     failing = s == FAIL
     judged = s != KINK
-    worst = max_abs = max_rel = None
+    worst = max_abs = max_rel = worst_noise = None
     if judged.any():
         k = int(np.argmax(np.where(judged, outcome.rel, -np.inf)))
         worst = tuple(int(i) for i in np.unravel_index(int(outcome.flat[k]), shape))
         max_rel = float(outcome.rel[k])
         max_abs = float(outcome.abs[judged].max())
+        worst_noise = float(outcome.error_estimate[k] / outcome.scale[k])
     estimates = outcome.error_estimate[np.isfinite(outcome.error_estimate)]
     failed = int(failing.sum())
     error_map = np.full(shape, np.nan)
@@ -74,6 +92,8 @@ def tensor_result(
         bad_indices=_indices(_worst_first(outcome.flat[failing], outcome.rel[failing]), shape),
         kink_indices=_indices(outcome.flat[s == KINK][:MAX_LISTED], shape),
         max_error_estimate=float(estimates.max()) if estimates.size else None,
+        worst_noise=worst_noise,
+        details=_details(outcome, shape),
         hint=hint,
         evaluations=outcome.evaluations if evaluations is None else evaluations,
         directions=directions,

@@ -6,7 +6,7 @@ import json
 import math
 from typing import Any
 
-from ..report import DirectionResult, Report, TensorResult
+from ..report import CoordinateDetail, DirectionResult, Report, TensorResult
 
 SCHEMA = "gradprobe.report/1"
 
@@ -29,6 +29,17 @@ def _direction(d: DirectionResult) -> dict[str, Any]:
     }
 
 
+def _detail(c: CoordinateDetail) -> dict[str, Any]:
+    return {
+        "index": list(c.index),
+        "analytic": _num(c.analytic),
+        "numeric": _num(c.numeric),
+        "error_estimate": _num(c.error_estimate),
+        "rel_error": _num(c.rel_error),
+        "status": c.status,
+    }
+
+
 def tensor_dict(t: TensorResult) -> dict[str, Any]:
     return {
         "name": t.name,
@@ -44,12 +55,14 @@ def tensor_dict(t: TensorResult) -> dict[str, Any]:
         "max_abs_error": _num(t.max_abs_error),
         "max_rel_error": _num(t.max_rel_error),
         "max_error_estimate": _num(t.max_error_estimate),
+        "worst_noise": _num(t.worst_noise),
         "worst_index": list(t.worst_index) if t.worst_index is not None else None,
         "bad_indices": [list(i) for i in t.bad_indices],
         "kink_indices": [list(i) for i in t.kink_indices],
         "status": t.status,
         "hint": t.hint,
         "evaluations": t.evaluations,
+        "details": [_detail(c) for c in t.details],
         "directions": [_direction(d) for d in t.directions],
         "located_evaluations": t.located_evaluations,
     }

@@ -17,6 +17,7 @@ from rich.text import Text
 
 from ..report import Report, TensorResult
 from ..tensors import format_index
+from .heatmap import maps
 
 
 @dataclass(frozen=True)
@@ -59,6 +60,7 @@ def _row(t: TensorResult, theme: Theme) -> list[Text | str]:
         shape_text(t.shape),
         checked,
         fmt(t.max_rel_error),
+        fmt(t.worst_noise),
         fmt(t.max_abs_error),
         where,
         Text(t.status, style=theme.style(t.status)),
@@ -70,12 +72,12 @@ def table(report: Report, theme: Theme) -> Table:
     grid = Table(box=theme.box, show_edge=False, pad_edge=False, expand=False)
     for title, justify in (
         ("layer / tensor", "left"), ("shape", "left"), ("checked", "right"),
-        ("worst rel", "right"), ("worst abs", "right"), ("at", "left"),
+        ("worst rel", "right"), ("± noise", "right"), ("worst abs", "right"), ("at", "left"),
         ("status", "left"), ("hint", "left"),
     ):
         grid.add_column(title, justify=justify, overflow="fold")  # type: ignore[arg-type]
     for layer in report.layers:
-        grid.add_row(Text(layer.name, style=theme.style("layer")), *[""] * 7)
+        grid.add_row(Text(layer.name, style=theme.style("layer")), *[""] * 8)
         for t in layer.tensors:
             grid.add_row(*_row(t, theme))
     return grid
@@ -107,27 +109,33 @@ def verdict(report: Report) -> str:
     return f"ok  {n} tensors agree within {report.threshold:g}{more} · {cost}"
 
 
-def renderables(report: Report, theme: Theme, quiet: bool = False) -> Iterable[RenderableType]:
+def renderables(
+    report: Report, theme: Theme, quiet: bool = False, with_maps: bool = False
+) -> Iterable[RenderableType]:
     style = theme.style("ok") if report.ok else theme.style("bad")
     if not quiet:
         yield Text(header(report), style=theme.style("dim"))
         yield table(report, theme)
+        if with_maps:
+            yield from maps(report, colour=theme is not PLAIN)
         for note in report.notes:
             yield Text(f"note: {note}", style=theme.style("note"))
     yield Text(verdict(report), style=style)
 
 
-def plain_console(file: io.TextIOBase | io.StringIO, width: int = 100) -> Console:
+def plain_console(file: io.TextIOBase | io.StringIO, width: int = 120) -> Console:
     return Console(
         file=file, width=width, no_color=True, color_system=None, force_terminal=False,
         highlight=False, emoji=False, markup=False, soft_wrap=False,
     )
 
 
-def render_text(report: Report, width: int = 100, quiet: bool = False) -> str:
+def render_text(
+    report: Report, width: int = 120, quiet: bool = False, with_maps: bool = False
+) -> str:
     """The report as plain text (no colour), e.g. for pytest messages and logs."""
     buffer = io.StringIO()
     console = plain_console(buffer, width)
-    for item in renderables(report, PLAIN, quiet):
+    for item in renderables(report, PLAIN, quiet, with_maps):
         console.print(item)
     return buffer.getvalue()

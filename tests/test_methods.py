@@ -1,0 +1,144 @@
+"""Extrapolation, the complex step, re-checks of suspects, inconclusive verdicts, float32.
+
+References: mpmath.diff at 50 digits; the complex-step derivative Im f(x + ih)/h (Squire &
+Trapp, SIAM Review 40(1), 1998); Ridders' tableau (Advances in Engineering Software 4(2), 1982).
+"""
+
+from __future__ import annotations
+
+import mpmath
+import numpy as np
+import pytest
+
+from gradprobe.engine.evaluate import Evaluator, LossFunction
+from gradprobe.engine.extrapolate import coordinate_central, extrapolate
+from gradprobe.engine.runner import check
+from gradprobe.errors import ComplexStepError
+from gradprobe.options import CheckOptions
+from gradprobe.tensors import Workspace
+from test_numerics_reference import POINTS, SMOOTH
+
+mpmath.mp.dps = 50
+
+
+def _reference(mp_fn, t):
+    return float(mpmath.diff(mp_fn, mpmath.mpf(float(t))))
+
+
+@pytest.mark.parametrize("name", sorted(SMOOTH))
+def test_extrapolation_within_1e_11_of_mpmath_and_its_estimate_bounds_the_error(name):
+    fn, mp_fn = SMOOTH[name]
+    for t in POINTS:
+        ws = Workspace({"w": np.array([t])}, {})
+        ev = Evaluator(LossFunction(lambda p, i: float(fn(p["w"][0])), ws, None))
+        central = coordinate_central(ev, "w", np.arange(1), np.array([t]), np.dtype(np.float64))
+        result = extrapolate(central, 1)
+        ref = _reference(mp_fn, t)
+        error = abs(result.value[0] - ref)
+        assert error <= 1e-11 * abs(ref), (t, error / abs(ref))
+        assert error <= result.error[0]  # the estimate bounds the true error
+        assert result.evaluations == ev.count
+
+
+@pytest.mark.parametrize("name", sorted(SMOOTH))
+def test_complex_step_within_1e_14_of_mpmath(name):
+    fn, mp_fn = SMOOTH[name]
+    ref = np.array([_reference(mp_fn, t) for t in POINTS])
+    report = check(lambda p, i: np.sum(fn(p["w"])), lambda p, i: {"w": ref}, {"w": POINTS.copy()},
+                   options=CheckOptions(method="complex"))
+    t = report.tensor("w")
+    assert report.ok and t.max_rel_error < 1e-14
+    assert report.evaluations <= POINTS.size + 8  # one evaluation per coordinate
+
+
+def test_complex_step_refuses_a_forward_that_drops_the_imaginary_part():
+    with pytest.raises(ComplexStepError, match="drops the imaginary part"):
+        check(lambda p, i: float(np.real(np.sum(np.sin(p["w"])))), lambda p, i: {"w": np.cos(p["w"])},
+              {"w": POINTS.copy()}, options=CheckOptions(method="complex"))
+
+
+def test_complex_step_refuses_a_forward_that_raises_on_complex_values():
+    with pytest.raises(ComplexStepError, match="cannot take complex inputs"):
+        check(lambda p, i: np.sum(np.logaddexp(0.0, p["w"])),  # logaddexp has no complex loop
+              lambda p, i: {"w": 1 / (1 + np.exp(-p["w"]))},
+              {"w": POINTS[:3].copy()}, options=CheckOptions(method="complex"))
+
+
+def test_richardson_method_everywhere():
+    w = np.linspace(-1, 1, 7)
+    report = check(lambda p, i: float(np.sum(np.sin(3 * p["w"]))), lambda p, i: {"w": 3 * np.cos(3 * p["w"])},
+                   {"w": w}, options=CheckOptions(method="richardson"))
+    assert report.ok and report.method == "richardson"
+    assert report.tensor("w").max_rel_error < 1e-10
+
+
+def test_suspects_are_rechecked_before_failing():
+    """sin(1000 w): the plain central difference's truncation error (h**2 1000**2 / 6 ~ 6e-6
+    relative) exceeds 1e-6; extrapolation clears it. Without the re-check it would fail."""
+    w = np.linspace(0.1, 0.9, 9)
+
+    def forward(p, i):
+        return float(np.sum(np.sin(1000 * p["w"])))
+
+    def backward(p, i):
+        return {"w": 1000 * np.cos(1000 * p["w"])}
+
+    rechecked = check(forward, backward, {"w": w})
+    assert rechecked.ok
+    plain = check(forward, backward, {"w": w}, options=CheckOptions(recheck=False))
+    assert not plain.ok
+
+
+def test_a_noisy_estimate_is_inconclusive_not_a_failure():
+    """A loss of 1e9 + sum(w**2): rounding noise in the loss swamps a 1e-6 comparison."""
+    w = np.array([0.3, -0.8, 1.1])
+
+    def forward(p, i):
+        return float(1e9 + np.sum(p["w"] ** 2))
+
+    report = check(forward, lambda p, i: {"w": 2 * p["w"]}, {"w": w})
+    t = report.tensor("w")
+    assert report.ok and t.status == "inconclusive" and t.inconclusive > 0
+    assert all(d.status == "inconclusive" and d.error_estimate > 0 for d in t.details)
+    wrong = check(forward, lambda p, i: {"w": 3 * p["w"]}, {"w": w})
+    assert not wrong.ok  # a real error is still caught through the noise
+
+
+def test_float32_inside_a_float64_forward_is_noticed():
+    w = np.linspace(0.2, 1.2, 6)
+
+    def forward(p, i):
+        return float(np.sum(np.tanh(p["w"].astype(np.float32) * np.float32(1.5))))
+
+    def backward(p, i):
+        return {"w": 1.5 * (1 - np.tanh(1.5 * p["w"]) ** 2)}
+
+    report = check(forward, backward, {"w": w})
+    assert report.compute_dtype == "float32" and report.threshold == 1e-2
+    assert any("although its params are float64" in n for n in report.notes)
+    assert report.ok
+    assert not check(forward, lambda p, i: {"w": 1.1 * backward(p, i)["w"]}, {"w": w}).ok
+
+
+def test_float64_forward_is_not_mistaken_for_float32():
+    w = np.linspace(0.2, 1.2, 6)
+    report = check(lambda p, i: float(np.sum(np.tanh(p["w"]))), lambda p, i: {"w": 1 - np.tanh(p["w"]) ** 2}, {"w": w})
+    assert report.compute_dtype == "float64" and report.threshold == 1e-6 and not report.notes
+
+
+def test_correct_float32_layer_passes_and_a_ten_percent_bug_fails():
+    rng = np.random.default_rng(2)
+    W = rng.normal(size=(5, 3)).astype(np.float32)
+    x = rng.normal(size=(20, 5)).astype(np.float32)
+
+    def forward(p, i):
+        return np.sum(np.tanh(i["x"] @ p["W"]) ** 2)
+
+    def backward(p, i, factor=1.0):
+        t = np.tanh(i["x"] @ p["W"])
+        return {"W": factor * (i["x"].T @ (2 * t * (1 - t**2)))}
+
+    good = check(forward, backward, {"W": W}, {"x": x})
+    assert good.ok and good.compute_dtype == "float32"
+    bad = check(forward, lambda p, i: backward(p, i, 1.1), {"W": W}, {"x": x})
+    assert not bad.ok and bad.tensor("W").failed == W.size
