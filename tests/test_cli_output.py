@@ -122,3 +122,21 @@ def test_float32_code_gets_a_looser_default_and_a_note():
     assert any("float32" in n for n in report.notes)
     wrong = check(lambda p, i: np.sum(np.exp(p["w"])), lambda p, i: {"w": 1.1 * np.exp(p["w"])}, {"w": w})
     assert not wrong.ok
+
+
+def test_method_option(run_cli):
+    result = run_cli("check", str(SAMPLES / "sensor_mixer.py"), "--method", "complex", "--json", "-")
+    assert result.exit_code == 0 and json.loads(result.stdout)["method"] == "complex"
+    assert run_cli("check", str(SAMPLES / "sensor_mixer.py"), "--method", "richardson").exit_code == 0
+
+
+def test_complex_method_on_a_forward_with_abs_exits_2(run_cli):
+    result = run_cli("check", str(SAMPLES / "crop_yield.py"), "--method", "complex")
+    assert result.exit_code == 2
+    assert "drops the imaginary part" in result.output and "Traceback" not in result.output
+
+
+def test_map_option_draws_failing_tensors(run_cli):
+    result = run_cli("check", str(SAMPLES / "crop_yield_buggy.py"), "--map")
+    assert result.exit_code == 1
+    assert "out.W: 6 rows x 1 columns" in result.output and "map: ' ' not checked" in result.output
