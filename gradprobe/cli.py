@@ -17,6 +17,7 @@ from .engine.runner import run_check
 from .errors import ProbeError
 from .options import METHODS, CheckOptions
 from .render.json import render_json
+from .render.progress import TerminalProgress
 from .render.terminal import COLOUR, PLAIN, renderables
 from .report import Report
 from .target import load_target
@@ -55,10 +56,6 @@ class Output:
         return self.json_path != "-"
 
 
-def _plain() -> bool:
-    return bool(os.environ.get("NO_COLOR")) or not sys.stdout.isatty()
-
-
 def _console(stderr: bool = False) -> Console:
     stream = sys.stderr if stderr else sys.stdout
     plain = bool(os.environ.get("NO_COLOR")) or not stream.isatty()
@@ -91,11 +88,22 @@ def _show(report: Report, out: Output) -> None:
         console.print(item)
 
 
+def _progress() -> TerminalProgress | None:
+    if not sys.stderr.isatty() or os.environ.get("CI"):
+        return None
+    return TerminalProgress(Console(file=sys.stderr))
+
+
 def check_one(spec: str, options: CheckOptions, out: Output) -> tuple[int, Report | None]:
     """Check one target; returns its exit code and report (None when it could not run)."""
+    progress = _progress()
     try:
         target = load_target(spec)
-        report = run_check(target, options)
+        try:
+            report = run_check(target, options, progress=progress)
+        finally:
+            if progress is not None:
+                progress.close()
         _show(report, out)
     except ProbeError as exc:
         _say_error(exc.with_target(spec).sentence(), exc, out.traceback)
@@ -131,6 +139,15 @@ def cli() -> None:
 @click.option("--method", type=click.Choice(METHODS), default="central", show_default=True,
               help="Numeric derivative: central differences, Richardson extrapolation, or "
                    "the complex step.")
+@click.option("--sample", type=click.IntRange(min=0), default=None, metavar="N",
+              help="Check at most N coordinates per tensor, stratified over every axis plus the "
+                   "largest gradients (0: directional checks only) [default: all coordinates "
+                   "of tensors up to 4096 elements, 24 of larger ones].")
+@click.option("--directions", type=click.IntRange(min=0), default=None, metavar="K",
+              help="Random-direction checks per tensor, 2 evaluations each plus extrapolation "
+                   "[default: 2 for tensors above 4096 elements or with --sample 0, else 0].")
+@click.option("--jobs", "-j", type=click.IntRange(min=1), default=1, show_default=True,
+              help="Evaluate perturbations in N worker processes.")
 @click.option("--no-recheck", is_flag=True,
               help="Fail coordinates on the plain central difference, without re-checking them "
                    "by extrapolation first.")
@@ -140,12 +157,12 @@ def cli() -> None:
 @click.option("--traceback", "show_traceback", is_flag=True,
               help="Show the full traceback when the check cannot run.")
 def check_command(target: str, threshold: float | None, json_path: str | None, seed: int,
-                  method: str, no_recheck: bool, show_maps: bool, quiet: bool,
-                  show_traceback: bool) -> None:
+                  method: str, sample: int | None, directions: int | None, jobs: int,
+                  no_recheck: bool, show_maps: bool, quiet: bool, show_traceback: bool) -> None:
     out = Output(json_path, quiet, show_traceback, show_maps)
     try:
-        options = CheckOptions(threshold=threshold, seed=seed, method=method,
-                               recheck=not no_recheck)
+        options = CheckOptions(threshold=threshold, seed=seed, method=method, sample=sample,
+                               directions=directions, jobs=jobs, recheck=not no_recheck)
     except ProbeError as exc:
         _say_error(exc.sentence(), exc, show_traceback)
         sys.exit(EXIT_ERROR)

@@ -46,6 +46,8 @@ class CheckOptions:
             value = getattr(self, name)
             if value is not None and value < 0:
                 raise UsageProblem(f"{name} must be 0 or more, not {value}")
+        if self.sample == 0 and self.directions == 0:
+            raise UsageProblem("sample 0 with directions 0 would check nothing")
         if self.jobs < 1:
             raise UsageProblem(f"jobs must be 1 or more, not {self.jobs}")
 

@@ -149,6 +149,14 @@ class LossFunction:
             work.flat[p.index] = old
 
 
+class Progress(Protocol):
+    """Told how many evaluations are planned and how many are done."""
+
+    def planned(self, evaluations: int) -> None: ...
+
+    def done(self, evaluations: int) -> None: ...
+
+
 class Backend(Protocol):
     """Evaluates a batch of perturbations somewhere (worker processes, a cluster)."""
 
@@ -162,7 +170,7 @@ class Evaluator:
         self,
         loss: LossFunction,
         backend: Backend | None = None,
-        progress: Callable[[int], None] | None = None,
+        progress: Progress | None = None,
     ) -> None:
         self.loss = loss
         self.backend = backend
@@ -177,17 +185,19 @@ class Evaluator:
         """Loss values, one per perturbation, in order."""
         if not perturbations:
             return np.empty(0)
+        if self.progress:
+            self.progress.planned(len(perturbations))
         complex_step = np.iscomplexobj(perturbations[0].values)
         if self.backend is not None and not complex_step and len(perturbations) > 1:
             values = np.asarray(self.backend.losses(perturbations), dtype=np.float64)
             self.count += len(perturbations)
             if self.progress:
-                self.progress(len(perturbations))
+                self.progress.done(len(perturbations))
             return values
         out = np.empty(len(perturbations), dtype=np.complex128 if complex_step else np.float64)
         for i, p in enumerate(perturbations):
             out[i] = self.loss.at(p)
             self.count += 1
             if self.progress:
-                self.progress(1)
+                self.progress.done(1)
         return out

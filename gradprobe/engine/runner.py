@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import time
+from concurrent.futures import Executor, ProcessPoolExecutor
 from dataclasses import dataclass, replace
 from typing import Any, Callable
 
@@ -15,14 +16,28 @@ from ..options import CheckOptions, default_threshold
 from ..report import LayerResult, Report, TensorResult
 from ..target import Target
 from ..tensors import INPUT_LAYER, Workspace, is_float, layer_of
-from .evaluate import Backend, Evaluator, LossFunction
-from .gradients import validate
-from .preflight import call_backward, inspect_forward
+from .evaluate import Backend, Evaluator, LossFunction, Progress
+from .gradients import Gradients, validate
+from .preflight import ForwardInfo, call_backward, inspect_forward
 from .summary import problem_result, unknown_result
 from .tensor import check_tensor
 
-# Builds an executor backend once the workspace and grad_output are known.
-BackendFactory = Callable[[Workspace, "np.ndarray | None"], Backend]
+def _backend(
+    target: Target, ws: Workspace, grad_output: np.ndarray | None, options: CheckOptions,
+    executor: Executor | None,
+) -> tuple[Backend | None, Callable[[], None]]:
+    """Where perturbations are evaluated, and how to release it afterwards."""
+    from .parallel import ExecutorBackend, WorkerPool
+
+    if executor is not None:
+        return ExecutorBackend(executor, target.forward, ws, grad_output), lambda: None
+    if options.jobs <= 1:
+        return None, lambda: None
+    if target.spec is not None:
+        pool = WorkerPool(target.spec, ws, grad_output, options.jobs)
+        return pool, pool.close
+    own = ProcessPoolExecutor(max_workers=options.jobs)
+    return ExecutorBackend(own, target.forward, ws, grad_output, options.jobs), own.shutdown
 
 
 @dataclass(frozen=True)
@@ -67,13 +82,17 @@ def run_check(
     target: Target,
     options: CheckOptions | None = None,
     *,
-    backend: BackendFactory | None = None,
-    progress: Callable[[int], None] | None = None,
+    executor: Executor | None = None,
+    progress: Progress | None = None,
     clock: Callable[[], float] = time.perf_counter,
 ) -> Report:
-    """Check ``target``; ProbeError subclasses when the check cannot run."""
+    """Check ``target``; ProbeError subclasses when the check cannot run.
+
+    ``executor`` spreads the evaluations over any ``concurrent.futures.Executor`` (a Dask
+    client's ``get_executor()`` included); ``options.jobs > 1`` starts worker processes.
+    """
     try:
-        return _run(target, options or CheckOptions(), backend, progress, clock)
+        return _run(target, options or CheckOptions(), executor, progress, clock)
     except ProbeError as exc:
         raise exc.with_target(target.label)
 
@@ -81,8 +100,8 @@ def run_check(
 def _run(
     target: Target,
     options: CheckOptions,
-    backend: BackendFactory | None,
-    progress: Callable[[int], None] | None,
+    executor: Executor | None,
+    progress: Progress | None,
     clock: Callable[[], float],
 ) -> Report:
     started = clock()
@@ -94,8 +113,18 @@ def _run(
     evaluator = Evaluator(loss, None, progress)
     info = inspect_forward(target.forward, ws, evaluator, rng)
     grads = validate(call_backward(target.backward, ws, info.grad_output), ws)
-    if backend is not None:
-        evaluator.backend = backend(ws, info.grad_output)
+    evaluator.backend, release = _backend(target, ws, info.grad_output, options, executor)
+    try:
+        return _check_all(target, options, ws, evaluator, info, grads, rng, started, clock)
+    finally:
+        release()
+
+
+def _check_all(
+    target: Target, options: CheckOptions, ws: Workspace, evaluator: Evaluator,
+    info: ForwardInfo, grads: Gradients, rng: np.random.Generator, started: float,
+    clock: Callable[[], float],
+) -> Report:
     compute_dtype = info.out_dtype
     notes = list(grads.notes)
     from .precision import narrower_compute_type  # local: keeps the import graph acyclic

@@ -1,14 +1,21 @@
-"""Checking one tensor: which coordinates, which numeric method, and the summary."""
+"""Checking one tensor: which coordinates and directions, localisation, the summary."""
 
 from __future__ import annotations
 
+from dataclasses import replace
 from typing import TYPE_CHECKING
 
 import numpy as np
 
 from ..diagnose import Evidence
+from ..options import CheckOptions
+from ..report import DirectionResult
+from . import compare
 from .compare import FAIL
 from .coordinates import Problem, check_coordinates
+from .directions import Slope, random_directions, slope
+from .locate import locate
+from .sampling import stratified, tensor_rng
 from .summary import tensor_result
 
 if TYPE_CHECKING:
@@ -16,22 +23,73 @@ if TYPE_CHECKING:
     from .runner import Context
 
 
+def plan(options: CheckOptions, size: int) -> tuple[int, int]:
+    """(coordinates to check, random directions) for a tensor of ``size`` elements."""
+    if options.sample is not None:
+        coordinates = options.sample
+    elif size <= options.sweep_limit:
+        coordinates = size
+    else:
+        coordinates = options.default_sample
+    if options.directions is not None:
+        directions = options.directions
+    elif size > options.sweep_limit or options.sample == 0:
+        directions = options.default_directions
+    else:
+        directions = 0
+    return min(coordinates, size), directions
+
+
+def _direction_results(s: Slope, a: np.ndarray, threshold: float, per_direction: int) -> tuple[DirectionResult, ...]:
+    numeric = s.analytic + s.discrepancy
+    floor = compare.FLOOR_FRACTION * float(np.sqrt(np.mean(a**2))) if a.size else 0.0
+    scale = compare.denominators(s.analytic, numeric, max(floor, float(np.finfo(float).tiny)))
+    rel = np.abs(s.discrepancy) / scale
+    significant = s.significant()
+    return tuple(
+        DirectionResult(
+            analytic=float(s.analytic[k]), numeric=float(numeric[k]),
+            error_estimate=float(s.error[k]), rel_error=float(rel[k]),
+            ok=not bool(significant[k]), evaluations=per_direction,
+        )
+        for k in range(len(s.analytic))
+    )
+
+
 def check_tensor(ctx: "Context", name: str, grad: np.ndarray) -> tuple["TensorResult", Evidence]:
     """The tensor's result (without a hint) and the evidence hints are drawn from."""
-    ws = ctx.workspace
+    ws, ev, options = ctx.workspace, ctx.evaluator, ctx.options
     owner = ws.owners[name]
-    flat = np.arange(owner.size, dtype=np.int64)
-    values = owner.reshape(-1)
-    problem = Problem(
-        tensor=name,
-        flat=flat,
-        x=values[flat].copy(),
-        analytic=grad.reshape(-1)[flat],
-        f0=ctx.f0,
-        compute_dtype=ctx.compute_dtype,
-        threshold=ctx.threshold,
-    )
-    outcome = check_coordinates(ctx.evaluator, problem, ctx.options.method, ctx.options.recheck)
+    start = ev.count
+    values = owner.reshape(-1).copy()
+    analytic = grad.reshape(-1)
+    n_coords, n_dirs = plan(options, owner.size)
+    flat = stratified(owner.shape, n_coords, tensor_rng(options.seed, name, "sample"), analytic)
+    directions: tuple[DirectionResult, ...] = ()
+    located = None
+    direction_failed = False
+    if n_dirs:
+        units = random_directions(owner.size, n_dirs, tensor_rng(options.seed, name, "directions"))
+        everything = np.arange(owner.size, dtype=np.int64)
+        s = slope(ev, name, everything, values, analytic, units, ctx.compute_dtype)
+        directions = _direction_results(s, analytic, ctx.threshold, s.evaluations // n_dirs)
+        off = [k for k, d in enumerate(directions) if not d.ok]
+        if off:
+            j = max(off, key=lambda k: abs(s.discrepancy[k]) / max(s.error[k], 1e-300))
+            found = locate(ev, name, values, analytic, units[j], float(s.discrepancy[j]),
+                           float(s.error[j]), ctx.compute_dtype)
+            located = found.evaluations
+            flat = np.union1d(flat, found.candidates)
+            direction_failed = any(not d.ok and d.rel_error > ctx.threshold for d in directions)
+    problem = Problem(name, flat, values[flat], analytic[flat], ctx.f0, ctx.compute_dtype, ctx.threshold)
+    outcome = check_coordinates(ev, problem, options.method, options.recheck)
+    result = tensor_result(name, ws.layer(name), ws.kind(name), owner, outcome,
+                           directions=directions, located_evaluations=located,
+                           evaluations=ev.count - start)
+    if direction_failed and result.status != "fail":
+        result = replace(result, status="fail", hint=(
+            "a random-direction check disagrees beyond the threshold but no single coordinate "
+            "was confirmed wrong: many small errors, or errors that cancel coordinate-wise"))
     evidence = Evidence(name, tuple(owner.shape), outcome.flat, outcome.analytic,
                         outcome.numeric, outcome.status == FAIL)
-    return tensor_result(name, ws.layer(name), ws.kind(name), owner, outcome), evidence
+    return result, evidence

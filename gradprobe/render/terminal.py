@@ -55,11 +55,14 @@ def _row(t: TensorResult, theme: Theme) -> list[Text | str]:
         bad = sum(1 for d in t.directions if not d.ok)
         checked += f" +{len(t.directions)}dir" + (f"({bad} off)" if bad else "")
     where = format_index(t.worst_index) if t.worst_index is not None else "-"
+    worst = fmt(t.max_rel_error)
+    if t.max_rel_error is None and t.directions:  # only directions: show their worst
+        worst = fmt(max(d.rel_error for d in t.directions)) + " dir"
     return [
         Text("  " + t.name),
         shape_text(t.shape),
         checked,
-        fmt(t.max_rel_error),
+        worst,
         fmt(t.worst_noise),
         fmt(t.max_abs_error),
         where,

@@ -1,0 +1,96 @@
+"""Directional checks: the analytic gradient . u against the slope of the loss along u.
+
+For a unit direction u over a set S of a tensor's coordinates, the loss is evaluated at
+x + t u and x - t u (two calls, whatever the size of S). What is extrapolated is the
+discrepancy itself,
+
+    y(t) = [ (f(x + d+) - f(x - d-)) / 2  -  a . (d+ + d-) / 2 ] / t,
+
+where d+ and d- are the perturbations the forward really saw (read back from the perturbed
+arrays), so rounding of x + t u cancels exactly. y(t) tends to (numeric - analytic) . u as
+t -> 0 with even powers of t, which Ridders' tableau removes; its error estimate says
+whether the discrepancy is significant. Because a random u weighs every element, a wrong
+element of any size shows up as long as it exceeds the numeric noise.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .differences import ROUNDING_UNITS
+from .evaluate import Evaluator, Perturbation
+from .extrapolate import FIRST_STEP_EXPONENT, FIRST_STEP_FACTOR, CentralAt, extrapolate
+from .steps import _seen
+
+SIGNIFICANCE = 4.0  # a discrepancy beyond 4 error estimates is real
+
+
+@dataclass(frozen=True)
+class Slope:
+    """Discrepancies (numeric - analytic) . u for several directions, with error estimates."""
+
+    discrepancy: np.ndarray
+    error: np.ndarray
+    analytic: np.ndarray  # a . u per direction
+    evaluations: int
+
+    def significant(self) -> np.ndarray:
+        return np.abs(self.discrepancy) > SIGNIFICANCE * self.error
+
+
+def random_directions(size: int, count: int, rng: np.random.Generator) -> list[np.ndarray]:
+    """``count`` unit vectors of length ``size``, uniformly distributed on the sphere."""
+    out = []
+    for _ in range(count):
+        g = rng.standard_normal(size)
+        out.append(g / np.linalg.norm(g))
+    return out
+
+
+def _central(
+    evaluator: Evaluator, tensor: str, flat: np.ndarray, x: np.ndarray, a: np.ndarray,
+    units: list[np.ndarray], compute_dtype: np.dtype,
+) -> CentralAt:
+    eps = float(np.finfo(compute_dtype).eps)
+    rms = float(np.sqrt(np.mean(x.astype(np.float64) ** 2))) if x.size else 0.0
+    t0 = FIRST_STEP_FACTOR * eps**FIRST_STEP_EXPONENT * max(1.0, rms)
+    base = _seen(x, compute_dtype)
+
+    def central(which: np.ndarray, scale: float) -> tuple[np.ndarray, np.ndarray]:
+        t = t0 * scale
+        requests: list[Perturbation] = []
+        moves = []
+        for k in which:
+            plus = (x + t * units[k]).astype(x.dtype)
+            minus = (x - t * units[k]).astype(x.dtype)
+            moves.append((_seen(plus, compute_dtype) - base) + (base - _seen(minus, compute_dtype)))
+            requests.append(Perturbation(tensor, flat, plus))
+            requests.append(Perturbation(tensor, flat, minus))
+        values = evaluator.losses(requests)
+        f_plus, f_minus = values[0::2], values[1::2]
+        analytic_change = np.array([a @ m for m in moves]) / 2.0
+        y = ((f_plus - f_minus) / 2.0 - analytic_change) / t
+        noise = ROUNDING_UNITS * eps * (np.abs(f_plus) + np.abs(f_minus)) / (2.0 * t)
+        return y, noise
+
+    return central
+
+
+def slope(
+    evaluator: Evaluator, tensor: str, flat: np.ndarray, x: np.ndarray, a: np.ndarray,
+    units: list[np.ndarray], compute_dtype: np.dtype, tolerance: float | None = None,
+) -> Slope:
+    """Directional discrepancies over coordinates ``flat`` (values ``x``, analytic ``a``).
+
+    With ``tolerance``, a direction stops as soon as its discrepancy is clearly below or
+    clearly above it (group tests need only that answer).
+    """
+    central = _central(evaluator, tensor, flat, x, a, units, compute_dtype)
+    count = len(units)
+    zero = np.zeros(count)
+    tol = None if tolerance is None else np.full(count, tolerance)
+    result = extrapolate(central, count, analytic=zero if tol is not None else None, tolerance=tol)
+    analytic = np.array([a @ u for u in units])
+    return Slope(result.value, result.error, analytic, result.evaluations)

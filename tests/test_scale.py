@@ -1,0 +1,149 @@
+"""Sampling, directional checks, localisation, parallel and cluster evaluation."""
+
+from __future__ import annotations
+
+import json
+import sys
+from concurrent.futures import ThreadPoolExecutor
+
+import numpy as np
+import pytest
+
+from conftest import SAMPLES
+from gradprobe.engine.runner import check, run_check
+from gradprobe.engine.sampling import stratified, tensor_rng
+from gradprobe.options import CheckOptions
+from gradprobe.render.json import report_dict
+from gradprobe.target import load_target
+
+N = 100_000
+RNG = np.random.default_rng(0)
+W = RNG.normal(size=N)
+C = RNG.uniform(0.5, 1.5, size=N)
+
+
+def forward(p, i):
+    return float(np.sum(i["c"] * np.sin(p["w"])))
+
+
+def exact(p, i):
+    return i["c"] * np.cos(p["w"])
+
+
+def _with_errors(factors):
+    def backward(p, i):
+        g = exact(p, i).copy()
+        for k, f in factors.items():
+            g[k] *= f
+        return {"w": g}
+
+    return backward
+
+
+def _directional_only(backward):
+    return check(forward, backward, {"w": W}, {"c": C}, options=CheckOptions(sample=0))
+
+
+def test_one_planted_error_is_located_exactly():
+    report = _directional_only(_with_errors({12_345: 1.5}))
+    t = report.tensor("w")
+    assert t.bad_indices == ((12_345,),) and t.status == "fail"
+    assert t.located_evaluations is not None and report.evaluations < 200
+
+
+def test_three_planted_errors_are_located_exactly():
+    report = _directional_only(_with_errors({7: 0.5, 50_000: -1.0, 99_998: 1.2}))
+    t = report.tensor("w")
+    assert t.bad_indices == ((7,), (50_000,), (99_998,))
+    # about k log2(N) group tests: 3 x 17 = 51, a few evaluations each
+    assert t.located_evaluations <= 3 * 17 * 8
+
+
+def test_a_1e4_relative_error_in_one_element_is_detected():
+    """Relative error 1e-4 in one of 1e5 elements: below 1e-6 of the directional derivative,
+    far above its numeric noise."""
+    report = _directional_only(_with_errors({4_242: 1 + 1e-4}))
+    t = report.tensor("w")
+    assert all(not d.ok for d in t.directions)
+    assert t.bad_indices == ((4_242,),)
+
+
+def test_a_correct_large_tensor_passes_directionally():
+    report = _directional_only(lambda p, i: {"w": exact(p, i)})
+    t = report.tensor("w")
+    assert report.ok and all(d.ok for d in t.directions) and t.checked == 0
+    assert report.evaluations <= 60
+
+
+def test_default_plan_for_a_large_tensor_samples_and_uses_directions():
+    report = check(forward, lambda p, i: {"w": exact(p, i)}, {"w": W}, {"c": C})
+    t = report.tensor("w")
+    assert report.ok and t.checked == 24 and len(t.directions) == 2
+    assert t.evaluations <= 100
+
+
+def test_sampling_is_reproducible_and_covers_every_row_and_column():
+    analytic = np.random.default_rng(3).normal(size=40 * 70)
+    first = stratified((40, 70), 90, tensor_rng(5, "W", "sample"), analytic)
+    again = stratified((40, 70), 90, tensor_rng(5, "W", "sample"), analytic)
+    other = stratified((40, 70), 90, tensor_rng(6, "W", "sample"), analytic)
+    assert np.array_equal(first, again) and not np.array_equal(first, other)
+    rows, cols = np.unravel_index(first, (40, 70))
+    assert first.size == 90 and set(rows) == set(range(40)) and set(cols) == set(range(70))
+    top = np.argsort(-np.abs(analytic))[:2]
+    assert set(top) <= set(first)  # the largest gradients are in
+
+
+def test_sampling_covers_every_slice_of_a_3d_tensor():
+    flat = stratified((5, 6, 7), 7, tensor_rng(0, "k", "sample"), np.zeros(210))
+    index = np.unravel_index(flat, (5, 6, 7))
+    assert [len(set(axis)) for axis in index] == [5, 6, 7]
+
+
+def test_sample_option_limits_checked_coordinates(run_cli):
+    result = run_cli("check", str(SAMPLES / "sensor_mixer.py"), "--sample", "5", "--json", "-")
+    report = json.loads(result.stdout)
+    checked = {t["name"]: t["checked"] for l in report["layers"] for t in l["tensors"]}
+    assert checked == {"mix.W": 5, "mix.b": 3, "gain": 3, "raw": 5}
+
+
+def _comparable(report):
+    d = report_dict(report)
+    d["summary"].pop("seconds")
+    return d
+
+
+def test_two_jobs_give_the_same_report_as_serial():
+    target = load_target(str(SAMPLES / "crop_yield_buggy.py"))
+    serial = run_check(target, CheckOptions())
+    parallel = run_check(load_target(str(SAMPLES / "crop_yield_buggy.py")), CheckOptions(jobs=2))
+    assert _comparable(parallel) == _comparable(serial)
+
+
+def test_any_executor_gives_the_same_report():
+    def backward(p, i):
+        return {"w": exact(p, i)[:50] * np.r_[np.ones(49), 2.0]}
+
+    small = {"w": W[:50]}
+    inputs = {"c": C[:50]}
+    serial = check(forward, backward, small, inputs)
+    with ThreadPoolExecutor(2) as pool:
+        threaded = check(forward, backward, small, inputs, executor=pool)
+    assert _comparable(threaded) == _comparable(serial)
+    assert threaded.tensor("w").bad_indices == ((49,),)
+
+
+def test_dask_local_cluster_gives_the_same_report():
+    """A real local Dask cluster with two worker processes, through Client.get_executor()."""
+    distributed = pytest.importorskip("distributed")
+    import cloudpickle
+
+    cloudpickle.register_pickle_by_value(sys.modules[__name__])
+    small, inputs = {"w": W[:40]}, {"c": C[:40]}
+    backward = _with_errors({3: 1.1})
+    serial = check(forward, backward, small, inputs)
+    with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
+                                  dashboard_address=None) as cluster, distributed.Client(cluster) as client:
+        clustered = check(forward, backward, small, inputs, executor=client.get_executor())
+    assert _comparable(clustered) == _comparable(serial)
+    assert clustered.tensor("w").bad_indices == ((3,),)
