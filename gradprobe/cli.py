@@ -141,11 +141,12 @@ def cli() -> None:
                    "the complex step.")
 @click.option("--sample", type=click.IntRange(min=0), default=None, metavar="N",
               help="Check at most N coordinates per tensor, stratified over every axis plus the "
-                   "largest gradients (0: directional checks only) [default: all coordinates "
-                   "of tensors up to 4096 elements, 24 of larger ones].")
+                   "largest gradients (0: directional checks only) [default: every coordinate "
+                   "when the target has at most 20000; in a larger target every coordinate of "
+                   "tensors up to 48 elements and 24 of larger ones].")
 @click.option("--directions", type=click.IntRange(min=0), default=None, metavar="K",
               help="Random-direction checks per tensor, 2 evaluations each plus extrapolation "
-                   "[default: 2 for tensors above 4096 elements or with --sample 0, else 0].")
+                   "[default: 2 for the tensors that are sampled, else 0].")
 @click.option("--jobs", "-j", type=click.IntRange(min=1), default=1, show_default=True,
               help="Evaluate perturbations in N worker processes.")
 @click.option("--no-recheck", is_flag=True,

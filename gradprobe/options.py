@@ -32,8 +32,9 @@ class CheckOptions:
     recheck: bool = True  # re-check failing coordinates by extrapolation before failing them
     sample: int | None = None  # coordinates per tensor; None: full sweep up to sweep_limit
     directions: int | None = None  # random directions per tensor; None: only above sweep_limit
-    sweep_limit: int = 4096
-    default_sample: int = 24  # coordinates checked in a tensor above sweep_limit
+    sweep_total: int = 20_000  # a target with at most this many coordinates is swept in full
+    sweep_limit: int = 48  # in a larger target, tensors up to this size still are
+    default_sample: int = 24  # coordinates checked in a tensor that is not swept
     default_directions: int = 2
     jobs: int = 1
 

@@ -40,6 +40,15 @@ class Slope:
         return np.abs(self.discrepancy) > SIGNIFICANCE * self.error
 
 
+def needed_precision(a: np.ndarray, threshold: float) -> float:
+    """The error at which a direction could show a threshold-sized error in one typical
+    element: threshold * rms(a) * |u_i| with |u_i| ~ 1/sqrt(n), over the significance factor."""
+    if a.size == 0:
+        return 0.0
+    rms = float(np.sqrt(np.mean(a**2)))
+    return threshold * rms / np.sqrt(a.size) / SIGNIFICANCE
+
+
 def random_directions(size: int, count: int, rng: np.random.Generator) -> list[np.ndarray]:
     """``count`` unit vectors of length ``size``, uniformly distributed on the sphere."""
     out = []
@@ -81,16 +90,19 @@ def _central(
 def slope(
     evaluator: Evaluator, tensor: str, flat: np.ndarray, x: np.ndarray, a: np.ndarray,
     units: list[np.ndarray], compute_dtype: np.dtype, tolerance: float | None = None,
+    precision: float | None = None,
 ) -> Slope:
     """Directional discrepancies over coordinates ``flat`` (values ``x``, analytic ``a``).
 
-    With ``tolerance``, a direction stops as soon as its discrepancy is clearly below or
-    clearly above it (group tests need only that answer).
+    A direction stops refining as soon as its discrepancy is clearly above ``tolerance``
+    (default 0: clearly nonzero) or clearly below it, or once its error estimate is below
+    ``precision``.
     """
     central = _central(evaluator, tensor, flat, x, a, units, compute_dtype)
     count = len(units)
-    zero = np.zeros(count)
-    tol = None if tolerance is None else np.full(count, tolerance)
-    result = extrapolate(central, count, analytic=zero if tol is not None else None, tolerance=tol)
+    result = extrapolate(
+        central, count, analytic=np.zeros(count), tolerance=np.full(count, tolerance or 0.0),
+        precision=None if precision is None else np.full(count, precision),
+    )
     analytic = np.array([a @ u for u in units])
     return Slope(result.value, result.error, analytic, result.evaluations)

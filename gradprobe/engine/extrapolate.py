@@ -66,12 +66,14 @@ def extrapolate(
     analytic: np.ndarray | None = None,
     tolerance: np.ndarray | None = None,
     rows: int = ROWS,
+    precision: np.ndarray | None = None,
 ) -> Extrapolated:
     """Ridders' tableau for ``count`` coordinates.
 
     With ``analytic`` and ``tolerance`` a coordinate also stops as soon as the verdict is
     clear: its analytic value is within ``tolerance`` of the estimate with room for the
-    error, or further from it than ten error estimates.
+    error, or further from it than ten error estimates. With ``precision`` it stops once
+    its error estimate is below that.
     """
     best = np.full(count, np.nan)
     error = np.full(count, np.inf)
@@ -103,6 +105,8 @@ def extrapolate(
         else:
             growing = np.abs(cur[row, which] - prev[row - 1, which]) >= GROWTH_STOP * error[which]
             active[which[growing]] = False
+            if precision is not None:
+                active[which[error[which] <= precision[which]]] = False
             if analytic is not None and tolerance is not None:
                 gap = np.abs(analytic[which] - best[which])
                 clear = (gap + error[which] <= tolerance[which]) | (

@@ -51,6 +51,7 @@ class Context:
     threshold: float
     options: CheckOptions
     rng: np.random.Generator
+    total: int  # coordinates of every tensor to be checked, for the sweep plan
 
 
 def _threshold_note(dtype: np.dtype, threshold: float, why: str) -> str:
@@ -136,7 +137,8 @@ def _check_all(
     if compute_dtype != np.float64:
         why = hidden.evidence if hidden is not None else ""
         notes.append(_threshold_note(compute_dtype, threshold, why))
-    ctx = Context(evaluator, ws, info.f0, compute_dtype, threshold, options, rng)
+    total = sum(ws.owners[n].size for n in grads.values)
+    ctx = Context(evaluator, ws, info.f0, compute_dtype, threshold, options, rng, total)
     results: list[TensorResult] = []
     evidence: list[Evidence] = []
     for name in ws.names():

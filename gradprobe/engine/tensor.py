@@ -13,7 +13,7 @@ from ..report import DirectionResult
 from . import compare
 from .compare import FAIL
 from .coordinates import Problem, check_coordinates
-from .directions import Slope, random_directions, slope
+from .directions import Slope, needed_precision, random_directions, slope
 from .locate import locate
 from .sampling import stratified, tensor_rng
 from .summary import tensor_result
@@ -23,17 +23,24 @@ if TYPE_CHECKING:
     from .runner import Context
 
 
-def plan(options: CheckOptions, size: int) -> tuple[int, int]:
-    """(coordinates to check, random directions) for a tensor of ``size`` elements."""
+def plan(options: CheckOptions, size: int, total: int) -> tuple[int, int]:
+    """(coordinates to check, random directions) for a tensor of ``size`` elements in a
+    target with ``total`` checkable coordinates.
+
+    A target of at most ``sweep_total`` coordinates is swept in full; in a larger one only
+    tensors of at most ``sweep_limit`` elements are, the others are sampled and get
+    directional checks.
+    """
+    full = total <= options.sweep_total or size <= options.sweep_limit
     if options.sample is not None:
         coordinates = options.sample
-    elif size <= options.sweep_limit:
+    elif full:
         coordinates = size
     else:
         coordinates = options.default_sample
     if options.directions is not None:
         directions = options.directions
-    elif size > options.sweep_limit or options.sample == 0:
+    elif not full or options.sample == 0:
         directions = options.default_directions
     else:
         directions = 0
@@ -63,7 +70,7 @@ def check_tensor(ctx: "Context", name: str, grad: np.ndarray) -> tuple["TensorRe
     start = ev.count
     values = owner.reshape(-1).copy()
     analytic = grad.reshape(-1)
-    n_coords, n_dirs = plan(options, owner.size)
+    n_coords, n_dirs = plan(options, owner.size, ctx.total)
     flat = stratified(owner.shape, n_coords, tensor_rng(options.seed, name, "sample"), analytic)
     directions: tuple[DirectionResult, ...] = ()
     located = None
@@ -71,7 +78,8 @@ def check_tensor(ctx: "Context", name: str, grad: np.ndarray) -> tuple["TensorRe
     if n_dirs:
         units = random_directions(owner.size, n_dirs, tensor_rng(options.seed, name, "directions"))
         everything = np.arange(owner.size, dtype=np.int64)
-        s = slope(ev, name, everything, values, analytic, units, ctx.compute_dtype)
+        s = slope(ev, name, everything, values, analytic, units, ctx.compute_dtype,
+                  precision=needed_precision(analytic, ctx.threshold))
         directions = _direction_results(s, analytic, ctx.threshold, s.evaluations // n_dirs)
         off = [k for k, d in enumerate(directions) if not d.ok]
         if off:

@@ -1,0 +1,81 @@
+"""Checks at scale: directional checks and localisation, sampling, worker processes.
+
+Run by hand: ``python bench/scale.py``. Prints, with evaluation counts and ratios:
+1. a three-layer network of ~200k parameters with one wrong weight element, --sample 0;
+2. a correct network of ~1M parameters with the default plan;
+3. a forward of ~20 ms checked serially and with --jobs 2.
+"""
+
+from __future__ import annotations
+
+import os
+import time
+from pathlib import Path
+
+from gradprobe.engine.runner import run_check
+from gradprobe.options import CheckOptions
+from gradprobe.target import load_target
+
+HERE = Path(__file__).resolve().parent
+TARGETS = HERE / "scale_targets.py"
+
+
+def _load(name):
+    return load_target(f"{TARGETS}:{name}")
+
+
+def _params(report):
+    return sum(t.size for t in report.tensors)
+
+
+def one_wrong() -> None:
+    start = time.perf_counter()
+    report = run_check(_load("one_wrong_200k"), CheckOptions(sample=0))
+    seconds = time.perf_counter() - start
+    print(f"1. one wrong element, {_params(report):,} parameters, --sample 0")
+    for t in report.tensors:
+        print(f"   {t.name:10s} {t.status:5s} bad {list(t.bad_indices)} evaluations {t.evaluations}"
+              + (f" (localisation {t.located_evaluations})" if t.located_evaluations else ""))
+    others_pass = all(t.status == "pass" for t in report.tensors if t.name != "layer2.W")
+    found = report.tensor("layer2.W").bad_indices == ((17, 42),)
+    print(f"   found (17, 42): {found}; every other tensor passes: {others_pass}; "
+          f"forward evaluations {report.evaluations} (goal <= 200; a full sweep: "
+          f"{2 * _params(report):,}); {seconds:.1f} s")
+
+
+def correct_large() -> None:
+    start = time.perf_counter()
+    report = run_check(_load("correct_1m"), CheckOptions())
+    seconds = time.perf_counter() - start
+    print(f"2. correct network, {_params(report):,} parameters, default plan")
+    for t in report.tensors:
+        print(f"   {t.name:10s} {t.status:5s} checked {t.checked}/{t.size} + {len(t.directions)} "
+              f"directions, evaluations {t.evaluations}")
+    worst = max(t.evaluations for t in report.tensors)
+    print(f"   ok: {report.ok}; most evaluations for one tensor {worst} (goal <= 100); "
+          f"{report.evaluations} in all; {seconds:.1f} s")
+
+
+def parallel() -> None:
+    target = _load("heavy_20ms")
+    params, inputs = target.params, target.inputs
+    start = time.perf_counter()
+    for _ in range(5):
+        target.forward(params, inputs)
+    per_call = (time.perf_counter() - start) / 5
+    timings = {}
+    reports = {}
+    for jobs in (1, 2):
+        start = time.perf_counter()
+        reports[jobs] = run_check(_load("heavy_20ms"), CheckOptions(jobs=jobs))
+        timings[jobs] = time.perf_counter() - start
+    same = reports[1].to_dict()["layers"] == reports[2].to_dict()["layers"]
+    print(f"3. forward {per_call * 1e3:.1f} ms, {reports[1].evaluations} evaluations, "
+          f"{os.cpu_count()} cores: serial {timings[1]:.2f} s, --jobs 2 {timings[2]:.2f} s, "
+          f"speedup {timings[1] / timings[2]:.2f} (goal >= 1.6); same report: {same}")
+
+
+if __name__ == "__main__":
+    one_wrong()
+    correct_large()
+    parallel()
