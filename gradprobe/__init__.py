@@ -1,5 +1,6 @@
 """gradprobe: check hand-written backward passes against central differences."""
 
+from .api import probe, probe_target
 from .errors import (
     BadOutputError,
     ComplexStepError,
@@ -29,4 +30,6 @@ __all__ = [
     "UsageProblem",
     "UserCodeError",
     "__version__",
+    "probe",
+    "probe_target",
 ]

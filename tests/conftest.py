@@ -11,6 +11,8 @@ from click.testing import CliRunner
 
 from gradprobe.cli import cli
 
+pytest_plugins = ["pytester"]
+
 SAMPLES = Path(__file__).resolve().parent.parent / "samples"
 
 

@@ -8,7 +8,7 @@ from typing import Any, Callable
 
 import numpy as np
 
-from ..errors import InPlaceWriteError, NondeterminismError, UserCodeError
+from ..errors import InPlaceWriteError, NondeterminismError, ProbeError, UserCodeError
 from ..tensors import Workspace
 from .evaluate import Evaluator, output_to_loss, summarise
 
@@ -76,6 +76,8 @@ def call_backward(
         args += (grad_output.copy(),)
     try:
         result = backward(*args)
+    except ProbeError:
+        raise  # an adapter's own, already one sentence
     except Exception as exc:
         raise UserCodeError(f"backward raised {summarise(exc)}") from exc
     _name_writes(ws, flat, "backward")

@@ -141,4 +141,4 @@ def render_text(
     console = plain_console(buffer, width)
     for item in renderables(report, PLAIN, quiet, with_maps):
         console.print(item)
-    return buffer.getvalue()
+    return "".join(line.rstrip() + "\n" for line in buffer.getvalue().splitlines())

@@ -1,0 +1,45 @@
+"""The Python API: ``probe`` for functions and arrays, ``probe_target`` for an entry point.
+
+Both return the :class:`~gradprobe.report.Report` the CLI renders. When the check cannot run
+they raise gradprobe's own exceptions (subclasses of :class:`~gradprobe.errors.ProbeError`)
+with the CLI's one-sentence message, chained to the user's exception. The caller's arrays are
+bitwise unchanged either way.
+"""
+
+from __future__ import annotations
+
+from concurrent.futures import Executor
+from typing import Any, Callable, Mapping
+
+from .engine.runner import run_check
+from .options import CheckOptions
+from .report import Report
+from .target import Target, load_target
+
+
+def _options(values: Mapping[str, Any]) -> CheckOptions:
+    return CheckOptions().with_values(**values)
+
+
+def probe(
+    forward: Callable[..., Any],
+    backward: Callable[..., Any],
+    params: Mapping[str, Any],
+    inputs: Mapping[str, Any] | None = None,
+    *,
+    executor: Executor | None = None,
+    label: str = "<python>",
+    **options: Any,
+) -> Report:
+    """Check ``backward`` against central differences of ``forward`` at ``params``/``inputs``.
+
+    ``options`` are the fields of :class:`~gradprobe.options.CheckOptions`: ``threshold``,
+    ``seed``, ``method``, ``sample``, ``directions``, ``jobs``, ``recheck``, ...
+    """
+    target = Target(label, forward, backward, params, inputs or {})
+    return run_check(target, _options(options), executor=executor)
+
+
+def probe_target(spec: str, *, executor: Executor | None = None, **options: Any) -> Report:
+    """Check the target named by an entry-point string, as ``gradprobe check`` does."""
+    return run_check(load_target(spec), _options(options), executor=executor)

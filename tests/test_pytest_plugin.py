@@ -1,0 +1,101 @@
+"""The grad_probe fixture, run through pytest's own pytester."""
+
+from __future__ import annotations
+
+import re
+from pathlib import Path
+
+import pytest
+
+README = Path(__file__).resolve().parent.parent / "README.md"
+
+LAYER = """
+import numpy as np
+
+W = np.array([[0.5, -1.0], [2.0, 0.25], [0.1, 0.3]])
+X = np.array([[1.0, 2.0, -1.0], [0.5, 0.0, 3.0]])
+
+def forward(p, i):
+    return float(np.sum(np.tanh(i["x"] @ p["W"])))
+
+def backward(p, i, scale=1.0):
+    return {"W": scale * i["x"].T @ (1 - np.tanh(i["x"] @ p["W"]) ** 2)}
+"""
+
+
+def test_a_passing_check_returns_the_report(pytester: pytest.Pytester):
+    pytester.makepyfile(LAYER + """
+def test_layer(grad_probe):
+    report = grad_probe(forward, backward, {"W": W}, {"x": X})
+    assert report.ok and report.tensor("W").checked == 6
+""")
+    pytester.runpytest("-p", "no:cacheprovider").assert_outcomes(passed=1)
+
+
+def test_a_failing_check_fails_with_the_per_layer_report(pytester: pytest.Pytester):
+    pytester.makepyfile(LAYER + """
+def test_layer(grad_probe):
+    grad_probe(forward, lambda p, i: backward(p, i, scale=-1.0), {"W": W}, {"x": X})
+""")
+    result = pytester.runpytest("-p", "no:cacheprovider")
+    result.assert_outcomes(failed=1)
+    result.stdout.fnmatch_lines(["*gradient check failed*", "*layer / tensor*", "*W*fail*analytic is -1 x numeric: the sign is flipped"])
+    assert "pytest_plugin.py" not in result.stdout.str()  # no traceback into gradprobe
+
+
+def test_threshold_from_the_command_line_ini_marker_and_call(pytester: pytest.Pytester):
+    pytester.makepyfile(LAYER + """
+import pytest
+
+def off(p, i):
+    return backward(p, i, scale=1 + 1e-4)
+
+def test_cli_or_ini(grad_probe):
+    grad_probe(forward, off, {"W": W}, {"x": X})
+
+@pytest.mark.gradprobe(threshold=1e-3)
+def test_marker(grad_probe):
+    grad_probe(forward, off, {"W": W}, {"x": X})
+
+def test_call(grad_probe):
+    grad_probe(forward, off, {"W": W}, {"x": X}, threshold=1e-3)
+""")
+    pytester.runpytest("-p", "no:cacheprovider").assert_outcomes(passed=2, failed=1)
+    pytester.runpytest("-p", "no:cacheprovider", "--gradprobe-threshold", "1e-3").assert_outcomes(passed=3)
+    pytester.makeini("[pytest]\ngradprobe_threshold = 1e-3\n")
+    pytester.runpytest("-p", "no:cacheprovider").assert_outcomes(passed=3)
+    # the command line beats the ini file
+    pytester.runpytest("-p", "no:cacheprovider", "--gradprobe-threshold", "1e-6").assert_outcomes(passed=2, failed=1)
+
+
+def test_seed_is_in_the_header_and_reaches_the_check(pytester: pytest.Pytester):
+    pytester.makepyfile(LAYER + """
+def test_seed(grad_probe):
+    assert grad_probe(forward, backward, {"W": W}, {"x": X}).seed == 7
+""")
+    result = pytester.runpytest("-p", "no:cacheprovider", "--gradprobe-seed", "7")
+    result.assert_outcomes(passed=1)
+    result.stdout.fnmatch_lines(["gradprobe: threshold by floating type, seed 7"])
+
+
+def test_a_check_that_cannot_run_raises_gradprobes_error(pytester: pytest.Pytester):
+    pytester.makepyfile(LAYER + """
+import pytest
+from gradprobe import UserCodeError
+
+def test_raises(grad_probe):
+    def broken(p, i):
+        raise ZeroDivisionError("empty batch")
+    with pytest.raises(UserCodeError, match="backward raised ZeroDivisionError: empty batch") as info:
+        grad_probe(forward, broken, {"W": W}, {"x": X})
+    assert isinstance(info.value.__cause__, ZeroDivisionError)
+""")
+    pytester.runpytest("-p", "no:cacheprovider").assert_outcomes(passed=1)
+
+
+def test_the_readme_example_runs_and_is_under_ten_lines(pytester: pytest.Pytester):
+    text = README.read_text()
+    example = re.search(r"<!-- pytest-example -->\s*```python\n(.*?)```", text, re.S).group(1)
+    assert len([line for line in example.splitlines() if line.strip()]) < 10
+    pytester.makepyfile(test_readme=example)
+    pytester.runpytest("-p", "no:cacheprovider").assert_outcomes(passed=1)
