@@ -3,44 +3,65 @@
 from __future__ import annotations
 
 import os
+import socket
 import sys
 import traceback
 from dataclasses import dataclass
+from datetime import datetime
 from pathlib import Path
 from typing import Any
 
 import click
+from click.core import ParameterSource
 from rich.console import Console
 
 from . import __version__
+from .config import ProjectConfig, load_config
 from .engine.runner import run_check
-from .errors import ProbeError
+from .errors import ProbeError, UsageProblem
 from .options import METHODS, CheckOptions
-from .render.json import render_json
+from .render.json import render_runs
+from .render.junit import render_junit
 from .render.progress import TerminalProgress
-from .render.terminal import COLOUR, PLAIN, renderables
-from .report import Report
+from .render.terminal import COLOUR, PLAIN, renderables, run_summary
+from .report import TargetRun
+from .starter import write_starter
 from .target import load_target
 
 EXIT_OK, EXIT_FAIL, EXIT_ERROR, EXIT_INTERNAL, EXIT_INTERRUPTED = 0, 1, 2, 3, 130
 
-CHECK_HELP = """Check the backward pass of TARGET against central differences.
+CHECK_HELP = """Check the backward pass of each TARGET against central differences.
 
 TARGET is a Python file (nets/mlp.py), a dotted module (nets.mlp), either followed by
 :NAME for an attribute (nets/mlp.py:dense_case). The target provides forward, backward and
-setup() or params; see the README for the protocol.
+setup() or params; see the README for the protocol. With no TARGET, the targets listed in
+[tool.gradprobe] of the nearest pyproject.toml are checked; its other keys (threshold, seed,
+method, sample, directions, jobs, recheck, json, junit) set defaults that options override.
+--show-settings says which value each setting has and where it came from.
 
 \b
 Examples:
   gradprobe check samples/crop_yield.py
-  gradprobe check samples/crop_yield_buggy.py --json report.json
+  gradprobe check samples/crop_yield_buggy.py --json report.json --junit report.xml
   gradprobe check nets.mlp:Case --fail-above 1e-5 --seed 3
   gradprobe check samples/sensor_mixer.py --json - | jq .summary
+  gradprobe check big_model.py --sample 0 --jobs 2
+  gradprobe check --show-settings
 
 \b
 Exit codes: 0 every tensor agrees; 1 at least one tensor disagrees;
-2 the check could not run (bad usage, import failure, forward/backward raised, ...).
+2 the check could not run (bad usage, import failure, forward/backward raised, ...);
+with several targets, the worst of their codes.
 """
+
+# option name -> CheckOptions field (None: an output setting)
+SETTINGS = {
+    "threshold": "threshold", "seed": "seed", "method": "method", "sample": "sample",
+    "directions": "directions", "jobs": "jobs", "recheck": "recheck",
+    "json": None, "junit": None,
+}
+DEFAULTS = {"threshold": None, "seed": 0, "method": "central", "sample": None,
+            "directions": None, "jobs": 1, "recheck": True, "json": None, "junit": None}
 
 
 @dataclass(frozen=True)
@@ -48,6 +69,7 @@ class Output:
     """Where and how results are shown."""
 
     json_path: str | None
+    junit_path: str | None
     quiet: bool
     traceback: bool
     maps: bool = False
@@ -71,53 +93,71 @@ def _say_error(message: str, exc: BaseException | None, show_trace: bool) -> Non
     click.echo(f"gradprobe: error: {message}", err=True)
 
 
-def _show(report: Report, out: Output) -> None:
-    if out.json_path is not None:
-        text = render_json(report)
-        if out.json_path == "-":
-            click.echo(text, nl=False)
-        else:
-            try:
-                Path(out.json_path).write_text(text)
-            except OSError as exc:
-                raise ProbeError(f"cannot write the JSON report to {out.json_path} ({exc.strerror})") from exc
-    console = _console(stderr=not out.stdout_free())
-    theme = PLAIN if console.no_color else COLOUR
-    quiet = out.quiet or not out.stdout_free()
-    for item in renderables(report, theme, quiet=quiet, with_maps=out.maps):
-        console.print(item)
-
-
 def _progress() -> TerminalProgress | None:
     if not sys.stderr.isatty() or os.environ.get("CI"):
         return None
     return TerminalProgress(Console(file=sys.stderr))
 
 
-def check_one(spec: str, options: CheckOptions, out: Output) -> tuple[int, Report | None]:
-    """Check one target; returns its exit code and report (None when it could not run)."""
+def _write(path: str, text: str, what: str) -> None:
+    try:
+        Path(path).write_text(text)
+    except OSError as exc:
+        raise UsageProblem(f"cannot write the {what} to {path} ({exc.strerror})", value=path) from exc
+
+
+def check_one(spec: str, options: CheckOptions, out: Output) -> TargetRun:
+    """Check one target and show its table; errors become a TargetRun with exit code 2."""
     progress = _progress()
     try:
-        target = load_target(spec)
         try:
-            report = run_check(target, options, progress=progress)
+            report = run_check(load_target(spec), options, progress=progress)
         finally:
             if progress is not None:
                 progress.close()
-        _show(report, out)
     except ProbeError as exc:
-        _say_error(exc.with_target(spec).sentence(), exc, out.traceback)
-        return EXIT_ERROR, None
+        sentence = exc.with_target(spec).sentence()
+        _say_error(sentence, exc, out.traceback)
+        return TargetRun(spec, EXIT_ERROR, error=sentence)
     except KeyboardInterrupt:
         click.echo("gradprobe: interrupted; your arrays are unchanged", err=True)
-        return EXIT_INTERRUPTED, None
+        return TargetRun(spec, EXIT_INTERRUPTED, error="interrupted")
     except Exception as exc:  # a bug in gradprobe itself, not in the user's code
-        _say_error(
-            f"{spec}: internal error {type(exc).__name__}: {exc} (please report it; "
-            "--traceback shows where)", exc, out.traceback,
-        )
-        return EXIT_INTERNAL, None
-    return (EXIT_OK if report.ok else EXIT_FAIL), report
+        sentence = (f"{spec}: internal error {type(exc).__name__}: {exc} (please report it; "
+                    "--traceback shows where)")
+        _say_error(sentence, exc, out.traceback)
+        return TargetRun(spec, EXIT_INTERNAL, error=sentence)
+    console = _console(stderr=not out.stdout_free())
+    theme = PLAIN if console.no_color else COLOUR
+    quiet = out.quiet or not out.stdout_free()
+    for item in renderables(report, theme, quiet=quiet, with_maps=out.maps):
+        console.print(item)
+    return TargetRun(spec, EXIT_OK if report.ok else EXIT_FAIL, report=report)
+
+
+def _settings(ctx: click.Context, given: dict[str, Any], config: ProjectConfig) -> tuple[dict, dict]:
+    """Effective values and where each came from: command line > pyproject.toml > default."""
+    values, origins = {}, {}
+    for name in SETTINGS:
+        if ctx.get_parameter_source(name) == ParameterSource.COMMANDLINE:
+            values[name], origins[name] = given[name], "command line"
+        elif name in config.values:
+            values[name], origins[name] = config.values[name], str(config.path)
+        else:
+            values[name], origins[name] = DEFAULTS[name], "default"
+    return values, origins
+
+
+def _show_settings(values: dict, origins: dict, targets: list[str], target_origin: str) -> None:
+    rows = [(name, "(from the floating type)" if name == "threshold" and values[name] is None
+             else "(by tensor size)" if values[name] is None and name in ("sample", "directions")
+             else repr(values[name]), origins[name]) for name in SETTINGS]
+    rows.append(("targets", repr(targets), target_origin))
+    width = max(len(r[0]) for r in rows)
+    value_width = max(len(r[1]) for r in rows)
+    click.echo(f"{'setting'.ljust(width)}  {'value'.ljust(value_width)}  from")
+    for name, value, origin in rows:
+        click.echo(f"{name.ljust(width)}  {value.ljust(value_width)}  {origin}")
 
 
 @click.group(context_settings={"help_option_names": ["-h", "--help"]})
@@ -127,13 +167,15 @@ def cli() -> None:
 
 
 @cli.command("check", help=CHECK_HELP)
-@click.argument("target")
+@click.argument("targets", nargs=-1, metavar="[TARGET]...")
 @click.option("--fail-above", "threshold", type=float, default=None, metavar="REL",
               help="Relative error above which a coordinate fails "
                    "[default: 1e-6 for float64 code, 1e-2 for float32].")
-@click.option("--json", "json_path", metavar="PATH", default=None,
+@click.option("--json", "json", metavar="PATH", default=None,
               help="Write the JSON report to PATH ('-' for standard output, then nothing else "
                    "goes there).")
+@click.option("--junit", "junit", metavar="PATH", default=None,
+              help="Write a JUnit XML report to PATH: a testsuite per target, a testcase per tensor.")
 @click.option("--seed", type=int, default=0, show_default=True,
               help="Seed for every random draw (grad_output, samples, directions).")
 @click.option("--method", type=click.Choice(METHODS), default="central", show_default=True,
@@ -149,26 +191,72 @@ def cli() -> None:
                    "[default: 2 for the tensors that are sampled, else 0].")
 @click.option("--jobs", "-j", type=click.IntRange(min=1), default=1, show_default=True,
               help="Evaluate perturbations in N worker processes.")
-@click.option("--no-recheck", is_flag=True,
-              help="Fail coordinates on the plain central difference, without re-checking them "
-                   "by extrapolation first.")
+@click.option("--recheck/--no-recheck", default=True, show_default=True,
+              help="Re-check coordinates that fail the central difference by extrapolation "
+                   "before failing them.")
 @click.option("--map", "show_maps", is_flag=True,
               help="Draw a map of per-element relative error for each failing tensor.")
 @click.option("--quiet", "-q", is_flag=True, help="Print only the verdict line.")
 @click.option("--traceback", "show_traceback", is_flag=True,
               help="Show the full traceback when the check cannot run.")
-def check_command(target: str, threshold: float | None, json_path: str | None, seed: int,
-                  method: str, sample: int | None, directions: int | None, jobs: int,
-                  no_recheck: bool, show_maps: bool, quiet: bool, show_traceback: bool) -> None:
-    out = Output(json_path, quiet, show_traceback, show_maps)
+@click.option("--show-settings", is_flag=True,
+              help="Print every setting's value and where it came from (command line, "
+                   "pyproject.toml or default), then stop.")
+@click.pass_context
+def check_command(ctx: click.Context, targets: tuple[str, ...], show_maps: bool, quiet: bool,
+                  show_traceback: bool, show_settings: bool, **given: Any) -> None:
     try:
-        options = CheckOptions(threshold=threshold, seed=seed, method=method, sample=sample,
-                               directions=directions, jobs=jobs, recheck=not no_recheck)
+        config = load_config(Path.cwd())
+        values, origins = _settings(ctx, given, config)
+        chosen = list(targets) or config.targets(Path.cwd())
+        target_origin = "command line" if targets else str(config.path) if chosen else "none"
+        if show_settings:
+            _show_settings(values, origins, chosen, target_origin)
+            sys.exit(EXIT_OK)
+        if not chosen:
+            raise UsageProblem("no TARGET given and no targets in [tool.gradprobe] of a "
+                               "pyproject.toml here or above (see gradprobe check --help)")
+        options = CheckOptions(**{field: values[name] for name, field in SETTINGS.items() if field})
     except ProbeError as exc:
         _say_error(exc.sentence(), exc, show_traceback)
         sys.exit(EXIT_ERROR)
-    code, _ = check_one(target, options, out)
+    out = Output(values["json"], values["junit"], quiet, show_traceback, show_maps)
+    runs = [check_one(spec, options, out) for spec in chosen]
+    code = max(run.exit_code for run in runs)
+    try:
+        if out.json_path is not None and any(r.report for r in runs):
+            text = render_runs(runs)
+            if out.json_path == "-":
+                click.echo(text, nl=False)
+            else:
+                _write(out.json_path, text, "JSON report")
+        if out.junit_path is not None:
+            stamp = datetime.now().replace(microsecond=0).isoformat()
+            _write(out.junit_path, render_junit(runs, stamp, socket.gethostname()), "JUnit report")
+    except ProbeError as exc:
+        _say_error(exc.sentence(), exc, show_traceback)
+        code = max(code, EXIT_ERROR)
+    if len(runs) > 1:
+        console = _console(stderr=not out.stdout_free())
+        console.print(run_summary(runs, code, PLAIN if console.no_color else COLOUR))
     sys.exit(code)
+
+
+@cli.command("starter")
+@click.argument("path", type=click.Path(dir_okay=False))
+@click.option("--force", is_flag=True, help="Overwrite PATH if it exists.")
+def starter_command(path: str, force: bool) -> None:
+    """Write a commented starter target to PATH that runs as it is.
+
+    Replace its small layer with your own forward and backward, then run
+    gradprobe check PATH.
+    """
+    try:
+        write_starter(Path(path), force)
+    except ProbeError as exc:
+        _say_error(exc.sentence(), exc, False)
+        sys.exit(EXIT_ERROR)
+    click.echo(f"wrote {path}; run: gradprobe check {path}")
 
 
 def main(argv: list[str] | None = None) -> Any:

@@ -158,3 +158,13 @@ class Report:
         if not self.ok:
             raise AssertionError("gradient check failed\n" + self.render())
         return self
+
+
+@dataclass(frozen=True)
+class TargetRun:
+    """The outcome of one target of a run: its report, or why it could not run."""
+
+    target: str
+    exit_code: int
+    report: Report | None = None
+    error: str | None = None  # the one sentence, when the check could not run

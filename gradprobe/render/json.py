@@ -6,9 +6,10 @@ import json
 import math
 from typing import Any
 
-from ..report import CoordinateDetail, DirectionResult, Report, TensorResult
+from ..report import CoordinateDetail, DirectionResult, Report, TargetRun, TensorResult
 
 SCHEMA = "gradprobe.report/1"
+RUNS_SCHEMA = "gradprobe.runs/1"
 
 
 def _num(value: float | None) -> float | None:
@@ -103,3 +104,18 @@ def report_dict(report: Report) -> dict[str, Any]:
 
 def render_json(report: Report) -> str:
     return json.dumps(report_dict(report), indent=2) + "\n"
+
+
+def render_runs(runs: list[TargetRun]) -> str:
+    """One target: its report as above. Several: ``gradprobe.runs/1`` holding each report."""
+    if len(runs) == 1 and runs[0].report is not None:
+        return render_json(runs[0].report)
+    document = {
+        "schema": RUNS_SCHEMA,
+        "ok": all(r.exit_code == 0 for r in runs),
+        "exit_code": max(r.exit_code for r in runs),
+        "reports": [report_dict(r.report) for r in runs if r.report is not None],
+        "errors": [{"target": r.target, "exit_code": r.exit_code, "message": r.error}
+                   for r in runs if r.report is None],
+    }
+    return json.dumps(document, indent=2) + "\n"

@@ -15,7 +15,7 @@ from rich.console import Console, RenderableType
 from rich.table import Table
 from rich.text import Text
 
-from ..report import Report, TensorResult
+from ..report import Report, TargetRun, TensorResult
 from ..tensors import format_index
 from .heatmap import maps
 
@@ -142,3 +142,20 @@ def render_text(
     for item in renderables(report, PLAIN, quiet, with_maps):
         console.print(item)
     return "".join(line.rstrip() + "\n" for line in buffer.getvalue().splitlines())
+
+
+def run_summary(runs: list[TargetRun], exit_code: int, theme: Theme) -> Table:
+    """One row per target of a run, and the run's exit code."""
+    grid = Table(box=theme.box, show_edge=False, pad_edge=False,
+                 title=f"{len(runs)} targets, exit code {exit_code}", title_justify="left")
+    for title in ("target", "tensors", "failing", "outcome"):
+        grid.add_column(title, overflow="fold")
+    for run in runs:
+        if run.report is None:
+            grid.add_row(run.target, "-", "-", Text(run.error or "could not run", style=theme.style("fail")))
+            continue
+        failing = len(run.report.failing_tensors)
+        outcome = "ok" if run.report.ok else "fail"
+        grid.add_row(run.target, str(len(run.report.tensors)), str(failing),
+                     Text(outcome, style=theme.style("pass" if run.report.ok else "fail")))
+    return grid

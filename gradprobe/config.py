@@ -1,0 +1,95 @@
+"""Project defaults from the ``[tool.gradprobe]`` table of the nearest pyproject.toml.
+
+    [tool.gradprobe]
+    threshold = 1e-5
+    seed = 3
+    targets = ["nets/mlp.py", "nets.conv:case"]
+
+Command-line options override these; every key is checked, and a misspelt one is a clear
+error rather than a silently ignored setting.
+"""
+
+from __future__ import annotations
+
+import difflib
+import os
+import sys
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+from .errors import UsageProblem
+
+if sys.version_info >= (3, 11):
+    import tomllib
+else:  # pragma: no cover - exercised on Python 3.10
+    import tomli as tomllib
+
+# key -> (accepted types, description)
+KEYS: dict[str, tuple[tuple[type, ...], str]] = {
+    "threshold": ((float, int), "relative-error threshold"),
+    "seed": ((int,), "seed for every random draw"),
+    "method": ((str,), "central, richardson or complex"),
+    "sample": ((int,), "coordinates per tensor"),
+    "directions": ((int,), "random directions per tensor"),
+    "jobs": ((int,), "worker processes"),
+    "recheck": ((bool,), "re-check failing coordinates by extrapolation"),
+    "targets": ((list,), "targets to check when none is named"),
+    "json": ((str,), "path of the JSON report"),
+    "junit": ((str,), "path of the JUnit XML report"),
+}
+
+
+@dataclass(frozen=True)
+class ProjectConfig:
+    path: Path | None  # the pyproject.toml read, or None
+    values: dict[str, Any] = field(default_factory=dict)
+
+    def targets(self, cwd: Path) -> list[str]:
+        """Configured targets; file paths are taken relative to the pyproject's folder."""
+        out = []
+        for spec in self.values.get("targets", []):
+            location, sep, name = spec.partition(":") if spec.count(":") == 1 else (spec, "", "")
+            if self.path is not None and (location.endswith(".py") or "/" in location):
+                location = os.path.relpath(self.path.parent / location, cwd)
+            out.append(location + sep + name)
+        return out
+
+
+def find_pyproject(start: Path) -> Path | None:
+    """The nearest pyproject.toml in ``start`` or a folder above it."""
+    for folder in (start, *start.parents):
+        candidate = folder / "pyproject.toml"
+        if candidate.is_file():
+            return candidate
+    return None
+
+
+def _check(key: str, value: Any, path: Path) -> Any:
+    if key not in KEYS:
+        close = difflib.get_close_matches(key, list(KEYS), n=1)
+        tip = f"; did you mean {close[0]!r}?" if close else f"; known keys: {', '.join(KEYS)}"
+        raise UsageProblem(f"{path}: unknown key {key!r} in [tool.gradprobe]{tip}", value=key)
+    types, what = KEYS[key]
+    if isinstance(value, bool) and bool not in types or not isinstance(value, types):
+        raise UsageProblem(
+            f"{path}: [tool.gradprobe] {key} must be {' or '.join(t.__name__ for t in types)} "
+            f"({what}), not {value!r}", value=value)
+    if key == "targets" and not all(isinstance(t, str) for t in value):
+        raise UsageProblem(f"{path}: [tool.gradprobe] targets must be a list of strings", value=value)
+    return float(value) if key == "threshold" else value
+
+
+def load_config(start: Path) -> ProjectConfig:
+    """The ``[tool.gradprobe]`` table of the nearest pyproject.toml (empty when there is none)."""
+    path = find_pyproject(start)
+    if path is None:
+        return ProjectConfig(None)
+    try:
+        data = tomllib.loads(path.read_text())
+    except (OSError, tomllib.TOMLDecodeError) as exc:
+        raise UsageProblem(f"{path} cannot be read as TOML ({exc})", value=str(path)) from exc
+    table = data.get("tool", {}).get("gradprobe", {})
+    if not isinstance(table, dict):
+        raise UsageProblem(f"{path}: [tool.gradprobe] must be a table", value=table)
+    return ProjectConfig(path, {k: _check(k, v, path) for k, v in table.items()})

@@ -1,0 +1,83 @@
+"""JUnit XML: a testsuite per target, a testcase per tensor, so CI shows failing tensors."""
+
+from __future__ import annotations
+
+import xml.etree.ElementTree as ET
+
+from ..report import TargetRun, TensorResult
+from ..tensors import format_index
+
+
+def _failure_message(t: TensorResult, threshold: float) -> str:
+    if t.checked == 0 or t.max_rel_error is None:
+        return f"{t.name}: {t.hint}"
+    where = format_index(t.worst_index) if t.worst_index is not None else "-"
+    return (f"{t.name}: {t.failed} of {t.checked} checked coordinates disagree; worst relative "
+            f"error {t.max_rel_error:.3g} at {where} (threshold {threshold:g})")
+
+
+def _failure_text(t: TensorResult) -> str:
+    lines = [
+        f"worst index: {format_index(t.worst_index) if t.worst_index is not None else '-'}",
+        f"max relative error: {t.max_rel_error!r}",
+        f"max absolute error: {t.max_abs_error!r}",
+        f"bad indices: {[list(i) for i in t.bad_indices]}",
+    ]
+    if t.hint:
+        lines.append(f"hint: {t.hint}")
+    return "\n".join(lines)
+
+
+def _suite(root: ET.Element, run: TargetRun, index: int, timestamp: str, hostname: str) -> None:
+    report = run.report
+    tensors = report.tensors if report else ()
+    failures = sum(1 for t in tensors if t.status == "fail")
+    suite = ET.SubElement(root, "testsuite", {
+        "name": run.target, "tests": str(len(tensors) if report else 1),
+        "failures": str(failures), "errors": "0" if report else "1", "skipped": "0",
+        "time": f"{report.seconds:.6f}" if report else "0", "timestamp": timestamp,
+        "hostname": hostname, "id": str(index), "package": "gradprobe",
+    })
+    props = ET.SubElement(suite, "properties")
+    if report:
+        for name, value in (("threshold", f"{report.threshold:g}"), ("seed", str(report.seed)),
+                            ("method", report.method), ("compute_dtype", report.compute_dtype),
+                            ("evaluations", str(report.evaluations))):
+            ET.SubElement(props, "property", {"name": name, "value": value})
+        for t in tensors:
+            share = report.seconds * t.evaluations / max(report.evaluations, 1)
+            case = ET.SubElement(suite, "testcase", {
+                "name": t.name, "classname": f"{run.target}.{t.layer}", "time": f"{share:.6f}"})
+            if t.status == "fail":
+                failure = ET.SubElement(case, "failure", {
+                    "message": _failure_message(t, report.threshold), "type": "gradient mismatch"})
+                failure.text = _failure_text(t)
+    else:
+        case = ET.SubElement(suite, "testcase", {"name": "load and run", "classname": run.target, "time": "0"})
+        error = ET.SubElement(case, "error", {"message": run.error or "", "type": "check could not run"})
+        error.text = run.error or ""
+    out = ET.SubElement(suite, "system-out")
+    if report:
+        notes = [f"{t.name}: {t.status}" for t in tensors if t.status in ("kink", "inconclusive")]
+        out.text = "\n".join(notes + list(report.notes)) or None
+    ET.SubElement(suite, "system-err")
+
+
+def render_junit(runs: list[TargetRun], timestamp: str, hostname: str) -> str:
+    """The JUnit XML document for ``runs`` (``timestamp`` ISO 8601, without a time zone)."""
+    root = ET.Element("testsuites", {"name": "gradprobe"})
+    tests = failures = errors = 0
+    seconds = 0.0
+    for index, run in enumerate(runs):
+        _suite(root, run, index, timestamp, hostname)
+        suite = root[-1]
+        tests += int(suite.get("tests", "0"))
+        failures += int(suite.get("failures", "0"))
+        errors += int(suite.get("errors", "0"))
+        seconds += float(suite.get("time", "0"))
+    root.set("tests", str(tests))
+    root.set("failures", str(failures))
+    root.set("errors", str(errors))
+    root.set("time", f"{seconds:.6f}")
+    ET.indent(root)
+    return '<?xml version="1.0" encoding="UTF-8"?>\n' + ET.tostring(root, encoding="unicode") + "\n"

@@ -1,0 +1,59 @@
+"""JUnit XML: the required elements and attributes of the commonly used JUnit schema.
+
+The schema in question is the one Ant's JUnit task writes and Jenkins reads (junit-10.xsd /
+the "JUnit.xsd" of the Ant format); the required items below are from memory of it:
+testsuite needs name, tests, failures, errors, time, timestamp and hostname and holds
+properties, testcase*, system-out and system-err; testcase needs name, classname and time;
+failure and error need message and type.
+"""
+
+from __future__ import annotations
+
+import xml.etree.ElementTree as ET
+
+from conftest import SAMPLES
+
+SUITE_ATTRS = {"name", "tests", "failures", "errors", "time", "timestamp", "hostname"}
+CASE_ATTRS = {"name", "classname", "time"}
+
+
+def _validate(root: ET.Element) -> list[ET.Element]:
+    assert root.tag == "testsuites"
+    suites = root.findall("testsuite")
+    for suite in suites:
+        assert SUITE_ATTRS <= set(suite.attrib), suite.attrib
+        assert float(suite.get("time")) >= 0 and "T" in suite.get("timestamp")
+        children = [child.tag for child in suite]
+        assert children[0] == "properties" and children[-2:] == ["system-out", "system-err"]
+        assert set(children[1:-2]) <= {"testcase"}
+        cases = suite.findall("testcase")
+        assert int(suite.get("tests")) == len(cases)
+        assert int(suite.get("failures")) == sum(1 for c in cases if c.find("failure") is not None)
+        assert int(suite.get("errors")) == sum(1 for c in cases if c.find("error") is not None)
+        for case in cases:
+            assert CASE_ATTRS <= set(case.attrib)
+            for problem in list(case):
+                assert problem.tag in ("failure", "error") and {"message", "type"} <= set(problem.attrib)
+    assert int(root.get("tests")) == sum(int(s.get("tests")) for s in suites)
+    return suites
+
+
+def test_a_failing_tensor_is_a_failing_testcase_naming_it(run_cli, tmp_path):
+    result = run_cli("check", str(SAMPLES / "crop_yield_buggy.py"), "--junit", "out.xml")
+    assert result.exit_code == 1
+    (suite,) = _validate(ET.parse(tmp_path / "out.xml").getroot())
+    failed = [c for c in suite.findall("testcase") if c.find("failure") is not None]
+    assert [c.get("name") for c in failed] == ["out.W"]
+    failure = failed[0].find("failure")
+    assert "out.W" in failure.get("message") and "worst relative error" in failure.get("message")
+    assert "worst index: [" in failure.text and "bad indices" in failure.text
+
+
+def test_several_targets_and_one_that_cannot_run(run_cli, tmp_path):
+    result = run_cli("check", str(SAMPLES / "crop_yield.py"), "missing.py", "--junit", "out.xml")
+    assert result.exit_code == 2
+    suites = _validate(ET.parse(tmp_path / "out.xml").getroot())
+    assert [s.get("name") for s in suites] == [str(SAMPLES / "crop_yield.py"), "missing.py"]
+    assert suites[0].get("failures") == "0" and "kink" in suites[0].find("system-out").text
+    error = suites[1].find("testcase/error")
+    assert suites[1].get("errors") == "1" and "no such file missing.py" in error.get("message")
