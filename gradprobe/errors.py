@@ -9,6 +9,12 @@ from __future__ import annotations
 from typing import Any
 
 
+def summarise(exc: BaseException) -> str:
+    """``ValueError: first line of its message`` for sentences about the user's exceptions."""
+    text = str(exc).strip().splitlines()[0] if str(exc).strip() else ""
+    return f"{type(exc).__name__}: {text}" if text else type(exc).__name__
+
+
 class ProbeError(Exception):
     """Root of gradprobe's errors: the check could not run (exit code 2)."""
 

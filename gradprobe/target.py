@@ -19,7 +19,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable
 
-from .errors import TargetLoadError
+from .errors import TargetLoadError, summarise
 
 
 @dataclass(frozen=True)
@@ -46,9 +46,14 @@ def is_file_spec(location: str) -> bool:
     return location.endswith(".py") or "/" in location or os.sep in location
 
 
-def _summarise(exc: BaseException) -> str:
-    text = str(exc).strip().splitlines()[0] if str(exc).strip() else ""
-    return f"{type(exc).__name__}: {text}" if text else type(exc).__name__
+def _call_user(fn: Callable[[], Any], what: str) -> Any:
+    """``fn()``; any exception of the user's but Ctrl-C becomes one TargetLoadError sentence."""
+    try:
+        return fn()
+    except KeyboardInterrupt:
+        raise
+    except BaseException as exc:  # SystemExit from a module is the user's too
+        raise TargetLoadError(f"{what} raised {summarise(exc)}", value=fn) from exc
 
 
 def _import_file(location: str) -> Any:
@@ -66,12 +71,10 @@ def _import_file(location: str) -> Any:
     sys.path.insert(0, folder)
     sys.modules[name] = module
     try:
-        spec.loader.exec_module(module)
-    except BaseException as exc:
+        _call_user(lambda: spec.loader.exec_module(module), "importing it")  # type: ignore[union-attr]
+    except BaseException:
         sys.modules.pop(name, None)
-        if isinstance(exc, KeyboardInterrupt):
-            raise
-        raise TargetLoadError(f"importing it raised {_summarise(exc)}", value=location) from exc
+        raise
     finally:
         _remove_first(sys.path, folder)
     return module
@@ -89,11 +92,11 @@ def _import_module(location: str) -> Any:
                 "(name a file as path/to/file.py)",
                 value=location,
             ) from exc
-        raise TargetLoadError(f"importing it raised {_summarise(exc)}", value=location) from exc
+        raise TargetLoadError(f"importing it raised {summarise(exc)}", value=location) from exc
+    except KeyboardInterrupt:
+        raise
     except BaseException as exc:
-        if isinstance(exc, KeyboardInterrupt):
-            raise
-        raise TargetLoadError(f"importing it raised {_summarise(exc)}", value=location) from exc
+        raise TargetLoadError(f"importing it raised {summarise(exc)}", value=location) from exc
     finally:
         _remove_first(sys.path, here)
 
@@ -127,12 +130,7 @@ def resolve_object(spec: str) -> Any:
         raise TargetLoadError(f"{location} has no attribute {attr!r}{tip}", value=attr)
     obj = getattr(module, attr)
     if inspect.isclass(obj) or inspect.isfunction(obj):
-        try:
-            obj = obj()
-        except BaseException as exc:
-            if isinstance(exc, KeyboardInterrupt):
-                raise
-            raise TargetLoadError(f"calling {attr}() raised {_summarise(exc)}", value=attr) from exc
+        obj = _call_user(obj, f"calling {attr}()")
     return obj
 
 
@@ -155,12 +153,7 @@ def _arrays(obj: Any) -> tuple[Mapping[str, Any], Mapping[str, Any]]:
     if setup is not None:
         if not callable(setup):
             raise TargetLoadError("the target's setup is not a function", value=setup)
-        try:
-            result = setup()
-        except BaseException as exc:
-            if isinstance(exc, KeyboardInterrupt):
-                raise
-            raise TargetLoadError(f"setup() raised {_summarise(exc)}", value=setup) from exc
+        result = _call_user(setup, "setup()")
         if not (isinstance(result, tuple) and len(result) == 2):
             got = f"a tuple of {len(result)}" if isinstance(result, tuple) else type(result).__name__
             raise TargetLoadError(

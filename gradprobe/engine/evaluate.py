@@ -14,7 +14,7 @@ from typing import Any, Callable, Protocol, Sequence
 
 import numpy as np
 
-from ..errors import BadOutputError, InPlaceWriteError, UserCodeError
+from ..errors import BadOutputError, InPlaceWriteError, UserCodeError, summarise
 from ..tensors import Workspace, format_index
 
 
@@ -30,11 +30,6 @@ class Perturbation:
         if self.index.size == 1:
             return f"{self.tensor}{format_index(np.unravel_index(int(self.index[0]), shape))}"
         return f"{self.index.size} coordinates of {self.tensor}"
-
-
-def summarise(exc: BaseException) -> str:
-    text = str(exc).strip().splitlines()[0] if str(exc).strip() else ""
-    return f"{type(exc).__name__}: {text}" if text else type(exc).__name__
 
 
 def is_read_only_write(exc: BaseException) -> bool:

@@ -8,9 +8,9 @@ from typing import Any, Callable
 
 import numpy as np
 
-from ..errors import InPlaceWriteError, NondeterminismError, ProbeError, UserCodeError
+from ..errors import InPlaceWriteError, NondeterminismError, ProbeError, UserCodeError, summarise
 from ..tensors import Workspace
-from .evaluate import Evaluator, output_to_loss, summarise
+from .evaluate import Evaluator, output_to_loss
 
 
 @dataclass(frozen=True)

@@ -19,26 +19,15 @@ def _num(value: float | None) -> float | None:
     return float(value)
 
 
+NUMBERS = ("analytic", "numeric", "error_estimate", "rel_error")
+
+
 def _direction(d: DirectionResult) -> dict[str, Any]:
-    return {
-        "analytic": _num(d.analytic),
-        "numeric": _num(d.numeric),
-        "error_estimate": _num(d.error_estimate),
-        "rel_error": _num(d.rel_error),
-        "ok": d.ok,
-        "evaluations": d.evaluations,
-    }
+    return {**{k: _num(getattr(d, k)) for k in NUMBERS}, "ok": d.ok, "evaluations": d.evaluations}
 
 
 def _detail(c: CoordinateDetail) -> dict[str, Any]:
-    return {
-        "index": list(c.index),
-        "analytic": _num(c.analytic),
-        "numeric": _num(c.numeric),
-        "error_estimate": _num(c.error_estimate),
-        "rel_error": _num(c.rel_error),
-        "status": c.status,
-    }
+    return {"index": list(c.index), **{k: _num(getattr(c, k)) for k in NUMBERS}, "status": c.status}
 
 
 def tensor_dict(t: TensorResult) -> dict[str, Any]:
