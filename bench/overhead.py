@@ -90,5 +90,5 @@ def measure(label: str, batch: int, width: int, repeats: int) -> None:
 
 
 if __name__ == "__main__":
-    measure("cheap", batch=4, width=6, repeats=5)
+    measure("cheap", batch=16, width=8, repeats=5)
     measure("heavier", batch=6000, width=20, repeats=3)

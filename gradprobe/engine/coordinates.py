@@ -128,12 +128,11 @@ def check_coordinates(
         numeric, noise = wide.central.copy(), wide.noise.copy()
     floor = compare.floor_scale(p.analytic, numeric)
     status = compare.judge(p.analytic, numeric, noise, p.threshold, floor)
-    kinked = np.zeros(status.shape, dtype=bool)
     if method == "central":
         kinked = _kinks(evaluator, p, wide, status, floor)
         if recheck:
             _recheck(evaluator, p, numeric, noise, status, floor, kinked)
-    elif method == "richardson" and (status != PASS).any():
+    elif method == "richardson" and (status != PASS).any():  # kinks among the suspects
         which = np.flatnonzero(status != PASS)
         sub = Problem(p.tensor, p.flat[which], p.x[which], p.analytic[which], p.f0,
                       p.compute_dtype, p.threshold)
