@@ -191,6 +191,9 @@ def load_target(spec: str) -> Target:
 
 
 def load_functions(spec: str) -> tuple[Callable[..., Any], Callable[..., Any]]:
-    """forward and backward of ``spec``, for worker processes (setup runs, its result is unused)."""
-    target = load_target(spec)
-    return target.forward, target.backward
+    """forward and backward of ``spec``, for worker processes: setup() is not called again
+    (the protocol calls it once per check; workers receive its arrays instead)."""
+    try:
+        return _functions(resolve_object(spec))
+    except TargetLoadError as exc:
+        raise exc.with_target(spec)

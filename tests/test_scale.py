@@ -149,3 +149,25 @@ def test_dask_local_cluster_gives_the_same_report():
     assert out["cluster"] == out["serial"]
     tensor = out["cluster"]["layers"][0]["tensors"][0]
     assert tensor["bad_indices"] == [[3]]
+
+
+def test_workers_do_not_call_setup_again(tmp_path):
+    """setup() runs once per check, also with --jobs 2."""
+    counter = tmp_path / "calls.txt"
+    target = tmp_path / "counted.py"
+    target.write_text(f"""
+import numpy as np
+
+def setup():
+    with open({str(counter)!r}, "a") as f:
+        f.write("x")
+    return {{"w": np.linspace(-1, 1, 6)}}, {{}}
+
+def forward(p, i):
+    return float(np.sum(np.exp(p["w"])))
+
+def backward(p, i):
+    return {{"w": np.exp(p["w"])}}
+""")
+    report = run_check(load_target(str(target)), CheckOptions(jobs=2))
+    assert report.ok and counter.read_text() == "x"
