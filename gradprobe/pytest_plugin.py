@@ -47,7 +47,9 @@ def session_settings(config: pytest.Config) -> dict[str, Any]:
             try:
                 out[name] = kind(ini)
             except ValueError:
-                raise pytest.UsageError(f"gradprobe_{name} = {ini!r} in the ini file is not a {kind.__name__}")
+                raise pytest.UsageError(
+                    f"gradprobe_{name} = {ini!r} in the ini file is not a {kind.__name__}"
+                ) from None
         cli = config.getoption(f"--gradprobe-{name}")
         if cli is not None:
             out[name] = cli

@@ -117,7 +117,7 @@ def random_elements_wrong():
     def noise(g, p, i, r):
         rng = np.random.default_rng(99)
         W = g["dense"]["W"].copy()
-        for k in range(3):
+        for _ in range(3):
             W[rng.integers(K), rng.integers(K)] += rng.normal()
         g["dense"]["W"] = W
         return g

@@ -22,7 +22,7 @@ def test_kink_exactly_at_the_point_with_a_subgradient_is_a_kink():
     w = np.array([0.7, -0.2, 1.5])
     c = np.array([0.7, 0.4, -1.0])  # coordinate 0 sits on the kink
     for pick in (0.0, 1.0, -1.0, 0.5):
-        report = _abs_case(w, c, lambda r: np.where(r == 0, pick, np.sign(r)))
+        report = _abs_case(w, c, lambda r, pick=pick: np.where(r == 0, pick, np.sign(r)))
         t = report.tensor("w")
         assert report.ok and t.status == "kink" and t.kink_indices == ((0,),), pick
 
