@@ -24,6 +24,7 @@ class DirectionResult:
     rel_error: float
     ok: bool
     evaluations: int
+    kink: bool = False  # a kink along the direction explains the discrepancy
 
 
 @dataclass(frozen=True)

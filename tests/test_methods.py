@@ -142,3 +142,22 @@ def test_correct_float32_layer_passes_and_a_ten_percent_bug_fails():
     assert good.ok and good.compute_dtype == "float32"
     bad = check(forward, lambda p, i: backward(p, i, 1.1), {"W": W}, {"x": x})
     assert not bad.ok and bad.tensor("W").failed == W.size
+
+
+def test_float32_params_with_a_python_float_loss_are_judged_as_float32():
+    """float(np.sum(...)) of float32 arithmetic is a float64 result with float32 noise."""
+    rng = np.random.default_rng(2)
+    W = rng.normal(size=(5, 3)).astype(np.float32)
+    x = rng.normal(size=(20, 5)).astype(np.float32)
+
+    def forward(p, i):
+        return float(np.sum(np.tanh(i["x"] @ p["W"]) ** 2))
+
+    def backward(p, i, factor=1.0):
+        t = np.tanh(i["x"] @ p["W"])
+        return {"W": factor * (i["x"].T @ (2 * t * (1 - t**2)))}
+
+    good = check(forward, backward, {"W": W}, {"x": x})
+    assert good.ok and good.compute_dtype == "float32"
+    assert any("its params are float32, though it returns float64" in n for n in good.notes)
+    assert not check(forward, lambda p, i: backward(p, i, 1.1), {"W": W}, {"x": x}).ok

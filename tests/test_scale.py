@@ -171,3 +171,34 @@ def backward(p, i):
 """)
     report = run_check(load_target(str(target)), CheckOptions(jobs=2))
     assert report.ok and counter.read_text() == "x"
+
+
+def _relu_network(seed):
+    rng = np.random.default_rng(seed)
+    d, h, n = 300, 400, 64
+    params = {"l1": {"W": rng.normal(scale=1 / np.sqrt(d), size=(d, h)), "b": rng.normal(scale=0.1, size=h)},
+              "l2": {"W": rng.normal(scale=1 / np.sqrt(h), size=(h, 10))}}
+    inputs = {"x": rng.normal(size=(n, d)), "y": rng.normal(size=(n, 10))}
+
+    def fwd(p, i):
+        z = i["x"] @ p["l1"]["W"] + p["l1"]["b"]
+        return 0.5 * np.sum((np.maximum(z, 0) @ p["l2"]["W"] - i["y"]) ** 2) / n
+
+    def bwd(p, i):
+        z = i["x"] @ p["l1"]["W"] + p["l1"]["b"]
+        a = np.maximum(z, 0)
+        r = (a @ p["l2"]["W"] - i["y"]) / n
+        dz = (r @ p["l2"]["W"].T) * (z > 0)
+        return {"l1": {"W": i["x"].T @ dz, "b": dz.sum(0)}, "l2": {"W": a.T @ r}}
+
+    return fwd, bwd, params, inputs
+
+
+@pytest.mark.parametrize("seed", [1, 2])
+def test_directions_crossing_relu_kinks_do_not_fail_a_correct_network(seed):
+    """Tens of thousands of ReLU units: some pre-activation sits within every step along a
+    random direction. The kink is recognised from the one-sided slopes, not called a bug."""
+    fwd, bwd, params, inputs = _relu_network(seed)
+    report = check(fwd, bwd, params, inputs, options=CheckOptions(sample=0, seed=seed))
+    assert report.ok
+    assert any(d.kink for t in report.tensors for d in t.directions)

@@ -18,7 +18,7 @@ from .evaluate import Evaluator
 
 LEAF = 2
 MAX_CANDIDATES = 64  # stop splitting once this many candidates are found
-BUDGET = 2000  # forward evaluations one localisation may spend
+BUDGET = 1000  # forward evaluations one localisation may spend
 
 
 @dataclass(frozen=True)
@@ -30,7 +30,7 @@ class Located:
 
 def locate(
     evaluator: Evaluator, tensor: str, x: np.ndarray, a: np.ndarray, u: np.ndarray,
-    discrepancy: float, error: float, compute_dtype: np.dtype,
+    discrepancy: float, error: float, compute_dtype: np.dtype, f0: float,
 ) -> Located:
     """Candidates for the wrong coordinates of a tensor (flat values ``x``, analytic ``a``)
     whose direction ``u`` showed ``discrepancy`` +- ``error``."""
@@ -47,7 +47,7 @@ def locate(
             complete = False
             break
         first, second = group[: group.size // 2], group[group.size // 2 :]
-        part = slope(evaluator, tensor, first, x[first], a[first], [u[first]], compute_dtype,
+        part = slope(evaluator, tensor, first, x[first], a[first], [u[first]], compute_dtype, f0,
                      tolerance=SIGNIFICANCE * err)
         y1, e1 = float(part.discrepancy[0]), float(part.error[0])
         y2, e2 = y - y1, err + e1

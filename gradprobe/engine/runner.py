@@ -63,6 +63,16 @@ def _threshold_note(dtype: np.dtype, threshold: float, why: str) -> str:
     )
 
 
+def _compute_type(out_dtype: np.dtype, ws: Workspace) -> tuple[np.dtype, str]:
+    """The type forward computes in: its result's, or its params' when those are coarser
+    (float32 params whose loss is returned as a Python float still carry float32 noise)."""
+    kinds = [ws.owners[n].dtype for n in ws.param_names if is_float(ws.owners[n])]
+    coarsest = max(kinds, key=lambda d: np.finfo(d).eps)
+    if np.finfo(coarsest).eps > np.finfo(out_dtype).eps:
+        return np.dtype(coarsest), f" (its params are {coarsest}, though it returns {out_dtype})"
+    return np.dtype(out_dtype), ""
+
+
 def hint_context(ws: Workspace) -> HintContext:
     """Batch sizes (inputs' leading dimensions) and integer index inputs, for hints."""
     batches = tuple(ws.owners[n].shape[0] for n in ws.input_names if ws.owners[n].ndim >= 1)
@@ -126,16 +136,15 @@ def _check_all(
     info: ForwardInfo, grads: Gradients, rng: np.random.Generator, started: float,
     clock: Callable[[], float],
 ) -> Report:
-    compute_dtype = info.out_dtype
+    compute_dtype, why = _compute_type(info.out_dtype, ws)
     notes = list(grads.notes)
     from .precision import narrower_compute_type  # local: keeps the import graph acyclic
 
     hidden = narrower_compute_type(evaluator, ws, info.f0, compute_dtype)
     if hidden is not None:
-        compute_dtype = hidden.dtype
+        compute_dtype, why = hidden.dtype, hidden.evidence
     threshold = options.threshold or default_threshold(compute_dtype)
     if compute_dtype != np.float64:
-        why = hidden.evidence if hidden is not None else ""
         notes.append(_threshold_note(compute_dtype, threshold, why))
     total = sum(ws.owners[n].size for n in grads.values)
     ctx = Context(evaluator, ws, info.f0, compute_dtype, threshold, options, rng, total)

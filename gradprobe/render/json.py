@@ -23,7 +23,8 @@ NUMBERS = ("analytic", "numeric", "error_estimate", "rel_error")
 
 
 def _direction(d: DirectionResult) -> dict[str, Any]:
-    return {**{k: _num(getattr(d, k)) for k in NUMBERS}, "ok": d.ok, "evaluations": d.evaluations}
+    return {**{k: _num(getattr(d, k)) for k in NUMBERS}, "ok": d.ok, "kink": d.kink,
+            "evaluations": d.evaluations}
 
 
 def _detail(c: CoordinateDetail) -> dict[str, Any]:
