@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import contextlib
 import os
 import socket
 import sys
@@ -107,11 +108,18 @@ def _write(path: str, text: str, what: str) -> None:
 
 
 def check_one(spec: str, options: CheckOptions, out: Output) -> TargetRun:
-    """Check one target and show its table; errors become a TargetRun with exit code 2."""
+    """Check one target and show its table; errors become a TargetRun with exit code 2.
+
+    With ``--json -`` whatever the user's code prints goes to standard error, so standard
+    output holds the report alone. Ctrl-C propagates to stop the whole run.
+    """
     progress = _progress()
+    user_output = (contextlib.redirect_stdout(sys.stderr) if not out.stdout_free()
+                   else contextlib.nullcontext())
     try:
         try:
-            report = run_check(load_target(spec), options, progress=progress)
+            with user_output:
+                report = run_check(load_target(spec), options, progress=progress)
         finally:
             if progress is not None:
                 progress.close()
@@ -119,9 +127,6 @@ def check_one(spec: str, options: CheckOptions, out: Output) -> TargetRun:
         sentence = exc.with_target(spec).sentence()
         _say_error(sentence, exc, out.traceback)
         return TargetRun(spec, EXIT_ERROR, error=sentence)
-    except KeyboardInterrupt:
-        click.echo("gradprobe: interrupted; your arrays are unchanged", err=True)
-        return TargetRun(spec, EXIT_INTERRUPTED, error="interrupted")
     except Exception as exc:  # a bug in gradprobe itself, not in the user's code
         sentence = (f"{spec}: internal error {type(exc).__name__}: {exc} (please report it; "
                     "--traceback shows where)")
@@ -221,7 +226,11 @@ def check_command(ctx: click.Context, targets: tuple[str, ...], show_maps: bool,
         _say_error(exc.sentence(), exc, show_traceback)
         sys.exit(EXIT_ERROR)
     out = Output(values["json"], values["junit"], quiet, show_traceback, show_maps)
-    runs = [check_one(spec, options, out) for spec in chosen]
+    try:
+        runs = [check_one(spec, options, out) for spec in chosen]
+    except KeyboardInterrupt:
+        click.echo("gradprobe: interrupted; your arrays are unchanged", err=True)
+        sys.exit(EXIT_INTERRUPTED)
     code = max(run.exit_code for run in runs)
     try:
         if out.json_path is not None and any(r.report for r in runs):

@@ -140,3 +140,40 @@ def test_map_option_draws_failing_tensors(run_cli):
     result = run_cli("check", str(SAMPLES / "crop_yield_buggy.py"), "--map")
     assert result.exit_code == 1
     assert "out.W: 6 rows x 1 columns" in result.output and "map: ' ' not checked" in result.output
+
+
+def test_prints_in_user_code_do_not_reach_the_json_on_stdout(write_target, run_cli):
+    write_target(
+        """
+        import numpy as np
+        print("loading the sensor table")
+        params = {"w": np.array([1.0, 2.0])}
+        def forward(p, i):
+            print("forward called")
+            return float(np.sum(p["w"] ** 2))
+        def backward(p, i):
+            return {"w": 2 * p["w"]}
+        """,
+        "chatty.py",
+    )
+    result = run_cli("check", "chatty.py", "--json", "-")
+    assert result.exit_code == 0
+    assert json.loads(result.stdout)["ok"] is True
+    assert "forward called" in result.stderr
+
+
+def test_ctrl_c_stops_the_run_with_130(write_target, run_cli):
+    write_target(
+        """
+        import numpy as np
+        params = {"w": np.array([1.0, 2.0])}
+        def forward(p, i):
+            raise KeyboardInterrupt
+        def backward(p, i):
+            return {"w": 2 * p["w"]}
+        """,
+        "stop.py",
+    )
+    result = run_cli("check", "stop.py", "stop.py")
+    assert result.exit_code == 130
+    assert result.stderr.count("interrupted; your arrays are unchanged") == 1
