@@ -153,16 +153,41 @@ def _settings(ctx: click.Context, given: dict[str, Any], config: ProjectConfig) 
     return values, origins
 
 
-def _show_settings(values: dict, origins: dict, targets: list[str], target_origin: str) -> None:
+def _settings_lines(values: dict, origins: dict, targets: list[str], target_origin: str) -> list[str]:
     rows = [(name, "(from the floating type)" if name == "threshold" and values[name] is None
              else "(by tensor size)" if values[name] is None and name in ("sample", "directions")
              else repr(values[name]), origins[name]) for name in SETTINGS]
     rows.append(("targets", repr(targets), target_origin))
     width = max(len(r[0]) for r in rows)
     value_width = max(len(r[1]) for r in rows)
-    click.echo(f"{'setting'.ljust(width)}  {'value'.ljust(value_width)}  from")
-    for name, value, origin in rows:
-        click.echo(f"{name.ljust(width)}  {value.ljust(value_width)}  {origin}")
+    lines = [f"{'setting'.ljust(width)}  {'value'.ljust(value_width)}  from"]
+    lines += [f"{name.ljust(width)}  {value.ljust(value_width)}  {origin}" for name, value, origin in rows]
+    return lines
+
+
+class CheckCommand(click.Command):
+    """``check``, whose help also lists the settings in force when --show-settings is given."""
+
+    def parse_args(self, ctx: click.Context, args: list[str]) -> list[str]:
+        ctx.meta["gradprobe.show_settings"] = "--show-settings" in args
+        return super().parse_args(ctx, args)
+
+    def format_help(self, ctx: click.Context, formatter: click.HelpFormatter) -> None:
+        super().format_help(ctx, formatter)
+        if not ctx.meta.get("gradprobe.show_settings"):
+            return
+        try:
+            config = load_config(Path.cwd())
+        except ProbeError as exc:
+            formatter.write_paragraph()
+            formatter.write_text(f"Settings: {exc.sentence()}")
+            return
+        values = {n: config.values.get(n, DEFAULTS[n]) for n in SETTINGS}
+        origins = {n: str(config.path) if n in config.values else "default" for n in SETTINGS}
+        targets = config.targets(Path.cwd())
+        with formatter.section("Settings in force (before any option on this command line)"):
+            for line in _settings_lines(values, origins, targets, str(config.path) if targets else "none"):
+                formatter.write(" " * formatter.current_indent + line + "\n")
 
 
 @click.group(context_settings={"help_option_names": ["-h", "--help"]})
@@ -171,7 +196,7 @@ def cli() -> None:
     """gradprobe: verify hand-written backward passes against central differences."""
 
 
-@cli.command("check", help=CHECK_HELP)
+@cli.command("check", cls=CheckCommand, help=CHECK_HELP)
 @click.argument("targets", nargs=-1, metavar="[TARGET]...")
 @click.option("--fail-above", "threshold", type=float, default=None, metavar="REL",
               help="Relative error above which a coordinate fails "
@@ -206,7 +231,7 @@ def cli() -> None:
               help="Show the full traceback when the check cannot run.")
 @click.option("--show-settings", is_flag=True,
               help="Print every setting's value and where it came from (command line, "
-                   "pyproject.toml or default), then stop.")
+                   "pyproject.toml or default), then stop; with --help, list them under it.")
 @click.pass_context
 def check_command(ctx: click.Context, targets: tuple[str, ...], show_maps: bool, quiet: bool,
                   show_traceback: bool, show_settings: bool, **given: Any) -> None:
@@ -216,7 +241,7 @@ def check_command(ctx: click.Context, targets: tuple[str, ...], show_maps: bool,
         chosen = list(targets) or config.targets(Path.cwd())
         target_origin = "command line" if targets else str(config.path) if chosen else "none"
         if show_settings:
-            _show_settings(values, origins, chosen, target_origin)
+            click.echo("\n".join(_settings_lines(values, origins, chosen, target_origin)))
             sys.exit(EXIT_OK)
         if not chosen:
             raise UsageProblem("no TARGET given and no targets in [tool.gradprobe] of a "

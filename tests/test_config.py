@@ -104,9 +104,20 @@ def test_configured_file_targets_resolve_from_the_pyprojects_folder(run_cli, tmp
     assert CliRunner().invoke(cli, ["check"]).exit_code == 0
 
 
-def test_help_says_where_settings_come_from(run_cli):
+def test_help_says_where_settings_come_from(run_cli, tmp_path):
     text = run_cli("check", "--help").output
     assert "[tool.gradprobe]" in text and "--show-settings" in text and "--junit" in text
+    assert "Settings in force" not in text
+    _project(tmp_path, """
+        [tool.gradprobe]
+        seed = 5
+        """)
+    asked = run_cli("check", "--help", "--show-settings").output
+    section = asked[asked.index("Settings in force"):]
+    seed_line = next(line for line in section.splitlines() if line.split()[:1] == ["seed"])
+    assert seed_line.split()[1:] == ["5", str(tmp_path / "pyproject.toml")]
+    method_line = next(line for line in section.splitlines() if line.split()[:1] == ["method"])
+    assert method_line.split()[-1] == "default"
 
 
 def test_starter_writes_a_target_that_runs(run_cli, tmp_path):
