@@ -202,3 +202,32 @@ def test_directions_crossing_relu_kinks_do_not_fail_a_correct_network(seed):
     report = check(fwd, bwd, params, inputs, options=CheckOptions(sample=0, seed=seed))
     assert report.ok
     assert any(d.kink for t in report.tensors for d in t.directions)
+
+
+def test_an_unpicklable_forward_with_jobs_is_one_sentence():
+    from gradprobe.errors import UsageProblem
+
+    def local_forward(p, i):
+        return float(np.sum(p["w"] ** 2))
+
+    with pytest.raises(UsageProblem, match="not picklable"):
+        check(local_forward, lambda p, i: {"w": 2 * p["w"]}, {"w": np.ones(4)},
+              options=CheckOptions(jobs=2))
+
+
+def test_a_forward_raising_in_a_worker_keeps_its_sentence(tmp_path):
+    from gradprobe.errors import UserCodeError
+
+    target = tmp_path / "fragile.py"
+    target.write_text("""
+import numpy as np
+params = {"w": np.array([1.0, 2.0, 3.0])}
+def forward(p, i):
+    if p["w"][1] > 2.0:
+        raise ValueError("stock below zero")
+    return float(np.sum(p["w"] ** 2))
+def backward(p, i):
+    return {"w": 2 * p["w"]}
+""")
+    with pytest.raises(UserCodeError, match=r"forward raised ValueError: stock below zero when w\[1\] was perturbed"):
+        run_check(load_target(str(target)), CheckOptions(jobs=2))

@@ -15,11 +15,13 @@ report is identical to the serial one.
 from __future__ import annotations
 
 import os
-from concurrent.futures import Executor, ProcessPoolExecutor
+from concurrent.futures import Executor, Future, ProcessPoolExecutor
+from concurrent.futures.process import BrokenProcessPool
 from typing import Any, Callable, Sequence
 
 import numpy as np
 
+from ..errors import ProbeError, UsageProblem, summarise
 from ..tensors import Workspace
 from .evaluate import LossFunction, Perturbation
 
@@ -45,6 +47,27 @@ def _start_worker(spec: str, params: Any, inputs: Any, grad_output: np.ndarray |
 
     forward, _ = load_functions(spec)
     _worker_loss = LossFunction(forward, Workspace(params, inputs), grad_output)
+
+
+def _gather(futures: list[Future]) -> list[float]:
+    """The chunks' losses in order; failures of the machinery become one sentence."""
+    try:
+        return [value for f in futures for value in f.result()]
+    except ProbeError:
+        raise  # the user's forward failed in a worker: its own sentence
+    except BrokenProcessPool as exc:
+        raise UsageProblem(
+            "the worker processes failed to start or died (a target that cannot be loaded "
+            "again in a fresh process, or a crash); run without --jobs to see why"
+        ) from exc
+    except Exception as exc:
+        if "pickle" in str(exc).lower() or "pickl" in type(exc).__name__.lower():
+            raise UsageProblem(
+                "forward cannot be sent to other processes (it is not picklable: "
+                f"{summarise(exc)}); use a module-level function, or name the target by "
+                "its entry point"
+            ) from exc
+        raise
 
 
 def _evaluate_in_worker(chunk: Sequence[Perturbation]) -> list[float]:
@@ -74,7 +97,7 @@ class WorkerPool:
     def losses(self, perturbations: Sequence[Perturbation]) -> list[float]:
         futures = [self.pool.submit(_evaluate_in_worker, c)
                    for c in _chunks(perturbations, self.jobs * CHUNKS_PER_WORKER)]
-        return [value for f in futures for value in f.result()]
+        return _gather(futures)
 
     def close(self) -> None:
         self.pool.shutdown(wait=True, cancel_futures=True)
@@ -97,4 +120,4 @@ class ExecutorBackend:
                                  self.grad_output, list(c))
             for c in _chunks(perturbations, self.workers * CHUNKS_PER_WORKER)
         ]
-        return [value for f in futures for value in f.result()]
+        return _gather(futures)
