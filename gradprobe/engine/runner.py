@@ -22,6 +22,7 @@ from .preflight import ForwardInfo, call_backward, inspect_forward
 from .summary import problem_result, unknown_result
 from .tensor import check_tensor
 
+
 def _backend(
     target: Target, ws: Workspace, grad_output: np.ndarray | None, options: CheckOptions,
     executor: Executor | None,
@@ -50,16 +51,15 @@ class Context:
     compute_dtype: np.dtype
     threshold: float
     options: CheckOptions
-    rng: np.random.Generator
     total: int  # coordinates of every tensor to be checked, for the sweep plan
 
 
-def _threshold_note(dtype: np.dtype, threshold: float, why: str) -> str:
+def _threshold_note(dtype: np.dtype, why: str) -> str:
     eps = float(np.finfo(dtype).eps)
     return (
         f"forward computes in {dtype}{why}: its rounding unit is {eps:.1e}, so central differences "
-        f"are good to about {eps ** (2 / 3):.0e} relative at best and the default threshold is "
-        f"{threshold:g}"
+        f"are good to about {eps ** (2 / 3):.0e} relative at best, and the default threshold for "
+        f"it is {default_threshold(dtype):g}"
     )
 
 
@@ -119,22 +119,21 @@ def _run(
     ws = Workspace(target.params, target.inputs)
     if not any(is_float(ws.owners[n]) for n in ws.param_names):
         raise TargetLoadError("the target has no floating-point params to check")
-    rng = np.random.default_rng(options.seed)
+    rng = np.random.default_rng(options.seed)  # grad_output; tensors draw from their own
     loss = LossFunction(target.forward, ws, None)
     evaluator = Evaluator(loss, None, progress)
     info = inspect_forward(target.forward, ws, evaluator, rng)
     grads = validate(call_backward(target.backward, ws, info.grad_output), ws)
     evaluator.backend, release = _backend(target, ws, info.grad_output, options, executor)
     try:
-        return _check_all(target, options, ws, evaluator, info, grads, rng, started, clock)
+        return _check_all(target, options, ws, evaluator, info, grads, started, clock)
     finally:
         release()
 
 
 def _check_all(
     target: Target, options: CheckOptions, ws: Workspace, evaluator: Evaluator,
-    info: ForwardInfo, grads: Gradients, rng: np.random.Generator, started: float,
-    clock: Callable[[], float],
+    info: ForwardInfo, grads: Gradients, started: float, clock: Callable[[], float],
 ) -> Report:
     compute_dtype, why = _compute_type(info.out_dtype, ws)
     notes = list(grads.notes)
@@ -145,9 +144,9 @@ def _check_all(
         compute_dtype, why = hidden.dtype, hidden.evidence
     threshold = options.threshold or default_threshold(compute_dtype)
     if compute_dtype != np.float64:
-        notes.append(_threshold_note(compute_dtype, threshold, why))
+        notes.append(_threshold_note(compute_dtype, why))
     total = sum(ws.owners[n].size for n in grads.values)
-    ctx = Context(evaluator, ws, info.f0, compute_dtype, threshold, options, rng, total)
+    ctx = Context(evaluator, ws, info.f0, compute_dtype, threshold, options, total)
     results: list[TensorResult] = []
     evidence: list[Evidence] = []
     for name in ws.names():
