@@ -47,7 +47,7 @@ def plan(options: CheckOptions, size: int, total: int) -> tuple[int, int]:
     return min(coordinates, size), directions
 
 
-def _direction_results(s: Slope, a: np.ndarray, threshold: float, per_direction: int) -> tuple[DirectionResult, ...]:
+def _direction_results(s: Slope, a: np.ndarray, per_direction: int) -> tuple[DirectionResult, ...]:
     numeric = s.analytic + s.discrepancy
     floor = compare.FLOOR_FRACTION * float(np.sqrt(np.mean(a**2))) if a.size else 0.0
     scale = compare.denominators(s.analytic, numeric, max(floor, float(np.finfo(float).tiny)))
@@ -80,7 +80,7 @@ def check_tensor(ctx: "Context", name: str, grad: np.ndarray) -> tuple["TensorRe
         everything = np.arange(owner.size, dtype=np.int64)
         s = slope(ev, name, everything, values, analytic, units, ctx.compute_dtype, ctx.f0,
                   precision=needed_precision(analytic, ctx.threshold))
-        directions = _direction_results(s, analytic, ctx.threshold, s.evaluations // n_dirs)
+        directions = _direction_results(s, analytic, s.evaluations // n_dirs)
         off = [k for k, d in enumerate(directions) if not d.ok]
         if off:
             j = max(off, key=lambda k: abs(s.discrepancy[k]) / max(s.error[k], 1e-300))
