@@ -24,7 +24,7 @@ from .options import METHODS, CheckOptions
 from .render.json import render_runs
 from .render.junit import render_junit
 from .render.progress import TerminalProgress
-from .render.terminal import COLOUR, PLAIN, renderables, run_summary
+from .render.terminal import COLOUR, PLAIN, plain_console, renderables, run_summary
 from .report import TargetRun
 from .starter import write_starter
 from .target import load_target
@@ -81,10 +81,8 @@ class Output:
 
 def _console(stderr: bool = False) -> Console:
     stream = sys.stderr if stderr else sys.stdout
-    plain = bool(os.environ.get("NO_COLOR")) or not stream.isatty()
-    if plain:
-        return Console(file=stream, no_color=True, color_system=None, force_terminal=False,
-                       highlight=False, emoji=False, markup=False, width=120)
+    if os.environ.get("NO_COLOR") or not stream.isatty():
+        return plain_console(stream)
     return Console(file=stream, highlight=False, emoji=False, markup=False)
 
 

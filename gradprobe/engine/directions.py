@@ -19,10 +19,10 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .differences import ROUNDING_UNITS
+from .differences import rounding_noise
 from .evaluate import Evaluator, Perturbation
 from .extrapolate import FIRST_STEP_EXPONENT, FIRST_STEP_FACTOR, CentralAt, extrapolate
-from .steps import _seen
+from .steps import as_seen
 
 SIGNIFICANCE = 4.0  # a discrepancy beyond 4 error estimates is real
 CURVATURE_SPREAD = 0.05  # second-difference estimates 5% apart: not smooth along u
@@ -96,7 +96,7 @@ def _central(
     eps = float(np.finfo(compute_dtype).eps)
     rms = float(np.sqrt(np.mean(x.astype(np.float64) ** 2))) if x.size else 0.0
     t0 = FIRST_STEP_FACTOR * eps**FIRST_STEP_EXPONENT * max(1.0, rms)
-    base = _seen(x, compute_dtype)
+    base = as_seen(x, compute_dtype)
 
     def central(which: np.ndarray, scale: float) -> tuple[np.ndarray, np.ndarray]:
         t = t0 * scale
@@ -105,15 +105,15 @@ def _central(
         for k in which:
             plus = (x + t * units[k]).astype(x.dtype)
             minus = (x - t * units[k]).astype(x.dtype)
-            up.append(a @ (_seen(plus, compute_dtype) - base))
-            down.append(a @ (base - _seen(minus, compute_dtype)))
+            up.append(a @ (as_seen(plus, compute_dtype) - base))
+            down.append(a @ (base - as_seen(minus, compute_dtype)))
             requests.append(Perturbation(tensor, flat, plus))
             requests.append(Perturbation(tensor, flat, minus))
         values = evaluator.losses(requests)
         f_plus, f_minus = values[0::2], values[1::2]
         right = ((f_plus - f0) - np.array(up)) / t
         left = ((f0 - f_minus) - np.array(down)) / t
-        noise = ROUNDING_UNITS * eps * (np.abs(f_plus) + np.abs(f_minus)) / (2.0 * t)
+        noise = rounding_noise(eps, 2.0 * t, f_plus, f_minus)
         for j, k in enumerate(which):
             history[k].append(_Row(t, float(left[j]), float(right[j]), float(noise[j])))
         return (right + left) / 2.0, noise

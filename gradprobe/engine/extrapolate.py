@@ -15,8 +15,8 @@ from typing import Callable
 
 import numpy as np
 
-from .differences import ROUNDING_UNITS
-from .evaluate import Evaluator, Perturbation
+from .differences import coordinate_pairs, rounding_noise
+from .evaluate import Evaluator
 from .steps import make_steps
 
 RATIO = 1.4
@@ -47,15 +47,9 @@ def coordinate_central(
 
     def central(which: np.ndarray, scale: float) -> tuple[np.ndarray, np.ndarray]:
         steps = make_steps(x[which], compute_dtype, scale * base_scale, power_of_two=False)
-        requests: list[Perturbation] = []
-        for k, i in enumerate(which):
-            index = flat[i : i + 1]
-            requests.append(Perturbation(tensor, index, steps.plus[k : k + 1]))
-            requests.append(Perturbation(tensor, index, steps.minus[k : k + 1]))
-        values = evaluator.losses(requests)
+        f_plus, f_minus = coordinate_pairs(evaluator, tensor, flat[which], steps)
         width = steps.h_plus + steps.h_minus
-        noise = ROUNDING_UNITS * eps * (np.abs(values[0::2]) + np.abs(values[1::2])) / width
-        return (values[0::2] - values[1::2]) / width, noise
+        return (f_plus - f_minus) / width, rounding_noise(eps, width, f_plus, f_minus)
 
     return central
 

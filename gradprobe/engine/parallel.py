@@ -70,9 +70,13 @@ def _gather(futures: list[Future]) -> list[float]:
         raise
 
 
+def _evaluate(loss: LossFunction, chunk: Sequence[Perturbation]) -> list[float]:
+    return [float(np.real(loss.at(p))) for p in chunk]
+
+
 def _evaluate_in_worker(chunk: Sequence[Perturbation]) -> list[float]:
     assert _worker_loss is not None, "worker was not started"
-    return [float(np.real(_worker_loss.at(p))) for p in chunk]
+    return _evaluate(_worker_loss, chunk)
 
 
 def evaluate_payload(
@@ -80,8 +84,7 @@ def evaluate_payload(
     chunk: Sequence[Perturbation],
 ) -> list[float]:
     """One executor task: rebuild the loss from what the task carries, evaluate a chunk."""
-    loss = LossFunction(forward, Workspace(params, inputs), grad_output)
-    return [float(np.real(loss.at(p))) for p in chunk]
+    return _evaluate(LossFunction(forward, Workspace(params, inputs), grad_output), chunk)
 
 
 class WorkerPool:

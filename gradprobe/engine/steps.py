@@ -29,7 +29,7 @@ class Steps:
     h_minus: np.ndarray  # float64 distance actually stepped down
 
 
-def _seen(values: np.ndarray, compute_dtype: np.dtype) -> np.ndarray:
+def as_seen(values: np.ndarray, compute_dtype: np.dtype) -> np.ndarray:
     """The values as the forward sees them: rounded to the compute type when it is narrower."""
     if np.finfo(compute_dtype).eps > np.finfo(values.dtype).eps:
         values = values.astype(compute_dtype)
@@ -50,9 +50,9 @@ def make_steps(
     for _ in range(4):  # a step below the resolution of x reads back as 0: widen it
         plus = (x + h).astype(x.dtype)
         minus = (x - h).astype(x.dtype)
-        base = _seen(x, compute_dtype)
-        h_plus = _seen(plus, compute_dtype) - base
-        h_minus = base - _seen(minus, compute_dtype)
+        base = as_seen(x, compute_dtype)
+        h_plus = as_seen(plus, compute_dtype) - base
+        h_minus = base - as_seen(minus, compute_dtype)
         flat = (h_plus <= 0) | (h_minus <= 0)
         if not flat.any():
             break

@@ -11,22 +11,22 @@ from .coordinates import CoordinateOutcome
 MAX_LISTED = 100
 
 
-def _indices(flat: np.ndarray, shape: tuple[int, ...]) -> tuple[tuple[int, ...], ...]:
-    flat = np.sort(flat)
-    return tuple(tuple(int(i) for i in np.unravel_index(int(k), shape)) for k in flat)
+def _index(flat: int, shape: tuple[int, ...]) -> tuple[int, ...]:
+    return tuple(int(i) for i in np.unravel_index(int(flat), shape))
 
 
-def _worst_first(flat: np.ndarray, rel: np.ndarray) -> np.ndarray:
-    return flat[np.argsort(-rel, kind="stable")[:MAX_LISTED]]
+def _listed(outcome: CoordinateOutcome, mask: np.ndarray) -> np.ndarray:
+    """Positions of the (at most MAX_LISTED) worst coordinates in ``mask``, in index order."""
+    chosen = np.flatnonzero(mask)
+    chosen = chosen[np.argsort(-outcome.rel[chosen], kind="stable")[:MAX_LISTED]]
+    return chosen[np.argsort(outcome.flat[chosen], kind="stable")]
 
 
 def _details(outcome: CoordinateOutcome, shape: tuple[int, ...]) -> tuple[CoordinateDetail, ...]:
-    doubtful = np.flatnonzero((outcome.status == FAIL) | (outcome.status == INCONCLUSIVE))
-    doubtful = doubtful[np.argsort(-outcome.rel[doubtful], kind="stable")[:MAX_LISTED]]
-    doubtful = doubtful[np.argsort(outcome.flat[doubtful], kind="stable")]
+    doubtful = _listed(outcome, (outcome.status == FAIL) | (outcome.status == INCONCLUSIVE))
     return tuple(
         CoordinateDetail(
-            index=tuple(int(i) for i in np.unravel_index(int(outcome.flat[k]), shape)),
+            index=_index(outcome.flat[k], shape),
             analytic=float(outcome.analytic[k]),
             numeric=float(outcome.numeric[k]),
             error_estimate=float(outcome.error_estimate[k]),
@@ -64,7 +64,7 @@ def tensor_result(
     worst = max_abs = max_rel = worst_noise = None
     if judged.any():
         k = int(np.argmax(np.where(judged, outcome.rel, -np.inf)))
-        worst = tuple(int(i) for i in np.unravel_index(int(outcome.flat[k]), shape))
+        worst = _index(outcome.flat[k], shape)
         max_rel = float(outcome.rel[k])
         max_abs = float(outcome.abs[judged].max())
         worst_noise = float(outcome.error_estimate[k] / outcome.scale[k])
@@ -89,8 +89,8 @@ def tensor_result(
         max_abs_error=max_abs,
         max_rel_error=max_rel,
         worst_index=worst,
-        bad_indices=_indices(_worst_first(outcome.flat[failing], outcome.rel[failing]), shape),
-        kink_indices=_indices(outcome.flat[s == KINK][:MAX_LISTED], shape),
+        bad_indices=tuple(_index(outcome.flat[k], shape) for k in _listed(outcome, failing)),
+        kink_indices=tuple(_index(k, shape) for k in np.sort(outcome.flat[s == KINK][:MAX_LISTED])),
         max_error_estimate=float(estimates.max()) if estimates.size else None,
         worst_noise=worst_noise,
         details=_details(outcome, shape),

@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import io
 from dataclasses import dataclass
-from typing import Iterable
+from typing import IO, Iterable
 
 from rich import box
 from rich.console import Console, RenderableType
@@ -126,7 +126,7 @@ def renderables(
     yield Text(verdict(report), style=style)
 
 
-def plain_console(file: io.TextIOBase | io.StringIO, width: int = 120) -> Console:
+def plain_console(file: IO[str], width: int = 120) -> Console:
     return Console(
         file=file, width=width, no_color=True, color_system=None, force_terminal=False,
         highlight=False, emoji=False, markup=False, soft_wrap=False,
