@@ -31,6 +31,12 @@ class Evidence:
     def complete(self) -> bool:
         return self.flat.size == int(np.prod(self.shape, dtype=np.int64))
 
+    def failed_mask(self) -> np.ndarray:
+        """Failing coordinates in the tensor's shape (unchecked ones count as not failing)."""
+        mask = np.zeros(self.shape, dtype=bool)
+        mask.reshape(-1)[self.flat] = self.failed
+        return mask
+
     def full(self, values: np.ndarray) -> np.ndarray:
         out = np.full(self.shape, np.nan)
         out.reshape(-1)[self.flat] = values
@@ -101,7 +107,7 @@ def _transpose_hint(e: Evidence) -> str | None:
 def _slice_hint(e: Evidence) -> str | None:
     if not e.complete or len(e.shape) < 1:
         return None
-    failed = e.full(e.failed.astype(float)) > 0
+    failed = e.failed_mask()
     size = failed.size
     for axis, length in enumerate(e.shape):
         if length < 3 or size // length < 2:  # a slice of one element says nothing
@@ -127,7 +133,7 @@ def _repeat_hint(e: Evidence, ctx: Context) -> str | None:
     if not e.shape or not e.complete:
         return None
     rows = e.shape[0]
-    failed_rows = (e.full(e.failed.astype(float)) > 0).reshape(rows, -1).any(axis=1)
+    failed_rows = e.failed_mask().reshape(rows, -1).any(axis=1)
     if not failed_rows.any():
         return None
     a = np.abs(e.analytic[e.failed])
