@@ -37,6 +37,7 @@ class CoordinateDetail:
     error_estimate: float
     rel_error: float
     status: str
+    reason: str | None = None  # why an inconclusive coordinate could not be decided
 
 
 @dataclass(frozen=True)
@@ -62,6 +63,7 @@ class TensorResult:
     worst_noise: float | None = None  # the worst coordinate's error estimate, relative
     details: tuple[CoordinateDetail, ...] = ()  # failing and inconclusive coordinates
     hint: str | None = None
+    inconclusive_reason: str | None = None  # why the tensor is inconclusive, in one sentence
     evaluations: int = 0
     directions: tuple[DirectionResult, ...] = ()
     located_evaluations: int | None = None  # spent finding wrong coordinates from directions

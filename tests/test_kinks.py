@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 from gradprobe.engine.runner import check
-from gradprobe.engine.steps import make_steps
+from probe_kit import make_probe
 
 
 def _abs_case(w, c, analytic):
@@ -36,15 +36,20 @@ def test_analytic_outside_the_one_sided_slopes_fails_at_a_kink():
 
 
 @pytest.mark.parametrize("fraction", [0.05, 0.2, 1.0 / 3.0, 0.5, 0.6, 0.8, 0.95])
-def test_kink_inside_the_step_is_a_kink_not_a_failure(fraction):
-    """The kink sits a fraction of the step away from the point; sign(w - c) is exact there."""
+def test_kink_inside_the_step_is_near_not_at_the_point(fraction):
+    """The kink sits a fraction of the first step away from the point: steps far below the
+    distance resolve the derivative there, so the coordinate passes (sign(w - c) is exact)
+    and a wrong value there still fails."""
     w = np.array([0.9, 2.0])
-    h = make_steps(w, np.dtype(np.float64)).h_plus[0]
+    probe = make_probe(np.sum, w)
+    h = probe.prior_steps(np.arange(1))[0]
     c = np.array([0.9 - fraction * h, 0.0])
     report = _abs_case(w, c, np.sign)
     t = report.tensor("w")
     assert report.ok, report.render()
-    assert t.status == "kink" and t.kink_indices == ((0,),)
+    assert t.status == "pass" and t.kink_indices == ()
+    wrong = _abs_case(w, c, lambda r: -np.sign(r))
+    assert wrong.tensor("w").bad_indices == ((0,), (1,))
 
 
 def test_relu_at_zero_is_a_kink():

@@ -10,12 +10,12 @@ import mpmath
 import numpy as np
 import pytest
 
-from gradprobe.engine.evaluate import Evaluator, LossFunction
-from gradprobe.engine.extrapolate import coordinate_central, extrapolate
+from gradprobe.engine.coordinates import RICHARDSON_START
+from gradprobe.engine.refine import climb
 from gradprobe.engine.runner import check
 from gradprobe.errors import ComplexStepError
 from gradprobe.options import CheckOptions
-from gradprobe.tensors import Workspace
+from probe_kit import make_probe
 from test_numerics_reference import POINTS, SMOOTH
 
 mpmath.mp.dps = 50
@@ -26,18 +26,18 @@ def _reference(mp_fn, t):
 
 
 @pytest.mark.parametrize("name", sorted(SMOOTH))
-def test_extrapolation_within_1e_11_of_mpmath_and_its_estimate_bounds_the_error(name):
+def test_three_rows_reach_1e_10_of_mpmath_and_the_bound_holds(name):
+    """The richardson method's ladder: steps 2**-7 max(1, |x|), halved twice (6 calls)."""
     fn, mp_fn = SMOOTH[name]
-    for t in POINTS:
-        ws = Workspace({"w": np.array([t])}, {})
-        ev = Evaluator(LossFunction(lambda p, i: float(fn(p["w"][0])), ws, None))
-        central = coordinate_central(ev, "w", np.arange(1), np.array([t]), np.dtype(np.float64))
-        result = extrapolate(central, 1)
-        ref = _reference(mp_fn, t)
-        error = abs(result.value[0] - ref)
-        assert error <= 1e-11 * abs(ref), (t, error / abs(ref))
-        assert error <= result.error[0]  # the estimate bounds the true error
-        assert result.evaluations == ev.count
+    probe = make_probe(lambda w: np.sum(fn(w)), POINTS)
+    flat = np.arange(POINTS.size)
+    before = probe.evaluator.count
+    ladder = climb(probe, flat, RICHARDSON_START * np.maximum(1.0, np.abs(POINTS)), 3)
+    ref = np.array([_reference(mp_fn, t) for t in POINTS])
+    error = np.abs(ladder.central.value - ref)
+    assert np.all(error <= 1e-10 * np.abs(ref)), error / np.abs(ref)
+    assert np.all(error <= ladder.central.error)  # the bound holds
+    assert ladder.evaluations == probe.evaluator.count - before == 6 * POINTS.size
 
 
 @pytest.mark.parametrize("name", sorted(SMOOTH))

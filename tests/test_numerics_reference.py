@@ -13,10 +13,8 @@ import numpy as np
 import pytest
 import sympy
 
-from gradprobe.engine.differences import slopes
-from gradprobe.engine.evaluate import Evaluator, LossFunction
 from gradprobe.engine.runner import check
-from gradprobe.tensors import Workspace
+from probe_kit import make_probe
 
 mpmath.mp.dps = 50
 
@@ -32,11 +30,9 @@ POINTS = np.array([-1.7, -0.3, 0.05, 0.9, 2.4, 11.0])
 
 def _numeric_slopes(fn, points):
     """Central differences of sum(fn(w)) at each coordinate of ``points``."""
-    ws = Workspace({"w": points.copy()}, {})
-    ev = Evaluator(LossFunction(lambda p, i: float(np.sum(fn(p["w"]))), ws, None))
-    f0 = ev.base()
+    probe = make_probe(lambda w: np.sum(fn(w)), points)
     flat = np.arange(points.size)
-    return slopes(ev, "w", flat, points.copy(), f0, np.dtype(np.float64)).central
+    return probe.pairs(flat, probe.prior_steps(flat)).central
 
 
 @pytest.mark.parametrize("name", sorted(SMOOTH))
@@ -102,10 +98,10 @@ def test_symbolic_derivatives_from_sympy():
 
 def test_steps_are_exact_distances():
     """The divisor is the distance the perturbed values really moved (common practice)."""
-    from gradprobe.engine.steps import make_steps
-
     x = np.array([0.1, 1.0 / 3.0, 7.77, -123.456, 0.0])
-    s = make_steps(x, np.dtype(np.float64))
-    assert np.array_equal(s.plus - x, s.h_plus)
-    assert np.array_equal(x - s.minus, s.h_minus)
-    assert np.all(s.h_plus > 0) and np.all(s.h_minus > 0)
+    probe = make_probe(lambda w: np.sum(w), x)
+    flat = np.arange(x.size)
+    plus, minus, h_plus, h_minus = probe.moved(flat, probe.prior_steps(flat))
+    assert np.array_equal(plus - x, h_plus)
+    assert np.array_equal(x - minus, h_minus)
+    assert np.all(h_plus > 0) and np.all(h_minus > 0)

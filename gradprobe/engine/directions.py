@@ -1,16 +1,17 @@
 """Directional checks: the analytic gradient . u against the slope of the loss along u.
 
-For a unit direction u over a set S of a tensor's coordinates, the loss is evaluated at
-x + t u and x - t u (two calls, whatever the size of S). What is extrapolated is the
-discrepancy itself,
+For a unit direction u over a part S of a tensor, the loss is evaluated at x +- t u for a
+ladder of small steps t (two calls a step, whatever the size of S). What is extrapolated is
+the discrepancy itself: on the right (f(x + d+) - f0 - a . d+) / t and on the left
+(f0 - f(x - d-) - a . d-) / t, where d+ and d- are the moves the forward really saw, so the
+rounding of x +- t u cancels exactly. Both tend to (numeric - analytic) . u as t -> 0.
 
-    y(t) = [ (f(x + d+) - f(x - d-)) / 2  -  a . (d+ + d-) / 2 ] / t,
-
-where d+ and d- are the perturbations the forward really saw (read back from the perturbed
-arrays), so rounding of x + t u cancels exactly. y(t) tends to (numeric - analytic) . u as
-t -> 0 with even powers of t, which Ridders' tableau removes; its error estimate says
-whether the discrepancy is significant. Because a random u weighs every element, a wrong
-element of any size shows up as long as it exceeds the numeric noise.
+Random directions through a ReLU network cross kinks. The steps start at the coordinate
+step, far below the usual distance to the nearest kink, and each side is extrapolated on
+its own: where the sides still disagree, a kink lies within the steps, and the ladder moves
+to steps 16 times smaller, twice; a direction that is kinked at every step is no evidence
+either way and another direction is drawn. Because a random u weighs every element, a wrong
+element shows up as long as its share of the discrepancy exceeds the error bound.
 """
 
 from __future__ import annotations
@@ -19,126 +20,84 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .differences import rounding_noise
-from .evaluate import Evaluator, Perturbation
-from .extrapolate import FIRST_STEP_EXPONENT, FIRST_STEP_FACTOR, CentralAt, extrapolate
-from .steps import as_seen
+from .ladder import Estimate, tableau
+from .probe import TensorProbe
 
-SIGNIFICANCE = 4.0  # a discrepancy beyond 4 error estimates is real
-CURVATURE_SPREAD = 0.05  # second-difference estimates 5% apart: not smooth along u
+SIGNIFICANCE = 4.0  # a discrepancy beyond 4 error bounds is real
+ROWS = 4
+RATIO = 2.0
+FIRST_STEP = 4.0  # the ladder starts at 4 coordinate steps
+SHRINK = 16.0  # steps shrink this much when a kink is seen
+RETRIES = 2
 
 
 @dataclass(frozen=True)
-class Slope:
-    """Discrepancies (numeric - analytic) . u for several directions, with error estimates."""
+class DirectionCheck:
+    """(numeric - analytic) . u along one direction, with its error bound."""
 
-    discrepancy: np.ndarray
-    error: np.ndarray
-    analytic: np.ndarray  # a . u per direction
+    discrepancy: float
+    error: float
+    analytic: float  # a . u
     evaluations: int
-    kink: np.ndarray  # the loss has kinks along u within the steps, and analytic lies between
-    # the one-sided slopes: the discrepancy is the kinks', not evidence of a bug
+    kink: bool  # kinks within every step tried: the discrepancy is not evidence
 
-    def significant(self) -> np.ndarray:
-        return (np.abs(self.discrepancy) > SIGNIFICANCE * self.error) & ~self.kink
-
-
-@dataclass
-class _Row:
-    t: float
-    left: float  # one-sided discrepancy (f0 - f(x - d-)) / t - a . d- / t
-    right: float
-    noise: float
+    @property
+    def significant(self) -> bool:
+        return abs(self.discrepancy) > SIGNIFICANCE * self.error and not self.kink
 
 
-def _kinked(rows: list[_Row]) -> bool:
-    """The loss is not smooth along the direction, and the analytic value lies between the
-    one-sided slopes at the smallest step.
-
-    Along a smooth direction (right - left) / t estimates the second derivative and is the
-    same at every step, to O(t**2); kinks within the steps make it wander by far more.
-    """
-    if len(rows) < 2:
-        return False
-    curvature = np.array([(r.right - r.left) / r.t for r in rows])
-    noise = np.array([SIGNIFICANCE * 2 * r.noise / r.t for r in rows])
-    last = curvature[-1]
-    size = np.maximum(np.abs(curvature), abs(last))
-    wander = np.abs(curvature - last) > CURVATURE_SPREAD * size + noise + noise[-1]
-    narrow = rows[-1]
-    margin = SIGNIFICANCE * 2 * narrow.noise
-    between = min(narrow.left, narrow.right) - margin <= 0 <= max(narrow.left, narrow.right) + margin
-    return bool(wander.any() and between)
+def unit_direction(size: int, rng: np.random.Generator) -> np.ndarray:
+    """A unit vector of length ``size``, uniformly distributed on the sphere."""
+    g = rng.standard_normal(size)
+    return g / np.linalg.norm(g)
 
 
-def needed_precision(a: np.ndarray, threshold: float) -> float:
-    """The error at which a direction could show a threshold-sized error in one typical
-    element: threshold * rms(a) * |u_i| with |u_i| ~ 1/sqrt(n), over the significance factor."""
-    if a.size == 0:
-        return 0.0
-    rms = float(np.sqrt(np.mean(a**2)))
-    return threshold * rms / np.sqrt(a.size) / SIGNIFICANCE
+def _ladder(
+    probe: TensorProbe, part: np.ndarray, u: np.ndarray, t0: float, rows: int
+) -> tuple[Estimate, Estimate, Estimate, float]:
+    steps = t0 / RATIO ** np.arange(rows)
+    moves = [s * sign * u for s in steps for sign in (1.0, -1.0)]
+    values, predicted = probe.along(part, moves)
+    f_plus, f_minus = values[0::2], values[1::2]
+    p_plus, p_minus = predicted[0::2], predicted[1::2]
+    right = (f_plus - probe.f0 - p_plus) / steps
+    left = (probe.f0 - f_minus + p_minus) / steps
+    noise = probe.loss_noise(f_plus, f_minus)
+    one_sided = (2.0 * noise / steps)[:, None]
+    central = tableau(((right + left) / 2.0)[:, None], (noise / steps)[:, None], RATIO, 2)
+    return (central, tableau(left[:, None], one_sided, RATIO, 1),
+            tableau(right[:, None], one_sided, RATIO, 1), float(noise.max() / steps[-1]))
 
 
-def random_directions(size: int, count: int, rng: np.random.Generator) -> list[np.ndarray]:
-    """``count`` unit vectors of length ``size``, uniformly distributed on the sphere."""
-    out = []
-    for _ in range(count):
-        g = rng.standard_normal(size)
-        out.append(g / np.linalg.norm(g))
-    return out
+def first_step(probe: TensorProbe, part: np.ndarray) -> float:
+    x = probe.x[part].astype(np.float64)
+    rms = float(np.sqrt(np.mean(x**2))) if x.size else 0.0
+    return FIRST_STEP * probe.eps ** (1.0 / 3.0) * max(1.0, rms)
 
 
-def _central(
-    evaluator: Evaluator, tensor: str, flat: np.ndarray, x: np.ndarray, a: np.ndarray,
-    units: list[np.ndarray], compute_dtype: np.dtype, f0: float, history: list[list[_Row]],
-) -> CentralAt:
-    eps = float(np.finfo(compute_dtype).eps)
-    rms = float(np.sqrt(np.mean(x.astype(np.float64) ** 2))) if x.size else 0.0
-    t0 = FIRST_STEP_FACTOR * eps**FIRST_STEP_EXPONENT * max(1.0, rms)
-    base = as_seen(x, compute_dtype)
-
-    def central(which: np.ndarray, scale: float) -> tuple[np.ndarray, np.ndarray]:
-        t = t0 * scale
-        requests: list[Perturbation] = []
-        up, down = [], []
-        for k in which:
-            plus = (x + t * units[k]).astype(x.dtype)
-            minus = (x - t * units[k]).astype(x.dtype)
-            up.append(a @ (as_seen(plus, compute_dtype) - base))
-            down.append(a @ (base - as_seen(minus, compute_dtype)))
-            requests.append(Perturbation(tensor, flat, plus))
-            requests.append(Perturbation(tensor, flat, minus))
-        values = evaluator.losses(requests)
-        f_plus, f_minus = values[0::2], values[1::2]
-        right = ((f_plus - f0) - np.array(up)) / t
-        left = ((f0 - f_minus) - np.array(down)) / t
-        noise = rounding_noise(eps, 2.0 * t, f_plus, f_minus)
-        for j, k in enumerate(which):
-            history[k].append(_Row(t, float(left[j]), float(right[j]), float(noise[j])))
-        return (right + left) / 2.0, noise
-
-    return central
-
-
-def slope(
-    evaluator: Evaluator, tensor: str, flat: np.ndarray, x: np.ndarray, a: np.ndarray,
-    units: list[np.ndarray], compute_dtype: np.dtype, f0: float,
-    tolerance: float | None = None, precision: float | None = None,
-) -> Slope:
-    """Directional discrepancies over coordinates ``flat`` (values ``x``, analytic ``a``).
-
-    A direction stops refining as soon as its discrepancy is clearly above ``tolerance``
-    (default 0: clearly nonzero) or clearly below it, or once its error estimate is below
-    ``precision``.
-    """
-    history: list[list[_Row]] = [[] for _ in units]
-    central = _central(evaluator, tensor, flat, x, a, units, compute_dtype, f0, history)
-    count = len(units)
-    result = extrapolate(
-        central, count, analytic=np.zeros(count), tolerance=np.full(count, tolerance or 0.0),
-        precision=None if precision is None else np.full(count, precision),
+def check_direction(
+    probe: TensorProbe, part: np.ndarray, u: np.ndarray, rows: int = ROWS, enough: float = 0.0
+) -> DirectionCheck:
+    """The discrepancy along ``u`` over coordinates ``part`` of the probed tensor, from a
+    ladder of ``rows`` steps; larger steps are tried where rounding noise dominates the
+    bound and the bound is above ``enough``."""
+    before = probe.evaluator.count
+    t0 = first_step(probe, part)
+    kink = True
+    for attempt in range(RETRIES + 1):
+        central, left, right, noise = _ladder(probe, part, u, t0, rows)
+        gap = abs(float(right.value[0] - left.value[0]))
+        kink = gap > SIGNIFICANCE * float(left.error[0] + right.error[0])
+        if not kink:
+            break
+        t0 /= SHRINK ** (attempt + 1)
+    bound = float(central.error[0])
+    if not kink and bound > enough and noise > 0.5 * bound:
+        wide = _ladder(probe, part, u, t0 * SHRINK, rows)  # noise-limited and smooth: larger steps
+        wide_gap = abs(float(wide[2].value[0] - wide[1].value[0]))
+        if wide_gap <= SIGNIFICANCE * float(wide[1].error[0] + wide[2].error[0]):
+            central = Estimate.better(central, wide[0])
+    return DirectionCheck(
+        discrepancy=float(central.value[0]), error=float(central.error[0]),
+        analytic=float(probe.a[part] @ u), evaluations=probe.evaluator.count - before, kink=kink,
     )
-    analytic = np.array([a @ u for u in units])
-    kink = np.array([_kinked(rows) for rows in history], dtype=bool)
-    return Slope(result.value, result.error, analytic, result.evaluations, kink)

@@ -4,7 +4,8 @@ The discrepancy y of a direction u over a set S is the sum of the discrepancies 
 halves, so one directional check of the first half also gives the second (y - y1). Halves
 whose discrepancy is significant are split again, so k wrong coordinates among N are found
 with about k log2(N) checks; sets of LEAF coordinates or fewer are handed back as
-candidates for a coordinate-wise check, which confirms or clears each of them.
+candidates for a coordinate-wise check, which confirms or clears each of them. A half whose
+own check is kinked is split without trusting its share.
 """
 
 from __future__ import annotations
@@ -13,12 +14,13 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .directions import SIGNIFICANCE, slope
-from .evaluate import Evaluator
+from .directions import SIGNIFICANCE, check_direction
+from .probe import TensorProbe
 
 LEAF = 2
+HALF_ROWS = 3  # a half's share needs less than the first direction's ladder
 MAX_CANDIDATES = 64  # stop splitting once this many candidates are found
-BUDGET = 1000  # forward evaluations one localisation may spend
+BUDGET = 1500  # forward evaluations one localisation may spend
 
 
 @dataclass(frozen=True)
@@ -28,31 +30,29 @@ class Located:
     complete: bool  # False when the budget or the candidate limit stopped the search
 
 
-def locate(
-    evaluator: Evaluator, tensor: str, x: np.ndarray, a: np.ndarray, u: np.ndarray,
-    discrepancy: float, error: float, compute_dtype: np.dtype, f0: float,
-) -> Located:
-    """Candidates for the wrong coordinates of a tensor (flat values ``x``, analytic ``a``)
-    whose direction ``u`` showed ``discrepancy`` +- ``error``."""
-    start = evaluator.count
-    stack = [(np.arange(x.size, dtype=np.int64), discrepancy, error)]
+def locate(probe: TensorProbe, u: np.ndarray, discrepancy: float, error: float) -> Located:
+    """Candidates for the wrong coordinates of the probed tensor whose direction ``u``
+    showed ``discrepancy`` +- ``error``."""
+    start = probe.evaluator.count
+    stack: list[tuple[int, int, float, float]] = [(0, probe.size, discrepancy, error)]
     found: list[np.ndarray] = []
     complete = True
     while stack:
-        group, y, err = stack.pop()
-        if group.size <= LEAF:
-            found.append(group)
+        lo, hi, y, err = stack.pop()
+        if hi - lo <= LEAF:
+            found.append(np.arange(lo, hi, dtype=np.int64))
             continue
-        if evaluator.count - start > BUDGET or sum(f.size for f in found) >= MAX_CANDIDATES:
+        if probe.evaluator.count - start > BUDGET or sum(f.size for f in found) >= MAX_CANDIDATES:
             complete = False
             break
-        first, second = group[: group.size // 2], group[group.size // 2 :]
-        part = slope(evaluator, tensor, first, x[first], a[first], [u[first]], compute_dtype, f0,
-                     tolerance=SIGNIFICANCE * err)
-        y1, e1 = float(part.discrepancy[0]), float(part.error[0])
+        mid = (lo + hi) // 2
+        part = np.arange(lo, mid, dtype=np.int64)
+        check = check_direction(probe, part, u[lo:mid], rows=HALF_ROWS,
+                                enough=abs(y) / (4 * SIGNIFICANCE))
+        y1, e1 = check.discrepancy, check.error
         y2, e2 = y - y1, err + e1
-        for half, yh, eh in ((second, y2, e2), (first, y1, e1)):
-            if abs(yh) > SIGNIFICANCE * eh:
-                stack.append((half, yh, eh))
+        for (a, b), yh, eh in (((mid, hi), y2, e2), ((lo, mid), y1, e1)):
+            if check.kink or abs(yh) > SIGNIFICANCE * eh:
+                stack.append((a, b, yh, eh))
     candidates = np.unique(np.concatenate(found)) if found else np.empty(0, dtype=np.int64)
-    return Located(candidates, evaluator.count - start, complete)
+    return Located(candidates, probe.evaluator.count - start, complete)

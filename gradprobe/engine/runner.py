@@ -20,7 +20,8 @@ from .evaluate import Backend, Evaluator, LossFunction, Progress
 from .gradients import Gradients, validate
 from .preflight import ForwardInfo, call_backward, inspect_forward
 from .summary import problem_result, unknown_result
-from .tensor import check_tensor
+from .probe import TensorProbe
+from .tensor_check import check_tensor
 
 
 def _backend(
@@ -39,19 +40,6 @@ def _backend(
         return pool, pool.close
     own = ProcessPoolExecutor(max_workers=options.jobs)
     return ExecutorBackend(own, target.forward, ws, grad_output, options.jobs), own.shutdown
-
-
-@dataclass(frozen=True)
-class Context:
-    """What every tensor's check shares."""
-
-    evaluator: Evaluator
-    workspace: Workspace
-    f0: float
-    compute_dtype: np.dtype
-    threshold: float
-    options: CheckOptions
-    total: int  # coordinates of every tensor to be checked, for the sweep plan
 
 
 def _threshold_note(dtype: np.dtype, why: str) -> str:
@@ -146,7 +134,7 @@ def _check_all(
     if compute_dtype != np.float64:
         notes.append(_threshold_note(compute_dtype, why))
     total = sum(ws.owners[n].size for n in grads.values)
-    ctx = Context(evaluator, ws, info.f0, compute_dtype, threshold, options, total)
+    target_scale = max((float(np.sqrt(np.mean(g**2))) for g in grads.values.values() if g.size), default=0.0)
     results: list[TensorResult] = []
     evidence: list[Evidence] = []
     for name in ws.names():
@@ -154,9 +142,15 @@ def _check_all(
         if name in grads.problems:
             results.append(problem_result(name, layer, ws.kind(name), ws.owners[name], grads.problems[name]))
         elif name in grads.values:
-            result, found = check_tensor(ctx, name, grads.values[name])
+            owner = ws.owners[name]
+            probe = TensorProbe(evaluator, name, owner.reshape(-1), grads.values[name].reshape(-1),
+                                info.f0, compute_dtype, threshold, target_scale)
+            result, found, outcome = check_tensor(probe, options, total, owner.shape,
+                                                  ws.layer(name), ws.kind(name), owner.dtype)
             results.append(result)
             evidence.append(found)
+            if outcome.note:
+                notes.append(outcome.note)
     hints = diagnose(evidence, hint_context(ws))
     results = [replace(r, hint=hints[r.name]) if r.name in hints and r.hint is None else r for r in results]
     for name, (shape, sentence) in grads.unknown.items():

@@ -5,8 +5,8 @@ from __future__ import annotations
 import numpy as np
 
 from ..report import CoordinateDetail, DirectionResult, TensorResult
-from .compare import FAIL, INCONCLUSIVE, KINK, STATUS_NAMES
 from .coordinates import CoordinateOutcome
+from .status import FAIL, INCONCLUSIVE, KINK, STATUS_NAMES
 
 MAX_LISTED = 100
 
@@ -32,6 +32,7 @@ def _details(outcome: CoordinateOutcome, shape: tuple[int, ...]) -> tuple[Coordi
             error_estimate=float(outcome.error_estimate[k]),
             rel_error=float(outcome.rel[k]),
             status=STATUS_NAMES[int(outcome.status[k])],
+            reason=outcome.reasons[k],
         )
         for k in doubtful
     )
@@ -49,7 +50,8 @@ def tensor_result(
     name: str,
     layer: str,
     kind: str,
-    tensor: np.ndarray,
+    shape: tuple[int, ...],
+    dtype: np.dtype,
     outcome: CoordinateOutcome,
     hint: str | None = None,
     directions: tuple[DirectionResult, ...] = (),
@@ -57,7 +59,7 @@ def tensor_result(
     evaluations: int | None = None,
 ) -> TensorResult:
     """Summarise the checked coordinates of one tensor (and its direction checks)."""
-    shape = tuple(tensor.shape)
+    shape = tuple(shape)
     s = outcome.status
     failing = s == FAIL
     judged = s != KINK
@@ -75,12 +77,13 @@ def tensor_result(
     inconclusive = int((s == INCONCLUSIVE).sum())
     kinks = int((s == KINK).sum())
     status = status_of(failed, inconclusive, kinks)
+    reason = next((r for r, st in zip(outcome.reasons, s) if st == INCONCLUSIVE and r), None)
     return TensorResult(
         name=name,
         layer=layer,
         kind=kind,
         shape=shape,
-        dtype=str(tensor.dtype),
+        dtype=str(np.dtype(dtype)),
         checked=int(outcome.flat.size),
         failed=failed,
         kinks=kinks,
@@ -95,6 +98,7 @@ def tensor_result(
         worst_noise=worst_noise,
         details=_details(outcome, shape),
         hint=hint,
+        inconclusive_reason=reason if status == "inconclusive" else None,
         evaluations=outcome.evaluations if evaluations is None else evaluations,
         directions=directions,
         located_evaluations=located_evaluations,

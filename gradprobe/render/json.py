@@ -28,7 +28,8 @@ def _direction(d: DirectionResult) -> dict[str, Any]:
 
 
 def _detail(c: CoordinateDetail) -> dict[str, Any]:
-    return {"index": list(c.index), **{k: _num(getattr(c, k)) for k in NUMBERS}, "status": c.status}
+    return {"index": list(c.index), **{k: _num(getattr(c, k)) for k in NUMBERS}, "status": c.status,
+            "reason": c.reason}
 
 
 def tensor_dict(t: TensorResult) -> dict[str, Any]:
@@ -52,6 +53,7 @@ def tensor_dict(t: TensorResult) -> dict[str, Any]:
         "kink_indices": [list(i) for i in t.kink_indices],
         "status": t.status,
         "hint": t.hint,
+        "inconclusive_reason": t.inconclusive_reason,
         "evaluations": t.evaluations,
         "details": [_detail(c) for c in t.details],
         "directions": [_direction(d) for d in t.directions],

@@ -67,7 +67,7 @@ def _row(t: TensorResult, theme: Theme) -> list[Text | str]:
         fmt(t.max_abs_error),
         where,
         Text(t.status, style=theme.style(t.status)),
-        t.hint or "",
+        t.hint or t.inconclusive_reason or "",
     ]
 
 
@@ -107,7 +107,7 @@ def verdict(report: Report) -> str:
     if kinked:
         extras.append(f"{kinked} at a kink")
     if unsure:
-        extras.append(f"{unsure} inconclusive (numeric noise above the threshold)")
+        extras.append(f"{unsure} inconclusive")
     more = f" ({', '.join(extras)})" if extras else ""
     return f"ok  {n} tensors agree within {report.threshold:g}{more} · {cost}"
 

@@ -1,0 +1,158 @@
+"""One tensor of a target being probed: the numeric questions gradprobe asks of it.
+
+A :class:`TensorProbe` holds the evaluator, the tensor's private values, its analytic
+gradient, the loss at the base point, the type the forward computes in and the tolerance
+model. Everything numeric about a tensor is a method of a probe or a function of one:
+pairs of perturbations at given steps (:meth:`TensorProbe.pairs`), the loss along a
+direction (:meth:`TensorProbe.along`), and restrictions to part of the tensor.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .evaluate import Evaluator, Perturbation
+
+# Rounding noise of one loss value is taken as ROUNDING_UNITS * eps * |f|: a forward is a
+# chain of operations each rounding once, so a few units of eps (common practice). The
+# calibration tests against mpmath (tests/test_estimates.py) hold this bound.
+ROUNDING_UNITS = 8.0
+FLOOR_FRACTION = 1e-3  # denominators never fall below 1e-3 of the tensor's gradient scale
+TARGET_FLOOR_FRACTION = 1e-4  # ... nor below 1e-4 of the target's largest tensor scale
+
+
+def as_seen(values: np.ndarray, compute_dtype: np.dtype) -> np.ndarray:
+    """The values as the forward sees them: rounded to the compute type when it is narrower."""
+    if np.finfo(compute_dtype).eps > np.finfo(values.dtype).eps:
+        values = values.astype(compute_dtype)
+    return values.astype(np.float64)
+
+
+@dataclass(frozen=True)
+class Pairs:
+    """The loss at x + h and x - h for several coordinates, with the distances really moved."""
+
+    f_plus: np.ndarray
+    f_minus: np.ndarray
+    h_plus: np.ndarray
+    h_minus: np.ndarray
+    noise: np.ndarray  # absolute rounding noise of one loss value near these points
+
+    @property
+    def central(self) -> np.ndarray:
+        return (self.f_plus - self.f_minus) / (self.h_plus + self.h_minus)
+
+
+class TensorProbe:
+    """``tensor`` of the target behind ``evaluator``, at flat values ``x`` with analytic ``a``."""
+
+    def __init__(
+        self,
+        evaluator: Evaluator,
+        tensor: str,
+        x: np.ndarray,
+        analytic: np.ndarray,
+        f0: float,
+        compute_dtype: np.dtype,
+        threshold: float,
+        target_scale: float = 0.0,
+        loss_scale: float | None = None,
+    ) -> None:
+        self.evaluator = evaluator
+        self.tensor = tensor
+        self.x = x  # flat, the tensor's own dtype (a private copy)
+        self.a = analytic  # flat float64
+        self.f0 = f0
+        self.compute_dtype = np.dtype(compute_dtype)
+        self.eps = float(np.finfo(self.compute_dtype).eps)
+        self.threshold = threshold
+        rms = float(np.sqrt(np.mean(analytic**2))) if analytic.size else 0.0
+        self.floor = max(FLOOR_FRACTION * rms, TARGET_FLOOR_FRACTION * target_scale,
+                         float(np.finfo(np.float64).tiny))
+        # |f| can be far below the size of the terms that round (a sum of signed terms):
+        # the loss scale, when known, is the larger of the two.
+        self.loss_scale = max(abs(f0), loss_scale or 0.0)
+
+    @property
+    def size(self) -> int:
+        return int(self.x.size)
+
+    # -- tolerances -------------------------------------------------------------------
+
+    def denominators(self, flat: np.ndarray, numeric: np.ndarray) -> np.ndarray:
+        """The scale each coordinate's relative error is taken against."""
+        return np.maximum(np.maximum(np.abs(self.a[flat]), np.abs(numeric)), self.floor)
+
+    def tolerance(self, flat: np.ndarray, numeric: np.ndarray) -> np.ndarray:
+        """The absolute discrepancy each coordinate may have: threshold times its scale."""
+        return self.threshold * self.denominators(flat, numeric)
+
+    def loss_noise(self, *values: np.ndarray) -> np.ndarray:
+        """Rounding noise of loss values near ``values`` (absolute, per coordinate)."""
+        size = np.full(np.shape(values[0]), self.loss_scale)
+        for v in values:
+            size = np.maximum(size, np.abs(v))
+        return ROUNDING_UNITS * self.eps * size
+
+    # -- steps ------------------------------------------------------------------------
+
+    def prior_steps(self, flat: np.ndarray) -> np.ndarray:
+        """eps**(1/3) * max(1, |x|), rounded to a power of two: the first guess of a step
+        (Nocedal & Wright, Numerical Optimization, 2nd ed., section 8.1)."""
+        size = np.maximum(1.0, np.abs(self.x[flat].astype(np.float64)))
+        return np.exp2(np.round(np.log2(self.eps ** (1.0 / 3.0) * size)))
+
+    def moved(self, flat: np.ndarray, h: np.ndarray) -> tuple[np.ndarray, ...]:
+        """(x + h, x - h) in the tensor's dtype and the distances the forward really sees.
+
+        A step below the resolution of x reads back as 0; it is widened until it moves."""
+        x = self.x[flat]
+        h = np.asarray(h, dtype=np.float64).copy()
+        base = as_seen(x, self.compute_dtype)
+        for _ in range(8):
+            plus = (x + h).astype(x.dtype)
+            minus = (x - h).astype(x.dtype)
+            h_plus = as_seen(plus, self.compute_dtype) - base
+            h_minus = base - as_seen(minus, self.compute_dtype)
+            stuck = (h_plus <= 0) | (h_minus <= 0) | ~np.isfinite(h_plus) | ~np.isfinite(h_minus)
+            if not stuck.any():
+                break
+            h = np.where(stuck, h * 16, h)
+        return plus, minus, h_plus, h_minus
+
+    # -- evaluations ------------------------------------------------------------------
+
+    def pairs(self, flat: np.ndarray, h: np.ndarray) -> Pairs:
+        """The loss at x + h and x - h for each coordinate ``flat[i]``: one batch of 2n calls."""
+        plus, minus, h_plus, h_minus = self.moved(flat, h)
+        requests: list[Perturbation] = []
+        for i in range(flat.size):
+            index = flat[i : i + 1]
+            requests.append(Perturbation(self.tensor, index, plus[i : i + 1]))
+            requests.append(Perturbation(self.tensor, index, minus[i : i + 1]))
+        values = self.evaluator.losses(requests)
+        f_plus, f_minus = values[0::2].real, values[1::2].real
+        noise = self.loss_noise(f_plus, f_minus)
+        return Pairs(f_plus, f_minus, h_plus, h_minus, noise)
+
+    def complex_losses(self, flat: np.ndarray, h: np.ndarray) -> np.ndarray:
+        """The loss at x + i h for each coordinate (complex values; one call each)."""
+        requests = [
+            Perturbation(self.tensor, flat[i : i + 1], np.array([self.x[flat[i]] + 1j * h[i]]))
+            for i in range(flat.size)
+        ]
+        return self.evaluator.losses(requests)
+
+    def along(self, part: np.ndarray, steps: list[np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
+        """The loss with ``x[part] + s`` for each step vector ``s`` (one call each), and the
+        analytic change ``a[part] . d`` for the moves ``d`` the forward really saw."""
+        x = self.x[part]
+        base = as_seen(x, self.compute_dtype)
+        requests, predicted = [], []
+        for s in steps:
+            moved = (x + s).astype(x.dtype)
+            predicted.append(float(self.a[part] @ (as_seen(moved, self.compute_dtype) - base)))
+            requests.append(Perturbation(self.tensor, part, moved))
+        return self.evaluator.losses(requests).real, np.array(predicted)

@@ -1,0 +1,82 @@
+"""Spending more evaluations on coordinates whose first estimate is not conclusive.
+
+A coordinate is re-estimated on a ladder of steps h, h/2, h/4, ... (one batch for all its
+rows): central quotients extrapolated in even powers of h, and the left and right one-sided
+quotients extrapolated each on its own, so that a kink's sides are known to O(h**k) rather
+than biased by h |f''| / 2. Where the loss is smooth the two sides agree and the central
+tableau (or, at a corner where only f'' jumps, the sides' mean) gives the derivative;
+where they disagree a pair of much smaller steps tells a kink at the point from one near it.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .ladder import Estimate, tableau
+from .probe import Pairs, TensorProbe
+
+RATIO = 2.0
+ROWS = 4
+TINY = 2.0**-12  # the kink test's small step, relative to the ladder's smallest
+
+
+@dataclass(frozen=True)
+class Ladder:
+    """Estimates from one ladder of steps, per coordinate."""
+
+    central: Estimate
+    left: Estimate
+    right: Estimate
+    noise_share: np.ndarray  # share of the central bound that is rounding noise
+    smallest: np.ndarray  # the smallest step of the ladder
+    evaluations: int
+
+    def pick(self, which: np.ndarray) -> "Ladder":
+        return Ladder(self.central.pick(which), self.left.pick(which), self.right.pick(which),
+                      self.noise_share[which], self.smallest[which], self.evaluations)
+
+
+def _quotients(probe: TensorProbe, p: Pairs) -> tuple[np.ndarray, ...]:
+    width = p.h_plus + p.h_minus
+    right = (p.f_plus - probe.f0) / p.h_plus
+    left = (probe.f0 - p.f_minus) / p.h_minus
+    return p.central, 2 * p.noise / width, right, 2 * p.noise / p.h_plus, left, 2 * p.noise / p.h_minus
+
+
+def climb(probe: TensorProbe, flat: np.ndarray, start: np.ndarray, rows: int = ROWS) -> Ladder:
+    """Central and one-sided estimates from steps ``start / RATIO**k``, k < rows."""
+    n = flat.size
+    steps = np.concatenate([start / RATIO**k for k in range(rows)])
+    before = probe.evaluator.count
+    p = probe.pairs(np.tile(flat, rows), steps)
+    qc, nc, qr, nr, ql, nl = (q.reshape(rows, n) for q in _quotients(probe, p))
+    central = tableau(qc, nc, RATIO, 2)
+    noise_share = np.minimum(1.0, NOISE_SHARE_UNITS * nc.max(axis=0) / np.maximum(central.error, 1e-300))
+    return Ladder(
+        central=central,
+        left=tableau(ql, nl, RATIO, 1),
+        right=tableau(qr, nr, RATIO, 1),
+        noise_share=noise_share,
+        smallest=start / RATIO ** (rows - 1),
+        evaluations=probe.evaluator.count - before,
+    )
+
+
+NOISE_SHARE_UNITS = 2.0
+
+
+@dataclass(frozen=True)
+class Tiny:
+    """One-sided and central quotients at a step far below the ladder's."""
+
+    gap: np.ndarray  # right - left
+    central: Estimate
+    one_sided_noise: np.ndarray
+
+
+def tiny_pair(probe: TensorProbe, flat: np.ndarray, smallest: np.ndarray) -> Tiny:
+    p = probe.pairs(flat, smallest * TINY)
+    qc, nc, qr, nr, ql, nl = _quotients(probe, p)
+    return Tiny(gap=qr - ql, central=Estimate(qc, 2.0 * nc), one_sided_noise=np.maximum(nr, nl))

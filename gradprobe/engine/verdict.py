@@ -1,0 +1,133 @@
+"""Per-coordinate verdicts from analytic values and numeric estimates with error bounds.
+
+The relative error of a coordinate is |a - n| / max(|a|, |n|, floor) (the floor is set by
+the probe from the tensor's and the target's gradient scales). A coordinate
+
+- passes when the discrepancy is within the threshold;
+- fails only when the discrepancy exceeds both the threshold and SIGNIFICANCE error bounds;
+- is a kink when its left and right derivatives (each extrapolated on its own) differ, a
+  much smaller step confirms the jump is at the point, and the analytic value lies between
+  them (a valid subgradient);
+- is inconclusive otherwise, with the reason.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from .ladder import Estimate
+from .probe import TensorProbe
+from .refine import Ladder, tiny_pair
+from .status import FAIL, INCONCLUSIVE, KINK, PASS
+
+SIGNIFICANCE = 3.0  # a discrepancy beyond 3 error bounds is evidence of a bug
+JUMP_KEPT = 0.25  # at a kink the jump seen at a tiny step stays within 25% of the ladder's
+
+NOISE = "rounding noise in the loss is above the threshold at every step tried"
+UNSETTLED = "the numeric estimate does not settle as the step shrinks (the loss is not smooth on the scale of the steps tried)"
+NEAR_KINK = "a kink lies closer to the point than any step that rounding noise allows"
+
+
+@dataclass(frozen=True)
+class Judged:
+    """Verdicts for some coordinates, the estimate each was judged by, and why undecided."""
+
+    status: np.ndarray
+    estimate: Estimate
+    reasons: tuple[str | None, ...]
+    noise_limited: np.ndarray
+
+    def merged(self, which: np.ndarray, other: "Judged") -> "Judged":
+        """These verdicts with positions ``which`` replaced by ``other``'s."""
+        status = self.status.copy()
+        value = self.estimate.value.copy()
+        error = self.estimate.error.copy()
+        noisy = self.noise_limited.copy()
+        reasons = list(self.reasons)
+        status[which] = other.status
+        value[which] = other.estimate.value
+        error[which] = other.estimate.error
+        noisy[which] = other.noise_limited
+        for k, r in zip(which.tolist(), other.reasons):
+            reasons[k] = r
+        return Judged(status, Estimate(value, error), tuple(reasons), noisy)
+
+
+def _verdicts(a: np.ndarray, est: Estimate, tol: np.ndarray) -> np.ndarray:
+    err = np.abs(a - est.value)
+    status = np.full(a.shape, INCONCLUSIVE, dtype=np.int8)
+    status[err <= tol] = PASS
+    status[(err > tol) & (err > SIGNIFICANCE * est.error)] = FAIL
+    return status
+
+
+def judge_plain(probe: TensorProbe, flat: np.ndarray, est: Estimate) -> Judged:
+    """Verdicts from one estimate per coordinate (no kink analysis)."""
+    a = probe.a[flat]
+    status = _verdicts(a, est, probe.tolerance(flat, est.value))
+    reasons = tuple(NOISE if s == INCONCLUSIVE else None for s in status)
+    return Judged(status, est, reasons, status == INCONCLUSIVE)
+
+
+def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, settle: bool = False) -> Judged:
+    """Verdicts from a ladder's central and one-sided estimates (kinks and corners included)."""
+    a = probe.a[flat]
+    left, right = ladder.left, ladder.right
+    mid = 0.5 * (left.value + right.value)
+    tol_sides = probe.tolerance(flat, mid)
+    differ = np.abs(right.value - left.value) > SIGNIFICANCE * (left.error + right.error) + tol_sides
+    # Smooth, or a corner where only f'' jumps: the sides agree, and their mean is an
+    # estimate of f' that the central tableau (which assumes even powers of h) may not reach.
+    corner = Estimate(mid, np.maximum(left.error, right.error) + 0.5 * np.abs(right.value - left.value))
+    best = Estimate.better(ladder.central, corner)
+    status = _verdicts(a, best, probe.tolerance(flat, best.value))
+    noisy = ladder.noise_share > 0.5
+    reasons: list[str | None] = [
+        (NOISE if noisy[k] else UNSETTLED) if status[k] == INCONCLUSIVE else None
+        for k in range(flat.size)
+    ]
+    value, error = best.value.copy(), best.error.copy()
+    which = np.flatnonzero(differ)
+    if which.size:
+        _judge_sides(probe, flat, ladder.pick(which), which, status, value, error, reasons)
+    return Judged(status, Estimate(value, error), tuple(reasons), noisy)
+
+
+def _judge_sides(
+    probe: TensorProbe, flat: np.ndarray, ladder: Ladder, which: np.ndarray,
+    status: np.ndarray, value: np.ndarray, error: np.ndarray, reasons: list[str | None],
+) -> None:
+    """Coordinates whose one-sided derivatives differ: a kink at the point, or near it."""
+    f = flat[which]
+    a = probe.a[f]
+    left, right = ladder.left, ladder.right
+    jump = right.value - left.value
+    tiny = tiny_pair(probe, f, ladder.smallest)
+    kept = np.abs(tiny.gap - jump) <= JUMP_KEPT * np.abs(jump) + 4.0 * tiny.one_sided_noise
+    # At the point: the analytic value must lie between the sides (a subgradient).
+    side_error = np.maximum(left.error, right.error)
+    margin = probe.tolerance(f, a) + SIGNIFICANCE * side_error
+    low = np.minimum(left.value, right.value) - margin
+    high = np.maximum(left.value, right.value) + margin
+    inside = (a >= low) & (a <= high)
+    nearer = np.where(np.abs(a - left.value) <= np.abs(a - right.value), left.value, right.value)
+    nearer_error = np.where(np.abs(a - left.value) <= np.abs(a - right.value), left.error, right.error)
+    # Near it: the tiny step no longer reaches the kink, its central difference is smooth.
+    near = tiny.central
+    near_status = _verdicts(a, near, probe.tolerance(f, near.value))
+    # A clean side that agrees with the tiny step also decides a pass.
+    for side in (left, right):
+        agrees = np.abs(side.value - near.value) <= SIGNIFICANCE * (side.error + near.error)
+        within = np.abs(a - side.value) <= probe.tolerance(f, side.value)
+        near_status[(near_status != PASS) & agrees & within] = PASS
+    for j, k in enumerate(which.tolist()):
+        if kept[j]:
+            status[k] = KINK if inside[j] else FAIL
+            value[k], error[k] = nearer[j], nearer_error[j]
+            reasons[k] = None
+        else:
+            status[k] = near_status[j]
+            value[k], error[k] = near.value[j], near.error[j]
+            reasons[k] = NEAR_KINK if near_status[j] == INCONCLUSIVE else None
