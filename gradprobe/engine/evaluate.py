@@ -111,6 +111,13 @@ class LossFunction:
         ws = self.workspace
         return float(np.real(self._call(ws.params_tree, ws.inputs_tree, None)))
 
+    def base_with_type(self) -> tuple[float, np.dtype]:
+        """The loss at the base point and the floating type forward returned it in."""
+        ws = self.workspace
+        out = self.forward(ws.params_tree, ws.inputs_tree)
+        dtype = np.asarray(out).dtype
+        return float(np.real(output_to_loss(out, self.grad_output, ""))), dtype
+
     def at(self, p: Perturbation) -> float | complex:
         owner = self.workspace.owners[p.tensor]
         if p.values.dtype.kind == "c" and owner.dtype.kind != "c":

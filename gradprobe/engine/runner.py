@@ -21,6 +21,7 @@ from .gradients import Gradients, validate
 from .preflight import ForwardInfo, call_backward, inspect_forward
 from .summary import problem_result, unknown_result
 from .probe import TensorProbe
+from .promote import PROMOTED_THRESHOLD, promote
 from .tensor_check import check_tensor
 
 
@@ -48,6 +49,15 @@ def _threshold_note(dtype: np.dtype, why: str) -> str:
         f"forward computes in {dtype}{why}: its rounding unit is {eps:.1e}, so central differences "
         f"are good to about {eps ** (2 / 3):.0e} relative at best, and the default threshold for "
         f"it is {default_threshold(dtype):g}"
+    )
+
+
+def _promoted_note(why: str, threshold: float) -> str:
+    return (
+        f"forward computes in float32{why}; it also accepts float64, so its numeric "
+        f"derivatives were taken in float64 at the float32 values, the threshold is "
+        f"{threshold:g}, and each coordinate allows for the float32 rounding of backward "
+        f"measured against a float64 call"
     )
 
 
@@ -112,27 +122,58 @@ def _run(
     evaluator = Evaluator(loss, None, progress)
     info = inspect_forward(target.forward, ws, evaluator, rng)
     grads = validate(call_backward(target.backward, ws, info.grad_output), ws)
-    evaluator.backend, release = _backend(target, ws, info.grad_output, options, executor)
+    numerics = _numerics(target, ws, evaluator, info, grads)
+    evaluator.backend, release = _backend(target, numerics.workspace, info.grad_output, options, executor)
     try:
-        return _check_all(target, options, ws, evaluator, info, grads, started, clock)
+        return _check_all(target, options, ws, evaluator, numerics, grads, started, clock)
     finally:
         release()
 
 
-def _check_all(
-    target: Target, options: CheckOptions, ws: Workspace, evaluator: Evaluator,
-    info: ForwardInfo, grads: Gradients, started: float, clock: Callable[[], float],
-) -> Report:
-    compute_dtype, why = _compute_type(info.out_dtype, ws)
-    notes = list(grads.notes)
+@dataclass(frozen=True)
+class Numerics:
+    """Where the numeric side works: the workspace perturbed, its base loss and type."""
+
+    workspace: Workspace
+    f0: float
+    dtype: np.dtype  # the type the numeric side computes in
+    code_dtype: np.dtype  # the type the user's code computes in
+    analytic_noise: dict[str, np.ndarray]  # measured float32 rounding of backward, if any
+    why: str  # how the code's type was found, for the note
+
+
+def _numerics(target: Target, ws: Workspace, evaluator: Evaluator, info: ForwardInfo,
+              grads: Gradients) -> Numerics:
+    """The code's compute type (3 calls to look for hidden float32), and float64 numerics
+    for float32 code that accepts float64 (1 forward and 1 backward call)."""
+    dtype, why = _compute_type(info.out_dtype, ws)
     from .precision import narrower_compute_type  # local: keeps the import graph acyclic
 
-    hidden = narrower_compute_type(evaluator, ws, info.f0, compute_dtype)
+    hidden = narrower_compute_type(evaluator, ws, info.f0, dtype)
     if hidden is not None:
-        compute_dtype, why = hidden.dtype, hidden.evidence
-    threshold = options.threshold or default_threshold(compute_dtype)
-    if compute_dtype != np.float64:
-        notes.append(_threshold_note(compute_dtype, why))
+        dtype, why = hidden.dtype, hidden.evidence
+    if dtype == np.float32:
+        promoted = promote(evaluator, target.backward, ws, grads, info.f0)
+        if promoted is not None:
+            evaluator.loss = promoted.loss
+            return Numerics(promoted.workspace, promoted.f0, np.dtype(np.float64), dtype,
+                            promoted.analytic_noise, why)
+    return Numerics(ws, info.f0, dtype, dtype, {}, why)
+
+
+def _check_all(
+    target: Target, options: CheckOptions, ws: Workspace, evaluator: Evaluator,
+    numerics: Numerics, grads: Gradients, started: float, clock: Callable[[], float],
+) -> Report:
+    compute_dtype = numerics.code_dtype
+    notes = list(grads.notes)
+    if numerics.analytic_noise:
+        threshold = options.threshold or PROMOTED_THRESHOLD
+        notes.append(_promoted_note(numerics.why, threshold))
+    else:
+        threshold = options.threshold or default_threshold(compute_dtype)
+        if compute_dtype != np.float64:
+            notes.append(_threshold_note(compute_dtype, numerics.why))
     total = sum(ws.owners[n].size for n in grads.values)
     target_scale = max((float(np.sqrt(np.mean(g**2))) for g in grads.values.values() if g.size), default=0.0)
     results: list[TensorResult] = []
@@ -143,8 +184,10 @@ def _check_all(
             results.append(problem_result(name, layer, ws.kind(name), ws.owners[name], grads.problems[name]))
         elif name in grads.values:
             owner = ws.owners[name]
-            probe = TensorProbe(evaluator, name, owner.reshape(-1), grads.values[name].reshape(-1),
-                                info.f0, compute_dtype, threshold, target_scale)
+            probe = TensorProbe(evaluator, name, numerics.workspace.owners[name].reshape(-1),
+                                grads.values[name].reshape(-1), numerics.f0, numerics.dtype,
+                                threshold, target_scale,
+                                analytic_noise=numerics.analytic_noise.get(name))
             result, found, outcome = check_tensor(probe, options, total, owner.shape,
                                                   ws.layer(name), ws.kind(name), owner.dtype)
             results.append(result)

@@ -1,0 +1,214 @@
+"""Verdicts on the classes of code that made checkers cry wolf or miss bugs.
+
+References: one-sided derivatives from sympy (the pieces differentiated symbolically); the
+Huber loss and its derivative as defined by Huber, "Robust Estimation of a Location
+Parameter", Annals of Mathematical Statistics 35(1), 1964 (from memory); the rest are facts
+of the trade (common practice), named where used.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import sympy
+
+from gradprobe import probe
+
+w_sym = sympy.symbols("w")
+
+
+def _one_sided(left_piece, right_piece, at):
+    """(left, right) derivatives of a function made of two sympy pieces meeting at ``at``."""
+    return (float(sympy.diff(left_piece, w_sym).subs(w_sym, at)),
+            float(sympy.diff(right_piece, w_sym).subs(w_sym, at)))
+
+
+@pytest.mark.parametrize("convention", ["left", "right"])
+def test_relu_kink_followed_by_a_curved_loss_is_a_kink(convention):
+    """(relu(w) - 2)**2 at w = 0: sides 0 and -4; either one-sided value is valid."""
+    left, right = _one_sided(sympy.Integer(4), (w_sym - 2) ** 2, 0)
+    analytic = left if convention == "left" else right
+    w = np.array([0.0, 0.7])
+
+    def forward(p, i):
+        return float(np.sum((np.maximum(p["w"], 0) - 2) ** 2))
+
+    def backward(p, i):
+        g = 2 * (np.maximum(p["w"], 0) - 2) * (p["w"] > 0)
+        g[0] = analytic
+        return {"w": g}
+
+    report = probe(forward, backward, {"w": w})
+    t = report.tensor("w")
+    assert t.status == "kink" and t.kink_indices == ((0,),), report.render()
+
+
+def test_a_value_outside_both_sides_of_a_curved_kink_fails():
+    w = np.array([0.0, 0.7])
+
+    def forward(p, i):
+        return float(np.sum((np.maximum(p["w"], 0) - 2) ** 2))
+
+    def backward(p, i):
+        g = 2 * (np.maximum(p["w"], 0) - 2) * (p["w"] > 0)
+        g[0] = 1.0  # sides are 0 and -4
+        return {"w": g}
+
+    assert probe(forward, backward, {"w": w}).tensor("w").bad_indices == ((0,),)
+
+
+@pytest.mark.parametrize("offset", [1e-9, -1e-9, 1e-7])
+def test_a_pre_activation_a_hair_from_zero_passes_with_its_own_sides_derivative(offset):
+    """relu(x . w) with x . w = offset: the derivative is that of the side it lies on."""
+    x = np.array([1.0, -1.0])
+    w = np.array([0.5 + offset, 0.5])
+
+    def forward(p, i):
+        z = float(x @ p["w"])
+        return (max(z, 0.0) - 2.0) ** 2
+
+    def backward(p, i):
+        z = float(x @ p["w"])
+        return {"w": 2 * (max(z, 0.0) - 2.0) * (z > 0) * x}
+
+    report = probe(forward, backward, {"w": w})
+    assert report.ok and report.tensor("w").status in ("pass", "kink"), report.render()
+
+
+def _huber(r, delta):
+    return np.where(np.abs(r) <= delta, 0.5 * r**2, delta * (np.abs(r) - 0.5 * delta))
+
+
+def _huber_grad(r, delta):
+    return np.clip(r, -delta, delta)
+
+
+@pytest.mark.parametrize("scale", [1e-4, 1.0, 1e3])
+def test_huber_at_its_switch_point_is_a_pass_not_a_kink(scale):
+    """Huber's loss has a continuous first derivative; only the second jumps at |r| = delta."""
+    delta = 0.5 * scale
+    y = np.array([0.0, 0.0, 0.0, 0.0]) * scale
+    w = np.array([delta, -delta, 0.1 * scale, 2.0 * scale])  # the first two sit on the switch
+
+    def forward(p, i):
+        return float(np.sum(_huber(p["w"] - i["y"], delta)))
+
+    report = probe(forward, lambda p, i: {"w": _huber_grad(p["w"] - i["y"], delta)},
+                   {"w": w}, {"y": y})
+    t = report.tensor("w")
+    assert t.status == "pass" and t.inconclusive == 0, report.render()
+    wrong = probe(forward, lambda p, i: {"w": 1.01 * _huber_grad(p["w"] - i["y"], delta)},
+                  {"w": w}, {"y": y})
+    assert wrong.tensor("w").failed == 4
+
+
+def test_cubic_spline_knot_is_a_pass():
+    """A C2 cubic spline: (w - k)**3 for w > k, 0 below; the third derivative jumps at k."""
+    w = np.array([0.25, 0.6])
+
+    def forward(p, i):
+        return float(np.sum(np.where(p["w"] > 0.25, (p["w"] - 0.25) ** 3, 0.0) + p["w"] ** 2))
+
+    def backward(p, i):
+        return {"w": np.where(p["w"] > 0.25, 3 * (p["w"] - 0.25) ** 2, 0.0) + 2 * p["w"]}
+
+    report = probe(forward, backward, {"w": w})
+    assert report.tensor("w").status == "pass", report.render()
+
+
+def _batch_normalised(p, i):
+    z = i["x"] @ p["W"] + p["b"]
+    zc = z - z.mean(axis=0)
+    return zc / np.sqrt((zc**2).mean(axis=0) + 1e-5)
+
+
+def test_exactly_zero_gradient_of_a_bias_before_batch_normalisation_passes():
+    """The batch mean removes the bias: its gradient is exactly 0 (common practice)."""
+    rng = np.random.default_rng(4)
+    params = {"W": rng.normal(size=(3, 4)), "b": rng.normal(size=4)}
+    inputs = {"x": rng.normal(size=(16, 3)), "t": rng.normal(size=(16, 4))}
+
+    def forward(p, i):
+        return float(np.sum(_batch_normalised(p, i) * i["t"]))
+
+    def backward(p, i):
+        z = i["x"] @ p["W"] + p["b"]
+        zc = z - z.mean(axis=0)
+        var = (zc**2).mean(axis=0) + 1e-5
+        n = z.shape[0]
+        xhat = zc / np.sqrt(var)
+        g = i["t"]
+        dz = (g - g.mean(axis=0) - xhat * (g * xhat).mean(axis=0)) / np.sqrt(var)
+        assert n == 16
+        return {"W": i["x"].T @ dz, "b": np.zeros(4)}
+
+    report = probe(forward, backward, params, inputs)
+    b = report.tensor("b")
+    assert report.ok and b.status == "pass", report.render()
+    assert b.worst_noise is None or b.worst_noise < 1.0
+
+
+def test_complex_step_through_a_variance_falls_back_to_central_differences():
+    """np.var conjugates: the complex step is wrong there, the backward is right."""
+    rng = np.random.default_rng(5)
+    w = rng.normal(size=6)
+
+    def forward(p, i):
+        return np.var(p["w"]) + np.sum(p["w"] ** 3)
+
+    def backward(p, i):
+        return {"w": 2 * (p["w"] - p["w"].mean()) / p["w"].size + 3 * p["w"] ** 2}
+
+    report = probe(forward, backward, {"w": w}, method="complex")
+    assert report.ok, report.render()
+    assert report.notes == (
+        "forward is not complex-safe for w (the complex step and central differences "
+        "disagree: np.abs, np.var, conjugation or np.real in its path?), so central "
+        "differences were used for it",
+    )
+    wrong = probe(forward, lambda p, i: {"w": -backward(p, i)["w"]}, {"w": w}, method="complex")
+    assert not wrong.ok
+
+
+@pytest.mark.parametrize("dtype", [np.float32, np.float64])
+def test_small_gradients_among_large_ones_pass(dtype):
+    """Coordinates whose gradient is 1e-3 of their tensor's rms are not left inconclusive."""
+    c = np.array([1.0, -1.0, 1e-3, 2e-3, 1.0], dtype=dtype)
+    w = np.array([0.3, 0.2, -0.4, 0.1, 0.5], dtype=dtype)
+
+    def forward(p, i):
+        return np.sum(i["c"] * np.sin(p["w"]))
+
+    report = probe(forward, lambda p, i: {"w": i["c"] * np.cos(p["w"])}, {"w": w}, {"c": c})
+    t = report.tensor("w")
+    assert report.ok and t.status == "pass", report.render()
+
+
+def _float32_dense(bias_factor):
+    """A float32 dense layer with squared error (shop demand from four store features)."""
+    rng = np.random.default_rng(8)
+    params = {"W": rng.normal(size=(4, 3)).astype(np.float32),
+              "b": rng.normal(size=3).astype(np.float32)}
+    inputs = {"x": rng.normal(size=(64, 4)).astype(np.float32),
+              "y": rng.normal(size=(64, 3)).astype(np.float32)}
+
+    def forward(p, i):
+        r = i["x"] @ p["W"] + p["b"] - i["y"]
+        return 0.5 * np.sum(r * r)
+
+    def backward(p, i):
+        r = i["x"] @ p["W"] + p["b"] - i["y"]
+        return {"W": i["x"].T @ r, "b": bias_factor * r.sum(axis=0)}
+
+    return probe(forward, backward, params, inputs)
+
+
+def test_correct_float32_layer_passes():
+    report = _float32_dense(1.0)
+    assert report.ok and report.compute_dtype == "float32", report.render()
+
+
+@pytest.mark.parametrize("factor", [1.008, 1.005, 0.995])
+def test_half_a_percent_error_in_a_float32_bias_fails(factor):
+    report = _float32_dense(factor)
+    assert report.tensor("b").status == "fail" and report.tensor("W").status == "pass", report.render()
