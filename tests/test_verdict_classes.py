@@ -212,3 +212,19 @@ def test_correct_float32_layer_passes():
 def test_half_a_percent_error_in_a_float32_bias_fails(factor):
     report = _float32_dense(factor)
     assert report.tensor("b").status == "fail" and report.tensor("W").status == "pass", report.render()
+
+
+def test_a_float32_step_that_overflows_shrinks_instead_of_stopping_the_check():
+    """exp of float32 overflows just above 88.72 (common practice: log(float32 max)); the
+    point sits 4e-6 below that edge, inside the usual float32 step of about 5e-3 * |x|."""
+    w = np.array([88.7, 1.0], dtype=np.float32)
+
+    def forward(p, i):
+        with np.errstate(over="ignore"):
+            return np.sum(np.exp(p["w"].astype(np.float32))) * np.float32(1e-30)
+
+    def backward(p, i):
+        return {"w": np.exp(p["w"].astype(np.float32)) * np.float32(1e-30)}
+
+    report = probe(forward, backward, {"w": w})
+    assert report.ok, report.render()

@@ -76,6 +76,17 @@ def output_to_loss(out: Any, grad_output: np.ndarray | None, where: str) -> floa
     return float(np.sum(grad_output * array.astype(np.float64, copy=False)))
 
 
+def _overflowed(out: Any) -> bool:
+    """forward returned numbers, some of them not finite."""
+    if isinstance(out, (tuple, list, str, bytes, dict)) or out is None:
+        return False
+    try:
+        array = np.asarray(out)
+    except Exception:
+        return False
+    return bool(np.issubdtype(array.dtype, np.number) and not np.isfinite(array).all())
+
+
 class LossFunction:
     """forward as a scalar function of the workspace's current values."""
 
@@ -100,6 +111,9 @@ class LossFunction:
         try:
             return output_to_loss(out, self.grad_output, "")
         except BadOutputError as exc:
+            if p is not None and _overflowed(out):
+                return math.nan  # a perturbed point outside forward's range: the caller
+                # shrinks the step, and names the coordinate if that does not help
             raise BadOutputError(exc.message + self._where(p), value=out) from None
 
     def _where(self, p: Perturbation | None) -> str:

@@ -13,6 +13,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..errors import BadOutputError
 from .evaluate import Evaluator, Perturbation
 
 # Rounding noise of one loss value is taken as ROUNDING_UNITS * eps * |f|: a forward is a
@@ -22,6 +23,13 @@ ROUNDING_UNITS = 8.0
 FLOOR_FRACTION = 1e-3  # denominators never fall below 1e-3 of the tensor's gradient scale
 TARGET_FLOOR_FRACTION = 1e-4
 ANALYTIC_NOISE_UNITS = 4.0  # a discrepancy within 4x the analytic side's rounding is no bug  # ... nor below 1e-4 of the target's largest tensor scale
+
+
+SHRINKS = 6  # a step that meets a non-finite loss shrinks 16-fold, this many times at most
+
+
+def _fields(p: "Pairs") -> tuple[np.ndarray, ...]:
+    return (p.f_plus, p.f_minus, p.h_plus, p.h_minus, p.noise)
 
 
 def as_seen(values: np.ndarray, compute_dtype: np.dtype) -> np.ndarray:
@@ -133,7 +141,30 @@ class TensorProbe:
     # -- evaluations ------------------------------------------------------------------
 
     def pairs(self, flat: np.ndarray, h: np.ndarray) -> Pairs:
-        """The loss at x + h and x - h for each coordinate ``flat[i]``: one batch of 2n calls."""
+        """The loss at x + h and x - h for each coordinate ``flat[i]``: one batch of 2n calls.
+
+        Where forward returns a non-finite value at a perturbed point (float32 overflow, a
+        domain edge), the step of that coordinate shrinks 16-fold, up to SHRINKS times."""
+        h = np.array(h, dtype=np.float64)
+        fields = list(_fields(self._pairs(flat, h)))
+        for _ in range(SHRINKS):
+            bad = np.flatnonzero(~np.isfinite(fields[0]) | ~np.isfinite(fields[1]))
+            if bad.size == 0:
+                break
+            h[bad] /= 16.0
+            for mine, again in zip(fields, _fields(self._pairs(flat[bad], h[bad]))):
+                mine[bad] = again
+        p = Pairs(*fields)
+        bad = np.flatnonzero(~np.isfinite(p.f_plus) | ~np.isfinite(p.f_minus))
+        if bad.size:
+            k = int(flat[bad[0]])
+            raise BadOutputError(
+                f"forward returned a non-finite value when {self.tensor}[{k}] (flat index) was "
+                f"moved by {float(h[bad[0]]):.3g}, however small the step"
+            )
+        return p
+
+    def _pairs(self, flat: np.ndarray, h: np.ndarray) -> Pairs:
         plus, minus, h_plus, h_minus = self.moved(flat, h)
         requests: list[Perturbation] = []
         for i in range(flat.size):
@@ -142,7 +173,7 @@ class TensorProbe:
             requests.append(Perturbation(self.tensor, index, minus[i : i + 1]))
         values = self.evaluator.losses(requests)
         f_plus, f_minus = values[0::2].real, values[1::2].real
-        noise = self.loss_noise(f_plus, f_minus)
+        noise = self.loss_noise(np.nan_to_num(f_plus), np.nan_to_num(f_minus))
         return Pairs(f_plus, f_minus, h_plus, h_minus, noise)
 
     def complex_losses(self, flat: np.ndarray, h: np.ndarray) -> np.ndarray:
