@@ -89,18 +89,35 @@ def test_suspects_are_rechecked_before_failing():
     assert not plain.ok
 
 
-def test_a_noisy_estimate_is_inconclusive_not_a_failure():
-    """A loss of 1e9 + sum(w**2): rounding noise in the loss swamps a 1e-6 comparison."""
+def test_rounding_noise_is_beaten_with_larger_steps_where_the_loss_allows():
+    """A loss of 1e9 + sum(w**2): at the usual step rounding swamps a 1e-6 comparison;
+    the loss is smooth on a scale far above the step, so larger steps resolve it."""
     w = np.array([0.3, -0.8, 1.1])
 
     def forward(p, i):
         return float(1e9 + np.sum(p["w"] ** 2))
 
     report = check(forward, lambda p, i: {"w": 2 * p["w"]}, {"w": w})
+    assert report.ok and report.tensor("w").status == "pass"
+    assert not check(forward, lambda p, i: {"w": 3 * p["w"]}, {"w": w}).ok
+
+
+def test_noise_that_no_step_beats_is_inconclusive_with_its_reason():
+    """1e12 + sum(sin(w)): the loss bends on a scale of 1, so steps cannot grow past it,
+    and there the rounding of 1e12 (about 1e-4 per value) is far above 1e-6."""
+    w = np.array([0.3, -0.8, 1.1])
+
+    def forward(p, i):
+        return float(1e12 + np.sum(np.sin(p["w"])))
+
+    report = check(forward, lambda p, i: {"w": np.cos(p["w"])}, {"w": w})
     t = report.tensor("w")
-    assert report.ok and t.status == "inconclusive" and t.inconclusive > 0
-    assert all(d.status == "inconclusive" and d.error_estimate > 0 for d in t.details)
-    wrong = check(forward, lambda p, i: {"w": 3 * p["w"]}, {"w": w})
+    assert report.ok and t.status == "inconclusive" and t.inconclusive == 3
+    assert t.inconclusive_reason == (
+        "rounding noise in the loss is above the threshold at every step tried"
+    )
+    assert all(d.reason == t.inconclusive_reason for d in t.details)
+    wrong = check(forward, lambda p, i: {"w": -np.cos(p["w"])}, {"w": w})
     assert not wrong.ok  # a real error is still caught through the noise
 
 

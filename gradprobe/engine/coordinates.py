@@ -23,6 +23,7 @@ from .verdict import Judged, judge_ladder, judge_plain
 
 SETTLE_FRACTION = 1e-2  # a first estimate this far inside the threshold settles a coordinate
 BEND_LIMIT = 0.05  # the slope may change by 5% across the ladder's first step
+MAX_UP = 24  # steps grow at most 2**24-fold to beat rounding noise
 GAP_SUSPECT = 0.1  # one-sided slopes 10% apart: look for a kink
 RETRY_SHIFT = 6  # a second ladder starts 2**6 steps higher (noise) or lower (curvature)
 RECHECK_LIMIT = 400  # coordinates per tensor re-estimated on a ladder
@@ -46,24 +47,55 @@ class CoordinateOutcome:
     note: str | None = None  # said once for the tensor (a method fallen back from)
 
 
+def _bend(probe: TensorProbe, p: Pairs) -> np.ndarray:
+    """How much the slope changes across the step, relative to the gradient's size, with
+    the rounding noise of the one-sided slopes taken off (0 where noise hides it)."""
+    right = (p.f_plus - probe.f0) / p.h_plus
+    left = (probe.f0 - p.f_minus) / p.h_minus
+    size = np.maximum(np.maximum(np.abs(p.central), np.abs(left)),
+                      np.maximum(np.abs(right), probe.grad_scale))
+    noise = 4 * p.noise / np.minimum(p.h_plus, p.h_minus)
+    return np.maximum(np.abs(right - left) - noise, 0.0) / size
+
+
 def _start_steps(probe: TensorProbe, flat: np.ndarray, first: Pairs, h: np.ndarray) -> np.ndarray:
-    """The ladder's first step, probed from the first pair: larger where rounding noise
-    hides the threshold, smaller where the slope changes on the scale of the step."""
-    c = first.central
-    want = SETTLE_FRACTION * probe.tolerance(flat, c)
-    noise = 2 * first.noise / (first.h_plus + first.h_minus)
-    up = np.clip(np.ceil(np.log2(np.maximum(8.0 * noise / want, 1.0))), 0, 24)
-    right = (first.f_plus - probe.f0) / first.h_plus
-    left = (probe.f0 - first.f_minus) / first.h_minus
-    size = np.maximum(np.maximum(np.abs(c), np.abs(left)), np.maximum(np.abs(right), probe.floor))
-    bend = np.abs(right - left) / size
+    """The ladder's first step, probed: smaller where the slope changes on the scale of
+    the step; larger where rounding noise hides the threshold, as far as pairs at steps
+    16, 256, ... times larger show the slope still changing by less than BEND_LIMIT (the
+    ladder's bounds hold from steps below the scale on which the slope changes)."""
+    bend = _bend(probe, first)
     down = np.clip(np.ceil(np.log2(np.maximum(bend / BEND_LIMIT, 1.0))), 0, 30)
-    # Larger steps only as far as the bend seen at the first pair allows (the ladder's
-    # bounds hold from steps below the scale on which the slope changes, not above it).
+    want = SETTLE_FRACTION * probe.tolerance(flat, first.central)
+    noise = 2 * first.noise / (first.h_plus + first.h_minus)
+    up = np.clip(np.ceil(np.log2(np.maximum(8.0 * noise / want, 1.0))), 0, MAX_UP)
+    up[down > 0] = 0
     room = np.floor(np.log2(BEND_LIMIT / np.maximum(bend, 1e-300)))
-    up = np.minimum(up + 2, np.maximum(room, 0))
-    shift = np.where(down > 0, -down, up)
-    return h * 2.0**shift
+    start = h * 2.0 ** np.where(down > 0, -down, np.clip(room, 0, 2))
+    climbing = np.flatnonzero(up > 2)
+    if climbing.size:
+        start[climbing] = _largest_smooth_step(probe, flat[climbing], h[climbing], up[climbing])
+    return start
+
+
+def _largest_smooth_step(probe: TensorProbe, flat: np.ndarray, h: np.ndarray, up: np.ndarray) -> np.ndarray:
+    """Per coordinate, the largest of h * 16**m (16**m <= 2**up) up to which the loss is
+    seen to stay smooth: at every level the slope changes by at most BEND_LIMIT across the
+    step, or the second difference agrees with the level below to BEND_LIMIT (a loss
+    that is quadratic along the coordinate may grow its steps freely). One batch of pairs."""
+    levels = int(np.ceil(up.max() / 4)) + 1
+    factors = 16.0 ** np.arange(levels)
+    p = probe.pairs(np.tile(flat, levels), np.concatenate([h * f for f in factors]))
+    bends = _bend(probe, p).reshape(levels, flat.size)
+    width = (0.5 * (p.h_plus + p.h_minus)) ** 2
+    second = ((p.f_plus - 2 * probe.f0 + p.f_minus) / width).reshape(levels, flat.size)
+    second_noise = (4 * p.noise / width).reshape(levels, flat.size)
+    steady = np.ones((levels, flat.size), dtype=bool)
+    size = np.maximum(np.abs(second[1:]), np.abs(second[:-1]))
+    steady[1:] = np.abs(second[1:] - second[:-1]) <= BEND_LIMIT * size + second_noise[1:] + second_noise[:-1]
+    smooth = np.cumprod((bends <= BEND_LIMIT) | steady, axis=0).astype(bool)
+    wanted = np.arange(levels)[:, None] * 4 <= up[None, :] + 3
+    best = np.where(smooth & wanted, factors[:, None], 1.0).max(axis=0)
+    return h * best
 
 
 def _gap_suspects(probe: TensorProbe, flat: np.ndarray, first: Pairs) -> np.ndarray:
@@ -83,7 +115,11 @@ def _ladder_verdicts(
     if again.size == 0:
         return first
     noisy = first.noise_limited[again]
-    shifted = start[again] * RATIO ** np.where(noisy, RETRY_SHIFT, -RETRY_SHIFT)
+    shifted = start[again] * RATIO**-RETRY_SHIFT
+    if noisy.any():  # larger steps, as far as the slope is seen to stay smooth
+        which = np.flatnonzero(noisy)
+        shifted[which] = _largest_smooth_step(probe, flat[again][which], start[again][which],
+                                              np.full(which.size, float(RETRY_SHIFT)))
     second = judge_ladder(probe, flat[again], climb(probe, flat[again], shifted, ROWS + 2))
     return first.merged(again, second)
 
@@ -141,28 +177,48 @@ def check_coordinates(
     if method == "complex":
         return _complex_checked(probe, flat, recheck)
     start_count = probe.evaluator.count
-    a = probe.a[flat]
     if method == "richardson":
-        h = RICHARDSON_START * np.maximum(1.0, np.abs(probe.x[flat].astype(np.float64)))
-        judged = judge_ladder(probe, flat, climb(probe, flat, h, 3), settle=True)
-        todo = np.flatnonzero(judged.status != PASS)
-        if todo.size and recheck:
-            redo = _ladder_verdicts(probe, flat[todo], h[todo] / 4)
-            judged = judged.merged(todo, redo)
+        judged = _richardson(probe, flat, recheck)
     else:
-        h = probe.prior_steps(flat)
-        first = probe.pairs(flat, h)
-        c = first.central
-        estimate = Estimate(c, 2 * first.noise / (first.h_plus + first.h_minus))
-        judged = judge_plain(probe, flat, estimate)
-        settled = np.abs(a - c) <= SETTLE_FRACTION * probe.tolerance(flat, c)
-        todo = np.flatnonzero(~settled | _gap_suspects(probe, flat, first))
-        if todo.size and recheck:
-            if todo.size > RECHECK_LIMIT:  # the worst first, within budget
-                todo = np.sort(todo[np.argsort(-np.abs(a[todo] - c[todo]), kind="stable")[:RECHECK_LIMIT]])
-            start = _start_steps(probe, flat[todo], _pick(first, todo), h[todo])
-            judged = judged.merged(todo, _ladder_verdicts(probe, flat[todo], start))
+        judged = _central(probe, flat, recheck)
     return _outcome(probe, flat, judged, start_count)
+
+
+def _central(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
+    """A pair of calls per coordinate; a probed ladder where that does not settle it."""
+    a = probe.a[flat]
+    h = probe.prior_steps(flat)
+    first = probe.pairs(flat, h)
+    c = first.central
+    judged = judge_plain(probe, flat, Estimate(c, 2 * first.noise / (first.h_plus + first.h_minus)))
+    settled = np.abs(a - c) <= SETTLE_FRACTION * probe.tolerance(flat, c)
+    todo = np.flatnonzero(~settled | _gap_suspects(probe, flat, first))
+    if todo.size == 0 or not recheck:
+        return judged
+    if todo.size > RECHECK_LIMIT:  # the worst first, within budget
+        todo = np.sort(todo[np.argsort(-np.abs(a[todo] - c[todo]), kind="stable")[:RECHECK_LIMIT]])
+    start = _start_steps(probe, flat[todo], _pick(first, todo), h[todo])
+    return judged.merged(todo, _ladder_verdicts(probe, flat[todo], start))
+
+
+def _richardson(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
+    """Three rows of a ladder per coordinate (6 calls) from a step sized for a sixth-order
+    rule; coordinates whose bound is not far inside the threshold go the central way."""
+    h = RICHARDSON_START * np.maximum(1.0, np.abs(probe.x[flat].astype(np.float64)))
+    judged = judge_ladder(probe, flat, climb(probe, flat, h, 3))
+    value = judged.estimate.value
+    loose = judged.estimate.error > SETTLE_FRACTION * probe.tolerance(flat, value)
+    todo = np.flatnonzero((judged.status != PASS) | loose)
+    if todo.size == 0 or not recheck:
+        return judged
+    again = _central(probe, flat[todo], recheck)
+    keep = (again.status != PASS) | (again.estimate.error < judged.estimate.error[todo])
+    return judged.merged(todo[keep], _subset(again, np.flatnonzero(keep)))
+
+
+def _subset(j: Judged, which: np.ndarray) -> Judged:
+    return Judged(j.status[which], j.estimate.pick(which), tuple(j.reasons[k] for k in which),
+                  j.noise_limited[which])
 
 
 def _outcome(probe: TensorProbe, flat: np.ndarray, judged: Judged, start_count: int) -> CoordinateOutcome:

@@ -79,6 +79,8 @@ def tableau(quotients: np.ndarray, noise: np.ndarray, ratio: float, order_step: 
             cur_n = [noise[k]]
             if k >= 1:
                 spread = np.abs(cur_t[0] - prev_t[0])
+                if k >= 2:
+                    spread = np.maximum(spread, np.abs(cur_t[0] - before_t0))
                 bound = SAFETY * spread + NOISE_UNITS * cur_n[0]
                 take = (bound < error) & trusted[k]
                 best = np.where(take, cur_t[0], best)
@@ -92,11 +94,14 @@ def tableau(quotients: np.ndarray, noise: np.ndarray, ratio: float, order_step: 
                 if j < k:  # the same order one step larger: a third, independent neighbour
                     spread = np.maximum(spread, np.abs(value - prev_t[j]))
                 bound = SAFETY * spread + NOISE_UNITS * carried
-                take = (bound < error) & trusted[k]
+                # Two neighbours can agree by a cancellation of orders; only entries that
+                # a third neighbour confirms are candidates.
+                take = (bound < error) & trusted[k] & ((j < k) | (k >= 2))
                 best = np.where(take, value, best)
                 error = np.where(take, bound, error)
                 cur_t.append(value)
                 cur_n.append(carried)
+            before_t0 = prev_t[0] if prev_t else cur_t[0]
             prev_t, prev_n = cur_t, cur_n
     error = np.where(np.isfinite(error), error, np.inf)
     return Estimate(best, error)

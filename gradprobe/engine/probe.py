@@ -79,6 +79,7 @@ class TensorProbe:
         self.eps = float(np.finfo(self.compute_dtype).eps)
         self.threshold = threshold
         rms = float(np.sqrt(np.mean(analytic**2))) if analytic.size else 0.0
+        self.grad_scale = rms  # the tensor's typical gradient
         self.floor = max(FLOOR_FRACTION * rms, TARGET_FLOOR_FRACTION * target_scale,
                          float(np.finfo(np.float64).tiny))
         # |f| can be far below the size of the terms that round (a sum of signed terms):

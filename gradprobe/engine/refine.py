@@ -18,7 +18,7 @@ from .ladder import Estimate, tableau
 from .probe import Pairs, TensorProbe
 
 RATIO = 2.0
-ROWS = 4
+ROWS = 5
 TINY = 2.0**-12  # the kink test's small step, relative to the ladder's smallest
 
 

@@ -71,7 +71,7 @@ def judge_plain(probe: TensorProbe, flat: np.ndarray, est: Estimate) -> Judged:
     return Judged(status, est, reasons, status == INCONCLUSIVE)
 
 
-def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, settle: bool = False) -> Judged:
+def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder) -> Judged:
     """Verdicts from a ladder's central and one-sided estimates (kinks and corners included)."""
     a = probe.a[flat]
     left, right = ladder.left, ladder.right
