@@ -18,7 +18,6 @@ from rich.console import Console
 
 from . import __version__
 from .config import ProjectConfig, load_config
-from .engine.runner import run_check
 from .errors import ProbeError, UsageProblem
 from .options import METHODS, CheckOptions
 from .render.json import render_runs
@@ -27,7 +26,8 @@ from .render.progress import TerminalProgress
 from .render.terminal import COLOUR, PLAIN, plain_console, renderables, run_summary
 from .report import TargetRun
 from .starter import write_starter
-from .target import load_target
+from .stack import load_any
+from .stack_check import run_any
 
 EXIT_OK, EXIT_FAIL, EXIT_ERROR, EXIT_INTERNAL, EXIT_INTERRUPTED = 0, 1, 2, 3, 130
 
@@ -117,7 +117,7 @@ def check_one(spec: str, options: CheckOptions, out: Output) -> TargetRun:
     try:
         try:
             with user_output:
-                report = run_check(load_target(spec), options, progress=progress)
+                report = run_any(load_any(spec), options, progress=progress)
         finally:
             if progress is not None:
                 progress.close()
