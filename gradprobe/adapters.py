@@ -12,8 +12,9 @@ object back as it was (parameters, caches, counters, running statistics; see
 
 from __future__ import annotations
 
+from collections.abc import Mapping
 from dataclasses import dataclass
-from typing import Any, Mapping
+from typing import Any
 
 import numpy as np
 

@@ -9,8 +9,8 @@ gradient is wrong. Pure: reports in, a report out.
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass, replace
-from typing import Sequence
 
 from .report import LayerResult, Report, TensorResult
 from .tensors import INPUT_LAYER
@@ -87,18 +87,17 @@ def combine(end: Report, checks: Sequence[OwnCheck], seconds: float) -> Report:
     layers = [replace(own, tensors=tuple(grouped[own.name])) for own in owns]
     extra = sorted(others, key=lambda n: n == INPUT_LAYER)  # inputs last
     layers += [LayerResult(n, tuple(others[n])) for n in extra]
-    own_reports = [c for c in checks if c.report is not None]
-    own_evaluations = sum(c.report.evaluations for c in own_reports)  # type: ignore[union-attr]
+    own_reports = [(c.name, c.report) for c in checks if c.report is not None]
+    own_evaluations = sum(r.evaluations for _, r in own_reports)
     return replace(
         end,
         layers=tuple(layers),
         evaluations=end.evaluations + own_evaluations,
         seconds=seconds,
-        errors=end.errors + tuple(f"layer {c.name} on its own: {e}"
-                                  for c in own_reports for e in c.report.errors),  # type: ignore[union-attr]
-        notes=end.notes + tuple(f"layer {c.name} on its own: {n}" for c in own_reports
-                                for n in c.report.notes  # type: ignore[union-attr]
-                                if n not in end.notes),
+        errors=end.errors + tuple(f"layer {name} on its own: {e}"
+                                  for name, r in own_reports for e in r.errors),
+        notes=end.notes + tuple(f"layer {name} on its own: {n}" for name, r in own_reports
+                                for n in r.notes if n not in end.notes),
         error_enters_at=tuple(o.name for o in owns if o.own == "fail"),
         own_evaluations=own_evaluations,
     )

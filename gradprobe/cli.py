@@ -277,14 +277,17 @@ def check_command(ctx: click.Context, targets: tuple[str, ...], show_maps: bool,
 @cli.command("starter")
 @click.argument("path", type=click.Path(dir_okay=False))
 @click.option("--force", is_flag=True, help="Overwrite PATH if it exists.")
-def starter_command(path: str, force: bool) -> None:
+@click.option("--stack", is_flag=True,
+              help="Write a stack of layers, each with its own backward, instead of one "
+                   "forward and backward.")
+def starter_command(path: str, force: bool, stack: bool) -> None:
     """Write a commented starter target to PATH that runs as it is.
 
-    Replace its small layer with your own forward and backward, then run
-    gradprobe check PATH.
+    Replace its small layer (or, with --stack, its layers) with your own forward and
+    backward, then run gradprobe check PATH.
     """
     try:
-        write_starter(Path(path), force)
+        write_starter(Path(path), force, stack)
     except ProbeError as exc:
         _say_error(exc.sentence(), exc, False)
         sys.exit(EXIT_ERROR)

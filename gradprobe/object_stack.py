@@ -16,7 +16,8 @@ included, leaves the objects exactly as they were (:mod:`gradprobe.objstate`).
 from __future__ import annotations
 
 import inspect
-from typing import Any, Mapping, Sequence
+from collections.abc import Mapping, Sequence
+from typing import Any
 
 import numpy as np
 
@@ -85,8 +86,8 @@ def _names(objects: Sequence[Any], given: Sequence[str] | None) -> list[str]:
         if len(given) != len(objects):
             raise TargetLoadError(f"{len(given)} names for {len(objects)} layers and the loss")
         return [str(n) for n in given]
-    base = [getattr(o, "name", None) if isinstance(getattr(o, "name", None), str)
-            else type(o).__name__ for o in objects]
+    base = [str(o.name) if isinstance(getattr(o, "name", None), str) else type(o).__name__
+            for o in objects]
     out = []
     for k, name in enumerate(base):
         out.append(f"{name}{base[:k + 1].count(name)}" if base.count(name) > 1 else name)

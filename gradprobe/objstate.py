@@ -11,8 +11,9 @@ arrays the user holds references to stay the very same objects with the same byt
 from __future__ import annotations
 
 import types
+from collections.abc import Iterator
 from contextlib import contextmanager
-from typing import Any, Iterator
+from typing import Any
 
 import numpy as np
 

@@ -8,8 +8,9 @@ each; :func:`~gradprobe.blame.combine` makes one report of them.
 from __future__ import annotations
 
 import time
+from collections.abc import Callable
 from concurrent.futures import Executor
-from typing import Any, Callable
+from typing import Any
 
 from .blame import OwnCheck, combine
 from .engine.evaluate import Progress

@@ -11,7 +11,6 @@ right. Checked as one flat network, the bug shows up only in the layers *before*
 """
 
 import numpy as np
-
 from shop_demand_stack import Dense, DenseTanh, Relu, SquaredError, setup  # noqa: F401
 
 

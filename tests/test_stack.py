@@ -3,14 +3,15 @@
 from __future__ import annotations
 
 import json
+from pathlib import Path
 
 import numpy as np
 import pytest
+from stack_layers import Dense, Relu, SoftmaxLoss, SquaredLoss, Tanh, arrays
 
 from gradprobe import probe, probe_stack
 from gradprobe.errors import BadOutputError, TargetLoadError, UserCodeError
 from gradprobe.stack import base_activations, layer_targets, stack
-from stack_layers import Dense, Relu, SoftmaxLoss, SquaredLoss, Tanh, arrays
 
 THREE = ("d1", "d2", "d3")
 
@@ -166,3 +167,33 @@ def test_json_keys_for_stacks_and_for_flat_targets():
                                       "b": np.zeros(2)}}, params, inputs).to_dict()
     assert flat["summary"]["error_enters_at"] is None
     assert all(layer["own"] is None and layer["own_check"] is None for layer in flat["layers"])
+
+
+def test_stack_starter_runs_and_a_slip_in_it_is_found(run_cli, tmp_path):
+    assert run_cli("starter", "net.py", "--stack").exit_code == 0
+    path = tmp_path / "net.py"
+    assert "layers = [" in path.read_text()
+    assert run_cli("check", "net.py", "-q").exit_code == 0
+    path.write_text(path.read_text().replace("grad_y / (1.0 + np.exp(-x))", "grad_y"))
+    result = run_cli("check", "net.py", "--json", "-")
+    assert result.exit_code == 1
+    assert json.loads(result.stdout)["summary"]["error_enters_at"] == ["softplus"]
+
+
+def test_the_fixture_checks_stacks(pytester):
+    pytester.syspathinsert(Path(__file__).parent)
+    pytester.makepyfile(test_net="""
+        from stack_layers import Dense, SquaredLoss, Tanh, arrays
+
+        def test_ok(grad_probe):
+            params, inputs = arrays()
+            report = grad_probe.stack([Dense("d1"), Tanh(), Dense("d2"), SquaredLoss()], params, inputs)
+            assert report.error_enters_at == ()
+
+        def test_wrong(grad_probe):
+            params, inputs = arrays()
+            grad_probe.stack([Dense("d1"), Tanh(), Dense("d2", "input"), SquaredLoss()], params, inputs)
+    """)
+    result = pytester.runpytest_inprocess("-q", "-p", "no:cacheprovider")
+    result.assert_outcomes(passed=1, failed=1)
+    result.stdout.fnmatch_lines(["*error enters at d2: its input gradient is wrong*"])

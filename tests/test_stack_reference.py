@@ -5,9 +5,9 @@ from __future__ import annotations
 import mpmath
 import numpy as np
 import sympy as sp
+from stack_layers import Dense, SquaredLoss, Tanh, arrays
 
 from gradprobe.stack import end_to_end, stack
-from stack_layers import Dense, SquaredLoss, Tanh, arrays
 
 
 def test_composed_backward_matches_the_symbolic_gradient():

@@ -93,7 +93,8 @@ def report_dict(report: Report) -> dict[str, Any]:
             "failed_tensors": len(report.failing_tensors),
             "evaluations": report.evaluations,
             "seconds": round(report.seconds, 6),
-            "error_enters_at": list(report.error_enters_at) if report.is_stack else None,
+            "error_enters_at": (list(report.error_enters_at)
+                                if report.error_enters_at is not None else None),
             "own_evaluations": report.own_evaluations if report.is_stack else None,
         },
         "layers": [

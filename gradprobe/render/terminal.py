@@ -126,8 +126,9 @@ def stack_line(report: Report) -> str | None:
         sources.setdefault(str(t.inherited_from), []).append(t.name)
     for source, names in sources.items():
         line += f" · inherited from {source}: {', '.join(names)}"
-    unexplained = [t.name for t in report.failing_tensors if t.inherited_from is None
-                   and t.layer not in report.error_enters_at]
+    entered = report.error_enters_at or ()
+    unexplained = [t.name for t in report.failing_tensors
+                   if t.inherited_from is None and t.layer not in entered]
     if unexplained:
         line += f" · failing end to end with every layer right on its own: {', '.join(unexplained)}"
     return line
