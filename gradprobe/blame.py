@@ -79,7 +79,7 @@ def combine(end: Report, checks: Sequence[OwnCheck], seconds: float) -> Report:
             source = None if own_wrong else _inherited(position, owns)
             if source is not None:
                 t = replace(t, inherited_from=source, hint=(
-                    f"fails only because layer {source}'s input gradient is wrong"))
+                    f"inherited: layer {source}'s input gradient is wrong"))
         if layer is not None:
             grouped[layer].append(replace(t, layer=layer))
         else:

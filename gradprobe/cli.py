@@ -35,7 +35,8 @@ CHECK_HELP = """Check the backward pass of each TARGET against central differenc
 
 TARGET is a Python file (nets/mlp.py), a dotted module (nets.mlp), either followed by
 :NAME for an attribute (nets/mlp.py:dense_case). The target provides forward, backward and
-setup() or params; see the README for the protocol. With no TARGET, the targets listed in
+setup() or params, or layers (a stack: every layer's backward is checked on its own, and the
+report says where the error enters); see the README for the protocol. With no TARGET, the targets listed in
 [tool.gradprobe] of the nearest pyproject.toml are checked; its other keys (threshold, seed,
 method, sample, directions, jobs, recheck, json, junit) set defaults that options override.
 --show-settings says which value each setting has and where it came from.
@@ -44,6 +45,7 @@ method, sample, directions, jobs, recheck, json, junit) set defaults that option
 Examples:
   gradprobe check samples/crop_yield.py
   gradprobe check samples/crop_yield_buggy.py --json report.json --junit report.xml
+  gradprobe check samples/shop_demand_stack_buggy.py
   gradprobe check nets.mlp:Case --fail-above 1e-5 --seed 3
   gradprobe check samples/sensor_mixer.py --json - | jq .summary
   gradprobe check big_model.py --sample 0 --jobs 2
