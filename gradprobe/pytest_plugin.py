@@ -3,7 +3,8 @@
     def test_dense_layer(grad_probe):
         grad_probe(forward, backward, params, inputs)
 
-The fixture checks like :func:`gradprobe.probe` and returns the report when the check passes;
+The fixture checks like :func:`gradprobe.probe` (``grad_probe.stack(layers, params, inputs)``
+like :func:`gradprobe.probe_stack`) and returns the report when the check passes;
 otherwise the test fails with the per-layer report as its message. The threshold and seed come,
 from weakest to strongest, from gradprobe's defaults, the ini file (``gradprobe_threshold``,
 ``gradprobe_seed``), the command line (``--gradprobe-threshold``, ``--gradprobe-seed``), a

@@ -33,9 +33,6 @@ class StackTarget:
     inputs: Mapping[str, Any] = field(default_factory=dict)
     spec: str | None = None
 
-    def layer_params(self, params: Mapping[str, Any], name: str) -> Mapping[str, Any]:
-        return params.get(name, {})
-
 
 def is_stack(obj: Any) -> bool:
     """A target object that gives ``layers`` and no ``forward`` of its own."""

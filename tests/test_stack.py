@@ -197,3 +197,51 @@ def test_the_fixture_checks_stacks(pytester):
     result = pytester.runpytest_inprocess("-q", "-p", "no:cacheprovider")
     result.assert_outcomes(passed=1, failed=1)
     result.stdout.fnmatch_lines(["*error enters at d2: its input gradient is wrong*"])
+
+
+def test_float32_sampling_and_directions_apply_to_every_check():
+    layers, params, inputs = _three((None, "input", None))
+    params32 = {n: {k: v.astype(np.float32) for k, v in p.items()} for n, p in params.items()}
+    inputs32 = {k: v.astype(np.float32) for k, v in inputs.items()}
+    report = probe_stack(layers, params32, inputs32, sample=3, directions=2)
+    assert report.threshold == 1e-2 and report.compute_dtype == "float32"
+    assert report.error_enters_at == ("d2",)
+    d1, d2 = report.layers[0], report.layers[2]
+    assert all(t.checked == 3 and len(t.directions) == 2 for t in [*d1.own_tensors, *d2.tensors])
+    assert d2.input_gradient_wrong and len(d2.own_tensors[-1].directions) == 2
+    assert {t.inherited_from for t in report.failing_tensors} == {"d2"}
+
+
+def test_an_embedding_of_integer_indices_as_the_first_layer():
+    class Embed:
+        name = "embed"
+
+        def forward(self, p, x, inputs):
+            return p["E"][x]
+
+        def backward(self, p, x, inputs, g):
+            grad = np.zeros_like(p["E"])
+            np.add.at(grad, x, g)
+            return {"E": grad}, None  # no gradient for integer indices
+
+    rng = np.random.default_rng(2)
+    params = {"embed": {"E": rng.normal(size=(6, 3))}, "d1": {"W": rng.normal(size=(3, 2)),
+                                                           "b": np.zeros(2)}}
+    inputs = {"x": np.array([0, 3, 3, 5]), "y": rng.normal(size=(4, 2))}
+    report = probe_stack([Embed(), Dense("d1"), SquaredLoss()], params, inputs)
+    assert report.ok and {t.name for t in report.tensors} == {"embed.E", "d1.W", "d1.b"}
+    embed = report.layers[0]
+    assert embed.own == "pass" and [t.name for t in embed.own_tensors] == ["embed.E"]
+
+
+def test_the_verdict_names_a_layer_wrong_on_its_own_when_nothing_fails_end_to_end():
+    from gradprobe.render.terminal import stack_line, verdict
+    from gradprobe.report import LayerResult, Report, TensorResult
+
+    wrong = TensorResult("d1.x", "d1", "input", (2,), "float64", 2, 2, 0, "fail")
+    report = Report("net", 1e-6, 0, (LayerResult("d1", (), own="fail", own_tensors=(wrong,),
+                                                 own_input="d1.x"),),
+                    10, 0.0, error_enters_at=("d1",))
+    assert not report.ok
+    assert verdict(report).startswith("FAIL  the own backward of d1 is wrong")
+    assert stack_line(report) == "error enters at d1: its input gradient is wrong"
