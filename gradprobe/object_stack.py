@@ -17,6 +17,7 @@ from __future__ import annotations
 
 import inspect
 from collections.abc import Mapping, Sequence
+from dataclasses import replace
 from typing import Any
 
 import numpy as np
@@ -98,14 +99,17 @@ def _float_array(value: Any) -> bool:
     return isinstance(value, np.ndarray) and np.issubdtype(value.dtype, np.floating)
 
 
-def discover(obj: Any, x: Any) -> dict[str, str]:
-    """Parameter -> gradient location, found by one trial forward and backward at ``x``."""
+def discover(obj: Any, x: Any) -> tuple[dict[str, str], list[str]]:
+    """Parameter -> gradient location, found by one trial forward and backward at ``x``; and
+    the other float arrays the calls keep (running statistics: state, not params). Arrays
+    the calls rebind are caches and are in neither."""
     held = getattr(obj, "params", None)
     if isinstance(held, Mapping):
         candidates = [f"params.{k}" for k, v in held.items() if _float_array(v)]
     else:
         candidates = [k for k, v in vars(obj).items() if not k.startswith("_") and _float_array(v)]
     found: dict[str, str] = {}
+    before = {k: id(v) for k, v in vars(obj).items() if _float_array(v) and not k.startswith("_")}
     with preserved(obj):
         y = np.asarray(obj.forward(x))
         obj.backward(np.ones_like(y, dtype=np.float64))
@@ -121,7 +125,9 @@ def discover(obj: Any, x: Any) -> dict[str, str]:
                 if isinstance(stored_value, np.ndarray) and stored_value.shape == value.shape:
                     found[where] = location
                     break
-    return found
+        kept = [k for k, i in before.items() if id(getattr(obj, k, None)) == i]
+    gradients = {location for location in found.values()}
+    return found, [k for k in kept if k not in found and k not in gradients]
 
 
 def object_stack(
@@ -150,10 +156,17 @@ def object_stack(
     wrapped: list[Any] = []
     params: dict[str, dict[str, np.ndarray]] = {}
     activation = x_private
+    notes = []
     with preserved(*objects):
         for name, obj in zip(all_names[:-1], layers):
             chosen = (grads or {}).get(name)
-            slots = param_slots(obj, chosen if chosen is not None else discover(obj, activation))
+            others: list[str] = []
+            if chosen is None:
+                chosen, others = discover(obj, activation)
+            slots = param_slots(obj, chosen)
+            if others:
+                notes.append(f"layer {name}: {', '.join(others)} taken as state, not params (no "
+                             "gradient stored for them; name them with grads= to check them)")
             wrapped.append(ObjectLayer(name, obj, slots))
             if slots:
                 params[name] = {n: np.array(place.get(obj), copy=True)
@@ -163,4 +176,4 @@ def object_stack(
     if labels is not None:
         inputs[LABELS] = np.array(labels, copy=True)
     wrapped.append(ObjectLoss(all_names[-1], loss, labels is not None))
-    return stack(wrapped, params, inputs, label)
+    return replace(stack(wrapped, params, inputs, label), notes=tuple(notes))

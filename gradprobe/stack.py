@@ -32,6 +32,7 @@ class StackTarget:
     params: Mapping[str, Any]
     inputs: Mapping[str, Any] = field(default_factory=dict)
     spec: str | None = None
+    notes: tuple[str, ...] = ()  # what building the stack noticed, for the report
 
 
 def is_stack(obj: Any) -> bool:
@@ -179,7 +180,7 @@ class ComposedBackward:
         for k in range(len(layers) - 1, -1, -1):
             p = params.get(names[k], {})
             own, grad_x = _backward(names[k], layers[k], p, acts[k], inputs, grad_y)
-            if names[k] in params:
+            if names[k] in params or own:  # grads for a layer without params: unknown names
                 grads[names[k]] = own
             if np.shape(grad_x) != np.shape(acts[k]):
                 return grads

@@ -10,6 +10,7 @@ from __future__ import annotations
 import time
 from collections.abc import Callable
 from concurrent.futures import Executor
+from dataclasses import replace
 from typing import Any
 
 from .blame import OwnCheck, combine
@@ -45,7 +46,8 @@ def run_stack(
                                clock=clock)
         checks.append(OwnCheck(part.name, report, part.input_name))
     end = run_check(end_to_end(st), options, executor=executor, progress=progress, clock=clock)
-    return combine(end, checks, clock() - started)
+    report = combine(end, checks, clock() - started)
+    return replace(report, notes=st.notes + report.notes) if st.notes else report
 
 
 def run_any(target: Target | StackTarget, options: CheckOptions | None = None,

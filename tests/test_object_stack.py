@@ -106,6 +106,9 @@ def test_a_correct_object_stack_passes_and_is_left_as_it_was():
     assert {t.name for t in report.tensors} >= {"Affine1.W", "BatchNorm.gamma", "Affine2.b", "x"}
     assert _state([*layers, loss]) == before
     assert layers[0].calls == 1 and not hasattr(layers[3], "dW")
+    assert [n for n in report.notes if "taken as state" in n] == [
+        "layer BatchNorm: running_mean taken as state, not params (no gradient stored for them; "
+        "name them with grads= to check them)"]
 
 
 @pytest.mark.parametrize("slip, wrong_input", [("input", True), ("param", False)])
