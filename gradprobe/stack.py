@@ -4,7 +4,7 @@ A stack is a list of layers, each with ``forward(params, x, inputs) -> y`` and
 ``backward(params, x, inputs, grad_y) -> (grads, grad_x)``; the last layer returns the scalar
 loss. From a :class:`StackTarget` this module builds ordinary :class:`~gradprobe.target.Target`
 objects for the engine: :func:`end_to_end` (the whole network, forward and backward composed
-here) and :func:`layer_targets` (each layer on its own, at the activation that reaches it).
+here); :mod:`gradprobe.stack_split` gives each layer on its own.
 """
 
 from __future__ import annotations
@@ -139,7 +139,7 @@ class StackLayerError(Exception):
 
     def __init__(self, name: str, what: str, exc: BaseException) -> None:
         super().__init__(f"in layer {name}: {summarise(exc)}")
-        self.original = exc
+        self.name, self.original = name, exc
 
 
 # -- the whole network -----------------------------------------------------------------------
@@ -198,116 +198,3 @@ def end_to_end(st: StackTarget) -> Target:
     """The whole stack as one flat target (forward and backward composed here)."""
     fwd = ComposedForward(st.names, st.layers)
     return Target(st.label, fwd, ComposedBackward(fwd), st.params, st.inputs, st.spec)
-
-
-# -- each layer on its own ---------------------------------------------------------------------
-
-def input_key(params: Mapping[str, Any]) -> str:
-    """The name under which a layer's input sits among its own params (x, unless taken)."""
-    key = INPUT
-    while key in params:
-        key += "_in"
-    return key
-
-
-class LayerForward:
-    """One layer as a target's forward: its params and its input activation are the params."""
-
-    def __init__(self, name: str, layer: Any, key: str) -> None:
-        self.name, self.layer, self.key = name, layer, key
-
-    def split(self, params: Mapping[str, Any]) -> tuple[dict[str, Any], Any]:
-        mine = dict(params[self.name])
-        x = mine.pop(self.key)
-        return mine, x
-
-    def __call__(self, params: Mapping[str, Any], inputs: Mapping[str, Any]) -> Any:
-        mine, x = self.split(params)
-        return _forward(self.name, self.layer, mine, x, inputs)
-
-
-class LayerBackward:
-    """One layer's backward for the engine's upstream gradient (1.0 for the loss layer)."""
-
-    def __init__(self, forward: LayerForward) -> None:
-        self.forward = forward
-
-    def __call__(self, params: Mapping[str, Any], inputs: Mapping[str, Any],
-                 grad_output: Any = 1.0) -> dict[str, Any]:
-        f = self.forward
-        mine, x = f.split(params)
-        own, grad_x = _backward(f.name, f.layer, mine, x, inputs, grad_output)
-        if not isinstance(own, Mapping):
-            raise BadOutputError(
-                f"layer {f.name}'s backward must return its grads as a mapping, not "
-                f"{type(own).__name__}", value=own)
-        out = dict(own)
-        if _floating(x):
-            out[f.key] = grad_x
-        return {f.name: out}
-
-
-@dataclass(frozen=True)
-class LayerPart:
-    """One layer's own check: its target and where its input sits among the params."""
-
-    name: str
-    target: Target
-    input_name: str  # the tensor name of the layer's input in this target
-    checkable: bool  # False when the layer has no floating-point array to perturb
-
-
-def base_activations(st: StackTarget) -> list[np.ndarray]:
-    """The input of every layer at the base point, as private arrays (then the loss)."""
-    from .tensors import Workspace
-
-    params, inputs, _ = Workspace(st.params, st.inputs).scratch_trees()
-    fwd = ComposedForward(st.names, st.layers)
-    try:
-        acts = fwd.activations(params, inputs)
-    except StackLayerError as exc:
-        raise UserCodeError(f"{exc} (in forward at the base point)") from exc.original
-    out = []
-    for k, act in enumerate(acts[:-1]):
-        if isinstance(act, (tuple, list, dict, str, bytes)) or act is None:
-            raise BadOutputError(
-                f"layer {st.names[k - 1]}'s forward returned a {type(act).__name__}, not an array",
-                value=act)
-        out.append(np.array(act, copy=True))
-    if np.size(acts[-1]) != 1:
-        raise BadOutputError(
-            f"the last layer, {st.names[-1]}, must return the scalar loss but returned shape "
-            f"{np.shape(acts[-1])}", value=acts[-1])
-    return out
-
-
-def layer_targets(st: StackTarget, activations: list[np.ndarray]) -> list[LayerPart]:
-    """Each layer as a small target at the activation that reaches it."""
-    parts = []
-    for k, (name, layer) in enumerate(zip(st.names, st.layers)):
-        own = dict(st.params.get(name, {}))
-        key = input_key(own)
-        fwd = LayerForward(name, layer, key)
-        params = {name: {**own, key: activations[k]}}
-        spec = None if st.spec is None else PART.join((st.spec, name, key))
-        target = Target(f"{st.label}: layer {name} on its own", fwd, LayerBackward(fwd), params, st.inputs, spec)
-        from .tensors import flatten
-
-        checkable = any(_floating(v) for v in flatten(params).values())
-        parts.append(LayerPart(name, target, f"{name}.{key}", checkable))
-    return parts
-
-
-def worker_functions(obj: Any, spec: str) -> tuple[Any, Any] | None:
-    """forward and backward for a worker process, when ``obj`` (resolved from ``spec``) is a
-    stack: the composed ones, or one layer's when ``spec`` names a layer; None otherwise."""
-    part = spec.split(PART)[1:]
-    if not is_stack(obj):
-        return None
-    names, layers = _named_layers(_get(obj, "layers"))
-    if not part:
-        fwd = ComposedForward(names, layers)
-        return fwd, ComposedBackward(fwd)
-    name, key = part
-    lf = LayerForward(name, layers[names.index(name)], key)
-    return lf, LayerBackward(lf)

@@ -19,7 +19,8 @@ from .engine.runner import run_check
 from .errors import ProbeError
 from .options import CheckOptions
 from .report import Report
-from .stack import StackTarget, base_activations, end_to_end, layer_targets
+from .stack import StackTarget, end_to_end
+from .stack_split import base_activations, layer_targets
 from .target import Target
 
 

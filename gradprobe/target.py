@@ -194,7 +194,8 @@ def load_functions(spec: str) -> tuple[Callable[..., Any], Callable[..., Any]]:
     """forward and backward of ``spec``, for worker processes: setup() is not called again
     (the protocol calls it once per check; workers receive its arrays instead). A stack's
     composed functions, or one layer's, when ``spec`` names a stack (see :mod:`.stack`)."""
-    from .stack import PART, worker_functions  # local: stack builds on this module
+    from .stack import PART  # local: stacks build on this module
+    from .stack_split import worker_functions
 
     try:
         obj = resolve_object(spec.split(PART)[0])

@@ -11,7 +11,8 @@ from stack_layers import Dense, Relu, SoftmaxLoss, SquaredLoss, Tanh, arrays
 
 from gradprobe import probe, probe_stack
 from gradprobe.errors import BadOutputError, TargetLoadError, UserCodeError
-from gradprobe.stack import base_activations, layer_targets, stack
+from gradprobe.stack import stack
+from gradprobe.stack_split import base_activations, layer_targets
 
 THREE = ("d1", "d2", "d3")
 
@@ -134,9 +135,15 @@ def test_a_layer_that_raises_is_named():
         def backward(self, p, x, inputs, g):
             raise ValueError("shapes do not align")
 
+    class Refuses(Dense):
+        def forward(self, p, x, inputs):
+            raise KeyError("demand")
+
     params, inputs = arrays()
     with pytest.raises(UserCodeError, match="layer d2's backward raised ValueError: shapes"):
         probe_stack([Dense("d1"), Broken("d2"), SquaredLoss()], params, inputs)
+    with pytest.raises(UserCodeError, match="<stack>: layer d2's forward raised KeyError: 'demand'"):
+        probe_stack([Dense("d1"), Refuses("d2"), SquaredLoss()], params, inputs)
 
 
 def test_a_misshaped_input_gradient_fails_its_layer_and_the_earlier_ones_inherit():
