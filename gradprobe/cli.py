@@ -25,9 +25,9 @@ from .render.junit import render_junit
 from .render.progress import TerminalProgress
 from .render.terminal import COLOUR, PLAIN, plain_console, renderables, run_summary
 from .report import TargetRun
-from .starter import write_starter
 from .stack import load_any
 from .stack_check import run_any
+from .starter import write_starter
 
 EXIT_OK, EXIT_FAIL, EXIT_ERROR, EXIT_INTERNAL, EXIT_INTERRUPTED = 0, 1, 2, 3, 130
 

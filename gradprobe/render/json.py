@@ -7,7 +7,12 @@ import math
 from typing import Any
 
 from ..report import (
-    CoordinateDetail, DirectionResult, LayerResult, Report, TargetRun, TensorResult,
+    CoordinateDetail,
+    DirectionResult,
+    LayerResult,
+    Report,
+    TargetRun,
+    TensorResult,
 )
 
 SCHEMA = "gradprobe.report/1"
