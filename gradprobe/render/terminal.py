@@ -130,7 +130,7 @@ def stack_line(report: Report) -> str | None:
     unexplained = [t.name for t in report.failing_tensors
                    if t.inherited_from is None and t.layer not in entered]
     if unexplained:
-        line += f" · failing end to end with every layer right on its own: {', '.join(unexplained)}"
+        line += f" · not explained by any layer's own check: {', '.join(unexplained)}"
     return line
 
 
