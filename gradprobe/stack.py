@@ -40,7 +40,7 @@ def is_stack(obj: Any) -> bool:
     return _get(obj, "layers") is not None and _get(obj, "forward") is None
 
 
-def _named_layers(layers: Any) -> tuple[tuple[str, ...], tuple[Any, ...]]:
+def named_layers(layers: Any) -> tuple[tuple[str, ...], tuple[Any, ...]]:
     if isinstance(layers, Mapping):
         pairs = [(str(k), v) for k, v in layers.items()]
     elif isinstance(layers, Sequence) and not isinstance(layers, (str, bytes)):
@@ -71,7 +71,7 @@ def _named_layers(layers: Any) -> tuple[tuple[str, ...], tuple[Any, ...]]:
 
 def stack_from_object(obj: Any, label: str, spec: str | None = None) -> StackTarget:
     """Read ``layers`` and the arrays off a stack target object."""
-    names, layers = _named_layers(_get(obj, "layers"))
+    names, layers = named_layers(_get(obj, "layers"))
     params, inputs = _arrays(obj)
     if INPUT not in inputs:
         raise TargetLoadError("a stack's inputs must hold x, the first layer's input", value=inputs)
@@ -107,7 +107,7 @@ def load_any(spec: str) -> Target | StackTarget:
 
 # -- calling the user's layers, with one sentence naming the layer when they fail ----------
 
-def _forward(name: str, layer: Any, p: Any, x: Any, inputs: Any) -> Any:
+def call_layer_forward(name: str, layer: Any, p: Any, x: Any, inputs: Any) -> Any:
     try:
         return layer.forward(p, x, inputs)
     except KeyboardInterrupt:
@@ -118,7 +118,7 @@ def _forward(name: str, layer: Any, p: Any, x: Any, inputs: Any) -> Any:
         raise StackLayerError(name, "forward", exc) from exc
 
 
-def _backward(name: str, layer: Any, p: Any, x: Any, inputs: Any, grad_y: Any) -> tuple[Any, Any]:
+def call_layer_backward(name: str, layer: Any, p: Any, x: Any, inputs: Any, grad_y: Any) -> tuple[Any, Any]:
     try:
         result = layer.backward(p, x, inputs, grad_y)
     except KeyboardInterrupt:
@@ -154,7 +154,7 @@ class ComposedForward:
         """The input of every layer, then the loss."""
         acts = [inputs[INPUT]]
         for name, layer in zip(self.names, self.layers):
-            acts.append(_forward(name, layer, params.get(name, {}), acts[-1], inputs))
+            acts.append(call_layer_forward(name, layer, params.get(name, {}), acts[-1], inputs))
         return acts
 
     def __call__(self, params: Mapping[str, Any], inputs: Mapping[str, Any]) -> Any:
@@ -179,18 +179,19 @@ class ComposedBackward:
         grad_y: Any = 1.0
         for k in range(len(layers) - 1, -1, -1):
             p = params.get(names[k], {})
-            own, grad_x = _backward(names[k], layers[k], p, acts[k], inputs, grad_y)
-            if names[k] in params or own:  # grads for a layer without params: unknown names
+            own, grad_x = call_layer_backward(names[k], layers[k], p, acts[k], inputs, grad_y)
+            if names[k] in params or not (isinstance(own, Mapping) and not own):
+                # (grads from a layer without params are passed on: unknown names)
                 grads[names[k]] = own
             if np.shape(grad_x) != np.shape(acts[k]):
                 return grads
             grad_y = grad_x
-        if _floating(inputs[INPUT]):
+        if floating(inputs[INPUT]):
             grads[INPUT] = grad_y
         return grads
 
 
-def _floating(value: Any) -> bool:
+def floating(value: Any) -> bool:
     return bool(np.issubdtype(np.asarray(value).dtype, np.floating))
 
 

@@ -22,11 +22,11 @@ from .stack import (
     ComposedForward,
     StackLayerError,
     StackTarget,
-    _backward,
-    _floating,
-    _forward,
-    _named_layers,
+    call_layer_backward,
+    call_layer_forward,
+    floating,
     is_stack,
+    named_layers,
 )
 from .target import Target, _get
 from .tensors import Workspace, flatten
@@ -53,7 +53,7 @@ class LayerForward:
 
     def __call__(self, params: Mapping[str, Any], inputs: Mapping[str, Any]) -> Any:
         mine, x = self.split(params)
-        return _forward(self.name, self.layer, mine, x, inputs)
+        return call_layer_forward(self.name, self.layer, mine, x, inputs)
 
 
 class LayerBackward:
@@ -66,13 +66,13 @@ class LayerBackward:
                  grad_output: Any = 1.0) -> dict[str, Any]:
         f = self.forward
         mine, x = f.split(params)
-        own, grad_x = _backward(f.name, f.layer, mine, x, inputs, grad_output)
+        own, grad_x = call_layer_backward(f.name, f.layer, mine, x, inputs, grad_output)
         if not isinstance(own, Mapping):
             raise BadOutputError(
                 f"layer {f.name}'s backward must return its grads as a mapping, not "
                 f"{type(own).__name__}", value=own)
         out = dict(own)
-        if _floating(x):
+        if floating(x):
             out[f.key] = grad_x
         return {f.name: out}
 
@@ -119,7 +119,7 @@ def layer_targets(st: StackTarget, activations: list[np.ndarray]) -> list[LayerP
         params = {name: {**own, key: activations[k]}}
         spec = None if st.spec is None else PART.join((st.spec, name, key))
         target = Target(f"{st.label}: layer {name} on its own", fwd, LayerBackward(fwd), params, st.inputs, spec)
-        checkable = any(_floating(v) for v in flatten(params).values())
+        checkable = any(floating(v) for v in flatten(params).values())
         parts.append(LayerPart(name, target, f"{name}.{key}", checkable))
     return parts
 
@@ -130,7 +130,7 @@ def worker_functions(obj: Any, spec: str) -> tuple[Any, Any] | None:
     part = spec.split(PART)[1:]
     if not is_stack(obj):
         return None
-    names, layers = _named_layers(_get(obj, "layers"))
+    names, layers = named_layers(_get(obj, "layers"))
     if not part:
         fwd = ComposedForward(names, layers)
         return fwd, ComposedBackward(fwd)
