@@ -1,6 +1,6 @@
 """gradprobe: check hand-written backward passes against central differences."""
 
-from .api import probe, probe_target
+from .api import probe, probe_stack, probe_target
 from .errors import (
     BadOutputError,
     ComplexStepError,
@@ -31,5 +31,6 @@ __all__ = [
     "UserCodeError",
     "__version__",
     "probe",
+    "probe_stack",
     "probe_target",
 ]

@@ -2,37 +2,96 @@
 
 The common object style: ``layer.forward(x)`` returns the output and caches what backward
 needs; ``layer.backward(dout)`` returns the input gradient and stores each parameter's
-gradient on the layer (``layer.dW`` for ``layer.W``). :func:`layer_target` wraps such a layer:
-each call puts gradprobe's (private, read-only) copies of the parameters on the layer, runs
-it, and puts the layer's own arrays back afterwards, so the layer is unchanged by a check.
+gradient on the layer (``layer.dW`` for ``layer.W``, or ``layer.grads["W"]`` for
+``layer.params["W"]``). :func:`layer_target` wraps such a layer: each call puts gradprobe's
+(private, read-only) copies of the parameters on the layer, runs it, and then puts the whole
+object back as it was (parameters, caches, counters, running statistics; see
+:mod:`gradprobe.objstate`), also when the call fails or is interrupted.
+:mod:`gradprobe.object_stack` does the same for a list of such layers and a loss.
 """
 
 from __future__ import annotations
 
-from contextlib import contextmanager
-from typing import Any, Iterator, Mapping
+from collections.abc import Mapping
+from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
 from .errors import TargetLoadError
+from .objstate import preserved
 from .target import Target
 
-_MISSING = object()
+
+@dataclass(frozen=True)
+class Slot:
+    """Where an array lives on a layer: ``layer.<attr>``, or ``layer.<attr>[<key>]`` when
+    ``key`` is set (parameters held in a dict attribute)."""
+
+    attr: str
+    key: str | None = None
+
+    @property
+    def label(self) -> str:
+        return f"layer.{self.attr}" + (f"[{self.key!r}]" if self.key is not None else "")
+
+    def get(self, layer: Any, default: Any = None) -> Any:
+        holder = getattr(layer, self.attr, None)
+        if self.key is None:
+            return default if holder is None else holder
+        return holder.get(self.key, default) if isinstance(holder, Mapping) else default
+
+    def put(self, layer: Any, value: Any) -> None:
+        if self.key is None:
+            setattr(layer, self.attr, value)
+        else:
+            getattr(layer, self.attr)[self.key] = value
 
 
-@contextmanager
-def _installed(layer: Any, values: Mapping[str, Any]) -> Iterator[None]:
-    saved = {name: getattr(layer, name, _MISSING) for name in values}
-    try:
-        for name, value in values.items():
-            setattr(layer, name, value)
-        yield
-    finally:
-        for name, value in saved.items():
-            if value is _MISSING:
-                delattr(layer, name)
-            else:
-                setattr(layer, name, value)
+def slot(layer: Any, where: str, holder: str = "params") -> Slot:
+    """``"W"``: the attribute ``W``, else ``layer.<holder>["W"]``; ``"params.W"``:
+    ``layer.params["W"]`` explicitly."""
+    attr, dot, key = where.partition(".")
+    if dot:
+        return Slot(attr, key)
+    if holder and not hasattr(layer, where) and isinstance(getattr(layer, holder, None), Mapping):
+        return Slot(holder, where)
+    return Slot(where)
+
+
+def short_name(where: str) -> str:
+    return where.rpartition(".")[2]
+
+
+def param_slots(layer: Any, grads: Mapping[str, str]) -> dict[str, tuple[Slot, Slot]]:
+    """Each parameter's name -> (where it lives, where backward stores its gradient)."""
+    found = {}
+    for where, grad in grads.items():
+        place = slot(layer, where)
+        if place.get(layer) is None:
+            raise TargetLoadError(f"the layer {type(layer).__name__} has no attribute {where!r}")
+        found[short_name(where)] = (place, slot(layer, grad, holder="grads"))
+    return found
+
+
+def install(layer: Any, slots: Mapping[str, tuple[Slot, Slot]], values: Mapping[str, Any]) -> None:
+    """Put ``values`` in the parameter slots and clear the gradient slots (so a gradient that
+    backward does not store is noticed, not read stale)."""
+    for name, (place, grad) in slots.items():
+        place.put(layer, values[name])
+        if grad.key is None or isinstance(getattr(layer, grad.attr, None), dict):
+            grad.put(layer, None)
+
+
+def stored(layer: Any, slots: Mapping[str, tuple[Slot, Slot]]) -> dict[str, np.ndarray]:
+    """The gradients backward stored, copied before the layer is put back."""
+    out = {}
+    for name, (_, grad) in slots.items():
+        value = grad.get(layer)
+        if value is None:
+            raise TargetLoadError(f"backward stored no gradient in {grad.label} for {name}")
+        out[name] = np.array(value, copy=True)
+    return out
 
 
 def layer_target(
@@ -46,38 +105,32 @@ def layer_target(
 ) -> Target:
     """A target checking ``layer``'s parameters (the keys of ``grads``) and its input gradient.
 
-    ``grads`` maps each parameter attribute to the attribute where ``layer.backward`` stores
-    its gradient, e.g. ``{"W": "dW", "b": "db"}``. The check is of ``sum(g * layer.forward(x))``
-    with gradprobe's seeded ``g``; ``layer.backward(g)`` must return the gradient of ``x``.
-    The parameters are reported in the layer ``name`` (default: the class name).
+    ``grads`` maps each parameter to where ``layer.backward`` stores its gradient, e.g.
+    ``{"W": "dW", "b": "db"}``, or ``{"W": "grads.W"}`` for ``layer.grads["W"]``; a
+    parameter not found as an attribute is looked up in ``layer.params``. The check is of
+    ``sum(g * layer.forward(x))`` with gradprobe's seeded ``g``; ``layer.backward(g)`` must
+    return the gradient of ``x``. The parameters are reported in the layer ``name`` (default:
+    the class name).
     """
     name = name or type(layer).__name__
     for method in ("forward", "backward"):
         if not callable(getattr(layer, method, None)):
             raise TargetLoadError(f"the layer {type(layer).__name__} has no {method} method")
-    missing = [attr for attr in grads if not hasattr(layer, attr)]
-    if missing:
-        raise TargetLoadError(f"the layer {type(layer).__name__} has no attribute {missing[0]!r}")
-    params = {name: {attr: np.array(getattr(layer, attr), copy=True) for attr in grads}}
+    slots = param_slots(layer, grads)
+    params = {name: {n: np.array(place.get(layer), copy=True) for n, (place, _) in slots.items()}}
     inputs = {input_name: np.array(x, copy=True)}
 
     def forward(p: Mapping[str, Any], i: Mapping[str, Any]) -> Any:
-        with _installed(layer, p[name]):
-            return layer.forward(i[input_name])
+        with preserved(layer):
+            install(layer, slots, p[name])
+            return np.array(layer.forward(i[input_name]), copy=True)
 
     def backward(p: Mapping[str, Any], i: Mapping[str, Any], grad_output: np.ndarray) -> dict:
-        blank = {g: None for g in grads.values() if not hasattr(layer, g)}
-        with _installed(layer, {**p[name], **blank}):
+        with preserved(layer):
+            install(layer, slots, p[name])
             layer.forward(i[input_name])  # refresh the caches for these params
-            dx = layer.backward(grad_output)
-            stored = {attr: _stored(layer, attr, g) for attr, g in grads.items()}
-        return {name: stored, input_name: dx}
+            dx = np.array(layer.backward(grad_output), copy=True)
+            found = stored(layer, slots)
+        return {name: found, input_name: dx}
 
     return Target(label or f"{name} layer", forward, backward, params, inputs)
-
-
-def _stored(layer: Any, attr: str, attribute: str) -> Any:
-    value = getattr(layer, attribute, None)
-    if value is None:
-        raise TargetLoadError(f"backward stored no gradient in layer.{attribute} for {attr}")
-    return np.array(value, copy=True)

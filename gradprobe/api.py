@@ -14,7 +14,9 @@ from typing import Any, Callable, Mapping
 from .engine.runner import run_check
 from .options import CheckOptions
 from .report import Report
-from .target import Target, load_target
+from .stack import StackTarget, load_any, stack
+from .stack_check import run_any, run_stack
+from .target import Target
 
 
 def _options(values: Mapping[str, Any]) -> CheckOptions:
@@ -41,5 +43,25 @@ def probe(
 
 
 def probe_target(spec: str, *, executor: Executor | None = None, **options: Any) -> Report:
-    """Check the target named by an entry-point string, as ``gradprobe check`` does."""
-    return run_check(load_target(spec), _options(options), executor=executor)
+    """Check the target named by an entry-point string (a stack too), as ``gradprobe check``
+    does."""
+    return run_any(load_any(spec), _options(options), executor=executor)
+
+
+def probe_stack(
+    layers: Any,
+    params: Mapping[str, Any] | None = None,
+    inputs: Mapping[str, Any] | None = None,
+    *,
+    executor: Executor | None = None,
+    label: str = "<stack>",
+    **options: Any,
+) -> Report:
+    """Check a stack of layers (protocol section 5): every layer's backward on its own and the
+    network end to end. ``layers`` is a sequence of named layers or a mapping name -> layer;
+    or a stack built by :func:`gradprobe.adapters.object_stack`, then without arrays."""
+    if isinstance(layers, StackTarget):
+        target = layers
+    else:
+        target = stack(layers, params or {}, inputs or {}, label)
+    return run_stack(target, _options(options), executor=executor)

@@ -18,7 +18,6 @@ from rich.console import Console
 
 from . import __version__
 from .config import ProjectConfig, load_config
-from .engine.runner import run_check
 from .errors import ProbeError, UsageProblem
 from .options import METHODS, CheckOptions
 from .render.json import render_runs
@@ -26,8 +25,9 @@ from .render.junit import render_junit
 from .render.progress import TerminalProgress
 from .render.terminal import COLOUR, PLAIN, plain_console, renderables, run_summary
 from .report import TargetRun
+from .stack import load_any
+from .stack_check import run_any
 from .starter import write_starter
-from .target import load_target
 
 EXIT_OK, EXIT_FAIL, EXIT_ERROR, EXIT_INTERNAL, EXIT_INTERRUPTED = 0, 1, 2, 3, 130
 
@@ -35,7 +35,8 @@ CHECK_HELP = """Check the backward pass of each TARGET against central differenc
 
 TARGET is a Python file (nets/mlp.py), a dotted module (nets.mlp), either followed by
 :NAME for an attribute (nets/mlp.py:dense_case). The target provides forward, backward and
-setup() or params; see the README for the protocol. With no TARGET, the targets listed in
+setup() or params, or layers (a stack: every layer's backward is checked on its own, and the
+report says where the error enters); see the README for the protocol. With no TARGET, the targets listed in
 [tool.gradprobe] of the nearest pyproject.toml are checked; its other keys (threshold, seed,
 method, sample, directions, jobs, recheck, json, junit) set defaults that options override.
 --show-settings says which value each setting has and where it came from.
@@ -44,6 +45,7 @@ method, sample, directions, jobs, recheck, json, junit) set defaults that option
 Examples:
   gradprobe check samples/crop_yield.py
   gradprobe check samples/crop_yield_buggy.py --json report.json --junit report.xml
+  gradprobe check samples/shop_demand_stack_buggy.py
   gradprobe check nets.mlp:Case --fail-above 1e-5 --seed 3
   gradprobe check samples/sensor_mixer.py --json - | jq .summary
   gradprobe check big_model.py --sample 0 --jobs 2
@@ -117,7 +119,7 @@ def check_one(spec: str, options: CheckOptions, out: Output) -> TargetRun:
     try:
         try:
             with user_output:
-                report = run_check(load_target(spec), options, progress=progress)
+                report = run_any(load_any(spec), options, progress=progress)
         finally:
             if progress is not None:
                 progress.close()
@@ -277,14 +279,17 @@ def check_command(ctx: click.Context, targets: tuple[str, ...], show_maps: bool,
 @cli.command("starter")
 @click.argument("path", type=click.Path(dir_okay=False))
 @click.option("--force", is_flag=True, help="Overwrite PATH if it exists.")
-def starter_command(path: str, force: bool) -> None:
+@click.option("--stack", is_flag=True,
+              help="Write a stack of layers, each with its own backward, instead of one "
+                   "forward and backward.")
+def starter_command(path: str, force: bool, stack: bool) -> None:
     """Write a commented starter target to PATH that runs as it is.
 
-    Replace its small layer with your own forward and backward, then run
-    gradprobe check PATH.
+    Replace its small layer (or, with --stack, its layers) with your own forward and
+    backward, then run gradprobe check PATH.
     """
     try:
-        write_starter(Path(path), force)
+        write_starter(Path(path), force, stack)
     except ProbeError as exc:
         _say_error(exc.sentence(), exc, False)
         sys.exit(EXIT_ERROR)

@@ -3,7 +3,8 @@
     def test_dense_layer(grad_probe):
         grad_probe(forward, backward, params, inputs)
 
-The fixture checks like :func:`gradprobe.probe` and returns the report when the check passes;
+The fixture checks like :func:`gradprobe.probe` (``grad_probe.stack(layers, params, inputs)``
+like :func:`gradprobe.probe_stack`) and returns the report when the check passes;
 otherwise the test fails with the per-layer report as its message. The threshold and seed come,
 from weakest to strongest, from gradprobe's defaults, the ini file (``gradprobe_threshold``,
 ``gradprobe_seed``), the command line (``--gradprobe-threshold``, ``--gradprobe-seed``), a
@@ -16,7 +17,7 @@ from typing import Any, Callable, Mapping
 
 import pytest
 
-from .api import probe
+from .api import probe, probe_stack
 from .report import Report
 
 SETTINGS = ("threshold", "seed")
@@ -78,6 +79,22 @@ class GradProbe:
     ) -> Report:
         __tracebackhide__ = True
         report = probe(forward, backward, params, inputs, **{**self.defaults, **options})
+        return self._verdict(report)
+
+    def stack(
+        self,
+        layers: Any,
+        params: Mapping[str, Any] | None = None,
+        inputs: Mapping[str, Any] | None = None,
+        **options: Any,
+    ) -> Report:
+        """Check a stack like :func:`gradprobe.probe_stack`; fails the test naming the layers
+        where the error enters."""
+        __tracebackhide__ = True
+        return self._verdict(probe_stack(layers, params, inputs, **{**self.defaults, **options}))
+
+    def _verdict(self, report: Report) -> Report:
+        __tracebackhide__ = True
         if not report.ok:
             pytest.fail("gradient check failed\n" + report.render(width=160), pytrace=False)
         return report

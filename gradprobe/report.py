@@ -68,6 +68,7 @@ class TensorResult:
     directions: tuple[DirectionResult, ...] = ()
     located_evaluations: int | None = None  # spent finding wrong coordinates from directions
     error_map: Any = field(default=None, compare=False, repr=False)  # rel error per element
+    inherited_from: str | None = None  # stacks: fails only because this later layer is wrong
 
     @property
     def size(self) -> int:
@@ -82,10 +83,26 @@ class TensorResult:
 class LayerResult:
     name: str
     tensors: tuple[TensorResult, ...]
+    # Stacks only: the verdict of this layer's backward checked on its own, that check's
+    # tensors (its params and, named ``own_input``, its input), and what the check cost.
+    own: str | None = None
+    own_tensors: tuple[TensorResult, ...] = ()
+    own_input: str | None = None
+    own_evaluations: int = 0
 
     @property
     def ok(self) -> bool:
-        return all(t.ok for t in self.tensors)
+        return all(t.ok for t in self.tensors) and self.own != "fail"
+
+    @property
+    def input_gradient_wrong(self) -> bool:
+        """Its own backward returns a wrong gradient for its input (stacks)."""
+        return any(t.status == "fail" for t in self.own_tensors if t.name == self.own_input)
+
+    @property
+    def wrong_param_gradients(self) -> tuple[TensorResult, ...]:
+        """Its own params whose gradient its own backward gets wrong (stacks)."""
+        return tuple(t for t in self.own_tensors if t.status == "fail" and t.name != self.own_input)
 
     @property
     def max_rel_error(self) -> float | None:
@@ -107,6 +124,19 @@ class Report:
     compute_dtype: str = "float64"
     errors: tuple[str, ...] = ()
     notes: tuple[str, ...] = ()
+    # Stacks only: the layers whose own backward is wrong, input side first (None: not a
+    # stack), and how many of ``evaluations`` the layers' own checks took.
+    error_enters_at: tuple[str, ...] | None = None
+    own_evaluations: int = 0
+
+    @property
+    def is_stack(self) -> bool:
+        return self.error_enters_at is not None
+
+    @property
+    def inherited(self) -> tuple[TensorResult, ...]:
+        """Tensors failing end to end only because a later layer is wrong."""
+        return tuple(t for t in self.tensors if t.inherited_from is not None)
 
     @property
     def tensors(self) -> tuple[TensorResult, ...]:

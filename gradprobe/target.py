@@ -192,8 +192,14 @@ def load_target(spec: str) -> Target:
 
 def load_functions(spec: str) -> tuple[Callable[..., Any], Callable[..., Any]]:
     """forward and backward of ``spec``, for worker processes: setup() is not called again
-    (the protocol calls it once per check; workers receive its arrays instead)."""
+    (the protocol calls it once per check; workers receive its arrays instead). A stack's
+    composed functions, or one layer's, when ``spec`` names a stack (see :mod:`.stack`)."""
+    from .stack import PART  # local: stacks build on this module
+    from .stack_split import worker_functions
+
     try:
-        return _functions(resolve_object(spec))
+        obj = resolve_object(spec.split(PART)[0])
+        found = worker_functions(obj, spec)
+        return found if found is not None else _functions(obj)
     except TargetLoadError as exc:
-        raise exc.with_target(spec)
+        raise exc.with_target(spec.split(PART)[0])

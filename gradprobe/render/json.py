@@ -6,7 +6,14 @@ import json
 import math
 from typing import Any
 
-from ..report import CoordinateDetail, DirectionResult, Report, TargetRun, TensorResult
+from ..report import (
+    CoordinateDetail,
+    DirectionResult,
+    LayerResult,
+    Report,
+    TargetRun,
+    TensorResult,
+)
 
 SCHEMA = "gradprobe.report/1"
 RUNS_SCHEMA = "gradprobe.runs/1"
@@ -58,6 +65,20 @@ def tensor_dict(t: TensorResult) -> dict[str, Any]:
         "details": [_detail(c) for c in t.details],
         "directions": [_direction(d) for d in t.directions],
         "located_evaluations": t.located_evaluations,
+        **({"inherited_from": t.inherited_from} if t.inherited_from is not None else {}),
+    }
+
+
+def _own_check(layer: LayerResult) -> dict[str, Any] | None:
+    """A stack layer's backward checked on its own (None for targets that are not stacks)."""
+    if layer.own is None:
+        return None
+    return {
+        "input": layer.own_input,
+        "input_gradient_wrong": layer.input_gradient_wrong,
+        "wrong_param_gradients": [t.name for t in layer.wrong_param_gradients],
+        "evaluations": layer.own_evaluations,
+        "tensors": [tensor_dict(t) for t in layer.own_tensors],
     }
 
 
@@ -79,6 +100,9 @@ def report_dict(report: Report) -> dict[str, Any]:
             "failed_tensors": len(report.failing_tensors),
             "evaluations": report.evaluations,
             "seconds": round(report.seconds, 6),
+            "error_enters_at": (list(report.error_enters_at)
+                                if report.error_enters_at is not None else None),
+            "own_evaluations": report.own_evaluations if report.is_stack else None,
         },
         "layers": [
             {
@@ -86,6 +110,8 @@ def report_dict(report: Report) -> dict[str, Any]:
                 "ok": layer.ok,
                 "max_rel_error": _num(layer.max_rel_error),
                 "tensors": [tensor_dict(t) for t in layer.tensors],
+                "own": layer.own,
+                "own_check": _own_check(layer),
             }
             for layer in report.layers
         ],

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import xml.etree.ElementTree as ET
 
-from ..report import TargetRun, TensorResult
+from ..report import Report, TargetRun, TensorResult
 from ..tensors import format_index
 
 
@@ -25,15 +25,22 @@ def _failure_text(t: TensorResult) -> str:
     ]
     if t.hint:
         lines.append(f"hint: {t.hint}")
+    if t.inherited_from:
+        lines.append(f"inherited from: {t.inherited_from}")
     return "\n".join(lines)
+
+
+def _own_cases(report: Report) -> list[tuple[str, TensorResult]]:
+    return [(layer.name, t) for layer in report.layers for t in layer.own_tensors]
 
 
 def _suite(root: ET.Element, run: TargetRun, index: int, timestamp: str, hostname: str) -> None:
     report = run.report
     tensors = report.tensors if report else ()
-    failures = sum(1 for t in tensors if t.status == "fail")
+    own = _own_cases(report) if report else []
+    failures = sum(1 for t in tensors if t.status == "fail") + sum(1 for _, t in own if t.status == "fail")
     suite = ET.SubElement(root, "testsuite", {
-        "name": run.target, "tests": str(len(tensors) if report else 1),
+        "name": run.target, "tests": str(len(tensors) + len(own) if report else 1),
         "failures": str(failures), "errors": "0" if report else "1", "skipped": "0",
         "time": f"{report.seconds:.6f}" if report else "0", "timestamp": timestamp,
         "hostname": hostname, "id": str(index), "package": "gradprobe",
@@ -48,6 +55,13 @@ def _suite(root: ET.Element, run: TargetRun, index: int, timestamp: str, hostnam
             share = report.seconds * t.evaluations / max(report.evaluations, 1)
             case = ET.SubElement(suite, "testcase", {
                 "name": t.name, "classname": f"{run.target}.{t.layer}", "time": f"{share:.6f}"})
+            if t.status == "fail":
+                failure = ET.SubElement(case, "failure", {
+                    "message": _failure_message(t, report.threshold), "type": "gradient mismatch"})
+                failure.text = _failure_text(t)
+        for layer, t in own:  # a stack layer's backward checked on its own
+            case = ET.SubElement(suite, "testcase", {
+                "name": t.name, "classname": f"{run.target}.{layer} on its own", "time": "0"})
             if t.status == "fail":
                 failure = ET.SubElement(case, "failure", {
                     "message": _failure_message(t, report.threshold), "type": "gradient mismatch"})

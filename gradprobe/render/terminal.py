@@ -15,7 +15,7 @@ from rich.console import Console, RenderableType
 from rich.table import Table
 from rich.text import Text
 
-from ..report import Report, TargetRun, TensorResult
+from ..report import LayerResult, Report, TargetRun, TensorResult
 from ..tensors import format_index
 from .heatmap import maps
 
@@ -93,10 +93,53 @@ def header(report: Report) -> str:
     )
 
 
+def _what_is_wrong(layer: LayerResult) -> str:
+    wrong = [t for t in layer.own_tensors if t.status == "fail"]
+    params = ", ".join(t.name for t in layer.wrong_param_gradients)
+    if layer.input_gradient_wrong and params:
+        text = f"its input gradient and its parameter gradient of {params} are wrong"
+    elif layer.input_gradient_wrong:
+        text = "its input gradient is wrong"
+    elif params:
+        text = f"its parameter gradient of {params} is wrong"
+    else:
+        text = "its own check fails"
+    clues = [t.hint.split(":")[0] for t in wrong if t.hint]
+    return text + (f" ({'; '.join(clues)})" if clues else "")
+
+
+def stack_line(report: Report) -> str | None:
+    """For a stack, one line: where the error enters and which failures are inherited."""
+    if not report.is_stack:
+        return None
+    checked = [layer for layer in report.layers if layer.own is not None]
+    if not report.error_enters_at:
+        odd = [f"{layer.name} {layer.own}" for layer in checked if layer.own != "pass"]
+        more = f" ({', '.join(odd)})" if odd else ""
+        line = f"layers on their own: all {len(checked)} agree{more}"
+    else:
+        by_name = {layer.name: layer for layer in report.layers}
+        line = "error enters at " + "; ".join(
+            f"{name}: {_what_is_wrong(by_name[name])}" for name in report.error_enters_at)
+    sources: dict[str, list[str]] = {}
+    for t in report.inherited:
+        sources.setdefault(str(t.inherited_from), []).append(t.name)
+    for source, names in sources.items():
+        line += f" · inherited from {source}: {', '.join(names)}"
+    entered = report.error_enters_at or ()
+    unexplained = [t.name for t in report.failing_tensors
+                   if t.inherited_from is None and t.layer not in entered]
+    if unexplained:
+        line += f" · not explained by any layer's own check: {', '.join(unexplained)}"
+    return line
+
+
 def verdict(report: Report) -> str:
     """One line: the outcome, what is wrong, what it cost."""
     n = len(report.tensors)
     cost = f"{report.evaluations} evaluations in {report.seconds:.2f} s"
+    if not report.ok and not report.failing_tensors:  # a stack layer wrong on its own only
+        return f"FAIL  the own backward of {', '.join(report.error_enters_at or ())} is wrong · {cost}"
     if not report.ok:
         bad = report.failing_tensors
         names = ", ".join(t.name for t in bad[:5]) + (" ..." if len(bad) > 5 else "")
@@ -123,6 +166,9 @@ def renderables(
             yield from maps(report, colour=theme is not PLAIN)
         for note in report.notes:
             yield Text(f"note: {note}", style=theme.style("note"))
+    line = stack_line(report)
+    if line is not None:
+        yield Text(line, style=style)
     yield Text(verdict(report), style=style)
 
 

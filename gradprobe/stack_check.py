@@ -1,0 +1,59 @@
+"""Checking a stack: every layer's backward on its own, then the whole network end to end.
+
+Both kinds of check are ordinary engine runs (:func:`~gradprobe.engine.runner.run_check`), so
+kinks, sampling, directions, hints, float32, parallel evaluation and every renderer apply to
+each; :func:`~gradprobe.blame.combine` makes one report of them.
+"""
+
+from __future__ import annotations
+
+import time
+from collections.abc import Callable
+from concurrent.futures import Executor
+from dataclasses import replace
+from typing import Any
+
+from .blame import OwnCheck, combine
+from .engine.evaluate import Progress
+from .engine.runner import run_check
+from .errors import ProbeError
+from .options import CheckOptions
+from .report import Report
+from .stack import StackTarget, end_to_end
+from .stack_split import base_activations, layer_targets
+from .target import Target
+
+
+def run_stack(
+    st: StackTarget,
+    options: CheckOptions | None = None,
+    *,
+    executor: Executor | None = None,
+    progress: Progress | None = None,
+    clock: Callable[[], float] = time.perf_counter,
+) -> Report:
+    """Check ``st``; ProbeError subclasses (naming the target) when the check cannot run."""
+    options = options or CheckOptions()
+    started = clock()
+    try:
+        activations = base_activations(st)
+    except ProbeError as exc:
+        raise exc.with_target(st.label)
+    checks = []
+    for part in layer_targets(st, activations):
+        report = None
+        if part.checkable:
+            report = run_check(part.target, options, executor=executor, progress=progress,
+                               clock=clock)
+        checks.append(OwnCheck(part.name, report, part.input_name))
+    end = run_check(end_to_end(st), options, executor=executor, progress=progress, clock=clock)
+    report = combine(end, checks, clock() - started)
+    return replace(report, notes=st.notes + report.notes) if st.notes else report
+
+
+def run_any(target: Target | StackTarget, options: CheckOptions | None = None,
+            **kwargs: Any) -> Report:
+    """Check a flat target or a stack."""
+    if isinstance(target, StackTarget):
+        return run_stack(target, options, **kwargs)
+    return run_check(target, options, **kwargs)
