@@ -1,0 +1,78 @@
+"""Overlapping windows: a convolution's input gradient assigned per window.
+
+With the windows of a 1-D convolution (size ``k``, stride ``s``, no padding) written back one
+at a time by ``dx[j*s : j*s + k] = r[j] * w`` instead of ``+=``, each element keeps the
+contribution of the last window that covers it. So the analytic gradient is wrong exactly where
+windows overlap, and it is made of one window's contribution per element: from it alone the
+upstream values ``r`` and the kernel ``w`` can be read back (up to a common scale), and their
+full sum must give the numeric gradient. Both are required, so a random error never fits.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Iterator
+
+import numpy as np
+
+from .evidence import EXPLAINED, Evidence, norm
+from .reuse import fits
+
+MAX_WINDOW = 32  # largest window tried
+
+
+def _geometries(length: int) -> Iterator[tuple[int, int, np.ndarray]]:
+    """(size, stride, windows covering each element) for overlapping windows with no padding."""
+    for size in range(2, min(length - 1, MAX_WINDOW) + 1):
+        for stride in range(1, size):
+            windows = (length - size) // stride + 1
+            if windows < 2:
+                continue
+            counts = np.zeros(length, dtype=np.int64)
+            for j in range(windows):
+                counts[j * stride: j * stride + size] += 1
+            yield size, stride, counts
+
+
+def _summed(rows: np.ndarray, size: int, stride: int, last_wins: bool) -> np.ndarray | None:
+    """The full sum over windows rebuilt from per-window values (one row per slice), or None."""
+    length = rows.shape[1]
+    windows = (length - size) // stride + 1
+    starts = np.arange(windows) * stride
+    if last_wins:  # window j is the last to write its first element; the last window is whole
+        upstream = rows[:, starts]
+        ref = rows[:, starts[-1]]
+        kernel = rows[:, starts[-1]: starts[-1] + size]
+    else:  # window j is the first to write its last element; the first window is whole
+        upstream = rows[:, starts + size - 1]
+        ref = rows[:, size - 1]
+        kernel = rows[:, :size]
+    if np.any(ref == 0):
+        return None
+    kernel = kernel / ref[:, None]
+    out = np.zeros_like(rows)
+    for j, start in enumerate(starts):
+        out[:, start: start + size] += upstream[:, j: j + 1] * kernel
+    return out
+
+
+def window_hint(e: Evidence) -> str | None:
+    """Wrong exactly where windows along the last axis overlap, each element holding one
+    window's contribution whose sum over windows is the numeric gradient."""
+    if not e.complete or not e.shape or e.shape[-1] < 4:
+        return None
+    axis = len(e.shape) - 1
+    item_failed = e.failed_mask().reshape(-1, e.shape[-1]).any(axis=0)
+    analytic = e.full(e.analytic).reshape(-1, e.shape[-1])
+    numeric = e.full(e.numeric).reshape(-1, e.shape[-1])
+    gap = norm(analytic - numeric)
+    for size, stride, counts in _geometries(e.shape[-1]):
+        if not np.array_equal(counts >= 2, item_failed) or not fits(e, axis, counts):
+            continue
+        for last_wins in (True, False):
+            rebuilt = _summed(analytic, size, stride, last_wins)
+            if rebuilt is not None and norm(rebuilt - numeric) <= EXPLAINED * gap:
+                where = "" if len(e.shape) == 1 else " along the last axis"
+                return (f"wrong exactly where sliding windows{where} overlap, each element "
+                        "holding one window's share: the input gradient is assigned per window "
+                        "instead of accumulated (+= over the windows)")
+    return None
