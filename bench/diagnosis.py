@@ -37,7 +37,7 @@ def main(verbose: bool = False) -> None:
                 if t.status != "pass":
                     print(f"    {t.name:12s} {t.status:12s} {t.hint or '(no hint)'}")
     wall, cpu = time.perf_counter() - started, time.process_time() - cpu
-    print(f"{"bug class":26s} {'right hint':>10s} {'rightly none':>12s} {'no hint':>8s} {'wrong hint':>10s}")
+    print(f"{'bug class':26s} {'right hint':>10s} {'rightly none':>12s} {'no hint':>8s} {'wrong hint':>10s}")
     for kind in sorted(tally.per_kind):
         right, silent, none, wrong = tally.per_kind[kind]
         print(f"{kind:26s} {right:10d} {silent:12d} {none:8d} {wrong:10d}")

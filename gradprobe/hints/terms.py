@@ -83,6 +83,8 @@ def _same_term(e: Evidence, term: Term) -> bool:
     if not e.complete or not e.fails or q.shape[1] >= width:
         return False
     a, n = e.full(e.analytic), e.full(e.numeric)
+    if not np.any(a):  # zero lies in every span: that is the zero rule's case
+        return False
     if a.ndim == 1 and a.size == width:
         return _inside_only(a[:, None], n[:, None], q)
     if a.ndim == 2:
