@@ -21,6 +21,7 @@ from .evidence import Context, Evidence, norm
 RANK_TOL = 1e-8  # singular values below this share of the largest do not count
 INSIDE = 1e-6  # the analytic gradient leaves at most this share outside the item's span
 OUTSIDE = 0.05  # the numeric gradient leaves at least this share outside it
+MAX_RANK = 64  # items of more rows than this (large batches per step) are not tried
 
 
 def _basis(rows: np.ndarray) -> np.ndarray:
@@ -63,16 +64,35 @@ class Term:
     upstream: np.ndarray
 
 
+def _column_space(m: np.ndarray, limit: int) -> np.ndarray | None:
+    """A basis of ``m``'s column space when its rank is at most ``limit``, else None; from a
+    random sketch ``m @ g``, so a large full-rank gradient costs no decomposition of its own."""
+    g = np.random.default_rng(0).normal(size=(m.shape[1], limit + 2))
+    basis = _basis((m @ g).T)
+    if basis.shape[1] > limit or _outside(m, basis) > INSIDE:
+        return None
+    return basis
+
+
 def _term(e: Evidence, ctx: Context) -> Term | None:
     if len(e.shape) != 2 or not e.complete or not e.fails:
         return None
     a, n = e.full(e.analytic), e.full(e.numeric)
     for m_a, m_n in ((a, n), (a.T, n.T)):
-        for name, x in ctx.inputs.items():
-            for axis, items in _items(x, m_a.shape[0]):
-                hits = [t for t, rows in enumerate(items) if _inside_only(m_a, m_n, _basis(rows))]
-                if len(items) >= 2 and len(hits) == 1 and hits[0] in (0, len(items) - 1):
-                    return Term(name, axis, hits[0], len(items), _basis(m_a))
+        found = [(name, axis, items) for name, x in ctx.inputs.items()
+                 for axis, items in _items(x, m_a.shape[0]) if len(items) >= 2]
+        if not found:
+            continue
+        limit = min(max(items[0].shape[0] for _, _, items in found), MAX_RANK, min(m_a.shape) - 1)
+        span = _column_space(m_a, limit) if limit > 0 else None
+        if span is None or span.shape[1] == 0:
+            continue  # a full sum of items, or zero: no single item's term
+        for name, axis, items in found:
+            if items[0].shape[0] < span.shape[1]:
+                continue  # one item's rows cannot hold the analytic gradient
+            hits = [t for t, rows in enumerate(items) if _inside_only(m_a, m_n, _basis(rows))]
+            if len(hits) == 1 and hits[0] in (0, len(items) - 1):
+                return Term(name, axis, hits[0], len(items), _basis(span.T @ m_a))
     return None
 
 

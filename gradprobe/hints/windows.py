@@ -10,27 +10,38 @@ full sum must give the numeric gradient. Both are required, so a random error ne
 
 from __future__ import annotations
 
+
 from collections.abc import Iterator
 
 import numpy as np
 
 from .evidence import EXPLAINED, Evidence, norm
-from .reuse import fits
 
 MAX_WINDOW = 32  # largest window tried
 
 
-def _geometries(length: int) -> Iterator[tuple[int, int, np.ndarray]]:
-    """(size, stride, windows covering each element) for overlapping windows with no padding."""
-    for size in range(2, min(length - 1, MAX_WINDOW) + 1):
-        for stride in range(1, size):
-            windows = (length - size) // stride + 1
-            if windows < 2:
-                continue
-            counts = np.zeros(length, dtype=np.int64)
-            for j in range(windows):
-                counts[j * stride: j * stride + size] += 1
-            yield size, stride, counts
+def _geometries(item_failed: np.ndarray) -> Iterator[tuple[int, int]]:
+    """(size, stride) of windows with no padding whose overlaps are exactly the failing
+    elements. Windows start at 0, stride, 2*stride...: the first failing element is the second
+    window's start, and the first window ends within the first failing run (where runs merge,
+    several sizes give the same overlaps)."""
+    failing = np.flatnonzero(item_failed)
+    length = item_failed.size
+    if failing.size == 0 or failing[0] < 1:
+        return
+    stride = int(failing[0])
+    run_end = stride
+    while run_end + 1 < length and item_failed[run_end + 1]:
+        run_end += 1
+    for size in range(stride + 1, min(run_end + 1, length - 1, MAX_WINDOW) + 1):
+        windows = (length - size) // stride + 1
+        diff = np.zeros(length + 1, dtype=np.int64)
+        starts = np.arange(windows) * stride
+        np.add.at(diff, starts, 1)
+        np.add.at(diff, starts + size, -1)
+        counts = np.cumsum(diff)[:length]
+        if np.array_equal(counts >= 2, item_failed):
+            yield size, stride
 
 
 def _summed(rows: np.ndarray, size: int, stride: int, last_wins: bool) -> np.ndarray | None:
@@ -49,9 +60,12 @@ def _summed(rows: np.ndarray, size: int, stride: int, last_wins: bool) -> np.nda
     if np.any(ref == 0):
         return None
     kernel = kernel / ref[:, None]
+    spread = np.zeros((rows.shape[0], starts[-1] + 1))
+    spread[:, starts] = upstream
     out = np.zeros_like(rows)
-    for j, start in enumerate(starts):
-        out[:, start: start + size] += upstream[:, j: j + 1] * kernel
+    for row in range(rows.shape[0]):  # each window's values placed at its start, convolved
+        full = np.convolve(spread[row], kernel[row])
+        out[row, : full.size] = full
     return out
 
 
@@ -65,9 +79,7 @@ def window_hint(e: Evidence) -> str | None:
     analytic = e.full(e.analytic).reshape(-1, e.shape[-1])
     numeric = e.full(e.numeric).reshape(-1, e.shape[-1])
     gap = norm(analytic - numeric)
-    for size, stride, counts in _geometries(e.shape[-1]):
-        if not np.array_equal(counts >= 2, item_failed) or not fits(e, axis, counts):
-            continue
+    for size, stride in _geometries(item_failed):
         for last_wins in (True, False):
             rebuilt = _summed(analytic, size, stride, last_wins)
             if rebuilt is not None and norm(rebuilt - numeric) <= EXPLAINED * gap:
