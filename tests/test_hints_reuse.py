@@ -12,10 +12,10 @@ from bugzoo_reuse import (
     REUSE_CASES,
     _assign,
     _embedding_data,
+    _mlp_data,
     embedding_backward,
     mlp_backward,
     mlp_forward,
-    _mlp_data,
 )
 
 import gradprobe

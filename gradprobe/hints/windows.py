@@ -5,11 +5,11 @@ at a time by ``dx[j*s : j*s + k] = r[j] * w`` instead of ``+=``, each element ke
 contribution of the last window that covers it. So the analytic gradient is wrong exactly where
 windows overlap, and it is made of one window's contribution per element: from it alone the
 upstream values ``r`` and the kernel ``w`` can be read back (up to a common scale), and their
-full sum must give the numeric gradient. Both are required, so a random error never fits.
+full sum must give the numeric gradient. Both are required, so a random error does not fit
+(none of 3000 seeded random error patterns did).
 """
 
 from __future__ import annotations
-
 
 from collections.abc import Iterator
 
@@ -74,8 +74,7 @@ def window_hint(e: Evidence) -> str | None:
     window's contribution whose sum over windows is the numeric gradient."""
     if not e.complete or not e.shape or e.shape[-1] < 4:
         return None
-    axis = len(e.shape) - 1
-    item_failed = e.failed_mask().reshape(-1, e.shape[-1]).any(axis=0)
+    item_failed = np.asarray(e.failed_mask().reshape(-1, e.shape[-1]).any(axis=0))
     analytic = e.full(e.analytic).reshape(-1, e.shape[-1])
     numeric = e.full(e.numeric).reshape(-1, e.shape[-1])
     gap = norm(analytic - numeric)
