@@ -176,3 +176,27 @@ def test_boundary_needs_every_param_measured_and_two_failures():
     assert "passes back" not in str(diagnose(bad, ctx))  # l2.W unmeasured: nothing known of it
     single = Context(param_names=("l1.W", "l2.W"))
     assert "passes back" not in str(diagnose([bad[0], ok], single))
+
+
+@pytest.mark.parametrize("make", ALL, ids=lambda make: make.__name__)
+def test_hints_are_one_sentence_without_a_questioning_suggestion(make):
+    """Every hint: one sentence, no question mark, no trailing or inner full stop."""
+    for t in _probe(make()).tensors:
+        if t.hint and t.checked:
+            assert "?" not in t.hint and not t.hint.endswith(".") and ". " not in t.hint
+
+
+@pytest.mark.parametrize("shape", [(8,), (12,), (20,), (3, 12), (10, 4)])
+def test_short_random_errors_fit_no_pattern(shape):
+    """Random errors on short tensors, where a window or term pattern is easiest to match by
+    chance, with float and integer inputs in the context: 400 seeds, no hint."""
+    size = int(np.prod(shape))
+    ctx = Context(inputs={"x": np.random.default_rng(1).normal(size=(6, shape[-1]))},
+                  index_inputs={"idx": np.array([0, 1, 1, 2])})
+    for seed in range(400):
+        rng = np.random.default_rng(seed)
+        numeric = rng.normal(size=size)
+        analytic = numeric.copy()
+        where = rng.choice(size, size=rng.integers(1, size), replace=False)
+        analytic[where] += rng.normal(scale=rng.uniform(0.01, 2.0), size=where.size)
+        assert hint_for(_evidence(analytic.reshape(shape), numeric.reshape(shape)), ctx) is None, seed

@@ -12,6 +12,7 @@ import numpy as np
 from .evidence import Context, Evidence, explains
 
 MOSTLY = 0.9  # share of the coordinates a pattern says are wrong that must fail
+MIN_WRONG = 3  # fewer wrong coordinates land on the reused items by chance too often
 NONZERO = 1e-3  # a gradient counts as present above this share of the tensor's largest
 
 
@@ -36,9 +37,12 @@ def _averaged(e: Evidence, axis: int, counts: np.ndarray) -> bool:
 
 
 def fits(e: Evidence, axis: int, counts: np.ndarray) -> bool:
-    """Wrong only where ``counts`` >= 2 (mostly all of it there), right where it is 1, and
-    some item used once carries a gradient, so that the pattern tells something."""
+    """Wrong only where ``counts`` >= 2 (mostly all of it there, 3 coordinates at least),
+    right where it is 1, and some item used once carries a gradient, so that the pattern
+    tells something; not when ``numeric / counts`` explains the values (a mean)."""
     per = _per(e.failed_mask(), axis)
+    if per.sum() < MIN_WRONG:
+        return False
     item_failed = per.any(axis=1)
     reused = counts >= 2
     if not item_failed.any() or (item_failed & ~reused).any():
