@@ -81,6 +81,21 @@ def divided_by_width():
                 "batch size decoy")
 
 
+def summed_but_divided_by_width():
+    """1/B decoy: forward sums, backward divides by the width (4), not by the batch (16)."""
+    params, inputs = _data()
+
+    def forward(p, i):
+        return float(0.5 * np.sum(_residual(p, i) ** 2))
+
+    def backward(p, i):
+        return {"dense": {"W": i["x"].T @ _residual(p, i) / K}}
+
+    return Case("forward sums, backward divides by the width (decoy)", forward, backward, params,
+                inputs, {"dense.W": "analytic is 0.25 x numeric everywhere: a constant factor is wrong"},
+                "batch size decoy")
+
+
 def rows_reversed():
     """Transpose decoy: the square weight gradient with its rows in reverse order."""
     params, inputs = _data()
@@ -133,5 +148,6 @@ def one_way_exchange():
 
 DECOY_CASES = [
     abs_loss_slope_one, symmetric_off_diagonal_doubled, half_the_batch, divided_by_width,
+    summed_but_divided_by_width,
     rows_reversed, relu_mask_shifted, one_way_exchange,
 ]

@@ -200,3 +200,12 @@ def test_short_random_errors_fit_no_pattern(shape):
         where = rng.choice(size, size=rng.integers(1, size), replace=False)
         analytic[where] += rng.normal(scale=rng.uniform(0.01, 2.0), size=where.size)
         assert hint_for(_evidence(analytic.reshape(shape), numeric.reshape(shape)), ctx) is None, seed
+
+
+def test_boundary_ignores_integer_params():
+    """An integer param (never perturbed, no gradient) does not hide the boundary."""
+    params, inputs = _mlp_data()
+    params["l1"]["steps"] = np.array([3])
+    report = gradprobe.probe(mlp_forward, lambda p, i: mlp_backward(p, i, input_grad=lambda d, W: d @ W),
+                             params, inputs)
+    assert "the gradient l2 passes back" in report.tensor("l1.b").hint

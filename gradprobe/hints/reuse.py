@@ -90,7 +90,8 @@ def repeat_hint(e: Evidence, ctx: Context) -> str | None:
                 continue
             counts = np.bincount(idx.reshape(-1), minlength=length)
             if fits(e, axis, counts):
-                where = "rows" if axis == 0 else f"indices along axis {axis}"
+                where = ("entries" if len(e.shape) == 1 else "rows" if axis == 0
+                         else f"indices along axis {axis}")
                 return (f"wrong exactly at the {where} that {name} uses more than once and right "
                         "where it uses them once: gradients are assigned instead of accumulated "
                         "there (use np.add.at, or += in a loop)")
