@@ -204,6 +204,29 @@ def rnn_no_path_back_last_loss():
                 {"cell.Wx": both, "cell.Wh": both, "cell.b": both, "x": both}, "time steps decoy")
 
 
+def dense_assigned_per_sample():
+    """A per-sample loop that assigns dW; dx is returned and right, so the path back is intact."""
+    rng = np.random.default_rng(31)
+    params = {"dense": {"W": rng.normal(scale=0.5, size=(4, 3))}}
+    inputs = {"x": rng.normal(size=(8, 4)), "y": rng.normal(size=(8, 3))}
+
+    def forward(p, i):
+        return float(0.5 * np.sum((np.tanh(i["x"] @ p["dense"]["W"]) - i["y"]) ** 2))
+
+    def backward(p, i):
+        h = np.tanh(i["x"] @ p["dense"]["W"])
+        dz = (h - i["y"]) * (1 - h**2)
+        dW = np.zeros_like(p["dense"]["W"])
+        for n in range(len(dz)):
+            dW = np.outer(i["x"][n], dz[n])  # one sample's term replaces the others
+        return {"dense": {"W": dW}, "x": dz @ p["dense"]["W"].T}
+
+    return Case("dense weight assigned per sample in a loop", forward, backward, params, inputs,
+                {"dense.W": "analytic holds only the term of item 7 (of 8) of x, not the sum over "
+                            "all items: it is assigned instead of accumulated (+=) in a loop over "
+                            "those items"}, "time steps")
+
+
 def dense_mean_product():
     """Decoy: dW taken as outer(mean input, summed residual): one outer product, but of no
     single sample's input, so it is not one sample's term of the sum."""
@@ -305,6 +328,7 @@ def mlp_boundary_and_last_bias():
 REUSE_CASES = [
     embedding_mixed_signs_assigned, embedding_rows_averaged, embedding_wrong_upstream,
     conv_assigned_per_window, conv_averaged_over_windows, conv_flipped_kernel,
-    rnn_assigned_per_step, rnn_no_path_back, rnn_no_path_back_last_loss, dense_mean_product,
+    rnn_assigned_per_step, rnn_no_path_back, rnn_no_path_back_last_loss, dense_assigned_per_sample,
+    dense_mean_product,
     mlp_wrong_input_gradient, mlp_wrong_activation, mlp_own_bugs_in_l1, mlp_boundary_and_last_bias,
 ]

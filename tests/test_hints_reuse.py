@@ -209,3 +209,28 @@ def test_boundary_ignores_integer_params():
     report = gradprobe.probe(mlp_forward, lambda p, i: mlp_backward(p, i, input_grad=lambda d, W: d @ W),
                              params, inputs)
     assert "the gradient l2 passes back" in report.tensor("l1.b").hint
+
+
+@pytest.mark.parametrize("batch_first", [False, True])
+def test_one_step_of_a_batched_sequence(batch_first):
+    """Steps of 2 sequences at once: each step's term has rank 2; batch-first puts the steps
+    along axis 1. The bias, in the same step's upstream span, gets the same hint."""
+    rng = np.random.default_rng(12)
+    x = rng.normal(size=(5, 2, 6))  # steps, sequences, features
+    deltas = rng.normal(size=(5, 2, 7))
+    numeric = np.einsum("tbd,tbh->dh", x, deltas)
+    analytic = x[0].T @ deltas[0]
+    ctx = Context(inputs={"x": x.transpose(1, 0, 2) if batch_first else x})
+    evidence = [_evidence(analytic, numeric, "Wx"),
+                _evidence(deltas[0].sum(axis=0), deltas.sum(axis=(0, 1)), "b")]
+    hints = diagnose(evidence, ctx)
+    where = "item 0 (of 5) along axis 1 of x" if batch_first else "item 0 (of 5) of x"
+    assert hints["Wx"] == hints["b"] and f"the term of {where}, not the sum" in hints["Wx"]
+
+
+def test_a_middle_step_fits_no_loop():
+    """A term from the middle of the sequence is neither an assignment nor a missing path."""
+    rng = np.random.default_rng(14)
+    x, deltas = rng.normal(size=(5, 4)), rng.normal(size=(5, 3))
+    evidence = _evidence(np.outer(x[2], deltas[2]), x.T @ deltas, "Wx")
+    assert diagnose([evidence], Context(inputs={"x": x})) == {}
