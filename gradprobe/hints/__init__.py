@@ -9,6 +9,8 @@ hint names both. A random error fits no model, so it gets no hint.
 
 from __future__ import annotations
 
+from collections.abc import Callable, Iterator
+
 import numpy as np
 
 from .evidence import EXPLAINED, Context, Evidence
@@ -21,7 +23,7 @@ from .windows import window_hint
 __all__ = ["EXPLAINED", "Context", "Evidence", "diagnose", "hint_for", "swapped_pairs"]
 
 
-def _rules(e: Evidence, ctx: Context):
+def _rules(e: Evidence, ctx: Context) -> Iterator[tuple[str, Callable[[], str | None]]]:
     """(kind, rule) pairs, most specific first; ``own`` kinds are causes inside the tensor's
     own backward that an error passed down from a later layer cannot produce."""
     yield "scale", lambda: zero_hint(e) if not np.any(e.analytic) else None
