@@ -8,8 +8,9 @@ demand, store sensors); the bugs are the classic slips of hand-written backward 
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass, field
-from typing import Any, Callable
+from typing import Any
 
 import numpy as np
 
@@ -24,6 +25,7 @@ class Case:
     params: dict
     inputs: dict
     expect: dict[str, str | None] = field(default_factory=dict)
+    kind: str = "correct"  # the bug class, for the tally per class
 
 
 def _dense_data(square: bool = True):
@@ -39,7 +41,7 @@ def _pred(p, i):
     return i["x"] @ p["dense"]["W"] + p["dense"]["b"]
 
 
-def _dense_case(name, residual_scale, forward_scale, expect, transform=None):
+def _dense_case(name, residual_scale, forward_scale, expect, transform=None, kind="factor"):
     """Squared error ``forward_scale * sum((p - y)**2)``; backward uses ``residual_scale * (p - y)``."""
     params, inputs = _dense_data()
 
@@ -51,7 +53,7 @@ def _dense_case(name, residual_scale, forward_scale, expect, transform=None):
         g = {"dense": {"W": i["x"].T @ r, "b": r.sum(axis=0)}}
         return transform(g, p, i, r) if transform else g
 
-    return Case(name, forward, backward, params, inputs, expect)
+    return Case(name, forward, backward, params, inputs, expect, kind if expect else "correct")
 
 
 def correct_mean_squared():
@@ -63,7 +65,7 @@ def sign_flipped():
         g["dense"]["W"] = -g["dense"]["W"]
         return g
 
-    return _dense_case("sign of dW flipped", 1.0 / N, 0.5 / N, {"dense.W": "sign is flipped"}, flip)
+    return _dense_case("sign of dW flipped", 1.0 / N, 0.5 / N, {"dense.W": "sign is flipped"}, flip, "sign")
 
 
 def half_not_carried():
@@ -73,17 +75,18 @@ def half_not_carried():
 
 def factor_two_missing():
     return _dense_case("derivative of r**2 taken as r", 1.0 / N, 1.0 / N,
-                       {"dense.W": "factor 2 missing", "dense.b": "factor 2 missing"})
+                       {"dense.W": "factor 2 is missing", "dense.b": "factor 2 is missing"})
 
 
 def batch_mean_not_divided():
     return _dense_case("mean over the batch not divided out", 1.0, 0.5 / N,
-                       {"dense.W": "the batch size", "dense.b": "the batch size"})
+                       {"dense.W": "the batch size", "dense.b": "the batch size"}, kind="batch size")
 
 
 def batch_divided_but_summed():
     return _dense_case("backward divides by the batch, forward sums", 1.0 / N, 0.5,
-                       {"dense.W": "one over the batch size", "dense.b": "one over the batch size"})
+                       {"dense.W": "one over the batch size", "dense.b": "one over the batch size"},
+                       kind="batch size")
 
 
 def transposed_weight():
@@ -91,7 +94,7 @@ def transposed_weight():
         g["dense"]["W"] = r.T @ i["x"]
         return g
 
-    return _dense_case("dW computed as r.T @ x", 1.0 / N, 0.5 / N, {"dense.W": "transposed"}, transpose)
+    return _dense_case("dW computed as r.T @ x", 1.0 / N, 0.5 / N, {"dense.W": "transposed"}, transpose, "transpose")
 
 
 def bias_gradient_zero():
@@ -99,7 +102,7 @@ def bias_gradient_zero():
         g["dense"]["b"] = np.zeros_like(p["dense"]["b"])
         return g
 
-    return _dense_case("bias gradient left at zero", 1.0 / N, 0.5 / N, {"dense.b": "zero everywhere"}, zero)
+    return _dense_case("bias gradient left at zero", 1.0 / N, 0.5 / N, {"dense.b": "zero everywhere"}, zero, "zero")
 
 
 def input_gradient_first_row_only():
@@ -110,7 +113,7 @@ def input_gradient_first_row_only():
         return g
 
     return _dense_case("dx computed for the first sample only", 1.0 / N, 0.5 / N,
-                       {"x": "right only in row 0 and zero elsewhere"}, first_row)
+                       {"x": "right only in row 0 and zero elsewhere"}, first_row, "one slice")
 
 
 def random_elements_wrong():
@@ -122,7 +125,7 @@ def random_elements_wrong():
         g["dense"]["W"] = W
         return g
 
-    return _dense_case("three elements of dW off at random", 1.0 / N, 0.5 / N, {"dense.W": None}, noise)
+    return _dense_case("three elements of dW off at random", 1.0 / N, 0.5 / N, {"dense.W": None}, noise, "no model")
 
 
 def _two_layer_data():
@@ -157,7 +160,7 @@ def swapped_gradients():
         return {"enc": {"A": dC}, "dec": {"C": dA}}
 
     return Case("gradients of two layers swapped", _two_layer_forward, backward, params, inputs,
-                {"enc.A": "swapped", "dec.C": "swapped"})
+                {"enc.A": "swapped", "dec.C": "swapped"}, "swapped")
 
 
 def wrong_activation_derivative():
@@ -167,7 +170,8 @@ def wrong_activation_derivative():
         dA, dC = _two_layer_grads(p, i, derivative=lambda h: 1 - h)
         return {"enc": {"A": dA}, "dec": {"C": dC}}
 
-    return Case("tanh' written as 1 - t", _two_layer_forward, backward, params, inputs, {"enc.A": None})
+    return Case("tanh' written as 1 - t", _two_layer_forward, backward, params, inputs, {"enc.A": None},
+                "no model")
 
 
 def correct_two_layer():
@@ -201,7 +205,7 @@ def embedding_assigned():
         return {"table": g}
 
     return Case("embedding gradient assigned, not accumulated", _embedding_forward, backward,
-                params, inputs, {"table": "assigned instead of accumulated"})
+                params, inputs, {"table": "assigned instead of accumulated"}, "repeated index")
 
 
 def embedding_accumulated():
@@ -239,7 +243,7 @@ def _mixer(gain_sign):
 def mixer_gain_sign():
     params, inputs, backward = _mixer(-1.0)
     return Case("vector output, gain gradient negated", _mixer_forward, backward, params, inputs,
-                {"gain": "sign is flipped"})
+                {"gain": "sign is flipped"}, "sign")
 
 
 def mixer_correct():
@@ -361,15 +365,26 @@ CASES = [
 
 @dataclass
 class Tally:
-    """How the hints of a set of cases came out."""
+    """How the hints of a set of cases came out, in all and per bug class.
 
-    right_hint: int = 0  # failing tensors whose hint contains the expected phrase
-    wrong_hint: int = 0  # failing tensors with a hint where none or another was expected
-    no_hint: int = 0  # failing tensors with no hint (expected or not)
+    A failing tensor counts as a right hint when its hint contains the expected phrase; as
+    rightly silent when it has none and none was expected (a random error or a decoy fits no
+    single cause); as no hint when a hint was expected but none came; as a wrong hint when it
+    has a hint where none, or another, was expected.
+    """
+
+    right_hint: int = 0
+    silent: int = 0  # failing tensors with no hint, none expected
+    no_hint: int = 0  # failing tensors with no hint where one was expected
+    wrong_hint: int = 0
     missed: int = 0  # tensors expected to fail that passed
     false_failures: int = 0  # tensors expected to pass that failed
     correct_tensors: int = 0
+    per_kind: dict[str, list[int]] = field(default_factory=dict)  # [right, silent, none, wrong]
     lines: list[str] = field(default_factory=list)
+
+    def _count(self, kind: str, slot: int) -> None:
+        self.per_kind.setdefault(kind, [0, 0, 0, 0])[slot] += 1
 
     def add(self, case: Case, report) -> None:
         for t in report.tensors:
@@ -383,17 +398,21 @@ class Tally:
             if t.status != "fail":
                 self.missed += 1
                 self.lines.append(f"{case.name}: {t.name} expected to fail, got {t.status}")
+            elif want is None and not t.hint:
+                self.silent += 1
+                self._count(case.kind, 1)
             elif want is None:
-                if t.hint:
-                    self.wrong_hint += 1
-                    self.lines.append(f"{case.name}: {t.name} got hint {t.hint!r}, expected none")
-                else:
-                    self.no_hint += 1
+                self.wrong_hint += 1
+                self._count(case.kind, 3)
+                self.lines.append(f"{case.name}: {t.name} got hint {t.hint!r}, expected none")
             elif t.hint and want in t.hint:
                 self.right_hint += 1
+                self._count(case.kind, 0)
             elif t.hint:
                 self.wrong_hint += 1
+                self._count(case.kind, 3)
                 self.lines.append(f"{case.name}: {t.name} hint {t.hint!r} lacks {want!r}")
             else:
                 self.no_hint += 1
+                self._count(case.kind, 2)
                 self.lines.append(f"{case.name}: {t.name} has no hint, expected {want!r}")

@@ -72,11 +72,13 @@ def _compute_type(out_dtype: np.dtype, ws: Workspace) -> tuple[np.dtype, str]:
 
 
 def hint_context(ws: Workspace) -> HintContext:
-    """Batch sizes (inputs' leading dimensions) and integer index inputs, for hints."""
+    """Batch sizes (inputs' leading dimensions), integer and float inputs, float params in order."""
     batches = tuple(ws.owners[n].shape[0] for n in ws.input_names if ws.owners[n].ndim >= 1)
     indices = {n: ws.owners[n] for n in ws.input_names
                if np.issubdtype(ws.owners[n].dtype, np.integer)}
-    return HintContext(batch_sizes=batches, index_inputs=indices)
+    floats = {n: ws.owners[n] for n in ws.input_names if is_float(ws.owners[n])}
+    return HintContext(batch_sizes=batches, index_inputs=indices, inputs=floats,
+                       param_names=tuple(n for n in ws.param_names if is_float(ws.owners[n])))
 
 
 def _group(results: list[TensorResult]) -> tuple[LayerResult, ...]:
