@@ -1,0 +1,97 @@
+"""The one-line texts about a report: header, verdict and the failure line, fitted to a width.
+
+Lines are built from parts joined by `` · ``; when a width is given, a line breaks only
+between parts (or drops its optional tail), so numbers and names are never split.
+"""
+
+from __future__ import annotations
+
+from ..report import Report, TensorResult
+from ..tensors import format_index
+from ..wording import plural, verb
+
+SEP = " · "
+
+
+def header_parts(report: Report) -> list[str]:
+    return ["gradprobe", report.target, report.method,
+            f"threshold {report.threshold:g} ({report.compute_dtype})", f"seed {report.seed}"]
+
+
+def wrap_parts(parts: list[str], width: int | None, indent: str = "  ") -> str:
+    """``parts`` joined by `` · ``, broken between parts so no line passes ``width``."""
+    if width is None:
+        return SEP.join(parts)
+    lines = [parts[0]]
+    for part in parts[1:]:
+        if len(lines[-1]) + len(SEP) + len(part) <= width:
+            lines[-1] += SEP + part
+        else:
+            lines.append(indent + SEP.lstrip() + part)
+    return "\n".join(lines)
+
+
+def header(report: Report, width: int | None = None) -> str:
+    return wrap_parts(header_parts(report), width)
+
+
+def _names(tensors: tuple[TensorResult, ...], room: int | None) -> str:
+    """Tensor names, comma-separated; as many whole names as fit in ``room``, then ``+N more``."""
+    names = [t.name for t in tensors]
+    shown = names[:5]
+    if room is not None:
+        while len(shown) > 1 and len(", ".join(shown)) + len(f" +{len(names)} more") > room:
+            shown.pop()
+    text = ", ".join(shown)
+    return text + (f" +{len(names) - len(shown)} more" if len(shown) < len(names) else "")
+
+
+def verdict(report: Report, width: int | None = None) -> str:
+    """One line: the outcome, what is wrong and, when it fits ``width``, what it cost."""
+    n = len(report.tensors)
+    cost = f"{plural(report.evaluations, 'evaluation')} in {report.seconds:.2f} s"
+    if not report.ok:
+        bad = report.failing_tensors
+        head = (f"FAIL  {len(bad)} of {plural(n, 'tensor')} {verb(len(bad), 'disagrees', 'disagree')} "
+                f"beyond {report.threshold:g}: ")
+        full = head + _names(bad, None) + SEP + cost
+        if width is None or len(full) <= width:
+            return full
+        return head + _names(bad, width - len(head))
+    extras = []
+    kinked, unsure = report.count("kink"), report.count("inconclusive")
+    if kinked:
+        extras.append(f"{kinked} at a kink")
+    if unsure:
+        extras.append(f"{unsure} inconclusive (numeric noise above the threshold)")
+    more = f" ({', '.join(extras)})" if extras else ""
+    line = f"ok  {plural(n, 'tensor')} {verb(n, 'agrees', 'agree')} within {report.threshold:g}{more}"
+    if width is None or len(line + SEP + cost) <= width:
+        return line + SEP + cost
+    if unsure and len(line) > width:  # the shorter wording of the same facts
+        line = line.replace(" (numeric noise above the threshold)", "")
+    return line
+
+
+def _worst(t: TensorResult) -> str:
+    if t.max_rel_error is None and t.directions:
+        return f"worst directional relative error {max(d.rel_error for d in t.directions):.1e}"
+    if t.max_rel_error is None:
+        return t.hint or "its gradient could not be compared"
+    at = f" at {format_index(t.worst_index)}" if t.worst_index is not None else ""
+    return f"worst relative error {t.max_rel_error:.1e}{at}"
+
+
+def failure_line(report: Report) -> str:
+    """The first line of a failure message: the failing tensors and the worst error."""
+    bad = report.failing_tensors
+    if not bad:
+        return f"gradient check of {report.target} passed"
+    rated = [t for t in bad if t.max_rel_error is not None]
+    worst = max(rated, key=lambda t: t.max_rel_error or 0.0) if rated else bad[0]
+    names = _names(bad, None)
+    where = f" in {worst.name}" if len(bad) > 1 else ""
+    if worst.max_rel_error is None and not worst.directions:
+        return f"{report.target}: {names} {verb(len(bad), 'fails', 'fail')}: {_worst(worst)}"
+    return (f"{report.target}: {names} {verb(len(bad), 'disagrees', 'disagree')} beyond "
+            f"{report.threshold:g}; {_worst(worst)}{where}")
