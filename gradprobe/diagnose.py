@@ -12,6 +12,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from .wording import plural
+
 EXPLAINED = 0.05  # a model must leave at most 5% of the discrepancy unexplained
 FACTOR_MATCH = 0.01  # a fitted factor within 1% of 2, 1/2, B, 1/B is named as that
 
@@ -157,7 +159,7 @@ def _zero_hint(e: Evidence) -> str | None:
     failing_a = e.analytic[e.failed]
     failing_n = e.numeric[e.failed]
     if failing_a.size and not np.any(failing_a) and np.all(failing_n != 0):
-        where = "everywhere" if e.failed.all() else f"at {failing_a.size} coordinates"
+        where = "everywhere" if e.failed.all() else f"at {plural(failing_a.size, 'coordinate')}"
         return f"analytic is zero {where} where the numeric gradient is not: a term is missing from backward"
     return None
 

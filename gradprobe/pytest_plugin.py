@@ -4,7 +4,8 @@
         grad_probe(forward, backward, params, inputs)
 
 The fixture checks like :func:`gradprobe.probe` and returns the report when the check passes;
-otherwise the test fails with the per-layer report as its message. The threshold and seed come,
+otherwise the test fails with a first line naming the failing tensors and the worst error, then
+the per-layer report. The target is named after the test; gradprobe's own frames are hidden. The threshold and seed come,
 from weakest to strongest, from gradprobe's defaults, the ini file (``gradprobe_threshold``,
 ``gradprobe_seed``), the command line (``--gradprobe-threshold``, ``--gradprobe-seed``), a
 ``@pytest.mark.gradprobe(threshold=..., seed=...)`` marker, and the call's own keywords.
@@ -12,12 +13,18 @@ from weakest to strongest, from gradprobe's defaults, the ini file (``gradprobe_
 
 from __future__ import annotations
 
+from pathlib import Path
+from types import TracebackType
 from typing import Any, Callable, Mapping
 
 import pytest
 
 from .api import probe
+from .errors import ProbeError
+from .render.lines import failure_line
 from .report import Report
+
+PACKAGE = str(Path(__file__).resolve().parent)
 
 SETTINGS = ("threshold", "seed")
 
@@ -65,8 +72,10 @@ def pytest_report_header(config: pytest.Config) -> str:
 class GradProbe:
     """The ``grad_probe`` fixture's value: call it like :func:`gradprobe.probe`."""
 
-    def __init__(self, defaults: Mapping[str, Any]) -> None:
+    def __init__(self, defaults: Mapping[str, Any], label: str = "<python>", width: int = 120) -> None:
         self.defaults = dict(defaults)
+        self.label = label  # the target's name in reports: the test's name
+        self.width = width
 
     def __call__(
         self,
@@ -77,10 +86,23 @@ class GradProbe:
         **options: Any,
     ) -> Report:
         __tracebackhide__ = True
-        report = probe(forward, backward, params, inputs, **{**self.defaults, **options})
+        options = {"label": self.label, **self.defaults, **options}
+        try:
+            report = probe(forward, backward, params, inputs, **options)
+        except ProbeError as exc:
+            if exc.__cause__ is not None:
+                exc.__cause__.__traceback__ = _outside(exc.__cause__.__traceback__)
+            raise exc.with_traceback(None) from exc.__cause__  # starts here: hidden
         if not report.ok:
-            pytest.fail("gradient check failed\n" + report.render(width=160), pytrace=False)
+            pytest.fail(failure_line(report) + "\n" + report.render(width=self.width), pytrace=False)
         return report
+
+
+def _outside(tb: TracebackType | None) -> TracebackType | None:
+    """``tb`` without its leading frames inside gradprobe (the user's frames stay)."""
+    while tb is not None and tb.tb_frame.f_code.co_filename.startswith(PACKAGE):
+        tb = tb.tb_next
+    return tb
 
 
 @pytest.fixture
@@ -90,4 +112,6 @@ def grad_probe(request: pytest.FixtureRequest) -> GradProbe:
     marker = request.node.get_closest_marker("gradprobe")
     if marker is not None:
         defaults.update(marker.kwargs)
-    return GradProbe(defaults)
+    writer = getattr(request.config, "get_terminal_writer", None)
+    width = writer().fullwidth if writer is not None else 120
+    return GradProbe(defaults, label=request.node.name, width=max(60, min(width, 160)))

@@ -10,7 +10,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 GAP = 3  # a column's padding and divider, as the tables are drawn
-HINT_MIN = 24  # narrower than this, a hint column reads badly: hints go below the table
+HINT_MIN = 20  # narrower than this, a hint column reads badly: hints go below the table
+HINT_LINES = 3  # nor should the longest hint take more lines than this
 
 
 @dataclass(frozen=True)
@@ -38,8 +39,9 @@ def fit(columns: tuple[Column, ...], cells: dict[str, list[str]], width: int,
         drop_order: tuple[str, ...], hint_after: int) -> Layout:
     """The fullest layout of ``columns`` within ``width``.
 
-    Tried in order: full titles, short titles, then dropping ``drop_order`` one at a time;
-    after ``hint_after`` drops the hint leaves the table (below it) before more columns go.
+    Tried in order: full titles, short titles, then dropping ``drop_order`` one at a time
+    while the hint stays in the table (up to ``hint_after`` drops); then the same with the
+    hints below the table, which leaves more room for the other columns.
     With no layout fitting, the fewest columns at their natural width (the table is then
     wider than ``width`` rather than split).
     """
@@ -47,17 +49,17 @@ def fit(columns: tuple[Column, ...], cells: dict[str, list[str]], width: int,
     plain = tuple(c for c in columns if c.key != "hint")
     hint = next((c for c in columns if c.key == "hint"), None)
     tries: list[tuple[tuple[str, ...], bool, bool]] = [((), False, has_hint)]
-    for k in range(len(drop_order) + 1):
-        inline = has_hint and k <= hint_after
-        tries.append((drop_order[:k], True, inline))
-        if has_hint and k == hint_after:
-            tries.append((drop_order[:k], True, False))
+    if has_hint:  # the hint in the table, giving up at most hint_after columns for it
+        tries += [(drop_order[:k], True, True) for k in range(hint_after + 1)]
+        tries.append(((), False, False))
+    tries += [(drop_order[:k], True, False) for k in range(len(drop_order) + 1)]
     layout = None
     for dropped, short, inline in tries:
         kept = tuple(c for c in plain if c.key not in dropped)
         need = sum(natural(c, cells[c.key], short) for c in kept) + GAP * (len(kept) - 1)
         if inline and hint is not None:
-            room = min(HINT_MIN, max(len(h) for h in cells["hint"]))
+            longest = max(len(h) for h in cells["hint"])
+            room = min(longest, max(HINT_MIN, -(-longest // HINT_LINES)))
             total = need + GAP + max(room, len(hint.short if short else hint.title))
             layout = Layout(kept + (hint,), short, True, total)
         else:

@@ -13,6 +13,7 @@ import numpy as np
 from rich.text import Text
 
 from ..report import Report, TensorResult
+from ..wording import plural
 
 UNCHECKED, WITHIN = " ", "."
 RAMP = ":-=+*#%@"  # 1x, 10x, 100x, ... 1e7x the threshold and beyond
@@ -26,9 +27,9 @@ def fold(shape: tuple[int, ...]) -> tuple[int, int, str]:
     if len(shape) == 0:
         return 1, 1, "a scalar"
     if len(shape) == 1:
-        return 1, shape[0], f"{shape[0]} elements in one row"
+        return 1, shape[0], f"{plural(shape[0], 'element')} in one row"
     if len(shape) == 2:
-        return shape[0], shape[1], f"{shape[0]} rows x {shape[1]} columns"
+        return shape[0], shape[1], f"{plural(shape[0], 'row')} x {plural(shape[1], 'column')}"
     rows = int(np.prod(shape[:-1]))
     last = len(shape) - 1
     return rows, shape[-1], (

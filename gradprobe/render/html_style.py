@@ -14,9 +14,10 @@ code, .name, .idx, .n { font-family: ui-monospace, "DejaVu Sans Mono", monospace
 .verdict { font-weight: 700; font-size: 16px; padding: 6px 10px; border-left: 6px solid; }
 .gp-ok.verdict { color: var(--ok); border-color: var(--ok); background: #eef7f1; }
 .gp-fail.verdict { color: var(--fail); border-color: var(--fail); background: #fbeef0; }
-dl.settings { display: grid; grid-template-columns: max-content 1fr; gap: 2px 12px; margin: 8px 0; }
+dl.settings { display: flex; flex-wrap: wrap; gap: 2px 6px; margin: 8px 0; }
 dl.settings dt { color: var(--mute); }
-dl.settings dd { margin: 0; overflow-wrap: anywhere; }
+dl.settings dd { margin: 0 14px 0 0; overflow-wrap: anywhere; font-weight: 600; }
+header dl.settings { display: grid; grid-template-columns: max-content 1fr; }
 table { border-collapse: collapse; margin: 4px 0 12px; }
 th, td { text-align: left; vertical-align: top; padding: 3px 10px 3px 0;
   border-bottom: 1px solid var(--rule); }

@@ -73,25 +73,28 @@ def verdict(report: Report, width: int | None = None) -> str:
     return line
 
 
-def _worst(t: TensorResult) -> str:
-    if t.max_rel_error is None and t.directions:
-        return f"worst directional relative error {max(d.rel_error for d in t.directions):.1e}"
-    if t.max_rel_error is None:
-        return t.hint or "its gradient could not be compared"
-    at = f" at {format_index(t.worst_index)}" if t.worst_index is not None else ""
-    return f"worst relative error {t.max_rel_error:.1e}{at}"
-
-
 def failure_line(report: Report) -> str:
-    """The first line of a failure message: the failing tensors and the worst error."""
+    """The first line of a failure message, short because pytest's summary cuts it at the
+    terminal's width: the failing tensors, then the worst relative error, where, and the
+    threshold it exceeds (``W disagrees: rel error 2.0e+00 at [0, 0] > 1e-06``)."""
     bad = report.failing_tensors
     if not bad:
-        return f"gradient check of {report.target} passed"
-    rated = [t for t in bad if t.max_rel_error is not None]
-    worst = max(rated, key=lambda t: t.max_rel_error or 0.0) if rated else bad[0]
+        return f"{report.target}: every tensor agrees within {report.threshold:g}"
     names = _names(bad, None)
+    rated = [t for t in bad if t.max_rel_error is not None or t.directions]
+    if not rated:
+        return f"{names} {verb(len(bad), 'fails', 'fail')}: {bad[0].hint or 'its gradient could not be compared'}"
+    worst = max(rated, key=_worst_error)
     where = f" in {worst.name}" if len(bad) > 1 else ""
-    if worst.max_rel_error is None and not worst.directions:
-        return f"{report.target}: {names} {verb(len(bad), 'fails', 'fail')}: {_worst(worst)}"
-    return (f"{report.target}: {names} {verb(len(bad), 'disagrees', 'disagree')} beyond "
-            f"{report.threshold:g}; {_worst(worst)}{where}")
+    if worst.max_rel_error is None:
+        where += " along a random direction"
+    elif worst.worst_index is not None:
+        where += f" at {format_index(worst.worst_index)}"
+    return (f"{names} {verb(len(bad), 'disagrees', 'disagree')}: rel error "
+            f"{_worst_error(worst):.1e}{where} > {report.threshold:g}")
+
+
+def _worst_error(t: TensorResult) -> float:
+    if t.max_rel_error is not None:
+        return t.max_rel_error
+    return max((d.rel_error for d in t.directions), default=0.0)

@@ -19,7 +19,7 @@ from ..report import TensorResult
 from .heatmap import folded, reduce
 
 MAX_ROWS, MAX_COLS = 64, 128
-MAP_WIDTH = 640  # px a wide map is drawn across
+MAP_WIDTH, MAP_HEIGHT = 640, 480  # px a large map is drawn across and down
 CELL_MAX = 24  # px, the largest cell (small tensors)
 
 # The palette, as data. WITHIN: at or below the threshold. LEVELS[k]: relative error between
@@ -90,7 +90,7 @@ def tensor_svg(t: TensorResult, threshold: float) -> Picture:
     grid, row_block, col_block = reduce(grid, MAX_ROWS, MAX_COLS)
     cells = levels(grid, threshold)
     rows, cols = cells.shape
-    unit = max(2, min(CELL_MAX, MAP_WIDTH // cols))
+    unit = max(2, min(CELL_MAX, MAP_WIDTH // cols, MAP_HEIGHT // rows))
     parts = [
         f'<svg class="gp-map" xmlns="http://www.w3.org/2000/svg" role="img" '
         f'width="{cols * unit}" height="{rows * unit}" viewBox="0 0 {cols} {rows}" '
@@ -99,6 +99,9 @@ def tensor_svg(t: TensorResult, threshold: float) -> Picture:
     ]
     for level, runs in sorted(_paths(cells).items()):
         parts.append(f'<path class="gp-l{level}" fill="{_fill(level)}" d="{"".join(runs)}"/>')
+    if len(t.shape) > 2 and row_block == 1 and rows > t.shape[-2]:  # where folded axes step
+        edges = "".join(f"M0 {r}h{cols}" for r in range(t.shape[-2], rows, t.shape[-2]))
+        parts.append(f'<path class="gp-fold" stroke="#1d232a" stroke-width="{1.5 / unit:.3g}" d="{edges}"/>')
     marks = _kink_marks(t, (row_block, col_block), cols)
     if marks:
         parts.append(f'<path class="gp-kink" fill="none" stroke="{KINK}" stroke-width="0.12" '
@@ -111,9 +114,9 @@ def defs() -> str:
     """Shared SVG definitions (the hatching of unchecked cells), once per page."""
     return (
         '<svg width="0" height="0" style="position:absolute" aria-hidden="true"><defs>'
-        '<pattern id="gp-hatch" width="0.5" height="0.5" patternUnits="userSpaceOnUse" '
-        'patternTransform="rotate(45)"><rect width="0.5" height="0.5" fill="#ffffff"/>'
-        f'<line x1="0" y1="0" x2="0" y2="0.5" stroke="{UNCHECKED_STROKE}" stroke-width="0.12"/>'
+        '<pattern id="gp-hatch" width="0.35" height="0.35" patternUnits="userSpaceOnUse" '
+        'patternTransform="rotate(45)"><rect width="0.35" height="0.35" fill="#ffffff"/>'
+        f'<line x1="0" y1="0" x2="0" y2="0.35" stroke="{UNCHECKED_STROKE}" stroke-width="0.1"/>'
         "</pattern>"
         '<pattern id="gp-hatch-px" width="6" height="6" patternUnits="userSpaceOnUse" '
         'patternTransform="rotate(45)"><rect width="6" height="6" fill="#ffffff"/>'
@@ -122,10 +125,18 @@ def defs() -> str:
     )
 
 
+SUPERSCRIPT = str.maketrans("0123456789", "⁰¹²³⁴⁵⁶⁷⁸⁹")
+
+
+def _decade(k: int) -> str:
+    """``1×``, ``10×``, ``10²×``, ... the threshold."""
+    return "1×" if k == 0 else "10×" if k == 1 else "10" + str(k).translate(SUPERSCRIPT) + "×"
+
+
 def legend() -> str:
     """The colour scale as a row of labelled swatches (an inline SVG)."""
     labels = [("not checked", "url(#gp-hatch-px)"), ("≤ threshold", WITHIN)]
-    labels += [(f"{10 ** k:g}×" + ("+" if k == len(LEVELS) - 1 else ""), colour)
+    labels += [(("≥ " if k == len(LEVELS) - 1 else "") + _decade(k), colour)
                for k, colour in enumerate(LEVELS)]
     step, size = 86, 18
     parts = [f'<svg class="gp-legend" xmlns="http://www.w3.org/2000/svg" role="img" '

@@ -59,7 +59,7 @@ COLUMNS = (
     Column("hint", "hint", "hint"),
 )
 DROP_ORDER = ("shape", "abs", "noise", "checked", "at")  # dropped first to last
-HINT_AFTER = 3  # after dropping this many columns, hints go below the table instead
+HINT_AFTER = 0  # columns given up to keep hints in the table (beyond it they go below)
 
 
 def fmt(value: float | None) -> str:
@@ -132,7 +132,7 @@ def table(report: Report, theme: Theme, width: int = 120) -> tuple[RenderableTyp
             grid.add_row(*[Text(row[c.key], style=theme.style(t.status)) if c.key == "status"
                            else row[c.key] for c in chosen.columns])
             if t.hint and not chosen.hints_inline:
-                below.append(Text(f"hint for {t.name}: {t.hint}"))
+                below.append(Text(f"hint for {t.name}: {t.hint}", overflow="ignore"))  # words whole
     return AtLeast(grid, chosen.width), below
 
 
@@ -148,7 +148,7 @@ def renderables(
         if with_maps:
             yield from maps(report, colour=theme is not PLAIN, width=width)
         for note in report.notes:
-            yield Text(f"note: {note}", style=theme.style("note"))
+            yield Text(f"note: {note}", style=theme.style("note"), overflow="ignore")
     yield Whole(Text(verdict(report, width), style=style))
 
 
