@@ -9,6 +9,7 @@ titles, then fewer columns (see :mod:`.columns`); only hints wrap.
 from __future__ import annotations
 
 import io
+import textwrap
 from dataclasses import dataclass
 from typing import IO, Iterable
 
@@ -115,7 +116,12 @@ class Whole:
         yield from console.render(self.text, options.update(no_wrap=True, overflow="ignore"))
 
 
-def table(report: Report, theme: Theme, width: int = 120) -> tuple[RenderableType, list[Text]]:
+def _wrap(text: str, width: int) -> str:
+    """``text`` wrapped between words only: a word longer than ``width`` stays whole."""
+    return "\n".join(textwrap.wrap(text, width, break_long_words=False, break_on_hyphens=False))
+
+
+def table(report: Report, theme: Theme, width: int = 120) -> tuple[RenderableType, list[RenderableType]]:
     """The per-layer table fitted to ``width``, and the hints that go below it (if any)."""
     chosen, rows = layout(report, width)
     grid = Table(box=theme.box, show_edge=False, pad_edge=False, expand=False)
@@ -124,7 +130,7 @@ def table(report: Report, theme: Theme, width: int = 120) -> tuple[RenderableTyp
         grid.add_column(c.short if chosen.short_titles else c.title, justify=c.justify,  # type: ignore[arg-type]
                         no_wrap=not wraps, overflow="fold")
     cells = iter(rows)
-    below = []
+    below: list[RenderableType] = []
     for layer in report.layers:
         grid.add_row(Text(layer.name, style=theme.style("layer")), *[""] * (len(chosen.columns) - 1))
         for t in layer.tensors:
@@ -132,7 +138,7 @@ def table(report: Report, theme: Theme, width: int = 120) -> tuple[RenderableTyp
             grid.add_row(*[Text(row[c.key], style=theme.style(t.status)) if c.key == "status"
                            else row[c.key] for c in chosen.columns])
             if t.hint and not chosen.hints_inline:
-                below.append(Text(f"hint for {t.name}: {t.hint}", overflow="ignore"))  # words whole
+                below.append(Whole(Text(_wrap(f"hint for {t.name}: {t.hint}", width))))
     return AtLeast(grid, chosen.width), below
 
 
@@ -148,7 +154,7 @@ def renderables(
         if with_maps:
             yield from maps(report, colour=theme is not PLAIN, width=width)
         for note in report.notes:
-            yield Text(f"note: {note}", style=theme.style("note"), overflow="ignore")
+            yield Whole(Text(_wrap(f"note: {note}", width), style=theme.style("note")))
     yield Whole(Text(verdict(report, width), style=style))
 
 
