@@ -87,7 +87,8 @@ class Output:
 def _console(stderr: bool = False) -> Console:
     stream = sys.stderr if stderr else sys.stdout
     if os.environ.get("NO_COLOR") or not stream.isatty():
-        return plain_console(stream)
+        columns = os.environ.get("COLUMNS", "")
+        return plain_console(stream, int(columns) if columns.isdigit() and int(columns) >= 20 else 120)
     return Console(file=stream, highlight=False, emoji=False, markup=False)
 
 
