@@ -23,7 +23,7 @@ from gradprobe.engine.runner import run_check
 from gradprobe.options import CheckOptions
 from gradprobe.render.html import render_html
 from gradprobe.render.svgmap import MAX_COLS, MAX_ROWS
-from gradprobe.report import LayerResult, Report, TargetRun
+from gradprobe.report import LayerResult, TargetRun
 from gradprobe.target import load_target
 
 HERE = Path(__file__).resolve().parent
