@@ -16,7 +16,7 @@ from ..tensors import format_index
 from ..wording import plural
 from .html_style import CSS
 from .lines import verdict
-from .svgmap import defs, legend, tensor_svg
+from .svgmap import legend, tensor_svg
 
 LISTED = 8  # coordinates named in a map's caption or a reason
 
@@ -206,7 +206,7 @@ def render_html(runs: Report | Iterable[TargetRun], command: str | None = None,
     return (
         '<!DOCTYPE html>\n<html lang="en"><head><meta charset="utf-8">'
         '<meta name="viewport" content="width=device-width, initial-scale=1">'
-        f"<title>gradprobe: {_e(headline)}</title><style>{CSS}</style></head><body>{defs()}"
+        f"<title>gradprobe: {_e(headline)}</title><style>{CSS}</style></head><body>"
         f'<header><h1>gradprobe report</h1><p class="verdict {"gp-ok" if ok else "gp-fail"}" '
         f'id="verdict">{_e(headline)}</p><dl class="settings">{dl}</dl>'
         f"{_summary(runs) if len(runs) > 1 else ''}</header><main>{sections}</main></body></html>\n"

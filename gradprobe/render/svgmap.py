@@ -24,10 +24,11 @@ CELL_MAX = 24  # px, the largest cell (small tensors)
 
 # The palette, as data. WITHIN: at or below the threshold. LEVELS[k]: relative error between
 # 10**k and 10**(k+1) times the threshold (the last: 10**7 times and beyond). CIE L* of each
-# colour falls by about 10 per level (95.6, 89.6, 80.3, 70.5, 60.1, 48.9, 38.2, 26.8, 15.3).
-WITHIN = "#eef3f6"
-LEVELS = ("#f6e27a", "#f4bf5a", "#ec9a4a", "#dc7449", "#c0504f", "#9a3658", "#6b2358", "#3d1545")
-UNCHECKED_STROKE = "#9aa5ad"  # hatching of cells nothing was checked in
+# colour falls from level to level (88.6, 83.1, 74.5, 65.9, 57.3, 47.4, 37.3, 26.8, 15.3);
+# cells nothing was checked in stay white (L* 100).
+UNCHECKED = "#ffffff"
+WITHIN = "#d5e0e8"
+LEVELS = ("#f0cc4e", "#efaa45", "#e58a42", "#d66b43", "#bd4b4b", "#983356", "#6b2358", "#3d1545")
 KINK = "#2b6f8f"  # outline of coordinates judged by the kink rule
 
 
@@ -68,7 +69,7 @@ def _paths(cells: np.ndarray) -> dict[int, list[str]]:
 
 def _fill(level: int) -> str:
     if level == -2:
-        return "url(#gp-hatch)"
+        return UNCHECKED
     return WITHIN if level == -1 else LEVELS[level]
 
 
@@ -110,21 +111,6 @@ def tensor_svg(t: TensorResult, threshold: float) -> Picture:
     return Picture("".join(parts), how, (row_block, col_block))
 
 
-def defs() -> str:
-    """Shared SVG definitions (the hatching of unchecked cells), once per page."""
-    return (
-        '<svg width="0" height="0" style="position:absolute" aria-hidden="true"><defs>'
-        '<pattern id="gp-hatch" width="0.35" height="0.35" patternUnits="userSpaceOnUse" '
-        'patternTransform="rotate(45)"><rect width="0.35" height="0.35" fill="#ffffff"/>'
-        f'<line x1="0" y1="0" x2="0" y2="0.35" stroke="{UNCHECKED_STROKE}" stroke-width="0.1"/>'
-        "</pattern>"
-        '<pattern id="gp-hatch-px" width="6" height="6" patternUnits="userSpaceOnUse" '
-        'patternTransform="rotate(45)"><rect width="6" height="6" fill="#ffffff"/>'
-        f'<line x1="0" y1="0" x2="0" y2="6" stroke="{UNCHECKED_STROKE}" stroke-width="1.5"/>'
-        "</pattern></defs></svg>"
-    )
-
-
 SUPERSCRIPT = str.maketrans("0123456789", "⁰¹²³⁴⁵⁶⁷⁸⁹")
 
 
@@ -135,7 +121,7 @@ def _decade(k: int) -> str:
 
 def legend() -> str:
     """The colour scale as a row of labelled swatches (an inline SVG)."""
-    labels = [("not checked", "url(#gp-hatch-px)"), ("≤ threshold", WITHIN)]
+    labels = [("not checked", UNCHECKED), ("≤ threshold", WITHIN)]
     labels += [(("≥ " if k == len(LEVELS) - 1 else "") + _decade(k), colour)
                for k, colour in enumerate(LEVELS)]
     step, size = 86, 18
