@@ -153,3 +153,13 @@ def test_runs_that_could_not_run_are_listed(count):
     page = render_html(runs)
     assert page.count("could not run: nets/broken") == count
     assert f"FAIL: {count} of {count} target" in page
+
+
+def test_the_reproducing_command_states_what_differs_from_the_defaults():
+    from gradprobe.cli import DEFAULTS
+    from gradprobe.report_files import reproduce
+
+    values = {**DEFAULTS, "threshold": 1e-5, "seed": 3, "sample": 100, "recheck": False, "jobs": 4}
+    assert reproduce(["nets/mlp.py", "my nets/conv.py:case"], values, DEFAULTS) == (
+        "gradprobe check nets/mlp.py 'my nets/conv.py:case' --fail-above 1e-05 --sample 100 "
+        "--seed 3 --no-recheck")
