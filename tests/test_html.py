@@ -163,3 +163,15 @@ def test_the_reproducing_command_states_what_differs_from_the_defaults():
     assert reproduce(["nets/mlp.py", "my nets/conv.py:case"], values, DEFAULTS) == (
         "gradprobe check nets/mlp.py 'my nets/conv.py:case' --fail-above 1e-05 --sample 100 "
         "--seed 3 --no-recheck")
+
+
+def test_kink_coordinates_are_drawn_within_the_threshold_and_outlined():
+    errors = np.full((2, 3), 1e-9)
+    errors[0, 0] = 0.4  # a failure
+    errors[1, 2] = 50.0  # at a kink: its one-sided slopes bracket the analytic value
+    t = replace(_tensor("relu.W", errors), kinks=1, kink_indices=((1, 2),))
+    picture = tensor_svg(t, 1e-6)
+    assert re.search(r'class="gp-l5" fill="[^"]+" d="M0 0h1v1h-1z"', picture.svg)
+    assert "gp-l7" not in picture.svg  # 50 would be decade 7 had the kink rule not judged it
+    assert 'class="gp-kink"' in picture.svg and "M2.15 1.15h0.7" in picture.svg
+    assert t.error_map[1, 2] == 50.0  # the report's own array is untouched

@@ -13,7 +13,7 @@ from typing import Iterable, Sequence
 
 from ..report import LayerResult, Report, TargetRun, TensorResult
 from ..tensors import format_index
-from ..wording import plural
+from ..wording import plural, verb
 from .html_style import CSS
 from .lines import verdict
 from .svgmap import legend, tensor_svg
@@ -41,6 +41,9 @@ def _indices(indices: Sequence[tuple[int, ...]], total: int) -> str:
 def _reasons(t: TensorResult) -> list[str]:
     """Why a tensor has its status, beyond the numbers in its row."""
     out = []
+    if t.failed:
+        out.append(f"{t.failed} of {plural(t.checked, 'checked coordinate')} "
+                   f"{verb(t.failed, 'fails', 'fail')}")
     inherited = getattr(t, "inherited_from", None)
     if inherited:
         out.append(f"fails end to end only because the error enters in layer {inherited}")
@@ -66,7 +69,7 @@ def _reasons(t: TensorResult) -> list[str]:
 
 
 def _row(t: TensorResult, k: int) -> str:
-    checked = f"{t.checked}/{t.size}" if t.kind != "unknown" else "–"
+    checked = f"{t.checked:,}/{t.size:,}" if t.kind != "unknown" else "–"
     worst = _num(t.max_rel_error)
     if t.max_rel_error is None and t.directions:
         worst = _num(max(d.rel_error for d in t.directions)) + " (direction)"
@@ -112,8 +115,8 @@ def _figure(t: TensorResult, threshold: float, k: int) -> str:
     worst.sort(key=lambda c: -c.rel_error)
     listed = ", ".join(f"{format_index(c.index)} {c.rel_error:.1e}" for c in worst[:LISTED])
     caption = (f'<figcaption><strong class="name">{_e(t.name)}</strong> '
-               f"{_e(_shape(t.shape))}: {_e(picture.how)}{block}; {t.checked} of "
-               f"{plural(t.size, 'element')} checked.")
+               f"{_e(_shape(t.shape))}: {_e(picture.how)}{block}; {t.checked:,} of "
+               f"{t.size:,} {'element' if t.size == 1 else 'elements'} checked.")
     if listed:
         caption += f" Worst failing: {_e(listed)}."
     return (f'<figure class="gp-figure" id="{_id(k, t.name)}" data-tensor="{_e(t.name)}">'
@@ -130,7 +133,9 @@ def _maps(report: Report, k: int) -> str:
     return ('<h3>Where the gradients are wrong</h3><p class="note">Relative error per element on a '
             f"logarithmic scale: decades above the threshold {report.threshold:g}. Tensors with "
             "more than two dimensions are folded (rows run over every axis but the last); large "
-            f"ones are reduced to blocks showing their worst element.</p>{legend()}" + "".join(figures))
+            "ones are reduced to blocks showing their worst element. Coordinates at a kink are "
+            "judged by the kink rule and drawn as within the threshold, outlined in small maps."
+            f"</p>{legend()}" + "".join(figures))
 
 
 def _settings(report: Report) -> str:

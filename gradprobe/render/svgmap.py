@@ -29,7 +29,7 @@ CELL_MAX = 24  # px, the largest cell (small tensors)
 UNCHECKED = "#ffffff"
 WITHIN = "#d5e0e8"
 LEVELS = ("#f0cc4e", "#efaa45", "#e58a42", "#d66b43", "#bd4b4b", "#983356", "#6b2358", "#3d1545")
-KINK = "#2b6f8f"  # outline of coordinates judged by the kink rule
+KINK = "#1b8a9a"  # outline of coordinates at a kink (drawn as within the threshold)
 
 
 @dataclass(frozen=True)
@@ -88,6 +88,9 @@ def _kink_marks(t: TensorResult, block: tuple[int, int], cols: int) -> list[str]
 def tensor_svg(t: TensorResult, threshold: float) -> Picture:
     """The map of one tensor as an ``<svg>`` element, one user unit per cell."""
     grid, how = folded(t)
+    if t.kink_indices and t.shape:  # judged by the kink rule, not by their relative error
+        grid = grid.copy()
+        grid.reshape(-1)[np.ravel_multi_index(tuple(np.array(t.kink_indices).T), t.shape)] = 0.0
     grid, row_block, col_block = reduce(grid, MAX_ROWS, MAX_COLS)
     cells = levels(grid, threshold)
     rows, cols = cells.shape
@@ -121,17 +124,19 @@ def _decade(k: int) -> str:
 
 def legend() -> str:
     """The colour scale as a row of labelled swatches (an inline SVG)."""
-    labels = [("not checked", UNCHECKED), ("≤ threshold", WITHIN)]
-    labels += [(("≥ " if k == len(LEVELS) - 1 else "") + _decade(k), colour)
+    labels = [("not checked", UNCHECKED, "#555"), ("≤ threshold", WITHIN, "#555")]
+    labels += [(("≥ " if k == len(LEVELS) - 1 else "") + _decade(k), colour, "#555")
                for k, colour in enumerate(LEVELS)]
-    step, size = 86, 18
+    labels.append(("at a kink", WITHIN, KINK))
+    step, size = 80, 18
     parts = [f'<svg class="gp-legend" xmlns="http://www.w3.org/2000/svg" role="img" '
              f'width="{step * len(labels)}" height="44" aria-label="colour scale">',
              "<title>relative error over the threshold, by decade</title>"]
-    for k, (label, fill) in enumerate(labels):
+    for k, (label, fill, stroke) in enumerate(labels):
         x = k * step
-        parts.append(f'<rect x="{x}" y="2" width="{size * 2}" height="{size}" fill="{fill}" '
-                     f'stroke="#555" stroke-width="0.5"/>')
+        width = 1.5 if stroke == KINK else 0.5
+        parts.append(f'<rect x="{x + 1}" y="2" width="{size * 2}" height="{size}" fill="{fill}" '
+                     f'stroke="{stroke}" stroke-width="{width}"/>')
         parts.append(f'<text x="{x}" y="36" font-size="11">{escape(label)}</text>')
     parts.append("</svg>")
     return "".join(parts)
