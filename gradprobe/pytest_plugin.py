@@ -5,9 +5,10 @@
 
 The fixture checks like :func:`gradprobe.probe` and returns the report when the check passes;
 otherwise the test fails with a first line naming the failing tensors and the worst error, then
-the per-layer report. The target is named after the test; gradprobe's own frames are hidden. The threshold and seed come,
-from weakest to strongest, from gradprobe's defaults, the ini file (``gradprobe_threshold``,
-``gradprobe_seed``), the command line (``--gradprobe-threshold``, ``--gradprobe-seed``), a
+the per-layer report. The target is named after the test; gradprobe's own frames are hidden.
+The threshold and seed come, from weakest to strongest, from gradprobe's defaults, the ini
+file (``gradprobe_threshold``, ``gradprobe_seed``), the command line
+(``--gradprobe-threshold``, ``--gradprobe-seed``), a
 ``@pytest.mark.gradprobe(threshold=..., seed=...)`` marker, and the call's own keywords.
 """
 
@@ -72,9 +73,9 @@ def pytest_report_header(config: pytest.Config) -> str:
 class GradProbe:
     """The ``grad_probe`` fixture's value: call it like :func:`gradprobe.probe`."""
 
-    def __init__(self, defaults: Mapping[str, Any], label: str = "<python>", width: int = 120) -> None:
+    def __init__(self, defaults: Mapping[str, Any], label: str | None = None, width: int = 120) -> None:
         self.defaults = dict(defaults)
-        self.label = label  # the target's name in reports: the test's name
+        self.label = label  # the target's name in reports: the test's (None: forward's)
         self.width = width
 
     def __call__(
@@ -86,7 +87,7 @@ class GradProbe:
         **options: Any,
     ) -> Report:
         __tracebackhide__ = True
-        options = {"label": self.label, **self.defaults, **options}
+        options = {**({"label": self.label} if self.label else {}), **self.defaults, **options}
         try:
             report = probe(forward, backward, params, inputs, **options)
         except ProbeError as exc:
