@@ -8,6 +8,7 @@ and returns the page as a string; the CLI only writes it.
 
 from __future__ import annotations
 
+import shlex
 from html import escape
 from typing import Iterable, Sequence
 
@@ -100,7 +101,7 @@ def _layer(layer: LayerResult, k: int) -> str:
 
 def _id(k: int, name: str) -> str:
     """The anchor of a tensor's map in the section of target ``k``."""
-    return f"map-{k}-" + "".join(ch if ch.isalnum() else "-" for ch in name)
+    return f"map-{k}-" + "".join(ch if ch.isalnum() else f"_{ord(ch):x}" for ch in name)
 
 
 def _has_map(t: TensorResult) -> bool:
@@ -183,11 +184,12 @@ def _summary(runs: Sequence[TargetRun]) -> str:
 
 
 def _command(runs: Sequence[TargetRun]) -> str:
+    """The command a caller did not state, from what the reports hold."""
     first = next((r.report for r in runs if r.report is not None), None)
-    args = " ".join(r.target for r in runs)
-    if first is None:
-        return f"gradprobe check {args}"
-    return f"gradprobe check {args} --fail-above {first.threshold:g} --method {first.method} --seed {first.seed}"
+    words = ["gradprobe", "check", *(r.target for r in runs)]
+    if first is not None:
+        words += ["--fail-above", f"{first.threshold:g}", "--method", first.method, "--seed", str(first.seed)]
+    return shlex.join(words)
 
 
 def render_html(runs: Report | Iterable[TargetRun], command: str | None = None,
