@@ -283,7 +283,7 @@ def check_command(ctx: click.Context, targets: tuple[str, ...], show_maps: bool,
         code = max(code, EXIT_ERROR)
     if len(runs) > 1:
         console = _console(stderr=not out.stdout_free())
-        console.print(run_summary(runs, code, PLAIN if console.no_color else COLOUR))
+        console.print(run_summary(runs, code, PLAIN if console.no_color else COLOUR), crop=False)
     sys.exit(code)
 
 

@@ -121,3 +121,20 @@ def test_a_name_wider_than_the_console_widens_the_table_rather_than_splitting():
     lines = text.splitlines()
     assert any(re.match(rf"\s+{re.escape(long)}\s+8.8e-01\s+fail$", line) for line in lines)
     assert any(f"{long}:" in line for line in lines)  # the hint's line keeps the name whole
+
+
+def test_the_run_summary_keeps_target_names_whole():
+    import io
+
+    from gradprobe.render.terminal import PLAIN, plain_console, run_summary
+    from gradprobe.report import TargetRun
+
+    spec = "experiments/soil_moisture/calibration_layers.py:field_case"
+    runs = [TargetRun(spec, 2, error=f"{spec}: forward raised ValueError: the batch has no rows.")]
+    buffer = io.StringIO()
+    plain_console(buffer, 60).print(run_summary(runs, 2, PLAIN), crop=False)
+    lines = [line.rstrip() for line in buffer.getvalue().splitlines()]
+    assert lines[0] == "1 target, exit code 2"
+    assert lines[3].startswith(spec + "   -   ") and lines[3].endswith("could not run:")
+    assert " ".join(line.split("   -   ")[-1].strip() for line in lines[3:]).split() == \
+        "could not run: forward raised ValueError: the batch has no rows.".split()

@@ -60,6 +60,7 @@ COLUMNS = (
     Column("hint", "hint", "hint"),
 )
 DROP_ORDER = ("shape", "abs", "noise", "checked", "at")  # dropped first to last
+OUTCOME_MIN = 16  # the run summary's outcome column, which wraps the sentence of a failed run
 HINT_AFTER = 0  # columns given up to keep hints in the table (beyond it they go below)
 
 
@@ -176,19 +177,23 @@ def render_text(
     return "".join(line.rstrip() + "\n" for line in buffer.getvalue().splitlines())
 
 
-def run_summary(runs: list[TargetRun], exit_code: int, theme: Theme) -> Table:
-    """One row per target of a run, and the run's exit code."""
+def run_summary(runs: list[TargetRun], exit_code: int, theme: Theme) -> RenderableType:
+    """One row per target of a run, and the run's exit code; target names are never split
+    (on a narrow console the table is left wider than it rather than cut)."""
     grid = Table(box=theme.box, show_edge=False, pad_edge=False,
                  title=f"{plural(len(runs), 'target')}, exit code {exit_code}", title_justify="left")
     for title in ("target", "tensors", "failing"):
         grid.add_column(title, no_wrap=True, overflow="ignore")
-    grid.add_column("outcome")  # the only column that wraps: a sentence when a target could not run
+    grid.add_column("outcome", min_width=OUTCOME_MIN, overflow="fold")  # the only column that wraps
     for run in runs:
         if run.report is None:
-            grid.add_row(run.target, "-", "-", Text(run.error or "could not run", style=theme.style("fail")))
+            why = (run.error or "").removeprefix(f"{run.target}: ")  # the target is in its column
+            grid.add_row(run.target, "-", "-", Text(f"could not run: {why}" if why else "could not run",
+                                                    style=theme.style("fail"), overflow="fold"))
             continue
         failing = len(run.report.failing_tensors)
         outcome = "ok" if run.report.ok else "fail"
         grid.add_row(run.target, str(len(run.report.tensors)), str(failing),
                      Text(outcome, style=theme.style("pass" if run.report.ok else "fail")))
-    return grid
+    need = max(len(r.target) for r in runs) + len("tensors") + len("failing") + OUTCOME_MIN + 3 * 3
+    return AtLeast(grid, need)
