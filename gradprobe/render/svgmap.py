@@ -98,10 +98,12 @@ def tensor_svg(t: TensorResult, threshold: float) -> Picture:
     parts = [
         f'<svg class="gp-map" xmlns="http://www.w3.org/2000/svg" role="img" '
         f'width="{cols * unit}" height="{rows * unit}" viewBox="0 0 {cols} {rows}" '
-        f'shape-rendering="crispEdges" aria-label="relative error map of {escape(t.name)}">',
+        f'shape-rendering="crispEdges" style="background:{UNCHECKED}" aria-label="relative error map of {escape(t.name)}">',
         f"<title>{escape(t.name)}: relative error per element</title>",
     ]
     for level, runs in sorted(_paths(cells).items()):
+        if level == -2:  # not checked: the map's white background shows through
+            continue
         parts.append(f'<path class="gp-l{level}" fill="{_fill(level)}" d="{"".join(runs)}"/>')
     if len(t.shape) > 2 and row_block == 1 and rows > t.shape[-2]:  # where folded axes step
         edges = "".join(f"M0 {r}h{cols}" for r in range(t.shape[-2], rows, t.shape[-2]))
