@@ -30,16 +30,26 @@ def probe(
     inputs: Mapping[str, Any] | None = None,
     *,
     executor: Executor | None = None,
-    label: str = "<python>",
+    label: str | None = None,
     **options: Any,
 ) -> Report:
     """Check ``backward`` against central differences of ``forward`` at ``params``/``inputs``.
 
     ``options`` are the fields of :class:`~gradprobe.options.CheckOptions`: ``threshold``,
     ``seed``, ``method``, ``sample``, ``directions``, ``jobs``, ``recheck``, ...
+    ``label`` names the target in reports (default: the forward function's name).
     """
-    target = Target(label, forward, backward, params, inputs or {})
+    target = Target(label or name_of(forward), forward, backward, params, inputs or {})
     return run_check(target, _options(options), executor=executor)
+
+
+def name_of(forward: Callable[..., Any]) -> str:
+    """``module.function`` for a named forward; ``<lambda in module>`` for a lambda."""
+    name = getattr(forward, "__qualname__", None) or type(forward).__name__
+    module = getattr(forward, "__module__", None)
+    if name == "<lambda>":
+        return f"<lambda in {module}>" if module else "<lambda>"
+    return f"{module}.{name}" if module and module != "__main__" else name
 
 
 def probe_target(spec: str, *, executor: Executor | None = None, **options: Any) -> Report:

@@ -20,11 +20,13 @@ from . import __version__
 from .config import ProjectConfig, load_config
 from .errors import ProbeError, UsageProblem
 from .options import METHODS, CheckOptions
+from .render.html import render_html
 from .render.json import render_runs
 from .render.junit import render_junit
 from .render.progress import TerminalProgress
 from .render.terminal import COLOUR, PLAIN, plain_console, renderables, run_summary
 from .report import TargetRun
+from .report_files import check_writable, reproduce
 from .stack import load_any
 from .stack_check import run_any
 from .starter import write_starter
@@ -38,7 +40,7 @@ TARGET is a Python file (nets/mlp.py), a dotted module (nets.mlp), either follow
 setup() or params, or layers (a stack: every layer's backward is checked on its own, and the
 report says where the error enters); see the README for the protocol. With no TARGET, the targets listed in
 [tool.gradprobe] of the nearest pyproject.toml are checked; its other keys (threshold, seed,
-method, sample, directions, jobs, recheck, json, junit) set defaults that options override.
+method, sample, directions, jobs, recheck, json, junit, html) set defaults that options override.
 --show-settings says which value each setting has and where it came from.
 
 \b
@@ -46,6 +48,7 @@ Examples:
   gradprobe check samples/crop_yield.py
   gradprobe check samples/crop_yield_buggy.py --json report.json --junit report.xml
   gradprobe check samples/shop_demand_stack_buggy.py
+  gradprobe check samples/crop_yield.py samples/crop_yield_buggy.py --html report.html
   gradprobe check nets.mlp:Case --fail-above 1e-5 --seed 3
   gradprobe check samples/sensor_mixer.py --json - | jq .summary
   gradprobe check big_model.py --sample 0 --jobs 2
@@ -61,10 +64,11 @@ with several targets, the worst of their codes.
 SETTINGS = {
     "threshold": "threshold", "seed": "seed", "method": "method", "sample": "sample",
     "directions": "directions", "jobs": "jobs", "recheck": "recheck",
-    "json": None, "junit": None,
+    "json": None, "junit": None, "html": None,
 }
 DEFAULTS = {"threshold": None, "seed": 0, "method": "central", "sample": None,
-            "directions": None, "jobs": 1, "recheck": True, "json": None, "junit": None}
+            "directions": None, "jobs": 1, "recheck": True, "json": None, "junit": None,
+            "html": None}
 
 
 @dataclass(frozen=True)
@@ -76,6 +80,7 @@ class Output:
     quiet: bool
     traceback: bool
     maps: bool = False
+    html_path: str | None = None
 
     def stdout_free(self) -> bool:
         return self.json_path != "-"
@@ -84,7 +89,8 @@ class Output:
 def _console(stderr: bool = False) -> Console:
     stream = sys.stderr if stderr else sys.stdout
     if os.environ.get("NO_COLOR") or not stream.isatty():
-        return plain_console(stream)
+        columns = os.environ.get("COLUMNS", "")
+        return plain_console(stream, int(columns) if columns.isdigit() and int(columns) >= 20 else 120)
     return Console(file=stream, highlight=False, emoji=False, markup=False)
 
 
@@ -135,8 +141,8 @@ def check_one(spec: str, options: CheckOptions, out: Output) -> TargetRun:
     console = _console(stderr=not out.stdout_free())
     theme = PLAIN if console.no_color else COLOUR
     quiet = out.quiet or not out.stdout_free()
-    for item in renderables(report, theme, quiet=quiet, with_maps=out.maps):
-        console.print(item)
+    for item in renderables(report, theme, quiet=quiet, with_maps=out.maps, width=console.width):
+        console.print(item, crop=False)
     return TargetRun(spec, EXIT_OK if report.ok else EXIT_FAIL, report=report)
 
 
@@ -206,6 +212,9 @@ def cli() -> None:
                    "goes there).")
 @click.option("--junit", "junit", metavar="PATH", default=None,
               help="Write a JUnit XML report to PATH: a testsuite per target, a testcase per tensor.")
+@click.option("--html", "html", metavar="PATH", default=None,
+              help="Write one self-contained HTML page for the whole run to PATH: verdict, "
+                   "settings, tables and a map of relative error for each failing tensor.")
 @click.option("--seed", type=int, default=0, show_default=True,
               help="Seed for every random draw (grad_output, samples, directions).")
 @click.option("--method", type=click.Choice(METHODS), default="central", show_default=True,
@@ -247,10 +256,12 @@ def check_command(ctx: click.Context, targets: tuple[str, ...], show_maps: bool,
             raise UsageProblem("no TARGET given and no targets in [tool.gradprobe] of a "
                                "pyproject.toml here or above (see gradprobe check --help)")
         options = CheckOptions(**{field: values[name] for name, field in SETTINGS.items() if field})
+        if values["html"] is not None:
+            check_writable(values["html"], "HTML report")
     except ProbeError as exc:
         _say_error(exc.sentence(), exc, show_traceback)
         sys.exit(EXIT_ERROR)
-    out = Output(values["json"], values["junit"], quiet, show_traceback, show_maps)
+    out = Output(values["json"], values["junit"], quiet, show_traceback, show_maps, values["html"])
     try:
         runs = [check_one(spec, options, out) for spec in chosen]
     except KeyboardInterrupt:
@@ -264,15 +275,17 @@ def check_command(ctx: click.Context, targets: tuple[str, ...], show_maps: bool,
                 click.echo(text, nl=False)
             else:
                 _write(out.json_path, text, "JSON report")
+        stamp = datetime.now().replace(microsecond=0).isoformat()
         if out.junit_path is not None:
-            stamp = datetime.now().replace(microsecond=0).isoformat()
             _write(out.junit_path, render_junit(runs, stamp, socket.gethostname()), "JUnit report")
+        if out.html_path is not None:
+            _write(out.html_path, render_html(runs, reproduce(chosen, values, DEFAULTS), stamp), "HTML report")
     except ProbeError as exc:
         _say_error(exc.sentence(), exc, show_traceback)
         code = max(code, EXIT_ERROR)
     if len(runs) > 1:
         console = _console(stderr=not out.stdout_free())
-        console.print(run_summary(runs, code, PLAIN if console.no_color else COLOUR))
+        console.print(run_summary(runs, code, PLAIN if console.no_color else COLOUR), crop=False)
     sys.exit(code)
 
 

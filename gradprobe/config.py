@@ -37,6 +37,7 @@ KEYS: dict[str, tuple[tuple[type, ...], str]] = {
     "targets": ((list,), "targets to check when none is named"),
     "json": ((str,), "path of the JSON report"),
     "junit": ((str,), "path of the JUnit XML report"),
+    "html": ((str,), "path of the HTML report"),
 }
 
 

@@ -34,7 +34,9 @@ class ProbeError(Exception):
 
     def sentence(self) -> str:
         """The one sentence shown to the user, naming the target when known."""
-        text = self.message.rstrip(".") + "."
+        text = self.message.rstrip(".")
+        if not text.endswith(("?", "!")):  # a sentence ending in a suggestion keeps its "?"
+            text += "."
         return f"{self.target}: {text}" if self.target else text
 
     def __str__(self) -> str:

@@ -5,20 +5,28 @@
 
 The fixture checks like :func:`gradprobe.probe` (``grad_probe.stack(layers, params, inputs)``
 like :func:`gradprobe.probe_stack`) and returns the report when the check passes;
-otherwise the test fails with the per-layer report as its message. The threshold and seed come,
-from weakest to strongest, from gradprobe's defaults, the ini file (``gradprobe_threshold``,
-``gradprobe_seed``), the command line (``--gradprobe-threshold``, ``--gradprobe-seed``), a
+otherwise the test fails with a first line naming the failing tensors and the worst error, then
+the per-layer report. The target is named after the test; gradprobe's own frames are hidden.
+The threshold and seed come, from weakest to strongest, from gradprobe's defaults, the ini
+file (``gradprobe_threshold``, ``gradprobe_seed``), the command line
+(``--gradprobe-threshold``, ``--gradprobe-seed``), a
 ``@pytest.mark.gradprobe(threshold=..., seed=...)`` marker, and the call's own keywords.
 """
 
 from __future__ import annotations
 
+from pathlib import Path
+from types import TracebackType
 from typing import Any, Callable, Mapping
 
 import pytest
 
 from .api import probe, probe_stack
+from .errors import ProbeError
+from .render.lines import failure_line
 from .report import Report
+
+PACKAGE = str(Path(__file__).resolve().parent)
 
 SETTINGS = ("threshold", "seed")
 
@@ -66,8 +74,10 @@ def pytest_report_header(config: pytest.Config) -> str:
 class GradProbe:
     """The ``grad_probe`` fixture's value: call it like :func:`gradprobe.probe`."""
 
-    def __init__(self, defaults: Mapping[str, Any]) -> None:
+    def __init__(self, defaults: Mapping[str, Any], label: str | None = None, width: int = 120) -> None:
         self.defaults = dict(defaults)
+        self.label = label  # the target's name in reports: the test's (None: forward's)
+        self.width = width
 
     def __call__(
         self,
@@ -78,7 +88,13 @@ class GradProbe:
         **options: Any,
     ) -> Report:
         __tracebackhide__ = True
-        report = probe(forward, backward, params, inputs, **{**self.defaults, **options})
+        options = {**({"label": self.label} if self.label else {}), **self.defaults, **options}
+        try:
+            report = probe(forward, backward, params, inputs, **options)
+        except ProbeError as exc:
+            if exc.__cause__ is not None:
+                exc.__cause__.__traceback__ = _outside(exc.__cause__.__traceback__)
+            raise exc.with_traceback(None) from exc.__cause__  # starts here: hidden
         return self._verdict(report)
 
     def stack(
@@ -91,13 +107,27 @@ class GradProbe:
         """Check a stack like :func:`gradprobe.probe_stack`; fails the test naming the layers
         where the error enters."""
         __tracebackhide__ = True
-        return self._verdict(probe_stack(layers, params, inputs, **{**self.defaults, **options}))
+        options = {**({"label": self.label} if self.label else {}), **self.defaults, **options}
+        try:
+            report = probe_stack(layers, params, inputs, **options)
+        except ProbeError as exc:
+            if exc.__cause__ is not None:
+                exc.__cause__.__traceback__ = _outside(exc.__cause__.__traceback__)
+            raise exc.with_traceback(None) from exc.__cause__  # starts here: hidden
+        return self._verdict(report)
 
     def _verdict(self, report: Report) -> Report:
         __tracebackhide__ = True
         if not report.ok:
-            pytest.fail("gradient check failed\n" + report.render(width=160), pytrace=False)
+            pytest.fail(failure_line(report) + "\n" + report.render(width=self.width), pytrace=False)
         return report
+
+
+def _outside(tb: TracebackType | None) -> TracebackType | None:
+    """``tb`` without its leading frames inside gradprobe (the user's frames stay)."""
+    while tb is not None and tb.tb_frame.f_code.co_filename.startswith(PACKAGE):
+        tb = tb.tb_next
+    return tb
 
 
 @pytest.fixture
@@ -107,4 +137,6 @@ def grad_probe(request: pytest.FixtureRequest) -> GradProbe:
     marker = request.node.get_closest_marker("gradprobe")
     if marker is not None:
         defaults.update(marker.kwargs)
-    return GradProbe(defaults)
+    writer = getattr(request.config, "get_terminal_writer", None)
+    width = writer().fullwidth if writer is not None else 120
+    return GradProbe(defaults, label=request.node.name, width=max(60, min(width, 160)))

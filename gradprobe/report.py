@@ -189,7 +189,9 @@ class Report:
         """Raise AssertionError carrying the per-layer report when any tensor fails."""
         __tracebackhide__ = True
         if not self.ok:
-            raise AssertionError("gradient check failed\n" + self.render())
+            from .render.lines import failure_line
+
+            raise AssertionError(failure_line(self) + "\n" + self.render())
         return self
 
 

@@ -34,7 +34,11 @@ def test_raise_if_failed_carries_the_per_layer_report():
     report = gradprobe.probe(forward, lambda p, i: {"W": 2 * backward(p, i)["W"]}, {"W": W}, {"x": X})
     with pytest.raises(AssertionError) as info:
         report.raise_if_failed()
-    assert "layer / tensor" in str(info.value) and "analytic is 2 x numeric" in str(info.value)
+    first, *rest = str(info.value).splitlines()
+    worst = gradprobe.tensors.format_index(report.tensor("W").worst_index)  # all tie at 0.5
+    assert first == f"W disagrees: rel error 5.0e-01 at {worst} > 1e-06"  # |2g - g| / |2g|
+    assert rest[0].startswith("gradprobe · test_api.forward ·")  # named after forward
+    assert "analytic is 2 x numeric" in str(info.value)
 
 
 def test_options_are_keywords_and_unknown_ones_are_refused():

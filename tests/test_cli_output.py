@@ -159,7 +159,7 @@ def test_complex_method_on_a_forward_with_abs_exits_2(run_cli):
 def test_map_option_draws_failing_tensors(run_cli):
     result = run_cli("check", str(SAMPLES / "crop_yield_buggy.py"), "--map")
     assert result.exit_code == 1
-    assert "out.W: 6 rows x 1 columns" in result.output and "map: ' ' not checked" in result.output
+    assert "out.W: 6 rows x 1 column" in result.output and "map: ' ' not checked" in result.output
 
 
 def test_prints_in_user_code_do_not_reach_the_json_on_stdout(write_target, run_cli):

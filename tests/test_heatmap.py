@@ -45,3 +45,19 @@ def test_large_maps_show_the_worst_of_each_block():
     text = tensor_map(_tensor(errors), 1e-6, colour=False).plain.splitlines()
     assert "each cell is the worst of 1 x 4 elements" in text[0]
     assert text[1] == "  " + "." * 37 + "+" + "." * 12  # 1e-3 is 1000x the threshold
+
+
+def test_small_tensors_are_shown_element_by_element():
+    """A 30x4 tensor (more rows than a reduced map has) keeps one character per element."""
+    errors = np.full((30, 4), 1e-9)
+    errors[::2, 1] = 0.5  # every other row of one column: a pattern 2x1 blocks would hide
+    lines = tensor_map(_tensor(errors), 1e-6, colour=False).plain.splitlines()
+    assert lines[0] == "W: 30 rows x 4 columns" and len(lines) == 31
+    assert lines[1:3] == ["  .#..", "  ...."]
+
+
+def test_maps_fit_the_width():
+    errors = np.full((1, 100), 1e-9)
+    assert len(tensor_map(_tensor(errors), 1e-6, colour=False, width=120).plain.splitlines()[1]) == 102
+    narrow = tensor_map(_tensor(errors), 1e-6, colour=False, width=60).plain.splitlines()
+    assert "each cell is the worst of 1 x 2 elements" in narrow[0] and len(narrow[1]) <= 60

@@ -57,3 +57,20 @@ def test_several_targets_and_one_that_cannot_run(run_cli, tmp_path):
     assert suites[0].get("failures") == "0" and "kink" in suites[0].find("system-out").text
     error = suites[1].find("testcase/error")
     assert suites[1].get("errors") == "1" and "no such file missing.py" in error.get("message")
+
+
+def test_classnames_read_like_target_dot_layer(run_cli, tmp_path):
+    result = run_cli("check", str(SAMPLES / "crop_yield_buggy.py"), "missing.py", "--junit", "out.xml")
+    assert result.exit_code == 2
+    suites = _validate(ET.parse(tmp_path / "out.xml").getroot())
+    assert {c.get("classname") for c in suites[0].findall("testcase")} == {
+        "crop_yield_buggy.hidden", "crop_yield_buggy.out", "crop_yield_buggy.inputs"}
+    assert suites[1].find("testcase").get("classname") == "missing"
+
+
+def test_classname_forms():
+    from gradprobe.render.junit import classname
+
+    assert classname("samples/crop_yield.py:case", "hidden") == "crop_yield.case.hidden"
+    assert classname("nets.mlp:Case", "dense") == "nets.mlp.Case.dense"
+    assert classname("nets/mlp.py", "dense") == "mlp.dense"

@@ -9,6 +9,11 @@ import pytest
 
 README = Path(__file__).resolve().parent.parent / "README.md"
 
+
+def run(pytester: pytest.Pytester, *args: str) -> pytest.RunResult:
+    """pytest in-process, without the cache and without hypothesis's plugin (faster)."""
+    return pytester.runpytest("-p", "no:cacheprovider", "-p", "no:hypothesispytest", *args)
+
 LAYER = """
 import numpy as np
 
@@ -29,18 +34,58 @@ def test_layer(grad_probe):
     report = grad_probe(forward, backward, {"W": W}, {"x": X})
     assert report.ok and report.tensor("W").checked == 6
 """)
-    pytester.runpytest("-p", "no:cacheprovider").assert_outcomes(passed=1)
+    run(pytester).assert_outcomes(passed=1)
 
 
-def test_a_failing_check_fails_with_the_per_layer_report(pytester: pytest.Pytester):
+def test_a_failing_check_fails_with_the_per_layer_report(pytester: pytest.Pytester, monkeypatch):
+    """The message's first line names the tensor and its worst error; the table follows."""
+    monkeypatch.setenv("COLUMNS", "200")  # so the short summary line is not cut
     pytester.makepyfile(LAYER + """
 def test_layer(grad_probe):
     grad_probe(forward, lambda p, i: backward(p, i, scale=-1.0), {"W": W}, {"x": X})
 """)
-    result = pytester.runpytest("-p", "no:cacheprovider")
+    result = run(pytester)
     result.assert_outcomes(failed=1)
-    result.stdout.fnmatch_lines(["*gradient check failed*", "*layer / tensor*", "*W*fail*analytic is -1 x numeric: the sign is flipped"])
+    first = "W disagrees: rel error 2.0e+00 at [0, 0] > 1e-06"
+    lines = result.stdout.lines
+    start = lines.index(next(line for line in lines if line.startswith("____") and "test_layer" in line))
+    assert lines[start + 1] == first
+    assert lines[start + 2].startswith("gradprobe · test_layer · central")  # named after the test
+    result.stdout.fnmatch_lines(["*W*fail*analytic is -1 x numeric: the sign is flipped"])
+    assert any(line.startswith("FAILED ") and line.endswith(f"::test_layer - Failed: {first}")
+               for line in lines)
     assert "pytest_plugin.py" not in result.stdout.str()  # no traceback into gradprobe
+
+
+def test_several_failing_tensors_are_all_named_with_the_worst(pytester: pytest.Pytester):
+    pytester.makepyfile(LAYER + """
+def test_pair(grad_probe):
+    def both(p, i):
+        g = backward(p, i)["W"]
+        return {"W": 1.5 * g, "V": 3.0 * p["V"]}
+    grad_probe(lambda p, i: forward(p, i) + float((p["V"] ** 2).sum()), both,
+               {"W": W, "V": W[:2] + 1.0}, {"x": X})
+""")
+    result = run(pytester)
+    result.assert_outcomes(failed=1)
+    # V's analytic is 3V against the numeric 2V: rel error |3-2|/3 = 3.3e-01; W's 1.5 g: 0.5/1.5
+    result.stdout.fnmatch_lines(["W, V disagree: rel error 3.3e-01 in * at [[]*[]] > 1e-06"])
+
+
+def test_a_check_that_cannot_run_shows_the_users_frame_not_gradprobes(pytester: pytest.Pytester):
+    pytester.makepyfile(LAYER + """
+def broken_forward(p, i):
+    raise ValueError("the batch has no rows")
+
+def test_broken(grad_probe):
+    grad_probe(broken_forward, backward, {"W": W}, {"x": X})
+""")
+    result = run(pytester)
+    result.assert_outcomes(failed=1)
+    text = result.stdout.str()
+    result.stdout.fnmatch_lines(['*raise ValueError("the batch has no rows")',
+                                 "*UserCodeError: test_broken: forward raised ValueError: the batch has no rows."])
+    assert "gradprobe/" not in text.replace("gradprobe/errors", "")  # no frame inside gradprobe
 
 
 def test_threshold_from_the_command_line_ini_marker_and_call(pytester: pytest.Pytester):
@@ -60,12 +105,12 @@ def test_marker(grad_probe):
 def test_call(grad_probe):
     grad_probe(forward, off, {"W": W}, {"x": X}, threshold=1e-3)
 """)
-    pytester.runpytest("-p", "no:cacheprovider").assert_outcomes(passed=2, failed=1)
-    pytester.runpytest("-p", "no:cacheprovider", "--gradprobe-threshold", "1e-3").assert_outcomes(passed=3)
+    run(pytester).assert_outcomes(passed=2, failed=1)
+    run(pytester, "--gradprobe-threshold", "1e-3").assert_outcomes(passed=3)
     pytester.makeini("[pytest]\ngradprobe_threshold = 1e-3\n")
-    pytester.runpytest("-p", "no:cacheprovider").assert_outcomes(passed=3)
+    run(pytester).assert_outcomes(passed=3)
     # the command line beats the ini file
-    pytester.runpytest("-p", "no:cacheprovider", "--gradprobe-threshold", "1e-6").assert_outcomes(passed=2, failed=1)
+    run(pytester, "--gradprobe-threshold", "1e-6").assert_outcomes(passed=2, failed=1)
 
 
 def test_seed_is_in_the_header_and_reaches_the_check(pytester: pytest.Pytester):
@@ -73,7 +118,7 @@ def test_seed_is_in_the_header_and_reaches_the_check(pytester: pytest.Pytester):
 def test_seed(grad_probe):
     assert grad_probe(forward, backward, {"W": W}, {"x": X}).seed == 7
 """)
-    result = pytester.runpytest("-p", "no:cacheprovider", "--gradprobe-seed", "7")
+    result = run(pytester, "--gradprobe-seed", "7")
     result.assert_outcomes(passed=1)
     result.stdout.fnmatch_lines(["gradprobe: threshold by floating type, seed 7"])
 
@@ -90,7 +135,7 @@ def test_raises(grad_probe):
         grad_probe(forward, broken, {"W": W}, {"x": X})
     assert isinstance(info.value.__cause__, ZeroDivisionError)
 """)
-    pytester.runpytest("-p", "no:cacheprovider").assert_outcomes(passed=1)
+    run(pytester).assert_outcomes(passed=1)
 
 
 def test_the_readme_example_runs_and_is_under_ten_lines(pytester: pytest.Pytester):
@@ -98,4 +143,4 @@ def test_the_readme_example_runs_and_is_under_ten_lines(pytester: pytest.Pyteste
     example = re.search(r"<!-- pytest-example -->\s*```python\n(.*?)```", text, re.S).group(1)
     assert len([line for line in example.splitlines() if line.strip()]) < 10
     pytester.makepyfile(test_readme=example)
-    pytester.runpytest("-p", "no:cacheprovider").assert_outcomes(passed=1)
+    run(pytester).assert_outcomes(passed=1)

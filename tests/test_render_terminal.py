@@ -38,7 +38,7 @@ dense
 inputs
   x              5x3       15/15     7.5e-10         -     2.0e-10   [0, 0]   pass
 note: a note
-FAIL  1 of 3 tensors disagree beyond 1e-06: dense.W · 51 evaluations in 0.08 s
+FAIL  1 of 3 tensors disagrees beyond 1e-06: dense.W · 51 evaluations in 0.08 s
 """
 
 

@@ -1,8 +1,9 @@
 """A compact per-element map of relative error for failing tensors (``--map``).
 
 1-D and 2-D tensors are drawn as they are; higher dimensions are folded to 2-D (rows run
-over all axes but the last, columns over the last) and the folding is stated. Large maps
-are reduced to blocks, each showing its worst element. Each cell is a character of a ramp
+over all axes but the last, columns over the last) and the folding is stated. A map that fits
+(up to FULL_ROWS rows and the columns the width allows) is drawn element by element; larger
+ones are reduced to blocks, each showing its worst element. Each cell is a character of a ramp
 by how many decades the error is above the threshold, so the map reads without colour.
 """
 
@@ -12,11 +13,13 @@ import numpy as np
 from rich.text import Text
 
 from ..report import Report, TensorResult
+from ..wording import plural
 
 UNCHECKED, WITHIN = " ", "."
 RAMP = ":-=+*#%@"  # 1x, 10x, 100x, ... 1e7x the threshold and beyond
 COLOURS = ("yellow", "yellow", "dark_orange", "dark_orange", "red", "red", "bold red", "bold red")
-MAX_ROWS, MAX_COLS = 24, 64
+MAX_ROWS, MAX_COLS = 24, 64  # the size a large map is reduced to
+FULL_ROWS = 64  # maps up to this many rows (and as many columns as fit) are not reduced
 
 
 def fold(shape: tuple[int, ...]) -> tuple[int, int, str]:
@@ -24,9 +27,9 @@ def fold(shape: tuple[int, ...]) -> tuple[int, int, str]:
     if len(shape) == 0:
         return 1, 1, "a scalar"
     if len(shape) == 1:
-        return 1, shape[0], f"{shape[0]} elements in one row"
+        return 1, shape[0], f"{plural(shape[0], 'element')} in one row"
     if len(shape) == 2:
-        return shape[0], shape[1], f"{shape[0]} rows x {shape[1]} columns"
+        return shape[0], shape[1], f"{plural(shape[0], 'row')} x {plural(shape[1], 'column')}"
     rows = int(np.prod(shape[:-1]))
     last = len(shape) - 1
     return rows, shape[-1], (
@@ -51,6 +54,21 @@ def _blocks(values: np.ndarray, limit: int, axis: int) -> tuple[np.ndarray, int]
     return _nanmax(shaped, 2), size
 
 
+def reduce(grid: np.ndarray, max_rows: int, max_cols: int) -> tuple[np.ndarray, int, int]:
+    """``grid`` reduced to at most ``max_rows`` x ``max_cols`` blocks (each its worst
+    element, NaN where nothing in it was checked), and the block height and width."""
+    grid, row_block = _blocks(grid, max_rows, 0)
+    grid, col_block = _blocks(grid, max_cols, 1)
+    return grid, row_block, col_block
+
+
+def folded(t: TensorResult) -> tuple[np.ndarray, str]:
+    """The tensor's per-element relative errors laid out in two dimensions, and how."""
+    errors = t.error_map if t.error_map is not None else np.full(t.shape, np.nan)
+    rows, cols, how = fold(t.shape)
+    return np.asarray(errors, dtype=float).reshape(rows, cols), how
+
+
 def _nanmax(a: np.ndarray, axis: int) -> np.ndarray:
     with np.errstate(invalid="ignore"):
         filled = np.where(np.isnan(a), -np.inf, a).max(axis=axis)
@@ -67,13 +85,14 @@ def cell(rel: float, threshold: float) -> tuple[str, int | None]:
     return RAMP[max(level, 0)], max(level, 0)
 
 
-def tensor_map(t: TensorResult, threshold: float, colour: bool) -> Text:
-    """The map of one tensor, with a title line and the folding stated."""
-    errors = t.error_map if t.error_map is not None else np.full(t.shape, np.nan)
-    rows, cols, how = fold(t.shape)
-    grid = np.asarray(errors, dtype=float).reshape(rows, cols)
-    grid, row_block = _blocks(grid, MAX_ROWS, 0)
-    grid, col_block = _blocks(grid, MAX_COLS, 1)
+def tensor_map(t: TensorResult, threshold: float, colour: bool, width: int = 120) -> Text:
+    """The map of one tensor, with a title line and the folding stated; rows fit ``width``."""
+    grid, how = folded(t)
+    cols = max(8, min(MAX_COLS, width - 2))
+    if grid.shape[0] <= FULL_ROWS and grid.shape[1] <= width - 2:
+        row_block = col_block = 1
+    else:
+        grid, row_block, col_block = reduce(grid, MAX_ROWS, cols)
     blocks = f"; each cell is the worst of {row_block} x {col_block} elements" if row_block * col_block > 1 else ""
     out = Text(f"{t.name}: {how}{blocks}\n")
     for r in range(grid.shape[0]):
@@ -93,8 +112,8 @@ def legend() -> str:
             f"error over the threshold: {steps} and above")
 
 
-def maps(report: Report, colour: bool) -> list[Text]:
+def maps(report: Report, colour: bool, width: int = 120) -> list[Text]:
     """Maps of every failing tensor that has per-element errors, and the legend."""
-    drawn = [tensor_map(t, report.threshold, colour) for t in report.failing_tensors
+    drawn = [tensor_map(t, report.threshold, colour, width) for t in report.failing_tensors
              if t.error_map is not None and t.checked]
     return drawn + [Text(legend())] if drawn else []

@@ -3,16 +3,33 @@
 from __future__ import annotations
 
 import xml.etree.ElementTree as ET
+from pathlib import PurePath
 
 from ..report import Report, TargetRun, TensorResult
+from ..target import is_file_spec, split_spec
 from ..tensors import format_index
+from ..wording import plural, verb
+
+
+def classname(target: str, layer: str | None = None) -> str:
+    """``samples/crop_yield.py:case`` and layer ``hidden`` -> ``crop_yield.case.hidden``.
+
+    A file target is named by its file's stem (folders and ``.py`` dropped), a module by its
+    dotted name; ``:NAME`` becomes ``.NAME``. CI systems group testcases by these dots.
+    """
+    location, attribute = split_spec(target)
+    if is_file_spec(location):
+        location = PurePath(location.replace("\\", "/")).stem
+    base = location.strip("<>") + (f".{attribute}" if attribute else "")
+    return f"{base}.{layer}" if layer else base
 
 
 def _failure_message(t: TensorResult, threshold: float) -> str:
     if t.checked == 0 or t.max_rel_error is None:
         return f"{t.name}: {t.hint}"
     where = format_index(t.worst_index) if t.worst_index is not None else "-"
-    return (f"{t.name}: {t.failed} of {t.checked} checked coordinates disagree; worst relative "
+    return (f"{t.name}: {t.failed} of {plural(t.checked, 'checked coordinate')} "
+            f"{verb(t.failed, 'disagrees', 'disagree')}; worst relative "
             f"error {t.max_rel_error:.3g} at {where} (threshold {threshold:g})")
 
 
@@ -54,7 +71,7 @@ def _suite(root: ET.Element, run: TargetRun, index: int, timestamp: str, hostnam
         for t in tensors:
             share = report.seconds * t.evaluations / max(report.evaluations, 1)
             case = ET.SubElement(suite, "testcase", {
-                "name": t.name, "classname": f"{run.target}.{t.layer}", "time": f"{share:.6f}"})
+                "name": t.name, "classname": classname(run.target, t.layer), "time": f"{share:.6f}"})
             if t.status == "fail":
                 failure = ET.SubElement(case, "failure", {
                     "message": _failure_message(t, report.threshold), "type": "gradient mismatch"})
@@ -67,7 +84,7 @@ def _suite(root: ET.Element, run: TargetRun, index: int, timestamp: str, hostnam
                     "message": _failure_message(t, report.threshold), "type": "gradient mismatch"})
                 failure.text = _failure_text(t)
     else:
-        case = ET.SubElement(suite, "testcase", {"name": "load and run", "classname": run.target, "time": "0"})
+        case = ET.SubElement(suite, "testcase", {"name": "load and run", "classname": classname(run.target), "time": "0"})
         error = ET.SubElement(case, "error", {"message": run.error or "", "type": "check could not run"})
         error.text = run.error or ""
     out = ET.SubElement(suite, "system-out")

@@ -1,23 +1,31 @@
-"""The per-layer table and the verdict line, with rich.
+"""The per-layer table and the verdict line, with rich, fitted to the console's width.
 
 Styling is data: a colour theme and a plain theme with the same keys. The plain theme
 (no colour, ASCII rules) is used when output is not a terminal or ``NO_COLOR`` is set.
+Numbers, names and indices are never split across lines: narrow consoles get short column
+titles, then fewer columns (see :mod:`.columns`); only hints wrap.
 """
 
 from __future__ import annotations
 
 import io
+import textwrap
 from dataclasses import dataclass
 from typing import IO, Iterable
 
 from rich import box
-from rich.console import Console, RenderableType
+from rich.console import Console, ConsoleOptions, RenderableType, RenderResult
 from rich.table import Table
 from rich.text import Text
 
 from ..report import LayerResult, Report, TargetRun, TensorResult
 from ..tensors import format_index
+from ..wording import plural
+from .columns import Column, Layout, fit
 from .heatmap import maps
+from .lines import header, verdict
+
+__all__ = ["COLOUR", "PLAIN", "header", "verdict", "renderables", "render_text", "run_summary"]
 
 
 @dataclass(frozen=True)
@@ -40,6 +48,21 @@ COLOUR = Theme(
 RULED = box.Box("    \n    \n -- \n    \n    \n    \n    \n    \n", ascii=True)
 PLAIN = Theme(box=RULED, styles={})
 
+COLUMNS = (
+    Column("name", "layer / tensor", "tensor"),
+    Column("shape", "shape", "shape"),
+    Column("checked", "checked", "checked", "right"),
+    Column("rel", "worst rel", "rel", "right"),
+    Column("noise", "± noise", "±", "right"),
+    Column("abs", "worst abs", "abs", "right"),
+    Column("at", "at", "at"),
+    Column("status", "status", "status"),
+    Column("hint", "hint", "hint"),
+)
+DROP_ORDER = ("shape", "abs", "noise", "checked", "at")  # dropped first to last
+OUTCOME_MIN = 16  # the run summary's outcome column, which wraps the sentence of a failed run
+HINT_AFTER = 0  # columns given up to keep hints in the table (beyond it they go below)
+
 
 def fmt(value: float | None) -> str:
     return "-" if value is None else f"{value:.1e}"
@@ -49,48 +72,77 @@ def shape_text(shape: tuple[int, ...]) -> str:
     return "x".join(str(n) for n in shape) if shape else "scalar"
 
 
-def _row(t: TensorResult, theme: Theme) -> list[Text | str]:
+def _cells(t: TensorResult) -> dict[str, str]:
     checked = f"{t.checked}/{t.size}" if t.kind != "unknown" else "-"
     if t.directions:
         bad = sum(1 for d in t.directions if not d.ok)
         checked += f" +{len(t.directions)}dir" + (f"({bad} off)" if bad else "")
-    where = format_index(t.worst_index) if t.worst_index is not None else "-"
     worst = fmt(t.max_rel_error)
     if t.max_rel_error is None and t.directions:  # only directions: show their worst
         worst = fmt(max(d.rel_error for d in t.directions)) + " dir"
-    return [
-        Text("  " + t.name),
-        shape_text(t.shape),
-        checked,
-        worst,
-        fmt(t.worst_noise),
-        fmt(t.max_abs_error),
-        where,
-        Text(t.status, style=theme.style(t.status)),
-        t.hint or t.inconclusive_reason or "",
-    ]
+    return {
+        "name": "  " + t.name, "shape": shape_text(t.shape), "checked": checked, "rel": worst,
+        "noise": fmt(t.worst_noise), "abs": fmt(t.max_abs_error),
+        "at": format_index(t.worst_index) if t.worst_index is not None else "-",
+        "status": t.status, "hint": t.hint or t.inconclusive_reason or "",
+    }
 
 
-def table(report: Report, theme: Theme) -> Table:
+def layout(report: Report, width: int) -> tuple[Layout, list[dict[str, str]]]:
+    """The columns that fit ``width``, and each tensor's cells."""
+    rows = [_cells(t) for t in report.tensors]
+    cells = {c.key: [r[c.key] for r in rows] for c in COLUMNS}
+    cells["name"] += [layer.name for layer in report.layers]
+    return fit(COLUMNS, cells, width, DROP_ORDER, HINT_AFTER), rows
+
+
+class AtLeast:
+    """A renderable drawn at least ``width`` wide: a table too wide for the console stays
+    whole (the terminal wraps its lines) rather than having its numbers split."""
+
+    def __init__(self, renderable: RenderableType, width: int) -> None:
+        self.renderable, self.width = renderable, width
+
+    def __rich_console__(self, console: Console, options: ConsoleOptions) -> RenderResult:
+        yield from console.render(self.renderable, options.update_width(max(options.max_width, self.width)))
+
+
+class Whole:
+    """A line drawn unbroken, even past the console's width (the terminal wraps it, whole)."""
+
+    def __init__(self, text: Text) -> None:
+        self.text = text
+
+    def __rich_console__(self, console: Console, options: ConsoleOptions) -> RenderResult:
+        yield from console.render(self.text, options.update(no_wrap=True, overflow="ignore"))
+
+
+def _wrap(text: str, width: int) -> str:
+    """``text`` wrapped between words only: a word longer than ``width`` stays whole."""
+    return "\n".join(textwrap.wrap(text, width, break_long_words=False, break_on_hyphens=False))
+
+
+def table(report: Report, theme: Theme, width: int = 120) -> tuple[RenderableType, list[RenderableType]]:
+    """The per-layer table fitted to ``width``, and the hints that go below it (if any)."""
+    chosen, rows = layout(report, width)
     grid = Table(box=theme.box, show_edge=False, pad_edge=False, expand=False)
-    for title, justify in (
-        ("layer / tensor", "left"), ("shape", "left"), ("checked", "right"),
-        ("worst rel", "right"), ("± noise", "right"), ("worst abs", "right"), ("at", "left"),
-        ("status", "left"), ("hint", "left"),
-    ):
-        grid.add_column(title, justify=justify, overflow="fold")  # type: ignore[arg-type]
+    for c in chosen.columns:
+        wraps = c.key == "hint"
+        grid.add_column(c.short if chosen.short_titles else c.title, justify=c.justify,  # type: ignore[arg-type]
+                        no_wrap=not wraps, overflow="fold")
+    cells = iter(rows)
+    below: list[RenderableType] = []
     for layer in report.layers:
-        grid.add_row(Text(layer.name, style=theme.style("layer")), *[""] * 8)
+        grid.add_row(Text(layer.name, style=theme.style("layer")), *[""] * (len(chosen.columns) - 1))
         for t in layer.tensors:
-            grid.add_row(*_row(t, theme))
-    return grid
-
-
-def header(report: Report) -> str:
-    return (
-        f"gradprobe · {report.target} · {report.method} · threshold {report.threshold:g} "
-        f"({report.compute_dtype}) · seed {report.seed}"
-    )
+            row = next(cells)
+            grid.add_row(*[Text(row[c.key], style=theme.style(t.status)) if c.key == "status"
+                           else row[c.key] for c in chosen.columns])
+            said = t.hint or t.inconclusive_reason
+            if said and not chosen.hints_inline:
+                label = "hint" if t.hint else "inconclusive"
+                below.append(Whole(Text(_wrap(f"{label} for {t.name}: {said}", width))))
+    return AtLeast(grid, chosen.width), below
 
 
 def _what_is_wrong(layer: LayerResult) -> str:
@@ -134,42 +186,24 @@ def stack_line(report: Report) -> str | None:
     return line
 
 
-def verdict(report: Report) -> str:
-    """One line: the outcome, what is wrong, what it cost."""
-    n = len(report.tensors)
-    cost = f"{report.evaluations} evaluations in {report.seconds:.2f} s"
-    if not report.ok and not report.failing_tensors:  # a stack layer wrong on its own only
-        return f"FAIL  the own backward of {', '.join(report.error_enters_at or ())} is wrong · {cost}"
-    if not report.ok:
-        bad = report.failing_tensors
-        names = ", ".join(t.name for t in bad[:5]) + (" ..." if len(bad) > 5 else "")
-        return f"FAIL  {len(bad)} of {n} tensors disagree beyond {report.threshold:g}: {names} · {cost}"
-    extras = []
-    kinked = report.count("kink")
-    unsure = report.count("inconclusive")
-    if kinked:
-        extras.append(f"{kinked} at a kink")
-    if unsure:
-        extras.append(f"{unsure} inconclusive")
-    more = f" ({', '.join(extras)})" if extras else ""
-    return f"ok  {n} tensors agree within {report.threshold:g}{more} · {cost}"
-
 
 def renderables(
-    report: Report, theme: Theme, quiet: bool = False, with_maps: bool = False
+    report: Report, theme: Theme, quiet: bool = False, with_maps: bool = False, width: int = 120
 ) -> Iterable[RenderableType]:
     style = theme.style("ok") if report.ok else theme.style("bad")
     if not quiet:
-        yield Text(header(report), style=theme.style("dim"))
-        yield table(report, theme)
+        yield Whole(Text(header(report, width), style=theme.style("dim")))
+        grid, hints = table(report, theme, width)
+        yield grid
+        yield from hints
         if with_maps:
-            yield from maps(report, colour=theme is not PLAIN)
+            yield from maps(report, colour=theme is not PLAIN, width=width)
         for note in report.notes:
-            yield Text(f"note: {note}", style=theme.style("note"))
+            yield Whole(Text(_wrap(f"note: {note}", width), style=theme.style("note")))
     line = stack_line(report)
     if line is not None:
-        yield Text(line, style=style)
-    yield Text(verdict(report), style=style)
+        yield Whole(Text(_wrap(line, width), style=style))
+    yield Whole(Text(verdict(report, width), style=style))
 
 
 def plain_console(file: IO[str], width: int = 120) -> Console:
@@ -185,23 +219,28 @@ def render_text(
     """The report as plain text (no colour), e.g. for pytest messages and logs."""
     buffer = io.StringIO()
     console = plain_console(buffer, width)
-    for item in renderables(report, PLAIN, quiet, with_maps):
-        console.print(item)
+    for item in renderables(report, PLAIN, quiet, with_maps, width):
+        console.print(item, crop=False)
     return "".join(line.rstrip() + "\n" for line in buffer.getvalue().splitlines())
 
 
-def run_summary(runs: list[TargetRun], exit_code: int, theme: Theme) -> Table:
-    """One row per target of a run, and the run's exit code."""
+def run_summary(runs: list[TargetRun], exit_code: int, theme: Theme) -> RenderableType:
+    """One row per target of a run, and the run's exit code; target names are never split
+    (on a narrow console the table is left wider than it rather than cut)."""
     grid = Table(box=theme.box, show_edge=False, pad_edge=False,
-                 title=f"{len(runs)} targets, exit code {exit_code}", title_justify="left")
-    for title in ("target", "tensors", "failing", "outcome"):
-        grid.add_column(title, overflow="fold")
+                 title=f"{plural(len(runs), 'target')}, exit code {exit_code}", title_justify="left")
+    for title in ("target", "tensors", "failing"):
+        grid.add_column(title, no_wrap=True, overflow="ignore")
+    grid.add_column("outcome", min_width=OUTCOME_MIN, overflow="fold")  # the only column that wraps
     for run in runs:
         if run.report is None:
-            grid.add_row(run.target, "-", "-", Text(run.error or "could not run", style=theme.style("fail")))
+            why = (run.error or "").removeprefix(f"{run.target}: ")  # the target is in its column
+            grid.add_row(run.target, "-", "-", Text(f"could not run: {why}" if why else "could not run",
+                                                    style=theme.style("fail"), overflow="fold"))
             continue
         failing = len(run.report.failing_tensors)
         outcome = "ok" if run.report.ok else "fail"
         grid.add_row(run.target, str(len(run.report.tensors)), str(failing),
                      Text(outcome, style=theme.style("pass" if run.report.ok else "fail")))
-    return grid
+    need = max(len(r.target) for r in runs) + len("tensors") + len("failing") + OUTCOME_MIN + 3 * 3
+    return AtLeast(grid, need)

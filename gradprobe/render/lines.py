@@ -1,0 +1,101 @@
+"""The one-line texts about a report: header, verdict and the failure line, fitted to a width.
+
+Lines are built from parts joined by `` · ``; when a width is given, a line breaks only
+between parts (or drops its optional tail), so numbers and names are never split.
+"""
+
+from __future__ import annotations
+
+from ..report import Report, TensorResult
+from ..tensors import format_index
+from ..wording import plural, verb
+
+SEP = " · "
+
+
+def header_parts(report: Report) -> list[str]:
+    return ["gradprobe", report.target, report.method,
+            f"threshold {report.threshold:g} ({report.compute_dtype})", f"seed {report.seed}"]
+
+
+def wrap_parts(parts: list[str], width: int | None, indent: str = "  ") -> str:
+    """``parts`` joined by `` · ``, broken between parts so no line passes ``width``."""
+    if width is None:
+        return SEP.join(parts)
+    lines = [parts[0]]
+    for part in parts[1:]:
+        if len(lines[-1]) + len(SEP) + len(part) <= width:
+            lines[-1] += SEP + part
+        else:
+            lines.append(indent + SEP.lstrip() + part)
+    return "\n".join(lines)
+
+
+def header(report: Report, width: int | None = None) -> str:
+    return wrap_parts(header_parts(report), width)
+
+
+def _names(tensors: tuple[TensorResult, ...], room: int | None) -> str:
+    """Tensor names, comma-separated; as many whole names as fit in ``room``, then ``+N more``."""
+    names = [t.name for t in tensors]
+    shown = names[:5]
+    if room is not None:
+        while len(shown) > 1 and len(", ".join(shown)) + len(f" +{len(names)} more") > room:
+            shown.pop()
+    text = ", ".join(shown)
+    return text + (f" +{len(names) - len(shown)} more" if len(shown) < len(names) else "")
+
+
+def verdict(report: Report, width: int | None = None) -> str:
+    """One line: the outcome, what is wrong and, when it fits ``width``, what it cost."""
+    n = len(report.tensors)
+    cost = f"{plural(report.evaluations, 'evaluation')} in {report.seconds:.2f} s"
+    if not report.ok and not report.failing_tensors:  # a stack layer wrong on its own only
+        line = f"FAIL  the own backward of {', '.join(report.error_enters_at or ())} is wrong"
+        return line if width is not None and len(line + SEP + cost) > width else line + SEP + cost
+    if not report.ok:
+        bad = report.failing_tensors
+        head = (f"FAIL  {len(bad)} of {plural(n, 'tensor')} {verb(len(bad), 'disagrees', 'disagree')} "
+                f"beyond {report.threshold:g}: ")
+        full = head + _names(bad, None) + SEP + cost
+        if width is None or len(full) <= width:
+            return full
+        return head + _names(bad, width - len(head))
+    extras = []
+    kinked, unsure = report.count("kink"), report.count("inconclusive")
+    if kinked:
+        extras.append(f"{kinked} at a kink")
+    if unsure:
+        extras.append(f"{unsure} inconclusive")
+    more = f" ({', '.join(extras)})" if extras else ""
+    line = f"ok  {plural(n, 'tensor')} {verb(n, 'agrees', 'agree')} within {report.threshold:g}{more}"
+    if width is None or len(line + SEP + cost) <= width:
+        return line + SEP + cost
+    return line
+
+
+def failure_line(report: Report) -> str:
+    """The first line of a failure message, short because pytest's summary cuts it at the
+    terminal's width: the failing tensors, then the worst relative error, where, and the
+    threshold it exceeds (``W disagrees: rel error 2.0e+00 at [0, 0] > 1e-06``)."""
+    bad = report.failing_tensors
+    if not bad:
+        return f"{report.target}: every tensor agrees within {report.threshold:g}"
+    names = _names(bad, None)
+    rated = [t for t in bad if t.max_rel_error is not None or t.directions]
+    if not rated:
+        return f"{names} {verb(len(bad), 'fails', 'fail')}: {bad[0].hint or 'its gradient could not be compared'}"
+    worst = max(rated, key=_worst_error)
+    where = f" in {worst.name}" if len(bad) > 1 else ""
+    if worst.max_rel_error is None:
+        where += " along a random direction"
+    elif worst.worst_index is not None:
+        where += f" at {format_index(worst.worst_index)}"
+    return (f"{names} {verb(len(bad), 'disagrees', 'disagree')}: rel error "
+            f"{_worst_error(worst):.1e}{where} > {report.threshold:g}")
+
+
+def _worst_error(t: TensorResult) -> float:
+    if t.max_rel_error is not None:
+        return t.max_rel_error
+    return max((d.rel_error for d in t.directions), default=0.0)
