@@ -9,8 +9,9 @@ swapped, |x|' as 1, tanh' as 1 - y, softplus' as sigmoid(2x)).
 Which tensors must then fail is decided by comparing the buggy backward with the correct one
 (our own choice of bar, not a convention): the tensor the bug is written into, for the first
 four kinds; for the last two, every tensor whose gradient moved by more than 1% of its own
-largest entry and by more than 1e-4 of the largest gradient entry of the whole target. A
-tensor whose gradient did not move at all must not fail.
+largest entry and by more than 1e-4 of the largest gradient entry of the whole target. Of
+these, only tensors where the error is not faint (:mod:`composer.scale`) must fail. A tensor
+whose gradient did not move at all must not fail.
 """
 
 from __future__ import annotations
@@ -21,6 +22,7 @@ import numpy as np
 
 from .graph import Bug, Net
 from .ops import WRONG_DERIVATIVE
+from .scale import FAINT, sensitivity
 
 KINDS = ("sign", "factor", "transpose", "element", "accumulation", "derivative")
 
@@ -91,6 +93,8 @@ def plant(rng: np.random.Generator, net: Net, kind: str, grad_output=None) -> Pl
             k for k in good
             if (d := float(np.max(np.abs(bad[k] - good[k])))) > 1e-2 * float(np.max(np.abs(good[k])))
             and d > 1e-4 * top)
+    diff = {k: bad[k] - good[k] for k in required}
+    required = frozenset(k for k, v in sensitivity(net, diff, grad_output).items() if v >= FAINT)
     if not required:
         return None
     return Planted(buggy, required, untouched, index)

@@ -59,7 +59,7 @@ class Net:
     def backward(self, params, inputs, grad_output=None):
         return backward(self, params, inputs, grad_output)
 
-    def with_bug(self, bug: Bug) -> "Net":
+    def with_bug(self, bug: Bug) -> Net:
         return replace(self, bug=bug)
 
     # -- structure --------------------------------------------------------------------

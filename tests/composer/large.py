@@ -7,6 +7,8 @@ activation kind, a mean squared error. The bug is one element of the biggest wei
 
 from __future__ import annotations
 
+from itertools import pairwise
+
 import numpy as np
 
 from .graph import Bug, Net, Node
@@ -21,7 +23,7 @@ def mlp(seed: int, sizes: tuple[int, ...], activation: str, batch: int = 32) -> 
     params: dict[str, np.ndarray] = {}
     nodes: list[Node] = []
     h = "i:x"
-    for layer, (d_in, d_out) in enumerate(zip(sizes[:-1], sizes[1:]), start=1):
+    for layer, (d_in, d_out) in enumerate(pairwise(sizes), start=1):
         params[f"layer{layer}.W"] = rng.normal(size=(d_in, d_out)) * np.sqrt(2.0 / d_in)
         params[f"layer{layer}.b"] = 0.1 * rng.normal(size=d_out)
         nodes.append(Node(f"mm{layer}", "matmul", (h, f"p:layer{layer}.W")))

@@ -13,8 +13,9 @@ tie and a max over an axis tie both go to the first argument. Each is a valid su
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
-from typing import Any, Callable
+from typing import Any
 
 import numpy as np
 

@@ -25,13 +25,9 @@ def reference_gradient(net: Net, grad_output: np.ndarray | None = None, dps: int
         for name, value in net.params.items():
             grad = np.zeros(value.shape)
             for idx in np.ndindex(value.shape):
-                def scalar(t, name=name, idx=idx):
-                    params = dict(base)
-                    params[name] = base[name].copy()
-                    params[name][idx] = t
-                    out = forward_mp(net, params, net.inputs)
-                    return out if weights is None else np.sum(np.asarray(out, dtype=object) * weights)
-                grad[idx] = float(mpmath.diff(scalar, base[name][idx]))
+                grad[idx] = float(mpmath.diff(
+                    lambda t, name=name, idx=idx: _along(net, base, weights, name, idx, t),
+                    base[name][idx]))
             result[name] = grad
     return result
 
@@ -68,3 +64,30 @@ def nearest_kink(net: Net) -> float:
 
 def _gap(a: np.ndarray) -> float:
     return float(min(abs(v) for v in a.ravel())) if a.size else np.inf
+
+
+def kinked_tensors(net: Net, grad_output: np.ndarray | None = None) -> set[str]:
+    """The params with a coordinate whose one-sided difference quotients differ: step 1e-25 at
+    60 digits, so rounding stays below 1e-30 of the function's value and curvature contributes
+    about 1e-25 of the slope; the bar is 1e-12 of the slopes plus 1e-28 of the value."""
+    with mpmath.workdps(60):
+        base = {k: to_mp(v) for k, v in net.params.items()}
+        weights = None if grad_output is None else to_mp(grad_output)
+        h = mpmath.mpf("1e-25")
+        kinked = set()
+        for name, value in base.items():
+            for idx in np.ndindex(value.shape):
+                x0 = value[idx]
+                f = [_along(net, base, weights, name, idx, x0 + k * h) for k in (-1, 0, 1)]
+                right, left = (f[2] - f[1]) / h, (f[1] - f[0]) / h
+                if abs(right - left) > mpmath.mpf("1e-12") * (abs(right) + abs(left)) + mpmath.mpf("1e-28") * abs(f[1]):
+                    kinked.add(name)
+    return kinked
+
+
+def _along(net: Net, base: dict, weights, name: str, idx: tuple, t) -> mpmath.mpf:
+    params = dict(base)
+    params[name] = base[name].copy()
+    params[name][idx] = t
+    out = forward_mp(net, params, net.inputs)
+    return out if weights is None else np.sum(np.asarray(out, dtype=object) * weights)
