@@ -7,7 +7,10 @@ A point can be placed
 - ``at`` a kink: one row of the input ``x`` is zero, so that row's first pre-activation is the
   bias alone, and one bias element is set to the kink exactly (0 for ReLU/leaky/abs, the upper
   bound for clip, equal biases for a max of two branches), or an absolute-error residual is made
-  exactly 0. Exact in float32 and float64 alike: ``0 * w`` sums to 0 and ``0 + b == b``.
+  exactly 0, or two output columns are made equal so that a max over the output axis ties
+  (ties go to the first). Exact in float32 and float64 alike: ``0 * w`` sums to 0 and
+  ``0 + b == b``; equal columns give equal dot products (in the mpmath reference exactly; in
+  numpy to rounding, which the expectations allow: kink or pass).
 - ``near`` a kink: the same zero row with the bias element ``+-1e-9`` or ``+-1e-7`` (the
   derivative exists there; it is the true derivative the backward returns).
 - at a ``corner``: a Huber residual exactly at its switch point (first derivative continuous,
@@ -140,7 +143,8 @@ def _target(b: _Builder, pred: str, like: np.ndarray) -> str:
 
 def _scalar_head(b: _Builder, pred: str, k: int, kink: str) -> tuple[str, str]:
     rng = b.rng
-    loss = "absolute" if kink == "loss" else "huber" if kink == "corner" else str(rng.choice(LOSSES))
+    forced = {"loss": "absolute", "corner": "huber", "tie": "max_squared"}
+    loss = forced.get(kink) or str(rng.choice(LOSSES))
     values = b.values()
     p = np.asarray(values[pred])
     if loss == "xent":
@@ -174,8 +178,8 @@ def _scalar_head(b: _Builder, pred: str, k: int, kink: str) -> tuple[str, str]:
     return total, loss
 
 
-def _array_head(b: _Builder, pred: str) -> str:
-    kind = str(b.rng.choice(OUTPUTS))
+def _array_head(b: _Builder, pred: str, kind: str | None = None) -> str:
+    kind = kind or str(b.rng.choice(OUTPUTS))
     b.parts.append(f"array output {kind}")
     if kind == "pred":
         return pred
@@ -200,7 +204,8 @@ def build(rng: np.random.Generator, dtype=np.float64, scalar: bool = True, kink:
     batch, d0, d1, k = (int(v) for v in rng.integers([3, 2, 2, 2], [6, 5, 5, 5]))
     b.inputs["x"] = rng.normal(size=(batch, d0)).astype(b.dtype)
     at_loss = kink == "at" and scalar and rng.random() < 0.25
-    h = _first_layer(b, "i:x", d0, d1, "none" if at_loss or kink == "corner" else kink)
+    tie = kink == "at" and not at_loss and rng.random() < 0.25
+    h = _first_layer(b, "i:x", d0, d1, "none" if at_loss or tie or kink == "corner" else kink)
     d = d1
     kinds = [str(v) for v in rng.choice(BLOCKS, size=int(rng.integers(0, 3)))]
     if require == "square" and not {"residual", "product", "max2"} & set(kinds):
@@ -209,11 +214,18 @@ def build(rng: np.random.Generator, dtype=np.float64, scalar: bool = True, kink:
         kinds.append(str(rng.choice(["residual", "product"])))
     for kind in kinds:
         h, d = _block(b, h, d, kind)
-    pred = b.dense(h, d, k)[0]
+    pred, head = b.dense(h, d, k)
+    if tie:  # two equal output columns: a max over them ties exactly, in every row
+        j1, j2 = (int(v) for v in sorted(rng.choice(k, size=2, replace=False)))
+        b.params[f"{head}.W"][:, j2] = b.params[f"{head}.W"][:, j1]
+        b.params[f"{head}.b"][j2] = b.params[f"{head}.b"][j1]
+        b.kinks.update({f"{head}.W", f"{head}.b"})
+        b.parts.append(f"outputs {j1} and {j2} equal: max over the axis ties")
     if scalar:
-        out, _ = _scalar_head(b, pred, k, "loss" if at_loss else "corner" if kink == "corner" else "none")
+        mode = "loss" if at_loss else "tie" if tie else "corner" if kink == "corner" else "none"
+        out, _ = _scalar_head(b, pred, k, mode)
     else:
-        out = _array_head(b, pred)
+        out = _array_head(b, pred, "maxax" if tie else None)
     out = b.add("cmul", out, c=multiplier)
     b.parts.append(f"x {multiplier:.1e}, params ~{scale:.1e}, {b.dtype}")
     return Net(b.nodes, b.params, b.inputs, out, scalar, b.dtype, "; ".join(b.parts), frozenset(b.kinks))
