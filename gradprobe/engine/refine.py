@@ -19,7 +19,7 @@ from .probe import Pairs, TensorProbe
 
 RATIO = 2.0
 ROWS = 5
-TINY = 2.0**-12  # the kink test's small step, relative to the ladder's smallest
+TINY_NOISE_UNITS = 80.0  # the tiny step's one-sided noise (2 delta / t) is 1/40 of the jump
 
 
 @dataclass(frozen=True)
@@ -71,12 +71,24 @@ NOISE_SHARE_UNITS = 2.0
 class Tiny:
     """One-sided and central quotients at a step far below the ladder's."""
 
-    gap: np.ndarray  # right - left
+    right: np.ndarray  # one-sided quotients at the tiny step
+    left: np.ndarray
     central: Estimate
     one_sided_noise: np.ndarray
+    step: np.ndarray
+
+    @property
+    def gap(self) -> np.ndarray:
+        return self.right - self.left
 
 
-def tiny_pair(probe: TensorProbe, flat: np.ndarray, smallest: np.ndarray) -> Tiny:
-    p = probe.pairs(flat, smallest * TINY)
+def tiny_pair(probe: TensorProbe, flat: np.ndarray, smallest: np.ndarray, jump: np.ndarray) -> Tiny:
+    """A pair at the smallest step at which rounding noise still leaves ``jump`` (the gap
+    between the sides) plain to see, between 2**-30 and 2**-4 of the ladder's smallest."""
+    delta = probe.loss_noise(np.full(flat.size, probe.f0))
+    visible = TINY_NOISE_UNITS * delta / np.maximum(np.abs(jump), 1e-300)
+    step = np.clip(visible, smallest * 2.0**-30, smallest * 2.0**-4)
+    p = probe.pairs(flat, step)
     qc, nc, qr, nr, ql, nl = _quotients(probe, p)
-    return Tiny(gap=qr - ql, central=Estimate(qc, 2.0 * nc), one_sided_noise=np.maximum(nr, nl))
+    return Tiny(right=qr, left=ql, central=Estimate(qc, 2.0 * nc),
+                one_sided_noise=np.maximum(nr, nl), step=step)

@@ -23,7 +23,9 @@ from .refine import Ladder, tiny_pair
 from .status import FAIL, INCONCLUSIVE, KINK, PASS
 
 SIGNIFICANCE = 3.0  # a discrepancy beyond 3 error bounds is evidence of a bug
-JUMP_KEPT = 0.25  # at a kink the jump seen at a tiny step stays within 25% of the ladder's
+LOPSIDED = 0.01  # a side whose bound is 100 times tighter than the other's has settled
+JUMP_KEPT = 0.05  # at a kink the jump seen at a tiny step stays within 5% of the ladder's
+CURVATURE_SLACK = 0.01  # first-order quotients at the tiny step may differ by 1% of the jump
 
 NOISE = "rounding noise in the loss is above the threshold at every step tried"
 UNSETTLED = "the numeric estimate does not settle as the step shrinks (the loss is not smooth on the scale of the steps tried)"
@@ -89,6 +91,18 @@ def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder) -> Judged
         for k in range(flat.size)
     ]
     value, error = best.value.copy(), best.error.copy()
+    # One side settles and the other does not: a kink lies within the steps on that other
+    # side, not at the point, and the settled side's derivative is the derivative here.
+    settled_left = (left.error < LOPSIDED * right.error) & (right.error > tol_sides)
+    settled_right = (right.error < LOPSIDED * left.error) & (left.error > tol_sides)
+    lopsided = np.flatnonzero((status == INCONCLUSIVE) & ~differ & (settled_left | settled_right))
+    if lopsided.size:
+        side = Estimate(np.where(settled_left, left.value, right.value)[lopsided],
+                        np.where(settled_left, left.error, right.error)[lopsided])
+        status[lopsided] = _verdicts(a[lopsided], side, probe.tolerance(flat[lopsided], side.value))
+        value[lopsided], error[lopsided] = side.value, side.error
+        for k in lopsided.tolist():
+            reasons[k] = NEAR_KINK if status[k] == INCONCLUSIVE else None
     which = np.flatnonzero(differ)
     if which.size:
         _judge_sides(probe, flat, ladder.pick(which), which, status, value, error, reasons)
@@ -104,7 +118,7 @@ def _judge_sides(
     a = probe.a[f]
     left, right = ladder.left, ladder.right
     jump = right.value - left.value
-    tiny = tiny_pair(probe, f, ladder.smallest)
+    tiny = tiny_pair(probe, f, ladder.smallest, jump)
     kept = np.abs(tiny.gap - jump) <= JUMP_KEPT * np.abs(jump) + 4.0 * tiny.one_sided_noise
     # At the point: the analytic value must lie between the sides (a subgradient).
     side_error = np.maximum(left.error, right.error)
@@ -114,14 +128,18 @@ def _judge_sides(
     inside = (a >= low) & (a <= high)
     nearer = np.where(np.abs(a - left.value) <= np.abs(a - right.value), left.value, right.value)
     nearer_error = np.where(np.abs(a - left.value) <= np.abs(a - right.value), left.error, right.error)
-    # Near it: the tiny step no longer reaches the kink, its central difference is smooth.
-    near = tiny.central
+    # Near it: at the tiny step the side that crossed the kink has moved towards the other
+    # side (by jump * distance / step), the clean side has not, and the clean side's
+    # derivative is the derivative at the point. With both clean, the tiny step no longer
+    # reaches the kink and its central difference is smooth.
+    slack = tiny.one_sided_noise + CURVATURE_SLACK * np.abs(jump)
+    clean_right = np.abs(tiny.right - right.value) <= SIGNIFICANCE * (right.error + slack)
+    clean_left = np.abs(tiny.left - left.value) <= SIGNIFICANCE * (left.error + slack)
+    near = Estimate(np.where(clean_right & ~clean_left, right.value,
+                             np.where(clean_left & ~clean_right, left.value, tiny.central.value)),
+                    np.where(clean_right & ~clean_left, right.error,
+                             np.where(clean_left & ~clean_right, left.error, tiny.central.error)))
     near_status = _verdicts(a, near, probe.tolerance(f, near.value))
-    # A clean side that agrees with the tiny step also decides a pass.
-    for side in (left, right):
-        agrees = np.abs(side.value - near.value) <= SIGNIFICANCE * (side.error + near.error)
-        within = np.abs(a - side.value) <= probe.tolerance(f, side.value)
-        near_status[(near_status != PASS) & agrees & within] = PASS
     for j, k in enumerate(which.tolist()):
         if kept[j]:
             status[k] = KINK if inside[j] else FAIL
