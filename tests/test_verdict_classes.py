@@ -228,3 +228,33 @@ def test_a_float32_step_that_overflows_shrinks_instead_of_stopping_the_check():
 
     report = probe(forward, backward, {"w": w})
     assert report.ok, report.render()
+
+
+def test_a_float32_only_error_in_backward_fails_against_its_float64_run():
+    """A branch taken only for float32 arrays: the float64 run is right, float32 is not."""
+    rng = np.random.default_rng(9)
+    w = rng.normal(size=5).astype(np.float32)
+
+    def forward(p, i):
+        return np.sum(np.sin(p["w"]))
+
+    def backward(p, i):
+        g = np.cos(p["w"])
+        return {"w": g * np.float32(1.05) if g.dtype == np.float32 else g}
+
+    t = probe(forward, backward, {"w": w}).tensor("w")
+    assert t.status == "fail" and t.failed == 5
+    assert all(abs(d.analytic / d.numeric - 1.05) < 1e-3 for d in t.details)
+
+
+def test_float32_code_that_rounds_to_float32_itself_keeps_the_float32_threshold():
+    w = np.linspace(0.1, 1.0, 6, dtype=np.float32)
+
+    def forward(p, i):
+        return np.sum(np.exp(p["w"]))
+
+    def backward(p, i):
+        return {"w": np.exp(p["w"]).astype(np.float32)}
+
+    report = probe(forward, backward, {"w": w})
+    assert report.ok and report.threshold == 1e-2 and report.compute_dtype == "float32"

@@ -17,6 +17,7 @@ import numpy as np
 from ..errors import BadOutputError, ComplexStepError, UserCodeError
 from .ladder import Estimate
 from .probe import Pairs, TensorProbe
+from .promote import disagreeing
 from .refine import RATIO, ROWS, climb
 from .status import FAIL, INCONCLUSIVE, PASS
 from .verdict import Judged, judge_ladder, judge_plain
@@ -47,13 +48,14 @@ class CoordinateOutcome:
     note: str | None = None  # said once for the tensor (a method fallen back from)
 
 
-def _bend(probe: TensorProbe, p: Pairs) -> np.ndarray:
-    """How much the slope changes across the step, relative to the gradient's size, with
-    the rounding noise of the one-sided slopes taken off (0 where noise hides it)."""
+def _bend(probe: TensorProbe, p: Pairs, typical: float | None = None) -> np.ndarray:
+    """How much the slope changes across the step, relative to the coordinate's slope (or
+    to ``typical`` where that is larger), with the rounding noise of the one-sided slopes
+    taken off (0 where noise hides it)."""
     right = (p.f_plus - probe.f0) / p.h_plus
     left = (probe.f0 - p.f_minus) / p.h_minus
     size = np.maximum(np.maximum(np.abs(p.central), np.abs(left)),
-                      np.maximum(np.abs(right), probe.grad_scale))
+                      np.maximum(np.abs(right), typical or probe.floor))
     noise = 4 * p.noise / np.minimum(p.h_plus, p.h_minus)
     return np.maximum(np.abs(right - left) - noise, 0.0) / size
 
@@ -69,7 +71,9 @@ def _start_steps(probe: TensorProbe, flat: np.ndarray, first: Pairs, h: np.ndarr
     noise = 2 * first.noise / (first.h_plus + first.h_minus)
     up = np.clip(np.ceil(np.log2(np.maximum(8.0 * noise / want, 1.0))), 0, MAX_UP)
     up[down > 0] = 0
-    room = np.floor(np.log2(BEND_LIMIT / np.maximum(bend, 1e-300)))
+    # A re-estimate for accuracy starts up to 4 steps higher, as far as the slope's change
+    # stays small next to the tensor's typical gradient.
+    room = np.floor(np.log2(BEND_LIMIT / np.maximum(_bend(probe, first, probe.grad_scale), 1e-300)))
     start = h * 2.0 ** np.where(down > 0, -down, np.clip(room, 0, 2))
     climbing = np.flatnonzero(up > 2)
     if climbing.size:
@@ -222,13 +226,20 @@ def _subset(j: Judged, which: np.ndarray) -> Judged:
 
 
 def _outcome(probe: TensorProbe, flat: np.ndarray, judged: Judged, start_count: int) -> CoordinateOutcome:
-    a = probe.a[flat]
+    a = probe.a[flat].copy()
     numeric = judged.estimate.value
     scale = probe.denominators(flat, numeric)
+    status = judged.status
+    if probe.float32_analytic is not None:  # float32 code judged on its float64 run
+        off = disagreeing(probe.float32_analytic[flat], a, scale)
+        if off.any():
+            status = status.copy()
+            status[off] = FAIL
+            a[off] = probe.float32_analytic[flat][off]  # report the value the code returns
     err = np.abs(a - numeric)
     return CoordinateOutcome(
         flat=flat, analytic=a, numeric=numeric, error_estimate=judged.estimate.error,
-        rel=err / scale, abs=err, scale=scale, status=judged.status,
+        rel=err / scale, abs=err, scale=scale, status=status,
         reasons=judged.reasons, evaluations=probe.evaluator.count - start_count,
     )
 

@@ -21,7 +21,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .ladder import Estimate, tableau
-from .probe import ANALYTIC_NOISE_UNITS, TensorProbe
+from .probe import TensorProbe
 
 SIGNIFICANCE = 4.0  # a discrepancy beyond 4 error bounds is real
 ROWS = 4
@@ -98,8 +98,6 @@ def check_direction(
         if wide_gap <= SIGNIFICANCE * float(wide[1].error[0] + wide[2].error[0]):
             central = Estimate.better(central, wide[0])
     error = float(central.error[0])
-    if probe.analytic_noise is not None:  # the analytic side's own rounding along u
-        error += ANALYTIC_NOISE_UNITS * float(np.abs(probe.analytic_noise[part]) @ np.abs(u))
     return DirectionCheck(
         discrepancy=float(central.value[0]), error=error,
         analytic=float(probe.a[part] @ u), evaluations=probe.evaluator.count - before, kink=kink,

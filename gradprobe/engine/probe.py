@@ -21,8 +21,7 @@ from .evaluate import Evaluator, Perturbation
 # calibration tests against mpmath (tests/test_estimates.py) hold this bound.
 ROUNDING_UNITS = 8.0
 FLOOR_FRACTION = 1e-3  # denominators never fall below 1e-3 of the tensor's gradient scale
-TARGET_FLOOR_FRACTION = 1e-4
-ANALYTIC_NOISE_UNITS = 4.0  # a discrepancy within 4x the analytic side's rounding is no bug  # ... nor below 1e-4 of the target's largest tensor scale
+TARGET_FLOOR_FRACTION = 1e-4  # ... nor below 1e-4 of the target's largest tensor scale
 
 
 SHRINKS = 6  # a step that meets a non-finite loss shrinks 16-fold, this many times at most
@@ -68,7 +67,7 @@ class TensorProbe:
         threshold: float,
         target_scale: float = 0.0,
         loss_scale: float | None = None,
-        analytic_noise: np.ndarray | None = None,
+        float32_analytic: np.ndarray | None = None,
     ) -> None:
         self.evaluator = evaluator
         self.tensor = tensor
@@ -85,8 +84,8 @@ class TensorProbe:
         # |f| can be far below the size of the terms that round (a sum of signed terms):
         # the loss scale, when known, is the larger of the two.
         self.loss_scale = max(abs(f0), loss_scale or 0.0)
-        # The analytic side's own rounding, measured (float32 code checked in float64).
-        self.analytic_noise = analytic_noise
+        # float32 code checked on its float64 run: the float32 gradient it really returns.
+        self.float32_analytic = float32_analytic
 
     @property
     def size(self) -> int:
@@ -99,12 +98,8 @@ class TensorProbe:
         return np.maximum(np.maximum(np.abs(self.a[flat]), np.abs(numeric)), self.floor)
 
     def tolerance(self, flat: np.ndarray, numeric: np.ndarray) -> np.ndarray:
-        """The absolute discrepancy each coordinate may have: threshold times its scale, and
-        no less than ANALYTIC_NOISE_UNITS times the analytic side's measured rounding."""
-        tol = self.threshold * self.denominators(flat, numeric)
-        if self.analytic_noise is not None:
-            tol = np.maximum(tol, ANALYTIC_NOISE_UNITS * self.analytic_noise[flat])
-        return tol
+        """The absolute discrepancy each coordinate may have: threshold times its scale."""
+        return self.threshold * self.denominators(flat, numeric)
 
     def loss_noise(self, *values: np.ndarray) -> np.ndarray:
         """Rounding noise of loss values near ``values`` (absolute, per coordinate)."""

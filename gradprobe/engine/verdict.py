@@ -95,7 +95,8 @@ def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder) -> Judged
     # side, not at the point, and the settled side's derivative is the derivative here.
     settled_left = (left.error < LOPSIDED * right.error) & (right.error > tol_sides)
     settled_right = (right.error < LOPSIDED * left.error) & (left.error > tol_sides)
-    lopsided = np.flatnonzero((status == INCONCLUSIVE) & ~differ & (settled_left | settled_right))
+    # The central tableau is not to be trusted there, whatever it says.
+    lopsided = np.flatnonzero(~differ & (settled_left | settled_right))
     if lopsided.size:
         side = Estimate(np.where(settled_left, left.value, right.value)[lopsided],
                         np.where(settled_left, left.error, right.error)[lopsided])
