@@ -94,7 +94,8 @@ def test_full_sweep_costs_two_evaluations_per_coordinate_plus_a_constant():
     w = np.linspace(-1, 1, 40)
     report = check(lambda p, i: float(np.sum(np.cos(p["w"]))), lambda p, i: {"w": -np.sin(p["w"])}, {"w": w})
     assert report.ok
-    assert 2 * w.size <= report.evaluations <= 2 * w.size + 6
+    # 2 preflight calls, 3 looking for float32 arithmetic, 3 measuring the loss's rounding
+    assert 2 * w.size + 8 <= report.evaluations <= 2 * w.size + 10
 
 
 def test_grad_output_is_seeded():

@@ -51,7 +51,7 @@ def test_a_value_outside_both_sides_of_a_curved_kink_fails():
 
     def backward(p, i):
         g = 2 * (np.maximum(p["w"], 0) - 2) * (p["w"] > 0)
-        g[0] = 1.0  # sides are 0 and -4
+        g[0] = 3.0  # sides are 0 and -4: 3 lies more than half the jump (2) outside
         return {"w": g}
 
     assert probe(forward, backward, {"w": w}).tensor("w").bad_indices == ((0,),)

@@ -56,8 +56,7 @@ def _ladder(
     probe: TensorProbe, part: np.ndarray, u: np.ndarray, t0: float, rows: int
 ) -> tuple[Estimate, Estimate, Estimate, float]:
     steps = t0 / RATIO ** np.arange(rows)
-    moves = [s * sign * u for s in steps for sign in (1.0, -1.0)]
-    values, predicted = probe.along(part, moves)
+    values, predicted = probe.along(part, [s * sign * u for s in steps for sign in (1.0, -1.0)])
     f_plus, f_minus = values[0::2], values[1::2]
     p_plus, p_minus = predicted[0::2], predicted[1::2]
     right = (f_plus - probe.f0 - p_plus) / steps

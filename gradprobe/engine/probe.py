@@ -67,7 +67,7 @@ class TensorProbe:
         threshold: float,
         target_scale: float = 0.0,
         loss_scale: float | None = None,
-        float32_analytic: np.ndarray | None = None,
+        float32: "TensorProbe | None" = None,
     ) -> None:
         self.evaluator = evaluator
         self.tensor = tensor
@@ -84,8 +84,9 @@ class TensorProbe:
         # |f| can be far below the size of the terms that round (a sum of signed terms):
         # the loss scale, when known, is the larger of the two.
         self.loss_scale = max(abs(f0), loss_scale or 0.0)
-        # float32 code checked on its float64 run: the float32 gradient it really returns.
-        self.float32_analytic = float32_analytic
+        # float32 code checked on its float64 run: the same tensor probed on the float32
+        # code itself, with the float32 gradient it really returns.
+        self.float32 = float32
 
     @property
     def size(self) -> int:
@@ -185,9 +186,15 @@ class TensorProbe:
         analytic change ``a[part] . d`` for the moves ``d`` the forward really saw."""
         x = self.x[part]
         base = as_seen(x, self.compute_dtype)
-        requests, predicted = [], []
-        for s in steps:
-            moved = (x + s).astype(x.dtype)
-            predicted.append(float(self.a[part] @ (as_seen(moved, self.compute_dtype) - base)))
-            requests.append(Perturbation(self.tensor, part, moved))
-        return self.evaluator.losses(requests).real, np.array(predicted)
+        # Serially, two moved copies at a time; a backend gets the whole batch at once.
+        chunk = len(steps) if self.evaluator.backend is not None else 2
+        values, predicted = [], []
+        for start in range(0, len(steps), chunk):
+            requests = []
+            for s in steps[start : start + chunk]:
+                moved = (x + s).astype(x.dtype)
+                predicted.append(float(self.a[part] @ (as_seen(moved, self.compute_dtype) - base)))
+                requests.append(Perturbation(self.tensor, part, moved))
+            values.append(self.evaluator.losses(requests).real)
+            del requests
+        return np.concatenate(values), np.array(predicted)

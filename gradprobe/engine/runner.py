@@ -20,8 +20,10 @@ from .evaluate import Backend, Evaluator, LossFunction, Progress
 from .gradients import Gradients, validate
 from .preflight import ForwardInfo, call_backward, inspect_forward
 from .summary import problem_result, unknown_result
-from .probe import TensorProbe
-from .promote import promote
+from .noise import measured_loss_scale
+from .probe import ROUNDING_UNITS, TensorProbe
+from .sampling import tensor_rng
+from .promote import FLOAT32_AGREEMENT, promote
 from .tensor_check import check_tensor
 
 
@@ -164,6 +166,20 @@ def _numerics(target: Target, ws: Workspace, evaluator: Evaluator, info: Forward
     return Numerics(ws, info.f0, dtype, dtype, {}, {}, why)
 
 
+def _float32_probe(
+    evaluator: Evaluator, numerics: Numerics, ws: Workspace, name: str, grads: Gradients
+) -> TensorProbe | None:
+    """For float32 code checked on its float64 run: the tensor probed on the float32 code,
+    serially, for the coordinates whose float32 gradient leaves its float64 run."""
+    if name not in numerics.float32:
+        return None
+    own = Evaluator(LossFunction(evaluator.loss.forward, ws, evaluator.loss.grad_output))
+    f0 = own.base()
+    evaluator.count += 1
+    return TensorProbe(own, name, ws.owners[name].reshape(-1), numerics.float32[name], f0,
+                       np.dtype(np.float32), FLOAT32_AGREEMENT)
+
+
 def _check_all(
     target: Target, options: CheckOptions, ws: Workspace, evaluator: Evaluator,
     numerics: Numerics, grads: Gradients, started: float, clock: Callable[[], float],
@@ -177,6 +193,9 @@ def _check_all(
         threshold = options.threshold or default_threshold(compute_dtype)
         if compute_dtype != np.float64:
             notes.append(_threshold_note(compute_dtype, numerics.why))
+    analytic = {n: numerics.analytic.get(n, g.reshape(-1)) for n, g in grads.values.items()}
+    loss_scale = measured_loss_scale(evaluator, numerics.workspace, analytic, numerics.f0,
+                                     ROUNDING_UNITS, tensor_rng(options.seed, "", "noise"))
     total = sum(ws.owners[n].size for n in grads.values)
     target_scale = max((float(np.sqrt(np.mean(g**2))) for g in grads.values.values() if g.size), default=0.0)
     results: list[TensorResult] = []
@@ -190,7 +209,8 @@ def _check_all(
             analytic = numerics.analytic.get(name, grads.values[name].reshape(-1))
             probe = TensorProbe(evaluator, name, numerics.workspace.owners[name].reshape(-1),
                                 analytic, numerics.f0, numerics.dtype, threshold, target_scale,
-                                float32_analytic=numerics.float32.get(name))
+                                loss_scale=loss_scale,
+                                float32=_float32_probe(evaluator, numerics, ws, name, grads))
             result, found, outcome = check_tensor(probe, options, total, owner.shape,
                                                   ws.layer(name), ws.kind(name), owner.dtype)
             results.append(result)

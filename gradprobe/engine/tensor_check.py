@@ -62,7 +62,9 @@ def _direction_result(probe: TensorProbe, d: DirectionCheck) -> DirectionResult:
     )
 
 
-def _directions(probe: TensorProbe, count: int, seed: int) -> tuple[list[DirectionCheck], list[np.ndarray]]:
+def _directions(
+    probe: TensorProbe, count: int, seed: int
+) -> tuple[list[DirectionCheck], list[np.ndarray | None]]:
     """``count`` directional checks; a direction hidden by kinks is replaced (twice at most)."""
     rng = tensor_rng(seed, probe.tensor, "directions")
     everything = np.arange(probe.size, dtype=np.int64)
@@ -71,7 +73,7 @@ def _directions(probe: TensorProbe, count: int, seed: int) -> tuple[list[Directi
     while len([c for c in checks if not c.kink]) < count and len(checks) < budget:
         u = unit_direction(probe.size, rng)
         checks.append(check_direction(probe, everything, u))
-        units.append(u)
+        units.append(u if checks[-1].significant else None)  # kept only for localisation
     return checks, units
 
 
@@ -94,7 +96,9 @@ def check_tensor(
         off = [k for k, c in enumerate(checks) if c.significant]
         if off:
             j = max(off, key=lambda k: abs(checks[k].discrepancy) / max(checks[k].error, 1e-300))
-            found = locate(probe, units[j], checks[j].discrepancy, checks[j].error)
+            u = units[j]
+            assert u is not None
+            found = locate(probe, u, checks[j].discrepancy, checks[j].error)
             located = found.evaluations
             flat = np.union1d(flat, found.candidates)
             unconfirmed = any(c.significant and d.rel_error > probe.threshold

@@ -1,0 +1,49 @@
+"""Measuring how much the loss rounds, where |f| understates it.
+
+A loss can be small while the terms it is computed from are large (a squared error of a
+good fit over large values, a sum of signed terms): its rounding is then far above
+eps |f|. Moving every float param by a few units in the last place, in random directions,
+changes the loss by the analytic prediction a . d (bounded by sum |a_i d_i|) plus rounding;
+what exceeds the prediction's bound is rounding, seen directly. Three calls per target.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..tensors import Workspace
+from .evaluate import Evaluator
+
+CALLS = 3
+ULPS = 4.0  # each param moves by this many units of its own last place
+MARGIN = 4.0  # the noise taken is this many times the largest residual seen
+
+
+def measured_loss_scale(
+    evaluator: Evaluator, ws: Workspace, analytic: dict[str, np.ndarray], f0: float,
+    rounding_units: float, rng: np.random.Generator,
+) -> float:
+    """A loss scale L such that rounding_units * eps * L covers the rounding seen."""
+    names = [n for n in analytic if n in ws.owners]
+    if not names:
+        return 0.0
+    eps = float(np.finfo(np.float64).eps)
+    saved = {n: ws.owners[n].copy() for n in names}
+    residual = 0.0
+    try:
+        for _ in range(CALLS):
+            bound = 0.0
+            for n in names:
+                x = saved[n]
+                step = ULPS * np.spacing(np.abs(x).astype(x.dtype)).astype(np.float64)
+                signs = rng.choice([-1.0, 1.0], size=x.shape)
+                moved = (x + (signs * step).astype(x.dtype)).astype(x.dtype)
+                ws.owners[n][...] = moved
+                d = moved.astype(np.float64) - x.astype(np.float64)
+                bound += float(np.sum(np.abs(analytic[n].reshape(x.shape) * d)))
+            change = abs(evaluator.base() - f0)
+            residual = max(residual, change - 2.0 * bound)
+    finally:
+        for n in names:
+            ws.owners[n][...] = saved[n]
+    return MARGIN * max(residual, 0.0) / (rounding_units * eps)
