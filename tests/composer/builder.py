@@ -39,6 +39,7 @@ class _Builder:
         self.inputs: dict[str, np.ndarray] = {}
         self.parts: list[str] = []
         self.kinks: set[str] = set()
+        self.hairline: set[str] = set()  # a kink 1e-9 away: below what rounding may resolve
 
     def node_attr(self, key: str, name: str):
         return dict(next(n for n in self.nodes if n.key == key).attrs)[name]
@@ -92,6 +93,8 @@ def _first_layer(b: _Builder, x: str, d0: int, d1: int, kink: str) -> str:
         bias = b.params[f"{na}.b"]
         if kink == "near":
             bias[j] = float(rng.choice([-1.0, 1.0]) * rng.choice([1e-9, 1e-7]))
+            if abs(bias[j]) < 1e-8:
+                b.hairline.add(f"{na}.b")
             b.parts.append(f"pre-activation {bias[j]:.0e} from the kink at x[{row}], unit {j}")
         elif kind == "max2":
             b.params[f"{nb}.b"][j] = bias[j]
@@ -228,4 +231,5 @@ def build(rng: np.random.Generator, dtype=np.float64, scalar: bool = True, kink:
         out = _array_head(b, pred, "maxax" if tie else None)
     out = b.add("cmul", out, c=multiplier)
     b.parts.append(f"x {multiplier:.1e}, params ~{scale:.1e}, {b.dtype}")
-    return Net(b.nodes, b.params, b.inputs, out, scalar, b.dtype, "; ".join(b.parts), frozenset(b.kinks))
+    return Net(b.nodes, b.params, b.inputs, out, scalar, b.dtype, "; ".join(b.parts), frozenset(b.kinks),
+               hairline_tensors=frozenset(b.hairline))
