@@ -55,7 +55,7 @@ def _bend(probe: TensorProbe, p: Pairs, typical: float | None = None) -> np.ndar
     right = (p.f_plus - probe.f0) / p.h_plus
     left = (probe.f0 - p.f_minus) / p.h_minus
     size = np.maximum(np.maximum(np.abs(p.central), np.abs(left)),
-                      np.maximum(np.abs(right), typical or probe.floor))
+                      np.maximum(np.abs(right), typical or probe.tensor_floor))
     noise = 4 * p.noise / np.minimum(p.h_plus, p.h_minus)
     return np.maximum(np.abs(right - left) - noise, 0.0) / size
 
@@ -95,7 +95,9 @@ def _largest_smooth_step(probe: TensorProbe, flat: np.ndarray, h: np.ndarray, up
     second_noise = (4 * p.noise / width).reshape(levels, flat.size)
     steady = np.ones((levels, flat.size), dtype=bool)
     size = np.maximum(np.abs(second[1:]), np.abs(second[:-1]))
-    steady[1:] = np.abs(second[1:] - second[:-1]) <= BEND_LIMIT * size + second_noise[1:] + second_noise[:-1]
+    seen = np.abs(second) > 4.0 * second_noise  # a second difference above its noise
+    steady[1:] = (np.abs(second[1:] - second[:-1]) <= BEND_LIMIT * size + second_noise[1:] + second_noise[:-1]) \
+        & seen[1:]
     smooth = np.cumprod((bends <= BEND_LIMIT) | steady, axis=0).astype(bool)
     wanted = np.arange(levels)[:, None] * 4 <= up[None, :] + 3
     best = np.where(smooth & wanted, factors[:, None], 1.0).max(axis=0)

@@ -79,8 +79,9 @@ class TensorProbe:
         self.threshold = threshold
         rms = float(np.sqrt(np.mean(analytic**2))) if analytic.size else 0.0
         self.grad_scale = rms  # the tensor's typical gradient
-        self.floor = max(FLOOR_FRACTION * rms, TARGET_FLOOR_FRACTION * target_scale,
-                         float(np.finfo(np.float64).tiny))
+        tiny = float(np.finfo(np.float64).tiny)
+        self.tensor_floor = max(FLOOR_FRACTION * rms, tiny)  # the tensor's own scale only
+        self.floor = max(self.tensor_floor, TARGET_FLOOR_FRACTION * target_scale)
         # |f| can be far below the size of the terms that round (a sum of signed terms):
         # the loss scale, when known, is the larger of the two.
         self.loss_scale = max(abs(f0), loss_scale or 0.0)
