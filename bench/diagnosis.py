@@ -14,7 +14,7 @@ sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "tests"))
 
 from bugzoo import CASES, Tally  # noqa: E402
 
-from gradprobe.engine.runner import check  # noqa: E402
+from gradprobe import probe  # noqa: E402
 
 
 def main() -> None:
@@ -22,7 +22,7 @@ def main() -> None:
     evaluations = 0
     for make in CASES:
         case = make()
-        report = check(case.forward, case.backward, case.params, case.inputs)
+        report = probe(case.forward, case.backward, case.params, case.inputs)
         evaluations += report.evaluations
         tally.add(case, report)
         flagged = [t for t in report.tensors if t.status != "pass"]

@@ -12,7 +12,7 @@ import time
 
 import numpy as np
 
-from gradprobe.engine.runner import check
+from gradprobe import probe, render_text
 
 
 def make_case(batch: int, width: int):
@@ -78,13 +78,13 @@ def measure(label: str, batch: int, width: int, repeats: int) -> None:
     for _ in range(50):
         forward(params, inputs)
     per_call = (time.perf_counter() - t0) / 50
-    report = check(forward, backward, params, inputs)
-    assert report.ok, report.render()
+    report = probe(forward, backward, params, inputs)
+    assert report.ok, render_text(report)
     n = report.evaluations
 
     def probe() -> float:
         start = time.perf_counter()
-        check(forward, backward, params, inputs)
+        probe(forward, backward, params, inputs)
         return time.perf_counter() - start
 
     ours, bare, ratio = paired(probe, lambda: bare_loop(forward, params, inputs, n), repeats)

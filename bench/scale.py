@@ -12,16 +12,16 @@ import os
 import time
 from pathlib import Path
 
-from gradprobe.engine.runner import run_check
-from gradprobe.options import CheckOptions
+from gradprobe import probe_target
+from gradprobe.render.json import report_dict
 from gradprobe.target import load_target
 
 HERE = Path(__file__).resolve().parent
 TARGETS = HERE / "scale_targets.py"
 
 
-def _load(name):
-    return load_target(f"{TARGETS}:{name}")
+def _spec(name: str) -> str:
+    return f"{TARGETS}:{name}"
 
 
 def _params(report):
@@ -30,7 +30,7 @@ def _params(report):
 
 def one_wrong() -> None:
     start = time.perf_counter()
-    report = run_check(_load("one_wrong_200k"), CheckOptions(sample=0))
+    report = probe_target(_spec("one_wrong_200k"), sample=0)
     seconds = time.perf_counter() - start
     print(f"1. one wrong element, {_params(report):,} parameters, --sample 0")
     for t in report.tensors:
@@ -45,7 +45,7 @@ def one_wrong() -> None:
 
 def correct_large() -> None:
     start = time.perf_counter()
-    report = run_check(_load("correct_1m"), CheckOptions())
+    report = probe_target(_spec("correct_1m"))
     seconds = time.perf_counter() - start
     print(f"2. correct network, {_params(report):,} parameters, default plan")
     for t in report.tensors:
@@ -57,7 +57,7 @@ def correct_large() -> None:
 
 
 def parallel() -> None:
-    target = _load("heavy_20ms")
+    target = load_target(_spec("heavy_20ms"))
     params, inputs = target.params, target.inputs
     start = time.perf_counter()
     for _ in range(5):
@@ -67,9 +67,9 @@ def parallel() -> None:
     reports = {}
     for jobs in (1, 2):
         start = time.perf_counter()
-        reports[jobs] = run_check(_load("heavy_20ms"), CheckOptions(jobs=jobs))
+        reports[jobs] = probe_target(_spec("heavy_20ms"), jobs=jobs)
         timings[jobs] = time.perf_counter() - start
-    same = reports[1].to_dict()["layers"] == reports[2].to_dict()["layers"]
+    same = report_dict(reports[1])["layers"] == report_dict(reports[2])["layers"]
     print(f"3. forward {per_call * 1e3:.1f} ms, {reports[1].evaluations} evaluations, "
           f"{os.cpu_count()} cores: serial {timings[1]:.2f} s, --jobs 2 {timings[2]:.2f} s, "
           f"speedup {timings[1] / timings[2]:.2f} (goal >= 1.6); same report: {same}")

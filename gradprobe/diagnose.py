@@ -44,7 +44,7 @@ class Evidence:
 
 
 @dataclass(frozen=True)
-class Context:
+class HintContext:
     """Facts about the target that name causes: batch sizes, integer index inputs."""
 
     batch_sizes: tuple[int, ...] = ()
@@ -65,7 +65,7 @@ def _fmt_factor(c: float) -> str:
     return f"{c:.4g}"
 
 
-def _factor_hint(e: Evidence, ctx: Context) -> str | None:
+def _factor_hint(e: Evidence, ctx: HintContext) -> str | None:
     n2 = float(e.numeric @ e.numeric)
     if n2 == 0:
         return None
@@ -129,7 +129,7 @@ def _slice_hint(e: Evidence) -> str | None:
     return None
 
 
-def _repeat_hint(e: Evidence, ctx: Context) -> str | None:
+def _repeat_hint(e: Evidence, ctx: HintContext) -> str | None:
     if not e.shape or not e.complete:
         return None
     rows = e.shape[0]
@@ -162,7 +162,7 @@ def _zero_hint(e: Evidence) -> str | None:
     return None
 
 
-def hint_for(e: Evidence, ctx: Context) -> str | None:
+def hint_for(e: Evidence, ctx: HintContext) -> str | None:
     """The most specific hint whose model explains the failure of ``e``, or None."""
     if not e.failed.any():
         return None
@@ -194,7 +194,7 @@ def swapped_pairs(evidence: list[Evidence]) -> dict[str, str]:
     return hints
 
 
-def diagnose(evidence: list[Evidence], ctx: Context) -> dict[str, str]:
+def diagnose(evidence: list[Evidence], ctx: HintContext) -> dict[str, str]:
     """A hint per failing tensor name where the evidence supports one."""
     hints = swapped_pairs(evidence)
     for e in evidence:

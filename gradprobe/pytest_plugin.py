@@ -12,12 +12,11 @@ from weakest to strongest, from gradprobe's defaults, the ini file (``gradprobe_
 
 from __future__ import annotations
 
-from typing import Any, Callable, Mapping
+from typing import Any
 
 import pytest
 
-from .api import probe
-from .report import Report
+from .fixture import GradProbe
 
 SETTINGS = ("threshold", "seed")
 
@@ -60,27 +59,6 @@ def pytest_report_header(config: pytest.Config) -> str:
     settings = session_settings(config)
     threshold = settings.get("threshold", "by floating type")
     return f"gradprobe: threshold {threshold}, seed {settings.get('seed', 0)}"
-
-
-class GradProbe:
-    """The ``grad_probe`` fixture's value: call it like :func:`gradprobe.probe`."""
-
-    def __init__(self, defaults: Mapping[str, Any]) -> None:
-        self.defaults = dict(defaults)
-
-    def __call__(
-        self,
-        forward: Callable[..., Any],
-        backward: Callable[..., Any],
-        params: Mapping[str, Any],
-        inputs: Mapping[str, Any] | None = None,
-        **options: Any,
-    ) -> Report:
-        __tracebackhide__ = True
-        report = probe(forward, backward, params, inputs, **{**self.defaults, **options})
-        if not report.ok:
-            pytest.fail("gradient check failed\n" + report.render(width=160), pytrace=False)
-        return report
 
 
 @pytest.fixture

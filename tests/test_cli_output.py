@@ -7,7 +7,7 @@ import json
 import numpy as np
 
 from conftest import SAMPLES
-from gradprobe.engine.runner import check
+from gradprobe import probe
 
 TENSOR_KEYS = {
     "name", "layer", "kind", "shape", "dtype", "checked", "failed", "kinks", "max_abs_error",
@@ -92,7 +92,7 @@ def test_unknown_option_is_a_usage_error(run_cli):
 
 def test_full_sweep_costs_two_evaluations_per_coordinate_plus_a_constant():
     w = np.linspace(-1, 1, 40)
-    report = check(lambda p, i: float(np.sum(np.cos(p["w"]))), lambda p, i: {"w": -np.sin(p["w"])}, {"w": w})
+    report = probe(lambda p, i: float(np.sum(np.cos(p["w"]))), lambda p, i: {"w": -np.sin(p["w"])}, {"w": w})
     assert report.ok
     assert 2 * w.size <= report.evaluations <= 2 * w.size + 6
 
@@ -106,21 +106,21 @@ def test_grad_output_is_seeded():
         return {"w": g * 2 * p["w"]}
 
     w = np.array([0.5, -1.5, 2.0])
-    check(lambda p, i: p["w"] ** 2, bwd, {"w": w}, options=None)
+    probe(lambda p, i: p["w"] ** 2, bwd, {"w": w})
     from gradprobe.options import CheckOptions
 
-    check(lambda p, i: p["w"] ** 2, bwd, {"w": w}, options=CheckOptions(seed=0))
-    check(lambda p, i: p["w"] ** 2, bwd, {"w": w}, options=CheckOptions(seed=1))
+    probe(lambda p, i: p["w"] ** 2, bwd, {"w": w}, seed=0)
+    probe(lambda p, i: p["w"] ** 2, bwd, {"w": w}, seed=1)
     assert np.array_equal(drawn[0], drawn[1]) and not np.array_equal(drawn[0], drawn[2])
     assert np.array_equal(drawn[0], np.random.default_rng(0).standard_normal(3))
 
 
 def test_float32_code_gets_a_looser_default_and_a_note():
     w = np.linspace(0.1, 1.0, 8, dtype=np.float32)
-    report = check(lambda p, i: np.sum(np.exp(p["w"])), lambda p, i: {"w": np.exp(p["w"])}, {"w": w})
+    report = probe(lambda p, i: np.sum(np.exp(p["w"])), lambda p, i: {"w": np.exp(p["w"])}, {"w": w})
     assert report.ok and report.compute_dtype == "float32" and report.threshold == 1e-2
     assert any("float32" in n for n in report.notes)
-    wrong = check(lambda p, i: np.sum(np.exp(p["w"])), lambda p, i: {"w": 1.1 * np.exp(p["w"])}, {"w": w})
+    wrong = probe(lambda p, i: np.sum(np.exp(p["w"])), lambda p, i: {"w": 1.1 * np.exp(p["w"])}, {"w": w})
     assert not wrong.ok
 
 

@@ -12,11 +12,10 @@ import numpy as np
 import pytest
 
 from conftest import SAMPLES
-from gradprobe.engine.runner import check, run_check
+from gradprobe import probe, probe_target
 from gradprobe.engine.sampling import stratified, tensor_rng
 from gradprobe.options import CheckOptions
 from gradprobe.render.json import report_dict
-from gradprobe.target import load_target
 
 N = 100_000
 RNG = np.random.default_rng(0)
@@ -43,7 +42,7 @@ def _with_errors(factors):
 
 
 def _directional_only(backward):
-    return check(forward, backward, {"w": W}, {"c": C}, options=CheckOptions(sample=0))
+    return probe(forward, backward, {"w": W}, {"c": C}, sample=0)
 
 
 def test_one_planted_error_is_located_exactly():
@@ -78,7 +77,7 @@ def test_a_correct_large_tensor_passes_directionally():
 
 
 def test_default_plan_for_a_large_tensor_samples_and_uses_directions():
-    report = check(forward, lambda p, i: {"w": exact(p, i)}, {"w": W}, {"c": C})
+    report = probe(forward, lambda p, i: {"w": exact(p, i)}, {"w": W}, {"c": C})
     t = report.tensor("w")
     assert report.ok and t.checked == 24 and len(t.directions) == 2
     assert t.evaluations <= 100
@@ -116,9 +115,8 @@ def _comparable(report):
 
 
 def test_two_jobs_give_the_same_report_as_serial():
-    target = load_target(str(SAMPLES / "crop_yield_buggy.py"))
-    serial = run_check(target, CheckOptions())
-    parallel = run_check(load_target(str(SAMPLES / "crop_yield_buggy.py")), CheckOptions(jobs=2))
+    serial = probe_target(str(SAMPLES / "crop_yield_buggy.py"))
+    parallel = probe_target(str(SAMPLES / "crop_yield_buggy.py"), jobs=2)
     assert _comparable(parallel) == _comparable(serial)
 
 
@@ -128,9 +126,9 @@ def test_any_executor_gives_the_same_report():
 
     small = {"w": W[:50]}
     inputs = {"c": C[:50]}
-    serial = check(forward, backward, small, inputs)
+    serial = probe(forward, backward, small, inputs)
     with ThreadPoolExecutor(2) as pool:
-        threaded = check(forward, backward, small, inputs, executor=pool)
+        threaded = probe(forward, backward, small, inputs, executor=pool)
     assert _comparable(threaded) == _comparable(serial)
     assert threaded.tensor("w").bad_indices == ((49,),)
 
@@ -169,7 +167,7 @@ def forward(p, i):
 def backward(p, i):
     return {{"w": np.exp(p["w"])}}
 """)
-    report = run_check(load_target(str(target)), CheckOptions(jobs=2))
+    report = probe_target(str(target), jobs=2)
     assert report.ok and counter.read_text() == "x"
 
 
@@ -199,7 +197,7 @@ def test_directions_crossing_relu_kinks_do_not_fail_a_correct_network(seed):
     """Tens of thousands of ReLU units: some pre-activation sits within every step along a
     random direction. The kink is recognised from the one-sided slopes, not called a bug."""
     fwd, bwd, params, inputs = _relu_network(seed)
-    report = check(fwd, bwd, params, inputs, options=CheckOptions(sample=0, seed=seed))
+    report = probe(fwd, bwd, params, inputs, sample=0, seed=seed)
     assert report.ok
     assert any(d.kink for t in report.tensors for d in t.directions)
 
@@ -211,8 +209,8 @@ def test_an_unpicklable_forward_with_jobs_is_one_sentence():
         return float(np.sum(p["w"] ** 2))
 
     with pytest.raises(UsageProblem, match="not picklable"):
-        check(local_forward, lambda p, i: {"w": 2 * p["w"]}, {"w": np.ones(4)},
-              options=CheckOptions(jobs=2))
+        probe(local_forward, lambda p, i: {"w": 2 * p["w"]}, {"w": np.ones(4)},
+              jobs=2)
 
 
 def test_a_forward_raising_in_a_worker_keeps_its_sentence(tmp_path):
@@ -230,4 +228,4 @@ def backward(p, i):
     return {"w": 2 * p["w"]}
 """)
     with pytest.raises(UserCodeError, match=r"forward raised ValueError: stock below zero when w\[1\] was perturbed"):
-        run_check(load_target(str(target)), CheckOptions(jobs=2))
+        probe_target(str(target), jobs=2)

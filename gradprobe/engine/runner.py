@@ -9,8 +9,7 @@ from typing import Any, Callable
 
 import numpy as np
 
-from ..diagnose import Context as HintContext
-from ..diagnose import Evidence, diagnose
+from ..diagnose import Evidence, HintContext, diagnose
 from ..errors import ProbeError, TargetLoadError
 from ..options import CheckOptions, default_threshold
 from ..report import LayerResult, Report, TensorResult
@@ -174,17 +173,3 @@ def _check_all(
         errors=tuple(errors),
         notes=tuple(notes),
     )
-
-
-def check(
-    forward: Callable[..., Any],
-    backward: Callable[..., Any],
-    params: Any,
-    inputs: Any = None,
-    options: CheckOptions | None = None,
-    label: str = "<python>",
-    **kwargs: Any,
-) -> Report:
-    """Check functions and arrays directly (the engine's Python entry)."""
-    target = Target(label, forward, backward, params, inputs or {})
-    return run_check(target, options, **kwargs)

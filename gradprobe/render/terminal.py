@@ -16,6 +16,7 @@ from rich.table import Table
 from rich.text import Text
 
 from ..report import Report, TargetRun, TensorResult
+from ..status import Status
 from ..tensors import format_index
 from .heatmap import maps
 
@@ -66,7 +67,7 @@ def _row(t: TensorResult, theme: Theme) -> list[Text | str]:
         fmt(t.worst_noise),
         fmt(t.max_abs_error),
         where,
-        Text(t.status, style=theme.style(t.status)),
+        Text(t.status.value, style=theme.style(t.status.value)),
         t.hint or "",
     ]
 
@@ -98,12 +99,17 @@ def verdict(report: Report) -> str:
     n = len(report.tensors)
     cost = f"{report.evaluations} evaluations in {report.seconds:.2f} s"
     if not report.ok:
-        bad = report.failing_tensors
+        bad = report.blocking_tensors
         names = ", ".join(t.name for t in bad[:5]) + (" ..." if len(bad) > 5 else "")
-        return f"FAIL  {len(bad)} of {n} tensors disagree beyond {report.threshold:g}: {names} · {cost}"
+        failing = len(report.failing_tensors)
+        unsure = len(bad) - failing
+        parts = [f"{failing} of {n} tensors disagree beyond {report.threshold:g}"] if failing else []
+        if unsure:
+            parts.append(f"{unsure} of {n} inconclusive (set to fail the run)")
+        return f"FAIL  {'; '.join(parts)}: {names} · {cost}"
     extras = []
-    kinked = report.count("kink")
-    unsure = report.count("inconclusive")
+    kinked = report.count(Status.KINK)
+    unsure = report.count(Status.INCONCLUSIVE)
     if kinked:
         extras.append(f"{kinked} at a kink")
     if unsure:
@@ -154,7 +160,7 @@ def run_summary(runs: list[TargetRun], exit_code: int, theme: Theme) -> Table:
         if run.report is None:
             grid.add_row(run.target, "-", "-", Text(run.error or "could not run", style=theme.style("fail")))
             continue
-        failing = len(run.report.failing_tensors)
+        failing = len(run.report.blocking_tensors)
         outcome = "ok" if run.report.ok else "fail"
         grid.add_row(run.target, str(len(run.report.tensors)), str(failing),
                      Text(outcome, style=theme.style("pass" if run.report.ok else "fail")))
