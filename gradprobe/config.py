@@ -3,6 +3,7 @@
     [tool.gradprobe]
     threshold = 1e-5
     seed = 3
+    inconclusive = "fail"
     targets = ["nets/mlp.py", "nets.conv:case"]
 
 Command-line options override these; every key is checked, and a misspelt one is a clear
@@ -19,24 +20,17 @@ from pathlib import Path
 from typing import Any
 
 from .errors import UsageProblem
+from .options import SETTING, SETTINGS
 
 if sys.version_info >= (3, 11):
     import tomllib
 else:  # pragma: no cover - exercised on Python 3.10
     import tomli as tomllib
 
-# key -> (accepted types, description)
+# key -> (accepted types, description): every setting, plus the targets to check.
 KEYS: dict[str, tuple[tuple[type, ...], str]] = {
-    "threshold": ((float, int), "relative-error threshold"),
-    "seed": ((int,), "seed for every random draw"),
-    "method": ((str,), "central, richardson or complex"),
-    "sample": ((int,), "coordinates per tensor"),
-    "directions": ((int,), "random directions per tensor"),
-    "jobs": ((int,), "worker processes"),
-    "recheck": ((bool,), "re-check failing coordinates by extrapolation"),
+    **{s.config_key: (s.types, s.what) for s in SETTINGS},
     "targets": ((list,), "targets to check when none is named"),
-    "json": ((str,), "path of the JSON report"),
-    "junit": ((str,), "path of the JUnit XML report"),
 }
 
 
@@ -77,7 +71,12 @@ def _check(key: str, value: Any, path: Path) -> Any:
             f"({what}), not {value!r}", value=value)
     if key == "targets" and not all(isinstance(t, str) for t in value):
         raise UsageProblem(f"{path}: [tool.gradprobe] targets must be a list of strings", value=value)
-    return float(value) if key == "threshold" else value
+    choices = SETTING[key].choices if key in SETTING else None
+    if choices and value not in choices:
+        raise UsageProblem(
+            f"{path}: [tool.gradprobe] {key} must be one of {', '.join(choices)}, not {value!r}",
+            value=value)
+    return float(value) if float in types and not isinstance(value, bool) else value
 
 
 def load_config(start: Path) -> ProjectConfig:

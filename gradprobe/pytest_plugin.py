@@ -3,11 +3,12 @@
     def test_dense_layer(grad_probe):
         grad_probe(forward, backward, params, inputs)
 
-The fixture checks like :func:`gradprobe.probe` and returns the report when the check passes;
-otherwise the test fails with the per-layer report as its message. The threshold and seed come,
-from weakest to strongest, from gradprobe's defaults, the ini file (``gradprobe_threshold``,
-``gradprobe_seed``), the command line (``--gradprobe-threshold``, ``--gradprobe-seed``), a
-``@pytest.mark.gradprobe(threshold=..., seed=...)`` marker, and the call's own keywords.
+The fixture checks like :func:`gradprobe.probe` and returns the report when the check is ok;
+otherwise the test fails with the per-layer report as its message. The fixture's settings
+(threshold, seed, method, inconclusive) come, from weakest to strongest, from gradprobe's
+defaults, the ini file (``gradprobe_threshold``, ...), the command line
+(``--gradprobe-threshold``, ...), a ``@pytest.mark.gradprobe(threshold=..., seed=...)`` marker,
+and the call's own keywords. Annotate the fixture with :class:`gradprobe.GradProbe`.
 """
 
 from __future__ import annotations
@@ -17,18 +18,22 @@ from typing import Any
 import pytest
 
 from .fixture import GradProbe
+from .options import SETTINGS, Setting
 
-SETTINGS = ("threshold", "seed")
+FIXTURE_SETTINGS: tuple[Setting, ...] = tuple(s for s in SETTINGS if s.fixture)
+
+
+def _kind(s: Setting) -> type:
+    return s.types[0]
 
 
 def pytest_addoption(parser: pytest.Parser) -> None:
     group = parser.getgroup("gradprobe", "gradient checks with gradprobe")
-    group.addoption("--gradprobe-threshold", type=float, default=None, metavar="REL",
-                    help="relative-error threshold for the grad_probe fixture")
-    group.addoption("--gradprobe-seed", type=int, default=None, metavar="N",
-                    help="seed for the grad_probe fixture's random draws")
-    parser.addini("gradprobe_threshold", "relative-error threshold for grad_probe", default=None)
-    parser.addini("gradprobe_seed", "seed for grad_probe's random draws", default=None)
+    for s in FIXTURE_SETTINGS:
+        text = f"{s.what} for the grad_probe fixture"
+        group.addoption(f"--gradprobe-{s.name}", type=_kind(s), default=None,
+                        metavar=s.metavar or s.name.upper(), choices=s.choices, help=text)
+        parser.addini(f"gradprobe_{s.name}", text, default=None)
 
 
 def pytest_configure(config: pytest.Config) -> None:
@@ -38,27 +43,30 @@ def pytest_configure(config: pytest.Config) -> None:
 
 
 def session_settings(config: pytest.Config) -> dict[str, Any]:
-    """The threshold and seed from the ini file, overridden by the command line."""
+    """The fixture's settings from the ini file, overridden by the command line."""
     out: dict[str, Any] = {}
-    for name, kind in (("threshold", float), ("seed", int)):
-        ini = config.getini(f"gradprobe_{name}")
+    for s in FIXTURE_SETTINGS:
+        ini = config.getini(f"gradprobe_{s.name}")
         if ini not in (None, ""):
             try:
-                out[name] = kind(ini)
+                out[s.name] = _kind(s)(ini)
             except ValueError:
                 raise pytest.UsageError(
-                    f"gradprobe_{name} = {ini!r} in the ini file is not a {kind.__name__}"
+                    f"gradprobe_{s.name} = {ini!r} in the ini file is not a {_kind(s).__name__}"
                 ) from None
-        cli = config.getoption(f"--gradprobe-{name}")
+        cli = config.getoption(f"--gradprobe-{s.name}")
         if cli is not None:
-            out[name] = cli
+            out[s.name] = cli
     return out
 
 
 def pytest_report_header(config: pytest.Config) -> str:
     settings = session_settings(config)
     threshold = settings.get("threshold", "by floating type")
-    return f"gradprobe: threshold {threshold}, seed {settings.get('seed', 0)}"
+    line = f"gradprobe: threshold {threshold}, seed {settings.get('seed', 0)}"
+    if settings.get("inconclusive", "allow") != "allow":
+        line += f", inconclusive {settings['inconclusive']}"
+    return line
 
 
 @pytest.fixture

@@ -8,6 +8,13 @@ from pathlib import Path
 import pytest
 
 README = Path(__file__).resolve().parent.parent / "README.md"
+# Inner runs load gradprobe's plugin only: other installed plugins (hypothesis's costs seconds
+# per run) have nothing to do with these tests.
+QUIET_PLUGINS = ("-p", "no:cacheprovider", "-p", "no:hypothesispytest")
+
+
+def _run(pytester: pytest.Pytester, *args: str) -> pytest.RunResult:
+    return pytester.runpytest(*QUIET_PLUGINS, *args)
 
 LAYER = """
 import numpy as np
@@ -29,7 +36,7 @@ def test_layer(grad_probe):
     report = grad_probe(forward, backward, {"W": W}, {"x": X})
     assert report.ok and report.tensor("W").checked == 6
 """)
-    pytester.runpytest("-p", "no:cacheprovider").assert_outcomes(passed=1)
+    _run(pytester).assert_outcomes(passed=1)
 
 
 def test_a_failing_check_fails_with_the_per_layer_report(pytester: pytest.Pytester):
@@ -37,7 +44,7 @@ def test_a_failing_check_fails_with_the_per_layer_report(pytester: pytest.Pytest
 def test_layer(grad_probe):
     grad_probe(forward, lambda p, i: backward(p, i, scale=-1.0), {"W": W}, {"x": X})
 """)
-    result = pytester.runpytest("-p", "no:cacheprovider")
+    result = _run(pytester)
     result.assert_outcomes(failed=1)
     result.stdout.fnmatch_lines(["*gradient check failed*", "*layer / tensor*", "*W*fail*analytic is -1 x numeric: the sign is flipped"])
     assert "pytest_plugin.py" not in result.stdout.str()  # no traceback into gradprobe
@@ -60,12 +67,12 @@ def test_marker(grad_probe):
 def test_call(grad_probe):
     grad_probe(forward, off, {"W": W}, {"x": X}, threshold=1e-3)
 """)
-    pytester.runpytest("-p", "no:cacheprovider").assert_outcomes(passed=2, failed=1)
-    pytester.runpytest("-p", "no:cacheprovider", "--gradprobe-threshold", "1e-3").assert_outcomes(passed=3)
+    _run(pytester).assert_outcomes(passed=2, failed=1)
+    _run(pytester, "--gradprobe-threshold", "1e-3").assert_outcomes(passed=3)
     pytester.makeini("[pytest]\ngradprobe_threshold = 1e-3\n")
-    pytester.runpytest("-p", "no:cacheprovider").assert_outcomes(passed=3)
+    _run(pytester).assert_outcomes(passed=3)
     # the command line beats the ini file
-    pytester.runpytest("-p", "no:cacheprovider", "--gradprobe-threshold", "1e-6").assert_outcomes(passed=2, failed=1)
+    _run(pytester, "--gradprobe-threshold", "1e-6").assert_outcomes(passed=2, failed=1)
 
 
 def test_seed_is_in_the_header_and_reaches_the_check(pytester: pytest.Pytester):
@@ -73,7 +80,7 @@ def test_seed_is_in_the_header_and_reaches_the_check(pytester: pytest.Pytester):
 def test_seed(grad_probe):
     assert grad_probe(forward, backward, {"W": W}, {"x": X}).seed == 7
 """)
-    result = pytester.runpytest("-p", "no:cacheprovider", "--gradprobe-seed", "7")
+    result = _run(pytester, "--gradprobe-seed", "7")
     result.assert_outcomes(passed=1)
     result.stdout.fnmatch_lines(["gradprobe: threshold by floating type, seed 7"])
 
@@ -90,7 +97,7 @@ def test_raises(grad_probe):
         grad_probe(forward, broken, {"W": W}, {"x": X})
     assert isinstance(info.value.__cause__, ZeroDivisionError)
 """)
-    pytester.runpytest("-p", "no:cacheprovider").assert_outcomes(passed=1)
+    _run(pytester).assert_outcomes(passed=1)
 
 
 def test_the_readme_example_runs_and_is_under_ten_lines(pytester: pytest.Pytester):
@@ -98,4 +105,4 @@ def test_the_readme_example_runs_and_is_under_ten_lines(pytester: pytest.Pyteste
     example = re.search(r"<!-- pytest-example -->\s*```python\n(.*?)```", text, re.S).group(1)
     assert len([line for line in example.splitlines() if line.strip()]) < 10
     pytester.makepyfile(test_readme=example)
-    pytester.runpytest("-p", "no:cacheprovider").assert_outcomes(passed=1)
+    _run(pytester).assert_outcomes(passed=1)

@@ -172,4 +172,5 @@ def _check_all(
         compute_dtype=str(np.dtype(compute_dtype)),
         errors=tuple(errors),
         notes=tuple(notes),
+        inconclusive_fails=options.inconclusive_fails,
     )
