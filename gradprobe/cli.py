@@ -144,6 +144,12 @@ def check_one(spec: str, options: CheckOptions, out: Output) -> TargetRun:
         sentence = exc.with_target(spec).sentence()
         _say_error(sentence, exc, out.traceback)
         return TargetRun(spec, exc.exit_code, error=sentence)
+    except SystemExit as exc:  # past every guard: still never a pass
+        from .guard import exit_error
+
+        error = exit_error(exc, "the target's code").with_target(spec)
+        _say_error(error.sentence(), exc, out.traceback)
+        return TargetRun(spec, error.exit_code, error=error.sentence())
     except Exception as exc:  # a bug in gradprobe itself, not in the user's code
         sentence = (f"{spec}: internal error {type(exc).__name__}: {exc} (please report it; "
                     "--traceback shows where)")

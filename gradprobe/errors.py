@@ -67,3 +67,7 @@ class InPlaceWriteError(ProbeError):
 
 class ComplexStepError(ProbeError):
     """The complex-step method was asked for, but forward does not carry complex values."""
+
+
+class ProcessExitError(UserCodeError):
+    """The user's code called sys.exit or os._exit during the check; it did not finish."""

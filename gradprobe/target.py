@@ -19,7 +19,8 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable
 
-from .errors import TargetLoadError, summarise
+from .errors import ProbeError, TargetLoadError, summarise
+from .guard import ExitAttempt, exit_error, guarded
 
 
 @dataclass(frozen=True)
@@ -52,7 +53,10 @@ def _call_user(fn: Callable[[], Any], what: str) -> Any:
         return fn()
     except KeyboardInterrupt:
         raise
-    except BaseException as exc:  # SystemExit from a module is the user's too
+    except (SystemExit, ExitAttempt) as exc:
+        who = "the module" if what == "importing it" else what.removeprefix("calling ")
+        raise exit_error(exc, who) from exc
+    except BaseException as exc:
         raise TargetLoadError(f"{what} raised {summarise(exc)}", value=fn) from exc
 
 
@@ -95,6 +99,8 @@ def _import_module(location: str) -> Any:
         raise TargetLoadError(f"importing it raised {summarise(exc)}", value=location) from exc
     except KeyboardInterrupt:
         raise
+    except (SystemExit, ExitAttempt) as exc:
+        raise exit_error(exc, "the module") from exc
     except BaseException as exc:
         raise TargetLoadError(f"importing it raised {summarise(exc)}", value=location) from exc
     finally:
@@ -185,8 +191,9 @@ def target_from_object(obj: Any, label: str, spec: str | None = None) -> Target:
 def load_target(spec: str) -> Target:
     """Load the target named by ``spec``; errors name the spec."""
     try:
-        return target_from_object(resolve_object(spec), label=spec, spec=spec)
-    except TargetLoadError as exc:
+        with guarded():
+            return target_from_object(resolve_object(spec), label=spec, spec=spec)
+    except ProbeError as exc:
         raise exc.with_target(spec)
 
 
@@ -194,6 +201,7 @@ def load_functions(spec: str) -> tuple[Callable[..., Any], Callable[..., Any]]:
     """forward and backward of ``spec``, for worker processes: setup() is not called again
     (the protocol calls it once per check; workers receive its arrays instead)."""
     try:
-        return _functions(resolve_object(spec))
-    except TargetLoadError as exc:
+        with guarded():
+            return _functions(resolve_object(spec))
+    except ProbeError as exc:
         raise exc.with_target(spec)

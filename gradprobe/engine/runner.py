@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 import time
-from concurrent.futures import Executor, ProcessPoolExecutor
+from concurrent.futures import Executor
 from dataclasses import dataclass, replace
 from typing import Any, Callable
 
@@ -11,6 +11,8 @@ import numpy as np
 
 from ..diagnose import Evidence, HintContext, diagnose
 from ..errors import ProbeError, TargetLoadError
+from ..guard import guarded
+from ..heap import keep_heap, release_heap
 from ..options import CheckOptions, default_threshold
 from ..report import LayerResult, Report, TensorResult
 from ..target import Target
@@ -33,11 +35,8 @@ def _backend(
         return ExecutorBackend(executor, target.forward, ws, grad_output), lambda: None
     if options.jobs <= 1:
         return None, lambda: None
-    if target.spec is not None:
-        pool = WorkerPool(target.spec, ws, grad_output, options.jobs)
-        return pool, pool.close
-    own = ProcessPoolExecutor(max_workers=options.jobs)
-    return ExecutorBackend(own, target.forward, ws, grad_output, options.jobs), own.shutdown
+    pool = WorkerPool(target.spec or target.forward, ws, grad_output, options.jobs)
+    return pool, pool.close
 
 
 @dataclass(frozen=True)
@@ -101,10 +100,14 @@ def run_check(
     ``executor`` spreads the evaluations over any ``concurrent.futures.Executor`` (a Dask
     client's ``get_executor()`` included); ``options.jobs > 1`` starts worker processes.
     """
+    keep_heap()
     try:
-        return _run(target, options or CheckOptions(), executor, progress, clock)
+        with guarded("forward or backward"):
+            return _run(target, options or CheckOptions(), executor, progress, clock)
     except ProbeError as exc:
         raise exc.with_target(target.label)
+    finally:
+        release_heap()
 
 
 def _run(
