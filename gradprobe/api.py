@@ -9,13 +9,15 @@ report's outputs as free functions (the report model does not know its renderers
 
 from __future__ import annotations
 
-from concurrent.futures import Executor
-from typing import Any, Callable, Mapping
+from typing import TYPE_CHECKING, Any, Callable, Mapping
 
 from .engine.runner import run_check
 from .options import CheckOptions
 from .report import Report
 from .target import Target, load_target, target_from_object
+
+if TYPE_CHECKING:
+    from concurrent.futures import Executor
 
 
 def _options(values: Mapping[str, Any]) -> CheckOptions:

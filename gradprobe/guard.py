@@ -9,13 +9,11 @@ instead, and both become a :class:`~gradprobe.errors.ProcessExitError` with one 
 from __future__ import annotations
 
 import os
-import threading
 from contextlib import contextmanager
 from typing import Any, Iterator, NoReturn
 
 from .errors import ProcessExitError
 
-_lock = threading.Lock()
 _depth = 0
 _real_exit = os._exit
 
@@ -62,15 +60,13 @@ if hasattr(os, "register_at_fork"):
 def guarded(who: str = "the target's code") -> Iterator[None]:
     """Turn ``sys.exit``/``os._exit`` from the code run inside into ProcessExitError."""
     global _depth
-    with _lock:
-        _depth += 1
-        os._exit = _refuse_exit  # type: ignore[assignment]
+    _depth += 1  # a plain counter: the GIL makes this step atomic
+    os._exit = _refuse_exit  # type: ignore[assignment]
     try:
         yield
     except (SystemExit, ExitAttempt) as exc:
         raise exit_error(exc, who) from exc
     finally:
-        with _lock:
-            _depth -= 1
-            if _depth == 0:
-                os._exit = _real_exit
+        _depth -= 1
+        if _depth == 0:
+            os._exit = _real_exit

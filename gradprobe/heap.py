@@ -19,8 +19,6 @@ back once a check is over. Off glibc (macOS, Windows, musl) both do nothing.
 
 from __future__ import annotations
 
-import ctypes
-import ctypes.util
 import sys
 from typing import Any
 
@@ -36,8 +34,10 @@ def _glibc() -> Any:
     if _libc is None:
         _libc = False
         if sys.platform.startswith("linux"):
+            import ctypes
+
             try:
-                libc = ctypes.CDLL(ctypes.util.find_library("c") or "libc.so.6")
+                libc = ctypes.CDLL(None)  # the process's own symbols, libc's among them
                 if hasattr(libc, "mallopt") and hasattr(libc, "gnu_get_libc_version"):
                     _libc = libc
             except OSError:

@@ -7,13 +7,12 @@ Every failure is a :class:`TargetLoadError` with one sentence naming what is wro
 
 from __future__ import annotations
 
-import difflib
-import hashlib
 import importlib
 import importlib.util
-import inspect
 import os
 import sys
+import types
+import zlib
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -66,7 +65,7 @@ def _import_file(location: str) -> Any:
         hint = " (it is a folder)" if path.is_dir() else ""
         raise TargetLoadError(f"no such file {location}{hint}", value=location)
     resolved = path.resolve()
-    name = "_gradprobe_target_" + hashlib.sha1(str(resolved).encode()).hexdigest()[:12]
+    name = "_gradprobe_target_" + f"{zlib.crc32(str(resolved).encode()):08x}"
     spec = importlib.util.spec_from_file_location(name, resolved)
     if spec is None or spec.loader is None:
         raise TargetLoadError(f"{location} cannot be imported as a Python file", value=location)
@@ -131,11 +130,13 @@ def resolve_object(spec: str) -> Any:
     if attr is None:
         return module
     if not hasattr(module, attr):
+        import difflib
+
         close = difflib.get_close_matches(attr, _attribute_names(module), n=1)
         tip = f"; did you mean {close[0]!r}?" if close else ""
         raise TargetLoadError(f"{location} has no attribute {attr!r}{tip}", value=attr)
     obj = getattr(module, attr)
-    if inspect.isclass(obj) or inspect.isfunction(obj):
+    if isinstance(obj, (type, types.FunctionType)):
         obj = _call_user(obj, f"calling {attr}()")
     return obj
 

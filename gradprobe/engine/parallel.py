@@ -20,9 +20,7 @@ from __future__ import annotations
 import os
 import pickle
 import signal
-from concurrent.futures import Executor, Future
-from concurrent.futures.process import BrokenProcessPool
-from typing import Any, Callable, Sequence
+from typing import TYPE_CHECKING, Any, Callable, Sequence
 
 import numpy as np
 
@@ -31,6 +29,9 @@ from ..guard import guarded
 from ..heap import keep_heap
 from ..tensors import Workspace
 from .evaluate import LossFunction, Perturbation
+
+if TYPE_CHECKING:
+    from concurrent.futures import Executor, Future
 
 CHUNKS_PER_WORKER = 4
 STOP_GRACE = 0.5  # seconds a worker gets to leave on its own before it is terminated
@@ -198,6 +199,8 @@ class WorkerPool:
 
 def _gather(futures: list[Future]) -> list[float]:
     """The chunks' losses in order; failures of the machinery become one sentence."""
+    from concurrent.futures.process import BrokenProcessPool
+
     try:
         return [value for f in futures for value in f.result()]
     except ProbeError:

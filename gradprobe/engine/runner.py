@@ -3,9 +3,8 @@
 from __future__ import annotations
 
 import time
-from concurrent.futures import Executor
 from dataclasses import dataclass, replace
-from typing import Any, Callable
+from typing import TYPE_CHECKING, Callable
 
 import numpy as np
 
@@ -23,18 +22,21 @@ from .preflight import ForwardInfo, call_backward, inspect_forward
 from .summary import problem_result, unknown_result
 from .tensor import check_tensor
 
+if TYPE_CHECKING:
+    from concurrent.futures import Executor
+
 
 def _backend(
     target: Target, ws: Workspace, grad_output: np.ndarray | None, options: CheckOptions,
     executor: Executor | None,
 ) -> tuple[Backend | None, Callable[[], None]]:
     """Where perturbations are evaluated, and how to release it afterwards."""
+    if executor is None and options.jobs <= 1:
+        return None, lambda: None
     from .parallel import ExecutorBackend, WorkerPool
 
     if executor is not None:
         return ExecutorBackend(executor, target.forward, ws, grad_output), lambda: None
-    if options.jobs <= 1:
-        return None, lambda: None
     pool = WorkerPool(target.spec or target.forward, ws, grad_output, options.jobs)
     return pool, pool.close
 
