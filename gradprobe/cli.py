@@ -155,11 +155,17 @@ def check_one(spec: str, options: CheckOptions, out: Output) -> TargetRun:
                     "--traceback shows where)")
         _say_error(sentence, exc, out.traceback)
         return TargetRun(spec, EXIT_INTERNAL, error=sentence)
+    quiet = out.quiet or not out.stdout_free()
+    stream = sys.stdout if out.stdout_free() else sys.stderr
+    if quiet and (os.environ.get("NO_COLOR") or not stream.isatty()):
+        from .render.text import verdict  # the verdict line alone needs no rich
+
+        click.echo(verdict(report), file=stream)
+        return TargetRun(spec, EXIT_OK if report.ok else EXIT_FAIL, report=report)
     from .render.terminal import COLOUR, PLAIN, renderables
 
     console = _console(stderr=not out.stdout_free())
     theme = PLAIN if console.no_color else COLOUR
-    quiet = out.quiet or not out.stdout_free()
     for item in renderables(report, theme, quiet=quiet, with_maps=out.maps):
         console.print(item)
     return TargetRun(spec, EXIT_OK if report.ok else EXIT_FAIL, report=report)

@@ -12,7 +12,6 @@ error rather than a silently ignored setting.
 
 from __future__ import annotations
 
-import difflib
 import os
 import sys
 from dataclasses import dataclass, field
@@ -61,11 +60,14 @@ def find_pyproject(start: Path) -> Path | None:
 
 def _check(key: str, value: Any, path: Path) -> Any:
     if key not in KEYS:
+        import difflib
+
         close = difflib.get_close_matches(key, list(KEYS), n=1)
         tip = f"; did you mean {close[0]!r}?" if close else f"; known keys: {', '.join(KEYS)}"
         raise UsageProblem(f"{path}: unknown key {key!r} in [tool.gradprobe]{tip}", value=key)
     types, what = KEYS[key]
-    if isinstance(value, bool) and bool not in types or not isinstance(value, types):
+    fits = isinstance(value, types) and not (isinstance(value, bool) and bool not in types)
+    if not fits:
         raise UsageProblem(
             f"{path}: [tool.gradprobe] {key} must be {' or '.join(t.__name__ for t in types)} "
             f"({what}), not {value!r}", value=value)

@@ -133,7 +133,7 @@ def _repeat_hint(e: Evidence, ctx: HintContext) -> str | None:
     if not e.shape or not e.complete:
         return None
     rows = e.shape[0]
-    failed_rows = e.failed_mask().reshape(rows, -1).any(axis=1)
+    failed_rows = np.asarray(e.failed_mask().reshape(rows, -1).any(axis=1))
     if not failed_rows.any():
         return None
     a = np.abs(e.analytic[e.failed])

@@ -4,7 +4,6 @@ from __future__ import annotations
 
 from typing import Any, Callable, Mapping
 
-from .api import probe
 from .report import Report
 
 
@@ -29,6 +28,7 @@ class GradProbe:
         __tracebackhide__ = True
         import pytest
 
+        from .api import probe
         from .render.terminal import render_text
 
         report = probe(forward, backward, params, inputs, **{**self.defaults, **options})

@@ -8,11 +8,11 @@ fixture takes it. The CLI's options, the ``[tool.gradprobe]`` keys and their typ
 
 from __future__ import annotations
 
+import math
+import numbers
 import typing
 from dataclasses import MISSING, Field, dataclass, field, fields, replace
 from typing import Any
-
-import numpy as np
 
 from .errors import UsageProblem
 
@@ -23,11 +23,12 @@ INCONCLUSIVE_POLICIES = ("allow", "fail")
 # central differences reach about eps**(2/3) ~ 4e-11 on well-scaled functions, so 1e-6 leaves
 # room for conditioning (common practice). float32: eps**(2/3) ~ 2.4e-5 and sums of many
 # float32 terms lose more, so 1e-2 (common practice for single precision).
-DEFAULT_THRESHOLDS = {np.dtype(np.float64): 1e-6, np.dtype(np.float32): 1e-2, np.dtype(np.float16): 1e-1}
+DEFAULT_THRESHOLDS = {"float64": 1e-6, "float32": 1e-2, "float16": 1e-1}
 
 
-def default_threshold(dtype: np.dtype) -> float:
-    return DEFAULT_THRESHOLDS.get(np.dtype(dtype), 1e-6)
+def default_threshold(dtype: Any) -> float:
+    """The default threshold for a numpy dtype (or its name)."""
+    return DEFAULT_THRESHOLDS.get(str(getattr(dtype, "name", dtype)), 1e-6)
 
 
 def setting(
@@ -77,11 +78,11 @@ class CheckOptions:
 
     def __post_init__(self) -> None:
         if self.threshold is not None and not (
-            isinstance(self.threshold, (int, float)) and self.threshold > 0 and np.isfinite(self.threshold)
+            isinstance(self.threshold, numbers.Real) and self.threshold > 0 and math.isfinite(self.threshold)
         ):
             raise UsageProblem(f"the threshold must be a positive number, not {self.threshold}",
                                value=self.threshold)
-        if isinstance(self.seed, bool) or not isinstance(self.seed, (int, np.integer)) or self.seed < 0:
+        if isinstance(self.seed, bool) or not isinstance(self.seed, numbers.Integral) or self.seed < 0:
             raise UsageProblem(f"the seed must be a whole number 0 or more, not {self.seed!r}",
                                value=self.seed)
         if self.method not in METHODS:

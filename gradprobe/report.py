@@ -6,10 +6,9 @@ renderers (terminal, JSON, JUnit, pytest messages) only read it.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 from typing import Any
-
-import numpy as np
 
 from .status import Status
 
@@ -75,7 +74,7 @@ class TensorResult:
 
     @property
     def size(self) -> int:
-        return int(np.prod(self.shape, dtype=np.int64))
+        return math.prod(self.shape)
 
     @property
     def ok(self) -> bool:

@@ -18,7 +18,6 @@ from ..errors import BadOutputError, InPlaceWriteError, UserCodeError, summarise
 from ..guard import ExitAttempt, exit_error
 from ..tensors import Workspace, format_index
 
-
 # An integer index array at least this long that is one contiguous run becomes a slice.
 CONTIGUOUS_MIN = 64
 
@@ -62,7 +61,8 @@ class Perturbation:
     def describe(self, shape: tuple[int, ...]) -> str:
         if self.size == 1:
             first = self.index.start if isinstance(self.index, slice) else self.index[0]
-            return f"{self.tensor}{format_index(np.unravel_index(int(first), shape))}"
+            where = tuple(int(i) for i in np.unravel_index(int(first), shape))
+            return f"{self.tensor}{format_index(where)}"
         return f"{self.size} coordinates of {self.tensor}"
 
 

@@ -20,7 +20,7 @@ from __future__ import annotations
 import os
 import pickle
 import signal
-from typing import TYPE_CHECKING, Any, Callable, Sequence
+from typing import TYPE_CHECKING, Any, Callable, Sequence, cast
 
 import numpy as np
 
@@ -32,6 +32,7 @@ from .evaluate import LossFunction, Perturbation
 
 if TYPE_CHECKING:
     from concurrent.futures import Executor, Future
+    from multiprocessing.connection import Connection
 
 CHUNKS_PER_WORKER = 4
 STOP_GRACE = 0.5  # seconds a worker gets to leave on its own before it is terminated
@@ -142,13 +143,13 @@ class WorkerPool:
             raise
 
     def losses(self, perturbations: Sequence[Perturbation]) -> list[float]:
-        from multiprocessing.connection import wait
+        from multiprocessing.connection import Connection, wait
 
         chunks = _chunks(perturbations, self.jobs * CHUNKS_PER_WORKER)
         results: list[list[float] | None] = [None] * len(chunks)
         waiting = list(range(len(chunks)))[::-1]
-        busy: dict[Any, int] = {}
-        idle = list(self.connections)
+        busy: dict[Connection, int] = {}
+        idle: list[Connection] = list(self.connections)
         try:
             while waiting or busy:
                 while waiting and idle:
@@ -156,13 +157,14 @@ class WorkerPool:
                     tag = waiting.pop()
                     conn.send((tag, list(chunks[tag])))
                     busy[conn] = tag
-                for conn in wait(list(busy)):
+                for ready in wait(list(busy)):
+                    conn = cast(Connection, ready)
                     tag, ok, value = conn.recv()
                     del busy[conn]
                     idle.append(conn)
                     if not ok:
-                        raise value
-                    results[tag] = value
+                        raise cast(BaseException, value)
+                    results[tag] = cast("list[float]", value)
         except (EOFError, OSError, BrokenPipeError) as exc:
             self.terminate()
             raise UsageProblem(DIED) from exc

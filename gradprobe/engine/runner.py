@@ -141,7 +141,9 @@ def _check_all(
 ) -> Report:
     compute_dtype, why = _compute_type(info.out_dtype, ws)
     notes = list(grads.notes)
-    from .precision import narrower_compute_type  # local: keeps the import graph acyclic
+    from .precision import (
+        narrower_compute_type,  # local: keeps the import graph acyclic
+    )
 
     hidden = narrower_compute_type(evaluator, ws, info.f0, compute_dtype)
     if hidden is not None:

@@ -16,9 +16,9 @@ from rich.table import Table
 from rich.text import Text
 
 from ..report import Report, TargetRun, TensorResult
-from ..status import Status
 from ..tensors import format_index
 from .heatmap import maps
+from .text import fmt, header, shape_text, verdict
 
 
 @dataclass(frozen=True)
@@ -40,14 +40,6 @@ COLOUR = Theme(
 # Only a rule under the header, in ASCII, so plain output pastes cleanly into logs.
 RULED = box.Box("    \n    \n -- \n    \n    \n    \n    \n    \n", ascii=True)
 PLAIN = Theme(box=RULED, styles={})
-
-
-def fmt(value: float | None) -> str:
-    return "-" if value is None else f"{value:.1e}"
-
-
-def shape_text(shape: tuple[int, ...]) -> str:
-    return "x".join(str(n) for n in shape) if shape else "scalar"
 
 
 def _row(t: TensorResult, theme: Theme) -> list[Text | str]:
@@ -85,37 +77,6 @@ def table(report: Report, theme: Theme) -> Table:
         for t in layer.tensors:
             grid.add_row(*_row(t, theme))
     return grid
-
-
-def header(report: Report) -> str:
-    return (
-        f"gradprobe · {report.target} · {report.method} · threshold {report.threshold:g} "
-        f"({report.compute_dtype}) · seed {report.seed}"
-    )
-
-
-def verdict(report: Report) -> str:
-    """One line: the outcome, what is wrong, what it cost."""
-    n = len(report.tensors)
-    cost = f"{report.evaluations} evaluations in {report.seconds:.2f} s"
-    if not report.ok:
-        bad = report.blocking_tensors
-        names = ", ".join(t.name for t in bad[:5]) + (" ..." if len(bad) > 5 else "")
-        failing = len(report.failing_tensors)
-        unsure = len(bad) - failing
-        parts = [f"{failing} of {n} tensors disagree beyond {report.threshold:g}"] if failing else []
-        if unsure:
-            parts.append(f"{unsure} of {n} inconclusive (set to fail the run)")
-        return f"FAIL  {'; '.join(parts)}: {names} · {cost}"
-    extras = []
-    kinked = report.count(Status.KINK)
-    unsure = report.count(Status.INCONCLUSIVE)
-    if kinked:
-        extras.append(f"{kinked} at a kink")
-    if unsure:
-        extras.append(f"{unsure} inconclusive (numeric noise above the threshold)")
-    more = f" ({', '.join(extras)})" if extras else ""
-    return f"ok  {n} tensors agree within {report.threshold:g}{more} · {cost}"
 
 
 def renderables(
