@@ -34,7 +34,7 @@ class ProbeError(Exception):
 
     def sentence(self) -> str:
         """The one sentence shown to the user, naming the target when known."""
-        text = self.message.rstrip(".") + "."
+        text = self.message if self.message.endswith(("?", "!")) else self.message.rstrip(".") + "."
         return f"{self.target}: {text}" if self.target else text
 
     def __str__(self) -> str:

@@ -5,6 +5,7 @@ from __future__ import annotations
 import re
 from pathlib import Path
 
+import numpy  # noqa: F401 - loaded once here: in-process inner runs must not import it again
 import pytest
 
 README = Path(__file__).resolve().parent.parent / "README.md"
@@ -106,3 +107,30 @@ def test_the_readme_example_runs_and_is_under_ten_lines(pytester: pytest.Pyteste
     assert len([line for line in example.splitlines() if line.strip()]) < 10
     pytester.makepyfile(test_readme=example)
     _run(pytester).assert_outcomes(passed=1)
+
+
+def test_inconclusive_fail_reaches_the_fixture_from_the_command_line(pytester: pytest.Pytester):
+    pytester.makepyfile(LAYER + """
+def test_layer(grad_probe):
+    report = grad_probe(forward, backward, {"W": W}, {"x": X})
+    assert report.inconclusive_fails
+""")
+    result = _run(pytester, "--gradprobe-inconclusive", "fail")
+    result.assert_outcomes(passed=1)
+    assert "gradprobe: threshold by floating type, seed 0, inconclusive fail" in result.outlines
+
+
+def test_inconclusive_fail_from_the_ini_file(pytester: pytest.Pytester):
+    pytester.makeini("[pytest]\ngradprobe_inconclusive = fail\n")
+    pytester.makepyfile(LAYER + """
+def test_layer(grad_probe):
+    assert grad_probe(forward, backward, {"W": W}, {"x": X}).inconclusive_fails
+""")
+    _run(pytester).assert_outcomes(passed=1)
+
+
+def test_the_fixture_type_is_exported():
+    import gradprobe
+    from gradprobe.pytest_plugin import grad_probe  # noqa: F401 - the plugin still loads
+
+    assert gradprobe.GradProbe.__module__ == "gradprobe.fixture"
