@@ -49,10 +49,10 @@ Examples:
   gradprobe check --show-settings
 
 \b
-Exit codes: 0 every tensor agrees; 1 at least one tensor disagrees (or is inconclusive
-with --inconclusive fail); 2 the check could not run (bad usage, import failure,
-forward/backward raised or ended the process, ...); 3 an internal error; 130 interrupted;
-with several targets, the worst of their codes.
+Exit codes: 0 every tensor agrees; 1 at least one tensor disagrees (or is
+inconclusive with --inconclusive fail); 2 the check could not run (bad usage,
+import failure, forward/backward raised or tried to end the process, ...);
+3 an internal error; 130 interrupted; with several targets, the worst code.
 """
 
 
