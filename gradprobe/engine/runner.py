@@ -127,9 +127,11 @@ def _run(
     loss = LossFunction(target.forward, ws, None)
     evaluator = Evaluator(loss, None, progress)
     info = inspect_forward(target.forward, ws, evaluator, rng)
-    grads = validate(call_backward(target.backward, ws, info.grad_output), ws)
-    evaluator.backend, release = _backend(target, ws, info.grad_output, options, executor)
+    # Worker processes start (and load the target) while backward runs in this one.
+    backend, release = _backend(target, ws, info.grad_output, options, executor)
     try:
+        grads = validate(call_backward(target.backward, ws, info.grad_output), ws)
+        evaluator.backend = backend
         return _check_all(target, options, ws, evaluator, info, grads, started, clock)
     finally:
         release()
