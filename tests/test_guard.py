@@ -1,4 +1,4 @@
-"""The guard against user code ending the process, and the heap settings."""
+"""The guard against user code ending the process."""
 
 from __future__ import annotations
 
@@ -9,7 +9,6 @@ import pytest
 
 from gradprobe import ProcessExitError
 from gradprobe.guard import guarded
-from gradprobe.heap import keep_heap, release_heap
 
 
 def test_os_exit_is_restored_after_the_guard():
@@ -36,9 +35,3 @@ def test_sys_exit_without_a_code():
     assert str(info.value) == (
         "backward called sys.exit(), so the check did not finish (a target must return, "
         "not end the process).")
-
-
-@pytest.mark.skipif(not sys.platform.startswith("linux"), reason="glibc's mallopt")
-def test_the_heap_settings_take_on_glibc():
-    assert keep_heap() is True and keep_heap() is True
-    release_heap()
