@@ -12,9 +12,9 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "tests"))
 
-from bugzoo import CASES, Tally  # noqa: E402
+from bugzoo import CASES, Tally
 
-from gradprobe import probe  # noqa: E402
+from gradprobe import probe
 
 
 def main() -> None:

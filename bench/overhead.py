@@ -26,9 +26,9 @@ import numpy as np
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE))
 
-from overhead_cases import SIZES, bare_loop, make_case  # noqa: E402
+from overhead_cases import SIZES, bare_loop, make_case
 
-from gradprobe import probe, render_text  # noqa: E402
+from gradprobe import probe, render_text
 
 Timing = tuple[float, float]  # wall, cpu
 

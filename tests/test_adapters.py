@@ -4,8 +4,8 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-
 from conftest import SAMPLES
+
 from gradprobe import layer_target, probe_target
 from gradprobe.errors import TargetLoadError
 

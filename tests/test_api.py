@@ -4,9 +4,9 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from conftest import SAMPLES
 
 import gradprobe
-from conftest import SAMPLES
 
 W = np.array([[0.2, -0.4], [1.1, 0.3], [-0.7, 0.9]])
 X = np.array([[1.0, -2.0, 0.5], [0.3, 0.8, -1.2]])

@@ -5,8 +5,8 @@ from __future__ import annotations
 import json
 
 import numpy as np
-
 from conftest import SAMPLES
+
 from gradprobe import probe
 
 TENSOR_KEYS = {
@@ -107,7 +107,6 @@ def test_grad_output_is_seeded():
 
     w = np.array([0.5, -1.5, 2.0])
     probe(lambda p, i: p["w"] ** 2, bwd, {"w": w})
-    from gradprobe.options import CheckOptions
 
     probe(lambda p, i: p["w"] ** 2, bwd, {"w": w}, seed=0)
     probe(lambda p, i: p["w"] ** 2, bwd, {"w": w}, seed=1)

@@ -99,6 +99,7 @@ def test_configured_file_targets_resolve_from_the_pyprojects_folder(run_cli, tmp
     (tmp_path / "sub").mkdir()
     monkeypatch.chdir(tmp_path / "sub")
     from click.testing import CliRunner
+
     from gradprobe.cli import cli
 
     assert CliRunner().invoke(cli, ["check"]).exit_code == 0

@@ -4,10 +4,10 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-
 from bugzoo import CASES, Tally
-from gradprobe.diagnose import HintContext, Evidence, diagnose, hint_for
+
 from gradprobe import probe, render_text
+from gradprobe.diagnose import Evidence, HintContext, diagnose, hint_for
 
 
 @pytest.mark.parametrize("make", CASES, ids=lambda make: make.__name__)

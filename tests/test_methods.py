@@ -9,14 +9,13 @@ from __future__ import annotations
 import mpmath
 import numpy as np
 import pytest
+from test_numerics_reference import POINTS, SMOOTH
 
+from gradprobe import probe
 from gradprobe.engine.evaluate import Evaluator, LossFunction
 from gradprobe.engine.extrapolate import coordinate_central, extrapolate
-from gradprobe import probe
 from gradprobe.errors import ComplexStepError
-from gradprobe.options import CheckOptions
 from gradprobe.tensors import Workspace
-from test_numerics_reference import POINTS, SMOOTH
 
 mpmath.mp.dps = 50
 

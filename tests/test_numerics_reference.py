@@ -13,9 +13,9 @@ import numpy as np
 import pytest
 import sympy
 
+from gradprobe import probe
 from gradprobe.engine.differences import slopes
 from gradprobe.engine.evaluate import Evaluator, LossFunction
-from gradprobe import probe
 from gradprobe.tensors import Workspace
 
 mpmath.mp.dps = 50

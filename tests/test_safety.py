@@ -6,7 +6,12 @@ import numpy as np
 import pytest
 
 from gradprobe import probe
-from gradprobe.errors import BadOutputError, InPlaceWriteError, NondeterminismError, UserCodeError
+from gradprobe.errors import (
+    BadOutputError,
+    InPlaceWriteError,
+    NondeterminismError,
+    UserCodeError,
+)
 
 
 def _arrays():

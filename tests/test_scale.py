@@ -5,16 +5,15 @@ from __future__ import annotations
 import json
 import subprocess
 import sys
-from pathlib import Path
 from concurrent.futures import ThreadPoolExecutor
+from pathlib import Path
 
 import numpy as np
 import pytest
-
 from conftest import SAMPLES
+
 from gradprobe import probe, probe_target
 from gradprobe.engine.sampling import stratified, tensor_rng
-from gradprobe.options import CheckOptions
 from gradprobe.render.json import report_dict
 
 N = 100_000
