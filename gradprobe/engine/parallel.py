@@ -130,7 +130,8 @@ class WorkerPool:
         try:
             for _ in range(jobs):
                 here, there = context.Pipe()
-                process = context.Process(target=_worker_main, daemon=True,
+                # Not daemonic, so a forward may start processes of its own.
+                process = context.Process(target=_worker_main,
                                           args=(there, load, params, inputs, grad_output))
                 process.start()
                 there.close()
