@@ -91,6 +91,14 @@ def other_work() -> None:
 
 
 def end_to_end(label: str, repeats: int) -> None:
+    """Fresh processes. gradprobe's modules are byte-compiled first, as ``pip install`` does
+    (with PYTHONDONTWRITEBYTECODE set, a source checkout would otherwise compile every module
+    on every start)."""
+    import compileall
+
+    import gradprobe
+
+    compileall.compile_dir(str(Path(gradprobe.__file__).parent), quiet=1)
     case = make_case(*SIZES[label])
     n = probe(case.forward, case.backward, case.params, case.inputs).evaluations
     ours = [sys.executable, "-m", "gradprobe", "check", f"bench/overhead_cases.py:{label}", "-q"]
