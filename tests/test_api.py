@@ -82,3 +82,27 @@ def test_package_is_typed():
     from importlib.resources import files
 
     assert files("gradprobe").joinpath("py.typed").is_file()
+
+
+def test_the_version_is_the_installed_metadata():
+    from importlib.metadata import version
+
+    assert gradprobe.__version__ == version("gradprobe")
+
+
+def test_what_users_type_is_exported():
+    """Every name in __all__ resolves (they are loaded on first use)."""
+    for name in gradprobe.__all__:
+        assert getattr(gradprobe, name) is not None
+    assert gradprobe.layer_target.__module__ == "gradprobe.adapters"
+
+
+def test_importing_the_command_does_not_import_numpy_or_rich():
+    import os
+    import subprocess
+    import sys
+
+    code = "import sys, gradprobe.cli; print('numpy' in sys.modules, 'rich' in sys.modules)"
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True,
+                          cwd=str(SAMPLES.parent), env={**os.environ, "PYTHONPATH": str(SAMPLES.parent)})
+    assert done.stdout.split() == ["False", "False"]
