@@ -27,7 +27,7 @@ from .report import TargetRun
 if TYPE_CHECKING:
     from rich.console import Console
 
-EXIT_OK, EXIT_FAIL, EXIT_ERROR, EXIT_INTERNAL, EXIT_INTERRUPTED = 0, 1, 2, 3, 130
+EXIT_OK, EXIT_FAIL, EXIT_INTERNAL, EXIT_INTERRUPTED = 0, 1, 3, 130  # 2: ProbeError.exit_code
 
 CHECK_HELP = f"""Check the backward pass of each TARGET against central differences.
 
