@@ -34,7 +34,8 @@ if TYPE_CHECKING:
     from concurrent.futures import Executor, Future
     from multiprocessing.connection import Connection
 
-CHUNKS_PER_WORKER = 4
+CHUNKS_PER_WORKER = 16  # small chunks: an idle worker waits at most one chunk per batch
+TASKS_PER_EXECUTOR_WORKER = 4  # executor tasks carry the arrays: fewer, larger ones
 STOP_GRACE = 0.5  # seconds a worker gets to leave on its own before it is terminated
 
 DIED = ("the worker processes failed to start or died (a target that cannot be loaded again "
@@ -243,6 +244,6 @@ class ExecutorBackend:
         futures = [
             self.executor.submit(evaluate_payload, self.forward, self.params, self.inputs,
                                  self.grad_output, list(c))
-            for c in _chunks(perturbations, self.workers * CHUNKS_PER_WORKER)
+            for c in _chunks(perturbations, self.workers * TASKS_PER_EXECUTOR_WORKER)
         ]
         return _gather(futures)
