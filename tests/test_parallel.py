@@ -54,3 +54,24 @@ def test_a_forward_that_cannot_be_pickled_is_one_sentence():
     with pytest.raises(UsageProblem) as info:
         WorkerPool(local, _workspace(), None, 2)
     assert str(info.value).startswith("forward cannot be sent to other processes (it is not picklable: ")
+
+
+def stops_in_a_worker(p, i):
+    import multiprocessing
+
+    if multiprocessing.parent_process() is not None:
+        raise KeyboardInterrupt  # as Ctrl-C would, inside a worker's evaluation
+    return float(np.sum(p["w"] ** 2))
+
+
+def test_an_interrupt_in_a_worker_stops_the_check_and_every_worker():
+    import multiprocessing
+
+    from gradprobe import probe
+
+    w = np.full(40, 0.5)
+    before = w.tobytes()
+    with pytest.raises(KeyboardInterrupt):
+        probe(stops_in_a_worker, lambda p, i: {"w": 2 * p["w"]}, {"w": w}, jobs=2)
+    assert w.tobytes() == before
+    assert multiprocessing.active_children() == []
