@@ -1,100 +1,121 @@
 """Overhead of a gradprobe full sweep against a bare numpy central-difference loop.
 
-Run by hand: ``python bench/overhead.py``. For a cheap (about 10 us) and a heavier (about
-1 ms) forward it times gradprobe's full sweep and a plain loop that makes exactly as many
-forward calls (perturb, call, restore), alternating the two, and prints the median ratio.
-Goal: at most 1.2 for the heavier forward.
+Run by hand: ``python bench/overhead.py``. Two forwards from ``overhead_cases.py``: a cheap
+one (about 10 us) and a heavier one (about 1 ms). Three comparisons, each alternating the two
+sides and printing the median ratio of wall time and of CPU time:
+
+1. in process, fresh: gradprobe's full sweep against a loop making exactly as many forward
+   calls (perturb, call, restore). Goal: at most 1.2 for the heavier forward.
+2. in process, after other work (a large allocation pattern and other checks first).
+3. end to end: ``python -m gradprobe check bench/overhead_cases.py:cheap -q`` against
+   ``python bench/overhead_cases.py cheap N`` in fresh processes. Goal: at most 1.5 for the
+   cheap forward. The heavier one shows the heap settings: a bare loop in a fresh process
+   keeps glibc's defaults and pays for them on every call.
 """
 
 from __future__ import annotations
 
+import os
+import resource
+import subprocess
+import sys
 import time
+from pathlib import Path
+from typing import Callable
 
 import numpy as np
 
-from gradprobe.engine.runner import check
+HERE = Path(__file__).resolve().parent
+sys.path.insert(0, str(HERE))
+
+from overhead_cases import SIZES, bare_loop, make_case
+
+from gradprobe import probe, render_text
+
+Timing = tuple[float, float]  # wall, cpu
 
 
-def make_case(batch: int, width: int):
-    """A tanh layer scoring shop demand: loss = sum(tanh(x @ W) * y)."""
-    rng = np.random.default_rng(1)
-    x = rng.normal(size=(batch, width))
-    y = rng.normal(size=(batch, width))
-    W = rng.normal(scale=0.3, size=(width, width))
-
-    def forward(p, i):
-        return float(np.sum(np.tanh(i["x"] @ p["W"]) * i["y"]))
-
-    def backward(p, i):
-        t = np.tanh(i["x"] @ p["W"])
-        return {"W": i["x"].T @ ((1 - t**2) * i["y"])}
-
-    return forward, backward, {"W": W}, {"x": x, "y": y}
+def timed(fn: Callable[[], object]) -> Timing:
+    wall, cpu = time.perf_counter(), time.process_time()
+    fn()
+    return time.perf_counter() - wall, time.process_time() - cpu
 
 
-def bare_loop(forward, params, inputs, evaluations: int) -> float:
-    """Central differences by hand with the same number of forward calls; returns seconds."""
-    W = params["W"].copy()
-    p = {"W": W}
-    flat = W.reshape(-1)
-    h = 6e-6
+def timed_child(args: list[str]) -> Timing:
+    before = resource.getrusage(resource.RUSAGE_CHILDREN)
+    wall = time.perf_counter()
+    subprocess.run(args, check=True, stdout=subprocess.DEVNULL, cwd=HERE.parent,
+                   env={**os.environ, "PYTHONPATH": str(HERE.parent)})
+    after = resource.getrusage(resource.RUSAGE_CHILDREN)
+    cpu = (after.ru_utime - before.ru_utime) + (after.ru_stime - before.ru_stime)
+    return time.perf_counter() - wall, cpu
+
+
+def paired(first: Callable[[], Timing], second: Callable[[], Timing], repeats: int) -> str:
+    """Alternate the two sides ``repeats`` times; the median ratios of wall and CPU time."""
+    a, b = [], []
+    for k in range(repeats):
+        if k % 2:  # alternate which side goes first, so drift hits both alike
+            b.append(second())
+            a.append(first())
+        else:
+            a.append(first())
+            b.append(second())
+    wall = sorted(x[0] / y[0] for x, y in zip(a, b))[repeats // 2]
+    cpu = sorted(x[1] / max(y[1], 1e-9) for x, y in zip(a, b))[repeats // 2]
+    best_a, best_b = min(x[0] for x in a), min(y[0] for y in b)
+    return (f"gradprobe {best_a:7.3f} s  bare {best_b:7.3f} s  median ratio wall {wall:5.2f} "
+            f"cpu {cpu:5.2f} over {repeats} alternating pairs")
+
+
+def in_process(label: str, repeats: int) -> None:
+    case = make_case(*SIZES[label])
     start = time.perf_counter()
-    calls = 0
-    grad = np.empty(flat.size)
-    forward(p, inputs)
-    calls += 1
-    i = 0
-    while calls + 2 <= evaluations:
-        k = i % flat.size
-        old = flat[k]
-        flat[k] = old + h
-        fp = forward(p, inputs)
-        flat[k] = old - h
-        fm = forward(p, inputs)
-        flat[k] = old
-        grad[k] = (fp - fm) / (2 * h)
-        calls += 2
-        i += 1
-    while calls < evaluations:
-        forward(p, inputs)
-        calls += 1
-    return time.perf_counter() - start
-
-
-def paired(first, second, repeats: int) -> tuple[float, float, float]:
-    """Alternate the two timings ``repeats`` times (so drift hits both alike); returns the
-    best time of each and the median of the per-pair ratios."""
-    times_a, times_b = [], []
-    for _ in range(repeats):
-        times_a.append(first())
-        times_b.append(second())
-    ratios = sorted(a / b for a, b in zip(times_a, times_b))
-    return min(times_a), min(times_b), ratios[len(ratios) // 2]
-
-
-def measure(label: str, batch: int, width: int, repeats: int) -> None:
-    forward, backward, params, inputs = make_case(batch, width)
-    t0 = time.perf_counter()
     for _ in range(50):
-        forward(params, inputs)
-    per_call = (time.perf_counter() - t0) / 50
-    report = check(forward, backward, params, inputs)
-    assert report.ok, report.render()
+        case.forward(case.params, case.inputs)
+    per_call = (time.perf_counter() - start) / 50
+    report = probe(case.forward, case.backward, case.params, case.inputs)
+    assert report.ok, render_text(report)
     n = report.evaluations
+    line = paired(lambda: timed(lambda: probe(case.forward, case.backward, case.params, case.inputs)),
+                  lambda: timed(lambda: bare_loop(case.forward, case.params, case.inputs, n)),
+                  repeats)
+    print(f"{label:8s} forward {per_call * 1e6:8.1f} us  evaluations {n:6d}  {line}")
 
-    def probe() -> float:
-        start = time.perf_counter()
-        check(forward, backward, params, inputs)
-        return time.perf_counter() - start
 
-    ours, bare, ratio = paired(probe, lambda: bare_loop(forward, params, inputs, n), repeats)
-    print(
-        f"{label:8s} forward {per_call * 1e6:8.1f} us  coordinates {params['W'].size:5d}  "
-        f"evaluations {n:6d}  gradprobe {ours:7.3f} s  bare loop {bare:7.3f} s  "
-        f"median ratio {ratio:5.2f} over {repeats} alternating pairs"
-    )
+def other_work() -> None:
+    """Fragment the heap and run unrelated checks, as a long test session would."""
+    keep = [np.ones(int(n)) for n in np.random.default_rng(0).integers(1_000, 400_000, 200)]
+    del keep[::2]
+    for width in (3, 5, 7):
+        w = np.linspace(-1, 1, width)
+        probe(lambda p, i: float(np.sum(np.sin(p["w"]))), lambda p, i: {"w": np.cos(p["w"])}, {"w": w})
+
+
+def end_to_end(label: str, repeats: int) -> None:
+    """Fresh processes. gradprobe's modules are byte-compiled first, as ``pip install`` does
+    (with PYTHONDONTWRITEBYTECODE set, a source checkout would otherwise compile every module
+    on every start)."""
+    import compileall
+
+    import gradprobe
+
+    compileall.compile_dir(str(Path(gradprobe.__file__).parent), quiet=1)
+    case = make_case(*SIZES[label])
+    n = probe(case.forward, case.backward, case.params, case.inputs).evaluations
+    ours = [sys.executable, "-m", "gradprobe", "check", f"bench/overhead_cases.py:{label}", "-q"]
+    bare = [sys.executable, "bench/overhead_cases.py", label, str(n)]
+    print(f"{label:8s} end to end, {n} evaluations: {paired(lambda: timed_child(ours), lambda: timed_child(bare), repeats)}")
 
 
 if __name__ == "__main__":
-    measure("cheap", batch=16, width=8, repeats=9)
-    measure("heavier", batch=6000, width=20, repeats=7)
+    print("1. in process, fresh")
+    in_process("heavier", repeats=7)
+    in_process("cheap", repeats=9)
+    print("2. in process, after other work")
+    other_work()
+    in_process("heavier", repeats=7)
+    in_process("cheap", repeats=9)
+    print("3. end to end (fresh processes; the bare loop keeps glibc's default heap settings)")
+    end_to_end("cheap", repeats=9)
+    end_to_end("heavier", repeats=7)

@@ -3,25 +3,29 @@
 Run by hand: ``python bench/scale.py``. Prints, with evaluation counts and ratios:
 1. a three-layer network of ~200k parameters with one wrong weight element, --sample 0;
 2. a correct network of ~1M parameters with the default plan;
-3. a forward of ~20 ms checked serially and with --jobs 2.
+3. a forward of ~20 ms checked serially and with --jobs 2, alternating, with the CPU time of
+   the parent and of the workers (goal: speedup >= 1.7 on an idle 2-core machine);
+4. the cost of sending and applying one whole-tensor perturbation, as a slice and as an
+   explicit index array.
 """
 
 from __future__ import annotations
 
 import os
+import resource
 import time
 from pathlib import Path
 
-from gradprobe.engine.runner import run_check
-from gradprobe.options import CheckOptions
+from gradprobe import probe_target
+from gradprobe.render.json import report_dict
 from gradprobe.target import load_target
 
 HERE = Path(__file__).resolve().parent
 TARGETS = HERE / "scale_targets.py"
 
 
-def _load(name):
-    return load_target(f"{TARGETS}:{name}")
+def _spec(name: str) -> str:
+    return f"{TARGETS}:{name}"
 
 
 def _params(report):
@@ -30,7 +34,7 @@ def _params(report):
 
 def one_wrong() -> None:
     start = time.perf_counter()
-    report = run_check(_load("one_wrong_200k"), CheckOptions(sample=0))
+    report = probe_target(_spec("one_wrong_200k"), sample=0)
     seconds = time.perf_counter() - start
     print(f"1. one wrong element, {_params(report):,} parameters, --sample 0")
     for t in report.tensors:
@@ -45,7 +49,7 @@ def one_wrong() -> None:
 
 def correct_large() -> None:
     start = time.perf_counter()
-    report = run_check(_load("correct_1m"), CheckOptions())
+    report = probe_target(_spec("correct_1m"))
     seconds = time.perf_counter() - start
     print(f"2. correct network, {_params(report):,} parameters, default plan")
     for t in report.tensors:
@@ -56,26 +60,66 @@ def correct_large() -> None:
           f"{report.evaluations} in all; {seconds:.1f} s")
 
 
-def parallel() -> None:
-    target = _load("heavy_20ms")
+def parallel(pairs: int = 3) -> None:
+    """--jobs 2 against serial on a ~20 ms forward, alternating; wall and parent CPU time."""
+    target = load_target(_spec("heavy_20ms"))
     params, inputs = target.params, target.inputs
     start = time.perf_counter()
     for _ in range(5):
         target.forward(params, inputs)
     per_call = (time.perf_counter() - start) / 5
-    timings = {}
+    walls: dict[int, list[float]] = {1: [], 2: []}
+    cpus: dict[int, list[float]] = {1: [], 2: []}
+    workers_cpu: list[float] = []
     reports = {}
-    for jobs in (1, 2):
-        start = time.perf_counter()
-        reports[jobs] = run_check(_load("heavy_20ms"), CheckOptions(jobs=jobs))
-        timings[jobs] = time.perf_counter() - start
-    same = reports[1].to_dict()["layers"] == reports[2].to_dict()["layers"]
+    for k in range(pairs):
+        for jobs in ((1, 2) if k % 2 == 0 else (2, 1)):
+            before = resource.getrusage(resource.RUSAGE_CHILDREN)
+            wall, cpu = time.perf_counter(), time.process_time()
+            reports[jobs] = probe_target(_spec("heavy_20ms"), jobs=jobs)
+            walls[jobs].append(time.perf_counter() - wall)
+            cpus[jobs].append(time.process_time() - cpu)
+            after = resource.getrusage(resource.RUSAGE_CHILDREN)
+            if jobs == 2:
+                workers_cpu.append(after.ru_utime + after.ru_stime - before.ru_utime - before.ru_stime)
+    speedups = sorted(a / b for a, b in zip(walls[1], walls[2]))
+    same = report_dict(reports[1])["layers"] == report_dict(reports[2])["layers"]
     print(f"3. forward {per_call * 1e3:.1f} ms, {reports[1].evaluations} evaluations, "
-          f"{os.cpu_count()} cores: serial {timings[1]:.2f} s, --jobs 2 {timings[2]:.2f} s, "
-          f"speedup {timings[1] / timings[2]:.2f} (goal >= 1.6); same report: {same}")
+          f"{os.cpu_count()} cores, load average {os.getloadavg()[0]:.1f}: serial "
+          f"{min(walls[1]):.2f} s wall / {min(cpus[1]):.2f} s CPU, --jobs 2 {min(walls[2]):.2f} s "
+          f"wall / {min(cpus[2]):.2f} s CPU in the parent + {min(workers_cpu):.2f} s in the "
+          f"workers; median speedup "
+          f"{speedups[len(speedups) // 2]:.2f} over {pairs} alternating pairs (goal >= 1.7 on an "
+          f"idle machine); same report: {same}")
+
+
+def transport(size: int = 750_000) -> None:
+    """One whole-tensor perturbation of ``size`` float64 values: bytes sent to a worker and
+    the time to apply and undo it, as a slice and as an explicit int64 index."""
+    import pickle
+
+    import numpy as np
+
+    from gradprobe.engine.evaluate import LossFunction, Perturbation
+    from gradprobe.tensors import Workspace
+
+    values = np.random.default_rng(0).normal(size=size)
+    loss = LossFunction(lambda p, i: 0.0, Workspace({"w": values}, {}), None)
+    as_slice = Perturbation("w", slice(0, size), values + 1e-6)
+    as_index = Perturbation("w", np.arange(size)[::-1].copy(), (values + 1e-6)[::-1].copy())
+    line = []
+    for label, p in (("slice", as_slice), ("int64 index", as_index)):
+        start = time.perf_counter()
+        for _ in range(20):
+            loss.at(p)
+        per = (time.perf_counter() - start) / 20
+        line.append(f"{label}: {len(pickle.dumps(p)) / 1e6:.1f} MB pickled, {per * 1e3:.2f} ms "
+                    "to apply and undo")
+    print(f"4. a whole-tensor perturbation of {size} values: " + "; ".join(line))
 
 
 if __name__ == "__main__":
     one_wrong()
     correct_large()
     parallel()
+    transport()

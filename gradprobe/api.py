@@ -3,20 +3,23 @@
 Both return the :class:`~gradprobe.report.Report` the CLI renders. When the check cannot run
 they raise gradprobe's own exceptions (subclasses of :class:`~gradprobe.errors.ProbeError`)
 with the CLI's one-sentence message, chained to the user's exception. The caller's arrays are
-bitwise unchanged either way.
+bitwise unchanged either way. ``render_text``, ``report_dict`` and ``raise_if_failed`` are the
+report's outputs as free functions (the report model does not know its renderers).
 """
 
 from __future__ import annotations
 
-from concurrent.futures import Executor
-from typing import Any, Callable, Mapping
+from typing import TYPE_CHECKING, Any, Callable, Mapping
 
 from .engine.runner import run_check
 from .options import CheckOptions
 from .report import Report
-from .stack import StackTarget, load_any, stack
+from .stack import StackTarget, is_stack, load_any, stack, stack_from_object
 from .stack_check import run_any, run_stack
-from .target import Target
+from .target import Target, target_from_object
+
+if TYPE_CHECKING:
+    from concurrent.futures import Executor
 
 
 def _options(values: Mapping[str, Any]) -> CheckOptions:
@@ -35,8 +38,8 @@ def probe(
 ) -> Report:
     """Check ``backward`` against central differences of ``forward`` at ``params``/``inputs``.
 
-    ``options`` are the fields of :class:`~gradprobe.options.CheckOptions`: ``threshold``,
-    ``seed``, ``method``, ``sample``, ``directions``, ``jobs``, ``recheck``, ...
+    ``options`` are the settings of :class:`~gradprobe.options.CheckOptions`: ``threshold``,
+    ``seed``, ``method``, ``sample``, ``directions``, ``jobs``, ``recheck``, ``inconclusive``.
     ``label`` names the target in reports (default: the forward function's name).
     """
     target = Target(label or name_of(forward), forward, backward, params, inputs or {})
@@ -45,17 +48,28 @@ def probe(
 
 def name_of(forward: Callable[..., Any]) -> str:
     """``module.function`` for a named forward; ``<lambda in module>`` for a lambda."""
-    name = getattr(forward, "__qualname__", None) or type(forward).__name__
+    name = getattr(forward, "__name__", None) or type(forward).__name__
     module = getattr(forward, "__module__", None)
     if name == "<lambda>":
         return f"<lambda in {module}>" if module else "<lambda>"
     return f"{module}.{name}" if module and module != "__main__" else name
 
 
-def probe_target(spec: str, *, executor: Executor | None = None, **options: Any) -> Report:
-    """Check the target named by an entry-point string (a stack too), as ``gradprobe check``
-    does."""
-    return run_any(load_any(spec), _options(options), executor=executor)
+def probe_target(target: str | Any, *, executor: Executor | None = None, **options: Any) -> Report:
+    """Check a target as ``gradprobe check`` does: an entry-point string, a
+    :class:`~gradprobe.target.Target` (e.g. from :func:`~gradprobe.adapters.layer_target`), a
+    stack, or any object with forward, backward and setup() or params (or layers)."""
+    checked = _options(options)
+    loaded: Target | StackTarget
+    if isinstance(target, str):
+        loaded = load_any(target)
+    elif isinstance(target, (Target, StackTarget)):
+        loaded = target
+    elif is_stack(target):
+        loaded = stack_from_object(target, label=type(target).__name__)
+    else:
+        loaded = target_from_object(target, label=type(target).__name__)
+    return run_any(loaded, checked, executor=executor)
 
 
 def probe_stack(
@@ -75,3 +89,28 @@ def probe_stack(
     else:
         target = stack(layers, params or {}, inputs or {}, label)
     return run_stack(target, _options(options), executor=executor)
+
+
+def render_text(report: Report, width: int = 120) -> str:
+    """The per-layer table and verdict line as plain text."""
+    from .render.terminal import render_text as render
+
+    return render(report, width=width)
+
+
+def report_dict(report: Report) -> dict[str, Any]:
+    """The JSON report (schema ``gradprobe.report/1``) as a dict."""
+    from .render.json import report_dict as as_dict
+
+    return as_dict(report)
+
+
+def raise_if_failed(report: Report) -> Report:
+    """Raise AssertionError when the report is not ok: a first line naming the failing tensors
+    and the worst error, then the per-layer table."""
+    __tracebackhide__ = True
+    if not report.ok:
+        from .render.lines import failure_line
+
+        raise AssertionError(failure_line(report) + "\n" + render_text(report))
+    return report

@@ -1,46 +1,42 @@
-"""The ``gradprobe`` command. The only place that turns outcomes into exit codes."""
+"""The ``gradprobe`` command. The only place that turns outcomes into exit codes.
+
+Every command returns its exit code; :func:`_finish` (the group's result callback) is the one
+place the process exits. Errors carry their own ``exit_code``. rich, the renderers and the
+engine are imported when a check runs, not when the command starts, so ``--help`` and
+``--version`` are quick.
+"""
 
 from __future__ import annotations
 
 import contextlib
 import os
-import socket
 import sys
 import traceback
 from dataclasses import dataclass
-from datetime import datetime
 from pathlib import Path
-from typing import Any
+from typing import TYPE_CHECKING, Any, Callable
 
 import click
 from click.core import ParameterSource
-from rich.console import Console
 
-from . import __version__
 from .config import ProjectConfig, load_config
 from .errors import ProbeError, UsageProblem
-from .options import METHODS, CheckOptions
-from .render.html import render_html
-from .render.json import render_runs
-from .render.junit import render_junit
-from .render.progress import TerminalProgress
-from .render.terminal import COLOUR, PLAIN, plain_console, renderables, run_summary
+from .options import SETTINGS, CheckOptions, ReportFiles, split_values
 from .report import TargetRun
-from .report_files import check_writable, reproduce
-from .stack import load_any
-from .stack_check import run_any
-from .starter import write_starter
 
-EXIT_OK, EXIT_FAIL, EXIT_ERROR, EXIT_INTERNAL, EXIT_INTERRUPTED = 0, 1, 2, 3, 130
+if TYPE_CHECKING:
+    from rich.console import Console
 
-CHECK_HELP = """Check the backward pass of each TARGET against central differences.
+EXIT_OK, EXIT_FAIL, EXIT_INTERNAL, EXIT_INTERRUPTED = 0, 1, 3, 130  # 2: ProbeError.exit_code
+
+CHECK_HELP = f"""Check the backward pass of each TARGET against central differences.
 
 TARGET is a Python file (nets/mlp.py), a dotted module (nets.mlp), either followed by
 :NAME for an attribute (nets/mlp.py:dense_case). The target provides forward, backward and
 setup() or params, or layers (a stack: every layer's backward is checked on its own, and the
 report says where the error enters); see the README for the protocol. With no TARGET, the targets listed in
-[tool.gradprobe] of the nearest pyproject.toml are checked; its other keys (threshold, seed,
-method, sample, directions, jobs, recheck, json, junit, html) set defaults that options override.
+[tool.gradprobe] of the nearest pyproject.toml are checked; its other keys
+({", ".join(s.config_key for s in SETTINGS)}) set defaults that options override.
 --show-settings says which value each setting has and where it came from.
 
 \b
@@ -52,41 +48,36 @@ Examples:
   gradprobe check nets.mlp:Case --fail-above 1e-5 --seed 3
   gradprobe check samples/sensor_mixer.py --json - | jq .summary
   gradprobe check big_model.py --sample 0 --jobs 2
+  gradprobe check nets.mlp:Case --inconclusive fail
   gradprobe check --show-settings
 
 \b
-Exit codes: 0 every tensor agrees; 1 at least one tensor disagrees;
-2 the check could not run (bad usage, import failure, forward/backward raised, ...);
-with several targets, the worst of their codes.
+Exit codes: 0 every tensor agrees; 1 at least one tensor disagrees (or is
+inconclusive with --inconclusive fail); 2 the check could not run (bad usage,
+import failure, forward/backward raised or tried to end the process, ...);
+3 an internal error; 130 interrupted; with several targets, the worst code.
 """
-
-# option name -> CheckOptions field (None: an output setting)
-SETTINGS = {
-    "threshold": "threshold", "seed": "seed", "method": "method", "sample": "sample",
-    "directions": "directions", "jobs": "jobs", "recheck": "recheck",
-    "json": None, "junit": None, "html": None,
-}
-DEFAULTS = {"threshold": None, "seed": 0, "method": "central", "sample": None,
-            "directions": None, "jobs": 1, "recheck": True, "json": None, "junit": None,
-            "html": None}
 
 
 @dataclass(frozen=True)
 class Output:
     """Where and how results are shown."""
 
-    json_path: str | None
-    junit_path: str | None
+    files: ReportFiles
     quiet: bool
     traceback: bool
     maps: bool = False
-    html_path: str | None = None
+    command: str = ""  # the command line that reproduces the run (for the HTML page)
 
     def stdout_free(self) -> bool:
-        return self.json_path != "-"
+        return self.files.json != "-"
 
 
-def _console(stderr: bool = False) -> Console:
+def _console(stderr: bool = False) -> "Console":
+    from rich.console import Console
+
+    from .render.terminal import plain_console
+
     stream = sys.stderr if stderr else sys.stdout
     if os.environ.get("NO_COLOR") or not stream.isatty():
         columns = os.environ.get("COLUMNS", "")
@@ -100,10 +91,24 @@ def _say_error(message: str, exc: BaseException | None, show_trace: bool) -> Non
     click.echo(f"gradprobe: error: {message}", err=True)
 
 
-def _progress() -> TerminalProgress | None:
+def _progress() -> Any:
     if not sys.stderr.isatty() or os.environ.get("CI"):
         return None
+    from rich.console import Console
+
+    from .render.progress import TerminalProgress
+
     return TerminalProgress(Console(file=sys.stderr))
+
+
+def writable(path: str, what: str) -> None:
+    """Refuse a report path that cannot be written, before any check runs ('-' is standard
+    output for the JSON report)."""
+    if path == "-" and what == "JSON report":
+        return
+    from .report_files import check_writable
+
+    check_writable(path, what)
 
 
 def _write(path: str, text: str, what: str) -> None:
@@ -114,11 +119,14 @@ def _write(path: str, text: str, what: str) -> None:
 
 
 def check_one(spec: str, options: CheckOptions, out: Output) -> TargetRun:
-    """Check one target and show its table; errors become a TargetRun with exit code 2.
+    """Check one target and show its table; errors become a TargetRun with their exit code.
 
     With ``--json -`` whatever the user's code prints goes to standard error, so standard
     output holds the report alone. Ctrl-C propagates to stop the whole run.
     """
+    from .stack import load_any
+    from .stack_check import run_any
+
     progress = _progress()
     user_output = (contextlib.redirect_stdout(sys.stderr) if not out.stdout_free()
                    else contextlib.nullcontext())
@@ -132,15 +140,29 @@ def check_one(spec: str, options: CheckOptions, out: Output) -> TargetRun:
     except ProbeError as exc:
         sentence = exc.with_target(spec).sentence()
         _say_error(sentence, exc, out.traceback)
-        return TargetRun(spec, EXIT_ERROR, error=sentence)
+        return TargetRun(spec, exc.exit_code, error=sentence)
+    except SystemExit as exc:  # past every guard: still never a pass
+        from .guard import exit_error
+
+        error = exit_error(exc, "the target's code").with_target(spec)
+        _say_error(error.sentence(), exc, out.traceback)
+        return TargetRun(spec, error.exit_code, error=error.sentence())
     except Exception as exc:  # a bug in gradprobe itself, not in the user's code
         sentence = (f"{spec}: internal error {type(exc).__name__}: {exc} (please report it; "
                     "--traceback shows where)")
         _say_error(sentence, exc, out.traceback)
         return TargetRun(spec, EXIT_INTERNAL, error=sentence)
+    quiet = out.quiet or not out.stdout_free()
+    stream = sys.stdout if out.stdout_free() else sys.stderr
+    if quiet and (os.environ.get("NO_COLOR") or not stream.isatty()):
+        from .render.lines import verdict  # the verdict line alone needs no rich
+
+        click.echo(verdict(report), file=stream)
+        return TargetRun(spec, EXIT_OK if report.ok else EXIT_FAIL, report=report)
+    from .render.terminal import COLOUR, PLAIN, renderables
+
     console = _console(stderr=not out.stdout_free())
     theme = PLAIN if console.no_color else COLOUR
-    quiet = out.quiet or not out.stdout_free()
     for item in renderables(report, theme, quiet=quiet, with_maps=out.maps, width=console.width):
         console.print(item, crop=False)
     return TargetRun(spec, EXIT_OK if report.ok else EXIT_FAIL, report=report)
@@ -149,20 +171,19 @@ def check_one(spec: str, options: CheckOptions, out: Output) -> TargetRun:
 def _settings(ctx: click.Context, given: dict[str, Any], config: ProjectConfig) -> tuple[dict, dict]:
     """Effective values and where each came from: command line > pyproject.toml > default."""
     values, origins = {}, {}
-    for name in SETTINGS:
-        if ctx.get_parameter_source(name) == ParameterSource.COMMANDLINE:
-            values[name], origins[name] = given[name], "command line"
-        elif name in config.values:
-            values[name], origins[name] = config.values[name], str(config.path)
+    for s in SETTINGS:
+        if ctx.get_parameter_source(s.name) == ParameterSource.COMMANDLINE:
+            values[s.name], origins[s.name] = given[s.name], "command line"
+        elif s.config_key in config.values:
+            values[s.name], origins[s.name] = config.values[s.config_key], str(config.path)
         else:
-            values[name], origins[name] = DEFAULTS[name], "default"
+            values[s.name], origins[s.name] = s.default, "default"
     return values, origins
 
 
 def _settings_lines(values: dict, origins: dict, targets: list[str], target_origin: str) -> list[str]:
-    rows = [(name, "(from the floating type)" if name == "threshold" and values[name] is None
-             else "(by tensor size)" if values[name] is None and name in ("sample", "directions")
-             else repr(values[name]), origins[name]) for name in SETTINGS]
+    rows = [(s.name, f"({s.unset})" if values[s.name] is None and s.unset else repr(values[s.name]),
+             origins[s.name]) for s in SETTINGS]
     rows.append(("targets", repr(targets), target_origin))
     width = max(len(r[0]) for r in rows)
     value_width = max(len(r[1]) for r in rows)
@@ -188,51 +209,47 @@ class CheckCommand(click.Command):
             formatter.write_paragraph()
             formatter.write_text(f"Settings: {exc.sentence()}")
             return
-        values = {n: config.values.get(n, DEFAULTS[n]) for n in SETTINGS}
-        origins = {n: str(config.path) if n in config.values else "default" for n in SETTINGS}
+        values = {s.name: config.values.get(s.config_key, s.default) for s in SETTINGS}
+        origins = {s.name: str(config.path) if s.config_key in config.values else "default"
+                   for s in SETTINGS}
         targets = config.targets(Path.cwd())
         with formatter.section("Settings in force (before any option on this command line)"):
             for line in _settings_lines(values, origins, targets, str(config.path) if targets else "none"):
                 formatter.write(" " * formatter.current_indent + line + "\n")
 
 
+def setting_options(command: Callable[..., Any]) -> Callable[..., Any]:
+    """Add one click option per setting, in declaration order."""
+    for s in reversed(SETTINGS):
+        help_text = s.help + (f" [default: {s.unset}]" if s.unset else "")
+        if s.types == (bool,):
+            decls = [f"--{s.flag}/--no-{s.flag}", s.name]
+            command = click.option(*decls, default=s.default, show_default=True, help=help_text)(command)
+            continue
+        decls = [f"--{s.flag}", *([s.short] if s.short else []), s.name]
+        kind: Any = click.Choice(s.choices) if s.choices else s.types[0]
+        command = click.option(*decls, type=kind, default=s.default, metavar=s.metavar,
+                               show_default=s.default is not None, help=help_text)(command)
+    return command
+
+
 @click.group(context_settings={"help_option_names": ["-h", "--help"]})
-@click.version_option(__version__, "--version", prog_name="gradprobe", message="%(prog)s %(version)s")
+@click.version_option(None, "--version", package_name="gradprobe", prog_name="gradprobe",
+                      message="%(prog)s %(version)s")
 def cli() -> None:
     """gradprobe: verify hand-written backward passes against central differences."""
 
 
+@cli.result_callback()
+@click.pass_context
+def _finish(ctx: click.Context, code: int, **_: Any) -> None:
+    """The one exit point: every command returns its exit code."""
+    ctx.exit(code)
+
+
 @cli.command("check", cls=CheckCommand, help=CHECK_HELP)
 @click.argument("targets", nargs=-1, metavar="[TARGET]...")
-@click.option("--fail-above", "threshold", type=float, default=None, metavar="REL",
-              help="Relative error above which a coordinate fails "
-                   "[default: 1e-6 for float64 code, 1e-2 for float32].")
-@click.option("--json", "json", metavar="PATH", default=None,
-              help="Write the JSON report to PATH ('-' for standard output, then nothing else "
-                   "goes there).")
-@click.option("--junit", "junit", metavar="PATH", default=None,
-              help="Write a JUnit XML report to PATH: a testsuite per target, a testcase per tensor.")
-@click.option("--html", "html", metavar="PATH", default=None,
-              help="Write one self-contained HTML page for the whole run to PATH: verdict, "
-                   "settings, tables and a map of relative error for each failing tensor.")
-@click.option("--seed", type=int, default=0, show_default=True,
-              help="Seed for every random draw (grad_output, samples, directions).")
-@click.option("--method", type=click.Choice(METHODS), default="central", show_default=True,
-              help="Numeric derivative: central differences, Richardson extrapolation, or "
-                   "the complex step.")
-@click.option("--sample", type=click.IntRange(min=0), default=None, metavar="N",
-              help="Check at most N coordinates per tensor, stratified over every axis plus the "
-                   "largest gradients (0: directional checks only) [default: every coordinate "
-                   "when the target has at most 20000; in a larger target every coordinate of "
-                   "tensors up to 48 elements and 24 of larger ones].")
-@click.option("--directions", type=click.IntRange(min=0), default=None, metavar="K",
-              help="Random-direction checks per tensor, 2 evaluations each plus extrapolation "
-                   "[default: 2 for the tensors that are sampled, else 0].")
-@click.option("--jobs", "-j", type=click.IntRange(min=1), default=1, show_default=True,
-              help="Evaluate perturbations in N worker processes.")
-@click.option("--recheck/--no-recheck", default=True, show_default=True,
-              help="Re-check coordinates that fail the central difference by extrapolation "
-                   "before failing them.")
+@setting_options
 @click.option("--map", "show_maps", is_flag=True,
               help="Draw a map of per-element relative error for each failing tensor.")
 @click.option("--quiet", "-q", is_flag=True, help="Print only the verdict line.")
@@ -243,7 +260,7 @@ def cli() -> None:
                    "pyproject.toml or default), then stop; with --help, list them under it.")
 @click.pass_context
 def check_command(ctx: click.Context, targets: tuple[str, ...], show_maps: bool, quiet: bool,
-                  show_traceback: bool, show_settings: bool, **given: Any) -> None:
+                  show_traceback: bool, show_settings: bool, **given: Any) -> int:
     try:
         config = load_config(Path.cwd())
         values, origins = _settings(ctx, given, config)
@@ -251,42 +268,70 @@ def check_command(ctx: click.Context, targets: tuple[str, ...], show_maps: bool,
         target_origin = "command line" if targets else str(config.path) if chosen else "none"
         if show_settings:
             click.echo("\n".join(_settings_lines(values, origins, chosen, target_origin)))
-            sys.exit(EXIT_OK)
+            return EXIT_OK
         if not chosen:
             raise UsageProblem("no TARGET given and no targets in [tool.gradprobe] of a "
                                "pyproject.toml here or above (see gradprobe check --help)")
-        options = CheckOptions(**{field: values[name] for name, field in SETTINGS.items() if field})
-        if values["html"] is not None:
-            check_writable(values["html"], "HTML report")
+        options, files = split_values(values)
+        if files.json is not None:
+            writable(files.json, "JSON report")
+        if files.junit is not None:
+            writable(files.junit, "JUnit report")
+        if files.html is not None:
+            writable(files.html, "HTML report")
     except ProbeError as exc:
         _say_error(exc.sentence(), exc, show_traceback)
-        sys.exit(EXIT_ERROR)
-    out = Output(values["json"], values["junit"], quiet, show_traceback, show_maps, values["html"])
+        return exc.exit_code
+    from .report_files import reproduce
+
+    command = reproduce(chosen, values, {s.name: s.default for s in SETTINGS})
+    return _run(chosen, options, Output(files, quiet, show_traceback, show_maps, command))
+
+
+def _run(chosen: list[str], options: CheckOptions, out: Output) -> int:
     try:
         runs = [check_one(spec, options, out) for spec in chosen]
     except KeyboardInterrupt:
         click.echo("gradprobe: interrupted; your arrays are unchanged", err=True)
-        sys.exit(EXIT_INTERRUPTED)
+        return EXIT_INTERRUPTED
     code = max(run.exit_code for run in runs)
     try:
-        if out.json_path is not None and any(r.report for r in runs):
-            text = render_runs(runs)
-            if out.json_path == "-":
-                click.echo(text, nl=False)
-            else:
-                _write(out.json_path, text, "JSON report")
-        stamp = datetime.now().replace(microsecond=0).isoformat()
-        if out.junit_path is not None:
-            _write(out.junit_path, render_junit(runs, stamp, socket.gethostname()), "JUnit report")
-        if out.html_path is not None:
-            _write(out.html_path, render_html(runs, reproduce(chosen, values, DEFAULTS), stamp), "HTML report")
+        _reports(runs, out)
     except ProbeError as exc:
-        _say_error(exc.sentence(), exc, show_traceback)
-        code = max(code, EXIT_ERROR)
+        _say_error(exc.sentence(), exc, out.traceback)
+        code = max(code, exc.exit_code)
     if len(runs) > 1:
+        from .render.terminal import COLOUR, PLAIN, run_summary
+
         console = _console(stderr=not out.stdout_free())
         console.print(run_summary(runs, code, PLAIN if console.no_color else COLOUR), crop=False)
-    sys.exit(code)
+    return code
+
+
+def _reports(runs: list[TargetRun], out: Output) -> None:
+    if out.files.json is not None and any(r.report for r in runs):
+        from .render.json import render_runs
+
+        text = render_runs(runs)
+        if out.files.json == "-":
+            click.echo(text, nl=False)
+        else:
+            _write(out.files.json, text, "JSON report")
+    if out.files.junit is None and out.files.html is None:
+        return
+    from datetime import datetime
+
+    stamp = datetime.now().replace(microsecond=0).isoformat()
+    if out.files.junit is not None:
+        import socket
+
+        from .render.junit import render_junit
+
+        _write(out.files.junit, render_junit(runs, stamp, socket.gethostname()), "JUnit report")
+    if out.files.html is not None:
+        from .render.html import render_html
+
+        _write(out.files.html, render_html(runs, out.command, stamp), "HTML report")
 
 
 @cli.command("starter")
@@ -295,18 +340,21 @@ def check_command(ctx: click.Context, targets: tuple[str, ...], show_maps: bool,
 @click.option("--stack", is_flag=True,
               help="Write a stack of layers, each with its own backward, instead of one "
                    "forward and backward.")
-def starter_command(path: str, force: bool, stack: bool) -> None:
+def starter_command(path: str, force: bool, stack: bool) -> int:
     """Write a commented starter target to PATH that runs as it is.
 
     Replace its small layer (or, with --stack, its layers) with your own forward and
     backward, then run gradprobe check PATH.
     """
+    from .starter import write_starter
+
     try:
         write_starter(Path(path), force, stack)
     except ProbeError as exc:
         _say_error(exc.sentence(), exc, False)
-        sys.exit(EXIT_ERROR)
+        return exc.exit_code
     click.echo(f"wrote {path}; run: gradprobe check {path}")
+    return EXIT_OK
 
 
 def main(argv: list[str] | None = None) -> Any:

@@ -3,6 +3,7 @@
     [tool.gradprobe]
     threshold = 1e-5
     seed = 3
+    inconclusive = "fail"
     targets = ["nets/mlp.py", "nets.conv:case"]
 
 Command-line options override these; every key is checked, and a misspelt one is a clear
@@ -11,7 +12,6 @@ error rather than a silently ignored setting.
 
 from __future__ import annotations
 
-import difflib
 import os
 import sys
 from dataclasses import dataclass, field
@@ -19,25 +19,17 @@ from pathlib import Path
 from typing import Any
 
 from .errors import UsageProblem
+from .options import SETTING, SETTINGS
 
 if sys.version_info >= (3, 11):
     import tomllib
 else:  # pragma: no cover - exercised on Python 3.10
     import tomli as tomllib
 
-# key -> (accepted types, description)
+# key -> (accepted types, description): every setting, plus the targets to check.
 KEYS: dict[str, tuple[tuple[type, ...], str]] = {
-    "threshold": ((float, int), "relative-error threshold"),
-    "seed": ((int,), "seed for every random draw"),
-    "method": ((str,), "central, richardson or complex"),
-    "sample": ((int,), "coordinates per tensor"),
-    "directions": ((int,), "random directions per tensor"),
-    "jobs": ((int,), "worker processes"),
-    "recheck": ((bool,), "re-check failing coordinates by extrapolation"),
+    **{s.config_key: (s.types, s.what) for s in SETTINGS},
     "targets": ((list,), "targets to check when none is named"),
-    "json": ((str,), "path of the JSON report"),
-    "junit": ((str,), "path of the JUnit XML report"),
-    "html": ((str,), "path of the HTML report"),
 }
 
 
@@ -68,17 +60,25 @@ def find_pyproject(start: Path) -> Path | None:
 
 def _check(key: str, value: Any, path: Path) -> Any:
     if key not in KEYS:
+        import difflib
+
         close = difflib.get_close_matches(key, list(KEYS), n=1)
         tip = f"; did you mean {close[0]!r}?" if close else f"; known keys: {', '.join(KEYS)}"
         raise UsageProblem(f"{path}: unknown key {key!r} in [tool.gradprobe]{tip}", value=key)
     types, what = KEYS[key]
-    if isinstance(value, bool) and bool not in types or not isinstance(value, types):
+    fits = isinstance(value, types) and not (isinstance(value, bool) and bool not in types)
+    if not fits:
         raise UsageProblem(
             f"{path}: [tool.gradprobe] {key} must be {' or '.join(t.__name__ for t in types)} "
             f"({what}), not {value!r}", value=value)
     if key == "targets" and not all(isinstance(t, str) for t in value):
         raise UsageProblem(f"{path}: [tool.gradprobe] targets must be a list of strings", value=value)
-    return float(value) if key == "threshold" else value
+    choices = SETTING[key].choices if key in SETTING else None
+    if choices and value not in choices:
+        raise UsageProblem(
+            f"{path}: [tool.gradprobe] {key} must be one of {', '.join(choices)}, not {value!r}",
+            value=value)
+    return float(value) if float in types and not isinstance(value, bool) else value
 
 
 def load_config(start: Path) -> ProjectConfig:

@@ -34,9 +34,7 @@ class ProbeError(Exception):
 
     def sentence(self) -> str:
         """The one sentence shown to the user, naming the target when known."""
-        text = self.message.rstrip(".")
-        if not text.endswith(("?", "!")):  # a sentence ending in a suggestion keeps its "?"
-            text += "."
+        text = self.message if self.message.endswith(("?", "!")) else self.message.rstrip(".") + "."
         return f"{self.target}: {text}" if self.target else text
 
     def __str__(self) -> str:
@@ -69,3 +67,7 @@ class InPlaceWriteError(ProbeError):
 
 class ComplexStepError(ProbeError):
     """The complex-step method was asked for, but forward does not carry complex values."""
+
+
+class ProcessExitError(UserCodeError):
+    """The user's code called sys.exit or os._exit during the check; it did not finish."""

@@ -1,61 +1,188 @@
-"""The options of one check, shared by the CLI, the config file and the Python API."""
+"""The settings of one check, each declared once.
+
+A setting is a field of :class:`CheckOptions` (how to check) or :class:`ReportFiles` (where
+reports go) whose metadata carries its help, its command-line flag and whether the pytest
+fixture takes it. The CLI's options, the ``[tool.gradprobe]`` keys and their types, the
+``--show-settings`` table and the help texts are all derived from :data:`SETTINGS`.
+"""
 
 from __future__ import annotations
 
-from dataclasses import dataclass, fields, replace
+import math
+import numbers
+import typing
+from dataclasses import MISSING, Field, dataclass, field, fields, replace
 from typing import Any
-
-import numpy as np
 
 from .errors import UsageProblem
 
 METHODS = ("central", "richardson", "complex")
+INCONCLUSIVE_POLICIES = ("allow", "fail")
 
 # Default relative-error thresholds by the floating type the forward computes in. float64:
 # central differences reach about eps**(2/3) ~ 4e-11 on well-scaled functions, so 1e-6 leaves
 # room for conditioning (common practice). float32: eps**(2/3) ~ 2.4e-5 and sums of many
 # float32 terms lose more, so 1e-2 (common practice for single precision).
-DEFAULT_THRESHOLDS = {np.dtype(np.float64): 1e-6, np.dtype(np.float32): 1e-2, np.dtype(np.float16): 1e-1}
+DEFAULT_THRESHOLDS = {"float64": 1e-6, "float32": 1e-2, "float16": 1e-1}
 
 
-def default_threshold(dtype: np.dtype) -> float:
-    return DEFAULT_THRESHOLDS.get(np.dtype(dtype), 1e-6)
+def default_threshold(dtype: Any) -> float:
+    """The default threshold for a numpy dtype (or its name)."""
+    return DEFAULT_THRESHOLDS.get(str(getattr(dtype, "name", dtype)), 1e-6)
+
+
+def setting(
+    what: str, default: Any, help: str, *, flag: str | None = None, short: str | None = None,
+    metavar: str | None = None, choices: tuple[str, ...] | None = None,
+    unset: str | None = None, fixture: bool = False,
+) -> Any:
+    """A dataclass field that is a user-facing setting (see :class:`Setting`)."""
+    meta = {"what": what, "help": help, "flag": flag, "short": short, "metavar": metavar, "choices": choices,
+            "unset": unset, "fixture": fixture}
+    return field(default=default, metadata={"setting": meta})
 
 
 @dataclass(frozen=True)
 class CheckOptions:
-    """How to check. ``None`` means "decide from the target" (threshold, directions)."""
+    """How to check. ``None`` means "decide from the target" (threshold, sample, directions)."""
 
-    threshold: float | None = None
-    seed: int = 0
-    method: str = "central"
-    recheck: bool = True  # re-check failing coordinates by extrapolation before failing them
-    sample: int | None = None  # coordinates per tensor; None: full sweep up to sweep_limit
-    directions: int | None = None  # random directions per tensor; None: only above sweep_limit
+    threshold: float | None = setting(
+        "relative-error threshold", None, "Relative error above which a coordinate fails.", flag="fail-above", metavar="REL",
+        unset="1e-6 for float64 code, 1e-2 for float32", fixture=True)
+    seed: int = setting(
+        "seed for every random draw", 0, "Seed for every random draw (grad_output, samples, directions); 0 or more.",
+        metavar="N", fixture=True)
+    method: str = setting(
+        "central, richardson or complex", "central", "Numeric derivative: central differences, Richardson extrapolation, or the "
+        "complex step.", choices=METHODS, fixture=True)
+    sample: int | None = setting(
+        "coordinates per tensor", None, "Check at most N coordinates per tensor, stratified over every axis plus the "
+        "largest gradients (0: directional checks only).", metavar="N",
+        unset="every coordinate when the target has at most 20000; in a larger target every "
+        "coordinate of tensors up to 48 elements and 24 of larger ones")
+    directions: int | None = setting(
+        "random directions per tensor", None, "Random-direction checks per tensor, 2 evaluations each plus extrapolation.",
+        metavar="K", unset="2 for the tensors that are sampled, else 0")
+    jobs: int = setting("worker processes", 1, "Evaluate perturbations in N worker processes.", short="-j", metavar="N")
+    recheck: bool = setting(
+        "re-check failing coordinates by extrapolation", True, "Re-check coordinates that fail the central difference by extrapolation before "
+        "failing them.")
+    inconclusive: str = setting(
+        "allow or fail", "allow", "What an inconclusive tensor does to the run: 'allow' reports it and passes, "
+        "'fail' fails the run (exit 1).", choices=INCONCLUSIVE_POLICIES, fixture=True)
+    # Internal plan sizes (not settings): see engine/tensor_check.py.
     sweep_total: int = 20_000  # a target with at most this many coordinates is swept in full
     sweep_limit: int = 48  # in a larger target, tensors up to this size still are
     default_sample: int = 24  # coordinates checked in a tensor that is not swept
     default_directions: int = 2
-    jobs: int = 1
 
     def __post_init__(self) -> None:
-        if self.threshold is not None and not (self.threshold > 0 and np.isfinite(self.threshold)):
-            raise UsageProblem(f"the threshold must be a positive number, not {self.threshold}")
+        if self.threshold is not None and not (
+            isinstance(self.threshold, numbers.Real) and self.threshold > 0 and math.isfinite(self.threshold)
+        ):
+            raise UsageProblem(f"the threshold must be a positive number, not {self.threshold}",
+                               value=self.threshold)
+        if isinstance(self.seed, bool) or not isinstance(self.seed, numbers.Integral) or self.seed < 0:
+            raise UsageProblem(f"the seed must be a whole number 0 or more, not {self.seed!r}",
+                               value=self.seed)
         if self.method not in METHODS:
-            raise UsageProblem(f"unknown method {self.method!r}; choose one of {', '.join(METHODS)}")
+            raise UsageProblem(f"unknown method {self.method!r}; choose one of {', '.join(METHODS)}",
+                               value=self.method)
+        if self.inconclusive not in INCONCLUSIVE_POLICIES:
+            raise UsageProblem(
+                f"inconclusive must be one of {', '.join(INCONCLUSIVE_POLICIES)}, not "
+                f"{self.inconclusive!r}", value=self.inconclusive)
         for name in ("sample", "directions"):
             value = getattr(self, name)
             if value is not None and value < 0:
-                raise UsageProblem(f"{name} must be 0 or more, not {value}")
+                raise UsageProblem(f"{name} must be 0 or more, not {value}", value=value)
         if self.sample == 0 and self.directions == 0:
             raise UsageProblem("sample 0 with directions 0 would check nothing")
         if self.jobs < 1:
-            raise UsageProblem(f"jobs must be 1 or more, not {self.jobs}")
+            raise UsageProblem(f"jobs must be 1 or more, not {self.jobs}", value=self.jobs)
 
     def with_values(self, **values: Any) -> "CheckOptions":
-        """A copy with the given fields replaced; unknown names are a UsageProblem."""
-        known = {f.name for f in fields(self)}
-        unknown = sorted(set(values) - known)
+        """A copy with the given settings replaced; unknown names are a UsageProblem."""
+        known = [s.name for s in SETTINGS if s.owner is CheckOptions]
+        unknown = sorted(set(values) - set(known))
         if unknown:
-            raise UsageProblem(f"unknown option {unknown[0]!r}; known: {', '.join(sorted(known))}")
+            raise UsageProblem(f"unknown option {unknown[0]!r}; known: {', '.join(sorted(known))}",
+                               value=unknown[0])
         return replace(self, **values)
+
+    @property
+    def inconclusive_fails(self) -> bool:
+        return self.inconclusive == "fail"
+
+
+@dataclass(frozen=True)
+class ReportFiles:
+    """Where the machine-readable reports go (``None``: nowhere)."""
+
+    json: str | None = setting(
+        "path of the JSON report", None, "Write the JSON report to PATH ('-' for standard output, then nothing else goes "
+        "there).", metavar="PATH")
+    junit: str | None = setting(
+        "path of the JUnit XML report", None, "Write a JUnit XML report to PATH: a testsuite per target, a testcase per tensor "
+        "(an inconclusive tensor is a skipped testcase carrying its reason).", metavar="PATH")
+    html: str | None = setting(
+        "path of the HTML report", None, "Write one self-contained HTML page for the whole run to PATH: the verdict, "
+        "the settings, a table per target and layer, and a map of each failing tensor.", metavar="PATH")
+
+
+@dataclass(frozen=True)
+class Setting:
+    """One user-facing setting, derived from its field."""
+
+    name: str
+    owner: type
+    types: tuple[type, ...]  # what a value may be (besides None when default is None)
+    default: Any
+    what: str  # a few words, for config errors and the settings table
+    help: str
+    flag: str  # the long command-line flag without dashes
+    short: str | None
+    metavar: str | None
+    choices: tuple[str, ...] | None
+    unset: str | None  # what None means, for help texts
+    fixture: bool  # also a pytest option / ini key for the grad_probe fixture
+
+    @property
+    def config_key(self) -> str:
+        return self.name
+
+    def default_text(self) -> str:
+        return f"({self.unset})" if self.default is None and self.unset else repr(self.default)
+
+
+def _types(hint: Any) -> tuple[type, ...]:
+    args = [a for a in typing.get_args(hint) if a is not type(None)] or [hint]
+    kind = args[0]
+    return (float, int) if kind is float else (kind,)
+
+
+def _settings(owner: type) -> list[Setting]:
+    hints = typing.get_type_hints(owner)
+    out = []
+    for f in fields(owner):
+        meta = f.metadata.get("setting")
+        if meta is None:
+            continue
+        assert isinstance(f, Field) and f.default is not MISSING
+        out.append(Setting(
+            name=f.name, owner=owner, types=_types(hints[f.name]), default=f.default,
+            what=meta["what"], help=meta["help"], flag=meta["flag"] or f.name, short=meta["short"],
+            metavar=meta["metavar"], choices=meta["choices"], unset=meta["unset"],
+            fixture=meta["fixture"]))
+    return out
+
+
+SETTINGS: tuple[Setting, ...] = (*_settings(CheckOptions), *_settings(ReportFiles))
+SETTING = {s.name: s for s in SETTINGS}
+
+
+def split_values(values: dict[str, Any]) -> tuple[CheckOptions, ReportFiles]:
+    """Effective setting values (by name) as the two dataclasses."""
+    check = {s.name: values[s.name] for s in SETTINGS if s.owner is CheckOptions and s.name in values}
+    files = {s.name: values[s.name] for s in SETTINGS if s.owner is ReportFiles and s.name in values}
+    return CheckOptions(**check), ReportFiles(**files)

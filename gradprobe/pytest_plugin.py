@@ -4,41 +4,38 @@
         grad_probe(forward, backward, params, inputs)
 
 The fixture checks like :func:`gradprobe.probe` (``grad_probe.stack(layers, params, inputs)``
-like :func:`gradprobe.probe_stack`) and returns the report when the check passes;
-otherwise the test fails with a first line naming the failing tensors and the worst error, then
-the per-layer report. The target is named after the test; gradprobe's own frames are hidden.
-The threshold and seed come, from weakest to strongest, from gradprobe's defaults, the ini
-file (``gradprobe_threshold``, ``gradprobe_seed``), the command line
-(``--gradprobe-threshold``, ``--gradprobe-seed``), a
-``@pytest.mark.gradprobe(threshold=..., seed=...)`` marker, and the call's own keywords.
+like :func:`gradprobe.probe_stack`) and returns the report when the check is ok; otherwise the
+test fails with a first line naming the failing tensors and the worst error, then the per-layer
+report; the target is named after the test and gradprobe's own frames are hidden. The fixture's settings
+(threshold, seed, method, inconclusive) come, from weakest to strongest, from gradprobe's
+defaults, the ini file (``gradprobe_threshold``, ...), the command line
+(``--gradprobe-threshold``, ...), a ``@pytest.mark.gradprobe(threshold=..., seed=...)`` marker,
+and the call's own keywords. Annotate the fixture with :class:`gradprobe.GradProbe`.
 """
 
 from __future__ import annotations
 
-from pathlib import Path
-from types import TracebackType
-from typing import Any, Callable, Mapping
+from typing import Any
 
 import pytest
 
-from .api import probe, probe_stack
-from .errors import ProbeError
-from .render.lines import failure_line
-from .report import Report
+from .fixture import GradProbe
+from .options import SETTINGS, Setting
 
-PACKAGE = str(Path(__file__).resolve().parent)
+FIXTURE_SETTINGS: tuple[Setting, ...] = tuple(s for s in SETTINGS if s.fixture)
 
-SETTINGS = ("threshold", "seed")
+
+def _kind(s: Setting) -> type:
+    return s.types[0]
 
 
 def pytest_addoption(parser: pytest.Parser) -> None:
     group = parser.getgroup("gradprobe", "gradient checks with gradprobe")
-    group.addoption("--gradprobe-threshold", type=float, default=None, metavar="REL",
-                    help="relative-error threshold for the grad_probe fixture")
-    group.addoption("--gradprobe-seed", type=int, default=None, metavar="N",
-                    help="seed for the grad_probe fixture's random draws")
-    parser.addini("gradprobe_threshold", "relative-error threshold for grad_probe", default=None)
-    parser.addini("gradprobe_seed", "seed for grad_probe's random draws", default=None)
+    for s in FIXTURE_SETTINGS:
+        text = f"{s.what} for the grad_probe fixture"
+        group.addoption(f"--gradprobe-{s.name}", type=_kind(s), default=None,
+                        metavar=s.metavar or s.name.upper(), choices=s.choices, help=text)
+        parser.addini(f"gradprobe_{s.name}", text, default=None)
 
 
 def pytest_configure(config: pytest.Config) -> None:
@@ -48,86 +45,30 @@ def pytest_configure(config: pytest.Config) -> None:
 
 
 def session_settings(config: pytest.Config) -> dict[str, Any]:
-    """The threshold and seed from the ini file, overridden by the command line."""
+    """The fixture's settings from the ini file, overridden by the command line."""
     out: dict[str, Any] = {}
-    for name, kind in (("threshold", float), ("seed", int)):
-        ini = config.getini(f"gradprobe_{name}")
+    for s in FIXTURE_SETTINGS:
+        ini = config.getini(f"gradprobe_{s.name}")
         if ini not in (None, ""):
             try:
-                out[name] = kind(ini)
+                out[s.name] = _kind(s)(ini)
             except ValueError:
                 raise pytest.UsageError(
-                    f"gradprobe_{name} = {ini!r} in the ini file is not a {kind.__name__}"
+                    f"gradprobe_{s.name} = {ini!r} in the ini file is not a {_kind(s).__name__}"
                 ) from None
-        cli = config.getoption(f"--gradprobe-{name}")
+        cli = config.getoption(f"--gradprobe-{s.name}")
         if cli is not None:
-            out[name] = cli
+            out[s.name] = cli
     return out
 
 
 def pytest_report_header(config: pytest.Config) -> str:
     settings = session_settings(config)
     threshold = settings.get("threshold", "by floating type")
-    return f"gradprobe: threshold {threshold}, seed {settings.get('seed', 0)}"
-
-
-class GradProbe:
-    """The ``grad_probe`` fixture's value: call it like :func:`gradprobe.probe`."""
-
-    def __init__(self, defaults: Mapping[str, Any], label: str | None = None, width: int = 120) -> None:
-        self.defaults = dict(defaults)
-        self.label = label  # the target's name in reports: the test's (None: forward's)
-        self.width = width
-
-    def __call__(
-        self,
-        forward: Callable[..., Any],
-        backward: Callable[..., Any],
-        params: Mapping[str, Any],
-        inputs: Mapping[str, Any] | None = None,
-        **options: Any,
-    ) -> Report:
-        __tracebackhide__ = True
-        options = {**({"label": self.label} if self.label else {}), **self.defaults, **options}
-        try:
-            report = probe(forward, backward, params, inputs, **options)
-        except ProbeError as exc:
-            if exc.__cause__ is not None:
-                exc.__cause__.__traceback__ = _outside(exc.__cause__.__traceback__)
-            raise exc.with_traceback(None) from exc.__cause__  # starts here: hidden
-        return self._verdict(report)
-
-    def stack(
-        self,
-        layers: Any,
-        params: Mapping[str, Any] | None = None,
-        inputs: Mapping[str, Any] | None = None,
-        **options: Any,
-    ) -> Report:
-        """Check a stack like :func:`gradprobe.probe_stack`; fails the test naming the layers
-        where the error enters."""
-        __tracebackhide__ = True
-        options = {**({"label": self.label} if self.label else {}), **self.defaults, **options}
-        try:
-            report = probe_stack(layers, params, inputs, **options)
-        except ProbeError as exc:
-            if exc.__cause__ is not None:
-                exc.__cause__.__traceback__ = _outside(exc.__cause__.__traceback__)
-            raise exc.with_traceback(None) from exc.__cause__  # starts here: hidden
-        return self._verdict(report)
-
-    def _verdict(self, report: Report) -> Report:
-        __tracebackhide__ = True
-        if not report.ok:
-            pytest.fail(failure_line(report) + "\n" + report.render(width=self.width), pytrace=False)
-        return report
-
-
-def _outside(tb: TracebackType | None) -> TracebackType | None:
-    """``tb`` without its leading frames inside gradprobe (the user's frames stay)."""
-    while tb is not None and tb.tb_frame.f_code.co_filename.startswith(PACKAGE):
-        tb = tb.tb_next
-    return tb
+    line = f"gradprobe: threshold {threshold}, seed {settings.get('seed', 0)}"
+    if settings.get("inconclusive", "allow") != "allow":
+        line += f", inconclusive {settings['inconclusive']}"
+    return line
 
 
 @pytest.fixture

@@ -6,12 +6,11 @@ renderers (terminal, JSON, JUnit, pytest messages) only read it.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 from typing import Any
 
-import numpy as np
-
-STATUS_ORDER = ("pass", "kink", "inconclusive", "fail")
+from .status import Status
 
 
 @dataclass(frozen=True)
@@ -36,8 +35,11 @@ class CoordinateDetail:
     numeric: float
     error_estimate: float
     rel_error: float
-    status: str
+    status: Status
     reason: str | None = None  # why an inconclusive coordinate could not be decided
+
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "status", Status(self.status))
 
 
 @dataclass(frozen=True)
@@ -52,7 +54,7 @@ class TensorResult:
     checked: int
     failed: int
     kinks: int
-    status: str
+    status: Status
     max_abs_error: float | None = None
     max_rel_error: float | None = None
     worst_index: tuple[int, ...] | None = None
@@ -70,13 +72,17 @@ class TensorResult:
     error_map: Any = field(default=None, compare=False, repr=False)  # rel error per element
     inherited_from: str | None = None  # stacks: fails only because this later layer is wrong
 
+    def __post_init__(self) -> None:
+        object.__setattr__(self, "status", Status(self.status))  # plain strings accepted
+
     @property
     def size(self) -> int:
-        return int(np.prod(self.shape, dtype=np.int64))
+        return math.prod(self.shape)
 
     @property
     def ok(self) -> bool:
-        return self.status != "fail"
+        """No disagreement (an inconclusive tensor is ok unless the run says otherwise)."""
+        return self.status is not Status.FAIL
 
 
 @dataclass(frozen=True)
@@ -92,6 +98,7 @@ class LayerResult:
 
     @property
     def ok(self) -> bool:
+        """No tensor of the layer disagrees, and (stacks) its own backward is not wrong."""
         return all(t.ok for t in self.tensors) and self.own != "fail"
 
     @property
@@ -137,6 +144,7 @@ class Report:
     def inherited(self) -> tuple[TensorResult, ...]:
         """Tensors failing end to end only because a later layer is wrong."""
         return tuple(t for t in self.tensors if t.inherited_from is not None)
+    inconclusive_fails: bool = False  # the run was asked to fail on inconclusive tensors
 
     @property
     def tensors(self) -> tuple[TensorResult, ...]:
@@ -144,9 +152,11 @@ class Report:
 
     @property
     def ok(self) -> bool:
-        return all(layer.ok for layer in self.layers)
+        """Nothing disagrees, nothing is inconclusive when that was asked to fail, and (stacks)
+        no layer's own backward is wrong."""
+        return not self.blocking_tensors and all(layer.own != "fail" for layer in self.layers)
 
-    def count(self, status: str) -> int:
+    def count(self, status: Status | str) -> int:
         """How many tensors have ``status``."""
         return sum(1 for t in self.tensors if t.status == status)
 
@@ -164,7 +174,14 @@ class Report:
 
     @property
     def failing_tensors(self) -> tuple[TensorResult, ...]:
-        return tuple(t for t in self.tensors if t.status == "fail")
+        return tuple(t for t in self.tensors if t.status is Status.FAIL)
+
+    @property
+    def blocking_tensors(self) -> tuple[TensorResult, ...]:
+        """The tensors that make the run fail: failing ones, and inconclusive ones when
+        the run was asked to fail on those."""
+        blocking = {Status.FAIL, Status.INCONCLUSIVE} if self.inconclusive_fails else {Status.FAIL}
+        return tuple(t for t in self.tensors if t.status in blocking)
 
     def tensor(self, name: str) -> TensorResult:
         """The result for tensor ``name`` (KeyError naming the known ones otherwise)."""
@@ -172,27 +189,6 @@ class Report:
             if t.name == name:
                 return t
         raise KeyError(f"no tensor {name!r}; the report has {[t.name for t in self.tensors]}")
-
-    def to_dict(self) -> dict[str, Any]:
-        """The JSON report of the protocol as a dict."""
-        from .render.json import report_dict
-
-        return report_dict(self)
-
-    def render(self, width: int = 120) -> str:
-        """The per-layer table as plain text."""
-        from .render.terminal import render_text
-
-        return render_text(self, width=width)
-
-    def raise_if_failed(self) -> "Report":
-        """Raise AssertionError carrying the per-layer report when any tensor fails."""
-        __tracebackhide__ = True
-        if not self.ok:
-            from .render.lines import failure_line
-
-            raise AssertionError(failure_line(self) + "\n" + self.render())
-        return self
 
 
 @dataclass(frozen=True)

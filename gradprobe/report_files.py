@@ -38,4 +38,6 @@ def reproduce(targets: list[str], values: dict[str, Any], defaults: dict[str, An
     words += ["--seed", str(values["seed"])]
     if not values["recheck"]:
         words.append("--no-recheck")
+    if values.get("inconclusive", "allow") != "allow":
+        words += ["--inconclusive", str(values["inconclusive"])]
     return shlex.join(words)

@@ -15,7 +15,8 @@ from typing import Any
 
 import numpy as np
 
-from .errors import BadOutputError, TargetLoadError, UserCodeError, summarise
+from .errors import BadOutputError, ProbeError, TargetLoadError, UserCodeError, summarise
+from .guard import guarded
 from .target import Target, _arrays, _get, resolve_object, target_from_object
 
 INPUT = "x"  # the inputs key holding the first layer's input
@@ -97,11 +98,12 @@ def stack(layers: Any, params: Mapping[str, Any], inputs: Mapping[str, Any],
 def load_any(spec: str) -> Target | StackTarget:
     """The target named by ``spec``: a stack when it gives ``layers``, else a flat target."""
     try:
-        obj = resolve_object(spec)
-        if is_stack(obj):
-            return stack_from_object(obj, label=spec, spec=spec)
-        return target_from_object(obj, label=spec, spec=spec)
-    except TargetLoadError as exc:
+        with guarded():
+            obj = resolve_object(spec)
+            if is_stack(obj):
+                return stack_from_object(obj, label=spec, spec=spec)
+            return target_from_object(obj, label=spec, spec=spec)
+    except ProbeError as exc:
         raise exc.with_target(spec)
 
 

@@ -7,19 +7,19 @@ Every failure is a :class:`TargetLoadError` with one sentence naming what is wro
 
 from __future__ import annotations
 
-import difflib
-import hashlib
 import importlib
 import importlib.util
-import inspect
 import os
 import sys
+import types
+import zlib
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, Callable
 
-from .errors import TargetLoadError, summarise
+from .errors import ProbeError, TargetLoadError, summarise
+from .guard import ExitAttempt, exit_error, guarded
 
 
 @dataclass(frozen=True)
@@ -52,7 +52,10 @@ def _call_user(fn: Callable[[], Any], what: str) -> Any:
         return fn()
     except KeyboardInterrupt:
         raise
-    except BaseException as exc:  # SystemExit from a module is the user's too
+    except (SystemExit, ExitAttempt) as exc:
+        who = "the module" if what == "importing it" else what.removeprefix("calling ")
+        raise exit_error(exc, who) from exc
+    except BaseException as exc:
         raise TargetLoadError(f"{what} raised {summarise(exc)}", value=fn) from exc
 
 
@@ -62,7 +65,7 @@ def _import_file(location: str) -> Any:
         hint = " (it is a folder)" if path.is_dir() else ""
         raise TargetLoadError(f"no such file {location}{hint}", value=location)
     resolved = path.resolve()
-    name = "_gradprobe_target_" + hashlib.sha1(str(resolved).encode()).hexdigest()[:12]
+    name = "_gradprobe_target_" + f"{zlib.crc32(str(resolved).encode()):08x}"
     spec = importlib.util.spec_from_file_location(name, resolved)
     if spec is None or spec.loader is None:
         raise TargetLoadError(f"{location} cannot be imported as a Python file", value=location)
@@ -95,6 +98,8 @@ def _import_module(location: str) -> Any:
         raise TargetLoadError(f"importing it raised {summarise(exc)}", value=location) from exc
     except KeyboardInterrupt:
         raise
+    except (SystemExit, ExitAttempt) as exc:
+        raise exit_error(exc, "the module") from exc
     except BaseException as exc:
         raise TargetLoadError(f"importing it raised {summarise(exc)}", value=location) from exc
     finally:
@@ -125,11 +130,13 @@ def resolve_object(spec: str) -> Any:
     if attr is None:
         return module
     if not hasattr(module, attr):
+        import difflib
+
         close = difflib.get_close_matches(attr, _attribute_names(module), n=1)
         tip = f"; did you mean {close[0]!r}?" if close else ""
         raise TargetLoadError(f"{location} has no attribute {attr!r}{tip}", value=attr)
     obj = getattr(module, attr)
-    if inspect.isclass(obj) or inspect.isfunction(obj):
+    if isinstance(obj, (type, types.FunctionType)):
         obj = _call_user(obj, f"calling {attr}()")
     return obj
 
@@ -185,8 +192,9 @@ def target_from_object(obj: Any, label: str, spec: str | None = None) -> Target:
 def load_target(spec: str) -> Target:
     """Load the target named by ``spec``; errors name the spec."""
     try:
-        return target_from_object(resolve_object(spec), label=spec, spec=spec)
-    except TargetLoadError as exc:
+        with guarded():
+            return target_from_object(resolve_object(spec), label=spec, spec=spec)
+    except ProbeError as exc:
         raise exc.with_target(spec)
 
 
@@ -198,8 +206,9 @@ def load_functions(spec: str) -> tuple[Callable[..., Any], Callable[..., Any]]:
     from .stack_split import worker_functions
 
     try:
-        obj = resolve_object(spec.split(PART)[0])
-        found = worker_functions(obj, spec)
-        return found if found is not None else _functions(obj)
-    except TargetLoadError as exc:
+        with guarded():
+            obj = resolve_object(spec.split(PART)[0])
+            found = worker_functions(obj, spec)
+            return found if found is not None else _functions(obj)
+    except ProbeError as exc:
         raise exc.with_target(spec.split(PART)[0])

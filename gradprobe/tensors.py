@@ -16,13 +16,22 @@ from .errors import TargetLoadError
 INPUT_LAYER = "inputs"
 
 
-def flatten(tree: Mapping[str, Any], prefix: str = "") -> dict[str, Any]:
-    """Flatten a nested mapping to ``{"hidden.W": leaf, ...}`` in insertion order."""
+def flatten(tree: Mapping[str, Any], prefix: str = "", what: str = "the mapping",
+            _open: tuple[int, ...] = ()) -> dict[str, Any]:
+    """Flatten a nested mapping to ``{"hidden.W": leaf, ...}`` in insertion order.
+
+    A mapping that contains itself (at any depth) is a TargetLoadError naming where.
+    """
     flat: dict[str, Any] = {}
+    inside = (*_open, id(tree))
     for key, value in tree.items():
         name = f"{prefix}{key}"
         if isinstance(value, Mapping):
-            flat.update(flatten(value, prefix=f"{name}."))
+            if id(value) in inside:
+                raise TargetLoadError(
+                    f"{what} contains itself at {name!r}, so it has no end to flatten into "
+                    "arrays", value=name)
+            flat.update(flatten(value, prefix=f"{name}.", what=what, _open=inside))
         else:
             flat[name] = value
     return flat
@@ -82,8 +91,8 @@ class Workspace:
     def __init__(self, params: Mapping[str, Any], inputs: Mapping[str, Any]) -> None:
         self._param_shape = params
         self._input_shape = inputs
-        flat_params = {n: as_array(v, f"param {n}") for n, v in flatten(params).items()}
-        flat_inputs = {n: as_array(v, f"input {n}") for n, v in flatten(inputs).items()}
+        flat_params = {n: as_array(v, f"param {n}") for n, v in flatten(params, what="params").items()}
+        flat_inputs = {n: as_array(v, f"input {n}") for n, v in flatten(inputs, what="inputs").items()}
         clash = sorted(set(flat_params) & set(flat_inputs))
         if clash:
             raise TargetLoadError(f"a param and an input share the name {clash[0]!r}", value=clash)

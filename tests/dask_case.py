@@ -23,17 +23,17 @@ def main() -> None:
     import cloudpickle
     import distributed
 
-    from gradprobe.engine.runner import check
+    from gradprobe import probe
     from gradprobe.render.json import report_dict
 
     cloudpickle.register_pickle_by_value(sys.modules[__name__])
     rng = np.random.default_rng(0)
     params, inputs = {"w": rng.normal(size=40)}, {"c": rng.uniform(0.5, 1.5, size=40)}
-    serial = check(forward, backward, params, inputs)
+    serial = probe(forward, backward, params, inputs)
     with distributed.LocalCluster(n_workers=2, threads_per_worker=1, processes=True,
                                   dashboard_address=None) as cluster:
         with distributed.Client(cluster) as client:
-            clustered = check(forward, backward, params, inputs, executor=client.get_executor())
+            clustered = probe(forward, backward, params, inputs, executor=client.get_executor())
             workers = len(client.scheduler_info()["workers"])
     out = {"serial": report_dict(serial), "cluster": report_dict(clustered), "workers": workers}
     for report in (out["serial"], out["cluster"]):

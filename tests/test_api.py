@@ -4,9 +4,9 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from conftest import SAMPLES
 
 import gradprobe
-from conftest import SAMPLES
 
 W = np.array([[0.2, -0.4], [1.1, 0.3], [-0.7, 0.9]])
 X = np.array([[1.0, -2.0, 0.5], [0.3, 0.8, -1.2]])
@@ -25,15 +25,15 @@ def test_probe_returns_the_report_model():
     assert isinstance(report, gradprobe.Report) and report.ok
     assert [layer.name for layer in report.layers] == ["W"]
     assert report.tensor("W").checked == 6
-    assert "layer / tensor" in report.render()
-    assert report.to_dict()["schema"] == "gradprobe.report/1"
-    assert report.raise_if_failed() is report
+    assert "layer / tensor" in gradprobe.render_text(report)
+    assert gradprobe.report_dict(report)["schema"] == "gradprobe.report/1"
+    assert gradprobe.raise_if_failed(report) is report
 
 
 def test_raise_if_failed_carries_the_per_layer_report():
     report = gradprobe.probe(forward, lambda p, i: {"W": 2 * backward(p, i)["W"]}, {"W": W}, {"x": X})
     with pytest.raises(AssertionError) as info:
-        report.raise_if_failed()
+        gradprobe.raise_if_failed(report)
     first, *rest = str(info.value).splitlines()
     worst = gradprobe.tensors.format_index(report.tensor("W").worst_index)  # all tie at 0.5
     assert first == f"W disagrees: rel error 5.0e-01 at {worst} > 1e-06"  # |2g - g| / |2g|
@@ -86,3 +86,27 @@ def test_package_is_typed():
     from importlib.resources import files
 
     assert files("gradprobe").joinpath("py.typed").is_file()
+
+
+def test_the_version_is_the_installed_metadata():
+    from importlib.metadata import version
+
+    assert gradprobe.__version__ == version("gradprobe")
+
+
+def test_what_users_type_is_exported():
+    """Every name in __all__ resolves (they are loaded on first use)."""
+    for name in gradprobe.__all__:
+        assert getattr(gradprobe, name) is not None
+    assert gradprobe.layer_target.__module__ == "gradprobe.adapters"
+
+
+def test_importing_the_command_does_not_import_numpy_or_rich():
+    import os
+    import subprocess
+    import sys
+
+    code = "import sys, gradprobe.cli; print('numpy' in sys.modules, 'rich' in sys.modules)"
+    done = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True,
+                          cwd=str(SAMPLES.parent), env={**os.environ, "PYTHONPATH": str(SAMPLES.parent)})
+    assert done.stdout.split() == ["False", "False"]

@@ -5,9 +5,9 @@ from __future__ import annotations
 import json
 
 import numpy as np
-
 from conftest import SAMPLES
-from gradprobe.engine.runner import check
+
+from gradprobe import probe
 
 TENSOR_KEYS = {
     "name", "layer", "kind", "shape", "dtype", "checked", "failed", "kinks", "max_abs_error",
@@ -92,7 +92,7 @@ def test_unknown_option_is_a_usage_error(run_cli):
 
 def test_full_sweep_costs_two_evaluations_per_coordinate_plus_a_constant():
     w = np.linspace(-1, 1, 40)
-    report = check(lambda p, i: float(np.sum(np.cos(p["w"]))), lambda p, i: {"w": -np.sin(p["w"])}, {"w": w})
+    report = probe(lambda p, i: float(np.sum(np.cos(p["w"]))), lambda p, i: {"w": -np.sin(p["w"])}, {"w": w})
     assert report.ok
     # 2 preflight calls, 3 looking for float32 arithmetic, 3 measuring the loss's rounding
     assert 2 * w.size + 8 <= report.evaluations <= 2 * w.size + 10
@@ -107,11 +107,10 @@ def test_grad_output_is_seeded():
         return {"w": g * 2 * p["w"]}
 
     w = np.array([0.5, -1.5, 2.0])
-    check(lambda p, i: p["w"] ** 2, bwd, {"w": w}, options=None)
-    from gradprobe.options import CheckOptions
+    probe(lambda p, i: p["w"] ** 2, bwd, {"w": w})
 
-    check(lambda p, i: p["w"] ** 2, bwd, {"w": w}, options=CheckOptions(seed=0))
-    check(lambda p, i: p["w"] ** 2, bwd, {"w": w}, options=CheckOptions(seed=1))
+    probe(lambda p, i: p["w"] ** 2, bwd, {"w": w}, seed=0)
+    probe(lambda p, i: p["w"] ** 2, bwd, {"w": w}, seed=1)
     assert np.array_equal(drawn[0], drawn[1]) and not np.array_equal(drawn[0], drawn[2])
     assert np.array_equal(drawn[0], np.random.default_rng(0).standard_normal(3))
 
@@ -125,18 +124,18 @@ def test_float32_code_that_refuses_float64_gets_a_looser_default_and_a_note():
     def backward(p, i, factor=1.0):
         return {"w": factor * np.exp(p["w"].astype(np.float32))}
 
-    report = check(forward, backward, {"w": w})
+    report = probe(forward, backward, {"w": w})
     assert report.ok and report.compute_dtype == "float32" and report.threshold == 1e-2
     assert report.notes == (
         "forward computes in float32: its rounding unit is 1.2e-07, so central differences "
         "are good to about 2e-05 relative at best, and the default threshold for it is 0.01",
     )
-    assert not check(forward, lambda p, i: backward(p, i, 1.1), {"w": w}).ok
+    assert not probe(forward, lambda p, i: backward(p, i, 1.1), {"w": w}).ok
 
 
 def test_float32_code_that_accepts_float64_is_checked_on_its_float64_run():
     w = np.linspace(0.1, 1.0, 8, dtype=np.float32)
-    report = check(lambda p, i: np.sum(np.exp(p["w"])), lambda p, i: {"w": np.exp(p["w"])}, {"w": w})
+    report = probe(lambda p, i: np.sum(np.exp(p["w"])), lambda p, i: {"w": np.exp(p["w"])}, {"w": w})
     assert report.ok and report.compute_dtype == "float32" and report.threshold == 1e-6
     assert report.notes == (
         "forward computes in float32; forward and backward also run in float64, so backward's "

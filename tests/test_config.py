@@ -72,8 +72,9 @@ def test_a_misspelt_key_is_a_clear_error(run_cli, tmp_path):
         treshold = 1e-3
         """, good=1.0)
     result = run_cli("check", "good.py")
-    assert result.exit_code == 2
-    assert "unknown key 'treshold' in [tool.gradprobe]; did you mean 'threshold'?" in result.output
+    assert (result.exit_code, result.stderr.strip()) == (2, (
+        f"gradprobe: error: {tmp_path / 'pyproject.toml'}: unknown key 'treshold' in "
+        "[tool.gradprobe]; did you mean 'threshold'?"))
 
 
 def test_a_wrongly_typed_value_is_a_clear_error(run_cli, tmp_path):
@@ -82,13 +83,17 @@ def test_a_wrongly_typed_value_is_a_clear_error(run_cli, tmp_path):
         seed = "three"
         """, good=1.0)
     result = run_cli("check", "good.py")
-    assert result.exit_code == 2 and "seed must be int" in result.output
+    assert (result.exit_code, result.stderr.strip()) == (2, (
+        f"gradprobe: error: {tmp_path / 'pyproject.toml'}: [tool.gradprobe] seed must be int "
+        "(seed for every random draw), not 'three'."))
 
 
 def test_no_target_anywhere_is_a_usage_error(run_cli, tmp_path):
     (tmp_path / "pyproject.toml").write_text("[project]\nname = 'x'\n")
     result = run_cli("check")
-    assert result.exit_code == 2 and "no TARGET given" in result.output
+    assert (result.exit_code, result.stderr.strip()) == (2, (
+        "gradprobe: error: no TARGET given and no targets in [tool.gradprobe] of a "
+        "pyproject.toml here or above (see gradprobe check --help)."))
 
 
 def test_configured_file_targets_resolve_from_the_pyprojects_folder(run_cli, tmp_path, monkeypatch):
@@ -99,6 +104,7 @@ def test_configured_file_targets_resolve_from_the_pyprojects_folder(run_cli, tmp
     (tmp_path / "sub").mkdir()
     monkeypatch.chdir(tmp_path / "sub")
     from click.testing import CliRunner
+
     from gradprobe.cli import cli
 
     assert CliRunner().invoke(cli, ["check"]).exit_code == 0

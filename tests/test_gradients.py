@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from gradprobe.engine.runner import check
+from gradprobe import probe
 
 W = np.arange(6.0).reshape(2, 3) / 10
 B = np.array([0.1, -0.2, 0.3, 0.05, 0.0, 1.0])
@@ -21,7 +21,7 @@ def grads(**override):
 
 
 def _run(g):
-    return check(forward, lambda p, i: g, {"W": W, "b": B})
+    return probe(forward, lambda p, i: g, {"W": W, "b": B})
 
 
 def test_missing_gradient_fails_that_tensor_only():
@@ -63,9 +63,9 @@ def test_input_gradients_are_optional_and_checked_when_returned():
     def fwd(p, i):
         return float(np.sum(p["w"] * i["x"] ** 2))
 
-    without = check(fwd, lambda p, i: {"w": i["x"] ** 2}, {"w": np.array([1.5, 2.0])}, {"x": x})
+    without = probe(fwd, lambda p, i: {"w": i["x"] ** 2}, {"w": np.array([1.5, 2.0])}, {"x": x})
     assert [t.name for t in without.tensors] == ["w"]
-    wrong = check(fwd, lambda p, i: {"w": i["x"] ** 2, "x": p["w"] * i["x"]},
+    wrong = probe(fwd, lambda p, i: {"w": i["x"] ** 2, "x": p["w"] * i["x"]},
                   {"w": np.array([1.5, 2.0])}, {"x": x})
     t = wrong.tensor("x")
     assert t.kind == "input" and t.layer == "inputs" and t.status == "fail"
@@ -84,6 +84,6 @@ def test_integer_inputs_are_never_perturbed():
         return {"table": g}
 
     idx = np.array([0, 2, 2, 3])
-    report = check(fwd, bwd, {"table": np.linspace(-1, 1, 5)}, {"idx": idx})
+    report = probe(fwd, bwd, {"table": np.linspace(-1, 1, 5)}, {"idx": idx})
     assert report.ok
     assert all(np.array_equal(s, idx) for s in seen)

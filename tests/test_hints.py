@@ -6,17 +6,17 @@ import numpy as np
 import pytest
 from bugzoo import CASES, Tally
 
-from gradprobe.diagnose import Context, Evidence, diagnose, hint_for
-from gradprobe.engine.runner import check
+from gradprobe import probe, render_text
+from gradprobe.diagnose import Evidence, HintContext, diagnose, hint_for
 
 
 @pytest.mark.parametrize("make", CASES, ids=lambda make: make.__name__)
 def test_each_case_gets_its_hint_and_nothing_else_fails(make):
     case = make()
-    report = check(case.forward, case.backward, case.params, case.inputs)
+    report = probe(case.forward, case.backward, case.params, case.inputs)
     tally = Tally()
     tally.add(case, report)
-    assert tally.lines == [], report.render()
+    assert tally.lines == [], render_text(report)
     assert report.ok == (not case.expect)
 
 
@@ -25,7 +25,7 @@ def test_the_whole_set_scores_clean():
     tally = Tally()
     for make in CASES:
         case = make()
-        tally.add(case, check(case.forward, case.backward, case.params, case.inputs))
+        tally.add(case, probe(case.forward, case.backward, case.params, case.inputs))
     assert len(CASES) >= 20
     assert tally.wrong_hint == 0 and tally.false_failures == 0 and tally.missed == 0
     assert tally.no_hint == 0 and tally.silent == 2 and tally.right_hint == 16
@@ -48,19 +48,19 @@ def test_random_errors_get_no_hint(seed):
     k = rng.integers(1, 36)
     where = rng.choice(36, size=k, replace=False)
     analytic.reshape(-1)[where] += rng.normal(scale=rng.uniform(0.01, 2.0), size=k)
-    assert hint_for(_evidence(analytic, numeric), Context(batch_sizes=(16,))) is None
+    assert hint_for(_evidence(analytic, numeric), HintContext(batch_sizes=(16,))) is None
 
 
 def test_symmetric_tensor_is_not_called_transposed():
     """For a symmetric gradient, transposing explains nothing: the factor rule speaks instead."""
     m = np.array([[1.0, 2.0], [2.0, 3.0]])
-    hint = hint_for(_evidence(3 * m, m), Context())
+    hint = hint_for(_evidence(3 * m, m), HintContext())
     assert hint is not None and "transposed" not in hint and "3 x numeric" in hint
 
 
 def test_unnamed_factor_is_stated():
     n = np.linspace(1, 2, 5)
-    assert hint_for(_evidence(3.7 * n, n), Context()) == (
+    assert hint_for(_evidence(3.7 * n, n), HintContext()) == (
         "analytic is 3.7 x numeric everywhere: a constant factor is wrong")
 
 
@@ -68,7 +68,7 @@ def test_one_zero_coordinate_is_singular():
     n = np.linspace(1, 2, 5)
     a = n.copy()
     a[2] = 0.0
-    assert hint_for(_evidence(a, n), Context()) == (
+    assert hint_for(_evidence(a, n), HintContext()) == (
         "analytic is zero at 1 coordinate where the numeric gradient is not: a term is missing "
         "from backward there, or a mask zeroes it")
 
@@ -107,7 +107,7 @@ GOLDEN = {
 @pytest.mark.parametrize("key", list(GOLDEN), ids=lambda key: f"{key[0]}-{key[1]}")
 def test_golden_sentences(key):
     case = next(m for m in CASES if m.__name__ == key[0])()
-    report = check(case.forward, case.backward, case.params, case.inputs)
+    report = probe(case.forward, case.backward, case.params, case.inputs)
     assert report.tensor(key[1]).hint == GOLDEN[key]
 
 
@@ -115,7 +115,7 @@ def test_a_slice_in_the_middle_names_the_missing_loop_alone():
     n = np.arange(1.0, 16.0).reshape(5, 3)
     a = np.zeros_like(n)
     a[2] = n[2]
-    assert hint_for(_evidence(a, n), Context()) == (
+    assert hint_for(_evidence(a, n), HintContext()) == (
         "right only in row 2 and zero elsewhere: a loop or sum over axis 0 is missing, so "
         "backward handles one item only")
 
@@ -126,14 +126,14 @@ def test_a_slice_right_but_the_rest_wrong_and_nonzero_gets_no_hint():
     n = np.arange(1.0, 16.0).reshape(5, 3)
     a = n * 0.7
     a[4] = n[4]
-    assert hint_for(_evidence(a, n), Context()) is None
+    assert hint_for(_evidence(a, n), HintContext()) is None
 
 
 def test_swapped_needs_both_directions():
     a = np.arange(1.0, 5.0)
     b = np.arange(5.0, 9.0)
     one_way = [_evidence(b, a, name="p"), _evidence(b, b + 1, name="q")]
-    assert "swapped" not in " ".join(diagnose(one_way, Context()).values())
+    assert "swapped" not in " ".join(diagnose(one_way, HintContext()).values())
     both = [_evidence(b, a, name="p"), _evidence(a, b, name="q")]
-    assert diagnose(both, Context()) == {
+    assert diagnose(both, HintContext()) == {
         "p": "the gradients of p and q look swapped", "q": "the gradients of p and q look swapped"}

@@ -19,6 +19,7 @@ from bugzoo_reuse import (
 )
 
 import gradprobe
+from gradprobe import render_text
 from gradprobe.hints import Context, Evidence, diagnose, hint_for
 
 ALL = REUSE_CASES + DECOY_CASES
@@ -34,7 +35,7 @@ def test_each_case_gets_its_hint_or_none_and_nothing_else_fails(make):
     report = _probe(case)
     tally = Tally()
     tally.add(case, report)
-    assert tally.lines == [], report.render()
+    assert tally.lines == [], render_text(report)
     assert tally.missed == tally.false_failures == 0
 
 

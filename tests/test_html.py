@@ -156,8 +156,10 @@ def test_runs_that_could_not_run_are_listed(count):
 
 
 def test_the_reproducing_command_states_what_differs_from_the_defaults():
-    from gradprobe.cli import DEFAULTS
+    from gradprobe.options import SETTINGS
     from gradprobe.report_files import reproduce
+
+    DEFAULTS = {s.name: s.default for s in SETTINGS}
 
     values = {**DEFAULTS, "threshold": 1e-5, "seed": 3, "sample": 100, "recheck": False, "jobs": 4}
     assert reproduce(["nets/mlp.py", "my nets/conv.py:case"], values, DEFAULTS) == (

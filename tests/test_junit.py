@@ -33,6 +33,8 @@ def _validate(root: ET.Element) -> list[ET.Element]:
         for case in cases:
             assert CASE_ATTRS <= set(case.attrib)
             for problem in list(case):
+                if problem.tag == "skipped":  # the schema's skipped carries an optional message
+                    continue
                 assert problem.tag in ("failure", "error") and {"message", "type"} <= set(problem.attrib)
     assert int(root.get("tests")) == sum(int(s.get("tests")) for s in suites)
     return suites
@@ -74,3 +76,38 @@ def test_classname_forms():
     assert classname("samples/crop_yield.py:case", "hidden") == "crop_yield.case.hidden"
     assert classname("nets.mlp:Case", "dense") == "nets.mlp.Case.dense"
     assert classname("nets/mlp.py", "dense") == "mlp.dense"
+
+
+def _inconclusive_run(fails: bool):
+    from gradprobe.report import LayerResult, Report, TargetRun, TensorResult
+
+    sure = TensorResult("dense.W", "dense", "param", (2, 2), "float32", 4, 0, 0, "pass",
+                        max_rel_error=1e-4)
+    unsure = TensorResult("dense.b", "dense", "param", (2,), "float32", 2, 0, 0, "inconclusive",
+                          inconclusive=1, worst_noise=0.03, max_rel_error=0.02)
+    report = Report("nets.py", 1e-2, 0, (LayerResult("dense", (sure, unsure)),), 12, 0.5,
+                    inconclusive_fails=fails)
+    return TargetRun("nets.py", 1 if fails else 0, report=report)
+
+
+def test_an_inconclusive_tensor_is_a_skipped_testcase_with_its_reason():
+    from gradprobe.render.junit import render_junit
+
+    root = ET.fromstring(render_junit([_inconclusive_run(False)], "2026-01-01T00:00:00", "host"))
+    (suite,) = _validate(root)
+    skipped = [c for c in suite.findall("testcase") if c.find("skipped") is not None]
+    assert [c.get("name") for c in skipped] == ["dense.b"]
+    assert skipped[0].find("skipped").get("message") == (
+        "dense.b: inconclusive: 1 of 2 checked coordinates could not be told apart from numeric "
+        "noise at threshold 0.01; numeric error estimate 0.03 relative")
+    assert (suite.get("skipped"), suite.get("failures"), root.get("skipped")) == ("1", "0", "1")
+
+
+def test_an_inconclusive_tensor_fails_when_the_run_says_so():
+    from gradprobe.render.junit import render_junit
+
+    root = ET.fromstring(render_junit([_inconclusive_run(True)], "2026-01-01T00:00:00", "host"))
+    (suite,) = _validate(root)
+    failure = suite.find("testcase[@name='dense.b']/failure")
+    assert failure.get("type") == "inconclusive"
+    assert (suite.get("skipped"), suite.get("failures")) == ("0", "1")

@@ -4,13 +4,13 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-
-from gradprobe.engine.runner import check
 from probe_kit import make_probe
+
+from gradprobe import probe, render_text
 
 
 def _abs_case(w, c, analytic):
-    return check(
+    return probe(
         lambda p, i: float(np.sum(np.abs(p["w"] - i["c"]))),
         lambda p, i: {"w": analytic(p["w"] - i["c"])},
         {"w": w}, {"c": c},
@@ -46,7 +46,7 @@ def test_kink_inside_the_step_is_near_not_at_the_point(fraction):
     c = np.array([0.9 - fraction * h, 0.0])
     report = _abs_case(w, c, np.sign)
     t = report.tensor("w")
-    assert report.ok, report.render()
+    assert report.ok, render_text(report)
     assert t.status == "pass" and t.kink_indices == ()
     wrong = _abs_case(w, c, lambda r: -np.sign(r))
     assert wrong.tensor("w").bad_indices == ((0,), (1,))
@@ -54,7 +54,7 @@ def test_kink_inside_the_step_is_near_not_at_the_point(fraction):
 
 def test_relu_at_zero_is_a_kink():
     w = np.array([0.0, 0.5, -0.5])
-    report = check(lambda p, i: float(np.sum(3.0 * np.maximum(p["w"], 0))),
+    report = probe(lambda p, i: float(np.sum(3.0 * np.maximum(p["w"], 0))),
                    lambda p, i: {"w": 3.0 * (p["w"] > 0)}, {"w": w})
     assert report.ok and report.tensor("w").kink_indices == ((0,),)
 
@@ -62,7 +62,7 @@ def test_relu_at_zero_is_a_kink():
 def test_max_tie_is_a_kink():
     """max(a, b) with a == b: the derivative picks one side."""
     w = np.array([1.25, 1.25])
-    report = check(lambda p, i: float(np.max(p["w"])),
+    report = probe(lambda p, i: float(np.max(p["w"])),
                    lambda p, i: {"w": np.array([1.0, 0.0])}, {"w": w})
     assert report.ok and report.tensor("w").status == "kink"
 
@@ -70,8 +70,8 @@ def test_max_tie_is_a_kink():
 def test_curvature_is_not_mistaken_for_a_kink():
     """w**2 at 0 has one-sided slopes -h and +h: they halve with the step, so no kink."""
     w = np.array([0.0, 1.0, -0.3])
-    report = check(lambda p, i: float(np.sum(p["w"] ** 2)), lambda p, i: {"w": 2 * p["w"]}, {"w": w})
+    report = probe(lambda p, i: float(np.sum(p["w"] ** 2)), lambda p, i: {"w": 2 * p["w"]}, {"w": w})
     assert report.ok and report.tensor("w").status == "pass"
-    steep = check(lambda p, i: float(np.sum(np.exp(30 * p["w"]))),
+    steep = probe(lambda p, i: float(np.sum(np.exp(30 * p["w"]))),
                   lambda p, i: {"w": 30 * np.exp(30 * p["w"])}, {"w": w / 10})
     assert steep.ok and steep.tensor("w").status == "pass"

@@ -9,14 +9,13 @@ from __future__ import annotations
 import mpmath
 import numpy as np
 import pytest
-
-from gradprobe.engine.coordinates import RICHARDSON_START
-from gradprobe.engine.refine import climb
-from gradprobe.engine.runner import check
-from gradprobe.errors import ComplexStepError
-from gradprobe.options import CheckOptions
 from probe_kit import make_probe
 from test_numerics_reference import POINTS, SMOOTH
+
+from gradprobe import probe
+from gradprobe.engine.coordinates import RICHARDSON_START
+from gradprobe.engine.refine import climb
+from gradprobe.errors import ComplexStepError
 
 mpmath.mp.dps = 50
 
@@ -44,8 +43,8 @@ def test_three_rows_reach_1e_10_of_mpmath_and_the_bound_holds(name):
 def test_complex_step_within_1e_14_of_mpmath(name):
     fn, mp_fn = SMOOTH[name]
     ref = np.array([_reference(mp_fn, t) for t in POINTS])
-    report = check(lambda p, i: np.sum(fn(p["w"])), lambda p, i: {"w": ref}, {"w": POINTS.copy()},
-                   options=CheckOptions(method="complex"))
+    report = probe(lambda p, i: np.sum(fn(p["w"])), lambda p, i: {"w": ref}, {"w": POINTS.copy()},
+                   method="complex")
     t = report.tensor("w")
     assert report.ok and t.max_rel_error < 1e-14
     assert report.evaluations <= POINTS.size + 8  # one evaluation per coordinate
@@ -53,21 +52,21 @@ def test_complex_step_within_1e_14_of_mpmath(name):
 
 def test_complex_step_refuses_a_forward_that_drops_the_imaginary_part():
     with pytest.raises(ComplexStepError, match="drops the imaginary part"):
-        check(lambda p, i: float(np.real(np.sum(np.sin(p["w"])))), lambda p, i: {"w": np.cos(p["w"])},
-              {"w": POINTS.copy()}, options=CheckOptions(method="complex"))
+        probe(lambda p, i: float(np.real(np.sum(np.sin(p["w"])))), lambda p, i: {"w": np.cos(p["w"])},
+              {"w": POINTS.copy()}, method="complex")
 
 
 def test_complex_step_refuses_a_forward_that_raises_on_complex_values():
     with pytest.raises(ComplexStepError, match="cannot take complex inputs"):
-        check(lambda p, i: np.sum(np.logaddexp(0.0, p["w"])),  # logaddexp has no complex loop
+        probe(lambda p, i: np.sum(np.logaddexp(0.0, p["w"])),  # logaddexp has no complex loop
               lambda p, i: {"w": 1 / (1 + np.exp(-p["w"]))},
-              {"w": POINTS[:3].copy()}, options=CheckOptions(method="complex"))
+              {"w": POINTS[:3].copy()}, method="complex")
 
 
 def test_richardson_method_everywhere():
     w = np.linspace(-1, 1, 7)
-    report = check(lambda p, i: float(np.sum(np.sin(3 * p["w"]))), lambda p, i: {"w": 3 * np.cos(3 * p["w"])},
-                   {"w": w}, options=CheckOptions(method="richardson"))
+    report = probe(lambda p, i: float(np.sum(np.sin(3 * p["w"]))), lambda p, i: {"w": 3 * np.cos(3 * p["w"])},
+                   {"w": w}, method="richardson")
     assert report.ok and report.method == "richardson"
     assert report.tensor("w").max_rel_error < 1e-10
 
@@ -83,9 +82,9 @@ def test_suspects_are_rechecked_before_failing():
     def backward(p, i):
         return {"w": 1000 * np.cos(1000 * p["w"])}
 
-    rechecked = check(forward, backward, {"w": w})
+    rechecked = probe(forward, backward, {"w": w})
     assert rechecked.ok
-    plain = check(forward, backward, {"w": w}, options=CheckOptions(recheck=False))
+    plain = probe(forward, backward, {"w": w}, recheck=False)
     assert not plain.ok
 
 
@@ -97,9 +96,9 @@ def test_rounding_noise_is_beaten_with_larger_steps_where_the_loss_allows():
     def forward(p, i):
         return float(1e9 + np.sum(p["w"] ** 2))
 
-    report = check(forward, lambda p, i: {"w": 2 * p["w"]}, {"w": w})
+    report = probe(forward, lambda p, i: {"w": 2 * p["w"]}, {"w": w})
     assert report.ok and report.tensor("w").status == "pass"
-    assert not check(forward, lambda p, i: {"w": 3 * p["w"]}, {"w": w}).ok
+    assert not probe(forward, lambda p, i: {"w": 3 * p["w"]}, {"w": w}).ok
 
 
 def test_noise_that_no_step_beats_is_inconclusive_with_its_reason():
@@ -110,14 +109,14 @@ def test_noise_that_no_step_beats_is_inconclusive_with_its_reason():
     def forward(p, i):
         return float(1e12 + np.sum(np.sin(p["w"])))
 
-    report = check(forward, lambda p, i: {"w": np.cos(p["w"])}, {"w": w})
+    report = probe(forward, lambda p, i: {"w": np.cos(p["w"])}, {"w": w})
     t = report.tensor("w")
     assert report.ok and t.status == "inconclusive" and t.inconclusive == 3
     assert t.inconclusive_reason == (
         "rounding noise in the loss is above the threshold at every step tried"
     )
     assert all(d.reason == t.inconclusive_reason for d in t.details)
-    wrong = check(forward, lambda p, i: {"w": -np.cos(p["w"])}, {"w": w})
+    wrong = probe(forward, lambda p, i: {"w": -np.cos(p["w"])}, {"w": w})
     assert not wrong.ok  # a real error is still caught through the noise
 
 
@@ -130,16 +129,16 @@ def test_float32_inside_a_float64_forward_is_noticed():
     def backward(p, i):
         return {"w": 1.5 * (1 - np.tanh(1.5 * p["w"]) ** 2)}
 
-    report = check(forward, backward, {"w": w})
+    report = probe(forward, backward, {"w": w})
     assert report.compute_dtype == "float32" and report.threshold == 1e-2
     assert any("although its params are float64" in n for n in report.notes)
     assert report.ok
-    assert not check(forward, lambda p, i: {"w": 1.1 * backward(p, i)["w"]}, {"w": w}).ok
+    assert not probe(forward, lambda p, i: {"w": 1.1 * backward(p, i)["w"]}, {"w": w}).ok
 
 
 def test_float64_forward_is_not_mistaken_for_float32():
     w = np.linspace(0.2, 1.2, 6)
-    report = check(lambda p, i: float(np.sum(np.tanh(p["w"]))), lambda p, i: {"w": 1 - np.tanh(p["w"]) ** 2}, {"w": w})
+    report = probe(lambda p, i: float(np.sum(np.tanh(p["w"]))), lambda p, i: {"w": 1 - np.tanh(p["w"]) ** 2}, {"w": w})
     assert report.compute_dtype == "float64" and report.threshold == 1e-6 and not report.notes
 
 
@@ -155,9 +154,9 @@ def test_correct_float32_layer_passes_and_a_ten_percent_bug_fails():
         t = np.tanh(i["x"] @ p["W"])
         return {"W": factor * (i["x"].T @ (2 * t * (1 - t**2)))}
 
-    good = check(forward, backward, {"W": W}, {"x": x})
+    good = probe(forward, backward, {"W": W}, {"x": x})
     assert good.ok and good.compute_dtype == "float32"
-    bad = check(forward, lambda p, i: backward(p, i, 1.1), {"W": W}, {"x": x})
+    bad = probe(forward, lambda p, i: backward(p, i, 1.1), {"W": W}, {"x": x})
     assert not bad.ok and bad.tensor("W").failed == W.size
 
 
@@ -174,7 +173,7 @@ def test_float32_params_with_a_python_float_loss_are_judged_as_float32():
         t = np.tanh(i["x"] @ p["W"])
         return {"W": factor * (i["x"].T @ (2 * t * (1 - t**2)))}
 
-    good = check(forward, backward, {"W": W}, {"x": x})
+    good = probe(forward, backward, {"W": W}, {"x": x})
     assert good.ok and good.compute_dtype == "float32"
     assert any("its params are float32, though it returns float64" in n for n in good.notes)
-    assert not check(forward, lambda p, i: backward(p, i, 1.1), {"W": W}, {"x": x}).ok
+    assert not probe(forward, lambda p, i: backward(p, i, 1.1), {"W": W}, {"x": x}).ok

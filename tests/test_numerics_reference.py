@@ -12,9 +12,9 @@ import mpmath
 import numpy as np
 import pytest
 import sympy
-
-from gradprobe.engine.runner import check
 from probe_kit import make_probe
+
+from gradprobe import probe
 
 mpmath.mp.dps = 50
 
@@ -66,9 +66,9 @@ def test_table_derivatives_pass_and_a_wrong_one_fails(entry):
     def forward(p, i):
         return float(np.sum(fn(p["w"])))
 
-    good = check(forward, lambda p, i: {"w": dfn(p["w"])}, {"w": w})
+    good = probe(forward, lambda p, i: {"w": dfn(p["w"])}, {"w": w})
     assert good.ok and good.tensor("w").max_rel_error < 1e-8
-    bad = check(forward, lambda p, i: {"w": 1.01 * dfn(p["w"])}, {"w": w})
+    bad = probe(forward, lambda p, i: {"w": 1.01 * dfn(p["w"])}, {"w": w})
     assert not bad.ok and bad.tensor("w").failed == w.size
 
 
@@ -91,7 +91,7 @@ def test_symbolic_derivatives_from_sympy():
         }
 
     params = {"a": np.array(1.3), "b": np.array(0.4)}
-    report = check(forward, backward, params, {"t": times, "wt": weights})
+    report = probe(forward, backward, params, {"t": times, "wt": weights})
     assert report.ok
     assert max(t.max_rel_error for t in report.tensors) < 1e-8
 

@@ -4,14 +4,14 @@ from __future__ import annotations
 
 import numpy as np
 
-from gradprobe.engine.runner import check
+from gradprobe import probe
 
 
 def test_a_size_one_array_is_a_scalar_loss():
     """forward may return a Python float, a 0-d array or a size-1 array (then backward has 2 args)."""
     w = np.array([0.3, -1.2])
     for wrap in (float, np.asarray, lambda v: np.array([v]), lambda v: np.array([[v]])):
-        report = check(lambda p, i, wrap=wrap: wrap(np.sum(p["w"] ** 2)), lambda p, i: {"w": 2 * p["w"]}, {"w": w})
+        report = probe(lambda p, i, wrap=wrap: wrap(np.sum(p["w"] ** 2)), lambda p, i: {"w": 2 * p["w"]}, {"w": w})
         assert report.ok
 
 
@@ -24,7 +24,7 @@ def test_nested_inputs_are_named_by_their_keys_in_the_inputs_layer():
     def backward(p, i):
         return {"w": np.sum(i["batch"]["x"] ** 2, axis=0), "batch": {"x": 2 * p["w"] * i["batch"]["x"]}}
 
-    report = check(forward, backward, {"w": np.array([1.5, -0.5])}, {"batch": {"x": x}})
+    report = probe(forward, backward, {"w": np.array([1.5, -0.5])}, {"batch": {"x": x}})
     t = report.tensor("batch.x")
     assert report.ok and t.layer == "inputs" and t.kind == "input"
     assert [layer.name for layer in report.layers] == ["w", "inputs"]
@@ -42,13 +42,13 @@ def test_deeper_nesting_names_the_layer_up_to_the_last_dot():
         d = 1 - np.tanh(blk["W"] @ np.ones(2) + blk["b"]) ** 2
         return {"encoder": {"block1": {"W": np.outer(d, np.ones(2)), "b": d}}}
 
-    report = check(forward, backward, params)
+    report = probe(forward, backward, params)
     assert report.ok and [layer.name for layer in report.layers] == ["encoder.block1"]
     assert {t.name for t in report.tensors} == {"encoder.block1.W", "encoder.block1.b"}
 
 
 def test_anything_numpy_asarray_accepts_is_an_array():
-    report = check(lambda p, i: float(np.sum(np.asarray(p["w"]) ** 3)),
+    report = probe(lambda p, i: float(np.sum(np.asarray(p["w"]) ** 3)),
                    lambda p, i: {"w": [3 * v**2 for v in p["w"]]}, {"w": [0.5, 1.0, -2.0]})
     assert report.ok and report.tensor("w").shape == (3,)
 
@@ -60,5 +60,5 @@ def test_evaluations_count_every_forward_call():
         calls.append(1)
         return float(np.sum(np.sin(p["w"])))
 
-    report = check(forward, lambda p, i: {"w": np.cos(p["w"])}, {"w": np.linspace(0, 1, 5)})
+    report = probe(forward, lambda p, i: {"w": np.cos(p["w"])}, {"w": np.linspace(0, 1, 5)})
     assert report.evaluations == len(calls)

@@ -5,14 +5,17 @@ from __future__ import annotations
 import re
 from pathlib import Path
 
+import numpy  # noqa: F401 - loaded once here: in-process inner runs must not import it again
 import pytest
 
 README = Path(__file__).resolve().parent.parent / "README.md"
+# Inner runs load gradprobe's plugin only: other installed plugins (hypothesis's costs seconds
+# per run) have nothing to do with these tests.
+QUIET_PLUGINS = ("-p", "no:cacheprovider", "-p", "no:hypothesispytest")
 
 
-def run(pytester: pytest.Pytester, *args: str) -> pytest.RunResult:
-    """pytest in-process, without the cache and without hypothesis's plugin (faster)."""
-    return pytester.runpytest("-p", "no:cacheprovider", "-p", "no:hypothesispytest", *args)
+def _run(pytester: pytest.Pytester, *args: str) -> pytest.RunResult:
+    return pytester.runpytest(*QUIET_PLUGINS, *args)
 
 LAYER = """
 import numpy as np
@@ -34,7 +37,7 @@ def test_layer(grad_probe):
     report = grad_probe(forward, backward, {"W": W}, {"x": X})
     assert report.ok and report.tensor("W").checked == 6
 """)
-    run(pytester).assert_outcomes(passed=1)
+    _run(pytester).assert_outcomes(passed=1)
 
 
 def test_a_failing_check_fails_with_the_per_layer_report(pytester: pytest.Pytester, monkeypatch):
@@ -44,7 +47,7 @@ def test_a_failing_check_fails_with_the_per_layer_report(pytester: pytest.Pytest
 def test_layer(grad_probe):
     grad_probe(forward, lambda p, i: backward(p, i, scale=-1.0), {"W": W}, {"x": X})
 """)
-    result = run(pytester)
+    result = _run(pytester)
     result.assert_outcomes(failed=1)
     first = "W disagrees: rel error 2.0e+00 at [0, 0] > 1e-06"
     lines = result.stdout.lines
@@ -66,7 +69,7 @@ def test_pair(grad_probe):
     grad_probe(lambda p, i: forward(p, i) + float((p["V"] ** 2).sum()), both,
                {"W": W, "V": W[:2] + 1.0}, {"x": X})
 """)
-    result = run(pytester)
+    result = _run(pytester)
     result.assert_outcomes(failed=1)
     # V's analytic is 3V against the numeric 2V: rel error |3-2|/3 = 3.3e-01; W's 1.5 g: 0.5/1.5
     result.stdout.fnmatch_lines(["W, V disagree: rel error 3.3e-01 in * at [[]*[]] > 1e-06"])
@@ -80,7 +83,7 @@ def broken_forward(p, i):
 def test_broken(grad_probe):
     grad_probe(broken_forward, backward, {"W": W}, {"x": X})
 """)
-    result = run(pytester)
+    result = _run(pytester)
     result.assert_outcomes(failed=1)
     text = result.stdout.str()
     result.stdout.fnmatch_lines(['*raise ValueError("the batch has no rows")',
@@ -105,12 +108,12 @@ def test_marker(grad_probe):
 def test_call(grad_probe):
     grad_probe(forward, off, {"W": W}, {"x": X}, threshold=1e-3)
 """)
-    run(pytester).assert_outcomes(passed=2, failed=1)
-    run(pytester, "--gradprobe-threshold", "1e-3").assert_outcomes(passed=3)
+    _run(pytester).assert_outcomes(passed=2, failed=1)
+    _run(pytester, "--gradprobe-threshold", "1e-3").assert_outcomes(passed=3)
     pytester.makeini("[pytest]\ngradprobe_threshold = 1e-3\n")
-    run(pytester).assert_outcomes(passed=3)
+    _run(pytester).assert_outcomes(passed=3)
     # the command line beats the ini file
-    run(pytester, "--gradprobe-threshold", "1e-6").assert_outcomes(passed=2, failed=1)
+    _run(pytester, "--gradprobe-threshold", "1e-6").assert_outcomes(passed=2, failed=1)
 
 
 def test_seed_is_in_the_header_and_reaches_the_check(pytester: pytest.Pytester):
@@ -118,7 +121,7 @@ def test_seed_is_in_the_header_and_reaches_the_check(pytester: pytest.Pytester):
 def test_seed(grad_probe):
     assert grad_probe(forward, backward, {"W": W}, {"x": X}).seed == 7
 """)
-    result = run(pytester, "--gradprobe-seed", "7")
+    result = _run(pytester, "--gradprobe-seed", "7")
     result.assert_outcomes(passed=1)
     result.stdout.fnmatch_lines(["gradprobe: threshold by floating type, seed 7"])
 
@@ -135,7 +138,7 @@ def test_raises(grad_probe):
         grad_probe(forward, broken, {"W": W}, {"x": X})
     assert isinstance(info.value.__cause__, ZeroDivisionError)
 """)
-    run(pytester).assert_outcomes(passed=1)
+    _run(pytester).assert_outcomes(passed=1)
 
 
 def test_the_readme_example_runs_and_is_under_ten_lines(pytester: pytest.Pytester):
@@ -143,4 +146,31 @@ def test_the_readme_example_runs_and_is_under_ten_lines(pytester: pytest.Pyteste
     example = re.search(r"<!-- pytest-example -->\s*```python\n(.*?)```", text, re.S).group(1)
     assert len([line for line in example.splitlines() if line.strip()]) < 10
     pytester.makepyfile(test_readme=example)
-    run(pytester).assert_outcomes(passed=1)
+    _run(pytester).assert_outcomes(passed=1)
+
+
+def test_inconclusive_fail_reaches_the_fixture_from_the_command_line(pytester: pytest.Pytester):
+    pytester.makepyfile(LAYER + """
+def test_layer(grad_probe):
+    report = grad_probe(forward, backward, {"W": W}, {"x": X})
+    assert report.inconclusive_fails
+""")
+    result = _run(pytester, "--gradprobe-inconclusive", "fail")
+    result.assert_outcomes(passed=1)
+    assert "gradprobe: threshold by floating type, seed 0, inconclusive fail" in result.outlines
+
+
+def test_inconclusive_fail_from_the_ini_file(pytester: pytest.Pytester):
+    pytester.makeini("[pytest]\ngradprobe_inconclusive = fail\n")
+    pytester.makepyfile(LAYER + """
+def test_layer(grad_probe):
+    assert grad_probe(forward, backward, {"W": W}, {"x": X}).inconclusive_fails
+""")
+    _run(pytester).assert_outcomes(passed=1)
+
+
+def test_the_fixture_type_is_exported():
+    import gradprobe
+    from gradprobe.pytest_plugin import grad_probe  # noqa: F401 - the plugin still loads
+
+    assert gradprobe.GradProbe.__module__ == "gradprobe.fixture"

@@ -4,9 +4,10 @@ from __future__ import annotations
 
 import io
 
-from gradprobe.render.terminal import COLOUR, renderables, render_text, verdict
-from gradprobe.report import LayerResult, Report, TensorResult
 from rich.console import Console
+
+from gradprobe.render.terminal import COLOUR, render_text, renderables, verdict
+from gradprobe.report import LayerResult, Report, TensorResult
 
 
 def _report(**over) -> Report:

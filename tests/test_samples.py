@@ -65,4 +65,4 @@ def test_stack_sample_in_worker_processes_and_junit(run_cli, tmp_path):
     assert result.exit_code == 1
     assert json.loads((tmp_path / "out.json").read_text())["summary"]["error_enters_at"] == ["trend"]
     xml = (tmp_path / "out.xml").read_text()
-    assert 'classname="' in xml and "trend on its own" in xml and "inherited from: trend" in xml
+    assert 'classname="' in xml and "shop_demand_stack_buggy.trend.own" in xml and "inherited from: trend" in xml

@@ -5,18 +5,16 @@ from __future__ import annotations
 import json
 import subprocess
 import sys
-from pathlib import Path
 from concurrent.futures import ThreadPoolExecutor
+from pathlib import Path
 
 import numpy as np
 import pytest
-
 from conftest import SAMPLES
-from gradprobe.engine.runner import check, run_check
+
+from gradprobe import probe, probe_target
 from gradprobe.engine.sampling import stratified, tensor_rng
-from gradprobe.options import CheckOptions
 from gradprobe.render.json import report_dict
-from gradprobe.target import load_target
 
 N = 100_000
 RNG = np.random.default_rng(0)
@@ -43,7 +41,7 @@ def _with_errors(factors):
 
 
 def _directional_only(backward):
-    return check(forward, backward, {"w": W}, {"c": C}, options=CheckOptions(sample=0))
+    return probe(forward, backward, {"w": W}, {"c": C}, sample=0)
 
 
 def test_one_planted_error_is_located_exactly():
@@ -78,7 +76,7 @@ def test_a_correct_large_tensor_passes_directionally():
 
 
 def test_default_plan_for_a_large_tensor_samples_and_uses_directions():
-    report = check(forward, lambda p, i: {"w": exact(p, i)}, {"w": W}, {"c": C})
+    report = probe(forward, lambda p, i: {"w": exact(p, i)}, {"w": W}, {"c": C})
     t = report.tensor("w")
     assert report.ok and t.checked == 24 and len(t.directions) == 2
     assert t.evaluations <= 100
@@ -116,9 +114,8 @@ def _comparable(report):
 
 
 def test_two_jobs_give_the_same_report_as_serial():
-    target = load_target(str(SAMPLES / "crop_yield_buggy.py"))
-    serial = run_check(target, CheckOptions())
-    parallel = run_check(load_target(str(SAMPLES / "crop_yield_buggy.py")), CheckOptions(jobs=2))
+    serial = probe_target(str(SAMPLES / "crop_yield_buggy.py"))
+    parallel = probe_target(str(SAMPLES / "crop_yield_buggy.py"), jobs=2)
     assert _comparable(parallel) == _comparable(serial)
 
 
@@ -128,9 +125,9 @@ def test_any_executor_gives_the_same_report():
 
     small = {"w": W[:50]}
     inputs = {"c": C[:50]}
-    serial = check(forward, backward, small, inputs)
+    serial = probe(forward, backward, small, inputs)
     with ThreadPoolExecutor(2) as pool:
-        threaded = check(forward, backward, small, inputs, executor=pool)
+        threaded = probe(forward, backward, small, inputs, executor=pool)
     assert _comparable(threaded) == _comparable(serial)
     assert threaded.tensor("w").bad_indices == ((49,),)
 
@@ -169,7 +166,7 @@ def forward(p, i):
 def backward(p, i):
     return {{"w": np.exp(p["w"])}}
 """)
-    report = run_check(load_target(str(target)), CheckOptions(jobs=2))
+    report = probe_target(str(target), jobs=2)
     assert report.ok and counter.read_text() == "x"
 
 
@@ -199,8 +196,8 @@ def test_directions_through_relu_kinks_pass_a_correct_network_with_nothing_incon
     """Tens of thousands of ReLU units along every random direction: the directional steps
     stay below the distance to the nearest kink, and the sides are extrapolated apart."""
     fwd, bwd, params, inputs = _relu_network(seed)
-    report = check(fwd, bwd, params, inputs, options=CheckOptions(sample=0, seed=seed))
-    assert report.ok, report.render()
+    report = probe(fwd, bwd, params, inputs, sample=0, seed=seed)
+    assert report.ok, render_text(report)
     assert report.count("inconclusive") == 0
     assert all(d.ok for t in report.tensors for d in t.directions)
 
@@ -217,9 +214,9 @@ def test_one_wrong_element_of_a_relu_weight_is_found_and_located(factor):
         g["l1"]["W"][target] *= factor
         return g
 
-    report = check(fwd, wrong, params, inputs, options=CheckOptions(sample=0, seed=3))
+    report = probe(fwd, wrong, params, inputs, sample=0, seed=3)
     t = report.tensor("l1.W")
-    assert t.status == "fail" and t.bad_indices == (tuple(int(i) for i in target),), report.render()
+    assert t.status == "fail" and t.bad_indices == (tuple(int(i) for i in target),), render_text(report)
     assert report.tensor("l2.W").status == "pass"
 
 
@@ -230,8 +227,8 @@ def test_an_unpicklable_forward_with_jobs_is_one_sentence():
         return float(np.sum(p["w"] ** 2))
 
     with pytest.raises(UsageProblem, match="not picklable"):
-        check(local_forward, lambda p, i: {"w": 2 * p["w"]}, {"w": np.ones(4)},
-              options=CheckOptions(jobs=2))
+        probe(local_forward, lambda p, i: {"w": 2 * p["w"]}, {"w": np.ones(4)},
+              jobs=2)
 
 
 def test_a_forward_raising_in_a_worker_keeps_its_sentence(tmp_path):
@@ -249,4 +246,4 @@ def backward(p, i):
     return {"w": 2 * p["w"]}
 """)
     with pytest.raises(UserCodeError, match=r"forward raised ValueError: stock below zero when w\[1\] was perturbed"):
-        run_check(load_target(str(target)), CheckOptions(jobs=2))
+        probe_target(str(target), jobs=2)

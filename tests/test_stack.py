@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 from stack_layers import Dense, Relu, SoftmaxLoss, SquaredLoss, Tanh, arrays
 
-from gradprobe import probe, probe_stack
+from gradprobe import report_dict, probe, probe_stack
 from gradprobe.errors import BadOutputError, TargetLoadError, UserCodeError
 from gradprobe.stack import stack
 from gradprobe.stack_split import base_activations, layer_targets
@@ -159,7 +159,7 @@ def test_a_misshaped_input_gradient_fails_its_layer_and_the_earlier_ones_inherit
 
 
 def test_json_keys_for_stacks_and_for_flat_targets():
-    d = probe_stack(*_three((None, "input", None))).to_dict()
+    d = report_dict(probe_stack(*_three((None, "input", None))))
     assert d["summary"]["error_enters_at"] == ["d2"] and d["summary"]["own_evaluations"] > 0
     layers = {layer["name"]: layer for layer in d["layers"]}
     assert layers["d2"]["own"] == "fail" and layers["d1"]["own"] == "pass"
@@ -169,9 +169,9 @@ def test_json_keys_for_stacks_and_for_flat_targets():
     assert "inherited_from" not in {k for t in layers["d2"]["tensors"] for k in t}
     json.dumps(d)
     params, inputs = arrays(widths=(3, 2), names=("d1",))
-    flat = probe(lambda p, i: float(np.sum(i["x"] @ p["d1"]["W"])),
-                 lambda p, i: {"d1": {"W": i["x"].sum(axis=0)[:, None] * np.ones((1, 2)),
-                                      "b": np.zeros(2)}}, params, inputs).to_dict()
+    flat = report_dict(probe(lambda p, i: float(np.sum(i["x"] @ p["d1"]["W"])),
+                             lambda p, i: {"d1": {"W": i["x"].sum(axis=0)[:, None] * np.ones((1, 2)),
+                                                  "b": np.zeros(2)}}, params, inputs))
     assert flat["summary"]["error_enters_at"] is None
     assert all(layer["own"] is None and layer["own_check"] is None for layer in flat["layers"])
 

@@ -15,21 +15,55 @@ from typing import Any, Callable, Protocol, Sequence
 import numpy as np
 
 from ..errors import BadOutputError, InPlaceWriteError, UserCodeError, summarise
+from ..guard import ExitAttempt, exit_error
 from ..tensors import Workspace, format_index
+
+# An integer index array at least this long that is one contiguous run becomes a slice.
+CONTIGUOUS_MIN = 64
+
+
+def as_slice(index: np.ndarray) -> slice | None:
+    """``index`` as a slice when it is the run ``start, start+1, ..., stop-1``."""
+    if index.ndim != 1 or index.size < CONTIGUOUS_MIN:
+        return None
+    start, last = int(index[0]), int(index[-1])
+    if last - start + 1 != index.size or not bool(np.all(np.diff(index) == 1)):
+        return None
+    return slice(start, last + 1)
 
 
 @dataclass(frozen=True)
 class Perturbation:
-    """Set ``tensor.flat[index] = values`` for one forward call."""
+    """Set ``tensor.flat[index] = values`` for one forward call.
+
+    ``index`` is a 1-D array of flat indices or, for a contiguous range, a ``slice`` with
+    explicit start and stop (step 1): it pickles in a few bytes and is applied by slicing.
+    A long contiguous index array is turned into such a slice.
+    """
 
     tensor: str
-    index: np.ndarray  # flat indices, int64, 1-D
+    index: np.ndarray | slice
     values: np.ndarray  # one value per index, in the tensor's dtype (complex for complex step)
 
+    def __post_init__(self) -> None:
+        if isinstance(self.index, np.ndarray):
+            run = as_slice(self.index)
+            if run is not None:
+                object.__setattr__(self, "index", run)
+
+    @property
+    def size(self) -> int:
+        """How many coordinates change."""
+        if isinstance(self.index, slice):
+            return int(self.index.stop) - int(self.index.start)
+        return int(np.size(self.index))
+
     def describe(self, shape: tuple[int, ...]) -> str:
-        if self.index.size == 1:
-            return f"{self.tensor}{format_index(np.unravel_index(int(self.index[0]), shape))}"
-        return f"{self.index.size} coordinates of {self.tensor}"
+        if self.size == 1:
+            first = self.index.start if isinstance(self.index, slice) else self.index[0]
+            where = tuple(int(i) for i in np.unravel_index(int(first), shape))
+            return f"{self.tensor}{format_index(where)}"
+        return f"{self.size} coordinates of {self.tensor}"
 
 
 def is_read_only_write(exc: BaseException) -> bool:
@@ -108,6 +142,8 @@ class LossFunction:
                     f"forward writes into the arrays it is given{where} ({summarise(exc)})"
                 ) from exc
             raise UserCodeError(f"forward raised {summarise(exc)}{where}") from exc
+        except (SystemExit, ExitAttempt) as exc:
+            raise exit_error(exc, "forward", self._where(p)) from exc
         try:
             return output_to_loss(out, self.grad_output, "")
         except BadOutputError as exc:
@@ -136,7 +172,7 @@ class LossFunction:
         owner = self.workspace.owners[p.tensor]
         if p.values.dtype.kind == "c" and owner.dtype.kind != "c":
             return self._at_complex(p)
-        if p.index.size == 1:  # one coordinate: scalar indexing is much cheaper
+        if isinstance(p.index, np.ndarray) and p.index.size == 1:  # scalar indexing is cheaper
             k = int(p.index[0])
             old = owner.flat[k]
             owner.flat[k] = p.values[0]
@@ -144,12 +180,13 @@ class LossFunction:
                 return self._call(self.workspace.params_tree, self.workspace.inputs_tree, p)
             finally:
                 owner.flat[k] = old
-        saved = owner.flat[p.index].copy()
-        owner.flat[p.index] = p.values
+        target = owner.reshape(-1) if owner.flags.c_contiguous else owner.flat
+        saved = target[p.index].copy()
+        target[p.index] = p.values
         try:
             return self._call(self.workspace.params_tree, self.workspace.inputs_tree, p)
         finally:
-            owner.flat[p.index] = saved
+            target[p.index] = saved
 
     def _at_complex(self, p: Perturbation) -> complex:
         work = self._complex.get(p.tensor)

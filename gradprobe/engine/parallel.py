@@ -2,32 +2,44 @@
 
 Two backends feed the one :class:`~gradprobe.engine.evaluate.Evaluator`:
 
-- :class:`WorkerPool` (``--jobs N``): N processes, each of which loads the target from its
-  entry point once and receives the private copies of the arrays once, at start-up.
+- :class:`WorkerPool` (``--jobs N``): N processes, each of which gets the forward (its entry
+  point, loaded again in the worker, or the function itself) and the private copies of the
+  arrays once, at start-up. A task then carries only the perturbations: which tensor, a
+  ``slice`` or index array, and the changed values. Chunks go to whichever worker is idle,
+  so a small dependent batch waits for no more than its slowest evaluation. Workers ignore
+  Ctrl-C; the parent stops them at once when it is interrupted or fails.
 - :class:`ExecutorBackend`: any ``concurrent.futures.Executor`` (Dask's
   ``Client.get_executor()`` included); every task carries the forward and the arrays, so
   the functions must be picklable (module-level functions; Dask also pickles closures).
 
-Both split a batch into contiguous chunks and return the losses in order, so a parallel
-report is identical to the serial one.
+Both return the losses in order, so a parallel report is identical to the serial one.
 """
 
 from __future__ import annotations
 
 import os
-from concurrent.futures import Executor, Future, ProcessPoolExecutor
-from concurrent.futures.process import BrokenProcessPool
-from typing import Any, Callable, Sequence
+import pickle
+import signal
+from typing import TYPE_CHECKING, Any, Callable, Sequence, cast
 
 import numpy as np
 
 from ..errors import ProbeError, UsageProblem, summarise
+from ..guard import guarded
+from ..heap import keep_heap
 from ..tensors import Workspace
 from .evaluate import LossFunction, Perturbation
 
-CHUNKS_PER_WORKER = 4
+if TYPE_CHECKING:
+    from concurrent.futures import Executor, Future
+    from multiprocessing.connection import Connection
 
-_worker_loss: LossFunction | None = None  # set once in each worker process
+CHUNKS_PER_WORKER = 16  # small chunks: an idle worker waits at most one chunk per batch
+TASKS_PER_EXECUTOR_WORKER = 4  # executor tasks carry the arrays: fewer, larger ones
+STOP_GRACE = 0.5  # seconds a worker gets to leave on its own before it is terminated
+
+DIED = ("the worker processes failed to start or died (a target that cannot be loaded again "
+        "in a fresh process, or a crash); run without --jobs to see why")
 
 
 def _chunks(items: Sequence[Perturbation], count: int) -> list[Sequence[Perturbation]]:
@@ -41,42 +53,171 @@ def _state(ws: Workspace) -> tuple[dict[str, Any], dict[str, Any]]:
     return params, inputs
 
 
-def _start_worker(spec: str, params: Any, inputs: Any, grad_output: np.ndarray | None) -> None:
-    global _worker_loss
-    from ..target import load_functions
+def _not_picklable(exc: BaseException) -> UsageProblem:
+    return UsageProblem(
+        "forward cannot be sent to other processes (it is not picklable: "
+        f"{summarise(exc)}); use a module-level function, or name the target by its entry point")
 
-    forward, _ = load_functions(spec)
-    _worker_loss = LossFunction(forward, Workspace(params, inputs), grad_output)
+
+def _evaluate(loss: LossFunction, chunk: Sequence[Perturbation]) -> list[float]:
+    with guarded("forward"):
+        return [float(np.real(loss.at(p))) for p in chunk]
+
+
+def _portable(exc: BaseException) -> BaseException:
+    """``exc`` if it survives pickling, else a UsageProblem with its sentence."""
+    try:
+        pickle.dumps(exc)
+        return exc
+    except Exception:
+        return UsageProblem(f"a worker process failed: {summarise(exc)}")
+
+
+def _worker_main(conn: Any, load: str | Callable[..., Any], params: Any, inputs: Any,
+                 grad_output: np.ndarray | None) -> None:
+    """A worker: build the loss once, then evaluate chunks until told to stop."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C is the parent's to handle
+    keep_heap()
+    loss: LossFunction | None = None
+    failure: BaseException | None = None
+    try:
+        if isinstance(load, str):
+            from ..target import load_functions
+
+            forward, _ = load_functions(load)
+        else:
+            forward = load
+        loss = LossFunction(forward, Workspace(params, inputs), grad_output)
+    except BaseException as exc:  # reported with the first task
+        failure = exc
+    while True:
+        try:
+            message = conn.recv()
+        except (EOFError, OSError):
+            return
+        if message is None:
+            return
+        tag, chunk = message
+        try:
+            if failure is not None:
+                raise failure
+            assert loss is not None
+            conn.send((tag, True, _evaluate(loss, chunk)))
+        except BaseException as exc:
+            conn.send((tag, False, _portable(exc)))
+
+
+class WorkerPool:
+    """``jobs`` processes holding the forward and the arrays; tasks carry perturbations only.
+
+    ``load`` is the target's entry point (workers import it, without calling setup() again)
+    or the forward function itself (it must be picklable).
+    """
+
+    def __init__(self, load: str | Callable[..., Any], ws: Workspace,
+                 grad_output: np.ndarray | None, jobs: int) -> None:
+        import multiprocessing
+
+        if not isinstance(load, str):
+            try:
+                pickle.dumps(load)
+            except Exception as exc:
+                raise _not_picklable(exc) from exc
+        params, inputs = _state(ws)
+        context = multiprocessing.get_context()
+        self.jobs = jobs
+        self.connections: list[Any] = []
+        self.processes: list[Any] = []
+        try:
+            for _ in range(jobs):
+                here, there = context.Pipe()
+                # Not daemonic, so a forward may start processes of its own.
+                process = context.Process(target=_worker_main,
+                                          args=(there, load, params, inputs, grad_output))
+                process.start()
+                there.close()
+                self.connections.append(here)
+                self.processes.append(process)
+        except BaseException as exc:
+            self.terminate()
+            if isinstance(exc, Exception) and "pickl" in f"{type(exc).__name__} {exc}".lower():
+                raise _not_picklable(exc) from exc
+            raise
+
+    def losses(self, perturbations: Sequence[Perturbation]) -> list[float]:
+        from multiprocessing.connection import Connection, wait
+
+        chunks = _chunks(perturbations, self.jobs * CHUNKS_PER_WORKER)
+        results: list[list[float] | None] = [None] * len(chunks)
+        waiting = list(range(len(chunks)))[::-1]
+        busy: dict[Connection, int] = {}
+        idle: list[Connection] = list(self.connections)
+        try:
+            while waiting or busy:
+                while waiting and idle:
+                    conn = idle.pop()
+                    tag = waiting.pop()
+                    conn.send((tag, list(chunks[tag])))
+                    busy[conn] = tag
+                for ready in wait(list(busy)):
+                    conn = cast(Connection, ready)
+                    tag, ok, value = conn.recv()
+                    del busy[conn]
+                    idle.append(conn)
+                    if not ok:
+                        raise cast(BaseException, value)
+                    results[tag] = cast("list[float]", value)
+        except (EOFError, OSError, BrokenPipeError) as exc:
+            self.terminate()
+            raise UsageProblem(DIED) from exc
+        except BaseException:
+            self.terminate()  # an interrupt or the user's error: no worker keeps running
+            raise
+        return [v for chunk in results if chunk is not None for v in chunk]
+
+    def close(self) -> None:
+        """Ask the workers to leave; terminate any that do not within STOP_GRACE."""
+        for conn in self.connections:
+            try:
+                conn.send(None)
+            except (OSError, ValueError):
+                pass
+        for process in self.processes:
+            process.join(STOP_GRACE)
+        self.terminate()
+
+    def terminate(self) -> None:
+        """Stop every worker now (idempotent)."""
+        for process in self.processes:
+            if process.is_alive():
+                process.terminate()
+        for process in self.processes:
+            process.join(STOP_GRACE)
+            if process.is_alive():
+                process.kill()
+                process.join()
+        for conn in self.connections:
+            conn.close()
+        self.processes, self.connections = [], []
 
 
 def _gather(futures: list[Future]) -> list[float]:
     """The chunks' losses in order; failures of the machinery become one sentence."""
+    from concurrent.futures.process import BrokenProcessPool
+
     try:
         return [value for f in futures for value in f.result()]
     except ProbeError:
         raise  # the user's forward failed in a worker: its own sentence
     except BrokenProcessPool as exc:
-        raise UsageProblem(
-            "the worker processes failed to start or died (a target that cannot be loaded "
-            "again in a fresh process, or a crash); run without --jobs to see why"
-        ) from exc
-    except Exception as exc:
-        if "pickle" in str(exc).lower() or "pickl" in type(exc).__name__.lower():
-            raise UsageProblem(
-                "forward cannot be sent to other processes (it is not picklable: "
-                f"{summarise(exc)}); use a module-level function, or name the target by "
-                "its entry point"
-            ) from exc
+        raise UsageProblem(DIED) from exc
+    except BaseException as exc:
+        for f in futures:
+            f.cancel()
+        if isinstance(exc, Exception) and (
+                "pickle" in str(exc).lower() or "pickl" in type(exc).__name__.lower()):
+            raise _not_picklable(exc) from exc
         raise
-
-
-def _evaluate(loss: LossFunction, chunk: Sequence[Perturbation]) -> list[float]:
-    return [float(np.real(loss.at(p))) for p in chunk]
-
-
-def _evaluate_in_worker(chunk: Sequence[Perturbation]) -> list[float]:
-    assert _worker_loss is not None, "worker was not started"
-    return _evaluate(_worker_loss, chunk)
 
 
 def evaluate_payload(
@@ -84,26 +225,8 @@ def evaluate_payload(
     chunk: Sequence[Perturbation],
 ) -> list[float]:
     """One executor task: rebuild the loss from what the task carries, evaluate a chunk."""
+    keep_heap()
     return _evaluate(LossFunction(forward, Workspace(params, inputs), grad_output), chunk)
-
-
-class WorkerPool:
-    """``jobs`` processes that each load ``spec`` once."""
-
-    def __init__(self, spec: str, ws: Workspace, grad_output: np.ndarray | None, jobs: int) -> None:
-        params, inputs = _state(ws)
-        self.jobs = jobs
-        self.pool = ProcessPoolExecutor(
-            max_workers=jobs, initializer=_start_worker, initargs=(spec, params, inputs, grad_output)
-        )
-
-    def losses(self, perturbations: Sequence[Perturbation]) -> list[float]:
-        futures = [self.pool.submit(_evaluate_in_worker, c)
-                   for c in _chunks(perturbations, self.jobs * CHUNKS_PER_WORKER)]
-        return _gather(futures)
-
-    def close(self) -> None:
-        self.pool.shutdown(wait=True, cancel_futures=True)
 
 
 class ExecutorBackend:
@@ -121,6 +244,6 @@ class ExecutorBackend:
         futures = [
             self.executor.submit(evaluate_payload, self.forward, self.params, self.inputs,
                                  self.grad_output, list(c))
-            for c in _chunks(perturbations, self.workers * CHUNKS_PER_WORKER)
+            for c in _chunks(perturbations, self.workers * TASKS_PER_EXECUTOR_WORKER)
         ]
         return _gather(futures)

@@ -8,7 +8,13 @@ from typing import Any, Callable
 
 import numpy as np
 
-from ..errors import InPlaceWriteError, NondeterminismError, ProbeError, UserCodeError, summarise
+from ..errors import (
+    InPlaceWriteError,
+    NondeterminismError,
+    ProbeError,
+    UserCodeError,
+    summarise,
+)
 from ..tensors import Workspace
 from .evaluate import Evaluator, output_to_loss
 

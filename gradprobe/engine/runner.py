@@ -3,15 +3,16 @@
 from __future__ import annotations
 
 import time
-from concurrent.futures import Executor, ProcessPoolExecutor
 from dataclasses import dataclass, replace
-from typing import Any, Callable
+from typing import TYPE_CHECKING, Any, Callable
 
 import numpy as np
 
-from ..diagnose import Context as HintContext
+from ..diagnose import HintContext
 from ..diagnose import Evidence, diagnose
 from ..errors import ProbeError, TargetLoadError
+from ..guard import guarded
+from ..heap import keep_heap, release_heap
 from ..options import CheckOptions, default_threshold
 from ..report import LayerResult, Report, TensorResult
 from ..target import Target
@@ -19,12 +20,15 @@ from ..tensors import INPUT_LAYER, Workspace, is_float, layer_of
 from .evaluate import Backend, Evaluator, LossFunction, Progress
 from .gradients import Gradients, validate
 from .preflight import ForwardInfo, call_backward, inspect_forward
-from .summary import problem_result, unknown_result
 from .noise import measured_loss_scale
 from .probe import ROUNDING_UNITS, TensorProbe
-from .sampling import tensor_rng
 from .promote import FLOAT32_AGREEMENT, promote
+from .sampling import tensor_rng
+from .summary import problem_result, unknown_result
 from .tensor_check import check_tensor
+
+if TYPE_CHECKING:
+    from concurrent.futures import Executor
 
 
 def _backend(
@@ -32,17 +36,14 @@ def _backend(
     executor: Executor | None,
 ) -> tuple[Backend | None, Callable[[], None]]:
     """Where perturbations are evaluated, and how to release it afterwards."""
+    if executor is None and options.jobs <= 1:
+        return None, lambda: None
     from .parallel import ExecutorBackend, WorkerPool
 
     if executor is not None:
         return ExecutorBackend(executor, target.forward, ws, grad_output), lambda: None
-    if options.jobs <= 1:
-        return None, lambda: None
-    if target.spec is not None:
-        pool = WorkerPool(target.spec, ws, grad_output, options.jobs)
-        return pool, pool.close
-    own = ProcessPoolExecutor(max_workers=options.jobs)
-    return ExecutorBackend(own, target.forward, ws, grad_output, options.jobs), own.shutdown
+    pool = WorkerPool(target.spec or target.forward, ws, grad_output, options.jobs)
+    return pool, pool.close
 
 
 def _threshold_note(dtype: np.dtype, why: str) -> str:
@@ -104,10 +105,14 @@ def run_check(
     ``executor`` spreads the evaluations over any ``concurrent.futures.Executor`` (a Dask
     client's ``get_executor()`` included); ``options.jobs > 1`` starts worker processes.
     """
+    keep_heap()
     try:
-        return _run(target, options or CheckOptions(), executor, progress, clock)
+        with guarded("forward or backward"):
+            return _run(target, options or CheckOptions(), executor, progress, clock)
     except ProbeError as exc:
         raise exc.with_target(target.label)
+    finally:
+        release_heap()
 
 
 def _run(
@@ -233,18 +238,6 @@ def _check_all(
         compute_dtype=str(np.dtype(compute_dtype)),
         errors=tuple(errors),
         notes=tuple(notes),
+        inconclusive_fails=options.inconclusive_fails,
     )
 
-
-def check(
-    forward: Callable[..., Any],
-    backward: Callable[..., Any],
-    params: Any,
-    inputs: Any = None,
-    options: CheckOptions | None = None,
-    label: str = "<python>",
-    **kwargs: Any,
-) -> Report:
-    """Check functions and arrays directly (the engine's Python entry)."""
-    target = Target(label, forward, backward, params, inputs or {})
-    return run_check(target, options, **kwargs)

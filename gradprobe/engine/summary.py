@@ -5,10 +5,14 @@ from __future__ import annotations
 import numpy as np
 
 from ..report import CoordinateDetail, DirectionResult, TensorResult
+from ..status import Status
 from .coordinates import CoordinateOutcome
-from .status import FAIL, INCONCLUSIVE, KINK, STATUS_NAMES
+from .status import FAIL, INCONCLUSIVE, KINK, PASS
 
 MAX_LISTED = 100
+
+# The engine's int codes (engine/status.py) in the shared vocabulary.
+STATUS_OF_CODE = {PASS: Status.PASS, KINK: Status.KINK, INCONCLUSIVE: Status.INCONCLUSIVE, FAIL: Status.FAIL}
 
 
 def _index(flat: int, shape: tuple[int, ...]) -> tuple[int, ...]:
@@ -31,19 +35,19 @@ def _details(outcome: CoordinateOutcome, shape: tuple[int, ...]) -> tuple[Coordi
             numeric=float(outcome.numeric[k]),
             error_estimate=float(outcome.error_estimate[k]),
             rel_error=float(outcome.rel[k]),
-            status=STATUS_NAMES[int(outcome.status[k])],
+            status=STATUS_OF_CODE[int(outcome.status[k])],
             reason=outcome.reasons[k],
         )
         for k in doubtful
     )
 
 
-def status_of(failed: int, inconclusive: int, kinks: int) -> str:
+def status_of(failed: int, inconclusive: int, kinks: int) -> Status:
     if failed:
-        return "fail"
+        return Status.FAIL
     if inconclusive:
-        return "inconclusive"
-    return "kink" if kinks else "pass"
+        return Status.INCONCLUSIVE
+    return Status.KINK if kinks else Status.PASS
 
 
 def tensor_result(
@@ -110,7 +114,7 @@ def problem_result(name: str, layer: str, kind: str, tensor: np.ndarray, sentenc
     """A tensor whose gradient could not be compared at all (missing, misshaped, non-finite)."""
     return TensorResult(
         name=name, layer=layer, kind=kind, shape=tuple(tensor.shape), dtype=str(tensor.dtype),
-        checked=0, failed=0, kinks=0, status="fail", hint=sentence,
+        checked=0, failed=0, kinks=0, status=Status.FAIL, hint=sentence,
     )
 
 
@@ -118,5 +122,5 @@ def unknown_result(name: str, layer: str, shape: tuple[int, ...], sentence: str)
     """A gradient returned for a name that is neither a param nor an input."""
     return TensorResult(
         name=name, layer=layer, kind="unknown", shape=shape, dtype="unknown",
-        checked=0, failed=0, kinks=0, status="fail", hint=sentence,
+        checked=0, failed=0, kinks=0, status=Status.FAIL, hint=sentence,
     )

@@ -35,8 +35,8 @@ def _direction(d: DirectionResult) -> dict[str, Any]:
 
 
 def _detail(c: CoordinateDetail) -> dict[str, Any]:
-    return {"index": list(c.index), **{k: _num(getattr(c, k)) for k in NUMBERS}, "status": c.status,
-            "reason": c.reason}
+    return {"index": list(c.index), **{k: _num(getattr(c, k)) for k in NUMBERS},
+            "status": c.status.value, "reason": c.reason}
 
 
 def tensor_dict(t: TensorResult) -> dict[str, Any]:
@@ -58,7 +58,7 @@ def tensor_dict(t: TensorResult) -> dict[str, Any]:
         "worst_index": list(t.worst_index) if t.worst_index is not None else None,
         "bad_indices": [list(i) for i in t.bad_indices],
         "kink_indices": [list(i) for i in t.kink_indices],
-        "status": t.status,
+        "status": t.status.value,
         "hint": t.hint,
         "inconclusive_reason": t.inconclusive_reason,
         "evaluations": t.evaluations,
@@ -91,6 +91,7 @@ def report_dict(report: Report) -> dict[str, Any]:
         "seed": report.seed,
         "method": report.method,
         "compute_dtype": report.compute_dtype,
+        "inconclusive_fails": report.inconclusive_fails,
         "summary": {
             "tensors": len(report.tensors),
             "checked": report.checked,

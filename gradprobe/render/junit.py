@@ -7,6 +7,7 @@ from pathlib import PurePath
 
 from ..report import Report, TargetRun, TensorResult
 from ..target import is_file_spec, split_spec
+from ..status import Status
 from ..tensors import format_index
 from ..wording import plural, verb
 
@@ -51,14 +52,41 @@ def _own_cases(report: Report) -> list[tuple[str, TensorResult]]:
     return [(layer.name, t) for layer in report.layers for t in layer.own_tensors]
 
 
+def inconclusive_reason(t: TensorResult, threshold: float) -> str:
+    """Why a tensor is inconclusive, in one sentence."""
+    if t.inconclusive_reason or t.hint:
+        return f"{t.name}: inconclusive: {t.inconclusive_reason or t.hint}"
+    noise = f"; numeric error estimate {t.worst_noise:.3g} relative" if t.worst_noise is not None else ""
+    return (f"{t.name}: inconclusive: {t.inconclusive} of {t.checked} checked coordinates could not "
+            f"be told apart from numeric noise at threshold {threshold:g}{noise}")
+
+
+def _testcase(suite: ET.Element, report: Report, t: TensorResult, classname_: str) -> None:
+    share = report.seconds * t.evaluations / max(report.evaluations, 1)
+    case = ET.SubElement(suite, "testcase", {"name": t.name, "classname": classname_, "time": f"{share:.6f}"})
+    if t.status is Status.FAIL:
+        failure = ET.SubElement(case, "failure", {
+            "message": _failure_message(t, report.threshold), "type": "gradient mismatch"})
+        failure.text = _failure_text(t)
+    elif t.status is Status.INCONCLUSIVE and report.inconclusive_fails:
+        failure = ET.SubElement(case, "failure", {
+            "message": inconclusive_reason(t, report.threshold), "type": "inconclusive"})
+        failure.text = _failure_text(t)
+    elif t.status is Status.INCONCLUSIVE:
+        ET.SubElement(case, "skipped", {"message": inconclusive_reason(t, report.threshold)})
+
+
 def _suite(root: ET.Element, run: TargetRun, index: int, timestamp: str, hostname: str) -> None:
     report = run.report
     tensors = report.tensors if report else ()
+    blocking = report.blocking_tensors if report else ()
     own = _own_cases(report) if report else []
-    failures = sum(1 for t in tensors if t.status == "fail") + sum(1 for _, t in own if t.status == "fail")
+    own_failures = sum(1 for _, t in own if t.status is Status.FAIL)
+    skipped = sum(1 for t in tensors if t.status is Status.INCONCLUSIVE and t not in blocking)
     suite = ET.SubElement(root, "testsuite", {
         "name": run.target, "tests": str(len(tensors) + len(own) if report else 1),
-        "failures": str(failures), "errors": "0" if report else "1", "skipped": "0",
+        "failures": str(len(blocking) + own_failures), "errors": "0" if report else "1",
+        "skipped": str(skipped),
         "time": f"{report.seconds:.6f}" if report else "0", "timestamp": timestamp,
         "hostname": hostname, "id": str(index), "package": "gradprobe",
     })
@@ -69,27 +97,17 @@ def _suite(root: ET.Element, run: TargetRun, index: int, timestamp: str, hostnam
                             ("evaluations", str(report.evaluations))):
             ET.SubElement(props, "property", {"name": name, "value": value})
         for t in tensors:
-            share = report.seconds * t.evaluations / max(report.evaluations, 1)
-            case = ET.SubElement(suite, "testcase", {
-                "name": t.name, "classname": classname(run.target, t.layer), "time": f"{share:.6f}"})
-            if t.status == "fail":
-                failure = ET.SubElement(case, "failure", {
-                    "message": _failure_message(t, report.threshold), "type": "gradient mismatch"})
-                failure.text = _failure_text(t)
+            _testcase(suite, report, t, classname(run.target, t.layer))
         for layer, t in own:  # a stack layer's backward checked on its own
-            case = ET.SubElement(suite, "testcase", {
-                "name": t.name, "classname": f"{run.target}.{layer} on its own", "time": "0"})
-            if t.status == "fail":
-                failure = ET.SubElement(case, "failure", {
-                    "message": _failure_message(t, report.threshold), "type": "gradient mismatch"})
-                failure.text = _failure_text(t)
+            _testcase(suite, report, t, classname(run.target, f"{layer}.own"))
     else:
         case = ET.SubElement(suite, "testcase", {"name": "load and run", "classname": classname(run.target), "time": "0"})
         error = ET.SubElement(case, "error", {"message": run.error or "", "type": "check could not run"})
         error.text = run.error or ""
     out = ET.SubElement(suite, "system-out")
     if report:
-        notes = [f"{t.name}: {t.status}" for t in tensors if t.status in ("kink", "inconclusive")]
+        notes = [f"{t.name}: {t.status.value}" for t in tensors
+                 if t.status in (Status.KINK, Status.INCONCLUSIVE)]
         out.text = "\n".join(notes + list(report.notes)) or None
     ET.SubElement(suite, "system-err")
 
@@ -97,7 +115,7 @@ def _suite(root: ET.Element, run: TargetRun, index: int, timestamp: str, hostnam
 def render_junit(runs: list[TargetRun], timestamp: str, hostname: str) -> str:
     """The JUnit XML document for ``runs`` (``timestamp`` ISO 8601, without a time zone)."""
     root = ET.Element("testsuites", {"name": "gradprobe"})
-    tests = failures = errors = 0
+    tests = failures = errors = skipped = 0
     seconds = 0.0
     for index, run in enumerate(runs):
         _suite(root, run, index, timestamp, hostname)
@@ -105,10 +123,12 @@ def render_junit(runs: list[TargetRun], timestamp: str, hostname: str) -> str:
         tests += int(suite.get("tests", "0"))
         failures += int(suite.get("failures", "0"))
         errors += int(suite.get("errors", "0"))
+        skipped += int(suite.get("skipped", "0"))
         seconds += float(suite.get("time", "0"))
     root.set("tests", str(tests))
     root.set("failures", str(failures))
     root.set("errors", str(errors))
+    root.set("skipped", str(skipped))
     root.set("time", f"{seconds:.6f}")
     ET.indent(root)
     return '<?xml version="1.0" encoding="UTF-8"?>\n' + ET.tostring(root, encoding="unicode") + "\n"

@@ -50,13 +50,17 @@ def verdict(report: Report, width: int | None = None) -> str:
     """One line: the outcome, what is wrong and, when it fits ``width``, what it cost."""
     n = len(report.tensors)
     cost = f"{plural(report.evaluations, 'evaluation')} in {report.seconds:.2f} s"
-    if not report.ok and not report.failing_tensors:  # a stack layer wrong on its own only
+    if not report.ok and not report.blocking_tensors:  # a stack layer wrong on its own only
         line = f"FAIL  the own backward of {', '.join(report.error_enters_at or ())} is wrong"
         return line if width is not None and len(line + SEP + cost) > width else line + SEP + cost
     if not report.ok:
-        bad = report.failing_tensors
-        head = (f"FAIL  {len(bad)} of {plural(n, 'tensor')} {verb(len(bad), 'disagrees', 'disagree')} "
-                f"beyond {report.threshold:g}: ")
+        bad = report.blocking_tensors
+        failing = len(report.failing_tensors)
+        parts = ([f"{failing} of {plural(n, 'tensor')} {verb(failing, 'disagrees', 'disagree')} "
+                  f"beyond {report.threshold:g}"] if failing else [])
+        if len(bad) > failing:
+            parts.append(f"{len(bad) - failing} of {n} inconclusive (set to fail the run)")
+        head = "FAIL  " + "; ".join(parts) + ": "
         full = head + _names(bad, None) + SEP + cost
         if width is None or len(full) <= width:
             return full

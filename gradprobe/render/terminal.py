@@ -24,6 +24,7 @@ from ..wording import plural
 from .columns import Column, Layout, fit
 from .heatmap import maps
 from .lines import header, verdict
+from .text import fmt, shape_text
 
 __all__ = ["COLOUR", "PLAIN", "header", "verdict", "renderables", "render_text", "run_summary"]
 
@@ -64,12 +65,6 @@ OUTCOME_MIN = 16  # the run summary's outcome column, which wraps the sentence o
 HINT_AFTER = 0  # columns given up to keep hints in the table (beyond it they go below)
 
 
-def fmt(value: float | None) -> str:
-    return "-" if value is None else f"{value:.1e}"
-
-
-def shape_text(shape: tuple[int, ...]) -> str:
-    return "x".join(str(n) for n in shape) if shape else "scalar"
 
 
 def _cells(t: TensorResult) -> dict[str, str]:
@@ -84,7 +79,7 @@ def _cells(t: TensorResult) -> dict[str, str]:
         "name": "  " + t.name, "shape": shape_text(t.shape), "checked": checked, "rel": worst,
         "noise": fmt(t.worst_noise), "abs": fmt(t.max_abs_error),
         "at": format_index(t.worst_index) if t.worst_index is not None else "-",
-        "status": t.status, "hint": t.hint or t.inconclusive_reason or "",
+        "status": t.status.value, "hint": t.hint or t.inconclusive_reason or "",
     }
 
 
@@ -136,7 +131,7 @@ def table(report: Report, theme: Theme, width: int = 120) -> tuple[RenderableTyp
         grid.add_row(Text(layer.name, style=theme.style("layer")), *[""] * (len(chosen.columns) - 1))
         for t in layer.tensors:
             row = next(cells)
-            grid.add_row(*[Text(row[c.key], style=theme.style(t.status)) if c.key == "status"
+            grid.add_row(*[Text(row[c.key], style=theme.style(t.status.value)) if c.key == "status"
                            else row[c.key] for c in chosen.columns])
             said = t.hint or t.inconclusive_reason
             if said and not chosen.hints_inline:
