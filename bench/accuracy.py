@@ -14,9 +14,9 @@ from pathlib import Path
 import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parent))
-from scale_targets import Network  # noqa: E402
+from scale_targets import Network
 
-from gradprobe import probe  # noqa: E402
+from gradprobe import probe
 
 
 def tanh_net(batch, seed, mean=True):

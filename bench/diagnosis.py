@@ -14,11 +14,11 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "tests"))
 
-from bugzoo import CASES, Tally  # noqa: E402
-from bugzoo_decoys import DECOY_CASES  # noqa: E402
-from bugzoo_reuse import REUSE_CASES  # noqa: E402
+from bugzoo import CASES, Tally
+from bugzoo_decoys import DECOY_CASES
+from bugzoo_reuse import REUSE_CASES
 
-from gradprobe import probe  # noqa: E402
+from gradprobe import probe
 
 
 def main(verbose: bool = False) -> None:

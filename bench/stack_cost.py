@@ -19,11 +19,11 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "samples"))
 
-from shop_demand_stack import layers, setup  # noqa: E402
+from shop_demand_stack import layers, setup
 
-from gradprobe.engine.runner import run_check  # noqa: E402
-from gradprobe.stack import end_to_end, stack  # noqa: E402
-from gradprobe.stack_check import run_stack  # noqa: E402
+from gradprobe.engine.runner import run_check
+from gradprobe.stack import end_to_end, stack
+from gradprobe.stack_check import run_stack
 
 REPEATS = 7
 

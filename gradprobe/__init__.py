@@ -11,7 +11,14 @@ from typing import TYPE_CHECKING, Any
 
 if TYPE_CHECKING:
     from .adapters import layer_target
-    from .api import probe, probe_stack, probe_target, raise_if_failed, render_text, report_dict
+    from .api import (
+        probe,
+        probe_stack,
+        probe_target,
+        raise_if_failed,
+        render_text,
+        report_dict,
+    )
     from .errors import (
         BadOutputError,
         ComplexStepError,
@@ -86,6 +93,7 @@ __all__ = [
     "__version__",
     "layer_target",
     "probe",
+    "probe_stack",
     "probe_target",
     "raise_if_failed",
     "render_text",

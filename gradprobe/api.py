@@ -9,7 +9,8 @@ report's outputs as free functions (the report model does not know its renderers
 
 from __future__ import annotations
 
-from typing import TYPE_CHECKING, Any, Callable, Mapping
+from collections.abc import Callable, Mapping
+from typing import TYPE_CHECKING, Any
 
 from .engine.runner import run_check
 from .options import CheckOptions

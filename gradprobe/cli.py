@@ -12,9 +12,10 @@ import contextlib
 import os
 import sys
 import traceback
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
-from typing import TYPE_CHECKING, Any, Callable
+from typing import TYPE_CHECKING, Any
 
 import click
 from click.core import ParameterSource
@@ -73,7 +74,7 @@ class Output:
         return self.files.json != "-"
 
 
-def _console(stderr: bool = False) -> "Console":
+def _console(stderr: bool = False) -> Console:
     from rich.console import Console
 
     from .render.terminal import plain_console

@@ -26,7 +26,7 @@ class ProbeError(Exception):
         self.target = target
         self.value = value
 
-    def with_target(self, target: str) -> "ProbeError":
+    def with_target(self, target: str) -> ProbeError:
         """Return this error naming ``target`` (set once; later calls keep the first)."""
         if self.target is None:
             self.target = target

@@ -2,9 +2,10 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable, Mapping
 from pathlib import Path
 from types import TracebackType
-from typing import Any, Callable, Mapping
+from typing import Any
 
 from .report import Report
 

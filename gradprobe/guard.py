@@ -9,8 +9,9 @@ instead, and both become a :class:`~gradprobe.errors.ProcessExitError` with one 
 from __future__ import annotations
 
 import os
+from collections.abc import Iterator
 from contextlib import contextmanager
-from typing import Any, Iterator, NoReturn
+from typing import Any, NoReturn
 
 from .errors import ProcessExitError
 

@@ -101,7 +101,7 @@ class CheckOptions:
         if self.jobs < 1:
             raise UsageProblem(f"jobs must be 1 or more, not {self.jobs}", value=self.jobs)
 
-    def with_values(self, **values: Any) -> "CheckOptions":
+    def with_values(self, **values: Any) -> CheckOptions:
         """A copy with the given settings replaced; unknown names are a UsageProblem."""
         known = [s.name for s in SETTINGS if s.owner is CheckOptions]
         unknown = sorted(set(values) - set(known))

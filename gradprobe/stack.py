@@ -15,7 +15,13 @@ from typing import Any
 
 import numpy as np
 
-from .errors import BadOutputError, ProbeError, TargetLoadError, UserCodeError, summarise
+from .errors import (
+    BadOutputError,
+    ProbeError,
+    TargetLoadError,
+    UserCodeError,
+    summarise,
+)
 from .guard import guarded
 from .target import Target, _arrays, _get, resolve_object, target_from_object
 

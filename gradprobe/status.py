@@ -29,6 +29,6 @@ class Status(str, Enum):
 ORDER = (Status.PASS, Status.KINK, Status.INCONCLUSIVE, Status.FAIL)
 
 
-def worst(statuses: "list[Status] | tuple[Status, ...]") -> Status:
+def worst(statuses: list[Status] | tuple[Status, ...]) -> Status:
     """The worst of ``statuses`` (pass when there are none)."""
     return max(statuses, key=lambda s: s.rank, default=Status.PASS)

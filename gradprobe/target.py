@@ -13,10 +13,10 @@ import os
 import sys
 import types
 import zlib
-from collections.abc import Mapping
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any
 
 from .errors import ProbeError, TargetLoadError, summarise
 from .guard import ExitAttempt, exit_error, guarded

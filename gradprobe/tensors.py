@@ -6,8 +6,8 @@ copies, gives forward/backward read-only views of them, and perturbs the copies 
 
 from __future__ import annotations
 
-from collections.abc import Mapping
-from typing import Any, Iterator
+from collections.abc import Iterator, Mapping
+from typing import Any
 
 import numpy as np
 

@@ -7,7 +7,6 @@ ReLU outputs: an easy slip when a layer caches both. Only `out.W` is wrong.
 """
 
 import numpy as np
-
 from crop_yield import _layers, forward, setup  # noqa: F401  (setup and forward are reused)
 
 

@@ -3,8 +3,8 @@
 from __future__ import annotations
 
 import textwrap
+from collections.abc import Callable
 from pathlib import Path
-from typing import Callable
 
 import pytest
 from click.testing import CliRunner

@@ -12,11 +12,11 @@ import itertools
 import mpmath
 import numpy as np
 import pytest
+from probe_kit import make_probe
 
 from gradprobe.engine.coordinates import check_coordinates
 from gradprobe.engine.refine import climb
 from gradprobe.engine.status import FAIL, PASS
-from probe_kit import make_probe
 
 mpmath.mp.dps = 50
 

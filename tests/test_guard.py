@@ -13,9 +13,8 @@ from gradprobe.guard import guarded
 
 def test_os_exit_is_restored_after_the_guard():
     real = os._exit
-    with pytest.raises(ProcessExitError):
-        with guarded("forward"):
-            os._exit(4)
+    with pytest.raises(ProcessExitError), guarded("forward"):
+        os._exit(4)
     assert os._exit is real
 
 
@@ -29,9 +28,8 @@ def test_nested_guards_restore_only_at_the_outermost():
 
 
 def test_sys_exit_without_a_code():
-    with pytest.raises(ProcessExitError) as info:
-        with guarded("backward"):
-            sys.exit()
+    with pytest.raises(ProcessExitError) as info, guarded("backward"):
+        sys.exit()
     assert str(info.value) == (
         "backward called sys.exit(), so the check did not finish (a target must return, "
         "not end the process).")

@@ -9,11 +9,18 @@ from html.parser import HTMLParser
 
 import numpy as np
 import pytest
+from html_pages import FAILING, targets
 
 from gradprobe.render.html import render_html
-from gradprobe.render.svgmap import LEVELS, MAX_COLS, MAX_ROWS, WITHIN, levels, tensor_svg
+from gradprobe.render.svgmap import (
+    LEVELS,
+    MAX_COLS,
+    MAX_ROWS,
+    WITHIN,
+    levels,
+    tensor_svg,
+)
 from gradprobe.report import LayerResult, Report, TargetRun, TensorResult
-from html_pages import FAILING, targets
 
 
 class Tags(HTMLParser):

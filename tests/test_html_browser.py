@@ -17,9 +17,9 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from html_pages import FAILING, targets
 
 from gradprobe.render.svgmap import LEVELS
-from html_pages import FAILING, targets
 
 FLAGS = ["--headless", "--no-sandbox", "--disable-gpu", "--disable-quic", "--no-first-run",
          "--disable-background-networking", "--disable-component-update", "--disable-sync"]
@@ -111,7 +111,7 @@ def test_chromium_renders_a_map_for_every_failing_tensor(run_cli, write_target, 
     page = (tmp_path / "run.html").as_uri()
 
     dom = chromium(tmp_path, "--dump-dom", page).stdout.decode()
-    figures = re.findall(r'<figure class="gp-figure" id="[^"]+" data-tensor="([^"]+)">(.*?)</figure>', dom, re.S)
+    figures = re.findall(r'<figure class="gp-figure" id="[^"]+" data-tensor="([^"]+)">(.*?)</figure>', dom, re.DOTALL)
     assert {name for name, _ in figures} == FAILING and len(figures) == len(FAILING)
     for _, body in figures:
         assert "<svg" in body and "<path" in body

@@ -143,7 +143,7 @@ def test_raises(grad_probe):
 
 def test_the_readme_example_runs_and_is_under_ten_lines(pytester: pytest.Pytester):
     text = README.read_text()
-    example = re.search(r"<!-- pytest-example -->\s*```python\n(.*?)```", text, re.S).group(1)
+    example = re.search(r"<!-- pytest-example -->\s*```python\n(.*?)```", text, re.DOTALL).group(1)
     assert len([line for line in example.splitlines() if line.strip()]) < 10
     pytester.makepyfile(test_readme=example)
     _run(pytester).assert_outcomes(passed=1)

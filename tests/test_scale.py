@@ -12,7 +12,7 @@ import numpy as np
 import pytest
 from conftest import SAMPLES
 
-from gradprobe import probe, probe_target
+from gradprobe import probe, probe_target, render_text
 from gradprobe.engine.sampling import stratified, tensor_rng
 from gradprobe.render.json import report_dict
 

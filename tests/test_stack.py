@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 from stack_layers import Dense, Relu, SoftmaxLoss, SquaredLoss, Tanh, arrays
 
-from gradprobe import report_dict, probe, probe_stack
+from gradprobe import probe, probe_stack, report_dict
 from gradprobe.errors import BadOutputError, TargetLoadError, UserCodeError
 from gradprobe.stack import stack
 from gradprobe.stack_split import base_activations, layer_targets

@@ -17,7 +17,7 @@ import numpy as np
 from ..errors import BadOutputError, ComplexStepError, UserCodeError
 from .ladder import Estimate
 from .probe import Pairs, TensorProbe
-from .promote import FLOAT32_AGREEMENT, disagreeing
+from .promote import disagreeing
 from .refine import RATIO, ROWS, climb
 from .status import FAIL, INCONCLUSIVE, PASS
 from .verdict import Judged, judge_ladder, judge_plain
@@ -260,4 +260,4 @@ def _pick(p: Pairs, which: np.ndarray) -> Pairs:
     return Pairs(p.f_plus[which], p.f_minus[which], p.h_plus[which], p.h_minus[which], p.noise[which])
 
 
-__all__ = ["CoordinateOutcome", "check_coordinates", "FAIL", "INCONCLUSIVE", "PASS"]
+__all__ = ["FAIL", "INCONCLUSIVE", "PASS", "CoordinateOutcome", "check_coordinates"]

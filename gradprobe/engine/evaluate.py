@@ -9,8 +9,9 @@ scalar, or ``sum(grad_output * forward(...))`` when the forward returns an array
 from __future__ import annotations
 
 import math
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
-from typing import Any, Callable, Protocol, Sequence
+from typing import Any, Protocol
 
 import numpy as np
 

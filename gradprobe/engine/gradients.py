@@ -65,8 +65,8 @@ def validate(result: Any, ws: Workspace) -> Gradients:
             out.notes.append(f"the gradient returned for {name} is ignored: its dtype is {tensor.dtype}")
             continue
         grad, problem = _problem(name, value, tensor)
-        if problem:
-            out.problems[name] = problem
+        if problem or grad is None:
+            out.problems[name] = problem or f"the gradient for {name} is not usable"
         else:
             out.values[name] = grad
     for name in ws.param_names:

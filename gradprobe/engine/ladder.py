@@ -27,11 +27,11 @@ class Estimate:
     value: np.ndarray
     error: np.ndarray
 
-    def pick(self, which: np.ndarray) -> "Estimate":
+    def pick(self, which: np.ndarray) -> Estimate:
         return Estimate(self.value[which], self.error[which])
 
     @staticmethod
-    def better(first: "Estimate", second: "Estimate") -> "Estimate":
+    def better(first: Estimate, second: Estimate) -> Estimate:
         """Per coordinate, the estimate with the smaller error bound."""
         take = second.error < first.error
         return Estimate(np.where(take, second.value, first.value),
@@ -73,6 +73,7 @@ def tableau(quotients: np.ndarray, noise: np.ndarray, ratio: float, order_step: 
     error = np.full(n, np.inf)
     prev_t: list[np.ndarray] = []
     prev_n: list[np.ndarray] = []
+    before_t0 = quotients[0]  # the first quotient two rows up
     with np.errstate(invalid="ignore", over="ignore"):
         for k in range(rows):
             cur_t = [quotients[k]]
@@ -101,7 +102,8 @@ def tableau(quotients: np.ndarray, noise: np.ndarray, ratio: float, order_step: 
                 error = np.where(take, bound, error)
                 cur_t.append(value)
                 cur_n.append(carried)
-            before_t0 = prev_t[0] if prev_t else cur_t[0]
+            if prev_t:
+                before_t0 = prev_t[0]
             prev_t, prev_n = cur_t, cur_n
     error = np.where(np.isfinite(error), error, np.inf)
     return Estimate(best, error)

@@ -20,7 +20,8 @@ from __future__ import annotations
 import os
 import pickle
 import signal
-from typing import TYPE_CHECKING, Any, Callable, Sequence, cast
+from collections.abc import Callable, Sequence
+from typing import TYPE_CHECKING, Any, cast
 
 import numpy as np
 

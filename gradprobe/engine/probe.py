@@ -27,7 +27,7 @@ TARGET_FLOOR_FRACTION = 1e-4  # ... nor below 1e-4 of the target's largest tenso
 SHRINKS = 6  # a step that meets a non-finite loss shrinks 16-fold, this many times at most
 
 
-def _fields(p: "Pairs") -> tuple[np.ndarray, ...]:
+def _fields(p: Pairs) -> tuple[np.ndarray, ...]:
     return (p.f_plus, p.f_minus, p.h_plus, p.h_minus, p.noise)
 
 
@@ -67,7 +67,7 @@ class TensorProbe:
         threshold: float,
         target_scale: float = 0.0,
         loss_scale: float | None = None,
-        float32: "TensorProbe | None" = None,
+        float32: TensorProbe | None = None,
     ) -> None:
         self.evaluator = evaluator
         self.tensor = tensor

@@ -14,9 +14,9 @@ taken only in float32).
 
 from __future__ import annotations
 
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
-from collections.abc import Mapping
-from typing import Any, Callable
+from typing import Any
 
 import numpy as np
 

@@ -33,7 +33,7 @@ class Ladder:
     smallest: np.ndarray  # the smallest step of the ladder
     evaluations: int
 
-    def pick(self, which: np.ndarray) -> "Ladder":
+    def pick(self, which: np.ndarray) -> Ladder:
         return Ladder(self.central.pick(which), self.left.pick(which), self.right.pick(which),
                       self.noise_share[which], self.smallest[which], self.evaluations)
 

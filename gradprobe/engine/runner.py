@@ -3,13 +3,13 @@
 from __future__ import annotations
 
 import time
+from collections.abc import Callable
 from dataclasses import dataclass, replace
-from typing import TYPE_CHECKING, Any, Callable
+from typing import TYPE_CHECKING
 
 import numpy as np
 
-from ..diagnose import HintContext
-from ..diagnose import Evidence, diagnose
+from ..diagnose import Evidence, HintContext, diagnose
 from ..errors import ProbeError, TargetLoadError
 from ..guard import guarded
 from ..heap import keep_heap, release_heap
@@ -19,8 +19,8 @@ from ..target import Target
 from ..tensors import INPUT_LAYER, Workspace, is_float, layer_of
 from .evaluate import Backend, Evaluator, LossFunction, Progress
 from .gradients import Gradients, validate
-from .preflight import ForwardInfo, call_backward, inspect_forward
 from .noise import measured_loss_scale
+from .preflight import ForwardInfo, call_backward, inspect_forward
 from .probe import ROUNDING_UNITS, TensorProbe
 from .promote import FLOAT32_AGREEMENT, promote
 from .sampling import tensor_rng
@@ -157,7 +157,9 @@ def _numerics(target: Target, ws: Workspace, evaluator: Evaluator, info: Forward
     """The code's compute type (3 calls to look for hidden float32), and float64 numerics
     for float32 code that accepts float64 (1 forward and 1 backward call)."""
     dtype, why = _compute_type(info.out_dtype, ws)
-    from .precision import narrower_compute_type  # local: keeps the import graph acyclic
+    from .precision import (
+        narrower_compute_type,  # local: keeps the import graph acyclic
+    )
 
     hidden = narrower_compute_type(evaluator, ws, info.f0, dtype)
     if hidden is not None:
@@ -198,8 +200,8 @@ def _check_all(
         threshold = options.threshold or default_threshold(compute_dtype)
         if compute_dtype != np.float64:
             notes.append(_threshold_note(compute_dtype, numerics.why))
-    analytic = {n: numerics.analytic.get(n, g.reshape(-1)) for n, g in grads.values.items()}
-    loss_scale = measured_loss_scale(evaluator, numerics.workspace, analytic, numerics.f0,
+    gradients = {n: numerics.analytic.get(n, g.reshape(-1)) for n, g in grads.values.items()}
+    loss_scale = measured_loss_scale(evaluator, numerics.workspace, gradients, numerics.f0,
                                      ROUNDING_UNITS, tensor_rng(options.seed, "", "noise"))
     total = sum(ws.owners[n].size for n in grads.values)
     target_scale = max((float(np.sqrt(np.mean(g**2))) for g in grads.values.values() if g.size), default=0.0)
@@ -211,9 +213,8 @@ def _check_all(
             results.append(problem_result(name, layer, ws.kind(name), ws.owners[name], grads.problems[name]))
         elif name in grads.values:
             owner = ws.owners[name]
-            analytic = numerics.analytic.get(name, grads.values[name].reshape(-1))
             probe = TensorProbe(evaluator, name, numerics.workspace.owners[name].reshape(-1),
-                                analytic, numerics.f0, numerics.dtype, threshold, target_scale,
+                                gradients[name], numerics.f0, numerics.dtype, threshold, target_scale,
                                 loss_scale=loss_scale,
                                 float32=_float32_probe(evaluator, numerics, ws, name, grads))
             result, found, outcome = check_tensor(probe, options, total, owner.shape,

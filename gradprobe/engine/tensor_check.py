@@ -10,6 +10,7 @@ import numpy as np
 from ..diagnose import Evidence
 from ..options import CheckOptions
 from ..report import DirectionResult
+from ..status import Status
 from .coordinates import CoordinateOutcome, check_coordinates
 from .directions import DirectionCheck, check_direction, unit_direction
 from .locate import locate
@@ -68,7 +69,8 @@ def _directions(
     """``count`` directional checks; a direction hidden by kinks is replaced (twice at most)."""
     rng = tensor_rng(seed, probe.tensor, "directions")
     everything = np.arange(probe.size, dtype=np.int64)
-    checks, units = [], []
+    checks: list[DirectionCheck] = []
+    units: list[np.ndarray | None] = []
     budget = count * (1 + EXTRA_DIRECTIONS)
     while len([c for c in checks if not c.kink]) < count and len(checks) < budget:
         u = unit_direction(probe.size, rng)
@@ -80,7 +82,7 @@ def _directions(
 def check_tensor(
     probe: TensorProbe, options: CheckOptions, total: int, shape: tuple[int, ...],
     layer: str, kind: str, dtype: np.dtype,
-) -> tuple["TensorResult", Evidence, CoordinateOutcome]:
+) -> tuple[TensorResult, Evidence, CoordinateOutcome]:
     """The tensor's result (without a hint), the evidence hints are drawn from, and the
     coordinate outcome."""
     ev = probe.evaluator
@@ -107,8 +109,8 @@ def check_tensor(
     result = tensor_result(probe.tensor, layer, kind, shape, dtype, outcome,
                            directions=directions, located_evaluations=located,
                            evaluations=ev.count - start)
-    if unconfirmed and result.status in ("pass", "kink"):
-        result = replace(result, status="inconclusive", inconclusive_reason=UNCONFIRMED)
+    if unconfirmed and result.status in (Status.PASS, Status.KINK):
+        result = replace(result, status=Status.INCONCLUSIVE, inconclusive_reason=UNCONFIRMED)
     evidence = Evidence(probe.tensor, tuple(shape), outcome.flat, outcome.analytic,
                         outcome.numeric, outcome.status == FAIL)
     return result, evidence, outcome

@@ -42,7 +42,7 @@ class Judged:
     reasons: tuple[str | None, ...]
     noise_limited: np.ndarray
 
-    def merged(self, which: np.ndarray, other: "Judged") -> "Judged":
+    def merged(self, which: np.ndarray, other: Judged) -> Judged:
         """These verdicts with positions ``which`` replaced by ``other``'s."""
         status = self.status.copy()
         value = self.estimate.value.copy()

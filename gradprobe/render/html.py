@@ -9,8 +9,8 @@ and returns the page as a string; the CLI only writes it.
 from __future__ import annotations
 
 import shlex
+from collections.abc import Iterable, Sequence
 from html import escape
-from typing import Iterable, Sequence
 
 from ..report import LayerResult, Report, TargetRun, TensorResult
 from ..tensors import format_index

@@ -6,8 +6,8 @@ import xml.etree.ElementTree as ET
 from pathlib import PurePath
 
 from ..report import Report, TargetRun, TensorResult
-from ..target import is_file_spec, split_spec
 from ..status import Status
+from ..target import is_file_spec, split_spec
 from ..tensors import format_index
 from ..wording import plural, verb
 

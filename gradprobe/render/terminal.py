@@ -10,8 +10,9 @@ from __future__ import annotations
 
 import io
 import textwrap
+from collections.abc import Iterable
 from dataclasses import dataclass
-from typing import IO, Iterable
+from typing import IO
 
 from rich import box
 from rich.console import Console, ConsoleOptions, RenderableType, RenderResult
@@ -26,7 +27,7 @@ from .heatmap import maps
 from .lines import header, verdict
 from .text import fmt, shape_text
 
-__all__ = ["COLOUR", "PLAIN", "header", "verdict", "renderables", "render_text", "run_summary"]
+__all__ = ["COLOUR", "PLAIN", "header", "render_text", "renderables", "run_summary", "verdict"]
 
 
 @dataclass(frozen=True)
