@@ -53,10 +53,10 @@ def unit_direction(size: int, rng: np.random.Generator) -> np.ndarray:
 
 
 def _ladder(
-    probe: TensorProbe, part: np.ndarray, u: np.ndarray, t0: float, rows: int
+    probe: TensorProbe, part: slice, u: np.ndarray, t0: float, rows: int
 ) -> tuple[Estimate, Estimate, Estimate, float]:
     steps = t0 / RATIO ** np.arange(rows)
-    values, predicted = probe.along(part, [s * sign * u for s in steps for sign in (1.0, -1.0)])
+    values, predicted = probe.along(part, u, np.stack([steps, -steps], axis=1).reshape(-1))
     f_plus, f_minus = values[0::2], values[1::2]
     p_plus, p_minus = predicted[0::2], predicted[1::2]
     right = (f_plus - probe.f0 - p_plus) / steps
@@ -68,16 +68,17 @@ def _ladder(
             tableau(right[:, None], one_sided, RATIO, 1), float(noise.max() / steps[-1]))
 
 
-def first_step(probe: TensorProbe, part: np.ndarray) -> float:
+def first_step(probe: TensorProbe, part: slice) -> float:
     x = probe.x[part].astype(np.float64)
     rms = float(np.sqrt(np.mean(x**2))) if x.size else 0.0
     return FIRST_STEP * probe.eps ** (1.0 / 3.0) * max(1.0, rms)
 
 
 def check_direction(
-    probe: TensorProbe, part: np.ndarray, u: np.ndarray, rows: int = ROWS, enough: float = 0.0
+    probe: TensorProbe, part: slice, u: np.ndarray, rows: int = ROWS, enough: float = 0.0
 ) -> DirectionCheck:
-    """The discrepancy along ``u`` over coordinates ``part`` of the probed tensor, from a
+    """The discrepancy along ``u`` over the contiguous flat range ``part`` of the probed
+    tensor (a slice: views, not copies, of its values and gradient), from a
     ladder of ``rows`` steps; larger steps are tried where rounding noise dominates the
     bound and the bound is above ``enough``."""
     before = probe.evaluator.count

@@ -181,6 +181,13 @@ class LossFunction:
                 return self._call(self.workspace.params_tree, self.workspace.inputs_tree, p)
             finally:
                 owner.flat[k] = old
+        if isinstance(p.index, slice) and p.index.start == 0 and p.index.stop == owner.size:
+            # The whole tensor moves: hand forward a read-only view of the new values in its
+            # place (no copy of the old values, nothing to restore).
+            view = p.values.reshape(owner.shape).view()
+            view.flags.writeable = False
+            params, inputs = self.workspace.trees_with({p.tensor: view})
+            return self._call(params, inputs, p)
         target = owner.reshape(-1) if owner.flags.c_contiguous else owner.flat
         saved = target[p.index].copy()
         target[p.index] = p.values

@@ -46,7 +46,7 @@ def locate(probe: TensorProbe, u: np.ndarray, discrepancy: float, error: float) 
             complete = False
             break
         mid = (lo + hi) // 2
-        part = np.arange(lo, mid, dtype=np.int64)
+        part = slice(lo, mid)
         check = check_direction(probe, part, u[lo:mid], rows=HALF_ROWS,
                                 enough=abs(y) / (4 * SIGNIFICANCE))
         y1, e1 = check.discrepancy, check.error

@@ -2,9 +2,10 @@
 
 A loss can be small while the terms it is computed from are large (a squared error of a
 good fit over large values, a sum of signed terms): its rounding is then far above
-eps |f|. Moving every float param by a few units in the last place, in random directions,
-changes the loss by the analytic prediction a . d (bounded by sum |a_i d_i|) plus rounding;
-what exceeds the prediction's bound is rounding, seen directly. Three calls per target.
+eps |f|. Moving some params of every tensor (64 at most, chosen at random) by a few units in
+their last place, in random directions, changes the loss by the analytic prediction a . d
+(bounded by sum |a_i d_i|) plus rounding; what exceeds the prediction's bound is rounding,
+seen directly. Three calls per target, memory independent of the tensors' sizes.
 """
 
 from __future__ import annotations
@@ -16,7 +17,8 @@ from ..tensors import Workspace
 from .evaluate import Evaluator
 
 CALLS = 3
-ULPS = 4.0  # each param moves by this many units of its own last place
+ULPS = 4.0  # each moved param moves by this many units of its own last place
+PER_TENSOR = 64  # params moved per tensor: enough to change how the loss rounds
 MARGIN = 4.0  # the noise taken is this many times the largest residual seen
 
 
@@ -29,19 +31,20 @@ def measured_loss_scale(
     if not names:
         return 0.0
     eps = float(np.finfo(np.float64).eps)
-    saved = {n: ws.owners[n].copy() for n in names}
+    picked = {n: rng.choice(ws.owners[n].size, size=min(PER_TENSOR, ws.owners[n].size),
+                            replace=False) for n in names}
+    saved = {n: ws.owners[n].flat[picked[n]].copy() for n in names}
     residual = 0.0
     try:
         for _ in range(CALLS):
             bound = 0.0
             for n in names:
                 x = saved[n]
-                step = ULPS * np.spacing(np.abs(x).astype(x.dtype)).astype(np.float64)
-                signs = rng.choice([-1.0, 1.0], size=x.shape)
-                moved = (x + (signs * step).astype(x.dtype)).astype(x.dtype)
-                ws.owners[n][...] = moved
+                step = ULPS * np.spacing(np.abs(x)) * rng.choice([-1.0, 1.0], size=x.shape)
+                moved = (x + step.astype(x.dtype)).astype(x.dtype)
+                ws.owners[n].flat[picked[n]] = moved
                 d = moved.astype(np.float64) - x.astype(np.float64)
-                bound += float(np.sum(np.abs(analytic[n].reshape(x.shape) * d)))
+                bound += float(np.sum(np.abs(analytic[n][picked[n]] * d)))
             try:
                 change = abs(evaluator.base() - f0)
             except (UserCodeError, BadOutputError):
@@ -50,5 +53,5 @@ def measured_loss_scale(
             residual = max(residual, change - 2.0 * bound)
     finally:
         for n in names:
-            ws.owners[n][...] = saved[n]
+            ws.owners[n].flat[picked[n]] = saved[n]
     return MARGIN * max(residual, 0.0) / (rounding_units * eps)

@@ -35,7 +35,7 @@ def as_seen(values: np.ndarray, compute_dtype: np.dtype) -> np.ndarray:
     """The values as the forward sees them: rounded to the compute type when it is narrower."""
     if np.finfo(compute_dtype).eps > np.finfo(values.dtype).eps:
         values = values.astype(compute_dtype)
-    return values.astype(np.float64)
+    return values.astype(np.float64, copy=False)
 
 
 @dataclass(frozen=True)
@@ -182,20 +182,33 @@ class TensorProbe:
         ]
         return self.evaluator.losses(requests)
 
-    def along(self, part: np.ndarray, steps: list[np.ndarray]) -> tuple[np.ndarray, np.ndarray]:
-        """The loss with ``x[part] + s`` for each step vector ``s`` (one call each), and the
-        analytic change ``a[part] . d`` for the moves ``d`` the forward really saw."""
+    def along(self, part: slice, u: np.ndarray, scales: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """The loss with ``x[part] + c u`` for each scale ``c`` (one call each), and the
+        analytic change ``a[part] . d`` for the moves ``d`` the forward really saw.
+
+        Serially one moved copy exists at a time, in reused buffers; a backend gets the whole
+        batch at once."""
         x = self.x[part]
-        base = as_seen(x, self.compute_dtype)
-        # Serially, two moved copies at a time; a backend gets the whole batch at once.
-        chunk = len(steps) if self.evaluator.backend is not None else 2
-        values, predicted = [], []
-        for start in range(0, len(steps), chunk):
-            requests = []
-            for s in steps[start : start + chunk]:
-                moved = (x + s).astype(x.dtype)
-                predicted.append(float(self.a[part] @ (as_seen(moved, self.compute_dtype) - base)))
-                requests.append(Perturbation(self.tensor, part, moved))
+        a = self.a[part]
+        coarser = np.finfo(self.compute_dtype).eps > np.finfo(x.dtype).eps
+        base = as_seen(x, self.compute_dtype) if coarser else x
+        serial = self.evaluator.backend is None
+        diff = np.empty(x.shape, dtype=np.float64)
+        point = np.empty_like(x)
+        values, requests, predicted = [], [], []
+        for c in scales:
+            if not serial:
+                point = np.empty_like(x)
+            np.multiply(u, c, out=diff)
+            diff += x
+            point[...] = diff
+            seen = as_seen(point, self.compute_dtype) if coarser else point
+            np.subtract(seen, base, out=diff)
+            predicted.append(float(a @ diff))
+            requests.append(Perturbation(self.tensor, part, point))
+            if serial:
+                values.append(self.evaluator.losses(requests).real)
+                requests = []
+        if requests:
             values.append(self.evaluator.losses(requests).real)
-            del requests
         return np.concatenate(values), np.array(predicted)

@@ -68,7 +68,7 @@ def _directions(
 ) -> tuple[list[DirectionCheck], list[np.ndarray | None]]:
     """``count`` directional checks; a direction hidden by kinks is replaced (twice at most)."""
     rng = tensor_rng(seed, probe.tensor, "directions")
-    everything = np.arange(probe.size, dtype=np.int64)
+    everything = slice(0, probe.size)
     checks: list[DirectionCheck] = []
     units: list[np.ndarray | None] = []
     budget = count * (1 + EXTRA_DIRECTIONS)
