@@ -225,22 +225,64 @@ class Backend(Protocol):
 
 
 class Evaluator:
-    """Counts and runs every forward call of a check, serially or through a backend."""
+    """Counts and runs every forward call of a check, serially or through a backend.
+
+    Every call to the user's forward goes through one of its methods, and each is counted
+    here: perturbation batches (:meth:`losses`), the base point (:meth:`base`), several
+    perturbations at once (:meth:`loss_with`), a call on other arrays (:meth:`raw`), and
+    calls on another workspace of the same target (:meth:`sibling`, sharing the count).
+    """
 
     def __init__(
         self,
         loss: LossFunction,
         backend: Backend | None = None,
         progress: Progress | None = None,
+        tally: list[int] | None = None,
     ) -> None:
         self.loss = loss
         self.backend = backend
         self.progress = progress
-        self.count = 0
+        self._tally = tally if tally is not None else [0]
+
+    @property
+    def count(self) -> int:
+        """Forward calls so far, by this evaluator and its siblings."""
+        return self._tally[0]
+
+    def _counted(self, calls: int) -> None:
+        self._tally[0] += calls
+
+    def sibling(self, loss: LossFunction) -> "Evaluator":
+        """An evaluator of ``loss`` (another workspace of the target) sharing this count; it
+        evaluates serially."""
+        return Evaluator(loss, None, self.progress, self._tally)
 
     def base(self) -> float:
-        self.count += 1
+        self._counted(1)
         return self.loss.base()
+
+    def base_with_type(self) -> tuple[float, np.dtype]:
+        """The base loss and the floating type forward returned it in."""
+        self._counted(1)
+        return self.loss.base_with_type()
+
+    def raw(self, params: Any, inputs: Any) -> Any:
+        """forward's own result on other arrays (writable scratch copies), unconverted."""
+        self._counted(1)
+        return self.loss.forward(params, inputs)
+
+    def loss_with(self, moves: Sequence[Perturbation]) -> float:
+        """The loss with every perturbation in ``moves`` applied at once (one call)."""
+        ws = self.loss.workspace
+        saved = [ws.owners[p.tensor].flat[p.index].copy() for p in moves]
+        try:
+            for p in moves:
+                ws.owners[p.tensor].flat[p.index] = p.values
+            return self.base()
+        finally:
+            for p, old in zip(moves, saved):
+                ws.owners[p.tensor].flat[p.index] = old
 
     def losses(self, perturbations: Sequence[Perturbation]) -> np.ndarray:
         """Loss values, one per perturbation, in order."""
@@ -251,14 +293,14 @@ class Evaluator:
         complex_step = np.iscomplexobj(perturbations[0].values)
         if self.backend is not None and not complex_step and len(perturbations) > 1:
             values = np.asarray(self.backend.losses(perturbations), dtype=np.float64)
-            self.count += len(perturbations)
+            self._counted(len(perturbations))
             if self.progress:
                 self.progress.done(len(perturbations))
             return values
         out = np.empty(len(perturbations), dtype=np.complex128 if complex_step else np.float64)
         for i, p in enumerate(perturbations):
             out[i] = self.loss.at(p)
-            self.count += 1
+            self._counted(1)
             if self.progress:
                 self.progress.done(1)
         return out

@@ -14,7 +14,7 @@ import numpy as np
 
 from ..errors import BadOutputError, UserCodeError
 from ..tensors import Workspace
-from .evaluate import Evaluator
+from .evaluate import Evaluator, Perturbation
 
 CALLS = 3
 ULPS = 4.0  # each moved param moves by this many units of its own last place
@@ -27,31 +27,27 @@ def measured_loss_scale(
     rounding_units: float, rng: np.random.Generator,
 ) -> float:
     """A loss scale L such that rounding_units * eps * L covers the rounding seen."""
-    names = [n for n in analytic if n in ws.owners]
+    names = [n for n in analytic if n in ws.owners and ws.owners[n].size]
     if not names:
         return 0.0
     eps = float(np.finfo(np.float64).eps)
     picked = {n: rng.choice(ws.owners[n].size, size=min(PER_TENSOR, ws.owners[n].size),
                             replace=False) for n in names}
-    saved = {n: ws.owners[n].flat[picked[n]].copy() for n in names}
     residual = 0.0
-    try:
-        for _ in range(CALLS):
-            bound = 0.0
-            for n in names:
-                x = saved[n]
-                step = ULPS * np.spacing(np.abs(x)) * rng.choice([-1.0, 1.0], size=x.shape)
-                moved = (x + step.astype(x.dtype)).astype(x.dtype)
-                ws.owners[n].flat[picked[n]] = moved
-                d = moved.astype(np.float64) - x.astype(np.float64)
-                bound += float(np.sum(np.abs(analytic[n][picked[n]] * d)))
-            try:
-                change = abs(evaluator.base() - f0)
-            except (UserCodeError, BadOutputError):
-                break  # outside forward's domain: no evidence either way; the checks that
-                # follow name the coordinate if the same happens there
-            residual = max(residual, change - 2.0 * bound)
-    finally:
+    for _ in range(CALLS):
+        bound = 0.0
+        moves = []
         for n in names:
-            ws.owners[n].flat[picked[n]] = saved[n]
+            x = ws.owners[n].flat[picked[n]]
+            step = ULPS * np.spacing(np.abs(x)) * rng.choice([-1.0, 1.0], size=x.shape)
+            moved = (x + step.astype(x.dtype)).astype(x.dtype)
+            moves.append(Perturbation(n, picked[n], moved))
+            d = moved.astype(np.float64) - x.astype(np.float64)
+            bound += float(np.sum(np.abs(analytic[n][picked[n]] * d)))
+        try:
+            change = abs(evaluator.loss_with(moves) - f0)
+        except (UserCodeError, BadOutputError):
+            break  # outside forward's domain: no evidence either way; the checks that
+            # follow name the coordinate if the same happens there
+        residual = max(residual, change - 2.0 * bound)
     return MARGIN * max(residual, 0.0) / (rounding_units * eps)

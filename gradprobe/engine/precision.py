@@ -37,19 +37,6 @@ def _moved(ws: Workspace, names: list[str], relative: float) -> list[Perturbatio
     return out
 
 
-def _evaluate_all(evaluator: Evaluator, moves: list[Perturbation]) -> float:
-    """The loss with every perturbation in ``moves`` applied at once."""
-    ws = evaluator.loss.workspace
-    saved = [ws.owners[p.tensor].reshape(-1).copy() for p in moves]
-    try:
-        for p in moves:
-            ws.owners[p.tensor].flat[p.index] = p.values
-        return evaluator.base()
-    finally:
-        for p, old in zip(moves, saved):
-            ws.owners[p.tensor].flat[:] = old
-
-
 def narrower_compute_type(
     evaluator: Evaluator, ws: Workspace, f0: float, out_dtype: np.dtype
 ) -> HiddenType | None:
@@ -58,9 +45,9 @@ def narrower_compute_type(
     if out_dtype != np.float64 or not names:
         return None
     try:
-        rounded = _evaluate_all(evaluator, _moved(ws, names, 0.0))
-        nudged = _evaluate_all(evaluator, _moved(ws, names, SMALL))
-        moved = _evaluate_all(evaluator, _moved(ws, names, LARGE))
+        rounded = evaluator.loss_with(_moved(ws, names, 0.0))
+        nudged = evaluator.loss_with(_moved(ws, names, SMALL))
+        moved = evaluator.loss_with(_moved(ws, names, LARGE))
     except (UserCodeError, BadOutputError):
         return None  # the moved points are outside forward's domain: no evidence either way
     expected = abs(moved - rounded) * (SMALL / LARGE)

@@ -49,9 +49,8 @@ def inspect_forward(
     """Two base calls: one on writable scratch copies (to name in-place writes), one on the
     read-only views; they must agree."""
     params, inputs, flat = ws.scratch_trees()
-    evaluator.count += 1
     try:
-        out = forward(params, inputs)
+        out = evaluator.raw(params, inputs)
     except Exception as exc:
         raise UserCodeError(f"forward raised {summarise(exc)}") from exc
     _name_writes(ws, flat, "forward")

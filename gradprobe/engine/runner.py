@@ -180,9 +180,8 @@ def _float32_probe(
     serially, for the coordinates whose float32 gradient leaves its float64 run."""
     if name not in numerics.float32:
         return None
-    own = Evaluator(LossFunction(evaluator.loss.forward, ws, evaluator.loss.grad_output))
+    own = evaluator.sibling(LossFunction(evaluator.loss.forward, ws, evaluator.loss.grad_output))
     f0 = own.base()
-    evaluator.count += 1
     return TensorProbe(own, name, ws.owners[name].reshape(-1), numerics.float32[name], f0,
                        np.dtype(np.float32), FLOAT32_AGREEMENT)
 
