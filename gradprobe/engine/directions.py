@@ -24,7 +24,7 @@ from .ladder import Estimate, tableau
 from .probe import TensorProbe
 
 SIGNIFICANCE = 4.0  # a discrepancy beyond 4 error bounds is real
-ROWS = 4
+ROWS = 3
 RATIO = 2.0
 FIRST_STEP = 4.0  # the ladder starts at 4 coordinate steps
 SHRINK = 16.0  # steps shrink this much when a kink is seen

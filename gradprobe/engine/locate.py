@@ -18,7 +18,7 @@ from .directions import SIGNIFICANCE, check_direction
 from .probe import TensorProbe
 
 LEAF = 2
-HALF_ROWS = 3  # a half's share needs less than the first direction's ladder
+HALF_ROWS = 2  # a half's share needs less than the first direction's ladder
 MAX_CANDIDATES = 64  # stop splitting once this many candidates are found
 BUDGET = 1500  # forward evaluations one localisation may spend
 
