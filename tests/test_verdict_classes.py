@@ -258,3 +258,20 @@ def test_float32_code_that_rounds_to_float32_itself_keeps_the_float32_threshold(
 
     report = probe(forward, backward, {"w": w})
     assert report.ok and report.threshold == 1e-2 and report.compute_dtype == "float32"
+
+
+def test_a_forward_that_is_non_finite_at_every_moved_point_is_one_sentence():
+    """A domain edge at the point itself: no step, however small, gives a finite loss."""
+    from gradprobe.errors import BadOutputError
+
+    w = np.array([0.0, 1.0])
+
+    def forward(p, i):
+        with np.errstate(divide="ignore", invalid="ignore"):
+            return float(np.sum(np.sqrt(p["w"]) * 0 + np.log(p["w"][1])) + np.sqrt(-abs(p["w"][0])))
+
+    with pytest.raises(BadOutputError) as info:
+        probe(forward, lambda p, i: {"w": np.array([0.0, 1.0])}, {"w": w}, label="edge")
+    assert str(info.value).startswith(
+        "edge: forward returned a non-finite value when w[0] (flat index) was moved by ")
+    assert str(info.value).endswith(", however small the step.")
