@@ -89,12 +89,12 @@ def test_suspects_are_rechecked_before_failing():
 
 
 def test_rounding_noise_is_beaten_with_larger_steps_where_the_loss_allows():
-    """A loss of 1e9 + sum(w**2): at the usual step rounding swamps a 1e-6 comparison;
-    the loss is smooth on a scale far above the step, so larger steps resolve it."""
+    """A loss of 1e7 + sum(w**2): at the usual step rounding swamps a 1e-6 comparison;
+    the loss is smooth on the scale of the params, so steps up to that scale resolve it."""
     w = np.array([0.3, -0.8, 1.1])
 
     def forward(p, i):
-        return float(1e9 + np.sum(p["w"] ** 2))
+        return float(1e7 + np.sum(p["w"] ** 2))
 
     report = probe(forward, lambda p, i: {"w": 2 * p["w"]}, {"w": w})
     assert report.ok and report.tensor("w").status == "pass"

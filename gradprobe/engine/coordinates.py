@@ -98,9 +98,20 @@ def _largest_smooth_step(probe: TensorProbe, flat: np.ndarray, h: np.ndarray, up
     seen = np.abs(second) > 4.0 * second_noise  # a second difference above its noise
     steady[1:] = (np.abs(second[1:] - second[:-1]) <= BEND_LIMIT * size + second_noise[1:] + second_noise[:-1]) \
         & seen[1:]
-    smooth = np.cumprod((bends <= BEND_LIMIT) | steady, axis=0).astype(bool)
+    # Growing needs evidence, not the absence of it: the slope itself must stand above the
+    # noise at that level (a loss that looks flat at every step shows nothing either way).
+    slope_noise = (2 * p.noise / (p.h_plus + p.h_minus)).reshape(levels, flat.size)
+    seen_slope = np.abs(p.central.reshape(levels, flat.size)) > 4.0 * slope_noise
+    calm = (bends <= BEND_LIMIT) | steady  # no sign of a bend (perhaps only as far as noise shows)
+    smooth_so_far = np.cumprod(calm, axis=0).astype(bool)
     wanted = np.arange(levels)[:, None] * 4 <= up[None, :] + 3
-    best = np.where(smooth & wanted, factors[:, None], 1.0).max(axis=0)
+    # Never beyond the params' own scale: past it the loss along a coordinate is another
+    # function, and agreement there proves nothing about the derivative at the point.
+    x = np.abs(probe.x[flat].astype(np.float64))
+    scale = np.maximum(x, probe.x_scale)
+    within = h[None, :] * factors[:, None] <= scale[None, :]
+    accepted = smooth_so_far & seen_slope & wanted & within  # the top level must show its slope
+    best = np.where(accepted, factors[:, None], 1.0).max(axis=0)
     return h * best
 
 

@@ -25,6 +25,10 @@ class ForwardInfo:
     f0: float  # the loss at the base point
     out_dtype: np.dtype  # the floating type of forward's result
     grad_output: np.ndarray | None  # drawn when forward returns an array
+    # The size of the terms the loss is summed from: |f0| for a scalar loss, and
+    # sum |grad_output * out| for an array output (whose sum of signed terms can be far
+    # smaller than the terms that round).
+    terms: float = 0.0
 
 
 def _name_writes(ws: Workspace, flat: dict[str, np.ndarray], who: str) -> None:
@@ -69,7 +73,11 @@ def inspect_forward(
             f"{first!r} and {second!r} (random state or dropout?)",
             value=(first, second),
         )
-    return ForwardInfo(f0=second, out_dtype=dtype, grad_output=grad_output)
+    terms = abs(second)
+    if grad_output is not None:
+        with np.errstate(all="ignore"):
+            terms = max(terms, float(np.sum(np.abs(grad_output * np.asarray(out, dtype=np.float64)))))
+    return ForwardInfo(f0=second, out_dtype=dtype, grad_output=grad_output, terms=terms)
 
 
 def call_backward(

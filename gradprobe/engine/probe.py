@@ -79,6 +79,8 @@ class TensorProbe:
         self.threshold = threshold
         rms = float(np.sqrt(np.mean(analytic**2))) if analytic.size else 0.0
         self.grad_scale = rms  # the tensor's typical gradient
+        values = x.astype(np.float64, copy=False)
+        self.x_scale = float(np.sqrt(np.mean(values * values))) if x.size else 0.0  # params' rms
         tiny = float(np.finfo(np.float64).tiny)
         self.tensor_floor = max(FLOOR_FRACTION * rms, tiny)  # the tensor's own scale only
         self.floor = max(self.tensor_floor, TARGET_FLOOR_FRACTION * target_scale)

@@ -150,6 +150,7 @@ class Numerics:
     analytic: dict[str, np.ndarray]  # the float64 run's gradients, for float32 code promoted
     float32: dict[str, np.ndarray]  # the float32 gradients those replace
     why: str  # how the code's type was found, for the note
+    terms: float = 0.0  # the size of the terms the loss is summed from (ForwardInfo.terms)
 
 
 def _numerics(target: Target, ws: Workspace, evaluator: Evaluator, info: ForwardInfo,
@@ -169,8 +170,8 @@ def _numerics(target: Target, ws: Workspace, evaluator: Evaluator, info: Forward
         if promoted is not None:
             evaluator.loss = promoted.loss
             return Numerics(promoted.workspace, promoted.f0, np.dtype(np.float64), dtype,
-                            promoted.analytic, promoted.float32, why)
-    return Numerics(ws, info.f0, dtype, dtype, {}, {}, why)
+                            promoted.analytic, promoted.float32, why, info.terms)
+    return Numerics(ws, info.f0, dtype, dtype, {}, {}, why, info.terms)
 
 
 def _float32_probe(
@@ -200,8 +201,9 @@ def _check_all(
         if compute_dtype != np.float64:
             notes.append(_threshold_note(compute_dtype, numerics.why))
     gradients = {n: numerics.analytic.get(n, g.reshape(-1)) for n, g in grads.values.items()}
-    loss_scale = measured_loss_scale(evaluator, numerics.workspace, gradients, numerics.f0,
-                                     ROUNDING_UNITS, tensor_rng(options.seed, "", "noise"))
+    loss_scale = max(numerics.terms, measured_loss_scale(
+        evaluator, numerics.workspace, gradients, numerics.f0, ROUNDING_UNITS,
+        tensor_rng(options.seed, "", "noise")))
     total = sum(ws.owners[n].size for n in grads.values)
     target_scale = max((float(np.sqrt(np.mean(g**2))) for g in grads.values.values() if g.size), default=0.0)
     results: list[TensorResult] = []

@@ -17,6 +17,11 @@ from .backend import NUMPY
 from .graph import Net, evaluate
 
 FAINT = 1e-10
+# A verdict at gradprobe's float64 threshold (1e-6) needs the numeric value to 1e-7: with
+# rounding 8 eps F per value and the largest step a smooth loss allows about 5% of x, that
+# is |g x| / F >= 8 eps / (0.05 * 1e-7) ~ 3.6e-7 (our own estimate). Below UNDECIDABLE a
+# correct tensor may honestly end ``inconclusive``.
+UNDECIDABLE = 3.6e-7
 
 
 def rounding_scale(net: Net, grad_output) -> float:
