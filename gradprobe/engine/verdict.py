@@ -24,7 +24,6 @@ from .status import FAIL, INCONCLUSIVE, KINK, PASS
 
 SIGNIFICANCE = 3.0  # a discrepancy beyond 3 error bounds is evidence of a bug
 LOPSIDED = 0.01  # a side whose bound is 100 times tighter than the other's has settled
-COINCIDING = 0.5  # share of the jump allowed outside the sides at a kink
 JUMP_KEPT = 0.05  # at a kink the jump seen at a tiny step stays within 5% of the ladder's
 CURVATURE_SLACK = 0.01  # first-order quotients at the tiny step may differ by 1% of the jump
 
@@ -123,15 +122,17 @@ def _judge_sides(
     tiny = tiny_pair(probe, f, ladder.smallest, jump)
     kept = np.abs(tiny.gap - jump) <= JUMP_KEPT * np.abs(jump) + 4.0 * tiny.one_sided_noise
     # At the point: the analytic value must lie between the sides (a subgradient). Where
-    # several kinks meet at the point (a max tied in many rows at once, with upstream
-    # gradients of both signs), the usual per-kink convention sums to an element of the
-    # generalised gradient that may lie outside the two one-sided derivatives, by up to
-    # the jumps of the kinks involved: half the jump is allowed on either side (a value
-    # further out than that is taken as a bug, though coinciding kinks can reach it).
+    # several kinks meet at the point (a max tied in many rows at once, upstream gradients of
+    # both signs), the usual per-kink convention picks one side per kink, and the sum lies
+    # between the sums over any subset of them: from 0 (every kink on its resting side) to
+    # left + right (every kink on its moving side), which can be outside the two one-sided
+    # derivatives when they share a sign. Those extremes are allowed too; a value further
+    # out is taken as a bug.
     side_error = np.maximum(left.error, right.error)
-    margin = probe.tolerance(f, a) + SIGNIFICANCE * side_error + COINCIDING * np.abs(jump)
-    low = np.minimum(left.value, right.value) - margin
-    high = np.maximum(left.value, right.value) + margin
+    margin = probe.tolerance(f, a) + SIGNIFICANCE * side_error
+    total = left.value + right.value
+    low = np.minimum(np.minimum(left.value, right.value), np.minimum(total, 0.0)) - margin
+    high = np.maximum(np.maximum(left.value, right.value), np.maximum(total, 0.0)) + margin
     inside = (a >= low) & (a <= high)
     nearer = np.where(np.abs(a - left.value) <= np.abs(a - right.value), left.value, right.value)
     nearer_error = np.where(np.abs(a - left.value) <= np.abs(a - right.value), left.error, right.error)
