@@ -275,3 +275,41 @@ def test_a_forward_that_is_non_finite_at_every_moved_point_is_one_sentence():
     assert str(info.value).startswith(
         "edge: forward returned a non-finite value when w[0] (flat index) was moved by ")
     assert str(info.value).endswith(", however small the step.")
+
+
+def _tied_max(scale_first):
+    """Daily demand as the max of two identical forecasters over 12 shops: every row ties.
+
+    The backward routes each row's upstream gradient to the first forecaster (the usual
+    convention for a tie), which sums to left + right along a coordinate of that forecaster
+    when the rows' kinks coincide (facts of the trade: common practice for max ties)."""
+    rng = np.random.default_rng(11)
+    x = rng.normal(size=(12, 3))
+    g = rng.normal(size=12)
+    W = rng.normal(size=(3, 1))
+    params = {"W": np.hstack([W, W])}
+
+    def forward(p, i):
+        z = i["x"] @ p["W"]
+        return float(np.sum(i["g"] * np.max(z, axis=1)))
+
+    def backward(p, i):
+        z = i["x"] @ p["W"]
+        first = z[:, 0] >= z[:, 1]
+        dz = np.zeros_like(z)
+        dz[first, 0] = i["g"][first]
+        dz[~first, 1] = i["g"][~first]
+        grad = i["x"].T @ dz
+        grad[:, 0] *= scale_first
+        return {"W": grad}
+
+    return probe(forward, backward, params, {"x": x, "g": g})
+
+
+def test_a_max_tied_in_every_row_is_a_kink_not_a_false_alarm():
+    t = _tied_max(1.0).tensor("W")
+    assert t.status == "kink" and t.failed == 0, render_text(_tied_max(1.0))
+
+
+def test_a_value_beyond_every_convention_at_tied_rows_fails():
+    assert _tied_max(3.0).tensor("W").failed > 0
