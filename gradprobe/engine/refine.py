@@ -19,6 +19,7 @@ from .probe import Pairs, TensorProbe
 
 RATIO = 2.0
 ROWS = 5
+NOISE_SHARE_UNITS = 2.0  # the rounding share of a bound counts twice the quotients' noise
 TINY_NOISE_UNITS = 80.0  # the tiny step's one-sided noise (2 delta / t) is 1/40 of the jump
 
 
@@ -63,8 +64,6 @@ def climb(probe: TensorProbe, flat: np.ndarray, start: np.ndarray, rows: int = R
         evaluations=probe.evaluator.count - before,
     )
 
-
-NOISE_SHARE_UNITS = 2.0
 
 
 @dataclass(frozen=True)
