@@ -97,7 +97,7 @@ def _largest_smooth_step(probe: TensorProbe, flat: np.ndarray, h: np.ndarray, up
     size = np.maximum(np.abs(second[1:]), np.abs(second[:-1]))
     seen = np.abs(second) > 4.0 * second_noise  # a second difference above its noise
     steady[1:] = (np.abs(second[1:] - second[:-1]) <= BEND_LIMIT * size + second_noise[1:] + second_noise[:-1]) \
-        & seen[1:]
+        & seen[1:] & seen[:-1]
     # Growing needs evidence, not the absence of it: the slope itself must stand above the
     # noise at that level (a loss that looks flat at every step shows nothing either way).
     slope_noise = (2 * p.noise / (p.h_plus + p.h_minus)).reshape(levels, flat.size)
