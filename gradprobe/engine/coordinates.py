@@ -18,9 +18,9 @@ from ..errors import BadOutputError, ComplexStepError, UserCodeError
 from .ladder import Estimate
 from .probe import Pairs, TensorProbe
 from .promote import disagreeing
-from .refine import RATIO, ROWS, climb
+from .refine import RATIO, ROWS, climb, one_sided
 from .status import FAIL, INCONCLUSIVE, PASS
-from .verdict import Judged, judge_ladder, judge_plain
+from .verdict import Judged, judge_ladder, judge_plain, judge_sides_apart
 
 SETTLE_FRACTION = 1e-2  # a first estimate this far inside the threshold settles a coordinate
 BEND_LIMIT = 0.05  # the slope may change by 5% across the ladder's first step
@@ -137,8 +137,18 @@ def _ladder_verdicts(
         which = np.flatnonzero(noisy)
         shifted[which] = _largest_smooth_step(probe, flat[again][which], start[again][which],
                                               np.full(which.size, float(RETRY_SHIFT)))
-    second = judge_ladder(probe, flat[again], climb(probe, flat[again], shifted, ROWS + 2))
-    return first.merged(again, second)
+    second_ladder = climb(probe, flat[again], shifted, ROWS + 2)
+    judged = first.merged(again, judge_ladder(probe, flat[again], second_ladder))
+    still = np.flatnonzero(judged.status == INCONCLUSIVE)
+    if still.size == 0:
+        return judged
+    # Last: each side on its own, on steps growing away from the point (beside a kink the
+    # clean side reaches steps that beat the noise).
+    smallest = np.minimum(start[still], probe.prior_steps(flat[still]))
+    apart = judge_sides_apart(probe, flat[still], one_sided(probe, flat[still], smallest, -1.0),
+                              one_sided(probe, flat[still], smallest, 1.0))
+    keep = apart.status != INCONCLUSIVE
+    return judged.merged(still[keep], _subset(apart, np.flatnonzero(keep)))
 
 
 COMPLEX_STEP = 1e-20  # relative; any tiny step works since nothing is subtracted

@@ -176,6 +176,15 @@ class TensorProbe:
         noise = self.loss_noise(np.nan_to_num(f_plus), np.nan_to_num(f_minus))
         return Pairs(f_plus, f_minus, h_plus, h_minus, noise)
 
+    def one_side(self, flat: np.ndarray, h: np.ndarray, sign: float) -> tuple[np.ndarray, np.ndarray]:
+        """The loss at x + sign * h for each coordinate (one call each) and the distance
+        really moved; non-finite values stay in (the caller decides)."""
+        plus, minus, h_plus, h_minus = self.moved(flat, h)
+        points, moved = (plus, h_plus) if sign > 0 else (minus, h_minus)
+        requests = [Perturbation(self.tensor, flat[i : i + 1], points[i : i + 1])
+                    for i in range(flat.size)]
+        return self.evaluator.losses(requests).real, moved
+
     def complex_losses(self, flat: np.ndarray, h: np.ndarray) -> np.ndarray:
         """The loss at x + i h for each coordinate (complex values; one call each)."""
         requests = [

@@ -91,3 +91,25 @@ def tiny_pair(probe: TensorProbe, flat: np.ndarray, smallest: np.ndarray, jump: 
     qc, nc, qr, nr, ql, nl = _quotients(probe, p)
     return Tiny(right=qr, left=ql, central=Estimate(qc, 2.0 * nc),
                 one_sided_noise=np.maximum(nr, nl), step=step)
+
+
+SIDE_ROWS = 5
+SIDE_RATIO = 4.0
+
+
+def one_sided(probe: TensorProbe, flat: np.ndarray, smallest: np.ndarray, sign: float) -> Estimate:
+    """The derivative from one side only, on steps growing 4-fold from ``smallest`` (as far
+    as the params' own scale): for a point beside a kink, the side away from it reaches
+    steps large enough to beat rounding noise, which a two-sided ladder cannot."""
+    n = flat.size
+    cap = np.maximum(np.abs(probe.x[flat].astype(np.float64)), probe.x_scale)
+    top = np.minimum(smallest * SIDE_RATIO ** (SIDE_ROWS - 1), np.maximum(cap, smallest))
+    steps = np.concatenate([top / SIDE_RATIO**k for k in range(SIDE_ROWS)])
+    values, moved = probe.one_side(np.tile(flat, SIDE_ROWS), steps, sign)
+    values, moved = values.reshape(SIDE_ROWS, n), moved.reshape(SIDE_ROWS, n)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        quotients = sign * (values - probe.f0) / moved
+    noise = 2.0 * probe.loss_noise(np.nan_to_num(values)) / moved
+    estimate = tableau(np.nan_to_num(quotients), noise, SIDE_RATIO, 1)
+    bad = ~np.isfinite(values).all(axis=0)
+    return Estimate(estimate.value, np.where(bad, np.inf, estimate.error))

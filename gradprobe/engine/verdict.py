@@ -174,3 +174,30 @@ def _judge_sides(
             status[k] = near_status[j]
             value[k], error[k] = near.value[j], near.error[j]
             reasons[k] = NEAR_KINK if near_status[j] == INCONCLUSIVE else None
+
+
+def judge_sides_apart(
+    probe: TensorProbe, flat: np.ndarray, left: Estimate, right: Estimate
+) -> Judged:
+    """Verdicts from one-sided derivatives taken apart (:func:`refine.one_sided`): both sides
+    decided and agreeing, the better decides; a side that decides alone decides (the other
+    met a kink); sides that disagree are a kink at the point. A value a kink could give
+    is never a failure on this evidence."""
+    a = probe.a[flat]
+    tol = probe.tolerance(flat, a)
+    left = Estimate(left.value, NEAR_SAFETY * left.error)
+    right = Estimate(right.value, NEAR_SAFETY * right.error)
+    decides_left, decides_right = left.error <= tol, right.error <= tol
+    agree = np.abs(left.value - right.value) <= SIGNIFICANCE * (left.error + right.error) + tol
+    best = Estimate.better(left, right)
+    chosen = Estimate(np.where(decides_left & ~decides_right, left.value,
+                               np.where(decides_right & ~decides_left, right.value, best.value)),
+                      np.where(decides_left & ~decides_right, left.error,
+                               np.where(decides_right & ~decides_left, right.error, best.error)))
+    status = _verdicts(a, chosen, probe.tolerance(flat, chosen.value))
+    both = decides_left & decides_right
+    status[both & ~agree] = np.where(_within_kink(a, left, right, tol), KINK, FAIL)[both & ~agree]
+    status[~(decides_left | decides_right)] = INCONCLUSIVE
+    status[(status == FAIL) & _within_kink(a, left, right, tol)] = KINK
+    reasons = tuple(NEAR_KINK if s == INCONCLUSIVE else None for s in status)
+    return Judged(status, chosen, reasons, status == INCONCLUSIVE)
