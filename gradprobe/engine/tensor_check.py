@@ -63,6 +63,13 @@ def _direction_result(probe: TensorProbe, d: DirectionCheck) -> DirectionResult:
     )
 
 
+def _enough(probe: TensorProbe) -> float:
+    """The bound at which a direction needs no larger steps: a tenth of what one element
+    wrong by the threshold, at the tensor's typical gradient, adds along a random unit
+    direction (rms(a) * threshold / sqrt(n))."""
+    return 0.1 * probe.threshold * probe.grad_scale / max(probe.size, 1) ** 0.5
+
+
 def _directions(
     probe: TensorProbe, count: int, seed: int
 ) -> tuple[list[DirectionCheck], list[np.ndarray | None]]:
@@ -74,7 +81,7 @@ def _directions(
     budget = count * (1 + EXTRA_DIRECTIONS)
     while len([c for c in checks if not c.kink]) < count and len(checks) < budget:
         u = unit_direction(probe.size, rng)
-        checks.append(check_direction(probe, everything, u))
+        checks.append(check_direction(probe, everything, u, enough=_enough(probe)))
         units.append(u if checks[-1].significant else None)  # kept only for localisation
     return checks, units
 
