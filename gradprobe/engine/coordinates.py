@@ -10,7 +10,7 @@ coordinate fails only when its discrepancy exceeds both the threshold and its er
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 
@@ -148,7 +148,7 @@ def _ladder_verdicts(
     apart = judge_sides_apart(probe, flat[still], one_sided(probe, flat[still], smallest, -1.0),
                               one_sided(probe, flat[still], smallest, 1.0))
     keep = apart.status != INCONCLUSIVE
-    return judged.merged(still[keep], _subset(apart, np.flatnonzero(keep)))
+    return judged.merged(still[keep], apart.pick(np.flatnonzero(keep)))
 
 
 COMPLEX_STEP = 1e-20  # relative; any tiny step works since nothing is subtracted
@@ -190,8 +190,8 @@ def _complex_checked(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Coo
     cross = check_coordinates(probe, flat[doubtful], "central", recheck)
     if np.any(cross.status[judged.status[doubtful] == FAIL] != FAIL):
         central = check_coordinates(probe, flat, "central", recheck)
-        return CoordinateOutcome(**{**central.__dict__, "evaluations": probe.evaluator.count - start_count,
-                                    "note": NOT_COMPLEX_SAFE.format(tensor=probe.tensor)})
+        return replace(central, evaluations=probe.evaluator.count - start_count,
+                       note=NOT_COMPLEX_SAFE.format(tensor=probe.tensor))
     redo = Judged(cross.status, Estimate(cross.numeric, cross.error_estimate), cross.reasons,
                   cross.status == INCONCLUSIVE)
     return _outcome(probe, flat, judged.merged(doubtful, redo), start_count)
@@ -240,12 +240,7 @@ def _richardson(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
         return judged
     again = _central(probe, flat[todo], recheck)
     keep = (again.status != PASS) | (again.estimate.error < judged.estimate.error[todo])
-    return judged.merged(todo[keep], _subset(again, np.flatnonzero(keep)))
-
-
-def _subset(j: Judged, which: np.ndarray) -> Judged:
-    return Judged(j.status[which], j.estimate.pick(which), tuple(j.reasons[k] for k in which),
-                  j.noise_limited[which])
+    return judged.merged(todo[keep], again.pick(np.flatnonzero(keep)))
 
 
 def _outcome(probe: TensorProbe, flat: np.ndarray, judged: Judged, start_count: int) -> CoordinateOutcome:

@@ -31,11 +31,15 @@ class Estimate:
         return Estimate(self.value[which], self.error[which])
 
     @staticmethod
+    def where(mask: np.ndarray, first: Estimate, second: Estimate) -> Estimate:
+        """Per coordinate, ``first`` where ``mask`` holds, else ``second``."""
+        return Estimate(np.where(mask, first.value, second.value),
+                        np.where(mask, first.error, second.error))
+
+    @staticmethod
     def better(first: Estimate, second: Estimate) -> Estimate:
         """Per coordinate, the estimate with the smaller error bound."""
-        take = second.error < first.error
-        return Estimate(np.where(take, second.value, first.value),
-                        np.where(take, second.error, first.error))
+        return Estimate.where(second.error < first.error, second, first)
 
 
 def settled_rows(quotients: np.ndarray, noise: np.ndarray, shrink: float) -> np.ndarray:

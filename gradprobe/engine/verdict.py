@@ -42,6 +42,11 @@ class Judged:
     reasons: tuple[str | None, ...]
     noise_limited: np.ndarray
 
+    def pick(self, which: np.ndarray) -> Judged:
+        """These verdicts at positions ``which`` only."""
+        return Judged(self.status[which], self.estimate.pick(which),
+                      tuple(self.reasons[k] for k in which), self.noise_limited[which])
+
     def merged(self, which: np.ndarray, other: Judged) -> Judged:
         """These verdicts with positions ``which`` replaced by ``other``'s."""
         status = self.status.copy()
@@ -114,6 +119,14 @@ def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder) -> Judged
     return Judged(status, Estimate(value, error), tuple(reasons), noisy)
 
 
+def _one_clean_side(
+    use_left: np.ndarray, use_right: np.ndarray, left: Estimate, right: Estimate, otherwise: Estimate
+) -> Estimate:
+    """The one side that qualifies where exactly one does, else ``otherwise``."""
+    return Estimate.where(use_left & ~use_right, left,
+                          Estimate.where(use_right & ~use_left, right, otherwise))
+
+
 def _within_kink(a: np.ndarray, left: Estimate, right: Estimate, tol: np.ndarray) -> np.ndarray:
     """The analytic value is one a kink between these one-sided derivatives could give: between
     them, or, where several kinks meet at the point, between 0 and their sum (see below)."""
@@ -152,11 +165,8 @@ def _judge_sides(
     slack = tiny.one_sided_noise + CURVATURE_SLACK * np.abs(jump)
     clean_right = np.abs(tiny.right - right.value) <= SIGNIFICANCE * (right.error + slack)
     clean_left = np.abs(tiny.left - left.value) <= SIGNIFICANCE * (left.error + slack)
-    near = Estimate(np.where(clean_right & ~clean_left, right.value,
-                             np.where(clean_left & ~clean_right, left.value, tiny.central.value)),
-                    NEAR_SAFETY * np.where(clean_right & ~clean_left, right.error,
-                                           np.where(clean_left & ~clean_right, left.error,
-                                                    tiny.central.error)))
+    near = _one_clean_side(clean_left, clean_right, left, right, tiny.central)
+    near = Estimate(near.value, NEAR_SAFETY * near.error)
     near_status = _verdicts(a, near, probe.tolerance(f, near.value))
     for j, k in enumerate(which.tolist()):
         if kept[j]:
@@ -189,11 +199,7 @@ def judge_sides_apart(
     right = Estimate(right.value, NEAR_SAFETY * right.error)
     decides_left, decides_right = left.error <= tol, right.error <= tol
     agree = np.abs(left.value - right.value) <= SIGNIFICANCE * (left.error + right.error) + tol
-    best = Estimate.better(left, right)
-    chosen = Estimate(np.where(decides_left & ~decides_right, left.value,
-                               np.where(decides_right & ~decides_left, right.value, best.value)),
-                      np.where(decides_left & ~decides_right, left.error,
-                               np.where(decides_right & ~decides_left, right.error, best.error)))
+    chosen = _one_clean_side(decides_left, decides_right, left, right, Estimate.better(left, right))
     status = _verdicts(a, chosen, probe.tolerance(flat, chosen.value))
     both = decides_left & decides_right
     status[both & ~agree] = np.where(_within_kink(a, left, right, tol), KINK, FAIL)[both & ~agree]
