@@ -253,7 +253,7 @@ class Evaluator:
     def _counted(self, calls: int) -> None:
         self._tally[0] += calls
 
-    def sibling(self, loss: LossFunction) -> "Evaluator":
+    def sibling(self, loss: LossFunction) -> Evaluator:
         """An evaluator of ``loss`` (another workspace of the target) sharing this count; it
         evaluates serially."""
         return Evaluator(loss, None, self.progress, self._tally)

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import time
 from collections.abc import Callable
-from dataclasses import dataclass, replace
+from dataclasses import replace
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -18,12 +18,7 @@ from ..report import LayerResult, Report, TensorResult
 from ..target import Target
 from ..tensors import INPUT_LAYER, Workspace, is_float, layer_of
 from .evaluate import Backend, Evaluator, LossFunction, Progress
-from .gradients import Gradients, validate
-from .noise import measured_loss_scale
-from .preflight import ForwardInfo, call_backward, inspect_forward
-from .probe import ROUNDING_UNITS, TensorProbe
-from .promote import FLOAT32_AGREEMENT, promote
-from .sampling import tensor_rng
+from .point import Point, prepare
 from .summary import problem_result, unknown_result
 from .tensor_check import check_tensor
 
@@ -62,16 +57,6 @@ def _promoted_note(why: str, threshold: float) -> str:
         f"float32 values within {threshold:g}, and its float32 gradient against that float64 "
         f"gradient within 1e-2 (float32 rounding)"
     )
-
-
-def _compute_type(out_dtype: np.dtype, ws: Workspace) -> tuple[np.dtype, str]:
-    """The type forward computes in: its result's, or its params' when those are coarser
-    (float32 params whose loss is returned as a Python float still carry float32 noise)."""
-    kinds = [ws.owners[n].dtype for n in ws.param_names if is_float(ws.owners[n])]
-    coarsest = max(kinds, key=lambda d: np.finfo(d).eps)
-    if np.finfo(coarsest).eps > np.finfo(out_dtype).eps:
-        return np.dtype(coarsest), f" (its params are {coarsest}, though it returns {out_dtype})"
-    return np.dtype(out_dtype), ""
 
 
 def hint_context(ws: Workspace) -> HintContext:
@@ -126,71 +111,20 @@ def _run(
     ws = Workspace(target.params, target.inputs)
     if not any(is_float(ws.owners[n]) for n in ws.param_names):
         raise TargetLoadError("the target has no floating-point params to check")
-    rng = np.random.default_rng(options.seed)  # grad_output; tensors draw from their own
-    loss = LossFunction(target.forward, ws, None)
-    evaluator = Evaluator(loss, None, progress)
-    info = inspect_forward(target.forward, ws, evaluator, rng)
-    grads = validate(call_backward(target.backward, ws, info.grad_output), ws)
-    numerics = _numerics(target, ws, evaluator, info, grads)
-    evaluator.backend, release = _backend(target, numerics.workspace, info.grad_output, options, executor)
+    evaluator = Evaluator(LossFunction(target.forward, ws, None), None, progress)
+    point = prepare(target.forward, target.backward, ws, evaluator, options.seed)
+    evaluator.backend, release = _backend(target, point.numerics.workspace, point.info.grad_output,
+                                          options, executor)
     try:
-        return _check_all(target, options, ws, evaluator, numerics, grads, started, clock)
+        return _check_all(target, options, point, started, clock)
     finally:
         release()
 
 
-@dataclass(frozen=True)
-class Numerics:
-    """Where the numeric side works: the workspace perturbed, its base loss and type."""
-
-    workspace: Workspace
-    f0: float
-    dtype: np.dtype  # the type the numeric side computes in
-    code_dtype: np.dtype  # the type the user's code computes in
-    analytic: dict[str, np.ndarray]  # the float64 run's gradients, for float32 code promoted
-    float32: dict[str, np.ndarray]  # the float32 gradients those replace
-    why: str  # how the code's type was found, for the note
-    terms: float = 0.0  # the size of the terms the loss is summed from (ForwardInfo.terms)
-
-
-def _numerics(target: Target, ws: Workspace, evaluator: Evaluator, info: ForwardInfo,
-              grads: Gradients) -> Numerics:
-    """The code's compute type (3 calls to look for hidden float32), and float64 numerics
-    for float32 code that accepts float64 (1 forward and 1 backward call)."""
-    dtype, why = _compute_type(info.out_dtype, ws)
-    from .precision import (
-        narrower_compute_type,  # local: keeps the import graph acyclic
-    )
-
-    hidden = narrower_compute_type(evaluator, ws, info.f0, dtype)
-    if hidden is not None:
-        dtype, why = hidden.dtype, hidden.evidence
-    if dtype == np.float32:
-        promoted = promote(evaluator, target.backward, ws, grads, info.f0)
-        if promoted is not None:
-            evaluator.loss = promoted.loss
-            return Numerics(promoted.workspace, promoted.f0, np.dtype(np.float64), dtype,
-                            promoted.analytic, promoted.float32, why, info.terms)
-    return Numerics(ws, info.f0, dtype, dtype, {}, {}, why, info.terms)
-
-
-def _float32_probe(
-    evaluator: Evaluator, numerics: Numerics, ws: Workspace, name: str, grads: Gradients
-) -> TensorProbe | None:
-    """For float32 code checked on its float64 run: the tensor probed on the float32 code,
-    serially, for the coordinates whose float32 gradient leaves its float64 run."""
-    if name not in numerics.float32:
-        return None
-    own = evaluator.sibling(LossFunction(evaluator.loss.forward, ws, evaluator.loss.grad_output))
-    f0 = own.base()
-    return TensorProbe(own, name, ws.owners[name].reshape(-1), numerics.float32[name], f0,
-                       np.dtype(np.float32), FLOAT32_AGREEMENT)
-
-
 def _check_all(
-    target: Target, options: CheckOptions, ws: Workspace, evaluator: Evaluator,
-    numerics: Numerics, grads: Gradients, started: float, clock: Callable[[], float],
+    target: Target, options: CheckOptions, point: Point, started: float, clock: Callable[[], float],
 ) -> Report:
+    ws, evaluator, numerics, grads = point.ws, point.evaluator, point.numerics, point.grads
     compute_dtype = numerics.code_dtype
     notes = list(grads.notes)
     if numerics.analytic:
@@ -200,12 +134,8 @@ def _check_all(
         threshold = options.threshold or default_threshold(compute_dtype)
         if compute_dtype != np.float64:
             notes.append(_threshold_note(compute_dtype, numerics.why))
-    gradients = {n: numerics.analytic.get(n, g.reshape(-1)) for n, g in grads.values.items()}
-    loss_scale = max(numerics.terms, measured_loss_scale(
-        evaluator, numerics.workspace, gradients, numerics.f0, ROUNDING_UNITS,
-        tensor_rng(options.seed, "", "noise")))
+    point.measure(options.seed)
     total = sum(ws.owners[n].size for n in grads.values)
-    target_scale = max((float(np.sqrt(np.mean(g**2))) for g in grads.values.values() if g.size), default=0.0)
     results: list[TensorResult] = []
     evidence: list[Evidence] = []
     for name in ws.names():
@@ -214,10 +144,7 @@ def _check_all(
             results.append(problem_result(name, layer, ws.kind(name), ws.owners[name], grads.problems[name]))
         elif name in grads.values:
             owner = ws.owners[name]
-            probe = TensorProbe(evaluator, name, numerics.workspace.owners[name].reshape(-1),
-                                gradients[name], numerics.f0, numerics.dtype, threshold, target_scale,
-                                loss_scale=loss_scale,
-                                float32=_float32_probe(evaluator, numerics, ws, name, grads))
+            probe = point.probe(name, threshold)
             result, found, outcome = check_tensor(probe, options, total, owner.shape,
                                                   ws.layer(name), ws.kind(name), owner.dtype)
             results.append(result)

@@ -1,0 +1,129 @@
+"""A target made ready for probing at one set of values.
+
+Preflight's calls, the backward call, the type the code computes in (float32 code rerun in
+float64 where it accepts it), the loss's measured rounding and the target-wide gradient
+scale: everything a :class:`TensorProbe` of one tensor needs. The check prepares the point
+it was given; a second look off a kink (:mod:`.offpoint`) prepares a nearby one the same way.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from ..tensors import Workspace, is_float
+from .evaluate import Evaluator, LossFunction
+from .gradients import Gradients, validate
+from .noise import measured_loss_scale
+from .preflight import ForwardInfo, call_backward, inspect_forward
+from .probe import ROUNDING_UNITS, TensorProbe
+from .promote import FLOAT32_AGREEMENT, promote
+from .sampling import tensor_rng
+
+
+@dataclass(frozen=True)
+class Numerics:
+    """Where the numeric side works: the workspace perturbed, its base loss and type."""
+
+    workspace: Workspace
+    f0: float
+    dtype: np.dtype  # the type the numeric side computes in
+    code_dtype: np.dtype  # the type the user's code computes in
+    analytic: dict[str, np.ndarray]  # the float64 run's gradients, for float32 code promoted
+    float32: dict[str, np.ndarray]  # the float32 gradients those replace
+    why: str  # how the code's type was found, for the note
+    terms: float = 0.0  # the size of the terms the loss is summed from (ForwardInfo.terms)
+
+
+def _compute_type(out_dtype: np.dtype, ws: Workspace) -> tuple[np.dtype, str]:
+    """The type forward computes in: its result's, or its params' when those are coarser
+    (float32 params whose loss is returned as a Python float still carry float32 noise)."""
+    kinds = [ws.owners[n].dtype for n in ws.param_names if is_float(ws.owners[n])]
+    coarsest = max(kinds, key=lambda d: np.finfo(d).eps)
+    if np.finfo(coarsest).eps > np.finfo(out_dtype).eps:
+        return np.dtype(coarsest), f" (its params are {coarsest}, though it returns {out_dtype})"
+    return np.dtype(out_dtype), ""
+
+
+def _numerics(backward: Callable[..., Any], ws: Workspace, evaluator: Evaluator,
+              info: ForwardInfo, grads: Gradients) -> Numerics:
+    """The code's compute type (3 calls to look for hidden float32), and float64 numerics
+    for float32 code that accepts float64 (1 forward and 1 backward call)."""
+    dtype, why = _compute_type(info.out_dtype, ws)
+    from .precision import (
+        narrower_compute_type,  # local: keeps the import graph acyclic
+    )
+
+    hidden = narrower_compute_type(evaluator, ws, info.f0, dtype)
+    if hidden is not None:
+        dtype, why = hidden.dtype, hidden.evidence
+    if dtype == np.float32:
+        promoted = promote(evaluator, backward, ws, grads, info.f0)
+        if promoted is not None:
+            evaluator.loss = promoted.loss
+            return Numerics(promoted.workspace, promoted.f0, np.dtype(np.float64), dtype,
+                            promoted.analytic, promoted.float32, why, info.terms)
+    return Numerics(ws, info.f0, dtype, dtype, {}, {}, why, info.terms)
+
+
+@dataclass
+class Point:
+    """One set of values of a target, ready to be probed tensor by tensor."""
+
+    ws: Workspace
+    evaluator: Evaluator
+    info: ForwardInfo
+    grads: Gradients
+    numerics: Numerics
+    loss_scale: float = 0.0
+    target_scale: float = 0.0
+
+    @property
+    def gradients(self) -> dict[str, np.ndarray]:
+        """The analytic gradient per checked tensor, flat (float64 run's where promoted)."""
+        n = self.numerics
+        return {name: n.analytic.get(name, g.reshape(-1)) for name, g in self.grads.values.items()}
+
+    def measure(self, seed: int) -> None:
+        """The loss's rounding (3 calls) and the target-wide gradient scale."""
+        n = self.numerics
+        self.loss_scale = max(n.terms, measured_loss_scale(
+            self.evaluator, n.workspace, self.gradients, n.f0, ROUNDING_UNITS,
+            tensor_rng(seed, "", "noise")))
+        self.target_scale = max((float(np.sqrt(np.mean(g**2))) for g in self.grads.values.values()
+                                 if g.size), default=0.0)
+
+    def probe(self, name: str, threshold: float) -> TensorProbe:
+        n = self.numerics
+        return TensorProbe(self.evaluator, name, n.workspace.owners[name].reshape(-1),
+                           self.gradients[name], n.f0, n.dtype, threshold, self.target_scale,
+                           loss_scale=self.loss_scale, float32=self._float32_probe(name))
+
+    def _float32_probe(self, name: str) -> TensorProbe | None:
+        """For float32 code checked on its float64 run: the tensor probed on the float32
+        code itself, serially, for the coordinates whose float32 gradient leaves its float64
+        run."""
+        n = self.numerics
+        if name not in n.float32:
+            return None
+        ev = self.evaluator
+        own = ev.sibling(LossFunction(ev.loss.forward, self.ws, ev.loss.grad_output))
+        f0 = own.base()
+        return TensorProbe(own, name, self.ws.owners[name].reshape(-1), n.float32[name], f0,
+                           np.dtype(np.float32), FLOAT32_AGREEMENT)
+
+
+def prepare(
+    forward: Callable[..., Any], backward: Callable[..., Any], ws: Workspace,
+    evaluator: Evaluator, seed: int,
+) -> Point:
+    """Preflight, backward and the numeric side's type at the values in ``ws``; the loss's
+    rounding is measured by :meth:`Point.measure` (after the caller picks a backend)."""
+    rng = np.random.default_rng(seed)  # grad_output; tensors draw from their own
+    info = inspect_forward(forward, ws, evaluator, rng)
+    grads = validate(call_backward(backward, ws, info.grad_output), ws)
+    numerics = _numerics(backward, ws, evaluator, info, grads)
+    return Point(ws, evaluator, info, grads, numerics)
