@@ -59,12 +59,24 @@ def test_relu_at_zero_is_a_kink():
     assert report.ok and report.tensor("w").kink_indices == ((0,),)
 
 
+def _max_of_two(backward):
+    return probe(lambda p, i: float(np.max(p["w"])), backward, {"w": np.array([1.25, 1.25])})
+
+
 def test_max_tie_is_a_kink():
-    """max(a, b) with a == b: the derivative picks one side."""
-    w = np.array([1.25, 1.25])
-    report = probe(lambda p, i: float(np.max(p["w"])),
-                   lambda p, i: {"w": np.array([1.0, 0.0])}, {"w": w})
-    assert report.ok and report.tensor("w").status == "kink"
+    """max(a, b) with a == b: the derivative picks one side (the first maximum, as
+    np.argmax does: common practice)."""
+    report = _max_of_two(lambda p, i: {"w": np.eye(2)[np.argmax(p["w"])]})
+    assert report.ok and report.tensor("w").status == "kink", render_text(report)
+
+
+def test_a_backward_right_only_at_the_tie_fails_off_it():
+    """The value at the tie is a valid one, but the code returns it wherever the point is:
+    moved off the tie, one of its elements is wrong (d max(a, b)/db = 1 where b > a)."""
+    report = _max_of_two(lambda p, i: {"w": np.array([1.0, 0.0])})
+    t = report.tensor("w")
+    assert t.status == "fail", render_text(report)
+    assert all("moved off the kinks" in (d.reason or "") for d in t.details if d.status == "fail")
 
 
 def test_curvature_is_not_mistaken_for_a_kink():

@@ -33,11 +33,11 @@ def test_relu_kink_followed_by_a_curved_loss_is_a_kink(convention):
     def forward(p, i):
         return float(np.sum((np.maximum(p["w"], 0) - 2) ** 2))
 
-    def backward(p, i):
-        g = 2 * (np.maximum(p["w"], 0) - 2) * (p["w"] > 0)
-        g[0] = analytic
-        return {"w": g}
+    def backward(p, i):  # relu'(0) taken as 0 (left) or 1 (right)
+        mask = p["w"] > 0 if convention == "left" else p["w"] >= 0
+        return {"w": 2 * (np.maximum(p["w"], 0) - 2) * mask}
 
+    assert backward({"w": w}, {})["w"][0] == analytic
     report = probe(forward, backward, {"w": w})
     t = report.tensor("w")
     assert t.status == "kink" and t.kink_indices == ((0,),), render_text(report)

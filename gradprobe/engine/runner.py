@@ -18,6 +18,7 @@ from ..report import LayerResult, Report, TensorResult
 from ..target import Target
 from ..tensors import INPUT_LAYER, Workspace, is_float, layer_of
 from .evaluate import Backend, Evaluator, LossFunction, Progress
+from .offpoint import SecondLook
 from .point import Point, prepare
 from .summary import problem_result, unknown_result
 from .tensor_check import check_tensor
@@ -135,6 +136,7 @@ def _check_all(
         if compute_dtype != np.float64:
             notes.append(_threshold_note(compute_dtype, numerics.why))
     point.measure(options.seed)
+    look = SecondLook(target.forward, target.backward, point, threshold, options.seed, options.method)
     total = sum(ws.owners[n].size for n in grads.values)
     results: list[TensorResult] = []
     evidence: list[Evidence] = []
@@ -146,7 +148,7 @@ def _check_all(
             owner = ws.owners[name]
             probe = point.probe(name, threshold)
             result, found, outcome = check_tensor(probe, options, total, owner.shape,
-                                                  ws.layer(name), ws.kind(name), owner.dtype)
+                                                  ws.layer(name), ws.kind(name), owner.dtype, look)
             results.append(result)
             evidence.append(found)
             if outcome.note:

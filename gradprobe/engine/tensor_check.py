@@ -14,6 +14,7 @@ from ..status import Status
 from .coordinates import CoordinateOutcome, check_coordinates
 from .directions import DirectionCheck, check_direction, unit_direction
 from .locate import locate
+from .offpoint import SecondLook, settle_kinks
 from .probe import TensorProbe
 from .sampling import stratified, tensor_rng
 from .status import FAIL
@@ -88,10 +89,10 @@ def _directions(
 
 def check_tensor(
     probe: TensorProbe, options: CheckOptions, total: int, shape: tuple[int, ...],
-    layer: str, kind: str, dtype: np.dtype,
+    layer: str, kind: str, dtype: np.dtype, look: SecondLook | None = None,
 ) -> tuple[TensorResult, Evidence, CoordinateOutcome]:
     """The tensor's result (without a hint), the evidence hints are drawn from, and the
-    coordinate outcome."""
+    coordinate outcome; coordinates at a kink get a second look off it (``look``)."""
     ev = probe.evaluator
     start = ev.count
     n_coords, n_dirs = plan(options, probe.size, total)
@@ -112,7 +113,8 @@ def check_tensor(
             flat = np.union1d(flat, found.candidates)
             unconfirmed = any(c.significant and d.rel_error > probe.threshold
                               for c, d in zip(checks, directions))
-    outcome = check_coordinates(probe, flat, options.method, options.recheck)
+    outcome = settle_kinks(check_coordinates(probe, flat, options.method, options.recheck),
+                           look, probe.tensor)
     result = tensor_result(probe.tensor, layer, kind, shape, dtype, outcome,
                            directions=directions, located_evaluations=located,
                            evaluations=ev.count - start)

@@ -1,0 +1,110 @@
+"""Kinks that meet at the point hide bugs; a second look off the point finds them.
+
+The scenario: a crop-yield model whose first layer starts at zero (weights and biases), so
+every hidden unit's pre-activation is exactly 0 for every field at once. At that point the
+numeric side sees only one-sided derivatives, and the per-kink convention (relu'(0) = 0 or
+1, common practice) allows a wide range of values. A backward that halves the first layer's
+gradient stays inside that range, yet it is wrong wherever the units are not all at zero.
+
+References: the ReLU layer's backward is the chain rule (common practice); it is checked
+against mpmath's numerical differentiation at 30 digits at a point away from every kink.
+"""
+
+from __future__ import annotations
+
+import mpmath
+import numpy as np
+import pytest
+
+from gradprobe import probe, render_text
+from gradprobe.engine import offpoint
+
+RNG = np.random.default_rng(7)
+X = RNG.normal(size=(12, 3))  # rain, sun hours, soil moisture per field (standardised)
+Y = RNG.normal(size=12)  # yield deviation per field
+
+
+def forward(p, i):
+    hidden = np.maximum(i["x"] @ p["W1"] + p["b1"], 0.0)
+    r = hidden @ p["w2"] - i["y"]
+    return float(0.5 * np.sum(r * r))
+
+
+def backward(p, i, factor=1.0):
+    z = i["x"] @ p["W1"] + p["b1"]
+    hidden = np.maximum(z, 0.0)
+    r = hidden @ p["w2"] - i["y"]
+    dz = np.outer(r, p["w2"]) * (z >= 0)  # relu'(0) taken as 1
+    return {"W1": factor * (i["x"].T @ dz), "b1": factor * dz.sum(axis=0), "w2": hidden.T @ r}
+
+
+def _zero_start():
+    return {"W1": np.zeros((3, 4)), "b1": np.zeros(4), "w2": np.array([0.8, -0.5, 1.2, 0.3])}
+
+
+INPUTS = {"x": X, "y": Y}
+
+
+def _mp(a):
+    return np.array([mpmath.mpf(float(v)) for v in np.ravel(a)], dtype=object).reshape(np.shape(a))
+
+
+def test_the_models_backward_agrees_with_mpmath_off_the_kinks():
+    params = {"W1": RNG.normal(size=(3, 4)), "b1": RNG.normal(size=4), "w2": RNG.normal(size=4)}
+    g = backward(params, INPUTS)
+    for name, index in [("W1", (1, 2)), ("b1", (3,)), ("w2", (0,))]:
+        def along(t, name=name, index=index):
+            moved = {k: _mp(v) for k, v in params.items()}
+            moved[name][index] = moved[name][index] + t
+            z = _mp(X) @ moved["W1"] + moved["b1"]
+            hidden = np.array([[v if v > 0 else mpmath.mpf(0) for v in row] for row in z], dtype=object)
+            r = hidden @ moved["w2"] - _mp(Y)
+            return mpmath.mpf(0.5) * sum(v * v for v in r)
+
+        with mpmath.workdps(30):
+            reference = float(mpmath.diff(along, mpmath.mpf(0)))
+        assert g[name][index] == pytest.approx(reference, rel=1e-10)
+
+
+def test_a_halved_gradient_at_coinciding_kinks_fails_off_the_point():
+    params = _zero_start()
+    before = {k: v.copy() for k, v in params.items()}
+    report = probe(forward, lambda p, i: backward(p, i, factor=0.5), params, INPUTS)
+    for name in ("W1", "b1"):
+        t = report.tensor(name)
+        assert t.status == "fail", render_text(report)
+        assert all("moved off the kinks" in d.reason for d in t.details if d.status == "fail")
+    assert report.tensor("w2").status == "pass"
+    assert all(np.array_equal(params[k], before[k]) for k in params)  # the user's arrays
+
+
+def test_the_same_bug_is_only_a_kink_at_the_point_itself(monkeypatch):
+    """Without the second look the halved gradient passes as a valid value at the kinks:
+    what the second look adds."""
+    monkeypatch.setattr(offpoint.SecondLook, "outcomes", lambda self, name, flat: [])
+    report = probe(forward, lambda p, i: backward(p, i, factor=0.5), _zero_start(), INPUTS)
+    assert report.tensor("W1").status == "kink" and report.tensor("b1").status == "kink"
+
+
+def test_the_correct_backward_at_coinciding_kinks_is_a_kink():
+    report = probe(forward, backward, _zero_start(), INPUTS)
+    assert report.ok, render_text(report)
+    assert report.tensor("W1").status == "kink" and report.tensor("b1").status == "kink"
+
+
+def test_a_moved_point_outside_the_codes_domain_leaves_the_kink():
+    """A param just above 0 under a log: one of the moved points takes it below 0, where
+    forward raises; that point gives no evidence, and the check goes on."""
+    params = {**_zero_start(), "c": np.array([1e-5])}
+
+    def fwd(p, i):
+        if p["c"][0] <= 0:
+            raise ValueError("the soil constant must be positive")
+        return forward(p, i) + float(np.log(p["c"][0]))
+
+    def bwd(p, i):
+        return {**backward(p, i), "c": 1.0 / p["c"]}
+
+    report = probe(fwd, bwd, params, INPUTS)
+    assert report.ok, render_text(report)
+    assert report.tensor("b1").status == "kink" and report.tensor("c").status == "pass"
