@@ -53,6 +53,19 @@ def test_category(category, seed):
     assert not found, _message(case, report, found)
 
 
+# Cases the large run once got wrong, kept as they were found (category-seed): bugs hidden
+# where kinks coincide (found by the second look off the point), a max tied in every row whose
+# sides are too noisy to tell apart, kinks within steps grown to beat rounding noise.
+FOUND_BY_THE_BENCH = ["bug-factor-5023", "bug-accumulation-31", "bug-accumulation-33",
+                      "bug-derivative-11", "bug-transpose-5019", "kink-at-23", "kink-near-5013"]
+
+
+@pytest.mark.parametrize("name", FOUND_BY_THE_BENCH)
+def test_case_found_by_the_bench(name):
+    category, seed = name.rsplit("-", 1)
+    test_category(category, int(seed))
+
+
 def _grad_output(net):
     if net.scalar:
         return None

@@ -91,6 +91,16 @@ def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder) -> Judged
     corner = Estimate(mid, np.maximum(left.error, right.error) + 0.5 * np.abs(right.value - left.value))
     best = Estimate.better(ladder.central, corner)
     status = _verdicts(a, best, probe.tolerance(flat, best.value))
+    # Sides too uncertain to be told apart, yet further apart than the central bound: at a
+    # kink the central quotients are the sides' mean, whatever their tableau's bound says,
+    # so a value the kink could explain is not a bug on this evidence (a second look off
+    # the point decides, see offpoint.py).
+    gap = np.abs(right.value - left.value)
+    tol_a = probe.tolerance(flat, a)
+    unresolved = ~differ & (gap > SIGNIFICANCE * best.error) & (gap > tol_a) & (status == FAIL)
+    margin = tol_a + SIGNIFICANCE * np.maximum(left.error, right.error)
+    between = (a >= np.minimum(left.value, right.value) - margin) & (a <= np.maximum(left.value, right.value) + margin)
+    status[unresolved & between] = KINK
     noisy = ladder.noise_share > 0.5
     reasons: list[str | None] = [
         (NOISE if noisy[k] else UNSETTLED) if status[k] == INCONCLUSIVE else None
