@@ -55,15 +55,21 @@ def test_category(category, seed):
 
 # Cases the large run once got wrong, kept as they were found (category-seed): bugs hidden
 # where kinks coincide (found by the second look off the point), a max tied in every row whose
-# sides are too noisy to tell apart, kinks within steps grown to beat rounding noise.
+# sides are too noisy to tell apart, kinks within steps grown to beat rounding noise, float32
+# losses at the rounding level of their own terms (a zero read off an unchanged loss).
 FOUND_BY_THE_BENCH = ["bug-factor-5023", "bug-accumulation-31", "bug-accumulation-33",
-                      "bug-derivative-11", "bug-transpose-5019", "kink-at-23", "kink-near-5013"]
+                      "bug-derivative-11", "bug-transpose-5019", "kink-at-23", "kink-near-5013",
+                      "f32-scalar-22", "f32-scalar-39"]
 
 
 @pytest.mark.parametrize("name", FOUND_BY_THE_BENCH)
 def test_case_found_by_the_bench(name):
+    """What they got wrong was the exit code: no false alarm, no bug missed or not located."""
     category, seed = name.rsplit("-", 1)
-    test_category(category, int(seed))
+    case = make_case(category, int(seed))
+    report = _probe(case.net)
+    found = [p for p in problems(report, case) if p.startswith(("false alarm", "bug "))]
+    assert not found, _message(case, report, found)
 
 
 def _grad_output(net):

@@ -313,3 +313,21 @@ def test_a_max_tied_in_every_row_is_a_kink_not_a_false_alarm():
 
 def test_a_value_beyond_every_convention_at_tied_rows_fails():
     assert _tied_max(3.0).tensor("W").failed > 0
+
+
+@pytest.mark.parametrize("dtype", [np.float64, np.float32])
+def test_a_gradient_for_a_param_forward_ignores_fails(dtype):
+    """The loss never changes as ``unused`` moves, so its derivative is 0 (the loss does not
+    depend on it); a backward that gives it a gradient fails, in float32 too (a loss that does
+    not change is rounding only where larger steps saw it change)."""
+    w = np.array([0.3, -0.2], dtype=dtype)
+
+    def forward(p, i):
+        return np.sum(p["w"] ** 2, dtype=dtype)
+
+    def backward(p, i):
+        return {"w": 2 * p["w"], "unused": np.full(3, 0.25, dtype=dtype)}
+
+    report = probe(forward, backward, {"w": w, "unused": np.array([1.0, 2.0, 3.0], dtype=dtype)})
+    assert report.tensor("unused").status == "fail", render_text(report)
+    assert report.tensor("w").status == "pass"

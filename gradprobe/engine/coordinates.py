@@ -28,6 +28,11 @@ MAX_UP = 24  # steps grow at most 2**24-fold to beat rounding noise
 GAP_SUSPECT = 0.1  # one-sided slopes 10% apart: look for a kink
 RETRY_SHIFT = 6  # a second ladder starts 2**6 steps higher (noise) or lower (curvature)
 RECHECK_LIMIT = 400  # coordinates per tensor re-estimated on a ladder
+BOTH_SIDES = 0.1
+ABSORBED = (
+    "the loss does not change at all at the steps a decision needs, though it does at larger "
+    "ones: rounding in forward absorbs them (sums of much larger terms?)"
+)
 RICHARDSON_START = 2.0**-7  # relative first step of --method richardson (3 rows, 6 calls)
 
 
@@ -225,7 +230,26 @@ def _central(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
     if todo.size > RECHECK_LIMIT:  # the worst first, within budget
         todo = np.sort(todo[np.argsort(-np.abs(a[todo] - c[todo]), kind="stable")[:RECHECK_LIMIT]])
     start = _start_steps(probe, flat[todo], _pick(first, todo), h[todo])
-    return judged.merged(todo, _ladder_verdicts(probe, flat[todo], start))
+    return _unabsorbed(probe, judged.merged(todo, _ladder_verdicts(probe, flat[todo], start)), first)
+
+
+def _unabsorbed(probe: TensorProbe, judged: Judged, first: Pairs) -> Judged:
+    """A failure read off a loss that did not change at all (an estimate of exactly 0),
+    where the first pair saw it change on both sides alike (the smaller change at least
+    BOTH_SIDES of the larger, as slope and curvature give), is rounding in forward absorbing the
+    smaller steps (float32 sums of much larger terms), not evidence of a derivative of 0.
+    (A loss flat near the point, a unit switched off, changes on one side only: the step
+    that reached the kink.)"""
+    first_central = first.central
+    up, down = np.abs(first.f_plus - probe.f0), np.abs(first.f_minus - probe.f0)
+    both = (np.minimum(up, down) >= BOTH_SIDES * np.maximum(up, down)) & (first_central != 0.0)
+    absorbed = np.flatnonzero((judged.status == FAIL) & (judged.estimate.value == 0.0) & both)
+    if absorbed.size == 0:
+        return judged
+    undecided = Judged(np.full(absorbed.size, INCONCLUSIVE, dtype=judged.status.dtype),
+                       Estimate(first_central[absorbed], np.full(absorbed.size, np.inf)),
+                       (ABSORBED,) * absorbed.size, np.ones(absorbed.size, dtype=bool))
+    return judged.merged(absorbed, undecided)
 
 
 def _richardson(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
