@@ -331,3 +331,27 @@ def test_a_gradient_for_a_param_forward_ignores_fails(dtype):
     report = probe(forward, backward, {"w": w, "unused": np.array([1.0, 2.0, 3.0], dtype=dtype)})
     assert report.tensor("unused").status == "fail", render_text(report)
     assert report.tensor("w").status == "pass"
+
+
+def _near_kink_under_rounding(factor):
+    """10 + 1e-3 * sum(sin w) + 5 relu(w0) at w0 = -1e-7: the loss rounds at ~1e-15, so a
+    step that stays left of the kink (< 1e-7) cannot resolve the 1e-6 threshold, and a
+    two-sided step crosses the kink. d sin/dw = cos (sympy)."""
+    w = np.array([-1e-7, 0.8, -1.1])
+    slope = sympy.lambdify(w_sym, sympy.diff(sympy.sin(w_sym), w_sym), "numpy")
+
+    def forward(p, i):
+        return float(10.0 + 1e-3 * np.sum(np.sin(p["w"])) + 5.0 * max(p["w"][0], 0.0))
+
+    def backward(p, i):
+        g = 1e-3 * slope(p["w"]) + 5.0 * (p["w"] > 0) * np.array([1.0, 0.0, 0.0])
+        g[0] *= factor
+        return {"w": g}
+
+    return probe(forward, backward, {"w": w})
+
+
+def test_a_kink_near_the_point_under_heavy_rounding_is_decided_by_its_clean_side():
+    report = _near_kink_under_rounding(1.0)
+    assert report.tensor("w").status == "pass", render_text(report)
+    assert _near_kink_under_rounding(1.01).tensor("w").bad_indices == ((0,),)

@@ -95,15 +95,22 @@ def tiny_pair(probe: TensorProbe, flat: np.ndarray, smallest: np.ndarray, jump: 
 
 SIDE_ROWS = 5
 SIDE_RATIO = 4.0
+SIDE_NOISE = 1024.0
 
 
 def one_sided(probe: TensorProbe, flat: np.ndarray, smallest: np.ndarray, sign: float) -> Estimate:
-    """The derivative from one side only, on steps growing 4-fold from ``smallest`` (as far
-    as the params' own scale): for a point beside a kink, the side away from it reaches
+    """The derivative from one side only, on steps growing 4-fold from ``smallest``, or from
+    the step that beats rounding noise where that is larger (as far as the params' own
+    scale): for a point beside a kink, the side away from it reaches
     steps large enough to beat rounding noise, which a two-sided ladder cannot."""
     n = flat.size
     cap = np.maximum(np.abs(probe.x[flat].astype(np.float64)), probe.x_scale)
-    top = np.minimum(smallest * SIDE_RATIO ** (SIDE_ROWS - 1), np.maximum(cap, smallest))
+    # The top step beats rounding noise: its quotient's noise is a SIDE_NOISE-th of the
+    # tolerance (the tableau's bound is built from the rows below it, each noisier).
+    tol = probe.tolerance(flat, probe.a[flat])
+    beats_noise = SIDE_NOISE * 2.0 * probe.loss_noise(np.full(n, probe.f0)) / np.maximum(tol, 1e-300)
+    top = np.minimum(np.maximum(smallest * SIDE_RATIO ** (SIDE_ROWS - 1), beats_noise),
+                     np.maximum(cap, smallest))
     steps = np.concatenate([top / SIDE_RATIO**k for k in range(SIDE_ROWS)])
     values, moved = probe.one_side(np.tile(flat, SIDE_ROWS), steps, sign)
     values, moved = values.reshape(SIDE_ROWS, n), moved.reshape(SIDE_ROWS, n)
