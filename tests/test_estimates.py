@@ -88,3 +88,20 @@ def test_a_one_percent_error_fails_over_decades_of_scale(name):
         out = check_coordinates(make_probe(loss, points, 1.01 * ref), np.arange(points.size))
         wrong = ref != 0  # tanh saturates: its derivative is 0 even at 50 digits there
         assert np.all(out.status[wrong] == FAIL), (s, c, offset, out.status.tolist())
+
+
+@pytest.mark.parametrize("rows", [3, 4, 5])
+def test_quotients_that_agree_by_a_coincidence_of_orders_are_not_trusted(rows):
+    """Central quotients Q(h) = D + c2 h**2 + c4 h**4 (the expansion Richardson's tableau
+    assumes, common practice) with c2 = -c4 (h0**2 + h1**2): the first two rows agree exactly,
+    though neither is D. The bound of whatever the tableau returns must cover its distance
+    from D once a smaller step shows the quotients moving."""
+    from gradprobe.engine.ladder import tableau
+
+    d, c4, h0 = 1.3335, 40.0, 2.0**-7
+    steps = h0 / 2.0 ** np.arange(rows)
+    c2 = -c4 * (steps[0] ** 2 + steps[1] ** 2)
+    q = (d + c2 * steps**2 + c4 * steps**4)[:, None]
+    est = tableau(q, np.full_like(q, 1e-16), 2.0, 2)
+    assert q[0, 0] == pytest.approx(q[1, 0], rel=1e-15, abs=0)
+    assert abs(est.value[0] - d) <= est.error[0]

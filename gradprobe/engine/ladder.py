@@ -83,6 +83,13 @@ def tableau(quotients: np.ndarray, noise: np.ndarray, ratio: float, order_step: 
             cur_t = [quotients[k]]
             cur_n = [noise[k]]
             if k >= 1:
+                # A smaller step's quotient is nearer the derivative than the larger one's,
+                # wherever the tableau's assumptions hold: one that moves further from the
+                # estimate taken so far than the previous quotient (beyond noise) shows that
+                # the estimate's agreement was a coincidence of orders, not convergence.
+                away = np.abs(cur_t[0] - best) - np.abs(prev_t[0] - best)
+                contradicted = away > error + NOISE_UNITS * (cur_n[0] + prev_n[0])
+                error = np.where(contradicted, SAFETY * np.abs(cur_t[0] - best) + error, error)
                 spread = np.abs(cur_t[0] - prev_t[0])
                 if k >= 2:
                     spread = np.maximum(spread, np.abs(cur_t[0] - before_t0))
