@@ -256,11 +256,22 @@ def _richardson(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
     """Three rows of a ladder per coordinate (6 calls) from a step sized for a sixth-order
     rule; coordinates whose bound is not far inside the threshold go the central way."""
     h = RICHARDSON_START * np.maximum(1.0, np.abs(probe.x[flat].astype(np.float64)))
-    judged = judge_ladder(probe, flat, climb(probe, flat, h, 3))
+    ladder = climb(probe, flat, h, 3)
+    judged = judge_ladder(probe, flat, ladder)
+    if not recheck:
+        return judged
+    # Bounds not far inside the threshold for want of smaller steps (not for rounding, which
+    # smaller steps only make worse): the same ladder two rows further down (4 calls).
+    short = judged.estimate.error > SETTLE_FRACTION * probe.tolerance(flat, judged.estimate.value)
+    wide = np.flatnonzero(short & ~judged.noise_limited)
+    if wide.size:
+        longer = judge_ladder(probe, flat[wide], climb(probe, flat[wide], h[wide], 5, ladder.rows_of(wide)))
+        better = np.flatnonzero((longer.estimate.error < judged.estimate.error[wide]) | (judged.status[wide] != PASS))
+        judged = judged.merged(wide[better], longer.pick(better))
     value = judged.estimate.value
     loose = judged.estimate.error > SETTLE_FRACTION * probe.tolerance(flat, value)
     todo = np.flatnonzero((judged.status != PASS) | loose)
-    if todo.size == 0 or not recheck:
+    if todo.size == 0:
         return judged
     again = _central(probe, flat[todo], recheck)
     keep = (again.status != PASS) | (again.estimate.error < judged.estimate.error[todo])

@@ -52,6 +52,9 @@ class Pairs:
     def central(self) -> np.ndarray:
         return (self.f_plus - self.f_minus) / (self.h_plus + self.h_minus)
 
+    def fields(self) -> tuple[np.ndarray, ...]:
+        return (self.f_plus, self.f_minus, self.h_plus, self.h_minus, self.noise)
+
 
 class TensorProbe:
     """``tensor`` of the target behind ``evaluator``, at flat values ``x`` with analytic ``a``."""

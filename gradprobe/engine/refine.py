@@ -33,10 +33,19 @@ class Ladder:
     noise_share: np.ndarray  # share of the central bound that is rounding noise
     smallest: np.ndarray  # the smallest step of the ladder
     evaluations: int
+    pairs: Pairs | None = None  # every row's pairs, row-major
 
     def pick(self, which: np.ndarray) -> Ladder:
         return Ladder(self.central.pick(which), self.left.pick(which), self.right.pick(which),
                       self.noise_share[which], self.smallest[which], self.evaluations)
+
+    def rows_of(self, which: np.ndarray) -> Pairs:
+        """The pairs of every row for the coordinates at positions ``which``."""
+        assert self.pairs is not None
+        n = self.smallest.size
+        rows = self.pairs.f_plus.size // n
+        index = (np.arange(rows)[:, None] * n + which[None, :]).reshape(-1)
+        return Pairs(*(f[index] for f in self.pairs.fields()))
 
 
 def _quotients(probe: TensorProbe, p: Pairs) -> tuple[np.ndarray, ...]:
@@ -46,12 +55,20 @@ def _quotients(probe: TensorProbe, p: Pairs) -> tuple[np.ndarray, ...]:
     return p.central, 2 * p.noise / width, right, 2 * p.noise / p.h_plus, left, 2 * p.noise / p.h_minus
 
 
-def climb(probe: TensorProbe, flat: np.ndarray, start: np.ndarray, rows: int = ROWS) -> Ladder:
-    """Central and one-sided estimates from steps ``start / RATIO**k``, k < rows."""
+def climb(
+    probe: TensorProbe, flat: np.ndarray, start: np.ndarray, rows: int = ROWS,
+    known: Pairs | None = None,
+) -> Ladder:
+    """Central and one-sided estimates from steps ``start / RATIO**k``, k < rows. ``known``
+    holds the pairs of a ladder's first rows from the same start (row-major), which are
+    not evaluated again."""
     n = flat.size
-    steps = np.concatenate([start / RATIO**k for k in range(rows)])
+    done = 0 if known is None else known.f_plus.size // n
+    steps = np.concatenate([start / RATIO**k for k in range(done, rows)])
     before = probe.evaluator.count
-    p = probe.pairs(np.tile(flat, rows), steps)
+    p = probe.pairs(np.tile(flat, rows - done), steps)
+    if known is not None:
+        p = Pairs(*(np.concatenate([a, b]) for a, b in zip(known.fields(), p.fields())))
     qc, nc, qr, nr, ql, nl = (q.reshape(rows, n) for q in _quotients(probe, p))
     central = tableau(qc, nc, RATIO, 2)
     noise_share = np.minimum(1.0, NOISE_SHARE_UNITS * nc.max(axis=0) / np.maximum(central.error, 1e-300))
@@ -62,6 +79,7 @@ def climb(probe: TensorProbe, flat: np.ndarray, start: np.ndarray, rows: int = R
         noise_share=noise_share,
         smallest=start / RATIO ** (rows - 1),
         evaluations=probe.evaluator.count - before,
+        pairs=p,
     )
 
 
