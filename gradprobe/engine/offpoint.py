@@ -51,8 +51,8 @@ MOVED_FAIL = (
 
 
 class SecondLook:
-    """Checks coordinates of any tensor at two moved points (opposite steps), prepared on
-    first use."""
+    """Checks the kink coordinates of several tensors at two moved points (opposite steps),
+    one point prepared (and kept) at a time."""
 
     def __init__(
         self, forward: Callable[..., Any], backward: Callable[..., Any], point: Point,
@@ -61,7 +61,6 @@ class SecondLook:
         self._forward, self._backward = forward, backward
         self._point = point
         self._threshold, self._seed, self._method = threshold, seed, method
-        self._moved: dict[float, Point | None] = {}
 
     def _moved_values(self, sign: float) -> dict[str, np.ndarray]:
         p = self._point
@@ -79,50 +78,59 @@ class SecondLook:
         return moved
 
     def _prepared(self, sign: float) -> Point | None:
-        if sign not in self._moved:
-            p = self._point
-            params, inputs = p.ws.trees_with(self._moved_values(sign))
-            ws = Workspace(params, inputs)
-            evaluator = p.evaluator.sibling(LossFunction(self._forward, ws, None))
-            try:
-                ready = prepare(self._forward, self._backward, ws, evaluator, self._seed)
-                ready.measure(self._seed)
-            except ProbeError:  # outside the code's domain there: no evidence either way
-                self._moved[sign] = None
-            else:
-                self._moved[sign] = ready
-        return self._moved[sign]
+        p = self._point
+        params, inputs = p.ws.trees_with(self._moved_values(sign))
+        ws = Workspace(params, inputs)
+        evaluator = p.evaluator.sibling(LossFunction(self._forward, ws, None))
+        try:
+            ready = prepare(self._forward, self._backward, ws, evaluator, self._seed)
+            ready.measure(self._seed)
+        except ProbeError:  # outside the code's domain there: no evidence either way
+            return None
+        return ready
 
-    def outcomes(self, name: str, flat: np.ndarray) -> list[CoordinateOutcome]:
-        """The coordinates ``flat`` of ``name`` checked at each moved point usable."""
-        found = []
+    def settle(self, outcomes: dict[str, CoordinateOutcome]) -> dict[str, CoordinateOutcome]:
+        """Of ``outcomes`` (per tensor), those whose kink coordinates fail at a moved point,
+        with those coordinates failed."""
+        kinked = {name: np.flatnonzero(o.status == KINK) for name, o in outcomes.items()}
+        kinked = {name: k for name, k in kinked.items() if k.size}
+        changed: dict[str, CoordinateOutcome] = {}
         for sign in (1.0, -1.0):
             moved = self._prepared(sign)
-            if moved is None or name not in moved.grads.values:
+            if moved is None:
                 continue
-            try:
-                found.append(check_coordinates(moved.probe(name, self._threshold), flat, self._method))
-            except ProbeError:
-                continue
-        return found
+            for name, which in kinked.items():
+                if name not in moved.grads.values:
+                    continue
+                current = changed.get(name, outcomes[name])
+                try:
+                    there = check_coordinates(moved.probe(name, self._threshold),
+                                              current.flat[which], self._method)
+                except ProbeError:
+                    continue
+                merged = _failed_there(current, which, there)
+                if merged is not None:
+                    changed[name] = merged
+            del moved  # one moved copy of the target at a time
+        return changed
 
 
-def settle_kinks(outcome: CoordinateOutcome, look: SecondLook | None, name: str) -> CoordinateOutcome:
-    """``outcome`` with its kink coordinates that fail at a moved point failed (with the
-    numbers of the moved point where they fail worst)."""
-    kinked = np.flatnonzero(outcome.status == KINK)
-    if look is None or kinked.size == 0:
-        return outcome
+def _failed_there(outcome: CoordinateOutcome, which: np.ndarray, there: CoordinateOutcome) -> CoordinateOutcome | None:
+    """``outcome`` with the coordinates at positions ``which`` that fail plainly in ``there``
+    (the same coordinates checked at a moved point) failed, with the moved point's numbers
+    where they fail worst; None when none does."""
+    plain = there.abs > SAFETY * SIGNIFICANCE * there.error_estimate
+    worse = (outcome.status[which] != FAIL) | (there.rel > outcome.rel[which])
+    failed = (there.status == FAIL) & plain & worse
+    if not failed.any():
+        return None
+    where, k = which[failed], np.flatnonzero(failed)
     fields = {f: getattr(outcome, f).copy() for f in
               ("analytic", "numeric", "error_estimate", "rel", "abs", "scale", "status")}
+    for field, values in fields.items():
+        values[where] = getattr(there, field)[k]
     reasons = list(outcome.reasons)
-    for moved in look.outcomes(name, outcome.flat[kinked]):
-        plain = moved.abs > SAFETY * SIGNIFICANCE * moved.error_estimate
-        worse = (fields["status"][kinked] != FAIL) | (moved.rel > fields["rel"][kinked])
-        failed = (moved.status == FAIL) & plain & worse
-        where, k = kinked[failed], np.flatnonzero(failed)
-        for field, values in fields.items():
-            values[where] = getattr(moved, field)[k]
-        for j in where.tolist():
-            reasons[j] = MOVED_FAIL.format(move=MOVE)
-    return replace(outcome, reasons=tuple(reasons), **fields)
+    for j in where.tolist():
+        reasons[j] = MOVED_FAIL.format(move=MOVE)
+    return replace(outcome, reasons=tuple(reasons), evaluations=outcome.evaluations + there.evaluations,
+                   **fields)

@@ -17,11 +17,13 @@ from ..options import CheckOptions, default_threshold
 from ..report import LayerResult, Report, TensorResult
 from ..target import Target
 from ..tensors import INPUT_LAYER, Workspace, is_float, layer_of
+from .coordinates import CoordinateOutcome
 from .evaluate import Backend, Evaluator, LossFunction, Progress
 from .offpoint import SecondLook
 from .point import Point, prepare
+from .status import KINK
 from .summary import problem_result, unknown_result
-from .tensor_check import check_tensor
+from .tensor_check import check_tensor, evidence_of, failed_later
 
 if TYPE_CHECKING:
     from concurrent.futures import Executor
@@ -122,6 +124,23 @@ def _run(
         release()
 
 
+def _second_look(
+    target: Target, options: CheckOptions, point: Point, threshold: float,
+    outcomes: dict[str, CoordinateOutcome], results: list[TensorResult], evidence: list[Evidence],
+) -> None:
+    """Kink coordinates checked again off the kinks (:mod:`.offpoint`); the results and
+    evidence of tensors where some then fail are replaced in place."""
+    kinked = {n: o for n, o in outcomes.items() if np.any(o.status == KINK)}
+    if not kinked:
+        return
+    look = SecondLook(target.forward, target.backward, point, threshold, options.seed, options.method)
+    for name, outcome in look.settle(kinked).items():
+        k = next(i for i, r in enumerate(results) if r.name == name)
+        results[k] = failed_later(results[k], outcome, point.ws.owners[name].dtype)
+        j = next(i for i, e in enumerate(evidence) if e.name == name)
+        evidence[j] = evidence_of(name, results[k].shape, outcome)
+
+
 def _check_all(
     target: Target, options: CheckOptions, point: Point, started: float, clock: Callable[[], float],
 ) -> Report:
@@ -136,10 +155,10 @@ def _check_all(
         if compute_dtype != np.float64:
             notes.append(_threshold_note(compute_dtype, numerics.why))
     point.measure(options.seed)
-    look = SecondLook(target.forward, target.backward, point, threshold, options.seed, options.method)
     total = sum(ws.owners[n].size for n in grads.values)
     results: list[TensorResult] = []
     evidence: list[Evidence] = []
+    outcomes: dict[str, CoordinateOutcome] = {}
     for name in ws.names():
         layer = ws.layer(name)
         if name in grads.problems:
@@ -148,11 +167,13 @@ def _check_all(
             owner = ws.owners[name]
             probe = point.probe(name, threshold)
             result, found, outcome = check_tensor(probe, options, total, owner.shape,
-                                                  ws.layer(name), ws.kind(name), owner.dtype, look)
+                                                  ws.layer(name), ws.kind(name), owner.dtype)
             results.append(result)
             evidence.append(found)
+            outcomes[name] = outcome
             if outcome.note:
                 notes.append(outcome.note)
+    _second_look(target, options, point, threshold, outcomes, results, evidence)
     hints = diagnose(evidence, hint_context(ws))
     results = [replace(r, hint=hints[r.name]) if r.name in hints and r.hint is None else r for r in results]
     for name, (shape, sentence) in grads.unknown.items():

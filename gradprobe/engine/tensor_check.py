@@ -14,7 +14,6 @@ from ..status import Status
 from .coordinates import CoordinateOutcome, check_coordinates
 from .directions import DirectionCheck, check_direction, unit_direction
 from .locate import locate
-from .offpoint import SecondLook, settle_kinks
 from .probe import TensorProbe
 from .sampling import stratified, tensor_rng
 from .status import FAIL
@@ -89,10 +88,10 @@ def _directions(
 
 def check_tensor(
     probe: TensorProbe, options: CheckOptions, total: int, shape: tuple[int, ...],
-    layer: str, kind: str, dtype: np.dtype, look: SecondLook | None = None,
+    layer: str, kind: str, dtype: np.dtype,
 ) -> tuple[TensorResult, Evidence, CoordinateOutcome]:
     """The tensor's result (without a hint), the evidence hints are drawn from, and the
-    coordinate outcome; coordinates at a kink get a second look off it (``look``)."""
+    coordinate outcome."""
     ev = probe.evaluator
     start = ev.count
     n_coords, n_dirs = plan(options, probe.size, total)
@@ -113,13 +112,24 @@ def check_tensor(
             flat = np.union1d(flat, found.candidates)
             unconfirmed = any(c.significant and d.rel_error > probe.threshold
                               for c, d in zip(checks, directions))
-    outcome = settle_kinks(check_coordinates(probe, flat, options.method, options.recheck),
-                           look, probe.tensor)
+    outcome = check_coordinates(probe, flat, options.method, options.recheck)
     result = tensor_result(probe.tensor, layer, kind, shape, dtype, outcome,
                            directions=directions, located_evaluations=located,
                            evaluations=ev.count - start)
     if unconfirmed and result.status in (Status.PASS, Status.KINK):
         result = replace(result, status=Status.INCONCLUSIVE, inconclusive_reason=UNCONFIRMED)
-    evidence = Evidence(probe.tensor, tuple(shape), outcome.flat, outcome.analytic,
-                        outcome.numeric, outcome.status == FAIL)
-    return result, evidence, outcome
+    return result, evidence_of(probe.tensor, shape, outcome), outcome
+
+
+def evidence_of(tensor: str, shape: tuple[int, ...], outcome: CoordinateOutcome) -> Evidence:
+    """What hints are drawn from: the checked coordinates and which of them fail."""
+    return Evidence(tensor, tuple(shape), outcome.flat, outcome.analytic, outcome.numeric,
+                    outcome.status == FAIL)
+
+
+def failed_later(result: TensorResult, outcome: CoordinateOutcome, dtype: np.dtype) -> TensorResult:
+    """``result`` summarised again from ``outcome``, in which more coordinates fail."""
+    return tensor_result(result.name, result.layer, result.kind, result.shape, dtype, outcome,
+                         directions=result.directions,
+                         located_evaluations=result.located_evaluations,
+                         evaluations=(result.evaluations or 0) + outcome.evaluations)
