@@ -22,7 +22,12 @@ from .config import load_config
 from .errors import ProbeError, UsageProblem
 from .options import SETTINGS, CheckOptions, ReportFiles, split_values
 from .report import TargetRun
-from .settings_cli import CheckCommand, effective_settings, setting_options, settings_lines
+from .settings_cli import (
+    CheckCommand,
+    effective_settings,
+    setting_options,
+    settings_lines,
+)
 
 if TYPE_CHECKING:
     from rich.console import Console

@@ -3,8 +3,9 @@ values in force and where each came from, and ``--help --show-settings``."""
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from pathlib import Path
-from typing import Any, Callable
+from typing import Any
 
 import click
 from click.core import ParameterSource

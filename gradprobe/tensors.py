@@ -6,6 +6,7 @@ copies, gives forward/backward read-only views of them, and perturbs the copies 
 
 from __future__ import annotations
 
+import copy
 from collections.abc import Iterator, Mapping
 from typing import Any
 
@@ -99,14 +100,25 @@ class Workspace:
         self.param_names = list(flat_params)
         self._params = set(flat_params)
         self.input_names = list(flat_inputs)
-        self.owners: dict[str, np.ndarray] = {**flat_params, **flat_inputs}
+        self._own({**flat_params, **flat_inputs})
+
+    def _own(self, owners: dict[str, np.ndarray]) -> None:
+        self.owners = owners
         self.views: dict[str, np.ndarray] = {}
         for name, owner in self.owners.items():
             view = owner.view()
             view.flags.writeable = False
             self.views[name] = view
-        self.params_tree = unflatten({n: self.views[n] for n in self.param_names}, params)
-        self.inputs_tree = unflatten({n: self.views[n] for n in self.input_names}, inputs)
+        self.params_tree = unflatten({n: self.views[n] for n in self.param_names}, self._param_shape)
+        self.inputs_tree = unflatten({n: self.views[n] for n in self.input_names}, self._input_shape)
+
+    def replacing(self, replaced: Mapping[str, np.ndarray]) -> Workspace:
+        """The same target at other values of some tensors: a workspace that owns the arrays
+        ``replaced`` (the caller hands them over) and shares every other array with this one
+        (read only for both: only the tensors being perturbed are ever written)."""
+        other = copy.copy(self)
+        other._own({**self.owners, **replaced})
+        return other
 
     def names(self) -> Iterator[str]:
         yield from self.owners

@@ -27,7 +27,6 @@ from typing import Any
 import numpy as np
 
 from ..errors import ProbeError
-from ..tensors import Workspace
 from .coordinates import CoordinateOutcome, check_coordinates
 from .evaluate import LossFunction
 from .point import Point, prepare
@@ -42,6 +41,7 @@ MOVE_STEPS = 8.0  # and at least this many first steps, so that the kinks leave 
 # bend test can sit inside steps grown to beat rounding noise, where the tableau's bound is
 # the least reliable (seen at 3.8 and 5.7 bounds on correct code; planted bugs at 3e3 and up).
 SAFETY = 10.0
+CHUNK = 1 << 16  # elements moved at a time
 
 MOVED_FAIL = (
     "at a kink here; at a point moved off the kinks (every checked tensor moved by about "
@@ -61,32 +61,35 @@ class SecondLook:
         self._forward, self._backward = forward, backward
         self._point = point
         self._threshold, self._seed, self._method = threshold, seed, method
+        self._names = list(point.grads.values)  # the tensors that move: every checked one
 
-    def _moved_values(self, sign: float) -> dict[str, np.ndarray]:
-        p = self._point
-        eps = float(np.finfo(p.numerics.dtype).eps)
-        moved: dict[str, np.ndarray] = {}
-        for name in p.grads.values:
-            x = p.ws.owners[name]
-            values = x.astype(np.float64)
-            rms = float(np.sqrt(np.mean(values**2))) if values.size else 0.0
-            first_step = eps ** (1.0 / 3.0) * np.maximum(1.0, np.abs(values))
-            size = np.maximum(MOVE * np.maximum(np.abs(values), rms), MOVE_STEPS * first_step)
-            rng = tensor_rng(self._seed, name, "second look")
-            direction = rng.choice([-1.0, 1.0], size=values.shape) * rng.uniform(0.5, 1.0, values.shape)
-            moved[name] = (values + sign * direction * size).astype(x.dtype)
-        return moved
+    def _moved(self, name: str, sign: float) -> np.ndarray:
+        """The tensor moved by ``sign`` times its random step, in its own dtype. Built in
+        chunks, so that a large tensor costs one new array and no float64 temporaries."""
+        x = self._point.ws.owners[name].reshape(-1)
+        eps = float(np.finfo(self._point.numerics.dtype).eps)
+        least = MOVE_STEPS * eps ** (1.0 / 3.0)  # times max(1, |x|): the first steps' reach
+        rms = float(np.sqrt(np.mean(np.square(x, dtype=np.float64)))) if x.size else 0.0
+        rng = tensor_rng(self._seed, name, "second look")
+        moved = np.empty_like(x)
+        for lo in range(0, x.size, CHUNK):
+            part = x[lo:lo + CHUNK].astype(np.float64)
+            size = np.maximum(MOVE * np.maximum(np.abs(part), rms), least * np.maximum(np.abs(part), 1.0))
+            u = rng.uniform(-1.0, 1.0, part.size)
+            direction = 0.5 * (u + np.sign(u))  # uniform in (-1, -0.5) and (0.5, 1)
+            moved[lo:lo + CHUNK] = part + sign * direction * size
+        return moved.reshape(self._point.ws.owners[name].shape)
 
-    def _prepared(self, sign: float) -> Point | None:
+    def _prepared(self, sign: float, names: set[str]) -> Point | None:
         p = self._point
-        params, inputs = p.ws.trees_with(self._moved_values(sign))
-        ws = Workspace(params, inputs)
+        ws = p.ws.replacing({name: self._moved(name, sign) for name in self._names})
         evaluator = p.evaluator.sibling(LossFunction(self._forward, ws, None))
         try:
-            ready = prepare(self._forward, self._backward, ws, evaluator, self._seed)
+            ready = prepare(self._forward, self._backward, ws, evaluator, self._seed, scratch=False)
             ready.measure(self._seed)
         except ProbeError:  # outside the code's domain there: no evidence either way
             return None
+        ready.keep_gradients(names)
         return ready
 
     def settle(self, outcomes: dict[str, CoordinateOutcome]) -> dict[str, CoordinateOutcome]:
@@ -95,8 +98,9 @@ class SecondLook:
         kinked = {name: np.flatnonzero(o.status == KINK) for name, o in outcomes.items()}
         kinked = {name: k for name, k in kinked.items() if k.size}
         changed: dict[str, CoordinateOutcome] = {}
+        self._point.keep_gradients(set())  # the check's own are no longer needed
         for sign in (1.0, -1.0):
-            moved = self._prepared(sign)
+            moved = self._prepared(sign, set(kinked))
             if moved is None:
                 continue
             for name, which in kinked.items():

@@ -96,6 +96,13 @@ class Point:
         self.target_scale = max((float(np.sqrt(np.mean(g**2))) for g in self.grads.values.values()
                                  if g.size), default=0.0)
 
+    def keep_gradients(self, names: set[str]) -> None:
+        """Let go of the gradients of every tensor not in ``names`` (memory for a large
+        target once its tensors are checked)."""
+        for d in (self.grads.values, self.numerics.analytic, self.numerics.float32):
+            for name in [n for n in d if n not in names]:
+                del d[name]
+
     def probe(self, name: str, threshold: float) -> TensorProbe:
         n = self.numerics
         return TensorProbe(self.evaluator, name, n.workspace.owners[name].reshape(-1),
@@ -118,12 +125,13 @@ class Point:
 
 def prepare(
     forward: Callable[..., Any], backward: Callable[..., Any], ws: Workspace,
-    evaluator: Evaluator, seed: int,
+    evaluator: Evaluator, seed: int, scratch: bool = True,
 ) -> Point:
     """Preflight, backward and the numeric side's type at the values in ``ws``; the loss's
-    rounding is measured by :meth:`Point.measure` (after the caller picks a backend)."""
+    rounding is measured by :meth:`Point.measure` (after the caller picks a backend).
+    ``scratch`` false skips the copies that name in-place writes (code already checked)."""
     rng = np.random.default_rng(seed)  # grad_output; tensors draw from their own
-    info = inspect_forward(forward, ws, evaluator, rng)
-    grads = validate(call_backward(backward, ws, info.grad_output), ws)
+    info = inspect_forward(forward, ws, evaluator, rng, scratch)
+    grads = validate(call_backward(backward, ws, info.grad_output, scratch), ws)
     numerics = _numerics(backward, ws, evaluator, info, grads)
     return Point(ws, evaluator, info, grads, numerics)

@@ -47,17 +47,26 @@ def _result_dtype(out: Any) -> np.dtype:
     return np.dtype(np.float64)  # Python ints, bools: assume double precision
 
 
+def _trees(ws: Workspace, scratch: bool) -> tuple[Any, Any, dict[str, np.ndarray] | None]:
+    if scratch:
+        return ws.scratch_trees()
+    return ws.params_tree, ws.inputs_tree, None
+
+
 def inspect_forward(
-    forward: Callable[..., Any], ws: Workspace, evaluator: Evaluator, rng: np.random.Generator
+    forward: Callable[..., Any], ws: Workspace, evaluator: Evaluator, rng: np.random.Generator,
+    scratch: bool = True,
 ) -> ForwardInfo:
-    """Two base calls: one on writable scratch copies (to name in-place writes), one on the
-    read-only views; they must agree."""
-    params, inputs, flat = ws.scratch_trees()
+    """Two base calls: one on writable scratch copies (to name in-place writes; with
+    ``scratch`` false, for code already seen not to write, on the read-only views), one on
+    the read-only views; they must agree."""
+    params, inputs, flat = _trees(ws, scratch)
     try:
         out = evaluator.raw(params, inputs)
     except Exception as exc:
         raise UserCodeError(f"forward raised {summarise(exc)}") from exc
-    _name_writes(ws, flat, "forward")
+    if flat is not None:
+        _name_writes(ws, flat, "forward")
     grad_output = None
     shape = np.shape(out) if not isinstance(out, (tuple, list, str, bytes, dict)) else ()
     if int(np.prod(shape, dtype=np.int64)) != 1 and np.ndim(out) > 0:
@@ -81,10 +90,12 @@ def inspect_forward(
 
 
 def call_backward(
-    backward: Callable[..., Any], ws: Workspace, grad_output: np.ndarray | None
+    backward: Callable[..., Any], ws: Workspace, grad_output: np.ndarray | None,
+    scratch: bool = True,
 ) -> Any:
-    """backward on scratch copies; in-place writes are named."""
-    params, inputs, flat = ws.scratch_trees()
+    """backward on scratch copies; in-place writes are named (``scratch`` as for
+    :func:`inspect_forward`)."""
+    params, inputs, flat = _trees(ws, scratch)
     args: tuple[Any, ...] = (params, inputs)
     if grad_output is not None:
         args += (grad_output.copy(),)
@@ -94,5 +105,6 @@ def call_backward(
         raise  # an adapter's own, already one sentence
     except Exception as exc:
         raise UserCodeError(f"backward raised {summarise(exc)}") from exc
-    _name_writes(ws, flat, "backward")
+    if flat is not None:
+        _name_writes(ws, flat, "backward")
     return result
