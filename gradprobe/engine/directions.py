@@ -29,6 +29,7 @@ RATIO = 2.0
 FIRST_STEP = 4.0  # the ladder starts at 4 coordinate steps
 SHRINK = 16.0  # steps shrink this much when a kink is seen
 RETRIES = 2
+WIDE_ROWS = 2  # a widened ladder: its two rows give a bound from their spread
 
 
 @dataclass(frozen=True)
@@ -93,7 +94,7 @@ def check_direction(
         t0 /= SHRINK ** (attempt + 1)
     bound = float(central.error[0])
     if not kink and bound > enough and noise > 0.5 * bound:
-        wide = _ladder(probe, part, u, t0 * SHRINK, rows)  # noise-limited and smooth: larger steps
+        wide = _ladder(probe, part, u, t0 * SHRINK, WIDE_ROWS)  # noise-limited and smooth: larger steps
         wide_gap = abs(float(wide[2].value[0] - wide[1].value[0]))
         if wide_gap <= SIGNIFICANCE * float(wide[1].error[0] + wide[2].error[0]):
             central = Estimate.better(central, wide[0])
