@@ -355,3 +355,28 @@ def test_a_kink_near_the_point_under_heavy_rounding_is_decided_by_its_clean_side
     report = _near_kink_under_rounding(1.0)
     assert report.tensor("w").status == "pass", render_text(report)
     assert _near_kink_under_rounding(1.01).tensor("w").bad_indices == ((0,),)
+
+
+def _float32_tie():
+    """Hourly sensor gains w against targets y in float32: y[0] is w[0] * x[0] rounded to
+    float32, so float32 code sits exactly on the absolute error's kink (np.sign(0) = 0 there),
+    while its float64 run, at the same values, is one float32 rounding (~1e-8) off it."""
+    x = np.array([870.0, 655.5, -912.0], dtype=np.float32)
+    w = np.array([17.1, 12.7, -14.4], dtype=np.float32)
+    y = np.array([w[0] * x[0], 8100.0, 12800.0], dtype=np.float32)
+    assert float(w[0]) * float(x[0]) != float(y[0])  # the float64 run is off the kink
+
+    def forward(p, i):
+        r = p["w"] * i["x"] - i["y"]
+        return np.sum(np.abs(r)) + 0.5 * np.sum(p["w"] ** 2)
+
+    def backward(p, i):  # d|r|/dr = sign(r) (0 at the kink), d(w**2/2)/dw = w
+        return {"w": np.sign(p["w"] * i["x"] - i["y"]) * i["x"] + p["w"]}
+
+    return probe(forward, backward, {"w": w}, {"x": x, "y": y})
+
+
+def test_float32_code_on_a_kink_its_float64_run_just_misses_is_a_kink():
+    report = _float32_tie()
+    t = report.tensor("w")
+    assert t.status == "kink" and t.kink_indices == ((0,),), render_text(report)

@@ -17,10 +17,10 @@ import numpy as np
 from ..errors import BadOutputError, ComplexStepError, UserCodeError
 from .ladder import Estimate
 from .probe import Pairs, TensorProbe
-from .promote import disagreeing
+from .promote import FLOAT32_AGREEMENT, disagreeing
 from .refine import RATIO, ROWS, climb, one_sided
-from .status import FAIL, INCONCLUSIVE, PASS
-from .verdict import Judged, judge_ladder, judge_plain, judge_sides_apart
+from .status import FAIL, INCONCLUSIVE, KINK, PASS
+from .verdict import SIGNIFICANCE, Judged, judge_ladder, judge_plain, judge_sides_apart
 
 SETTLE_FRACTION = 1e-2  # a first estimate this far inside the threshold settles a coordinate
 BEND_LIMIT = 0.05  # the slope may change by 5% across the ladder's first step
@@ -33,6 +33,7 @@ ABSORBED = (
     "the loss does not change at all at the steps a decision needs, though it does at larger "
     "ones: rounding in forward absorbs them (sums of much larger terms?)"
 )
+FLOAT32_STEP = float(np.finfo(np.float32).eps) ** (1.0 / 3.0)  # float32 code's first step
 RICHARDSON_START = 2.0**-7  # relative first step of --method richardson (3 rows, 6 calls)
 
 
@@ -288,21 +289,65 @@ def _outcome(probe: TensorProbe, flat: np.ndarray, judged: Judged, start_count: 
     if probe.float32 is not None:  # float32 code judged on its float64 run
         own = probe.float32
         off = np.flatnonzero(disagreeing(own.a[flat], a, scale))
-        if off.size:  # the float32 value on the float32 code itself (a kink there?)
+        status, numeric, error_estimate = status.copy(), numeric.copy(), error_estimate.copy()
+        if off.size:  # a kink that float32 rounding puts at the point, on the float64 run?
+            sided = _float32_side(probe, flat[off], own.a[flat][off], scale[off])
+            if sided is not None:
+                took, side = sided
+                k = off[took]
+                status[k] = np.maximum(status[k], KINK)
+                numeric[k], error_estimate[k] = side.value, side.error
+                a[k] = own.a[flat][k]
+                off = off[~took]
+        if off.size:  # the float32 value on the float32 code itself
             redo = _central(own, flat[off], True)  # counted with the check's calls
-            status, numeric, error_estimate = status.copy(), numeric.copy(), error_estimate.copy()
             status[off] = np.maximum(status[off], redo.status)
             numeric[off], error_estimate[off] = redo.estimate.value, redo.estimate.error
             a[off] = own.a[flat][off]  # report the value the code returns
             redone = dict(zip(off.tolist(), redo.reasons))
             reasons = tuple(redone.get(k, r) for k, r in enumerate(reasons))
-            scale = probe.denominators(flat, numeric)
+        scale = probe.denominators(flat, numeric)
     err = np.abs(a - numeric)
     return CoordinateOutcome(
         flat=flat, analytic=a, numeric=numeric, error_estimate=error_estimate,
         rel=err / scale, abs=err, scale=scale, status=status,
         reasons=reasons, evaluations=probe.evaluator.count - start_count,
     )
+
+
+def _float32_side(
+    probe: TensorProbe, flat: np.ndarray, float32: np.ndarray, scale: np.ndarray
+) -> tuple[np.ndarray, Estimate] | None:
+    """Which float32 gradients that leave their float64 run are explained by a kink of the
+    float64 run within float32's resolution: at one of the steps float32 code would take
+    (its first step, and 16 and 256 times smaller) the one-sided quotients of the float64 run
+    lie further apart than float32 agreement and than curvature makes them, and the float32
+    value lies between them (float32
+    rounding puts the code on the kink, or on its other side, where the float64 run is just
+    off it). With the estimate each is judged by."""
+    n = flat.size
+    x = np.abs(probe.x[flat].astype(np.float64))
+    steps = np.concatenate([FLOAT32_STEP * np.maximum(1.0, x) / 16.0**k for k in range(3)])
+    p = probe.pairs(np.tile(flat, 3), steps)
+    right = ((p.f_plus - probe.f0) / p.h_plus).reshape(3, n)
+    left = ((probe.f0 - p.f_minus) / p.h_minus).reshape(3, n)
+    noise = (2.0 * p.noise / np.minimum(p.h_plus, p.h_minus)).reshape(3, n)
+    tol = FLOAT32_AGREEMENT * scale
+    # The gap curvature alone would give at each step, from the smallest step's gap.
+    bend = np.abs(right[2] - left[2]) / steps.reshape(3, n)[2]
+    curved = 2.0 * bend * steps.reshape(3, n)
+    curved[2] = 0.0
+    apart = np.abs(right - left) > tol + 2.0 * noise + curved
+    between = (float32 >= np.minimum(left, right) - tol - noise) & (float32 <= np.maximum(left, right) + tol + noise)
+    fits = apart & between
+    took = fits.any(axis=0)
+    if not took.any():
+        return None
+    row = np.argmax(fits, axis=0)  # the largest step that explains it
+    cols = np.arange(n)
+    lv, rv, nv = left[row, cols], right[row, cols], noise[row, cols]
+    nearer = np.where(np.abs(float32 - lv) <= np.abs(float32 - rv), lv, rv)
+    return took, Estimate(nearer[took], nv[took])
 
 
 def _pick(p: Pairs, which: np.ndarray) -> Pairs:
