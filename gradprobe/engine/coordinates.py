@@ -301,10 +301,13 @@ def _outcome(probe: TensorProbe, flat: np.ndarray, judged: Judged, start_count: 
                 off = off[~took]
         if off.size:  # the float32 value on the float32 code itself
             redo = _central(own, flat[off], True)  # counted with the check's calls
+            # The worse verdict stands, with its own reason and numbers.
+            worse = redo.status >= status[off]
             status[off] = np.maximum(status[off], redo.status)
-            numeric[off], error_estimate[off] = redo.estimate.value, redo.estimate.error
+            numeric[off[worse]] = redo.estimate.value[worse]
+            error_estimate[off[worse]] = redo.estimate.error[worse]
             a[off] = own.a[flat][off]  # report the value the code returns
-            redone = dict(zip(off.tolist(), redo.reasons))
+            redone = {k: r for k, r, w in zip(off.tolist(), redo.reasons, worse) if w}
             reasons = tuple(redone.get(k, r) for k, r in enumerate(reasons))
         scale = probe.denominators(flat, numeric)
     err = np.abs(a - numeric)

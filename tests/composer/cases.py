@@ -109,6 +109,8 @@ def problems(report, case: Case) -> list[str]:
     """Every way ``report`` misses the case's expectations (empty: all met)."""
     found: list[str] = []
     by_name = {t.name: t for t in report.tensors}
+    found += [f"{t.name} is inconclusive with no reason given" for t in report.tensors
+              if t.status == "inconclusive" and not t.inconclusive_reason]
     if case.correct:
         for t in report.tensors:
             if t.status == "fail":
