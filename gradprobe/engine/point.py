@@ -9,11 +9,12 @@ it was given; a second look off a kink (:mod:`.offpoint`) prepares a nearby one 
 from __future__ import annotations
 
 from collections.abc import Callable
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
 import numpy as np
 
+from ..errors import ProbeError
 from ..tensors import Workspace, is_float
 from .evaluate import Evaluator, LossFunction
 from .gradients import Gradients, validate
@@ -69,6 +70,9 @@ def _numerics(backward: Callable[..., Any], ws: Workspace, evaluator: Evaluator,
     return Numerics(ws, info.f0, dtype, dtype, {}, {}, why, info.terms)
 
 
+JITTER_ULPS = 4.0  # units in the last place every checked tensor moves to measure the jitter
+
+
 @dataclass
 class Point:
     """One set of values of a target, ready to be probed tensor by tensor."""
@@ -78,8 +82,10 @@ class Point:
     info: ForwardInfo
     grads: Gradients
     numerics: Numerics
+    backward: Callable[..., Any] | None = None
     loss_scale: float = 0.0
     target_scale: float = 0.0
+    _jitter: dict[str, np.ndarray] | None = field(default=None, repr=False)
 
     @property
     def gradients(self) -> dict[str, np.ndarray]:
@@ -103,11 +109,46 @@ class Point:
             for name in [n for n in d if n not in names]:
                 del d[name]
 
+    def jitter(self, name: str) -> np.ndarray | None:
+        """How far the analytic gradient moves, per flat coordinate of ``name``, when every
+        checked tensor moves by JITTER_ULPS units in its last place (random signs). Code in
+        floating point returns its formula at values within a few units of the point
+        (backward error analysis), so the analytic value is not defined more finely than
+        this. Measured for the whole target on first use; None if backward fails there."""
+        if self._jitter is None:
+            self._jitter = self._measured_jitter()
+        return self._jitter.get(name)
+
+    def _measured_jitter(self) -> dict[str, np.ndarray]:
+        """min(|g(x + d) - g(x)|, |g(x + 2d) - g(x + d)|): the second pair lies on one side
+        of a kink at the point, so a kink's jump (which the first pair may cross) is not
+        taken for fuzz. Two backward calls."""
+        if self.backward is None:
+            return {}
+        ws = self.numerics.workspace
+        base = self.gradients
+        steps = {}
+        for name in base:
+            x = ws.owners[name]
+            signs = tensor_rng(0, name, "jitter").choice([-1.0, 1.0], size=x.shape)
+            steps[name] = JITTER_ULPS * np.spacing(np.abs(x).astype(x.dtype)) * signs
+        try:
+            near, far = (validate(call_backward(
+                self.backward,
+                ws.replacing({n: (ws.owners[n] + k * d).astype(ws.owners[n].dtype) for n, d in steps.items()}),
+                self.info.grad_output, scratch=False), ws).values for k in (1.0, 2.0))
+        except ProbeError:
+            return {}
+        return {name: np.minimum(np.abs(near[name].reshape(-1) - g),
+                                 np.abs(far[name].reshape(-1) - near[name].reshape(-1)))
+                for name, g in base.items() if name in near and name in far}
+
     def probe(self, name: str, threshold: float) -> TensorProbe:
         n = self.numerics
         return TensorProbe(self.evaluator, name, n.workspace.owners[name].reshape(-1),
                            self.gradients[name], n.f0, n.dtype, threshold, self.target_scale,
-                           loss_scale=self.loss_scale, float32=self._float32_probe(name))
+                           loss_scale=self.loss_scale, float32=self._float32_probe(name),
+                           jitter=lambda: self.jitter(name))
 
     def _float32_probe(self, name: str) -> TensorProbe | None:
         """For float32 code checked on its float64 run: the tensor probed on the float32
@@ -134,4 +175,4 @@ def prepare(
     info = inspect_forward(forward, ws, evaluator, rng, scratch)
     grads = validate(call_backward(backward, ws, info.grad_output, scratch), ws)
     numerics = _numerics(backward, ws, evaluator, info, grads)
-    return Point(ws, evaluator, info, grads, numerics)
+    return Point(ws, evaluator, info, grads, numerics, backward)

@@ -9,6 +9,7 @@ direction (:meth:`TensorProbe.along`), and restrictions to part of the tensor.
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from dataclasses import dataclass
 
 import numpy as np
@@ -71,6 +72,7 @@ class TensorProbe:
         target_scale: float = 0.0,
         loss_scale: float | None = None,
         float32: TensorProbe | None = None,
+        jitter: Callable[[], np.ndarray | None] | None = None,
     ) -> None:
         self.evaluator = evaluator
         self.tensor = tensor
@@ -93,6 +95,9 @@ class TensorProbe:
         # float32 code checked on its float64 run: the same tensor probed on the float32
         # code itself, with the float32 gradient it really returns.
         self.float32 = float32
+        # How far the analytic gradient moves when the point moves by a few units in its
+        # last place (measured on first use, see point.Point.jitter).
+        self.jitter = jitter
 
     @property
     def size(self) -> int:
