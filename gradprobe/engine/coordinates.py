@@ -29,8 +29,8 @@ GAP_SUSPECT = 0.1  # one-sided slopes 10% apart: look for a kink
 RETRY_SHIFT = 6  # a second ladder starts 2**6 steps higher (noise) or lower (curvature)
 RECHECK_LIMIT = 400  # coordinates per tensor re-estimated on a ladder
 FUZZY = (
-    "the analytic gradient moves by more than the discrepancy when the params move by a few "
-    "units in their last place: the backward's value is not defined that finely here"
+    "backward's own rounding varies by as much as the discrepancy between points a few units "
+    "in the last place apart: its value is not defined that finely here"
 )
 BOTH_SIDES = 0.1
 ABSORBED = (
@@ -327,10 +327,10 @@ def _unfuzzed(
     probe: TensorProbe, flat: np.ndarray, a: np.ndarray, numeric: np.ndarray, error: np.ndarray,
     status: np.ndarray, reasons: tuple[str | None, ...],
 ) -> tuple[np.ndarray, tuple[str | None, ...]]:
-    """Failures that the analytic value's own fuzz explains are undecided: where the gradient
-    moves by more than the discrepancy's share when the point moves by a few units in its
-    last place (a loss that sits at the rounding level of its own terms), the backward's
-    value is not defined finely enough for the discrepancy to be a bug's."""
+    """Failures that the analytic value's own fuzz explains are undecided: where backward's
+    rounding varies by the discrepancy's share between points a few units in the last place
+    apart (a loss at the rounding level of its own terms), its value is not defined finely
+    enough for the discrepancy to be a bug's (see point.Point.jitter)."""
     failing = np.flatnonzero(status == FAIL)
     if failing.size == 0 or probe.jitter is None:
         return status, reasons

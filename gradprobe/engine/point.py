@@ -71,6 +71,7 @@ def _numerics(backward: Callable[..., Any], ws: Workspace, evaluator: Evaluator,
 
 
 JITTER_ULPS = 4.0  # units in the last place every checked tensor moves to measure the jitter
+JITTER_SPAN = 5  # backward calls: points x + d ... x + 5d, three second differences
 
 
 @dataclass
@@ -110,19 +111,19 @@ class Point:
                 del d[name]
 
     def jitter(self, name: str) -> np.ndarray | None:
-        """How far the analytic gradient moves, per flat coordinate of ``name``, when every
-        checked tensor moves by JITTER_ULPS units in its last place (random signs). Code in
-        floating point returns its formula at values within a few units of the point
-        (backward error analysis), so the analytic value is not defined more finely than
-        this. Measured for the whole target on first use; None if backward fails there."""
+        """How much backward's rounding varies, per flat coordinate of ``name``, between points
+        JITTER_ULPS units in the last place apart (every checked tensor moved, random signs):
+        the analytic value is not defined more finely than this. Measured for the whole
+        target on first use; None if backward fails there."""
         if self._jitter is None:
             self._jitter = self._measured_jitter()
         return self._jitter.get(name)
 
     def _measured_jitter(self) -> dict[str, np.ndarray]:
-        """min(|g(x + d) - g(x)|, |g(x + 2d) - g(x + d)|): the second pair lies on one side
-        of a kink at the point, so a kink's jump (which the first pair may cross) is not
-        taken for fuzz. Two backward calls."""
+        """The largest of |g(x + (k+2)d) - 2 g(x + (k+1)d) + g(x + kd)|, k = 1..JITTER_SPAN-2:
+        second differences cancel how the gradient really changes along d and keep how its
+        rounding varies from point to point; the points lie on one side of a kink at the
+        point, so a kink's jump is not taken for fuzz. JITTER_SPAN backward calls."""
         if self.backward is None:
             return {}
         ws = self.numerics.workspace
@@ -133,15 +134,18 @@ class Point:
             signs = tensor_rng(0, name, "jitter").choice([-1.0, 1.0], size=x.shape)
             steps[name] = JITTER_ULPS * np.spacing(np.abs(x).astype(x.dtype)) * signs
         try:
-            near, far = (validate(call_backward(
+            seen = [validate(call_backward(
                 self.backward,
                 ws.replacing({n: (ws.owners[n] + k * d).astype(ws.owners[n].dtype) for n, d in steps.items()}),
-                self.info.grad_output, scratch=False), ws).values for k in (1.0, 2.0))
+                self.info.grad_output, scratch=False), ws).values for k in range(1, JITTER_SPAN + 1)]
         except ProbeError:
             return {}
-        return {name: np.minimum(np.abs(near[name].reshape(-1) - g),
-                                 np.abs(far[name].reshape(-1) - near[name].reshape(-1)))
-                for name, g in base.items() if name in near and name in far}
+        fuzz: dict[str, np.ndarray] = {}
+        for name in base:
+            if all(name in g for g in seen):
+                g = [s[name].reshape(-1) for s in seen]
+                fuzz[name] = np.max([np.abs(g[k + 2] - 2.0 * g[k + 1] + g[k]) for k in range(len(g) - 2)], axis=0)
+        return fuzz
 
     def probe(self, name: str, threshold: float) -> TensorProbe:
         n = self.numerics

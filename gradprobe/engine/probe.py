@@ -95,8 +95,8 @@ class TensorProbe:
         # float32 code checked on its float64 run: the same tensor probed on the float32
         # code itself, with the float32 gradient it really returns.
         self.float32 = float32
-        # How far the analytic gradient moves when the point moves by a few units in its
-        # last place (measured on first use, see point.Point.jitter).
+        # How much backward's rounding varies near the point (measured on first use, see
+        # point.Point.jitter).
         self.jitter = jitter
 
     @property
