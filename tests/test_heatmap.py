@@ -61,3 +61,18 @@ def test_maps_fit_the_width():
     assert len(tensor_map(_tensor(errors), 1e-6, colour=False, width=120).plain.splitlines()[1]) == 102
     narrow = tensor_map(_tensor(errors), 1e-6, colour=False, width=60).plain.splitlines()
     assert "each cell is the worst of 1 x 2 elements" in narrow[0] and len(narrow[1]) <= 60
+
+
+def test_a_sampled_tensors_map_holds_only_its_checked_elements():
+    """A 120,000-element weight checked on a sample: the map keeps the sampled elements' errors
+    (the report stays small) and reads as the dense array, NaN where not checked."""
+    from gradprobe import probe
+
+    rng = np.random.default_rng(4)
+    w = rng.normal(size=(300, 400))
+    report = probe(lambda p, i: float(np.sum(np.sin(p["w"]))), lambda p, i: {"w": np.cos(p["w"])},
+                   {"w": w}, sample=24, directions=0)
+    t = report.tensor("w")
+    dense = np.asarray(t.error_map)
+    assert dense.shape == (300, 400) and np.count_nonzero(~np.isnan(dense)) == t.checked == 24
+    assert t.error_map.rel.size == 24  # not a dense array behind it

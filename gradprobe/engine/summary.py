@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
 
 from ..report import CoordinateDetail, DirectionResult, TensorResult
@@ -13,6 +15,23 @@ MAX_LISTED = 100
 
 # The engine's int codes (engine/status.py) in the shared vocabulary.
 STATUS_OF_CODE = {PASS: Status.PASS, KINK: Status.KINK, INCONCLUSIVE: Status.INCONCLUSIVE, FAIL: Status.FAIL}
+
+
+class SparseErrors:
+    """A tensor's relative error per element, held for the checked elements only (a sampled
+    tensor of a million elements keeps its few dozen, not a million NaNs); numpy sees the
+    dense array, NaN where not checked."""
+
+    def __init__(self, shape: tuple[int, ...], flat: np.ndarray, rel: np.ndarray) -> None:
+        self.shape, self.flat, self.rel = tuple(shape), flat, rel
+
+    def __array__(self, dtype: np.dtype | None = None, copy: bool | None = None) -> np.ndarray:
+        dense = np.full(self.shape, np.nan, dtype=dtype or np.float64)
+        dense.reshape(-1)[self.flat] = self.rel
+        return dense
+
+    def __getitem__(self, index: Any) -> Any:
+        return np.asarray(self)[index]
 
 
 def _index(flat: int, shape: tuple[int, ...]) -> tuple[int, ...]:
@@ -76,8 +95,7 @@ def tensor_result(
         worst_noise = float(outcome.error_estimate[k] / outcome.scale[k])
     estimates = outcome.error_estimate[np.isfinite(outcome.error_estimate)]
     failed = int(failing.sum())
-    error_map = np.full(shape, np.nan)
-    error_map.reshape(-1)[outcome.flat] = outcome.rel
+    error_map = SparseErrors(shape, outcome.flat.copy(), outcome.rel.copy())
     inconclusive = int((s == INCONCLUSIVE).sum())
     kinks = int((s == KINK).sum())
     status = status_of(failed, inconclusive, kinks)
