@@ -75,6 +75,7 @@ def test_a_halved_gradient_at_coinciding_kinks_fails_off_the_point():
         assert t.status == "fail", render_text(report)
         assert all("moved off the kinks" in d.reason for d in t.details if d.status == "fail")
     assert report.tensor("w2").status == "pass"
+    assert any(n.startswith("W1, b1: coordinates on a kink here fail at points moved off") for n in report.notes)
     assert all(np.array_equal(params[k], before[k]) for k in params)  # the user's arrays
 
 
@@ -89,6 +90,7 @@ def test_the_same_bug_is_only_a_kink_at_the_point_itself(monkeypatch):
 def test_the_correct_backward_at_coinciding_kinks_is_a_kink():
     report = probe(forward, backward, _zero_start(), INPUTS)
     assert report.ok, render_text(report)
+    assert not any("moved off" in n for n in report.notes)
     assert report.tensor("W1").status == "kink" and report.tensor("b1").status == "kink"
 
 

@@ -19,7 +19,7 @@ from ..target import Target
 from ..tensors import INPUT_LAYER, Workspace, is_float, layer_of
 from .coordinates import CoordinateOutcome
 from .evaluate import Backend, Evaluator, LossFunction, Progress
-from .offpoint import SecondLook
+from .offpoint import MOVE, SecondLook
 from .point import Point, prepare
 from .status import KINK
 from .summary import problem_result, unknown_result
@@ -127,18 +127,25 @@ def _run(
 def _second_look(
     target: Target, options: CheckOptions, point: Point, threshold: float,
     outcomes: dict[str, CoordinateOutcome], results: list[TensorResult], evidence: list[Evidence],
-) -> None:
+) -> str | None:
     """Kink coordinates checked again off the kinks (:mod:`.offpoint`); the results and
-    evidence of tensors where some then fail are replaced in place."""
+    evidence of tensors where some then fail are replaced in place. A note naming them, if
+    any."""
     kinked = {n: o for n, o in outcomes.items() if np.any(o.status == KINK)}
     if not kinked:
-        return
+        return None
     look = SecondLook(target.forward, target.backward, point, threshold, options.seed, options.method)
-    for name, outcome in look.settle(kinked).items():
+    failed = look.settle(kinked)
+    for name, outcome in failed.items():
         k = next(i for i, r in enumerate(results) if r.name == name)
         results[k] = failed_later(results[k], outcome, point.ws.owners[name].dtype)
         j = next(i for i, e in enumerate(evidence) if e.name == name)
         evidence[j] = evidence_of(name, results[k].shape, outcome)
+    if not failed:
+        return None
+    return (f"{', '.join(failed)}: coordinates on a kink here fail at points moved off the kinks "
+            f"(every checked tensor moved by about {MOVE:.0e} of its scale); their numbers "
+            f"are those points'")
 
 
 def _check_all(
@@ -173,7 +180,9 @@ def _check_all(
             outcomes[name] = outcome
             if outcome.note:
                 notes.append(outcome.note)
-    _second_look(target, options, point, threshold, outcomes, results, evidence)
+    moved_note = _second_look(target, options, point, threshold, outcomes, results, evidence)
+    if moved_note:
+        notes.append(moved_note)
     hints = diagnose(evidence, hint_context(ws))
     results = [replace(r, hint=hints[r.name]) if r.name in hints and r.hint is None else r for r in results]
     for name, (shape, sentence) in grads.unknown.items():
