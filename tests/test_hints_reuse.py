@@ -130,14 +130,20 @@ def test_index_along_the_second_axis():
     assert hint is not None and hint.startswith("wrong exactly at the indices along axis 1 that idx")
 
 
-def test_equal_contributions_fit_averaging_as_well_so_no_hint():
-    """When every repeat contributes the same, assigning one equals the mean: two causes."""
-    idx = np.array([0, 1, 1, 2])
-    rows = np.array([[1.0, 2.0], [0.5, -1.0], [0.5, -1.0], [3.0, 1.0]])
+def _assigned_and_summed(idx, rows):
+    """(rows assigned at idx, rows summed at idx) into 3 rows: a wrong and a right gradient."""
     numeric = np.zeros((3, 2))
     np.add.at(numeric, idx, rows)
     analytic = np.zeros((3, 2))
     analytic[idx] = rows
+    return analytic, numeric
+
+
+def test_equal_contributions_fit_averaging_as_well_so_no_hint():
+    """When every repeat contributes the same, assigning one equals the mean: two causes."""
+    idx = np.array([0, 1, 1, 2])
+    rows = np.array([[1.0, 2.0], [0.5, -1.0], [0.5, -1.0], [3.0, 1.0]])
+    analytic, numeric = _assigned_and_summed(idx, rows)
     assert hint_for(_evidence(analytic, numeric), Context(index_inputs={"idx": idx})) is None
 
 
@@ -146,10 +152,7 @@ def test_every_row_repeated_tells_nothing():
     idx = np.array([0, 0, 1, 1, 2, 2])
     rng = np.random.default_rng(8)
     rows = rng.normal(size=(6, 2))
-    numeric = np.zeros((3, 2))
-    np.add.at(numeric, idx, rows)
-    analytic = np.zeros((3, 2))
-    analytic[idx] = rows
+    analytic, numeric = _assigned_and_summed(idx, rows)
     assert hint_for(_evidence(analytic, numeric), Context(index_inputs={"idx": idx})) is None
 
 

@@ -62,8 +62,7 @@ def _bend(probe: TensorProbe, p: Pairs, typical: float | None = None) -> np.ndar
     """How much the slope changes across the step, relative to the coordinate's slope (or
     to ``typical`` where that is larger), with the rounding noise of the one-sided slopes
     taken off (0 where noise hides it)."""
-    right = (p.f_plus - probe.f0) / p.h_plus
-    left = (probe.f0 - p.f_minus) / p.h_minus
+    right, left = p.sides(probe.f0)
     size = np.maximum(np.maximum(np.abs(p.central), np.abs(left)),
                       np.maximum(np.abs(right), typical or probe.tensor_floor))
     noise = 4 * p.noise / np.minimum(p.h_plus, p.h_minus)
@@ -126,8 +125,7 @@ def _largest_smooth_step(probe: TensorProbe, flat: np.ndarray, h: np.ndarray, up
 
 
 def _gap_suspects(probe: TensorProbe, flat: np.ndarray, first: Pairs) -> np.ndarray:
-    right = (first.f_plus - probe.f0) / first.h_plus
-    left = (probe.f0 - first.f_minus) / first.h_minus
+    right, left = first.sides(probe.f0)
     size = np.maximum(np.maximum(np.abs(left), np.abs(right)), probe.floor)
     noise = 4 * first.noise / np.minimum(first.h_plus, first.h_minus)
     return np.abs(right - left) > GAP_SUSPECT * size + noise
@@ -355,15 +353,13 @@ def _float32_side(
     float64 run within float32's resolution: at one of the steps float32 code would take
     (its first step, and 16 and 256 times smaller) the one-sided quotients of the float64 run
     lie further apart than float32 agreement and than curvature makes them, and the float32
-    value lies between them (float32
-    rounding puts the code on the kink, or on its other side, where the float64 run is just
-    off it). With the estimate each is judged by."""
+    value lies between them (float32 rounding puts the code on the kink, or on its other
+    side, where the float64 run is just off it). With the estimate each is judged by."""
     n = flat.size
     x = np.abs(probe.x[flat].astype(np.float64))
     steps = np.concatenate([FLOAT32_STEP * np.maximum(1.0, x) / 16.0**k for k in range(3)])
     p = probe.pairs(np.tile(flat, 3), steps)
-    right = ((p.f_plus - probe.f0) / p.h_plus).reshape(3, n)
-    left = ((probe.f0 - p.f_minus) / p.h_minus).reshape(3, n)
+    right, left = (q.reshape(3, n) for q in p.sides(probe.f0))
     noise = (2.0 * p.noise / np.minimum(p.h_plus, p.h_minus)).reshape(3, n)
     tol = FLOAT32_AGREEMENT * scale
     # The gap curvature alone would give at each step, from the smallest step's gap.

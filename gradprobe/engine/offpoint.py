@@ -98,7 +98,6 @@ class SecondLook:
         kinked = {name: np.flatnonzero(o.status == KINK) for name, o in outcomes.items()}
         kinked = {name: k for name, k in kinked.items() if k.size}
         changed: dict[str, CoordinateOutcome] = {}
-        self._point.keep_gradients(set())  # the check's own are no longer needed
         for sign in (1.0, -1.0):
             moved = self._prepared(sign, set(kinked))
             if moved is None:

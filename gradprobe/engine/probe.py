@@ -53,6 +53,10 @@ class Pairs:
     def central(self) -> np.ndarray:
         return (self.f_plus - self.f_minus) / (self.h_plus + self.h_minus)
 
+    def sides(self, f0: float) -> tuple[np.ndarray, np.ndarray]:
+        """The right and left one-sided quotients about the base loss ``f0``."""
+        return (self.f_plus - f0) / self.h_plus, (f0 - self.f_minus) / self.h_minus
+
     def fields(self) -> tuple[np.ndarray, ...]:
         return (self.f_plus, self.f_minus, self.h_plus, self.h_minus, self.noise)
 

@@ -50,8 +50,7 @@ class Ladder:
 
 def _quotients(probe: TensorProbe, p: Pairs) -> tuple[np.ndarray, ...]:
     width = p.h_plus + p.h_minus
-    right = (p.f_plus - probe.f0) / p.h_plus
-    left = (probe.f0 - p.f_minus) / p.h_minus
+    right, left = p.sides(probe.f0)
     return p.central, 2 * p.noise / width, right, 2 * p.noise / p.h_plus, left, 2 * p.noise / p.h_minus
 
 

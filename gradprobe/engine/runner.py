@@ -135,6 +135,7 @@ def _second_look(
     if not kinked:
         return None
     look = SecondLook(target.forward, target.backward, point, threshold, options.seed, options.method)
+    point.keep_gradients(set())  # the check's own gradients are no longer needed: memory
     failed = look.settle(kinked)
     for name, outcome in failed.items():
         k = next(i for i, r in enumerate(results) if r.name == name)
