@@ -77,6 +77,8 @@ def test_a_halved_gradient_at_coinciding_kinks_fails_off_the_point():
     assert report.tensor("w2").status == "pass"
     assert any(n.startswith("W1, b1: coordinates on a kink here fail at points moved off") for n in report.notes)
     assert all(np.array_equal(params[k], before[k]) for k in params)  # the user's arrays
+    # each call counted once: the tensors' counts add up to no more than the run's
+    assert sum(t.evaluations for t in report.tensors) <= report.evaluations
 
 
 def test_the_same_bug_is_only_a_kink_at_the_point_itself(monkeypatch):

@@ -139,7 +139,7 @@ def _second_look(
     failed = look.settle(kinked)
     for name, outcome in failed.items():
         k = next(i for i, r in enumerate(results) if r.name == name)
-        results[k] = failed_later(results[k], outcome, point.ws.owners[name].dtype)
+        results[k] = failed_later(results[k], outcomes[name], outcome, point.ws.owners[name].dtype)
         j = next(i for i, e in enumerate(evidence) if e.name == name)
         evidence[j] = evidence_of(name, results[k].shape, outcome)
     if not failed:

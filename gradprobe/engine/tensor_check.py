@@ -127,9 +127,11 @@ def evidence_of(tensor: str, shape: tuple[int, ...], outcome: CoordinateOutcome)
                     outcome.status == FAIL)
 
 
-def failed_later(result: TensorResult, outcome: CoordinateOutcome, dtype: np.dtype) -> TensorResult:
-    """``result`` summarised again from ``outcome``, in which more coordinates fail."""
-    return tensor_result(result.name, result.layer, result.kind, result.shape, dtype, outcome,
+def failed_later(result: TensorResult, before: CoordinateOutcome, after: CoordinateOutcome,
+                 dtype: np.dtype) -> TensorResult:
+    """``result`` (summarised from ``before``) summarised again from ``after``, in which more
+    coordinates fail; the calls spent between the two are added to the tensor's count."""
+    return tensor_result(result.name, result.layer, result.kind, result.shape, dtype, after,
                          directions=result.directions,
                          located_evaluations=result.located_evaluations,
-                         evaluations=(result.evaluations or 0) + outcome.evaluations)
+                         evaluations=(result.evaluations or 0) + after.evaluations - before.evaluations)
