@@ -103,7 +103,9 @@ class Workspace:
         self._own({**flat_params, **flat_inputs})
 
     def _own(self, owners: dict[str, np.ndarray]) -> None:
-        self.owners = owners
+        # Arithmetic on a 0-d array gives a numpy scalar, which has no flags and no views:
+        # every owner is an ndarray, whatever shape, however it was computed.
+        self.owners = {n: a if isinstance(a, np.ndarray) else np.asarray(a) for n, a in owners.items()}
         self.views: dict[str, np.ndarray] = {}
         for name, owner in self.owners.items():
             view = owner.view()
