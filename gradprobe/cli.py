@@ -42,7 +42,7 @@ setup() or params, or layers (a stack: every layer's backward is checked on its 
 report says where the error enters); see the README for the protocol. With no TARGET, the targets listed in
 [tool.gradprobe] of the nearest pyproject.toml are checked; its other keys
 ({", ".join(s.config_key for s in SETTINGS)}) set defaults that options override.
---show-settings says which value each setting has and where it came from.
+--settings-in-force says which value each setting has and where it came from.
 
 \b
 Examples:
@@ -54,7 +54,7 @@ Examples:
   gradprobe check samples/sensor_mixer.py --json - | jq .summary
   gradprobe check big_model.py --sample 0 --jobs 2
   gradprobe check nets.mlp:Case --inconclusive fail
-  gradprobe check --show-settings
+  gradprobe check --settings-in-force
 
 \b
 Exit codes: 0 every tensor agrees; 1 at least one tensor disagrees (or is
@@ -162,18 +162,64 @@ def check_one(spec: str, options: CheckOptions, out: Output) -> TargetRun:
     if quiet and (os.environ.get("NO_COLOR") or not stream.isatty()):
         from .render.lines import verdict  # the verdict line alone needs no rich
 
-        click.echo(verdict(report), file=stream)
+        click.echo(verdict(report, named=True), file=stream)
         return TargetRun(spec, EXIT_OK if report.ok else EXIT_FAIL, report=report)
     from .render.terminal import COLOUR, PLAIN, renderables
 
     console = _console(stderr=not out.stdout_free())
     theme = PLAIN if console.no_color else COLOUR
-    for item in renderables(report, theme, quiet=quiet, with_maps=out.maps, width=console.width):
-        console.print(item, crop=False)
+    _show(console, renderables(report, theme, quiet=quiet, with_maps=out.maps, width=console.width))
     return TargetRun(spec, EXIT_OK if report.ok else EXIT_FAIL, report=report)
 
 
-@click.group(context_settings={"help_option_names": ["-h", "--help"]})
+def _show(console: Console, items: Any) -> None:
+    """Print rich renderables; plain output (a pipe, a log) without the trailing spaces that
+    tables pad their cells with."""
+    if not console.no_color or console.is_terminal:
+        for item in items:
+            console.print(item, crop=False)
+        return
+    with console.capture() as captured:
+        for item in items:
+            console.print(item, crop=False)
+    console.file.write("".join(line.rstrip() + "\n" for line in captured.get().splitlines()))
+
+
+def usage_sentence(message: str, command: str) -> str:
+    """click's usage message as one sentence of ours: lower case, its suggestion kept, else
+    where to look (``no such option '--sed' (did you mean '--seed'?)``)."""
+    text = message[:1].lower() + message[1:]
+    text = text.replace(". (Did you mean", " (did you mean").replace(". Did you mean", "; did you mean")
+    if "did you mean" in text:
+        return text
+    return f"{text.rstrip('.')}; see {command} --help."
+
+
+class Command(click.Group):
+    """The ``gradprobe`` group: a usage error is one sentence on standard error and exit 2,
+    not click's usage block."""
+
+    def main(self, args: Any = None, prog_name: str | None = None, complete_var: str | None = None,
+             standalone_mode: bool = True, **extra: Any) -> Any:
+        if not standalone_mode:
+            return super().main(args, prog_name, complete_var, False, **extra)
+        try:
+            code = super().main(args, prog_name, complete_var, False, **extra)
+        except click.UsageError as exc:
+            sub = exc.ctx.command_path.split()[1:] if exc.ctx is not None else []
+            where = " ".join(["gradprobe", *sub])
+            click.echo(f"gradprobe: error: {usage_sentence(exc.format_message(), where)}", err=True)
+            sys.exit(exc.exit_code)
+        except click.ClickException as exc:
+            exc.show()
+            sys.exit(exc.exit_code)
+        except click.Abort:
+            click.echo("gradprobe: interrupted; your arrays are unchanged", err=True)
+            sys.exit(EXIT_INTERRUPTED)
+        sys.exit(code if isinstance(code, int) else 0)
+
+
+@click.group(cls=Command, context_settings={"help_option_names": ["-h", "--help"]})
 @click.version_option(None, "--version", package_name="gradprobe", prog_name="gradprobe",
                       message="%(prog)s %(version)s")
 def cli() -> None:
@@ -195,18 +241,18 @@ def _finish(ctx: click.Context, code: int, **_: Any) -> None:
 @click.option("--quiet", "-q", is_flag=True, help="Print only the verdict line.")
 @click.option("--traceback", "show_traceback", is_flag=True,
               help="Show the full traceback when the check cannot run.")
-@click.option("--show-settings", is_flag=True,
+@click.option("--settings-in-force", is_flag=True,
               help="Print every setting's value and where it came from (command line, "
                    "pyproject.toml or default), then stop; with --help, list them under it.")
 @click.pass_context
 def check_command(ctx: click.Context, targets: tuple[str, ...], show_maps: bool, quiet: bool,
-                  show_traceback: bool, show_settings: bool, **given: Any) -> int:
+                  show_traceback: bool, settings_in_force: bool, **given: Any) -> int:
     try:
         config = load_config(Path.cwd())
         values, origins = effective_settings(ctx, given, config)
         chosen = list(targets) or config.targets(Path.cwd())
         target_origin = "command line" if targets else str(config.path) if chosen else "none"
-        if show_settings:
+        if settings_in_force:
             click.echo("\n".join(settings_lines(values, origins, chosen, target_origin)))
             return EXIT_OK
         if not chosen:
@@ -244,7 +290,7 @@ def _run(chosen: list[str], options: CheckOptions, out: Output) -> int:
         from .render.terminal import COLOUR, PLAIN, run_summary
 
         console = _console(stderr=not out.stdout_free())
-        console.print(run_summary(runs, code, PLAIN if console.no_color else COLOUR), crop=False)
+        _show(console, [run_summary(runs, code, PLAIN if console.no_color else COLOUR)])
     return code
 
 

@@ -3,7 +3,7 @@
 A setting is a field of :class:`CheckOptions` (how to check) or :class:`ReportFiles` (where
 reports go) whose metadata carries its help, its command-line flag and whether the pytest
 fixture takes it. The CLI's options, the ``[tool.gradprobe]`` keys and their types, the
-``--show-settings`` table and the help texts are all derived from :data:`SETTINGS`.
+``--settings-in-force`` table and the help texts are all derived from :data:`SETTINGS`.
 """
 
 from __future__ import annotations

@@ -84,6 +84,13 @@ class TensorResult:
         """No disagreement (an inconclusive tensor is ok unless the run says otherwise)."""
         return self.status is not Status.FAIL
 
+    @property
+    def worst_detail(self) -> CoordinateDetail | None:
+        """The failing coordinate with the largest relative error (its analytic and numeric
+        values answer "what did it expect?"), or None when no coordinate failed."""
+        failing = [d for d in self.details if d.status is Status.FAIL]
+        return max(failing, key=lambda d: d.rel_error) if failing else None
+
 
 @dataclass(frozen=True)
 class LayerResult:

@@ -20,8 +20,25 @@ def check_writable(path: str, what: str) -> None:
               f"the folder {folder} does not exist" if not folder.is_dir() else
               "permission denied" if not os.access(folder, os.W_OK) or
               (target.exists() and not os.access(target, os.W_OK)) else None)
+    if reason is None:
+        reason = _open_fails(target)
     if reason:
-        raise UsageProblem(f"cannot write the {what} to {path} ({reason})", value=path)
+        raise UsageProblem(f"cannot write the {what} to {path} ({reason})", value=path,
+                           fix="name a file in a folder you can write to")
+
+
+def _open_fails(target: Path) -> str | None:
+    """Why ``target`` cannot be opened for writing (permission bits say nothing to root, nor
+    about special file systems), or None; a file made to find out is removed again."""
+    existed = target.exists()
+    try:
+        with open(target, "a"):
+            pass
+    except OSError as exc:
+        return (exc.strerror or str(exc)).lower()
+    if not existed:
+        target.unlink()
+    return None
 
 
 # setting -> option that reproduces it (seed is always stated; jobs does not change results)

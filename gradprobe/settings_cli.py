@@ -1,5 +1,5 @@
 """The settings side of ``gradprobe check``: one click option per declared setting, the
-values in force and where each came from, and ``--help --show-settings``."""
+values in force and where each came from, and ``--help --settings-in-force``."""
 
 from __future__ import annotations
 
@@ -40,15 +40,15 @@ def settings_lines(values: dict, origins: dict, targets: list[str], target_origi
 
 
 class CheckCommand(click.Command):
-    """``check``, whose help also lists the settings in force when --show-settings is given."""
+    """``check``, whose help also lists the settings in force when --settings-in-force is given."""
 
     def parse_args(self, ctx: click.Context, args: list[str]) -> list[str]:
-        ctx.meta["gradprobe.show_settings"] = "--show-settings" in args
+        ctx.meta["gradprobe.settings_in_force"] = "--settings-in-force" in args
         return super().parse_args(ctx, args)
 
     def format_help(self, ctx: click.Context, formatter: click.HelpFormatter) -> None:
         super().format_help(ctx, formatter)
-        if not ctx.meta.get("gradprobe.show_settings"):
+        if not ctx.meta.get("gradprobe.settings_in_force"):
             return
         try:
             config = load_config(Path.cwd())

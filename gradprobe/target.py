@@ -34,6 +34,12 @@ class Target:
     spec: str | None = None  # the entry-point string, when loaded from one
 
 
+MISSING_FIX = {  # what to write when the target lacks one of its functions
+    "forward": "define forward(params, inputs) returning the loss (or an output array)",
+    "backward": ("define backward(params, inputs) returning the loss's gradient as a mapping "
+                 "shaped like params"),
+}
+
 def split_spec(spec: str) -> tuple[str, str | None]:
     """``"nets/mlp.py:case"`` -> ``("nets/mlp.py", "case")``; no ``:NAME`` -> ``(spec, None)``."""
     head, sep, tail = spec.rpartition(":")
@@ -56,14 +62,16 @@ def _call_user(fn: Callable[[], Any], what: str) -> Any:
         who = "the module" if what == "importing it" else what.removeprefix("calling ")
         raise exit_error(exc, who) from exc
     except BaseException as exc:
-        raise TargetLoadError(f"{what} raised {summarise(exc)}", value=fn) from exc
+        raise TargetLoadError(f"{what} raised {summarise(exc)}", value=fn,
+                              fix="fix it there (--traceback shows where)") from exc
 
 
 def _import_file(location: str) -> Any:
     path = Path(location)
     if not path.is_file():
         hint = " (it is a folder)" if path.is_dir() else ""
-        raise TargetLoadError(f"no such file {location}{hint}", value=location)
+        raise TargetLoadError(f"no such file {location}{hint}", value=location,
+                              fix="name a Python file (a path from the current folder) or a module")
     resolved = path.resolve()
     name = "_gradprobe_target_" + f"{zlib.crc32(str(resolved).encode()):08x}"
     spec = importlib.util.spec_from_file_location(name, resolved)
@@ -93,15 +101,17 @@ def _import_module(location: str) -> Any:
             raise TargetLoadError(
                 f"no module named {location} on sys.path or in the current folder "
                 "(name a file as path/to/file.py)",
-                value=location,
+                value=location, fix="",
             ) from exc
-        raise TargetLoadError(f"importing it raised {summarise(exc)}", value=location) from exc
+        raise TargetLoadError(f"importing it raised {summarise(exc)}", value=location,
+                              fix="install the missing module or fix the import") from exc
     except KeyboardInterrupt:
         raise
     except (SystemExit, ExitAttempt) as exc:
         raise exit_error(exc, "the module") from exc
     except BaseException as exc:
-        raise TargetLoadError(f"importing it raised {summarise(exc)}", value=location) from exc
+        raise TargetLoadError(f"importing it raised {summarise(exc)}", value=location,
+                              fix="fix the module so it imports (--traceback shows where)") from exc
     finally:
         _remove_first(sys.path, here)
 
@@ -134,7 +144,8 @@ def resolve_object(spec: str) -> Any:
 
         close = difflib.get_close_matches(attr, _attribute_names(module), n=1)
         tip = f"; did you mean {close[0]!r}?" if close else ""
-        raise TargetLoadError(f"{location} has no attribute {attr!r}{tip}", value=attr)
+        raise TargetLoadError(f"{location} has no attribute {attr!r}{tip}", value=attr,
+                              fix="" if tip else "name a function, class or object it defines")
     obj = getattr(module, attr)
     if isinstance(obj, (type, types.FunctionType)):
         obj = _call_user(obj, f"calling {attr}()")
@@ -146,7 +157,8 @@ def _functions(obj: Any) -> tuple[Callable[..., Any], Callable[..., Any]]:
     for name in ("forward", "backward"):
         fn = _get(obj, name)
         if fn is None:
-            raise TargetLoadError(f"the target has no {name} function", value=name)
+            raise TargetLoadError(f"the target has no {name} function", value=name,
+                                  fix=MISSING_FIX[name])
         if not callable(fn):
             raise TargetLoadError(
                 f"the target's {name} is a {type(fn).__name__}, not a function", value=fn
@@ -164,21 +176,21 @@ def _arrays(obj: Any) -> tuple[Mapping[str, Any], Mapping[str, Any]]:
         if not (isinstance(result, tuple) and len(result) == 2):
             got = f"a tuple of {len(result)}" if isinstance(result, tuple) else type(result).__name__
             raise TargetLoadError(
-                f"setup() must return (params, inputs) but returned {got}", value=result
-            )
+                f"setup() must return (params, inputs) but returned {got}", value=result,
+                fix="return a pair of mappings, e.g. return {'w': w}, {'x': x}")
         params, inputs = result
     else:
         params = _get(obj, "params")
         if params is None:
-            raise TargetLoadError("the target has neither setup() nor params", value=obj)
+            raise TargetLoadError("the target has neither setup() nor params", value=obj,
+                              fix="define setup() returning (params, inputs), or a params mapping")
         inputs = _get(obj, "inputs", None)
         inputs = {} if inputs is None else inputs
     for what, value in (("params", params), ("inputs", inputs)):
         if not isinstance(value, Mapping):
             raise TargetLoadError(
                 f"{what} must be a mapping of name -> array, not {type(value).__name__}",
-                value=value,
-            )
+                value=value, fix="give a dict such as {'w': np.zeros(3)}")
     return params, inputs
 
 

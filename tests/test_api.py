@@ -36,7 +36,10 @@ def test_raise_if_failed_carries_the_per_layer_report():
         gradprobe.raise_if_failed(report)
     first, *rest = str(info.value).splitlines()
     worst = gradprobe.tensors.format_index(report.tensor("W").worst_index)  # all tie at 0.5
-    assert first == f"W disagrees: rel error 5.0e-01 at {worst} > 1e-06"  # |2g - g| / |2g|
+    d = report.tensor("W").worst_detail
+    assert first == (f"W disagrees: rel error 5.0e-01 at {worst} > 1e-06"  # |2g - g| / |2g|
+                     f" (backward gave {d.analytic:.6g}, numeric {d.numeric:.6g})")
+    assert abs(d.analytic - 2 * d.numeric) < 1e-6 * abs(d.analytic)  # what it expected, said
     assert rest[0].startswith("gradprobe · test_api.forward ·")  # named after forward
     assert "analytic is 2 x numeric" in str(info.value)
 

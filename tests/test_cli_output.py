@@ -45,7 +45,7 @@ def test_quiet_prints_only_the_verdict(run_cli):
     result = run_cli("check", str(SAMPLES / "sensor_mixer.py"), "--quiet")
     assert result.exit_code == 0
     assert result.stdout.strip().splitlines() == [result.stdout.strip()]
-    assert result.stdout.startswith("ok  4 tensors agree within 1e-06")
+    assert result.stdout.startswith(f"{SAMPLES / 'sensor_mixer.py'}: agrees · 4 tensors within 1e-06")
 
 
 def test_output_is_plain_when_not_a_terminal(run_cli, monkeypatch):

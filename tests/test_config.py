@@ -44,7 +44,7 @@ def test_config_sets_defaults_and_the_command_line_overrides(run_cli, tmp_path):
         """, off=1.0001)
     assert run_cli("check", "off.py").exit_code == 0  # 1e-4 error within the configured 1e-3
     assert run_cli("check", "off.py", "--fail-above", "1e-6").exit_code == 1
-    settings = run_cli("check", "off.py", "--seed", "8", "--show-settings").output
+    settings = run_cli("check", "off.py", "--seed", "8", "--settings-in-force").output
     lines = {line.split()[0]: line for line in settings.splitlines()[1:]}
     assert lines["threshold"].split()[1:] == ["0.001", str(tmp_path / "pyproject.toml")]
     assert lines["seed"].split()[1:] == ["8", "command", "line"]
@@ -112,13 +112,13 @@ def test_configured_file_targets_resolve_from_the_pyprojects_folder(run_cli, tmp
 
 def test_help_says_where_settings_come_from(run_cli, tmp_path):
     text = run_cli("check", "--help").output
-    assert "[tool.gradprobe]" in text and "--show-settings" in text and "--junit" in text
+    assert "[tool.gradprobe]" in text and "--settings-in-force" in text and "--junit" in text
     assert "Settings in force" not in text
     _project(tmp_path, """
         [tool.gradprobe]
         seed = 5
         """)
-    asked = run_cli("check", "--help", "--show-settings").output
+    asked = run_cli("check", "--help", "--settings-in-force").output
     section = asked[asked.index("Settings in force"):]
     seed_line = next(line for line in section.splitlines() if line.split()[:1] == ["seed"])
     assert seed_line.split()[1:] == ["5", str(tmp_path / "pyproject.toml")]

@@ -41,7 +41,8 @@ def test_no_target_anywhere(run_cli, tmp_path):
 def test_missing_file(run_cli):
     """A target file that does not exist."""
     assert _said(run_cli("check", "missing.py")) == (
-        2, "gradprobe: error: missing.py: no such file missing.py.")
+        2, "gradprobe: error: missing.py: no such file missing.py; name a Python file (a path "
+        "from the current folder) or a module.")
 
 
 def test_missing_attribute_suggests_a_close_name(run_cli, good):

@@ -65,9 +65,9 @@ def test_inconclusive_fail_reaches_the_report(tmp_path):
     assert report.inconclusive_fails and report.ok
 
 
-def test_show_settings_lists_inconclusive_from_the_config(run_cli, tmp_path):
+def test_settings_in_force_lists_inconclusive_from_the_config(run_cli, tmp_path):
     (tmp_path / "pyproject.toml").write_text('[tool.gradprobe]\ninconclusive = "fail"\n')
-    result = run_cli("check", "--show-settings")
+    result = run_cli("check", "--settings-in-force")
     line = next(x for x in result.output.splitlines() if x.startswith("inconclusive"))
     assert line.split()[:2] == ["inconclusive", "'fail'"] and line.endswith("pyproject.toml")
 

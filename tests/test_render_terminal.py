@@ -39,7 +39,7 @@ dense
 inputs
   x              5x3       15/15     7.5e-10         -     2.0e-10   [0, 0]   pass
 note: a note
-FAIL  1 of 3 tensors disagrees beyond 1e-06: dense.W · 51 evaluations in 0.08 s
+DISAGREES · 1 of 3 tensors beyond 1e-06: dense.W · 51 evaluations in 0.08 s
 """
 
 
@@ -50,14 +50,15 @@ def test_plain_table_golden():
 
 
 def test_quiet_is_the_verdict_only():
-    assert render_text(_report(), quiet=True).strip() == verdict(_report())
+    assert render_text(_report(), quiet=True).strip() == verdict(_report(), named=True)
+    assert verdict(_report(), named=True).startswith("nets/mlp.py: DISAGREES · ")  # which target
 
 
 def test_passing_verdict_mentions_kinks():
     w = _report().layers[0].tensors[0]
     fixed = TensorResult(**{**w.__dict__, "status": "pass", "failed": 0, "bad_indices": (), "hint": None})
     report = _report(layers=(LayerResult("dense", (fixed,) + _report().layers[0].tensors[1:]),))
-    assert verdict(report) == "ok  2 tensors agree within 1e-06 (1 at a kink) · 51 evaluations in 0.08 s"
+    assert verdict(report) == "agrees · 2 tensors within 1e-06 (1 at a kink) · 51 evaluations in 0.08 s"
 
 
 def test_colour_theme_styles_status():

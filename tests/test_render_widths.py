@@ -50,7 +50,7 @@ hint for encoder.W_query: analytic is the numeric gradient
 transposed: a transpose is missing or extra (x.T @ d versus
 d.T @ x)
 note: forward computes in float64
-FAIL  1 of 4 tensors disagrees beyond 1e-06: encoder.W_query
+DISAGREES · 1 of 4 tensors beyond 1e-06: encoder.W_query
 """
 
 
@@ -69,7 +69,7 @@ inputs
 hint for encoder.W_query: analytic is the numeric gradient transposed: a
 transpose is missing or extra (x.T @ d versus d.T @ x)
 note: forward computes in float64
-FAIL  1 of 4 tensors disagrees beyond 1e-06: encoder.W_query
+DISAGREES · 1 of 4 tensors beyond 1e-06: encoder.W_query
 """
 
 
@@ -87,7 +87,7 @@ inputs
 hint for encoder.W_query: analytic is the numeric gradient transposed: a transpose is missing or extra (x.T @ d versus
 d.T @ x)
 note: forward computes in float64
-FAIL  1 of 4 tensors disagrees beyond 1e-06: encoder.W_query · 6306 evaluations in 1.25 s
+DISAGREES · 1 of 4 tensors beyond 1e-06: encoder.W_query · 6306 evaluations in 1.25 s
 """
 
 
@@ -108,7 +108,7 @@ def test_no_line_passes_the_width_and_no_number_or_name_is_split(width):
         for index in ("[17, 30]", "[31, 9]", "[9, 3]"):
             assert index in text
     verdict = text.splitlines()[-1]
-    assert verdict.startswith("FAIL  1 of 4 tensors disagrees beyond 1e-06: encoder.W_query")
+    assert verdict.startswith("DISAGREES · 1 of 4 tensors beyond 1e-06: encoder.W_query")
 
 
 def test_a_name_wider_than_the_console_widens_the_table_rather_than_splitting():

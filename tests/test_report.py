@@ -39,7 +39,7 @@ def test_the_verdict_line_names_inconclusive_tensors_that_fail_the_run():
 
     report = _report(_tensor("w", "pass"), _tensor("b", "inconclusive"), fails=True)
     assert verdict(report) == (
-        "FAIL  1 of 2 inconclusive (set to fail the run): b · 10 evaluations in 0.10 s")
+        "DISAGREES · 1 of 2 inconclusive (set to fail the run): b · 10 evaluations in 0.10 s")
 
 
 def test_the_report_model_does_not_import_its_renderers():

@@ -97,7 +97,8 @@ def test_forward_raising_mid_sweep_names_the_coordinate():
     with pytest.raises(UserCodeError) as info:
         probe(fragile, backward, params, inputs)
     assert str(info.value) == (
-        "test_safety.fragile: forward raised ValueError: negative rainfall when layer.W[1, 2] was perturbed.")
+        "test_safety.fragile: forward raised ValueError: negative rainfall when layer.W[1, 2] was perturbed; "
+        "add --traceback to see where in your code, then fix it there.")
 
 
 def test_nondeterministic_forward_is_reported():
@@ -133,14 +134,17 @@ def test_backward_writing_into_a_param_is_named():
         probe(forward, scribbles, params, inputs)
 
 
+SAY_RETURN = "; forward must return a finite scalar loss, or an array of floats of one fixed shape."
+
+
 @pytest.mark.parametrize(
     "value, message",
-    [((1.0, 2.0), "forward returned a tuple, not a number or an array."),
-     ("loss", "forward returned a str, not a number or an array."),
-     (float("nan"), "forward returned 1 non-finite value."),
-     (np.array([1.0, np.inf]), "forward returned 1 non-finite value."),
-     (np.array(["a", "b"]), "forward returned an array of dtype <U1, not numbers."),
-     (None, "forward returned a NoneType, not a number or an array.")],
+    [((1.0, 2.0), "forward returned a tuple, not a number or an array" + SAY_RETURN),
+     ("loss", "forward returned a str, not a number or an array" + SAY_RETURN),
+     (float("nan"), "forward returned 1 non-finite value" + SAY_RETURN),
+     (np.array([1.0, np.inf]), "forward returned 1 non-finite value" + SAY_RETURN),
+     (np.array(["a", "b"]), "forward returned an array of dtype <U1, not numbers" + SAY_RETURN),
+     (None, "forward returned a NoneType, not a number or an array" + SAY_RETURN)],
 )
 def test_unusable_forward_results(value, message):
     params, inputs = _arrays()

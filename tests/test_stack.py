@@ -251,5 +251,5 @@ def test_the_verdict_names_a_layer_wrong_on_its_own_when_nothing_fails_end_to_en
                                                  own_input="d1.x"),),
                     10, 0.0, error_enters_at=("d1",))
     assert not report.ok
-    assert verdict(report).startswith("FAIL  the own backward of d1 is wrong")
+    assert verdict(report).startswith("DISAGREES · the own backward of d1 is wrong")
     assert stack_line(report) == "error enters at d1: its input gradient is wrong"

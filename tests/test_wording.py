@@ -21,8 +21,8 @@ def _one(status: str) -> Report:
 
 
 def test_verdicts_for_one_tensor():
-    assert verdict(_one("pass")) == "ok  1 tensor agrees within 1e-06 · 1 evaluation in 0.00 s"
-    assert verdict(_one("fail")) == "FAIL  1 of 1 tensor disagrees beyond 1e-06: w · 1 evaluation in 0.00 s"
+    assert verdict(_one("pass")) == "agrees · 1 tensor within 1e-06 · 1 evaluation in 0.00 s"
+    assert verdict(_one("fail")) == "DISAGREES · 1 of 1 tensor beyond 1e-06: w · 1 evaluation in 0.00 s"
 
 
 def test_a_sentence_ending_in_a_suggestion_gets_no_full_stop():

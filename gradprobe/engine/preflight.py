@@ -53,6 +53,21 @@ def _trees(ws: Workspace, scratch: bool) -> tuple[Any, Any, dict[str, np.ndarray
     return ws.params_tree, ws.inputs_tree, None
 
 
+SIGNATURES = {
+    "forward": "forward must take (params, inputs)",
+    "backward": "backward must take (params, inputs)",
+    "vjp": "backward must take (params, inputs, grad_output), since forward returns an array",
+}
+
+
+def _signature_fix(exc: Exception, who: str, vjp: bool = False) -> str | None:
+    """For a call that failed on its arguments (a TypeError about how many were given), the
+    signature gradprobe calls it with; None (the error's own fix) otherwise."""
+    if not (isinstance(exc, TypeError) and "positional argument" in str(exc)):
+        return None
+    return SIGNATURES["vjp" if vjp else who]
+
+
 def inspect_forward(
     forward: Callable[..., Any], ws: Workspace, evaluator: Evaluator, rng: np.random.Generator,
     scratch: bool = True,
@@ -64,7 +79,7 @@ def inspect_forward(
     try:
         out = evaluator.raw(params, inputs)
     except Exception as exc:
-        raise UserCodeError(f"forward raised {summarise(exc)}") from exc
+        raise UserCodeError(f"forward raised {summarise(exc)}", fix=_signature_fix(exc, "forward")) from exc
     if flat is not None:
         _name_writes(ws, flat, "forward")
     grad_output = None
@@ -104,7 +119,8 @@ def call_backward(
     except ProbeError:
         raise  # an adapter's own, already one sentence
     except Exception as exc:
-        raise UserCodeError(f"backward raised {summarise(exc)}") from exc
+        raise UserCodeError(f"backward raised {summarise(exc)}",
+                            fix=_signature_fix(exc, "backward", grad_output is not None)) from exc
     if flat is not None:
         _name_writes(ws, flat, "backward")
     return result

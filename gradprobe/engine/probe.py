@@ -172,8 +172,9 @@ class TensorProbe:
             k = int(flat[bad[0]])
             raise BadOutputError(
                 f"forward returned a non-finite value when {self.tensor}[{k}] (flat index) was "
-                f"moved by {float(h[bad[0]]):.3g}, however small the step"
-            )
+                f"moved by {float(h[bad[0]]):.3g}, however small the step",
+                fix="guard what overflows or divides by zero there (exp, log, 1/x) so forward "
+                    "stays finite around the point")
         return p
 
     def _pairs(self, flat: np.ndarray, h: np.ndarray) -> Pairs:

@@ -36,21 +36,21 @@ def natural(column: Column, cells: list[str], short: bool) -> int:
 
 
 def fit(columns: tuple[Column, ...], cells: dict[str, list[str]], width: int,
-        drop_order: tuple[str, ...], hint_after: int) -> Layout:
+        drop_order: tuple[str, ...]) -> Layout:
     """The fullest layout of ``columns`` within ``width``.
 
-    Tried in order: full titles, short titles, then dropping ``drop_order`` one at a time
-    while the hint stays in the table (up to ``hint_after`` drops); then the same with the
-    hints below the table, which leaves more room for the other columns.
+    Tried in order: full titles with the hint in the table, full titles with the hints below
+    it, then short titles and dropping ``drop_order`` one at a time (hints below).
     With no layout fitting, the fewest columns at their natural width (the table is then
     wider than ``width`` rather than split).
     """
     has_hint = "hint" in cells and any(cells["hint"])
     plain = tuple(c for c in columns if c.key != "hint")
     hint = next((c for c in columns if c.key == "hint"), None)
+    # Titles depend on the width alone: a hint goes below the table before any title is
+    # shortened for it, so the same console shows the same titles with or without hints.
     tries: list[tuple[tuple[str, ...], bool, bool]] = [((), False, has_hint)]
-    if has_hint:  # the hint in the table, giving up at most hint_after columns for it
-        tries += [(drop_order[:k], True, True) for k in range(hint_after + 1)]
+    if has_hint:
         tries.append(((), False, False))
     tries += [(drop_order[:k], True, False) for k in range(len(drop_order) + 1)]
     layout = None

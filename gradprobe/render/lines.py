@@ -11,6 +11,7 @@ from ..tensors import format_index
 from ..wording import plural, verb
 
 SEP = " · "
+AGREES, DISAGREES = "agrees", "DISAGREES"  # the verdict line's first word: the run's outcome
 
 
 def header_parts(report: Report) -> list[str]:
@@ -46,21 +47,28 @@ def _names(tensors: tuple[TensorResult, ...], room: int | None) -> str:
     return text + (f" +{len(names) - len(shown)} more" if len(shown) < len(names) else "")
 
 
-def verdict(report: Report, width: int | None = None) -> str:
-    """One line: the outcome, what is wrong and, when it fits ``width``, what it cost."""
+def verdict(report: Report, width: int | None = None, named: bool = False) -> str:
+    """One line: the outcome, what is wrong and, when it fits ``width``, what it cost;
+    ``named`` puts the target first (the line alone, as ``--quiet`` prints it)."""
+    if named:
+        head = f"{report.target}: "
+        return head + _verdict(report, None if width is None else max(width - len(head), 20))
+    return _verdict(report, width)
+
+
+def _verdict(report: Report, width: int | None) -> str:
     n = len(report.tensors)
     cost = f"{plural(report.evaluations, 'evaluation')} in {report.seconds:.2f} s"
     if not report.ok and not report.blocking_tensors:  # a stack layer wrong on its own only
-        line = f"FAIL  the own backward of {', '.join(report.error_enters_at or ())} is wrong"
+        line = f"{DISAGREES}{SEP}the own backward of {', '.join(report.error_enters_at or ())} is wrong"
         return line if width is not None and len(line + SEP + cost) > width else line + SEP + cost
     if not report.ok:
         bad = report.blocking_tensors
         failing = len(report.failing_tensors)
-        parts = ([f"{failing} of {plural(n, 'tensor')} {verb(failing, 'disagrees', 'disagree')} "
-                  f"beyond {report.threshold:g}"] if failing else [])
+        parts = [f"{failing} of {plural(n, 'tensor')} beyond {report.threshold:g}"] if failing else []
         if len(bad) > failing:
             parts.append(f"{len(bad) - failing} of {n} inconclusive (set to fail the run)")
-        head = "FAIL  " + "; ".join(parts) + ": "
+        head = DISAGREES + SEP + "; ".join(parts) + ": "
         full = head + _names(bad, None) + SEP + cost
         if width is None or len(full) <= width:
             return full
@@ -72,7 +80,7 @@ def verdict(report: Report, width: int | None = None) -> str:
     if unsure:
         extras.append(f"{unsure} inconclusive")
     more = f" ({', '.join(extras)})" if extras else ""
-    line = f"ok  {plural(n, 'tensor')} {verb(n, 'agrees', 'agree')} within {report.threshold:g}{more}"
+    line = f"{AGREES}{SEP}{plural(n, 'tensor')} within {report.threshold:g}{more}"
     if width is None or len(line + SEP + cost) <= width:
         return line + SEP + cost
     return line
@@ -95,8 +103,22 @@ def failure_line(report: Report) -> str:
         where += " along a random direction"
     elif worst.worst_index is not None:
         where += f" at {format_index(worst.worst_index)}"
-    return (f"{names} {verb(len(bad), 'disagrees', 'disagree')}: rel error "
+    line = (f"{names} {verb(len(bad), 'disagrees', 'disagree')}: rel error "
             f"{_worst_error(worst):.1e}{where} > {report.threshold:g}")
+    d = worst.worst_detail
+    if d is not None:
+        line += f" (backward gave {d.analytic:.6g}, numeric {d.numeric:.6g})"
+    return line
+
+
+def expected_line(t: TensorResult) -> str | None:
+    """Where a failing tensor is worst, what its backward gave and what the numeric
+    derivative says (``dense.W[1, 0]: backward gave -0.31, numeric 0.31 ± 3.0e-10``)."""
+    d = t.worst_detail
+    if d is None:
+        return None
+    return (f"{t.name}{format_index(d.index)}: backward gave {d.analytic:.6g}, "
+            f"numeric {d.numeric:.6g} ± {d.error_estimate:.1e}")
 
 
 def _worst_error(t: TensorResult) -> float:

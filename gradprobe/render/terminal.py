@@ -24,7 +24,7 @@ from ..tensors import format_index
 from ..wording import plural
 from .columns import Column, Layout, fit
 from .heatmap import maps
-from .lines import header, verdict
+from .lines import expected_line, header, verdict
 from .text import fmt, shape_text
 
 __all__ = ["COLOUR", "PLAIN", "header", "render_text", "renderables", "run_summary", "verdict"]
@@ -63,7 +63,6 @@ COLUMNS = (
 )
 DROP_ORDER = ("shape", "abs", "noise", "checked", "at")  # dropped first to last
 OUTCOME_MIN = 16  # the run summary's outcome column, which wraps the sentence of a failed run
-HINT_AFTER = 0  # columns given up to keep hints in the table (beyond it they go below)
 
 
 
@@ -89,7 +88,7 @@ def layout(report: Report, width: int) -> tuple[Layout, list[dict[str, str]]]:
     rows = [_cells(t) for t in report.tensors]
     cells = {c.key: [r[c.key] for r in rows] for c in COLUMNS}
     cells["name"] += [layer.name for layer in report.layers]
-    return fit(COLUMNS, cells, width, DROP_ORDER, HINT_AFTER), rows
+    return fit(COLUMNS, cells, width, DROP_ORDER), rows
 
 
 class AtLeast:
@@ -138,6 +137,8 @@ def table(report: Report, theme: Theme, width: int = 120) -> tuple[RenderableTyp
             if said and not chosen.hints_inline:
                 label = "hint" if t.hint else "inconclusive"
                 below.append(Whole(Text(_wrap(f"{label} for {t.name}: {said}", width))))
+    expected = [line for t in report.tensors if (line := expected_line(t)) is not None]
+    below += [Whole(Text(_wrap(f"worst of {line}", width))) for line in expected]
     return AtLeast(grid, chosen.width), below
 
 
@@ -199,7 +200,7 @@ def renderables(
     line = stack_line(report)
     if line is not None:
         yield Whole(Text(_wrap(line, width), style=style))
-    yield Whole(Text(verdict(report, width), style=style))
+    yield Whole(Text(verdict(report, width, named=quiet), style=style))
 
 
 def plain_console(file: IO[str], width: int = 120) -> Console:
