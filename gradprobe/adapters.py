@@ -1,7 +1,7 @@
 """Targets from stateful layer objects, without changes to the user's class.
 
 The common object style: ``layer.forward(x)`` returns the output and caches what backward
-needs; ``layer.backward(dout)`` returns the input gradient and stores each parameter's
+needs; ``layer.backward(grad_y)`` returns the input gradient and stores each parameter's
 gradient on the layer (``layer.dW`` for ``layer.W``, or ``layer.grads["W"]`` for
 ``layer.params["W"]``). :func:`layer_target` wraps such a layer: each call puts gradprobe's
 (private, read-only) copies of the parameters on the layer, runs it, and then puts the whole

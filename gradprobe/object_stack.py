@@ -2,9 +2,9 @@
 
     from gradprobe.object_stack import object_stack
 
-    case = object_stack([Affine(4, 8), ReLU(), Affine(8, 3)], SoftmaxLoss(), x, labels)
+    case = object_stack([Dense(4, 8), Rectify(), Dense(8, 3)], ChoiceLoss(), x, labels)
 
-Each layer has ``forward(x)`` (caching what it needs) and ``backward(dout)`` returning the
+Each layer has ``forward(x)`` (caching what it needs) and ``backward(grad_y)`` returning the
 input gradient and storing its parameter gradients on itself; the loss has
 ``forward(scores, labels)`` (or ``forward(scores)``) returning a scalar and ``backward()``
 returning the gradient of the scores. Parameters are found by a trial call: an array attribute
@@ -55,7 +55,7 @@ class ObjectLoss:
 
     def __init__(self, name: str, obj: Any, with_labels: bool) -> None:
         self.name, self.obj, self.with_labels = name, obj, with_labels
-        self._takes_dout = _required_arguments(obj.backward) > 0
+        self._takes_grad = _required_arguments(obj.backward) > 0
 
     def _forward(self, x: Any, inputs: Mapping[str, Any]) -> Any:
         return self.obj.forward(x, inputs[LABELS]) if self.with_labels else self.obj.forward(x)
@@ -68,7 +68,7 @@ class ObjectLoss:
                  grad_y: Any) -> tuple[dict[str, Any], Any]:
         with preserved(self.obj):
             self._forward(x, inputs)
-            if self._takes_dout:
+            if self._takes_grad:
                 return {}, np.array(self.obj.backward(grad_y), copy=True)
             return {}, np.array(self.obj.backward(), copy=True) * grad_y
 

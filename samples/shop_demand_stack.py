@@ -28,7 +28,7 @@ class Dense:
         return {"W": x.T @ grad_y, "b": grad_y.sum(axis=0)}, grad_y @ p["W"].T
 
 
-class Relu:
+class Rectify:
     name = "relu"
 
     def forward(self, p, x, inputs):
@@ -65,7 +65,7 @@ class SquaredError:
         return {}, grad_y * (x - inputs["demand"]) / x.size
 
 
-layers = [Dense("hidden"), Relu(), DenseTanh("trend"), Dense("forecast"), SquaredError()]
+layers = [Dense("hidden"), Rectify(), DenseTanh("trend"), Dense("forecast"), SquaredError()]
 
 
 def setup():

@@ -11,7 +11,7 @@ right. Checked as one flat network, the bug shows up only in the layers *before*
 """
 
 import numpy as np
-from shop_demand_stack import Dense, DenseTanh, Relu, SquaredError, setup  # noqa: F401
+from shop_demand_stack import Dense, DenseTanh, Rectify, SquaredError, setup  # noqa: F401
 
 
 class DenseTanhSlip(DenseTanh):
@@ -21,4 +21,4 @@ class DenseTanhSlip(DenseTanh):
         return {"W": x.T @ dz, "b": dz.sum(axis=0)}, grad_y @ p["W"].T  # bug: dz belongs here
 
 
-layers = [Dense("hidden"), Relu(), DenseTanhSlip("trend"), Dense("forecast"), SquaredError()]
+layers = [Dense("hidden"), Rectify(), DenseTanhSlip("trend"), Dense("forecast"), SquaredError()]

@@ -23,8 +23,8 @@ class PriceResponse:
         self.z = x @ self.W + self.b
         return np.logaddexp(0.0, self.z)  # softplus
 
-    def backward(self, dout):
-        dz = dout / (1.0 + np.exp(-self.z))  # softplus' = sigmoid
+    def backward(self, grad_y):
+        dz = grad_y / (1.0 + np.exp(-self.z))  # softplus' = sigmoid
         self.dW = self.x.T @ dz
         self.db = dz.sum(axis=0)
         return dz @ self.W.T

@@ -25,7 +25,7 @@ class Dense:
         return {"W": gW, "b": g.sum(axis=0)}, gx
 
 
-class Relu:
+class Rectify:
     def __init__(self, name="relu"):
         self.name = name
 
@@ -57,7 +57,7 @@ class SquaredLoss:
         return {}, g * (x - inputs["y"])
 
 
-class SoftmaxLoss:
+class ChoiceLoss:
     """Mean cross-entropy of the scores against integer class labels."""
 
     name = "loss"

@@ -147,7 +147,7 @@ def test_html_setting_in_pyproject_and_an_unwritable_path(run_cli, write_target,
     assert result.exit_code == 2 and not marker.exists()  # refused before the check started
     assert result.output.strip().splitlines()[-1] == (
         "gradprobe: error: cannot write the HTML report to missing/run.html "
-        "(the folder missing does not exist).")
+        "(the folder missing does not exist); name a file in a folder you can write to.")
     (tmp_path / "pyproject.toml").write_text('[tool.gradprobe]\nhtml = "from-config.html"\n')
     assert run_cli("check", str(target)).exit_code == 0
     page = (tmp_path / "from-config.html").read_text()

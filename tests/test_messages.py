@@ -70,7 +70,7 @@ def test_an_unwritable_json_path_fails_before_the_check(run_cli, tmp_path):
     result = run_cli("check", "case.py", "--json", "no/such/folder/r.json")
     assert _said(result) == (2, (
         "gradprobe: error: cannot write the JSON report to no/such/folder/r.json "
-        "(the folder no/such/folder does not exist)."))
+        "(the folder no/such/folder does not exist); name a file in a folder you can write to."))
     assert not (tmp_path / "imported").exists()
 
 
@@ -78,7 +78,8 @@ def test_a_folder_as_junit_path_fails_before_the_check(run_cli, good, tmp_path):
     """--junit naming a folder."""
     (tmp_path / "out").mkdir()
     assert _said(run_cli("check", good, "--junit", "out")) == (
-        2, "gradprobe: error: cannot write the JUnit report to out (it is a folder).")
+        2, "gradprobe: error: cannot write the JUnit report to out (it is a folder); "
+        "name a file in a folder you can write to.")
 
 
 def test_a_writable_report_path_is_not_left_behind_by_the_early_check(run_cli, good, tmp_path):

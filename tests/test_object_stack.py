@@ -14,7 +14,7 @@ from gradprobe.errors import UserCodeError
 from gradprobe.object_stack import object_stack
 
 
-class Affine:
+class Dense:
     """Attribute-style params, a call counter and a cache."""
 
     def __init__(self, n, m, seed, slip=None):
@@ -61,7 +61,7 @@ class BatchNorm:
         return (dxhat - dxhat.mean(axis=0) - self.xhat * (dxhat * self.xhat).mean(axis=0)) / self.std
 
 
-class ReLU:
+class Rectify:
     def forward(self, x):
         self.mask = x > 0
         return x * self.mask
@@ -70,7 +70,7 @@ class ReLU:
         return d * self.mask
 
 
-class SoftmaxCrossEntropy:
+class ChoiceLoss:
     def forward(self, scores, labels):
         z = np.exp(scores - scores.max(axis=1, keepdims=True))
         self.p, self.labels = z / z.sum(axis=1, keepdims=True), labels
@@ -87,7 +87,7 @@ X, LABELS = RNG.normal(size=(8, 4)), RNG.integers(0, 3, size=8)
 
 
 def _network(slip=None):
-    return [Affine(4, 5, 1), BatchNorm(5), ReLU(), Affine(5, 3, 2, slip=slip)], SoftmaxCrossEntropy()
+    return [Dense(4, 5, 1), BatchNorm(5), Rectify(), Dense(5, 3, 2, slip=slip)], ChoiceLoss()
 
 
 def _state(objects):
@@ -102,8 +102,8 @@ def test_a_correct_object_stack_passes_and_is_left_as_it_was():
     report = probe_stack(object_stack(layers, loss, X, LABELS))
     assert report.ok and report.error_enters_at == ()
     assert [layer.name for layer in report.layers] == [
-        "Affine1", "BatchNorm", "ReLU", "Affine2", "SoftmaxCrossEntropy", "inputs"]
-    assert {t.name for t in report.tensors} >= {"Affine1.W", "BatchNorm.gamma", "Affine2.b", "x"}
+        "Dense1", "BatchNorm", "Rectify", "Dense2", "ChoiceLoss", "inputs"]
+    assert {t.name for t in report.tensors} >= {"Dense1.W", "BatchNorm.gamma", "Dense2.b", "x"}
     assert _state([*layers, loss]) == before
     assert layers[0].calls == 1 and not hasattr(layers[3], "dW")
     assert [n for n in report.notes if "taken as state" in n] == [
@@ -115,11 +115,11 @@ def test_a_correct_object_stack_passes_and_is_left_as_it_was():
 def test_a_wrong_object_layer_is_named(slip, wrong_input):
     layers, loss = _network(slip)
     report = probe_stack(object_stack(layers, loss, X, LABELS))
-    assert report.error_enters_at == ("Affine2",)
-    affine2 = next(layer for layer in report.layers if layer.name == "Affine2")
+    assert report.error_enters_at == ("Dense2",)
+    affine2 = next(layer for layer in report.layers if layer.name == "Dense2")
     assert affine2.input_gradient_wrong is wrong_input
     if wrong_input:
-        assert {t.inherited_from for t in report.failing_tensors} == {"Affine2"}
+        assert {t.inherited_from for t in report.failing_tensors} == {"Dense2"}
 
 
 @pytest.mark.parametrize("slip, error", [("raise", UserCodeError), ("interrupt", KeyboardInterrupt)])
@@ -127,7 +127,7 @@ def test_objects_are_restored_when_user_code_fails_or_is_interrupted(slip, error
     layers, loss = _network(slip)
     before = _state([*layers, loss])
     with pytest.raises(error):
-        st = object_stack(layers, loss, X, LABELS, grads={"Affine2": {"W": "dW", "b": "db"}})
+        st = object_stack(layers, loss, X, LABELS, grads={"Dense2": {"W": "dW", "b": "db"}})
         probe_stack(st)
     assert _state([*layers, loss]) == before
 
@@ -142,7 +142,7 @@ def test_single_layer_adapter_with_dict_params_leaves_running_statistics_alone()
 
 
 def test_single_layer_adapter_restores_on_interrupt():
-    layer = Affine(4, 3, 5, slip="interrupt")
+    layer = Dense(4, 3, 5, slip="interrupt")
     before = _state([layer])
     with pytest.raises(KeyboardInterrupt):
         run_check(layer_target(layer, X, {"W": "dW", "b": "db"}))

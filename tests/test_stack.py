@@ -7,7 +7,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from stack_layers import Dense, Relu, SoftmaxLoss, SquaredLoss, Tanh, arrays
+from stack_layers import Dense, Rectify, ChoiceLoss, SquaredLoss, Tanh, arrays
 
 from gradprobe import probe, probe_stack, report_dict
 from gradprobe.errors import BadOutputError, TargetLoadError, UserCodeError
@@ -74,7 +74,7 @@ def test_relu_exactly_at_its_kink_is_a_kink_not_a_bug():
     params, inputs = arrays(widths=(3, 4, 2))
     inputs["x"][0] = 0.0  # shop 0 reports nothing: every pre-activation of row 0 is the bias
     params["d1"]["b"][1] = 0.0  # ... and unit 1's bias is 0: exactly at the ReLU kink
-    report = probe_stack([Dense("d1"), Relu(), Dense("d2"), SquaredLoss()], params, inputs)
+    report = probe_stack([Dense("d1"), Rectify(), Dense("d2"), SquaredLoss()], params, inputs)
     assert report.ok and report.error_enters_at == ()
     relu = next(layer for layer in report.layers if layer.name == "relu")
     assert relu.own == "kink" and relu.own_tensors[0].kink_indices == ((0, 1),)
@@ -84,7 +84,7 @@ def test_a_loss_with_integer_labels_keeps_them_unperturbed():
     params, inputs = arrays(widths=(4, 3), batch=6)
     labels = np.array([0, 2, 1, 1, 0, 2])
     inputs = {"x": inputs["x"], "labels": labels}
-    report = probe_stack([Dense("d1"), SoftmaxLoss()], params, inputs)
+    report = probe_stack([Dense("d1"), ChoiceLoss()], params, inputs)
     assert report.ok and report.error_enters_at == ()
     assert {t.name for t in report.tensors} == {"d1.W", "d1.b", "x"}
     assert labels.tolist() == [0, 2, 1, 1, 0, 2]
