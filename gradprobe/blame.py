@@ -13,6 +13,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass, replace
 
 from .report import LayerResult, Report, TensorResult
+from .status import Status, worst
 from .tensors import INPUT_LAYER
 
 
@@ -23,15 +24,6 @@ class OwnCheck:
     name: str
     report: Report | None
     input_name: str  # the tensor that is the layer's input in that check
-
-
-def verdict(tensors: Sequence[TensorResult]) -> str:
-    """The verdict of a set of tensors: fail, then inconclusive, then kink, else pass."""
-    statuses = {t.status for t in tensors}
-    for status in ("fail", "inconclusive", "kink"):
-        if status in statuses:
-            return status
-    return "pass"
 
 
 def stack_layer(name: str, layers: Sequence[str]) -> str | None:
@@ -66,7 +58,7 @@ def combine(end: Report, checks: Sequence[OwnCheck], seconds: float) -> Report:
     for check in checks:
         tensors = _own_tensors(check)
         owns.append(LayerResult(
-            check.name, (), own=verdict(tensors) if check.report is not None else None,
+            check.name, (), own=worst(t.status for t in tensors) if check.report is not None else None,
             own_tensors=tensors, own_input=check.input_name if check.report else None,
             own_evaluations=check.report.evaluations if check.report else 0))
     grouped: dict[str, list[TensorResult]] = {n: [] for n in names}
@@ -74,8 +66,8 @@ def combine(end: Report, checks: Sequence[OwnCheck], seconds: float) -> Report:
     for t in end.tensors:
         layer = stack_layer(t.name, names) if t.kind == "param" else None
         position = names.index(layer) if layer is not None else -1
-        if t.status == "fail" and t.kind != "unknown":
-            own_wrong = layer is not None and owns[position].own == "fail"
+        if t.status is Status.FAIL and t.kind != "unknown":
+            own_wrong = layer is not None and owns[position].own is Status.FAIL
             source = None if own_wrong else _inherited(position, owns)
             if source is not None:
                 t = replace(t, inherited_from=source, hint=(
@@ -98,6 +90,6 @@ def combine(end: Report, checks: Sequence[OwnCheck], seconds: float) -> Report:
                                   for name, r in own_reports for e in r.errors),
         notes=end.notes + tuple(f"layer {name} on its own: {n}" for name, r in own_reports
                                 for n in r.notes if n not in end.notes),
-        error_enters_at=tuple(o.name for o in owns if o.own == "fail"),
+        error_enters_at=tuple(o.name for o in owns if o.own is Status.FAIL),
         own_evaluations=own_evaluations,
     )

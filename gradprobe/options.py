@@ -151,8 +151,6 @@ class Setting:
     def config_key(self) -> str:
         return self.name
 
-    def default_text(self) -> str:
-        return f"({self.unset})" if self.default is None and self.unset else repr(self.default)
 
 
 def _types(hint: Any) -> tuple[type, ...]:

@@ -98,25 +98,29 @@ class LayerResult:
     tensors: tuple[TensorResult, ...]
     # Stacks only: the verdict of this layer's backward checked on its own, that check's
     # tensors (its params and, named ``own_input``, its input), and what the check cost.
-    own: str | None = None
+    own: Status | None = None
     own_tensors: tuple[TensorResult, ...] = ()
     own_input: str | None = None
     own_evaluations: int = 0
 
+    def __post_init__(self) -> None:
+        if self.own is not None:
+            object.__setattr__(self, "own", Status(self.own))  # plain strings accepted
+
     @property
     def ok(self) -> bool:
         """No tensor of the layer disagrees, and (stacks) its own backward is not wrong."""
-        return all(t.ok for t in self.tensors) and self.own != "fail"
+        return all(t.ok for t in self.tensors) and self.own is not Status.FAIL
 
     @property
     def input_gradient_wrong(self) -> bool:
         """Its own backward returns a wrong gradient for its input (stacks)."""
-        return any(t.status == "fail" for t in self.own_tensors if t.name == self.own_input)
+        return any(t.status is Status.FAIL for t in self.own_tensors if t.name == self.own_input)
 
     @property
     def wrong_param_gradients(self) -> tuple[TensorResult, ...]:
         """Its own params whose gradient its own backward gets wrong (stacks)."""
-        return tuple(t for t in self.own_tensors if t.status == "fail" and t.name != self.own_input)
+        return tuple(t for t in self.own_tensors if t.status is Status.FAIL and t.name != self.own_input)
 
     @property
     def max_rel_error(self) -> float | None:
@@ -161,9 +165,9 @@ class Report:
     def ok(self) -> bool:
         """Nothing disagrees, nothing is inconclusive when that was asked to fail, and (stacks)
         no layer's own backward is wrong."""
-        return not self.blocking_tensors and all(layer.own != "fail" for layer in self.layers)
+        return not self.blocking_tensors and all(layer.own is not Status.FAIL for layer in self.layers)
 
-    def count(self, status: Status | str) -> int:
+    def count(self, status: Status) -> int:
         """How many tensors have ``status``."""
         return sum(1 for t in self.tensors if t.status == status)
 

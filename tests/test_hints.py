@@ -7,7 +7,8 @@ import pytest
 from bugzoo import CASES, Tally
 
 from gradprobe import probe, render_text
-from gradprobe.diagnose import Evidence, HintContext, diagnose, hint_for
+from gradprobe.hints import Context as HintContext
+from gradprobe.hints import Evidence, diagnose, hint_for
 
 
 @pytest.mark.parametrize("make", CASES, ids=lambda make: make.__name__)

@@ -36,7 +36,7 @@ def test_three_rows_reach_1e_10_of_mpmath_and_the_bound_holds(name):
     error = np.abs(ladder.central.value - ref)
     assert np.all(error <= 1e-10 * np.abs(ref)), error / np.abs(ref)
     assert np.all(error <= ladder.central.error)  # the bound holds
-    assert ladder.evaluations == probe.evaluator.count - before == 6 * POINTS.size
+    assert probe.evaluator.count - before == 6 * POINTS.size
 
 
 @pytest.mark.parametrize("name", sorted(SMOOTH))

@@ -66,4 +66,6 @@ def test_colour_theme_styles_status():
     console = Console(file=buffer, width=100, force_terminal=True, color_system="standard")
     for item in renderables(_report(), COLOUR):
         console.print(item)
-    assert "\x1b[" in buffer.getvalue()
+    out = buffer.getvalue()
+    # each status cell in its theme colour (ANSI SGR: 1;31 bold red, 32 green)
+    assert "\x1b[1;31mfail" in out and "\x1b[32mpass" in out

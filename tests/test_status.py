@@ -22,3 +22,11 @@ def test_worst_orders_pass_kink_inconclusive_fail():
 
 def test_worst_of_nothing_is_pass():
     assert worst([]) is Status.PASS
+
+
+def test_statuses_order_by_severity_and_codes_follow_it():
+    from gradprobe.status import FAIL, INCONCLUSIVE, KINK, PASS
+
+    assert Status.PASS < Status.KINK < Status.INCONCLUSIVE < Status.FAIL
+    assert sorted([Status.FAIL, Status.PASS, Status.INCONCLUSIVE, Status.KINK]) == list(Status)
+    assert [Status.of_code(c) for c in (PASS, KINK, INCONCLUSIVE, FAIL)] == list(Status)

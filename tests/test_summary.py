@@ -5,25 +5,35 @@ from __future__ import annotations
 import numpy as np
 
 from gradprobe import Status
-from gradprobe.engine.status import FAIL, INCONCLUSIVE, KINK, PASS
-from gradprobe.engine.summary import STATUS_OF_CODE, problem_result, status_of
+from gradprobe.status import FAIL, INCONCLUSIVE, KINK, PASS
+from gradprobe.engine.coordinates import CoordinateOutcome
+from gradprobe.engine.summary import problem_result, tensor_result
 
 
-def test_every_engine_code_has_a_status():
-    assert STATUS_OF_CODE == {PASS: Status.PASS, KINK: Status.KINK,
-                              INCONCLUSIVE: Status.INCONCLUSIVE, FAIL: Status.FAIL}
+def _outcome(codes: list[int]) -> CoordinateOutcome:
+    n = len(codes)
+    rel = np.linspace(0.1, 0.2, n)
+    return CoordinateOutcome(
+        flat=np.arange(n), analytic=np.ones(n), numeric=np.ones(n) + rel, error_estimate=np.full(n, 1e-9),
+        rel=rel, abs=rel, scale=np.ones(n), status=np.array(codes, dtype=np.int8),
+        reasons=tuple("noise" if c == INCONCLUSIVE else None for c in codes), evaluations=2 * n)
 
 
-def test_a_failure_outranks_inconclusive_and_kinks():
-    assert status_of(failed=1, inconclusive=2, kinks=3) is Status.FAIL
+def _summarised(codes: list[int]) -> Status:
+    return tensor_result("w", "w", "param", (len(codes),), np.dtype(np.float64), _outcome(codes)).status
 
 
-def test_inconclusive_outranks_kinks():
-    assert status_of(failed=0, inconclusive=1, kinks=3) is Status.INCONCLUSIVE
+def test_a_tensor_takes_its_worst_coordinate_s_status():
+    assert _summarised([PASS, KINK, INCONCLUSIVE, FAIL]) is Status.FAIL
+    assert _summarised([KINK, INCONCLUSIVE, PASS]) is Status.INCONCLUSIVE
+    assert _summarised([PASS, KINK]) is Status.KINK
+    assert _summarised([PASS, PASS]) is Status.PASS
 
 
-def test_kinks_alone_are_kink():
-    assert status_of(0, 0, 2) is Status.KINK and status_of(0, 0, 0) is Status.PASS
+def test_listed_coordinates_carry_their_engine_code_s_status():
+    result = tensor_result("w", "w", "param", (3,), np.dtype(np.float64), _outcome([FAIL, PASS, INCONCLUSIVE]))
+    assert [(d.index, d.status) for d in result.details] == [((0,), Status.FAIL), ((2,), Status.INCONCLUSIVE)]
+    assert (result.failed, result.inconclusive, result.inconclusive_reason) == (1, 1, None)
 
 
 def test_a_gradient_that_could_not_be_compared_fails_with_its_sentence():

@@ -19,7 +19,7 @@ from .ladder import Estimate
 from .probe import Pairs, TensorProbe
 from .promote import FLOAT32_AGREEMENT, disagreeing
 from .refine import RATIO, ROWS, climb, one_sided
-from .status import FAIL, INCONCLUSIVE, KINK, PASS
+from ..status import FAIL, INCONCLUSIVE, KINK, PASS
 from .verdict import SIGNIFICANCE, Judged, judge_ladder, judge_plain, judge_sides_apart
 
 SETTLE_FRACTION = 1e-2  # a first estimate this far inside the threshold settles a coordinate

@@ -27,7 +27,6 @@ BUDGET = 1500  # forward evaluations one localisation may spend
 class Located:
     candidates: np.ndarray  # flat indices to confirm coordinate-wise
     evaluations: int
-    complete: bool  # False when the budget or the candidate limit stopped the search
 
 
 def locate(probe: TensorProbe, u: np.ndarray, discrepancy: float, error: float) -> Located:
@@ -36,14 +35,12 @@ def locate(probe: TensorProbe, u: np.ndarray, discrepancy: float, error: float) 
     start = probe.evaluator.count
     stack: list[tuple[int, int, float, float]] = [(0, probe.size, discrepancy, error)]
     found: list[np.ndarray] = []
-    complete = True
     while stack:
         lo, hi, y, err = stack.pop()
         if hi - lo <= LEAF:
             found.append(np.arange(lo, hi, dtype=np.int64))
             continue
         if probe.evaluator.count - start > BUDGET or sum(f.size for f in found) >= MAX_CANDIDATES:
-            complete = False
             break
         mid = (lo + hi) // 2
         part = slice(lo, mid)
@@ -55,4 +52,4 @@ def locate(probe: TensorProbe, u: np.ndarray, discrepancy: float, error: float) 
             if check.kink or abs(yh) > SIGNIFICANCE * eh:
                 stack.append((a, b, yh, eh))
     candidates = np.unique(np.concatenate(found)) if found else np.empty(0, dtype=np.int64)
-    return Located(candidates, probe.evaluator.count - start, complete)
+    return Located(candidates, probe.evaluator.count - start)

@@ -31,7 +31,7 @@ from .coordinates import CoordinateOutcome, check_coordinates
 from .evaluate import LossFunction
 from .point import Point, prepare
 from .sampling import tensor_rng
-from .status import FAIL, KINK
+from ..status import FAIL, KINK
 from .verdict import SIGNIFICANCE
 
 MOVE = 2.0**-10  # of each element's scale (its own size or its tensor's rms)

@@ -19,6 +19,7 @@ from ..tensors import Workspace, is_float
 from .evaluate import Evaluator, LossFunction
 from .gradients import Gradients, validate
 from .noise import measured_loss_scale
+from .precision import narrower_compute_type
 from .preflight import ForwardInfo, call_backward, inspect_forward
 from .probe import ROUNDING_UNITS, TensorProbe
 from .promote import FLOAT32_AGREEMENT, promote
@@ -54,10 +55,6 @@ def _numerics(backward: Callable[..., Any], ws: Workspace, evaluator: Evaluator,
     """The code's compute type (3 calls to look for hidden float32), and float64 numerics
     for float32 code that accepts float64 (1 forward and 1 backward call)."""
     dtype, why = _compute_type(info.out_dtype, ws)
-    from .precision import (
-        narrower_compute_type,  # local: keeps the import graph acyclic
-    )
-
     hidden = narrower_compute_type(evaluator, ws, info.f0, dtype)
     if hidden is not None:
         dtype, why = hidden.dtype, hidden.evidence

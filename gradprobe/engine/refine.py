@@ -32,12 +32,11 @@ class Ladder:
     right: Estimate
     noise_share: np.ndarray  # share of the central bound that is rounding noise
     smallest: np.ndarray  # the smallest step of the ladder
-    evaluations: int
     pairs: Pairs | None = None  # every row's pairs, row-major
 
     def pick(self, which: np.ndarray) -> Ladder:
         return Ladder(self.central.pick(which), self.left.pick(which), self.right.pick(which),
-                      self.noise_share[which], self.smallest[which], self.evaluations)
+                      self.noise_share[which], self.smallest[which])
 
     def rows_of(self, which: np.ndarray) -> Pairs:
         """The pairs of every row for the coordinates at positions ``which``."""
@@ -64,7 +63,6 @@ def climb(
     n = flat.size
     done = 0 if known is None else known.f_plus.size // n
     steps = np.concatenate([start / RATIO**k for k in range(done, rows)])
-    before = probe.evaluator.count
     p = probe.pairs(np.tile(flat, rows - done), steps)
     if known is not None:
         p = Pairs(*(np.concatenate([a, b]) for a, b in zip(known.fields(), p.fields())))
@@ -77,7 +75,6 @@ def climb(
         right=tableau(qr, nr, RATIO, 1),
         noise_share=noise_share,
         smallest=start / RATIO ** (rows - 1),
-        evaluations=probe.evaluator.count - before,
         pairs=p,
     )
 
@@ -91,7 +88,6 @@ class Tiny:
     left: np.ndarray
     central: Estimate
     one_sided_noise: np.ndarray
-    step: np.ndarray
 
     @property
     def gap(self) -> np.ndarray:
@@ -107,7 +103,7 @@ def tiny_pair(probe: TensorProbe, flat: np.ndarray, smallest: np.ndarray, jump: 
     p = probe.pairs(flat, step)
     qc, nc, qr, nr, ql, nl = _quotients(probe, p)
     return Tiny(right=qr, left=ql, central=Estimate(qc, 2.0 * nc),
-                one_sided_noise=np.maximum(nr, nl), step=step)
+                one_sided_noise=np.maximum(nr, nl))
 
 
 SIDE_ROWS = 5

@@ -9,7 +9,8 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from ..diagnose import Evidence, HintContext, diagnose
+from ..hints import Context as HintContext
+from ..hints import Evidence, diagnose
 from ..errors import ProbeError, TargetLoadError
 from ..guard import guarded
 from ..heap import keep_heap, release_heap
@@ -21,7 +22,7 @@ from .coordinates import CoordinateOutcome
 from .evaluate import Backend, Evaluator, LossFunction, Progress
 from .offpoint import MOVE, SecondLook
 from .point import Point, prepare
-from .status import KINK
+from ..status import KINK, Status
 from .summary import problem_result, unknown_result
 from .tensor_check import check_tensor, evidence_of, failed_later
 
@@ -188,7 +189,7 @@ def _check_all(
     results = [replace(r, hint=hints[r.name]) if r.name in hints and r.hint is None else r for r in results]
     for name, (shape, sentence) in grads.unknown.items():
         results.append(unknown_result(name, layer_of(name), shape, sentence))
-    errors = [r.hint for r in results if r.checked == 0 and r.status == "fail" and r.hint]
+    errors = [r.hint for r in results if r.checked == 0 and r.status is Status.FAIL and r.hint]
     return Report(
         target=target.label,
         threshold=threshold,

@@ -7,14 +7,11 @@ from typing import Any
 import numpy as np
 
 from ..report import CoordinateDetail, DirectionResult, TensorResult
-from ..status import Status
 from .coordinates import CoordinateOutcome
-from .status import FAIL, INCONCLUSIVE, KINK, PASS
+from ..status import FAIL, INCONCLUSIVE, KINK, Status
 
 MAX_LISTED = 100
 
-# The engine's int codes (engine/status.py) in the shared vocabulary.
-STATUS_OF_CODE = {PASS: Status.PASS, KINK: Status.KINK, INCONCLUSIVE: Status.INCONCLUSIVE, FAIL: Status.FAIL}
 
 
 class SparseErrors:
@@ -54,19 +51,11 @@ def _details(outcome: CoordinateOutcome, shape: tuple[int, ...]) -> tuple[Coordi
             numeric=float(outcome.numeric[k]),
             error_estimate=float(outcome.error_estimate[k]),
             rel_error=float(outcome.rel[k]),
-            status=STATUS_OF_CODE[int(outcome.status[k])],
+            status=Status.of_code(outcome.status[k]),
             reason=outcome.reasons[k],
         )
         for k in doubtful
     )
-
-
-def status_of(failed: int, inconclusive: int, kinks: int) -> Status:
-    if failed:
-        return Status.FAIL
-    if inconclusive:
-        return Status.INCONCLUSIVE
-    return Status.KINK if kinks else Status.PASS
 
 
 def tensor_result(
@@ -98,7 +87,7 @@ def tensor_result(
     error_map = SparseErrors(shape, outcome.flat.copy(), outcome.rel.copy())
     inconclusive = int((s == INCONCLUSIVE).sum())
     kinks = int((s == KINK).sum())
-    status = status_of(failed, inconclusive, kinks)
+    status = Status.of_code(s.max()) if s.size else Status.PASS
     reason = next((r for r, st in zip(outcome.reasons, s) if st == INCONCLUSIVE and r), None)
     return TensorResult(
         name=name,
@@ -120,7 +109,7 @@ def tensor_result(
         worst_noise=worst_noise,
         details=_details(outcome, shape),
         hint=hint,
-        inconclusive_reason=reason if status == "inconclusive" else None,
+        inconclusive_reason=reason if status is Status.INCONCLUSIVE else None,
         evaluations=outcome.evaluations if evaluations is None else evaluations,
         directions=directions,
         located_evaluations=located_evaluations,

@@ -7,16 +7,15 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from ..diagnose import Evidence
+from ..hints import Evidence
 from ..options import CheckOptions
 from ..report import DirectionResult
-from ..status import Status
 from .coordinates import CoordinateOutcome, check_coordinates
 from .directions import DirectionCheck, check_direction, unit_direction
 from .locate import locate
 from .probe import TensorProbe
 from .sampling import stratified, tensor_rng
-from .status import FAIL
+from ..status import FAIL, Status
 from .summary import tensor_result
 
 if TYPE_CHECKING:

@@ -20,7 +20,7 @@ import numpy as np
 from .ladder import Estimate
 from .probe import TensorProbe
 from .refine import Ladder, tiny_pair
-from .status import FAIL, INCONCLUSIVE, KINK, PASS
+from ..status import FAIL, INCONCLUSIVE, KINK, PASS
 
 SIGNIFICANCE = 3.0  # a discrepancy beyond 3 error bounds is evidence of a bug
 LOPSIDED = 0.01  # a side whose bound is 100 times tighter than the other's has settled

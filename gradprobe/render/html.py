@@ -13,6 +13,7 @@ from collections.abc import Iterable, Sequence
 from html import escape
 
 from ..report import LayerResult, Report, TargetRun, TensorResult
+from ..status import Status
 from ..tensors import format_index
 from ..wording import plural, verb
 from .html_style import CSS
@@ -53,7 +54,7 @@ def _reasons(t: TensorResult) -> list[str]:
     if t.kinks:
         out.append(f"{plural(t.kinks, 'coordinate')} at a kink, where the analytic value lies "
                    f"between the one-sided slopes: {_indices(t.kink_indices, t.kinks)}")
-    unsure = [c for c in t.details if c.status == "inconclusive"]
+    unsure = [c for c in t.details if c.status is Status.INCONCLUSIVE]
     if t.inconclusive:
         listed = "; ".join(f"{format_index(c.index)}: difference {abs(c.analytic - c.numeric):.1e}, "
                            f"error estimate {c.error_estimate:.1e}" for c in unsure[:LISTED])
@@ -75,7 +76,7 @@ def _row(t: TensorResult, k: int) -> str:
     if t.max_rel_error is None and t.directions:
         worst = _num(max(d.rel_error for d in t.directions)) + " (direction)"
     at = format_index(t.worst_index) if t.worst_index is not None else "–"
-    anchor = f'<a href="#{_id(k, t.name)}">' if t.status == "fail" and _has_map(t) else ""
+    anchor = f'<a href="#{_id(k, t.name)}">' if t.status is Status.FAIL and _has_map(t) else ""
     name = f"{anchor}{_e(t.name)}{'</a>' if anchor else ''}"
     reasons = "".join(f"<li>{_e(r)}</li>" for r in _reasons(t))
     return (
@@ -112,7 +113,7 @@ def _figure(t: TensorResult, threshold: float, k: int) -> str:
     picture = tensor_svg(t, threshold)
     rb, cb = picture.block
     block = f"; each cell shows the worst of {rb} × {cb} elements" if rb * cb > 1 else ""
-    worst = [c for c in t.details if c.status == "fail"]
+    worst = [c for c in t.details if c.status is Status.FAIL]
     worst.sort(key=lambda c: -c.rel_error)
     listed = ", ".join(f"{format_index(c.index)} {c.rel_error:.1e}" for c in worst[:LISTED])
     caption = (f'<figcaption><strong class="name">{_e(t.name)}</strong> '

@@ -7,6 +7,7 @@ between parts (or drops its optional tail), so numbers and names are never split
 from __future__ import annotations
 
 from ..report import Report, TensorResult
+from ..status import Status
 from ..tensors import format_index
 from ..wording import plural, verb
 
@@ -74,7 +75,7 @@ def _verdict(report: Report, width: int | None) -> str:
             return full
         return head + _names(bad, width - len(head))
     extras = []
-    kinked, unsure = report.count("kink"), report.count("inconclusive")
+    kinked, unsure = report.count(Status.KINK), report.count(Status.INCONCLUSIVE)
     if kinked:
         extras.append(f"{kinked} at a kink")
     if unsure:

@@ -20,6 +20,7 @@ from rich.table import Table
 from rich.text import Text
 
 from ..report import LayerResult, Report, TargetRun, TensorResult
+from ..status import Status
 from ..tensors import format_index
 from ..wording import plural
 from .columns import Column, Layout, fit
@@ -143,7 +144,7 @@ def table(report: Report, theme: Theme, width: int = 120) -> tuple[RenderableTyp
 
 
 def _what_is_wrong(layer: LayerResult) -> str:
-    wrong = [t for t in layer.own_tensors if t.status == "fail"]
+    wrong = [t for t in layer.own_tensors if t.status is Status.FAIL]
     params = ", ".join(t.name for t in layer.wrong_param_gradients)
     if layer.input_gradient_wrong and params:
         text = f"its input gradient and its parameter gradient of {params} are wrong"
@@ -163,7 +164,7 @@ def stack_line(report: Report) -> str | None:
         return None
     checked = [layer for layer in report.layers if layer.own is not None]
     if not report.error_enters_at:
-        odd = [f"{layer.name} {layer.own}" for layer in checked if layer.own != "pass"]
+        odd = [f"{layer.name} {layer.own}" for layer in checked if layer.own is not Status.PASS]
         more = f" ({', '.join(odd)})" if odd else ""
         line = f"layers on their own: all {len(checked)} agree{more}"
     else:
