@@ -84,7 +84,7 @@ def test_a_halved_gradient_at_coinciding_kinks_fails_off_the_point():
 def test_the_same_bug_is_only_a_kink_at_the_point_itself(monkeypatch):
     """Without the second look the halved gradient passes as a valid value at the kinks:
     what the second look adds."""
-    monkeypatch.setattr(offpoint.SecondLook, "settle", lambda self, outcomes: {})
+    monkeypatch.setattr(offpoint.SecondLook, "settle", lambda self, records: [])
     report = probe(forward, lambda p, i: backward(p, i, factor=0.5), _zero_start(), INPUTS)
     assert report.tensor("W1").status == "kink" and report.tensor("b1").status == "kink"
 

@@ -7,7 +7,8 @@ import numpy as np
 from gradprobe import Status
 from gradprobe.status import FAIL, INCONCLUSIVE, KINK, PASS
 from gradprobe.engine.coordinates import CoordinateOutcome
-from gradprobe.engine.summary import problem_result, tensor_result
+from gradprobe.engine.record import TensorRecord
+from gradprobe.engine.summary import tensor_result
 
 
 def _outcome(codes: list[int]) -> CoordinateOutcome:
@@ -37,6 +38,27 @@ def test_listed_coordinates_carry_their_engine_code_s_status():
 
 
 def test_a_gradient_that_could_not_be_compared_fails_with_its_sentence():
-    result = problem_result("w", "w", "param", np.zeros((2, 3)), "backward returned no gradient for w")
+    record = TensorRecord("w", "w", "param", (2, 3), "float64", problem="backward returned no gradient for w")
+    result = record.result()
     assert (result.status, result.checked, result.hint, result.shape) == (
         Status.FAIL, 0, "backward returned no gradient for w", (2, 3))
+
+
+def test_the_second_look_s_failures_and_calls_reach_the_result():
+    """A record whose kink coordinate failed at a moved point: the result is summarised from
+    the moved outcome, and counts the first check's calls plus the second look's."""
+    first = _outcome([PASS, KINK])
+    moved = CoordinateOutcome(**{**first.__dict__, "status": np.array([PASS, FAIL], dtype=np.int8),
+                                 "evaluations": first.evaluations + 6})
+    record = TensorRecord("w", "w", "param", (2,), "float64", outcome=first, evaluations=10)
+    assert (record.result().status, record.result().evaluations) == (Status.KINK, 10)
+    record.moved = moved
+    result = record.result()
+    assert (result.status, result.bad_indices, result.evaluations) == (Status.FAIL, ((1,),), 16)
+
+
+def test_an_unconfirmed_direction_makes_a_passing_tensor_inconclusive_but_not_a_failing_one():
+    passing = TensorRecord("w", "w", "param", (2,), "float64", outcome=_outcome([PASS, KINK]), unconfirmed=True)
+    assert passing.result().status is Status.INCONCLUSIVE and "random-direction" in passing.result().inconclusive_reason
+    failing = TensorRecord("w", "w", "param", (2,), "float64", outcome=_outcome([PASS, FAIL]), unconfirmed=True)
+    assert failing.result().status is Status.FAIL

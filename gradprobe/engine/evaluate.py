@@ -253,10 +253,10 @@ class Evaluator:
     def _counted(self, calls: int) -> None:
         self._tally[0] += calls
 
-    def sibling(self, loss: LossFunction) -> Evaluator:
-        """An evaluator of ``loss`` (another workspace of the target) sharing this count; it
-        evaluates serially."""
-        return Evaluator(loss, None, self.progress, self._tally)
+    def sibling(self, loss: LossFunction, backend: Backend | None = None) -> Evaluator:
+        """An evaluator of ``loss`` (another workspace of the target) sharing this count and
+        progress; serial unless given a ``backend``."""
+        return Evaluator(loss, backend, self.progress, self._tally)
 
     def base(self) -> float:
         self._counted(1)

@@ -27,9 +27,11 @@ from typing import Any
 import numpy as np
 
 from ..errors import ProbeError
+from ..options import CheckOptions
 from .coordinates import CoordinateOutcome, check_coordinates
 from .evaluate import LossFunction
 from .point import Point, prepare
+from .record import TensorRecord
 from .sampling import tensor_rng
 from ..status import FAIL, KINK
 from .verdict import SIGNIFICANCE
@@ -56,11 +58,14 @@ class SecondLook:
 
     def __init__(
         self, forward: Callable[..., Any], backward: Callable[..., Any], point: Point,
-        threshold: float, seed: int, method: str,
+        settings: CheckOptions,
     ) -> None:
+        """``settings`` as the check ran with (its threshold resolved)."""
+        assert settings.threshold is not None
         self._forward, self._backward = forward, backward
         self._point = point
-        self._threshold, self._seed, self._method = threshold, seed, method
+        self._settings = settings
+        self._seed = settings.seed
         self._names = list(point.grads.values)  # the tensors that move: every checked one
 
     def _moved(self, name: str, sign: float) -> np.ndarray:
@@ -86,36 +91,40 @@ class SecondLook:
         evaluator = p.evaluator.sibling(LossFunction(self._forward, ws, None))
         try:
             ready = prepare(self._forward, self._backward, ws, evaluator, self._seed, scratch=False)
-            ready.measure(self._seed)
         except ProbeError:  # outside the code's domain there: no evidence either way
             return None
         ready.keep_gradients(names)
         return ready
 
-    def settle(self, outcomes: dict[str, CoordinateOutcome]) -> dict[str, CoordinateOutcome]:
-        """Of ``outcomes`` (per tensor), those whose kink coordinates fail at a moved point,
-        with those coordinates failed."""
-        kinked = {name: np.flatnonzero(o.status == KINK) for name, o in outcomes.items()}
-        kinked = {name: k for name, k in kinked.items() if k.size}
-        changed: dict[str, CoordinateOutcome] = {}
+    def settle(self, records: list[TensorRecord]) -> list[str]:
+        """Check the kink coordinates of ``records`` at the moved points; a record whose
+        kink coordinates fail at one gets them failed (``record.moved``). The names of
+        those, in the order they first failed."""
+        kinked = {r.name: (r, np.flatnonzero(r.outcome.status == KINK))
+                  for r in records if r.outcome is not None}
+        kinked = {name: rk for name, rk in kinked.items() if rk[1].size}
+        s = self._settings
+        failed: list[str] = []
         for sign in (1.0, -1.0):
             moved = self._prepared(sign, set(kinked))
             if moved is None:
                 continue
-            for name, which in kinked.items():
+            for name, (record, which) in kinked.items():
                 if name not in moved.grads.values:
                     continue
-                current = changed.get(name, outcomes[name])
+                current = record.final
+                assert current is not None
                 try:
-                    there = check_coordinates(moved.probe(name, self._threshold),
-                                              current.flat[which], self._method)
+                    there = check_coordinates(moved.probe(name, s.threshold), current.flat[which],
+                                              s.method, s.recheck)
                 except ProbeError:
                     continue
                 merged = _failed_there(current, which, there)
                 if merged is not None:
-                    changed[name] = merged
+                    record.moved = merged
+                    failed += [] if name in failed else [name]
             del moved  # one moved copy of the target at a time
-        return changed
+        return failed
 
 
 def _failed_there(outcome: CoordinateOutcome, which: np.ndarray, there: CoordinateOutcome) -> CoordinateOutcome | None:

@@ -16,7 +16,7 @@ import numpy as np
 
 from ..errors import ProbeError
 from ..tensors import Workspace, is_float
-from .evaluate import Evaluator, LossFunction
+from .evaluate import Backend, Evaluator, LossFunction
 from .gradients import Gradients, validate
 from .noise import measured_loss_scale
 from .precision import narrower_compute_type
@@ -51,9 +51,10 @@ def _compute_type(out_dtype: np.dtype, ws: Workspace) -> tuple[np.dtype, str]:
 
 
 def _numerics(backward: Callable[..., Any], ws: Workspace, evaluator: Evaluator,
-              info: ForwardInfo, grads: Gradients) -> Numerics:
+              info: ForwardInfo, grads: Gradients) -> tuple[Numerics, LossFunction]:
     """The code's compute type (3 calls to look for hidden float32), and float64 numerics
-    for float32 code that accepts float64 (1 forward and 1 backward call)."""
+    for float32 code that accepts float64 (1 forward and 1 backward call); with the loss
+    the numeric side evaluates."""
     dtype, why = _compute_type(info.out_dtype, ws)
     hidden = narrower_compute_type(evaluator, ws, info.f0, dtype)
     if hidden is not None:
@@ -61,10 +62,9 @@ def _numerics(backward: Callable[..., Any], ws: Workspace, evaluator: Evaluator,
     if dtype == np.float32:
         promoted = promote(evaluator, backward, ws, grads, info.f0)
         if promoted is not None:
-            evaluator.loss = promoted.loss
             return Numerics(promoted.workspace, promoted.f0, np.dtype(np.float64), dtype,
-                            promoted.analytic, promoted.float32, why, info.terms)
-    return Numerics(ws, info.f0, dtype, dtype, {}, {}, why, info.terms)
+                            promoted.analytic, promoted.float32, why, info.terms), promoted.loss
+    return Numerics(ws, info.f0, dtype, dtype, {}, {}, why, info.terms), evaluator.loss
 
 
 JITTER_ULPS = 4.0  # units in the last place every checked tensor moves to measure the jitter
@@ -73,14 +73,16 @@ JITTER_SPAN = 5  # backward calls: points x + d ... x + 5d, three second differe
 
 @dataclass
 class Point:
-    """One set of values of a target, ready to be probed tensor by tensor."""
+    """One set of values of a target, ready to be probed tensor by tensor (made by
+    :func:`prepare`)."""
 
     ws: Workspace
-    evaluator: Evaluator
+    evaluator: Evaluator  # evaluates the numeric side's loss, through the backend if any
     info: ForwardInfo
     grads: Gradients
     numerics: Numerics
-    backward: Callable[..., Any] | None = None
+    backward: Callable[..., Any] | None
+    seed: int  # the run's seed: the jitter's random signs draw from it
     loss_scale: float = 0.0
     target_scale: float = 0.0
     _jitter: dict[str, np.ndarray] | None = field(default=None, repr=False)
@@ -91,12 +93,12 @@ class Point:
         n = self.numerics
         return {name: n.analytic.get(name, g.reshape(-1)) for name, g in self.grads.values.items()}
 
-    def measure(self, seed: int) -> None:
+    def _measure(self) -> None:
         """The loss's rounding (3 calls) and the target-wide gradient scale."""
         n = self.numerics
         self.loss_scale = max(n.terms, measured_loss_scale(
             self.evaluator, n.workspace, self.gradients, n.f0, ROUNDING_UNITS,
-            tensor_rng(seed, "", "noise")))
+            tensor_rng(self.seed, "", "noise")))
         self.target_scale = max((float(np.sqrt(np.mean(g**2))) for g in self.grads.values.values()
                                  if g.size), default=0.0)
 
@@ -128,7 +130,7 @@ class Point:
         steps = {}
         for name in base:
             x = ws.owners[name]
-            signs = tensor_rng(0, name, "jitter").choice([-1.0, 1.0], size=x.shape)
+            signs = tensor_rng(self.seed, name, "jitter").choice([-1.0, 1.0], size=x.shape)
             steps[name] = JITTER_ULPS * np.spacing(np.abs(x).astype(x.dtype)) * signs
         fuzz: dict[str, np.ndarray] = {}
         before: list[dict[str, np.ndarray]] = []  # the last two points' gradients only
@@ -170,15 +172,24 @@ class Point:
                            np.dtype(np.float32), FLOAT32_AGREEMENT)
 
 
+BackendFor = Callable[[Workspace, "np.ndarray | None"], "Backend | None"]
+
+
 def prepare(
     forward: Callable[..., Any], backward: Callable[..., Any], ws: Workspace,
-    evaluator: Evaluator, seed: int, scratch: bool = True,
+    evaluator: Evaluator, seed: int, scratch: bool = True, backend: BackendFor | None = None,
 ) -> Point:
-    """Preflight, backward and the numeric side's type at the values in ``ws``; the loss's
-    rounding is measured by :meth:`Point.measure` (after the caller picks a backend).
-    ``scratch`` false skips the copies that name in-place writes (code already checked)."""
+    """Preflight, backward, the numeric side's type and the loss's rounding at the values in
+    ``ws``. ``evaluator`` counts every call (preflight's run serially through it); the
+    point's own evaluator, which shares its count, evaluates the numeric side's loss through
+    ``backend(workspace, grad_output)`` (None: serially), chosen once the numeric side's
+    workspace is known. ``scratch`` false skips the copies that name in-place writes (code
+    already checked)."""
     rng = np.random.default_rng(seed)  # grad_output; tensors draw from their own
     info = inspect_forward(forward, ws, evaluator, rng, scratch)
     grads = validate(call_backward(backward, ws, info.grad_output, scratch), ws)
-    numerics = _numerics(backward, ws, evaluator, info, grads)
-    return Point(ws, evaluator, info, grads, numerics, backward)
+    numerics, loss = _numerics(backward, ws, evaluator, info, grads)
+    where = backend(numerics.workspace, info.grad_output) if backend is not None else None
+    point = Point(ws, evaluator.sibling(loss, where), info, grads, numerics, backward, seed)
+    point._measure()
+    return point

@@ -9,22 +9,21 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from ..hints import Context as HintContext
-from ..hints import Evidence, diagnose
 from ..errors import ProbeError, TargetLoadError
 from ..guard import guarded
 from ..heap import keep_heap, release_heap
+from ..hints import Context as HintContext
+from ..hints import diagnose
 from ..options import CheckOptions, default_threshold
 from ..report import LayerResult, Report, TensorResult
+from ..status import Status
 from ..target import Target
 from ..tensors import INPUT_LAYER, Workspace, is_float, layer_of
-from .coordinates import CoordinateOutcome
 from .evaluate import Backend, Evaluator, LossFunction, Progress
 from .offpoint import MOVE, SecondLook
-from .point import Point, prepare
-from ..status import KINK, Status
-from .summary import problem_result, unknown_result
-from .tensor_check import check_tensor, evidence_of, failed_later
+from .point import Numerics, Point, prepare
+from .record import TensorRecord
+from .tensor_check import check_tensor
 
 if TYPE_CHECKING:
     from concurrent.futures import Executor
@@ -115,34 +114,60 @@ def _run(
     ws = Workspace(target.params, target.inputs)
     if not any(is_float(ws.owners[n]) for n in ws.param_names):
         raise TargetLoadError("the target has no floating-point params to check")
-    evaluator = Evaluator(LossFunction(target.forward, ws, None), None, progress)
-    point = prepare(target.forward, target.backward, ws, evaluator, options.seed)
-    evaluator.backend, release = _backend(target, point.numerics.workspace, point.info.grad_output,
-                                          options, executor)
+    releases: list[Callable[[], None]] = []
+
+    def backend(numeric_ws: Workspace, grad_output: np.ndarray | None) -> Backend | None:
+        chosen, release = _backend(target, numeric_ws, grad_output, options, executor)
+        releases.append(release)
+        return chosen
+
     try:
+        evaluator = Evaluator(LossFunction(target.forward, ws, None), None, progress)
+        point = prepare(target.forward, target.backward, ws, evaluator, options.seed, backend=backend)
         return _check_all(target, options, point, started, clock)
     finally:
-        release()
+        for release in releases:
+            release()
 
 
-def _second_look(
-    target: Target, options: CheckOptions, point: Point, threshold: float,
-    outcomes: dict[str, CoordinateOutcome], results: list[TensorResult], evidence: list[Evidence],
-) -> str | None:
-    """Kink coordinates checked again off the kinks (:mod:`.offpoint`); the results and
-    evidence of tensors where some then fail are replaced in place. A note naming them, if
-    any."""
-    kinked = {n: o for n, o in outcomes.items() if np.any(o.status == KINK)}
+def _settings(options: CheckOptions, numerics: Numerics) -> tuple[CheckOptions, list[str]]:
+    """``options`` with the threshold resolved for the type the check judges in, and the
+    notes that say so."""
+    compute_dtype = numerics.code_dtype
+    if numerics.analytic:
+        threshold = options.threshold or default_threshold(np.dtype(np.float64))
+        return replace(options, threshold=threshold), [_promoted_note(numerics.why, threshold)]
+    threshold = options.threshold or default_threshold(compute_dtype)
+    notes = [_threshold_note(compute_dtype, numerics.why)] if compute_dtype != np.float64 else []
+    return replace(options, threshold=threshold), notes
+
+
+def _records(point: Point) -> list[TensorRecord]:
+    """A record per tensor the report names, in the report's order: the workspace's tensors
+    with a gradient (checked, or failed for a problem), then gradients for unknown names."""
+    ws, grads = point.ws, point.grads
+    records = []
+    for name in ws.names():
+        if name in grads.problems or name in grads.values:
+            owner = ws.owners[name]
+            records.append(TensorRecord(name, ws.layer(name), ws.kind(name), tuple(owner.shape),
+                                        str(owner.dtype), problem=grads.problems.get(name)))
+    for name, (shape, sentence) in grads.unknown.items():
+        records.append(TensorRecord(name, layer_of(name), "unknown", tuple(shape), "unknown",
+                                    problem=sentence))
+    return records
+
+
+def _second_look(target: Target, settings: CheckOptions, point: Point,
+                 records: list[TensorRecord]) -> str | None:
+    """Kink coordinates checked again off the kinks (:mod:`.offpoint`), annotating the
+    records of tensors where some then fail. A note naming them, if any."""
+    kinked = [r for r in records if r.kinked]
     if not kinked:
         return None
-    look = SecondLook(target.forward, target.backward, point, threshold, options.seed, options.method)
+    look = SecondLook(target.forward, target.backward, point, settings)
     point.keep_gradients(set())  # the check's own gradients are no longer needed: memory
     failed = look.settle(kinked)
-    for name, outcome in failed.items():
-        k = next(i for i, r in enumerate(results) if r.name == name)
-        results[k] = failed_later(results[k], outcomes[name], outcome, point.ws.owners[name].dtype)
-        j = next(i for i, e in enumerate(evidence) if e.name == name)
-        evidence[j] = evidence_of(name, results[k].shape, outcome)
     if not failed:
         return None
     return (f"{', '.join(failed)}: coordinates on a kink here fail at points moved off the kinks "
@@ -153,54 +178,36 @@ def _second_look(
 def _check_all(
     target: Target, options: CheckOptions, point: Point, started: float, clock: Callable[[], float],
 ) -> Report:
-    ws, evaluator, numerics, grads = point.ws, point.evaluator, point.numerics, point.grads
-    compute_dtype = numerics.code_dtype
-    notes = list(grads.notes)
-    if numerics.analytic:
-        threshold = options.threshold or default_threshold(np.dtype(np.float64))
-        notes.append(_promoted_note(numerics.why, threshold))
-    else:
-        threshold = options.threshold or default_threshold(compute_dtype)
-        if compute_dtype != np.float64:
-            notes.append(_threshold_note(compute_dtype, numerics.why))
-    point.measure(options.seed)
+    ws, numerics, grads = point.ws, point.numerics, point.grads
+    settings, threshold_notes = _settings(options, numerics)
+    notes = list(grads.notes) + threshold_notes
     total = sum(ws.owners[n].size for n in grads.values)
-    results: list[TensorResult] = []
-    evidence: list[Evidence] = []
-    outcomes: dict[str, CoordinateOutcome] = {}
-    for name in ws.names():
-        layer = ws.layer(name)
-        if name in grads.problems:
-            results.append(problem_result(name, layer, ws.kind(name), ws.owners[name], grads.problems[name]))
-        elif name in grads.values:
-            owner = ws.owners[name]
-            probe = point.probe(name, threshold)
-            result, found, outcome = check_tensor(probe, options, total, owner.shape,
-                                                  ws.layer(name), ws.kind(name), owner.dtype)
-            results.append(result)
-            evidence.append(found)
-            outcomes[name] = outcome
-            if outcome.note:
-                notes.append(outcome.note)
-    moved_note = _second_look(target, options, point, threshold, outcomes, results, evidence)
+    records = _records(point)
+    for record in records:
+        if record.problem is None:
+            check_tensor(point.probe(record.name, settings.threshold), settings, total, record)
+            if record.outcome is not None and record.outcome.note:
+                notes.append(record.outcome.note)
+    moved_note = _second_look(target, settings, point, records)
     if moved_note:
         notes.append(moved_note)
+    evidence = [e for e in (r.evidence() for r in records) if e is not None]
     hints = diagnose(evidence, hint_context(ws))
-    results = [replace(r, hint=hints[r.name]) if r.name in hints and r.hint is None else r for r in results]
-    for name, (shape, sentence) in grads.unknown.items():
-        results.append(unknown_result(name, layer_of(name), shape, sentence))
+    for record in records:
+        if record.problem is None:
+            record.hint = hints.get(record.name)
+    results = [r.result() for r in records]
     errors = [r.hint for r in results if r.checked == 0 and r.status is Status.FAIL and r.hint]
     return Report(
         target=target.label,
-        threshold=threshold,
-        seed=options.seed,
+        threshold=settings.threshold,
+        seed=settings.seed,
         layers=_group(results),
-        evaluations=evaluator.count,
+        evaluations=point.evaluator.count,
         seconds=clock() - started,
-        method=options.method,
-        compute_dtype=str(np.dtype(compute_dtype)),
+        method=settings.method,
+        compute_dtype=str(np.dtype(numerics.code_dtype)),
         errors=tuple(errors),
         notes=tuple(notes),
-        inconclusive_fails=options.inconclusive_fails,
+        inconclusive_fails=settings.inconclusive_fails,
     )
-

@@ -69,8 +69,11 @@ def tensor_result(
     directions: tuple[DirectionResult, ...] = (),
     located_evaluations: int | None = None,
     evaluations: int | None = None,
+    doubt: str | None = None,
 ) -> TensorResult:
-    """Summarise the checked coordinates of one tensor (and its direction checks)."""
+    """Summarise the checked coordinates of one tensor (and its direction checks). Its
+    status is its worst coordinate's; ``doubt`` (a reason) makes a tensor whose coordinates
+    pass or sit at kinks inconclusive."""
     shape = tuple(shape)
     s = outcome.status
     failing = s == FAIL
@@ -89,6 +92,8 @@ def tensor_result(
     kinks = int((s == KINK).sum())
     status = Status.of_code(s.max()) if s.size else Status.PASS
     reason = next((r for r, st in zip(outcome.reasons, s) if st == INCONCLUSIVE and r), None)
+    if doubt is not None and status < Status.INCONCLUSIVE:
+        status, reason = Status.INCONCLUSIVE, doubt
     return TensorResult(
         name=name,
         layer=layer,
@@ -114,20 +119,4 @@ def tensor_result(
         directions=directions,
         located_evaluations=located_evaluations,
         error_map=error_map,
-    )
-
-
-def problem_result(name: str, layer: str, kind: str, tensor: np.ndarray, sentence: str) -> TensorResult:
-    """A tensor whose gradient could not be compared at all (missing, misshaped, non-finite)."""
-    return TensorResult(
-        name=name, layer=layer, kind=kind, shape=tuple(tensor.shape), dtype=str(tensor.dtype),
-        checked=0, failed=0, kinks=0, status=Status.FAIL, hint=sentence,
-    )
-
-
-def unknown_result(name: str, layer: str, shape: tuple[int, ...], sentence: str) -> TensorResult:
-    """A gradient returned for a name that is neither a param nor an input."""
-    return TensorResult(
-        name=name, layer=layer, kind="unknown", shape=shape, dtype="unknown",
-        checked=0, failed=0, kinks=0, status=Status.FAIL, hint=sentence,
     )

@@ -1,31 +1,19 @@
-"""Checking one tensor: which coordinates and directions, localisation, the summary."""
+"""Checking one tensor: which coordinates and directions, localisation, the coordinates."""
 
 from __future__ import annotations
 
-from dataclasses import replace
-from typing import TYPE_CHECKING
-
 import numpy as np
 
-from ..hints import Evidence
 from ..options import CheckOptions
 from ..report import DirectionResult
-from .coordinates import CoordinateOutcome, check_coordinates
+from .coordinates import check_coordinates
 from .directions import DirectionCheck, check_direction, unit_direction
 from .locate import locate
 from .probe import TensorProbe
+from .record import TensorRecord
 from .sampling import stratified, tensor_rng
-from ..status import FAIL, Status
-from .summary import tensor_result
-
-if TYPE_CHECKING:
-    from ..report import TensorResult
 
 EXTRA_DIRECTIONS = 2  # drawn per direction that kinks hid
-UNCONFIRMED = (
-    "a random-direction check disagrees beyond the threshold, but localisation confirmed "
-    "no coordinate (several small errors, or kinks along the direction)"
-)
 
 
 def plan(options: CheckOptions, size: int, total: int) -> tuple[int, int]:
@@ -85,52 +73,25 @@ def _directions(
     return checks, units
 
 
-def check_tensor(
-    probe: TensorProbe, options: CheckOptions, total: int, shape: tuple[int, ...],
-    layer: str, kind: str, dtype: np.dtype,
-) -> tuple[TensorResult, Evidence, CoordinateOutcome]:
-    """The tensor's result (without a hint), the evidence hints are drawn from, and the
-    coordinate outcome."""
+def check_tensor(probe: TensorProbe, options: CheckOptions, total: int, record: TensorRecord) -> None:
+    """Check the probed tensor by the plan for its size (``total``: the target's checkable
+    coordinates): directions, localisation, coordinates. Annotates ``record``."""
     ev = probe.evaluator
     start = ev.count
     n_coords, n_dirs = plan(options, probe.size, total)
-    flat = stratified(shape, n_coords, tensor_rng(options.seed, probe.tensor, "sample"), probe.a)
-    directions: tuple[DirectionResult, ...] = ()
-    located = None
-    unconfirmed = False
+    flat = stratified(record.shape, n_coords, tensor_rng(options.seed, probe.tensor, "sample"), probe.a)
     if n_dirs:
         checks, units = _directions(probe, n_dirs, options.seed)
-        directions = tuple(_direction_result(probe, c) for c in checks)
+        record.directions = tuple(_direction_result(probe, c) for c in checks)
         off = [k for k, c in enumerate(checks) if c.significant]
         if off:
             j = max(off, key=lambda k: abs(checks[k].discrepancy) / max(checks[k].error, 1e-300))
             u = units[j]
             assert u is not None
             found = locate(probe, u, checks[j].discrepancy, checks[j].error)
-            located = found.evaluations
+            record.located_evaluations = found.evaluations
             flat = np.union1d(flat, found.candidates)
-            unconfirmed = any(c.significant and d.rel_error > probe.threshold
-                              for c, d in zip(checks, directions))
-    outcome = check_coordinates(probe, flat, options.method, options.recheck)
-    result = tensor_result(probe.tensor, layer, kind, shape, dtype, outcome,
-                           directions=directions, located_evaluations=located,
-                           evaluations=ev.count - start)
-    if unconfirmed and result.status in (Status.PASS, Status.KINK):
-        result = replace(result, status=Status.INCONCLUSIVE, inconclusive_reason=UNCONFIRMED)
-    return result, evidence_of(probe.tensor, shape, outcome), outcome
-
-
-def evidence_of(tensor: str, shape: tuple[int, ...], outcome: CoordinateOutcome) -> Evidence:
-    """What hints are drawn from: the checked coordinates and which of them fail."""
-    return Evidence(tensor, tuple(shape), outcome.flat, outcome.analytic, outcome.numeric,
-                    outcome.status == FAIL)
-
-
-def failed_later(result: TensorResult, before: CoordinateOutcome, after: CoordinateOutcome,
-                 dtype: np.dtype) -> TensorResult:
-    """``result`` (summarised from ``before``) summarised again from ``after``, in which more
-    coordinates fail; the calls spent between the two are added to the tensor's count."""
-    return tensor_result(result.name, result.layer, result.kind, result.shape, dtype, after,
-                         directions=result.directions,
-                         located_evaluations=result.located_evaluations,
-                         evaluations=(result.evaluations or 0) + after.evaluations - before.evaluations)
+            record.unconfirmed = any(c.significant and d.rel_error > probe.threshold
+                                     for c, d in zip(checks, record.directions))
+    record.outcome = check_coordinates(probe, flat, options.method, options.recheck)
+    record.evaluations = ev.count - start
