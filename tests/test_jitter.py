@@ -18,9 +18,9 @@ from gradprobe.engine.point import prepare
 from gradprobe.tensors import Workspace
 
 
-def _point(forward, backward, params, inputs=None):
+def _point(forward, backward, params, inputs=None, seed=0):
     ws = Workspace(params, inputs or {})
-    return prepare(forward, backward, ws, Evaluator(LossFunction(forward, ws, None)), 0)
+    return prepare(forward, backward, ws, Evaluator(LossFunction(forward, ws, None)), seed)
 
 
 def _fit(seed):
@@ -86,3 +86,15 @@ def test_a_sign_bug_is_not_excused_by_the_fuzz(seed):
     w, x, y = _fit(seed)
     report = probe(_forward, lambda p, i: {"w": -_backward(p, i)["w"]}, {"w": w}, {"x": x, "y": y})
     assert report.tensor("w").status == "fail"
+
+
+def test_the_fuzz_measure_draws_from_the_run_s_seed():
+    """--seed seeds every draw: the jitter's random signs too. Two seeds give different
+    draws, each within the bound of the fit's rounding above."""
+    w, x, y = _fit(0)
+    fuzz = [_point(_forward, _backward, {"w": w}, {"x": x, "y": y}, seed=s).jitter("w") for s in (1, 2)]
+    assert not np.array_equal(fuzz[0], fuzz[1])
+    error = np.abs(_backward({"w": w}, {"x": x, "y": y})["w"] - _exact(w, x, y))  # mpmath
+    assert all(np.all(error <= 3.0 * f) for f in fuzz)
+    again = _point(_forward, _backward, {"w": w}, {"x": x, "y": y}, seed=1).jitter("w")
+    assert np.array_equal(fuzz[0], again)

@@ -112,3 +112,35 @@ def test_a_moved_point_outside_the_codes_domain_leaves_the_kink():
     report = probe(fwd, bwd, params, INPUTS)
     assert report.ok, render_text(report)
     assert report.tensor("b1").status == "kink" and report.tensor("c").status == "pass"
+
+
+def _second_look_rechecks(monkeypatch, **options):
+    """The ``recheck`` setting of every coordinate check the second look makes."""
+    seen = []
+    check = offpoint.check_coordinates
+
+    def spy(probe_, flat, method="central", recheck=True):
+        seen.append((method, recheck))
+        return check(probe_, flat, method, recheck)
+
+    monkeypatch.setattr(offpoint, "check_coordinates", spy)
+    report = probe(forward, lambda p, i: backward(p, i, factor=0.5), _zero_start(), INPUTS, **options)
+    return report, set(seen)
+
+
+def test_no_recheck_reaches_the_second_look(monkeypatch):
+    """--method richardson judges kinks on its first three rows; with --no-recheck the second
+    look checks the moved points the same way, without re-estimating on a longer ladder."""
+    report, seen = _second_look_rechecks(monkeypatch, method="richardson", recheck=False)
+    assert seen == {("richardson", False)}
+    assert report.tensor("W1").status == "kink"  # no ladder beyond three rows at the moved points
+    report, seen = _second_look_rechecks(monkeypatch, method="richardson")
+    assert seen == {("richardson", True)} and report.tensor("W1").status == "fail"
+
+
+def test_the_threshold_reaches_the_second_look():
+    """The halved gradient is 0.5 off in relative terms at the moved points: a failure at
+    the default threshold, within a threshold of 0.9 (then only the kinks at the point remain)."""
+    halved = lambda p, i: backward(p, i, factor=0.5)  # noqa: E731
+    assert probe(forward, halved, _zero_start(), INPUTS).tensor("W1").status == "fail"
+    assert probe(forward, halved, _zero_start(), INPUTS, threshold=0.9).tensor("W1").status == "kink"
