@@ -24,7 +24,7 @@ from gradprobe.options import CheckOptions
 from gradprobe.render.html import render_html
 from gradprobe.render.svgmap import MAX_COLS, MAX_ROWS
 from gradprobe.report import LayerResult, TargetRun
-from gradprobe.target import load_target
+from gradprobe.loading import load_target
 
 HERE = Path(__file__).resolve().parent
 TARGETS = HERE / "scale_targets.py"

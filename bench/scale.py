@@ -18,7 +18,7 @@ from pathlib import Path
 
 from gradprobe import probe_target
 from gradprobe.render.json import report_dict
-from gradprobe.target import load_target
+from gradprobe.loading import load_target
 
 HERE = Path(__file__).resolve().parent
 TARGETS = HERE / "scale_targets.py"

@@ -15,7 +15,8 @@ from typing import TYPE_CHECKING, Any
 from .engine.runner import run_check
 from .options import CheckOptions
 from .report import Report
-from .stack import StackTarget, is_stack, load_any, stack, stack_from_object
+from .loading import load_any
+from .stack import StackTarget, is_stack, stack, stack_from_object
 from .stack_check import run_any, run_stack
 from .target import Target, target_from_object
 

@@ -129,7 +129,7 @@ def check_one(spec: str, options: CheckOptions, out: Output) -> TargetRun:
     With ``--json -`` whatever the user's code prints goes to standard error, so standard
     output holds the report alone. Ctrl-C propagates to stop the whole run.
     """
-    from .stack import load_any
+    from .loading import load_any
     from .stack_check import run_any
 
     progress = _progress()

@@ -9,7 +9,7 @@ here); :mod:`gradprobe.stack_split` gives each layer on its own.
 
 from __future__ import annotations
 
-from collections.abc import Mapping, Sequence
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -17,13 +17,11 @@ import numpy as np
 
 from .errors import (
     BadOutputError,
-    ProbeError,
     TargetLoadError,
     UserCodeError,
     summarise,
 )
-from .guard import guarded
-from .target import Target, _arrays, _get, resolve_object, target_from_object
+from .target import Target, _arrays, _get
 
 INPUT = "x"  # the inputs key holding the first layer's input
 PART = "\x1f"  # separates an entry point from the layer a worker process should load
@@ -40,6 +38,7 @@ class StackTarget:
     inputs: Mapping[str, Any] = field(default_factory=dict)
     spec: str | None = None
     notes: tuple[str, ...] = ()  # what building the stack noticed, for the report
+    loader: Callable[[str], Callable[..., Any]] | None = field(default=None, compare=False)  # see Target
 
 
 def is_stack(obj: Any) -> bool:
@@ -99,18 +98,6 @@ def stack(layers: Any, params: Mapping[str, Any], inputs: Mapping[str, Any],
           label: str = "<stack>") -> StackTarget:
     """A stack from layers and arrays given directly (the Python entry)."""
     return stack_from_object({"layers": layers, "params": params, "inputs": inputs}, label)
-
-
-def load_any(spec: str) -> Target | StackTarget:
-    """The target named by ``spec``: a stack when it gives ``layers``, else a flat target."""
-    try:
-        with guarded():
-            obj = resolve_object(spec)
-            if is_stack(obj):
-                return stack_from_object(obj, label=spec, spec=spec)
-            return target_from_object(obj, label=spec, spec=spec)
-    except ProbeError as exc:
-        raise exc.with_target(spec)
 
 
 # -- calling the user's layers, with one sentence naming the layer when they fail ----------
@@ -206,4 +193,4 @@ def floating(value: Any) -> bool:
 def end_to_end(st: StackTarget) -> Target:
     """The whole stack as one flat target (forward and backward composed here)."""
     fwd = ComposedForward(st.names, st.layers)
-    return Target(st.label, fwd, ComposedBackward(fwd), st.params, st.inputs, st.spec)
+    return Target(st.label, fwd, ComposedBackward(fwd), st.params, st.inputs, st.spec, st.loader)

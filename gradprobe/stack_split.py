@@ -118,7 +118,8 @@ def layer_targets(st: StackTarget, activations: list[np.ndarray]) -> list[LayerP
         fwd = LayerForward(name, layer, key)
         params = {name: {**own, key: activations[k]}}
         spec = None if st.spec is None else PART.join((st.spec, name, key))
-        target = Target(f"{st.label}: layer {name} on its own", fwd, LayerBackward(fwd), params, st.inputs, spec)
+        target = Target(f"{st.label}: layer {name} on its own", fwd, LayerBackward(fwd), params, st.inputs,
+                        spec, st.loader)
         checkable = any(floating(v) for v in flatten(params).values())
         parts.append(LayerPart(name, target, f"{name}.{key}", checkable))
     return parts

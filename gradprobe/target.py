@@ -1,7 +1,8 @@
-"""Loading a target from its entry-point string (protocol section 1 and 2).
+"""A flat target, and reading one off an object (protocol sections 1 and 2).
 
-``load_target("nets/mlp.py:dense_case")`` imports the module, takes the attribute, calls it
-when it is a class or function, and reads forward/backward/params/inputs off the result.
+:func:`resolve_object` imports the module an entry-point string names, takes the attribute
+and calls it when it is a class or function; :func:`target_from_object` reads
+forward/backward/params/inputs off the result (entry points are loaded by :mod:`.loading`).
 Every failure is a :class:`TargetLoadError` with one sentence naming what is wrong.
 """
 
@@ -18,8 +19,9 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from .errors import ProbeError, TargetLoadError, summarise
-from .guard import ExitAttempt, exit_error, guarded
+from .errors import TargetLoadError, summarise
+from .guard import ExitAttempt, exit_error
+from .spec import is_file_spec, split_spec
 
 
 @dataclass(frozen=True)
@@ -32,6 +34,9 @@ class Target:
     params: Mapping[str, Any]
     inputs: Mapping[str, Any] = field(default_factory=dict)
     spec: str | None = None  # the entry-point string, when loaded from one
+    # forward of ``spec`` rebuilt in a worker process (a module-level function, so it
+    # pickles; set by :mod:`.loading`); None: workers receive forward itself
+    loader: Callable[[str], Callable[..., Any]] | None = field(default=None, compare=False)
 
 
 MISSING_FIX = {  # what to write when the target lacks one of its functions
@@ -39,17 +44,6 @@ MISSING_FIX = {  # what to write when the target lacks one of its functions
     "backward": ("define backward(params, inputs) returning the loss's gradient as a mapping "
                  "shaped like params"),
 }
-
-def split_spec(spec: str) -> tuple[str, str | None]:
-    """``"nets/mlp.py:case"`` -> ``("nets/mlp.py", "case")``; no ``:NAME`` -> ``(spec, None)``."""
-    head, sep, tail = spec.rpartition(":")
-    if sep and head and tail.isidentifier():
-        return head, tail
-    return spec, None
-
-
-def is_file_spec(location: str) -> bool:
-    return location.endswith(".py") or "/" in location or os.sep in location
 
 
 def _call_user(fn: Callable[[], Any], what: str) -> Any:
@@ -199,28 +193,3 @@ def target_from_object(obj: Any, label: str, spec: str | None = None) -> Target:
     forward, backward = _functions(obj)
     params, inputs = _arrays(obj)
     return Target(label, forward, backward, params, inputs, spec)
-
-
-def load_target(spec: str) -> Target:
-    """Load the target named by ``spec``; errors name the spec."""
-    try:
-        with guarded():
-            return target_from_object(resolve_object(spec), label=spec, spec=spec)
-    except ProbeError as exc:
-        raise exc.with_target(spec)
-
-
-def load_functions(spec: str) -> tuple[Callable[..., Any], Callable[..., Any]]:
-    """forward and backward of ``spec``, for worker processes: setup() is not called again
-    (the protocol calls it once per check; workers receive its arrays instead). A stack's
-    composed functions, or one layer's, when ``spec`` names a stack (see :mod:`.stack`)."""
-    from .stack import PART  # local: stacks build on this module
-    from .stack_split import worker_functions
-
-    try:
-        with guarded():
-            obj = resolve_object(spec.split(PART)[0])
-            found = worker_functions(obj, spec)
-            return found if found is not None else _functions(obj)
-    except ProbeError as exc:
-        raise exc.with_target(spec.split(PART)[0])

@@ -74,20 +74,15 @@ def _portable(exc: BaseException) -> BaseException:
         return UsageProblem(f"a worker process failed: {summarise(exc)}")
 
 
-def _worker_main(conn: Any, load: str | Callable[..., Any], params: Any, inputs: Any,
-                 grad_output: np.ndarray | None) -> None:
+def _worker_main(conn: Any, load: Callable[..., Any], reload: Callable[[], Callable[..., Any]] | None,
+                 params: Any, inputs: Any, grad_output: np.ndarray | None) -> None:
     """A worker: build the loss once, then evaluate chunks until told to stop."""
     signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C is the parent's to handle
     keep_heap()
     loss: LossFunction | None = None
     failure: BaseException | None = None
     try:
-        if isinstance(load, str):
-            from ..target import load_functions
-
-            forward, _ = load_functions(load)
-        else:
-            forward = load
+        forward = reload() if reload is not None else load
         loss = LossFunction(forward, Workspace(params, inputs), grad_output)
     except BaseException as exc:  # reported with the first task
         failure = exc
@@ -111,15 +106,17 @@ def _worker_main(conn: Any, load: str | Callable[..., Any], params: Any, inputs:
 class WorkerPool:
     """``jobs`` processes holding the forward and the arrays; tasks carry perturbations only.
 
-    ``load`` is the target's entry point (workers import it, without calling setup() again)
-    or the forward function itself (it must be picklable).
+    ``load`` is the forward function (it must be picklable), unless ``reload`` is given: a
+    picklable function of no arguments that rebuilds forward in the worker (from the
+    target's entry point, without calling setup() again).
     """
 
-    def __init__(self, load: str | Callable[..., Any], ws: Workspace,
-                 grad_output: np.ndarray | None, jobs: int) -> None:
+    def __init__(self, load: Callable[..., Any], ws: Workspace,
+                 grad_output: np.ndarray | None, jobs: int,
+                 reload: Callable[[], Callable[..., Any]] | None = None) -> None:
         import multiprocessing
 
-        if not isinstance(load, str):
+        if reload is None:
             try:
                 pickle.dumps(load)
             except Exception as exc:
@@ -134,7 +131,8 @@ class WorkerPool:
                 here, there = context.Pipe()
                 # Not daemonic, so a forward may start processes of its own.
                 process = context.Process(target=_worker_main,
-                                          args=(there, load, params, inputs, grad_output))
+                                          args=(there, None if reload else load, reload, params, inputs,
+                                                grad_output))
                 process.start()
                 there.close()
                 self.connections.append(here)

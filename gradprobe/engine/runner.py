@@ -5,6 +5,7 @@ from __future__ import annotations
 import time
 from collections.abc import Callable
 from dataclasses import replace
+from functools import partial
 from typing import TYPE_CHECKING
 
 import numpy as np
@@ -40,7 +41,8 @@ def _backend(
 
     if executor is not None:
         return ExecutorBackend(executor, target.forward, ws, grad_output), lambda: None
-    pool = WorkerPool(target.spec or target.forward, ws, grad_output, options.jobs)
+    reload = partial(target.loader, target.spec) if target.loader and target.spec else None
+    pool = WorkerPool(target.forward, ws, grad_output, options.jobs, reload=reload)
     return pool, pool.close
 
 

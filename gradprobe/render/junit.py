@@ -7,7 +7,7 @@ from pathlib import PurePath
 
 from ..report import Report, TargetRun, TensorResult
 from ..status import Status
-from ..target import is_file_spec, split_spec
+from ..spec import is_file_spec, split_spec
 from ..tensors import format_index
 from ..wording import plural, verb
 
