@@ -18,9 +18,9 @@ from ..errors import BadOutputError, ComplexStepError, UserCodeError
 from .ladder import Estimate
 from .probe import Pairs, TensorProbe
 from .promote import FLOAT32_AGREEMENT, disagreeing
-from .refine import RATIO, ROWS, climb, one_sided
+from .refine import RATIO, ROWS, Ladder, climb, one_sided, tiny_pair
 from ..status import FAIL, INCONCLUSIVE, KINK, PASS
-from .verdict import SIGNIFICANCE, Judged, judge_ladder, judge_plain, judge_sides_apart
+from .verdict import SIGNIFICANCE, Judged, judge_ladder, judge_plain, judge_sides_apart, sides_differ
 
 SETTLE_FRACTION = 1e-2  # a first estimate this far inside the threshold settles a coordinate
 BEND_LIMIT = 0.05  # the slope may change by 5% across the ladder's first step
@@ -131,11 +131,21 @@ def _gap_suspects(probe: TensorProbe, flat: np.ndarray, first: Pairs) -> np.ndar
     return np.abs(right - left) > GAP_SUSPECT * size + noise
 
 
+def _judged_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder) -> Judged:
+    """The ladder judged, after a pair at a tiny step for the coordinates whose sides differ."""
+    which = sides_differ(probe, flat, ladder)
+    tiny = None
+    if which.size:
+        jump = ladder.right.value[which] - ladder.left.value[which]
+        tiny = tiny_pair(probe, flat[which], ladder.smallest[which], jump)
+    return judge_ladder(probe, flat, ladder, tiny)
+
+
 def _ladder_verdicts(
     probe: TensorProbe, flat: np.ndarray, start: np.ndarray, rows: int = ROWS
 ) -> Judged:
     """Judge ``flat`` on a ladder from ``start``; undecided ones get a second ladder."""
-    first = judge_ladder(probe, flat, climb(probe, flat, start, rows))
+    first = _judged_ladder(probe, flat, climb(probe, flat, start, rows))
     again = np.flatnonzero(first.status == INCONCLUSIVE)
     if again.size == 0:
         return first
@@ -146,7 +156,7 @@ def _ladder_verdicts(
         shifted[which] = _largest_smooth_step(probe, flat[again][which], start[again][which],
                                               np.full(which.size, float(RETRY_SHIFT)))
     second_ladder = climb(probe, flat[again], shifted, ROWS + 2)
-    judged = first.merged(again, judge_ladder(probe, flat[again], second_ladder))
+    judged = first.merged(again, _judged_ladder(probe, flat[again], second_ladder))
     still = np.flatnonzero(judged.status == INCONCLUSIVE)
     if still.size == 0:
         return judged
@@ -194,7 +204,7 @@ def _complex_checked(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Coo
     judged = judge_plain(probe, flat, _complex_step(probe, flat))
     doubtful = np.flatnonzero(judged.status != PASS)
     if doubtful.size == 0:
-        return _outcome(probe, flat, judged, start_count)
+        return _outcome(probe, flat, judged, start_count, recheck)
     cross = check_coordinates(probe, flat[doubtful], "central", recheck)
     if np.any(cross.status[judged.status[doubtful] == FAIL] != FAIL):
         central = check_coordinates(probe, flat, "central", recheck)
@@ -202,7 +212,7 @@ def _complex_checked(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Coo
                        note=NOT_COMPLEX_SAFE.format(tensor=probe.tensor))
     redo = Judged(cross.status, Estimate(cross.numeric, cross.error_estimate), cross.reasons,
                   cross.status == INCONCLUSIVE)
-    return _outcome(probe, flat, judged.merged(doubtful, redo), start_count)
+    return _outcome(probe, flat, judged.merged(doubtful, redo), start_count, recheck)
 
 
 def check_coordinates(
@@ -216,7 +226,7 @@ def check_coordinates(
         judged = _richardson(probe, flat, recheck)
     else:
         judged = _central(probe, flat, recheck)
-    return _outcome(probe, flat, judged, start_count)
+    return _outcome(probe, flat, judged, start_count, recheck)
 
 
 def _central(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
@@ -260,7 +270,7 @@ def _richardson(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
     rule; coordinates whose bound is not far inside the threshold go the central way."""
     h = RICHARDSON_START * np.maximum(1.0, np.abs(probe.x[flat].astype(np.float64)))
     ladder = climb(probe, flat, h, 3)
-    judged = judge_ladder(probe, flat, ladder)
+    judged = _judged_ladder(probe, flat, ladder)
     if not recheck:
         return judged
     # Bounds not far inside the threshold for want of smaller steps (not for rounding, which
@@ -268,7 +278,7 @@ def _richardson(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
     short = judged.estimate.error > SETTLE_FRACTION * probe.tolerance(flat, judged.estimate.value)
     wide = np.flatnonzero(short & ~judged.noise_limited)
     if wide.size:
-        longer = judge_ladder(probe, flat[wide], climb(probe, flat[wide], h[wide], 5, ladder.rows_of(wide)))
+        longer = _judged_ladder(probe, flat[wide], climb(probe, flat[wide], h[wide], 5, ladder.rows_of(wide)))
         better = np.flatnonzero((longer.estimate.error < judged.estimate.error[wide]) | (judged.status[wide] != PASS))
         judged = judged.merged(wide[better], longer.pick(better))
     value = judged.estimate.value
@@ -281,7 +291,8 @@ def _richardson(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
     return judged.merged(todo[keep], again.pick(np.flatnonzero(keep)))
 
 
-def _outcome(probe: TensorProbe, flat: np.ndarray, judged: Judged, start_count: int) -> CoordinateOutcome:
+def _outcome(probe: TensorProbe, flat: np.ndarray, judged: Judged, start_count: int,
+             recheck: bool) -> CoordinateOutcome:
     a = probe.a[flat].copy()
     numeric = judged.estimate.value
     scale = probe.denominators(flat, numeric)
@@ -302,7 +313,7 @@ def _outcome(probe: TensorProbe, flat: np.ndarray, judged: Judged, start_count: 
                 a[k] = own.a[flat][k]
                 off = off[~took]
         if off.size:  # the float32 value on the float32 code itself
-            redo = _central(own, flat[off], True)  # counted with the check's calls
+            redo = _central(own, flat[off], recheck)  # counted with the check's calls
             # The worse verdict stands, with its own reason and numbers.
             worse = redo.status >= status[off]
             status[off] = np.maximum(status[off], redo.status)

@@ -19,7 +19,7 @@ import numpy as np
 
 from .ladder import Estimate
 from .probe import TensorProbe
-from .refine import Ladder, tiny_pair
+from .refine import Ladder, Tiny
 from ..status import FAIL, INCONCLUSIVE, KINK, PASS
 
 SIGNIFICANCE = 3.0  # a discrepancy beyond 3 error bounds is evidence of a bug
@@ -79,13 +79,29 @@ def judge_plain(probe: TensorProbe, flat: np.ndarray, est: Estimate) -> Judged:
     return Judged(status, est, reasons, status == INCONCLUSIVE)
 
 
-def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder) -> Judged:
-    """Verdicts from a ladder's central and one-sided estimates (kinks and corners included)."""
+def _sides_apart(probe: TensorProbe, flat: np.ndarray, ladder: Ladder) -> tuple[np.ndarray, np.ndarray]:
+    """Where the one-sided derivatives differ beyond their bounds and the threshold, and the
+    tolerance at their mean."""
+    left, right = ladder.left, ladder.right
+    tol_sides = probe.tolerance(flat, 0.5 * (left.value + right.value))
+    return np.abs(right.value - left.value) > SIGNIFICANCE * (left.error + right.error) + tol_sides, tol_sides
+
+
+def sides_differ(probe: TensorProbe, flat: np.ndarray, ladder: Ladder) -> np.ndarray:
+    """Positions in ``flat`` whose one-sided derivatives differ: a kink at the point or near
+    it, which :func:`judge_ladder` tells apart with a pair at a tiny step
+    (:func:`.refine.tiny_pair`, given the jump ``right - left``)."""
+    return np.flatnonzero(_sides_apart(probe, flat, ladder)[0])
+
+
+def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, tiny: Tiny | None) -> Judged:
+    """Verdicts from a ladder's central and one-sided estimates (kinks and corners
+    included). ``tiny``: the tiny-step pair of the coordinates :func:`sides_differ` names
+    (None when it names none). Pure: judging spends no evaluations."""
     a = probe.a[flat]
     left, right = ladder.left, ladder.right
     mid = 0.5 * (left.value + right.value)
-    tol_sides = probe.tolerance(flat, mid)
-    differ = np.abs(right.value - left.value) > SIGNIFICANCE * (left.error + right.error) + tol_sides
+    differ, tol_sides = _sides_apart(probe, flat, ladder)
     # Smooth, or a corner where only f'' jumps: the sides agree, and their mean is an
     # estimate of f' that the central tableau (which assumes even powers of h) may not reach.
     corner = Estimate(mid, np.maximum(left.error, right.error) + 0.5 * np.abs(right.value - left.value))
@@ -125,7 +141,8 @@ def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder) -> Judged
             reasons[k] = NEAR_KINK if status[k] == INCONCLUSIVE else None
     which = np.flatnonzero(differ)
     if which.size:
-        _judge_sides(probe, flat, ladder.pick(which), which, status, value, error, reasons)
+        assert tiny is not None and tiny.right.size == which.size
+        _judge_sides(probe, flat, ladder.pick(which), tiny, which, status, value, error, reasons)
     return Judged(status, Estimate(value, error), tuple(reasons), noisy)
 
 
@@ -148,7 +165,7 @@ def _within_kink(a: np.ndarray, left: Estimate, right: Estimate, tol: np.ndarray
 
 
 def _judge_sides(
-    probe: TensorProbe, flat: np.ndarray, ladder: Ladder, which: np.ndarray,
+    probe: TensorProbe, flat: np.ndarray, ladder: Ladder, tiny: Tiny, which: np.ndarray,
     status: np.ndarray, value: np.ndarray, error: np.ndarray, reasons: list[str | None],
 ) -> None:
     """Coordinates whose one-sided derivatives differ: a kink at the point, or near it."""
@@ -156,7 +173,6 @@ def _judge_sides(
     a = probe.a[f]
     left, right = ladder.left, ladder.right
     jump = right.value - left.value
-    tiny = tiny_pair(probe, f, ladder.smallest, jump)
     kept = np.abs(tiny.gap - jump) <= JUMP_KEPT * np.abs(jump) + 4.0 * tiny.one_sided_noise
     # At the point: the analytic value must lie between the sides (a subgradient). Where
     # several kinks meet at the point (a max tied in many rows at once, upstream gradients of
