@@ -15,29 +15,16 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from ..errors import BadOutputError, ComplexStepError, UserCodeError
+from ..status import FAIL, INCONCLUSIVE, PASS
 from .ladder import Estimate
 from .probe import Pairs, TensorProbe
-from .promote import FLOAT32_AGREEMENT, disagreeing
+from .reconcile import float32_reconciled, unabsorbed, unfuzzed
 from .refine import RATIO, ROWS, Ladder, climb, one_sided, tiny_pair
-from ..status import FAIL, INCONCLUSIVE, KINK, PASS
-from .verdict import SIGNIFICANCE, Judged, judge_ladder, judge_plain, judge_sides_apart, sides_differ
+from .steps import SETTLE_FRACTION, gap_suspects, largest_smooth_step, start_steps
+from .verdict import Judged, judge_ladder, judge_plain, judge_sides_apart, sides_differ
 
-SETTLE_FRACTION = 1e-2  # a first estimate this far inside the threshold settles a coordinate
-BEND_LIMIT = 0.05  # the slope may change by 5% across the ladder's first step
-MAX_UP = 24  # steps grow at most 2**24-fold to beat rounding noise
-GAP_SUSPECT = 0.1  # one-sided slopes 10% apart: look for a kink
 RETRY_SHIFT = 6  # a second ladder starts 2**6 steps higher (noise) or lower (curvature)
 RECHECK_LIMIT = 400  # coordinates per tensor re-estimated on a ladder
-FUZZY = (
-    "backward's own rounding varies by as much as the discrepancy between points a few units "
-    "in the last place apart: its value is not defined that finely here"
-)
-BOTH_SIDES = 0.1
-ABSORBED = (
-    "the loss does not change at all at the steps a decision needs, though it does at larger "
-    "ones: rounding in forward absorbs them (sums of much larger terms?)"
-)
-FLOAT32_STEP = float(np.finfo(np.float32).eps) ** (1.0 / 3.0)  # float32 code's first step
 RICHARDSON_START = 2.0**-7  # relative first step of --method richardson (3 rows, 6 calls)
 
 
@@ -56,79 +43,6 @@ class CoordinateOutcome:
     reasons: tuple[str | None, ...]
     evaluations: int
     note: str | None = None  # said once for the tensor (a method fallen back from)
-
-
-def _bend(probe: TensorProbe, p: Pairs, typical: float | None = None) -> np.ndarray:
-    """How much the slope changes across the step, relative to the coordinate's slope (or
-    to ``typical`` where that is larger), with the rounding noise of the one-sided slopes
-    taken off (0 where noise hides it)."""
-    right, left = p.sides(probe.f0)
-    size = np.maximum(np.maximum(np.abs(p.central), np.abs(left)),
-                      np.maximum(np.abs(right), typical or probe.tensor_floor))
-    noise = 4 * p.noise / np.minimum(p.h_plus, p.h_minus)
-    return np.maximum(np.abs(right - left) - noise, 0.0) / size
-
-
-def _start_steps(probe: TensorProbe, flat: np.ndarray, first: Pairs, h: np.ndarray) -> np.ndarray:
-    """The ladder's first step, probed: smaller where the slope changes on the scale of
-    the step; larger where rounding noise hides the threshold, as far as pairs at steps
-    16, 256, ... times larger show the slope still changing by less than BEND_LIMIT (the
-    ladder's bounds hold from steps below the scale on which the slope changes)."""
-    bend = _bend(probe, first)
-    down = np.clip(np.ceil(np.log2(np.maximum(bend / BEND_LIMIT, 1.0))), 0, 30)
-    want = SETTLE_FRACTION * probe.tolerance(flat, first.central)
-    noise = 2 * first.noise / (first.h_plus + first.h_minus)
-    up = np.clip(np.ceil(np.log2(np.maximum(8.0 * noise / want, 1.0))), 0, MAX_UP)
-    up[down > 0] = 0
-    # A re-estimate for accuracy starts up to 4 steps higher, as far as the slope's change
-    # stays small next to the tensor's typical gradient.
-    room = np.floor(np.log2(BEND_LIMIT / np.maximum(_bend(probe, first, probe.grad_scale), 1e-300)))
-    start = h * 2.0 ** np.where(down > 0, -down, np.clip(room, 0, 2))
-    climbing = np.flatnonzero(up > 2)
-    if climbing.size:
-        start[climbing] = _largest_smooth_step(probe, flat[climbing], h[climbing], up[climbing])
-    return start
-
-
-def _largest_smooth_step(probe: TensorProbe, flat: np.ndarray, h: np.ndarray, up: np.ndarray) -> np.ndarray:
-    """Per coordinate, the largest of h * 16**m (16**m <= 2**up) up to which the loss is
-    seen to stay smooth: at every level the slope changes by at most BEND_LIMIT across the
-    step, or the second difference agrees with the level below to BEND_LIMIT (a loss
-    that is quadratic along the coordinate may grow its steps freely). One batch of pairs."""
-    levels = int(np.ceil(up.max() / 4)) + 1
-    factors = 16.0 ** np.arange(levels)
-    p = probe.pairs(np.tile(flat, levels), np.concatenate([h * f for f in factors]))
-    bends = _bend(probe, p).reshape(levels, flat.size)
-    width = (0.5 * (p.h_plus + p.h_minus)) ** 2
-    second = ((p.f_plus - 2 * probe.f0 + p.f_minus) / width).reshape(levels, flat.size)
-    second_noise = (4 * p.noise / width).reshape(levels, flat.size)
-    steady = np.ones((levels, flat.size), dtype=bool)
-    size = np.maximum(np.abs(second[1:]), np.abs(second[:-1]))
-    seen = np.abs(second) > 4.0 * second_noise  # a second difference above its noise
-    steady[1:] = (np.abs(second[1:] - second[:-1]) <= BEND_LIMIT * size + second_noise[1:] + second_noise[:-1]) \
-        & seen[1:] & seen[:-1]
-    # Growing needs evidence, not the absence of it: the slope itself must stand above the
-    # noise at that level (a loss that looks flat at every step shows nothing either way).
-    slope_noise = (2 * p.noise / (p.h_plus + p.h_minus)).reshape(levels, flat.size)
-    seen_slope = np.abs(p.central.reshape(levels, flat.size)) > 4.0 * slope_noise
-    calm = (bends <= BEND_LIMIT) | steady  # no sign of a bend (perhaps only as far as noise shows)
-    smooth_so_far = np.cumprod(calm, axis=0).astype(bool)
-    wanted = np.arange(levels)[:, None] * 4 <= up[None, :] + 3
-    # Never beyond the params' own scale: past it the loss along a coordinate is another
-    # function, and agreement there proves nothing about the derivative at the point.
-    x = np.abs(probe.x[flat].astype(np.float64))
-    scale = np.maximum(x, probe.x_scale)
-    within = h[None, :] * factors[:, None] <= scale[None, :]
-    accepted = smooth_so_far & seen_slope & wanted & within  # the top level must show its slope
-    best = np.where(accepted, factors[:, None], 1.0).max(axis=0)
-    return h * best
-
-
-def _gap_suspects(probe: TensorProbe, flat: np.ndarray, first: Pairs) -> np.ndarray:
-    right, left = first.sides(probe.f0)
-    size = np.maximum(np.maximum(np.abs(left), np.abs(right)), probe.floor)
-    noise = 4 * first.noise / np.minimum(first.h_plus, first.h_minus)
-    return np.abs(right - left) > GAP_SUSPECT * size + noise
 
 
 def _judged_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder) -> Judged:
@@ -153,7 +67,7 @@ def _ladder_verdicts(
     shifted = start[again] * RATIO**-RETRY_SHIFT
     if noisy.any():  # larger steps, as far as the slope is seen to stay smooth
         which = np.flatnonzero(noisy)
-        shifted[which] = _largest_smooth_step(probe, flat[again][which], start[again][which],
+        shifted[which] = largest_smooth_step(probe, flat[again][which], start[again][which],
                                               np.full(which.size, float(RETRY_SHIFT)))
     second_ladder = climb(probe, flat[again], shifted, ROWS + 2)
     judged = first.merged(again, _judged_ladder(probe, flat[again], second_ladder))
@@ -237,32 +151,13 @@ def _central(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
     c = first.central
     judged = judge_plain(probe, flat, Estimate(c, 2 * first.noise / (first.h_plus + first.h_minus)))
     settled = np.abs(a - c) <= SETTLE_FRACTION * probe.tolerance(flat, c)
-    todo = np.flatnonzero(~settled | _gap_suspects(probe, flat, first))
+    todo = np.flatnonzero(~settled | gap_suspects(probe, flat, first))
     if todo.size == 0 or not recheck:
         return judged
     if todo.size > RECHECK_LIMIT:  # the worst first, within budget
         todo = np.sort(todo[np.argsort(-np.abs(a[todo] - c[todo]), kind="stable")[:RECHECK_LIMIT]])
-    start = _start_steps(probe, flat[todo], _pick(first, todo), h[todo])
-    return _unabsorbed(probe, judged.merged(todo, _ladder_verdicts(probe, flat[todo], start)), first)
-
-
-def _unabsorbed(probe: TensorProbe, judged: Judged, first: Pairs) -> Judged:
-    """A failure read off a loss that did not change at all (an estimate of exactly 0),
-    where the first pair saw it change on both sides alike (the smaller change at least
-    BOTH_SIDES of the larger, as slope and curvature give), is rounding in forward absorbing the
-    smaller steps (float32 sums of much larger terms), not evidence of a derivative of 0.
-    (A loss flat near the point, a unit switched off, changes on one side only: the step
-    that reached the kink.)"""
-    first_central = first.central
-    up, down = np.abs(first.f_plus - probe.f0), np.abs(first.f_minus - probe.f0)
-    both = (np.minimum(up, down) >= BOTH_SIDES * np.maximum(up, down)) & (first_central != 0.0)
-    absorbed = np.flatnonzero((judged.status == FAIL) & (judged.estimate.value == 0.0) & both)
-    if absorbed.size == 0:
-        return judged
-    undecided = Judged(np.full(absorbed.size, INCONCLUSIVE, dtype=judged.status.dtype),
-                       Estimate(first_central[absorbed], np.full(absorbed.size, np.inf)),
-                       (ABSORBED,) * absorbed.size, np.ones(absorbed.size, dtype=bool))
-    return judged.merged(absorbed, undecided)
+    start = start_steps(probe, flat[todo], _pick(first, todo), h[todo])
+    return unabsorbed(probe, judged.merged(todo, _ladder_verdicts(probe, flat[todo], start)), first)
 
 
 def _richardson(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
@@ -300,94 +195,16 @@ def _outcome(probe: TensorProbe, flat: np.ndarray, judged: Judged, start_count: 
     error_estimate = judged.estimate.error
     reasons = judged.reasons
     if probe.float32 is not None:  # float32 code judged on its float64 run
-        own = probe.float32
-        off = np.flatnonzero(disagreeing(own.a[flat], a, scale))
-        status, numeric, error_estimate = status.copy(), numeric.copy(), error_estimate.copy()
-        if off.size:  # a kink that float32 rounding puts at the point, on the float64 run?
-            sided = _float32_side(probe, flat[off], own.a[flat][off], scale[off])
-            if sided is not None:
-                took, side = sided
-                k = off[took]
-                status[k] = np.maximum(status[k], KINK)
-                numeric[k], error_estimate[k] = side.value, side.error
-                a[k] = own.a[flat][k]
-                off = off[~took]
-        if off.size:  # the float32 value on the float32 code itself
-            redo = _central(own, flat[off], recheck)  # counted with the check's calls
-            # The worse verdict stands, with its own reason and numbers.
-            worse = redo.status >= status[off]
-            status[off] = np.maximum(status[off], redo.status)
-            numeric[off[worse]] = redo.estimate.value[worse]
-            error_estimate[off[worse]] = redo.estimate.error[worse]
-            a[off] = own.a[flat][off]  # report the value the code returns
-            redone = {k: r for k, r, w in zip(off.tolist(), redo.reasons, worse) if w}
-            reasons = tuple(redone.get(k, r) for k, r in enumerate(reasons))
-        scale = probe.denominators(flat, numeric)
-    status, reasons = _unfuzzed(probe, flat, a, numeric, error_estimate, status, reasons)
+        a, numeric, error_estimate, status, reasons, scale = float32_reconciled(
+            probe, flat, a, numeric, error_estimate, status, reasons, scale,
+            lambda own, where: _central(own, where, recheck))
+    status, reasons = unfuzzed(probe, flat, a, numeric, error_estimate, status, reasons)
     err = np.abs(a - numeric)
     return CoordinateOutcome(
         flat=flat, analytic=a, numeric=numeric, error_estimate=error_estimate,
         rel=err / scale, abs=err, scale=scale, status=status,
         reasons=reasons, evaluations=probe.evaluator.count - start_count,
     )
-
-
-def _unfuzzed(
-    probe: TensorProbe, flat: np.ndarray, a: np.ndarray, numeric: np.ndarray, error: np.ndarray,
-    status: np.ndarray, reasons: tuple[str | None, ...],
-) -> tuple[np.ndarray, tuple[str | None, ...]]:
-    """Failures that the analytic value's own fuzz explains are undecided: where backward's
-    rounding varies by the discrepancy's share between points a few units in the last place
-    apart (a loss at the rounding level of its own terms), its value is not defined finely
-    enough for the discrepancy to be a bug's (see point.Point.jitter)."""
-    failing = np.flatnonzero(status == FAIL)
-    if failing.size == 0 or probe.jitter is None:
-        return status, reasons
-    jitter = probe.jitter()
-    if jitter is None:
-        return status, reasons
-    fuzzy = np.abs(a[failing] - numeric[failing]) <= SIGNIFICANCE * (error[failing] + jitter[flat[failing]])
-    if not fuzzy.any():
-        return status, reasons
-    status = status.copy()
-    status[failing[fuzzy]] = INCONCLUSIVE
-    listed = list(reasons)
-    for k in failing[fuzzy].tolist():
-        listed[k] = FUZZY
-    return status, tuple(listed)
-
-
-def _float32_side(
-    probe: TensorProbe, flat: np.ndarray, float32: np.ndarray, scale: np.ndarray
-) -> tuple[np.ndarray, Estimate] | None:
-    """Which float32 gradients that leave their float64 run are explained by a kink of the
-    float64 run within float32's resolution: at one of the steps float32 code would take
-    (its first step, and 16 and 256 times smaller) the one-sided quotients of the float64 run
-    lie further apart than float32 agreement and than curvature makes them, and the float32
-    value lies between them (float32 rounding puts the code on the kink, or on its other
-    side, where the float64 run is just off it). With the estimate each is judged by."""
-    n = flat.size
-    x = np.abs(probe.x[flat].astype(np.float64))
-    steps = np.concatenate([FLOAT32_STEP * np.maximum(1.0, x) / 16.0**k for k in range(3)])
-    p = probe.pairs(np.tile(flat, 3), steps)
-    right, left = (q.reshape(3, n) for q in p.sides(probe.f0))
-    noise = (2.0 * p.noise / np.minimum(p.h_plus, p.h_minus)).reshape(3, n)
-    tol = FLOAT32_AGREEMENT * scale
-    # The gap curvature alone would give at each step, from the smallest step's gap.
-    bend = np.abs(right[2] - left[2]) / steps.reshape(3, n)[2]
-    curved = 2.0 * bend * steps.reshape(3, n)
-    curved[2] = 0.0
-    apart = np.abs(right - left) > tol + 2.0 * noise + curved
-    between = (float32 >= np.minimum(left, right) - tol - noise) & (float32 <= np.maximum(left, right) + tol + noise)
-    fits = apart & between
-    took = fits.any(axis=0)
-    if not took.any():
-        return None
-    row = np.argmax(fits, axis=0)  # the largest step that explains it
-    cols = np.arange(n)
-    lv, rv, nv = left[row, cols], right[row, cols], noise[row, cols]
-    nearer = np.where(np.abs(float32 - lv) <= np.abs(float32 - rv), lv, rv)
-    return took, Estimate(nearer[took], nv[took])
 
 
 def _pick(p: Pairs, which: np.ndarray) -> Pairs:

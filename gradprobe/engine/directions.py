@@ -23,7 +23,11 @@ import numpy as np
 from .ladder import Estimate, tableau
 from .probe import TensorProbe
 
-SIGNIFICANCE = 4.0  # a discrepancy beyond 4 error bounds is real
+# A direction's discrepancy counts beyond 4 of its error bounds (a coordinate's beyond 3,
+# verdict.SIGNIFICANCE): a direction's bound covers a sum over the whole tensor from one
+# short ladder, and a direction that counts sends the tensor into localisation and, when no
+# coordinate confirms it, to inconclusive; its kink test uses the same margin.
+DIRECTION_SIGNIFICANCE = 4.0
 ROWS = 3
 RATIO = 2.0
 FIRST_STEP = 4.0  # the ladder starts at 4 coordinate steps
@@ -44,7 +48,7 @@ class DirectionCheck:
 
     @property
     def significant(self) -> bool:
-        return abs(self.discrepancy) > SIGNIFICANCE * self.error and not self.kink
+        return abs(self.discrepancy) > DIRECTION_SIGNIFICANCE * self.error and not self.kink
 
 
 def unit_direction(size: int, rng: np.random.Generator) -> np.ndarray:
@@ -88,7 +92,7 @@ def check_direction(
     for attempt in range(RETRIES + 1):
         central, left, right, noise = _ladder(probe, part, u, t0, rows)
         gap = abs(float(right.value[0] - left.value[0]))
-        kink = gap > SIGNIFICANCE * float(left.error[0] + right.error[0])
+        kink = gap > DIRECTION_SIGNIFICANCE * float(left.error[0] + right.error[0])
         if not kink:
             break
         t0 /= SHRINK ** (attempt + 1)
@@ -96,7 +100,7 @@ def check_direction(
     if not kink and bound > enough and noise > 0.5 * bound:
         wide = _ladder(probe, part, u, t0 * SHRINK, WIDE_ROWS)  # noise-limited and smooth: larger steps
         wide_gap = abs(float(wide[2].value[0] - wide[1].value[0]))
-        if wide_gap <= SIGNIFICANCE * float(wide[1].error[0] + wide[2].error[0]):
+        if wide_gap <= DIRECTION_SIGNIFICANCE * float(wide[1].error[0] + wide[2].error[0]):
             central = Estimate.better(central, wide[0])
     error = float(central.error[0])
     return DirectionCheck(

@@ -14,7 +14,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .directions import SIGNIFICANCE, check_direction
+from .directions import DIRECTION_SIGNIFICANCE, check_direction
 from .probe import TensorProbe
 
 LEAF = 2
@@ -45,11 +45,11 @@ def locate(probe: TensorProbe, u: np.ndarray, discrepancy: float, error: float) 
         mid = (lo + hi) // 2
         part = slice(lo, mid)
         check = check_direction(probe, part, u[lo:mid], rows=HALF_ROWS,
-                                enough=abs(y) / (4 * SIGNIFICANCE))
+                                enough=abs(y) / (4 * DIRECTION_SIGNIFICANCE))
         y1, e1 = check.discrepancy, check.error
         y2, e2 = y - y1, err + e1
         for (a, b), yh, eh in (((mid, hi), y2, e2), ((lo, mid), y1, e1)):
-            if check.kink or abs(yh) > SIGNIFICANCE * eh:
+            if check.kink or abs(yh) > DIRECTION_SIGNIFICANCE * eh:
                 stack.append((a, b, yh, eh))
     candidates = np.unique(np.concatenate(found)) if found else np.empty(0, dtype=np.int64)
     return Located(candidates, probe.evaluator.count - start)

@@ -22,7 +22,7 @@ from .probe import TensorProbe
 from .refine import Ladder, Tiny
 from ..status import FAIL, INCONCLUSIVE, KINK, PASS
 
-SIGNIFICANCE = 3.0  # a discrepancy beyond 3 error bounds is evidence of a bug
+SIGNIFICANCE = 3.0  # a coordinate's discrepancy beyond 3 error bounds is evidence of a bug
 LOPSIDED = 0.01  # a side whose bound is 100 times tighter than the other's has settled
 NEAR_SAFETY = 4.0  # bounds of a side estimated beside a kink are taken 4 times wider
 JUMP_KEPT = 0.05  # at a kink the jump seen at a tiny step stays within 5% of the ladder's

@@ -1,0 +1,91 @@
+"""Choosing the steps of a coordinate's numeric derivative from what its first pair showed.
+
+Where rounding noise hides the threshold, steps grow, as far as the loss is seen to stay
+smooth (:func:`largest_smooth_step`); where the slope changes on the scale of the step, they
+shrink (:func:`start_steps`); one-sided slopes far apart flag a possible kink
+(:func:`gap_suspects`).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .probe import Pairs, TensorProbe
+
+SETTLE_FRACTION = 1e-2  # a first estimate this far inside the threshold settles a coordinate
+BEND_LIMIT = 0.05  # the slope may change by 5% across the ladder's first step
+MAX_UP = 24  # steps grow at most 2**24-fold to beat rounding noise
+GAP_SUSPECT = 0.1  # one-sided slopes 10% apart: look for a kink
+
+
+def slope_change(probe: TensorProbe, p: Pairs, typical: float | None = None) -> np.ndarray:
+    """How much the slope changes across the step, relative to the coordinate's slope (or
+    to ``typical`` where that is larger), with the rounding noise of the one-sided slopes
+    taken off (0 where noise hides it)."""
+    right, left = p.sides(probe.f0)
+    size = np.maximum(np.maximum(np.abs(p.central), np.abs(left)),
+                      np.maximum(np.abs(right), typical or probe.tensor_floor))
+    noise = 4 * p.noise / np.minimum(p.h_plus, p.h_minus)
+    return np.maximum(np.abs(right - left) - noise, 0.0) / size
+
+
+def start_steps(probe: TensorProbe, flat: np.ndarray, first: Pairs, h: np.ndarray) -> np.ndarray:
+    """The ladder's first step, probed: smaller where the slope changes on the scale of
+    the step; larger where rounding noise hides the threshold, as far as pairs at steps
+    16, 256, ... times larger show the slope still changing by less than BEND_LIMIT (the
+    ladder's bounds hold from steps below the scale on which the slope changes)."""
+    bend = slope_change(probe, first)
+    down = np.clip(np.ceil(np.log2(np.maximum(bend / BEND_LIMIT, 1.0))), 0, 30)
+    want = SETTLE_FRACTION * probe.tolerance(flat, first.central)
+    noise = 2 * first.noise / (first.h_plus + first.h_minus)
+    up = np.clip(np.ceil(np.log2(np.maximum(8.0 * noise / want, 1.0))), 0, MAX_UP)
+    up[down > 0] = 0
+    # A re-estimate for accuracy starts up to 4 steps higher, as far as the slope's change
+    # stays small next to the tensor's typical gradient.
+    room = np.floor(np.log2(BEND_LIMIT / np.maximum(slope_change(probe, first, probe.grad_scale), 1e-300)))
+    start = h * 2.0 ** np.where(down > 0, -down, np.clip(room, 0, 2))
+    climbing = np.flatnonzero(up > 2)
+    if climbing.size:
+        start[climbing] = largest_smooth_step(probe, flat[climbing], h[climbing], up[climbing])
+    return start
+
+
+def largest_smooth_step(probe: TensorProbe, flat: np.ndarray, h: np.ndarray, up: np.ndarray) -> np.ndarray:
+    """Per coordinate, the largest of h * 16**m (16**m <= 2**up) up to which the loss is
+    seen to stay smooth: at every level the slope changes by at most BEND_LIMIT across the
+    step, or the second difference agrees with the level below to BEND_LIMIT (a loss
+    that is quadratic along the coordinate may grow its steps freely). One batch of pairs."""
+    levels = int(np.ceil(up.max() / 4)) + 1
+    factors = 16.0 ** np.arange(levels)
+    p = probe.pairs(np.tile(flat, levels), np.concatenate([h * f for f in factors]))
+    bends = slope_change(probe, p).reshape(levels, flat.size)
+    width = (0.5 * (p.h_plus + p.h_minus)) ** 2
+    second = ((p.f_plus - 2 * probe.f0 + p.f_minus) / width).reshape(levels, flat.size)
+    second_noise = (4 * p.noise / width).reshape(levels, flat.size)
+    steady = np.ones((levels, flat.size), dtype=bool)
+    size = np.maximum(np.abs(second[1:]), np.abs(second[:-1]))
+    seen = np.abs(second) > 4.0 * second_noise  # a second difference above its noise
+    steady[1:] = (np.abs(second[1:] - second[:-1]) <= BEND_LIMIT * size + second_noise[1:] + second_noise[:-1]) \
+        & seen[1:] & seen[:-1]
+    # Growing needs evidence, not the absence of it: the slope itself must stand above the
+    # noise at that level (a loss that looks flat at every step shows nothing either way).
+    slope_noise = (2 * p.noise / (p.h_plus + p.h_minus)).reshape(levels, flat.size)
+    seen_slope = np.abs(p.central.reshape(levels, flat.size)) > 4.0 * slope_noise
+    calm = (bends <= BEND_LIMIT) | steady  # no sign of a bend (perhaps only as far as noise shows)
+    smooth_so_far = np.cumprod(calm, axis=0).astype(bool)
+    wanted = np.arange(levels)[:, None] * 4 <= up[None, :] + 3
+    # Never beyond the params' own scale: past it the loss along a coordinate is another
+    # function, and agreement there proves nothing about the derivative at the point.
+    x = np.abs(probe.x[flat].astype(np.float64))
+    scale = np.maximum(x, probe.x_scale)
+    within = h[None, :] * factors[:, None] <= scale[None, :]
+    accepted = smooth_so_far & seen_slope & wanted & within  # the top level must show its slope
+    best = np.where(accepted, factors[:, None], 1.0).max(axis=0)
+    return h * best
+
+
+def gap_suspects(probe: TensorProbe, flat: np.ndarray, first: Pairs) -> np.ndarray:
+    right, left = first.sides(probe.f0)
+    size = np.maximum(np.maximum(np.abs(left), np.abs(right)), probe.floor)
+    noise = 4 * first.noise / np.minimum(first.h_plus, first.h_minus)
+    return np.abs(right - left) > GAP_SUSPECT * size + noise
