@@ -9,6 +9,7 @@ from html.parser import HTMLParser
 
 import numpy as np
 import pytest
+from conftest import SAMPLES
 from html_pages import FAILING, targets
 
 from gradprobe.render.html import render_html
@@ -133,8 +134,21 @@ def test_stack_attributes_are_shown_when_the_model_has_them():
     report = replace(report, layers=(report.layers[0], replace(report.layers[1], tensors=(inherited,))))
     object.__setattr__(report, "error_enters_at", ("dense",))
     page = render_html(report)
-    assert "error enters at: <strong>dense</strong>" in page
+    assert "<strong>error enters at dense: " in page
     assert "fails end to end only because the error enters in layer dense" in page
+
+
+def test_a_stack_page_says_why_a_layer_is_wrong_and_draws_no_empty_tables():
+    """The buggy shop-demand stack: the trend layer's input gradient is wrong, its params agree."""
+    from gradprobe import probe_target
+
+    report = probe_target(str(SAMPLES / "shop_demand_stack_buggy.py"))
+    page = render_html(report)
+    assert "error enters at trend: its input gradient is wrong" in page
+    assert "its own backward: fail (its input gradient is wrong" in page
+    assert '<table class="layer"><thead><tr><th scope="col">tensor</th>' in page
+    assert page.count('<table class="layer">') == sum(1 for layer in report.layers if layer.tensors)
+    assert "no params of its own" in page  # the relu layer
 
 
 def test_html_setting_in_pyproject_and_an_unwritable_path(run_cli, write_target, tmp_path):

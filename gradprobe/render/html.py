@@ -17,7 +17,7 @@ from ..status import Status
 from ..tensors import format_index
 from ..wording import plural, verb
 from .html_style import CSS
-from .lines import verdict
+from .lines import stack_line, verdict, what_is_wrong
 from .svgmap import legend, tensor_svg
 
 LISTED = 8  # coordinates named in a map's caption or a reason
@@ -92,8 +92,12 @@ HEAD = ("tensor", "shape", "status", "checked", "worst rel", "± noise", "worst 
 
 
 def _layer(layer: LayerResult, k: int) -> str:
-    own = getattr(layer, "own", None)
-    own_text = f' <span class="own">its own backward: {_e(own)}</span>' if own else ""
+    own = layer.own
+    why = f" ({what_is_wrong(layer)})" if own == "fail" else ""
+    own_text = f' <span class="own">its own backward: {_e(own)}{_e(why)}</span>' if own else ""
+    if not layer.tensors:
+        return (f'<h3>layer {_e(layer.name)}{own_text}</h3>'
+                '<p class="note">no params of its own: only its backward is checked, on its own.</p>')
     head = "".join(f'<th scope="col">{h}</th>' for h in HEAD)
     rows = "".join(_row(t, k) for t in layer.tensors)
     return (f'<h3>layer {_e(layer.name)}{own_text}</h3>'
@@ -155,10 +159,9 @@ def _section(run: TargetRun, index: int) -> str:
         return "".join(out)
     out.append(f'<p class="verdict {"gp-ok" if report.ok else "gp-fail"}">{_e(verdict(report))}</p>')
     out.append(_settings(report))
-    enters = getattr(report, "error_enters_at", None)
-    if enters is not None:
-        where = ", ".join(enters) if enters else "no layer (every layer's own backward agrees)"
-        out.append(f'<p class="enters">error enters at: <strong>{_e(where)}</strong></p>')
+    line = stack_line(report)
+    if line is not None:
+        out.append(f'<p class="enters"><strong>{_e(line)}</strong></p>')
     for text in report.errors:
         out.append(f'<p class="error">{_e(text)}</p>')
     for note in report.notes:

@@ -6,7 +6,7 @@ between parts (or drops its optional tail), so numbers and names are never split
 
 from __future__ import annotations
 
-from ..report import Report, TensorResult
+from ..report import LayerResult, Report, TensorResult
 from ..status import Status
 from ..tensors import format_index
 from ..wording import plural, verb
@@ -126,3 +126,45 @@ def _worst_error(t: TensorResult) -> float:
     if t.max_rel_error is not None:
         return t.max_rel_error
     return max((d.rel_error for d in t.directions), default=0.0)
+
+
+def what_is_wrong(layer: LayerResult) -> str:
+    """What a stack layer's own check found wrong, in words."""
+    wrong = [t for t in layer.own_tensors if t.status is Status.FAIL]
+    params = ", ".join(t.name for t in layer.wrong_param_gradients)
+    if layer.input_gradient_wrong and params:
+        text = f"its input gradient and its parameter gradient of {params} are wrong"
+    elif layer.input_gradient_wrong:
+        text = "its input gradient is wrong"
+    elif params:
+        text = f"its parameter gradient of {params} is wrong"
+    else:
+        text = "its own check fails"
+    clues = [t.hint.split(":")[0] for t in wrong if t.hint]
+    return text + (f" ({'; '.join(clues)})" if clues else "")
+
+
+def stack_line(report: Report) -> str | None:
+    """For a stack, one line: where the error enters and which failures are inherited."""
+    if not report.is_stack:
+        return None
+    checked = [layer for layer in report.layers if layer.own is not None]
+    if not report.error_enters_at:
+        odd = [f"{layer.name} {layer.own}" for layer in checked if layer.own is not Status.PASS]
+        more = f" ({', '.join(odd)})" if odd else ""
+        line = f"layers on their own: all {len(checked)} agree{more}"
+    else:
+        by_name = {layer.name: layer for layer in report.layers}
+        line = "error enters at " + "; ".join(
+            f"{name}: {what_is_wrong(by_name[name])}" for name in report.error_enters_at)
+    sources: dict[str, list[str]] = {}
+    for t in report.inherited:
+        sources.setdefault(str(t.inherited_from), []).append(t.name)
+    for source, names in sources.items():
+        line += f" · inherited from {source}: {', '.join(names)}"
+    entered = report.error_enters_at or ()
+    unexplained = [t.name for t in report.failing_tensors
+                   if t.inherited_from is None and t.layer not in entered]
+    if unexplained:
+        line += f" · not explained by any layer's own check: {', '.join(unexplained)}"
+    return line

@@ -19,13 +19,12 @@ from rich.console import Console, ConsoleOptions, RenderableType, RenderResult
 from rich.table import Table
 from rich.text import Text
 
-from ..report import LayerResult, Report, TargetRun, TensorResult
-from ..status import Status
+from ..report import Report, TargetRun, TensorResult
 from ..tensors import format_index
 from ..wording import plural
 from .columns import Column, Layout, fit
 from .heatmap import maps
-from .lines import expected_line, header, verdict
+from .lines import expected_line, header, stack_line, verdict
 from .text import fmt, shape_text
 
 __all__ = ["COLOUR", "PLAIN", "header", "render_text", "renderables", "run_summary", "verdict"]
@@ -141,48 +140,6 @@ def table(report: Report, theme: Theme, width: int = 120) -> tuple[RenderableTyp
     expected = [line for t in report.tensors if (line := expected_line(t)) is not None]
     below += [Whole(Text(_wrap(f"worst of {line}", width))) for line in expected]
     return AtLeast(grid, chosen.width), below
-
-
-def _what_is_wrong(layer: LayerResult) -> str:
-    wrong = [t for t in layer.own_tensors if t.status is Status.FAIL]
-    params = ", ".join(t.name for t in layer.wrong_param_gradients)
-    if layer.input_gradient_wrong and params:
-        text = f"its input gradient and its parameter gradient of {params} are wrong"
-    elif layer.input_gradient_wrong:
-        text = "its input gradient is wrong"
-    elif params:
-        text = f"its parameter gradient of {params} is wrong"
-    else:
-        text = "its own check fails"
-    clues = [t.hint.split(":")[0] for t in wrong if t.hint]
-    return text + (f" ({'; '.join(clues)})" if clues else "")
-
-
-def stack_line(report: Report) -> str | None:
-    """For a stack, one line: where the error enters and which failures are inherited."""
-    if not report.is_stack:
-        return None
-    checked = [layer for layer in report.layers if layer.own is not None]
-    if not report.error_enters_at:
-        odd = [f"{layer.name} {layer.own}" for layer in checked if layer.own is not Status.PASS]
-        more = f" ({', '.join(odd)})" if odd else ""
-        line = f"layers on their own: all {len(checked)} agree{more}"
-    else:
-        by_name = {layer.name: layer for layer in report.layers}
-        line = "error enters at " + "; ".join(
-            f"{name}: {_what_is_wrong(by_name[name])}" for name in report.error_enters_at)
-    sources: dict[str, list[str]] = {}
-    for t in report.inherited:
-        sources.setdefault(str(t.inherited_from), []).append(t.name)
-    for source, names in sources.items():
-        line += f" · inherited from {source}: {', '.join(names)}"
-    entered = report.error_enters_at or ()
-    unexplained = [t.name for t in report.failing_tensors
-                   if t.inherited_from is None and t.layer not in entered]
-    if unexplained:
-        line += f" · not explained by any layer's own check: {', '.join(unexplained)}"
-    return line
-
 
 
 def renderables(
