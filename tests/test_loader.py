@@ -161,6 +161,7 @@ def test_load_error_as_a_real_subprocess(tmp_path):
     )
     assert proc.returncode == 2
     assert proc.stderr.strip().splitlines() == [
-        "gradprobe: error: boom.py: importing it raised RuntimeError: sensor table not found."
+        "gradprobe: error: boom.py: importing it raised RuntimeError: sensor table not found; "
+        "fix it there (--traceback shows where)."
     ]
     assert proc.stdout == ""
