@@ -93,7 +93,7 @@ HEAD = ("tensor", "shape", "status", "checked", "worst rel", "± noise", "worst 
 
 def _layer(layer: LayerResult, k: int) -> str:
     own = layer.own
-    why = f" ({what_is_wrong(layer)})" if own == "fail" else ""
+    why = f" ({what_is_wrong(layer)})" if own is Status.FAIL else ""
     own_text = f' <span class="own">its own backward: {_e(own)}{_e(why)}</span>' if own else ""
     if not layer.tensors:
         return (f'<h3>layer {_e(layer.name)}{own_text}</h3>'
