@@ -8,6 +8,7 @@ fixture takes it. The CLI's options, the ``[tool.gradprobe]`` keys and their typ
 
 from __future__ import annotations
 
+import fnmatch
 import math
 import numbers
 import typing
@@ -70,6 +71,13 @@ class CheckOptions:
     inconclusive: str = setting(
         "allow or fail", "allow", "What an inconclusive tensor does to the run: 'allow' reports it and passes, "
         "'fail' fails the run (exit 1).", choices=INCONCLUSIVE_POLICIES, fixture=True)
+    only: str | None = setting(
+        "tensors to check", None, "Check only the tensors whose names match one of these "
+        "comma-separated patterns ('hidden.*,out.W'; * and ? match as in file names).",
+        metavar="PATTERNS", unset="every tensor")
+    skip: str | None = setting(
+        "tensors to leave out", None, "Leave out the tensors whose names match one of these "
+        "comma-separated patterns (after --only).", metavar="PATTERNS", unset="none")
     # Internal plan sizes (not settings): see engine/tensor_check.py.
     sweep_total: int = 20_000  # a target with at most this many coordinates is swept in full
     sweep_limit: int = 48  # in a larger target, tensors up to this size still are
@@ -98,6 +106,11 @@ class CheckOptions:
                 raise UsageProblem(f"{name} must be 0 or more, not {value}", value=value)
         if self.sample == 0 and self.directions == 0:
             raise UsageProblem("sample 0 with directions 0 would check nothing")
+        for name in ("only", "skip"):
+            value = getattr(self, name)
+            if value is not None and (not isinstance(value, str) or not _patterns(value)):
+                raise UsageProblem(f"{name} takes comma-separated name patterns such as "
+                                   f"'hidden.*,out.W', not {value!r}", value=value)
         if self.jobs < 1:
             raise UsageProblem(f"jobs must be 1 or more, not {self.jobs}", value=self.jobs)
 
@@ -113,6 +126,17 @@ class CheckOptions:
     @property
     def inconclusive_fails(self) -> bool:
         return self.inconclusive == "fail"
+
+    def selects(self, name: str) -> bool:
+        """Whether tensor ``name`` is checked under ``only`` and ``skip``."""
+        wanted = _patterns(self.only)
+        if wanted and not any(fnmatch.fnmatchcase(name, p) for p in wanted):
+            return False
+        return not any(fnmatch.fnmatchcase(name, p) for p in _patterns(self.skip))
+
+
+def _patterns(text: str | None) -> list[str]:
+    return [p.strip() for p in (text or "").split(",") if p.strip()]
 
 
 @dataclass(frozen=True)

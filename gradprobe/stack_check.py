@@ -40,10 +40,11 @@ def run_stack(
     except ProbeError as exc:
         raise exc.with_target(st.label)
     checks = []
+    whole = replace(options, only=None, skip=None)  # a layer's own check names its own tensors
     for part in layer_targets(st, activations):
         report = None
         if part.checkable:
-            report = run_check(part.target, options, executor=executor, progress=progress,
+            report = run_check(part.target, whole, executor=executor, progress=progress,
                                clock=clock)
         checks.append(OwnCheck(part.name, report, part.input_name))
     end = run_check(end_to_end(st), options, executor=executor, progress=progress, clock=clock)

@@ -143,3 +143,37 @@ def test_arrays_are_unchanged_after_an_error_that_ends_with_a_fix(write_target):
                         lambda p, i: {"w": i["x"]}, {"w": np.ones(2)}, {"x": x})
     assert str(info.value).endswith("or copy the array first.")
     assert np.array_equal(x, np.ones(2))
+
+
+def test_only_and_skip_choose_the_tensors_checked(run_cli):
+    target = str(SAMPLES / "crop_yield_buggy.py")  # out.W is wrong
+    only = run_cli("check", target, "--only", "hidden.*", "--json", "-")
+    report = json.loads(only.stdout)
+    assert only.exit_code == 0
+    assert [t["name"] for layer in report["layers"] for t in layer["tensors"]] == ["hidden.W", "hidden.b"]
+    assert "not checked (only/skip): out.W, out.b, x" in report["notes"]
+    assert run_cli("check", target, "--skip", "out.W").exit_code == 0
+    assert run_cli("check", target, "--only", "out.*,x", "--skip", "x").exit_code == 1
+    nothing = run_cli("check", target, "--only", "encoder.*")
+    assert nothing.exit_code == 2
+    assert "the tensors are hidden.W, hidden.b, out.W, out.b, x" in _error(nothing)
+
+
+def test_selection_from_pyproject_and_the_api(run_cli, tmp_path):
+    import gradprobe
+
+    (tmp_path / "pyproject.toml").write_text(
+        f'[tool.gradprobe]\ntargets = ["{SAMPLES / "crop_yield_buggy.py"}"]\nskip = "out.*"\n')
+    assert run_cli("check").exit_code == 0
+    report = gradprobe.probe_target(str(SAMPLES / "crop_yield_buggy.py"), only="out.W")
+    assert [t.name for t in report.tensors] == ["out.W"] and not report.ok
+    with pytest.raises(gradprobe.UsageProblem, match="comma-separated name patterns"):
+        gradprobe.probe_target(str(SAMPLES / "crop_yield_buggy.py"), only=" , ")
+
+
+def test_a_stack_keeps_its_layers_own_checks_under_a_selection(run_cli):
+    result = run_cli("check", str(SAMPLES / "shop_demand_stack_buggy.py"), "--only", "forecast.*",
+                     "--json", "-")
+    report = json.loads(result.stdout)
+    assert result.exit_code == 1 and report["summary"]["error_enters_at"] == ["trend"]
+    assert {t["name"] for layer in report["layers"] for t in layer["tensors"]} == {"forecast.W", "forecast.b"}

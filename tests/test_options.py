@@ -54,8 +54,8 @@ def test_an_unknown_keyword_lists_the_settings():
     with pytest.raises(UsageProblem) as info:
         CheckOptions().with_values(sed=1)
     assert str(info.value) == (
-        "unknown option 'sed'; known: directions, inconclusive, jobs, method, recheck, sample, "
-        "seed, threshold.")
+        "unknown option 'sed'; known: directions, inconclusive, jobs, method, only, recheck, sample, "
+        "seed, skip, threshold.")
 
 
 def test_inconclusive_fail_reaches_the_report(tmp_path):

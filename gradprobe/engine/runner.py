@@ -10,7 +10,7 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from ..errors import ProbeError, TargetLoadError
+from ..errors import ProbeError, TargetLoadError, UsageProblem
 from ..guard import guarded
 from ..heap import keep_heap, release_heap
 from ..hints import Context as HintContext
@@ -144,9 +144,20 @@ def _settings(options: CheckOptions, numerics: Numerics) -> tuple[CheckOptions, 
     return replace(options, threshold=threshold), notes
 
 
-def _records(point: Point) -> list[TensorRecord]:
+def _records(point: Point, settings: CheckOptions) -> list[TensorRecord]:
     """A record per tensor the report names, in the report's order: the workspace's tensors
-    with a gradient (checked, or failed for a problem), then gradients for unknown names."""
+    with a gradient (checked, or failed for a problem), then gradients for unknown names;
+    those that ``only``/``skip`` leave out are not named."""
+    records = [r for r in _all_records(point) if settings.selects(r.name)]
+    if not records:
+        names = ", ".join(r.name for r in _all_records(point))
+        raise UsageProblem(f"no tensor is left to check by only={settings.only!r} and "
+                           f"skip={settings.skip!r}; the tensors are {names}",
+                           fix="give patterns that match some of those names")
+    return records
+
+
+def _all_records(point: Point) -> list[TensorRecord]:
     ws, grads = point.ws, point.grads
     records = []
     for name in ws.names():
@@ -183,8 +194,12 @@ def _check_all(
     ws, numerics, grads = point.ws, point.numerics, point.grads
     settings, threshold_notes = _settings(options, numerics)
     notes = list(grads.notes) + threshold_notes
-    total = sum(ws.owners[n].size for n in grads.values)
-    records = _records(point)
+    records = _records(point, settings)
+    total = sum(ws.owners[r.name].size for r in records if r.name in grads.values)
+    left_out = [n for n in ws.names() if (n in grads.values or n in grads.problems)
+                and not settings.selects(n)]
+    if left_out:
+        notes.append(f"not checked (only/skip): {', '.join(left_out)}")
     for record in records:
         if record.problem is None:
             check_tensor(point.probe(record.name, settings.threshold), settings, total, record)
