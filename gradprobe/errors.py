@@ -60,7 +60,7 @@ class TargetLoadError(ProbeError):
 class UserCodeError(ProbeError):
     """The user's forward or backward raised; the original exception is chained."""
 
-    fix = "add --traceback to see where in your code, then fix it there"
+    fix: str | None = "add --traceback to see where in your code, then fix it there"
 
 
 class BadOutputError(ProbeError):

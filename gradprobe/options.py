@@ -127,6 +127,13 @@ class CheckOptions:
     def inconclusive_fails(self) -> bool:
         return self.inconclusive == "fail"
 
+    @property
+    def resolved_threshold(self) -> float:
+        """The threshold once the check has resolved it for the type it judges in."""
+        if self.threshold is None:
+            raise ValueError("the threshold is resolved before any tensor is checked")
+        return self.threshold
+
     def selects(self, name: str) -> bool:
         """Whether tensor ``name`` is checked under ``only`` and ``skip``."""
         wanted = _patterns(self.only)

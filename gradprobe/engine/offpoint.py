@@ -115,7 +115,7 @@ class SecondLook:
                 current = record.final
                 assert current is not None
                 try:
-                    there = check_coordinates(moved.probe(name, s.threshold), current.flat[which],
+                    there = check_coordinates(moved.probe(name, s.resolved_threshold), current.flat[which],
                                               s.method, s.recheck)
                 except ProbeError:
                     continue

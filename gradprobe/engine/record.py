@@ -72,8 +72,10 @@ class TensorRecord:
         spent = self.evaluations
         if self.moved is not None:  # the second look's calls for this tensor
             spent += self.moved.evaluations - self.outcome.evaluations
+        final = self.final
+        assert final is not None, "a tensor without a problem has been checked"
         return tensor_result(
-            self.name, self.layer, self.kind, self.shape, np.dtype(self.dtype), self.final,
+            self.name, self.layer, self.kind, self.shape, np.dtype(self.dtype), final,
             hint=self.hint, directions=self.directions,
             located_evaluations=self.located_evaluations, evaluations=spent,
             doubt=UNCONFIRMED if self.unconfirmed else None)

@@ -202,7 +202,7 @@ def _check_all(
         notes.append(f"not checked (only/skip): {', '.join(left_out)}")
     for record in records:
         if record.problem is None:
-            check_tensor(point.probe(record.name, settings.threshold), settings, total, record)
+            check_tensor(point.probe(record.name, settings.resolved_threshold), settings, total, record)
             if record.outcome is not None and record.outcome.note:
                 notes.append(record.outcome.note)
     moved_note = _second_look(target, settings, point, records)
@@ -217,7 +217,7 @@ def _check_all(
     errors = [r.hint for r in results if r.checked == 0 and r.status is Status.FAIL and r.hint]
     return Report(
         target=target.label,
-        threshold=settings.threshold,
+        threshold=settings.resolved_threshold,
         seed=settings.seed,
         layers=_group(results),
         evaluations=point.evaluator.count,
