@@ -20,16 +20,12 @@ from .errors import UsageProblem
 METHODS = ("central", "richardson", "complex")
 INCONCLUSIVE_POLICIES = ("allow", "fail")
 
-# Default relative-error thresholds by the floating type the forward computes in. float64:
-# central differences reach about eps**(2/3) ~ 4e-11 on well-scaled functions, so 1e-6 leaves
-# room for conditioning (common practice). float32: eps**(2/3) ~ 2.4e-5 and sums of many
-# float32 terms lose more, so 1e-2 (common practice for single precision).
-DEFAULT_THRESHOLDS = {"float64": 1e-6, "float32": 1e-2, "float16": 1e-1}
-
-
 def default_threshold(dtype: Any) -> float:
-    """The default threshold for a numpy dtype (or its name)."""
-    return DEFAULT_THRESHOLDS.get(str(getattr(dtype, "name", dtype)), 1e-6)
+    """The default threshold for a dtype (or its name): derived from its unit roundoff, see
+    engine/roundoff.py (imported here, not above: the command line starts without numpy)."""
+    from .engine.roundoff import default_threshold as from_roundoff
+
+    return from_roundoff(getattr(dtype, "name", dtype))
 
 
 def setting(
@@ -49,7 +45,7 @@ class CheckOptions:
 
     threshold: float | None = setting(
         "relative-error threshold", None, "Relative error above which a coordinate fails.", flag="fail-above", metavar="REL",
-        unset="1e-6 for float64 code, 1e-2 for float32", fixture=True)
+        unset="1e-6; 2*sqrt(u) for code judged in its own narrower type (float32 4.9e-4, float16 0.044)", fixture=True)
     seed: int = setting(
         "seed for every random draw", 0, "Seed for every random draw (grad_output, samples, directions); 0 or more.",
         metavar="N", fixture=True)

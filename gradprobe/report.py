@@ -156,6 +156,9 @@ class Report:
         """Tensors failing end to end only because a later layer is wrong."""
         return tuple(t for t in self.tensors if t.inherited_from is not None)
     inconclusive_fails: bool = False  # the run was asked to fail on inconclusive tensors
+    # Narrow code checked on its float64 run: the threshold its narrow gradient is held to
+    # against that run (``threshold`` is the float64 run's); None otherwise.
+    narrow_threshold: float | None = None
 
     @property
     def tensors(self) -> tuple[TensorResult, ...]:

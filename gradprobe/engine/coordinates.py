@@ -18,7 +18,7 @@ from ..errors import BadOutputError, ComplexStepError, UserCodeError
 from ..status import FAIL, INCONCLUSIVE, PASS
 from .ladder import Estimate
 from .probe import Pairs, TensorProbe
-from .reconcile import float32_reconciled, unabsorbed, unfuzzed
+from .reconcile import narrow_reconciled, unabsorbed, unfuzzed
 from .refine import RATIO, ROWS, Ladder, climb, one_sided, tiny_pair
 from .steps import SETTLE_FRACTION, gap_suspects, largest_smooth_step, start_steps
 from .verdict import Judged, judge_ladder, judge_plain, judge_sides_apart, sides_differ
@@ -194,8 +194,8 @@ def _outcome(probe: TensorProbe, flat: np.ndarray, judged: Judged, start_count: 
     status = judged.status
     error_estimate = judged.estimate.error
     reasons = judged.reasons
-    if probe.float32 is not None:  # float32 code judged on its float64 run
-        a, numeric, error_estimate, status, reasons, scale = float32_reconciled(
+    if probe.narrow is not None:  # narrow code judged on its float64 run
+        a, numeric, error_estimate, status, reasons, scale = narrow_reconciled(
             probe, flat, a, numeric, error_estimate, status, reasons, scale,
             lambda own, where: _central(own, where, recheck))
     status, reasons = unfuzzed(probe, flat, a, numeric, error_estimate, status, reasons)

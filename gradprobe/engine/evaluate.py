@@ -18,6 +18,7 @@ import numpy as np
 from ..errors import BadOutputError, InPlaceWriteError, UserCodeError, summarise
 from ..guard import ExitAttempt, exit_error
 from ..tensors import Workspace, format_index
+from .domain import Key, Watch
 
 # An integer index array at least this long that is one contiguous run becomes a slice.
 CONTIGUOUS_MIN = 64
@@ -122,20 +123,28 @@ def _overflowed(out: Any) -> bool:
     return bool(np.issubdtype(array.dtype, np.number) and not np.isfinite(array).all())
 
 
+OUTSIDE = "forward warned at a point moved off the base point (outside its domain there)"
+
+
 class LossFunction:
-    """forward as a scalar function of the workspace's current values."""
+    """forward as a scalar function of the workspace's current values; what it warns at
+    moved points is caught, and marks them outside its domain (see domain.py)."""
 
     def __init__(
-        self, forward: Callable[..., Any], workspace: Workspace, grad_output: np.ndarray | None
+        self, forward: Callable[..., Any], workspace: Workspace, grad_output: np.ndarray | None,
+        moved_copy: bool = False,
     ) -> None:
         self.forward = forward
         self.workspace = workspace
         self.grad_output = grad_output
         self._complex: dict[str, np.ndarray] = {}
+        self._watch = Watch(show=not moved_copy)  # a moved copy's base shows no warnings
+        self._unsure: tuple[set[Key], float | complex] | None = None  # warned, base not known
 
-    def _call(self, params: Any, inputs: Any, p: Perturbation | None) -> float | complex:
+    def _call(self, params: Any, inputs: Any, p: Perturbation | None, moved: bool = False) -> float | complex:
+        moved = moved or p is not None
         try:
-            out = self.forward(params, inputs)
+            out, warned = self._watch.call(self.forward, params, inputs, moved)
         except Exception as exc:
             where = self._where(p)
             if is_read_only_write(exc):
@@ -146,12 +155,27 @@ class LossFunction:
         except (SystemExit, ExitAttempt) as exc:
             raise exit_error(exc, "forward", self._where(p)) from exc
         try:
-            return output_to_loss(out, self.grad_output, "")
+            value = output_to_loss(out, self.grad_output, "")
         except BadOutputError as exc:
-            if p is not None and _overflowed(out):
+            if moved and _overflowed(out):
+                if p is None:
+                    raise BadOutputError(exc.message + " at a moved point", value=out) from None
                 return math.nan  # a perturbed point outside forward's range: the caller
                 # shrinks the step, and names the coordinate if that does not help
             raise BadOutputError(exc.message + self._where(p), value=out) from None
+        if warned and self._watch.base is None:
+            self._unsure = (warned, value)  # decided once the base point's warnings are known
+            return math.nan
+        if self._watch.outside(warned):
+            if p is None:
+                raise BadOutputError(OUTSIDE)
+            return math.nan
+        return value
+
+    def _learn_base_warnings(self) -> None:
+        """The base point's own warnings, for a loss whose base was never evaluated here (a
+        worker's): one more forward call, at the workspace's own values."""
+        self._call(self.workspace.params_tree, self.workspace.inputs_tree, None)
 
     def _where(self, p: Perturbation | None) -> str:
         if p is None:
@@ -162,14 +186,37 @@ class LossFunction:
         ws = self.workspace
         return float(np.real(self._call(ws.params_tree, ws.inputs_tree, None)))
 
+    def raw(self, params: Any, inputs: Any) -> Any:
+        """forward's own result on other arrays at the base point's values, unconverted."""
+        return self._watch.call(self.forward, params, inputs, moved=False)[0]
+
     def base_with_type(self) -> tuple[float, np.dtype]:
         """The loss at the base point and the floating type forward returned it in."""
         ws = self.workspace
-        out = self.forward(ws.params_tree, ws.inputs_tree)
+        out, _ = self._watch.call(self.forward, ws.params_tree, ws.inputs_tree, moved=False)
         dtype = np.asarray(out).dtype
         return float(np.real(output_to_loss(out, self.grad_output, ""))), dtype
 
     def at(self, p: Perturbation) -> float | complex:
+        value = self._at(p)
+        if self._unsure is None:
+            return value
+        warned, value = self._unsure
+        self._unsure = None
+        self._learn_base_warnings()
+        return math.nan if self._watch.outside(warned) else value
+
+    def current(self) -> float:
+        """The loss at the workspace's values as the caller moved them (a moved point:
+        BadOutputError where it lies outside forward's domain)."""
+        ws = self.workspace
+        value = self._call(ws.params_tree, ws.inputs_tree, None, moved=True)
+        if self._unsure is not None:
+            self._unsure = None
+            raise BadOutputError(OUTSIDE)  # not to be decided here: no evidence either way
+        return float(np.real(value))
+
+    def _at(self, p: Perturbation) -> float | complex:
         owner = self.workspace.owners[p.tensor]
         if p.values.dtype.kind == "c" and owner.dtype.kind != "c":
             return self._at_complex(p)
@@ -270,7 +317,7 @@ class Evaluator:
     def raw(self, params: Any, inputs: Any) -> Any:
         """forward's own result on other arrays (writable scratch copies), unconverted."""
         self._counted(1)
-        return self.loss.forward(params, inputs)
+        return self.loss.raw(params, inputs)
 
     def loss_with(self, moves: Sequence[Perturbation]) -> float:
         """The loss with every perturbation in ``moves`` applied at once (one call)."""
@@ -279,7 +326,8 @@ class Evaluator:
         try:
             for p in moves:
                 ws.owners[p.tensor].flat[p.index] = p.values
-            return self.base()
+            self._counted(1)
+            return self.loss.current()
         finally:
             for p, old in zip(moves, saved):
                 ws.owners[p.tensor].flat[p.index] = old

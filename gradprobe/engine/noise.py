@@ -51,3 +51,33 @@ def measured_loss_scale(
             # follow name the coordinate if the same happens there
         residual = max(residual, change - 2.0 * bound)
     return MARGIN * max(residual, 0.0) / (rounding_units * eps)
+
+
+SPAN = 4  # calls of the direct measurement: the loss at x + k d, k = 1..SPAN
+SPREAD_MARGIN = 2.0  # one value's rounding is taken as this many times the largest second difference
+
+
+def measured_rounding(
+    evaluator: Evaluator, ws: Workspace, names: list[str], f0: float, rng: np.random.Generator,
+) -> float:
+    """The rounding of one loss value, seen directly (SPAN calls): the loss at x + k d,
+    k = 0..SPAN, d moving some params of every tensor (PER_TENSOR at most, chosen at random)
+    by ULPS units in their last place in random directions. Second differences cancel how
+    the loss changes along d (linear at that scale, whatever the gradient, right or wrong)
+    and keep how its rounding varies from point to point: with independent roundings of
+    spread s each second difference spreads by sqrt(6) s, and SPREAD_MARGIN times the
+    largest of SPAN - 1 of them is about five times s. 0.0 when forward fails there."""
+    names = [n for n in names if n in ws.owners and ws.owners[n].size]
+    picked = {n: rng.choice(ws.owners[n].size, size=min(PER_TENSOR, ws.owners[n].size), replace=False)
+              for n in names}
+    base = {n: ws.owners[n].flat[picked[n]] for n in names}
+    steps = {n: ULPS * np.spacing(np.abs(x)) * rng.choice([-1.0, 1.0], size=x.shape) for n, x in base.items()}
+    values = [f0]
+    try:
+        for k in range(1, SPAN + 1):
+            moves = [Perturbation(n, picked[n], (base[n] + k * steps[n]).astype(base[n].dtype)) for n in names]
+            values.append(evaluator.loss_with(moves))
+    except (UserCodeError, BadOutputError):
+        return 0.0  # outside forward's domain: no evidence either way
+    second = np.abs(np.diff(np.array(values), n=2))
+    return SPREAD_MARGIN * float(second.max(initial=0.0))

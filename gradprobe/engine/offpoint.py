@@ -29,6 +29,7 @@ import numpy as np
 from ..errors import ProbeError
 from ..options import CheckOptions
 from .coordinates import CoordinateOutcome, check_coordinates
+from .domain import quiet
 from .evaluate import LossFunction
 from .point import Point, prepare
 from .record import TensorRecord
@@ -88,9 +89,10 @@ class SecondLook:
     def _prepared(self, sign: float, names: set[str]) -> Point | None:
         p = self._point
         ws = p.ws.replacing({name: self._moved(name, sign) for name in self._names})
-        evaluator = p.evaluator.sibling(LossFunction(self._forward, ws, None))
+        evaluator = p.evaluator.sibling(LossFunction(self._forward, ws, None, moved_copy=True))
         try:
-            ready = prepare(self._forward, self._backward, ws, evaluator, self._seed, scratch=False)
+            with quiet():  # a point gradprobe moved to: the code's warnings there are not shown
+                ready = prepare(self._forward, self._backward, ws, evaluator, self._seed, scratch=False)
         except ProbeError:  # outside the code's domain there: no evidence either way
             return None
         ready.keep_gradients(names)

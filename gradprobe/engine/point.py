@@ -1,6 +1,6 @@
 """A target made ready for probing at one set of values.
 
-Preflight's calls, the backward call, the type the code computes in (float32 code rerun in
+Preflight's calls, the backward call, the type the code computes in (narrow code rerun in
 float64 where it accepts it), the loss's measured rounding and the target-wide gradient
 scale: everything a :class:`TensorProbe` of one tensor needs. The check prepares the point
 it was given; a second look off a kink (:mod:`.offpoint`) prepares a nearby one the same way.
@@ -16,13 +16,16 @@ import numpy as np
 
 from ..errors import ProbeError
 from ..tensors import Workspace, is_float
+from .domain import quiet
 from .evaluate import Backend, Evaluator, LossFunction
 from .gradients import Gradients, validate
-from .noise import measured_loss_scale
+from .narrow import propagated_rounding
+from .noise import measured_loss_scale, measured_rounding
 from .precision import narrower_compute_type
 from .preflight import ForwardInfo, call_backward, inspect_forward
-from .probe import ROUNDING_UNITS, TensorProbe
-from .promote import FLOAT32_AGREEMENT, promote
+from .probe import TensorProbe
+from .promote import agreement, promote
+from .roundoff import is_narrow, rounding_units
 from .sampling import tensor_rng
 
 
@@ -34,8 +37,8 @@ class Numerics:
     f0: float
     dtype: np.dtype  # the type the numeric side computes in
     code_dtype: np.dtype  # the type the user's code computes in
-    analytic: dict[str, np.ndarray]  # the float64 run's gradients, for float32 code promoted
-    float32: dict[str, np.ndarray]  # the float32 gradients those replace
+    analytic: dict[str, np.ndarray]  # the float64 run's gradients, for narrow code promoted
+    narrow: dict[str, np.ndarray]  # the narrow gradients those replace
     why: str  # how the code's type was found, for the note
     terms: float = 0.0  # the size of the terms the loss is summed from (ForwardInfo.terms)
 
@@ -53,17 +56,17 @@ def _compute_type(out_dtype: np.dtype, ws: Workspace) -> tuple[np.dtype, str]:
 def _numerics(backward: Callable[..., Any], ws: Workspace, evaluator: Evaluator,
               info: ForwardInfo, grads: Gradients) -> tuple[Numerics, LossFunction]:
     """The code's compute type (3 calls to look for hidden float32), and float64 numerics
-    for float32 code that accepts float64 (1 forward and 1 backward call); with the loss
+    for narrow code that accepts float64 (1 forward and 1 backward call); with the loss
     the numeric side evaluates."""
     dtype, why = _compute_type(info.out_dtype, ws)
     hidden = narrower_compute_type(evaluator, ws, info.f0, dtype)
     if hidden is not None:
         dtype, why = hidden.dtype, hidden.evidence
-    if dtype == np.float32:
+    if is_narrow(dtype):
         promoted = promote(evaluator, backward, ws, grads, info.f0)
         if promoted is not None:
             return Numerics(promoted.workspace, promoted.f0, np.dtype(np.float64), dtype,
-                            promoted.analytic, promoted.float32, why, info.terms), promoted.loss
+                            promoted.analytic, promoted.narrow, why, info.terms), promoted.loss
     return Numerics(ws, info.f0, dtype, dtype, {}, {}, why, info.terms), evaluator.loss
 
 
@@ -86,6 +89,8 @@ class Point:
     loss_scale: float = 0.0
     target_scale: float = 0.0
     _jitter: dict[str, np.ndarray] | None = field(default=None, repr=False)
+    _narrow_jitter: dict[str, np.ndarray] | None = field(default=None, repr=False)
+    _narrow_loss: tuple[float, float] | None = field(default=None, repr=False)
 
     @property
     def gradients(self) -> dict[str, np.ndarray]:
@@ -94,18 +99,24 @@ class Point:
         return {name: n.analytic.get(name, g.reshape(-1)) for name, g in self.grads.values.items()}
 
     def _measure(self) -> None:
-        """The loss's rounding (3 calls) and the target-wide gradient scale."""
+        """The loss's rounding (3 calls; 4 for narrow numerics, seen directly) and the
+        target-wide gradient scale."""
         n = self.numerics
-        self.loss_scale = max(n.terms, measured_loss_scale(
-            self.evaluator, n.workspace, self.gradients, n.f0, ROUNDING_UNITS,
-            tensor_rng(self.seed, "", "noise")))
+        rng = tensor_rng(self.seed, "", "noise")
+        units = rounding_units(n.dtype)
+        if is_narrow(n.dtype):
+            seen = measured_rounding(self.evaluator, n.workspace, list(self.gradients), n.f0, rng)
+            scale = seen / (units * float(np.finfo(n.dtype).eps))
+        else:
+            scale = measured_loss_scale(self.evaluator, n.workspace, self.gradients, n.f0, units, rng)
+        self.loss_scale = max(n.terms, scale)
         self.target_scale = max((float(np.sqrt(np.mean(g**2))) for g in self.grads.values.values()
                                  if g.size), default=0.0)
 
     def keep_gradients(self, names: set[str]) -> None:
         """Let go of the gradients of every tensor not in ``names`` (memory for a large
         target once its tensors are checked)."""
-        for d in (self.grads.values, self.numerics.analytic, self.numerics.float32):
+        for d in (self.grads.values, self.numerics.analytic, self.numerics.narrow):
             for name in [n for n in d if n not in names]:
                 del d[name]
 
@@ -115,18 +126,30 @@ class Point:
         the analytic value is not defined more finely than this. Measured for the whole
         target on first use; None if backward fails there."""
         if self._jitter is None:
-            self._jitter = self._measured_jitter()
+            self._jitter = self._measured_jitter(self.numerics.workspace, self.gradients)
         return self._jitter.get(name)
 
-    def _measured_jitter(self) -> dict[str, np.ndarray]:
+    def narrow_spread(self, name: str) -> np.ndarray | None:
+        """For narrow code checked on its float64 run, per flat coordinate of ``name``: how far
+        its narrow gradient may leave that run by rounding, measured (see narrow.py): how much
+        the narrow backward's rounding varies at the narrow values, plus how much rounding of
+        every value to the narrow type moves the float64 gradient. Once per target, on first
+        use; None where neither could be measured."""
+        if self._narrow_jitter is None:
+            n = self.numerics
+            fuzz = self._measured_jitter(self.ws, n.narrow)
+            moved = propagated_rounding(self.backward, n.workspace, self.info.grad_output, n.code_dtype,
+                                        n.analytic, tensor_rng(self.seed, "", "propagation")) if self.backward else {}
+            self._narrow_jitter = {k: fuzz.get(k, 0.0) + moved.get(k, 0.0) for k in set(fuzz) | set(moved)}
+        return self._narrow_jitter.get(name)
+
+    def _measured_jitter(self, ws: Workspace, base: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
         """The largest of |g(x + (k+2)d) - 2 g(x + (k+1)d) + g(x + kd)|, k = 1..JITTER_SPAN-2:
         second differences cancel how the gradient really changes along d and keep how its
         rounding varies from point to point; the points lie on one side of a kink at the
         point, so a kink's jump is not taken for fuzz. JITTER_SPAN backward calls."""
         if self.backward is None:
             return {}
-        ws = self.numerics.workspace
-        base = self.gradients
         steps = {}
         for name in base:
             x = ws.owners[name]
@@ -138,8 +161,9 @@ class Point:
         try:
             for k in range(1, JITTER_SPAN + 1):
                 moved = {n: (ws.owners[n] + k * d).astype(ws.owners[n].dtype) for n, d in steps.items()}
-                g = validate(call_backward(self.backward, ws.replacing(moved), self.info.grad_output,
-                                           scratch=False), ws).values
+                with quiet():  # a moved point: the code's warnings there are not shown
+                    raw = call_backward(self.backward, ws.replacing(moved), self.info.grad_output, scratch=False)
+                g = validate(raw, ws).values
                 absent |= {name for name in base if name not in g}
                 if len(before) == 2:
                     for name in base:
@@ -155,21 +179,27 @@ class Point:
         n = self.numerics
         return TensorProbe(self.evaluator, name, n.workspace.owners[name].reshape(-1),
                            self.gradients[name], n.f0, n.dtype, threshold, self.target_scale,
-                           loss_scale=self.loss_scale, float32=self._float32_probe(name),
+                           loss_scale=self.loss_scale, narrow=self._narrow_probe(name),
                            jitter=lambda: self.jitter(name))
 
-    def _float32_probe(self, name: str) -> TensorProbe | None:
-        """For float32 code checked on its float64 run: the tensor probed on the float32
-        code itself, serially, for the coordinates whose float32 gradient leaves its float64
-        run."""
+    def _narrow_probe(self, name: str) -> TensorProbe | None:
+        """For narrow code checked on its float64 run: the tensor probed on the narrow code
+        itself, serially, for the coordinates whose narrow gradient leaves its float64 run;
+        judged at the narrow type's own threshold, against the narrow backward's own fuzz."""
         n = self.numerics
-        if name not in n.float32:
+        if name not in n.narrow:
             return None
         ev = self.evaluator
         own = ev.sibling(LossFunction(ev.loss.forward, self.ws, ev.loss.grad_output))
-        f0 = own.base()
-        return TensorProbe(own, name, self.ws.owners[name].reshape(-1), n.float32[name], f0,
-                           np.dtype(np.float32), FLOAT32_AGREEMENT)
+        if self._narrow_loss is None:  # the narrow loss and its rounding, once per target
+            f0 = own.base()
+            seen = measured_rounding(own, self.ws, list(n.narrow), f0, tensor_rng(self.seed, "", "narrow noise"))
+            units = rounding_units(n.code_dtype) * float(np.finfo(n.code_dtype).eps)
+            self._narrow_loss = (f0, max(n.terms, seen / units))
+        f0, scale = self._narrow_loss
+        return TensorProbe(own, name, self.ws.owners[name].reshape(-1), n.narrow[name], f0,
+                           n.code_dtype, agreement(n.code_dtype), loss_scale=scale,
+                           jitter=lambda: self.narrow_spread(name))
 
 
 BackendFor = Callable[[Workspace, "np.ndarray | None"], "Backend | None"]

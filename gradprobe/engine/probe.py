@@ -16,11 +16,10 @@ import numpy as np
 
 from ..errors import BadOutputError
 from .evaluate import Evaluator, Perturbation
+from .roundoff import rounding_units
 
-# Rounding noise of one loss value is taken as ROUNDING_UNITS * eps * |f|: a forward is a
-# chain of operations each rounding once, so a few units of eps (common practice). The
-# calibration tests against mpmath (tests/test_estimates.py) hold this bound.
-ROUNDING_UNITS = 8.0
+# Rounding noise of one loss value is taken as rounding_units(type) * eps * max(|f|, L), L the
+# loss scale measured on the target (see roundoff.py and noise.py).
 FLOOR_FRACTION = 1e-3  # denominators never fall below 1e-3 of the tensor's gradient scale
 TARGET_FLOOR_FRACTION = 1e-4  # ... nor below 1e-4 of the target's largest tensor scale
 
@@ -75,7 +74,7 @@ class TensorProbe:
         threshold: float,
         target_scale: float = 0.0,
         loss_scale: float | None = None,
-        float32: TensorProbe | None = None,
+        narrow: TensorProbe | None = None,
         jitter: Callable[[], np.ndarray | None] | None = None,
     ) -> None:
         self.evaluator = evaluator
@@ -85,6 +84,7 @@ class TensorProbe:
         self.f0 = f0
         self.compute_dtype = np.dtype(compute_dtype)
         self.eps = float(np.finfo(self.compute_dtype).eps)
+        self.rounding_units = rounding_units(self.compute_dtype)
         self.threshold = threshold
         rms = float(np.sqrt(np.mean(analytic**2))) if analytic.size else 0.0
         self.grad_scale = rms  # the tensor's typical gradient
@@ -96,9 +96,9 @@ class TensorProbe:
         # |f| can be far below the size of the terms that round (a sum of signed terms):
         # the loss scale, when known, is the larger of the two.
         self.loss_scale = max(abs(f0), loss_scale or 0.0)
-        # float32 code checked on its float64 run: the same tensor probed on the float32
-        # code itself, with the float32 gradient it really returns.
-        self.float32 = float32
+        # Narrow code checked on its float64 run: the same tensor probed on the narrow code
+        # itself, with the narrow gradient it really returns.
+        self.narrow = narrow
         # How much backward's rounding varies near the point (measured on first use, see
         # point.Point.jitter).
         self.jitter = jitter
@@ -122,7 +122,7 @@ class TensorProbe:
         size = np.full(np.shape(values[0]), self.loss_scale)
         for v in values:
             size = np.maximum(size, np.abs(v))
-        return ROUNDING_UNITS * self.eps * size
+        return self.rounding_units * self.eps * size
 
     # -- steps ------------------------------------------------------------------------
 
@@ -140,8 +140,9 @@ class TensorProbe:
         h = np.asarray(h, dtype=np.float64).copy()
         base = as_seen(x, self.compute_dtype)
         for _ in range(8):
-            plus = (x + h).astype(x.dtype)
-            minus = (x - h).astype(x.dtype)
+            with np.errstate(over="ignore", invalid="ignore"):  # a move past the type's range:
+                plus = (x + h).astype(x.dtype)  # not finite, and the pairs shrink it
+                minus = (x - h).astype(x.dtype)
             h_plus = as_seen(plus, self.compute_dtype) - base
             h_minus = base - as_seen(minus, self.compute_dtype)
             stuck = (h_plus <= 0) | (h_minus <= 0) | ~np.isfinite(h_plus) | ~np.isfinite(h_minus)

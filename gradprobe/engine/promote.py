@@ -1,15 +1,15 @@
-"""Checking float32 code with float64 numerics, when its code accepts float64.
+"""Checking narrow code (float32, float16, ...) with float64 numerics, when it accepts float64.
 
-The numeric side of a float32 check is limited by float32 rounding (central differences
-reach about eps32**(2/3) ~ 2e-5 at best, and sums with cancellation lose far more), so a
-flat 1e-2 threshold lets sub-percent bugs through while rounding still cries wolf. When
-forward and backward, given the same values as float64 arrays, compute in float64, the
-check runs on that float64 run: numeric derivatives in float64 at the float32 values,
-against the float64 gradient of the same backward, at the float64 threshold. A bug in the
-backward's formulas is in both runs and fails at that threshold. The float32 gradient the
-user's code really returns must then agree with its float64 run to FLOAT32_AGREEMENT
-(float32 rounding); a coordinate beyond that fails too (overflow, underflow or a branch
-taken only in float32).
+The numeric side of a narrow check is limited by the type's rounding (central differences
+reach about u**(2/3) at best, u its unit roundoff, and sums with cancellation lose far more).
+When forward and backward, given the same values as float64 arrays, compute in float64, the
+check runs on that float64 run: numeric derivatives in float64 at the narrow values, against
+the float64 gradient of the same backward, at the float64 threshold. A bug in the backward's
+formulas is in both runs and fails at that threshold. The narrow gradient the user's code
+really returns must then agree with its float64 run to the narrow type's own threshold
+(:func:`.roundoff.default_threshold`) or to what its rounding is measured to vary by (the
+caller's); a coordinate beyond both is checked on the narrow code itself (overflow,
+underflow or a branch taken only in the narrow type).
 """
 
 from __future__ import annotations
@@ -25,11 +25,9 @@ from ..tensors import Workspace, is_float
 from .evaluate import Evaluator, LossFunction
 from .gradients import Gradients, validate
 from .preflight import call_backward
+from .roundoff import default_threshold, is_narrow
 
-# The float32 gradient may differ from its float64 run by 1e-2 of the coordinate's scale:
-# float32 rounding of sums (common practice: the old float32 default threshold).
-FLOAT32_AGREEMENT = 1e-2
-# float32 and float64 losses may differ by this share of |f| (float32 rounding in sums with
+# Narrow and float64 losses may differ by this share of |f| (narrow rounding in sums with
 # cancellation reaches percents; beyond this the float64 run computes something else).
 AGREEMENT = 0.1
 
@@ -40,18 +38,18 @@ class Promoted:
     loss: LossFunction
     f0: float
     analytic: dict[str, np.ndarray]  # the float64 run's gradient per tensor, flat
-    float32: dict[str, np.ndarray]  # the float32 gradient per tensor, flat
+    narrow: dict[str, np.ndarray]  # the narrow gradient per tensor, flat
 
 
 def _narrow_names(ws: Workspace) -> list[str]:
-    return [n for n in ws.names() if is_float(ws.owners[n]) and ws.owners[n].dtype == np.float32]
+    return [n for n in ws.names() if is_float(ws.owners[n]) and is_narrow(ws.owners[n].dtype)]
 
 
 def promote(
     evaluator: Evaluator, backward: Callable[..., Any], ws: Workspace,
     grads: Gradients, f0: float,
 ) -> Promoted | None:
-    """float64 numerics for a float32 target, or None when its code does not take float64.
+    """float64 numerics for a narrow target, or None when its code does not take float64.
 
     Costs one forward call (counted by ``evaluator``) and one backward call."""
     names = _narrow_names(ws)
@@ -69,19 +67,19 @@ def promote(
             return None
         raw = call_backward(backward, wide, grad_output)
         if not _all_float64(raw):
-            return None  # backward rounds to float32 itself: no float64 run to compare with
+            return None  # backward rounds to the narrow type itself: no float64 run to compare with
         grads64 = validate(raw, wide)
     except (ProbeError, Exception):  # float64 is outside what this code accepts
         return None
     analytic: dict[str, np.ndarray] = {}
-    float32: dict[str, np.ndarray] = {}
+    narrow: dict[str, np.ndarray] = {}
     for name, g in grads.values.items():
         g64 = grads64.values.get(name)
         if g64 is None or g64.shape != g.shape:
             return None
         analytic[name] = g64.reshape(-1)
-        float32[name] = g.reshape(-1)
-    return Promoted(wide, loss, f64, analytic, float32)
+        narrow[name] = g.reshape(-1)
+    return Promoted(wide, loss, f64, analytic, narrow)
 
 
 def _all_float64(tree: Any) -> bool:
@@ -91,6 +89,12 @@ def _all_float64(tree: Any) -> bool:
     return not np.issubdtype(array.dtype, np.floating) or array.dtype == np.float64
 
 
-def disagreeing(float32: np.ndarray, float64: np.ndarray, scale: np.ndarray) -> np.ndarray:
-    """Coordinates whose float32 gradient is further from its float64 run than rounding."""
-    return np.abs(float32 - float64) > FLOAT32_AGREEMENT * scale
+def agreement(dtype: np.dtype) -> float:
+    """The share of a coordinate's scale by which a gradient computed in ``dtype`` may leave
+    its float64 run: the type's own threshold."""
+    return default_threshold(dtype)
+
+
+def disagreeing(narrow: np.ndarray, wide: np.ndarray, allowed: np.ndarray) -> np.ndarray:
+    """Coordinates whose narrow gradient is further from its float64 run than ``allowed``."""
+    return np.abs(narrow - wide) > allowed

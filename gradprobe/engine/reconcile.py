@@ -1,10 +1,11 @@
-"""After a coordinate is judged: what float32 code, forward's rounding and backward's own
+"""After a coordinate is judged: what narrow code, forward's rounding and backward's own
 fuzz change about the verdict.
 
-- float32 code judged on its float64 run (:mod:`.promote`): its float32 gradient must agree
-  with that run, unless a kink that float32 rounding puts at the point explains it
-  (:func:`float32_side`); otherwise it is checked on the float32 code itself
-  (:func:`float32_reconciled`);
+- narrow code (float32, float16, ...) judged on its float64 run (:mod:`.promote`): its
+  narrow gradient must agree with that run to the type's threshold or to its measured
+  rounding, unless a kink that narrow rounding puts at the point explains it
+  (:func:`.narrow.kink_within_reach`); otherwise it is checked on the narrow code itself
+  (:func:`narrow_reconciled`);
 - a failure read off a loss that did not change at all is rounding absorbing the step
   (:func:`unabsorbed`);
 - a failure backward's own rounding explains is undecided (:func:`unfuzzed`).
@@ -19,7 +20,8 @@ import numpy as np
 from ..status import FAIL, INCONCLUSIVE, KINK
 from .ladder import Estimate
 from .probe import Pairs, TensorProbe
-from .promote import FLOAT32_AGREEMENT, disagreeing
+from .narrow import kink_within_reach
+from .promote import disagreeing
 from .verdict import SIGNIFICANCE, Judged
 
 FUZZY = (
@@ -31,41 +33,50 @@ ABSORBED = (
     "the loss does not change at all at the steps a decision needs, though it does at larger "
     "ones: rounding in forward absorbs them (sums of much larger terms?)"
 )
-FLOAT32_STEP = float(np.finfo(np.float32).eps) ** (1.0 / 3.0)  # float32 code's first step
 
 
-def float32_reconciled(
+def narrow_reconciled(
     probe: TensorProbe, flat: np.ndarray, a: np.ndarray, numeric: np.ndarray,
     error_estimate: np.ndarray, status: np.ndarray, reasons: tuple[str | None, ...],
     scale: np.ndarray, check: Callable[[TensorProbe, np.ndarray], Judged],
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, tuple[str | None, ...], np.ndarray]:
-    """The verdicts of float32 code judged on its float64 run (``probe.float32`` set), with
-    the coordinates whose float32 gradient leaves that run settled: by a kink float32
-    rounding puts at the point, or by ``check`` (the coordinate check) on the float32
-    code itself, the worse verdict standing. Returns (analytic, numeric, error estimate,
-    status, reasons, scale)."""
-    own = probe.float32
+    """The verdicts of narrow code judged on its float64 run (``probe.narrow`` set), with the
+    coordinates whose narrow gradient leaves that run by more than the narrow type's
+    threshold settled: by a kink narrow rounding puts at the point
+    (:func:`.narrow.kink_within_reach`); else, beyond SIGNIFICANCE times the rounding
+    measured for it (point.Point.narrow_spread) too, by ``check`` (the coordinate check) on
+    the narrow code itself, against that rounding, the worse verdict standing (where the
+    narrow arithmetic cannot tell, undecided: the measured rounding need not cover all that
+    the narrow type does differently). Returns (analytic, numeric, error estimate, status,
+    reasons, scale)."""
+    own = probe.narrow
     assert own is not None
-    off = np.flatnonzero(disagreeing(own.a[flat], a, scale))
+    narrow_a = own.a[flat]
+    off = np.flatnonzero(disagreeing(narrow_a, a, own.threshold * scale))
     status, numeric, error_estimate = status.copy(), numeric.copy(), error_estimate.copy()
-    if off.size:  # a kink that float32 rounding puts at the point, on the float64 run?
-        sided = float32_side(probe, flat[off], own.a[flat][off], scale[off])
+    if off.size:  # a kink that narrow rounding puts at the point, on the float64 run?
+        sided = kink_within_reach(probe, own, flat[off], narrow_a[off], scale[off])
         if sided is not None:
             took, side = sided
             k = off[took]
             status[k] = np.maximum(status[k], KINK)
             numeric[k], error_estimate[k] = side.value, side.error
-            a[k] = own.a[flat][k]
+            a[k] = narrow_a[k]
             off = off[~took]
-    if off.size:  # the float32 value on the float32 code itself
+    spread = own.jitter() if off.size and own.jitter is not None else None
+    if spread is not None:  # beyond the type's threshold: beyond its measured rounding too?
+        off = off[np.abs(narrow_a[off] - a[off]) > SIGNIFICANCE * spread[flat[off]]]
+    if off.size:  # the narrow value on the narrow code itself
         redo = check(own, flat[off])  # counted with the check's calls
+        redone_status, redone_reasons = unfuzzed(own, flat[off], narrow_a[off], redo.estimate.value,
+                                                 redo.estimate.error, redo.status, redo.reasons)
         # The worse verdict stands, with its own reason and numbers.
-        worse = redo.status >= status[off]
-        status[off] = np.maximum(status[off], redo.status)
+        worse = redone_status >= status[off]
+        status[off] = np.maximum(status[off], redone_status)
         numeric[off[worse]] = redo.estimate.value[worse]
         error_estimate[off[worse]] = redo.estimate.error[worse]
-        a[off] = own.a[flat][off]  # report the value the code returns
-        redone = {k: r for k, r, w in zip(off.tolist(), redo.reasons, worse) if w}
+        a[off] = narrow_a[off]  # report the value the code returns
+        redone = {k: r for k, r, w in zip(off.tolist(), redone_reasons, worse) if w}
         reasons = tuple(redone.get(k, r) for k, r in enumerate(reasons))
     scale = probe.denominators(flat, numeric)
     return a, numeric, error_estimate, status, reasons, scale
@@ -113,36 +124,3 @@ def unfuzzed(
     for k in failing[fuzzy].tolist():
         listed[k] = FUZZY
     return status, tuple(listed)
-
-
-def float32_side(
-    probe: TensorProbe, flat: np.ndarray, float32: np.ndarray, scale: np.ndarray
-) -> tuple[np.ndarray, Estimate] | None:
-    """Which float32 gradients that leave their float64 run are explained by a kink of the
-    float64 run within float32's resolution: at one of the steps float32 code would take
-    (its first step, and 16 and 256 times smaller) the one-sided quotients of the float64 run
-    lie further apart than float32 agreement and than curvature makes them, and the float32
-    value lies between them (float32 rounding puts the code on the kink, or on its other
-    side, where the float64 run is just off it). With the estimate each is judged by."""
-    n = flat.size
-    x = np.abs(probe.x[flat].astype(np.float64))
-    steps = np.concatenate([FLOAT32_STEP * np.maximum(1.0, x) / 16.0**k for k in range(3)])
-    p = probe.pairs(np.tile(flat, 3), steps)
-    right, left = (q.reshape(3, n) for q in p.sides(probe.f0))
-    noise = (2.0 * p.noise / np.minimum(p.h_plus, p.h_minus)).reshape(3, n)
-    tol = FLOAT32_AGREEMENT * scale
-    # The gap curvature alone would give at each step, from the smallest step's gap.
-    bend = np.abs(right[2] - left[2]) / steps.reshape(3, n)[2]
-    curved = 2.0 * bend * steps.reshape(3, n)
-    curved[2] = 0.0
-    apart = np.abs(right - left) > tol + 2.0 * noise + curved
-    between = (float32 >= np.minimum(left, right) - tol - noise) & (float32 <= np.maximum(left, right) + tol + noise)
-    fits = apart & between
-    took = fits.any(axis=0)
-    if not took.any():
-        return None
-    row = np.argmax(fits, axis=0)  # the largest step that explains it
-    cols = np.arange(n)
-    lv, rv, nv = left[row, cols], right[row, cols], noise[row, cols]
-    nearer = np.where(np.abs(float32 - lv) <= np.abs(float32 - rv), lv, rv)
-    return took, Estimate(nearer[took], nv[took])

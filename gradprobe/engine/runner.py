@@ -25,6 +25,8 @@ from .offpoint import MOVE, SecondLook
 from .point import Numerics, Point, prepare
 from .record import TensorRecord
 from .tensor_check import check_tensor
+from .promote import agreement
+from .roundoff import is_narrow, unit_roundoff
 
 if TYPE_CHECKING:
     from concurrent.futures import Executor
@@ -47,20 +49,21 @@ def _backend(
 
 
 def _threshold_note(dtype: np.dtype, why: str) -> str:
-    eps = float(np.finfo(dtype).eps)
+    u = unit_roundoff(dtype)
     return (
-        f"forward computes in {dtype}{why}: its rounding unit is {eps:.1e}, so central differences "
-        f"are good to about {eps ** (2 / 3):.0e} relative at best, and the default threshold for "
-        f"it is {default_threshold(dtype):g}"
+        f"forward computes in {dtype}{why}: its unit roundoff is {u:.1e}, so central differences "
+        f"are good to about {u ** (2 / 3):.0e} relative at best, and the default threshold for "
+        f"it is {default_threshold(dtype):.2g} (2 sqrt(u))"
     )
 
 
-def _promoted_note(why: str, threshold: float) -> str:
+def _promoted_note(dtype: np.dtype, why: str, threshold: float) -> str:
     return (
-        f"forward computes in float32{why}; forward and backward also run in float64, so "
+        f"forward computes in {dtype}{why}; forward and backward also run in float64, so "
         f"backward's float64 gradient was checked against float64 numeric derivatives at the "
-        f"float32 values within {threshold:g}, and its float32 gradient against that float64 "
-        f"gradient within 1e-2 (float32 rounding)"
+        f"{dtype} values within {threshold:g}, and its {dtype} gradient against that float64 "
+        f"gradient within {agreement(dtype):.2g} ({dtype} rounding) or within what its rounding "
+        f"is measured to vary by"
     )
 
 
@@ -138,9 +141,9 @@ def _settings(options: CheckOptions, numerics: Numerics) -> tuple[CheckOptions, 
     compute_dtype = numerics.code_dtype
     if numerics.analytic:
         threshold = options.threshold or default_threshold(np.dtype(np.float64))
-        return replace(options, threshold=threshold), [_promoted_note(numerics.why, threshold)]
+        return replace(options, threshold=threshold), [_promoted_note(compute_dtype, numerics.why, threshold)]
     threshold = options.threshold or default_threshold(compute_dtype)
-    notes = [_threshold_note(compute_dtype, numerics.why)] if compute_dtype != np.float64 else []
+    notes = [_threshold_note(compute_dtype, numerics.why)] if is_narrow(compute_dtype) else []
     return replace(options, threshold=threshold), notes
 
 
@@ -227,4 +230,5 @@ def _check_all(
         errors=tuple(errors),
         notes=tuple(notes),
         inconclusive_fails=settings.inconclusive_fails,
+        narrow_threshold=agreement(point.numerics.code_dtype) if point.numerics.analytic else None,
     )

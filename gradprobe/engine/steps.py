@@ -11,6 +11,8 @@ from __future__ import annotations
 import numpy as np
 
 from .probe import Pairs, TensorProbe
+from .refine import RATIO, ROWS
+from .roundoff import is_narrow
 
 SETTLE_FRACTION = 1e-2  # a first estimate this far inside the threshold settles a coordinate
 BEND_LIMIT = 0.05  # the slope may change by 5% across the ladder's first step
@@ -39,6 +41,7 @@ def start_steps(probe: TensorProbe, flat: np.ndarray, first: Pairs, h: np.ndarra
     want = SETTLE_FRACTION * probe.tolerance(flat, first.central)
     noise = 2 * first.noise / (first.h_plus + first.h_minus)
     up = np.clip(np.ceil(np.log2(np.maximum(8.0 * noise / want, 1.0))), 0, MAX_UP)
+    torn = _torn(probe, up, down)
     up[down > 0] = 0
     # A re-estimate for accuracy starts up to 4 steps higher, as far as the slope's change
     # stays small next to the tensor's typical gradient.
@@ -47,7 +50,22 @@ def start_steps(probe: TensorProbe, flat: np.ndarray, first: Pairs, h: np.ndarra
     climbing = np.flatnonzero(up > 2)
     if climbing.size:
         start[climbing] = largest_smooth_step(probe, flat[climbing], h[climbing], up[climbing])
+    start[torn] = h[torn] * TORN_RISE
     return start
+
+
+TORN_RISE = RATIO ** (ROWS - 1)  # the ladder then comes down to the first step
+
+
+def _torn(probe: TensorProbe, up: np.ndarray, down: np.ndarray) -> np.ndarray:
+    """Narrow arithmetic whose rounding noise hides the threshold at the first step while
+    the slope bends on the scale of that step: smaller steps only add noise, so the ladder
+    starts TORN_RISE steps higher and comes down to the first step; its tableau uses an
+    entry only where the quotients are seen to shrink as h**2 on this coordinate
+    (ladder.settled_rows), else the bound stays wide."""
+    if not is_narrow(probe.compute_dtype):
+        return np.zeros(up.shape, dtype=bool)
+    return (up > 0) & (down > 0)
 
 
 def largest_smooth_step(probe: TensorProbe, flat: np.ndarray, h: np.ndarray, up: np.ndarray) -> np.ndarray:

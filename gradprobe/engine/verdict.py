@@ -20,6 +20,7 @@ import numpy as np
 from .ladder import Estimate
 from .probe import TensorProbe
 from .refine import Ladder, Tiny
+from .roundoff import is_narrow
 from ..status import FAIL, INCONCLUSIVE, KINK, PASS
 
 SIGNIFICANCE = 3.0  # a coordinate's discrepancy beyond 3 error bounds is evidence of a bug
@@ -63,18 +64,28 @@ class Judged:
         return Judged(status, Estimate(value, error), tuple(reasons), noisy)
 
 
-def _verdicts(a: np.ndarray, est: Estimate, tol: np.ndarray) -> np.ndarray:
+def _verdicts(probe: TensorProbe, a: np.ndarray, est: Estimate, tol: np.ndarray) -> np.ndarray:
     err = np.abs(a - est.value)
     status = np.full(a.shape, INCONCLUSIVE, dtype=np.int8)
-    status[err <= tol] = PASS
+    status[(err <= tol) & _resolved(probe, est, tol)] = PASS
     status[(err > tol) & (err > SIGNIFICANCE * est.error)] = FAIL
     return status
+
+
+def _resolved(probe: TensorProbe, est: Estimate, tol: np.ndarray) -> np.ndarray:
+    """Where an estimate is sharp enough for a pass. In narrow arithmetic an estimate's bound
+    can lie far above the threshold while its value agrees by chance; a bound beyond the
+    coordinate's own scale (the estimate does not know the derivative's size) passes
+    nothing. (float64 bounds lie far below the threshold wherever a pass is reached.)"""
+    if not is_narrow(probe.compute_dtype):
+        return np.ones(tol.shape, dtype=bool)
+    return est.error <= tol / probe.threshold
 
 
 def judge_plain(probe: TensorProbe, flat: np.ndarray, est: Estimate) -> Judged:
     """Verdicts from one estimate per coordinate (no kink analysis)."""
     a = probe.a[flat]
-    status = _verdicts(a, est, probe.tolerance(flat, est.value))
+    status = _verdicts(probe, a, est, probe.tolerance(flat, est.value))
     reasons = tuple(NOISE if s == INCONCLUSIVE else None for s in status)
     return Judged(status, est, reasons, status == INCONCLUSIVE)
 
@@ -106,7 +117,7 @@ def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, tiny: Tin
     # estimate of f' that the central tableau (which assumes even powers of h) may not reach.
     corner = Estimate(mid, np.maximum(left.error, right.error) + 0.5 * np.abs(right.value - left.value))
     best = Estimate.better(ladder.central, corner)
-    status = _verdicts(a, best, probe.tolerance(flat, best.value))
+    status = _verdicts(probe, a, best, probe.tolerance(flat, best.value))
     # Sides too uncertain to be told apart, yet further apart than the central bound: at a
     # kink the central quotients are the sides' mean, whatever their tableau's bound says,
     # so a value the kink could explain is not a bug on this evidence (a second look off
@@ -132,7 +143,7 @@ def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, tiny: Tin
     if lopsided.size:
         side = Estimate(np.where(settled_left, left.value, right.value)[lopsided],
                         NEAR_SAFETY * np.where(settled_left, left.error, right.error)[lopsided])
-        status[lopsided] = _verdicts(a[lopsided], side, probe.tolerance(flat[lopsided], side.value))
+        status[lopsided] = _verdicts(probe, a[lopsided], side, probe.tolerance(flat[lopsided], side.value))
         value[lopsided], error[lopsided] = side.value, side.error
         # A value the kink itself could explain is not taken as a bug on this evidence.
         explained = _within_kink(a, left, right, probe.tolerance(flat, a))[lopsided]
@@ -193,7 +204,7 @@ def _judge_sides(
     clean_left = np.abs(tiny.left - left.value) <= SIGNIFICANCE * (left.error + slack)
     near = _one_clean_side(clean_left, clean_right, left, right, tiny.central)
     near = Estimate(near.value, NEAR_SAFETY * near.error)
-    near_status = _verdicts(a, near, probe.tolerance(f, near.value))
+    near_status = _verdicts(probe, a, near, probe.tolerance(f, near.value))
     for j, k in enumerate(which.tolist()):
         if kept[j]:
             status[k] = KINK if inside[j] else FAIL
@@ -226,7 +237,7 @@ def judge_sides_apart(
     decides_left, decides_right = left.error <= tol, right.error <= tol
     agree = np.abs(left.value - right.value) <= SIGNIFICANCE * (left.error + right.error) + tol
     chosen = _one_clean_side(decides_left, decides_right, left, right, Estimate.better(left, right))
-    status = _verdicts(a, chosen, probe.tolerance(flat, chosen.value))
+    status = _verdicts(probe, a, chosen, probe.tolerance(flat, chosen.value))
     both = decides_left & decides_right
     status[both & ~agree] = np.where(_within_kink(a, left, right, tol), KINK, FAIL)[both & ~agree]
     status[~(decides_left | decides_right)] = INCONCLUSIVE

@@ -25,8 +25,9 @@ MAX_RANK = 64  # items of more rows than this (large batches per step) are not t
 
 
 def _basis(rows: np.ndarray) -> np.ndarray:
-    """An orthonormal basis (columns) of the span of ``rows``."""
-    _, s, vt = np.linalg.svd(rows, full_matrices=False)
+    """An orthonormal basis (columns) of the span of ``rows`` (in float64: linalg takes no
+    float16 inputs)."""
+    _, s, vt = np.linalg.svd(np.asarray(rows, dtype=np.float64), full_matrices=False)
     if not s.size or s[0] == 0:
         return vt[:0].T
     return vt[: int((s > RANK_TOL * s[0]).sum())].T

@@ -91,6 +91,7 @@ def report_dict(report: Report) -> dict[str, Any]:
         "seed": report.seed,
         "method": report.method,
         "compute_dtype": report.compute_dtype,
+        "narrow_threshold": report.narrow_threshold,
         "inconclusive_fails": report.inconclusive_fails,
         "summary": {
             "tensors": len(report.tensors),

@@ -15,9 +15,18 @@ SEP = " · "
 AGREES, DISAGREES = "agrees", "DISAGREES"  # the verdict line's first word: the run's outcome
 
 
+def threshold_part(report: Report) -> str:
+    """Which threshold judges what, in one part: narrow code checked on its float64 run is
+    held to two (its float64 run's and its own gradient's against that run)."""
+    dtype = report.compute_dtype
+    if report.narrow_threshold is None:
+        return f"threshold {report.threshold:g} ({dtype})"
+    return (f"threshold {report.threshold:g} ({dtype} code run in float64; "
+            f"its {dtype} gradient within {report.narrow_threshold:.2g} of that run)")
+
+
 def header_parts(report: Report) -> list[str]:
-    return ["gradprobe", report.target, report.method,
-            f"threshold {report.threshold:g} ({report.compute_dtype})", f"seed {report.seed}"]
+    return ["gradprobe", report.target, report.method, threshold_part(report), f"seed {report.seed}"]
 
 
 def wrap_parts(parts: list[str], width: int | None, indent: str = "  ") -> str:
