@@ -140,7 +140,8 @@ class Point:
             fuzz = self._measured_jitter(self.ws, n.narrow)
             moved = propagated_rounding(self.backward, n.workspace, self.info.grad_output, n.code_dtype,
                                         n.analytic, tensor_rng(self.seed, "", "propagation")) if self.backward else {}
-            self._narrow_jitter = {k: fuzz.get(k, 0.0) + moved.get(k, 0.0) for k in set(fuzz) | set(moved)}
+            self._narrow_jitter = {k: np.asarray(fuzz.get(k, 0.0) + moved.get(k, 0.0), dtype=np.float64)
+                                   for k in set(fuzz) | set(moved)}
         return self._narrow_jitter.get(name)
 
     def _measured_jitter(self, ws: Workspace, base: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
