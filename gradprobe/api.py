@@ -12,6 +12,7 @@ from __future__ import annotations
 from collections.abc import Callable, Mapping
 from typing import TYPE_CHECKING, Any
 
+from .baseline_file import baseline_of, run_against
 from .engine.runner import run_check
 from .options import CheckOptions
 from .report import Report
@@ -41,11 +42,14 @@ def probe(
     """Check ``backward`` against central differences of ``forward`` at ``params``/``inputs``.
 
     ``options`` are the settings of :class:`~gradprobe.options.CheckOptions`: ``threshold``,
-    ``seed``, ``method``, ``sample``, ``directions``, ``jobs``, ``recheck``, ``inconclusive``.
+    ``seed``, ``method``, ``sample``, ``directions``, ``jobs``, ``recheck``, ``inconclusive``,
+    ``baseline`` (an earlier JSON report to compare with) and ``baseline_growth``.
     ``label`` names the target in reports (default: the forward function's name).
     """
+    checked = _options(options)
+    baseline = baseline_of(checked)
     target = Target(label or name_of(forward), forward, backward, params, inputs or {})
-    return run_check(target, _options(options), executor=executor)
+    return run_against(baseline, target.label, checked, lambda o: run_check(target, o, executor=executor))
 
 
 def name_of(forward: Callable[..., Any]) -> str:
@@ -62,6 +66,7 @@ def probe_target(target: str | Any, *, executor: Executor | None = None, **optio
     :class:`~gradprobe.target.Target` (e.g. from :func:`~gradprobe.adapters.layer_target`), a
     stack, or any object with forward, backward and setup() or params (or layers)."""
     checked = _options(options)
+    baseline = baseline_of(checked)
     loaded: Target | StackTarget
     if isinstance(target, str):
         loaded = load_any(target)
@@ -71,7 +76,8 @@ def probe_target(target: str | Any, *, executor: Executor | None = None, **optio
         loaded = stack_from_object(target, label=type(target).__name__)
     else:
         loaded = target_from_object(target, label=type(target).__name__)
-    return run_any(loaded, checked, executor=executor)
+    name = target if isinstance(target, str) else loaded.label
+    return run_against(baseline, name, checked, lambda o: run_any(loaded, o, executor=executor))
 
 
 def probe_stack(
@@ -86,11 +92,13 @@ def probe_stack(
     """Check a stack of layers (protocol section 5): every layer's backward on its own and the
     network end to end. ``layers`` is a sequence of named layers or a mapping name -> layer;
     or a stack built by :func:`gradprobe.adapters.object_stack`, then without arrays."""
+    checked = _options(options)
+    baseline = baseline_of(checked)
     if isinstance(layers, StackTarget):
         target = layers
     else:
         target = stack(layers, params or {}, inputs or {}, label)
-    return run_stack(target, _options(options), executor=executor)
+    return run_against(baseline, target.label, checked, lambda o: run_stack(target, o, executor=executor))
 
 
 def render_text(report: Report, width: int = 120) -> str:

@@ -32,6 +32,8 @@ from .settings_cli import (
 if TYPE_CHECKING:
     from rich.console import Console
 
+    from .baseline_file import Baseline
+
 EXIT_OK, EXIT_FAIL, EXIT_INTERNAL, EXIT_INTERRUPTED = 0, 1, 3, 130  # 2: ProbeError.exit_code
 
 CHECK_HELP = f"""Check the backward pass of each TARGET against central differences.
@@ -123,12 +125,14 @@ def _write(path: str, text: str, what: str) -> None:
         raise UsageProblem(f"cannot write the {what} to {path} ({exc.strerror})", value=path) from exc
 
 
-def check_one(spec: str, options: CheckOptions, out: Output) -> TargetRun:
+def check_one(spec: str, options: CheckOptions, out: Output, baseline: Baseline | None = None,
+              alone: bool = True, others: list[str] | None = None) -> TargetRun:
     """Check one target and show its table; errors become a TargetRun with their exit code.
 
     With ``--json -`` whatever the user's code prints goes to standard error, so standard
     output holds the report alone. Ctrl-C propagates to stop the whole run.
     """
+    from .baseline_file import run_against
     from .loading import load_any
     from .stack_check import run_any
 
@@ -138,7 +142,9 @@ def check_one(spec: str, options: CheckOptions, out: Output) -> TargetRun:
     try:
         try:
             with user_output:
-                report = run_any(load_any(spec), options, progress=progress)
+                report = run_against(baseline, spec, options,
+                                     lambda o: run_any(load_any(spec), o, progress=progress), alone,
+                                     others)
         finally:
             if progress is not None:
                 progress.close()
@@ -265,18 +271,23 @@ def check_command(ctx: click.Context, targets: tuple[str, ...], show_maps: bool,
             writable(files.junit, "JUnit report")
         if files.html is not None:
             writable(files.html, "HTML report")
+        from .baseline_file import baseline_of
+
+        baseline = baseline_of(options)  # read and checked before any work
     except ProbeError as exc:
         _say_error(exc.sentence(), exc, show_traceback)
         return exc.exit_code
     from .report_files import reproduce
 
     command = reproduce(chosen, values, {s.name: s.default for s in SETTINGS})
-    return _run(chosen, options, Output(files, quiet, show_traceback, show_maps, command))
+    return _run(chosen, options, Output(files, quiet, show_traceback, show_maps, command), baseline)
 
 
-def _run(chosen: list[str], options: CheckOptions, out: Output) -> int:
+def _run(chosen: list[str], options: CheckOptions, out: Output, baseline: Baseline | None = None) -> int:
     try:
-        runs = [check_one(spec, options, out) for spec in chosen]
+        others = baseline.others(chosen) if baseline is not None else []
+        runs = [check_one(spec, options, out, baseline, len(chosen) == 1, others if k == 0 else [])
+                for k, spec in enumerate(chosen)]
     except KeyboardInterrupt:
         click.echo("gradprobe: interrupted; your arrays are unchanged", err=True)
         return EXIT_INTERRUPTED

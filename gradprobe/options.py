@@ -11,7 +11,9 @@ from __future__ import annotations
 import fnmatch
 import math
 import numbers
+import os
 import typing
+from collections.abc import Mapping
 from dataclasses import MISSING, Field, dataclass, field, fields, replace
 from typing import Any
 
@@ -74,11 +76,23 @@ class CheckOptions:
     skip: str | None = setting(
         "tensors to leave out", None, "Leave out the tensors whose names match one of these "
         "comma-separated patterns (after --only).", metavar="PATTERNS", unset="none")
+    baseline: str | None = setting(
+        "path of an earlier JSON report", None, "Compare each tensor with the JSON report at PATH, written earlier by "
+        "--json: a tensor whose worst relative error grew more than the growth factor while both "
+        "pass (regressed), or whose status got worse, fails the run (exit 1).", metavar="PATH",
+        unset="no comparison", fixture=True)
+    baseline_growth: float = setting(
+        "growth factor that counts as regressed", 10.0, "How many times its worst relative error may grow "
+        "since the baseline before a passing tensor counts as regressed (above the noise floor).",
+        flag="baseline-growth", metavar="FACTOR", fixture=True)
     # Internal plan sizes (not settings): see engine/tensor_check.py.
     sweep_total: int = 20_000  # a target with at most this many coordinates is swept in full
     sweep_limit: int = 48  # in a larger target, tensors up to this size still are
     default_sample: int = 24  # coordinates checked in a tensor that is not swept
     default_directions: int = 2
+    # Coordinates an earlier run checked, to be checked again (tensor name -> (shape, flat
+    # indices)), so a comparison with that run is made on the same coordinates.
+    also_check: Mapping[str, tuple[tuple[int, ...], tuple[int, ...]]] = field(default_factory=dict)
 
     def __post_init__(self) -> None:
         if self.threshold is not None and not (
@@ -107,6 +121,13 @@ class CheckOptions:
             if value is not None and (not isinstance(value, str) or not _patterns(value)):
                 raise UsageProblem(f"{name} takes comma-separated name patterns such as "
                                    f"'hidden.*,out.W', not {value!r}", value=value)
+        if not (isinstance(self.baseline_growth, numbers.Real) and not isinstance(self.baseline_growth, bool)
+                and self.baseline_growth > 1 and math.isfinite(self.baseline_growth)):
+            raise UsageProblem(f"the baseline growth factor must be a number above 1, not "
+                               f"{self.baseline_growth!r}", value=self.baseline_growth)
+        if self.baseline is not None and not isinstance(self.baseline, (str, os.PathLike)):
+            raise UsageProblem(f"the baseline must be the path of a JSON report, not {self.baseline!r}",
+                               value=self.baseline)
         if self.jobs < 1:
             raise UsageProblem(f"jobs must be 1 or more, not {self.jobs}", value=self.jobs)
 

@@ -7,7 +7,7 @@ The fixture checks like :func:`gradprobe.probe` (``grad_probe.stack(layers, para
 like :func:`gradprobe.probe_stack`) and returns the report when the check is ok; otherwise the
 test fails with a first line naming the failing tensors and the worst error, then the per-layer
 report; the target is named after the test and gradprobe's own frames are hidden. The fixture's settings
-(threshold, seed, method, inconclusive) come, from weakest to strongest, from gradprobe's
+(threshold, seed, method, inconclusive, baseline, baseline_growth) come, from weakest to strongest, from gradprobe's
 defaults, the ini file (``gradprobe_threshold``, ...), the command line
 (``--gradprobe-threshold``, ...), a ``@pytest.mark.gradprobe(threshold=..., seed=...)`` marker,
 and the call's own keywords. Annotate the fixture with :class:`gradprobe.GradProbe`.
@@ -29,11 +29,15 @@ def _kind(s: Setting) -> type:
     return s.types[0]
 
 
+def _option(s: Setting) -> str:
+    return f"--gradprobe-{s.name.replace('_', '-')}"
+
+
 def pytest_addoption(parser: pytest.Parser) -> None:
     group = parser.getgroup("gradprobe", "gradient checks with gradprobe")
     for s in FIXTURE_SETTINGS:
         text = f"{s.what} for the grad_probe fixture"
-        group.addoption(f"--gradprobe-{s.name}", type=_kind(s), default=None,
+        group.addoption(_option(s), type=_kind(s), default=None,
                         metavar=s.metavar or s.name.upper(), choices=s.choices, help=text)
         parser.addini(f"gradprobe_{s.name}", text, default=None)
 
@@ -56,7 +60,7 @@ def session_settings(config: pytest.Config) -> dict[str, Any]:
                 raise pytest.UsageError(
                     f"gradprobe_{s.name} = {ini!r} in the ini file is not a {_kind(s).__name__}"
                 ) from None
-        cli = config.getoption(f"--gradprobe-{s.name}")
+        cli = config.getoption(_option(s))
         if cli is not None:
             out[s.name] = cli
     return out
@@ -68,6 +72,8 @@ def pytest_report_header(config: pytest.Config) -> str:
     line = f"gradprobe: threshold {threshold}, seed {settings.get('seed', 0)}"
     if settings.get("inconclusive", "allow") != "allow":
         line += f", inconclusive {settings['inconclusive']}"
+    if settings.get("baseline"):
+        line += f", baseline {settings['baseline']} (growth x{settings.get('baseline_growth', 10.0):g})"
     return line
 
 

@@ -43,6 +43,21 @@ class CoordinateDetail:
 
 
 @dataclass(frozen=True)
+class CheckedCoordinates:
+    """Checked coordinates of a tensor: flat index, relative error, its relative noise (the
+    numeric estimate's error bound over the coordinate's scale), the rank of its status (0
+    pass .. 3 fail, see :data:`gradprobe.status.ORDER`) and the numeric derivative; arrays
+    of one length (every checked coordinate in a run; those a report lists in a baseline)."""
+
+    flat: Any
+    rel: Any
+    noise: Any
+    rank: Any
+    numeric: Any
+    scale: Any  # the denominator of rel
+
+
+@dataclass(frozen=True)
 class TensorResult:
     """The verdict on one tensor's gradient."""
 
@@ -71,6 +86,8 @@ class TensorResult:
     located_evaluations: int | None = None  # spent finding wrong coordinates from directions
     error_map: Any = field(default=None, compare=False, repr=False)  # rel error per element
     inherited_from: str | None = None  # stacks: fails only because this later layer is wrong
+    coordinates: CheckedCoordinates | None = field(default=None, compare=False, repr=False)
+    baseline: Any = None  # how it compares with an earlier run (a comparison.TensorBaseline)
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "status", Status(self.status))  # plain strings accepted
@@ -159,6 +176,7 @@ class Report:
     # Narrow code checked on its float64 run: the threshold its narrow gradient is held to
     # against that run (``threshold`` is the float64 run's); None otherwise.
     narrow_threshold: float | None = None
+    baseline: Any = None  # the earlier run compared with (a comparison.RunBaseline)
 
     @property
     def tensors(self) -> tuple[TensorResult, ...]:
@@ -166,9 +184,16 @@ class Report:
 
     @property
     def ok(self) -> bool:
-        """Nothing disagrees, nothing is inconclusive when that was asked to fail, and (stacks)
-        no layer's own backward is wrong."""
-        return not self.blocking_tensors and all(layer.own is not Status.FAIL for layer in self.layers)
+        """Nothing disagrees, nothing is inconclusive when that was asked to fail, nothing
+        regressed or got worse since the baseline, and (stacks) no layer's own backward is
+        wrong."""
+        return (not self.blocking_tensors and not self.changed_for_worse
+                and all(layer.own is not Status.FAIL for layer in self.layers))
+
+    @property
+    def changed_for_worse(self) -> tuple[TensorResult, ...]:
+        """Tensors regressed or worse since the baseline (none without one)."""
+        return tuple(t for t in self.tensors if t.baseline is not None and t.baseline.change.fails)
 
     def count(self, status: Status) -> int:
         """How many tensors have ``status``."""

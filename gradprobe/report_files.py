@@ -43,7 +43,7 @@ def _open_fails(target: Path) -> str | None:
 
 # setting -> option that reproduces it (seed is always stated; jobs does not change results)
 REPRODUCE = {"threshold": "--fail-above", "method": "--method", "sample": "--sample",
-             "directions": "--directions"}
+             "directions": "--directions", "baseline": "--baseline", "baseline_growth": "--baseline-growth"}
 
 
 def reproduce(targets: list[str], values: dict[str, Any], defaults: dict[str, Any]) -> str:
@@ -51,7 +51,7 @@ def reproduce(targets: list[str], values: dict[str, Any], defaults: dict[str, An
     words = ["gradprobe", "check", *targets]
     for name, flag in REPRODUCE.items():
         if values[name] is not None and values[name] != defaults[name]:
-            words += [flag, f"{values[name]:g}" if name == "threshold" else str(values[name])]
+            words += [flag, f"{values[name]:g}" if isinstance(values[name], float) else str(values[name])]
     words += ["--seed", str(values["seed"])]
     if not values["recheck"]:
         words.append("--no-recheck")

@@ -28,7 +28,8 @@ def test_defaults_come_from_the_dataclasses():
 
 
 def test_the_fixture_settings():
-    assert [s.name for s in SETTINGS if s.fixture] == ["threshold", "seed", "method", "inconclusive"]
+    assert [s.name for s in SETTINGS if s.fixture] == ["threshold", "seed", "method", "inconclusive", "baseline",
+                                                    "baseline_growth"]
 
 
 def test_a_negative_seed_in_the_api_is_a_usage_problem():
@@ -54,8 +55,8 @@ def test_an_unknown_keyword_lists_the_settings():
     with pytest.raises(UsageProblem) as info:
         CheckOptions().with_values(sed=1)
     assert str(info.value) == (
-        "unknown option 'sed'; known: directions, inconclusive, jobs, method, only, recheck, sample, "
-        "seed, skip, threshold.")
+        "unknown option 'sed'; known: baseline, baseline_growth, directions, inconclusive, jobs, "
+        "method, only, recheck, sample, seed, skip, threshold.")
 
 
 def test_inconclusive_fail_reaches_the_report(tmp_path):

@@ -6,7 +6,7 @@ from typing import Any
 
 import numpy as np
 
-from ..report import CoordinateDetail, DirectionResult, TensorResult
+from ..report import CheckedCoordinates, CoordinateDetail, DirectionResult, TensorResult
 from .coordinates import CoordinateOutcome
 from ..status import FAIL, INCONCLUSIVE, KINK, Status
 
@@ -88,6 +88,11 @@ def tensor_result(
     estimates = outcome.error_estimate[np.isfinite(outcome.error_estimate)]
     failed = int(failing.sum())
     error_map = SparseErrors(shape, outcome.flat.copy(), outcome.rel.copy())
+    with np.errstate(divide="ignore", invalid="ignore"):
+        noise = outcome.error_estimate / outcome.scale
+    ranks = s.astype(np.int8)  # the engine's codes are the statuses' codes
+    coordinates = CheckedCoordinates(error_map.flat, error_map.rel, noise, ranks, outcome.numeric.copy(),
+                                     outcome.scale.copy())
     inconclusive = int((s == INCONCLUSIVE).sum())
     kinks = int((s == KINK).sum())
     status = Status.of_code(s.max()) if s.size else Status.PASS
@@ -119,4 +124,5 @@ def tensor_result(
         directions=directions,
         located_evaluations=located_evaluations,
         error_map=error_map,
+        coordinates=coordinates,
     )

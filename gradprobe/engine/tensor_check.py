@@ -80,6 +80,9 @@ def check_tensor(probe: TensorProbe, options: CheckOptions, total: int, record: 
     start = ev.count
     n_coords, n_dirs = plan(options, probe.size, total)
     flat = stratified(record.shape, n_coords, tensor_rng(options.seed, probe.tensor, "sample"), probe.a)
+    again = options.also_check.get(probe.tensor)
+    if again is not None and tuple(again[0]) == tuple(record.shape):  # an earlier run's coordinates
+        flat = np.union1d(flat, np.asarray(again[1], dtype=np.int64))
     if n_dirs:
         checks, units = _directions(probe, n_dirs, options.seed)
         record.directions = tuple(_direction_result(probe, c) for c in checks)

@@ -19,6 +19,7 @@ from ..wording import plural, verb
 from .html_style import CSS
 from .lines import stack_line, verdict, what_is_wrong
 from .svgmap import legend, tensor_svg
+from .text import change_cell
 
 LISTED = 8  # coordinates named in a map's caption or a reason
 
@@ -65,9 +66,20 @@ def _reasons(t: TensorResult) -> list[str]:
         kinked = sum(1 for d in t.directions if d.kink)
         text = f"{plural(len(t.directions), 'random direction')} checked, {off} off"
         out.append(text + (f", {kinked} crossing kinks" if kinked else ""))
+    if t.baseline is not None and t.baseline.reason:
+        out.append(t.baseline.reason.removeprefix(f"{t.name}: "))
     if t.located_evaluations is not None:
         out.append(f"locating wrong coordinates took {plural(t.located_evaluations, 'evaluation')}")
     return out
+
+
+def _then(t: TensorResult) -> str:
+    """The baseline's worst relative error and the change, beside this run's."""
+    b = t.baseline
+    if b is None:
+        return ""
+    was = "" if b.change.value == "new" else f"{_num(b.max_rel_error)} ({_e(b.status)}) "
+    return f'<td class="n base gp-{_e(b.change)}">{was}<span class="change">{_e(change_cell(t))}</span></td>'
 
 
 def _row(t: TensorResult, k: int) -> str:
@@ -82,23 +94,25 @@ def _row(t: TensorResult, k: int) -> str:
     return (
         f'<tr class="gp-{_e(t.status)}"><th scope="row" class="name">{name}</th>'
         f'<td>{_shape(t.shape)}</td><td><span class="status">{_e(t.status)}</span></td>'
-        f'<td class="n">{checked}</td><td class="n">{worst}</td><td class="n">{_num(t.worst_noise)}</td>'
+        f'<td class="n">{checked}</td><td class="n">{worst}</td>{_then(t)}<td class="n">{_num(t.worst_noise)}</td>'
         f'<td class="n">{_num(t.max_abs_error)}</td><td class="idx">{at}</td>'
         f'<td class="why">{"<ul>" + reasons + "</ul>" if reasons else ""}</td></tr>'
     )
 
 
 HEAD = ("tensor", "shape", "status", "checked", "worst rel", "± noise", "worst abs", "worst at", "why")
+BASELINE_HEAD = "baseline's worst rel"
 
 
-def _layer(layer: LayerResult, k: int) -> str:
+def _layer(layer: LayerResult, k: int, compared: bool = False) -> str:
     own = layer.own
     why = f" ({what_is_wrong(layer)})" if own is Status.FAIL else ""
     own_text = f' <span class="own">its own backward: {_e(own)}{_e(why)}</span>' if own else ""
     if not layer.tensors:
         return (f'<h3>layer {_e(layer.name)}{own_text}</h3>'
                 '<p class="note">no params of its own: only its backward is checked, on its own.</p>')
-    head = "".join(f'<th scope="col">{h}</th>' for h in HEAD)
+    titles = HEAD[:5] + (BASELINE_HEAD,) + HEAD[5:] if compared else HEAD
+    head = "".join(f'<th scope="col">{h}</th>' for h in titles)
     rows = "".join(_row(t, k) for t in layer.tensors)
     return (f'<h3>layer {_e(layer.name)}{own_text}</h3>'
             f'<table class="layer"><thead><tr>{head}</tr></thead><tbody>{rows}</tbody></table>')
@@ -166,7 +180,7 @@ def _section(run: TargetRun, index: int) -> str:
         out.append(f'<p class="error">{_e(text)}</p>')
     for note in report.notes:
         out.append(f'<p class="note">note: {_e(note)}</p>')
-    out.extend(_layer(layer, index) for layer in report.layers)
+    out.extend(_layer(layer, index, report.baseline is not None) for layer in report.layers)
     out.append(_maps(report, index))
     out.append("</section>")
     return "".join(out)
@@ -206,9 +220,12 @@ def render_html(runs: Report | Iterable[TargetRun], command: str | None = None,
     ok = all(r.exit_code == 0 for r in runs)
     bad = [r for r in runs if r.exit_code != 0]
     failing = sum(len(r.report.failing_tensors) for r in runs if r.report is not None)
+    changed = sum(len(r.report.changed_for_worse) for r in runs if r.report is not None)
     headline = (f"ok: every tensor of {plural(len(runs), 'target')} agrees" if ok else
                 f"FAIL: {len(bad)} of {plural(len(runs), 'target')} not ok, "
                 f"{plural(failing, 'failing tensor')}")
+    if changed:
+        headline += f", {changed} regressed or worse since the baseline"
     meta = [("reproduce with", f"<code>{_e(command or _command(runs))}</code>")]
     if generated:
         meta.append(("generated", _e(generated)))

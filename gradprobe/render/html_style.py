@@ -32,6 +32,8 @@ tr.gp-pass .status, tr.gp-ok .status { color: var(--ok); }
 tr.gp-kink .status { color: var(--kink); }
 tr.gp-inconclusive .status { color: var(--unsure); }
 tr.gp-fail th { font-weight: 700; }
+td.gp-regressed .change, td.gp-worse .change { color: var(--fail); font-weight: 700; }
+td.gp-better .change { color: var(--ok); }
 .own, .note { color: var(--mute); font-weight: 400; }
 .error { color: var(--fail); }
 .enters { font-size: 15px; }

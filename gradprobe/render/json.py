@@ -6,6 +6,8 @@ import json
 import math
 from typing import Any
 
+import numpy as np
+
 from ..report import (
     CoordinateDetail,
     DirectionResult,
@@ -14,6 +16,7 @@ from ..report import (
     TargetRun,
     TensorResult,
 )
+from ..status import Status
 
 SCHEMA = "gradprobe.report/1"
 RUNS_SCHEMA = "gradprobe.runs/1"
@@ -37,6 +40,42 @@ def _direction(d: DirectionResult) -> dict[str, Any]:
 def _detail(c: CoordinateDetail) -> dict[str, Any]:
     return {"index": list(c.index), **{k: _num(getattr(c, k)) for k in NUMBERS},
             "status": c.status.value, "reason": c.reason}
+
+
+LISTED_COORDINATES = 256  # per tensor; beyond it, those with the largest relative errors
+
+
+def _checked(t: TensorResult) -> dict[str, Any]:
+    """The checked coordinates (all, or the worst LISTED_COORDINATES), so a later run can
+    compare on the same ones and see whether its numeric derivatives moved (``--baseline``)."""
+    c = t.coordinates
+    if c is None or t.checked == 0 or len(c.flat) == 0:
+        return {}
+    keep = np.arange(len(c.flat))
+    if keep.size > LISTED_COORDINATES:
+        rel = np.where(np.isfinite(c.rel), c.rel, np.inf)
+        keep = np.sort(np.argsort(-rel, kind="stable")[:LISTED_COORDINATES])
+    shape = t.shape or (1,)
+    indices = np.stack(np.unravel_index(np.asarray(c.flat, dtype=np.int64)[keep], shape), axis=1)
+    return {"checked_coordinates": {
+        "indices": indices[:, :len(t.shape)].tolist(),
+        **{key: [_num(v) for v in np.asarray(values)[keep].tolist()]
+           for key, values in (("rel_error", c.rel), ("noise", c.noise), ("numeric", c.numeric),
+                               ("scale", c.scale))},
+        "status": [Status.of_code(r).value for r in np.asarray(c.rank)[keep]],
+    }}
+
+
+def _baseline(t: TensorResult) -> dict[str, Any]:
+    b = t.baseline
+    if b is None:
+        return {}
+    return {"baseline": {
+        "status": b.status.value if b.status is not None else None,
+        "max_rel_error": _num(b.max_rel_error), "growth": _num(b.growth), "change": b.change.value,
+        "floor": _num(b.floor), "compared_on": b.compared_on, "numeric_shift": _num(b.numeric_shift),
+        "reason": b.reason,
+    }}
 
 
 def tensor_dict(t: TensorResult) -> dict[str, Any]:
@@ -66,6 +105,8 @@ def tensor_dict(t: TensorResult) -> dict[str, Any]:
         "directions": [_direction(d) for d in t.directions],
         "located_evaluations": t.located_evaluations,
         **({"inherited_from": t.inherited_from} if t.inherited_from is not None else {}),
+        **_checked(t),
+        **_baseline(t),
     }
 
 
@@ -119,7 +160,22 @@ def report_dict(report: Report) -> dict[str, Any]:
         ],
         "errors": list(report.errors),
         "notes": list(report.notes),
+        **_run_baseline(report),
     }
+
+
+def _run_baseline(report: Report) -> dict[str, Any]:
+    b = report.baseline
+    if b is None:
+        return {}
+    changes = [t.baseline.change.value for t in report.tensors if t.baseline is not None]
+    changes += ["gone"] * len(b.gone)
+    return {"baseline": {
+        "path": b.path, "target": b.target, "growth_factor": b.growth_factor,
+        "counts": {c: changes.count(c) for c in sorted(set(changes))},
+        "gone": [{"name": t.name, "status": t.status.value, "max_rel_error": _num(t.max_rel_error)}
+                 for t in b.gone],
+    }}
 
 
 def render_json(report: Report) -> str:

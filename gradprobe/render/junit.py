@@ -64,10 +64,14 @@ def inconclusive_reason(t: TensorResult, threshold: float) -> str:
 def _testcase(suite: ET.Element, report: Report, t: TensorResult, classname_: str) -> None:
     share = report.seconds * t.evaluations / max(report.evaluations, 1)
     case = ET.SubElement(suite, "testcase", {"name": t.name, "classname": classname_, "time": f"{share:.6f}"})
+    changed = t.baseline is not None and t.baseline.change.fails and t.baseline.reason
     if t.status is Status.FAIL:
         failure = ET.SubElement(case, "failure", {
             "message": _failure_message(t, report.threshold), "type": "gradient mismatch"})
-        failure.text = _failure_text(t)
+        failure.text = _failure_text(t) + (f"\nbaseline: {t.baseline.reason}" if changed and t.baseline else "")
+    elif changed and t.baseline is not None and t.baseline.reason:
+        failure = ET.SubElement(case, "failure", {"message": t.baseline.reason, "type": "baseline regression"})
+        failure.text = _failure_text(t) + f"\nbaseline: {t.baseline.reason}"
     elif t.status is Status.INCONCLUSIVE and report.inconclusive_fails:
         failure = ET.SubElement(case, "failure", {
             "message": inconclusive_reason(t, report.threshold), "type": "inconclusive"})
@@ -80,12 +84,14 @@ def _suite(root: ET.Element, run: TargetRun, index: int, timestamp: str, hostnam
     report = run.report
     tensors = report.tensors if report else ()
     blocking = report.blocking_tensors if report else ()
+    changed = report.changed_for_worse if report else ()
+    failing = [t for t in tensors if t in blocking or t in changed]
     own = _own_cases(report) if report else []
     own_failures = sum(1 for _, t in own if t.status is Status.FAIL)
-    skipped = sum(1 for t in tensors if t.status is Status.INCONCLUSIVE and t not in blocking)
+    skipped = sum(1 for t in tensors if t.status is Status.INCONCLUSIVE and t not in failing)
     suite = ET.SubElement(root, "testsuite", {
         "name": run.target, "tests": str(len(tensors) + len(own) if report else 1),
-        "failures": str(len(blocking) + own_failures), "errors": "0" if report else "1",
+        "failures": str(len(failing) + own_failures), "errors": "0" if report else "1",
         "skipped": str(skipped),
         "time": f"{report.seconds:.6f}" if report else "0", "timestamp": timestamp,
         "hostname": hostname, "id": str(index), "package": "gradprobe",

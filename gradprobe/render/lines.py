@@ -6,6 +6,7 @@ between parts (or drops its optional tail), so numbers and names are never split
 
 from __future__ import annotations
 
+from ..comparison import Change
 from ..report import LayerResult, Report, TensorResult
 from ..status import Status
 from ..tensors import format_index
@@ -69,15 +70,18 @@ def verdict(report: Report, width: int | None = None, named: bool = False) -> st
 def _verdict(report: Report, width: int | None) -> str:
     n = len(report.tensors)
     cost = f"{plural(report.evaluations, 'evaluation')} in {report.seconds:.2f} s"
-    if not report.ok and not report.blocking_tensors:  # a stack layer wrong on its own only
+    changed = report.changed_for_worse
+    if not report.ok and not report.blocking_tensors and not changed:  # a stack layer wrong on its own only
         line = f"{DISAGREES}{SEP}the own backward of {', '.join(report.error_enters_at or ())} is wrong"
         return line if width is not None and len(line + SEP + cost) > width else line + SEP + cost
     if not report.ok:
-        bad = report.blocking_tensors
+        blocking = report.blocking_tensors
+        bad = tuple(t for t in report.tensors if t in blocking or t in changed)
         failing = len(report.failing_tensors)
         parts = [f"{failing} of {plural(n, 'tensor')} beyond {report.threshold:g}"] if failing else []
-        if len(bad) > failing:
-            parts.append(f"{len(bad) - failing} of {n} inconclusive (set to fail the run)")
+        if len(blocking) > failing:
+            parts.append(f"{len(blocking) - failing} of {n} inconclusive (set to fail the run)")
+        parts += _baseline_parts(report, n)
         head = DISAGREES + SEP + "; ".join(parts) + ": "
         full = head + _names(bad, None) + SEP + cost
         if width is None or len(full) <= width:
@@ -89,6 +93,8 @@ def _verdict(report: Report, width: int | None) -> str:
         extras.append(f"{kinked} at a kink")
     if unsure:
         extras.append(f"{unsure} inconclusive")
+    if report.baseline is not None:
+        extras.append("none worse than the baseline")
     more = f" ({', '.join(extras)})" if extras else ""
     line = f"{AGREES}{SEP}{plural(n, 'tensor')} within {report.threshold:g}{more}"
     if width is None or len(line + SEP + cost) <= width:
@@ -96,11 +102,30 @@ def _verdict(report: Report, width: int | None) -> str:
     return line
 
 
+def _baseline_parts(report: Report, n: int) -> list[str]:
+    """What got worse since the baseline, for the verdict line."""
+    changes = [t.baseline.change for t in report.changed_for_worse if t.baseline is not None]
+    regressed, worse = changes.count(Change.REGRESSED), changes.count(Change.WORSE)
+    parts = []
+    if regressed:
+        factor = report.baseline.growth_factor if report.baseline is not None else 0.0
+        parts.append(f"{regressed} of {plural(n, 'tensor')} regressed since the baseline "
+                     f"(error grew more than x{factor:g})")
+    if worse:
+        parts.append(f"{worse} of {n} worse than the baseline")
+    return parts
+
+
 def failure_line(report: Report) -> str:
     """The first line of a failure message, short because pytest's summary cuts it at the
     terminal's width: the failing tensors, then the worst relative error, where, and the
     threshold it exceeds (``W disagrees: rel error 2.0e+00 at [0, 0] > 1e-06``)."""
     bad = report.failing_tensors
+    if not bad and report.changed_for_worse:
+        first = report.changed_for_worse
+        reason = first[0].baseline.reason if first[0].baseline is not None else None
+        more = f" (and {len(first) - 1} more)" if len(first) > 1 else ""
+        return f"{reason}{more}"
     if not bad:
         return f"{report.target}: every tensor agrees within {report.threshold:g}"
     names = _names(bad, None)

@@ -25,7 +25,7 @@ from ..wording import plural
 from .columns import Column, Layout, fit
 from .heatmap import maps
 from .lines import expected_line, header, stack_line, verdict
-from .text import fmt, shape_text
+from .text import change_cell, fmt, shape_text
 
 __all__ = ["COLOUR", "PLAIN", "header", "render_text", "renderables", "run_summary", "verdict"]
 
@@ -59,6 +59,7 @@ COLUMNS = (
     Column("abs", "worst abs", "abs", "right"),
     Column("at", "at", "at"),
     Column("status", "status", "status"),
+    Column("change", "vs baseline", "vs base"),
     Column("hint", "hint", "hint"),
 )
 DROP_ORDER = ("shape", "abs", "noise", "checked", "at")  # dropped first to last
@@ -80,15 +81,18 @@ def _cells(t: TensorResult) -> dict[str, str]:
         "noise": fmt(t.worst_noise), "abs": fmt(t.max_abs_error),
         "at": format_index(t.worst_index) if t.worst_index is not None else "-",
         "status": t.status.value, "hint": t.hint or t.inconclusive_reason or "",
+        "change": change_cell(t),
     }
 
 
 def layout(report: Report, width: int) -> tuple[Layout, list[dict[str, str]]]:
-    """The columns that fit ``width``, and each tensor's cells."""
+    """The columns that fit ``width``, and each tensor's cells (the baseline column only
+    when the run was compared with one)."""
     rows = [_cells(t) for t in report.tensors]
-    cells = {c.key: [r[c.key] for r in rows] for c in COLUMNS}
+    columns = tuple(c for c in COLUMNS if c.key != "change" or report.baseline is not None)
+    cells = {c.key: [r[c.key] for r in rows] for c in columns}
     cells["name"] += [layer.name for layer in report.layers]
-    return fit(COLUMNS, cells, width, DROP_ORDER), rows
+    return fit(columns, cells, width, DROP_ORDER), rows
 
 
 class AtLeast:
@@ -132,6 +136,8 @@ def table(report: Report, theme: Theme, width: int = 120) -> tuple[RenderableTyp
         for t in layer.tensors:
             row = next(cells)
             grid.add_row(*[Text(row[c.key], style=theme.style(t.status.value)) if c.key == "status"
+                           else Text(row[c.key], style=theme.style("fail")) if c.key == "change"
+                           and t.baseline is not None and t.baseline.change.fails
                            else row[c.key] for c in chosen.columns])
             said = t.hint or t.inconclusive_reason
             if said and not chosen.hints_inline:
