@@ -17,7 +17,8 @@ from typing import Any
 
 import numpy as np
 
-from .comparison import BaselineReport, BaselineTensor, compare
+from .baseline_model import BaselineReport, BaselineTensor
+from .comparison import compare
 from .errors import UsageProblem
 from .options import CheckOptions
 from .report import CheckedCoordinates, Report

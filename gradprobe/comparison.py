@@ -24,85 +24,13 @@ from __future__ import annotations
 
 from collections.abc import Sequence
 from dataclasses import dataclass, replace
-from enum import Enum
 
 import numpy as np
 
+from .baseline_model import BaselineReport, BaselineTensor, Change, RunBaseline, TensorBaseline
 from .report import CheckedCoordinates, Report, TensorResult
 from .status import Status, worst
 from .wording import plural
-
-
-class Change(str, Enum):
-    """How a tensor changed since the baseline."""
-
-    REGRESSED = "regressed"  # both pass, its worst relative error grew more than the factor
-    WORSE = "worse"  # its status got worse
-    NEW = "new"  # not in the baseline
-    GONE = "gone"  # in the baseline only
-    SAME = "same"
-    BETTER = "better"
-
-    def __str__(self) -> str:
-        return self.value
-
-    @property
-    def fails(self) -> bool:
-        return self in (Change.REGRESSED, Change.WORSE)
-
-
-@dataclass(frozen=True)
-class BaselineTensor:
-    """One tensor as an earlier report gave it."""
-
-    name: str
-    shape: tuple[int, ...]
-    status: Status
-    max_rel_error: float | None
-    worst_noise: float | None
-    checked: int
-    coordinates: CheckedCoordinates | None = None  # listed when the tensor was sampled
-    directions: tuple[tuple[float, float], ...] = ()  # (relative error, relative noise) each
-
-
-@dataclass(frozen=True)
-class BaselineReport:
-    """One target's earlier report: what the comparison needs of it."""
-
-    path: str
-    target: str
-    threshold: float
-    seed: int
-    method: str
-    compute_dtype: str
-    tensors: tuple[BaselineTensor, ...]
-
-    def tensor(self, name: str) -> BaselineTensor | None:
-        return next((t for t in self.tensors if t.name == name), None)
-
-
-@dataclass(frozen=True)
-class TensorBaseline:
-    """What the baseline said about one tensor, and how this run compares."""
-
-    change: Change
-    status: Status | None = None  # the baseline's status (None: a new tensor)
-    max_rel_error: float | None = None  # the baseline's worst relative error
-    growth: float | None = None  # this run's worst error over the baseline's, above the floor
-    floor: float | None = None  # errors below this are not compared (noise and rounding)
-    compared_on: int | None = None  # coordinates both runs checked (None: worst against worst)
-    numeric_shift: float | None = None  # how far the numeric derivatives moved (relative)
-    reason: str | None = None  # one sentence, for a regressed or worse tensor
-
-
-@dataclass(frozen=True)
-class RunBaseline:
-    """The comparison of a whole report: where the baseline came from and what is gone."""
-
-    path: str
-    target: str | None  # the baseline's target (None: it holds no report for this one)
-    growth_factor: float
-    gone: tuple[BaselineTensor, ...] = ()
 
 
 def resolution(dtype: str) -> float:
@@ -262,7 +190,7 @@ def _settings_note(report: Report, base: BaselineReport) -> str | None:
     if not differ:
         return None
     listed = "; ".join(f"{what} {then} (this run: {now})" for what, then, now in differ)
-    return (f"the baseline {base.path} was made with other settings ({listed}): tensors are "
+    return (f"the baseline {base.path} differs from this run in {listed}: tensors are "
             "compared by name, on the coordinates both runs checked where the baseline lists them, "
             "and errors below their noise floor are not compared")
 
@@ -313,8 +241,9 @@ def compare(report: Report, base: BaselineReport | None, factor: float, path: st
     new = [t.name for t in report.tensors if records[t.name].change is Change.NEW]
     if new:
         notes.append(f"new since the baseline: {_list(new)}")
+    compared = (Change.SAME, Change.BETTER, Change.REGRESSED)
     moved = [f"{t.name} ({records[t.name].numeric_shift:.0e})" for t in report.tensors
-             if (records[t.name].numeric_shift or 0.0) > floor]
+             if (records[t.name].numeric_shift or 0.0) > floor and records[t.name].change in compared]
     if moved:
         notes.append(f"the numeric derivatives moved since the baseline (relative): {_list(moved)}; "
                      "a change of error below that is not counted (forward, the method, or the seed "

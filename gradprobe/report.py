@@ -10,6 +10,7 @@ import math
 from dataclasses import dataclass, field
 from typing import Any
 
+from .baseline_model import CheckedCoordinates, RunBaseline, TensorBaseline
 from .status import Status
 
 
@@ -43,21 +44,6 @@ class CoordinateDetail:
 
 
 @dataclass(frozen=True)
-class CheckedCoordinates:
-    """Checked coordinates of a tensor: flat index, relative error, its relative noise (the
-    numeric estimate's error bound over the coordinate's scale), the rank of its status (0
-    pass .. 3 fail, see :data:`gradprobe.status.ORDER`) and the numeric derivative; arrays
-    of one length (every checked coordinate in a run; those a report lists in a baseline)."""
-
-    flat: Any
-    rel: Any
-    noise: Any
-    rank: Any
-    numeric: Any
-    scale: Any  # the denominator of rel
-
-
-@dataclass(frozen=True)
 class TensorResult:
     """The verdict on one tensor's gradient."""
 
@@ -87,7 +73,7 @@ class TensorResult:
     error_map: Any = field(default=None, compare=False, repr=False)  # rel error per element
     inherited_from: str | None = None  # stacks: fails only because this later layer is wrong
     coordinates: CheckedCoordinates | None = field(default=None, compare=False, repr=False)
-    baseline: Any = None  # how it compares with an earlier run (a comparison.TensorBaseline)
+    baseline: TensorBaseline | None = None  # how it compares with an earlier run (--baseline)
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "status", Status(self.status))  # plain strings accepted
@@ -176,7 +162,7 @@ class Report:
     # Narrow code checked on its float64 run: the threshold its narrow gradient is held to
     # against that run (``threshold`` is the float64 run's); None otherwise.
     narrow_threshold: float | None = None
-    baseline: Any = None  # the earlier run compared with (a comparison.RunBaseline)
+    baseline: RunBaseline | None = None  # the earlier run compared with (--baseline)
 
     @property
     def tensors(self) -> tuple[TensorResult, ...]:

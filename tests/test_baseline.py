@@ -256,3 +256,56 @@ def test_the_pytest_fixture_takes_a_baseline(tmp_path, pytester):
     result = pytester.runpytest("-p", "no:cacheprovider", "-p", "no:hypothesispytest", "-q")
     result.assert_outcomes(failed=1)
     result.stdout.fnmatch_lines(["*x: regressed since the baseline*"])
+
+
+def test_junit_and_html_show_the_comparison(arctan, run_cli, tmp_path):
+    """JUnit fails the regressed tensor's testcase with the reason; the HTML page shows the
+    baseline's worst error beside this run's."""
+    import xml.etree.ElementTree as ET
+
+    run_cli("check", arctan(1e-9), "--json", "base.json")
+    result = run_cli("check", arctan(1e-7), "--baseline", "base.json", "--junit", "r.xml",
+                     "--html", "r.html")
+    assert result.exit_code == 1
+    suite = ET.parse(tmp_path / "r.xml").getroot().find("testsuite")
+    assert suite.get("failures") == "1"
+    failure = suite.find("testcase").find("failure")
+    assert failure.get("type") == "baseline regression"
+    assert failure.get("message").startswith("x: regressed since the baseline: worst relative error 1.0e-09")
+    page = (tmp_path / "r.html").read_text()
+    assert "baseline's worst rel" in page and "1.0e-09 (pass)" in page and "↑ ×" in page
+    assert "regressed since the baseline" in page
+
+
+def test_without_a_baseline_nothing_changes(arctan, run_cli, tmp_path):
+    """No baseline object, no column, no verdict words (the report keys of section 8 are absent)."""
+    result = run_cli("check", arctan(1e-9), "--json", "r.json")
+    x = _tensor(tmp_path / "r.json")
+    assert "baseline" not in x and "baseline" not in json.loads((tmp_path / "r.json").read_text())
+    assert "vs baseline" not in result.output and "baseline" not in result.output
+
+
+def test_kink_to_pass_and_pass_to_kink(write_target, run_cli, tmp_path):
+    """|v| at an exact 0 is a kink (sign(0) = 0 lies between the one-sided slopes -1 and 1,
+    common practice); moving v off 0 makes it pass: kink -> pass is better, pass -> kink worse."""
+    source = """
+        import numpy as np
+        V = {v!r}
+        def setup():
+            return {{"v": np.array(V)}}, {{}}
+        def forward(params, inputs):
+            return np.sum(np.abs(params["v"]))
+        def backward(params, inputs):
+            return {{"v": np.sign(params["v"])}}
+        """
+    write_target(source.format(v=[0.0, 1.5]), "gate.py")
+    assert run_cli("check", "gate.py", "--json", "kinked.json").exit_code == 0
+    write_target(source.format(v=[0.5, 1.5]), "gate.py")
+    assert run_cli("check", "gate.py", "--json", "smooth.json", "--baseline", "kinked.json").exit_code == 0
+    assert _tensor(tmp_path / "smooth.json", "v")["baseline"]["change"] == "better"
+    write_target(source.format(v=[0.0, 1.5]), "gate.py")
+    result = run_cli("check", "gate.py", "--json", "again.json", "--baseline", "smooth.json")
+    assert result.exit_code == 1
+    assert _tensor(tmp_path / "again.json", "v")["baseline"]["change"] == "worse"
+    assert "↑ worse, was pass" in result.output
+    assert "pass -> kink" in _tensor(tmp_path / "again.json", "v")["baseline"]["reason"]

@@ -6,7 +6,7 @@ between parts (or drops its optional tail), so numbers and names are never split
 
 from __future__ import annotations
 
-from ..comparison import Change
+from ..baseline_model import Change
 from ..report import LayerResult, Report, TensorResult
 from ..status import Status
 from ..tensors import format_index

@@ -37,5 +37,5 @@ def change_cell(t: TensorResult) -> str:
     change = b.change.value
     growth = growth_text(b.growth)
     if change == "worse":
-        return f"↑ worse, was {b.status}" + (f" {growth}" if growth else "")
+        return f"↑ worse, was {b.status}"
     return " ".join(part for part in (ARROWS[change], growth, "" if change == "same" else change) if part)
