@@ -56,11 +56,12 @@ Examples:
   gradprobe check samples/sensor_mixer.py --json - | jq .summary
   gradprobe check big_model.py --sample 0 --jobs 2
   gradprobe check nets.mlp:Case --inconclusive fail
+  gradprobe check nets.mlp:Case --baseline main-report.json
   gradprobe check --settings-in-force
 
 \b
 Exit codes: 0 every tensor agrees; 1 at least one tensor disagrees (or is
-inconclusive with --inconclusive fail); 2 the check could not run (bad usage,
+inconclusive with --inconclusive fail, or regressed or got worse since --baseline); 2 the check could not run (bad usage,
 import failure, forward/backward raised or tried to end the process, ...);
 3 an internal error; 130 interrupted; with several targets, the worst code.
 """

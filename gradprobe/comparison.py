@@ -121,12 +121,14 @@ def _bounded_growth(mine: _Side, theirs: _Side, res: float) -> _Growth | None:
 def _measure(now: TensorResult, then: BaselineTensor, mine: _Side, theirs: _Side, same_seed: bool,
              res: float) -> _Growth | None:
     """The growth that decides: on the shared listed coordinates, and worst against worst
-    (bounded) where the baseline does not list every coordinate it checked; the larger."""
+    (bounded) where the baseline does not list every coordinate it checked or the numeric
+    derivatives moved; the larger."""
     found = []
     listed = then.coordinates
     if now.coordinates is not None and listed is not None and tuple(now.shape) == tuple(then.shape):
         found.append(_shared_growth(now.coordinates, listed, res))
-    if listed is None or len(listed.flat) < then.checked:
+    moved = found and found[0] is not None and (found[0].shift or 0.0) > res
+    if listed is None or len(listed.flat) < then.checked or moved:
         found.append(_bounded_growth(mine, theirs, res))
     if mine.worst is None and theirs.worst is None and same_seed:
         sides = _directions(now, then)
