@@ -194,7 +194,7 @@ def run_against(baseline: Baseline | None, target: str, options: CheckOptions,
     base = baseline.report_for(target, alone)
     if base is not None:
         options = replace(options, also_check=coordinates_of(base))
-    report = compare(run(options), base, float(options.baseline_growth), baseline.path)
+    report = compare(run(options), base, float(options.baseline_growth), baseline.path, options.selects)
     if others:
         note = f"the baseline {baseline.path} also holds {', '.join(others)}, not checked in this run"
         report = replace(report, notes=report.notes + (note,))

@@ -22,7 +22,7 @@ coordinates.
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, replace
 
 import numpy as np
@@ -218,11 +218,13 @@ def _list(names: Sequence[str], shown: int = 8) -> str:
     return ", ".join(names[:shown]) + more
 
 
-def compare(report: Report, base: BaselineReport | None, factor: float, path: str) -> Report:
+def compare(report: Report, base: BaselineReport | None, factor: float, path: str,
+            selects: Callable[[str], bool] = lambda name: True) -> Report:
     """``report`` with each tensor's ``baseline`` set and notes on what differs or is gone.
 
     ``base`` is the baseline's report for this target (None: the baseline holds none, so
-    every tensor is new)."""
+    every tensor is new). ``selects``: whether the run chose to check a tensor (``--only``,
+    ``--skip``); a baseline tensor it left out is not gone."""
     if base is None:
         tensors = {t.name: TensorBaseline(Change.NEW) for t in report.tensors}
         note = f"the baseline {path} holds no report for {report.target}: every tensor is new"
@@ -235,7 +237,7 @@ def compare(report: Report, base: BaselineReport | None, factor: float, path: st
         records[t.name] = (TensorBaseline(Change.NEW) if then is None else
                            compare_tensor(t, then, factor, same_seed, floor))
     names = {t.name for t in report.tensors}
-    gone = tuple(t for t in base.tensors if t.name not in names)
+    gone = tuple(t for t in base.tensors if t.name not in names and selects(t.name))
     notes = [n for n in (_settings_note(report, base), _coverage_note(report, base, records)) if n]
     if gone:
         notes.append(f"gone since the baseline: {_list([f'{t.name} ({t.status})' for t in gone])} "

@@ -309,3 +309,22 @@ def test_kink_to_pass_and_pass_to_kink(write_target, run_cli, tmp_path):
     assert _tensor(tmp_path / "again.json", "v")["baseline"]["change"] == "worse"
     assert "↑ worse, was pass" in result.output
     assert "pass -> kink" in _tensor(tmp_path / "again.json", "v")["baseline"]["reason"]
+
+
+def test_tensors_left_out_by_only_are_not_gone(write_target, run_cli, tmp_path):
+    """Two tensors, d/dx sin x = cos x (A&S 4.3.110, from memory, as in
+    test_numerics_reference.py); --only checks one of them: the other is not reported gone."""
+    write_target("""
+        import numpy as np
+        def setup():
+            return {"a": np.array([0.3, 1.1]), "b": np.array([2.0, -0.7])}, {}
+        def forward(params, inputs):
+            return np.sum(np.sin(params["a"])) + np.sum(np.sin(params["b"]))
+        def backward(params, inputs):
+            return {"a": np.cos(params["a"]), "b": np.cos(params["b"])}
+        """, "pair.py")
+    run_cli("check", "pair.py", "--json", "base.json")
+    result = run_cli("check", "pair.py", "--only", "a", "--baseline", "base.json", "--json", "now.json")
+    assert result.exit_code == 0, result.output
+    assert json.loads((tmp_path / "now.json").read_text())["baseline"]["gone"] == []
+    assert "gone since the baseline" not in result.output
