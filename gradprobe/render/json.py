@@ -178,8 +178,38 @@ def _run_baseline(report: Report) -> dict[str, Any]:
     }}
 
 
+def dumps(document: dict[str, Any]) -> str:
+    """``document`` indented, with each list of ``checked_coordinates`` on one line (a list of
+    256 numbers would otherwise take 256 lines)."""
+    lists: list[str] = []
+
+    def fold(value: Any) -> Any:
+        if isinstance(value, dict):
+            return {k: (_folded(v, lists) if k == "checked_coordinates" else fold(v))
+                    for k, v in value.items()}
+        if isinstance(value, list):
+            return [fold(v) for v in value]
+        return value
+
+    text = json.dumps(fold(document), indent=2)
+    for k, compact in enumerate(lists):
+        text = text.replace(json.dumps(f"{FOLD}{k}"), compact, 1)
+    return text + "\n"
+
+
+FOLD = "\u0000folded-list-"  # a placeholder no report string holds (JSON escapes NUL)
+
+
+def _folded(block: dict[str, Any], lists: list[str]) -> dict[str, Any]:
+    out = {}
+    for key, values in block.items():
+        lists.append(json.dumps(values, separators=(", ", ": ")))
+        out[key] = f"{FOLD}{len(lists) - 1}"
+    return out
+
+
 def render_json(report: Report) -> str:
-    return json.dumps(report_dict(report), indent=2) + "\n"
+    return dumps(report_dict(report))
 
 
 def render_runs(runs: list[TargetRun]) -> str:
@@ -194,4 +224,4 @@ def render_runs(runs: list[TargetRun]) -> str:
         "errors": [{"target": r.target, "exit_code": r.exit_code, "message": r.error}
                    for r in runs if r.report is None],
     }
-    return json.dumps(document, indent=2) + "\n"
+    return dumps(document)
