@@ -121,14 +121,14 @@ def _bounded_growth(mine: _Side, theirs: _Side, res: float) -> _Growth | None:
 def _measure(now: TensorResult, then: BaselineTensor, mine: _Side, theirs: _Side, same_seed: bool,
              res: float) -> _Growth | None:
     """The growth that decides: on the shared listed coordinates, and worst against worst
-    (bounded) where the baseline does not list every coordinate it checked or the numeric
-    derivatives moved; the larger."""
-    found = []
+    (bounded) where there are none, the baseline does not list every coordinate it checked
+    or the numeric derivatives moved; the larger."""
     listed = then.coordinates
+    shared = None
     if now.coordinates is not None and listed is not None and tuple(now.shape) == tuple(then.shape):
-        found.append(_shared_growth(now.coordinates, listed, res))
-    moved = found and found[0] is not None and (found[0].shift or 0.0) > res
-    if listed is None or len(listed.flat) < then.checked or moved:
+        shared = _shared_growth(now.coordinates, listed, res)
+    found = [shared]
+    if shared is None or (shared.shift or 0.0) > res or len(listed.flat) < then.checked:
         found.append(_bounded_growth(mine, theirs, res))
     if mine.worst is None and theirs.worst is None and same_seed:
         sides = _directions(now, then)

@@ -328,3 +328,15 @@ def test_tensors_left_out_by_only_are_not_gone(write_target, run_cli, tmp_path):
     assert result.exit_code == 0, result.output
     assert json.loads((tmp_path / "now.json").read_text())["baseline"]["gone"] == []
     assert "gone since the baseline" not in result.output
+
+
+def test_a_reshaped_tensor_is_compared_worst_against_worst(arctan, run_cli, tmp_path, write_target):
+    """x as 2x6 instead of 3x4: no shared coordinates, so worst against worst above the noise
+    bounds; 1e-9 -> 1e-7 still shows as regressed."""
+    run_cli("check", arctan(1e-9), "--json", "base.json")
+    write_target(ARCTAN.format(eps=1e-7).replace("reshape(3, 4)", "reshape(2, 6)"), "arctan_case.py")
+    result = run_cli("check", "arctan_case.py", "--baseline", "base.json", "--json", "now.json")
+    x = _tensor(tmp_path / "now.json")
+    assert x["baseline"]["compared_on"] is None and x["baseline"]["floor"] >= x["worst_noise"]
+    assert x["baseline"]["change"] == "regressed" and result.exit_code == 1
+    assert "checked on other coordinates than in the baseline" in result.output
