@@ -161,7 +161,8 @@ def load_baseline(path: str | os.PathLike[str]) -> Baseline:
     try:
         if isinstance(raw, dict) and raw.get("schema") == RUNS_SCHEMA:
             runs = raw.get("reports")
-            _need(isinstance(runs, list), "it", "has no 'reports' list")
+            if not isinstance(runs, list):
+                raise _Malformed("it has no 'reports' list")
             reports = tuple(_report(r, name, f"reports[{k}]", f"reports[{k}].")
                             for k, r in enumerate(runs))
         else:

@@ -128,7 +128,8 @@ def _measure(now: TensorResult, then: BaselineTensor, mine: _Side, theirs: _Side
     if now.coordinates is not None and listed is not None and tuple(now.shape) == tuple(then.shape):
         shared = _shared_growth(now.coordinates, listed, res)
     found = [shared]
-    if shared is None or (shared.shift or 0.0) > res or len(listed.flat) < then.checked:
+    partial = listed is None or len(listed.flat) < then.checked
+    if shared is None or (shared.shift or 0.0) > res or partial:
         found.append(_bounded_growth(mine, theirs, res))
     if mine.worst is None and theirs.worst is None and same_seed:
         sides = _directions(now, then)
