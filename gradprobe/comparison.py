@@ -88,7 +88,7 @@ class _Growth:
     floor: float
     now: float
     then: float
-    shift: float | None = None  # how far the numeric derivatives moved, relative
+    shift: float | None = None  # how far the numeric derivatives moved on shared coordinates
 
 
 def _shared_growth(mine: CheckedCoordinates, theirs: CheckedCoordinates, res: float) -> _Growth | None:
@@ -136,7 +136,10 @@ def _measure(now: TensorResult, then: BaselineTensor, mine: _Side, theirs: _Side
         if sides is not None:
             found.append(_bounded_growth(*sides, res))
     known = [g for g in found if g is not None]
-    return max(known, key=lambda g: g.growth) if known else None
+    if not known:
+        return None
+    decides = max(known, key=lambda g: g.growth)
+    return replace(decides, shift=shared.shift if shared is not None else None)
 
 
 def _directions(now: TensorResult, then: BaselineTensor) -> tuple[_Side, _Side] | None:

@@ -71,7 +71,7 @@ def test_ten_other_seeds_flag_nothing(case, seeds, tmp_path):
     listed = {t["name"]: t for layer in json.loads(path.read_text())["layers"] for t in layer["tensors"]}
     sampled = [n for n, t in listed.items() if t["checked"] < t["size"]]
     assert (sampled != []) == (case is not SmallLayer)
-    growths = []
+    growths, shifts = [], []
     for seed in range(1, seeds + 1):
         report = gradprobe.probe_target(case(), seed=seed, baseline=str(path))
         changes = {t.name: t.baseline.change for t in report.tensors}
@@ -79,12 +79,15 @@ def test_ten_other_seeds_flag_nothing(case, seeds, tmp_path):
         assert not {Change.REGRESSED, Change.WORSE} & set(changes.values())
         for t in report.tensors:
             growths.append(t.baseline.growth or 0.0)
+            shifts.append(t.baseline.numeric_shift)
             if t.name in sampled:  # compared on the baseline's own coordinates, checked again
                 assert t.baseline.compared_on == listed[t.name]["checked"]
                 assert t.checked >= listed[t.name]["checked"]
     assert max(growths) < 10  # the default factor, with room
     if case is SensorLoss:  # the same function: the numbers on the baseline's coordinates are its own
-        assert set(growths) == {1.0}
+        assert set(growths) == {1.0} and set(shifts) == {0.0}
+    if case is SensorLayer:  # another seed, another grad_output: the numeric derivatives move
+        assert min(shifts) > 0.01
 
 
 def test_the_baseline_coordinates_are_checked_again_under_another_seed(tmp_path):
