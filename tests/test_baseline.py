@@ -65,6 +65,7 @@ def test_a_hundredfold_growth_below_the_threshold_is_regressed(arctan, run_cli, 
     verdict = result.output.strip().splitlines()[-1]
     assert verdict.startswith("DISAGREES") and "regressed" in verdict and ": x" in verdict
     assert "↑ ×" in result.output  # the table's column: an arrow and the growth factor
+    assert "numeric derivatives moved" not in result.output  # by ~1e-10, well below 1e-9
 
 
 def test_an_unchanged_target_is_not_flagged(arctan, run_cli, tmp_path):
