@@ -122,8 +122,8 @@ class CheckOptions:
                 raise UsageProblem(f"{name} takes comma-separated name patterns such as "
                                    f"'hidden.*,out.W', not {value!r}", value=value)
         if not (isinstance(self.baseline_growth, numbers.Real) and not isinstance(self.baseline_growth, bool)
-                and self.baseline_growth > 1 and math.isfinite(self.baseline_growth)):
-            raise UsageProblem(f"the baseline growth factor must be a number above 1, not "
+                and self.baseline_growth >= 1 and math.isfinite(self.baseline_growth)):
+            raise UsageProblem(f"the baseline growth factor must be a number 1 or more, not "
                                f"{self.baseline_growth!r}", value=self.baseline_growth)
         if self.baseline is not None and not isinstance(self.baseline, (str, os.PathLike)):
             raise UsageProblem(f"the baseline must be the path of a JSON report, not {self.baseline!r}",

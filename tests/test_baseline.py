@@ -127,7 +127,7 @@ def test_the_growth_factor_is_respected(arctan, run_cli, tmp_path, factor, code,
     assert x["baseline"]["change"] == change and 4 < x["baseline"]["growth"] < 6
 
 
-def test_the_growth_factor_must_exceed_one(arctan, run_cli):
+def test_the_growth_factor_must_be_one_or_more(arctan, run_cli):
     result = run_cli("check", arctan(0.0), "--baseline-growth", "0.5")
     assert result.exit_code == 2 and "growth factor" in result.output
 
