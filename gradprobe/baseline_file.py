@@ -115,7 +115,9 @@ def _report(raw: Any, path: str, where: str, prefix: str) -> BaselineReport:
         path=path, target=raw["target"], threshold=_number(raw.get("threshold"), where, "threshold",
                                                             optional=False) or 0.0,
         seed=seed, method=str(raw.get("method", "central")),
-        compute_dtype=str(raw.get("compute_dtype", "float64")), tensors=tensors)
+        compute_dtype=str(raw.get("compute_dtype", "float64")), tensors=tensors,
+        numbers_dtype="float64" if raw.get("narrow_threshold") is not None
+        else str(raw.get("compute_dtype", "float64")))
 
 
 @dataclass(frozen=True)

@@ -69,6 +69,8 @@ class BaselineReport:
     seed: int
     method: str
     compute_dtype: str
+    numbers_dtype: str  # the type its relative errors were measured in (float64 for narrow
+    # code checked on its float64 run)
     tensors: tuple[BaselineTensor, ...]
 
     def tensor(self, name: str) -> BaselineTensor | None:

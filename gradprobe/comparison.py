@@ -241,7 +241,8 @@ def compare(report: Report, base: BaselineReport | None, factor: float, path: st
         note = f"the baseline {path} holds no report for {report.target}: every tensor is new"
         return _annotated(report, tensors, RunBaseline(path, None, factor), [note])
     same_seed = base.seed == report.seed
-    floor = max(resolution(base.compute_dtype), resolution(report.compute_dtype))
+    measured_in = "float64" if report.narrow_threshold is not None else report.compute_dtype
+    floor = max(resolution(base.numbers_dtype), resolution(measured_in))
     records = {}
     for t in report.tensors:
         then = base.tensor(t.name)

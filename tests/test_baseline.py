@@ -341,3 +341,20 @@ def test_a_reshaped_tensor_is_compared_worst_against_worst(arctan, run_cli, tmp_
     assert x["baseline"]["compared_on"] is None and x["baseline"]["floor"] >= x["worst_noise"]
     assert x["baseline"]["change"] == "regressed" and result.exit_code == 1
     assert "checked on other coordinates than in the baseline" in result.output
+
+
+def test_float32_code_checked_on_its_float64_run_compares_at_float64_resolution(write_target, run_cli,
+                                                                               tmp_path):
+    """float32 arctan whose errors are measured on its float64 run: 1e-9 -> 1e-7 is caught,
+    the floor being float64's eps**(2/3), not float32's 2.4e-5 (above the threshold)."""
+    source = ARCTAN.replace('reshape(3, 4)', 'reshape(3, 4).astype(np.float32)').replace(
+        '{{"x": (1.0 + EPS) / (1.0 + params["x"] ** 2)}}',
+        '{{"x": ((1.0 + EPS) / (1.0 + params["x"].astype(np.float64) ** 2)).astype(params["x"].dtype)}}')
+    write_target(source.format(eps=1e-9), "narrow.py")
+    run_cli("check", "narrow.py", "--json", "base.json")
+    assert json.loads((tmp_path / "base.json").read_text())["compute_dtype"] == "float32"
+    write_target(source.format(eps=1e-7), "narrow.py")
+    result = run_cli("check", "narrow.py", "--baseline", "base.json", "--json", "now.json")
+    x = _tensor(tmp_path / "now.json")
+    assert x["baseline"]["change"] == "regressed" and result.exit_code == 1, result.output
+    assert x["baseline"]["floor"] < 1e-9
