@@ -1,0 +1,164 @@
+"""The adversarial generator at scale: cases written from the opposite angle to the property
+suite, each judged against an mpmath reference (tests/adversarial).
+
+Run by hand: ``python bench/adversarial.py [--n 1000] [--offset 0] [--categories steep,kinks]
+[--jobs 2] [--out /tmp/adversarial-failures] [--options '{"method": "richardson"}']``.
+N cases are spread evenly over the chosen categories, seeds OFFSET, OFFSET+1, ... in each.
+Prints per category:
+
+- ``count``, ``correct``/``buggy``; ``unverif``: cases whose correct gradient does not agree with
+  mpmath to the dtype's rounding (no expectation; should be 0);
+- ``false alarm``: a tensor fails that mpmath says is within a third of the threshold;
+- ``inconcl``: targets with an inconclusive tensor (correct ones, then buggy ones);
+- ``recall``: buggy targets with a bug above 3x the threshold and resolvable in the dtype whose
+  every such tensor fails; ``missed``: one of them says pass or kink;
+- ``located``: one-element bugs found with the element in bad_indices or as worst_index;
+- ``crashes``: exceptions from gradprobe (the CLI's exit 2 or 3) on these valid targets;
+- ``warned``: targets whose own code raised a RuntimeWarning at a point gradprobe moved to;
+- ``evals/coord``: forward evaluations per checked coordinate or direction (mean).
+
+Every false alarm, miss, crash and unverified case is listed by name (CATEGORY-SEED) and, with
+``--out``, written there as a standalone target (``NAME.py`` + ``NAME.npz``) for
+``gradprobe check NAME.py``.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+import time
+from collections import defaultdict
+from concurrent.futures import ProcessPoolExecutor
+from pathlib import Path
+
+sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "tests"))
+sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
+
+from adversarial import CATEGORIES, judge, make_case  # noqa: E402
+from adversarial.case import write  # noqa: E402
+
+
+def _one(job: tuple[str, int, dict]) -> dict:
+    category, seed, options = job
+    try:
+        return judge(category, seed, **options)
+    except Exception as exc:  # noqa: BLE001 - a generator problem is reported, not hidden
+        return {"name": f"{category}-{seed}", "category": category, "seed": seed,
+                "generator_error": f"{type(exc).__name__}: {exc}"}
+
+
+def _problem(o: dict) -> str | None:
+    if o.get("generator_error"):
+        return "generator error: " + o["generator_error"]
+    if o.get("crash"):
+        return "crash: " + o["crash"]
+    if o.get("unverified"):
+        return "unverified: " + o["unverified"]
+    if o["false_alarm"]:
+        bad = [n for n, e in o["expect"].items() if e == "quiet" and o["status"].get(n) == "fail"]
+        return f"false alarm ({'correct' if o['correct'] else o['bug']}, {o['dtype']} {o['flavor']}): {bad}"
+    if o["missed"]:
+        return f"missed {o['bug']} ({o['dtype']} {o['flavor']}): {o['status']}"
+    if o["expect_fail"] and not o["found"]:
+        return f"not failed {o['bug']} ({o['dtype']} {o['flavor']}): {o['status']}"
+    if o["to_locate"] and o["found"] and not o["located"]:
+        return f"not located ({o['dtype']}): {o['status']}"
+    return None
+
+
+def tally(outcomes: list[dict]) -> dict:
+    t = defaultdict(float)
+    for o in outcomes:
+        t["count"] += 1
+        if o.get("generator_error"):
+            t["generator"] += 1
+            continue
+        t["correct" if o["correct"] else "buggy"] += 1
+        t["crash"] += bool(o["crash"])
+        t["unverified"] += bool(o["unverified"])
+        t["warned"] += o["warned"]
+        if o["crash"]:
+            continue
+        t["false"] += o["false_alarm"]
+        t["inc_correct" if o["correct"] else "inc_buggy"] += o["inconclusive"]
+        t["expect_fail"] += o["expect_fail"]
+        t["found"] += o["found"]
+        t["missed"] += o["missed"]
+        t["to_locate"] += o["to_locate"]
+        t["located"] += o["located"]
+        if o["evals_per_coord"] is not None:
+            t["evals"] += o["evals_per_coord"]
+            t["evals_n"] += 1
+    return t
+
+
+def _rate(num: float, den: float) -> str:
+    return f"{int(num)}/{int(den)}" if den else "-"
+
+
+HEADER = (f"{'category':12s} {'count':>5s} {'corr/bug':>9s} {'unverif':>7s} {'false alarm':>11s} "
+          f"{'inconcl c/b':>11s} {'recall':>9s} {'missed':>6s} {'located':>8s} {'crashes':>7s} "
+          f"{'warned':>6s} {'evals/coord':>11s}")
+
+
+def row(name: str, t: dict) -> str:
+    evals = f"{t['evals'] / t['evals_n']:.1f}" if t["evals_n"] else "-"
+    return (f"{name:12s} {int(t['count']):5d} {int(t['correct']):4d}/{int(t['buggy']):<4d} {int(t['unverified']):7d} "
+            f"{int(t['false']):11d} {int(t['inc_correct']):5d}/{int(t['inc_buggy']):<5d} "
+            f"{_rate(t['found'], t['expect_fail']):>9s} {int(t['missed']):6d} {_rate(t['located'], t['to_locate']):>8s} "
+            f"{int(t['crash'] + t['generator']):7d} {int(t['warned']):6d} {evals:>11s}")
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--n", type=int, default=1000, help="cases in all, spread over the categories (default 1000)")
+    parser.add_argument("--offset", type=int, default=0, help="first seed (default 0)")
+    parser.add_argument("--categories", default=",".join(CATEGORIES),
+                        help=f"comma-separated subset of {','.join(CATEGORIES)}")
+    parser.add_argument("--jobs", type=int, default=1, help="worker processes (default 1)")
+    parser.add_argument("--out", default=None, help="folder to write failing cases to as standalone targets")
+    parser.add_argument("--options", default="{}", help="gradprobe options as JSON, e.g. '{\"method\": \"richardson\"}'")
+    parser.add_argument("--json", default=None, help="write every case's outcome to this JSON file")
+    args = parser.parse_args(argv)
+    categories = [c.strip() for c in args.categories.split(",") if c.strip()]
+    unknown = [c for c in categories if c not in CATEGORIES]
+    if unknown:
+        parser.error(f"unknown categories {unknown}; choose from {', '.join(CATEGORIES)}")
+    options = json.loads(args.options)
+    per = max(1, args.n // len(categories))
+    jobs = [(c, s, options) for c in categories for s in range(args.offset, args.offset + per)]
+    print(f"{per} cases per category, seeds {args.offset}..{args.offset + per - 1} ({len(jobs)} in all), "
+          f"options {options}")
+    wall, cpu = time.perf_counter(), time.process_time()
+    if args.jobs > 1:
+        with ProcessPoolExecutor(args.jobs) as pool:
+            outcomes = list(pool.map(_one, jobs, chunksize=4))
+    else:
+        outcomes = [_one(j) for j in jobs]
+    print(HEADER)
+    print("-" * len(HEADER))
+    by = defaultdict(list)
+    for o in outcomes:
+        by[o["category"]].append(o)
+    for c in categories:
+        print(row(c, tally(by[c])))
+    print("-" * len(HEADER))
+    print(row("all", tally(outcomes)))
+    print(f"{time.perf_counter() - wall:.1f} s wall, {time.process_time() - cpu:.1f} s CPU (this process)")
+    listed = [(o, _problem(o)) for o in outcomes]
+    listed = [(o, p) for o, p in listed if p]
+    if listed:
+        print("\ncases to look at (rerun one: python -c \"from adversarial import judge; print(judge('CAT', SEED))\" "
+              "with tests/ on the path, or --out):")
+        for o, p in listed:
+            print(f"  {o['name']}: {p}")
+            if args.out:
+                write(make_case(o["category"], o["seed"]), args.out, p)
+    if args.json:
+        Path(args.json).write_text(json.dumps(outcomes, indent=1, default=str))
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())

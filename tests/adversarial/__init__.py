@@ -1,0 +1,14 @@
+"""An adversarial generator of targets, judged against mpmath (see bench/adversarial.py).
+
+Written from the opposite angle to tests/composer: not networks of layers but random
+expression graphs with steep pieces, kinks placed at every distance from the point, scales over
+twelve decades, odd shapes and memory layouts, float16/float32/float64 (and float32-only code),
+and tensors of up to 100,000 elements. Each case is ``(category, seed)``; its expected verdicts
+come from the mpmath reference (``reference.py``) and the rules in ``run.py``.
+"""
+
+from .bugs import make_case
+from .generate import CATEGORIES
+from .run import judge
+
+__all__ = ["CATEGORIES", "judge", "make_case"]
