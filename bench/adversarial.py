@@ -14,7 +14,8 @@ Prints per category:
   every such tensor fails; ``missed``: one of them says pass or kink;
 - ``located``: one-element bugs found with the element in bad_indices or as worst_index;
 - ``crashes``: exceptions from gradprobe (the CLI's exit 2 or 3) on these valid targets;
-- ``warned``: targets whose own code raised a RuntimeWarning at a point gradprobe moved to;
+- ``warned t/g``: targets whose own code raised a RuntimeWarning at a point gradprobe moved to
+  (t), and targets where a RuntimeWarning leaked from gradprobe's own code (g; listed below);
 - ``evals/coord``: forward evaluations per checked coordinate or direction (mean).
 
 Every false alarm, miss, crash and unverified case is listed by name (CATEGORY-SEED) and, with
@@ -78,6 +79,7 @@ def tally(outcomes: list[dict]) -> dict:
         t["crash"] += bool(o["crash"])
         t["unverified"] += bool(o["unverified"])
         t["warned"] += o["warned"]
+        t["leaked"] += bool(o["own_warnings"])
         if o["crash"]:
             continue
         t["false"] += o["false_alarm"]
@@ -99,7 +101,7 @@ def _rate(num: float, den: float) -> str:
 
 HEADER = (f"{'category':12s} {'count':>5s} {'corr/bug':>9s} {'unverif':>7s} {'false alarm':>11s} "
           f"{'inconcl c/b':>11s} {'recall':>9s} {'missed':>6s} {'located':>8s} {'crashes':>7s} "
-          f"{'warned':>6s} {'evals/coord':>11s}")
+          f"{'warned t/g':>10s} {'evals/coord':>11s}")
 
 
 def row(name: str, t: dict) -> str:
@@ -107,7 +109,7 @@ def row(name: str, t: dict) -> str:
     return (f"{name:12s} {int(t['count']):5d} {int(t['correct']):4d}/{int(t['buggy']):<4d} {int(t['unverified']):7d} "
             f"{int(t['false']):11d} {int(t['inc_correct']):5d}/{int(t['inc_buggy']):<5d} "
             f"{_rate(t['found'], t['expect_fail']):>9s} {int(t['missed']):6d} {_rate(t['located'], t['to_locate']):>8s} "
-            f"{int(t['crash'] + t['generator']):7d} {int(t['warned']):6d} {evals:>11s}")
+            f"{int(t['crash'] + t['generator']):7d} {int(t['warned']):5d}/{int(t['leaked']):<4d} {evals:>11s}")
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -146,6 +148,12 @@ def main(argv: list[str] | None = None) -> int:
     print("-" * len(HEADER))
     print(row("all", tally(outcomes)))
     print(f"{time.perf_counter() - wall:.1f} s wall, {time.process_time() - cpu:.1f} s CPU (this process)")
+    leaks = defaultdict(list)
+    for o in outcomes:
+        for w in o.get("own_warnings") or []:
+            leaks[w].append(o["name"])
+    for w, names in leaks.items():
+        print(f"warning leaked from gradprobe: {w} ({len(names)} cases, e.g. {', '.join(names[:4])})")
     listed = [(o, _problem(o)) for o in outcomes]
     listed = [(o, p) for o, p in listed if p]
     if listed:

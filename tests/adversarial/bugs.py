@@ -27,7 +27,7 @@ def _choices(case: Case) -> list[tuple[str, str, int | None]]:
         if not case.params[t.p].size:
             continue
         out.append(("dropped", t.p, t.j))
-        if t.kind in ("map", "pair", "matmul"):
+        if t.kind in ("map", "pair", "matmul", "resid"):
             out.append(("piece", t.p, t.j))
         if t.kind in ("map", "pair"):
             out.append(("chain", t.p, t.j))

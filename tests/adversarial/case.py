@@ -5,7 +5,8 @@ A case is a sum of terms ``T`` over params, times a loss scale ``S`` (``S*T`` or
 - ``map``: ``sum(w * g(f(a * (p - k))))`` (``g`` optional), ``a``, ``k``, ``w`` inputs shaped like p;
 - ``pair``: ``sum(w * f(a * (p - k)) * g(b * (q - m)))``, ``q`` shaped like ``p`` or 0-d (broadcast);
 - ``max``: ``sum(w * maximum(p, q))`` (ties placed on purpose);
-- ``matmul``: ``sum(w * f(X @ p))``.
+- ``matmul``: ``sum(w * f(X @ p))``; ``resid``: ``sum(w * f(X @ p - k))`` (residuals placed
+  near a kink).
 
 The backward is the hand-written reverse pass of exactly that, optionally with one planted bug.
 Targets are ``generic`` (they compute in whatever dtype the arrays have, so a wider run is
@@ -26,7 +27,7 @@ LAYOUTS = ("c", "fortran", "strided", "broadcast", "reversed")
 
 @dataclass(frozen=True)
 class Term:
-    kind: str  # map | pair | max | matmul
+    kind: str  # map | pair | max | matmul | resid
     j: int  # its inputs are w{j}, a{j}, k{j}, b{j}, m{j}, X{j}
     p: str
     op: str | None = None
@@ -101,8 +102,9 @@ def _forward_term(t: Term) -> list[str]:
                 f"t = np.sum(I['w{j}'] * ({_value(t.op, 'u')}) * ({_value(t.qop, 'v')}))"]
     if t.kind == "max":
         return [f"t = np.sum(I['w{j}'] * np.maximum(P['{t.p}'], P['{t.q}']))"]
-    if t.kind == "matmul":
-        return [f"z = I['X{j}'] @ P['{t.p}']", f"t = np.sum(I['w{j}'] * ({_value(t.op, 'z')}))"]
+    if t.kind in ("matmul", "resid"):
+        shift = f" - I['k{j}']" if t.kind == "resid" else ""
+        return [f"z = I['X{j}'] @ P['{t.p}']{shift}", f"t = np.sum(I['w{j}'] * ({_value(t.op, 'z')}))"]
     raise ValueError(t.kind)
 
 
@@ -134,8 +136,9 @@ def _backward_term(t: Term, bug: Bug | None) -> list[str]:
     if t.kind == "max":
         return [f"first = P['{t.p}'] >= P['{t.q}']",
                 add(t.p, f"o * I['w{j}'] * first"), add(t.q, f"o * I['w{j}'] * ~first")]
-    if t.kind == "matmul":
-        return [f"z = I['X{j}'] @ P['{t.p}']",
+    if t.kind in ("matmul", "resid"):
+        shift = f" - I['k{j}']" if t.kind == "resid" else ""
+        return [f"z = I['X{j}'] @ P['{t.p}']{shift}",
                 add(t.p, f"o * (I['X{j}'].T @ (I['w{j}'] * ({_deriv(t.op, 'z', wrong)})))")]
     raise ValueError(t.kind)
 

@@ -42,11 +42,13 @@ class Builder:
     def cast(self, a) -> np.ndarray:
         return np.asarray(a, dtype=np.float64).astype(self.dtype)
 
-    def param(self, shape, scale: float, layout: str = "c") -> str:
+    def param(self, shape, scale: float, layout: str = "c", offset: float = 0.0) -> str:
+        """A param of ``shape`` whose values vary on ``scale`` around ``offset``."""
         name = f"p{len(self.params)}"
         values = scale * self.rng.normal(size=shape) * self.rng.choice([1, -1])
         if values.ndim:
             values = np.where(np.abs(values) < 0.05 * scale, 0.7 * scale, values)
+        values = values + offset
         if layout == "broadcast" and values.ndim and values.shape[0]:
             values = np.broadcast_to(values[:1], values.shape).copy()
         self.params[name], self.layouts[name], self.scales[name] = self.cast(values), layout, scale
@@ -56,7 +58,7 @@ class Builder:
         """Inputs ``a``, ``k`` that put ``u = a * (p - k)`` in the piece's domain; returns a."""
         x = self.params[p].astype(np.float64)
         a = self.cast(gain * self.rng.uniform(0.5, 1.5, x.shape) / self.scales[p] * self.rng.choice([1, -1]))
-        u = domain(op, self.rng, x.size, self._gain_of_exp()).reshape(x.shape)
+        u = domain(op, self.rng, x.size, self._gain_of_exp(), self.dtype.name).reshape(x.shape)
         self.inputs[f"{letters[0]}{j}"] = a
         self.inputs[f"{letters[1]}{j}"] = self.cast(x - u / a.astype(np.float64))
         return a
@@ -74,13 +76,13 @@ class Builder:
         self.terms.append(Term("map", j, p, op, op2))
         return self.terms[-1]
 
-    def pair(self, p: str, q: str, op: str, qop: str) -> Term:
+    def pair(self, p: str, q: str, op: str, qop: str, gain: float = 1.0) -> Term:
         j = len(self.terms)
-        self._ak(j, p, op, 1.0)
+        self._ak(j, p, op, gain)
         shape = self.params[p].shape
         qv = self.params[q].astype(np.float64)
         b = self.cast(self.rng.uniform(0.5, 1.5, shape) / self.scales[q])
-        v = domain(qop, self.rng, int(np.prod(shape)), 1.0).reshape(shape)
+        v = domain(qop, self.rng, int(np.prod(shape)), 1.0, self.dtype.name).reshape(shape)
         shift = v / b.astype(np.float64)
         m = (qv - (shift.mean() if shift.size else 0.0)) if qv.ndim == 0 else qv - shift
         self.inputs[f"b{j}"], self.inputs[f"m{j}"] = b, self.cast(m)
@@ -94,6 +96,29 @@ class Builder:
         self.inputs[f"X{j}"] = self.cast(self.rng.normal(size=(rows, n)) / (np.sqrt(n) * self.scales[p]))
         self.weights(j, (rows, self.params[p].shape[1]))
         self.terms.append(Term("matmul", j, p, op))
+        return self.terms[-1]
+
+    def residual(self, n: int, op: str, rows: int, scale: float, share: float) -> Term:
+        """``sum(w * f(X @ W - k))`` with X small integers and W on a 2^-6 grid of its scale, so
+        X @ W is exact at the point; a ``share`` of the residuals is placed at a distance from
+        ``DISTANCES`` (times the scale) from the kink: an absolute-error loss whose residuals
+        sit near zero, its kinks cutting every coordinate of a column."""
+        j, rng = len(self.terms), self.rng
+        step = 2.0 ** np.round(np.log2(scale))
+        name = f"p{len(self.params)}"
+        W = np.round(rng.normal(size=(n, n)) * 64) / 64 * step
+        self.params[name], self.layouts[name], self.scales[name] = self.cast(W), "c", step
+        X = rng.integers(-3, 4, size=(rows, n)).astype(np.float64)
+        z = X @ self.params[name].astype(np.float64)
+        at = 1.0 if op == "hub" else 0.0
+        d = rng.choice(DISTANCES, size=z.shape) * rng.choice([1, -1], size=z.shape) * step
+        placed = rng.random(z.shape) < share
+        k = np.where(placed, z - at - d, z - rng.uniform(-2, 2, z.shape) * step)
+        self.inputs[f"X{j}"], self.inputs[f"k{j}"] = self.cast(X), self.cast(k)
+        self.weights(j, z.shape)
+        self.terms.append(Term("resid", j, name, op))
+        for r, c in zip(*np.nonzero(placed)):
+            self.kinks += [(name, (i, int(c)), float(abs(d[r, c]) / step)) for i in range(n)]
         return self.terms[-1]
 
     def place_kink(self, term: Term, count: int = 1) -> None:
@@ -141,7 +166,14 @@ def _steep(b: Builder) -> Case:
     rng = b.rng
     for _ in range(rng.integers(1, 4)):
         p = b.param(_shape(rng), _decade(rng, -3, 3))
-        b.map(p, str(rng.choice(STEEP)), gain=_decade(rng, 0, 3))
+        r = rng.random()
+        if r < 0.15:  # oscillating: every derivative grows like gain^n
+            b.map(p, "sin", gain=_decade(rng, 1, 4))
+        elif r < 0.3:
+            q = b.param(b.params[p].shape, _decade(rng, -3, 3))
+            b.pair(p, q, str(rng.choice(STEEP)), str(rng.choice(SMOOTH)), gain=_decade(rng, 0, 3))
+        else:
+            b.map(p, str(rng.choice(STEEP)), gain=_decade(rng, 0, 5))
     if rng.random() < 0.4:
         b.map(b.param(_shape(rng), _decade(rng, -3, 3)), str(rng.choice(SMOOTH)))
     return b.case(_decade(rng, -3, 3), "sq" if rng.random() < 0.2 else "id")
@@ -150,16 +182,20 @@ def _steep(b: Builder) -> Case:
 def _kinks(b: Builder) -> Case:
     rng = b.rng
     for _ in range(rng.integers(1, 4)):
-        scale = _decade(rng, -3, 3)
-        p = b.param(_shape(rng), scale)
-        if rng.random() < 0.3:
+        scale, r = _decade(rng, -3, 3), rng.random()
+        if r < 0.25:
+            p = b.param(_shape(rng), scale)
             q = b.param(b.params[p].shape, scale)
             b.weights(len(b.terms), b.params[p].shape)
             b.terms.append(Term("max", len(b.terms), p, q=q))
             b.tie(p, q, int(rng.integers(1, 4)))
+        elif r < 0.6:
+            b.residual(int(rng.integers(2, 5)), str(rng.choice(("abs", "abs", "relu", "hub"))),
+                       int(rng.integers(2, 30)), scale, float(rng.choice([0.1, 0.5, 1.0])))
         else:
+            p = b.param(_shape(rng), scale)
             t = b.map(p, str(rng.choice(KINKED)), gain=_decade(rng, 0, 1))
-            b.place_kink(t, int(rng.integers(1, 4)))
+            b.place_kink(t, int(rng.integers(1, b.params[p].size + 1)))
     if rng.random() < 0.5:
         b.map(b.param(_shape(rng), _decade(rng, -3, 3)), str(rng.choice(SMOOTH)))
     return b.case(_decade(rng, -3, 3))
@@ -183,6 +219,10 @@ def _smooth_terms(b: Builder, lo: float, hi: float, small: bool = False) -> None
 
 def _scales(b: Builder) -> Case:
     _smooth_terms(b, -6, 6)
+    if b.rng.random() < 0.5:  # a param far from 0 whose loss varies on a much smaller scale
+        scale = _decade(b.rng, -6, 6)
+        offset = scale * _decade(b.rng, 0, 6) * b.rng.choice([1, -1])
+        b.map(b.param(_shape(b.rng), scale, offset=offset), str(b.rng.choice(SMOOTH)))
     return b.case(_decade(b.rng, -6, 6), "sq" if b.rng.random() < 0.3 else "id")
 
 

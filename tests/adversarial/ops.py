@@ -94,10 +94,14 @@ STEEP = ("exp", "pole", "log", "pow5", "pow7", "pow9", "pow12", "sp100", "sp1000
 KINKED = ("abs", "relu", "hub")
 
 
-def domain(name: str, rng: np.random.Generator, size: int, gain: float) -> np.ndarray:
+NEAREST = {"float64": -7, "float32": -4, "float16": -2}
+
+
+def domain(name: str, rng: np.random.Generator, size: int, gain: float, dtype: str = "float64") -> np.ndarray:
     """Values of ``u`` where the piece is defined and interesting; steep pieces put a few
-    elements close to their pole, their log 0 or their bend (10^-4 .. 10^-1 away)."""
-    near = 10 ** rng.uniform(-4, -1, size)
+    elements close to their pole, their log 0 or their bend (10^-7 .. 10^-1 away in float64,
+    nearer than the float type's rounding never)."""
+    near = 10 ** rng.uniform(NEAREST[dtype], -1, size)
     some = rng.random(size) < 0.3
     if name == "pole":
         return np.where(some, 1 - near, rng.uniform(-1, 0.8, size))

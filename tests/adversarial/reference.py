@@ -47,21 +47,27 @@ class Reference:
     loss: float
     magnitude: float  # |S| * sum of |summands| (times |T| for a squared total): the loss's rounding scale
     radius: dict[str, np.ndarray]  # per element, how far (in the param's units) the loss stays smooth
+    mags: dict = None  # per element, the size of the intermediate products its gradient sums
     condition: float = 1.0  # a squared total: sum |summands| / |T|, how much T's rounding grows relatively
 
 
-def _term(t: Term, V: dict, grads: dict) -> tuple:
-    """(sum, sum of |summands|) of one term; adds its gradient into ``grads`` (object arrays)."""
+def _term(t: Term, V: dict, grads: dict, mags: dict) -> tuple:
+    """(sum, sum of |summands|) of one term; adds its gradient into ``grads`` and the size of
+    its intermediate products (where a formula's rounding is absolute) into ``mags``."""
     j = t.j
+    one = mp.mpf(1)
     if t.kind == "map":
         u = V[f"a{j}"] * (V[t.p] - V[f"k{j}"])
         v = _f(t.op)(u)
         d = _d(t.op)(u)
+        size = np.abs(d) + one
         if t.op2:
+            size = size * (np.abs(_d(t.op2)(v)) + one)
             d = d * _d(t.op2)(v)
             v = _f(t.op2)(v)
         s = V[f"w{j}"] * v
         grads[t.p] = grads[t.p] + V[f"w{j}"] * d * V[f"a{j}"]
+        mags[t.p] = mags[t.p] + np.abs(V[f"w{j}"] * V[f"a{j}"]) * size
     elif t.kind == "pair":
         u = V[f"a{j}"] * (V[t.p] - V[f"k{j}"])
         v = V[f"b{j}"] * (V[t.q] - V[f"m{j}"])
@@ -70,16 +76,21 @@ def _term(t: Term, V: dict, grads: dict) -> tuple:
         grads[t.p] = grads[t.p] + V[f"w{j}"] * _d(t.op)(u) * gv * V[f"a{j}"]
         dq = V[f"w{j}"] * fu * _d(t.qop)(v) * V[f"b{j}"]
         grads[t.q] = grads[t.q] + (np.sum(dq) if np.ndim(V[t.q]) == 0 else dq)
+        sp = np.abs(V[f"w{j}"] * V[f"a{j}"]) * (np.abs(_d(t.op)(u)) + one) * (np.abs(gv) + one)
+        sq = np.abs(V[f"w{j}"] * V[f"b{j}"]) * (np.abs(fu) + one) * (np.abs(_d(t.qop)(v)) + one)
+        mags[t.p] = mags[t.p] + sp
+        mags[t.q] = mags[t.q] + (np.sum(sq) if np.ndim(V[t.q]) == 0 else sq)
     elif t.kind == "max":
         first = np.vectorize(lambda a, b: a >= b, otypes=[bool])(V[t.p], V[t.q])
         s = V[f"w{j}"] * np.where(first, V[t.p], V[t.q])
         zero = mp.mpf(0)
         grads[t.p] = grads[t.p] + np.where(first, V[f"w{j}"], zero)
         grads[t.q] = grads[t.q] + np.where(first, zero, V[f"w{j}"])
-    elif t.kind == "matmul":
-        z = V[f"X{j}"] @ V[t.p]
+    elif t.kind in ("matmul", "resid"):
+        z = V[f"X{j}"] @ V[t.p] - (V[f"k{j}"] if t.kind == "resid" else 0)
         s = V[f"w{j}"] * _f(t.op)(z)
         grads[t.p] = grads[t.p] + V[f"X{j}"].T @ (V[f"w{j}"] * _d(t.op)(z))
+        mags[t.p] = mags[t.p] + np.abs(V[f"X{j}"]).T @ (np.abs(V[f"w{j}"]) * (np.abs(_d(t.op)(z)) + one))
     else:
         raise ValueError(t.kind)
     flat = list(np.asarray(s, dtype=object).reshape(-1))
@@ -98,15 +109,18 @@ def _values(case: Case, subset: dict[str, np.ndarray]) -> dict:
 
 def loss_of(case: Case, V: dict) -> tuple:
     grads = {n: np.full(V[n].shape, mp.mpf(0), dtype=object) for n in case.params}
+    mags = {n: np.full(V[n].shape, mp.mpf(0), dtype=object) for n in case.params}
     total, size = mp.mpf(0), mp.mpf(0)
     for t in case.terms:
-        s, m = _term(t, V, grads)
+        s, m = _term(t, V, grads, mags)
         total, size = total + s, size + m
     S = mp.mpf(case.scale)
     o = S * total if case.outer == "sq" else S
     grads = {n: np.asarray(g * o, dtype=object).reshape(np.shape(g)) for n, g in grads.items()}
+    mags = {n: np.asarray(m * abs(o), dtype=object).reshape(np.shape(m)) for n, m in mags.items()}
     loss = S * total * total / 2 if case.outer == "sq" else S * total
-    return loss, o, abs(o) * size, grads, (size / abs(total) if case.outer == "sq" and total else mp.mpf(1))
+    condition = size / abs(total) if case.outer == "sq" and total else mp.mpf(1)
+    return loss, o, abs(o) * size, grads, condition, mags
 
 
 def _radius(case: Case) -> dict[str, np.ndarray]:
@@ -121,7 +135,7 @@ def _radius(case: Case) -> dict[str, np.ndarray]:
             a, k = (case.inputs[f"{c}{j}"].astype(np.float64) for c in "ak")
             u = a * (case.params[t.p].astype(np.float64) - k)
             out[t.p] = np.minimum(out[t.p], PIECES[t.op].radius(u) / np.maximum(np.abs(a), 1e-300))
-        if t.kind == "matmul":
+        if t.kind in ("matmul", "resid"):
             X = np.abs(case.inputs[f"X{j}"].astype(np.float64)).max(axis=0)
             out[t.p] = np.minimum(out[t.p], 1 / np.maximum(X, 1e-300)[:, None])
     return out
@@ -135,18 +149,19 @@ def reference(case: Case, subset: dict[str, np.ndarray] | None = None) -> Refere
             raise ValueError(f"{name} has {p.size} elements: give the subset to evaluate")
     with mp.workdps(DPS):
         V = _values(case, subset)
-        loss, _, magnitude, grads, condition = loss_of(case, V)
-        out, evaluated = {}, {}
+        loss, _, magnitude, grads, condition, sizes = loss_of(case, V)
+        out, evaluated, mags = {}, {}, {}
         for name, p in case.params.items():
-            g = np.full(p.size, np.nan)
+            g, m = np.full(p.size, np.nan), np.full(p.size, np.nan)
             idx = subset[name] if name in subset else np.arange(p.size)
             g[idx] = _to_float(np.asarray(grads[name], dtype=object).reshape(-1))
-            out[name], evaluated[name] = g.reshape(p.shape), idx
+            m[idx] = _to_float(np.asarray(sizes[name], dtype=object).reshape(-1))
+            out[name], evaluated[name], mags[name] = g.reshape(p.shape), idx, m.reshape(p.shape)
         scale_up = 1.0
         if subset:  # the magnitude of a cut tensor's terms: scaled up from the subset
             big = max(subset, key=lambda n: case.params[n].size)
             scale_up = case.params[big].size / max(1, len(subset[big]))
-        return Reference(out, evaluated, float(loss), float(magnitude) * scale_up, _radius(case), float(condition))
+        return Reference(out, evaluated, float(loss), float(magnitude) * scale_up, _radius(case), mags, float(condition))
 
 
 def check_with_diff(case: Case, ref: Reference, rng: np.random.Generator, count: int = 2) -> list[str]:

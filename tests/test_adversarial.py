@@ -1,0 +1,101 @@
+"""A fast deterministic slice of the adversarial generator (tests/adversarial, bench/adversarial.py).
+
+The outside reference is mpmath: every case's gradient is the same expression differentiated
+at 50 digits, and the generator's own derivative formulas are checked against ``mp.diff``.
+What must hold today: the generator is right (formulas, rounding), and gradprobe never raises
+on these valid targets. The verdicts are asserted too; where today's engine is genuinely
+wrong the case is listed in ``KNOWN`` (xfail, not strict) with what it shows.
+"""
+
+from __future__ import annotations
+
+from functools import lru_cache
+
+import numpy as np
+import pytest
+from adversarial import CATEGORIES, make_case
+from adversarial import judge as _judge
+from adversarial.case import load, write
+from adversarial.reference import check_with_diff, reference
+from adversarial.run import verify
+
+SMALL = [c for c in CATEGORIES if c != "large"]
+SLICE = [(c, s) for c in SMALL for s in range(4)] + [("large", 0), ("large", 3)]
+
+# Verdicts today's engine gets wrong on the slice (the numerics issues own them).
+KNOWN: dict[str, str] = {
+    "kinks-0": "false alarm: |X @ W - k| residuals placed 1e-5..1e-4 of W's scale from relu's kink; "
+               "p2[0, 1] fails (-364.78 analytic, true, vs -353.95 numeric)",
+    "float16-1": "a float16 chain-rule bug (inner factor left out) is only inconclusive",
+}
+
+
+@lru_cache(maxsize=None)
+def judge(category: str, seed: int) -> dict:
+    """One run per case for both tests below."""
+    return _judge(category, seed)
+
+
+@pytest.mark.parametrize("category", SMALL)
+def test_the_generator_s_derivative_formulas_agree_with_mp_diff(category):
+    """mpmath's numerical differentiation of the mpmath loss matches the exact formulas."""
+    for seed in range(6):
+        case = make_case(category, seed)
+        ref = reference(case)
+        assert check_with_diff(case, ref, np.random.default_rng(seed), 3) == [], case.name
+
+
+@pytest.mark.parametrize("category", SMALL)
+def test_the_correct_numpy_gradients_agree_with_mpmath_to_rounding(category):
+    """The generated backward is the derivative of the generated forward, to the dtype's rounding."""
+    for seed in range(6):
+        case = make_case(category, seed)
+        assert verify(case, reference(case), np.random.default_rng(seed)) == [], case.name
+
+
+def test_cases_are_reproducible_from_their_seed():
+    """The same (category, seed) gives the same target: sources and arrays bitwise."""
+    from adversarial.case import source
+
+    for category in CATEGORIES:
+        a, b = make_case(category, 5), make_case(category, 5)
+        assert source(a) == source(b)
+        assert all(np.array_equal(x, y) for x, y in zip(a.arrays().values(), b.arrays().values()))
+
+
+def test_a_written_case_replays_on_the_command_line(run_cli, tmp_path):
+    """The standalone file a failing case is written to runs as a target with the same verdict."""
+    case = make_case("float32", 0)  # a wrong piece's derivative in one tensor
+    path = write(case, tmp_path / "cases")
+    ns = load(case)
+    expected = ns["backward"](*ns["setup"]())
+    result = run_cli("check", path, "-q")
+    assert result.exit_code == 1, result.output
+    assert set(expected) == set(case.params)
+
+
+def _marks(name: str):
+    return [pytest.mark.xfail(reason=KNOWN[name], strict=False)] if name in KNOWN else []
+
+
+@pytest.mark.parametrize(("category", "seed"), SLICE, ids=[f"{c}-{s}" for c, s in SLICE])
+def test_no_crash_on_any_case(category, seed):
+    """gradprobe finishes every valid target of the slice without an exception."""
+    outcome = judge(category, seed)
+    assert outcome["crash"] is None, outcome["crash"]
+    assert outcome["unverified"] is None, outcome["unverified"]
+
+
+@pytest.mark.parametrize(("category", "seed"), [
+    pytest.param(c, s, marks=_marks(f"{c}-{s}"), id=f"{c}-{s}") for c, s in SLICE])
+def test_verdicts_agree_with_mpmath(category, seed):
+    """Correct targets do not fail; bugs mpmath shows above the threshold and resolvable fail
+    (one wrong element located); nothing mpmath shows within the threshold fails."""
+    o = judge(category, seed)
+    assert not o["false_alarm"], (o["status"], o["expect"])
+    assert not o["missed"], (o["status"], o["expect"])
+    if o["expect_fail"]:
+        assert o["found"], (o["status"], o["expect"])
+    if o["to_locate"]:
+        assert o["located"], o["status"]
+
