@@ -24,7 +24,7 @@ FLOOR_FRACTION = 1e-3  # denominators never fall below 1e-3 of the tensor's grad
 TARGET_FLOOR_FRACTION = 1e-4  # ... nor below 1e-4 of the target's largest tensor scale
 
 
-SHRINKS = 6  # a step that meets a non-finite loss shrinks 16-fold, this many times at most
+SHRINKS = 40  # a step that meets a non-finite loss shrinks 16-fold down to x's resolution
 
 
 def _fields(p: Pairs) -> tuple[np.ndarray, ...]:
@@ -157,11 +157,13 @@ class TensorProbe:
         """The loss at x + h and x - h for each coordinate ``flat[i]``: one batch of 2n calls.
 
         Where forward returns a non-finite value at a perturbed point (float32 overflow, a
-        domain edge), the step of that coordinate shrinks 16-fold, up to SHRINKS times."""
+        domain edge), the step of that coordinate shrinks 16-fold until it reaches a few units
+        of x's resolution (a domain edge can sit any number of ulps away)."""
         h = np.array(h, dtype=np.float64)
         fields = list(_fields(self._pairs(flat, h)))
+        smallest = 4 * self.resolution(flat)
         for _ in range(SHRINKS):
-            bad = np.flatnonzero(~np.isfinite(fields[0]) | ~np.isfinite(fields[1]))
+            bad = np.flatnonzero((~np.isfinite(fields[0]) | ~np.isfinite(fields[1])) & (h > smallest))
             if bad.size == 0:
                 break
             h[bad] /= 16.0
@@ -177,6 +179,14 @@ class TensorProbe:
                 fix="guard what overflows or divides by zero there (exp, log, 1/x) so forward "
                     "stays finite around the point")
         return p
+
+    def resolution(self, flat: np.ndarray) -> np.ndarray:
+        """The spacing of each x as the forward sees it (its dtype's, or the compute type's)."""
+        x = self.x[flat]
+        r = np.abs(np.spacing(x)).astype(np.float64)
+        if np.finfo(self.compute_dtype).eps > np.finfo(x.dtype).eps:
+            r = np.maximum(r, np.abs(np.spacing(x.astype(self.compute_dtype))).astype(np.float64))
+        return r
 
     def _pairs(self, flat: np.ndarray, h: np.ndarray) -> Pairs:
         plus, minus, h_plus, h_minus = self.moved(flat, h)
