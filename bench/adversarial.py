@@ -1,7 +1,8 @@
 """The adversarial generator at scale: cases written from the opposite angle to the property
 suite, each judged against an mpmath reference (tests/adversarial).
 
-Run by hand: ``python bench/adversarial.py [--n 1000] [--offset 0] [--categories steep,kinks]
+Run by hand, with the gradprobe to test first on the path: ``PYTHONPATH=/path/to/checkout python
+/work/wt/adversarial/bench/adversarial.py [--n 1000] [--offset 0] [--categories steep,kinks]
 [--jobs 2] [--out /tmp/adversarial-failures] [--options '{"method": "richardson"}']``.
 N cases are spread evenly over the chosen categories, seeds OFFSET, OFFSET+1, ... in each.
 Prints per category:
@@ -10,7 +11,7 @@ Prints per category:
   mpmath to the dtype's rounding (no expectation; should be 0);
 - ``false alarm``: a tensor fails that mpmath says is within a third of the threshold;
 - ``inconcl``: targets with an inconclusive tensor (correct ones, then buggy ones);
-- ``recall``: buggy targets with a bug above 3x the threshold and resolvable in the dtype whose
+- ``recall``: buggy targets with a bug above 1.5x the threshold and resolvable in the dtype whose
   every such tensor fails; ``missed``: one of them says pass or kink;
 - ``located``: one-element bugs found with the element in bad_indices or as worst_index;
 - ``crashes``: exceptions from gradprobe (the CLI's exit 2 or 3) on these valid targets;
@@ -21,6 +22,10 @@ Prints per category:
 Every false alarm, miss, crash and unverified case is listed by name (CATEGORY-SEED) and, with
 ``--out``, written there as a standalone target (``NAME.py`` + ``NAME.npz``) for
 ``gradprobe check NAME.py``.
+
+Shapes and layouts are also fuzzed systematically (every shape through every path of a check,
+correct and buggy) in ``tests/test_shape_fuzz.py``, part of the test suite; the ``shapes``
+category here draws them at random inside larger expressions.
 """
 
 from __future__ import annotations
@@ -33,11 +38,14 @@ from collections import defaultdict
 from concurrent.futures import ProcessPoolExecutor
 from pathlib import Path
 
+# Only the generator comes from this checkout: gradprobe is whichever one PYTHONPATH (or the
+# installed package) gives, so the same cases can be run against another worktree's engine.
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "tests"))
-sys.path.insert(0, str(Path(__file__).resolve().parent.parent))
 
 from adversarial import CATEGORIES, judge, make_case  # noqa: E402
 from adversarial.case import write  # noqa: E402
+
+import gradprobe  # noqa: E402
 
 
 def _one(job: tuple[str, int, dict]) -> dict:
@@ -131,7 +139,7 @@ def main(argv: list[str] | None = None) -> int:
     per = max(1, args.n // len(categories))
     jobs = [(c, s, options) for c in categories for s in range(args.offset, args.offset + per)]
     print(f"{per} cases per category, seeds {args.offset}..{args.offset + per - 1} ({len(jobs)} in all), "
-          f"options {options}")
+          f"options {options}, gradprobe from {Path(gradprobe.__file__).parent}")
     wall, cpu = time.perf_counter(), time.process_time()
     if args.jobs > 1:
         with ProcessPoolExecutor(args.jobs) as pool:
