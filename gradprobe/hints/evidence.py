@@ -45,13 +45,20 @@ class Context:
     """Facts about the target that name causes.
 
     ``batch_sizes``: the inputs' leading dimensions; ``index_inputs``: integer inputs;
-    ``inputs``: floating-point inputs; ``param_names``: every param, in the order given.
+    ``inputs``: floating-point inputs, in the user's own dtype (a rule that computes with them
+    takes :func:`as_float64` first); ``param_names``: every param, in the order given.
     """
 
     batch_sizes: tuple[int, ...] = ()
     index_inputs: dict[str, np.ndarray] = field(default_factory=dict)
     inputs: dict[str, np.ndarray] = field(default_factory=dict)
     param_names: tuple[str, ...] = ()
+
+
+def as_float64(a: np.ndarray) -> np.ndarray:
+    """A user's array as the float64 every hint computes in (numpy.linalg has no float16, and
+    ml_dtypes' bfloat16 none either); no copy when it already is float64."""
+    return np.asarray(a, dtype=np.float64)
 
 
 def norm(v: np.ndarray) -> float:

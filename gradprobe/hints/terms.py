@@ -16,7 +16,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .evidence import Context, Evidence, norm
+from .evidence import Context, Evidence, as_float64, norm
 
 RANK_TOL = 1e-8  # singular values below this share of the largest do not count
 INSIDE = 1e-6  # the analytic gradient leaves at most this share outside the item's span
@@ -46,7 +46,10 @@ def _inside_only(analytic: np.ndarray, numeric: np.ndarray, q: np.ndarray) -> bo
 
 def _items(x: np.ndarray, width: int) -> Iterator[tuple[int, list[np.ndarray]]]:
     """(axis, the rows of each item along it) for an input whose last axis is ``width``."""
-    if x.ndim < 2 or x.shape[-1] != width or not np.all(np.isfinite(x)):
+    if x.ndim < 2 or x.shape[-1] != width:
+        return
+    x = as_float64(x)
+    if not np.all(np.isfinite(x)):
         return
     for axis in range(x.ndim - 1):
         moved = np.moveaxis(x, axis, 0)
