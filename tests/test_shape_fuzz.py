@@ -5,7 +5,7 @@ reversed and broadcast-view (np.broadcast_to, read-only, stride 0) arrays, float
 float64, and a million elements. Paths: the first check, re-estimates (richardson, no recheck),
 the second look (a kinked target), the fuzz measure (a near-flat buggy target), directions,
 localisation (sample 0, one wrong element), worker processes, stacks with a 0-d param, and the
-JSON, JUnit and HTML renderers. Every case must finish without an exception, leave the
+terminal (with --map), JSON, JUnit and HTML renderers. Every case must finish without an exception, leave the
 caller's arrays bitwise unchanged, keep a correct target from failing and fail the planted bug
 (the targets' derivatives: tests/shape_targets.py, from A&S 4.5 and the chain rule).
 """
@@ -24,7 +24,7 @@ import gradprobe
 
 SHAPES = [((), "c"), ((1,), "c"), ((0,), "c"), ((2, 0), "c"), ((1, 1), "c"), ((1, 3, 1), "c"),
           ((3, 4), "fortran"), ((3, 4), "strided"), ((3, 4), "reversed"), ((3, 4), "broadcast"),
-          ((1, 4), "broadcast"), ((2, 3, 2), "fortran")]
+          ((1, 4), "broadcast"), ((2, 3, 2), "fortran"), ((2, 3, 4, 2), "strided")]
 PATHS = {"default": {}, "richardson": {"method": "richardson"}, "no-recheck": {"recheck": False},
          "directions": {"directions": 3}, "sample-0": {"sample": 0}}
 FEW = [((), "c"), ((0,), "c"), ((1, 3, 1), "c"), ((3, 4), "broadcast"), ((3, 4), "fortran")]
@@ -118,10 +118,10 @@ def test_a_million_elements_sampled(variant):
 @pytest.mark.parametrize("variant", ("correct", "scalar", "element"))
 @pytest.mark.parametrize(("shape", "layout"), SHAPES, ids=[_ids(*s) for s in SHAPES])
 def test_the_command_line_and_every_renderer(run_cli, tmp_path, shape, layout, variant):
-    """gradprobe check --json --junit --html on every shape: the exit code follows the verdicts."""
+    """gradprobe check --json --junit --html --map on every shape: the exit code follows the verdicts."""
     path = tmp_path / "target.py"
     path.write_text(source(shape, layout, variant))
-    result = run_cli("check", str(path), "--json", "r.json", "--junit", "r.xml", "--html", "r.html", "-q")
+    result = run_cli("check", str(path), "--json", "r.json", "--junit", "r.xml", "--html", "r.html", "--map")
     wrong = variant != "correct" and not (BUGGY[variant] == "m.w" and math.prod(shape) == 0)
     assert result.exit_code == (1 if wrong else 0), result.output
     data = json.loads((tmp_path / "r.json").read_text())
