@@ -31,7 +31,7 @@ def _options(values: Mapping[str, Any]) -> CheckOptions:
 
 def probe(
     forward: Callable[..., Any],
-    backward: Callable[..., Any],
+    backward: Callable[..., Any] | None,
     params: Mapping[str, Any],
     inputs: Mapping[str, Any] | None = None,
     *,
@@ -40,6 +40,7 @@ def probe(
     **options: Any,
 ) -> Report:
     """Check ``backward`` against central differences of ``forward`` at ``params``/``inputs``.
+    ``backward`` None: the framework's reverse mode of a torch or JAX ``forward`` is checked.
 
     ``options`` are the settings of :class:`~gradprobe.options.CheckOptions`: ``threshold``,
     ``seed``, ``method``, ``sample``, ``directions``, ``jobs``, ``recheck``, ``inconclusive``,

@@ -88,6 +88,13 @@ class ComplexStepError(ProbeError):
     fix = "use --method central or --method richardson instead"
 
 
+class GraphLeftError(UserCodeError):
+    """A forward-only target's forward leaves its framework's graph: no gradient flows."""
+
+    fix = ("keep forward in the framework's operations (no .numpy(), no numpy calls on its "
+           "arrays), or give the target a backward")
+
+
 class ProcessExitError(UserCodeError):
     """The user's code called sys.exit or os._exit during the check; it did not finish."""
 

@@ -49,7 +49,7 @@ def load_functions(spec: str) -> tuple[Callable[..., Any], Callable[..., Any]]:
         with guarded():
             obj = resolve_object(spec.split(PART)[0])
             found = worker_functions(obj, spec)
-            return found if found is not None else _functions(obj)
+            return found if found is not None else _functions(obj, optional=True)
     except ProbeError as exc:
         raise exc.with_target(spec.split(PART)[0])
 

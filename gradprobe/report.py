@@ -74,6 +74,7 @@ class TensorResult:
     inherited_from: str | None = None  # stacks: fails only because this later layer is wrong
     coordinates: CheckedCoordinates | None = field(default=None, compare=False, repr=False)
     baseline: TensorBaseline | None = None  # how it compares with an earlier run (--baseline)
+    device: str | None = None  # where the tensor lives, when not on the CPU
 
     def __post_init__(self) -> None:
         object.__setattr__(self, "status", Status(self.status))  # plain strings accepted
@@ -149,6 +150,8 @@ class Report:
     # stack), and how many of ``evaluations`` the layers' own checks took.
     error_enters_at: tuple[str, ...] | None = None
     own_evaluations: int = 0
+    array_library: str = "numpy"  # the library of the target's arrays (protocol section 6)
+    gradient_source: str = "backward"  # or "autograd": the framework's reverse mode
 
     @property
     def is_stack(self) -> bool:

@@ -33,9 +33,19 @@ def run_stack(
     clock: Callable[[], float] = time.perf_counter,
 ) -> Report:
     """Check ``st``; ProbeError subclasses (naming the target) when the check cannot run."""
-    options = options or CheckOptions()
+    from .frameworks import preserved
+
+    with preserved(st.params, st.inputs):
+        return _run_stack(st, options or CheckOptions(), executor, progress, clock)
+
+
+def _run_stack(st: StackTarget, options: CheckOptions, executor: Executor | None,
+               progress: Progress | None, clock: Callable[[], float]) -> Report:
+    from .frameworks import frame_stack
+
     started = clock()
     try:
+        st, framing = frame_stack(st)
         activations = base_activations(st)
     except ProbeError as exc:
         raise exc.with_target(st.label)
@@ -48,7 +58,7 @@ def run_stack(
                                clock=clock)
         checks.append(OwnCheck(part.name, report, part.input_name))
     end = run_check(end_to_end(st), options, executor=executor, progress=progress, clock=clock)
-    report = combine(end, checks, clock() - started)
+    report = framing.annotate(combine(end, checks, clock() - started))
     return replace(report, notes=st.notes + report.notes) if st.notes else report
 
 

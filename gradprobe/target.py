@@ -30,7 +30,7 @@ class Target:
 
     label: str
     forward: Callable[..., Any]
-    backward: Callable[..., Any]
+    backward: Callable[..., Any] | None  # None: the framework's reverse mode (torch, jax)
     params: Mapping[str, Any]
     inputs: Mapping[str, Any] = field(default_factory=dict)
     spec: str | None = None  # the entry-point string, when loaded from one
@@ -57,7 +57,27 @@ def _call_user(fn: Callable[[], Any], what: str) -> Any:
         raise exit_error(exc, who) from exc
     except BaseException as exc:
         raise TargetLoadError(f"{what} raised {summarise(exc)}", value=fn,
-                              fix="fix it there (--traceback shows where)") from exc
+                              fix=_missing(exc) or "fix it there (--traceback shows where)") from exc
+
+
+# Frameworks a target may be written with, and the extra of gradprobe that brings each.
+EXTRAS = {"torch": "torch", "jax": "jax", "jaxlib": "jax", "array_api_strict": "array-api",
+          "ml_dtypes": "frameworks"}
+
+
+def _missing(exc: BaseException) -> str | None:
+    """The fix for a framework that is not installed or a GPU that is not there (None if neither)."""
+    if isinstance(exc, ModuleNotFoundError) and exc.name:
+        root = exc.name.partition(".")[0]
+        if root in EXTRAS:
+            return (f"the target is written with {root}, which is not installed here: install it "
+                    f"with pip install 'gradprobe[{EXTRAS[root]}]'")
+        return None
+    text = str(exc)
+    if any(s in text for s in ("CUDA", "cuda", "GPU", "not compiled with")):
+        return ("the arrays ask for a GPU that this machine does not have: create them on the "
+                "CPU (device='cpu'), or run where that GPU is")
+    return None
 
 
 def _import_file(location: str) -> Any:
@@ -98,14 +118,14 @@ def _import_module(location: str) -> Any:
                 value=location, fix="",
             ) from exc
         raise TargetLoadError(f"importing it raised {summarise(exc)}", value=location,
-                              fix="install the missing module or fix the import") from exc
+                              fix=_missing(exc) or "install the missing module or fix the import") from exc
     except KeyboardInterrupt:
         raise
     except (SystemExit, ExitAttempt) as exc:
         raise exit_error(exc, "the module") from exc
     except BaseException as exc:
         raise TargetLoadError(f"importing it raised {summarise(exc)}", value=location,
-                              fix="fix the module so it imports (--traceback shows where)") from exc
+                              fix=_missing(exc) or "fix the module so it imports (--traceback shows where)") from exc
     finally:
         _remove_first(sys.path, here)
 
@@ -146,10 +166,15 @@ def resolve_object(spec: str) -> Any:
     return obj
 
 
-def _functions(obj: Any) -> tuple[Callable[..., Any], Callable[..., Any]]:
-    found = []
+def _functions(obj: Any, optional: bool = False) -> tuple[Callable[..., Any], Callable[..., Any]]:
+    """forward and backward; with ``optional`` a missing backward is None (forward-only
+    targets of a framework, see :mod:`.frameworks`)."""
+    found: list[Any] = []
     for name in ("forward", "backward"):
         fn = _get(obj, name)
+        if fn is None and optional and name == "backward":
+            found.append(None)
+            continue
         if fn is None:
             raise TargetLoadError(f"the target has no {name} function", value=name,
                                   fix=MISSING_FIX[name])
@@ -190,6 +215,12 @@ def _arrays(obj: Any) -> tuple[Mapping[str, Any], Mapping[str, Any]]:
 
 def target_from_object(obj: Any, label: str, spec: str | None = None) -> Target:
     """Read forward, backward and the arrays off a target object."""
-    forward, backward = _functions(obj)
+    forward, backward = _functions(obj, optional=True)
     params, inputs = _arrays(obj)
+    if backward is None:
+        from .boundary import describe  # local: numpy targets never need it
+
+        if describe(params, inputs).library not in ("torch", "jax"):
+            raise TargetLoadError("the target has no backward function", value="backward",
+                                  fix=MISSING_FIX["backward"])
     return Target(label, forward, backward, params, inputs, spec)

@@ -56,9 +56,29 @@ def layer_of(name: str) -> str:
     return name.rpartition(".")[0] or name
 
 
+def is_float_dtype(dtype: np.dtype) -> bool:
+    """True for real floating types: numpy's own, and extension types that numpy knows the
+    rounding of (``ml_dtypes.bfloat16``, which numpy files under kind ``V``)."""
+    dtype = np.dtype(dtype)
+    if dtype.kind == "f":
+        return True
+    if dtype.kind != "V" or dtype.fields is not None or dtype.subdtype is not None:
+        return False
+    try:
+        np.finfo(dtype)
+    except (TypeError, ValueError):
+        return False
+    return True
+
+
+def is_numeric_dtype(dtype: np.dtype) -> bool:
+    """Numbers (ints, floats, complex, bool, extension floats), not strings or objects."""
+    return bool(np.issubdtype(dtype, np.number) or dtype == np.bool_ or is_float_dtype(dtype))
+
+
 def is_float(array: np.ndarray) -> bool:
     """True for real floating-point arrays, the only ones gradprobe perturbs."""
-    return bool(np.issubdtype(array.dtype, np.floating))
+    return is_float_dtype(array.dtype)
 
 
 def as_array(value: Any, what: str) -> np.ndarray:
@@ -67,7 +87,7 @@ def as_array(value: Any, what: str) -> np.ndarray:
         array = np.array(value, copy=True, order="K")
     except Exception as exc:  # numpy raises many types for ragged or odd input
         raise TargetLoadError(f"{what} cannot be made into an array ({exc})", value=value) from exc
-    if not (np.issubdtype(array.dtype, np.number) or array.dtype == np.bool_):
+    if not is_numeric_dtype(array.dtype):
         raise TargetLoadError(
             f"{what} is not a numeric array (it is {type(value).__name__} of dtype {array.dtype})",
             value=value,

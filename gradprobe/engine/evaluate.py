@@ -15,9 +15,9 @@ from typing import Any, Protocol
 
 import numpy as np
 
-from ..errors import BadOutputError, InPlaceWriteError, UserCodeError, summarise
+from ..errors import BadOutputError, InPlaceWriteError, ProbeError, UserCodeError, summarise
 from ..guard import ExitAttempt, exit_error
-from ..tensors import Workspace, format_index
+from ..tensors import Workspace, format_index, is_numeric_dtype
 from .domain import Key, Watch
 
 # An integer index array at least this long that is one contiguous run becomes a slice.
@@ -84,7 +84,7 @@ def output_to_loss(out: Any, grad_output: np.ndarray | None, where: str) -> floa
         array = np.asarray(out)
     except Exception as exc:
         raise BadOutputError(f"forward returned {type(out).__name__}{where}", value=out) from exc
-    if not (np.issubdtype(array.dtype, np.number) or array.dtype == np.bool_):
+    if not is_numeric_dtype(array.dtype):
         raise BadOutputError(
             f"forward returned an array of dtype {array.dtype}{where}, not numbers", value=out
         )
@@ -101,7 +101,7 @@ def output_to_loss(out: Any, grad_output: np.ndarray | None, where: str) -> floa
                 "returned before", value=out,
             )
         value = array.reshape(())[()]
-        return complex(value) if np.iscomplexobj(array) else float(value)
+        return complex(value) if np.iscomplexobj(array) else float(np.float64(value))
     if array.shape != grad_output.shape:
         raise BadOutputError(
             f"forward returned shape {array.shape}{where} where it returned "
@@ -120,7 +120,7 @@ def _overflowed(out: Any) -> bool:
         array = np.asarray(out)
     except Exception:
         return False
-    return bool(np.issubdtype(array.dtype, np.number) and not np.isfinite(array).all())
+    return bool(is_numeric_dtype(array.dtype) and not np.isfinite(array).all())
 
 
 OUTSIDE = "forward warned at a point moved off the base point (outside its domain there)"
@@ -145,6 +145,8 @@ class LossFunction:
         moved = moved or p is not None
         try:
             out, warned = self._watch.call(self.forward, params, inputs, moved)
+        except ProbeError as exc:  # the array boundary's own sentence (an in-place write)
+            raise type(exc)(exc.message + self._where(p), value=exc.value) from exc
         except Exception as exc:
             where = self._where(p)
             if is_read_only_write(exc):

@@ -9,7 +9,7 @@ from typing import Any
 import numpy as np
 
 from ..errors import BadOutputError
-from ..tensors import Workspace, flatten, is_float
+from ..tensors import Workspace, flatten, is_float, is_numeric_dtype
 
 
 @dataclass
@@ -27,7 +27,7 @@ def _problem(name: str, value: Any, tensor: np.ndarray) -> tuple[np.ndarray | No
         grad = np.asarray(value)
     except Exception:
         return None, f"the gradient for {name} is not an array ({type(value).__name__})"
-    if not np.issubdtype(grad.dtype, np.number) or np.issubdtype(grad.dtype, np.complexfloating):
+    if not is_numeric_dtype(grad.dtype) or np.issubdtype(grad.dtype, np.complexfloating):
         return None, f"the gradient for {name} is not real numbers (dtype {grad.dtype})"
     if grad.shape != tensor.shape:
         if grad.ndim == tensor.ndim >= 2 and grad.shape == tensor.shape[::-1]:

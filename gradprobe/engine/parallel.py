@@ -20,6 +20,7 @@ from __future__ import annotations
 import os
 import pickle
 import signal
+import sys
 from collections.abc import Callable, Sequence
 from typing import TYPE_CHECKING, Any, cast
 
@@ -122,7 +123,9 @@ class WorkerPool:
             except Exception as exc:
                 raise _not_picklable(exc) from exc
         params, inputs = _state(ws)
-        context = multiprocessing.get_context()
+        # JAX runs threads of its own, which a forked child would inherit locked: fresh
+        # processes for it (its arrays cross the boundary as numpy, the target is loaded again).
+        context = multiprocessing.get_context("spawn" if "jax" in sys.modules else None)
         self.jobs = jobs
         self.connections: list[Any] = []
         self.processes: list[Any] = []

@@ -149,7 +149,7 @@ class Point:
         second differences cancel how the gradient really changes along d and keep how its
         rounding varies from point to point; the points lie on one side of a kink at the
         point, so a kink's jump is not taken for fuzz. JITTER_SPAN backward calls."""
-        if self.backward is None:
+        if self.backward is None or not base:
             return {}
         steps = {}
         for name in base:

@@ -16,7 +16,7 @@ from ..errors import (
     UserCodeError,
     summarise,
 )
-from ..tensors import Workspace
+from ..tensors import Workspace, is_float_dtype
 from .evaluate import Evaluator, output_to_loss
 
 
@@ -40,7 +40,7 @@ def _name_writes(ws: Workspace, flat: dict[str, np.ndarray], who: str) -> None:
 
 def _result_dtype(out: Any) -> np.dtype:
     array = np.asarray(out)
-    if np.issubdtype(array.dtype, np.floating):
+    if is_float_dtype(array.dtype):
         return array.dtype
     if np.issubdtype(array.dtype, np.complexfloating):
         return np.finfo(array.dtype).dtype
@@ -78,6 +78,8 @@ def inspect_forward(
     params, inputs, flat = _trees(ws, scratch)
     try:
         out = evaluator.raw(params, inputs)
+    except ProbeError:
+        raise  # the array boundary's own sentence (an in-place write)
     except Exception as exc:
         raise UserCodeError(f"forward raised {summarise(exc)}", fix=_signature_fix(exc, "forward")) from exc
     if flat is not None:

@@ -98,9 +98,11 @@ def run_check(
     ``executor`` spreads the evaluations over any ``concurrent.futures.Executor`` (a Dask
     client's ``get_executor()`` included); ``options.jobs > 1`` starts worker processes.
     """
+    from ..frameworks import preserved  # local: the framework form of targets builds on this module
+
     keep_heap()
     try:
-        with guarded("forward or backward"):
+        with guarded("forward or backward"), preserved(target.params, target.inputs):
             return _run(target, options or CheckOptions(), executor, progress, clock)
     except ProbeError as exc:
         raise exc.with_target(target.label)
@@ -115,7 +117,11 @@ def _run(
     progress: Progress | None,
     clock: Callable[[], float],
 ) -> Report:
+    from ..frameworks import frame
+
     started = clock()
+    target, framing = frame(target)
+    assert target.backward is not None  # framed: the framework's reverse mode where absent
     ws = Workspace(target.params, target.inputs)
     if not any(is_float(ws.owners[n]) for n in ws.param_names):
         raise TargetLoadError("the target has no floating-point params to check")
@@ -128,11 +134,13 @@ def _run(
 
     try:
         evaluator = Evaluator(LossFunction(target.forward, ws, None), None, progress)
+        assert target.backward is not None  # framed: the framework's reverse mode where absent
         point = prepare(target.forward, target.backward, ws, evaluator, options.seed, backend=backend)
-        return _check_all(target, options, point, started, clock)
+        report = _check_all(target, options, point, started, clock)
     finally:
         for release in releases:
             release()
+    return framing.annotate(report)
 
 
 def _settings(options: CheckOptions, numerics: Numerics) -> tuple[CheckOptions, list[str]]:
@@ -181,6 +189,7 @@ def _second_look(target: Target, settings: CheckOptions, point: Point,
     kinked = [r for r in records if r.kinked]
     if not kinked:
         return None
+    assert target.backward is not None  # framed in _run
     look = SecondLook(target.forward, target.backward, point, settings)
     point.keep_gradients(set())  # the check's own gradients are no longer needed: memory
     failed = look.settle(kinked)

@@ -107,6 +107,7 @@ def tensor_dict(t: TensorResult) -> dict[str, Any]:
         **({"inherited_from": t.inherited_from} if t.inherited_from is not None else {}),
         **_checked(t),
         **_baseline(t),
+        **({"device": t.device} if t.device is not None else {}),
     }
 
 
@@ -133,6 +134,8 @@ def report_dict(report: Report) -> dict[str, Any]:
         "method": report.method,
         "compute_dtype": report.compute_dtype,
         "narrow_threshold": report.narrow_threshold,
+        "array_library": report.array_library,
+        "gradient_source": report.gradient_source,
         "inconclusive_fails": report.inconclusive_fails,
         "summary": {
             "tensors": len(report.tensors),
