@@ -361,3 +361,19 @@ def test_leaving_the_graph_is_one_sentence_with_the_fix(write_target, run_cli):
     assert "forward leaves torch's graph" in result.output
     assert "give the target a backward" in result.output
     assert "Traceback" not in result.output
+
+
+@pytest.mark.skipif(not torch.cuda.is_available(), reason="no CUDA GPU on this machine")
+def test_tensors_on_a_gpu_stay_there():
+    """Runs only where a GPU exists: the code gets its tensors on the GPU; the JSON names it."""
+    seen = []
+    params, inputs = ({n: t.cuda() for n, t in tree.items()} for tree in tensors(torch.float64))
+
+    def forward(p, i):
+        seen.append(p["w"].device.type)
+        return loss_of(Swish)(p, i)
+
+    report = probe(forward, None, params, inputs)
+    assert report.ok and set(seen) == {"cuda"}
+    w = next(t for t in report_dict(report)["layers"][0]["tensors"] if t["name"] == "w")
+    assert w["device"].startswith("cuda")
