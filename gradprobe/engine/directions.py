@@ -34,6 +34,7 @@ FIRST_STEP = 4.0  # the ladder starts at 4 coordinate steps
 SHRINK = 16.0  # steps shrink this much when a kink is seen
 RETRIES = 2
 WIDE_ROWS = 2  # a widened ladder: its two rows give a bound from their spread
+DEEP_ROWS = 4  # a ladder limited by its steps' size is carried down to this many rows
 
 
 @dataclass(frozen=True)
@@ -58,10 +59,17 @@ def unit_direction(size: int, rng: np.random.Generator) -> np.ndarray:
 
 
 def _ladder(
-    probe: TensorProbe, part: slice, u: np.ndarray, t0: float, rows: int
-) -> tuple[Estimate, Estimate, Estimate, float]:
+    probe: TensorProbe, part: slice, u: np.ndarray, t0: float, rows: int,
+    known: tuple[np.ndarray, np.ndarray] | None = None,
+) -> tuple[Estimate, Estimate, Estimate, float, tuple[np.ndarray, np.ndarray]]:
+    """The ladder's central and one-sided estimates of the discrepancy, the noise of its
+    smallest step's quotient, and its raw values (``known``: those of its first rows, which
+    are not evaluated again)."""
     steps = t0 / RATIO ** np.arange(rows)
-    values, predicted = probe.along(part, u, np.stack([steps, -steps], axis=1).reshape(-1))
+    done = 0 if known is None else known[0].size // 2
+    values, predicted = probe.along(part, u, np.stack([steps[done:], -steps[done:]], axis=1).reshape(-1))
+    if known is not None:
+        values, predicted = np.concatenate([known[0], values]), np.concatenate([known[1], predicted])
     f_plus, f_minus = values[0::2], values[1::2]
     p_plus, p_minus = predicted[0::2], predicted[1::2]
     right = (f_plus - probe.f0 - p_plus) / steps
@@ -70,7 +78,8 @@ def _ladder(
     one_sided = (2.0 * noise / steps)[:, None]
     central = tableau(((right + left) / 2.0)[:, None], (noise / steps)[:, None], RATIO, 2)
     return (central, tableau(left[:, None], one_sided, RATIO, 1),
-            tableau(right[:, None], one_sided, RATIO, 1), float(noise.max() / steps[-1]))
+            tableau(right[:, None], one_sided, RATIO, 1), float(noise.max() / steps[-1]),
+            (values, predicted))
 
 
 def first_step(probe: TensorProbe, part: slice) -> float:
@@ -90,13 +99,21 @@ def check_direction(
     t0 = first_step(probe, part)
     kink = True
     for attempt in range(RETRIES + 1):
-        central, left, right, noise = _ladder(probe, part, u, t0, rows)
+        central, left, right, noise, raw = _ladder(probe, part, u, t0, rows)
         gap = abs(float(right.value[0] - left.value[0]))
         kink = gap > DIRECTION_SIGNIFICANCE * float(left.error[0] + right.error[0])
         if not kink:
             break
         t0 /= SHRINK ** (attempt + 1)
     bound = float(central.error[0])
+    if not kink and bound > enough and noise <= 0.5 * bound and rows < DEEP_ROWS:
+        # Smooth and limited by the steps' size, not by rounding: the same ladder further
+        # down, extrapolated over more rows (the first rows are not evaluated again).
+        deep, deep_left, deep_right, noise, _ = _ladder(probe, part, u, t0, DEEP_ROWS, raw)
+        deep_gap = abs(float(deep_right.value[0] - deep_left.value[0]))
+        if deep_gap <= DIRECTION_SIGNIFICANCE * float(deep_left.error[0] + deep_right.error[0]):
+            central = Estimate.better(central, deep)
+        bound = float(central.error[0])
     if not kink and bound > enough and noise > 0.5 * bound:
         wide = _ladder(probe, part, u, t0 * SHRINK, WIDE_ROWS)  # noise-limited and smooth: larger steps
         wide_gap = abs(float(wide[2].value[0] - wide[1].value[0]))

@@ -39,7 +39,7 @@ class TensorRecord:
     directions: tuple[DirectionResult, ...] = ()
     located_evaluations: int | None = None
     evaluations: int = 0
-    unconfirmed: bool = False  # a direction disagrees that no coordinate confirms
+    unconfirmed: bool | str = False  # a direction disagrees that no coordinate confirms (why, if said)
     # The second look (offpoint): the outcome with kink coordinates that fail off the point
     # failed (None: none did, or no second look).
     moved: CoordinateOutcome | None = None
@@ -78,4 +78,5 @@ class TensorRecord:
             self.name, self.layer, self.kind, self.shape, np.dtype(self.dtype), final,
             hint=self.hint, directions=self.directions,
             located_evaluations=self.located_evaluations, evaluations=spent,
-            doubt=UNCONFIRMED if self.unconfirmed else None)
+            doubt=self.unconfirmed if isinstance(self.unconfirmed, str)
+            else UNCONFIRMED if self.unconfirmed else None)

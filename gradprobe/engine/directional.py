@@ -1,0 +1,120 @@
+"""The directional part of a sampled tensor's check: random directions, localisation of
+what they show, and a sweep of what localisation leaves undecided.
+
+A random unit direction weighs every element, so one wrong element shows along it as long
+as its share of the discrepancy exceeds the direction's bound. A significant direction is
+localised at once (:mod:`.locate`); once its candidates plainly carry a discrepancy beyond
+the threshold no further direction is drawn (the tensor fails on them). Parts of the
+tensor whose share no check resolved are swept coordinate-wise when they are small enough;
+what remains unresolved makes the tensor inconclusive, with the smallest element error the
+directions could have seen.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..report import DirectionResult
+from .directions import DIRECTION_SIGNIFICANCE as SIGNIFICANCE
+from .directions import DirectionCheck, check_direction, unit_direction
+from .locate import locate
+from .probe import TensorProbe
+from .sampling import tensor_rng
+
+EXTRA_DIRECTIONS = 2  # drawn per direction that kinks hid
+SWEEP_UNDECIDED = 4096  # coordinates left undecided by localisation that are swept
+PLAIN = 2.0  # candidates whose share shows at least twice the tolerance need no more directions
+
+
+@dataclass(frozen=True)
+class Directional:
+    """What the directions found: results, coordinates to check, and what stays unresolved."""
+
+    results: tuple[DirectionResult, ...]
+    candidates: np.ndarray  # flat indices to check coordinate-wise (localised and swept)
+    located_evaluations: int | None
+    unresolved: str | None  # why a significant direction stays unexplained, or None
+
+
+def _enough(probe: TensorProbe) -> float:
+    """The bound at which a direction needs no larger steps: a tenth of what one element
+    wrong by the threshold, at the tensor's typical gradient, adds along a random unit
+    direction (rms(a) * threshold / sqrt(n))."""
+    return 0.1 * probe.threshold * probe.grad_scale / max(probe.size, 1) ** 0.5
+
+
+def _result(probe: TensorProbe, d: DirectionCheck) -> DirectionResult:
+    numeric = d.analytic + d.discrepancy
+    scale = max(abs(d.analytic), abs(numeric), probe.floor)
+    return DirectionResult(
+        analytic=d.analytic, numeric=numeric, error_estimate=d.error,
+        rel_error=abs(d.discrepancy) / scale, ok=not d.significant,
+        evaluations=d.evaluations, kink=d.kink,
+    )
+
+
+def _plain(probe: TensorProbe, u: np.ndarray, check: DirectionCheck, candidates: np.ndarray) -> bool:
+    """The candidates' share of the discrepancy is beyond PLAIN tolerances of the largest of
+    them, however it is split among them: the tensor will fail on them."""
+    if candidates.size == 0:
+        return False
+    weight = float(np.sum(np.abs(u[candidates])))
+    least = (abs(check.discrepancy) - SIGNIFICANCE * check.error) / max(weight, 1e-300)
+    a = np.abs(probe.a[candidates])
+    return bool(least > PLAIN * probe.threshold * max(float(a.max()), probe.floor))
+
+
+def _resolution(probe: TensorProbe, checks: list[DirectionCheck]) -> float:
+    """The smallest error of one element, at a typical weight in a random direction
+    (1/sqrt(n)), that the least uncertain direction shows beyond its bound."""
+    bounds = [c.error for c in checks if not c.kink]
+    if not bounds:
+        return float("inf")
+    return SIGNIFICANCE * min(bounds) * max(probe.size, 1) ** 0.5
+
+
+def directional(probe: TensorProbe, count: int, seed: int, stop_early: bool = True) -> Directional:
+    """``count`` directional checks of the probed tensor (a direction hidden by kinks is
+    replaced, twice at most), each significant one localised; with ``stop_early`` (the
+    default plan, not a count the user asked for), none after one whose candidates plainly
+    fail."""
+    rng = tensor_rng(seed, probe.tensor, "directions")
+    everything = slice(0, probe.size)
+    checks: list[DirectionCheck] = []
+    found: list[np.ndarray] = []
+    undecided: list[tuple[int, int]] = []
+    located: int | None = None
+    budget = count * (1 + EXTRA_DIRECTIONS)
+    while len([c for c in checks if not c.kink]) < count and len(checks) < budget:
+        u = unit_direction(probe.size, rng)
+        check = check_direction(probe, everything, u, enough=_enough(probe))
+        checks.append(check)
+        if not check.significant:
+            continue
+        where = locate(probe, u, check.discrepancy, check.error)
+        located = (located or 0) + where.evaluations
+        found.append(where.candidates)
+        undecided.extend(where.undecided)
+        if stop_early and not where.undecided and _plain(probe, u, check, where.candidates):
+            break
+    candidates = np.unique(np.concatenate(found)) if found else np.empty(0, dtype=np.int64)
+    unresolved = None
+    if undecided:
+        ranges = sorted(set(undecided))
+        size = sum(b - a for a, b in ranges)
+        if size <= SWEEP_UNDECIDED:
+            swept = np.concatenate([np.arange(a, b, dtype=np.int64) for a, b in ranges])
+            candidates = np.union1d(candidates, swept)
+        else:
+            worst = max((c for c in checks if c.significant), key=lambda c: abs(c.discrepancy) / c.error)
+            seen = _resolution(probe, checks)
+            unresolved = (
+                f"a random-direction check disagrees by {abs(worst.discrepancy):.1e} "
+                f"(+- {worst.error:.1e}), but localisation left {size} coordinates undecided, "
+                f"more than are swept ({SWEEP_UNDECIDED}): errors spread over many elements, "
+                f"each below about {seen:.1e} ({seen / max(probe.grad_scale, 1e-300):.0e} of the "
+                f"tensor's typical gradient), could not be resolved"
+            )
+    return Directional(tuple(_result(probe, c) for c in checks), candidates, located, unresolved)
