@@ -1,78 +1,109 @@
-"""Peak memory a check adds over the target's own set-up, forward and backward.
+"""Peak memory a check adds, as a user's machine sees it.
 
-Run by hand: ``python bench/memory.py [PARAMS] [--kinked]``. Each side runs in a fresh process (peak
-resident memory cannot be reset within one): the baseline builds the target and calls forward
-and backward once; the check runs ``gradprobe.probe`` with the default plan (sampling and
-random directions for a large target). The figure is (check peak - baseline peak) divided by
-the parameters' bytes; the issue's goal is at most 3. Runs alternate and repeat.
+Run by hand: ``python bench/memory.py [PARAMS] [--kinked]``. Two fresh processes, alternating,
+three times:
 
-``--kinked``: a ReLU network of the same size whose first layer starts at zero for a quarter
-of its units, so their pre-activations are exactly 0 in every row (kinks that coincide): the
-check then also takes its second look off the kinks, at two moved copies of the target.
+- the check: ``python -m gradprobe check bench/scale_targets.py:tanh_1m --sample 0 -q``
+  (directional checks only);
+- the baseline: a process that imports the same modules the check ran with (read off a first
+  check run) and runs the target's setup, forward and backward once.
+
+Each peak resident set size is read by a wrapper process whose only child is the measured
+one (``RUSAGE_CHILDREN``). The figure is (check peak - baseline peak) divided by the params'
+bytes; the goal is at most 3. ``--kinked``: a ReLU network of the same size whose first layer
+starts at zero for a quarter of its units (coinciding kinks), so the check also takes its
+second look off the kinks, at moved copies of the target.
 """
 
 from __future__ import annotations
 
 import json
+import os
 import subprocess
 import sys
+import tempfile
 from pathlib import Path
 
-CHILD = r"""
-import json, resource, sys, time
-sys.path.insert(0, {bench!r})
-import numpy as np
-from scale_targets import Network
-size = {size}
-hidden = max(8, int((size - 10) / 61))  # 50 inputs, hidden units, 10 outputs
-if {kinked}:
-    sys.path.insert(0, {tests!r})
-    from composer.large import mlp
-    net = mlp(0, (50, hidden, 10), "relu", batch=64)
-    quarter = hidden // 4
-    net.params["layer1.W"][:, :quarter] = 0.0
-    net.params["layer1.b"][:quarter] = 0.0
-    params, inputs = net.params, net.inputs
-    nbytes = sum(v.nbytes for v in params.values())
-else:
-    net = Network([50, hidden, 10], batch=64, seed=0)
-    params, inputs = net.setup()
-    nbytes = sum(v.nbytes for layer in params.values() for v in layer.values())
-net.forward(params, inputs); net.backward(params, inputs)
-t0, c0 = time.perf_counter(), time.process_time()
-evaluations = 0
-if {check}:
-    import gradprobe
-    report = gradprobe.probe(net.forward, net.backward, params, inputs)
-    evaluations = report.evaluations
-peak = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss * 1024
-print(json.dumps({{"peak": peak, "nbytes": nbytes, "evaluations": evaluations,
-                   "wall": time.perf_counter() - t0, "cpu": time.process_time() - c0}}))
+HERE = Path(__file__).resolve().parent
+ROOT = HERE.parent
+
+WRAPPER = r"""
+import json, resource, subprocess, sys, time
+t0 = time.perf_counter()
+code = subprocess.run(sys.argv[1:], stdout=subprocess.DEVNULL).returncode
+usage = resource.getrusage(resource.RUSAGE_CHILDREN)
+print(json.dumps({"peak": usage.ru_maxrss * 1024, "code": code, "wall": time.perf_counter() - t0,
+                  "cpu": usage.ru_utime + usage.ru_stime}))
+"""
+
+MODULES = r"""
+import atexit, runpy, sys
+atexit.register(lambda: open({out!r}, "w").write("\n".join(sorted(sys.modules))))
+sys.argv = ["gradprobe", *{args!r}]
+runpy.run_module("gradprobe", run_name="__main__", alter_sys=True)
+"""
+
+BASELINE = r"""
+import importlib
+for name in open({modules!r}).read().split():
+    try:
+        importlib.import_module(name)
+    except Exception:
+        pass
+from gradprobe.target import load_target
+target = load_target({spec!r})
+target.forward(target.params, target.inputs)
+target.backward(target.params, target.inputs)
+nbytes = 0
+def walk(tree):
+    global nbytes
+    for v in tree.values():
+        if isinstance(v, dict):
+            walk(v)
+        else:
+            nbytes += v.nbytes
+walk(target.params)
+open({sizes!r}, "w").write(str(nbytes))
 """
 
 
-def run(size: int, check: bool, kinked: bool) -> dict:
-    here = Path(__file__).resolve().parent
-    code = CHILD.format(bench=str(here), tests=str(here.parent / "tests"), size=size, check=check,
-                        kinked=kinked)
-    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
+def _env(size: int) -> dict[str, str]:
+    path = os.environ.get("PYTHONPATH", "")
+    return {**os.environ, "MEMORY_PARAMS": str(size),
+            "PYTHONPATH": f"{ROOT}{os.pathsep}{path}" if path else str(ROOT)}
+
+
+def measured(args: list[str], size: int) -> dict:
+    out = subprocess.run([sys.executable, "-c", WRAPPER, *args], capture_output=True, text=True,
+                         check=True, cwd=ROOT, env=_env(size))
     return json.loads(out.stdout.strip().splitlines()[-1])
 
 
 def main() -> None:
-    args = [a for a in sys.argv[1:] if a != "--kinked"]
+    rest = [a for a in sys.argv[1:] if a != "--kinked"]
     kinked = "--kinked" in sys.argv[1:]
-    size = int(args[0]) if args else 1_000_000
+    size = int(rest[0]) if rest else 1_000_000
+    spec = f"bench/scale_targets.py:{'kinked_1m' if kinked else 'tanh_1m'}"
+    check = ["check", spec, "--sample", "0", "-q"]
+    scratch = Path(tempfile.mkdtemp())
+    modules, sizes = scratch / "modules", scratch / "bytes"
+    subprocess.run([sys.executable, "-c", MODULES.format(out=str(modules), args=check)],
+                   stdout=subprocess.DEVNULL, cwd=ROOT, env=_env(size))
+    baseline = [sys.executable, "-c", BASELINE.format(modules=str(modules), spec=spec, sizes=str(sizes))]
+    ours = [sys.executable, "-m", "gradprobe", *check]
     ratios = []
-    for _ in range(3):
-        base = run(size, False, kinked)
-        checked = run(size, True, kinked)
+    for k in range(3):
+        if k % 2 == 0:
+            base, checked = measured(baseline, size), measured(ours, size)
+        else:
+            checked, base = measured(ours, size), measured(baseline, size)
+        nbytes = int(sizes.read_text())
         added = checked["peak"] - base["peak"]
-        ratios.append(added / base["nbytes"])
-        print(f"params {base['nbytes'] / 1e6:.1f} MB; baseline peak {base['peak'] / 1e6:.0f} MB; "
-              f"check peak {checked['peak'] / 1e6:.0f} MB; added {added / 1e6:.1f} MB = "
-              f"{added / base['nbytes']:.2f} x the params; {checked['evaluations']} evaluations, "
-              f"{checked['wall']:.1f} s wall, {checked['cpu']:.1f} s CPU")
+        ratios.append(added / nbytes)
+        print(f"params {nbytes / 1e6:.1f} MB; baseline peak {base['peak'] / 1e6:.0f} MB; check peak "
+              f"{checked['peak'] / 1e6:.0f} MB (exit {checked['code']}); added {added / 1e6:.1f} MB = "
+              f"{added / nbytes:.2f} x the params; check {checked['wall']:.1f} s wall, "
+              f"{checked['cpu']:.1f} s CPU")
     ratios.sort()
     print(f"median added memory{' (kinked ReLU network)' if kinked else ''}: "
           f"{ratios[len(ratios) // 2]:.2f} x the parameters' bytes (goal <= 3)")

@@ -102,3 +102,50 @@ class CropGrowth:
 def heavy_20ms():
     """72 coordinates behind a forward of about 20 ms."""
     return CropGrowth()
+
+
+class KinkedNetwork(Network):
+    """A ReLU twin of :class:`Network` whose first layer starts at zero for a quarter of its
+    units: their pre-activations are exactly 0 in every row (kinks that coincide), so the
+    check also takes its second look off the kinks."""
+
+    def setup(self):
+        params, inputs = super().setup()
+        quarter = self.sizes[1] // 4
+        params["layer1"]["W"][:, :quarter] = 0.0
+        params["layer1"]["b"][:quarter] = 0.0
+        return params, inputs
+
+    def _layers(self, params, inputs):
+        acts = [inputs["x"]]
+        for k in range(1, len(self.sizes)):
+            z = acts[-1] @ params[f"layer{k}"]["W"] + params[f"layer{k}"]["b"]
+            acts.append(np.maximum(z, 0.0) if k < len(self.sizes) - 1 else z)
+        return acts
+
+    def backward(self, params, inputs):
+        acts = self._layers(params, inputs)
+        d = (acts[-1] - inputs["demand"]) / self.batch
+        grads = {}
+        for k in range(len(self.sizes) - 1, 0, -1):
+            grads[f"layer{k}"] = {"W": acts[k - 1].T @ d, "b": d.sum(axis=0)}
+            if k > 1:
+                d = (d @ params[f"layer{k}"]["W"].T) * (acts[k - 1] > 0)
+        return grads
+
+
+def _memory_hidden() -> int:
+    import os
+
+    size = int(os.environ.get("MEMORY_PARAMS", "1000000"))
+    return max(8, int((size - 10) / 61))  # 50 inputs, hidden units, 10 outputs
+
+
+def tanh_1m():
+    """About 1M parameters (MEMORY_PARAMS), tanh, all gradients right (bench/memory.py)."""
+    return Network([50, _memory_hidden(), 10], batch=64, seed=0)
+
+
+def kinked_1m():
+    """About 1M parameters (MEMORY_PARAMS), ReLU with coinciding kinks (bench/memory.py)."""
+    return KinkedNetwork([50, _memory_hidden(), 10], batch=64, seed=0)

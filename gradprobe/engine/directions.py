@@ -21,7 +21,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from .ladder import Estimate, tableau
-from .probe import TensorProbe
+from .probe import TensorProbe, root_mean_square
 
 # A direction's discrepancy counts beyond 4 of its error bounds (a coordinate's beyond 3,
 # verdict.SIGNIFICANCE): a direction's bound covers a sum over the whole tensor from one
@@ -55,7 +55,8 @@ class DirectionCheck:
 def unit_direction(size: int, rng: np.random.Generator) -> np.ndarray:
     """A unit vector of length ``size``, uniformly distributed on the sphere."""
     g = rng.standard_normal(size)
-    return g / np.linalg.norm(g)
+    g /= np.linalg.norm(g)  # in place: a large tensor's direction is one array
+    return g
 
 
 def _ladder(
@@ -83,8 +84,7 @@ def _ladder(
 
 
 def first_step(probe: TensorProbe, part: slice) -> float:
-    x = probe.x[part].astype(np.float64)
-    rms = float(np.sqrt(np.mean(x**2))) if x.size else 0.0
+    rms = root_mean_square(probe.x[part])
     return FIRST_STEP * probe.eps ** (1.0 / 3.0) * max(1.0, rms)
 
 

@@ -24,11 +24,24 @@ FLOOR_FRACTION = 1e-3  # denominators never fall below 1e-3 of the tensor's grad
 TARGET_FLOOR_FRACTION = 1e-4  # ... nor below 1e-4 of the target's largest tensor scale
 
 
+ALONG_CHUNK = 1 << 16  # elements moved at a time along a direction
 SHRINKS = 40  # a step that meets a non-finite loss shrinks 16-fold down to x's resolution
 
 
 def _fields(p: Pairs) -> tuple[np.ndarray, ...]:
     return (p.f_plus, p.f_minus, p.h_plus, p.h_minus, p.noise)
+
+
+def root_mean_square(x: np.ndarray) -> float:
+    """The root mean square of ``x`` without a float64 copy of it (a dot product of float64
+    values; narrower ones are converted a chunk at a time)."""
+    if x.size == 0:
+        return 0.0
+    if x.dtype == np.float64:
+        return float(np.sqrt(np.dot(x, x) / x.size))
+    total = sum(float(np.dot(c, c)) for c in (x[k:k + 65536].astype(np.float64)
+                                               for k in range(0, x.size, 65536)))
+    return float(np.sqrt(total / x.size))
 
 
 def as_seen(values: np.ndarray, compute_dtype: np.dtype) -> np.ndarray:
@@ -86,10 +99,9 @@ class TensorProbe:
         self.eps = float(np.finfo(self.compute_dtype).eps)
         self.rounding_units = rounding_units(self.compute_dtype)
         self.threshold = threshold
-        rms = float(np.sqrt(np.mean(analytic**2))) if analytic.size else 0.0
+        rms = root_mean_square(analytic)
         self.grad_scale = rms  # the tensor's typical gradient
-        values = x.astype(np.float64, copy=False)
-        self.x_scale = float(np.sqrt(np.mean(values * values))) if x.size else 0.0  # params' rms
+        self.x_scale = root_mean_square(x)  # params' rms
         tiny = float(np.finfo(np.float64).tiny)
         self.tensor_floor = max(FLOOR_FRACTION * rms, tiny)  # the tensor's own scale only
         self.floor = max(self.tensor_floor, TARGET_FLOOR_FRACTION * target_scale)
@@ -226,20 +238,24 @@ class TensorProbe:
         x = self.x[part]
         a = self.a[part]
         coarser = np.finfo(self.compute_dtype).eps > np.finfo(x.dtype).eps
-        base = as_seen(x, self.compute_dtype) if coarser else x
         serial = self.evaluator.backend is None
-        diff = np.empty(x.shape, dtype=np.float64)
         point = np.empty_like(x)
         values, requests, predicted = [], [], []
         for c in scales:
             if not serial:
                 point = np.empty_like(x)
-            np.multiply(u, c, out=diff)
-            diff += x
-            point[...] = diff
-            seen = as_seen(point, self.compute_dtype) if coarser else point
-            np.subtract(seen, base, out=diff)
-            predicted.append(float(a @ diff))
+            change = 0.0
+            for lo in range(0, x.size, ALONG_CHUNK):  # no float64 temporaries of the tensor's size
+                part_x = x[lo:lo + ALONG_CHUNK]
+                moved = part_x + c * u[lo:lo + ALONG_CHUNK]
+                point[lo:lo + ALONG_CHUNK] = moved
+                seen = point[lo:lo + ALONG_CHUNK]
+                if coarser:
+                    d = as_seen(seen, self.compute_dtype) - as_seen(part_x, self.compute_dtype)
+                else:
+                    d = seen.astype(np.float64, copy=False) - part_x
+                change += float(a[lo:lo + ALONG_CHUNK] @ d)
+            predicted.append(change)
             requests.append(Perturbation(self.tensor, part, point))
             if serial:
                 values.append(self.evaluator.losses(requests).real)

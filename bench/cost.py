@@ -1,0 +1,111 @@
+"""What a check costs against a plain loop of central differences, end to end.
+
+Run by hand: ``python bench/cost.py [--pairs 3]``. Targets from ``cost_cases.py``:
+
+1. ``regression`` (1,312 coordinates, a mean over 64,000 values, about 1 ms per forward) and
+   ``small`` (the same network, about 10 us): the wall time of
+   ``python -m gradprobe check bench/cost_cases.py:NAME --json -`` in a fresh process against
+   a fresh process running a plain loop of central differences (step 1e-6 * max(1, |x|)) over
+   every coordinate (``python bench/cost_cases.py NAME``); the two alternate, the median of
+   PAIRS ratios is printed, with CPU time beside wall time, and gradprobe's evaluations per
+   coordinate (the plain loop spends 2). Goals: at most 1.2 (1 ms), 1.5 (10 us).
+2. ``dense`` with ``--method richardson``: the largest relative error of the numeric
+   derivatives against the closed-form gradient (the target's backward), and evaluations per
+   coordinate. Goal: at most 1e-11 at at most 6 per coordinate.
+"""
+
+from __future__ import annotations
+
+import argparse
+import compileall
+import json
+import os
+import resource
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+HERE = Path(__file__).resolve().parent
+ROOT = HERE.parent
+sys.path.insert(0, str(HERE))
+
+from cost_cases import CASES  # noqa: E402
+
+
+def _env() -> dict[str, str]:
+    path = os.environ.get("PYTHONPATH", "")
+    return {**os.environ, "PYTHONPATH": f"{ROOT}{os.pathsep}{path}" if path else str(ROOT)}
+
+
+def timed(args: list[str]) -> tuple[float, float, str]:
+    """Wall and CPU time of a fresh process, and its standard output."""
+    before = resource.getrusage(resource.RUSAGE_CHILDREN)
+    wall = time.perf_counter()
+    out = subprocess.run(args, capture_output=True, text=True, cwd=ROOT, env=_env())
+    wall = time.perf_counter() - wall
+    after = resource.getrusage(resource.RUSAGE_CHILDREN)
+    cpu = (after.ru_utime - before.ru_utime) + (after.ru_stime - before.ru_stime)
+    if out.returncode not in (0, 1):
+        raise SystemExit(f"{' '.join(args)} exited {out.returncode}: {out.stderr.strip()}")
+    return wall, cpu, out.stdout
+
+
+def end_to_end(name: str, pairs: int) -> None:
+    ours = [sys.executable, "-m", "gradprobe", "check", f"bench/cost_cases.py:{name}", "--json", "-"]
+    plain = [sys.executable, "bench/cost_cases.py", name]
+    walls, cpus, report = [], [], None
+    for k in range(pairs):
+        if k % 2 == 0:
+            a = timed(ours)
+            b = timed(plain)
+        else:
+            b = timed(plain)
+            a = timed(ours)
+        walls.append(a[0] / b[0])
+        cpus.append(a[1] / max(b[1], 1e-9))
+        report = json.loads(a[2])
+    assert report is not None
+    coordinates = sum(t["size"] for layer in report["layers"] for t in layer["tensors"])
+    walls.sort()
+    cpus.sort()
+    print(f"{name:10s} {coordinates} coordinates, {report['evaluations']} evaluations "
+          f"({report['evaluations'] / coordinates:.2f} per coordinate; the plain loop 2), "
+          f"exit {'ok' if report['ok'] else 'FAIL'}: median ratio wall {walls[pairs // 2]:.2f} "
+          f"(CPU {cpus[pairs // 2]:.2f}) over {pairs} alternating pairs; "
+          f"wall ratios {', '.join(f'{w:.2f}' for w in walls)}")
+
+
+def accuracy() -> None:
+    import gradprobe
+
+    case = CASES["dense"]()
+    params, inputs = case.setup()
+    report = gradprobe.probe(case.forward, case.backward, params, inputs, method="richardson")
+    coordinates = sum(t.size for t in report.tensors)
+    worst = max(t.max_rel_error for t in report.tensors)
+    print(f"dense --method richardson: {coordinates} coordinates, worst relative error of the "
+          f"numeric derivative against the closed form {worst:.1e}, "
+          f"{report.evaluations / coordinates:.2f} evaluations per coordinate "
+          f"(goal <= 1e-11 at <= 6); per tensor "
+          + ", ".join(f"{t.name} {t.max_rel_error:.1e}" for t in report.tensors))
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--pairs", type=int, default=3)
+    parser.add_argument("--only", choices=("regression", "small", "dense"))
+    args = parser.parse_args()
+    import gradprobe
+
+    compileall.compile_dir(str(Path(gradprobe.__file__).parent), quiet=1)
+    print(f"{os.cpu_count()} cores, load average {os.getloadavg()[0]:.1f}")
+    for name in ("regression", "small"):
+        if args.only in (None, name):
+            end_to_end(name, args.pairs)
+    if args.only in (None, "dense"):
+        accuracy()
+
+
+if __name__ == "__main__":
+    main()
