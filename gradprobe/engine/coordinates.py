@@ -16,6 +16,7 @@ import numpy as np
 
 from ..errors import BadOutputError, ComplexStepError, UserCodeError
 from ..status import FAIL, INCONCLUSIVE, PASS
+from .certify import certify
 from .ladder import Estimate
 from .probe import Pairs, TensorProbe
 from .reconcile import narrow_reconciled, unabsorbed, unfuzzed
@@ -150,8 +151,17 @@ def _central(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
     first = probe.pairs(flat, h)
     c = first.central
     judged = judge_plain(probe, flat, Estimate(c, 2 * first.noise / (first.h_plus + first.h_minus)))
-    settled = np.abs(a - c) <= SETTLE_FRACTION * probe.tolerance(flat, c)
-    todo = np.flatnonzero(~settled | gap_suspects(probe, flat, first))
+    tol = probe.tolerance(flat, c)
+    settled = np.abs(a - c) <= SETTLE_FRACTION * tol
+    suspects = gap_suspects(probe, flat, first)
+    if recheck and not settled.all():
+        certified = certify(probe, flat, first, h, a, tol, suspects)
+        if certified is not None:
+            settled |= certified.passed
+            which = certified.passed
+            judged = judged.merged(np.flatnonzero(which), judge_plain(
+                probe, flat[which], Estimate(certified.value[which], certified.bound[which])))
+    todo = np.flatnonzero(~settled | suspects)
     if todo.size == 0 or not recheck:
         return judged
     if todo.size > RECHECK_LIMIT:  # the worst first, within budget
