@@ -64,13 +64,14 @@ def end_to_end(name: str, pairs: int) -> None:
             a = timed(ours)
         walls.append(a[0] / b[0])
         cpus.append(a[1] / max(b[1], 1e-9))
-        report = json.loads(a[2])
+        report, _ = json.JSONDecoder().raw_decode(a[2].lstrip())
     assert report is not None
     coordinates = sum(t["size"] for layer in report["layers"] for t in layer["tensors"])
+    evaluations = report["summary"]["evaluations"]
     walls.sort()
     cpus.sort()
-    print(f"{name:10s} {coordinates} coordinates, {report['evaluations']} evaluations "
-          f"({report['evaluations'] / coordinates:.2f} per coordinate; the plain loop 2), "
+    print(f"{name:10s} {coordinates} coordinates, {evaluations} evaluations "
+          f"({evaluations / coordinates:.2f} per coordinate; the plain loop 2), "
           f"exit {'ok' if report['ok'] else 'FAIL'}: median ratio wall {walls[pairs // 2]:.2f} "
           f"(CPU {cpus[pairs // 2]:.2f}) over {pairs} alternating pairs; "
           f"wall ratios {', '.join(f'{w:.2f}' for w in walls)}")
