@@ -21,9 +21,11 @@ from dataclasses import dataclass
 import numpy as np
 
 from .probe import Pairs, TensorProbe
+from .steps import SETTLE_FRACTION as SETTLED
 
 SAMPLE = 8  # coordinates per tensor the truncation scale is measured on (half: the most bent)
 MIN_SIZE = 32  # smaller tensors are re-estimated coordinate by coordinate as before
+MIN_OPEN = 4  # the sample's 32 calls are spent only where this many passable coordinates would climb
 SAFETY = 10.0  # the measured truncation scale is taken this many times larger
 GROWTH = 16.0  # the quotient's change from 4h to 16h against the change from h to 4h, ideally
 GROWTH_SLACK = 4.0  # ... within this factor either way
@@ -49,7 +51,9 @@ def certify(
     """Which of ``flat`` pass on their ``first`` pairs (steps ``h``) under the tensor's
     measured truncation scale; None where the scale cannot be measured."""
     n = flat.size
-    if n < MIN_SIZE:
+    off = np.abs(a - first.central)
+    open_ = int(np.count_nonzero(~suspects & (off > SETTLED * tol) & (off < tol)))  # could pass
+    if n < MIN_SIZE or open_ < MIN_OPEN:
         return None
     bend = _second(probe, first)
     top = np.argsort(-bend, kind="stable")[: SAMPLE // 2]
