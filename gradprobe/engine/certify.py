@@ -1,5 +1,7 @@
 """Certifying coordinates with their first pair of calls, from a model measured on the tensor.
 
+Used where a tensor is swept whole (the same coordinates, whatever the seed).
+
 The central quotient at step h differs from the derivative by its truncation, C h**2 (C is
 f'''/6 along the coordinate), and by the loss's rounding, at most noise / h. The rounding is
 measured once per target (:mod:`.noise`); the truncation's scale is measured once per tensor:
