@@ -146,8 +146,46 @@ def one_way_exchange():
                 {"enc.A": None}, "swapped decoy")
 
 
+def _fitted(seed):
+    """Demand that the weights already fit well (residuals of 0.3), so that a weight decay
+    term's gradient dominates the data term's."""
+    rng = np.random.default_rng(seed)
+    W = rng.normal(scale=0.5, size=(K, K))
+    x = rng.normal(size=(N, K))
+    return {"dense": {"W": W}}, {"x": x, "y": x @ W + rng.normal(scale=0.3, size=(N, K))}
+
+
+def _with_decay(p, i):
+    return _squared(p, i) + 10.0 * float(np.sum(p["dense"]["W"] ** 2))
+
+
+def l2_term_left_out():
+    """Factor decoy: forward adds 10 * sum(W**2), backward leaves that term out. The analytic
+    values are an unrelated fraction of a percent of the numeric ones: their least-squares
+    ratio is a number, but not a factor that holds element by element."""
+    params, inputs = _fitted(53)
+
+    def backward(p, i):
+        return {"dense": {"W": i["x"].T @ _residual(p, i) / N}}
+
+    return Case("weight decay term left out of backward (decoy)", _with_decay, backward, params,
+                inputs, {"dense.W": None}, "factor decoy")
+
+
+def transposed_and_l2_left_out():
+    """Transpose decoy: the data term's gradient transposed and the weight decay term left
+    out; two causes at once, so neither a transpose nor a factor explains every element."""
+    params, inputs = _fitted(54)
+
+    def backward(p, i):
+        return {"dense": {"W": (i["x"].T @ _residual(p, i) / N).T}}
+
+    return Case("transposed weight gradient, weight decay left out (decoy)", _with_decay, backward,
+                params, inputs, {"dense.W": None}, "transpose decoy")
+
 DECOY_CASES = [
     abs_loss_slope_one, symmetric_off_diagonal_doubled, half_the_batch, divided_by_width,
     summed_but_divided_by_width,
-    rows_reversed, relu_mask_shifted, one_way_exchange,
+    rows_reversed, relu_mask_shifted, one_way_exchange, l2_term_left_out,
+    transposed_and_l2_left_out,
 ]

@@ -138,3 +138,59 @@ def test_swapped_needs_both_directions():
     both = [_evidence(b, a, name="p"), _evidence(a, b, name="q")]
     assert diagnose(both, HintContext()) == {
         "p": "the gradients of p and q look swapped", "q": "the gradients of p and q look swapped"}
+
+
+@pytest.mark.parametrize("seed", range(20))
+def test_a_small_unrelated_analytic_is_no_constant_factor(seed):
+    """An analytic gradient that is a few percent of the numeric one and unrelated to it (a
+    weight decay term left out) has a least-squares ratio to it, but no factor holds element
+    by element: no hint."""
+    rng = np.random.default_rng(seed)
+    numeric = rng.normal(size=(5, 5))
+    analytic = rng.uniform(0.005, 0.05) * rng.normal(size=(5, 5))
+    assert hint_for(_evidence(analytic, numeric), HintContext(batch_sizes=(16,))) is None
+
+
+def test_a_factor_that_fits_on_average_but_not_on_one_element_is_no_factor():
+    """2 x numeric on every element but one, which is 1.5 times that: the fit over the whole
+    tensor leaves well under 5% unexplained, the element itself does not fit."""
+    n = np.linspace(1.0, 20.0, 20)
+    a = 2.0 * n
+    a[0] *= 1.5
+    assert hint_for(_evidence(a, n), HintContext()) is None
+
+
+def test_a_factor_survives_the_numeric_estimates_own_error():
+    """Every element 2 x numeric up to a relative 1e-7 of estimation error: the factor is named."""
+    rng = np.random.default_rng(3)
+    n = rng.normal(size=30)
+    a = 2.0 * n * (1.0 + 1e-7 * rng.normal(size=30))
+    assert hint_for(_evidence(a, n), HintContext()).startswith("analytic is 2 x numeric")
+
+
+def test_a_transpose_that_fits_on_average_but_not_on_one_element_is_no_transpose():
+    rng = np.random.default_rng(4)
+    n = rng.normal(size=(6, 6))
+    a = n.T.copy()
+    a[0, 1] += 0.3 * abs(a[0, 1] - n[0, 1]) + 0.3
+    assert hint_for(_evidence(a, n), HintContext()) is None
+
+
+def test_swapped_needs_every_element_to_fit():
+    rng = np.random.default_rng(5)
+    a, b = rng.normal(size=12), rng.normal(size=12)
+    b[3] = a[3] + 0.01  # an element where the two gradients nearly agree
+    off = b.copy()
+    off[3] += 0.1  # p's analytic there is b's value off by ten times the gap: no exchange
+    pair = [_evidence(off, a, name="p"), _evidence(a, b, name="q")]
+    assert "swapped" not in " ".join(diagnose(pair, HintContext()).values())
+
+
+def test_a_ratio_that_is_not_steady_is_no_factor_however_small_the_values():
+    """Analytic values 1e-4 of the numeric scale and unrelated to them: each element's residual
+    is far below its discrepancy, yet the ratio analytic / numeric wanders from element to
+    element, so no factor is named."""
+    rng = np.random.default_rng(6)
+    numeric = rng.choice([-1.0, 1.0], size=40) * rng.uniform(0.5, 2.0, size=40)
+    analytic = 1e-4 * rng.normal(size=40)
+    assert hint_for(_evidence(analytic, numeric), HintContext()) is None

@@ -9,7 +9,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .evidence import Context, Evidence, explains
+from .evidence import Context, Evidence, averaged_fit
 
 MOSTLY = 0.9  # share of the coordinates a pattern says are wrong that must fail
 MIN_WRONG = 3  # fewer wrong coordinates land on the reused items by chance too often
@@ -33,7 +33,7 @@ def _averaged(e: Evidence, axis: int, counts: np.ndarray) -> bool:
     shape = [1] * len(e.shape)
     shape[axis] = len(counts)
     divided = e.full(e.numeric) / np.maximum(counts, 1).reshape(shape)
-    return explains(divided.reshape(-1)[e.flat], e)
+    return averaged_fit(divided.reshape(-1)[e.flat], e)
 
 
 def fits(e: Evidence, axis: int, counts: np.ndarray) -> bool:

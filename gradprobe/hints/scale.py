@@ -5,9 +5,17 @@ from __future__ import annotations
 
 import numpy as np
 
-from .evidence import Context, Evidence, count, explains
+from .evidence import EXPLAINED, Context, Evidence, count, explains
 
 FACTOR_MATCH = 0.01  # a fitted factor within 1% of 2, 1/2, B, 1/B is named as that
+
+
+def steady_ratio(c: float, e: Evidence) -> bool:
+    """analytic / numeric is ``c`` on every failing element, to EXPLAINED of ``c`` itself: a
+    factor, not a least-squares ratio between unrelated values (which explains() alone can
+    accept when the analytic values are small next to the numeric ones)."""
+    model = c * e.numeric[e.failed]
+    return bool(np.all(np.abs(e.analytic[e.failed] - model) <= EXPLAINED * np.abs(model)))
 
 
 def factor_hint(e: Evidence, ctx: Context) -> str | None:
@@ -15,7 +23,7 @@ def factor_hint(e: Evidence, ctx: Context) -> str | None:
     if n2 == 0:
         return None
     c = float(e.analytic @ e.numeric) / n2
-    if abs(c) < 1e-12 or not explains(c * e.numeric, e):
+    if abs(c) < 1e-12 or not explains(c * e.numeric, e) or not steady_ratio(c, e):
         return None
     if abs(c + 1) <= FACTOR_MATCH:
         return "analytic is -1 x numeric: the sign is flipped"
