@@ -21,11 +21,12 @@ from .ladder import Estimate
 from .probe import Pairs, TensorProbe
 from .reconcile import narrow_reconciled, unabsorbed, unfuzzed
 from .refine import RATIO, ROWS, Ladder, climb, one_sided, tiny_pair
-from .steps import SETTLE_FRACTION, gap_suspects, largest_smooth_step, start_steps
+from .steps import SETTLE_FRACTION, gap_suspects, largest_smooth_step, start_steps, steps_down
 from .verdict import Judged, judge_ladder, judge_plain, judge_sides_apart, sides_differ
 
 RETRY_SHIFT = 6  # a second ladder starts 2**6 steps higher (noise) or lower (curvature)
 RECHECK_LIMIT = 400  # coordinates per tensor re-estimated on a ladder
+SHORT_ROWS = 4  # rows of the short ladder beyond that budget (the fourth checks the third)
 RICHARDSON_START = 2.0**-7  # relative first step of --method richardson (3 rows, 6 calls)
 
 
@@ -167,9 +168,36 @@ def _central(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
     if todo.size == 0 or not recheck:
         return judged
     if todo.size > RECHECK_LIMIT:  # the worst first, within budget
-        todo = np.sort(todo[np.argsort(-np.abs(a[todo] - c[todo]), kind="stable")[:RECHECK_LIMIT]])
+        order = np.argsort(-np.abs(a[todo] - c[todo]), kind="stable")
+        beyond = np.sort(todo[order[RECHECK_LIMIT:]])
+        judged = judged.merged(beyond, _beyond_budget(probe, flat[beyond], _pick(first, beyond),
+                                                      h[beyond], judged.pick(beyond)))
+        todo = np.sort(todo[order[:RECHECK_LIMIT]])
     start = start_steps(probe, flat[todo], _pick(first, todo), h[todo])
     return unabsorbed(probe, judged.merged(todo, _ladder_verdicts(probe, flat[todo], start)), first)
+
+
+def _beyond_budget(probe: TensorProbe, flat: np.ndarray, first: Pairs, h: np.ndarray, plain: Judged) -> Judged:
+    """Coordinates left out of the ladders' budget. The first pair's bound is its rounding
+    noise alone: it knows nothing of truncation, so it may pass a coordinate (a discrepancy
+    within the threshold needs no bound) but never fail one. Those it would fail get a short
+    ladder from the same step (three more pairs; the first pair is its top row), whose bound
+    the tableau checks on the coordinate (from a smaller step where the slope changes much
+    across the first); what that does not decide stays inconclusive."""
+    doubtful = np.flatnonzero(plain.status == FAIL)
+    if doubtful.size == 0:
+        return plain
+    judged = plain
+    down = steps_down(probe, _pick(first, doubtful))
+    for shrunk in (False, True):  # from the first step (reusing its pair), or below the bend
+        which = doubtful[(down > 0) == shrunk]
+        if which.size == 0:
+            continue
+        known = None if shrunk else _pick(first, which)
+        start = h[which] * 2.0 ** -down[(down > 0) == shrunk]
+        short = climb(probe, flat[which], start, SHORT_ROWS, known)
+        judged = judged.merged(which, _judged_ladder(probe, flat[which], short))
+    return judged
 
 
 def _richardson(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:

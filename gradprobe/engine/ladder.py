@@ -18,6 +18,8 @@ import numpy as np
 
 SAFETY = 2.0  # the neighbours' spread is multiplied by this
 NOISE_UNITS = 2.0  # and the propagated rounding noise by this
+RATE_SLACK = 2.0  # a column's change per row may be up to twice or half what its model says
+PREDICTION_SLACK = 1.5  # a next quotient's distance may shrink 1.5 times less than the model says
 
 
 @dataclass(frozen=True)
@@ -42,27 +44,108 @@ class Estimate:
         return Estimate.where(second.error < first.error, second, first)
 
 
-def settled_rows(quotients: np.ndarray, noise: np.ndarray, shrink: float) -> np.ndarray:
-    """Per row and coordinate: the quotients have reached the regime the tableau assumes.
+def at_model_rate(change: np.ndarray, before: np.ndarray, expected: float, noise: np.ndarray) -> np.ndarray:
+    """A column of the tableau changes from one row to the next the way its error model says.
 
-    There, successive differences of the quotients shrink by ``shrink`` (1/4 for central
-    quotients halving their step, 1/2 for one-sided ones) until rounding noise takes over.
-    A step far larger than the scale on which the loss bends gives differences that do not
-    shrink so; entries built on such rows could agree by chance and are not trusted.
+    Where the model holds, an entry's error is a constant times a power of the step, so the
+    change ``change`` between two rows is the previous change ``before`` times ``expected``
+    (1/4 for central quotients halving their step, 1/16 for the next column, ...). A change
+    that shrinks less than RATE_SLACK times that (or grows, or turns back by more than
+    expected / RATE_SLACK of the previous one) shows steps beyond the range where the model
+    holds: beyond the scale on which the loss bends, across a kink, or a column not yet in
+    its range; entries built there can agree by chance. A change that shrinks faster (the
+    next order dominating, or the loss linear between kinks) is allowed: the extrapolation's
+    own step is then part of its bound. A change within the rounding noise ``noise`` (of the
+    entries involved) says nothing against the model.
     """
-    rows, n = quotients.shape
-    trusted = np.zeros((rows, n), dtype=bool)
-    limit = 0.5 * (1.0 + shrink)
-    with np.errstate(invalid="ignore"):
-        for k in range(1, rows):
-            step = np.abs(quotients[k] - quotients[k - 1])
-            noisy = step <= 2.0 * NOISE_UNITS * (noise[k] + noise[k - 1])
-            if k == 1:
-                trusted[k] = noisy
-                continue
-            before = np.abs(quotients[k - 1] - quotients[k - 2])
-            trusted[k] = noisy | (step <= limit * before)
-    return trusted
+    noisy = np.abs(change) <= 2.0 * NOISE_UNITS * noise
+    high = min(expected * RATE_SLACK, 0.5 * (1.0 + expected))
+    with np.errstate(invalid="ignore", divide="ignore"):
+        rate = change / before
+    return noisy | ((rate >= -expected / RATE_SLACK) & (rate <= high))
+
+
+def column_rates(entries: np.ndarray, noise: np.ndarray, expected: float) -> np.ndarray:
+    """Per row of one column of the tableau (rows, coordinates): its change at that row is at
+    the model's rate (:func:`at_model_rate`); False for the first two rows (no rate yet)."""
+    ok = np.zeros(entries.shape, dtype=bool)
+    for k in range(2, entries.shape[0]):
+        ok[k] = at_model_rate(entries[k] - entries[k - 1], entries[k - 1] - entries[k - 2], expected,
+                              noise[k] + noise[k - 1] + noise[k - 2])
+    return ok
+
+
+def column_steady(entries: np.ndarray, noise: np.ndarray, expected: float) -> np.ndarray:
+    """Per row of one column of the tableau (rows, coordinates): the column has changed at
+    its model's rate (:func:`column_rates`) at this row and, where it has an earlier change
+    to compare, at the row before too; one rate alone can fit by chance where the quotients
+    scatter (rounding above its model, kinks among the steps). The second row has no rate:
+    it is steady only where its change is within the noise."""
+    ok = column_rates(entries, noise, expected)
+    steady = ok.copy()
+    steady[3:] &= ok[2:-1]
+    if entries.shape[0] > 1:
+        steady[1] = np.abs(entries[1] - entries[0]) <= 2.0 * NOISE_UNITS * (noise[1] + noise[0])
+    return steady
+
+
+def _checked_by_next_row(
+    quotient: np.ndarray, before: np.ndarray, noise: np.ndarray, best: np.ndarray,
+    error: np.ndarray, shrink: float, at_rate: np.ndarray,
+) -> np.ndarray:
+    """``error`` (the bound of the estimate ``best`` taken from the rows above), widened where
+    the next row's quotient contradicts it.
+
+    Where the tableau's error model holds, a quotient's distance from the derivative shrinks
+    by ``shrink`` per row: the estimate predicts that ``quotient`` lies within
+    PREDICTION_SLACK * shrink of the previous quotient's distance from it, plus its own bound
+    and the noise. A quotient further out shows that the rows above were not yet in the range
+    where the model holds (their agreement was a coincidence of orders), and the bound is
+    widened to cover it. A quotient whose change is not at the model's rate at all
+    (``at_rate`` False: growing as the step shrinks, as when the steps cross a kink near the
+    point) leaves the estimate with no bound: the model it was extrapolated by does not
+    hold on these steps."""
+    predicted = PREDICTION_SLACK * shrink * np.abs(before - best) + error + NOISE_UNITS * noise
+    contradicted = np.abs(quotient - best) > predicted
+    error = np.where(contradicted, SAFETY * np.abs(quotient - best) + error, error)
+    return np.where(at_rate, error, np.inf)
+
+
+def _build(quotients: np.ndarray, noise: np.ndarray, ratio: float, order_step: int
+           ) -> tuple[list[list[np.ndarray]], list[list[np.ndarray]]]:
+    """The tableau's entries T[k][j] (j <= k) and the rounding noise each carries."""
+    entries: list[list[np.ndarray]] = []
+    carried: list[list[np.ndarray]] = []
+    with np.errstate(invalid="ignore", over="ignore"):
+        for k in range(quotients.shape[0]):
+            row, row_n = [quotients[k]], [noise[k]]
+            for j in range(1, k + 1):
+                factor = ratio ** (order_step * j)
+                up, up_n = entries[k - 1][j - 1], carried[k - 1][j - 1]
+                row.append(row[j - 1] + (row[j - 1] - up) / (factor - 1.0))
+                row_n.append(row_n[j - 1] * factor / (factor - 1.0) + up_n / (factor - 1.0))
+            entries.append(row)
+            carried.append(row_n)
+    return entries, carried
+
+
+def _steadiness(entries: list[list[np.ndarray]], carried: list[list[np.ndarray]], base: float) -> list[np.ndarray]:
+    """Per column j and row k: column j and every column below it are steady at row k
+    (:func:`column_steady`): an extrapolation is only as sound as the columns it was built
+    from (a first rate can fit by chance in a column built on scattered quotients)."""
+    rows = len(entries)
+    out = []
+    below = None
+    for j in range(rows):
+        column = np.array([entries[k][j] for k in range(j, rows)])
+        noise = np.array([carried[k][j] for k in range(j, rows)])
+        steady = np.zeros((rows,) + column.shape[1:], dtype=bool)
+        steady[j:] = column_steady(column, noise, base ** -(j + 1))
+        if below is not None:
+            steady &= below
+        out.append(steady)
+        below = steady
+    return out
 
 
 def tableau(quotients: np.ndarray, noise: np.ndarray, ratio: float, order_step: int) -> Estimate:
@@ -70,51 +153,41 @@ def tableau(quotients: np.ndarray, noise: np.ndarray, ratio: float, order_step: 
 
     ``order_step`` is 2 for central quotients (even powers of h) and 1 for one-sided ones.
     ``noise`` holds each quotient's rounding noise. Both are shaped (rows, coordinates).
+    An entry is a candidate only where the column it is extrapolated from was seen to change
+    at its model's rate on that coordinate (:func:`column_steady`; for the diagonal, whose
+    column has one change only, the column below it), and each further row's quotient must
+    fall where the estimate taken so far predicts, or its bound widens
+    (:func:`_checked_by_next_row`).
     """
     rows, n = quotients.shape
-    trusted = settled_rows(quotients, noise, ratio**-order_step)
+    base = ratio**order_step
+    entries, carried = _build(quotients, noise, ratio, order_step)
+    steady = _steadiness(entries, carried, base)
+    at_rate = column_rates(quotients, noise, 1.0 / base)
+    at_rate[:2] = True  # no rate to compare yet
     best = quotients[0].copy()
     error = np.full(n, np.inf)
-    prev_t: list[np.ndarray] = []
-    prev_n: list[np.ndarray] = []
-    before_t0 = quotients[0]  # the first quotient two rows up
     with np.errstate(invalid="ignore", over="ignore"):
-        for k in range(rows):
-            cur_t = [quotients[k]]
-            cur_n = [noise[k]]
-            if k >= 1:
-                # A smaller step's quotient is nearer the derivative than the larger one's,
-                # wherever the tableau's assumptions hold: one that moves further from the
-                # estimate taken so far than the previous quotient (beyond noise) shows that
-                # the estimate's agreement was a coincidence of orders, not convergence.
-                away = np.abs(cur_t[0] - best) - np.abs(prev_t[0] - best)
-                contradicted = away > error + NOISE_UNITS * (cur_n[0] + prev_n[0])
-                error = np.where(contradicted, SAFETY * np.abs(cur_t[0] - best) + error, error)
-                spread = np.abs(cur_t[0] - prev_t[0])
-                if k >= 2:
-                    spread = np.maximum(spread, np.abs(cur_t[0] - before_t0))
-                bound = SAFETY * spread + NOISE_UNITS * cur_n[0]
-                take = (bound < error) & trusted[k]
-                best = np.where(take, cur_t[0], best)
-                error = np.where(take, bound, error)
-            factor = 1.0
-            for j in range(1, k + 1):
-                factor *= ratio**order_step
-                value = cur_t[j - 1] + (cur_t[j - 1] - prev_t[j - 1]) / (factor - 1.0)
-                carried = cur_n[j - 1] * factor / (factor - 1.0) + prev_n[j - 1] / (factor - 1.0)
-                spread = np.maximum(np.abs(value - cur_t[j - 1]), np.abs(value - prev_t[j - 1]))
-                if j < k:  # the same order one step larger: a third, independent neighbour
-                    spread = np.maximum(spread, np.abs(value - prev_t[j]))
-                bound = SAFETY * spread + NOISE_UNITS * carried
-                # Two neighbours can agree by a cancellation of orders; only entries that
-                # a third neighbour confirms are candidates.
-                take = (bound < error) & trusted[k] & ((j < k) | (k >= 2))
+        for k in range(1, rows):
+            error = _checked_by_next_row(quotients[k], quotients[k - 1], noise[k] + noise[k - 1],
+                                         best, error, 1.0 / base, at_rate[k])
+            for j in range(k + 1):
+                value = entries[k][j]
+                if j == 0:
+                    neighbours = [entries[k - 1][0]] + ([entries[k - 2][0]] if k >= 2 else [])
+                    allowed = steady[0][k]
+                else:
+                    # the two it is extrapolated from, and the same order one step larger
+                    neighbours = [entries[k][j - 1], entries[k - 1][j - 1]]
+                    if j < k:
+                        neighbours.append(entries[k - 1][j])
+                        allowed = steady[j - 1][k]
+                    else:
+                        allowed = steady[j - 2][k] if j >= 2 else np.zeros(n, dtype=bool)
+                spread = np.max([np.abs(value - other) for other in neighbours], axis=0)
+                bound = SAFETY * spread + NOISE_UNITS * carried[k][j]
+                take = (bound < error) & allowed
                 best = np.where(take, value, best)
                 error = np.where(take, bound, error)
-                cur_t.append(value)
-                cur_n.append(carried)
-            if prev_t:
-                before_t0 = prev_t[0]
-            prev_t, prev_n = cur_t, cur_n
     error = np.where(np.isfinite(error), error, np.inf)
     return Estimate(best, error)

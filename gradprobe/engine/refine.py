@@ -14,7 +14,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .ladder import Estimate, tableau
+from .ladder import NOISE_UNITS, Estimate, column_rates, tableau
 from .probe import Pairs, TensorProbe
 
 RATIO = 2.0
@@ -33,10 +33,15 @@ class Ladder:
     noise_share: np.ndarray  # share of the central bound that is rounding noise
     smallest: np.ndarray  # the smallest step of the ladder
     pairs: Pairs | None = None  # every row's pairs, row-major
+    sides_steady: np.ndarray | None = None  # the sides' gap shrinks with the step (see below)
+    sides_vanish: np.ndarray | None = None  # ... and is seen to, above the noise
 
     def pick(self, which: np.ndarray) -> Ladder:
+        steady = None if self.sides_steady is None else self.sides_steady[which]
+        vanish = None if self.sides_vanish is None else self.sides_vanish[which]
         return Ladder(self.central.pick(which), self.left.pick(which), self.right.pick(which),
-                      self.noise_share[which], self.smallest[which])
+                      self.noise_share[which], self.smallest[which],
+                      sides_steady=steady, sides_vanish=vanish)
 
     def rows_of(self, which: np.ndarray) -> Pairs:
         """The pairs of every row for the coordinates at positions ``which``."""
@@ -68,6 +73,7 @@ def climb(
         p = Pairs(*(np.concatenate([a, b]) for a, b in zip(known.fields(), p.fields())))
     qc, nc, qr, nr, ql, nl = (q.reshape(rows, n) for q in _quotients(probe, p))
     central = tableau(qc, nc, RATIO, 2)
+    steady, vanish = sides_steady(qr, ql, nr + nl)
     noise_share = np.minimum(1.0, NOISE_SHARE_UNITS * nc.max(axis=0) / np.maximum(central.error, 1e-300))
     return Ladder(
         central=central,
@@ -76,7 +82,28 @@ def climb(
         noise_share=noise_share,
         smallest=start / RATIO ** (rows - 1),
         pairs=p,
+        sides_steady=steady,
+        sides_vanish=vanish,
     )
+
+
+def sides_steady(right: np.ndarray, left: np.ndarray, noise: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Per coordinate, from the gap between the one-sided quotients (rows, coordinates): does
+    it behave at the last rows as a smooth loss's does, h f'' + O(h**2), its change at that
+    model's rate and, extrapolated to a step of 0, no larger than its last change (a gap that
+    stays, as at a kink at the point, does not vanish so)? Within the rounding noise, or shown
+    above it (the second array: positive evidence of no kink among the steps).
+
+    The central tableau assumes a loss smooth on the steps; where the sides do not agree in
+    this way (a kink at or near the point: the gap stays, or changes like 1/h as the steps
+    cross it), its bound is not used."""
+    gap = right - left
+    change = gap[-1] - gap[-2]
+    slack = 2.0 * NOISE_UNITS * (noise[-1] + noise[-2])
+    at_rate = column_rates(gap, noise, 1.0 / RATIO)[-1]
+    vanishes = np.abs(gap[-1] + change) <= np.abs(change)
+    return at_rate & (vanishes | (np.abs(gap[-1] + change) <= np.abs(change) + slack)), \
+        at_rate & vanishes & (np.abs(gap[-1]) > slack)
 
 
 

@@ -31,13 +31,19 @@ def slope_change(probe: TensorProbe, p: Pairs, typical: float | None = None) -> 
     return np.maximum(np.abs(right - left) - noise, 0.0) / size
 
 
+def steps_down(probe: TensorProbe, first: Pairs) -> np.ndarray:
+    """How many halvings of the first step bring the slope's change across it within
+    BEND_LIMIT, were the loss to bend the same way at smaller steps (0 where it already is)."""
+    bend = slope_change(probe, first)
+    return np.clip(np.ceil(np.log2(np.maximum(bend / BEND_LIMIT, 1.0))), 0, 30)
+
+
 def start_steps(probe: TensorProbe, flat: np.ndarray, first: Pairs, h: np.ndarray) -> np.ndarray:
     """The ladder's first step, probed: smaller where the slope changes on the scale of
     the step; larger where rounding noise hides the threshold, as far as pairs at steps
     16, 256, ... times larger show the slope still changing by less than BEND_LIMIT (the
     ladder's bounds hold from steps below the scale on which the slope changes)."""
-    bend = slope_change(probe, first)
-    down = np.clip(np.ceil(np.log2(np.maximum(bend / BEND_LIMIT, 1.0))), 0, 30)
+    down = steps_down(probe, first)
     want = SETTLE_FRACTION * probe.tolerance(flat, first.central)
     noise = 2 * first.noise / (first.h_plus + first.h_minus)
     up = np.clip(np.ceil(np.log2(np.maximum(8.0 * noise / want, 1.0))), 0, MAX_UP)

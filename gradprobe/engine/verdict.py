@@ -116,7 +116,7 @@ def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, tiny: Tin
     # Smooth, or a corner where only f'' jumps: the sides agree, and their mean is an
     # estimate of f' that the central tableau (which assumes even powers of h) may not reach.
     corner = Estimate(mid, np.maximum(left.error, right.error) + 0.5 * np.abs(right.value - left.value))
-    best = Estimate.better(ladder.central, corner)
+    best = Estimate.better(_central_where_sides_agree(ladder), corner)
     status = _verdicts(probe, a, best, probe.tolerance(flat, best.value))
     # Sides too uncertain to be told apart, yet further apart than the central bound: at a
     # kink the central quotients are the sides' mean, whatever their tableau's bound says,
@@ -124,7 +124,9 @@ def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, tiny: Tin
     # the point decides, see offpoint.py).
     gap = np.abs(right.value - left.value)
     tol_a = probe.tolerance(flat, a)
-    unresolved = ~differ & (gap > SIGNIFICANCE * best.error) & (gap > tol_a) & (status == FAIL)
+    # A side with no trusted entry at all (an infinite bound) shows nothing about a kink.
+    informative = np.isfinite(left.error) & np.isfinite(right.error)
+    unresolved = ~differ & informative & (gap > SIGNIFICANCE * best.error) & (gap > tol_a) & (status == FAIL)
     margin = tol_a + SIGNIFICANCE * np.maximum(left.error, right.error)
     between = (a >= np.minimum(left.value, right.value) - margin) & (a <= np.maximum(left.value, right.value) + margin)
     status[unresolved & between] = KINK
@@ -138,8 +140,13 @@ def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, tiny: Tin
     # side, not at the point, and the settled side's derivative is the derivative here.
     settled_left = (left.error < LOPSIDED * right.error) & (right.error > tol_sides)
     settled_right = (right.error < LOPSIDED * left.error) & (left.error > tol_sides)
-    # The central tableau is not to be trusted there, whatever it says.
-    lopsided = np.flatnonzero(~differ & (settled_left | settled_right))
+    # The central tableau is not to be trusted there, unless it settled more tightly than that
+    # side and agrees with it: then the other side merely converges slowly (a smooth loss
+    # whose one-sided expansion starts late), and nothing points at a kink.
+    settled = Estimate(np.where(settled_left, left.value, right.value),
+                       np.where(settled_left, left.error, right.error))
+    lopsided = np.flatnonzero(~differ & (settled_left | settled_right)
+                              & ~_confirms(ladder.central, settled))
     if lopsided.size:
         side = Estimate(np.where(settled_left, left.value, right.value)[lopsided],
                         NEAR_SAFETY * np.where(settled_left, left.error, right.error)[lopsided])
@@ -155,6 +162,21 @@ def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, tiny: Tin
         assert tiny is not None and tiny.right.size == which.size
         _judge_sides(probe, flat, ladder.pick(which), tiny, which, status, value, error, reasons)
     return Judged(status, Estimate(value, error), tuple(reasons), noisy)
+
+
+def _central_where_sides_agree(ladder: Ladder) -> Estimate:
+    """The central estimate, with no bound where the one-sided quotients were not seen to
+    agree the way a smooth loss's do (:func:`refine.sides_steady`)."""
+    central = ladder.central
+    if ladder.sides_steady is None:
+        return central
+    return Estimate(central.value, np.where(ladder.sides_steady, central.error, np.inf))
+
+
+def _confirms(central: Estimate, side: Estimate) -> np.ndarray:
+    """The central estimate is tighter than ``side`` and agrees with it within their bounds."""
+    agree = np.abs(central.value - side.value) <= SIGNIFICANCE * (central.error + side.error)
+    return agree & (central.error <= side.error)
 
 
 def _one_clean_side(
