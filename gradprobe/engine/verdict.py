@@ -124,9 +124,12 @@ def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, tiny: Tin
     # the point decides, see offpoint.py).
     gap = np.abs(right.value - left.value)
     tol_a = probe.tolerance(flat, a)
-    # A side with no trusted entry at all (an infinite bound) shows nothing about a kink.
-    informative = np.isfinite(left.error) & np.isfinite(right.error)
-    unresolved = ~differ & informative & (gap > SIGNIFICANCE * best.error) & (gap > tol_a) & (status == FAIL)
+    # A side with no trusted entry (an infinite bound), where the gap between the sides is seen
+    # (above the noise) to vanish with the step as a smooth loss's does, shows no kink: the
+    # side merely converges slowly. Two sides with bounds that lie apart still suggest one.
+    vanish = ladder.sides_vanish if ladder.sides_vanish is not None else np.zeros(a.shape, dtype=bool)
+    smooth = vanish & ~(np.isfinite(left.error) & np.isfinite(right.error))
+    unresolved = ~differ & ~smooth & (gap > SIGNIFICANCE * best.error) & (gap > tol_a) & (status == FAIL)
     margin = tol_a + SIGNIFICANCE * np.maximum(left.error, right.error)
     between = (a >= np.minimum(left.value, right.value) - margin) & (a <= np.maximum(left.value, right.value) + margin)
     status[unresolved & between] = KINK
