@@ -34,8 +34,8 @@ from .evaluate import LossFunction
 from .point import Point, prepare
 from .record import TensorRecord
 from .sampling import tensor_rng
-from ..status import FAIL, KINK
-from .verdict import SIGNIFICANCE
+from ..status import FAIL
+from .verdict import SIGNIFICANCE, looked_at_again
 
 MOVE = 2.0**-10  # of each element's scale (its own size or its tensor's rms)
 MOVE_STEPS = 8.0  # and at least this many first steps, so that the kinks leave their reach
@@ -102,7 +102,7 @@ class SecondLook:
         """Check the kink coordinates of ``records`` at the moved points; a record whose
         kink coordinates fail at one gets them failed (``record.moved``). The names of
         those, in the order they first failed."""
-        kinked = {r.name: (r, np.flatnonzero(r.outcome.status == KINK))
+        kinked = {r.name: (r, np.flatnonzero(looked_at_again(r.outcome.status, r.outcome.reasons)))
                   for r in records if r.outcome is not None}
         kinked = {name: rk for name, rk in kinked.items() if rk[1].size}
         s = self._settings

@@ -14,9 +14,10 @@ import numpy as np
 
 from ..hints import Evidence
 from ..report import DirectionResult, TensorResult
-from ..status import FAIL, KINK, Status
+from ..status import FAIL, Status
 from .coordinates import CoordinateOutcome
 from .summary import tensor_result
+from .verdict import looked_at_again
 
 UNCONFIRMED = (
     "a random-direction check disagrees beyond the threshold, but localisation confirmed "
@@ -52,8 +53,10 @@ class TensorRecord:
 
     @property
     def kinked(self) -> bool:
-        """Some checked coordinate is judged at a kink (a second look may settle it)."""
-        return self.outcome is not None and bool(np.any(self.outcome.status == KINK))
+        """Some checked coordinate is judged at a kink, or left undecided by steps crossing
+        kinks (a second look may settle it)."""
+        return self.outcome is not None and bool(np.any(looked_at_again(self.outcome.status,
+                                                                         self.outcome.reasons)))
 
     def evidence(self) -> Evidence | None:
         """What hints are drawn from: the checked coordinates and which of them fail."""

@@ -129,7 +129,12 @@ def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, tiny: Tin
     # side merely converges slowly. Two sides with bounds that lie apart still suggest one.
     vanish = ladder.sides_vanish if ladder.sides_vanish is not None else np.zeros(a.shape, dtype=bool)
     smooth = vanish & ~(np.isfinite(left.error) & np.isfinite(right.error))
-    unresolved = ~differ & ~smooth & (gap > SIGNIFICANCE * best.error) & (gap > tol_a) & (status == FAIL)
+    # Judged by the central estimate as if it could be trusted: where the sides voided it, the
+    # kink they suggest is the verdict too (so the second look off the point checks it).
+    raw = Estimate.better(ladder.central, corner)
+    raw_fails = _verdicts(probe, a, raw, probe.tolerance(flat, raw.value)) == FAIL
+    unresolved = (~differ & ~smooth & (gap > SIGNIFICANCE * raw.error) & (gap > tol_a) & raw_fails
+                  & (status != PASS))
     margin = tol_a + SIGNIFICANCE * np.maximum(left.error, right.error)
     between = (a >= np.minimum(left.value, right.value) - margin) & (a <= np.maximum(left.value, right.value) + margin)
     status[unresolved & between] = KINK
@@ -269,3 +274,11 @@ def judge_sides_apart(
     status[(status == FAIL) & _within_kink(a, left, right, tol)] = KINK
     reasons = tuple(NEAR_KINK if s == INCONCLUSIVE else None for s in status)
     return Judged(status, chosen, reasons, status == INCONCLUSIVE)
+
+
+def looked_at_again(status: np.ndarray, reasons: tuple[str | None, ...]) -> np.ndarray:
+    """The coordinates a second look off the kinks checks (see offpoint.py): those at a kink,
+    and those left undecided because the steps kept crossing kinks (an estimate that does
+    not settle, a kink closer than any step), where a wrong gradient can hide just as well."""
+    crossing = np.array([r in (UNSETTLED, NEAR_KINK) for r in reasons], dtype=bool)
+    return (status == KINK) | ((status == INCONCLUSIVE) & crossing)
