@@ -23,10 +23,7 @@ SMALL = [c for c in CATEGORIES if c != "large"]
 SLICE = [(c, s) for c in SMALL for s in range(4)] + [("large", 0), ("large", 3)]
 
 # Verdicts today's engine gets wrong on the slice (the numerics issues own them).
-KNOWN: dict[str, str] = {
-    "kinks-0": "false alarm: relu(X @ W - k) residuals placed 1e-5..1e-4 of W's scale from the "
-               "kink; p2[1, 3] fails: analytic -246.80 (mpmath's too) vs numeric -158.73 +- 25",
-}
+KNOWN: dict[str, str] = {}
 
 
 KNOWN_RICHARDSON: dict[str, str] = {
