@@ -37,6 +37,8 @@ def probe(
     *,
     executor: Executor | None = None,
     label: str | None = None,
+    hvp: Callable[..., Any] | None = None,
+    hessian: Callable[..., Any] | None = None,
     **options: Any,
 ) -> Report:
     """Check ``backward`` against central differences of ``forward`` at ``params``/``inputs``.
@@ -44,12 +46,19 @@ def probe(
 
     ``options`` are the settings of :class:`~gradprobe.options.CheckOptions`: ``threshold``,
     ``seed``, ``method``, ``sample``, ``directions``, ``jobs``, ``recheck``, ``inconclusive``,
-    ``baseline`` (an earlier JSON report to compare with) and ``baseline_growth``.
-    ``label`` names the target in reports (default: the forward function's name).
+    ``baseline`` (an earlier JSON report to compare with), ``baseline_growth`` and
+    ``second_order``. ``label`` names the target in reports (default: the forward function's
+    name). ``hvp(params, inputs, v)`` or ``hessian(params, inputs)``, when given, are checked
+    after the gradient (protocol section 7; the report's ``second_order``).
     """
+    if hvp is not None and hessian is not None:
+        from .errors import UsageProblem
+
+        raise UsageProblem("give hvp or hessian, not both")
     checked = _options(options)
     baseline = baseline_of(checked)
-    target = Target(label or name_of(forward), forward, backward, params, inputs or {})
+    target = Target(label or name_of(forward), forward, backward, params, inputs or {},
+                    hvp=hvp, hessian=hessian)
     return run_against(baseline, target.label, checked, lambda o: run_check(target, o, executor=executor))
 
 

@@ -21,6 +21,7 @@ from .errors import UsageProblem
 
 METHODS = ("central", "richardson", "complex")
 INCONCLUSIVE_POLICIES = ("allow", "fail")
+SWITCH = ("on", "off")
 
 def default_threshold(dtype: Any) -> float:
     """The default threshold for a dtype (or its name): derived from its unit roundoff, see
@@ -85,6 +86,10 @@ class CheckOptions:
         "growth factor that counts as regressed", 10.0, "How many times its worst relative error may grow "
         "since the baseline before a passing tensor counts as regressed (above the noise floor).",
         flag="baseline-growth", metavar="FACTOR", fixture=True)
+    second_order: str = setting(
+        "on or off", "on", "Check the target's hand-written Hessian or Hessian-vector product (hvp, "
+        "hessian) after the gradient: 'off' skips it.", flag="second-order", choices=SWITCH,
+        fixture=True)
     # Internal plan sizes (not settings): see engine/tensor_check.py.
     sweep_total: int = 20_000  # a target with at most this many coordinates is swept in full
     sweep_limit: int = 48  # in a larger target, tensors up to this size still are
@@ -110,6 +115,9 @@ class CheckOptions:
             raise UsageProblem(
                 f"inconclusive must be one of {', '.join(INCONCLUSIVE_POLICIES)}, not "
                 f"{self.inconclusive!r}", value=self.inconclusive)
+        if self.second_order not in SWITCH:
+            raise UsageProblem(f"second_order must be on or off, not {self.second_order!r}",
+                               value=self.second_order)
         for name in ("sample", "directions"):
             value = getattr(self, name)
             if value is not None and value < 0:

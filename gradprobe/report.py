@@ -11,6 +11,7 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from .baseline_model import CheckedCoordinates, RunBaseline, TensorBaseline
+from .report_second import SecondOrderResult
 from .status import Status
 
 
@@ -166,6 +167,7 @@ class Report:
     # against that run (``threshold`` is the float64 run's); None otherwise.
     narrow_threshold: float | None = None
     baseline: RunBaseline | None = None  # the earlier run compared with (--baseline)
+    second_order: SecondOrderResult | None = None  # protocol section 7; None: not given/checked
 
     @property
     def tensors(self) -> tuple[TensorResult, ...]:
@@ -174,10 +176,11 @@ class Report:
     @property
     def ok(self) -> bool:
         """Nothing disagrees, nothing is inconclusive when that was asked to fail, nothing
-        regressed or got worse since the baseline, and (stacks) no layer's own backward is
-        wrong."""
+        regressed or got worse since the baseline, (stacks) no layer's own backward is
+        wrong, and the second derivatives, when checked, do not fail."""
         return (not self.blocking_tensors and not self.changed_for_worse
-                and all(layer.own is not Status.FAIL for layer in self.layers))
+                and all(layer.own is not Status.FAIL for layer in self.layers)
+                and (self.second_order is None or self.second_order.ok))
 
     @property
     def changed_for_worse(self) -> tuple[TensorResult, ...]:

@@ -37,6 +37,9 @@ class Target:
     # forward of ``spec`` rebuilt in a worker process (a module-level function, so it
     # pickles; set by :mod:`.loading`); None: workers receive forward itself
     loader: Callable[[str], Callable[..., Any]] | None = field(default=None, compare=False)
+    # Second derivatives (protocol section 7), when the target gives them.
+    hvp: Callable[..., Any] | None = None
+    hessian: Callable[..., Any] | None = None
 
 
 MISSING_FIX = {  # what to write when the target lacks one of its functions
@@ -223,4 +226,21 @@ def target_from_object(obj: Any, label: str, spec: str | None = None) -> Target:
         if describe(params, inputs).library not in ("torch", "jax"):
             raise TargetLoadError("the target has no backward function", value="backward",
                                   fix=MISSING_FIX["backward"])
-    return Target(label, forward, backward, params, inputs, spec)
+    hvp, hessian = _second_order(obj)
+    return Target(label, forward, backward, params, inputs, spec, hvp=hvp, hessian=hessian)
+
+
+def _second_order(obj: Any) -> tuple[Callable[..., Any] | None, Callable[..., Any] | None]:
+    """The target's ``hvp`` and ``hessian`` functions (protocol section 7), None if absent."""
+    found = []
+    for name in ("hvp", "hessian"):
+        fn = _get(obj, name)
+        if fn is not None and not callable(fn):
+            raise TargetLoadError(f"the target's {name} is a {type(fn).__name__}, not a function",
+                                  value=fn)
+        found.append(fn)
+    if found[0] is not None and found[1] is not None:
+        raise TargetLoadError("the target gives both hvp and hessian; give one of them",
+                              value=obj)
+    return found[0], found[1]
+

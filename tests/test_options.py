@@ -29,7 +29,7 @@ def test_defaults_come_from_the_dataclasses():
 
 def test_the_fixture_settings():
     assert [s.name for s in SETTINGS if s.fixture] == ["threshold", "seed", "method", "inconclusive", "baseline",
-                                                    "baseline_growth"]
+                                                    "baseline_growth", "second_order"]
 
 
 def test_a_negative_seed_in_the_api_is_a_usage_problem():
@@ -56,7 +56,7 @@ def test_an_unknown_keyword_lists_the_settings():
         CheckOptions().with_values(sed=1)
     assert str(info.value) == (
         "unknown option 'sed'; known: baseline, baseline_growth, directions, inconclusive, jobs, "
-        "method, only, recheck, sample, seed, skip, threshold.")
+        "method, only, recheck, sample, second_order, seed, skip, threshold.")
 
 
 def test_inconclusive_fail_reaches_the_report(tmp_path):

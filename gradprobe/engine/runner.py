@@ -18,6 +18,7 @@ from ..hints import diagnose
 from ..options import CheckOptions, default_threshold
 from ..report import LayerResult, Report, TensorResult
 from ..status import Status
+from ..report_second import SecondOrderResult
 from ..target import Target
 from ..tensors import INPUT_LAYER, Workspace, is_float, layer_of
 from .evaluate import Backend, Evaluator, LossFunction, Progress
@@ -27,6 +28,7 @@ from .record import TensorRecord
 from .tensor_check import check_tensor
 from .promote import agreement
 from .roundoff import is_narrow, unit_roundoff
+from .second_order import check_second_order, has_second_order
 
 if TYPE_CHECKING:
     from concurrent.futures import Executor
@@ -217,6 +219,7 @@ def _check_all(
             check_tensor(point.probe(record.name, settings.resolved_threshold), settings, total, record)
             if record.outcome is not None and record.outcome.note:
                 notes.append(record.outcome.note)
+    second = _second_order(target, settings, point, notes)
     moved_note = _second_look(target, settings, point, records)
     if moved_note:
         notes.append(moved_note)
@@ -240,4 +243,18 @@ def _check_all(
         notes=tuple(notes),
         inconclusive_fails=settings.inconclusive_fails,
         narrow_threshold=agreement(point.numerics.code_dtype) if point.numerics.analytic else None,
+        second_order=second,
     )
+
+
+def _second_order(target: Target, settings: CheckOptions, point: Point,
+                  notes: list[str]) -> SecondOrderResult | None:
+    """Check 2nd derivatives when the target gives them and the setting is on (section 7)."""
+    if settings.second_order == "off" or not has_second_order(target):
+        return None
+    if point.info.grad_output is not None:
+        notes.append("hvp and hessian are checked for a scalar loss only: forward returns an "
+                     "array here, so they were not checked")
+        return None
+    assert settings.threshold is not None
+    return check_second_order(target, point, settings, settings.threshold)

@@ -182,6 +182,10 @@ def _section(run: TargetRun, index: int) -> str:
         out.append(f'<p class="note">note: {_e(note)}</p>')
     out.extend(_layer(layer, index, report.baseline is not None) for layer in report.layers)
     out.append(_maps(report, index))
+    if report.second_order is not None:
+        from .second_html import second_order_section
+
+        out.append(second_order_section(report.second_order, report.threshold, index))
     out.append("</section>")
     return "".join(out)
 

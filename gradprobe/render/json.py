@@ -17,6 +17,7 @@ from ..report import (
     TensorResult,
 )
 from ..status import Status
+from .second_json import second_order_dict
 
 SCHEMA = "gradprobe.report/1"
 RUNS_SCHEMA = "gradprobe.runs/1"
@@ -164,6 +165,7 @@ def report_dict(report: Report) -> dict[str, Any]:
         "errors": list(report.errors),
         "notes": list(report.notes),
         **_run_baseline(report),
+        "second_order": second_order_dict(report.second_order),
     }
 
 

@@ -106,6 +106,14 @@ def _suite(root: ET.Element, run: TargetRun, index: int, timestamp: str, hostnam
             _testcase(suite, report, t, classname(run.target, t.layer))
         for layer, t in own:  # a stack layer's backward checked on its own
             _testcase(suite, report, t, classname(run.target, f"{layer}.own"))
+        if report.second_order is not None:
+            from .second_junit import second_order_cases
+
+            added = second_order_cases(suite, report.second_order,
+                                       classname(run.target, "second_order"),
+                                       report.threshold, report.inconclusive_fails)
+            for key, more in zip(("tests", "failures", "skipped"), added):
+                suite.set(key, str(int(suite.get(key, "0")) + more))
     else:
         case = ET.SubElement(suite, "testcase", {"name": "load and run", "classname": classname(run.target), "time": "0"})
         error = ET.SubElement(case, "error", {"message": run.error or "", "type": "check could not run"})

@@ -71,6 +71,14 @@ def _verdict(report: Report, width: int | None) -> str:
     n = len(report.tensors)
     cost = f"{plural(report.evaluations, 'evaluation')} in {report.seconds:.2f} s"
     changed = report.changed_for_worse
+    so = report.second_order
+    if not report.ok and not report.blocking_tensors and not changed and so is not None and not so.ok:
+        blocks = len(so.failing_blocks)
+        what = (f"{blocks} of {len(so.blocks)} Hessian blocks disagree beyond {report.threshold:g}"
+                if blocks else "the Hessian is not symmetric" if so.symmetric == "fail"
+                else "the Hessian agrees with a wrong gradient")
+        line = f"{DISAGREES}{SEP}second derivatives: {what}"
+        return line if width is not None and len(line + SEP + cost) > width else line + SEP + cost
     if not report.ok and not report.blocking_tensors and not changed:  # a stack layer wrong on its own only
         line = f"{DISAGREES}{SEP}the own backward of {', '.join(report.error_enters_at or ())} is wrong"
         return line if width is not None and len(line + SEP + cost) > width else line + SEP + cost

@@ -157,10 +157,20 @@ def renderables(
         grid, hints = table(report, theme, width)
         yield grid
         yield from hints
+        if report.second_order is not None:
+            from .second_terminal import block_notes, block_table
+
+            yield AtLeast(block_table(report.second_order, theme.style, theme.box), 0)
+            for said in block_notes(report.second_order):
+                yield Whole(Text(_wrap(said, width)))
         if with_maps:
             yield from maps(report, colour=theme is not PLAIN, width=width)
         for note in report.notes:
             yield Whole(Text(_wrap(f"note: {note}", width), style=theme.style("note")))
+    if report.second_order is not None:
+        from .second_terminal import enters_line
+
+        yield Whole(Text(_wrap(enters_line(report.second_order), width), style=style))
     line = stack_line(report)
     if line is not None:
         yield Whole(Text(_wrap(line, width), style=style))
