@@ -62,6 +62,7 @@ class Slopes:
         self.field, self.source, self.g0 = field, source, g0
         self.layout: Layout = field.layout
         self.eps, self.threshold, self.jitter = eps, threshold, jitter
+        self.coordinate = True
         self.x = np.concatenate([field.ws.owners[n].astype(np.float64).reshape(-1)
                                  for n in self.layout.names]) if self.layout.n else np.zeros(0)
 
@@ -96,8 +97,14 @@ class Slopes:
         minus, real_m = self.field.moved(-c * d)
         return self.field.at(plus), self.field.at(minus), (real_p - real_m) / 2.0
 
-    def along(self, d: np.ndarray) -> Along:
-        """Check every row of ``H d`` against backward's central difference along ``d``."""
+    def along(self, d: np.ndarray, coordinate: bool = True) -> Along:
+        """Check every row of ``H d`` against backward's central difference along ``d``.
+
+        Along a coordinate, a row whose one-sided slopes differ (a kink inside the step) is a
+        kink when the analytic value is one side's derivative. Along a random direction several
+        ReLUs may switch, on both sides, and the value at the point belongs to no side: a row
+        whose slopes differ there is a kink (not judged), and columns decide."""
+        self.coordinate = coordinate
         h = self.step(d)
         calls = self.field.calls
         gp, gm, half = self._pair(d, h)
@@ -167,7 +174,7 @@ class Slopes:
         side_r = (np.abs(a - est_r) <= tol + err_r) & (err_r < off)
         side_l = (np.abs(a - est_l) <= tol + err_l) & (err_l < off)
         differ = np.abs(est_r - est_l) > tol + err_r + err_l
-        kink = ~ok & (side_r | side_l) & differ
+        kink = ~ok & differ & ((side_r | side_l) | (not self.coordinate))
         ok |= ~differ & side_r & side_l
         unsure = ~ok & ~kink & (off <= tol + err)
         verdict = np.where(ok, PASS, np.where(kink, KINK, np.where(unsure, UNSURE, FAIL)))
@@ -227,3 +234,44 @@ def _loss_at(evaluator: Evaluator, layout: Layout, point: np.ndarray) -> float:
             continue
         moves.append(Perturbation(name, slice(0, owner.size), values))
     return float(evaluator.loss_with(moves))
+
+
+def mixed_sides(evaluator: Evaluator, layout: Layout, x: np.ndarray, u: np.ndarray,
+                v: np.ndarray, eps: float, noise: float, f0: float) -> bool:
+    """Whether forward has a kink at the point along ``u`` or ``v``: one-sided mixed
+    differences on the two sides of each (each extrapolated over three step sizes, 24
+    forward calls) that differ by more than their errors. Forward's second differences say
+    nothing about a Hessian there."""
+    sizes = []
+    for d in (u, v):
+        moved = d != 0
+        size = max(1.0, float(np.max(np.abs(x[moved])))) if moved.any() else 1.0
+        sizes.append(power_of_two(eps ** 0.25 * size))
+    f = {}
+    for c in (1.0, 2.0, 4.0):
+        hu, kv = c * sizes[0] * u, c * sizes[1] * v
+        for su in (-1, 0, 1):
+            for sv in (-1, 0, 1):
+                if (su, sv) != (0, 0):
+                    f[c, su, sv] = _loss_at(evaluator, layout, x + su * hu + sv * kv)
+    for axis in (0, 1):
+        sides = []
+        for sign in (1, -1):
+            values = []
+            for c in (1.0, 2.0, 4.0):
+                def at(a: int, b: int) -> float:
+                    key = (c, a, b) if axis == 0 else (c, b, a)
+                    return f0 if key[1:] == (0, 0) else f[key]
+                if sign > 0:
+                    q = at(1, 1) - at(1, -1) - at(0, 1) + at(0, -1)
+                else:
+                    q = at(0, 1) - at(0, -1) - at(-1, 1) + at(-1, -1)
+                values.append(q / (2 * c * c * sizes[0] * sizes[1]))
+            f1, f2, f4 = values
+            e12, e24 = 2 * f1 - f2, 2 * f2 - f4
+            rounding = 4 * noise / (sizes[0] * sizes[1])
+            sides.append((e12, abs(f1 - f2) + abs(e12 - e24) + rounding))
+        (plus, err_p), (minus, err_m) = sides
+        if abs(plus - minus) > 2 * (err_p + err_m):
+            return True
+    return False

@@ -10,7 +10,7 @@ moved point is backward called on a copy of the workspace with the moved tensors
 from __future__ import annotations
 
 from collections.abc import Callable, Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -195,12 +195,3 @@ class DenseSource(HessianSource):
     def hv(self, w: np.ndarray) -> np.ndarray:
         return self.matrix @ w
 
-
-@dataclass
-class Costs:
-    """What the second-order check spent."""
-
-    backward: int = 0
-    hessian: int = 0
-    forward: int = 0
-    extra: dict[str, int] = field(default_factory=dict)
