@@ -41,7 +41,8 @@ CHECK_HELP = f"""Check the backward pass of each TARGET against central differen
 TARGET is a Python file (nets/mlp.py), a dotted module (nets.mlp), either followed by
 :NAME for an attribute (nets/mlp.py:dense_case). The target provides forward, backward and
 setup() or params, or layers (a stack: every layer's backward is checked on its own, and the
-report says where the error enters); see the README for the protocol. With no TARGET, the targets listed in
+report says where the error enters); a target that also gives hvp or hessian has its second
+derivatives checked per block after the gradient; see the README for the protocol. With no TARGET, the targets listed in
 [tool.gradprobe] of the nearest pyproject.toml are checked; its other keys
 ({", ".join(s.config_key for s in SETTINGS)}) set defaults that options override.
 --settings-in-force says which value each setting has and where it came from.
@@ -51,6 +52,7 @@ Examples:
   gradprobe check samples/crop_yield.py
   gradprobe check samples/crop_yield_buggy.py --json report.json --junit report.xml
   gradprobe check samples/shop_demand_stack_buggy.py
+  gradprobe check samples/claims_count_buggy.py --second-order on
   gradprobe check samples/crop_yield.py samples/crop_yield_buggy.py --html report.html
   gradprobe check nets.mlp:Case --fail-above 1e-5 --seed 3
   gradprobe check samples/sensor_mixer.py --json - | jq .summary

@@ -14,7 +14,9 @@ from ..report_second import BlockResult
 from ..status import Status
 from .second_numeric import FAIL, KINK, UNSURE, Along
 
-KEEP_ELEMENTS = 1 << 20  # blocks up to this many elements keep every compared value
+# Every compared value is kept (for error maps and hints) when the whole Hessian has at most
+# KEEP_ELEMENTS elements: about 20 bytes each, so 20 MB at most.
+KEEP_ELEMENTS = 1 << 20
 LISTED = 100  # failing elements listed per block
 STATUS = {0: Status.PASS, 1: Status.KINK, 2: Status.INCONCLUSIVE, 3: Status.FAIL}
 
@@ -23,16 +25,16 @@ class BlockTally:
     """Check 1's findings in the block ``rows`` x ``cols``."""
 
     def __init__(self, rows: str, cols: str, row_shape: tuple[int, ...],
-                 col_shape: tuple[int, ...]) -> None:
+                 col_shape: tuple[int, ...], keep: bool = True) -> None:
         self.rows, self.cols = rows, cols
         self.row_shape, self.col_shape = row_shape, col_shape
         self.n_rows = int(np.prod(row_shape, dtype=np.int64))
         self.n_cols = int(np.prod(col_shape, dtype=np.int64))
-        keep = self.n_rows * self.n_cols <= KEEP_ELEMENTS
+        keep = keep and self.n_rows * self.n_cols <= KEEP_ELEMENTS
         self.analytic = np.full((self.n_rows, self.n_cols), np.nan) if keep else None
         self.numeric = np.full((self.n_rows, self.n_cols), np.nan) if keep else None
         self.code = np.full((self.n_rows, self.n_cols), -1, dtype=np.int8) if keep else None
-        self.rel = np.full((self.n_rows, self.n_cols), np.nan) if keep else None
+        self.rel = np.full((self.n_rows, self.n_cols), np.nan, dtype=np.float32) if keep else None
         self.checked = self.failed = self.kinks = self.unsure = 0
         self.nonzero = 0  # compared elements whose analytic value is not exactly 0
         self.worst: tuple[float, float, float, int, int] | None = None  # rel, abs, noise, i, j
@@ -108,5 +110,5 @@ class BlockTally:
             bad_indices=tuple(self.index(i, j) for i, j in self.bad),
             directions=self.directions, directions_off=self.directions_off,
             hint=self.problem or hint, reason=reason,
-            error_map=self.rel.astype(np.float32) if self.rel is not None and self.checked else None,
+            error_map=self.rel if self.rel is not None and self.checked else None,
         )

@@ -29,7 +29,7 @@ from ..status import Status, worst
 from .point import Point
 from .probe import ROUNDING_UNITS
 from .sampling import stratified, tensor_rng
-from .second_blocks import BlockTally
+from .second_blocks import KEEP_ELEMENTS, BlockTally
 from .second_numeric import FAIL, Along, Slopes, mixed_difference, mixed_sides
 from .second_source import DenseSource, GradientField, HessianSource, HvpSource, Layout
 
@@ -40,7 +40,8 @@ FORWARD_MARGIN = 3.0  # check 2 fails beyond its threshold plus this many error 
 
 
 def second_order_source(target: Any, ws: Any, layout: Layout) -> HessianSource | None:
-    """The target's Hessian form, or None when it gives none."""
+    """The target's Hessian form, or None when it gives none. (A framework's double backward
+    will be one more :class:`HvpSource`: a function (params, inputs, v) -> H v.)"""
     hvp, hessian = getattr(target, "hvp", None), getattr(target, "hessian", None)
     if hvp is not None:
         return HvpSource(hvp, ws, layout)
@@ -74,16 +75,13 @@ def check_second_order(target: Any, point: Point, options: CheckOptions, thresho
             if r == name:
                 t.problem = sentence
     hints = block_hints(run.tallies, layout.names, threshold)
-    blocks = tuple(t.result(hints.get(key), threshold) for key, t in run.tallies.items())
+    blocks = tuple(t.result(hints.get(key), threshold) for key, t in run.tallies.items()
+                   if t.n_rows and t.n_cols)
     failing = any(b.status is Status.FAIL for b in blocks)
     enters = run.enters(failing, agreement)
     status = worst([b.status for b in blocks] + [sym_status]
                    + ([Status.FAIL] if enters == "gradient" and not failing else []))
     notes = [*pair_notes]
-    if agreement.resolution is not None:
-        notes.append(f"forward's second differences were trusted to {agreement.resolution:.1e} "
-                     f"relative here (measured on this target: three step sizes and the "
-                     f"loss's rounding)")
     return SecondOrderResult(
         form=source.form, status=status, error_enters_at=enters, symmetric=sym_status,
         blocks=blocks, forward=agreement, symmetry_max_rel_error=sym_worst,
@@ -97,7 +95,8 @@ class _Run:
 
     def __init__(self, layout: Layout, slopes: Slopes, options: CheckOptions, threshold: float):
         self.layout, self.slopes, self.options, self.threshold = layout, slopes, options, threshold
-        self.tallies = {(r, c): BlockTally(r, c, layout.shape(r), layout.shape(c))
+        keep = layout.n * layout.n <= KEEP_ELEMENTS
+        self.tallies = {(r, c): BlockTally(r, c, layout.shape(r), layout.shape(c), keep)
                         for r in layout.names for c in layout.names}
         self.random: dict[str, list[Along]] = {}
         self.pair_results: list[tuple[str, str, float, float, float, float, float, float]] = []
@@ -117,11 +116,13 @@ class _Run:
         g0 = self.slopes.g0
         for c in self.layout.names:
             col = self.layout.part(c)
+            self.random[c] = []
+            if col.stop == col.start:  # an empty tensor has no columns
+                continue
             for j in self._columns(c, g0):
                 self._column(c, int(j))
             k_dirs = self.options.directions if self.options.directions is not None else 2
             rng = tensor_rng(self.options.seed, c, "second-order directions")
-            self.random[c] = []
             for _ in range(max(k_dirs, 1)):
                 d = np.zeros(self.layout.n)
                 v = rng.standard_normal(col.stop - col.start)
@@ -168,6 +169,8 @@ class _Run:
         kinked: list[tuple[str, str]] = []
         for i, r in enumerate(names):
             for c in names[i:]:
+                if not self.random[r] or not self.random[c]:
+                    continue
                 u_along = self.random[r][0]
                 v_along = self.random[c][1] if r == c and len(self.random[c]) > 1 else self.random[c][0]
                 if r == c and v_along is u_along:

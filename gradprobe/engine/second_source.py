@@ -124,11 +124,10 @@ class HessianSource:
 class HvpSource(HessianSource):
     """The ``hvp(params, inputs, v)`` form; ``v`` nested like the floating-point params."""
 
-    form = "hvp"
-
-    def __init__(self, fn: Callable[..., Any], ws: Workspace, layout: Layout) -> None:
+    def __init__(self, fn: Callable[..., Any], ws: Workspace, layout: Layout,
+                 form: str = "hvp") -> None:
         super().__init__()
-        self.fn, self.ws, self.layout = fn, ws, layout
+        self.fn, self.ws, self.layout, self.form = fn, ws, layout, form
 
     def hv(self, w: np.ndarray) -> np.ndarray:
         self.calls += 1
@@ -141,7 +140,7 @@ class HvpSource(HessianSource):
         except ProbeError:
             raise
         except Exception as exc:
-            raise UserCodeError(f"hvp raised {summarise(exc)}") from exc
+            raise UserCodeError(f"{self.form} raised {summarise(exc)}") from exc
         if not isinstance(out, Mapping):
             raise BadOutputError(f"hvp must return a mapping nested like the params, not a "
                                  f"{type(out).__name__}", value=out)

@@ -48,10 +48,11 @@ def block_map(so: SecondOrderResult, threshold: float, k: int) -> str:
                 text = f'<a href="#{_anchor(k, b)}">{text}</a>'
             outline = f"outline:2px solid {KINK};" if b.status is Status.KINK else ""
             cells.append(f'<td class="gp-block gp-{_e(b.status.value)}" data-block="{_e(b.name)}" '
-                         f'style="background:{_fill(b, threshold)};{outline}" '
+                         f'style="background:{_fill(b, threshold)};padding:.3em .7em;border:1px solid #fff;{outline}" '
                          f'title="{_e(b.name)}: {_e(b.hint or b.status.value)}">{text}</td>')
         rows.append(f'<tr><th scope="row" class="name">{_e(r)}</th>{"".join(cells)}</tr>')
-    return ('<table class="gp-blockmap"><caption>Hessian blocks: rows × columns of tensors, '
+    return ('<table class="gp-blockmap" style="border-collapse:collapse;text-align:center;'
+            'font-variant-numeric:tabular-nums;margin:.5em 0"><caption>Hessian blocks: rows × columns of tensors, '
             'coloured by the worst relative error of each block (the colours of the maps '
             f'below)</caption><thead><tr><th></th>{head}</tr></thead><tbody>{"".join(rows)}'
             "</tbody></table>")

@@ -51,7 +51,7 @@ def block_notes(so: SecondOrderResult) -> list[str]:
             out.append(f"hint for {b.name}: {b.hint}")
         elif b.reason:
             out.append(f"inconclusive {b.name}: {b.reason}")
-    return out
+    return out + [f"note: {note}" for note in so.notes]
 
 
 def _pairs(pairs: tuple[tuple[str, str], ...]) -> str:
@@ -84,7 +84,8 @@ def enters_line(so: SecondOrderResult) -> str:
     else:
         parts.append(f"symmetric: {so.symmetric.value}")
     if so.forward is not None and so.forward.resolution is not None:
-        parts.append(f"forward's second differences trusted to {so.forward.resolution:.1e}")
+        parts.append(f"forward's second differences trusted to {so.forward.resolution:.1e} "
+                     "relative (measured here)")
     elif so.forward is not None and so.forward.pairs:
         parts.append("forward's second differences too coarse here to decide")
     for error in so.errors:
