@@ -209,3 +209,37 @@ def test_dense_check_costs_linear_backward_calls():
         assert so.backward_calls == 2 * n + 2 * 2 + 1
         assert so.hessian_calls == 1
         assert so.evaluations == 12 * 1  # one pair of directions, three step sizes, 4 calls
+
+
+def test_transposed_cross_block_is_named():
+    """Two tensors of three elements coupled through a non-symmetric matrix (sympy's exact
+    Hessian); the dense Hessian given with both cross blocks transposed stays symmetric, and
+    the hint says transposed."""
+    import sympy as sp
+
+    p, q = sp.symbols("p0:3"), sp.symbols("q0:3")
+    coupling = [[1, 2, -1], [0, 3, 1], [2, -2, 1]]
+    loss = (sum(coupling[i][j] * p[i] * q[j] for i in range(3) for j in range(3))
+            + sum(sp.cos(s) for s in p + q) + sum(s**4 for s in p + q) / 12)
+    symbols = (*p, *q)
+    f = sp.lambdify(symbols, loss, "numpy")
+    g = sp.lambdify(symbols, [sp.diff(loss, s) for s in symbols], "numpy")
+    h = sp.lambdify(symbols, sp.hessian(loss, symbols), "numpy")
+
+    def vec(params):
+        return np.concatenate([params["p"], params["q"]])
+
+    def hessian(params, inputs):
+        m = np.array(h(*vec(params)), dtype=float)
+        m[:3, 3:] = m[:3, 3:].T.copy()
+        m[3:, :3] = m[3:, :3].T.copy()
+        return m
+
+    params = {"p": np.array([0.3, -0.7, 1.1]), "q": np.array([0.9, 0.2, -0.4])}
+    report = probe(lambda pr, i: float(f(*vec(pr))),
+                   lambda pr, i: dict(zip(("p", "q"), np.split(np.array(g(*vec(pr)), dtype=float), 2))),
+                   params, hessian=hessian)
+    so = _so(report)
+    assert {(b.rows, b.cols) for b in so.failing_blocks} == {("p", "q"), ("q", "p")}
+    assert all("transpose" in b.hint for b in so.failing_blocks)
+    assert so.symmetric == "pass" and so.error_enters_at == "hessian"

@@ -90,7 +90,7 @@ def test_mixed_difference_bound_holds_against_mpmath():
                              8 * 2.2e-16 * abs(_f({"x": POINT}, {})), np.array(_g({"x": POINT}, {})["x"]))
         assert abs(m.value - exact) <= m.error
         assert m.error < 1e-4 * max(abs(exact), 1e-3)
-        assert m.evaluations == 12
+        assert m.evaluations in (12, 24, 36, 48)  # three steps, widened at most three times
 
 
 def test_mixed_difference_across_a_kink_claims_no_bound():

@@ -31,6 +31,7 @@ LADDER = (1.0, 0.5, 0.125, 0.0625)  # steps (times the first) of the two levels 
 # stay within MODEL_NOISE times the rounding.
 MODEL_RATIO = (2.0, 8.0)
 MODEL_NOISE = 8.0
+WIDEN = 3  # times the steps of a second difference may widen fourfold
 
 
 def power_of_two(value: float) -> float:
@@ -193,35 +194,54 @@ class Mixed:
 def mixed_difference(evaluator: Evaluator, layout: Layout, x: np.ndarray, u: np.ndarray,
                      v: np.ndarray, eps: float, noise: float, g0: np.ndarray) -> Mixed:
     """The mixed second difference of forward along ``u`` and ``v`` at three step sizes
-    (12 forward calls). Steps are eps**(1/4) times the moved coordinates' size, the best
-    order for a second difference; the error bound is the difference of the two smallest
-    steps' values (three times the smallest one's truncation when the h**2 model holds),
-    the change of the Richardson estimates between step pairs, and the rounding of four
-    loss values (the measured loss noise, plus what rounding the moved points changes)."""
+    (12 forward calls). The first steps are eps**(1/4) times the moved coordinates' size, the
+    best order for a second difference; where the function's own rounding then outweighs its
+    truncation (a large loss with small curvature), the steps widen fourfold, up to WIDEN
+    times, and the tightest bound is kept. The error bound is the difference of the two
+    smallest steps' values (three times the smallest one's truncation when the h**2 model
+    holds), the change of the Richardson estimates between step pairs, and the rounding of
+    four loss values (the measured loss noise, plus what rounding the moved points changes)."""
     sizes = []
     for d in (u, v):
         moved = d != 0
         size = max(1.0, float(np.max(np.abs(x[moved])))) if moved.any() else 1.0
         sizes.append(power_of_two(eps ** 0.25 * size))
     shift_noise = eps * float(np.sum(np.abs(g0) * np.abs(x)))
-    values, calls = [], 0
+    best, calls = None, 0
+    for _ in range(WIDEN + 1):
+        value, error, truncation, rounding = _three_steps(evaluator, layout, x, u, v, sizes,
+                                                          noise + shift_noise)
+        calls += 12
+        if best is None or error < best[1]:
+            best = (value, error)
+        if not math.isfinite(error) or rounding <= MODEL_NOISE * truncation:
+            break
+        sizes = [4.0 * s for s in sizes]
+    assert best is not None
+    return Mixed(best[0], best[1], calls)
+
+
+def _three_steps(evaluator: Evaluator, layout: Layout, x: np.ndarray, u: np.ndarray,
+                 v: np.ndarray, sizes: list[float], noise: float) -> tuple[float, float, float, float]:
+    """The Richardson value, its error bound, the truncation and rounding parts."""
+    values = []
     for c in (1.0, 2.0, 4.0):
         hu, kv = c * sizes[0], c * sizes[1]
         total = 0.0
         for su, sv, sign in ((1, 1, 1.0), (1, -1, -1.0), (-1, 1, -1.0), (-1, -1, 1.0)):
             total += sign * _loss_at(evaluator, layout, x + su * hu * u + sv * kv * v)
-            calls += 1
         values.append(total / (4 * hu * kv))
     f1, f2, f4 = values
     r12, r24 = (4 * f1 - f2) / 3, (4 * f2 - f4) / 3
-    rounding = (noise + shift_noise) / (sizes[0] * sizes[1])
-    error = abs(f1 - f2) + abs(r12 - r24) + 2 * rounding
+    rounding = noise / (sizes[0] * sizes[1])
+    truncation = abs(f1 - f2) + abs(r12 - r24)
+    error = truncation + 2 * rounding
     d12, d24 = f2 - f1, f4 - f2
     if max(abs(d12), abs(d24)) > MODEL_NOISE * rounding and not (
             d12 != 0 and MODEL_RATIO[0] <= d24 / d12 <= MODEL_RATIO[1]):
         error = math.inf  # the steps' values do not change as h**2 predicts (a kink of
         # forward inside the steps): no bound can be claimed
-    return Mixed(r12, error, calls)
+    return r12, error, truncation, rounding
 
 
 def _loss_at(evaluator: Evaluator, layout: Layout, point: np.ndarray) -> float:
