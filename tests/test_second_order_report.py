@@ -48,7 +48,7 @@ def test_setting_off_skips_from_the_command_line_and_the_config(run_cli, tmp_pat
     (tmp_path / "pyproject.toml").write_text('[tool.gradprobe]\nsecond_order = "off"\n')
     code, report = _json(run_cli, str(SAMPLES / "claims_count_buggy.py"))
     assert code == 0 and report["second_order"] is None
-    shown = run_cli("check", "--show-settings").output
+    shown = run_cli("check", "--settings-in-force").output
     assert "second_order" in shown and "'off'" in shown
     (tmp_path / "pyproject.toml").write_text('[tool.gradprobe]\nsecond_order = "maybe"\n')
     result = run_cli("check", str(SAMPLES / "claims_count.py"))

@@ -11,14 +11,13 @@ from __future__ import annotations
 import numpy as np
 
 from ..report_second import BlockResult
-from ..status import Status
+from ..status import Status, worst
 from .second_numeric import FAIL, KINK, UNSURE, Along
 
 # Every compared value is kept (for error maps and hints) when the whole Hessian has at most
 # KEEP_ELEMENTS elements: about 20 bytes each, so 20 MB at most.
 KEEP_ELEMENTS = 1 << 20
 LISTED = 100  # failing elements listed per block
-STATUS = {0: Status.PASS, 1: Status.KINK, 2: Status.INCONCLUSIVE, 3: Status.FAIL}
 
 
 class BlockTally:
@@ -73,11 +72,11 @@ class BlockTally:
         self.directions += 1
         off = bool(np.any(code == FAIL))
         self.directions_off += off
-        worst = np.where(code == KINK, 0.0, along.rel[part])
-        if worst.size:
-            self.direction_worst = max(self.direction_worst, float(np.max(worst)))
-        statuses = [STATUS[int(c)] for c in np.unique(code)]
-        self.direction_status = max([self.direction_status, *statuses], key=lambda s: s.rank)
+        judged = np.where(code == KINK, 0.0, along.rel[part])
+        if judged.size:
+            self.direction_worst = max(self.direction_worst, float(np.max(judged)))
+        statuses = [Status.of_code(int(c)) for c in np.unique(code)]
+        self.direction_status = worst([self.direction_status, *statuses])
         return off
 
     def status(self) -> Status:

@@ -18,11 +18,12 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from ..status import FAIL, INCONCLUSIVE, KINK, PASS
 from .evaluate import Evaluator, Perturbation
 from .probe import ROUNDING_UNITS
 from .second_source import GradientField, HessianSource, Layout
 
-PASS, KINK, UNSURE, FAIL = 0, 1, 2, 3  # per-row codes, in the order of Status
+UNSURE = INCONCLUSIVE  # per-row codes: the engine's codes of each Status
 FLOOR_FRACTION = 1e-3  # a row's denominator never falls below 1e-3 of its tensor's scale ...
 TARGET_FLOOR_FRACTION = 1e-4  # ... nor below 1e-4 of the whole column's
 LADDER = (1.0, 0.5, 0.125, 0.0625)  # steps (times the first) of the two levels of rechecks
