@@ -146,3 +146,29 @@ def test_pytest_fixture_takes_the_setting(pytester):
     """)
     result = pytester.runpytest("-p", "no:cacheprovider", "-p", "no:hypothesispytest")
     result.assert_outcomes(passed=1, failed=1)
+
+
+def test_pytest_failure_line_names_the_blocks():
+    """A run failing on second derivatives alone says so in the failure's first line."""
+    from second_kit import SympyTarget
+
+    from gradprobe.render.lines import failure_line
+
+    target = SympyTarget("hvp", hess_bug=lambda h: h * 1.5)
+    report = probe(target.forward, target.backward, target.setup()[0], hvp=target.hvp)
+    assert not report.ok and not report.failing_tensors
+    line = failure_line(report)
+    assert line.startswith("second derivatives fail (weights × weights") and "Hessian" in line
+
+
+def test_a_missing_gradient_skips_second_derivatives_with_a_note(run_cli, write_target):
+    path = write_target("""
+        import numpy as np
+        params = {"w": np.array([1.0, 2.0]), "b": np.array(0.5)}
+        def forward(p, i): return float(np.sum(p["w"] ** 4) + p["b"] ** 2)
+        def backward(p, i): return {"w": 4 * p["w"] ** 3}
+        def hvp(p, i, v): return {"w": 12 * p["w"] ** 2 * v["w"], "b": 2 * v["b"]}
+    """)
+    code, report = _json(run_cli, str(path))
+    assert code == 1 and report["second_order"] is None
+    assert any("not checked: backward gives no usable gradient for b" in n for n in report["notes"])

@@ -256,5 +256,9 @@ def _second_order(target: Target, settings: CheckOptions, point: Point,
         notes.append("hvp and hessian are checked for a scalar loss only: forward returns an "
                      "array here, so they were not checked")
         return None
+    if point.grads.problems:
+        notes.append("hvp and hessian were not checked: backward gives no usable gradient for "
+                     + ", ".join(point.grads.problems))
+        return None
     assert settings.threshold is not None
     return check_second_order(target, point, settings, settings.threshold)

@@ -134,6 +134,12 @@ def failure_line(report: Report) -> str:
         reason = first[0].baseline.reason if first[0].baseline is not None else None
         more = f" (and {len(first) - 1} more)" if len(first) > 1 else ""
         return f"{reason}{more}"
+    so = report.second_order
+    if not bad and so is not None and not so.ok:
+        blocks = ", ".join(b.name for b in so.failing_blocks[:3]) or "no block"
+        where = "the gradient" if so.error_enters_at == "gradient" else "the Hessian"
+        return (f"second derivatives fail ({blocks}; symmetric: {so.symmetric.value}); the "
+                f"error enters at {where}")
     if not bad:
         return f"{report.target}: every tensor agrees within {report.threshold:g}"
     names = _names(bad, None)
