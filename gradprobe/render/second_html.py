@@ -17,6 +17,11 @@ def _e(value: object) -> str:
     return escape(str(value), quote=True)
 
 
+def _ink(fill: str) -> str:
+    """Text colour readable on ``fill``: white on the darker half of the palette."""
+    return "#ffffff" if fill in LEVELS[4:] else "#1d232a"
+
+
 def _fill(b: BlockResult, threshold: float) -> str:
     if b.status is Status.KINK:
         return WITHIN
@@ -45,10 +50,11 @@ def block_map(so: SecondOrderResult, threshold: float, k: int) -> str:
             rel = "–" if b.max_rel_error is None else f"{b.max_rel_error:.1e}"
             text = f"{_e(b.status.value)}<br>{rel}"
             if b.status is Status.FAIL and b.error_map is not None:
-                text = f'<a href="#{_anchor(k, b)}">{text}</a>'
+                text = f'<a href="#{_anchor(k, b)}" style="color:inherit">{text}</a>'
             outline = f"outline:2px solid {KINK};" if b.status is Status.KINK else ""
             cells.append(f'<td class="gp-block gp-{_e(b.status.value)}" data-block="{_e(b.name)}" '
-                         f'style="background:{_fill(b, threshold)};padding:.3em .7em;border:1px solid #fff;{outline}" '
+                         f'style="background:{_fill(b, threshold)};color:{_ink(_fill(b, threshold))};'
+                         f'padding:.3em .7em;border:1px solid #fff;{outline}" '
                          f'title="{_e(b.name)}: {_e(b.hint or b.status.value)}">{text}</td>')
         rows.append(f'<tr><th scope="row" class="name">{_e(r)}</th>{"".join(cells)}</tr>')
     return ('<table class="gp-blockmap" style="border-collapse:collapse;text-align:center;'
@@ -94,7 +100,7 @@ def block_figures(so: SecondOrderResult, threshold: float, k: int) -> str:
         caption = (f"<figcaption><strong>{_e(b.name)}</strong>: rows are the elements of "
                    f"{_e(b.rows)}, columns those of {_e(b.cols)} (row-major){per}; "
                    f"{b.checked:,} of {b.size:,} elements compared"
-                   f"{'. ' + _e(b.hint) if b.hint else ''}.</figcaption>")
+                   f"{'; hint: ' + _e(b.hint) if b.hint else ''}.</figcaption>")
         out.append(f'<figure class="gp-figure" id="{_anchor(k, b)}" data-block="{_e(b.name)}">'
                    f"{caption}{svg}</figure>")
     return "".join(out)
