@@ -10,7 +10,8 @@ import pytest
 
 from gradprobe import probe
 from gradprobe.engine.evaluate import Evaluator, LossFunction
-from gradprobe.engine.second_numeric import KINK, PASS, Slopes, mixed_difference
+from gradprobe.engine.second_forward import mixed_difference
+from gradprobe.engine.second_numeric import KINK, PASS, Slopes
 from gradprobe.engine.second_source import GradientField, HessianSource, Layout
 from gradprobe.tensors import Workspace
 

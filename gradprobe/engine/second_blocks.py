@@ -61,8 +61,9 @@ class BlockTally:
                 self.worst = (float(judged[i]), float(abs(a[i] - n[i])), float(noise[i]), i, j)
         for i in np.flatnonzero(code == FAIL)[: max(0, LISTED - len(self.bad))]:
             self.bad.append((int(i), j))
-        if self.analytic is not None:
+        if self.analytic is not None and self.numeric is not None:
             self.analytic[:, j], self.numeric[:, j] = a, n
+        if self.code is not None and self.rel is not None:
             self.code[:, j], self.rel[:, j] = code, judged
 
     def direction(self, along: Along, part: slice) -> bool:

@@ -30,7 +30,8 @@ from .point import Point
 from .probe import ROUNDING_UNITS
 from .sampling import stratified, tensor_rng
 from .second_blocks import KEEP_ELEMENTS, BlockTally
-from .second_numeric import FAIL, Along, Slopes, mixed_difference, mixed_sides
+from .second_forward import mixed_difference, mixed_sides
+from .second_numeric import FAIL, Along, Slopes
 from .second_source import DenseSource, GradientField, HessianSource, HvpSource, Layout
 
 SWEEP_TOTAL = 2048  # a target with at most this many param elements has every column checked
@@ -59,6 +60,7 @@ def check_second_order(target: Any, point: Point, options: CheckOptions, thresho
     started, forward_before = clock(), point.evaluator.count
     ws = point.numerics.workspace
     layout = Layout.of(ws)
+    assert point.backward is not None
     field = GradientField(point.backward, ws, layout)
     g0 = field.at({})
     source = second_order_source(target, ws, layout)

@@ -42,8 +42,12 @@ def block_hints(tallies: Mapping[tuple[str, str], BlockTally], order: Sequence[s
     return out
 
 
-def _compared(t: BlockTally) -> np.ndarray | None:
-    return None if t.code is None else t.code >= 0
+def _kept(t: BlockTally) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray] | None:
+    """Which elements were compared, their codes, analytic and numeric values (None when
+    the block was too large to keep them)."""
+    if t.code is None or t.analytic is None or t.numeric is None:
+        return None
+    return t.code >= 0, t.code, t.analytic, t.numeric
 
 
 def _missing(t: BlockTally) -> str | None:
@@ -65,18 +69,19 @@ def _triangle(t: BlockTally, tallies: Mapping[tuple[str, str], BlockTally],
         filled, empty = ("upper", "lower") if order.index(t.rows) > order.index(t.cols) else ("lower", "upper")
         return (f"the {filled} triangle is filled and the {empty} is not: block {t.rows} × "
                 f"{t.cols} is 0 while its mirror {t.cols} × {t.rows} agrees")
-    seen = _compared(t)
-    if seen is None:
+    kept = _kept(t)
+    if kept is None:
         return None
-    i, j = np.indices(t.code.shape)
+    seen, code, analytic, _ = kept
+    i, j = np.indices(code.shape)
     for empty, side in (("lower", i > j), ("upper", i < j)):
         other = ~side & seen
         here = side & seen
         if not here.any() or not other.any():
             continue
-        zero = np.all(t.analytic[here] == 0)
-        fails = np.any(t.code[here] == FAIL)
-        rest_ok = np.all(t.code[other] != FAIL)
+        zero = np.all(analytic[here] == 0)
+        fails = np.any(code[here] == FAIL)
+        rest_ok = np.all(code[other] != FAIL)
         if zero and fails and rest_ok:
             filled = "upper" if empty == "lower" else "lower"
             return (f"the {filled} triangle is filled and the {empty} is not: in block "
@@ -86,15 +91,16 @@ def _triangle(t: BlockTally, tallies: Mapping[tuple[str, str], BlockTally],
 
 
 def _transposed(t: BlockTally, threshold: float) -> str | None:
-    seen = _compared(t)
-    if seen is None or t.rows == t.cols or t.n_rows != t.n_cols or t.n_rows < 2:
+    kept = _kept(t)
+    if kept is None or t.rows == t.cols or t.n_rows != t.n_cols or t.n_rows < 2:
         return None
+    seen, code, analytic, numeric = kept
     both = seen & seen.T
     off = both & ~np.eye(t.n_rows, dtype=bool)
-    failing = seen & (t.code == FAIL)
+    failing = seen & (code == FAIL)
     if not off.any() or np.any(failing & ~both):
         return None
-    fits = _close(t.analytic[both], t.numeric.T[both], threshold)
+    fits = _close(analytic[both], numeric.T[both], threshold)
     if np.all(fits) and np.any(failing[both]):
         return (f"the block {t.rows} × {t.cols} holds the transpose of the numeric one: "
                 "a transpose is missing or one too many")
@@ -102,15 +108,16 @@ def _transposed(t: BlockTally, threshold: float) -> str | None:
 
 
 def _diagonal(t: BlockTally, threshold: float) -> str | None:
-    seen = _compared(t)
-    if seen is None or t.rows != t.cols:
+    kept = _kept(t)
+    if kept is None or t.rows != t.cols:
         return None
+    seen, code, analytic, numeric = kept
     diag = seen & np.eye(t.n_rows, dtype=bool)
     offd = seen & ~np.eye(t.n_rows, dtype=bool)
-    if not diag.any() or np.any(t.code[offd] == FAIL):
+    if not diag.any() or np.any(code[offd] == FAIL):
         return None
-    a, n = t.analytic[diag], t.numeric[diag]
-    if not np.any(t.code[diag] == FAIL) or np.any(n == 0):
+    a, n = analytic[diag], numeric[diag]
+    if not np.any(code[diag] == FAIL) or np.any(n == 0):
         return None
     for factor, word in ((2.0, "twice"), (0.5, "half")):
         if np.all(_close(a, factor * n, threshold)):
