@@ -52,7 +52,7 @@ Examples:
   gradprobe check samples/crop_yield.py
   gradprobe check samples/crop_yield_buggy.py --json report.json --junit report.xml
   gradprobe check samples/shop_demand_stack_buggy.py
-  gradprobe check samples/claims_count_buggy.py --second-order on
+  gradprobe check samples/reservoir_release_buggy.py --second-order off
   gradprobe check samples/crop_yield.py samples/crop_yield_buggy.py --html report.html
   gradprobe check nets.mlp:Case --fail-above 1e-5 --seed 3
   gradprobe check samples/sensor_mixer.py --json - | jq .summary
