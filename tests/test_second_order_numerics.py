@@ -201,3 +201,21 @@ def test_relu_network_with_a_wrong_hvp_fails():
 
 def test_codes_are_ordered_like_statuses():
     assert (PASS, KINK) == (0, 1)
+
+
+def test_relu_network_missing_cross_layer_terms_fail_even_on_kinks():
+    """At the kinked point, the product without its hidden × out terms still fails in
+    exactly those blocks, with the missing-block hint: kinks do not hide a wrong Hessian."""
+    def no_cross(p, i, v):
+        zero = {k: np.zeros_like(x) for k, x in v["out"].items()}
+        zh = {k: np.zeros_like(x) for k, x in v["hidden"].items()}
+        own_hidden = relu_hvp(p, i, {"hidden": v["hidden"], "out": zero})
+        own_out = relu_hvp(p, i, {"hidden": zh, "out": v["out"]})
+        return {"hidden": own_hidden["hidden"], "out": own_out["out"]}
+
+    params, inputs = _relu_setup(kinked=True)
+    so = probe(relu_forward, relu_backward, params, inputs, hvp=no_cross).second_order
+    assert so.status == "fail" and so.error_enters_at == "hessian"
+    layers = {(b.rows.split(".")[0], b.cols.split(".")[0]) for b in so.failing_blocks}
+    assert layers == {("hidden", "out"), ("out", "hidden")}
+    assert any(b.hint and "missing" in b.hint for b in so.failing_blocks)
