@@ -16,13 +16,14 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..status import FAIL, INCONCLUSIVE, KINK, PASS
-from .probe import ROUNDING_UNITS
+from .roundoff import FLOAT64_ROUNDING_UNITS as ROUNDING_UNITS  # a gradient value's rounding
 from .second_source import GradientField, HessianSource, Layout
 
 UNSURE = INCONCLUSIVE  # per-row codes: the engine's codes of each Status
 FLOOR_FRACTION = 1e-3  # a row's denominator never falls below 1e-3 of its tensor's scale ...
 TARGET_FLOOR_FRACTION = 1e-4  # ... nor below 1e-4 of the whole column's
 LADDER = (1.0, 0.5, 0.125, 0.0625)  # steps (times the first) of the two levels of rechecks
+WIDE = (8.0, 4.0)  # and of the wide level for rows the two leave undecided
 
 
 def power_of_two(value: float) -> float:
@@ -107,7 +108,9 @@ class Slopes:
         den = np.maximum(np.maximum(np.abs(a), np.abs(numeric)), floor)
         tol = self.threshold * den
         err = self._noise(gp, gm) / h
-        code = np.where(np.abs(a - numeric) <= tol + err, PASS, FAIL)
+        # The numeric value's own rounding counts in a row's favour only up to the threshold:
+        # a row noisier than that is looked at again, and is inconclusive if it stays so.
+        code = np.where(np.abs(a - numeric) <= tol + np.minimum(err, tol), PASS, FAIL)
         best, best_err = numeric.copy(), err
         open_rows = np.flatnonzero(code == FAIL)
         if open_rows.size:
@@ -119,7 +122,8 @@ class Slopes:
     def _recheck(self, d, h, a, tol, rows, code, best, best_err, first):
         """The ladder: level 1 uses steps h and h/2, level 2 h/8 and h/16. A row passes or
         is a kink at the first level that says so; it fails only when both levels say it is
-        clearly off; otherwise it is inconclusive."""
+        clearly off and agree; otherwise a wide level (8h, 4h) may pass it, or it is
+        inconclusive."""
         gp2, gm2, _ = self._pair(d, h * LADDER[1])
         verdicts, estimates = [], []
         levels = [(first, (gp2, gm2), h, h * LADDER[1])]
@@ -143,6 +147,16 @@ class Slopes:
             stable = np.abs(e1[rows] - e2[rows]) <= r1[rows] + r2[rows] + tol[rows]
             both_fail = (verdicts[0][rows] == FAIL) & (verdicts[-1][rows] == FAIL) & stable
             code[rows] = np.where(both_fail, FAIL, UNSURE)
+            rows = rows[~both_fail]
+        if rows.size:
+            # Rows still undecided may be drowned in rounding (an element far smaller than the
+            # gradient it is the derivative of): wider steps, 4h and 8h, where rounding weighs
+            # less; only a pass is taken from them.
+            wide = (self._pair(d, h * WIDE[0])[:2], self._pair(d, h * WIDE[1])[:2])
+            v, est, err = self._level(a, tol, wide[0], wide[1], h * WIDE[0], h * WIDE[1])
+            passed = rows[v[rows] == PASS]
+            code[passed] = PASS
+            best[passed], best_err[passed] = est[passed], err[passed]
         return code, best, best_err
 
     def _level(self, a, tol, one, two, h1, h2):
@@ -161,7 +175,7 @@ class Slopes:
         err_r = np.abs(r2 - r1) * ratio / (ratio - 1) + 4 * nz / h2
         err_l = np.abs(l2 - l1) * ratio / (ratio - 1) + 4 * nz / h2
         off = np.abs(a - est)
-        plain = np.abs(a - d2) <= tol + nz / h2
+        plain = np.abs(a - d2) <= tol + np.minimum(nz / h2, tol)
         ok = (off <= tol) | plain
         side_r = (np.abs(a - est_r) <= tol + err_r) & (err_r < off)
         side_l = (np.abs(a - est_l) <= tol + err_l) & (err_l < off)

@@ -27,7 +27,7 @@ from ..options import CheckOptions
 from ..report_second import ForwardAgreement, SecondOrderResult
 from ..status import Status, worst
 from .point import Point
-from .probe import ROUNDING_UNITS
+from .roundoff import rounding_units
 from .sampling import stratified, tensor_rng
 from .second_blocks import KEEP_ELEMENTS, BlockTally
 from .second_forward import mixed_difference, mixed_sides
@@ -165,7 +165,7 @@ class _Run:
     def pairs(self, point: Point, eps: float, g0: np.ndarray) -> tuple[ForwardAgreement, list[str]]:
         """Check 2 on every pair of tensors, reusing check 1's random directions."""
         names = self.layout.names
-        noise = ROUNDING_UNITS * eps * point.loss_scale
+        noise = rounding_units(point.numerics.dtype) * eps * point.loss_scale
         x = self.slopes.x
         done, failed, failing, worst_rel, resolutions = 0, 0, [], 0.0, []
         kinked: list[tuple[str, str]] = []
