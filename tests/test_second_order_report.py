@@ -63,7 +63,7 @@ def test_terminal_block_table_and_where_the_error_enters(run_cli):
     assert rows["rule.b × rule.b"].split()[-1] == "fail"
     assert rows["share × share"].split()[-1] == "pass"
     assert any(line.startswith("second derivatives: the error enters at the Hessian") for line in lines)
-    assert lines[-1].startswith("FAIL  second derivatives: 3 of 9 Hessian blocks disagree")
+    assert lines[-1].startswith("DISAGREES · second derivatives: 3 of 9 Hessian blocks disagree")
 
 
 def test_reservoir_samples(run_cli):
