@@ -82,7 +82,18 @@ def frame(target: Target) -> tuple[Target, Framing]:
     params = boundary.numpy_tree(target.params)
     inputs = boundary.numpy_tree(target.inputs)
     return replace(target, forward=forward, backward=backward, params=params, inputs=inputs,
-                   spec=None), framing
+                   spec=None, **_second_order(target, boundary)), framing
+
+
+def _second_order(target: Target, boundary: Boundary) -> dict[str, Any]:
+    """hvp and hessian (protocol section 7) called with the user's arrays, ``v`` included."""
+    out: dict[str, Any] = {}
+    if target.hessian is not None:
+        out["hessian"] = Framed(target.hessian, boundary, "hessian")
+    if target.hvp is not None:
+        framed = Framed(target.hvp, boundary, "hvp")
+        out["hvp"] = lambda p, i, v: framed(p, i, boundary.user_tree(v, {}))
+    return out
 
 
 class Framed:

@@ -6,6 +6,7 @@ from __future__ import annotations
 import json
 import xml.etree.ElementTree as ET
 
+import pytest
 from conftest import SAMPLES
 
 from gradprobe import probe
@@ -172,3 +173,25 @@ def test_a_missing_gradient_skips_second_derivatives_with_a_note(run_cli, write_
     code, report = _json(run_cli, str(path))
     assert code == 1 and report["second_order"] is None
     assert any("not checked: backward gives no usable gradient for b" in n for n in report["notes"])
+
+
+def test_torch_target_gets_its_own_arrays_in_hvp(run_cli, write_target):
+    """A PyTorch target's hvp receives torch tensors, v included, and its result is checked."""
+    pytest.importorskip("torch")
+    path = write_target("""
+        import torch
+        def setup():
+            g = torch.Generator().manual_seed(3)
+            return {"w": torch.randn(4, generator=g, dtype=torch.float64)}, {
+                "x": torch.randn(10, 4, generator=g, dtype=torch.float64)}
+        def forward(p, i):
+            return torch.nn.functional.softplus(i["x"] @ p["w"]).sum()
+        def backward(p, i):
+            return {"w": i["x"].T @ torch.sigmoid(i["x"] @ p["w"])}
+        def hvp(p, i, v):
+            assert isinstance(v["w"], torch.Tensor)
+            s = torch.sigmoid(i["x"] @ p["w"])
+            return {"w": i["x"].T @ (s * (1 - s) * (i["x"] @ v["w"]))}
+    """)
+    code, report = _json(run_cli, str(path))
+    assert code == 0 and report["second_order"]["status"] == "pass"
