@@ -17,10 +17,11 @@ from typing import Any
 import numpy as np
 
 from .autograd import ReverseMode
+from .autograd_hvp import DoubleBackward
 from .boundary import NUMPY, Boundary, Kind, describe, rebuilt
 from .errors import TargetLoadError
 from .report import Report
-from .target import MISSING_FIX, Target
+from .target import DOUBLE_FIX, MISSING_FIX, Target, no_double_backward
 from .tensors import flatten
 
 AUTOGRAD_LIBRARIES = ("torch", "jax")
@@ -57,6 +58,11 @@ class Framing:
 def frame(target: Target) -> tuple[Target, Framing]:
     """``target`` as the engine runs it, and what the report says about its arrays."""
     boundary = describe(target.params, target.inputs)
+    if target.double_backward and (target.backward is not None
+                                   or boundary.library not in AUTOGRAD_LIBRARIES):
+        why = ("it gives its own backward" if target.backward is not None
+               else f"its arrays are {boundary.library}'s")
+        raise TargetLoadError(no_double_backward(why), fix=DOUBLE_FIX)
     if not boundary.kinds:
         if target.backward is None:
             raise TargetLoadError(
@@ -93,6 +99,8 @@ def _second_order(target: Target, boundary: Boundary) -> dict[str, Any]:
     if target.hvp is not None:
         framed = Framed(target.hvp, boundary, "hvp")
         out["hvp"] = lambda p, i, v: framed(p, i, boundary.user_tree(v, {}))
+    if target.double_backward:
+        out["hvp"] = DoubleBackward(target.forward, boundary, boundary.library)
     return out
 
 

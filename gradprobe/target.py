@@ -40,6 +40,8 @@ class Target:
     # Second derivatives (protocol section 7), when the target gives them.
     hvp: Callable[..., Any] | None = None
     hessian: Callable[..., Any] | None = None
+    # ``second_order = True``: H v by the framework's double backward (forward-only targets)
+    double_backward: bool = False
 
 
 MISSING_FIX = {  # what to write when the target lacks one of its functions
@@ -227,7 +229,9 @@ def target_from_object(obj: Any, label: str, spec: str | None = None) -> Target:
             raise TargetLoadError("the target has no backward function", value="backward",
                                   fix=MISSING_FIX["backward"])
     hvp, hessian = _second_order(obj)
-    return Target(label, forward, backward, params, inputs, spec, hvp=hvp, hessian=hessian)
+    double = _double_backward(obj, backward, hvp, hessian)
+    return Target(label, forward, backward, params, inputs, spec, hvp=hvp, hessian=hessian,
+                  double_backward=double)
 
 
 def _second_order(obj: Any) -> tuple[Callable[..., Any] | None, Callable[..., Any] | None]:
@@ -244,3 +248,31 @@ def _second_order(obj: Any) -> tuple[Callable[..., Any] | None, Callable[..., An
                               value=obj)
     return found[0], found[1]
 
+
+
+DOUBLE_FIX = ("drop backward so the framework's reverse mode gives the gradient, or give "
+              "hvp(params, inputs, v) or hessian(params, inputs) instead of second_order = True")
+
+
+def _double_backward(obj: Any, backward: Any, hvp: Any, hessian: Any) -> bool:
+    """The target's ``second_order`` flag (protocol section 7): True asks for Hessian-vector
+    products through the framework, which only a forward-only torch or jax target has."""
+    flag = _get(obj, "second_order")
+    if flag is None or flag is False:
+        return False
+    if flag is not True:
+        raise TargetLoadError(f"the target's second_order is {flag!r}; it must be True or False",
+                              value=flag)
+    if hvp is not None or hessian is not None:
+        raise TargetLoadError("the target gives second_order = True and also "
+                              f"{'hvp' if hvp is not None else 'hessian'}; give one of them",
+                              value=obj)
+    if backward is not None:
+        raise TargetLoadError(no_double_backward("it gives its own backward"), value=backward,
+                              fix=DOUBLE_FIX)
+    return True
+
+
+def no_double_backward(why: str) -> str:
+    return ("second_order = True takes Hessian-vector products through the framework's double "
+            f"backward, so it needs a forward-only torch or jax target, but {why}")

@@ -42,10 +42,10 @@ FORWARD_MARGIN = 3.0  # check 2 fails beyond its threshold plus this many error 
 
 def second_order_source(target: Any, ws: Any, layout: Layout) -> HessianSource | None:
     """The target's Hessian form, or None when it gives none. (A framework's double backward
-    will be one more :class:`HvpSource`: a function (params, inputs, v) -> H v.)"""
+    is one more :class:`HvpSource`, whose function names its form.)"""
     hvp, hessian = getattr(target, "hvp", None), getattr(target, "hessian", None)
     if hvp is not None:
-        return HvpSource(hvp, ws, layout)
+        return HvpSource(hvp, ws, layout, form=getattr(hvp, "form", "hvp"))
     if hessian is not None:
         return DenseSource(hessian, ws, layout)
     return None
