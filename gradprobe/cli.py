@@ -41,8 +41,8 @@ CHECK_HELP = f"""Check the backward pass of each TARGET against central differen
 TARGET is a Python file (nets/mlp.py), a dotted module (nets.mlp), either followed by
 :NAME for an attribute (nets/mlp.py:dense_case). The target provides forward, backward and
 setup() or params, or layers (a stack: every layer's backward is checked on its own, and the
-report says where the error enters); a target that also gives hvp or hessian has its second
-derivatives checked per block after the gradient; see the README for the protocol. With no TARGET, the targets listed in
+report says where the error enters); a target that also gives hvp or hessian (or, forward only
+with torch or jax, second_order = True) has its second derivatives checked per block after the gradient; see the README for the protocol. With no TARGET, the targets listed in
 [tool.gradprobe] of the nearest pyproject.toml are checked; its other keys
 ({", ".join(s.config_key for s in SETTINGS)}) set defaults that options override.
 --settings-in-force says which value each setting has and where it came from.
