@@ -174,7 +174,7 @@ def _central(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
                                                       h[beyond], judged.pick(beyond)))
         todo = np.sort(todo[order[:RECHECK_LIMIT]])
     start = start_steps(probe, flat[todo], _pick(first, todo), h[todo])
-    return unabsorbed(probe, judged.merged(todo, _ladder_verdicts(probe, flat[todo], start)), first)
+    return unabsorbed(probe, flat, judged.merged(todo, _ladder_verdicts(probe, flat[todo], start)), first)
 
 
 def _beyond_budget(probe: TensorProbe, flat: np.ndarray, first: Pairs, h: np.ndarray, plain: Judged) -> Judged:

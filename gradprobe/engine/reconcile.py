@@ -31,7 +31,8 @@ FUZZY = (
 BOTH_SIDES = 0.1
 ABSORBED = (
     "the loss does not change at all at the steps a decision needs, though it does at larger "
-    "ones: rounding in forward absorbs them (sums of much larger terms?)"
+    "ones: rounding in forward absorbs them (sums of much larger terms, or a cast to a narrower type "
+    "inside?)"
 )
 
 
@@ -82,23 +83,56 @@ def narrow_reconciled(
     return a, numeric, error_estimate, status, reasons, scale
 
 
-def unabsorbed(probe: TensorProbe, judged: Judged, first: Pairs) -> Judged:
+def unabsorbed(probe: TensorProbe, flat: np.ndarray, judged: Judged, first: Pairs) -> Judged:
     """A failure read off a loss that did not change at all (an estimate of exactly 0),
     where the first pair saw it change on both sides alike (the smaller change at least
     BOTH_SIDES of the larger, as slope and curvature give), is rounding in forward absorbing the
     smaller steps (float32 sums of much larger terms), not evidence of a derivative of 0.
-    (A loss flat near the point, a unit switched off, changes on one side only: the step
-    that reached the kink.)"""
+    Where not even the first pair changed it, a larger step must (:func:`_changes_through`):
+    code that rounds to a type narrower than its arrays inside (a cast to bfloat16) has a
+    loss that is a staircase far coarser than the arrays' steps. (A loss flat near the
+    point, a unit switched off, changes on one side only: the step that reached the kink; a
+    loss that does not depend on the param never changes.)"""
     first_central = first.central
     up, down = np.abs(first.f_plus - probe.f0), np.abs(first.f_minus - probe.f0)
     both = (np.minimum(up, down) >= BOTH_SIDES * np.maximum(up, down)) & (first_central != 0.0)
-    absorbed = np.flatnonzero((judged.status == FAIL) & (judged.estimate.value == 0.0) & both)
+    zero_fail = (judged.status == FAIL) & (judged.estimate.value == 0.0)
+    still = np.flatnonzero(zero_fail & (up == 0.0) & (down == 0.0))
+    if still.size:  # not even the first pair changed the loss: does a larger step?
+        both[still] = _changes_through(probe, flat[still], 0.5 * (first.h_plus[still] + first.h_minus[still]))
+    absorbed = np.flatnonzero(zero_fail & both)
     if absorbed.size == 0:
         return judged
     undecided = Judged(np.full(absorbed.size, INCONCLUSIVE, dtype=judged.status.dtype),
                        Estimate(first_central[absorbed], np.full(absorbed.size, np.inf)),
                        (ABSORBED,) * absorbed.size, np.ones(absorbed.size, dtype=bool))
     return judged.merged(absorbed, undecided)
+
+
+RISE = 16.0  # the larger steps tried: 16, 256, ... times the first
+RISES = 6
+
+
+def _changes_through(probe: TensorProbe, flat: np.ndarray, h: np.ndarray) -> np.ndarray:
+    """Per coordinate: at some step h * RISE**k (k = 1..RISES, never beyond the params' own
+    scale) the loss changes on both sides, the smaller change at least BOTH_SIDES of the
+    larger: the smaller steps were absorbed, not the loss flat on one side of a kink (a unit
+    switched off changes it on one side only). A zone where the loss is flat on both sides
+    of the point (a soft threshold) looks the same and is undecided too, never a pass.
+    One batch of pairs."""
+    scale = np.maximum(np.abs(probe.x[flat].astype(np.float64)), probe.x_scale)
+    factors = RISE ** np.arange(1, RISES + 1)
+    steps = h[None, :] * factors[:, None]
+    within = steps <= np.maximum(scale, h)[None, :]
+    levels = int(within.any(axis=1).sum())
+    if levels == 0:
+        return np.zeros(flat.size, dtype=bool)
+    p = probe.pairs(np.tile(flat, levels), steps[:levels].reshape(-1))
+    up = (p.f_plus - probe.f0).reshape(levels, flat.size)
+    down = (probe.f0 - p.f_minus).reshape(levels, flat.size)
+    alike = np.minimum(np.abs(up), np.abs(down)) >= BOTH_SIDES * np.maximum(np.abs(up), np.abs(down))
+    alike &= np.maximum(np.abs(up), np.abs(down)) > 0
+    return (alike & within[:levels]).any(axis=0)
 
 
 def unfuzzed(

@@ -1,0 +1,119 @@
+"""Code that computes in a type narrower than its arrays (it casts to bfloat16 or float16 inside,
+so its loss is a staircase far coarser than the arrays' own rounding), and code judged on its
+own narrow arithmetic.
+
+Scenario: crop yields of a few fields predicted by tanh(x W) * gain, fitted by a sum of squared
+residuals. Whether a backward is right is established outside gradprobe: mpmath's
+differentiation (40 digits) of the same loss written with mpmath's arithmetic at the values the
+code sees; d/dz tanh z = 1 - tanh^2 z (Abramowitz & Stegun 4.5.82, from memory).
+"""
+
+from __future__ import annotations
+
+import mpmath
+import numpy as np
+import pytest
+
+from gradprobe import probe
+
+ml_dtypes = pytest.importorskip("ml_dtypes")
+BF16 = np.dtype(ml_dtypes.bfloat16)
+mpmath.mp.dps = 40
+
+RNG = np.random.default_rng(5)
+X = RNG.normal(size=(6, 3))
+W = 0.5 * RNG.normal(size=(3, 2))
+Y = RNG.normal(size=(6, 2))
+GAIN = 1.3
+
+
+def crop_model(inner, factor=1.0, array=np.float64):
+    """forward/backward computing in ``inner`` whatever arrays they get; every gradient is
+    ``factor`` times the exact one (1: correct). Params and inputs are ``array`` arrays."""
+    def forward(p, i):
+        x, w, g = i["x"].astype(inner), p["w"].astype(inner), p["gain"].astype(inner)
+        r = np.tanh(x @ w) * g - i["y"].astype(inner)
+        return np.sum(r * r).astype(p["w"].dtype)
+
+    def backward(p, i):
+        x, w, g = i["x"].astype(inner), p["w"].astype(inner), p["gain"].astype(inner)
+        t = np.tanh(x @ w)
+        dr = 2 * (t * g - i["y"].astype(inner))
+        return {"w": (x.T @ (dr * g * (1 - t * t)) * inner(factor)).astype(p["w"].dtype),
+                "gain": (np.sum(dr * t) * inner(factor)).astype(p["gain"].dtype)}
+
+    params = {"w": W.astype(array), "gain": np.array(GAIN, dtype=array)}
+    inputs = {"x": X.astype(array), "y": Y.astype(array)}
+    return forward, backward, params, inputs
+
+
+def mp_gradient(params, inputs, inner):
+    """d loss / d gain and d loss / d W by mpmath at the values the code computes with."""
+    seen = {k: np.asarray(v).astype(inner).astype(np.float64) for k, v in {**params, **inputs}.items()}
+    x, y = seen["x"], seen["y"]
+
+    def loss(w, g):
+        total = mpmath.mpf(0)
+        for r in range(x.shape[0]):
+            for c in range(len(w[0])):
+                z = sum(mpmath.mpf(x[r, k]) * w[k][c] for k in range(x.shape[1]))
+                total += (mpmath.tanh(z) * g - mpmath.mpf(y[r, c])) ** 2
+        return total
+
+    w0 = [[mpmath.mpf(v) for v in row] for row in seen["w"]]
+    g0 = mpmath.mpf(float(seen["gain"]))
+    d_gain = float(mpmath.diff(lambda g: loss(w0, g), g0))
+    d_w = np.zeros(seen["w"].shape)
+    for k in range(d_w.shape[0]):
+        for c in range(d_w.shape[1]):
+            def along(v, k=k, c=c):
+                w = [row[:] for row in w0]
+                w[k][c] = v
+                return loss(w, g0)
+            d_w[k, c] = float(mpmath.diff(along, w0[k][c]))
+    return d_gain, d_w
+
+
+@pytest.mark.parametrize("inner", [BF16.type, np.float16])
+def test_the_crop_model_is_right_by_mpmath(inner):
+    """The correct backward is within the inner type's rounding of mpmath's derivative, and the
+    buggy one is twice it (so the targets below are what they claim to be)."""
+    forward, backward, params, inputs = crop_model(inner)
+    d_gain, d_w = mp_gradient(params, inputs, inner)
+    ours = backward(params, inputs)
+    u = float(np.finfo(inner).eps) / 2
+    scale = np.sqrt(np.mean(d_w**2))
+    assert abs(float(ours["gain"]) - d_gain) <= 64 * u * abs(d_gain)
+    assert np.max(np.abs(ours["w"] - d_w)) <= 64 * u * scale
+
+
+@pytest.mark.parametrize("array", [np.float64, np.float32])
+@pytest.mark.parametrize("inner", [BF16.type, np.float16])
+def test_correct_code_rounding_inside_to_a_narrower_type_does_not_fail(inner, array):
+    """float64 or float32 arrays, arithmetic in bfloat16 or float16 inside: the loss does not
+    change at all at the steps the arrays' type would take, only at larger ones. That is
+    the inner type's rounding absorbing the step, not a derivative of 0: no failure."""
+    forward, backward, params, inputs = crop_model(inner, array=array)
+    report = probe(forward, backward, params, inputs)
+    assert report.ok, [(t.name, t.status, t.details[:2]) for t in report.tensors]
+
+
+@pytest.mark.parametrize("array", [np.float64, np.float32])
+def test_a_bug_in_code_rounding_inside_is_never_a_pass(array):
+    forward, backward, params, inputs = crop_model(BF16.type, 2.0, array=array)
+    report = probe(forward, backward, params, inputs)
+    assert all(t.status != "pass" for t in report.tensors), [(t.name, t.status) for t in report.tensors]
+
+
+def test_a_gradient_for_a_value_forward_ignores_still_fails():
+    """The rule that names rounding absorbing a step does not hide a gradient where forward
+    does not depend on the param at all (its loss never changes, at any step)."""
+    forward, backward, params, inputs = crop_model(np.float64)
+
+    def with_unused(p, i):
+        g = backward({k: v for k, v in p.items() if k != "unused"}, i)
+        return {**g, "unused": np.full(3, 0.5)}
+
+    params = {**params, "unused": np.array([0.3, -1.2, 2.0])}
+    report = probe(forward, with_unused, params, inputs)
+    assert report.tensor("unused").status == "fail"
