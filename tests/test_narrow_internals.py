@@ -74,7 +74,7 @@ def mp_gradient(params, inputs, inner):
     return d_gain, d_w
 
 
-@pytest.mark.parametrize("inner", [BF16.type, np.float16])
+@pytest.mark.parametrize("inner", [BF16.type, np.float16, np.float32])
 def test_the_crop_model_is_right_by_mpmath(inner):
     """The correct backward is within the inner type's rounding of mpmath's derivative, and the
     buggy one is twice it (so the targets below are what they claim to be)."""
@@ -117,3 +117,32 @@ def test_a_gradient_for_a_value_forward_ignores_still_fails():
     params = {**params, "unused": np.array([0.3, -1.2, 2.0])}
     report = probe(forward, with_unused, params, inputs)
     assert report.tensor("unused").status == "fail"
+
+
+@pytest.mark.parametrize("array", [np.float64, np.float32])
+@pytest.mark.parametrize("factor", [1.0, 1.005, 2.0])
+def test_code_computing_in_float32_inside_is_judged_on_float32(array, factor):
+    """float32 arithmetic inside, float32 or float64 arrays: its float64 run is no float64 run
+    (it casts back), so it is judged on float32 arithmetic at float32's threshold: the correct
+    model passes (a loss of ordinary scale: not undecided), an error of 0.5% or 2x fails."""
+    forward, backward, params, inputs = crop_model(np.float32, factor, array=array)
+    report = probe(forward, backward, params, inputs)
+    assert report.threshold == pytest.approx(4.9e-4)
+    expected = {"pass"} if factor == 1.0 else {"fail"}
+    assert {t.status for t in report.tensors} == expected, [(t.name, t.status) for t in report.tensors]
+
+
+# Correct float32 targets with their loss cast to float32 (no float64 run) that rounding noise
+# left undecided at every step of the ladders; steps far wider, checked to follow the error
+# model on each coordinate, decide them. Reference: mpmath, through the adversarial generator.
+WIDE_SEEDS = [48, 77, 107, 141]
+
+
+@pytest.mark.parametrize("seed", WIDE_SEEDS)
+def test_float32_cast_loss_targets_are_decided_on_wider_steps(seed):
+    from adversarial import judge
+
+    o = judge("float32only", seed)
+    assert o["correct"] and o["unverified"] is None
+    assert not o["false_alarm"], (o["status"], o["expect"])
+    assert not o["inconclusive"], o["status"]

@@ -22,7 +22,9 @@ from .probe import Pairs, TensorProbe
 from .reconcile import narrow_reconciled, unabsorbed, unfuzzed
 from .refine import RATIO, ROWS, Ladder, climb, one_sided, tiny_pair
 from .steps import SETTLE_FRACTION, gap_suspects, largest_smooth_step, start_steps, steps_down
-from .verdict import Judged, judge_ladder, judge_plain, judge_sides_apart, sides_differ
+from .narrow import wide_estimate
+from .roundoff import is_narrow
+from .verdict import NOISE, Judged, judge_ladder, judge_plain, judge_sides_apart, sides_differ
 
 RETRY_SHIFT = 6  # a second ladder starts 2**6 steps higher (noise) or lower (curvature)
 RECHECK_LIMIT = 400  # coordinates per tensor re-estimated on a ladder
@@ -174,7 +176,22 @@ def _central(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
                                                       h[beyond], judged.pick(beyond)))
         todo = np.sort(todo[order[:RECHECK_LIMIT]])
     start = start_steps(probe, flat[todo], _pick(first, todo), h[todo])
-    return unabsorbed(probe, flat, judged.merged(todo, _ladder_verdicts(probe, flat[todo], start)), first)
+    judged = judged.merged(todo, _ladder_verdicts(probe, flat[todo], start))
+    return unabsorbed(probe, flat, _widened(probe, flat, judged), first)
+
+
+def _widened(probe: TensorProbe, flat: np.ndarray, judged: Judged) -> Judged:
+    """Narrow code judged on its own arithmetic: coordinates that rounding noise left
+    undecided at every step of the ladders, judged on much wider steps
+    (:func:`.narrow.wide_estimate`) where those decide them."""
+    if not is_narrow(probe.compute_dtype) or probe.narrow is not None:
+        return judged
+    noisy = np.flatnonzero((judged.status == INCONCLUSIVE) & np.array([r == NOISE for r in judged.reasons], dtype=bool))
+    if noisy.size == 0:
+        return judged
+    wide = judge_plain(probe, flat[noisy], wide_estimate(probe, flat[noisy]))
+    decided = np.flatnonzero(wide.status != INCONCLUSIVE)
+    return judged.merged(noisy[decided], wide.pick(decided))
 
 
 def _beyond_budget(probe: TensorProbe, flat: np.ndarray, first: Pairs, h: np.ndarray, plain: Judged) -> Judged:

@@ -87,3 +87,97 @@ def kink_within_reach(
     lv, rv, nv = left[row, cols], right[row, cols], noise[row, cols]
     nearer = np.where(np.abs(narrow - lv) <= np.abs(narrow - rv), lv, rv)
     return took, Estimate(nearer[took], nv[took])
+
+
+# -- code judged on its own narrow arithmetic: wide steps ------------------------------------
+
+WIDE_ROWS = 4  # a window of four steps s, 2s, 4s, 8s
+WIDE_FIRST, WIDE_LAST = -2, 5  # windows start at the first step times 2**k, k in this range
+WIDE_SAFETY = 2.0  # the measured higher-order term is taken twice
+WIDE_NOISE = 2.0  # and the rounding it carries twice (as the ladder's tableau does)
+SHRINK_LIMIT = 0.625  # differences of the quotients halve their steps' squares: 1/4, with room
+
+
+def wide_estimate(probe: TensorProbe, flat: np.ndarray) -> Estimate:
+    """The derivative of narrow code from central quotients at steps far larger than the
+    ladder's, where rounding noise no longer hides it: narrow arithmetic puts the best
+    central step near u**(1/3) of the scale, and the loss stays smooth well beyond.
+
+    Windows of WIDE_ROWS steps s1 < s2 < s3 < s4 (each twice the last; their real widths
+    are used) from the first step times 2**WIDE_FIRST up to 2**(WIDE_LAST + 3). In a window
+    the quotients D = f' + c2 s**2 + c4 s**4 + ...: Richardson's R12 = (s2**2 D1 -
+    s1**2 D2) / (s2**2 - s1**2) = f' - c4 s1**2 s2**2 + ...; c4 is measured twice, from
+    R12 - R23 and from R23 - R34 (two measures, so that orders cancelling in one show in the
+    other), each with its rounding added, and the larger taken WIDE_SAFETY times; R12's own
+    rounding counts WIDE_NOISE times. A window is used only where its quotients are seen to
+    follow that model: each difference of consecutive quotients at most SHRINK_LIMIT of the
+    next larger one (they shrink fourfold as the step halves), beyond rounding, and the
+    one-sided quotients' gap shrinks with the step as curvature makes it (a kink within
+    the window keeps it). The estimate with the smallest bound; one batch of pairs."""
+    n = flat.size
+    ks = np.arange(WIDE_FIRST, WIDE_LAST + WIDE_ROWS)
+    h0 = probe.prior_steps(flat)
+    p = probe.pairs(np.tile(flat, ks.size), np.concatenate([h0 * 2.0**k for k in ks]))
+    rows = ks.size
+    d = p.central.reshape(rows, n)
+    s = (0.5 * (p.h_plus + p.h_minus)).reshape(rows, n)
+    e = (2.0 * p.noise / (p.h_plus + p.h_minus)).reshape(rows, n)  # each quotient's rounding
+    right, left = (q.reshape(rows, n) for q in p.sides(probe.f0))
+    side_noise = (2.0 * p.noise / np.minimum(p.h_plus, p.h_minus)).reshape(rows, n)
+    gap = np.abs(right - left)
+    # Asymmetric moves (x + h and x - h rounded to the type's grid) leave a first-order term
+    # f'' (h+ - h-) / 2 in a central quotient; f'' from the one-sided gap at the same step.
+    skew = gap * (np.abs(p.h_plus - p.h_minus) / np.maximum(p.h_plus + p.h_minus, 1e-300)).reshape(rows, n)
+    e = e + skew
+
+    def richardson(i: int) -> tuple[np.ndarray, np.ndarray]:
+        a2, b2 = s[i] ** 2, s[i + 1] ** 2
+        value = (b2 * d[i] - a2 * d[i + 1]) / (b2 - a2)
+        noise = (b2 * e[i] + a2 * e[i + 1]) / (b2 - a2)
+        return value, noise
+
+    # Never beyond the params' own scale (as steps.largest_smooth_step): past it the loss
+    # along a coordinate is another function, and agreement there proves nothing.
+    scale = np.maximum(np.abs(probe.x[flat].astype(np.float64)), probe.x_scale)
+    value = d[0].copy()
+    error = np.full(n, np.inf)
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        for w in range(rows - WIDE_ROWS + 1):
+            i = np.arange(w, w + WIDE_ROWS)
+            signed = [d[i[k + 1]] - d[i[k]] for k in range(3)]
+            steps = [np.abs(x) for x in signed]
+            noise = [e[i[k]] + e[i[k + 1]] for k in range(3)]
+            follows = np.ones(n, dtype=bool)
+            for k in range(2):
+                room = 2.0 * WIDE_NOISE * (noise[k] + noise[k + 1])
+                follows &= steps[k] <= SHRINK_LIMIT * steps[k + 1] + room
+                # nor faster than fourfold twice over, and in the same direction: past the
+                # scale on which the loss is smooth (an oscillation, a bend) quotients wander.
+                follows &= steps[k] >= steps[k + 1] / 16.0 - room
+                follows &= (signed[k] * signed[k + 1] > 0) | (np.minimum(steps[k], steps[k + 1]) <= room)
+            # The one-sided gap grows in proportion to the step (curvature), not stays (a kink).
+            first, last = i[0], i[-1]
+            follows &= gap[first] <= gap[last] * (s[first] / s[last]) * 2.0 + 2.0 * WIDE_NOISE * (side_noise[first] + side_noise[last])
+            r12, n12 = richardson(i[0])
+            r23, n23 = richardson(i[1])
+            r34, n34 = richardson(i[2])
+            s1, s2, s3, s4 = (s[k] for k in i)
+            wa, wb = s2**2 * (s3**2 - s1**2), s3**2 * (s4**2 - s2**2)
+            c4a, c4b = (r12 - r23) / wa, (r23 - r34) / wb
+            slack_a, slack_b = (n12 + n23) / wa, (n23 + n34) / wb
+            # The model predicts one c4: the two measures must agree (to a factor of two,
+            # beyond rounding); a corner or a kink between the steps breaks that.
+            follows &= np.abs(c4a - c4b) <= 0.5 * np.maximum(np.abs(c4a), np.abs(c4b)) + 2.0 * WIDE_NOISE * (slack_a + slack_b)
+            c4a, c4b = np.abs(c4a) + slack_a, np.abs(c4b) + slack_b
+            bound = WIDE_SAFETY * np.maximum(c4a, c4b) * s1**2 * s2**2 + WIDE_NOISE * n12
+            # Every smaller step's quotient lies at least as close to the estimate as the
+            # window's smallest does, within its own rounding: the window continues the loss
+            # seen at small steps, not a regime past a bend or an oscillation.
+            for j in range(w):
+                follows &= np.abs(d[j] - r12) <= np.abs(d[i[0]] - r12) + WIDE_NOISE * e[j] + bound
+            follows &= s4 <= scale
+            bound = np.where(follows & np.isfinite(bound), bound, np.inf)
+            take = bound < error
+            value = np.where(take, r12, value)
+            error = np.where(take, bound, error)
+    return Estimate(value, error)

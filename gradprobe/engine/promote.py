@@ -24,6 +24,7 @@ from ..errors import ProbeError
 from ..tensors import Workspace, is_float
 from .evaluate import Evaluator, LossFunction
 from .gradients import Gradients, validate
+from .precision import narrower_compute_type
 from .preflight import call_backward
 from .roundoff import default_threshold, is_narrow
 
@@ -51,7 +52,8 @@ def promote(
 ) -> Promoted | None:
     """float64 numerics for a narrow target, or None when its code does not take float64.
 
-    Costs one forward call (counted by ``evaluator``) and one backward call."""
+    Costs four forward calls (counted by ``evaluator``: the run, and three that look for a
+    narrower type inside, :func:`.precision.narrower_compute_type`) and one backward call."""
     names = _narrow_names(ws)
     if not names:
         return None
@@ -60,9 +62,12 @@ def promote(
     grad_output = evaluator.loss.grad_output
     loss = LossFunction(evaluator.loss.forward, wide, grad_output)
     try:
-        f64, dtype = evaluator.sibling(loss).base_with_type()
+        wide_evaluator = evaluator.sibling(loss)
+        f64, dtype = wide_evaluator.base_with_type()
         if dtype != np.float64:
             return None
+        if narrower_compute_type(wide_evaluator, wide, f64, dtype) is not None:
+            return None  # it casts to a narrower type inside: the float64 run is not float64
         if abs(f64 - f0) > AGREEMENT * max(abs(f0), abs(f64)):
             return None
         raw = call_backward(backward, wide, grad_output)
