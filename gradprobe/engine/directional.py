@@ -50,7 +50,7 @@ def _result(probe: TensorProbe, d: DirectionCheck) -> DirectionResult:
     scale = max(abs(d.analytic), abs(numeric), probe.floor)
     return DirectionResult(
         analytic=d.analytic, numeric=numeric, error_estimate=d.error,
-        rel_error=abs(d.discrepancy) / scale, ok=not d.significant,
+        rel_error=abs(d.discrepancy) / scale, ok=not (d.significant or d.unresolved),
         evaluations=d.evaluations, kink=d.kink,
     )
 
@@ -75,11 +75,40 @@ def _resolution(probe: TensorProbe, checks: list[DirectionCheck]) -> float:
     return SIGNIFICANCE * min(bounds) * max(probe.size, 1) ** 0.5
 
 
-def directional(probe: TensorProbe, count: int, seed: int, stop_early: bool = True) -> Directional:
-    """``count`` directional checks of the probed tensor (a direction hidden by kinks is
-    replaced, twice at most), each significant one localised; with ``stop_early`` (the
-    default plan, not a count the user asked for), none after one whose candidates plainly
-    fail."""
+def _evidence(checks: list[DirectionCheck]) -> int:
+    """Directions that decided something: a significant discrepancy, or agreement."""
+    return sum(1 for c in checks if c.significant or c.agrees)
+
+
+def _undecided_reason(probe: TensorProbe, checks: list[DirectionCheck]) -> str:
+    """Why no direction decided a tensor too large to sweep."""
+    kinked = sum(1 for c in checks if c.kink)
+    smooth = [c for c in checks if not c.kink]
+    said = f"{len(checks)} random-direction checks could not resolve the threshold"
+    if smooth:
+        def scale(c: DirectionCheck) -> float:
+            return max(abs(c.analytic), probe.grad_scale, probe.floor)
+        c = min(smooth, key=lambda c: c.error / scale(c))
+        said += (f": the best bound, {c.error:.1e}, is {c.error / scale(c):.0e} of the directional "
+                 f"derivative's scale {scale(c):.1e} (threshold {probe.threshold:.0e}), at every step tried")
+    if kinked:
+        said += f"{',' if smooth else ':'} {kinked} crossed kinks at every step tried"
+    seen = _resolution(probe, checks)
+    missed = (f"one element's error below about {seen:.1e} ({seen / max(probe.grad_scale, 1e-300):.0e} "
+              f"of the tensor's typical gradient)" if np.isfinite(seen) else "no element's error")
+    return (said + f"; the tensor has {probe.size} elements, more than are swept ({SWEEP_UNDECIDED}), "
+            f"so {missed} could not be resolved")
+
+
+def directional(
+    probe: TensorProbe, count: int, seed: int, stop_early: bool = True, sampled: bool = False
+) -> Directional:
+    """``count`` directional checks of the probed tensor (a direction hidden by kinks or
+    whose bound cannot resolve the threshold is replaced, twice at most), each significant
+    one localised; with ``stop_early`` (the default plan, not a count the user asked for),
+    none after one whose candidates plainly fail. Where too few directions decide anything
+    (``sampled``: coordinates are sampled beside them, which stand for kinked directions),
+    the tensor is swept when small enough, else left unresolved with the reason."""
     rng = tensor_rng(seed, probe.tensor, "directions")
     everything = slice(0, probe.size)
     checks: list[DirectionCheck] = []
@@ -87,10 +116,13 @@ def directional(probe: TensorProbe, count: int, seed: int, stop_early: bool = Tr
     undecided: list[tuple[int, int]] = []
     located: int | None = None
     budget = count * (1 + EXTRA_DIRECTIONS)
-    while len([c for c in checks if not c.kink]) < count and len(checks) < budget:
+    small = probe.size <= SWEEP_UNDECIDED
+    while _evidence(checks) < count and len(checks) < budget:
         u = unit_direction(probe.size, rng)
-        check = check_direction(probe, everything, u, enough=_enough(probe))
+        check = check_direction(probe, everything, u, enough=_enough(probe), threshold=True)
         checks.append(check)
+        if check.unresolved and not check.significant and small:
+            break  # steeper than any step resolves: the coordinates decide (swept below)
         if not check.significant:
             continue
         where = locate(probe, u, check.discrepancy, check.error)
@@ -101,12 +133,20 @@ def directional(probe: TensorProbe, count: int, seed: int, stop_early: bool = Tr
             break
     candidates = np.unique(np.concatenate(found)) if found else np.empty(0, dtype=np.int64)
     unresolved = None
+    if _evidence(checks) < count and not any(c.significant for c in checks) and (
+            not sampled or any(c.unresolved for c in checks)):
+        # Too few directions decided anything (bounds that cannot resolve the threshold, or
+        # kinks with no sampled coordinate beside them): none of them counts as agreement.
+        # The whole tensor is undecided.
+        undecided.append((0, probe.size))
     if undecided:
         ranges = sorted(set(undecided))
         size = sum(b - a for a, b in ranges)
         if size <= SWEEP_UNDECIDED:
             swept = np.concatenate([np.arange(a, b, dtype=np.int64) for a, b in ranges])
             candidates = np.union1d(candidates, swept)
+        elif not any(c.significant for c in checks):
+            unresolved = _undecided_reason(probe, checks)
         else:
             worst = max((c for c in checks if c.significant), key=lambda c: abs(c.discrepancy) / c.error)
             seen = _resolution(probe, checks)

@@ -33,6 +33,7 @@ RATIO = 2.0
 FIRST_STEP = 4.0  # the ladder starts at 4 coordinate steps
 SHRINK = 16.0  # steps shrink this much when a kink is seen
 RETRIES = 2
+STEEP_SHRINKS = 5  # a smooth direction whose bound cannot resolve the threshold: steps 16**k smaller
 WIDE_ROWS = 2  # a widened ladder: its two rows give a bound from their spread
 DEEP_ROWS = 4  # a ladder limited by its steps' size is carried down to this many rows
 
@@ -46,10 +47,16 @@ class DirectionCheck:
     analytic: float  # a . u
     evaluations: int
     kink: bool  # kinks within every step tried: the discrepancy is not evidence
+    unresolved: bool = False  # the bound cannot resolve the threshold: not evidence of agreement
 
     @property
     def significant(self) -> bool:
         return abs(self.discrepancy) > DIRECTION_SIGNIFICANCE * self.error and not self.kink
+
+    @property
+    def agrees(self) -> bool:
+        """Evidence that the analytic and numeric slopes agree within the threshold."""
+        return not (self.significant or self.kink or self.unresolved)
 
 
 def unit_direction(size: int, rng: np.random.Generator) -> np.ndarray:
@@ -83,18 +90,38 @@ def _ladder(
             (values, predicted))
 
 
+def resolves(probe: TensorProbe, analytic: float, estimate: Estimate) -> bool:
+    """The bound resolves the threshold: a discrepancy within SIGNIFICANCE bounds is within
+    the threshold of the directional derivative's scale (a non-finite bound resolves nothing).
+    That scale is the larger of this slope and the typical one of a random unit direction,
+    the tensor's rms gradient (a slope that cancels by chance is judged against it, as a
+    coordinate's against the floor)."""
+    value, error = float(estimate.value[0]), float(estimate.error[0])
+    scale = max(abs(analytic), abs(analytic + value), probe.grad_scale, probe.floor)
+    return bool(np.isfinite(error) and np.isfinite(value)
+                and DIRECTION_SIGNIFICANCE * error <= probe.threshold * scale)
+
+
+def _sides_agree(ladder: tuple) -> bool:
+    gap = abs(float(ladder[2].value[0] - ladder[1].value[0]))
+    return gap <= DIRECTION_SIGNIFICANCE * float(ladder[1].error[0] + ladder[2].error[0])
+
+
 def first_step(probe: TensorProbe, part: slice) -> float:
     rms = root_mean_square(probe.x[part])
     return FIRST_STEP * probe.eps ** (1.0 / 3.0) * max(1.0, rms)
 
 
 def check_direction(
-    probe: TensorProbe, part: slice, u: np.ndarray, rows: int = ROWS, enough: float = 0.0
+    probe: TensorProbe, part: slice, u: np.ndarray, rows: int = ROWS, enough: float = 0.0,
+    threshold: bool = False,
 ) -> DirectionCheck:
     """The discrepancy along ``u`` over the contiguous flat range ``part`` of the probed
     tensor (a slice: views, not copies, of its values and gradient), from a
     ladder of ``rows`` steps; larger steps are tried where rounding noise dominates the
-    bound and the bound is above ``enough``."""
+    bound and the bound is above ``enough``. With ``threshold``, smaller steps are tried
+    where truncation keeps the bound from resolving the probe's threshold, and a check
+    whose bound still cannot is marked unresolved (no evidence of agreement)."""
     before = probe.evaluator.count
     t0 = first_step(probe, part)
     kink = True
@@ -119,8 +146,24 @@ def check_direction(
         wide_gap = abs(float(wide[2].value[0] - wide[1].value[0]))
         if wide_gap <= DIRECTION_SIGNIFICANCE * float(wide[1].error[0] + wide[2].error[0]):
             central = Estimate.better(central, wide[0])
+    analytic = float(probe.a[part] @ u)
+    if not kink and threshold:
+        # Smooth but steeper than the steps: the bound cannot resolve the threshold while
+        # truncation, not rounding, limits it. Steps 16 times smaller each time, a ladder
+        # trusted only where its rows settle and its sides agree, down to rounding's limit.
+        step = t0
+        for _ in range(STEEP_SHRINKS):
+            if resolves(probe, analytic, central) or noise > 0.5 * float(central.error[0]):
+                break
+            step /= SHRINK
+            small = _ladder(probe, part, u, step, rows)
+            noise = small[3]
+            if _sides_agree(small):
+                central = Estimate.better(central, small[0])
     error = float(central.error[0])
+    unresolved = not kink and bool(threshold) and not resolves(probe, analytic, central)
     return DirectionCheck(
         discrepancy=float(central.value[0]), error=error,
-        analytic=float(probe.a[part] @ u), evaluations=probe.evaluator.count - before, kink=kink,
+        analytic=analytic, evaluations=probe.evaluator.count - before, kink=kink,
+        unresolved=unresolved,
     )

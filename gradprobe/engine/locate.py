@@ -5,8 +5,8 @@ halves, so one directional check of the first half also gives the second (y - y1
 bound is the sum of both bounds). Halves whose discrepancy is significant are split again,
 so k wrong coordinates among N are found with about k log2(N) checks; sets of LEAF
 coordinates or fewer are handed back as candidates for a coordinate-wise check, which
-confirms or clears each of them. A half whose own check is kinked is split without
-trusting its share.
+confirms or clears each of them. A half whose own check is kinked, or has no finite bound,
+is split without trusting its share.
 
 Bounds add up along the derived halves. Where a significant set splits into two halves
 neither of which is significant, the second half is measured on its own (a bound that does
@@ -48,7 +48,8 @@ def locate(probe: TensorProbe, u: np.ndarray, discrepancy: float, error: float) 
     def measured(lo: int, hi: int, y: float) -> tuple[float, float, bool]:
         check = check_direction(probe, slice(lo, hi), u[lo:hi], rows=HALF_ROWS,
                                 enough=abs(y) / PRECISION)
-        return check.discrepancy, check.error, check.kink
+        # A share with no finite bound is no evidence either way: split like a kinked one.
+        return check.discrepancy, check.error, check.kink or not np.isfinite(check.error)
 
     while stack:
         lo, hi, y, err = stack.pop()

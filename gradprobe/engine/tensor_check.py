@@ -47,7 +47,8 @@ def check_tensor(probe: TensorProbe, options: CheckOptions, total: int, record: 
     if again is not None and tuple(again[0]) == tuple(record.shape):  # an earlier run's coordinates
         flat = np.union1d(flat, np.asarray(again[1], dtype=np.int64))
     if n_dirs:
-        seen = directional(probe, n_dirs, options.seed, stop_early=options.directions is None)
+        seen = directional(probe, n_dirs, options.seed, stop_early=options.directions is None,
+                          sampled=n_coords > 0)
         record.directions = seen.results
         record.located_evaluations = seen.located_evaluations
         flat = np.union1d(flat, seen.candidates)
