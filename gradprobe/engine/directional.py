@@ -133,11 +133,12 @@ def directional(
             break
     candidates = np.unique(np.concatenate(found)) if found else np.empty(0, dtype=np.int64)
     unresolved = None
-    if _evidence(checks) < count and not any(c.significant for c in checks) and (
-            not sampled or any(c.unresolved for c in checks)):
+    blind = any(c.unresolved for c in checks)
+    if (_evidence(checks) < count and not any(c.significant for c in checks)
+            and (not sampled or blind)) or (small and blind):
         # Too few directions decided anything (bounds that cannot resolve the threshold, or
-        # kinks with no sampled coordinate beside them): none of them counts as agreement.
-        # The whole tensor is undecided.
+        # kinks with no sampled coordinate beside them), or a small tensor had a direction
+        # that could not: none of them counts as agreement. The whole tensor is undecided.
         undecided.append((0, probe.size))
     if undecided:
         ranges = sorted(set(undecided))
