@@ -73,7 +73,9 @@ def test_richardson_method_everywhere():
 
 def test_suspects_are_rechecked_before_failing():
     """sin(1000 w): the plain central difference's truncation error (h**2 1000**2 / 6 ~ 6e-6
-    relative) exceeds 1e-6; extrapolation clears it. Without the re-check it would fail."""
+    relative) exceeds 1e-6; extrapolation clears it. Without the re-check the first pair's
+    bound (rounding only) cannot fail it either: a short ladder checks the truncation, and
+    the correct gradient is not failed; a gradient 1% off still is."""
     w = np.linspace(0.1, 0.9, 9)
 
     def forward(p, i):
@@ -85,7 +87,9 @@ def test_suspects_are_rechecked_before_failing():
     rechecked = probe(forward, backward, {"w": w})
     assert rechecked.ok
     plain = probe(forward, backward, {"w": w}, recheck=False)
-    assert not plain.ok
+    assert plain.ok and plain.tensor("w").failed == 0
+    wrong = probe(forward, lambda p, i: {"w": 1.01 * backward(p, i)["w"]}, {"w": w}, recheck=False)
+    assert not wrong.ok
 
 
 def test_rounding_noise_is_beaten_with_larger_steps_where_the_loss_allows():

@@ -166,14 +166,16 @@ def _central(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
             which = certified.passed
             judged = judged.merged(np.flatnonzero(which), judge_plain(
                 probe, flat[which], Estimate(certified.value[which], certified.bound[which])))
+    if not recheck:  # no ladders; a failure still needs a bound checked on the coordinate
+        return _validated_failures(probe, flat, first, h, judged)
     todo = np.flatnonzero(~settled | suspects)
-    if todo.size == 0 or not recheck:
+    if todo.size == 0:
         return judged
     if todo.size > RECHECK_LIMIT:  # the worst first, within budget
         order = np.argsort(-np.abs(a[todo] - c[todo]), kind="stable")
         beyond = np.sort(todo[order[RECHECK_LIMIT:]])
-        judged = judged.merged(beyond, _beyond_budget(probe, flat[beyond], _pick(first, beyond),
-                                                      h[beyond], judged.pick(beyond)))
+        judged = judged.merged(beyond, _validated_failures(probe, flat[beyond], _pick(first, beyond),
+                                                           h[beyond], judged.pick(beyond)))
         todo = np.sort(todo[order[:RECHECK_LIMIT]])
     start = start_steps(probe, flat[todo], _pick(first, todo), h[todo])
     judged = judged.merged(todo, _ladder_verdicts(probe, flat[todo], start))
@@ -194,9 +196,9 @@ def _widened(probe: TensorProbe, flat: np.ndarray, judged: Judged) -> Judged:
     return judged.merged(noisy[decided], wide.pick(decided))
 
 
-def _beyond_budget(probe: TensorProbe, flat: np.ndarray, first: Pairs, h: np.ndarray, plain: Judged) -> Judged:
-    """Coordinates left out of the ladders' budget. The first pair's bound is its rounding
-    noise alone: it knows nothing of truncation, so it may pass a coordinate (a discrepancy
+def _validated_failures(probe: TensorProbe, flat: np.ndarray, first: Pairs, h: np.ndarray, plain: Judged) -> Judged:
+    """Coordinates given no ladder (beyond the ladders' budget, or under --no-recheck). The
+    first pair's bound is its rounding noise alone: it knows nothing of truncation, so it may pass a coordinate (a discrepancy
     within the threshold needs no bound) but never fail one. Those it would fail get a short
     ladder from the same step (three more pairs; the first pair is its top row), whose bound
     the tableau checks on the coordinate (from a smaller step where the slope changes much
@@ -219,12 +221,14 @@ def _beyond_budget(probe: TensorProbe, flat: np.ndarray, first: Pairs, h: np.nda
 
 def _richardson(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
     """Three rows of a ladder per coordinate (6 calls) from a step sized for a sixth-order
-    rule; coordinates whose bound is not far inside the threshold go the central way."""
+    rule; coordinates whose bound is not far inside the threshold go the central way (under
+    --no-recheck only those it would fail: three rows check one rate of the tableau, which
+    quotients aliased by a loss oscillating far faster than the steps can meet by chance)."""
     h = RICHARDSON_START * np.maximum(1.0, np.abs(probe.x[flat].astype(np.float64)))
     ladder = climb(probe, flat, h, 3)
     judged = _judged_ladder(probe, flat, ladder)
-    if not recheck:
-        return judged
+    if not recheck:  # no longer ladders; a failure still needs the central path's check
+        return _central_decides(probe, flat, judged, np.flatnonzero(judged.status == FAIL), recheck)
     # Bounds not far inside the threshold for want of smaller steps (not for rounding, which
     # smaller steps only make worse): the same ladder two rows further down (4 calls).
     short = judged.estimate.error > SETTLE_FRACTION * probe.tolerance(flat, judged.estimate.value)
@@ -235,11 +239,20 @@ def _richardson(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
         judged = judged.merged(wide[better], longer.pick(better))
     value = judged.estimate.value
     loose = judged.estimate.error > SETTLE_FRACTION * probe.tolerance(flat, value)
-    todo = np.flatnonzero((judged.status != PASS) | loose)
+    return _central_decides(probe, flat, judged, np.flatnonzero((judged.status != PASS) | loose), recheck)
+
+
+def _central_decides(probe: TensorProbe, flat: np.ndarray, judged: Judged, todo: np.ndarray,
+                     recheck: bool) -> Judged:
+    """The positions ``todo`` of the ladder's verdicts ``judged`` checked the central way."""
     if todo.size == 0:
         return judged
     again = _central(probe, flat[todo], recheck)
-    keep = (again.status != PASS) | (again.estimate.error < judged.estimate.error[todo])
+    # The central path's steps were chosen from the bend measured on the coordinate; the
+    # ladder's were not (a fixed share of |x|, which can alias a loss that oscillates on a
+    # much finer scale). Where the two verdicts differ, one of the bounds was not valid, so
+    # the central path's verdict stands; where they agree, the tighter estimate is kept.
+    keep = (again.status != judged.status[todo]) | (again.estimate.error < judged.estimate.error[todo])
     return judged.merged(todo[keep], again.pick(np.flatnonzero(keep)))
 
 
