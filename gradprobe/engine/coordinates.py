@@ -222,13 +222,13 @@ def _validated_failures(probe: TensorProbe, flat: np.ndarray, first: Pairs, h: n
 def _richardson(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
     """Three rows of a ladder per coordinate (6 calls) from a step sized for a sixth-order
     rule; coordinates whose bound is not far inside the threshold go the central way (under
-    --no-recheck only those it would fail: three rows check one rate of the tableau, which
+    --no-recheck those it does not pass: three rows check one rate of the tableau, which
     quotients aliased by a loss oscillating far faster than the steps can meet by chance)."""
     h = RICHARDSON_START * np.maximum(1.0, np.abs(probe.x[flat].astype(np.float64)))
     ladder = climb(probe, flat, h, 3)
     judged = _judged_ladder(probe, flat, ladder)
-    if not recheck:  # no longer ladders; a failure still needs the central path's check
-        return _central_decides(probe, flat, judged, np.flatnonzero(judged.status == FAIL), recheck)
+    if not recheck:  # no longer ladders: what the rows do not pass goes the central way
+        return _central_decides(probe, flat, judged, np.flatnonzero(judged.status != PASS), recheck)
     # Bounds not far inside the threshold for want of smaller steps (not for rounding, which
     # smaller steps only make worse): the same ladder two rows further down (4 calls).
     short = judged.estimate.error > SETTLE_FRACTION * probe.tolerance(flat, judged.estimate.value)
