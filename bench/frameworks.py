@@ -26,10 +26,10 @@ import numpy as np
 import torch
 
 from gradprobe import probe
-from gradprobe.boundary import describe
-from gradprobe.frameworks import Framed
+from gradprobe.targets.boundary import describe
+from gradprobe.targets.frameworks import Framed
 from gradprobe.engine.evaluate import Evaluator, LossFunction, Perturbation
-from gradprobe.tensors import Workspace
+from gradprobe.common.tensors import Workspace
 
 CALLS = 400
 

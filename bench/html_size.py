@@ -20,11 +20,11 @@ from pathlib import Path
 import numpy as np
 
 from gradprobe.engine.runner import run_check
-from gradprobe.options import CheckOptions
+from gradprobe.settings.options import CheckOptions
 from gradprobe.render.html import render_html
 from gradprobe.render.svgmap import MAX_COLS, MAX_ROWS
-from gradprobe.report import LayerResult, TargetRun
-from gradprobe.loading import load_target
+from gradprobe.report.model import LayerResult, TargetRun
+from gradprobe.targets.loading import load_target
 
 HERE = Path(__file__).resolve().parent
 TARGETS = HERE / "scale_targets.py"

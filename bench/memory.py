@@ -50,7 +50,7 @@ for name in open({modules!r}).read().split():
         importlib.import_module(name)
     except Exception:
         pass
-from gradprobe.loading import load_target
+from gradprobe.targets.loading import load_target
 target = load_target({spec!r})
 target.forward(target.params, target.inputs)
 target.backward(target.params, target.inputs)

@@ -18,7 +18,7 @@ from pathlib import Path
 
 from gradprobe import probe_target
 from gradprobe.render.json import report_dict
-from gradprobe.loading import load_target
+from gradprobe.targets.loading import load_target
 
 HERE = Path(__file__).resolve().parent
 TARGETS = HERE / "scale_targets.py"
@@ -101,7 +101,7 @@ def transport(size: int = 750_000) -> None:
     import numpy as np
 
     from gradprobe.engine.evaluate import LossFunction, Perturbation
-    from gradprobe.tensors import Workspace
+    from gradprobe.common.tensors import Workspace
 
     values = np.random.default_rng(0).normal(size=size)
     loss = LossFunction(lambda p, i: 0.0, Workspace({"w": values}, {}), None)

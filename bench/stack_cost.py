@@ -22,8 +22,8 @@ sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "samples"))
 from shop_demand_stack import layers, setup
 
 from gradprobe.engine.runner import run_check
-from gradprobe.stack import end_to_end, stack
-from gradprobe.stack_check import run_stack
+from gradprobe.targets.stack import end_to_end, stack
+from gradprobe.engine.stack_run import run_stack
 
 REPEATS = 7
 

@@ -10,7 +10,7 @@ from importlib import import_module
 from typing import TYPE_CHECKING, Any
 
 if TYPE_CHECKING:
-    from .adapters import layer_target
+    from .targets.adapters import layer_target
     from .api import (
         probe,
         probe_stack,
@@ -19,7 +19,7 @@ if TYPE_CHECKING:
         render_text,
         report_dict,
     )
-    from .errors import (
+    from .common.errors import (
         BadOutputError,
         ComplexStepError,
         InPlaceWriteError,
@@ -31,23 +31,23 @@ if TYPE_CHECKING:
         UserCodeError,
     )
     from .fixture import GradProbe
-    from .options import CheckOptions
-    from .report import LayerResult, Report, TensorResult
-    from .status import Status
-    from .target import Target
+    from .settings.options import CheckOptions
+    from .report.model import LayerResult, Report, TensorResult
+    from .common.status import Status
+    from .targets.target import Target
 
 _HOMES = {
-    "layer_target": "adapters",
+    "layer_target": "targets.adapters",
     **dict.fromkeys(("probe", "probe_stack", "probe_target", "raise_if_failed", "render_text",
                      "report_dict"), "api"),
     **dict.fromkeys(("BadOutputError", "ComplexStepError", "InPlaceWriteError",
                      "NondeterminismError", "ProbeError", "ProcessExitError", "TargetLoadError",
-                     "UsageProblem", "UserCodeError"), "errors"),
+                     "UsageProblem", "UserCodeError"), "common.errors"),
     "GradProbe": "fixture",
-    "CheckOptions": "options",
-    **dict.fromkeys(("LayerResult", "Report", "TensorResult"), "report"),
-    "Status": "status",
-    "Target": "target",
+    "CheckOptions": "settings.options",
+    **dict.fromkeys(("LayerResult", "Report", "TensorResult"), "report.model"),
+    "Status": "common.status",
+    "Target": "targets.target",
 }
 
 __version__: str  # read from the installed metadata on first use

@@ -1,7 +1,7 @@
 """The Python API: ``probe`` for functions and arrays, ``probe_target`` for an entry point.
 
-Both return the :class:`~gradprobe.report.Report` the CLI renders. When the check cannot run
-they raise gradprobe's own exceptions (subclasses of :class:`~gradprobe.errors.ProbeError`)
+Both return the :class:`~gradprobe.report.model.Report` the CLI renders. When the check cannot run
+they raise gradprobe's own exceptions (subclasses of :class:`~gradprobe.common.errors.ProbeError`)
 with the CLI's one-sentence message, chained to the user's exception. The caller's arrays are
 bitwise unchanged either way. ``render_text``, ``report_dict`` and ``raise_if_failed`` are the
 report's outputs as free functions (the report model does not know its renderers).
@@ -12,14 +12,14 @@ from __future__ import annotations
 from collections.abc import Callable, Mapping
 from typing import TYPE_CHECKING, Any
 
-from .baseline_file import baseline_of, run_against
+from .report.baseline_file import baseline_of, run_against
 from .engine.runner import run_check
-from .options import CheckOptions
-from .report import Report
-from .loading import load_any
-from .stack import StackTarget, is_stack, stack, stack_from_object
-from .stack_check import run_any, run_stack
-from .target import Target, target_from_object
+from .settings.options import CheckOptions
+from .report.model import Report
+from .targets.loading import load_any
+from .targets.stack import StackTarget, is_stack, stack, stack_from_object
+from .engine.stack_run import run_any, run_stack
+from .targets.target import Target, target_from_object
 
 if TYPE_CHECKING:
     from concurrent.futures import Executor
@@ -44,7 +44,7 @@ def probe(
     """Check ``backward`` against central differences of ``forward`` at ``params``/``inputs``.
     ``backward`` None: the framework's reverse mode of a torch or JAX ``forward`` is checked.
 
-    ``options`` are the settings of :class:`~gradprobe.options.CheckOptions`: ``threshold``,
+    ``options`` are the settings of :class:`~gradprobe.settings.options.CheckOptions`: ``threshold``,
     ``seed``, ``method``, ``sample``, ``directions``, ``jobs``, ``recheck``, ``inconclusive``,
     ``baseline`` (an earlier JSON report to compare with), ``baseline_growth`` and
     ``second_order``. ``label`` names the target in reports (default: the forward function's
@@ -52,7 +52,7 @@ def probe(
     after the gradient (protocol section 7; the report's ``second_order``).
     """
     if hvp is not None and hessian is not None:
-        from .errors import UsageProblem
+        from .common.errors import UsageProblem
 
         raise UsageProblem("give hvp or hessian, not both")
     checked = _options(options)
@@ -73,7 +73,7 @@ def name_of(forward: Callable[..., Any]) -> str:
 
 def probe_target(target: str | Any, *, executor: Executor | None = None, **options: Any) -> Report:
     """Check a target as ``gradprobe check`` does: an entry-point string, a
-    :class:`~gradprobe.target.Target` (e.g. from :func:`~gradprobe.adapters.layer_target`), a
+    :class:`~gradprobe.targets.target.Target` (e.g. from :func:`~gradprobe.targets.adapters.layer_target`), a
     stack, or any object with forward, backward and setup() or params (or layers)."""
     checked = _options(options)
     baseline = baseline_of(checked)
@@ -101,7 +101,7 @@ def probe_stack(
 ) -> Report:
     """Check a stack of layers (protocol section 5): every layer's backward on its own and the
     network end to end. ``layers`` is a sequence of named layers or a mapping name -> layer;
-    or a stack built by :func:`gradprobe.adapters.object_stack`, then without arrays."""
+    or a stack built by :func:`gradprobe.targets.adapters.object_stack`, then without arrays."""
     checked = _options(options)
     baseline = baseline_of(checked)
     if isinstance(layers, StackTarget):

@@ -18,11 +18,11 @@ from typing import TYPE_CHECKING, Any
 
 import click
 
-from .config import load_config
-from .errors import ProbeError, UsageProblem
-from .options import SETTINGS, CheckOptions, ReportFiles, split_values
-from .report import TargetRun
-from .settings_cli import (
+from .settings.config import load_config
+from .common.errors import ProbeError, UsageProblem
+from .settings.options import SETTINGS, CheckOptions, ReportFiles, split_values
+from .report.model import TargetRun
+from .settings.command_line import (
     CheckCommand,
     effective_settings,
     setting_options,
@@ -32,7 +32,7 @@ from .settings_cli import (
 if TYPE_CHECKING:
     from rich.console import Console
 
-    from .baseline_file import Baseline
+    from .report.baseline_file import Baseline
 
 EXIT_OK, EXIT_FAIL, EXIT_INTERNAL, EXIT_INTERRUPTED = 0, 1, 3, 130  # 2: ProbeError.exit_code
 
@@ -116,7 +116,7 @@ def writable(path: str, what: str) -> None:
     output for the JSON report)."""
     if path == "-" and what == "JSON report":
         return
-    from .report_files import check_writable
+    from .settings.report_files import check_writable
 
     check_writable(path, what)
 
@@ -135,9 +135,9 @@ def check_one(spec: str, options: CheckOptions, out: Output, baseline: Baseline 
     With ``--json -`` whatever the user's code prints goes to standard error, so standard
     output holds the report alone. Ctrl-C propagates to stop the whole run.
     """
-    from .baseline_file import run_against
-    from .loading import load_any
-    from .stack_check import run_any
+    from .report.baseline_file import run_against
+    from .targets.loading import load_any
+    from .engine.stack_run import run_any
 
     progress = _progress()
     user_output = (contextlib.redirect_stdout(sys.stderr) if not out.stdout_free()
@@ -156,7 +156,7 @@ def check_one(spec: str, options: CheckOptions, out: Output, baseline: Baseline 
         _say_error(sentence, exc, out.traceback)
         return TargetRun(spec, exc.exit_code, error=sentence)
     except SystemExit as exc:  # past every guard: still never a pass
-        from .guard import exit_error
+        from .common.guard import exit_error
 
         error = exit_error(exc, "the target's code").with_target(spec)
         _say_error(error.sentence(), exc, out.traceback)
@@ -274,13 +274,13 @@ def check_command(ctx: click.Context, targets: tuple[str, ...], show_maps: bool,
             writable(files.junit, "JUnit report")
         if files.html is not None:
             writable(files.html, "HTML report")
-        from .baseline_file import baseline_of
+        from .report.baseline_file import baseline_of
 
         baseline = baseline_of(options)  # read and checked before any work
     except ProbeError as exc:
         _say_error(exc.sentence(), exc, show_traceback)
         return exc.exit_code
-    from .report_files import reproduce
+    from .settings.report_files import reproduce
 
     command = reproduce(chosen, values, {s.name: s.default for s in SETTINGS})
     return _run(chosen, options, Output(files, quiet, show_traceback, show_maps, command), baseline)
@@ -346,7 +346,7 @@ def starter_command(path: str, force: bool, stack: bool) -> int:
     Replace its small layer (or, with --stack, its layers) with your own forward and
     backward, then run gradprobe check PATH.
     """
-    from .starter import write_starter
+    from .targets.starter import write_starter
 
     try:
         write_starter(Path(path), force, stack)

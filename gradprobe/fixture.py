@@ -7,7 +7,7 @@ from pathlib import Path
 from types import TracebackType
 from typing import Any
 
-from .report import Report
+from .report.model import Report
 
 PACKAGE = str(Path(__file__).resolve().parent)
 
@@ -57,7 +57,7 @@ class GradProbe:
         __tracebackhide__ = True
         import pytest
 
-        from .errors import ProbeError
+        from .common.errors import ProbeError
         from .render.lines import failure_line
         from .render.terminal import render_text
 

@@ -20,7 +20,7 @@ from typing import Any
 import pytest
 
 from .fixture import GradProbe
-from .options import SETTINGS, Setting
+from .settings.options import SETTINGS, Setting
 
 FIXTURE_SETTINGS: tuple[Setting, ...] = tuple(s for s in SETTINGS if s.fixture)
 

@@ -2,14 +2,14 @@
 
 `PriceResponse` turns store features into a predicted demand response, softplus(x @ W + b).
 Like most hand-written layers it caches its input in forward, returns dx from backward and
-keeps dW and db on itself. `gradprobe.adapters.layer_target` makes it a target:
+keeps dW and db on itself. `gradprobe.targets.adapters.layer_target` makes it a target:
 
     gradprobe check samples/stateful_layer.py:case     # exit 0
 """
 
 import numpy as np
 
-from gradprobe.adapters import layer_target
+from gradprobe.targets.adapters import layer_target
 
 
 class PriceResponse:

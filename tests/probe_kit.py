@@ -8,7 +8,7 @@ import numpy as np
 
 from gradprobe.engine.evaluate import Evaluator, LossFunction
 from gradprobe.engine.probe import TensorProbe
-from gradprobe.tensors import Workspace
+from gradprobe.common.tensors import Workspace
 
 
 def make_probe(

@@ -7,7 +7,7 @@ import pytest
 from conftest import SAMPLES
 
 from gradprobe import layer_target, probe_target
-from gradprobe.errors import TargetLoadError
+from gradprobe.common.errors import TargetLoadError
 
 
 class Dense:

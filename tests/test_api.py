@@ -35,7 +35,7 @@ def test_raise_if_failed_carries_the_per_layer_report():
     with pytest.raises(AssertionError) as info:
         gradprobe.raise_if_failed(report)
     first, *rest = str(info.value).splitlines()
-    worst = gradprobe.tensors.format_index(report.tensor("W").worst_index)  # all tie at 0.5
+    worst = gradprobe.common.tensors.format_index(report.tensor("W").worst_index)  # all tie at 0.5
     d = report.tensor("W").worst_detail
     assert first == (f"W disagrees: rel error 5.0e-01 at {worst} > 1e-06"  # |2g - g| / |2g|
                      f" (backward gave {d.analytic:.6g}, numeric {d.numeric:.6g})")
@@ -101,7 +101,7 @@ def test_what_users_type_is_exported():
     """Every name in __all__ resolves (they are loaded on first use)."""
     for name in gradprobe.__all__:
         assert getattr(gradprobe, name) is not None
-    assert gradprobe.layer_target.__module__ == "gradprobe.adapters"
+    assert gradprobe.layer_target.__module__ == "gradprobe.targets.adapters"
 
 
 def test_importing_the_command_does_not_import_numpy_or_rich():

@@ -191,7 +191,7 @@ def test_the_python_api_and_config_take_a_baseline(arctan, run_cli, tmp_path, mo
 
 def _crop_yield(scale: float):
     """The crop-yield sample with its hidden.W gradient times ``scale``."""
-    from gradprobe.loading import load_target
+    from gradprobe.targets.loading import load_target
 
     sample = load_target(str(SAMPLES / "crop_yield.py"))
 

@@ -15,7 +15,7 @@ import numpy as np
 import pytest
 
 import gradprobe
-from gradprobe.baseline_model import Change
+from gradprobe.report.baseline_model import Change
 
 
 class SensorLayer:

@@ -16,7 +16,7 @@ from probe_kit import make_probe
 
 from gradprobe.engine.coordinates import check_coordinates
 from gradprobe.engine.refine import climb
-from gradprobe.status import FAIL, PASS
+from gradprobe.common.status import FAIL, PASS
 
 mpmath.mp.dps = 50
 

@@ -7,7 +7,7 @@ import pickle
 import numpy as np
 
 from gradprobe.engine.evaluate import Evaluator, LossFunction, Perturbation
-from gradprobe.tensors import Workspace
+from gradprobe.common.tensors import Workspace
 
 
 def _loss(values: np.ndarray) -> LossFunction:

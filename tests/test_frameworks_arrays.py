@@ -11,9 +11,9 @@ import pytest
 from framework_kit import mp_gradient, need, rel_gap
 
 from gradprobe.api import probe
-from gradprobe.errors import InPlaceWriteError, TargetLoadError
+from gradprobe.common.errors import InPlaceWriteError, TargetLoadError
 from gradprobe.render.json import report_dict
-from gradprobe.loading import load_target
+from gradprobe.targets.loading import load_target
 
 xp = need("array_api_strict")
 ml_dtypes = need("ml_dtypes")

@@ -13,7 +13,7 @@ import pytest
 from framework_kit import mp_gradient, need, rel_gap
 
 from gradprobe.api import probe
-from gradprobe.errors import GraphLeftError
+from gradprobe.common.errors import GraphLeftError
 from gradprobe.render.json import report_dict
 
 jax = need("jax")

@@ -14,7 +14,7 @@ import pytest
 from framework_kit import mp_gradient, need, rel_gap
 
 from gradprobe.api import probe
-from gradprobe.errors import GraphLeftError, InPlaceWriteError, TargetLoadError
+from gradprobe.common.errors import GraphLeftError, InPlaceWriteError, TargetLoadError
 from gradprobe.render.json import report_dict
 
 torch = need("torch")

@@ -8,7 +8,7 @@ import sys
 import pytest
 
 from gradprobe import ProcessExitError
-from gradprobe.guard import guarded
+from gradprobe.common.guard import guarded
 
 
 def test_os_exit_is_restored_after_the_guard():

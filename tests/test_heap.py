@@ -9,7 +9,7 @@ from pathlib import Path
 
 import pytest
 
-from gradprobe.heap import keep_heap, release_heap
+from gradprobe.common.heap import keep_heap, release_heap
 
 GLIBC = sys.platform.startswith("linux")
 ROOT = Path(__file__).resolve().parent.parent
@@ -28,7 +28,7 @@ def test_freed_temporaries_stay_mapped():
     glibc returns a free top chunk above M_TRIM_THRESHOLD with brk)."""
     probe = (
         "import ctypes, numpy as np, sys\n"
-        "from gradprobe.heap import keep_heap\n"
+        "from gradprobe.common.heap import keep_heap\n"
         "if sys.argv[1] == 'keep': keep_heap()\n"
         "sbrk = ctypes.CDLL(None).sbrk; sbrk.restype = ctypes.c_void_p\n"
         "shrunk = 0\n"

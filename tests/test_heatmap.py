@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from gradprobe.render.heatmap import fold, tensor_map
-from gradprobe.report import TensorResult
+from gradprobe.report.model import TensorResult
 
 
 def _tensor(errors: np.ndarray) -> TensorResult:

@@ -21,7 +21,7 @@ from gradprobe.render.svgmap import (
     levels,
     tensor_svg,
 )
-from gradprobe.report import LayerResult, Report, TargetRun, TensorResult
+from gradprobe.report.model import LayerResult, Report, TargetRun, TensorResult
 
 
 class Tags(HTMLParser):
@@ -177,8 +177,8 @@ def test_runs_that_could_not_run_are_listed(count):
 
 
 def test_the_reproducing_command_states_what_differs_from_the_defaults():
-    from gradprobe.options import SETTINGS
-    from gradprobe.report_files import reproduce
+    from gradprobe.settings.options import SETTINGS
+    from gradprobe.settings.report_files import reproduce
 
     DEFAULTS = {s.name: s.default for s in SETTINGS}
 

@@ -15,7 +15,7 @@ import pytest
 
 from gradprobe.engine.evaluate import Evaluator, LossFunction
 from gradprobe.engine.point import prepare
-from gradprobe.tensors import Workspace
+from gradprobe.common.tensors import Workspace
 
 
 def _point(forward, backward, params, inputs=None, seed=0):

@@ -79,7 +79,7 @@ def test_classname_forms():
 
 
 def _inconclusive_run(fails: bool):
-    from gradprobe.report import LayerResult, Report, TargetRun, TensorResult
+    from gradprobe.report.model import LayerResult, Report, TargetRun, TensorResult
 
     sure = TensorResult("dense.W", "dense", "param", (2, 2), "float32", 4, 0, 0, "pass",
                         max_rel_error=1e-4)

@@ -9,7 +9,7 @@ from pathlib import Path
 import gradprobe
 
 ROOT = Path(gradprobe.__file__).parent
-LOADING = {"gradprobe.loading", "gradprobe.target", "gradprobe.stack", "gradprobe.stack_split"}
+LOADING = {"gradprobe.targets.loading", "gradprobe.targets.target", "gradprobe.targets.stack", "gradprobe.targets.stack_split"}
 
 
 def _graph() -> dict[str, set[str]]:
@@ -67,3 +67,25 @@ def test_renderers_and_the_worker_pool_do_not_import_loading():
     graph = _graph()
     readers = [m for m in graph if m.startswith("gradprobe.render") or m == "gradprobe.engine.parallel"]
     assert readers and {m: graph[m] & LOADING for m in readers if graph[m] & LOADING} == {}
+
+
+# The rooms, lowest first: a package imports only packages listed before it (the front doors,
+# api, cli, fixture and pytest_plugin, sit above them all).
+ROOMS = ("common", "settings", "report", "targets", "hints", "engine", "render")
+
+
+def _room(module: str) -> str:
+    return module.split(".")[1] if module.count(".") else "gradprobe"
+
+
+def test_each_room_imports_only_the_rooms_below_it():
+    graph = _graph()
+    upward = sorted(f"{a} -> {b}" for a, targets in graph.items() for b in targets
+                    if _room(a) in ROOMS and _room(b) != _room(a)
+                    and (_room(b) not in ROOMS or ROOMS.index(_room(b)) > ROOMS.index(_room(a))))
+    assert upward == []
+
+
+def test_the_top_level_holds_only_the_front_doors_and_the_rooms():
+    top = {p.stem for p in ROOT.glob("*.py")} | {p.name for p in ROOT.iterdir() if (p / "__init__.py").exists()}
+    assert top == {"__init__", "__main__", "api", "cli", "fixture", "pytest_plugin", *ROOMS}

@@ -20,7 +20,7 @@ import numpy as np
 import pytest
 
 from gradprobe import probe
-from gradprobe.options import default_threshold
+from gradprobe.settings.options import default_threshold
 
 mpmath.mp.dps = 40
 

@@ -15,7 +15,7 @@ from test_numerics_reference import POINTS, SMOOTH
 from gradprobe import probe
 from gradprobe.engine.coordinates import RICHARDSON_START
 from gradprobe.engine.refine import climb
-from gradprobe.errors import ComplexStepError
+from gradprobe.common.errors import ComplexStepError
 
 mpmath.mp.dps = 50
 

@@ -8,10 +8,10 @@ import numpy as np
 import pytest
 
 from gradprobe import probe_stack
-from gradprobe.adapters import layer_target
+from gradprobe.targets.adapters import layer_target
 from gradprobe.engine.runner import run_check
-from gradprobe.errors import UserCodeError
-from gradprobe.object_stack import object_stack
+from gradprobe.common.errors import UserCodeError
+from gradprobe.targets.object_stack import object_stack
 
 
 class Dense:

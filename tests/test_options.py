@@ -5,8 +5,8 @@ from __future__ import annotations
 import pytest
 
 from gradprobe import CheckOptions, UsageProblem, probe
-from gradprobe.config import KEYS
-from gradprobe.options import SETTINGS, ReportFiles, split_values
+from gradprobe.settings.config import KEYS
+from gradprobe.settings.options import SETTINGS, ReportFiles, split_values
 
 
 def test_every_setting_is_a_config_key():

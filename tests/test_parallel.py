@@ -8,7 +8,7 @@ import pytest
 from gradprobe import UsageProblem
 from gradprobe.engine.evaluate import LossFunction, Perturbation
 from gradprobe.engine.parallel import WorkerPool
-from gradprobe.tensors import Workspace
+from gradprobe.common.tensors import Workspace
 
 
 def weighted_sum(p, i):

@@ -7,7 +7,7 @@ import io
 from rich.console import Console
 
 from gradprobe.render.terminal import COLOUR, render_text, renderables, verdict
-from gradprobe.report import LayerResult, Report, TensorResult
+from gradprobe.report.model import LayerResult, Report, TensorResult
 
 
 def _report(**over) -> Report:

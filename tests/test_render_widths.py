@@ -8,7 +8,7 @@ import re
 import pytest
 
 from gradprobe.render.terminal import render_text
-from gradprobe.report import DirectionResult, LayerResult, Report, TensorResult
+from gradprobe.report.model import DirectionResult, LayerResult, Report, TensorResult
 
 
 def report() -> Report:
@@ -127,7 +127,7 @@ def test_the_run_summary_keeps_target_names_whole():
     import io
 
     from gradprobe.render.terminal import PLAIN, plain_console, run_summary
-    from gradprobe.report import TargetRun
+    from gradprobe.report.model import TargetRun
 
     spec = "experiments/soil_moisture/calibration_layers.py:field_case"
     runs = [TargetRun(spec, 2, error=f"{spec}: forward raised ValueError: the batch has no rows.")]

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from gradprobe import Status
-from gradprobe.report import CoordinateDetail, LayerResult, Report, TensorResult
+from gradprobe.report.model import CoordinateDetail, LayerResult, Report, TensorResult
 
 
 def _tensor(name: str, status: str, **extra) -> TensorResult:
@@ -47,7 +47,7 @@ def test_the_report_model_does_not_import_its_renderers():
     import ast
     from pathlib import Path
 
-    import gradprobe.report as model
+    import gradprobe.report.model as model
 
     tree = ast.parse(Path(model.__file__).read_text())
     imported = {node.module for node in ast.walk(tree) if isinstance(node, ast.ImportFrom)}

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 from gradprobe import probe
-from gradprobe.errors import (
+from gradprobe.common.errors import (
     BadOutputError,
     InPlaceWriteError,
     NondeterminismError,

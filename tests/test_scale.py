@@ -221,7 +221,7 @@ def test_one_wrong_element_of_a_relu_weight_is_found_and_located(factor):
 
 
 def test_an_unpicklable_forward_with_jobs_is_one_sentence():
-    from gradprobe.errors import UsageProblem
+    from gradprobe.common.errors import UsageProblem
 
     def local_forward(p, i):
         return float(np.sum(p["w"] ** 2))
@@ -232,7 +232,7 @@ def test_an_unpicklable_forward_with_jobs_is_one_sentence():
 
 
 def test_a_forward_raising_in_a_worker_keeps_its_sentence(tmp_path):
-    from gradprobe.errors import UserCodeError
+    from gradprobe.common.errors import UserCodeError
 
     target = tmp_path / "fragile.py"
     target.write_text("""

@@ -10,7 +10,7 @@ import pytest
 from second_kit import SympyTarget
 
 from gradprobe import probe, probe_target
-from gradprobe.report_second import SecondOrderResult
+from gradprobe.report.second import SecondOrderResult
 
 
 def _so(report) -> SecondOrderResult:

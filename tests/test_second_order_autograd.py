@@ -19,9 +19,9 @@ from conftest import SAMPLES
 from framework_kit import need
 
 from gradprobe.api import probe_target
-from gradprobe.autograd_hvp import DoubleBackward
-from gradprobe.boundary import describe
-from gradprobe.errors import TargetLoadError
+from gradprobe.targets.autograd_hvp import DoubleBackward
+from gradprobe.targets.boundary import describe
+from gradprobe.common.errors import TargetLoadError
 from gradprobe.render.json import report_dict
 
 torch = need("torch")

@@ -16,8 +16,8 @@ from autograd_second_kit import GAIN, HESSIAN, LAM, RAW, REF
 from framework_kit import need
 
 from gradprobe.api import probe_target
-from gradprobe.autograd_hvp import DoubleBackward
-from gradprobe.boundary import describe
+from gradprobe.targets.autograd_hvp import DoubleBackward
+from gradprobe.targets.boundary import describe
 from gradprobe.render.json import report_dict
 
 jax = need("jax")

@@ -13,7 +13,7 @@ from gradprobe.engine.evaluate import Evaluator, LossFunction
 from gradprobe.engine.second_forward import mixed_difference
 from gradprobe.engine.second_numeric import KINK, PASS, Slopes
 from gradprobe.engine.second_source import GradientField, HessianSource, Layout
-from gradprobe.tensors import Workspace
+from gradprobe.common.tensors import Workspace
 
 mpmath.mp.dps = 40
 

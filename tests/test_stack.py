@@ -10,9 +10,9 @@ import pytest
 from stack_layers import Dense, Rectify, ChoiceLoss, SquaredLoss, Tanh, arrays
 
 from gradprobe import probe, probe_stack, report_dict
-from gradprobe.errors import BadOutputError, TargetLoadError, UserCodeError
-from gradprobe.stack import stack
-from gradprobe.stack_split import base_activations, layer_targets
+from gradprobe.common.errors import BadOutputError, TargetLoadError, UserCodeError
+from gradprobe.targets.stack import stack
+from gradprobe.targets.stack_split import base_activations, layer_targets
 
 THREE = ("d1", "d2", "d3")
 
@@ -102,7 +102,7 @@ def test_each_layer_is_checked_at_the_activation_that_reaches_it():
 def test_the_stack_costs_more_evaluations_than_the_flat_network_but_agrees_with_it():
     layers, params, inputs = _three((None, "input", None))
     st = stack(layers, params, inputs)
-    from gradprobe.stack import end_to_end
+    from gradprobe.targets.stack import end_to_end
 
     flat = end_to_end(st)
     alone = probe(flat.forward, flat.backward, params, inputs)
@@ -244,7 +244,7 @@ def test_an_embedding_of_integer_indices_as_the_first_layer():
 
 def test_the_verdict_names_a_layer_wrong_on_its_own_when_nothing_fails_end_to_end():
     from gradprobe.render.terminal import stack_line, verdict
-    from gradprobe.report import LayerResult, Report, TensorResult
+    from gradprobe.report.model import LayerResult, Report, TensorResult
 
     wrong = TensorResult("d1.x", "d1", "input", (2,), "float64", 2, 2, 0, "fail")
     report = Report("net", 1e-6, 0, (LayerResult("d1", (), own="fail", own_tensors=(wrong,),

@@ -7,7 +7,7 @@ import numpy as np
 import sympy as sp
 from stack_layers import Dense, SquaredLoss, Tanh, arrays
 
-from gradprobe.stack import end_to_end, stack
+from gradprobe.targets.stack import end_to_end, stack
 
 
 def test_composed_backward_matches_the_symbolic_gradient():

@@ -5,7 +5,7 @@ from __future__ import annotations
 import json
 
 from gradprobe import Status
-from gradprobe.status import worst
+from gradprobe.common.status import worst
 
 
 def test_status_compares_equal_to_the_protocol_strings():
@@ -25,7 +25,7 @@ def test_worst_of_nothing_is_pass():
 
 
 def test_statuses_order_by_severity_and_codes_follow_it():
-    from gradprobe.status import FAIL, INCONCLUSIVE, KINK, PASS
+    from gradprobe.common.status import FAIL, INCONCLUSIVE, KINK, PASS
 
     assert Status.PASS < Status.KINK < Status.INCONCLUSIVE < Status.FAIL
     assert sorted([Status.FAIL, Status.PASS, Status.INCONCLUSIVE, Status.KINK]) == list(Status)

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from gradprobe import Status
-from gradprobe.status import FAIL, INCONCLUSIVE, KINK, PASS
+from gradprobe.common.status import FAIL, INCONCLUSIVE, KINK, PASS
 from gradprobe.engine.coordinates import CoordinateOutcome
 from gradprobe.engine.record import TensorRecord
 from gradprobe.engine.summary import tensor_result

@@ -6,7 +6,7 @@ import numpy as np
 import pytest
 
 from gradprobe import TargetLoadError
-from gradprobe.tensors import flatten, unflatten
+from gradprobe.common.tensors import flatten, unflatten
 
 
 def test_nested_names_are_dotted_in_insertion_order():

@@ -263,7 +263,7 @@ def test_float32_code_that_rounds_to_float32_itself_keeps_the_float32_threshold(
 
 def test_a_forward_that_is_non_finite_at_every_moved_point_is_one_sentence():
     """A domain edge at the point itself: no step, however small, gives a finite loss."""
-    from gradprobe.errors import BadOutputError
+    from gradprobe.common.errors import BadOutputError
 
     w = np.array([0.0, 1.0])
 

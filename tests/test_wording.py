@@ -2,10 +2,10 @@
 
 from __future__ import annotations
 
-from gradprobe.errors import UsageProblem
+from gradprobe.common.errors import UsageProblem
 from gradprobe.render.lines import verdict
-from gradprobe.report import LayerResult, Report, TensorResult
-from gradprobe.wording import plural
+from gradprobe.report.model import LayerResult, Report, TensorResult
+from gradprobe.common.wording import plural
 
 
 def test_plural():

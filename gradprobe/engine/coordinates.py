@@ -14,8 +14,8 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-from ..errors import BadOutputError, ComplexStepError, UserCodeError
-from ..status import FAIL, INCONCLUSIVE, PASS
+from ..common.errors import BadOutputError, ComplexStepError, UserCodeError
+from ..common.status import FAIL, INCONCLUSIVE, PASS
 from .certify import certify
 from .ladder import Estimate
 from .probe import Pairs, TensorProbe
@@ -23,7 +23,7 @@ from .reconcile import narrow_reconciled, unabsorbed, unfuzzed
 from .refine import RATIO, ROWS, Ladder, climb, one_sided, tiny_pair
 from .steps import SETTLE_FRACTION, gap_suspects, largest_smooth_step, start_steps, steps_down
 from .narrow import wide_estimate
-from .roundoff import is_narrow
+from ..common.roundoff import is_narrow
 from .verdict import NOISE, Judged, judge_ladder, judge_plain, judge_sides_apart, sides_differ
 
 RETRY_SHIFT = 6  # a second ladder starts 2**6 steps higher (noise) or lower (curvature)

@@ -16,7 +16,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..report import DirectionResult
+from ..report.model import DirectionResult
 from .directions import DIRECTION_SIGNIFICANCE as SIGNIFICANCE
 from .directions import DirectionCheck, check_direction, unit_direction
 from .locate import locate

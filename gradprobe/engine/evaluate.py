@@ -15,9 +15,9 @@ from typing import Any, Protocol
 
 import numpy as np
 
-from ..errors import BadOutputError, InPlaceWriteError, ProbeError, UserCodeError, summarise
-from ..guard import ExitAttempt, exit_error
-from ..tensors import Workspace, format_index, is_numeric_dtype
+from ..common.errors import BadOutputError, InPlaceWriteError, ProbeError, UserCodeError, summarise
+from ..common.guard import ExitAttempt, exit_error
+from ..common.tensors import Workspace, format_index, is_numeric_dtype
 from .domain import Key, Watch
 
 # An integer index array at least this long that is one contiguous run becomes a slice.

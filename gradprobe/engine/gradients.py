@@ -8,8 +8,8 @@ from typing import Any
 
 import numpy as np
 
-from ..errors import BadOutputError
-from ..tensors import Workspace, flatten, is_float, is_numeric_dtype
+from ..common.errors import BadOutputError
+from ..common.tensors import Workspace, flatten, is_float, is_numeric_dtype
 
 
 @dataclass

@@ -18,14 +18,14 @@ from typing import Any
 
 import numpy as np
 
-from ..errors import ProbeError
-from ..tensors import Workspace, is_float
+from ..common.errors import ProbeError
+from ..common.tensors import Workspace, is_float
 from .domain import quiet
 from .gradients import validate
 from .preflight import call_backward
 from .ladder import Estimate
 from .probe import TensorProbe
-from .roundoff import unit_roundoff
+from ..common.roundoff import unit_roundoff
 
 PROPAGATION_UNITS = 2.0  # each value moves by this many units of roundoff (its storage and one operation)
 PROPAGATION_SAMPLES = 2  # backward calls, each at its own random signs

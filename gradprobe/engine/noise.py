@@ -12,8 +12,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..errors import BadOutputError, UserCodeError
-from ..tensors import Workspace
+from ..common.errors import BadOutputError, UserCodeError
+from ..common.tensors import Workspace
 from .evaluate import Evaluator, Perturbation
 
 CALLS = 3

@@ -26,15 +26,15 @@ from typing import Any
 
 import numpy as np
 
-from ..errors import ProbeError
-from ..options import CheckOptions
+from ..common.errors import ProbeError
+from ..settings.options import CheckOptions
 from .coordinates import CoordinateOutcome, check_coordinates
 from .domain import quiet
 from .evaluate import LossFunction
 from .point import Point, prepare
 from .record import TensorRecord
 from .sampling import tensor_rng
-from ..status import FAIL
+from ..common.status import FAIL
 from .verdict import SIGNIFICANCE, looked_at_again
 
 MOVE = 2.0**-10  # of each element's scale (its own size or its tensor's rms)

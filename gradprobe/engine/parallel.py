@@ -26,10 +26,10 @@ from typing import TYPE_CHECKING, Any, cast
 
 import numpy as np
 
-from ..errors import ProbeError, UsageProblem, summarise
-from ..guard import guarded
-from ..heap import keep_heap
-from ..tensors import Workspace
+from ..common.errors import ProbeError, UsageProblem, summarise
+from ..common.guard import guarded
+from ..common.heap import keep_heap
+from ..common.tensors import Workspace
 from .evaluate import LossFunction, Perturbation
 
 if TYPE_CHECKING:

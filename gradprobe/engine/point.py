@@ -14,8 +14,8 @@ from typing import Any
 
 import numpy as np
 
-from ..errors import ProbeError
-from ..tensors import Workspace, is_float
+from ..common.errors import ProbeError
+from ..common.tensors import Workspace, is_float
 from .domain import quiet
 from .evaluate import Backend, Evaluator, LossFunction
 from .gradients import Gradients, validate
@@ -25,7 +25,7 @@ from .precision import narrower_compute_type
 from .preflight import ForwardInfo, call_backward, inspect_forward
 from .probe import TensorProbe
 from .promote import agreement, promote
-from .roundoff import is_narrow, rounding_units
+from ..common.roundoff import is_narrow, rounding_units
 from .sampling import tensor_rng
 
 

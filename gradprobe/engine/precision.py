@@ -13,8 +13,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..errors import BadOutputError, UserCodeError
-from ..tensors import Workspace
+from ..common.errors import BadOutputError, UserCodeError
+from ..common.tensors import Workspace
 from .evaluate import Evaluator, Perturbation
 
 SMALL = 2.0**-36

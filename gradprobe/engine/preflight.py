@@ -9,14 +9,14 @@ from typing import Any
 
 import numpy as np
 
-from ..errors import (
+from ..common.errors import (
     InPlaceWriteError,
     NondeterminismError,
     ProbeError,
     UserCodeError,
     summarise,
 )
-from ..tensors import Workspace, is_float_dtype
+from ..common.tensors import Workspace, is_float_dtype
 from .evaluate import Evaluator, output_to_loss
 
 

@@ -14,9 +14,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..errors import BadOutputError
+from ..common.errors import BadOutputError
 from .evaluate import Evaluator, Perturbation
-from .roundoff import rounding_units
+from ..common.roundoff import rounding_units
 
 # Rounding noise of one loss value is taken as rounding_units(type) * eps * max(|f|, L), L the
 # loss scale measured on the target (see roundoff.py and noise.py).

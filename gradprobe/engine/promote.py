@@ -20,13 +20,13 @@ from typing import Any
 
 import numpy as np
 
-from ..errors import ProbeError
-from ..tensors import Workspace, is_float
+from ..common.errors import ProbeError
+from ..common.tensors import Workspace, is_float
 from .evaluate import Evaluator, LossFunction
 from .gradients import Gradients, validate
 from .precision import narrower_compute_type
 from .preflight import call_backward
-from .roundoff import default_threshold, is_narrow
+from ..common.roundoff import default_threshold, is_narrow
 
 # Narrow and float64 losses may differ by this share of |f| (narrow rounding in sums with
 # cancellation reaches percents; beyond this the float64 run computes something else).

@@ -17,7 +17,7 @@ from collections.abc import Callable
 
 import numpy as np
 
-from ..status import FAIL, INCONCLUSIVE, KINK
+from ..common.status import FAIL, INCONCLUSIVE, KINK
 from .ladder import Estimate
 from .probe import Pairs, TensorProbe
 from .narrow import kink_within_reach

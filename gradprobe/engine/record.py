@@ -2,7 +2,7 @@
 
 The runner makes a :class:`TensorRecord` per tensor it reports on; each stage annotates it
 (the check: :func:`.tensor_check.check_tensor`; the second look: :mod:`.offpoint`; the hints:
-the runner), and the report's :class:`~gradprobe.report.TensorResult` is built once, at the
+the runner), and the report's :class:`~gradprobe.report.model.TensorResult` is built once, at the
 end, by :meth:`TensorRecord.result`.
 """
 
@@ -13,8 +13,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from ..hints import Evidence
-from ..report import DirectionResult, TensorResult
-from ..status import FAIL, Status
+from ..report.model import DirectionResult, TensorResult
+from ..common.status import FAIL, Status
 from .coordinates import CoordinateOutcome
 from .summary import tensor_result
 from .verdict import looked_at_again

@@ -10,24 +10,24 @@ from typing import TYPE_CHECKING
 
 import numpy as np
 
-from ..errors import ProbeError, TargetLoadError, UsageProblem
-from ..guard import guarded
-from ..heap import keep_heap, release_heap
+from ..common.errors import ProbeError, TargetLoadError, UsageProblem
+from ..common.guard import guarded
+from ..common.heap import keep_heap, release_heap
 from ..hints import Context as HintContext
 from ..hints import diagnose
-from ..options import CheckOptions, default_threshold
-from ..report import LayerResult, Report, TensorResult
-from ..status import Status
-from ..report_second import SecondOrderResult
-from ..target import Target
-from ..tensors import INPUT_LAYER, Workspace, is_float, layer_of
+from ..settings.options import CheckOptions, default_threshold
+from ..report.model import LayerResult, Report, TensorResult
+from ..common.status import Status
+from ..report.second import SecondOrderResult
+from ..targets.target import Target
+from ..common.tensors import INPUT_LAYER, Workspace, is_float, layer_of
 from .evaluate import Backend, Evaluator, LossFunction, Progress
 from .offpoint import MOVE, SecondLook
 from .point import Numerics, Point, prepare
 from .record import TensorRecord
 from .tensor_check import check_tensor
 from .promote import agreement
-from .roundoff import is_narrow, unit_roundoff
+from ..common.roundoff import is_narrow, unit_roundoff
 from .second_order import check_second_order, has_second_order
 
 if TYPE_CHECKING:
@@ -100,7 +100,7 @@ def run_check(
     ``executor`` spreads the evaluations over any ``concurrent.futures.Executor`` (a Dask
     client's ``get_executor()`` included); ``options.jobs > 1`` starts worker processes.
     """
-    from ..frameworks import preserved  # local: the framework form of targets builds on this module
+    from ..targets.frameworks import preserved  # local: the framework form of targets builds on this module
 
     keep_heap()
     try:
@@ -119,7 +119,7 @@ def _run(
     progress: Progress | None,
     clock: Callable[[], float],
 ) -> Report:
-    from ..frameworks import frame
+    from ..targets.frameworks import frame
 
     started = clock()
     target, framing = frame(target)

@@ -10,8 +10,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..report_second import BlockResult
-from ..status import Status, worst
+from ..report.second import BlockResult
+from ..common.status import Status, worst
 from .second_numeric import FAIL, KINK, UNSURE, Along
 
 # Every compared value is kept (for error maps and hints) when the whole Hessian has at most

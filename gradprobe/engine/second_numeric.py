@@ -15,8 +15,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..status import FAIL, INCONCLUSIVE, KINK, PASS
-from .roundoff import FLOAT64_ROUNDING_UNITS as ROUNDING_UNITS  # a gradient value's rounding
+from ..common.status import FAIL, INCONCLUSIVE, KINK, PASS
+from ..common.roundoff import FLOAT64_ROUNDING_UNITS as ROUNDING_UNITS  # a gradient value's rounding
 from .second_source import GradientField, HessianSource, Layout
 
 UNSURE = INCONCLUSIVE  # per-row codes: the engine's codes of each Status

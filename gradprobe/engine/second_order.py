@@ -22,12 +22,12 @@ from typing import Any
 
 import numpy as np
 
-from ..hints.second import block_hints
-from ..options import CheckOptions
-from ..report_second import ForwardAgreement, SecondOrderResult
-from ..status import Status, worst
+from .second_hints import block_hints
+from ..settings.options import CheckOptions
+from ..report.second import ForwardAgreement, SecondOrderResult
+from ..common.status import Status, worst
 from .point import Point
-from .roundoff import rounding_units
+from ..common.roundoff import rounding_units
 from .sampling import stratified, tensor_rng
 from .second_blocks import KEEP_ELEMENTS, BlockTally
 from .second_forward import mixed_difference, mixed_sides

@@ -15,8 +15,8 @@ from typing import Any
 
 import numpy as np
 
-from ..errors import BadOutputError, ProbeError, UserCodeError, summarise
-from ..tensors import Workspace, flatten, is_float
+from ..common.errors import BadOutputError, ProbeError, UserCodeError, summarise
+from ..common.tensors import Workspace, flatten, is_float, nested
 from .gradients import validate
 from .preflight import call_backward
 
@@ -60,20 +60,6 @@ class Layout:
             if name in parts:
                 out[self.part(name)] = np.asarray(parts[name], dtype=np.float64).reshape(-1)
         return out
-
-
-def nested(tree: Mapping[str, Any], flat: Mapping[str, Any], prefix: str = "") -> dict[str, Any]:
-    """``flat`` (dotted names) in the nesting of ``tree``, keeping only the names in ``flat``."""
-    out: dict[str, Any] = {}
-    for key, value in tree.items():
-        name = f"{prefix}{key}"
-        if isinstance(value, Mapping):
-            inner = nested(value, flat, prefix=f"{name}.")
-            if inner:
-                out[key] = inner
-        elif name in flat:
-            out[key] = flat[name]
-    return out
 
 
 class GradientField:

@@ -12,7 +12,7 @@ import numpy as np
 
 from .probe import Pairs, TensorProbe
 from .refine import RATIO, ROWS
-from .roundoff import is_narrow
+from ..common.roundoff import is_narrow
 
 SETTLE_FRACTION = 1e-2  # a first estimate this far inside the threshold settles a coordinate
 BEND_LIMIT = 0.05  # the slope may change by 5% across the ladder's first step

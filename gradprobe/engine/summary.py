@@ -6,9 +6,9 @@ from typing import Any
 
 import numpy as np
 
-from ..report import CheckedCoordinates, CoordinateDetail, DirectionResult, TensorResult
+from ..report.model import CheckedCoordinates, CoordinateDetail, DirectionResult, TensorResult
 from .coordinates import CoordinateOutcome
-from ..status import FAIL, INCONCLUSIVE, KINK, Status
+from ..common.status import FAIL, INCONCLUSIVE, KINK, Status
 
 MAX_LISTED = 100
 

@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..options import CheckOptions
+from ..settings.options import CheckOptions
 from .coordinates import check_coordinates
 from .directional import directional
 from .probe import TensorProbe

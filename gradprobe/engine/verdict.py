@@ -20,8 +20,8 @@ import numpy as np
 from .ladder import Estimate
 from .probe import TensorProbe
 from .refine import Ladder, Tiny
-from .roundoff import is_narrow
-from ..status import FAIL, INCONCLUSIVE, KINK, PASS
+from ..common.roundoff import is_narrow
+from ..common.status import FAIL, INCONCLUSIVE, KINK, PASS
 
 SIGNIFICANCE = 3.0  # a coordinate's discrepancy beyond 3 error bounds is evidence of a bug
 LOPSIDED = 0.01  # a side whose bound is 100 times tighter than the other's has settled

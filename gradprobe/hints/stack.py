@@ -7,7 +7,7 @@ and none of that layer's or later ones do. That pattern points at the layer boun
 
 from __future__ import annotations
 
-from ..tensors import layer_of
+from ..common.tensors import layer_of
 from .evidence import Context, Evidence, count
 
 

@@ -12,8 +12,8 @@ from __future__ import annotations
 import numpy as np
 from rich.text import Text
 
-from ..report import Report, TensorResult
-from ..wording import plural
+from ..report.model import Report, TensorResult
+from ..common.wording import plural
 
 UNCHECKED, WITHIN = " ", "."
 RAMP = ":-=+*#%@"  # 1x, 10x, 100x, ... 1e7x the threshold and beyond

@@ -12,10 +12,10 @@ import shlex
 from collections.abc import Iterable, Sequence
 from html import escape
 
-from ..report import LayerResult, Report, TargetRun, TensorResult
-from ..status import Status
-from ..tensors import format_index
-from ..wording import plural, verb
+from ..report.model import LayerResult, Report, TargetRun, TensorResult
+from ..common.status import Status
+from ..common.tensors import format_index
+from ..common.wording import plural, verb
 from .html_style import CSS
 from .lines import stack_line, verdict, what_is_wrong
 from .svgmap import legend, tensor_svg

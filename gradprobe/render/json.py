@@ -8,7 +8,7 @@ from typing import Any
 
 import numpy as np
 
-from ..report import (
+from ..report.model import (
     CoordinateDetail,
     DirectionResult,
     LayerResult,
@@ -16,7 +16,7 @@ from ..report import (
     TargetRun,
     TensorResult,
 )
-from ..status import Status
+from ..common.status import Status
 from .second_json import second_order_dict
 
 SCHEMA = "gradprobe.report/1"

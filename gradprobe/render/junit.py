@@ -5,11 +5,11 @@ from __future__ import annotations
 import xml.etree.ElementTree as ET
 from pathlib import PurePath
 
-from ..report import Report, TargetRun, TensorResult
-from ..status import Status
-from ..spec import is_file_spec, split_spec
-from ..tensors import format_index
-from ..wording import plural, verb
+from ..report.model import Report, TargetRun, TensorResult
+from ..common.status import Status
+from ..common.spec import is_file_spec, split_spec
+from ..common.tensors import format_index
+from ..common.wording import plural, verb
 
 
 def classname(target: str, layer: str | None = None) -> str:

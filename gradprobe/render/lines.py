@@ -6,11 +6,11 @@ between parts (or drops its optional tail), so numbers and names are never split
 
 from __future__ import annotations
 
-from ..baseline_model import Change
-from ..report import LayerResult, Report, TensorResult
-from ..status import Status
-from ..tensors import format_index
-from ..wording import plural, verb
+from ..report.baseline_model import Change
+from ..report.model import LayerResult, Report, TensorResult
+from ..common.status import Status
+from ..common.tensors import format_index
+from ..common.wording import plural, verb
 
 SEP = " · "
 AGREES, DISAGREES = "agrees", "DISAGREES"  # the verdict line's first word: the run's outcome

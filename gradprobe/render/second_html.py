@@ -7,8 +7,8 @@ from html import escape
 
 import numpy as np
 
-from ..report_second import BlockResult, SecondOrderResult
-from ..status import Status
+from ..report.second import BlockResult, SecondOrderResult
+from ..common.status import Status
 from .heatmap import reduce
 from .svgmap import CELL_MAX, KINK, LEVELS, MAP_HEIGHT, MAP_WIDTH, MAX_COLS, MAX_ROWS, UNCHECKED, WITHIN, levels
 

@@ -5,7 +5,7 @@ from __future__ import annotations
 import math
 from typing import Any
 
-from ..report_second import BlockResult, SecondOrderResult
+from ..report.second import BlockResult, SecondOrderResult
 
 
 def _num(value: float | None) -> float | None:

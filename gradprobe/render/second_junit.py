@@ -5,9 +5,9 @@ from __future__ import annotations
 
 import xml.etree.ElementTree as ET
 
-from ..report_second import BlockResult, SecondOrderResult
-from ..status import Status
-from ..tensors import format_index
+from ..report.second import BlockResult, SecondOrderResult
+from ..common.status import Status
+from ..common.tensors import format_index
 
 
 def _where(b: BlockResult) -> str:

@@ -9,9 +9,9 @@ from rich.console import RenderableType
 from rich.table import Table
 from rich.text import Text
 
-from ..report_second import BlockResult, SecondOrderResult
-from ..status import Status
-from ..tensors import format_index
+from ..report.second import BlockResult, SecondOrderResult
+from ..common.status import Status
+from ..common.tensors import format_index
 from .text import fmt
 
 FORMS = {"hvp": "hvp", "hessian": "dense hessian", "autograd": "double backward"}

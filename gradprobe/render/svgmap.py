@@ -15,7 +15,7 @@ from html import escape
 
 import numpy as np
 
-from ..report import TensorResult
+from ..report.model import TensorResult
 from .heatmap import folded, reduce
 
 MAX_ROWS, MAX_COLS = 64, 128

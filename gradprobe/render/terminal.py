@@ -19,9 +19,9 @@ from rich.console import Console, ConsoleOptions, RenderableType, RenderResult
 from rich.table import Table
 from rich.text import Text
 
-from ..report import Report, TargetRun, TensorResult
-from ..tensors import format_index
-from ..wording import plural
+from ..report.model import Report, TargetRun, TensorResult
+from ..common.tensors import format_index
+from ..common.wording import plural
 from .columns import Column, Layout, fit
 from .heatmap import maps
 from .lines import expected_line, header, stack_line, verdict

@@ -5,7 +5,7 @@ from __future__ import annotations
 from typing import TYPE_CHECKING
 
 if TYPE_CHECKING:
-    from ..report import TensorResult
+    from ..report.model import TensorResult
 
 
 def fmt(value: float | None) -> str:

@@ -25,7 +25,7 @@ from pathlib import Path
 import numpy as np
 
 import gradprobe
-from gradprobe.errors import ProbeError
+from gradprobe.common.errors import ProbeError
 
 from .bugs import make_case
 from .case import Case, load

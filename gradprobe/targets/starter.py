@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from .errors import UsageProblem
+from ..common.errors import UsageProblem
 
 TEMPLATE = '''"""A gradprobe target. Check it with:  gradprobe check {path}
 

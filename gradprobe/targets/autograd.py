@@ -16,8 +16,8 @@ from typing import Any
 import numpy as np
 
 from .boundary import Boundary
-from .errors import GraphLeftError, InPlaceWriteError, ProbeError, UserCodeError, summarise
-from .tensors import flatten, is_float_dtype, unflatten
+from ..common.errors import GraphLeftError, InPlaceWriteError, ProbeError, UserCodeError, summarise
+from ..common.tensors import flatten, is_float_dtype, unflatten
 
 LEFT = "forward leaves {lib}'s graph{why}, so no gradient flows back to its params"
 

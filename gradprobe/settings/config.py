@@ -18,7 +18,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from .errors import UsageProblem
+from ..common.errors import UsageProblem
 from .options import SETTING, SETTINGS
 
 if sys.version_info >= (3, 11):

@@ -19,10 +19,10 @@ import numpy as np
 from .autograd import ReverseMode
 from .autograd_hvp import DoubleBackward
 from .boundary import NUMPY, Boundary, Kind, describe, rebuilt
-from .errors import TargetLoadError
-from .report import Report
+from ..common.errors import TargetLoadError
+from ..report.model import Report
 from .target import DOUBLE_FIX, MISSING_FIX, Target, no_double_backward
-from .tensors import flatten
+from ..common.tensors import flatten
 
 AUTOGRAD_LIBRARIES = ("torch", "jax")
 NO_RULE = ("no hand-written derivative rule lies on forward's path (no {what}): the "

@@ -2,9 +2,9 @@
 
 A stack is a list of layers, each with ``forward(params, x, inputs) -> y`` and
 ``backward(params, x, inputs, grad_y) -> (grads, grad_x)``; the last layer returns the scalar
-loss. From a :class:`StackTarget` this module builds ordinary :class:`~gradprobe.target.Target`
+loss. From a :class:`StackTarget` this module builds ordinary :class:`~gradprobe.targets.target.Target`
 objects for the engine: :func:`end_to_end` (the whole network, forward and backward composed
-here); :mod:`gradprobe.stack_split` gives each layer on its own.
+here); :mod:`gradprobe.targets.stack_split` gives each layer on its own.
 """
 
 from __future__ import annotations
@@ -15,7 +15,7 @@ from typing import Any
 
 import numpy as np
 
-from .errors import (
+from ..common.errors import (
     BadOutputError,
     TargetLoadError,
     UserCodeError,

@@ -8,7 +8,7 @@ import shlex
 from pathlib import Path
 from typing import Any
 
-from .errors import UsageProblem
+from ..common.errors import UsageProblem
 
 
 def check_writable(path: str, what: str) -> None:

@@ -1,6 +1,6 @@
 """Stacks from layer objects in the common class style, without changes to the user's classes.
 
-    from gradprobe.object_stack import object_stack
+    from .object_stack import object_stack
 
     case = object_stack([Dense(4, 8), Rectify(), Dense(8, 3)], ChoiceLoss(), x, labels)
 
@@ -10,7 +10,7 @@ input gradient and storing its parameter gradients on itself; the loss has
 returning the gradient of the scores. Parameters are found by a trial call: an array attribute
 ``W`` whose gradient backward stores as ``dW`` (or ``grads["W"]``), or the arrays of a
 ``params`` dict attribute; ``grads=`` names them explicitly. Every call, the trial one
-included, leaves the objects exactly as they were (:mod:`gradprobe.objstate`).
+included, leaves the objects exactly as they were (:mod:`gradprobe.targets.objstate`).
 """
 
 from __future__ import annotations
@@ -23,7 +23,7 @@ from typing import Any
 import numpy as np
 
 from .adapters import Slot, install, param_slots, stored
-from .errors import TargetLoadError
+from ..common.errors import TargetLoadError
 from .objstate import preserved
 from .stack import StackTarget, stack
 
@@ -144,7 +144,7 @@ def object_stack(
     (and ``labels``, passed to the loss). ``names``: one per layer and one for the loss
     (default: each object's ``name``, else its class name, numbered when repeated).
     ``grads``: for a layer name, its parameters and where backward stores their gradients,
-    as for :func:`gradprobe.adapters.layer_target`; other layers are discovered."""
+    as for :func:`gradprobe.targets.adapters.layer_target`; other layers are discovered."""
     objects = [*layers, loss]
     for k, obj in enumerate(objects):
         for method in ("forward", "backward"):

@@ -14,7 +14,7 @@ from typing import Any
 
 import numpy as np
 
-from .errors import BadOutputError, UserCodeError, summarise
+from ..common.errors import BadOutputError, UserCodeError, summarise
 from .stack import (
     INPUT,
     PART,
@@ -29,7 +29,7 @@ from .stack import (
     named_layers,
 )
 from .target import Target, _get
-from .tensors import Workspace, flatten
+from ..common.tensors import Workspace, flatten
 
 
 def input_key(params: Mapping[str, Any]) -> str:

@@ -17,7 +17,7 @@ from collections.abc import Mapping
 from dataclasses import MISSING, Field, dataclass, field, fields, replace
 from typing import Any
 
-from .errors import UsageProblem
+from ..common.errors import UsageProblem
 
 METHODS = ("central", "richardson", "complex")
 INCONCLUSIVE_POLICIES = ("allow", "fail")
@@ -26,7 +26,7 @@ SWITCH = ("on", "off")
 def default_threshold(dtype: Any) -> float:
     """The default threshold for a dtype (or its name): derived from its unit roundoff, see
     engine/roundoff.py (imported here, not above: the command line starts without numpy)."""
-    from .engine.roundoff import default_threshold as from_roundoff
+    from ..common.roundoff import default_threshold as from_roundoff
 
     return from_roundoff(getattr(dtype, "name", dtype))
 

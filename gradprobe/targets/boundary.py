@@ -20,8 +20,8 @@ from typing import Any, Iterator
 
 import numpy as np
 
-from .errors import InPlaceWriteError, ProbeError, TargetLoadError, summarise
-from .tensors import flatten, unflatten
+from ..common.errors import InPlaceWriteError, ProbeError, TargetLoadError, summarise
+from ..common.tensors import flatten, unflatten
 
 NUMPY = "numpy"
 LIBRARIES = {"torch": "torch", "jax": "jax", "jaxlib": "jax", "cupy": "cupy",

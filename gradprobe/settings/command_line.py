@@ -11,7 +11,7 @@ import click
 from click.core import ParameterSource
 
 from .config import ProjectConfig, load_config
-from .errors import ProbeError
+from ..common.errors import ProbeError
 from .options import SETTINGS
 
 

@@ -17,8 +17,8 @@ from collections.abc import Mapping, Sequence
 
 import numpy as np
 
-from ..engine.second_blocks import BlockTally
-from ..engine.second_numeric import FAIL
+from .second_blocks import BlockTally
+from .second_numeric import FAIL
 
 FIT = 1e-3  # a pattern fits an element when it predicts it within this relative error
 

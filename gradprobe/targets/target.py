@@ -19,9 +19,9 @@ from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
-from .errors import TargetLoadError, summarise
-from .guard import ExitAttempt, exit_error
-from .spec import is_file_spec, split_spec
+from ..common.errors import TargetLoadError, summarise
+from ..common.guard import ExitAttempt, exit_error
+from ..common.spec import is_file_spec, split_spec
 
 
 @dataclass(frozen=True)

@@ -1,9 +1,9 @@
 """Reading a baseline (``--baseline PATH``): an earlier JSON report, single- or multi-target.
 
 :func:`load_baseline` reads and checks the whole file before any check runs; a missing,
-unreadable or malformed one is a :class:`~gradprobe.errors.UsageProblem` (exit 2) in one
+unreadable or malformed one is a :class:`~gradprobe.common.errors.UsageProblem` (exit 2) in one
 sentence. :func:`run_against` runs a check with the baseline's coordinates added and compares
-the report with it (:func:`gradprobe.comparison.compare`).
+the report with it (:func:`gradprobe.report.comparison.compare`).
 """
 
 from __future__ import annotations
@@ -19,10 +19,10 @@ import numpy as np
 
 from .baseline_model import BaselineReport, BaselineTensor
 from .comparison import compare
-from .errors import UsageProblem
-from .options import CheckOptions
-from .report import CheckedCoordinates, Report
-from .status import Status
+from ..common.errors import UsageProblem
+from ..settings.options import CheckOptions
+from .model import CheckedCoordinates, Report
+from ..common.status import Status
 
 REPORT_SCHEMA = "gradprobe.report/1"  # as render/json.py writes them
 RUNS_SCHEMA = "gradprobe.runs/1"

@@ -11,8 +11,8 @@ from dataclasses import dataclass, field
 from typing import Any
 
 from .baseline_model import CheckedCoordinates, RunBaseline, TensorBaseline
-from .report_second import SecondOrderResult
-from .status import Status
+from .second import SecondOrderResult
+from ..common.status import Status
 
 
 @dataclass(frozen=True)

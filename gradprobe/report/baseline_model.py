@@ -1,6 +1,6 @@
 """The baseline's side of a comparison (protocol section 8), part of the report model: what
-an earlier report said about each tensor (read by :mod:`gradprobe.baseline_file`) and how a
-tensor changed since (set by :func:`gradprobe.comparison.compare`, shown by renderers)."""
+an earlier report said about each tensor (read by :mod:`gradprobe.report.baseline_file`) and how a
+tensor changed since (set by :func:`gradprobe.report.comparison.compare`, shown by renderers)."""
 
 from __future__ import annotations
 
@@ -8,14 +8,14 @@ from dataclasses import dataclass
 from enum import Enum
 from typing import Any
 
-from .status import Status
+from ..common.status import Status
 
 
 @dataclass(frozen=True)
 class CheckedCoordinates:
     """Checked coordinates of a tensor: flat index, relative error, its relative noise (the
     numeric estimate's error bound over the coordinate's scale), its status's code
-    (:attr:`gradprobe.status.Status.code`, 0 pass .. 3 fail), the numeric derivative and
+    (:attr:`gradprobe.common.status.Status.code`, 0 pass .. 3 fail), the numeric derivative and
     the scale rel is taken against; arrays of one length (every checked coordinate in a
     run; those a report lists in a baseline)."""
 

@@ -18,9 +18,9 @@ from typing import Any
 
 from .autograd import _substituted, _wrt, jax_vjp, torch_vjp
 from .boundary import Boundary
-from .errors import ProbeError, UserCodeError, summarise
-from .engine.second_source import nested
-from .tensors import flatten
+from ..common.errors import ProbeError, UserCodeError, summarise
+from ..common.tensors import nested
+from ..common.tensors import flatten
 
 FORM = "autograd"  # second_order.form in the report
 
@@ -46,7 +46,7 @@ def torch_hvp(forward: Callable[..., Any], params: Any, inputs: Any, wrt: Mappin
 
 def jax_hvp(forward: Callable[..., Any], params: Any, inputs: Any, wrt: Mapping[str, Any],
             v: Mapping[str, Any]) -> dict[str, Any]:
-    """As :func:`torch_hvp`, with JAX's reverse mode of :func:`~gradprobe.autograd.jax_vjp`
+    """As :func:`torch_hvp`, with JAX's reverse mode of :func:`~gradprobe.targets.autograd.jax_vjp`
     (forward mode is not used: a ``custom_vjp`` rule has none)."""
     import jax
     import jax.numpy as jnp

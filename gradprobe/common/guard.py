@@ -3,7 +3,7 @@
 ``sys.exit`` raises :class:`SystemExit`, which ``except Exception`` does not catch; ``os._exit``
 ends the process at once. Either would make an unfinished check look finished (``sys.exit(0)``
 even like a pass). While :func:`guarded` is active, ``os._exit`` raises :class:`ExitAttempt`
-instead, and both become a :class:`~gradprobe.errors.ProcessExitError` with one sentence.
+instead, and both become a :class:`~gradprobe.common.errors.ProcessExitError` with one sentence.
 """
 
 from __future__ import annotations

@@ -51,6 +51,20 @@ def unflatten(flat: Mapping[str, Any], shape_of: Mapping[str, Any]) -> dict[str,
     return out
 
 
+def nested(tree: Mapping[str, Any], flat: Mapping[str, Any], prefix: str = "") -> dict[str, Any]:
+    """``flat`` (dotted names) in the nesting of ``tree``, keeping only the names in ``flat``."""
+    out: dict[str, Any] = {}
+    for key, value in tree.items():
+        name = f"{prefix}{key}"
+        if isinstance(value, Mapping):
+            inner = nested(value, flat, prefix=f"{name}.")
+            if inner:
+                out[key] = inner
+        elif name in flat:
+            out[key] = flat[name]
+    return out
+
+
 def layer_of(name: str) -> str:
     """The layer of a param: its name up to the last dot (a name without a dot is its own)."""
     return name.rpartition(".")[0] or name

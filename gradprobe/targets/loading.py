@@ -12,8 +12,8 @@ from collections.abc import Callable
 from dataclasses import replace
 from typing import Any
 
-from .errors import ProbeError
-from .guard import guarded
+from ..common.errors import ProbeError
+from ..common.guard import guarded
 from .stack import PART, StackTarget, is_stack, stack_from_object
 from .stack_split import worker_functions
 from .target import Target, _functions, resolve_object, target_from_object

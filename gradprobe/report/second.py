@@ -10,7 +10,7 @@ import math
 from dataclasses import dataclass, field
 from typing import Any
 
-from .status import Status
+from ..common.status import Status
 
 ENTERS = ("hessian", "gradient")  # the values of error_enters_at besides None
 

@@ -1,7 +1,7 @@
 """Comparing a report with an earlier one (protocol section 8): pure, part of the report model.
 
-:func:`compare` annotates each tensor of a :class:`~gradprobe.report.Report` with what the
-earlier run (the baseline, read by :mod:`gradprobe.baseline_file`) said about it and how it
+:func:`compare` annotates each tensor of a :class:`~gradprobe.report.model.Report` with what the
+earlier run (the baseline, read by :mod:`gradprobe.report.baseline_file`) said about it and how it
 changed; renderers only show the result.
 
 Like with like: where the baseline lists every coordinate it checked (a sampled tensor, or
@@ -28,9 +28,9 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from .baseline_model import BaselineReport, BaselineTensor, Change, RunBaseline, TensorBaseline
-from .report import CheckedCoordinates, Report, TensorResult
-from .status import Status, worst
-from .wording import plural
+from .model import CheckedCoordinates, Report, TensorResult
+from ..common.status import Status, worst
+from ..common.wording import plural
 
 
 def resolution(dtype: str) -> float:

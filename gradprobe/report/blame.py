@@ -12,9 +12,9 @@ from __future__ import annotations
 from collections.abc import Sequence
 from dataclasses import dataclass, replace
 
-from .report import LayerResult, Report, TensorResult
-from .status import Status, worst
-from .tensors import INPUT_LAYER
+from .model import LayerResult, Report, TensorResult
+from ..common.status import Status, worst
+from ..common.tensors import INPUT_LAYER
 
 
 @dataclass(frozen=True)

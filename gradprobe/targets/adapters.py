@@ -6,8 +6,8 @@ gradient on the layer (``layer.dW`` for ``layer.W``, or ``layer.grads["W"]`` for
 ``layer.params["W"]``). :func:`layer_target` wraps such a layer: each call puts gradprobe's
 (private, read-only) copies of the parameters on the layer, runs it, and then puts the whole
 object back as it was (parameters, caches, counters, running statistics; see
-:mod:`gradprobe.objstate`), also when the call fails or is interrupted.
-:mod:`gradprobe.object_stack` does the same for a list of such layers and a loss.
+:mod:`gradprobe.targets.objstate`), also when the call fails or is interrupted.
+:mod:`gradprobe.targets.object_stack` does the same for a list of such layers and a loss.
 """
 
 from __future__ import annotations
@@ -18,7 +18,7 @@ from typing import Any
 
 import numpy as np
 
-from .errors import TargetLoadError
+from ..common.errors import TargetLoadError
 from .objstate import preserved
 from .target import Target
 

@@ -2,7 +2,7 @@
 
 Both kinds of check are ordinary engine runs (:func:`~gradprobe.engine.runner.run_check`), so
 kinks, sampling, directions, hints, float32, parallel evaluation and every renderer apply to
-each; :func:`~gradprobe.blame.combine` makes one report of them.
+each; :func:`~gradprobe.report.blame.combine` makes one report of them.
 """
 
 from __future__ import annotations
@@ -13,15 +13,15 @@ from concurrent.futures import Executor
 from dataclasses import replace
 from typing import Any
 
-from .blame import OwnCheck, combine
-from .engine.evaluate import Progress
-from .engine.runner import run_check
-from .errors import ProbeError
-from .options import CheckOptions
-from .report import Report
-from .stack import StackTarget, end_to_end
-from .stack_split import base_activations, layer_targets
-from .target import Target
+from ..report.blame import OwnCheck, combine
+from .evaluate import Progress
+from .runner import run_check
+from ..common.errors import ProbeError
+from ..settings.options import CheckOptions
+from ..report.model import Report
+from ..targets.stack import StackTarget, end_to_end
+from ..targets.stack_split import base_activations, layer_targets
+from ..targets.target import Target
 
 
 def run_stack(
@@ -33,7 +33,7 @@ def run_stack(
     clock: Callable[[], float] = time.perf_counter,
 ) -> Report:
     """Check ``st``; ProbeError subclasses (naming the target) when the check cannot run."""
-    from .frameworks import preserved
+    from ..targets.frameworks import preserved
 
     with preserved(st.params, st.inputs):
         return _run_stack(st, options or CheckOptions(), executor, progress, clock)
@@ -41,7 +41,7 @@ def run_stack(
 
 def _run_stack(st: StackTarget, options: CheckOptions, executor: Executor | None,
                progress: Progress | None, clock: Callable[[], float]) -> Report:
-    from .frameworks import frame_stack
+    from ..targets.frameworks import frame_stack
 
     started = clock()
     try:

@@ -1,0 +1,1 @@
+"""The report model every renderer consumes: results, blame in stacks, and comparison with a stored report."""
