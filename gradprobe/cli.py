@@ -11,7 +11,6 @@ from __future__ import annotations
 import contextlib
 import os
 import sys
-import traceback
 from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -97,6 +96,8 @@ def _console(stderr: bool = False) -> Console:
 
 def _say_error(message: str, exc: BaseException | None, show_trace: bool) -> None:
     if show_trace and exc is not None:
+        import traceback  # local: only a failed check asked to show it needs it
+
         traceback.print_exception(type(exc), exc, exc.__traceback__, file=sys.stderr)
     click.echo(f"gradprobe: error: {message}", err=True)
 

@@ -60,7 +60,8 @@ def certify(
     bend = _second(probe, first)
     top = np.argsort(-bend, kind="stable")[: SAMPLE // 2]
     spread = np.linspace(0, n - 1, SAMPLE // 2).astype(np.int64)
-    sample = np.unique(np.concatenate([top, spread]))
+    both = np.sort(np.concatenate([top, spread]))  # unique, sorted (np.unique loads numpy.ma)
+    sample = both[np.concatenate(([True], both[1:] != both[:-1]))]
     steps = h[sample]
     wider = probe.pairs(np.tile(flat[sample], 2), np.concatenate([4.0 * steps, 16.0 * steps]))
     c1 = first.central[sample]

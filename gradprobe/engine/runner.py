@@ -18,7 +18,6 @@ from ..hints import diagnose
 from ..settings.options import CheckOptions, default_threshold
 from ..report.model import LayerResult, Report, TensorResult
 from ..common.status import Status
-from ..report.second import SecondOrderResult
 from ..targets.target import Target
 from ..common.tensors import INPUT_LAYER, Workspace, is_float, layer_of
 from .evaluate import Backend, Evaluator, LossFunction, Progress
@@ -28,10 +27,11 @@ from .record import TensorRecord
 from .tensor_check import check_tensor
 from .promote import agreement
 from ..common.roundoff import is_narrow, unit_roundoff
-from .second_order import check_second_order, has_second_order
 
 if TYPE_CHECKING:
     from concurrent.futures import Executor
+
+    from ..report.second import SecondOrderResult
 
 
 def _backend(
@@ -250,8 +250,9 @@ def _check_all(
 def _second_order(target: Target, settings: CheckOptions, point: Point,
                   notes: list[str]) -> SecondOrderResult | None:
     """Check 2nd derivatives when the target gives them and the setting is on (section 7)."""
-    if settings.second_order == "off" or not has_second_order(target):
-        return None
+    if settings.second_order == "off" or (getattr(target, "hvp", None) is None
+                                          and getattr(target, "hessian", None) is None):
+        return None  # the test of second_order.has_second_order, without loading that engine
     if point.info.grad_output is not None:
         notes.append("hvp and hessian are checked for a scalar loss only: forward returns an "
                      "array here, so they were not checked")
@@ -261,4 +262,6 @@ def _second_order(target: Target, settings: CheckOptions, point: Point,
                      + ", ".join(point.grads.problems))
         return None
     assert settings.threshold is not None
+    from .second_order import check_second_order  # local: a first-order check starts lean
+
     return check_second_order(target, point, settings, settings.threshold)

@@ -9,9 +9,8 @@ from __future__ import annotations
 
 import time
 from collections.abc import Callable
-from concurrent.futures import Executor
 from dataclasses import replace
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from ..report.blame import OwnCheck, combine
 from .evaluate import Progress
@@ -22,6 +21,9 @@ from ..report.model import Report
 from ..targets.stack import StackTarget, end_to_end
 from ..targets.stack_split import base_activations, layer_targets
 from ..targets.target import Target
+
+if TYPE_CHECKING:
+    from concurrent.futures import Executor
 
 
 def run_stack(

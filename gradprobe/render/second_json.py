@@ -3,9 +3,10 @@
 from __future__ import annotations
 
 import math
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
-from ..report.second import BlockResult, SecondOrderResult
+if TYPE_CHECKING:
+    from ..report.second import BlockResult, SecondOrderResult
 
 
 def _num(value: float | None) -> float | None:

@@ -18,7 +18,6 @@ from typing import Any
 import numpy as np
 
 from .baseline_model import BaselineReport, BaselineTensor
-from .comparison import compare
 from ..common.errors import UsageProblem
 from ..settings.options import CheckOptions
 from .model import CheckedCoordinates, Report
@@ -197,6 +196,8 @@ def run_against(baseline: Baseline | None, target: str, options: CheckOptions,
     base = baseline.report_for(target, alone)
     if base is not None:
         options = replace(options, also_check=coordinates_of(base))
+    from .comparison import compare  # local: a run without a baseline starts lean
+
     report = compare(run(options), base, float(options.baseline_growth), baseline.path, options.selects)
     if others:
         note = f"the baseline {baseline.path} also holds {', '.join(others)}, not checked in this run"

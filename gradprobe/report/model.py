@@ -8,11 +8,13 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass, field
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from .baseline_model import CheckedCoordinates, RunBaseline, TensorBaseline
-from .second import SecondOrderResult
 from ..common.status import Status
+
+if TYPE_CHECKING:
+    from .second import SecondOrderResult
 
 
 @dataclass(frozen=True)

@@ -94,4 +94,5 @@ class DoubleBackward:
                                     f"{summarise(exc)}") from exc
             b.check_writes({n: t for n, t in made.items() if n not in wrt}, "forward")
             flat = {n: b.result(h) for n, h in found.items()}
+
         return nested(params, flat)

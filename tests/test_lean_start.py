@@ -1,0 +1,91 @@
+"""A check from the shell loads only what it uses.
+
+At a ~10 us forward, start-up dominates what ``gradprobe check TARGET --json -`` costs
+(bench/cost.py). These tests run the command in a fresh process and look at ``sys.modules``
+afterwards: the terminal renderer (rich), the baseline comparison, the second-order engine,
+the process pool and numpy.ma are loaded only where a check asks for them. Not timed.
+"""
+
+from __future__ import annotations
+
+import json
+import os
+import subprocess
+import sys
+import textwrap
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parent.parent
+
+# Sensor gains: loss = sum(sin(w * x)); d/dw sin(w x) = x cos(w x) (standard derivative
+# table, d/du sin u = cos u, with the chain rule).
+TARGET = """
+import numpy as np
+params = {"gain": np.array([0.3, -1.2, 0.8, 2.0])}
+inputs = {"reading": np.array([1.5, 0.4, -2.0, 0.7])}
+def forward(p, i):
+    return float(np.sum(np.sin(p["gain"] * i["reading"])))
+def backward(p, i):
+    return {"gain": i["reading"] * np.cos(p["gain"] * i["reading"])}
+"""
+
+RUN = """
+import json, runpy, sys
+sys.argv = ["gradprobe", *sys.argv[1:]]
+try:
+    runpy.run_module("gradprobe", run_name="__main__")
+except SystemExit as exc:
+    code = exc.code
+with open({modules!r}, "w") as f:
+    json.dump({{"exit": code, "modules": sorted(sys.modules)}}, f)
+"""
+
+NOT_ON_THE_PLAIN_PATH = (
+    "rich",  # the terminal table: --json - asks for none
+    "gradprobe.render.terminal",
+    "gradprobe.comparison",  # --baseline only
+    "gradprobe.engine.second_order",  # targets with hvp/hessian only
+    "gradprobe.engine.second_source",
+    "gradprobe.engine.parallel",  # --jobs only
+    "concurrent.futures",
+    "numpy.ma",
+    "traceback",  # --traceback on an error only
+)
+
+
+def _run(tmp_path: Path, *args: str) -> tuple[int, set[str], str]:
+    modules = tmp_path / "modules.json"
+    script = tmp_path / "run.py"
+    script.write_text(RUN.format(modules=str(modules)))
+    env = {**os.environ, "PYTHONPATH": str(ROOT)}
+    out = subprocess.run([sys.executable, str(script), *args], cwd=tmp_path, env=env,
+                         capture_output=True, text=True, timeout=120)
+    found = json.loads(modules.read_text())
+    return found["exit"], set(found["modules"]), out.stdout
+
+
+def _loaded(modules: set[str], name: str) -> bool:
+    return name in modules or any(m.startswith(name + ".") for m in modules)
+
+
+def test_a_json_check_loads_no_renderer_baseline_or_second_order_code(tmp_path):
+    (tmp_path / "gains.py").write_text(textwrap.dedent(TARGET))
+    code, modules, stdout = _run(tmp_path, "check", "gains.py", "--json", "-")
+    report = json.loads(stdout)
+    assert code == 0 and report["ok"] is True  # a correct target passes: the check ran
+    assert "gradprobe.engine.runner" in modules and "numpy" in modules
+    assert [name for name in NOT_ON_THE_PLAIN_PATH if _loaded(modules, name)] == []
+
+
+def test_the_terminal_report_still_loads_rich(tmp_path):
+    # The counterpart: the same look at sys.modules sees rich where the table is printed.
+    (tmp_path / "gains.py").write_text(textwrap.dedent(TARGET))
+    code, modules, _ = _run(tmp_path, "check", "gains.py")
+    assert code == 0
+    assert _loaded(modules, "rich") and "gradprobe.render.terminal" in modules
+
+
+def test_version_loads_neither_numpy_nor_rich(tmp_path):
+    code, modules, stdout = _run(tmp_path, "--version")
+    assert code in (0, None) and stdout.startswith("gradprobe ")
+    assert not _loaded(modules, "numpy") and not _loaded(modules, "rich")
