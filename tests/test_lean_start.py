@@ -43,7 +43,7 @@ with open({modules!r}, "w") as f:
 NOT_ON_THE_PLAIN_PATH = (
     "rich",  # the terminal table: --json - asks for none
     "gradprobe.render.terminal",
-    "gradprobe.comparison",  # --baseline only
+    "gradprobe.report.comparison",  # --baseline only
     "gradprobe.engine.second_order",  # targets with hvp/hessian only
     "gradprobe.engine.second_source",
     "gradprobe.engine.parallel",  # --jobs only
