@@ -2,7 +2,7 @@
 suite, each judged against an mpmath reference (tests/adversarial).
 
 Run by hand, with the gradprobe to test first on the path: ``PYTHONPATH=/path/to/checkout python
-/work/wt/adversarial/bench/adversarial.py [--n 1000] [--offset 0] [--categories steep,kinks]
+bench/adversarial.py [--n 1000] [--offset 0] [--categories steep,kinks]
 [--jobs 2] [--out /tmp/adversarial-failures] [--options '{"method": "richardson"}']``.
 N cases are spread evenly over the chosen categories, seeds OFFSET, OFFSET+1, ... in each.
 Prints per category:
