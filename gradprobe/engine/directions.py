@@ -59,11 +59,64 @@ class DirectionCheck:
         return not (self.significant or self.kink or self.unresolved)
 
 
-def unit_direction(size: int, rng: np.random.Generator) -> np.ndarray:
-    """A unit vector of length ``size``, uniformly distributed on the sphere."""
-    g = rng.standard_normal(size)
-    g /= np.linalg.norm(g)  # in place: a large tensor's direction is one array
-    return g
+LAZY_DIRECTION = 1 << 18  # directions over more elements are drawn again when read, not kept
+DRAW_BLOCK = 1 << 16  # elements drawn at a time; the generator's state is kept at each block
+
+
+class Direction:
+    """A unit direction over ``[lo, hi)`` of a large tensor, kept as the generator states it
+    was drawn from and its norm, not as an array: its values are drawn again, bit for bit
+    the same, where they are read (:meth:`blocks` a block at a time; ``np.asarray`` or an
+    index array the whole range at once). While a moved copy of the tensor is alive, the
+    direction then holds no array of the tensor's size."""
+
+    def __init__(self, states: list[dict], kind: type, norm: float, lo: int, hi: int) -> None:
+        self._states, self._kind, self._norm, self.lo, self.hi = states, kind, norm, lo, hi
+
+    @property
+    def size(self) -> int:
+        return self.hi - self.lo
+
+    def blocks(self, step: int):
+        """The values a block of ``step`` at a time, in order."""
+        first = self.lo // DRAW_BLOCK
+        bits = self._kind()
+        bits.state = self._states[first]
+        rng = np.random.Generator(bits)
+        skip = self.lo - first * DRAW_BLOCK
+        if skip:
+            rng.standard_normal(skip)
+        for lo in range(self.lo, self.hi, step):
+            g = rng.standard_normal(min(step, self.hi - lo))
+            g /= self._norm
+            yield g
+
+    def __array__(self, dtype=None, copy=None) -> np.ndarray:
+        out = np.empty(self.size)
+        for k, block in zip(range(0, self.size, DRAW_BLOCK), self.blocks(DRAW_BLOCK)):
+            out[k:k + block.size] = block
+        return out if dtype is None else out.astype(dtype, copy=False)
+
+    def __getitem__(self, index):
+        if isinstance(index, slice) and index.step in (None, 1):
+            lo, hi, _ = index.indices(self.size)
+            return Direction(self._states, self._kind, self._norm, self.lo + lo, self.lo + max(hi, lo))
+        return np.asarray(self)[index]
+
+
+def unit_direction(size: int, rng: np.random.Generator) -> np.ndarray | Direction:
+    """A unit vector of length ``size``, uniformly distributed on the sphere (a large one as a
+    :class:`Direction`, drawn again where read)."""
+    if size <= LAZY_DIRECTION:
+        g = rng.standard_normal(size)
+        g /= np.linalg.norm(g)  # in place: a large tensor's direction is one array
+        return g
+    g = np.empty(size)
+    states = []
+    for lo in range(0, size, DRAW_BLOCK):
+        states.append(rng.bit_generator.state)
+        rng.standard_normal(out=g[lo:lo + DRAW_BLOCK])  # the same draws as one call
+    return Direction(states, type(rng.bit_generator), np.linalg.norm(g), 0, size)
 
 
 def _ladder(
@@ -146,7 +199,7 @@ def check_direction(
         wide_gap = abs(float(wide[2].value[0] - wide[1].value[0]))
         if wide_gap <= DIRECTION_SIGNIFICANCE * float(wide[1].error[0] + wide[2].error[0]):
             central = Estimate.better(central, wide[0])
-    analytic = float(probe.a[part] @ u)
+    analytic = float(probe.a[part] @ np.asarray(u))
     if not kink and threshold:
         # Smooth but steeper than the steps: the bound cannot resolve the threshold while
         # truncation, not rounding, limits it. Steps 16 times smaller each time, a ladder

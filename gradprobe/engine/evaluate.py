@@ -9,6 +9,7 @@ scalar, or ``sum(grad_output * forward(...))`` when the forward returns an array
 from __future__ import annotations
 
 import math
+from collections import Counter
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from typing import Any, Protocol
@@ -126,6 +127,18 @@ def _overflowed(out: Any) -> bool:
 OUTSIDE = "forward warned at a point moved off the base point (outside its domain there)"
 
 
+def _covers(p: Perturbation, owner: np.ndarray) -> bool:
+    """``p`` sets every element of ``owner`` (a real move of a real tensor)."""
+    return (isinstance(p.index, slice) and p.index.start == 0 and p.index.stop == owner.size
+            and p.values.dtype.kind != "c" and owner.dtype.kind != "c")
+
+
+def _whole_view(p: Perturbation, owner: np.ndarray) -> np.ndarray:
+    view = np.asarray(p.values, dtype=owner.dtype).reshape(owner.shape).view()
+    view.flags.writeable = False
+    return view
+
+
 class LossFunction:
     """forward as a scalar function of the workspace's current values; what it warns at
     moved points is caught, and marks them outside its domain (see domain.py)."""
@@ -208,11 +221,12 @@ class LossFunction:
         self._learn_base_warnings()
         return math.nan if self._watch.outside(warned) else value
 
-    def current(self) -> float:
-        """The loss at the workspace's values as the caller moved them (a moved point:
-        BadOutputError where it lies outside forward's domain)."""
+    def current(self, params: Any = None, inputs: Any = None) -> float:
+        """The loss at the workspace's values as the caller moved them, or at the trees
+        given (a moved point: BadOutputError where it lies outside forward's domain)."""
         ws = self.workspace
-        value = self._call(ws.params_tree, ws.inputs_tree, None, moved=True)
+        value = self._call(ws.params_tree if params is None else params,
+                           ws.inputs_tree if inputs is None else inputs, None, moved=True)
         if self._unsure is not None:
             self._unsure = None
             raise BadOutputError(OUTSIDE)  # not to be decided here: no evidence either way
@@ -324,14 +338,23 @@ class Evaluator:
     def loss_with(self, moves: Sequence[Perturbation]) -> float:
         """The loss with every perturbation in ``moves`` applied at once (one call)."""
         ws = self.loss.workspace
-        saved = [ws.owners[p.tensor].flat[p.index].copy() for p in moves]
+        # A tensor moved as a whole is handed to forward as a read-only view of the new
+        # values in its place (no copy of the old values to restore: memory on a large one).
+        once = Counter(p.tensor for p in moves)
+        whole = {p.tensor: _whole_view(p, ws.owners[p.tensor]) for p in moves
+                 if once[p.tensor] == 1 and _covers(p, ws.owners[p.tensor])}
+        parts = [p for p in moves if p.tensor not in whole]
+        saved = [ws.owners[p.tensor].flat[p.index].copy() for p in parts]
         try:
-            for p in moves:
+            for p in parts:
                 ws.owners[p.tensor].flat[p.index] = p.values
             self._counted(1)
-            return self.loss.current()
+            if not whole:
+                return self.loss.current()
+            params, inputs = ws.trees_with(whole)
+            return self.loss.current(params, inputs)
         finally:
-            for p, old in zip(moves, saved):
+            for p, old in zip(parts, saved):
                 ws.owners[p.tensor].flat[p.index] = old
 
     def losses(self, perturbations: Sequence[Perturbation]) -> np.ndarray:

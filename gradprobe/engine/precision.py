@@ -31,9 +31,9 @@ def _moved(ws: Workspace, names: list[str], relative: float) -> list[Perturbatio
     out = []
     for name in names:
         owner = ws.owners[name]
-        flat = np.arange(owner.size, dtype=np.int64)
-        base = owner.reshape(-1).astype(np.float32).astype(np.float64)
-        out.append(Perturbation(name, flat, base * (1.0 + relative)))
+        moved = owner.reshape(-1).astype(np.float32).astype(np.float64)
+        moved *= 1.0 + relative  # in place: one array of the tensor's size
+        out.append(Perturbation(name, slice(0, owner.size), moved))
     return out
 
 

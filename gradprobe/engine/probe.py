@@ -32,6 +32,13 @@ def _fields(p: Pairs) -> tuple[np.ndarray, ...]:
     return (p.f_plus, p.f_minus, p.h_plus, p.h_minus, p.noise)
 
 
+def _chunks(u, step: int):
+    """``u`` a chunk of ``step`` at a time (a lazily drawn direction draws them in order)."""
+    if isinstance(u, np.ndarray):
+        return (u[lo:lo + step] for lo in range(0, u.size, step))
+    return u.blocks(step)
+
+
 def root_mean_square(x: np.ndarray) -> float:
     """The root mean square of ``x`` without a float64 copy of it (a dot product of float64
     values; narrower ones are converted a chunk at a time)."""
@@ -245,9 +252,10 @@ class TensorProbe:
             if not serial:
                 point = np.empty_like(x)
             change = 0.0
-            for lo in range(0, x.size, ALONG_CHUNK):  # no float64 temporaries of the tensor's size
+            # A chunk at a time: no float64 temporaries of the tensor's size.
+            for lo, u_lo in zip(range(0, x.size, ALONG_CHUNK), _chunks(u, ALONG_CHUNK)):
                 part_x = x[lo:lo + ALONG_CHUNK]
-                moved = part_x + c * u[lo:lo + ALONG_CHUNK]
+                moved = part_x + c * u_lo
                 point[lo:lo + ALONG_CHUNK] = moved
                 seen = point[lo:lo + ALONG_CHUNK]
                 if coarser:

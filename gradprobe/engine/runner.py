@@ -138,6 +138,7 @@ def _run(
         evaluator = Evaluator(LossFunction(target.forward, ws, None), None, progress)
         assert target.backward is not None  # framed: the framework's reverse mode where absent
         point = prepare(target.forward, target.backward, ws, evaluator, options.seed, backend=backend)
+        release_heap()  # preflight's copies are gone: their pages back before the probing's
         report = _check_all(target, options, point, started, clock)
     finally:
         for release in releases:
