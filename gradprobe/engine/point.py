@@ -53,15 +53,20 @@ def _compute_type(out_dtype: np.dtype, ws: Workspace) -> tuple[np.dtype, str]:
     return np.dtype(out_dtype), ""
 
 
-def _numerics(backward: Callable[..., Any], ws: Workspace, evaluator: Evaluator,
-              info: ForwardInfo, grads: Gradients) -> tuple[Numerics, LossFunction]:
-    """The code's compute type (3 calls to look for hidden float32), and float64 numerics
-    for narrow code that accepts float64 (1 forward and 1 backward call); with the loss
-    the numeric side evaluates."""
+def _code_type(ws: Workspace, evaluator: Evaluator, info: ForwardInfo) -> tuple[np.dtype, str]:
+    """The code's compute type (3 calls to look for hidden float32) and how it was found."""
     dtype, why = _compute_type(info.out_dtype, ws)
     hidden = narrower_compute_type(evaluator, ws, info.f0, dtype)
     if hidden is not None:
         dtype, why = hidden.dtype, hidden.evidence
+    return dtype, why
+
+
+def _numerics(backward: Callable[..., Any], ws: Workspace, evaluator: Evaluator,
+              info: ForwardInfo, grads: Gradients, dtype: np.dtype, why: str,
+              ) -> tuple[Numerics, LossFunction]:
+    """float64 numerics for narrow code that accepts float64 (1 forward and 1 backward
+    call), else the code's own; with the loss the numeric side evaluates."""
     if is_narrow(dtype):
         promoted = promote(evaluator, backward, ws, grads, info.f0)
         if promoted is not None:
@@ -218,8 +223,11 @@ def prepare(
     already checked)."""
     rng = np.random.default_rng(seed)  # grad_output; tensors draw from their own
     info = inspect_forward(forward, ws, evaluator, rng, scratch)
+    # The look for a hidden float32 type moves whole tensors: done before backward's
+    # gradients exist, so that its moved copies and the gradients are not held at once.
+    dtype, why = _code_type(ws, evaluator, info)
     grads = validate(call_backward(backward, ws, info.grad_output, scratch), ws)
-    numerics, loss = _numerics(backward, ws, evaluator, info, grads)
+    numerics, loss = _numerics(backward, ws, evaluator, info, grads, dtype, why)
     where = backend(numerics.workspace, info.grad_output) if backend is not None else None
     point = Point(ws, evaluator.sibling(loss, where), info, grads, numerics, backward, seed)
     point._measure()
