@@ -195,6 +195,7 @@ def _second_look(target: Target, settings: CheckOptions, point: Point,
     assert target.backward is not None  # framed in _run
     look = SecondLook(target.forward, target.backward, point, settings)
     point.keep_gradients(set())  # the check's own gradients are no longer needed: memory
+    release_heap()  # ... and their pages go back before the moved points' copies are made
     failed = look.settle(kinked)
     if not failed:
         return None
