@@ -177,3 +177,10 @@ def test_a_stack_keeps_its_layers_own_checks_under_a_selection(run_cli):
     report = json.loads(result.stdout)
     assert result.exit_code == 1 and report["summary"]["error_enters_at"] == ["trend"]
     assert {t["name"] for layer in report["layers"] for t in layer["tensors"]} == {"forecast.W", "forecast.b"}
+
+
+def test_the_settings_table_is_not_widened_by_long_defaults(run_cli):
+    lines = run_cli("check", "--settings-in-force").output.splitlines()
+    assert all(line == line.rstrip() for line in lines)
+    seed = next(line for line in lines if line.startswith("seed "))
+    assert len(seed) <= 45 and seed.endswith("default")  # not padded to the longest default's width (130)

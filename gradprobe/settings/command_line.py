@@ -33,10 +33,15 @@ def settings_lines(values: dict, origins: dict, targets: list[str], target_origi
              origins[s.name]) for s in SETTINGS]
     rows.append(("targets", repr(targets), target_origin))
     width = max(len(r[0]) for r in rows)
-    value_width = max(len(r[1]) for r in rows)
+    # A long default's description does not widen the column for every other row: it pushes
+    # only its own origin along.
+    value_width = max(len(r[1]) for r in rows if len(r[1]) <= VALUE_COLUMN)
     lines = [f"{'setting'.ljust(width)}  {'value'.ljust(value_width)}  from"]
     lines += [f"{name.ljust(width)}  {value.ljust(value_width)}  {origin}" for name, value, origin in rows]
-    return lines
+    return [line.rstrip() for line in lines]
+
+
+VALUE_COLUMN = 24  # the widest value the column is sized for
 
 
 class CheckCommand(click.Command):
