@@ -18,7 +18,7 @@ import numpy as np
 
 from ..report.model import DirectionResult
 from .directions import DIRECTION_SIGNIFICANCE as SIGNIFICANCE
-from .directions import DirectionCheck, check_direction, unit_direction
+from .directions import DirectionCheck, Vector, check_direction, unit_direction
 from .locate import locate
 from .probe import TensorProbe
 from .sampling import tensor_rng
@@ -55,7 +55,7 @@ def _result(probe: TensorProbe, d: DirectionCheck) -> DirectionResult:
     )
 
 
-def _plain(probe: TensorProbe, u: np.ndarray, check: DirectionCheck, candidates: np.ndarray) -> bool:
+def _plain(probe: TensorProbe, u: Vector, check: DirectionCheck, candidates: np.ndarray) -> bool:
     """The candidates' share of the discrepancy is beyond PLAIN tolerances of the largest of
     them, however it is split among them: the tensor will fail on them."""
     if candidates.size == 0:

@@ -16,7 +16,9 @@ element shows up as long as its share of the discrepancy exceeds the error bound
 
 from __future__ import annotations
 
+from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass
+from typing import Any, Union
 
 import numpy as np
 
@@ -70,14 +72,15 @@ class Direction:
     index array the whole range at once). While a moved copy of the tensor is alive, the
     direction then holds no array of the tensor's size."""
 
-    def __init__(self, states: list[dict], kind: type, norm: float, lo: int, hi: int) -> None:
+    def __init__(self, states: Sequence[Mapping[str, Any]], kind: type, norm: float, lo: int,
+                 hi: int) -> None:
         self._states, self._kind, self._norm, self.lo, self.hi = states, kind, norm, lo, hi
 
     @property
     def size(self) -> int:
         return self.hi - self.lo
 
-    def blocks(self, step: int):
+    def blocks(self, step: int) -> Iterator[np.ndarray]:
         """The values a block of ``step`` at a time, in order."""
         first = self.lo // DRAW_BLOCK
         bits = self._kind()
@@ -104,7 +107,10 @@ class Direction:
         return np.asarray(self)[index]
 
 
-def unit_direction(size: int, rng: np.random.Generator) -> np.ndarray | Direction:
+Vector = Union[np.ndarray, Direction]  # a direction as an array, or drawn again where read
+
+
+def unit_direction(size: int, rng: np.random.Generator) -> Vector:
     """A unit vector of length ``size``, uniformly distributed on the sphere (a large one as a
     :class:`Direction`, drawn again where read)."""
     if size <= LAZY_DIRECTION:
@@ -116,11 +122,11 @@ def unit_direction(size: int, rng: np.random.Generator) -> np.ndarray | Directio
     for lo in range(0, size, DRAW_BLOCK):
         states.append(rng.bit_generator.state)
         rng.standard_normal(out=g[lo:lo + DRAW_BLOCK])  # the same draws as one call
-    return Direction(states, type(rng.bit_generator), np.linalg.norm(g), 0, size)
+    return Direction(states, type(rng.bit_generator), float(np.linalg.norm(g)), 0, size)
 
 
 def _ladder(
-    probe: TensorProbe, part: slice, u: np.ndarray, t0: float, rows: int,
+    probe: TensorProbe, part: slice, u: Vector, t0: float, rows: int,
     known: tuple[np.ndarray, np.ndarray] | None = None,
 ) -> tuple[Estimate, Estimate, Estimate, float, tuple[np.ndarray, np.ndarray]]:
     """The ladder's central and one-sided estimates of the discrepancy, the noise of its
@@ -166,7 +172,7 @@ def first_step(probe: TensorProbe, part: slice) -> float:
 
 
 def check_direction(
-    probe: TensorProbe, part: slice, u: np.ndarray, rows: int = ROWS, enough: float = 0.0,
+    probe: TensorProbe, part: slice, u: Vector, rows: int = ROWS, enough: float = 0.0,
     threshold: bool = False,
 ) -> DirectionCheck:
     """The discrepancy along ``u`` over the contiguous flat range ``part`` of the probed

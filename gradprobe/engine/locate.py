@@ -20,7 +20,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .directions import DIRECTION_SIGNIFICANCE as SIGNIFICANCE, check_direction
+from .directions import DIRECTION_SIGNIFICANCE as SIGNIFICANCE
+from .directions import Vector, check_direction
 from .probe import TensorProbe
 
 LEAF = 2
@@ -37,7 +38,7 @@ class Located:
     undecided: tuple[tuple[int, int], ...] = ()  # flat ranges whose share no check resolved
 
 
-def locate(probe: TensorProbe, u: np.ndarray, discrepancy: float, error: float) -> Located:
+def locate(probe: TensorProbe, u: Vector, discrepancy: float, error: float) -> Located:
     """Candidates for the wrong coordinates of the probed tensor whose direction ``u``
     showed ``discrepancy`` +- ``error``."""
     start = probe.evaluator.count

@@ -9,8 +9,9 @@ direction (:meth:`TensorProbe.along`), and restrictions to part of the tensor.
 
 from __future__ import annotations
 
-from collections.abc import Callable
+from collections.abc import Callable, Iterable
 from dataclasses import dataclass
+from typing import Protocol
 
 import numpy as np
 
@@ -32,7 +33,16 @@ def _fields(p: Pairs) -> tuple[np.ndarray, ...]:
     return (p.f_plus, p.f_minus, p.h_plus, p.h_minus, p.noise)
 
 
-def _chunks(u, step: int):
+class DrawnAgain(Protocol):
+    """A vector kept as what draws it, read a block at a time (:class:`.directions.Direction`)."""
+
+    @property
+    def size(self) -> int: ...
+
+    def blocks(self, step: int) -> Iterable[np.ndarray]: ...
+
+
+def _chunks(u: np.ndarray | DrawnAgain, step: int) -> Iterable[np.ndarray]:
     """``u`` a chunk of ``step`` at a time (a lazily drawn direction draws them in order)."""
     if isinstance(u, np.ndarray):
         return (u[lo:lo + step] for lo in range(0, u.size, step))
@@ -236,7 +246,8 @@ class TensorProbe:
         ]
         return self.evaluator.losses(requests)
 
-    def along(self, part: slice, u: np.ndarray, scales: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    def along(self, part: slice, u: np.ndarray | DrawnAgain,
+              scales: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """The loss with ``x[part] + c u`` for each scale ``c`` (one call each), and the
         analytic change ``a[part] . d`` for the moves ``d`` the forward really saw.
 
