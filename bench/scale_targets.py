@@ -25,8 +25,17 @@ class Network:
         acts = [inputs["x"]]
         for k in range(1, len(self.sizes)):
             z = acts[-1] @ params[f"layer{k}"]["W"] + params[f"layer{k}"]["b"]
-            acts.append(np.tanh(z) if k < len(self.sizes) - 1 else z)
+            acts.append(self._act(z) if k < len(self.sizes) - 1 else z)
         return acts
+
+    @staticmethod
+    def _act(z):
+        return np.tanh(z)
+
+    @staticmethod
+    def _slope(act):
+        """The activation's derivative, from its output: tanh' = 1 - tanh^2."""
+        return 1 - act**2
 
     def forward(self, params, inputs):
         out = self._layers(params, inputs)[-1]
@@ -39,7 +48,7 @@ class Network:
         for k in range(len(self.sizes) - 1, 0, -1):
             grads[f"layer{k}"] = {"W": acts[k - 1].T @ d, "b": d.sum(axis=0)}
             if k > 1:
-                d = (d @ params[f"layer{k}"]["W"].T) * (1 - acts[k - 1] ** 2)
+                d = (d @ params[f"layer{k}"]["W"].T) * self._slope(acts[k - 1])
         if self.wrong is not None:
             name, index = self.wrong
             layer, tensor = name.split(".")
@@ -116,23 +125,14 @@ class KinkedNetwork(Network):
         params["layer1"]["b"][:quarter] = 0.0
         return params, inputs
 
-    def _layers(self, params, inputs):
-        acts = [inputs["x"]]
-        for k in range(1, len(self.sizes)):
-            z = acts[-1] @ params[f"layer{k}"]["W"] + params[f"layer{k}"]["b"]
-            acts.append(np.maximum(z, 0.0) if k < len(self.sizes) - 1 else z)
-        return acts
+    @staticmethod
+    def _act(z):
+        return np.maximum(z, 0.0)
 
-    def backward(self, params, inputs):
-        acts = self._layers(params, inputs)
-        d = (acts[-1] - inputs["demand"]) / self.batch
-        grads = {}
-        for k in range(len(self.sizes) - 1, 0, -1):
-            grads[f"layer{k}"] = {"W": acts[k - 1].T @ d, "b": d.sum(axis=0)}
-            if k > 1:
-                d = (d @ params[f"layer{k}"]["W"].T) * (acts[k - 1] > 0)
-        return grads
-
+    @staticmethod
+    def _slope(act):
+        """ReLU's derivative from its output (0 at the kink: the convention of the code)."""
+        return act > 0
 
 def _memory_hidden() -> int:
     import os

@@ -252,9 +252,8 @@ def _check_all(
 def _second_order(target: Target, settings: CheckOptions, point: Point,
                   notes: list[str]) -> SecondOrderResult | None:
     """Check 2nd derivatives when the target gives them and the setting is on (section 7)."""
-    if settings.second_order == "off" or (getattr(target, "hvp", None) is None
-                                          and getattr(target, "hessian", None) is None):
-        return None  # the test of second_order.has_second_order, without loading that engine
+    if settings.second_order == "off" or not target.gives_second_derivatives:
+        return None
     if point.info.grad_output is not None:
         notes.append("hvp and hessian are checked for a scalar loss only: forward returns an "
                      "array here, so they were not checked")
@@ -263,7 +262,6 @@ def _second_order(target: Target, settings: CheckOptions, point: Point,
         notes.append("hvp and hessian were not checked: backward gives no usable gradient for "
                      + ", ".join(point.grads.problems))
         return None
-    assert settings.threshold is not None
     from .second_order import check_second_order  # local: a first-order check starts lean
 
-    return check_second_order(target, point, settings, settings.threshold)
+    return check_second_order(target, point, settings, settings.resolved_threshold)

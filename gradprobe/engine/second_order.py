@@ -51,10 +51,6 @@ def second_order_source(target: Any, ws: Any, layout: Layout) -> HessianSource |
     return None
 
 
-def has_second_order(target: Any) -> bool:
-    return getattr(target, "hvp", None) is not None or getattr(target, "hessian", None) is not None
-
-
 def check_second_order(target: Any, point: Point, options: CheckOptions, threshold: float,
                        clock: Callable[[], float] = time.perf_counter) -> SecondOrderResult:
     started, forward_before = clock(), point.evaluator.count

@@ -43,6 +43,11 @@ class Target:
     # ``second_order = True``: H v by the framework's double backward (forward-only targets)
     double_backward: bool = False
 
+    @property
+    def gives_second_derivatives(self) -> bool:
+        """It gives ``hvp`` or ``hessian`` (double backward is turned into an ``hvp``)."""
+        return self.hvp is not None or self.hessian is not None
+
 
 MISSING_FIX = {  # what to write when the target lacks one of its functions
     "forward": "define forward(params, inputs) returning the loss (or an output array)",
