@@ -165,9 +165,11 @@ def wide_estimate(probe: TensorProbe, flat: np.ndarray) -> Estimate:
             wa, wb = s2**2 * (s3**2 - s1**2), s3**2 * (s4**2 - s2**2)
             c4a, c4b = (r12 - r23) / wa, (r23 - r34) / wb
             slack_a, slack_b = (n12 + n23) / wa, (n23 + n34) / wb
-            # The model predicts one c4: the two measures must agree (to a factor of two,
-            # beyond rounding); a corner or a kink between the steps breaks that.
-            follows &= np.abs(c4a - c4b) <= 0.5 * np.maximum(np.abs(c4a), np.abs(c4b)) + 2.0 * WIDE_NOISE * (slack_a + slack_b)
+            # The model predicts one c4: the two measures must agree (to a factor of two),
+            # each moved by at most WIDE_NOISE times its own rounding; a corner or a kink
+            # between the steps breaks that (a corner where only f'' jumps leaves a term in
+            # s in every quotient: c4a is then 8 times c4b).
+            follows &= _agree(c4a, slack_a, c4b, slack_b)
             c4a, c4b = np.abs(c4a) + slack_a, np.abs(c4b) + slack_b
             bound = WIDE_SAFETY * np.maximum(c4a, c4b) * s1**2 * s2**2 + WIDE_NOISE * n12
             # Every smaller step's quotient lies at least as close to the estimate as the
@@ -181,3 +183,13 @@ def wide_estimate(probe: TensorProbe, flat: np.ndarray) -> Estimate:
             value = np.where(take, r12, value)
             error = np.where(take, bound, error)
     return Estimate(value, error)
+
+
+def _agree(a: np.ndarray, slack_a: np.ndarray, b: np.ndarray, slack_b: np.ndarray) -> np.ndarray:
+    """Two measures of one quantity agree to a factor of two once each may move by WIDE_NOISE
+    times its rounding (``slack_a``, ``slack_b``): of one sign, or one within its rounding of 0."""
+    room_a, room_b = WIDE_NOISE * slack_a, WIDE_NOISE * slack_b
+    low_a, low_b = np.abs(a) - room_a, np.abs(b) - room_b
+    high_a, high_b = np.abs(a) + room_a, np.abs(b) + room_b
+    signs = (a * b > 0) | (low_a <= 0) | (low_b <= 0)
+    return (low_a <= 2.0 * high_b) & (low_b <= 2.0 * high_a) & signs
