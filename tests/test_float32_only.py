@@ -18,15 +18,18 @@ def _judged(seed: int) -> dict:
     return o
 
 
-# A Huber corner (f'' jumps, f' does not) 1e-5 from the point along a param of scale 10: at the
-# wide steps every central quotient carries a term in s (its changes halve as the step halves),
-# which the window's c4 model read as its s**4 term within rounding, and a correct element
-# failed with a bound 4 times too small (the other tensor's 0.5% element bug must still fail).
-CORNER_SEEDS = [1213]
+# Huber corners (f'' jumps, f' does not) among the wide steps of code judged on its own float32
+# arithmetic. 1213: 1e-5 from the point along a param of scale 10, so every central quotient
+# carries a term in s (its changes halve as the step halves), which the window's c4 model read
+# as its s**4 term within rounding: a correct element failed on a bound 4 times too small (the
+# other tensor's 0.5% element bug must still fail). 3288: 0.034 from the point, between a
+# window's first two steps, where the quotients' changes happened to shrink fourfold: the
+# second differences, which jump there, now keep that window out.
+CORNER_SEEDS = [1213, 3288]
 
 
 @pytest.mark.parametrize("seed", CORNER_SEEDS)
 def test_a_corner_between_wide_steps_is_no_false_alarm(seed):
     o = _judged(seed)
     assert not o["false_alarm"], (o["status"], o["expect"])
-    assert o["found"], (o["status"], o["expect"])
+    assert o["correct"] or o["found"], (o["status"], o["expect"])

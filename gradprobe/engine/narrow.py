@@ -125,6 +125,10 @@ def wide_estimate(probe: TensorProbe, flat: np.ndarray) -> Estimate:
     right, left = (q.reshape(rows, n) for q in p.sides(probe.f0))
     side_noise = (2.0 * p.noise / np.minimum(p.h_plus, p.h_minus)).reshape(rows, n)
     gap = np.abs(right - left)
+    # The second difference over the step's square, f'' + f'''' s**2 / 12 + ...: the even part
+    # of the loss along the coordinate, with its rounding.
+    bend = (right - left) / s
+    bend_noise = 2.0 * side_noise / s
     # Asymmetric moves (x + h and x - h rounded to the type's grid) leave a first-order term
     # f'' (h+ - h-) / 2 in a central quotient; f'' from the one-sided gap at the same step.
     skew = gap * (np.abs(p.h_plus - p.h_minus) / np.maximum(p.h_plus + p.h_minus, 1e-300)).reshape(rows, n)
@@ -157,6 +161,11 @@ def wide_estimate(probe: TensorProbe, flat: np.ndarray) -> Estimate:
                 follows &= (signed[k] * signed[k + 1] > 0) | (np.minimum(steps[k], steps[k + 1]) <= room)
             # The one-sided gap grows in proportion to the step (curvature), not stays (a kink).
             first, last = i[0], i[-1]
+            # And the even part follows its own model as the odd part does: its changes shrink
+            # with the step too (a corner where only f'' jumps, between the window's steps, puts
+            # every quotient off the model while its changes can shrink fourfold by chance).
+            follows &= _shrinking([bend[i[k + 1]] - bend[i[k]] for k in range(3)],
+                                  [bend_noise[i[k]] + bend_noise[i[k + 1]] for k in range(3)])
             follows &= gap[first] <= gap[last] * (s[first] / s[last]) * 2.0 + 2.0 * WIDE_NOISE * (side_noise[first] + side_noise[last])
             r12, n12 = richardson(i[0])
             r23, n23 = richardson(i[1])
@@ -193,3 +202,15 @@ def _agree(a: np.ndarray, slack_a: np.ndarray, b: np.ndarray, slack_b: np.ndarra
     high_a, high_b = np.abs(a) + room_a, np.abs(b) + room_b
     signs = (a * b > 0) | (low_a <= 0) | (low_b <= 0)
     return (low_a <= 2.0 * high_b) & (low_b <= 2.0 * high_a) & signs
+
+
+def _shrinking(signed: list[np.ndarray], noise: list[np.ndarray]) -> np.ndarray:
+    """Consecutive changes (smallest step first) shrink as the step halves, at most
+    SHRINK_LIMIT of the next larger one and in the same direction, beyond their rounding."""
+    ok = np.ones(signed[0].shape, dtype=bool)
+    for k in range(len(signed) - 1):
+        room = 2.0 * WIDE_NOISE * (noise[k] + noise[k + 1])
+        small, large = np.abs(signed[k]), np.abs(signed[k + 1])
+        ok &= small <= SHRINK_LIMIT * large + room
+        ok &= (signed[k] * signed[k + 1] > 0) | (np.minimum(small, large) <= room)
+    return ok
