@@ -46,7 +46,8 @@ def start_steps(probe: TensorProbe, flat: np.ndarray, first: Pairs, h: np.ndarra
     down = steps_down(probe, first)
     want = SETTLE_FRACTION * probe.tolerance(flat, first.central)
     noise = 2 * first.noise / (first.h_plus + first.h_minus)
-    up = np.clip(np.ceil(np.log2(np.maximum(8.0 * noise / want, 1.0))), 0, MAX_UP)
+    with np.errstate(over="ignore", divide="ignore"):  # a want of 0: as many halvings as allowed
+        up = np.clip(np.ceil(np.log2(np.maximum(8.0 * noise / want, 1.0))), 0, MAX_UP)
     torn = _torn(probe, up, down)
     up[down > 0] = 0
     # A re-estimate for accuracy starts up to 4 steps higher, as far as the slope's change
@@ -78,10 +79,17 @@ def largest_smooth_step(probe: TensorProbe, flat: np.ndarray, h: np.ndarray, up:
     """Per coordinate, the largest of h * 16**m (16**m <= 2**up) up to which the loss is
     seen to stay smooth: at every level the slope changes by at most BEND_LIMIT across the
     step, or the second difference agrees with the level below to BEND_LIMIT (a loss
-    that is quadratic along the coordinate may grow its steps freely). One batch of pairs."""
+    that is quadratic along the coordinate may grow its steps freely). One batch of pairs,
+    at the levels each coordinate may take only (a level it may not take decides nothing)."""
     levels = int(np.ceil(up.max() / 4)) + 1
     factors = 16.0 ** np.arange(levels)
-    p = probe.pairs(np.tile(flat, levels), np.concatenate([h * f for f in factors]))
+    wanted = np.arange(levels)[:, None] * 4 <= up[None, :] + 3
+    # Never beyond the params' own scale: past it the loss along a coordinate is another
+    # function, and agreement there proves nothing about the derivative at the point.
+    x = np.abs(probe.x[flat].astype(np.float64))
+    scale = np.maximum(x, probe.x_scale)
+    within = h[None, :] * factors[:, None] <= scale[None, :]
+    p = _pairs_where(probe, flat, h, factors, wanted & within)
     bends = slope_change(probe, p).reshape(levels, flat.size)
     width = (0.5 * (p.h_plus + p.h_minus)) ** 2
     second = ((p.f_plus - 2 * probe.f0 + p.f_minus) / width).reshape(levels, flat.size)
@@ -97,15 +105,24 @@ def largest_smooth_step(probe: TensorProbe, flat: np.ndarray, h: np.ndarray, up:
     seen_slope = np.abs(p.central.reshape(levels, flat.size)) > 4.0 * slope_noise
     calm = (bends <= BEND_LIMIT) | steady  # no sign of a bend (perhaps only as far as noise shows)
     smooth_so_far = np.cumprod(calm, axis=0).astype(bool)
-    wanted = np.arange(levels)[:, None] * 4 <= up[None, :] + 3
-    # Never beyond the params' own scale: past it the loss along a coordinate is another
-    # function, and agreement there proves nothing about the derivative at the point.
-    x = np.abs(probe.x[flat].astype(np.float64))
-    scale = np.maximum(x, probe.x_scale)
-    within = h[None, :] * factors[:, None] <= scale[None, :]
     accepted = smooth_so_far & seen_slope & wanted & within  # the top level must show its slope
     best = np.where(accepted, factors[:, None], 1.0).max(axis=0)
     return h * best
+
+
+def _pairs_where(probe: TensorProbe, flat: np.ndarray, h: np.ndarray, factors: np.ndarray,
+                 need: np.ndarray) -> Pairs:
+    """Pairs at steps ``h * factors[l]`` (levels l by coordinates, row-major), evaluated only
+    where ``need`` holds (a level's need implies the lower levels'); NaN losses elsewhere."""
+    levels, n = need.shape
+    out = Pairs(np.full(levels * n, np.nan), np.full(levels * n, np.nan), np.ones(levels * n),
+                np.ones(levels * n), np.full(levels * n, np.nan))
+    where = np.flatnonzero(need.reshape(-1))
+    if where.size:
+        got = probe.pairs(np.tile(flat, levels)[where], (factors[:, None] * h[None, :]).reshape(-1)[where])
+        for mine, new in zip(out.fields(), got.fields()):
+            mine[where] = new
+    return out
 
 
 def gap_suspects(probe: TensorProbe, flat: np.ndarray, first: Pairs) -> np.ndarray:
