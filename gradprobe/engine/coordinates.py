@@ -20,7 +20,7 @@ from .certify import certify
 from .ladder import Estimate
 from .probe import Pairs, TensorProbe
 from .reconcile import narrow_reconciled, unabsorbed, unfuzzed
-from .refine import RATIO, ROWS, Ladder, climb, one_sided, tiny_pair
+from .refine import RATIO, ROWS, Ladder, Taken, climb, ladder_taken, one_sided, tiny_pair
 from .steps import SETTLE_FRACTION, gap_suspects, largest_smooth_step, start_steps, steps_down
 from .narrow import wide_estimate
 from ..common.roundoff import is_narrow
@@ -60,20 +60,25 @@ def _judged_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder) -> Judg
 
 
 def _ladder_verdicts(
-    probe: TensorProbe, flat: np.ndarray, start: np.ndarray, rows: int = ROWS
+    probe: TensorProbe, flat: np.ndarray, start: np.ndarray, rows: int = ROWS,
+    taken: Taken | None = None,
 ) -> Judged:
-    """Judge ``flat`` on a ladder from ``start``; undecided ones get a second ladder."""
-    first = _judged_ladder(probe, flat, climb(probe, flat, start, rows))
+    """Judge ``flat`` on a ladder from ``start``; undecided ones get a second ladder. Pairs
+    ``taken`` before (the first pairs) are not evaluated again where a ladder meets them."""
+    before = [] if taken is None else [taken]
+    ladder = climb(probe, flat, start, rows, taken=before)
+    first = _judged_ladder(probe, flat, ladder)
     again = np.flatnonzero(first.status == INCONCLUSIVE)
     if again.size == 0:
         return first
+    before.append(ladder_taken(flat, start, ladder))
     noisy = first.noise_limited[again]
     shifted = start[again] * RATIO**-RETRY_SHIFT
     if noisy.any():  # larger steps, as far as the slope is seen to stay smooth
         which = np.flatnonzero(noisy)
         shifted[which] = largest_smooth_step(probe, flat[again][which], start[again][which],
                                               np.full(which.size, float(RETRY_SHIFT)))
-    second_ladder = climb(probe, flat[again], shifted, ROWS + 2)
+    second_ladder = climb(probe, flat[again], shifted, ROWS + 2, taken=before)
     judged = first.merged(again, _judged_ladder(probe, flat[again], second_ladder))
     still = np.flatnonzero(judged.status == INCONCLUSIVE)
     if still.size == 0:
@@ -178,7 +183,8 @@ def _central(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
                                                            h[beyond], judged.pick(beyond)))
         todo = np.sort(todo[order[:RECHECK_LIMIT]])
     start = start_steps(probe, flat[todo], _pick(first, todo), h[todo])
-    judged = judged.merged(todo, _ladder_verdicts(probe, flat[todo], start))
+    judged = judged.merged(todo, _ladder_verdicts(probe, flat[todo], start,
+                                                  taken=(flat[todo], h[todo], _pick(first, todo))))
     return unabsorbed(probe, flat, _widened(probe, flat, judged), first)
 
 

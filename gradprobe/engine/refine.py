@@ -58,17 +58,21 @@ def _quotients(probe: TensorProbe, p: Pairs) -> tuple[np.ndarray, ...]:
     return p.central, 2 * p.noise / width, right, 2 * p.noise / p.h_plus, left, 2 * p.noise / p.h_minus
 
 
+Taken = tuple[np.ndarray, np.ndarray, Pairs]  # coordinates, the steps asked for, their pairs
+
+
 def climb(
     probe: TensorProbe, flat: np.ndarray, start: np.ndarray, rows: int = ROWS,
-    known: Pairs | None = None,
+    known: Pairs | None = None, taken: list[Taken] | None = None,
 ) -> Ladder:
     """Central and one-sided estimates from steps ``start / RATIO**k``, k < rows. ``known``
     holds the pairs of a ladder's first rows from the same start (row-major), which are
-    not evaluated again."""
+    not evaluated again; nor is any pair ``taken`` before at the same coordinate and step
+    (the loss at the same points: the same values)."""
     n = flat.size
     done = 0 if known is None else known.f_plus.size // n
     steps = np.concatenate([start / RATIO**k for k in range(done, rows)])
-    p = probe.pairs(np.tile(flat, rows - done), steps)
+    p = _pairs_reusing(probe, np.tile(flat, rows - done), steps, taken or [])
     if known is not None:
         p = Pairs(*(np.concatenate([a, b]) for a, b in zip(known.fields(), p.fields())))
     qc, nc, qr, nr, ql, nl = (q.reshape(rows, n) for q in _quotients(probe, p))
@@ -85,6 +89,36 @@ def climb(
         sides_steady=steady,
         sides_vanish=vanish,
     )
+
+
+def ladder_taken(flat: np.ndarray, start: np.ndarray, ladder: Ladder) -> Taken:
+    """A ladder's pairs as taken from ``start`` over ``flat`` (for :func:`climb`)."""
+    assert ladder.pairs is not None
+    rows = ladder.pairs.f_plus.size // flat.size
+    return np.tile(flat, rows), np.concatenate([start / RATIO**k for k in range(rows)]), ladder.pairs
+
+
+def _pairs_reusing(probe: TensorProbe, flat: np.ndarray, steps: np.ndarray, taken: list[Taken]) -> Pairs:
+    """``probe.pairs(flat, steps)``, with the pairs already taken at the same coordinate and
+    step copied rather than evaluated again."""
+    seen: dict[tuple[int, float], tuple[int, int]] = {}
+    for j, (where, asked, _) in enumerate(taken):
+        for k, key in enumerate(zip(where.tolist(), asked.tolist())):
+            seen.setdefault(key, (j, k))
+    found = [seen.get(key) for key in zip(flat.tolist(), steps.tolist())]
+    new = np.array([f is None for f in found], dtype=bool)
+    if new.all():
+        return probe.pairs(flat, steps)
+    fields = [np.empty(flat.size) for _ in range(5)]
+    for i, f in enumerate(found):
+        if f is not None:
+            for mine, old in zip(fields, taken[f[0]][2].fields()):
+                mine[i] = old[f[1]]
+    if new.any():
+        got = probe.pairs(flat[new], steps[new])
+        for mine, value in zip(fields, got.fields()):
+            mine[new] = value
+    return Pairs(*fields)
 
 
 def sides_steady(right: np.ndarray, left: np.ndarray, noise: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
