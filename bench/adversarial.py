@@ -10,7 +10,10 @@ Prints per category:
 - ``count``, ``correct``/``buggy``; ``unverif``: cases whose correct gradient does not agree with
   mpmath to the dtype's rounding (no expectation; should be 0);
 - ``false alarm``: a tensor fails that mpmath says is within a third of the threshold;
-- ``inconcl``: targets with an inconclusive tensor (correct ones, then buggy ones);
+- ``inconcl``: targets with an inconclusive tensor (correct ones, then buggy ones); below the
+  table, the same among correct targets whose every coordinate would resolve an error of the
+  threshold's size in the dtype (the rule ``recall`` uses for a bug): elsewhere the dtype's
+  arithmetic, not gradprobe, may be what leaves a tensor undecided;
 - ``recall``: buggy targets with a bug above 1.5x the threshold and resolvable in the dtype whose
   every such tensor fails; ``missed``: one of them says pass or kink;
 - ``located``: one-element bugs found with the element in bad_indices or as worst_index;
@@ -92,6 +95,9 @@ def tally(outcomes: list[dict]) -> dict:
             continue
         t["false"] += o["false_alarm"]
         t["inc_correct" if o["correct"] else "inc_buggy"] += o["inconclusive"]
+        if o["correct"] and o.get("resolves"):
+            t["resolving"] += 1
+            t["inc_resolving"] += o["inconclusive"]
         t["expect_fail"] += o["expect_fail"]
         t["found"] += o["found"]
         t["missed"] += o["missed"]
@@ -155,6 +161,10 @@ def main(argv: list[str] | None = None) -> int:
         print(row(c, tally(by[c])))
     print("-" * len(HEADER))
     print(row("all", tally(outcomes)))
+    print("inconclusive among correct targets whose every coordinate resolves an error of the threshold's "
+          "size (as a bug must to be expected to fail): "
+          + ", ".join(f"{c} {_rate(t['inc_resolving'], t['resolving'])}" for c, t in
+                      ((c, tally(by[c])) for c in categories)))
     print(f"{time.perf_counter() - wall:.1f} s wall, {time.process_time() - cpu:.1f} s CPU (this process)")
     leaks = defaultdict(list)
     for o in outcomes:

@@ -13,7 +13,10 @@ Expected verdicts, decided honestly per tensor:
   least 100 unit roundoffs of the loss's summands); ``pass``/``kink`` there is a miss, and a
   one-element bug must be located (in ``bad_indices`` or as ``worst_index``); a tensor whose
   error is below a third of the threshold everywhere must not fail (else a false alarm);
-- a crash is any exception from gradprobe on these valid targets (exit 2 or 3 on the CLI).
+- a crash is any exception from gradprobe on these valid targets (exit 2 or 3 on the CLI);
+- ``resolves``: a correct target whose every coordinate would resolve an error of the
+  threshold's size by the same rule (where not, an inconclusive verdict can be the dtype's
+  arithmetic at its limit).
 """
 
 from __future__ import annotations
@@ -120,6 +123,20 @@ def expectations(case: Case, ref, grads: dict, threshold: float) -> dict[str, st
     return out
 
 
+def resolves_threshold(case: Case, ref, threshold: float) -> bool:
+    """Every coordinate would resolve an error of the threshold's size in the dtype, by the
+    rule a bug must meet to be expected to fail (its effect over the coordinate's smooth
+    radius at least 100 unit roundoffs of the loss's summands): an inconclusive verdict
+    elsewhere may be the arithmetic's limit rather than gradprobe's."""
+    floors, u = _floors(ref), unit(case.dtype)
+    for n, g in ref.grads.items():
+        idx = ref.evaluated[n]
+        error = threshold * np.maximum(np.abs(_flat(g, idx)), floors[n])
+        if np.any(error * _flat(ref.radius[n], idx) < 100 * u * ref.magnitude):
+            return False
+    return True
+
+
 def judge(category: str, seed: int, **options) -> dict:
     """Everything the bench and the tests count about one case."""
     case = make_case(category, seed)
@@ -128,7 +145,7 @@ def judge(category: str, seed: int, **options) -> dict:
            "correct": case.correct, "bug": None if case.bug is None else case.bug.kind, "crash": None,
            "unverified": None, "expect": {}, "status": {}, "false_alarm": False, "inconclusive": False,
            "expect_fail": False, "found": False, "missed": False, "to_locate": False, "located": False,
-           "evals_per_coord": None, "warned": False, "own_warnings": []}
+           "evals_per_coord": None, "warned": False, "own_warnings": [], "resolves": False}
     ref = reference(case, _subset(case, rng))
     problems = verify(case, ref, rng)
     if problems:
@@ -160,6 +177,7 @@ def judge(category: str, seed: int, **options) -> dict:
         return out
     expect = expectations(case, ref, grads, report.threshold)
     out["expect"] = expect
+    out["resolves"] = resolves_threshold(case, ref, report.threshold)
     out["false_alarm"] = any(status.get(n) == "fail" for n, e in expect.items() if e == "quiet")
     must = [n for n, e in expect.items() if e == "fail"]
     out["expect_fail"] = bool(must)
