@@ -61,17 +61,18 @@ def _judged_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder) -> Judg
 
 def _ladder_verdicts(
     probe: TensorProbe, flat: np.ndarray, start: np.ndarray, rows: int = ROWS,
-    taken: Taken | None = None,
+    taken: list[Taken] | None = None,
 ) -> Judged:
     """Judge ``flat`` on a ladder from ``start``; undecided ones get a second ladder. Pairs
-    ``taken`` before (the first pairs) are not evaluated again where a ladder meets them."""
-    before = [] if taken is None else [taken]
+    ``taken`` before (the first pairs) are not evaluated again where a ladder meets them; the
+    ladders' own pairs are added to ``taken``."""
+    before = [] if taken is None else taken
     ladder = climb(probe, flat, start, rows, taken=before)
+    before.append(ladder_taken(flat, start, ladder))
     first = _judged_ladder(probe, flat, ladder)
     again = np.flatnonzero(first.status == INCONCLUSIVE)
     if again.size == 0:
         return first
-    before.append(ladder_taken(flat, start, ladder))
     noisy = first.noise_limited[again]
     shifted = start[again] * RATIO**-RETRY_SHIFT
     if noisy.any():  # larger steps, as far as the slope is seen to stay smooth
@@ -79,6 +80,7 @@ def _ladder_verdicts(
         shifted[which] = largest_smooth_step(probe, flat[again][which], start[again][which],
                                               np.full(which.size, float(RETRY_SHIFT)))
     second_ladder = climb(probe, flat[again], shifted, ROWS + 2, taken=before)
+    before.append(ladder_taken(flat[again], shifted, second_ladder))
     judged = first.merged(again, _judged_ladder(probe, flat[again], second_ladder))
     still = np.flatnonzero(judged.status == INCONCLUSIVE)
     if still.size == 0:
@@ -183,12 +185,13 @@ def _central(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
                                                            h[beyond], judged.pick(beyond)))
         todo = np.sort(todo[order[:RECHECK_LIMIT]])
     start = start_steps(probe, flat[todo], _pick(first, todo), h[todo])
+    taken = [(flat[todo], h[todo], _pick(first, todo))]  # every pair taken, for reuse
     judged = judged.merged(todo, _ladder_verdicts(probe, flat[todo], start,
-                                                  taken=(flat[todo], h[todo], _pick(first, todo))))
-    return unabsorbed(probe, flat, _widened(probe, flat, judged), first)
+                                                  taken=taken))
+    return unabsorbed(probe, flat, _widened(probe, flat, judged, taken), first)
 
 
-def _widened(probe: TensorProbe, flat: np.ndarray, judged: Judged) -> Judged:
+def _widened(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken: list[Taken]) -> Judged:
     """Narrow code judged on its own arithmetic: coordinates that rounding noise left
     undecided at every step of the ladders, judged on much wider steps
     (:func:`.narrow.wide_estimate`) where those decide them."""
@@ -197,7 +200,7 @@ def _widened(probe: TensorProbe, flat: np.ndarray, judged: Judged) -> Judged:
     noisy = np.flatnonzero((judged.status == INCONCLUSIVE) & np.array([r == NOISE for r in judged.reasons], dtype=bool))
     if noisy.size == 0:
         return judged
-    wide = judge_plain(probe, flat[noisy], wide_estimate(probe, flat[noisy]))
+    wide = judge_plain(probe, flat[noisy], wide_estimate(probe, flat[noisy], taken))
     decided = np.flatnonzero(wide.status != INCONCLUSIVE)
     return judged.merged(noisy[decided], wide.pick(decided))
 

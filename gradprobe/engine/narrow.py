@@ -25,6 +25,7 @@ from .gradients import validate
 from .preflight import call_backward
 from .ladder import Estimate
 from .probe import TensorProbe
+from .refine import Taken, pairs_reusing
 from ..common.roundoff import unit_roundoff
 
 PROPAGATION_UNITS = 2.0  # each value moves by this many units of roundoff (its storage and one operation)
@@ -98,7 +99,7 @@ WIDE_NOISE = 2.0  # and the rounding it carries twice (as the ladder's tableau d
 SHRINK_LIMIT = 0.625  # differences of the quotients halve their steps' squares: 1/4, with room
 
 
-def wide_estimate(probe: TensorProbe, flat: np.ndarray) -> Estimate:
+def wide_estimate(probe: TensorProbe, flat: np.ndarray, taken: list[Taken] | None = None) -> Estimate:
     """The derivative of narrow code from central quotients at steps far larger than the
     ladder's, where rounding noise no longer hides it: narrow arithmetic puts the best
     central step near u**(1/3) of the scale, and the loss stays smooth well beyond.
@@ -113,11 +114,12 @@ def wide_estimate(probe: TensorProbe, flat: np.ndarray) -> Estimate:
     follow that model: each difference of consecutive quotients at most SHRINK_LIMIT of the
     next larger one (they shrink fourfold as the step halves), beyond rounding, and the
     one-sided quotients' gap shrinks with the step as curvature makes it (a kink within
-    the window keeps it). The estimate with the smallest bound; one batch of pairs."""
+    the window keeps it). The estimate with the smallest bound; one batch of pairs (those
+    ``taken`` before at the same coordinate and step are not evaluated again)."""
     n = flat.size
     ks = np.arange(WIDE_FIRST, WIDE_LAST + WIDE_ROWS)
     h0 = probe.prior_steps(flat)
-    p = probe.pairs(np.tile(flat, ks.size), np.concatenate([h0 * 2.0**k for k in ks]))
+    p = pairs_reusing(probe, np.tile(flat, ks.size), np.concatenate([h0 * 2.0**k for k in ks]), taken or [])
     rows = ks.size
     d = p.central.reshape(rows, n)
     s = (0.5 * (p.h_plus + p.h_minus)).reshape(rows, n)

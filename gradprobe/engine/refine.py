@@ -72,7 +72,7 @@ def climb(
     n = flat.size
     done = 0 if known is None else known.f_plus.size // n
     steps = np.concatenate([start / RATIO**k for k in range(done, rows)])
-    p = _pairs_reusing(probe, np.tile(flat, rows - done), steps, taken or [])
+    p = pairs_reusing(probe, np.tile(flat, rows - done), steps, taken or [])
     if known is not None:
         p = Pairs(*(np.concatenate([a, b]) for a, b in zip(known.fields(), p.fields())))
     qc, nc, qr, nr, ql, nl = (q.reshape(rows, n) for q in _quotients(probe, p))
@@ -98,7 +98,7 @@ def ladder_taken(flat: np.ndarray, start: np.ndarray, ladder: Ladder) -> Taken:
     return np.tile(flat, rows), np.concatenate([start / RATIO**k for k in range(rows)]), ladder.pairs
 
 
-def _pairs_reusing(probe: TensorProbe, flat: np.ndarray, steps: np.ndarray, taken: list[Taken]) -> Pairs:
+def pairs_reusing(probe: TensorProbe, flat: np.ndarray, steps: np.ndarray, taken: list[Taken]) -> Pairs:
     """``probe.pairs(flat, steps)``, with the pairs already taken at the same coordinate and
     step copied rather than evaluated again."""
     seen: dict[tuple[int, float], tuple[int, int]] = {}
