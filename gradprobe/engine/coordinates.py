@@ -78,7 +78,7 @@ def _ladder_verdicts(
     if noisy.any():  # larger steps, as far as the slope is seen to stay smooth
         which = np.flatnonzero(noisy)
         shifted[which] = largest_smooth_step(probe, flat[again][which], start[again][which],
-                                              np.full(which.size, float(RETRY_SHIFT)))
+                                              np.full(which.size, float(RETRY_SHIFT)), before)
     second_ladder = climb(probe, flat[again], shifted, ROWS + 2, taken=before)
     before.append(ladder_taken(flat[again], shifted, second_ladder))
     judged = first.merged(again, _judged_ladder(probe, flat[again], second_ladder))
@@ -184,8 +184,8 @@ def _central(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
         judged = judged.merged(beyond, _validated_failures(probe, flat[beyond], _pick(first, beyond),
                                                            h[beyond], judged.pick(beyond)))
         todo = np.sort(todo[order[:RECHECK_LIMIT]])
-    start = start_steps(probe, flat[todo], _pick(first, todo), h[todo])
     taken = [(flat[todo], h[todo], _pick(first, todo))]  # every pair taken, for reuse
+    start = start_steps(probe, flat[todo], _pick(first, todo), h[todo], taken)
     judged = judged.merged(todo, _ladder_verdicts(probe, flat[todo], start,
                                                   taken=taken))
     return unabsorbed(probe, flat, _widened(probe, flat, judged, taken), first)

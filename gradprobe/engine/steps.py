@@ -11,7 +11,7 @@ from __future__ import annotations
 import numpy as np
 
 from .probe import Pairs, TensorProbe
-from .refine import RATIO, ROWS
+from .refine import RATIO, ROWS, Taken, pairs_reusing
 from ..common.roundoff import is_narrow
 
 SETTLE_FRACTION = 1e-2  # a first estimate this far inside the threshold settles a coordinate
@@ -38,11 +38,14 @@ def steps_down(probe: TensorProbe, first: Pairs) -> np.ndarray:
     return np.clip(np.ceil(np.log2(np.maximum(bend / BEND_LIMIT, 1.0))), 0, 30)
 
 
-def start_steps(probe: TensorProbe, flat: np.ndarray, first: Pairs, h: np.ndarray) -> np.ndarray:
+def start_steps(probe: TensorProbe, flat: np.ndarray, first: Pairs, h: np.ndarray,
+                taken: list[Taken] | None = None) -> np.ndarray:
     """The ladder's first step, probed: smaller where the slope changes on the scale of
     the step; larger where rounding noise hides the threshold, as far as pairs at steps
     16, 256, ... times larger show the slope still changing by less than BEND_LIMIT (the
-    ladder's bounds hold from steps below the scale on which the slope changes)."""
+    ladder's bounds hold from steps below the scale on which the slope changes). Pairs
+    ``taken`` before (by default the first pairs) are not evaluated again; those taken here
+    are added to it."""
     down = steps_down(probe, first)
     want = SETTLE_FRACTION * probe.tolerance(flat, first.central)
     noise = 2 * first.noise / (first.h_plus + first.h_minus)
@@ -56,7 +59,8 @@ def start_steps(probe: TensorProbe, flat: np.ndarray, first: Pairs, h: np.ndarra
     start = h * 2.0 ** np.where(down > 0, -down, np.clip(room, 0, 2))
     climbing = np.flatnonzero(up > 2)
     if climbing.size:
-        start[climbing] = largest_smooth_step(probe, flat[climbing], h[climbing], up[climbing])
+        start[climbing] = largest_smooth_step(probe, flat[climbing], h[climbing], up[climbing],
+                                              [(flat, h, first)] if taken is None else taken)
     start[torn] = h[torn] * TORN_RISE
     return start
 
@@ -75,12 +79,15 @@ def _torn(probe: TensorProbe, up: np.ndarray, down: np.ndarray) -> np.ndarray:
     return (up > 0) & (down > 0)
 
 
-def largest_smooth_step(probe: TensorProbe, flat: np.ndarray, h: np.ndarray, up: np.ndarray) -> np.ndarray:
+def largest_smooth_step(probe: TensorProbe, flat: np.ndarray, h: np.ndarray, up: np.ndarray,
+                        taken: list[Taken] | None = None) -> np.ndarray:
     """Per coordinate, the largest of h * 16**m (16**m <= 2**up) up to which the loss is
     seen to stay smooth: at every level the slope changes by at most BEND_LIMIT across the
     step, or the second difference agrees with the level below to BEND_LIMIT (a loss
     that is quadratic along the coordinate may grow its steps freely). One batch of pairs,
-    at the levels each coordinate may take only (a level it may not take decides nothing)."""
+    at the levels each coordinate may take only (a level it may not take decides nothing),
+    those ``taken`` before at the same coordinate and step not evaluated again (the new
+    ones are added to ``taken``)."""
     levels = int(np.ceil(up.max() / 4)) + 1
     factors = 16.0 ** np.arange(levels)
     wanted = np.arange(levels)[:, None] * 4 <= up[None, :] + 3
@@ -89,7 +96,7 @@ def largest_smooth_step(probe: TensorProbe, flat: np.ndarray, h: np.ndarray, up:
     x = np.abs(probe.x[flat].astype(np.float64))
     scale = np.maximum(x, probe.x_scale)
     within = h[None, :] * factors[:, None] <= scale[None, :]
-    p = _pairs_where(probe, flat, h, factors, wanted & within)
+    p = _pairs_where(probe, flat, h, factors, wanted & within, taken or [])
     bends = slope_change(probe, p).reshape(levels, flat.size)
     width = (0.5 * (p.h_plus + p.h_minus)) ** 2
     second = ((p.f_plus - 2 * probe.f0 + p.f_minus) / width).reshape(levels, flat.size)
@@ -111,7 +118,7 @@ def largest_smooth_step(probe: TensorProbe, flat: np.ndarray, h: np.ndarray, up:
 
 
 def _pairs_where(probe: TensorProbe, flat: np.ndarray, h: np.ndarray, factors: np.ndarray,
-                 need: np.ndarray) -> Pairs:
+                 need: np.ndarray, taken: list[Taken]) -> Pairs:
     """Pairs at steps ``h * factors[l]`` (levels l by coordinates, row-major), evaluated only
     where ``need`` holds (a level's need implies the lower levels'); NaN losses elsewhere."""
     levels, n = need.shape
@@ -119,7 +126,9 @@ def _pairs_where(probe: TensorProbe, flat: np.ndarray, h: np.ndarray, factors: n
                 np.ones(levels * n), np.full(levels * n, np.nan))
     where = np.flatnonzero(need.reshape(-1))
     if where.size:
-        got = probe.pairs(np.tile(flat, levels)[where], (factors[:, None] * h[None, :]).reshape(-1)[where])
+        at, steps = np.tile(flat, levels)[where], (factors[:, None] * h[None, :]).reshape(-1)[where]
+        got = pairs_reusing(probe, at, steps, taken)
+        taken.append((at, steps, got))
         for mine, new in zip(out.fields(), got.fields()):
             mine[where] = new
     return out
