@@ -13,7 +13,7 @@ from probe_kit import make_probe
 from test_numerics_reference import POINTS, SMOOTH
 
 from gradprobe import probe
-from gradprobe.engine.coordinates import RICHARDSON_START
+from gradprobe.engine.richardson import DEFAULT_START as RICHARDSON_START
 from gradprobe.engine.refine import climb
 from gradprobe.common.errors import ComplexStepError
 

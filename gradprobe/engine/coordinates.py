@@ -23,13 +23,13 @@ from .reconcile import narrow_reconciled, unabsorbed, unfuzzed
 from .refine import RATIO, ROWS, Ladder, Taken, climb, ladder_taken, one_sided, tiny_pair
 from .steps import SETTLE_FRACTION, gap_suspects, largest_smooth_step, start_steps, steps_down
 from .narrow import wide_estimate
+from .richardson import first_steps, joined, rows_of, settled, two_rows_settle
 from ..common.roundoff import is_narrow
 from .verdict import NOISE, Judged, judge_ladder, judge_plain, judge_sides_apart, sides_differ
 
 RETRY_SHIFT = 6  # a second ladder starts 2**6 steps higher (noise) or lower (curvature)
 RECHECK_LIMIT = 400  # coordinates per tensor re-estimated on a ladder
 SHORT_ROWS = 4  # rows of the short ladder beyond that budget (the fourth checks the third)
-RICHARDSON_START = 2.0**-7  # relative first step of --method richardson (3 rows, 6 calls)
 
 
 @dataclass(frozen=True)
@@ -229,25 +229,49 @@ def _validated_failures(probe: TensorProbe, flat: np.ndarray, first: Pairs, h: n
 
 
 def _richardson(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
-    """Three rows of a ladder per coordinate (6 calls) from a step sized for a sixth-order
-    rule; coordinates whose bound is not far inside the threshold go the central way (under
-    --no-recheck those it does not pass: three rows check one rate of the tableau, which
-    quotients aliased by a loss oscillating far faster than the steps can meet by chance)."""
-    h = RICHARDSON_START * np.maximum(1.0, np.abs(probe.x[flat].astype(np.float64)))
-    ladder = climb(probe, flat, h, 3)
+    """Two rows of a ladder per coordinate (4 calls) from a step measured for the tensor
+    (:func:`.richardson.first_steps`, whose measured coordinates reuse its rows); a third
+    (6 calls) where two do not settle it (:func:`.richardson.two_rows_settle`)."""
+    first = first_steps(probe, flat)
+    if first.rows is None:
+        return _from_rows(probe, flat, first.h, None, recheck)
+    mine = first.measured
+    others = np.setdiff1d(np.arange(flat.size), mine)
+    measured = _from_rows(probe, flat[mine], first.h[mine], first.rows, recheck)
+    rest = _from_rows(probe, flat[others], first.h[others], None, recheck)
+    return joined((others, rest), (mine, measured))
+
+
+def _from_rows(probe: TensorProbe, flat: np.ndarray, h: np.ndarray, known: Pairs | None, recheck: bool) -> Judged:
+    """Two rows from ``h`` (``known``: rows already evaluated), a third where they do not settle."""
+    two = climb(probe, flat, h, 2, known)
+    early = two_rows_settle(probe, flat, two, probe.tolerance(flat, two.central.value))
+    judged = judge_plain(probe, flat, two.central)
+    rest = np.flatnonzero(~early)
+    if rest.size == 0:
+        return judged
+    rows = rows_of(known, flat.size, rest) if known is not None else two.rows_of(rest)
+    return judged.merged(rest, _three_rows(probe, flat[rest], h[rest], rows, recheck))
+
+
+def _three_rows(probe: TensorProbe, flat: np.ndarray, h: np.ndarray, known: Pairs, recheck: bool) -> Judged:
+    """Three rows of a ladder per coordinate (6 calls; the first two ``known``), extrapolated
+    to sixth order; coordinates they do not settle (:func:`.richardson.settled`) go the central
+    way (under --no-recheck those it does not pass: three rows check one rate of the tableau,
+    which quotients aliased by a loss oscillating far faster than the steps can meet by
+    chance)."""
+    ladder = climb(probe, flat, h, 3, known)
     judged = _judged_ladder(probe, flat, ladder)
     if not recheck:  # no longer ladders: what the rows do not pass goes the central way
         return _central_decides(probe, flat, judged, np.flatnonzero(judged.status != PASS), recheck)
-    # Bounds not far inside the threshold for want of smaller steps (not for rounding, which
-    # smaller steps only make worse): the same ladder two rows further down (4 calls).
-    short = judged.estimate.error > SETTLE_FRACTION * probe.tolerance(flat, judged.estimate.value)
-    wide = np.flatnonzero(short & ~judged.noise_limited)
+    # Not settled for want of smaller steps (not for rounding, which smaller steps only make
+    # worse): the same ladder two rows further down (4 calls).
+    wide = np.flatnonzero(~settled(probe, flat, judged) & ~judged.noise_limited)
     if wide.size:
         longer = _judged_ladder(probe, flat[wide], climb(probe, flat[wide], h[wide], 5, ladder.rows_of(wide)))
         better = np.flatnonzero((longer.estimate.error < judged.estimate.error[wide]) | (judged.status[wide] != PASS))
         judged = judged.merged(wide[better], longer.pick(better))
-    value = judged.estimate.value
-    loose = judged.estimate.error > SETTLE_FRACTION * probe.tolerance(flat, value)
+    loose = ~settled(probe, flat, judged)
     return _central_decides(probe, flat, judged, np.flatnonzero((judged.status != PASS) | loose), recheck)
 
 

@@ -67,14 +67,17 @@ def climb(
 ) -> Ladder:
     """Central and one-sided estimates from steps ``start / RATIO**k``, k < rows. ``known``
     holds the pairs of a ladder's first rows from the same start (row-major), which are
-    not evaluated again; nor is any pair ``taken`` before at the same coordinate and step
-    (the loss at the same points: the same values)."""
+    not evaluated again (all ``rows`` of them, or fewer); nor is any pair ``taken`` before at
+    the same coordinate and step (the loss at the same points: the same values)."""
     n = flat.size
     done = 0 if known is None else known.f_plus.size // n
-    steps = np.concatenate([start / RATIO**k for k in range(done, rows)])
-    p = pairs_reusing(probe, np.tile(flat, rows - done), steps, taken or [])
-    if known is not None:
-        p = Pairs(*(np.concatenate([a, b]) for a, b in zip(known.fields(), p.fields())))
+    if known is not None and done >= rows:
+        p = Pairs(*(f[:rows * n] for f in known.fields()))
+    else:
+        steps = np.concatenate([start / RATIO**k for k in range(done, rows)])
+        p = pairs_reusing(probe, np.tile(flat, rows - done), steps, taken or [])
+        if known is not None:
+            p = Pairs(*(np.concatenate([a, b]) for a, b in zip(known.fields(), p.fields())))
     qc, nc, qr, nr, ql, nl = (q.reshape(rows, n) for q in _quotients(probe, p))
     central = tableau(qc, nc, RATIO, 2)
     steady, vanish = sides_steady(qr, ql, nr + nl)
@@ -131,13 +134,14 @@ def sides_steady(right: np.ndarray, left: np.ndarray, noise: np.ndarray) -> tupl
     The central tableau assumes a loss smooth on the steps; where the sides do not agree in
     this way (a kink at or near the point: the gap stays, or changes like 1/h as the steps
     cross it), its bound is not used."""
-    gap = right - left
-    change = gap[-1] - gap[-2]
-    slack = 2.0 * NOISE_UNITS * (noise[-1] + noise[-2])
-    at_rate = column_rates(gap, noise, 1.0 / RATIO)[-1]
-    vanishes = np.abs(gap[-1] + change) <= np.abs(change)
-    return at_rate & (vanishes | (np.abs(gap[-1] + change) <= np.abs(change) + slack)), \
-        at_rate & vanishes & (np.abs(gap[-1]) > slack)
+    with np.errstate(over="ignore", invalid="ignore"):  # quotients of a steep loss can be huge
+        gap = right - left
+        change = gap[-1] - gap[-2]
+        slack = 2.0 * NOISE_UNITS * (noise[-1] + noise[-2])
+        at_rate = column_rates(gap, noise, 1.0 / RATIO)[-1]
+        vanishes = np.abs(gap[-1] + change) <= np.abs(change)
+        return at_rate & (vanishes | (np.abs(gap[-1] + change) <= np.abs(change) + slack)), \
+            at_rate & vanishes & (np.abs(gap[-1]) > slack)
 
 
 
