@@ -45,7 +45,7 @@ from pathlib import Path
 # installed package) gives, so the same cases can be run against another worktree's engine.
 sys.path.insert(0, str(Path(__file__).resolve().parent.parent / "tests"))
 
-from adversarial import CATEGORIES, judge, make_case  # noqa: E402
+from adversarial import ALL_CATEGORIES, CATEGORIES, judge, make_case  # noqa: E402
 from adversarial.case import write  # noqa: E402
 
 import gradprobe  # noqa: E402
@@ -131,16 +131,17 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--n", type=int, default=1000, help="cases in all, spread over the categories (default 1000)")
     parser.add_argument("--offset", type=int, default=0, help="first seed (default 0)")
     parser.add_argument("--categories", default=",".join(CATEGORIES),
-                        help=f"comma-separated subset of {','.join(CATEGORIES)}")
+                        help=f"comma-separated subset of {','.join(ALL_CATEGORIES)} (default: all but "
+                             f"{','.join(c for c in ALL_CATEGORIES if c not in CATEGORIES)})")
     parser.add_argument("--jobs", type=int, default=1, help="worker processes (default 1)")
     parser.add_argument("--out", default=None, help="folder to write failing cases to as standalone targets")
     parser.add_argument("--options", default="{}", help="gradprobe options as JSON, e.g. '{\"method\": \"richardson\"}'")
     parser.add_argument("--json", default=None, help="write every case's outcome to this JSON file")
     args = parser.parse_args(argv)
     categories = [c.strip() for c in args.categories.split(",") if c.strip()]
-    unknown = [c for c in categories if c not in CATEGORIES]
+    unknown = [c for c in categories if c not in ALL_CATEGORIES]
     if unknown:
-        parser.error(f"unknown categories {unknown}; choose from {', '.join(CATEGORIES)}")
+        parser.error(f"unknown categories {unknown}; choose from {', '.join(ALL_CATEGORIES)}")
     options = json.loads(args.options)
     per = max(1, args.n // len(categories))
     jobs = [(c, s, options) for c in categories for s in range(args.offset, args.offset + per)]

@@ -90,6 +90,66 @@ def test_custom_vjp_verdicts(dtype, rule, right):
     assert not any("no hand-written" in n for n in report.notes)
 
 
+def _bf16_dense_rule(factor: float):
+    """softplus(x @ w) computed in bfloat16 whatever the arrays' type, cast back, with a rule
+    in bfloat16 too whose gradients are ``factor`` times the right ones (1: right)."""
+    @jax.custom_vjp
+    def dense(x, w):
+        return jnp.logaddexp(x.astype(jnp.bfloat16) @ w.astype(jnp.bfloat16), 0.0).astype(w.dtype)
+
+    def fwd(x, w):
+        return dense(x, w), (x.astype(jnp.bfloat16), w.astype(jnp.bfloat16))
+
+    def bwd(saved, g):
+        xb, wb = saved
+        dz = g.astype(jnp.bfloat16) * jax.nn.sigmoid(xb @ wb)  # d softplus = sigmoid
+        return ((dz @ wb.T * factor).astype(g.dtype), (xb.T @ dz * factor).astype(g.dtype))
+
+    dense.defvjp(fwd, bwd)
+    return dense
+
+
+def _inside_loss(rule):
+    def forward(params, inputs):
+        return jnp.sum(rule(inputs["x"], params["w"]) ** 2)
+    return forward
+
+
+def test_the_bfloat16_rule_is_right_and_wrong_by_mpmath():
+    """Independent of gradprobe: the rule's gradient is within bfloat16's rounding of
+    mpmath's at the bfloat16 values it computes with, and twice it with the factor 2."""
+    params, inputs = arrays("float32")
+    xb = np.asarray(inputs["x"].astype(jnp.bfloat16), dtype=np.float64)
+    wb = np.asarray(params["w"].astype(jnp.bfloat16), dtype=np.float64)
+
+    def loss(w):  # sum_ij softplus((X W)_ij)^2 at the bfloat16 values
+        total = mpmath.mpf(0)
+        for i in range(4):
+            for j in range(2):
+                z = sum(mpmath.mpf(xb[i, k]) * w[k * 2 + j] for k in range(3))
+                total += mpmath.log(1 + mpmath.exp(z)) ** 2
+        return total
+
+    reference = mp_gradient(loss, wb)
+    for factor, (low, high) in ((1.0, (0.0, 0.05)), (2.0, (0.9, 1.1))):
+        grad = jax.grad(lambda w, f=factor: _inside_loss(_bf16_dense_rule(f))({"w": w}, inputs))(params["w"])
+        assert low <= rel_gap(np.asarray(grad, dtype=np.float64), reference) <= high
+
+
+@pytest.mark.parametrize("factor", [1.0, 2.0, -1.0])
+def test_a_custom_vjp_rounding_to_bfloat16_inside_float32_arrays(factor):
+    """A bfloat16 rule in float32 arrays has no wider run: found to compute in bfloat16 and
+    judged on that arithmetic. Right: nothing fails; twice the gradient, or its sign
+    flipped: w fails."""
+    params, inputs = arrays("float32")
+    report = probe(_inside_loss(_bf16_dense_rule(factor)), None, params, inputs)
+    assert report.compute_dtype == "bfloat16"
+    if factor == 1.0:
+        assert report.ok, [(t.name, t.status) for t in report.tensors]
+    else:
+        assert report.tensor("w").status == "fail"
+
+
 def test_jax_arrays_reach_a_hand_written_backward_as_jax_arrays():
     seen = []
     params, inputs = arrays("float32")

@@ -112,6 +112,70 @@ def test_autograd_function_verdicts(dtype, function, right):
         assert w["status"] == "fail"
 
 
+def _bf16_dense(factor):
+    """An autograd Function: swish(x @ w) computed in bfloat16 whatever the tensors' type,
+    cast back (a bfloat16 kernel inside float32 tensors); its backward too, with every
+    gradient times ``factor`` (1: right)."""
+
+    class Bf16Dense(torch.autograd.Function):
+        @staticmethod
+        def forward(ctx, x, w):
+            xb, wb = x.to(torch.bfloat16), w.to(torch.bfloat16)
+            z = xb @ wb
+            ctx.save_for_backward(xb, wb, z)
+            return (z * torch.sigmoid(z)).to(w.dtype)
+
+        @staticmethod
+        def backward(ctx, g):
+            xb, wb, z = ctx.saved_tensors
+            s = torch.sigmoid(z)
+            dz = g.to(torch.bfloat16) * (s * (1 + z * (1 - s)))
+            return ((dz @ wb.T) * factor).to(g.dtype), ((xb.T @ dz) * factor).to(g.dtype)
+
+    return Bf16Dense
+
+
+def _inside_loss(function):
+    def forward(params, inputs):
+        return (function.apply(inputs["x"], params["w"]) * inputs["c"]).sum()
+    return forward
+
+
+def test_the_bfloat16_kernel_is_right_and_wrong_by_mpmath():
+    """Independent of gradprobe: the kernel's gradient is within bfloat16's rounding of
+    mpmath's at the bfloat16 values it computes with, and twice it with the factor 2."""
+    params, inputs = tensors(torch.float32)
+    seen = {k: v.to(torch.bfloat16).double().numpy() for k, v in {**params, **inputs}.items()}
+
+    def loss(w_flat):  # sum_ij C_ij swish((X W)_ij) at the bfloat16 values
+        total = mpmath.mpf(0)
+        for i in range(5):
+            for j in range(3):
+                z = sum(mpmath.mpf(seen["x"][i, k]) * w_flat[k * 3 + j] for k in range(4))
+                total += mpmath.mpf(float(inputs["c"][i, j])) * z / (1 + mpmath.exp(-z))
+        return total
+
+    reference = mp_gradient(loss, seen["w"])
+    for factor, (low, high) in ((1.0, (0.0, 0.05)), (2.0, (0.9, 1.1))):
+        w = params["w"].clone().requires_grad_(True)
+        _inside_loss(_bf16_dense(factor))({"w": w}, inputs).backward()
+        assert low <= rel_gap(w.grad.double().numpy(), reference) <= high
+
+
+@pytest.mark.parametrize("factor", [1.0, 2.0, -1.0])
+def test_an_autograd_function_rounding_to_bfloat16_inside_float32_tensors(factor):
+    """A bfloat16 kernel in float32 tensors has no wider run (it casts to bfloat16 whatever
+    it is given): found to compute in bfloat16 and judged on that arithmetic. Right: nothing
+    fails; twice the gradient, or its sign flipped: w fails."""
+    params, inputs = tensors(torch.float32)
+    report = probe(_inside_loss(_bf16_dense(factor)), None, params, inputs)
+    assert report.compute_dtype == "bfloat16"
+    if factor == 1.0:
+        assert report.ok, [(t.name, t.status) for t in report.tensors]
+    else:
+        assert report.tensor("w").status == "fail"
+
+
 def test_plain_torch_forward_says_no_rule_was_on_the_path():
     params, inputs = tensors(torch.float64)
 

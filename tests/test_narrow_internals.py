@@ -99,6 +99,98 @@ def test_correct_code_rounding_inside_to_a_narrower_type_does_not_fail(inner, ar
 
 
 @pytest.mark.parametrize("array", [np.float64, np.float32])
+@pytest.mark.parametrize("inner", [BF16.type, np.float16])
+def test_the_16_bit_type_inside_is_found_and_sets_the_threshold(inner, array):
+    """The code's arithmetic is found to be the 16-bit type it casts to (its loss ignores
+    moves below that type's resolution), and the check is judged at that type's threshold,
+    2 sqrt(u) to two digits (u = 2**-8 bfloat16, 2**-11 float16: 0.12 and 0.044)."""
+    forward, backward, params, inputs = crop_model(inner, array=array)
+    report = probe(forward, backward, params, inputs)
+    assert report.compute_dtype == np.dtype(inner).name
+    assert report.threshold == pytest.approx(0.12 if inner is BF16.type else 0.044)
+
+
+@pytest.mark.parametrize("array", [np.float64, np.float32])
+def test_correct_float16_inside_passes(array):
+    forward, backward, params, inputs = crop_model(np.float16, array=array)
+    report = probe(forward, backward, params, inputs)
+    assert {t.status for t in report.tensors} == {"pass"}, [(t.name, t.status) for t in report.tensors]
+
+
+def dropped_term(inner, term, array):
+    """The crop model with its weights' gradient missing a term of the chain rule: the gain
+    (every element 1/1.3 of the truth) or tanh's derivative 1 - tanh**2 (each element off by
+    its own share)."""
+    forward, _, params, inputs = crop_model(inner, array=array)
+
+    def backward(p, i):
+        x, w, g = i["x"].astype(inner), p["w"].astype(inner), p["gain"].astype(inner)
+        t = np.tanh(x @ w)
+        dr = 2 * (t * g - i["y"].astype(inner))
+        kept = dr * (1 - t * t) if term == "gain" else dr * g
+        return {"w": (x.T @ kept).astype(p["w"].dtype), "gain": np.sum(dr * t).astype(p["gain"].dtype)}
+
+    return forward, backward, params, inputs
+
+
+CLEAR_BUGS = [("factor", 2.0), ("factor", 0.5), ("factor", -1.0), ("factor", 1.3), ("dropped", "gain"),
+              ("dropped", "sech")]
+
+
+def _buggy(inner, bug, array):
+    kind, what = bug
+    if kind == "factor":
+        return crop_model(inner, what, array=array)
+    return dropped_term(inner, what, array)
+
+
+@pytest.mark.parametrize("array", [np.float64, np.float32])
+@pytest.mark.parametrize("bug", CLEAR_BUGS)
+def test_the_bugs_are_what_they_claim_by_mpmath(bug, array):
+    """Each buggy gradient is off mpmath's derivative, at the bfloat16 values the code sees,
+    by at least 20% of the largest element somewhere (far beyond bfloat16's rounding)."""
+    forward, backward, params, inputs = _buggy(BF16.type, bug, array)
+    d_gain, d_w = mp_gradient(params, inputs, BF16.type)
+    ours = backward(params, inputs)
+    gap_w = np.max(np.abs(ours["w"].astype(np.float64) - d_w)) / np.max(np.abs(d_w))
+    gap_gain = abs(float(ours["gain"]) - d_gain) / abs(d_gain)
+    assert max(gap_w, gap_gain) >= 0.2
+
+
+@pytest.mark.parametrize("array", [np.float64, np.float32])
+@pytest.mark.parametrize("bug", CLEAR_BUGS)
+def test_a_clear_bug_in_bfloat16_inside_fails(bug, array):
+    """bfloat16 arithmetic inside wider arrays: a gradient wrong by 2x, 0.5x, a sign, 30%, or
+    a term of the chain rule dropped (23% on every weight, or tens of percent each) fails;
+    no tensor of it passes."""
+    forward, backward, params, inputs = _buggy(BF16.type, bug, array)
+    report = probe(forward, backward, params, inputs)
+    assert not report.ok
+    wrong = {"w", "gain"} if bug[0] == "factor" else {"w"}
+    assert all(t.status != "pass" for t in report.tensors if t.name in wrong), [(t.name, t.status) for t in report.tensors]
+
+
+@pytest.mark.parametrize("array", [np.float64, np.float32])
+@pytest.mark.parametrize("bug", [("factor", 2.0), ("factor", 0.5), ("factor", -1.0), ("factor", 1.3),
+                                 ("dropped", "sech")])
+def test_a_clear_bug_in_float16_inside_fails(bug, array):
+    forward, backward, params, inputs = _buggy(np.float16, bug, array)
+    report = probe(forward, backward, params, inputs)
+    assert report.tensor("w").status == "fail", [(t.name, t.status) for t in report.tensors]
+
+
+def test_a_tensor_failed_along_a_direction_says_so():
+    """Where no weight alone is decidable in bfloat16, the tensor fails on the loss's slope
+    along a direction; its reason says that some element is wrong and that the elements stay
+    undecided one by one, and the direction is among its direction checks."""
+    forward, backward, params, inputs = dropped_term(BF16.type, "gain", np.float32)
+    w = probe(forward, backward, params, inputs).tensor("w")
+    assert w.status == "fail" and w.failed == 0
+    assert "some element is wrong" in w.hint and "undecided one by one" in w.hint
+    assert any(not d.ok for d in w.directions)
+
+
+@pytest.mark.parametrize("array", [np.float64, np.float32])
 def test_a_bug_in_code_rounding_inside_is_never_a_pass(array):
     forward, backward, params, inputs = crop_model(BF16.type, 2.0, array=array)
     report = probe(forward, backward, params, inputs)

@@ -126,15 +126,29 @@ def wide_estimate(probe: TensorProbe, flat: np.ndarray, taken: list[Taken] | Non
     e = (2.0 * p.noise / (p.h_plus + p.h_minus)).reshape(rows, n)  # each quotient's rounding
     right, left = (q.reshape(rows, n) for q in p.sides(probe.f0))
     side_noise = (2.0 * p.noise / np.minimum(p.h_plus, p.h_minus)).reshape(rows, n)
-    gap = np.abs(right - left)
-    # The second difference over the step's square, f'' + f'''' s**2 / 12 + ...: the even part
-    # of the loss along the coordinate, with its rounding.
-    bend = (right - left) / s
-    bend_noise = 2.0 * side_noise / s
     # Asymmetric moves (x + h and x - h rounded to the type's grid) leave a first-order term
     # f'' (h+ - h-) / 2 in a central quotient; f'' from the one-sided gap at the same step.
-    skew = gap * (np.abs(p.h_plus - p.h_minus) / np.maximum(p.h_plus + p.h_minus, 1e-300)).reshape(rows, n)
-    e = e + skew
+    asymmetry = (np.abs(p.h_plus - p.h_minus) / np.maximum(p.h_plus + p.h_minus, 1e-300)).reshape(rows, n)
+    # Never beyond the params' own scale (as steps.largest_smooth_step): past it the loss
+    # along a coordinate is another function, and agreement there proves nothing.
+    scale = np.maximum(np.abs(probe.x[flat].astype(np.float64)), probe.x_scale)
+    return windowed(d, s, e, right - left, side_noise, asymmetry, scale)
+
+
+def windowed(d: np.ndarray, s: np.ndarray, e: np.ndarray, apart: np.ndarray, side_noise: np.ndarray,
+             asymmetry: np.ndarray, limit: np.ndarray) -> Estimate:
+    """The estimate of :func:`wide_estimate` from rows of central quotients ``d`` at steps
+    ``s`` (each twice the last; rows x columns, a column per quantity estimated) with their
+    rounding ``e``, the one-sided quotients' difference ``apart`` (right - left) and its
+    rounding ``side_noise``, the moves' relative ``asymmetry``, and the largest step each
+    column may use (``limit``)."""
+    rows, n = d.shape
+    gap = np.abs(apart)
+    # The second difference over the step's square, f'' + f'''' s**2 / 12 + ...: the even part
+    # of the loss along the coordinate, with its rounding.
+    bend = apart / s
+    bend_noise = 2.0 * side_noise / s
+    e = e + gap * asymmetry
 
     def richardson(i: int) -> tuple[np.ndarray, np.ndarray]:
         a2, b2 = s[i] ** 2, s[i + 1] ** 2
@@ -142,9 +156,6 @@ def wide_estimate(probe: TensorProbe, flat: np.ndarray, taken: list[Taken] | Non
         noise = (b2 * e[i] + a2 * e[i + 1]) / (b2 - a2)
         return value, noise
 
-    # Never beyond the params' own scale (as steps.largest_smooth_step): past it the loss
-    # along a coordinate is another function, and agreement there proves nothing.
-    scale = np.maximum(np.abs(probe.x[flat].astype(np.float64)), probe.x_scale)
     value = d[0].copy()
     error = np.full(n, np.inf)
     with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
@@ -188,7 +199,7 @@ def wide_estimate(probe: TensorProbe, flat: np.ndarray, taken: list[Taken] | Non
             # seen at small steps, not a regime past a bend or an oscillation.
             for j in range(w):
                 follows &= np.abs(d[j] - r12) <= np.abs(d[i[0]] - r12) + WIDE_NOISE * e[j] + bound
-            follows &= s4 <= scale
+            follows &= s4 <= limit
             bound = np.where(follows & np.isfinite(bound), bound, np.inf)
             take = bound < error
             value = np.where(take, r12, value)
@@ -216,3 +227,37 @@ def _shrinking(signed: list[np.ndarray], noise: list[np.ndarray]) -> np.ndarray:
         ok &= small <= SHRINK_LIMIT * large + room
         ok &= (signed[k] * signed[k + 1] > 0) | (np.minimum(small, large) <= room)
     return ok
+
+
+def plain_windowed(d: np.ndarray, s: np.ndarray, e: np.ndarray, apart: np.ndarray,
+                   side_noise: np.ndarray, asymmetry: np.ndarray, limit: np.ndarray) -> Estimate:
+    """As :func:`windowed` (the same arguments), from windows of three steps s1 < s2 < s3
+    without extrapolation, for quotients that rounding rather than curvature limits (one
+    extrapolation multiplies their rounding): the estimate D2 with c2 s2**2 measured from
+    D3 - D2 (its rounding added), taken WIDE_SAFETY times, plus WIDE_NOISE times D2's own
+    rounding. A window is used only where D2 - D1 is at most SHRINK_LIMIT of D3 - D2 and in
+    the same direction, beyond rounding (the quotients follow c2 s**2), the one-sided gap
+    shrinks with the step, and every smaller step's quotient lies as close to the estimate
+    as its rounding allows."""
+    rows, n = d.shape
+    gap = np.abs(apart)
+    e = e + gap * asymmetry
+    value = d[0].copy()
+    error = np.full(n, np.inf)
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        for w in range(rows - 2):
+            i1, i2, i3 = w, w + 1, w + 2
+            lower, upper = d[i2] - d[i1], d[i3] - d[i2]
+            follows = _shrinking([lower, upper], [e[i1] + e[i2], e[i2] + e[i3]])
+            follows &= gap[i1] <= gap[i3] * (s[i1] / s[i3]) * 2.0 + 2.0 * WIDE_NOISE * (side_noise[i1] + side_noise[i3])
+            width = s[i3] ** 2 - s[i2] ** 2
+            bend = (np.abs(upper) + e[i2] + e[i3]) * s[i2] ** 2 / width
+            bound = WIDE_SAFETY * bend + WIDE_NOISE * e[i2]
+            for j in range(w):
+                follows &= np.abs(d[j] - d[i2]) <= np.abs(d[i1] - d[i2]) + WIDE_NOISE * e[j] + bound
+            follows &= s[i3] <= limit
+            bound = np.where(follows & np.isfinite(bound), bound, np.inf)
+            take = bound < error
+            value = np.where(take, d[i2], value)
+            error = np.where(take, bound, error)
+    return Estimate(value, error)

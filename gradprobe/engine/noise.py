@@ -59,6 +59,7 @@ SPREAD_MARGIN = 2.0  # one value's rounding is taken as this many times the larg
 
 def measured_rounding(
     evaluator: Evaluator, ws: Workspace, names: list[str], f0: float, rng: np.random.Generator,
+    dtype: np.dtype | None = None,
 ) -> float:
     """The rounding of one loss value, seen directly (SPAN calls): the loss at x + k d,
     k = 0..SPAN, d moving some params of every tensor (PER_TENSOR at most, chosen at random)
@@ -66,12 +67,14 @@ def measured_rounding(
     the loss changes along d (linear at that scale, whatever the gradient, right or wrong)
     and keep how its rounding varies from point to point: with independent roundings of
     spread s each second difference spreads by sqrt(6) s, and SPREAD_MARGIN times the
-    largest of SPAN - 1 of them is about five times s. 0.0 when forward fails there."""
+    largest of SPAN - 1 of them is about five times s. 0.0 when forward fails there.
+    ``dtype``: the type forward computes in; where it is coarser than a param's own (a cast
+    to bfloat16 inside), units of its last place, since finer moves never reach the loss."""
     names = [n for n in names if n in ws.owners and ws.owners[n].size]
     picked = {n: rng.choice(ws.owners[n].size, size=min(PER_TENSOR, ws.owners[n].size), replace=False)
               for n in names}
     base = {n: ws.owners[n].flat[picked[n]] for n in names}
-    steps = {n: ULPS * np.spacing(np.abs(x)) * rng.choice([-1.0, 1.0], size=x.shape) for n, x in base.items()}
+    steps = {n: ULPS * _spacing(x, dtype) * rng.choice([-1.0, 1.0], size=x.shape) for n, x in base.items()}
     values = [f0]
     try:
         for k in range(1, SPAN + 1):
@@ -81,3 +84,12 @@ def measured_rounding(
         return 0.0  # outside forward's domain: no evidence either way
     second = np.abs(np.diff(np.array(values), n=2))
     return SPREAD_MARGIN * float(second.max(initial=0.0))
+
+
+def _spacing(x: np.ndarray, dtype: np.dtype | None) -> np.ndarray:
+    """The spacing of ``x`` in its own type, or in ``dtype`` where that is coarser."""
+    own = np.spacing(np.abs(x))
+    if dtype is None or np.finfo(dtype).eps <= np.finfo(x.dtype).eps:
+        return own
+    coarse = np.abs(np.spacing(np.abs(x).astype(dtype))).astype(np.float64)
+    return np.maximum(own.astype(np.float64), coarse).astype(x.dtype)

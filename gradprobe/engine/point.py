@@ -110,7 +110,7 @@ class Point:
         rng = tensor_rng(self.seed, "", "noise")
         units = rounding_units(n.dtype)
         if is_narrow(n.dtype):
-            seen = measured_rounding(self.evaluator, n.workspace, list(self.gradients), n.f0, rng)
+            seen = measured_rounding(self.evaluator, n.workspace, list(self.gradients), n.f0, rng, n.dtype)
             scale = seen / (units * float(np.finfo(n.dtype).eps))
         else:
             scale = measured_loss_scale(self.evaluator, n.workspace, self.gradients, n.f0, units, rng)

@@ -1,10 +1,25 @@
-"""Noticing a forward that computes in float32 although it is handed float64 arrays.
+"""Noticing a forward that computes in a narrower type than the arrays it is handed.
 
-Every float64 param is first rounded to float32 (a point float32 code sees exactly) and then
-moved by 2**-36 of its size, far below float32's resolution (2**-24) but well above
-float64's (2**-53). Float64 code sees the move; float32 code gives a bitwise identical loss.
-A third call with a move of 2**-12 confirms that the loss depends on the params at all, and
-how large the float64 change would have been.
+float32 inside float64 arrays: every float64 param is first rounded to float32 (a point
+float32 code sees exactly) and then moved by 2**-36 of its size, far below float32's
+resolution (2**-24) but well above float64's (2**-53). Float64 code sees the move; float32
+code gives a bitwise identical loss. A third call with a move of 2**-12 confirms that the
+loss depends on the params at all, and how large the float64 change would have been.
+
+float16 or bfloat16 inside float64 or float32 arrays (a cast to a 16-bit type around the
+arithmetic): every param is rounded to bfloat16, a point on the grid of both 16-bit types
+(bfloat16's values carry 8 significant bits, float16's 11), then moved by 2**-18 of its
+size, up and down: 16-bit code gives a bitwise identical loss where float32 code changes it
+by tens of its units (values computed from the params before the cast cross a 16-bit
+rounding boundary at such a move once in about 2**10). Moves of 2**-4 up and down (which every 16-bit type
+resolves) confirm that the loss depends on the params: half the difference of their losses
+is the change's first-order part (a loss at its minimum changes by the move's square alike
+both ways), scaled down to 2**-18 it must be two units of float32's at least. float16 rather than
+bfloat16 needs positive evidence: the loss ignores four moves of 0.875 * 2**-12 in random
+directions (below float16's resolution) and sees one of 2**-10 (a unit of float16's, below
+bfloat16's). Otherwise the coarser type is concluded (bfloat16 code whose params pass
+through float32 arithmetic before the cast can see a move of 2**-10), which judges code
+more leniently than its arithmetic, never more strictly.
 """
 
 from __future__ import annotations
@@ -19,6 +34,13 @@ from .evaluate import Evaluator, Perturbation
 
 SMALL = 2.0**-36
 LARGE = 2.0**-12
+TINY = 2.0**-18  # far below the 16-bit types' resolution, tens of units of float32's
+SIXTEEN_LARGE = 2.0**-4  # a move every 16-bit type resolves, up and down
+SIXTEEN_LIVE = 2.0  # float32 code changes by this many of its units at TINY at least
+SUB_UNIT = 0.875 * 2.0**-12  # below float16's resolution (half a unit: 2**-12 to 2**-11)
+SUB_UNIT_TRIES = 4
+HALF_UNIT = 2.0**-10  # below bfloat16's resolution, a unit of float16's
+LIVE = 64.0  # the change a move would make in the finer type, in units of its eps times |f|
 
 
 @dataclass(frozen=True)
@@ -27,35 +49,84 @@ class HiddenType:
     evidence: str
 
 
-def _moved(ws: Workspace, names: list[str], relative: float) -> list[Perturbation]:
+def _bfloat16() -> np.dtype | None:
+    try:
+        import ml_dtypes
+    except ImportError:  # an optional extra: without it bfloat16 is not told from float16
+        return None
+    return np.dtype(ml_dtypes.bfloat16)
+
+
+def _moved(ws: Workspace, names: list[str], relative: float, grid: np.dtype,
+           signs: np.random.Generator | None = None) -> list[Perturbation]:
     out = []
     for name in names:
         owner = ws.owners[name]
-        moved = owner.reshape(-1).astype(np.float32).astype(np.float64)
-        moved *= 1.0 + relative  # in place: one array of the tensor's size
-        out.append(Perturbation(name, slice(0, owner.size), moved))
+        moved = owner.reshape(-1).astype(grid).astype(np.float64)
+        if signs is None:
+            moved *= 1.0 + relative  # in place: one array of the tensor's size
+        else:
+            moved *= 1.0 + relative * signs.choice([-1.0, 1.0], size=moved.size)
+        out.append(Perturbation(name, slice(0, owner.size), moved.astype(owner.dtype)))
     return out
 
 
 def narrower_compute_type(
     evaluator: Evaluator, ws: Workspace, f0: float, out_dtype: np.dtype
 ) -> HiddenType | None:
-    """float32 when a float64 forward demonstrably computes in float32, else None (3 calls)."""
-    names = [n for n in ws.param_names if ws.owners[n].dtype == np.float64 and ws.owners[n].any()]
-    if out_dtype != np.float64 or not names:
+    """The narrower type a float64 or float32 forward demonstrably computes in, else None
+    (2 to 13 calls)."""
+    out_dtype = np.dtype(out_dtype)
+    if out_dtype not in (np.dtype(np.float64), np.dtype(np.float32)):
         return None
+    names = [n for n in ws.param_names if ws.owners[n].dtype == out_dtype and ws.owners[n].any()]
+    if not names:
+        return None
+    found: HiddenType | None = None
     try:
-        rounded = evaluator.loss_with(_moved(ws, names, 0.0))
-        nudged = evaluator.loss_with(_moved(ws, names, SMALL))
-        moved = evaluator.loss_with(_moved(ws, names, LARGE))
+        if out_dtype == np.float64:
+            rounded = evaluator.loss_with(_moved(ws, names, 0.0, np.dtype(np.float32)))
+            nudged = evaluator.loss_with(_moved(ws, names, SMALL, np.dtype(np.float32)))
+            if nudged != rounded:
+                return None
+            moved = evaluator.loss_with(_moved(ws, names, LARGE, np.dtype(np.float32)))
+            expected = abs(moved - rounded) * (SMALL / LARGE)
+            if expected > LIVE * np.finfo(np.float64).eps * max(abs(rounded), abs(f0)):
+                found = HiddenType(
+                    np.dtype(np.float32),
+                    " although its params are float64 (moving every param by 2**-36 of its size left "
+                    "the loss bitwise unchanged)",
+                )
+            elif moved != rounded:
+                return None  # it sees 2**-12 though the change is too small to tell: no evidence
+        return _sixteen_bits(evaluator, ws, names, f0, out_dtype) or found
     except (UserCodeError, BadOutputError):
-        return None  # the moved points are outside forward's domain: no evidence either way
-    expected = abs(moved - rounded) * (SMALL / LARGE)
-    resolvable = expected > 64 * np.finfo(np.float64).eps * max(abs(rounded), abs(f0))
-    if resolvable and nudged == rounded:
-        return HiddenType(
-            np.dtype(np.float32),
-            " although its params are float64 (moving every param by 2**-36 of its size left "
-            "the loss bitwise unchanged)",
-        )
-    return None
+        return found  # the moved points are outside forward's domain: no more evidence
+
+
+def _sixteen_bits(evaluator: Evaluator, ws: Workspace, names: list[str], f0: float,
+                  out_dtype: np.dtype) -> HiddenType | None:
+    """float16 or bfloat16 when the loss ignores moves below their resolution (see the
+    module's docstring), else None."""
+    grid = _bfloat16() or np.dtype(np.float16)
+    rounded = evaluator.loss_with(_moved(ws, names, 0.0, grid))
+    for tiny in (TINY, -TINY):  # float32 code sees both
+        if evaluator.loss_with(_moved(ws, names, tiny, grid)) != rounded:
+            return None
+    up, down = (evaluator.loss_with(_moved(ws, names, move, grid)) for move in (SIXTEEN_LARGE, -SIXTEEN_LARGE))
+    linear = 0.5 * abs(up - down) * (TINY / SIXTEEN_LARGE)  # the change's first-order part at TINY
+    if not linear > SIXTEEN_LIVE * np.finfo(np.float32).eps * max(abs(rounded), abs(f0)):
+        return None
+    said = f" although its params are {out_dtype} (moving every param by 2**-18 of its size left the loss bitwise unchanged"
+    half = HiddenType(np.dtype(np.float16), said + ")")
+    if grid == np.float16:
+        return half
+    rng = np.random.default_rng(0)  # fixed signs: the look is the same on every run
+    for _ in range(SUB_UNIT_TRIES):  # below float16's resolution: float16 code ignores each
+        if evaluator.loss_with(_moved(ws, names, SUB_UNIT, grid, rng)) != rounded:
+            return HiddenType(grid, said + "; float16 and bfloat16 could not be told apart, and the "
+                                           "coarser is taken)")
+    for signs in (None, rng):  # a unit of float16's: float16 code sees it
+        if evaluator.loss_with(_moved(ws, names, HALF_UNIT, grid, signs)) != rounded:
+            return half
+    return HiddenType(grid, said + ", and so did moves of 2**-10, below bfloat16's resolution)")

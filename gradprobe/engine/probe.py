@@ -169,11 +169,11 @@ class TensorProbe:
         h = np.asarray(h, dtype=np.float64).copy()
         base = as_seen(x, self.compute_dtype)
         for _ in range(8):
-            with np.errstate(over="ignore", invalid="ignore"):  # a move past the type's range:
-                plus = (x + h).astype(x.dtype)  # not finite, and the pairs shrink it
-                minus = (x - h).astype(x.dtype)
-            h_plus = as_seen(plus, self.compute_dtype) - base
-            h_minus = base - as_seen(minus, self.compute_dtype)
+            with np.errstate(over="ignore", invalid="ignore"):  # a move past the type's range
+                plus = (x + h).astype(x.dtype)  # (the arrays' or the one computed in): not
+                minus = (x - h).astype(x.dtype)  # finite, and the pairs shrink it
+                h_plus = as_seen(plus, self.compute_dtype) - base
+                h_minus = base - as_seen(minus, self.compute_dtype)
             stuck = (h_plus <= 0) | (h_minus <= 0) | ~np.isfinite(h_plus) | ~np.isfinite(h_minus)
             if not stuck.any():
                 break

@@ -41,6 +41,7 @@ class TensorRecord:
     located_evaluations: int | None = None
     evaluations: int = 0
     unconfirmed: bool | str = False  # a direction disagrees that no coordinate confirms (why, if said)
+    fails_along: str | None = None  # why the tensor fails along a direction though no coordinate does
     # The second look (offpoint): the outcome with kink coordinates that fail off the point
     # failed (None: none did, or no second look).
     moved: CoordinateOutcome | None = None
@@ -82,4 +83,4 @@ class TensorRecord:
             hint=self.hint, directions=self.directions,
             located_evaluations=self.located_evaluations, evaluations=spent,
             doubt=self.unconfirmed if isinstance(self.unconfirmed, str)
-            else UNCONFIRMED if self.unconfirmed else None)
+            else UNCONFIRMED if self.unconfirmed else None, fails=self.fails_along)

@@ -70,10 +70,12 @@ def tensor_result(
     located_evaluations: int | None = None,
     evaluations: int | None = None,
     doubt: str | None = None,
+    fails: str | None = None,
 ) -> TensorResult:
     """Summarise the checked coordinates of one tensor (and its direction checks). Its
     status is its worst coordinate's; ``doubt`` (a reason) makes a tensor whose coordinates
-    pass or sit at kinks inconclusive."""
+    pass or sit at kinks inconclusive; ``fails`` (a reason) makes one whose coordinates do
+    not fail fail, the reason leading its hint."""
     shape = tuple(shape)
     s = outcome.status
     failing = s == FAIL
@@ -99,6 +101,8 @@ def tensor_result(
     reason = next((r for r, st in zip(outcome.reasons, s) if st == INCONCLUSIVE and r), None)
     if doubt is not None and status < Status.INCONCLUSIVE:
         status, reason = Status.INCONCLUSIVE, doubt
+    if fails is not None and status < Status.FAIL:
+        status, hint = Status.FAIL, fails + (f"; {hint}" if hint else "")
     return TensorResult(
         name=name,
         layer=layer,

@@ -1,10 +1,12 @@
-"""Checking one tensor: which coordinates and directions, localisation, the coordinates."""
+"""Checking one tensor: which coordinates and directions, localisation, the coordinates, and
+the whole tensor along directions where 16-bit rounding leaves its coordinates undecided."""
 
 from __future__ import annotations
 
 import numpy as np
 
 from ..settings.options import CheckOptions
+from .along import along, wanted
 from .coordinates import check_coordinates
 from .directional import directional
 from .probe import TensorProbe
@@ -55,4 +57,8 @@ def check_tensor(probe: TensorProbe, options: CheckOptions, total: int, record: 
         if seen.unresolved:
             record.unconfirmed = seen.unresolved
     record.outcome = check_coordinates(probe, flat, options.method, options.recheck)
+    if wanted(probe, record.outcome):  # 16-bit arithmetic left coordinates undecided
+        whole = along(probe, record.outcome, options.seed)
+        record.directions = record.directions + whole.results
+        record.fails_along = whole.fails
     record.evaluations = ev.count - start

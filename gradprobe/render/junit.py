@@ -26,8 +26,8 @@ def classname(target: str, layer: str | None = None) -> str:
 
 
 def _failure_message(t: TensorResult, threshold: float) -> str:
-    if t.checked == 0 or t.max_rel_error is None:
-        return f"{t.name}: {t.hint}"
+    if t.checked == 0 or t.max_rel_error is None or (t.failed == 0 and t.hint):
+        return f"{t.name}: {t.hint}"  # a problem, or a tensor failed along a direction
     where = format_index(t.worst_index) if t.worst_index is not None else "-"
     return (f"{t.name}: {t.failed} of {plural(t.checked, 'checked coordinate')} "
             f"{verb(t.failed, 'disagrees', 'disagree')}; worst relative "

@@ -8,7 +8,7 @@ come from the mpmath reference (``reference.py``) and the rules in ``run.py``.
 """
 
 from .bugs import make_case
-from .generate import CATEGORIES
+from .generate import ALL_CATEGORIES, CATEGORIES
 from .run import judge
 
-__all__ = ["CATEGORIES", "judge", "make_case"]
+__all__ = ["ALL_CATEGORIES", "CATEGORIES", "judge", "make_case"]

@@ -50,7 +50,7 @@ class Case:
     category: str
     seed: int
     dtype: str
-    flavor: str  # generic | cast
+    flavor: str  # generic | cast | inside64 | inside32
     params: dict[str, np.ndarray]  # values, C-ordered; the layout is applied by setup()
     layouts: dict[str, str]
     inputs: dict[str, np.ndarray]
@@ -69,8 +69,16 @@ class Case:
     def correct(self) -> bool:
         return self.bug is None
 
+    @property
+    def array_type(self) -> str | None:
+        """The arrays' own type where the code casts them to ``dtype`` inside, else None."""
+        return {"inside64": "float64", "inside32": "float32"}.get(self.flavor)
+
     def arrays(self) -> dict[str, np.ndarray]:
-        return {**{f"param_{k}": v for k, v in self.params.items()}, **{f"input_{k}": v for k, v in self.inputs.items()}}
+        out = {**{f"param_{k}": v for k, v in self.params.items()}, **{f"input_{k}": v for k, v in self.inputs.items()}}
+        if self.array_type is not None:  # the same values, held in the wider type
+            out = {k: np.asarray(v).astype(self.array_type) for k, v in out.items()}
+        return out
 
     def with_bug(self, bug: Bug | None) -> Case:
         return Case(self.category, self.seed, self.dtype, self.flavor, self.params, self.layouts, self.inputs,
@@ -179,6 +187,11 @@ def _prologue(case: Case) -> list[str]:
     if case.flavor == "cast":
         return ["P = {n: np.asarray(a, dtype=np.float32) for n, a in params.items()}",
                 "I = {n: np.asarray(a, dtype=np.float32) for n, a in inputs.items()}"]
+    if case.array_type is not None:
+        inner = "ml_dtypes.bfloat16" if case.dtype == "bfloat16" else f"np.{case.dtype}"
+        return ["import ml_dtypes  # noqa: F401", f"INNER = np.dtype({inner})",
+                "P = {n: np.asarray(a).astype(INNER) for n, a in params.items()}",
+                "I = {n: np.asarray(a).astype(INNER) for n, a in inputs.items()}"]
     return ["P, I = params, inputs"]
 
 
@@ -196,6 +209,8 @@ def source(case: Case, arrays_line: str = "ARRAYS = globals().get('ARRAYS', {})"
     loss = f"{s} * T" if case.outer == "id" else f"{s} * T * T / 2"
     if case.flavor == "cast":
         loss = f"np.float32({loss})"
+    if case.array_type is not None:
+        loss = f"np.{case.array_type}(float({loss}))"
     fwd = ["def forward(params, inputs):"] + ["    " + x for x in _prologue(case) + _total(case) + [f"return {loss}"]]
     body = _prologue(case)
     if case.outer == "sq":
@@ -216,7 +231,10 @@ def source(case: Case, arrays_line: str = "ARRAYS = globals().get('ARRAYS', {})"
             body.append(f"G['{n}'] = G['{n}'].T")
         elif bug.kind == "element":
             body += [f"G['{n}'] = np.array(G['{n}'])", f"G['{n}'][{bug.index!r}] *= {bug.factor!r}"]
-    body.append("return G")
+    if case.array_type is not None:
+        body.append(f"return {{n: np.asarray(g).astype(np.{case.array_type}) for n, g in G.items()}}")
+    else:
+        body.append("return G")
     bwd = ["def backward(params, inputs):"] + ["    " + x for x in body]
     what = "correct" if bug is None else f"bug: {bug.kind} in {bug.tensor}"
     head = _HEAD.format(name=case.name, what=what, file=f"{case.name}.py", expect=expect,

@@ -11,7 +11,8 @@ Categories (each draws its own scales, shapes, dtype and bug):
 - ``shapes``: 0-d, (1,), size-1 axes, empty, Fortran, strided, reversed and broadcast-view
   params, a 0-d param broadcast against a vector;
 - ``float32``, ``float32only`` (every array and the loss cast with np.float32: no wider run),
-  ``float16``;
+  ``float16``; ``inside16`` (by name only: float64 or float32 arrays, every one cast to
+  bfloat16 or float16 inside, the loss and gradients cast back: no wider run);
 - ``large``: one tensor of 20,000 .. 100,000 elements, correct or with one element 0.1%, 1%
   or 20% off.
 """
@@ -24,14 +25,19 @@ from .case import Bug, Case, Term
 from .ops import KINKED, SMOOTH, STEEP, domain
 
 CATEGORIES = ("steep", "kinks", "scales", "shapes", "float32", "float32only", "float16", "large")
+# Run by name only (``--categories inside16``), so that the default run's figures stay
+# comparable: code casting every array to bfloat16 or float16 inside while its arrays are
+# float64 or float32 (no wider run).
+EXTRA_CATEGORIES = ("inside16",)
+ALL_CATEGORIES = CATEGORIES + EXTRA_CATEGORIES
 DISTANCES = (0.0, 1e-12, 1e-10, 1e-8, 1e-7, 1e-6, 1e-5, 1e-4, 1e-3, 1e-2)
 SHAPES = ((), (1,), (1, 1, 3), (1, 4, 1), (0,), (2, 0), (5,), (3, 4), (4, 3), (2, 3, 2))
 
 
 class Builder:
     def __init__(self, category: str, seed: int, dtype: str, flavor: str = "generic"):
-        self.rng = np.random.default_rng([CATEGORIES.index(category), seed])
-        self.category, self.seed, self.dtype, self.flavor = category, seed, np.dtype(dtype), flavor
+        self.rng = np.random.default_rng([ALL_CATEGORIES.index(category), seed])
+        self.category, self.seed, self.dtype, self.flavor = category, seed, dtype_of(dtype), flavor
         self.params: dict[str, np.ndarray] = {}
         self.layouts: dict[str, str] = {}
         self.inputs: dict[str, np.ndarray] = {}
@@ -64,7 +70,7 @@ class Builder:
         return a
 
     def _gain_of_exp(self) -> float:
-        return {"float16": 3.0, "float32": 12.0}.get(self.dtype.name, 40.0)
+        return {"float16": 3.0, "bfloat16": 3.0, "float32": 12.0}.get(self.dtype.name, 40.0)
 
     def weights(self, j: int, shape) -> None:
         self.inputs[f"w{j}"] = self.cast(self.rng.uniform(-1, 1, shape))
@@ -245,8 +251,9 @@ def _shapes(b: Builder) -> Case:
 
 def _low(b: Builder) -> Case:
     rng = b.rng
-    lo, hi = (-1, 1) if b.dtype.name == "float16" else (-2, 2)
-    pieces = SMOOTH + ("exp", "pow5", "sp100") if b.dtype.name != "float16" else SMOOTH + ("exp",)
+    sixteen = b.dtype.name in ("float16", "bfloat16")
+    lo, hi = (-1, 1) if sixteen else (-2, 2)
+    pieces = SMOOTH + ("exp",) if sixteen else SMOOTH + ("exp", "pow5", "sp100")
     for _ in range(rng.integers(1, 4)):
         r = rng.random()
         if r < 0.25:
@@ -269,7 +276,15 @@ def _large(b: Builder) -> Case:
 
 
 _BUILD = {"steep": _steep, "kinks": _kinks, "scales": _scales, "shapes": _shapes,
-          "float32": _low, "float32only": _low, "float16": _low, "large": _large}
+          "float32": _low, "float32only": _low, "float16": _low, "large": _large, "inside16": _low}
+
+
+def dtype_of(name: str) -> np.dtype:
+    if name == "bfloat16":
+        import ml_dtypes
+
+        return np.dtype(ml_dtypes.bfloat16)
+    return np.dtype(name)
 
 
 def _dtype(category: str, rng) -> tuple[str, str]:
@@ -277,12 +292,14 @@ def _dtype(category: str, rng) -> tuple[str, str]:
         return category, "generic"
     if category == "float32only":
         return "float32", "cast"
+    if category == "inside16":
+        return str(rng.choice(["bfloat16", "float16"])), str(rng.choice(["inside64", "inside32"]))
     if category in ("shapes", "large") and rng.random() < 0.25:
         return "float32", "generic"
     return "float64", "generic"
 
 
 def correct_case(category: str, seed: int) -> Case:
-    pick = np.random.default_rng([99, CATEGORIES.index(category), seed])
+    pick = np.random.default_rng([99, ALL_CATEGORIES.index(category), seed])
     dtype, flavor = _dtype(category, pick)
     return _BUILD[category](Builder(category, seed, dtype, flavor))

@@ -94,7 +94,7 @@ STEEP = ("exp", "pole", "log", "pow5", "pow7", "pow9", "pow12", "sp100", "sp1000
 KINKED = ("abs", "relu", "hub")
 
 
-NEAREST = {"float64": -7, "float32": -4, "float16": -2}
+NEAREST = {"float64": -7, "float32": -4, "float16": -2, "bfloat16": -2}
 
 
 def domain(name: str, rng: np.random.Generator, size: int, gain: float, dtype: str = "float64") -> np.ndarray:

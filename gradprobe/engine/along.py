@@ -1,0 +1,205 @@
+"""A 16-bit tensor judged as a whole where its coordinates stay undecided: the loss's slope
+along a few directions at wide steps against the analytic gradient's projection.
+
+Code computing in bfloat16 or float16 (often cast inside float32 or float64 arrays) has a
+loss that is a staircase of steps about u |L|: one coordinate's quotient needs steps so wide
+that curvature then hides all but gross errors. Along a unit direction d over the whole
+tensor the slope is g . d, which collects every element's share (along the analytic gradient
+itself |a| rather than one |a_i|). The discrepancy (g - a) . d is estimated as a coordinate's
+is on wide steps (:func:`.narrow.windowed`: Richardson windows whose error model is checked
+on the quotients) from the loss at x +- t d for steps t, 2t, 4t, ... up to the params' own
+scale, the analytic change a . m of the moves m the forward really sees subtracted (so the
+rounding of x +- t d to the type's grid cancels), and with the loss's rounding measured on
+the target (:func:`.noise.measured_rounding`, in units of the type the code computes in).
+
+Where the discrepancy exceeds SIGNIFICANCE of its bound (a coordinate's margin: the bound is
+a coordinate's wide-step bound, checked on the quotients the same way) and also the most that
+elements each within the threshold could add along d (thr / (1 - thr) * sum max(|a_i|,
+floor) |d_i|), some element is wrong beyond the threshold for certain: the tensor fails,
+though which element may stay undecided. A direction never passes a tensor (errors of
+several elements may cancel along it). Directions: the analytic gradient, the coordinates'
+own numeric estimates' departure from it, and one at random; the first that fails ends it.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..common.roundoff import is_narrow, unit_roundoff
+from ..common.status import FAIL, INCONCLUSIVE
+from ..report.model import DirectionResult
+from .coordinates import CoordinateOutcome
+from .ladder import Estimate
+from .narrow import WIDE_NOISE, plain_windowed, windowed
+from .noise import SPREAD_MARGIN
+from .probe import TensorProbe, as_seen
+from .sampling import tensor_rng
+from .verdict import SIGNIFICANCE
+
+STEPS = 10  # steps t, 2t, ..., 512t: the largest moves the params by their own scale
+SKEW_SAFETY = 2.0  # the asymmetry of the rounded moves is taken twice
+CLEAN = 0.25  # moves whose rounding to the grid leaves them this asymmetric at most
+NOISE_SPAN = 6  # the loss's rounding: seven points along the direction, five second differences
+NOISE_UNITS = 4.0  # a typical element moves by this many units of the type's grid between them
+KINK_SHRINK = 0.75  # the one-sided gap shrinks to at most this share as the step halves, or a kink
+
+
+@dataclass(frozen=True)
+class Along:
+    """The directions tried, and why the tensor fails (None: no direction showed it)."""
+
+    results: tuple[DirectionResult, ...]
+    fails: str | None
+    evaluations: int
+
+
+def wanted(probe: TensorProbe, outcome: CoordinateOutcome) -> bool:
+    """The tensor is judged on its own 16-bit arithmetic and some coordinate stayed
+    undecided while none failed."""
+    coarse = is_narrow(probe.compute_dtype) and unit_roundoff(probe.compute_dtype) >= unit_roundoff(np.float16)
+    return (coarse and probe.narrow is None and probe.size > 0
+            and bool(np.any(outcome.status == INCONCLUSIVE)) and not np.any(outcome.status == FAIL))
+
+
+def _directions(probe: TensorProbe, outcome: CoordinateOutcome, seed: int) -> list[tuple[str, np.ndarray]]:
+    out = []
+    a = probe.a
+    if np.any(a):
+        out.append(("along the analytic gradient", a / np.linalg.norm(a)))
+    off = np.zeros(probe.size)
+    finite = np.isfinite(outcome.numeric)
+    off[outcome.flat[finite]] = outcome.numeric[finite] - a[outcome.flat[finite]]
+    norm = np.linalg.norm(off)
+    if norm > 0 and (not out or abs(float(off @ out[0][1])) < 0.99 * norm):
+        out.append(("along the coordinates' numeric estimates less the gradient", off / norm))
+    if probe.size > 1:
+        g = tensor_rng(seed, probe.tensor, "along").standard_normal(probe.size)
+        out.append(("along a random direction", g / np.linalg.norm(g)))
+    return out
+
+
+@dataclass(frozen=True)
+class _Seen:
+    """One direction at every step: the discrepancy's estimate, the analytic slope, and the
+    most that elements within the threshold could add along the moves."""
+
+    estimate_value: float
+    estimate_error: float
+    analytic: float
+    allowed: float
+
+
+def _rounding(probe: TensorProbe, d: np.ndarray, at: float) -> tuple[float, float, np.ndarray] | None:
+    """The rounding of one loss value near x + at d, seen directly, relative to the loss's
+    size there: the loss at NOISE_SPAN + 1 points a few units of the type's grid apart along
+    d, less the analytic change of the moves, whose second differences cancel how it changes
+    and keep how its rounding varies
+    (SPREAD_MARGIN times the largest; see noise.measured_rounding), that size, and the
+    values. None where the loss did not change at all, or its second differences are all
+    0: that says nothing of its rounding."""
+    grid = np.abs(np.spacing(np.abs(probe.x).astype(probe.compute_dtype))).astype(np.float64)
+    typical = float(np.sqrt(np.mean(d * d)))
+    delta = NOISE_UNITS * float(np.sqrt(np.mean(grid * grid))) / max(typical, 1e-300)
+    values, predicted = probe.along(slice(0, probe.size), d, at + delta * np.arange(NOISE_SPAN + 1))
+    # Less the analytic change of the moves really made: the rounding of x + at d + k delta
+    # to the grid moves the elements unevenly, a staircase the quotients take into account.
+    second = np.abs(np.diff(values - predicted, n=2))
+    if not np.all(np.isfinite(second)) or not np.any(second) or np.all(values == values[0]):
+        return None
+    return SPREAD_MARGIN * float(second.max()), float(np.max(np.abs(values))), values
+
+
+def _granularity(values: np.ndarray) -> float:
+    """The smallest nonzero distance between the loss values seen: a loss rounded to a coarse
+    type last (a float16 sum returned as float32) takes only values this far apart, and
+    moves too small to cross one show no rounding at all."""
+    distinct = np.unique(values[np.isfinite(values)])
+    steps = np.diff(distinct)
+    return float(steps.min()) if steps.size else 0.0
+
+
+def _kinked(gap: np.ndarray, side_noise: np.ndarray) -> bool:
+    """The one-sided slopes' gap does not halve with the step between two consecutive steps
+    where it is well beyond rounding (curvature makes it shrink in proportion): a kink lies
+    within the smaller step. Some window's own checks could pass it where rounding is large."""
+    resolved = gap > 2.0 * WIDE_NOISE * side_noise
+    both = resolved[:-1] & resolved[1:]
+    return bool(np.any(both & (gap[:-1] > KINK_SHRINK * gap[1:])))
+
+
+def _measure(probe: TensorProbe, d: np.ndarray) -> _Seen | None:
+    x = probe.x
+    span = max(float(np.max(np.abs(d))), 1e-300)
+    top = probe.x_scale / span  # no element moves beyond the params' own scale
+    if not np.isfinite(top) or top <= 0:
+        return None
+    steps = top * 2.0 ** -np.arange(STEPS - 1, -1, -1.0)  # ascending
+    values, predicted = probe.along(slice(0, probe.size), d, np.stack([steps, -steps], axis=1).reshape(-1))
+    f_plus, f_minus = values[0::2], values[1::2]
+    p_plus, p_minus = predicted[0::2], -predicted[1::2]
+    if not (np.all(np.isfinite(f_plus)) and np.all(np.isfinite(f_minus))):
+        return None
+    base = as_seen(x, probe.compute_dtype)
+    weight = np.maximum(np.abs(probe.a), probe.floor)
+    asymmetry, allowed = np.zeros(STEPS), np.zeros(STEPS)
+    for k, t in enumerate(steps):
+        with np.errstate(over="ignore", invalid="ignore"):  # past the type's range: not finite
+            m_plus = as_seen((x + t * d).astype(x.dtype), probe.compute_dtype) - base
+            m_minus = base - as_seen((x - t * d).astype(x.dtype), probe.compute_dtype)
+        both = m_plus + m_minus
+        asymmetry[k] = float(np.linalg.norm(m_plus - m_minus)) / max(float(np.linalg.norm(both)), 1e-300)
+        allowed[k] = float(weight @ np.abs(both)) / (2.0 * t)
+    # What elements within the threshold could add along the moves really made, at the steps
+    # the rounding to the grid leaves nearly as asked (the others' quotients carry it as noise).
+    clean = asymmetry <= CLEAN
+    most = float(allowed[clean].max()) if clean.any() else float(allowed.max())
+    asymmetry = SKEW_SAFETY * asymmetry
+    size = np.maximum(np.abs(f_plus), np.abs(f_minus))
+    seen = [_rounding(probe, d, at) for at in (0.0, -float(steps[-1]), float(steps[-1]))]
+    if all(r is not None for r in seen):  # measured at the point and at the widest steps
+        share = max(r[0] / max(r[1], 1e-300) for r in seen if r is not None)
+        every = np.concatenate([values, [probe.f0], *(r[2] for r in seen if r is not None)])
+        noise = np.maximum(share * np.maximum(size, abs(probe.f0)), _granularity(every))
+    else:  # no measure: the probe's model of the type's rounding
+        noise = probe.loss_noise(f_plus, f_minus)
+    central = (f_plus - f_minus - p_plus - p_minus) / (2.0 * steps)
+    right = (f_plus - probe.f0 - p_plus) / steps
+    left = (probe.f0 - f_minus - p_minus) / steps
+    if _kinked(np.abs(right - left), 2.0 * noise / steps):
+        return None  # a kink along the direction: its slopes say nothing of the gradient
+    column = lambda v: np.asarray(v, dtype=np.float64).reshape(STEPS, 1)  # noqa: E731
+    rows = (column(central), column(steps), column(noise / steps), column(right - left),
+            column(2.0 * noise / steps), column(asymmetry), np.array([top]))
+    est = Estimate.better(windowed(*rows), plain_windowed(*rows))
+    return _Seen(float(est.value[0]), float(est.error[0]), float(probe.a @ d), most)
+
+
+def along(probe: TensorProbe, outcome: CoordinateOutcome, seed: int) -> Along:
+    """The directions of :func:`_directions`, each judged as the module says."""
+    start = probe.evaluator.count
+    results: list[DirectionResult] = []
+    thr = probe.threshold
+    for what, d in _directions(probe, outcome, seed):
+        before = probe.evaluator.count
+        seen = _measure(probe, d)
+        if seen is None:
+            continue
+        value, error = seen.estimate_value, seen.estimate_error
+        limit = thr / (1.0 - thr) * seen.allowed
+        beyond = np.isfinite(error) and abs(value) > SIGNIFICANCE * error and abs(value) > limit
+        scale = max(abs(seen.analytic), abs(seen.analytic + value), probe.floor)
+        results.append(DirectionResult(
+            analytic=seen.analytic, numeric=seen.analytic + value, error_estimate=error,
+            rel_error=abs(value) / scale, ok=not beyond, evaluations=probe.evaluator.count - before))
+        if beyond:
+            undecided = int(np.sum(outcome.status == INCONCLUSIVE))
+            fails = (
+                f"{what} the loss's slope is {seen.analytic + value:.4g} (+- {error:.2g}) where "
+                f"the gradient gives {seen.analytic:.4g}, off by more than elements each within "
+                f"the threshold could add ({limit:.2g}): some element is wrong, though "
+                f"{probe.compute_dtype} rounding leaves {undecided} of the checked coordinates "
+                f"undecided one by one")
+            return Along(tuple(results), fails, probe.evaluator.count - start)
+    return Along(tuple(results), None, probe.evaluator.count - start)
