@@ -7,10 +7,13 @@ that curvature then hides all but gross errors. Along a unit direction d over th
 tensor the slope is g . d, which collects every element's share (along the analytic gradient
 itself |a| rather than one |a_i|). The discrepancy (g - a) . d is estimated as a coordinate's
 is on wide steps (:func:`.narrow.windowed`: Richardson windows whose error model is checked
-on the quotients) from the loss at x +- t d for steps t, 2t, 4t, ... up to the params' own
-scale, the analytic change a . m of the moves m the forward really sees subtracted (so the
-rounding of x +- t d to the type's grid cancels), and with the loss's rounding measured on
-the target (:func:`.noise.measured_rounding`, in units of the type the code computes in).
+on the quotients, or :func:`.narrow.plain_windowed` without extrapolation) from the loss at
+x +- t d for steps t, 2t, 4t, ... up to the params' own scale, the analytic change a . m of
+the moves m the forward really sees subtracted (so the rounding of x +- t d to the type's
+grid cancels). The loss's rounding is measured on the direction itself, at the point and at
+both widest steps (:func:`_rounding`), never below the spacing of the loss values seen (a
+loss rounded to 16 bits last takes only values that far apart). A direction whose one-sided
+slopes stay apart as the step halves crosses a kink and says nothing.
 
 Where the discrepancy exceeds SIGNIFICANCE of its bound (a coordinate's margin: the bound is
 a coordinate's wide-step bound, checked on the quotients the same way) and also the most that
@@ -23,6 +26,7 @@ own numeric estimates' departure from it, and one at random; the first that fail
 
 from __future__ import annotations
 
+from collections.abc import Iterator
 from dataclasses import dataclass
 
 import numpy as np
@@ -63,21 +67,22 @@ def wanted(probe: TensorProbe, outcome: CoordinateOutcome) -> bool:
             and bool(np.any(outcome.status == INCONCLUSIVE)) and not np.any(outcome.status == FAIL))
 
 
-def _directions(probe: TensorProbe, outcome: CoordinateOutcome, seed: int) -> list[tuple[str, np.ndarray]]:
-    out = []
+def _directions(probe: TensorProbe, outcome: CoordinateOutcome, seed: int) -> Iterator[tuple[str, np.ndarray]]:
+    """The directions, one at a time (each an array of the tensor's size)."""
     a = probe.a
-    if np.any(a):
-        out.append(("along the analytic gradient", a / np.linalg.norm(a)))
+    norm_a = float(np.linalg.norm(a))
+    if norm_a > 0:
+        yield "along the analytic gradient", a / norm_a
     off = np.zeros(probe.size)
     finite = np.isfinite(outcome.numeric)
     off[outcome.flat[finite]] = outcome.numeric[finite] - a[outcome.flat[finite]]
-    norm = np.linalg.norm(off)
-    if norm > 0 and (not out or abs(float(off @ out[0][1])) < 0.99 * norm):
-        out.append(("along the coordinates' numeric estimates less the gradient", off / norm))
+    norm = float(np.linalg.norm(off))
+    if norm > 0 and (norm_a == 0 or abs(float(off @ a)) < 0.99 * norm * norm_a):
+        yield "along the coordinates' numeric estimates less the gradient", off / norm
+    del off
     if probe.size > 1:
         g = tensor_rng(seed, probe.tensor, "along").standard_normal(probe.size)
-        out.append(("along a random direction", g / np.linalg.norm(g)))
-    return out
+        yield "along a random direction", g / np.linalg.norm(g)
 
 
 @dataclass(frozen=True)
