@@ -20,6 +20,7 @@ SAFETY = 2.0  # the neighbours' spread is multiplied by this
 NOISE_UNITS = 2.0  # and the propagated rounding noise by this
 RATE_SLACK = 2.0  # a column's change per row may be up to twice or half what its model says
 PREDICTION_SLACK = 1.5  # a next quotient's distance may shrink 1.5 times less than the model says
+DRIFT_SLACK = 1.5  # changes growing by the step ratio, give or take this factor, drift like 1/h
 
 
 @dataclass(frozen=True)
@@ -65,23 +66,52 @@ def at_model_rate(change: np.ndarray, before: np.ndarray, expected: float, noise
     return noisy | ((rate >= -expected / RATE_SLACK) & (rate <= high))
 
 
-def column_rates(entries: np.ndarray, noise: np.ndarray, expected: float) -> np.ndarray:
+def column_rates(entries: np.ndarray, noise: np.ndarray, expected: float, ratio: float | None = None) -> np.ndarray:
     """Per row of one column of the tableau (rows, coordinates): its change at that row is at
-    the model's rate (:func:`at_model_rate`); False for the first two rows (no rate yet)."""
+    the model's rate (:func:`at_model_rate`); False for the first two rows (no rate yet).
+    With the steps' ``ratio``, also False where the column drifts like 1/h
+    (:func:`drifting`), within the rounding noise or not."""
     ok = np.zeros(entries.shape, dtype=bool)
     for k in range(2, entries.shape[0]):
         ok[k] = at_model_rate(entries[k] - entries[k - 1], entries[k - 1] - entries[k - 2], expected,
                               noise[k] + noise[k - 1] + noise[k - 2])
+    if ratio is not None:
+        ok &= ~drifting(entries, noise, ratio)
     return ok
 
 
-def column_steady(entries: np.ndarray, noise: np.ndarray, expected: float) -> np.ndarray:
+def drifting(entries: np.ndarray, noise: np.ndarray, ratio: float) -> np.ndarray:
+    """Per row (rows, coordinates): the last three changes down to this row keep one sign,
+    each is the step ratio times the one before (within DRIFT_SLACK), and the last is beyond
+    half the entry's rounding noise: the entries move like c/h as the step shrinks, with c
+    larger than the loss's rounding can make (two loss values rounded apart by a fixed
+    amount, each within the noise, move a quotient by at most half its noise from one row
+    to the next, a step half the size). That is what a kink closer to the point than
+    the steps gives (a quotient across it changes by jump * distance / h), never a smooth
+    loss's error model (its changes shrink); the rows there tell nothing of the derivative at
+    the point, even where the changes lie within the noise allowance of
+    :func:`at_model_rate` (rounding of one loss value against another, fixed as the step
+    shrinks, drifts the same way, but its c stays within that rounding)."""
+    out = np.zeros(entries.shape, dtype=bool)
+    change = np.diff(entries, axis=0)  # change[k - 1] is the change at row k
+    with np.errstate(invalid="ignore", divide="ignore"):
+        for k in range(3, entries.shape[0]):
+            c1, c2, c3 = change[k - 3], change[k - 2], change[k - 1]
+            same = ((c1 > 0) & (c2 > 0) & (c3 > 0)) | ((c1 < 0) & (c2 < 0) & (c3 < 0))
+            r2, r3 = c2 / c1, c3 / c2
+            grow = ((r2 >= ratio / DRIFT_SLACK) & (r2 <= ratio * DRIFT_SLACK)
+                    & (r3 >= ratio / DRIFT_SLACK) & (r3 <= ratio * DRIFT_SLACK))
+            out[k] = same & grow & (np.abs(c3) > 0.5 * noise[k])
+    return out
+
+
+def column_steady(entries: np.ndarray, noise: np.ndarray, expected: float, ratio: float | None = None) -> np.ndarray:
     """Per row of one column of the tableau (rows, coordinates): the column has changed at
     its model's rate (:func:`column_rates`) at this row and, where it has an earlier change
     to compare, at the row before too; one rate alone can fit by chance where the quotients
     scatter (rounding above its model, kinks among the steps). The second row has no rate:
     it is steady only where its change is within the noise."""
-    ok = column_rates(entries, noise, expected)
+    ok = column_rates(entries, noise, expected, ratio)
     steady = ok.copy()
     steady[3:] &= ok[2:-1]
     if entries.shape[0] > 1:
@@ -129,7 +159,8 @@ def _build(quotients: np.ndarray, noise: np.ndarray, ratio: float, order_step: i
     return entries, carried
 
 
-def _steadiness(entries: list[list[np.ndarray]], carried: list[list[np.ndarray]], base: float) -> list[np.ndarray]:
+def _steadiness(entries: list[list[np.ndarray]], carried: list[list[np.ndarray]], base: float,
+                ratio: float) -> list[np.ndarray]:
     """Per column j and row k: column j and every column below it are steady at row k
     (:func:`column_steady`): an extrapolation is only as sound as the columns it was built
     from (a first rate can fit by chance in a column built on scattered quotients)."""
@@ -140,7 +171,7 @@ def _steadiness(entries: list[list[np.ndarray]], carried: list[list[np.ndarray]]
         column = np.array([entries[k][j] for k in range(j, rows)])
         noise = np.array([carried[k][j] for k in range(j, rows)])
         steady = np.zeros((rows,) + column.shape[1:], dtype=bool)
-        steady[j:] = column_steady(column, noise, base ** -(j + 1))
+        steady[j:] = column_steady(column, noise, base ** -(j + 1), ratio)
         if below is not None:
             steady &= below
         out.append(steady)
@@ -162,8 +193,8 @@ def tableau(quotients: np.ndarray, noise: np.ndarray, ratio: float, order_step: 
     rows, n = quotients.shape
     base = ratio**order_step
     entries, carried = _build(quotients, noise, ratio, order_step)
-    steady = _steadiness(entries, carried, base)
-    at_rate = column_rates(quotients, noise, 1.0 / base)
+    steady = _steadiness(entries, carried, base, ratio)
+    at_rate = column_rates(quotients, noise, 1.0 / base, ratio)
     at_rate[:2] = True  # no rate to compare yet
     best = quotients[0].copy()
     error = np.full(n, np.inf)

@@ -35,13 +35,15 @@ class Ladder:
     pairs: Pairs | None = None  # every row's pairs, row-major
     sides_steady: np.ndarray | None = None  # the sides' gap shrinks with the step (see below)
     sides_vanish: np.ndarray | None = None  # ... and is seen to, above the noise
+    crossed: np.ndarray | None = None  # a side's quotients crossed a kink among the steps (see below)
 
     def pick(self, which: np.ndarray) -> Ladder:
         steady = None if self.sides_steady is None else self.sides_steady[which]
         vanish = None if self.sides_vanish is None else self.sides_vanish[which]
+        crossed = None if self.crossed is None else self.crossed[which]
         return Ladder(self.central.pick(which), self.left.pick(which), self.right.pick(which),
                       self.noise_share[which], self.smallest[which],
-                      sides_steady=steady, sides_vanish=vanish)
+                      sides_steady=steady, sides_vanish=vanish, crossed=crossed)
 
     def rows_of(self, which: np.ndarray) -> Pairs:
         """The pairs of every row for the coordinates at positions ``which``."""
@@ -91,6 +93,7 @@ def climb(
         pairs=p,
         sides_steady=steady,
         sides_vanish=vanish,
+        crossed=crossed_kinks(qr, nr) | crossed_kinks(ql, nl),
     )
 
 
@@ -122,6 +125,20 @@ def pairs_reusing(probe: TensorProbe, flat: np.ndarray, steps: np.ndarray, taken
         for mine, value in zip(fields, got.fields()):
             mine[new] = value
     return Pairs(*fields)
+
+
+def crossed_kinks(side: np.ndarray, noise: np.ndarray) -> np.ndarray:
+    """Per coordinate, from one side's quotients (rows, coordinates): some change between
+    rows is larger than the one before it, beyond the rounding noise. A smooth side's
+    quotients change less and less as the step shrinks (by h f''/2, then h**2 ...); a
+    change that grows is a kink between the point and the step, crossed (or, changing like
+    1/h, one closer than the steps)."""
+    change = np.abs(np.diff(side, axis=0))
+    out = np.zeros(side.shape[1:], dtype=bool)
+    for k in range(1, change.shape[0]):
+        room = 2.0 * NOISE_UNITS * (noise[k + 1] + noise[k] + noise[k - 1])
+        out |= change[k] > change[k - 1] + room
+    return out
 
 
 def sides_steady(right: np.ndarray, left: np.ndarray, noise: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

@@ -32,6 +32,11 @@ CURVATURE_SLACK = 0.01  # first-order quotients at the tiny step may differ by 1
 NOISE = "rounding noise in the loss is above the threshold at every step tried"
 UNSETTLED = "the numeric estimate does not settle as the step shrinks (the loss is not smooth on the scale of the steps tried)"
 NEAR_KINK = "a kink lies closer to the point than any step that rounding noise allows"
+CROWDED = (
+    "kinks crowd the point (the steps crossed several, and more may lie closer than any step "
+    "that rounding noise allows): its one-sided derivatives do not bound the values a correct "
+    "gradient may take here"
+)
 
 
 @dataclass(frozen=True)
@@ -213,6 +218,7 @@ def _judge_sides(
     f = flat[which]
     a = probe.a[f]
     left, right = ladder.left, ladder.right
+    crowded = ladder.crossed if ladder.crossed is not None else np.zeros(which.size, dtype=bool)
     jump = right.value - left.value
     kept = np.abs(tiny.gap - jump) <= JUMP_KEPT * np.abs(jump) + 4.0 * tiny.one_sided_noise
     # At the point: the analytic value must lie between the sides (a subgradient). Where
@@ -237,9 +243,12 @@ def _judge_sides(
     near_status = _verdicts(probe, a, near, probe.tolerance(f, near.value))
     for j, k in enumerate(which.tolist()):
         if kept[j]:
-            status[k] = KINK if inside[j] else FAIL
+            # A value outside the sides is a bug only where the steps crossed no other kink:
+            # where they did, more can lie closer than any step, each adding its own jump
+            # (of either sign) to the values a correct gradient may take at the point.
+            status[k] = KINK if inside[j] else INCONCLUSIVE if crowded[j] else FAIL
             value[k], error[k] = nearer[j], nearer_error[j]
-            reasons[k] = None
+            reasons[k] = CROWDED if status[k] == INCONCLUSIVE else None
         elif near_status[j] != PASS and inside[j]:
             # The jump moved at the tiny step, yet the value lies between the sides: more
             # kinks meet close to the point (ties in many rows) and no step tells them
@@ -280,5 +289,5 @@ def looked_at_again(status: np.ndarray, reasons: tuple[str | None, ...]) -> np.n
     """The coordinates a second look off the kinks checks (see offpoint.py): those at a kink,
     and those left undecided because the steps kept crossing kinks (an estimate that does
     not settle, a kink closer than any step), where a wrong gradient can hide just as well."""
-    crossing = np.array([r in (UNSETTLED, NEAR_KINK) for r in reasons], dtype=bool)
+    crossing = np.array([r in (UNSETTLED, NEAR_KINK, CROWDED) for r in reasons], dtype=bool)
     return (status == KINK) | ((status == INCONCLUSIVE) & crossing)
