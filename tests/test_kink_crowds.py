@@ -43,6 +43,27 @@ def test_a_value_outside_the_sides_of_crowded_kinks_is_not_a_bug():
     assert o["found"] and o["located"], o["status"]
 
 
+@pytest.mark.parametrize("seed", [2575, 2810, 2840])
+def test_a_failure_resting_on_sides_that_crossed_kinks_is_withheld(seed):
+    """Correct code whose coordinate once failed on the evidence of sides that themselves
+    crossed kinks among the steps: kinks-2575 (a kink kept at the tiny step, sides +-493.9
+    drifting like 1/h below the rounding, mpmath -806.4), kinks-2810 (the sides' mean, 1.40
+    +- 0.60 against mpmath's 3.25), kinks-2840 (the side taken as clean, -633.30 +- 0.02
+    against mpmath's -934.35, had crossed a kink at 1e-9 itself)."""
+    o = judge("kinks", seed)
+    assert o["correct"] and not o["unverified"] and o["crash"] is None
+    assert not o["false_alarm"], (o["status"], o["expect"])
+
+
+def test_quotients_receding_from_the_estimate_widen_its_bound():
+    """kinks-2634: a Huber residual whose second derivative jumps within the ladder's steps.
+    The central quotients agreed at the fourfold rate by a coincidence of orders (5.774936
+    +- 1.1e-5), then moved away from that value row after row, by less than the rounding
+    allowance, towards mpmath's 5.7749697: the bound now covers them (no failure)."""
+    o = judge("kinks", 2634)
+    assert o["correct"] and not o["false_alarm"], (o["status"], o["expect"])
+
+
 def test_a_one_over_h_drift_is_told_from_rounding_and_from_a_smooth_loss():
     """One-sided quotients of |x - d| at x = 0 with d = 1e-12 (a kink just beside the point):
     (f(h) - f(0)) / h = 1 - 2 d / h for h > d (common practice): they drift like 1/h. A

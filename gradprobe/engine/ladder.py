@@ -141,6 +141,31 @@ def _checked_by_next_row(
     return np.where(at_rate, error, np.inf)
 
 
+RECEDING_ROWS = 2  # quotients moving away from the estimate this many rows running
+
+
+def _receding(
+    quotient: np.ndarray, before: np.ndarray, earlier: np.ndarray | None, best: np.ndarray,
+    error: np.ndarray, receding: np.ndarray,
+) -> tuple[np.ndarray, np.ndarray]:
+    """``error`` widened where the quotients have moved away from the estimate ``best`` row
+    after row (RECEDING_ROWS times running, this row's included), each move in the same
+    direction as the one before and no larger (they converge, to another value), and now lie
+    beyond its bound. A sound estimate has the quotients close in on it as the step shrinks;
+    rounding moves them at random, by more the smaller the step. Quotients converging
+    steadily elsewhere, even by less than the rounding noise allows (which
+    :func:`_checked_by_next_row` leaves alone), show that the rows the estimate was taken
+    from were not yet where its model holds (a corner or kink between their steps and the
+    point). Returns the widened bound and the updated run counts."""
+    change = quotient - before
+    steady = np.zeros(change.shape, dtype=bool) if earlier is None else (
+        (change * (before - earlier) > 0) & (np.abs(change) <= np.abs(before - earlier)))
+    farther = (np.abs(quotient - best) > np.abs(before - best)) & steady
+    receding = np.where(farther, receding + 1, 0)
+    beyond = (receding >= RECEDING_ROWS) & (np.abs(quotient - best) > error)
+    return np.where(beyond, SAFETY * np.abs(quotient - best) + error, error), receding
+
+
 def _build(quotients: np.ndarray, noise: np.ndarray, ratio: float, order_step: int
            ) -> tuple[list[list[np.ndarray]], list[list[np.ndarray]]]:
     """The tableau's entries T[k][j] (j <= k) and the rounding noise each carries."""
@@ -198,10 +223,13 @@ def tableau(quotients: np.ndarray, noise: np.ndarray, ratio: float, order_step: 
     at_rate[:2] = True  # no rate to compare yet
     best = quotients[0].copy()
     error = np.full(n, np.inf)
+    receding = np.zeros(n, dtype=int)  # rows in a row whose quotient lay farther from best
     with np.errstate(invalid="ignore", over="ignore"):
         for k in range(1, rows):
             error = _checked_by_next_row(quotients[k], quotients[k - 1], noise[k] + noise[k - 1],
                                          best, error, 1.0 / base, at_rate[k])
+            error, receding = _receding(quotients[k], quotients[k - 1], quotients[k - 2] if k >= 2 else None,
+                                        best, error, receding)
             for j in range(k + 1):
                 value = entries[k][j]
                 if j == 0:
@@ -220,5 +248,6 @@ def tableau(quotients: np.ndarray, noise: np.ndarray, ratio: float, order_step: 
                 take = (bound < error) & allowed
                 best = np.where(take, value, best)
                 error = np.where(take, bound, error)
+                receding = np.where(take, 0, receding)
     error = np.where(np.isfinite(error), error, np.inf)
     return Estimate(best, error)

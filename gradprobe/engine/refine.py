@@ -14,7 +14,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .ladder import NOISE_UNITS, Estimate, column_rates, tableau
+from .ladder import NOISE_UNITS, Estimate, column_rates, drifting, tableau
 from .probe import Pairs, TensorProbe
 
 RATIO = 2.0
@@ -35,15 +35,23 @@ class Ladder:
     pairs: Pairs | None = None  # every row's pairs, row-major
     sides_steady: np.ndarray | None = None  # the sides' gap shrinks with the step (see below)
     sides_vanish: np.ndarray | None = None  # ... and is seen to, above the noise
-    crossed: np.ndarray | None = None  # a side's quotients crossed a kink among the steps (see below)
+    # Each side's quotients crossed a kink among the steps (:func:`crossed_kinks`).
+    left_crossed: np.ndarray | None = None
+    right_crossed: np.ndarray | None = None
+    # How far the sides' mean may lie from f' when the corner (a jump of f'') is not at the
+    # point but anywhere within the smallest step: |f''(right) - f''(left)| times that step,
+    # the jump read off the central quotients' last change (see :func:`corner_reach`).
+    corner_reach: np.ndarray | None = None
 
     def pick(self, which: np.ndarray) -> Ladder:
         steady = None if self.sides_steady is None else self.sides_steady[which]
         vanish = None if self.sides_vanish is None else self.sides_vanish[which]
-        crossed = None if self.crossed is None else self.crossed[which]
+        crossed = [None if c is None else c[which] for c in (self.left_crossed, self.right_crossed)]
         return Ladder(self.central.pick(which), self.left.pick(which), self.right.pick(which),
                       self.noise_share[which], self.smallest[which],
-                      sides_steady=steady, sides_vanish=vanish, crossed=crossed)
+                      sides_steady=steady, sides_vanish=vanish,
+                      left_crossed=crossed[0], right_crossed=crossed[1],
+                      corner_reach=None if self.corner_reach is None else self.corner_reach[which])
 
     def rows_of(self, which: np.ndarray) -> Pairs:
         """The pairs of every row for the coordinates at positions ``which``."""
@@ -93,7 +101,9 @@ def climb(
         pairs=p,
         sides_steady=steady,
         sides_vanish=vanish,
-        crossed=crossed_kinks(qr, nr) | crossed_kinks(ql, nl),
+        left_crossed=crossed_kinks(ql, nl),
+        right_crossed=crossed_kinks(qr, nr),
+        corner_reach=corner_reach(qc),
     )
 
 
@@ -127,14 +137,27 @@ def pairs_reusing(probe: TensorProbe, flat: np.ndarray, steps: np.ndarray, taken
     return Pairs(*fields)
 
 
+def corner_reach(central: np.ndarray) -> np.ndarray:
+    """Per coordinate, from the central quotients (rows, coordinates): a bound on how far the
+    sides' mean lies from f' where f'' jumps (from A on the left to B on the right) somewhere
+    within the smallest step h. One-sided quotients are f' + B h/2 and f' - A h/2 when the
+    jump is at the point, and their extrapolations meet at f'; a jump at a distance d < h on
+    one side shifts that side's extrapolation by (A - B) d, which its quotients do not show.
+    The central quotients change by (B - A) dh / 4 from row to row (their first-order term):
+    |B - A| h = 4 |change| h / dh (the change's rounding is in the sides' own bounds)."""
+    return 4.0 * np.abs(central[-1] - central[-2]) / (RATIO - 1.0)
+
+
 def crossed_kinks(side: np.ndarray, noise: np.ndarray) -> np.ndarray:
     """Per coordinate, from one side's quotients (rows, coordinates): some change between
-    rows is larger than the one before it, beyond the rounding noise. A smooth side's
+    rows is larger than the one before it, beyond the rounding noise, or the quotients drift
+    like 1/h at any size (:func:`.ladder.drifting` with no noise allowance). A smooth side's
     quotients change less and less as the step shrinks (by h f''/2, then h**2 ...); a
-    change that grows is a kink between the point and the step, crossed (or, changing like
-    1/h, one closer than the steps)."""
+    change that grows is a kink between the point and the step, crossed, and a drift like
+    1/h one closer than the steps (or, below the rounding, a fixed rounding offset: taken as
+    a kink all the same, since this only withholds a failure at a kink)."""
     change = np.abs(np.diff(side, axis=0))
-    out = np.zeros(side.shape[1:], dtype=bool)
+    out = drifting(side, np.zeros_like(side), RATIO).any(axis=0)
     for k in range(1, change.shape[0]):
         room = 2.0 * NOISE_UNITS * (noise[k + 1] + noise[k] + noise[k - 1])
         out |= change[k] > change[k - 1] + room

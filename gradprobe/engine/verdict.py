@@ -32,6 +32,10 @@ CURVATURE_SLACK = 0.01  # first-order quotients at the tiny step may differ by 1
 NOISE = "rounding noise in the loss is above the threshold at every step tried"
 UNSETTLED = "the numeric estimate does not settle as the step shrinks (the loss is not smooth on the scale of the steps tried)"
 NEAR_KINK = "a kink lies closer to the point than any step that rounding noise allows"
+CORNER_NEAR = (
+    "the second derivative jumps within the smallest step tried (a corner), and where exactly "
+    "decides the derivative beyond the threshold"
+)
 CROWDED = (
     "kinks crowd the point (the steps crossed several, and more may lie closer than any step "
     "that rounding noise allows): its one-sided derivatives do not bound the values a correct "
@@ -121,8 +125,19 @@ def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, tiny: Tin
     # Smooth, or a corner where only f'' jumps: the sides agree, and their mean is an
     # estimate of f' that the central tableau (which assumes even powers of h) may not reach.
     corner = Estimate(mid, np.maximum(left.error, right.error) + 0.5 * np.abs(right.value - left.value))
-    best = Estimate.better(_central_where_sides_agree(ladder), corner)
+    central = _central_where_sides_agree(ladder)
+    best = Estimate.better(central, corner)
     status = _verdicts(probe, a, best, probe.tolerance(flat, best.value))
+    # The sides' mean is f' where f'' jumps at the point; where it jumps anywhere within the
+    # smallest step it may be off by the jump times that step: a failure on the mean must
+    # stand that too (a pass on it, as before, takes the corner at the point).
+    by_corner = corner.error < central.error
+    if ladder.corner_reach is not None:
+        reach = Estimate(mid, corner.error + ladder.corner_reach)
+        withheld = by_corner & (status == FAIL) & (_verdicts(probe, a, reach, probe.tolerance(flat, mid)) != FAIL)
+        status[withheld] = INCONCLUSIVE
+    else:
+        withheld = np.zeros(flat.size, dtype=bool)
     # Sides too uncertain to be told apart, yet further apart than the central bound: at a
     # kink the central quotients are the sides' mean, whatever their tableau's bound says,
     # so a value the kink could explain is not a bug on this evidence (a second look off
@@ -143,9 +158,16 @@ def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, tiny: Tin
     margin = tol_a + SIGNIFICANCE * np.maximum(left.error, right.error)
     between = (a >= np.minimum(left.value, right.value) - margin) & (a <= np.maximum(left.value, right.value) + margin)
     status[unresolved & between] = KINK
+    # The sides' mean stands for f' where only f'' jumps at the point; where either side's
+    # quotients crossed kinks among the steps, more can lie closer than any step, and a
+    # failure judged by that mean is not evidence of a bug.
+    crossed_left, crossed_right = _crossed(ladder)
+    crowded = (status == FAIL) & by_corner & (crossed_left | crossed_right)
+    status[crowded] = INCONCLUSIVE
     noisy = ladder.noise_share > 0.5
     reasons: list[str | None] = [
-        (NOISE if noisy[k] else UNSETTLED) if status[k] == INCONCLUSIVE else None
+        (CROWDED if crowded[k] else CORNER_NEAR if withheld[k] else NOISE if noisy[k] else UNSETTLED)
+        if status[k] == INCONCLUSIVE else None
         for k in range(flat.size)
     ]
     value, error = best.value.copy(), best.error.copy()
@@ -168,8 +190,11 @@ def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, tiny: Tin
         # A value the kink itself could explain is not taken as a bug on this evidence.
         explained = _within_kink(a, left, right, probe.tolerance(flat, a))[lopsided]
         status[lopsided[(status[lopsided] == FAIL) & explained]] = KINK
+        own = np.where(settled_left, crossed_left, crossed_right)[lopsided]
+        withdrawn = lopsided[(status[lopsided] == FAIL) & own]  # the settled side crossed kinks too
+        status[withdrawn] = INCONCLUSIVE
         for k in lopsided.tolist():
-            reasons[k] = NEAR_KINK if status[k] == INCONCLUSIVE else None
+            reasons[k] = (CROWDED if k in withdrawn else NEAR_KINK) if status[k] == INCONCLUSIVE else None
     which = np.flatnonzero(differ)
     if which.size:
         assert tiny is not None and tiny.right.size == which.size
@@ -210,6 +235,13 @@ def _within_kink(a: np.ndarray, left: Estimate, right: Estimate, tol: np.ndarray
     return (a >= low) & (a <= high)
 
 
+def _crossed(ladder: Ladder) -> tuple[np.ndarray, np.ndarray]:
+    """Whether each side's quotients crossed a kink among the ladder's steps."""
+    none = np.zeros(ladder.smallest.shape, dtype=bool)
+    return (none if ladder.left_crossed is None else ladder.left_crossed,
+            none if ladder.right_crossed is None else ladder.right_crossed)
+
+
 def _judge_sides(
     probe: TensorProbe, flat: np.ndarray, ladder: Ladder, tiny: Tiny, which: np.ndarray,
     status: np.ndarray, value: np.ndarray, error: np.ndarray, reasons: list[str | None],
@@ -218,7 +250,7 @@ def _judge_sides(
     f = flat[which]
     a = probe.a[f]
     left, right = ladder.left, ladder.right
-    crowded = ladder.crossed if ladder.crossed is not None else np.zeros(which.size, dtype=bool)
+    crossed_left, crossed_right = _crossed(ladder)
     jump = right.value - left.value
     kept = np.abs(tiny.gap - jump) <= JUMP_KEPT * np.abs(jump) + 4.0 * tiny.one_sided_noise
     # At the point: the analytic value must lie between the sides (a subgradient). Where
@@ -239,6 +271,8 @@ def _judge_sides(
     clean_right = np.abs(tiny.right - right.value) <= SIGNIFICANCE * (right.error + slack)
     clean_left = np.abs(tiny.left - left.value) <= SIGNIFICANCE * (left.error + slack)
     near = _one_clean_side(clean_left, clean_right, left, right, tiny.central)
+    only_left, only_right = clean_left & ~clean_right, clean_right & ~clean_left
+    near_crossed = (only_left & crossed_left) | (only_right & crossed_right)
     near = Estimate(near.value, NEAR_SAFETY * near.error)
     near_status = _verdicts(probe, a, near, probe.tolerance(f, near.value))
     for j, k in enumerate(which.tolist()):
@@ -246,7 +280,8 @@ def _judge_sides(
             # A value outside the sides is a bug only where the steps crossed no other kink:
             # where they did, more can lie closer than any step, each adding its own jump
             # (of either sign) to the values a correct gradient may take at the point.
-            status[k] = KINK if inside[j] else INCONCLUSIVE if crowded[j] else FAIL
+            crowded = crossed_left[j] | crossed_right[j]
+            status[k] = KINK if inside[j] else INCONCLUSIVE if crowded else FAIL
             value[k], error[k] = nearer[j], nearer_error[j]
             reasons[k] = CROWDED if status[k] == INCONCLUSIVE else None
         elif near_status[j] != PASS and inside[j]:
@@ -256,6 +291,12 @@ def _judge_sides(
             status[k] = KINK
             value[k], error[k] = nearer[j], nearer_error[j]
             reasons[k] = None
+        elif near_status[j] == FAIL and near_crossed[j]:
+            # The side taken as clean crossed kinks of its own among the ladder's steps:
+            # they crowd the point, and the tiny step need not be below the nearest.
+            status[k] = INCONCLUSIVE
+            value[k], error[k] = near.value[j], near.error[j]
+            reasons[k] = CROWDED
         else:
             status[k] = near_status[j]
             value[k], error[k] = near.value[j], near.error[j]
