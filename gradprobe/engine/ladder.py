@@ -93,8 +93,8 @@ def drifting(entries: np.ndarray, noise: np.ndarray, ratio: float) -> np.ndarray
     :func:`at_model_rate` (rounding of one loss value against another, fixed as the step
     shrinks, drifts the same way, but its c stays within that rounding)."""
     out = np.zeros(entries.shape, dtype=bool)
-    change = np.diff(entries, axis=0)  # change[k - 1] is the change at row k
-    with np.errstate(invalid="ignore", divide="ignore"):
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        change = np.diff(entries, axis=0)  # change[k - 1] is the change at row k
         for k in range(3, entries.shape[0]):
             c1, c2, c3 = change[k - 3], change[k - 2], change[k - 1]
             same = ((c1 > 0) & (c2 > 0) & (c3 > 0)) | ((c1 < 0) & (c2 < 0) & (c3 < 0))
@@ -161,7 +161,7 @@ def _receding(
     steady = np.zeros(change.shape, dtype=bool) if earlier is None else (
         (change * (before - earlier) > 0) & (np.abs(change) <= np.abs(before - earlier)))
     farther = (np.abs(quotient - best) > np.abs(before - best)) & steady
-    receding = np.where(farther, receding + 1, 0)
+    receding = np.where(farther, receding + 1, 0)  # (called within the tableau's errstate)
     beyond = (receding >= RECEDING_ROWS) & (np.abs(quotient - best) > error)
     return np.where(beyond, SAFETY * np.abs(quotient - best) + error, error), receding
 

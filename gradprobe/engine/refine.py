@@ -145,7 +145,8 @@ def corner_reach(central: np.ndarray) -> np.ndarray:
     one side shifts that side's extrapolation by (A - B) d, which its quotients do not show.
     The central quotients change by (B - A) dh / 4 from row to row (their first-order term):
     |B - A| h = 4 |change| h / dh (the change's rounding is in the sides' own bounds)."""
-    return 4.0 * np.abs(central[-1] - central[-2]) / (RATIO - 1.0)
+    with np.errstate(over="ignore", invalid="ignore"):  # quotients near the type's range
+        return 4.0 * np.abs(central[-1] - central[-2]) / (RATIO - 1.0)
 
 
 def crossed_kinks(side: np.ndarray, noise: np.ndarray) -> np.ndarray:
@@ -156,11 +157,12 @@ def crossed_kinks(side: np.ndarray, noise: np.ndarray) -> np.ndarray:
     change that grows is a kink between the point and the step, crossed, and a drift like
     1/h one closer than the steps (or, below the rounding, a fixed rounding offset: taken as
     a kink all the same, since this only withholds a failure at a kink)."""
-    change = np.abs(np.diff(side, axis=0))
     out = drifting(side, np.zeros_like(side), RATIO).any(axis=0)
-    for k in range(1, change.shape[0]):
-        room = 2.0 * NOISE_UNITS * (noise[k + 1] + noise[k] + noise[k - 1])
-        out |= change[k] > change[k - 1] + room
+    with np.errstate(over="ignore", invalid="ignore"):  # quotients near the type's range
+        change = np.abs(np.diff(side, axis=0))
+        for k in range(1, change.shape[0]):
+            room = 2.0 * NOISE_UNITS * (noise[k + 1] + noise[k] + noise[k - 1])
+            out |= change[k] > change[k - 1] + room
     return out
 
 
