@@ -11,9 +11,14 @@ forward, so that overhead shows):
 Goal: the boundary adds at most 20 us per evaluation over the numpy path, i.e.
 (gradprobe torch - bare torch) - (gradprobe numpy - bare numpy) <= 20 us. Each pair is
 alternated and repeated; medians of wall and CPU time are printed, with the ratio against the
-bare torch loop. Then memory: the peak of Python-side allocations (tracemalloc; torch's
-tensors made by the boundary share numpy's memory) during a whole check of a target with a
-1 MB param, against the param's bytes. Goal: at most 3x.
+bare torch loop. Then memory: the peak of numpy's buffers and Python's objects (tracemalloc)
+during a whole check of a target with a 1 MB param, against the param's bytes, the same target
+as numpy arrays and as torch tensors: what the boundary adds is the difference. tracemalloc
+does not see torch's own allocator (the user's forward and backward allocate there; the
+tensors the boundary hands over share numpy's memory), and it counts the check's fixed costs
+(report, caches) and the user's forward temporaries, which dominate at 1 MB: the resident
+memory a check adds to a large target, for torch's allocator too, is
+``bench/memory_frameworks.py``'s.
 """
 
 from __future__ import annotations

@@ -17,6 +17,11 @@ run two other checks (a buggy sample and a 200k network with a wrong element), s
 what the check adds after other work in the same process. ``--sampled``: the check samples
 coordinates beside its directions (no ``--sample 0``); on the kinked network some sampled
 coordinates sit on kinks, so the second look runs.
+
+Peaks of two processes compare well only when the check's arrays, not an import, make the
+peak: a framework's import (torch's is ~700 MB) can peak above the arrays a check adds and
+hide them. ``bench/memory_frameworks.py`` measures framework targets, and numpy ones, within
+one process instead (peak minus the resident size before, the kernel's peak reset first).
 """
 
 from __future__ import annotations

@@ -105,3 +105,31 @@ def test_a_whole_tensor_moved_for_one_call_leaves_the_workspace_as_it_was():
     assert seen == [False]  # forward cannot write into what it is handed
     assert np.array_equal(ws.owners["w"], w) and np.array_equal(ws.owners["b"], np.ones(3))
     assert ev.count == 1
+
+
+def test_a_float32_check_that_looks_again_off_its_kinks_still_reports_its_float32_threshold():
+    # loss = sum(relu(z) + 0.1 z^2), z = x W: dloss/dW = x^T (1[z > 0] + 0.2 z) (chain rule;
+    # relu' = 1 above 0, common practice). Two columns of W are 0, so z is exactly 0 there in
+    # every row (kinks): the check looks again at moved points, after letting go of the
+    # float64 run's gradients, and must still say the float32 gradient's own threshold,
+    # 2 sqrt(u) for float32's unit roundoff u = 2**-24 (the roundoff model's default; the
+    # report gives it to two significant digits).
+    from gradprobe import probe
+
+    rng = np.random.default_rng(0)
+    w = rng.normal(size=(6, 5)).astype(np.float32)
+    w[:, :2] = 0.0
+    x = rng.normal(size=(4, 6)).astype(np.float32)
+
+    def forward(p, i):
+        z = i["x"] @ p["W"]
+        return float(np.sum(np.maximum(z, 0) + 0.1 * z**2))
+
+    def backward(p, i):
+        z = i["x"] @ p["W"]
+        return {"W": i["x"].T @ ((z > 0) + 0.2 * z)}
+
+    report = probe(forward, backward, {"W": w}, {"x": x})
+    assert report.ok and report.compute_dtype == "float32"
+    assert report.narrow_threshold is not None
+    assert abs(report.narrow_threshold - 2 * np.sqrt(2.0**-24)) < 0.01 * 2 * np.sqrt(2.0**-24)

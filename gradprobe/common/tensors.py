@@ -38,6 +38,21 @@ def flatten(tree: Mapping[str, Any], prefix: str = "", what: str = "the mapping"
     return flat
 
 
+class Handed(dict[str, Any]):
+    """A mapping gradprobe built from what the user's code returned (the array boundary's
+    conversions): nothing else holds it, so whoever reads it may let go of its arrays one at a
+    time as it reads them (memory: a large gradient's converted copy is not held beside it)."""
+
+
+def emptied(tree: Mapping[str, Any], built: bool = False) -> None:
+    """Clear ``tree`` and the dicts nested in it, if gradprobe built them (a :class:`Handed`
+    mapping and what it nests); anything else is left as it is."""
+    if isinstance(tree, dict) and (built or isinstance(tree, Handed)):
+        for value in tree.values():
+            emptied(value, built=True) if isinstance(value, dict) else None
+        tree.clear()
+
+
 def unflatten(flat: Mapping[str, Any], shape_of: Mapping[str, Any]) -> dict[str, Any]:
     """Rebuild the nesting of ``shape_of`` (a nested mapping) with leaves taken from ``flat``."""
     out: dict[str, Any] = {}

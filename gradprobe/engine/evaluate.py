@@ -169,6 +169,8 @@ class LossFunction:
             raise UserCodeError(f"forward raised {summarise(exc)}{where}") from exc
         except (SystemExit, ExitAttempt) as exc:
             raise exit_error(exc, "forward", self._where(p)) from exc
+        finally:
+            self._forget(params)
         try:
             value = output_to_loss(out, self.grad_output, "")
         except BadOutputError as exc:
@@ -203,7 +205,26 @@ class LossFunction:
 
     def raw(self, params: Any, inputs: Any) -> Any:
         """forward's own result on other arrays at the base point's values, unconverted."""
-        return self._watch.call(self.forward, params, inputs, moved=False)[0]
+        try:
+            return self._watch.call(self.forward, params, inputs, moved=False)[0]
+        finally:
+            self._forget(params)
+
+    def release(self) -> None:
+        """This workspace will not be evaluated again: a forward that keeps what it built
+        from its trees lets go of it (so the workspace's arrays can be freed)."""
+        forget = getattr(self.forward, "forget", None)
+        if forget is not None:
+            forget(self.workspace.params_tree)
+
+    def _forget(self, params: Any) -> None:
+        """A forward that keeps what it built from the trees it was last handed (the array
+        boundary's) lets go of one that is not this workspace's own: a moved copy or scratch
+        copies are not held past their call."""
+        if params is not self.workspace.params_tree:
+            forget = getattr(self.forward, "forget", None)
+            if forget is not None:
+                forget(params)
 
     def base_with_type(self) -> tuple[float, np.dtype]:
         """The loss at the base point and the floating type forward returned it in."""

@@ -9,12 +9,13 @@ from typing import Any
 import numpy as np
 
 from ..common.errors import BadOutputError
-from ..common.tensors import Workspace, flatten, is_float, is_numeric_dtype
+from ..common.tensors import Handed, Workspace, emptied, flatten, is_float, is_float_dtype, is_numeric_dtype
 
 
 @dataclass
 class Gradients:
-    """Usable gradients (float64, the tensor's shape), and a sentence per unusable one."""
+    """Usable gradients (float64, the tensor's shape; see :func:`validate` for narrow ones
+    kept in their own type), and a sentence per unusable one."""
 
     values: dict[str, np.ndarray] = field(default_factory=dict)
     problems: dict[str, str] = field(default_factory=dict)  # known tensor -> what is wrong
@@ -22,7 +23,8 @@ class Gradients:
     notes: list[str] = field(default_factory=list)
 
 
-def _problem(name: str, value: Any, tensor: np.ndarray) -> tuple[np.ndarray | None, str | None]:
+def _problem(name: str, value: Any, tensor: np.ndarray, own_type: bool = False,
+             ) -> tuple[np.ndarray | None, str | None]:
     try:
         grad = np.asarray(value)
     except Exception:
@@ -40,19 +42,32 @@ def _problem(name: str, value: Any, tensor: np.ndarray) -> tuple[np.ndarray | No
     if not finite.all():
         bad = int(grad.size - finite.sum())
         return None, f"the gradient for {name} has {bad} non-finite value{'s' if bad > 1 else ''}"
+    if own_type and is_narrow_float(grad.dtype):
+        return grad.copy(), None  # exact, and half of a float64 copy or less
     return grad.astype(np.float64), None
 
 
-def validate(result: Any, ws: Workspace) -> Gradients:
-    """Sort backward's result into usable gradients and problems."""
+def is_narrow_float(dtype: np.dtype) -> bool:
+    """A real floating type narrower than float64 (float32, float16, bfloat16)."""
+    return is_float_dtype(dtype) and np.dtype(dtype).itemsize < 8
+
+
+def validate(result: Any, ws: Workspace, own_type: bool = False) -> Gradients:
+    """Sort backward's result into usable gradients and problems. ``own_type``: narrow
+    floating gradients stay in the type backward returned them in (private copies), for
+    :func:`widened` to turn into float64 unless a float64 run replaces them."""
     if not isinstance(result, Mapping):
         raise BadOutputError(
             f"backward must return a mapping of name -> gradient, not a {type(result).__name__}",
             value=result,
         )
     flat = flatten(result)
+    names = set(flat)
+    handed = isinstance(result, Handed)
+    emptied(result)  # one the boundary built: its arrays are let go of as they are read
     out = Gradients()
-    for name, value in flat.items():
+    for name in list(flat):
+        value = flat.pop(name) if handed else flat[name]
         tensor = ws.owners.get(name)
         if tensor is None:
             shape = tuple(np.shape(value)) if np.ndim(value) else ()
@@ -64,12 +79,19 @@ def validate(result: Any, ws: Workspace) -> Gradients:
         if not is_float(tensor):
             out.notes.append(f"the gradient returned for {name} is ignored: its dtype is {tensor.dtype}")
             continue
-        grad, problem = _problem(name, value, tensor)
+        grad, problem = _problem(name, value, tensor, own_type)
         if problem or grad is None:
             out.problems[name] = problem or f"the gradient for {name} is not usable"
         else:
             out.values[name] = grad
     for name in ws.param_names:
-        if is_float(ws.owners[name]) and name not in flat:
+        if is_float(ws.owners[name]) and name not in names:
             out.problems[name] = f"backward returned no gradient for {name}"
     return out
+
+
+def widened(grads: Gradients) -> Gradients:
+    """``grads`` with every gradient float64, one tensor at a time (no copy of a float64 one)."""
+    for name, g in grads.values.items():
+        grads.values[name] = g.astype(np.float64, copy=False)
+    return grads

@@ -125,6 +125,7 @@ class SecondLook:
                 if merged is not None:
                     record.moved = merged
                     failed += [] if name in failed else [name]
+            moved.release()
             del moved  # one moved copy of the target at a time
         return failed
 

@@ -9,7 +9,7 @@ it was given; a second look off a kink (:mod:`.offpoint`) prepares a nearby one 
 from __future__ import annotations
 
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any
 
 import numpy as np
@@ -18,12 +18,12 @@ from ..common.errors import ProbeError
 from ..common.tensors import Workspace, is_float
 from .domain import quiet
 from .evaluate import Backend, Evaluator, LossFunction
-from .gradients import Gradients, validate
+from .gradients import Gradients, validate, widened
 from .narrow import propagated_rounding
 from .noise import measured_loss_scale, measured_rounding
 from .precision import narrower_compute_type
 from .preflight import ForwardInfo, call_backward, inspect_forward
-from .probe import TensorProbe
+from .probe import TensorProbe, Widened, root_mean_square
 from .promote import agreement, promote
 from ..common.roundoff import is_narrow, rounding_units
 from .sampling import tensor_rng
@@ -69,9 +69,10 @@ def _numerics(backward: Callable[..., Any], ws: Workspace, evaluator: Evaluator,
     call), else the code's own; with the loss the numeric side evaluates."""
     if is_narrow(dtype):
         promoted = promote(evaluator, backward, ws, grads, info.f0)
-        if promoted is not None:
+        if promoted is not None:  # the narrow gradients stay in their own type
             return Numerics(promoted.workspace, promoted.f0, np.dtype(np.float64), dtype,
                             promoted.analytic, promoted.narrow, why, info.terms), promoted.loss
+    widened(grads)
     return Numerics(ws, info.f0, dtype, dtype, {}, {}, why, info.terms), evaluator.loss
 
 
@@ -115,8 +116,9 @@ class Point:
         else:
             scale = measured_loss_scale(self.evaluator, n.workspace, self.gradients, n.f0, units, rng)
         self.loss_scale = max(n.terms, scale)
-        self.target_scale = max((float(np.sqrt(np.mean(g**2))) for g in self.grads.values.values()
-                                 if g.size), default=0.0)
+        self.target_scale = max((float(np.sqrt(np.mean(g**2))) if g.dtype == np.float64
+                                 else root_mean_square(g.reshape(-1))  # narrow, kept in its type
+                                 for g in self.grads.values.values() if g.size), default=0.0)
 
     def keep_gradients(self, names: set[str]) -> None:
         """Let go of the gradients of every tensor not in ``names`` (memory for a large
@@ -124,6 +126,18 @@ class Point:
         for d in (self.grads.values, self.numerics.analytic, self.numerics.narrow):
             for name in [n for n in d if n not in names]:
                 del d[name]
+
+    def release(self) -> None:
+        """Let go of the numeric side once every tensor is checked: the gradients, the
+        measured spreads, and a float64 run's workspace (memory: a second look's moved point
+        is prepared next). The point then evaluates its own workspace, sharing the count."""
+        self.keep_gradients(set())
+        self._jitter = self._narrow_jitter = None
+        loss = self.evaluator.loss
+        loss.release()
+        if self.numerics.workspace is not self.ws:
+            self.numerics = replace(self.numerics, workspace=self.ws)
+            self.evaluator = self.evaluator.sibling(LossFunction(loss.forward, self.ws, loss.grad_output))
 
     def jitter(self, name: str) -> np.ndarray | None:
         """How much backward's rounding varies, per flat coordinate of ``name``, between points
@@ -203,7 +217,7 @@ class Point:
             units = rounding_units(n.code_dtype) * float(np.finfo(n.code_dtype).eps)
             self._narrow_loss = (f0, max(n.terms, seen / units))
         f0, scale = self._narrow_loss
-        return TensorProbe(own, name, self.ws.owners[name].reshape(-1), n.narrow[name], f0,
+        return TensorProbe(own, name, self.ws.owners[name].reshape(-1), Widened(n.narrow[name]), f0,
                            n.code_dtype, agreement(n.code_dtype), loss_scale=scale,
                            jitter=lambda: self.narrow_spread(name))
 
@@ -226,7 +240,9 @@ def prepare(
     # The look for a hidden float32 type moves whole tensors: done before backward's
     # gradients exist, so that its moved copies and the gradients are not held at once.
     dtype, why = _code_type(ws, evaluator, info)
-    grads = validate(call_backward(backward, ws, info.grad_output, scratch), ws)
+    # Narrow gradients stay in their type until the float64 run is known (it replaces them
+    # as the analytic side; they are widened where there is none).
+    grads = validate(call_backward(backward, ws, info.grad_output, scratch), ws, own_type=True)
     numerics, loss = _numerics(backward, ws, evaluator, info, grads, dtype, why)
     where = backend(numerics.workspace, info.grad_output) if backend is not None else None
     point = Point(ws, evaluator.sibling(loss, where), info, grads, numerics, backward, seed)

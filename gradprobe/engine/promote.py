@@ -57,8 +57,10 @@ def promote(
     names = _narrow_names(ws)
     if not names:
         return None
-    params, inputs = ws.trees_with({n: ws.owners[n].astype(np.float64) for n in names})
-    wide = Workspace(params, inputs)
+    # The float64 copies are the new workspace's own (no second copy of them); its other
+    # floating tensors are copies too, as a workspace's are (they are perturbed there).
+    wide = ws.replacing({n: ws.owners[n].astype(np.float64) if n in names else ws.owners[n].copy()
+                         for n in ws.names() if is_float(ws.owners[n])})
     grad_output = evaluator.loss.grad_output
     loss = LossFunction(evaluator.loss.forward, wide, grad_output)
     try:
@@ -70,7 +72,8 @@ def promote(
             return None  # it casts to a narrower type inside: the float64 run is not float64
         if abs(f64 - f0) > AGREEMENT * max(abs(f0), abs(f64)):
             return None
-        raw = call_backward(backward, wide, grad_output)
+        # backward was seen not to write into its arrays (the narrow call): no scratch copies.
+        raw = call_backward(backward, wide, grad_output, scratch=False)
         if not _all_float64(raw):
             return None  # backward rounds to the narrow type itself: no float64 run to compare with
         grads64 = validate(raw, wide)

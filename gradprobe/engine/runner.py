@@ -194,7 +194,7 @@ def _second_look(target: Target, settings: CheckOptions, point: Point,
         return None
     assert target.backward is not None  # framed in _run
     look = SecondLook(target.forward, target.backward, point, settings)
-    point.keep_gradients(set())  # the check's own gradients are no longer needed: memory
+    point.release()  # the check's own gradients and float64 run are no longer needed: memory
     release_heap()  # ... and their pages go back before the moved points' copies are made
     failed = look.settle(kinked)
     if not failed:
@@ -207,8 +207,10 @@ def _second_look(target: Target, settings: CheckOptions, point: Point,
 def _check_all(
     target: Target, options: CheckOptions, point: Point, started: float, clock: Callable[[], float],
 ) -> Report:
-    ws, numerics, grads = point.ws, point.numerics, point.grads
-    settings, threshold_notes = _settings(options, numerics)
+    ws, grads = point.ws, point.grads
+    settings, threshold_notes = _settings(options, point.numerics)
+    # What the report says of the numerics, read now: the second look lets go of them.
+    code_dtype, promoted = point.numerics.code_dtype, bool(point.numerics.analytic)
     notes = list(grads.notes) + threshold_notes
     records = _records(point, settings)
     total = sum(ws.owners[r.name].size for r in records if r.name in grads.values)
@@ -240,11 +242,11 @@ def _check_all(
         evaluations=point.evaluator.count,
         seconds=clock() - started,
         method=settings.method,
-        compute_dtype=str(np.dtype(numerics.code_dtype)),
+        compute_dtype=str(np.dtype(code_dtype)),
         errors=tuple(errors),
         notes=tuple(notes),
         inconclusive_fails=settings.inconclusive_fails,
-        narrow_threshold=agreement(point.numerics.code_dtype) if point.numerics.analytic else None,
+        narrow_threshold=agreement(code_dtype) if promoted else None,
         second_order=second,
     )
 

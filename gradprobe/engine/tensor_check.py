@@ -44,6 +44,7 @@ def check_tensor(probe: TensorProbe, options: CheckOptions, total: int, record: 
     ev = probe.evaluator
     start = ev.count
     n_coords, n_dirs = plan(options, probe.size, total)
+    assert isinstance(probe.a, np.ndarray)  # the numeric side's own gradient (never Widened)
     flat = stratified(record.shape, n_coords, tensor_rng(options.seed, probe.tensor, "sample"), probe.a)
     again = options.also_check.get(probe.tensor)
     if again is not None and tuple(again[0]) == tuple(record.shape):  # an earlier run's coordinates

@@ -17,7 +17,7 @@ import numpy as np
 
 from .boundary import Boundary
 from ..common.errors import GraphLeftError, InPlaceWriteError, ProbeError, UserCodeError, summarise
-from ..common.tensors import flatten, is_float_dtype, unflatten
+from ..common.tensors import Handed, flatten, is_float_dtype, unflatten
 
 LEFT = "forward leaves {lib}'s graph{why}, so no gradient flows back to its params"
 
@@ -159,8 +159,8 @@ class ReverseMode:
                 raise self._explained(exc) from exc
             b.check_writes({n: t for n, t in made.items() if n not in wrt}, "forward")
             flat = {n: b.result(g) for n, g in grads.items()}
-        return {**unflatten({n: v for n, v in flat.items() if n in flatten(params)}, params),
-                **unflatten({n: v for n, v in flat.items() if n in flatten(inputs)}, inputs)}
+        return Handed({**unflatten({n: v for n, v in flat.items() if n in flatten(params)}, params),
+                       **unflatten({n: v for n, v in flat.items() if n in flatten(inputs)}, inputs)})
 
     def _gradients(self, p: Any, i: Any, wrt: dict[str, Any], seed: Any) -> dict[str, Any]:
         if self.library == "torch":

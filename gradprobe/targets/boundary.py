@@ -21,7 +21,7 @@ from typing import Any, Iterator
 import numpy as np
 
 from ..common.errors import InPlaceWriteError, ProbeError, TargetLoadError, summarise
-from ..common.tensors import flatten, unflatten
+from ..common.tensors import Handed, flatten, unflatten
 
 NUMPY = "numpy"
 LIBRARIES = {"torch": "torch", "jax": "jax", "jaxlib": "jax", "cupy": "cupy",
@@ -209,7 +209,7 @@ class Boundary:
     def result(self, value: Any, record: bool = False) -> Any:
         """A result of the user's code with foreign arrays as numpy (nested mappings too)."""
         if isinstance(value, Mapping):
-            return {k: self.result(v) for k, v in value.items()}
+            return Handed((k, self.result(v)) for k, v in value.items())
         library = library_of(value)
         if library == NUMPY:
             return value

@@ -159,6 +159,12 @@ class Framed:
                 return self._call(fn, params, inputs, rest)
         return self._call(fn, params, inputs, rest)
 
+    def forget(self, params: Any) -> None:
+        """Let go of the user's trees built for ``params`` (a tree the caller will not hand
+        over again, such as a whole tensor moved for one call): they share its memory."""
+        if self._last is not None and self._last[0] is params:
+            self._last = None
+
     def _call(self, fn: Callable[..., Any], params: Any, inputs: Any, rest: tuple[Any, ...]) -> Any:
         b = self.boundary
         last = self._last
