@@ -12,9 +12,11 @@ the check adds over running the target once; goal <= 3. Imports and the caller's
 the "before", never in the figure, and the heap freed earlier is not there to hide arrays.
 
 ``--allocators``: the same cases, each in another fresh process, with the peak of numpy's
-buffers (tracemalloc, which sees numpy's data) and of torch's CPU allocator (the profiler's
-memory events, "Total Allocated") during the check, each over what was live before it. The
-two peaks need not fall at the same moment: their sum bounds the check's own arrays.
+buffers and Python's objects (tracemalloc, which sees numpy's data) during one check, and of
+torch's CPU allocator (the profiler's memory events, "Total Allocated") during another, each
+over what was live before it (the user's forward temporaries are in both; numpy's count also
+the check's own objects). The two peaks need not fall at the same moment: their sum bounds
+what the check holds.
 
 Cases (``MEMORY_PARAMS`` parameters, default 4M): the float32 torch network of
 bench/torch_targets.py with a hand-written backward and checked through autograd (a
@@ -91,17 +93,13 @@ else:
     import tracemalloc
     tracemalloc.start()
     start = tracemalloc.get_traced_memory()[0]
-    profiler = None
-    if "torch" in sys.modules:
-        import torch
-        from torch.profiler import ProfilerActivity, profile
-        profiler = profile(activities=[ProfilerActivity.CPU], profile_memory=True)
-        profiler.__enter__()
     report = run_check(target, options)
     out["numpy"] = tracemalloc.get_traced_memory()[1] - start
     tracemalloc.stop()
-    if profiler is not None:
-        profiler.__exit__(None, None, None)
+    if "torch" in sys.modules:  # another check: the profiler's own objects are not numpy's
+        from torch.profiler import ProfilerActivity, profile
+        with profile(activities=[ProfilerActivity.CPU], profile_memory=True) as profiler:
+            run_check(target, options)
         path = sys.argv[4]
         profiler.export_chrome_trace(path)
         events = [e["args"] for e in json.load(open(path))["traceEvents"] if e.get("name") == "[memory]"]
