@@ -70,6 +70,7 @@ def wanted(probe: TensorProbe, outcome: CoordinateOutcome) -> bool:
 def _directions(probe: TensorProbe, outcome: CoordinateOutcome, seed: int) -> Iterator[tuple[str, np.ndarray]]:
     """The directions, one at a time (each an array of the tensor's size)."""
     a = probe.a
+    assert isinstance(a, np.ndarray)  # a tensor judged on its own arithmetic: its own gradient
     norm_a = float(np.linalg.norm(a))
     if norm_a > 0:
         yield "along the analytic gradient", a / norm_a
@@ -147,6 +148,7 @@ def _measure(probe: TensorProbe, d: np.ndarray) -> _Seen | None:
     if not (np.all(np.isfinite(f_plus)) and np.all(np.isfinite(f_minus))):
         return None
     base = as_seen(x, probe.compute_dtype)
+    assert isinstance(probe.a, np.ndarray)  # as in _directions
     weight = np.maximum(np.abs(probe.a), probe.floor)
     asymmetry, allowed = np.zeros(STEPS), np.zeros(STEPS)
     for k, t in enumerate(steps):
