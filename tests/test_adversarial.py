@@ -114,6 +114,14 @@ def test_richardson_verdicts_agree_with_mpmath(category, seed):
     assert not o["expect_fail"] or o["found"], (o["status"], o["expect"])
 
 
+def test_a_loss_near_the_float_range_leaks_no_warning_of_gradprobe_s_own():
+    """steep-28 under --method richardson: central quotients of losses near float64's range
+    overflow to inf (judged as such); the overflow warning once reached the user's console."""
+    o = judge("steep", 28, method="richardson")
+    assert o["own_warnings"] == [], o["own_warnings"]
+    assert not o["false_alarm"], (o["status"], o["expect"])
+
+
 NO_RECHECK = [("scales", 1)] + [("steep", s) for s in range(4)] + [("kinks", s) for s in range(2)]
 
 

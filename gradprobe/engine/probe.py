@@ -107,11 +107,13 @@ class Pairs:
 
     @property
     def central(self) -> np.ndarray:
-        return (self.f_plus - self.f_minus) / (self.h_plus + self.h_minus)
+        with np.errstate(over="ignore", invalid="ignore"):  # losses near the type's range: inf, judged as such
+            return (self.f_plus - self.f_minus) / (self.h_plus + self.h_minus)
 
     def sides(self, f0: float) -> tuple[np.ndarray, np.ndarray]:
         """The right and left one-sided quotients about the base loss ``f0``."""
-        return (self.f_plus - f0) / self.h_plus, (f0 - self.f_minus) / self.h_minus
+        with np.errstate(over="ignore", invalid="ignore"):  # as in central
+            return (self.f_plus - f0) / self.h_plus, (f0 - self.f_minus) / self.h_minus
 
     def fields(self) -> tuple[np.ndarray, ...]:
         return (self.f_plus, self.f_minus, self.h_plus, self.h_minus, self.noise)

@@ -157,7 +157,7 @@ def crossed_kinks(side: np.ndarray, noise: np.ndarray) -> np.ndarray:
     change that grows is a kink between the point and the step, crossed, and a drift like
     1/h one closer than the steps (or, below the rounding, a fixed rounding offset: taken as
     a kink all the same, since this only withholds a failure at a kink)."""
-    out = drifting(side, np.zeros_like(side), RATIO).any(axis=0)
+    out: np.ndarray = np.asarray(drifting(side, np.zeros_like(side), RATIO).any(axis=0))
     with np.errstate(over="ignore", invalid="ignore"):  # quotients near the type's range
         change = np.abs(np.diff(side, axis=0))
         for k in range(1, change.shape[0]):
