@@ -42,14 +42,19 @@ X = RNG.normal(size=(4, 3))
 W = RNG.normal(size=(3, 2))
 
 
-def mp_loss(w: list) -> object:
-    """sum_ij softplus((X W)_ij)^2, with mpmath."""
-    total = mpmath.mpf(0)
-    for i in range(4):
-        for j in range(2):
-            z = sum(mpmath.mpf(X[i, k]) * w[k * 2 + j] for k in range(3))
-            total += mpmath.log(1 + mpmath.exp(z)) ** 2
-    return total
+def mp_loss_at(x: np.ndarray):
+    """w -> sum_ij softplus((x W)_ij)^2, with mpmath (W flat, row-major)."""
+    def loss(w: list) -> object:
+        total = mpmath.mpf(0)
+        for i in range(4):
+            for j in range(2):
+                z = sum(mpmath.mpf(x[i, k]) * w[k * 2 + j] for k in range(3))
+                total += mpmath.log(1 + mpmath.exp(z)) ** 2
+        return total
+    return loss
+
+
+mp_loss = mp_loss_at(X)
 
 
 REFERENCE = mp_gradient(mp_loss, W)
@@ -122,15 +127,7 @@ def test_the_bfloat16_rule_is_right_and_wrong_by_mpmath():
     xb = np.asarray(inputs["x"].astype(jnp.bfloat16), dtype=np.float64)
     wb = np.asarray(params["w"].astype(jnp.bfloat16), dtype=np.float64)
 
-    def loss(w):  # sum_ij softplus((X W)_ij)^2 at the bfloat16 values
-        total = mpmath.mpf(0)
-        for i in range(4):
-            for j in range(2):
-                z = sum(mpmath.mpf(xb[i, k]) * w[k * 2 + j] for k in range(3))
-                total += mpmath.log(1 + mpmath.exp(z)) ** 2
-        return total
-
-    reference = mp_gradient(loss, wb)
+    reference = mp_gradient(mp_loss_at(xb), wb)  # the same loss at the bfloat16 values
     for factor, (low, high) in ((1.0, (0.0, 0.05)), (2.0, (0.9, 1.1))):
         grad = jax.grad(lambda w, f=factor: _inside_loss(_bf16_dense_rule(f))({"w": w}, inputs))(params["w"])
         assert low <= rel_gap(np.asarray(grad, dtype=np.float64), reference) <= high
