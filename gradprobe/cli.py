@@ -32,6 +32,7 @@ if TYPE_CHECKING:
     from rich.console import Console
 
     from .report.baseline_file import Baseline
+    from .report.model import Report
 
 EXIT_OK, EXIT_FAIL, EXIT_INTERNAL, EXIT_INTERRUPTED = 0, 1, 3, 130  # 2: ProbeError.exit_code
 
@@ -136,7 +137,6 @@ def check_one(spec: str, options: CheckOptions, out: Output, baseline: Baseline 
     With ``--json -`` whatever the user's code prints goes to standard error, so standard
     output holds the report alone. Ctrl-C propagates to stop the whole run.
     """
-    from .report.baseline_file import run_against
     from .targets.loading import load_any
     from .engine.stack_run import run_any
 
@@ -146,9 +146,15 @@ def check_one(spec: str, options: CheckOptions, out: Output, baseline: Baseline 
     try:
         try:
             with user_output:
-                report = run_against(baseline, spec, options,
-                                     lambda o: run_any(load_any(spec), o, progress=progress), alone,
-                                     others)
+                def run(o: CheckOptions) -> Report:
+                    return run_any(load_any(spec), o, progress=progress)
+
+                if baseline is None:  # the baseline's modules load only with --baseline
+                    report = run(options)
+                else:
+                    from .report.baseline_file import run_against
+
+                    report = run_against(baseline, spec, options, run, alone, others)
         finally:
             if progress is not None:
                 progress.close()
@@ -275,9 +281,11 @@ def check_command(ctx: click.Context, targets: tuple[str, ...], show_maps: bool,
             writable(files.junit, "JUnit report")
         if files.html is not None:
             writable(files.html, "HTML report")
-        from .report.baseline_file import baseline_of
+        baseline = None
+        if options.baseline is not None:  # read and checked before any work
+            from .report.baseline_file import baseline_of
 
-        baseline = baseline_of(options)  # read and checked before any work
+            baseline = baseline_of(options)
     except ProbeError as exc:
         _say_error(exc.sentence(), exc, show_traceback)
         return exc.exit_code

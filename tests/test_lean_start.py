@@ -50,6 +50,10 @@ NOT_ON_THE_PLAIN_PATH = (
     "concurrent.futures",
     "numpy.ma",
     "traceback",  # --traceback on an error only
+    "gradprobe.hints",  # hints explain failures: none fails here
+    "gradprobe.engine.offpoint",  # the second look: coordinates at a kink only
+    "gradprobe.engine.directional",  # random directions: sampled tensors only
+    "gradprobe.report.baseline_file",  # --baseline only
 )
 
 
@@ -83,6 +87,36 @@ def test_the_terminal_report_still_loads_rich(tmp_path):
     code, modules, _ = _run(tmp_path, "check", "gains.py")
     assert code == 0
     assert _loaded(modules, "rich") and "gradprobe.render.terminal" in modules
+
+
+# The same gains with backward's cosine doubled: every coordinate fails by a factor of 2.
+DOUBLED = TARGET.replace("i[\"reading\"] * np.cos", "2.0 * i[\"reading\"] * np.cos")
+
+# Sensor deadbands: loss = sum(|w|), d/dw |w| = sign(w) away from 0 (standard derivative
+# table); at w = 0 the loss has a kink, and backward returns 0 there (a value between the sides).
+KINKED = """
+import numpy as np
+params = {"deadband": np.array([0.0, -1.2, 0.8, 0.0])}
+inputs = {}
+def forward(p, i):
+    return float(np.sum(np.abs(p["deadband"])))
+def backward(p, i):
+    return {"deadband": np.sign(p["deadband"])}
+"""
+
+
+def test_a_failure_loads_the_hints_and_a_kink_the_second_look(tmp_path):
+    # The counterparts of what a passing check leaves out: each loads where it is needed.
+    assert DOUBLED != TARGET
+    (tmp_path / "gains.py").write_text(textwrap.dedent(DOUBLED))
+    code, modules, stdout = _run(tmp_path, "check", "gains.py", "--json", "-")
+    tensor = json.loads(stdout)["layers"][0]["tensors"][0]
+    assert code == 1 and tensor["status"] == "fail" and "gradprobe.hints" in modules
+    assert "factor" in (tensor["hint"] or "")  # analytic = 2 x numeric everywhere
+    (tmp_path / "deadbands.py").write_text(textwrap.dedent(KINKED))
+    code, modules, stdout = _run(tmp_path, "check", "deadbands.py", "--json", "-")
+    assert code == 0 and json.loads(stdout)["summary"]["kinks"] >= 1
+    assert "gradprobe.engine.offpoint" in modules and not _loaded(modules, "gradprobe.hints")
 
 
 def test_version_loads_neither_numpy_nor_rich(tmp_path):

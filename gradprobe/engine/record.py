@@ -9,15 +9,18 @@ end, by :meth:`TensorRecord.result`.
 from __future__ import annotations
 
 from dataclasses import dataclass
+from typing import TYPE_CHECKING
 
 import numpy as np
 
-from ..hints import Evidence
 from ..report.model import DirectionResult, TensorResult
 from ..common.status import FAIL, Status
 from .coordinates import CoordinateOutcome
 from .summary import tensor_result
 from .verdict import looked_at_again
+
+if TYPE_CHECKING:
+    from ..hints import Evidence
 
 UNCONFIRMED = (
     "a random-direction check disagrees beyond the threshold, but localisation confirmed "
@@ -64,6 +67,8 @@ class TensorRecord:
         o = self.final
         if o is None:
             return None
+        from ..hints import Evidence  # local: the hint rules load where a hint is drawn
+
         return Evidence(self.name, tuple(self.shape), o.flat, o.analytic, o.numeric, o.status == FAIL)
 
     def result(self) -> TensorResult:

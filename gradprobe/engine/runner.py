@@ -13,15 +13,12 @@ import numpy as np
 from ..common.errors import ProbeError, TargetLoadError, UsageProblem
 from ..common.guard import guarded
 from ..common.heap import keep_heap, release_heap
-from ..hints import Context as HintContext
-from ..hints import diagnose
 from ..settings.options import CheckOptions, default_threshold
 from ..report.model import LayerResult, Report, TensorResult
-from ..common.status import Status
+from ..common.status import FAIL, Status
 from ..targets.target import Target
 from ..common.tensors import INPUT_LAYER, Workspace, is_float, layer_of
 from .evaluate import Backend, Evaluator, LossFunction, Progress
-from .offpoint import MOVE, SecondLook
 from .point import Numerics, Point, prepare
 from .record import TensorRecord
 from .tensor_check import check_tensor
@@ -29,6 +26,7 @@ from .promote import agreement
 from ..common.roundoff import is_narrow, unit_roundoff
 
 if TYPE_CHECKING:
+    from ..hints import Context as HintContext
     from concurrent.futures import Executor
 
     from ..report.second import SecondOrderResult
@@ -75,6 +73,8 @@ def hint_context(ws: Workspace) -> HintContext:
     indices = {n: ws.owners[n] for n in ws.input_names
                if np.issubdtype(ws.owners[n].dtype, np.integer)}
     floats = {n: ws.owners[n] for n in ws.input_names if is_float(ws.owners[n])}
+    from ..hints import Context as HintContext  # local: the hint rules load where one is drawn
+
     return HintContext(batch_sizes=batches, index_inputs=indices, inputs=floats,
                        param_names=tuple(n for n in ws.param_names if is_float(ws.owners[n])))
 
@@ -193,6 +193,8 @@ def _second_look(target: Target, settings: CheckOptions, point: Point,
     if not kinked:
         return None
     assert target.backward is not None  # framed in _run
+    from .offpoint import MOVE, SecondLook  # local: only where a coordinate sits at a kink
+
     look = SecondLook(target.forward, target.backward, point, settings)
     point.release()  # the check's own gradients and float64 run are no longer needed: memory
     release_heap()  # ... and their pages go back before the moved points' copies are made
@@ -202,6 +204,17 @@ def _second_look(target: Target, settings: CheckOptions, point: Point,
     return (f"{', '.join(failed)}: coordinates on a kink here fail at points moved off the kinks "
             f"(every checked tensor moved by about {MOVE:.0e} of its scale); their numbers "
             f"are those points'")
+
+
+def _hints(records: list[TensorRecord], ws: Workspace) -> dict[str, str]:
+    """A hint per failing tensor where the evidence supports one. Every hint explains a
+    failure, so where no checked coordinate fails none is drawn (nor are the rules loaded)."""
+    if not any(r.final is not None and bool(np.any(r.final.status == FAIL)) for r in records):
+        return {}
+    from ..hints import diagnose
+
+    evidence = [e for e in (r.evidence() for r in records) if e is not None]
+    return diagnose(evidence, hint_context(ws))
 
 
 def _check_all(
@@ -227,8 +240,7 @@ def _check_all(
     moved_note = _second_look(target, settings, point, records)
     if moved_note:
         notes.append(moved_note)
-    evidence = [e for e in (r.evidence() for r in records) if e is not None]
-    hints = diagnose(evidence, hint_context(ws))
+    hints = _hints(records, ws)
     for record in records:
         if record.problem is None:
             record.hint = hints.get(record.name)

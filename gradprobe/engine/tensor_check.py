@@ -8,7 +8,6 @@ import numpy as np
 from ..settings.options import CheckOptions
 from .along import along, wanted
 from .coordinates import check_coordinates
-from .directional import directional
 from .probe import TensorProbe
 from .record import TensorRecord
 from .sampling import stratified, tensor_rng
@@ -50,6 +49,8 @@ def check_tensor(probe: TensorProbe, options: CheckOptions, total: int, record: 
     if again is not None and tuple(again[0]) == tuple(record.shape):  # an earlier run's coordinates
         flat = np.union1d(flat, np.asarray(again[1], dtype=np.int64))
     if n_dirs:
+        from .directional import directional  # local: tensors swept whole need none
+
         seen = directional(probe, n_dirs, options.seed, stop_early=options.directions is None,
                           sampled=n_coords > 0)
         record.directions = seen.results
