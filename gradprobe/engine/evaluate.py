@@ -139,6 +139,20 @@ def _whole_view(p: Perturbation, owner: np.ndarray) -> np.ndarray:
     return view
 
 
+class _One:
+    """One coordinate of ``tensor`` moved to ``values[i]`` (a :class:`Perturbation` is made
+    only where a message names it)."""
+
+    __slots__ = ("tensor", "flat", "values", "i")
+
+    def __init__(self, tensor: str, flat: np.ndarray, values: np.ndarray) -> None:
+        self.tensor, self.flat, self.values, self.i = tensor, flat, values, 0
+
+    def describe(self, shape: tuple[int, ...]) -> str:
+        i = self.i
+        return Perturbation(self.tensor, self.flat[i:i + 1], self.values[i:i + 1]).describe(shape)
+
+
 class LossFunction:
     """forward as a scalar function of the workspace's current values; what it warns at
     moved points is caught, and marks them outside its domain (see domain.py)."""
@@ -154,7 +168,7 @@ class LossFunction:
         self._watch = Watch(show=not moved_copy)  # a moved copy's base shows no warnings
         self._unsure: tuple[set[Key], float | complex] | None = None  # warned, base not known
 
-    def _call(self, params: Any, inputs: Any, p: Perturbation | None, moved: bool = False) -> float | complex:
+    def _call(self, params: Any, inputs: Any, p: Perturbation | _One | None, moved: bool = False) -> float | complex:
         moved = moved or p is not None
         try:
             out, warned = self._watch.call(self.forward, params, inputs, moved)
@@ -183,7 +197,7 @@ class LossFunction:
         if warned and self._watch.base is None:
             self._unsure = (warned, value)  # decided once the base point's warnings are known
             return math.nan
-        if self._watch.outside(warned):
+        if warned and self._watch.outside(warned):
             if p is None:
                 raise BadOutputError(OUTSIDE)
             return math.nan
@@ -194,7 +208,7 @@ class LossFunction:
         worker's): one more forward call, at the workspace's own values."""
         self._call(self.workspace.params_tree, self.workspace.inputs_tree, None)
 
-    def _where(self, p: Perturbation | None) -> str:
+    def _where(self, p: Perturbation | _One | None) -> str:
         if p is None:
             return ""
         return f" when {p.describe(self.workspace.owners[p.tensor].shape)} was perturbed"
@@ -279,6 +293,37 @@ class LossFunction:
             return self._call(self.workspace.params_tree, self.workspace.inputs_tree, p)
         finally:
             target[p.index] = saved
+
+    def single_moves(self, tensor: str, flat: np.ndarray, points: tuple[np.ndarray, ...],
+                     tick: Callable[[], None]) -> np.ndarray:
+        """Serially, for each coordinate ``flat[i]`` and each array of ``points`` in turn, the
+        loss with ``tensor.flat[flat[i]]`` set to that array's ``[i]`` (real values of a real
+        tensor): ``(len(flat), len(points))`` values, as :meth:`at` gives them one
+        Perturbation at a time (the same calls, warnings, messages and restored values),
+        without making one per call. ``tick`` is called after each call."""
+        owner = self.workspace.owners[tensor]
+        params, inputs = self.workspace.params_tree, self.workspace.inputs_tree
+        out = np.empty((flat.size, len(points)))
+        one = _One(tensor, flat, points[0])
+        for i, k in enumerate(flat.tolist()):
+            old = owner.flat[k]
+            one.i = i
+            try:
+                for j, values in enumerate(points):
+                    owner.flat[k] = values[i]
+                    one.values = values
+                    value = self._call(params, inputs, one)
+                    if self._unsure is not None:
+                        owner.flat[k] = old  # the base point's own warnings, learnt there
+                        warned, value = self._unsure
+                        self._unsure = None
+                        self._learn_base_warnings()
+                        value = math.nan if self._watch.outside(warned) else value
+                    out[i, j] = value
+                    tick()
+            finally:
+                owner.flat[k] = old
+        return out
 
     def _at_complex(self, p: Perturbation) -> complex:
         work = self._complex.get(p.tensor)
@@ -377,6 +422,27 @@ class Evaluator:
         finally:
             for p, old in zip(parts, saved):
                 ws.owners[p.tensor].flat[p.index] = old
+
+    def single_moves(self, tensor: str, flat: np.ndarray, points: tuple[np.ndarray, ...]) -> np.ndarray:
+        """For each coordinate ``flat[i]`` of ``tensor`` and each array of ``points``, the loss
+        with that coordinate moved to the array's ``[i]``: ``(len(flat), len(points))``
+        values. Serially (real values) without a Perturbation per call; else as
+        :meth:`losses`."""
+        n = flat.size * len(points)
+        if n == 0:
+            return np.empty((flat.size, len(points)))
+        real = all(np.isrealobj(v) for v in points) and self.loss.workspace.owners[tensor].dtype.kind != "c"
+        if (self.backend is not None and n > 1) or not real:
+            requests = [Perturbation(tensor, flat[i:i + 1], v[i:i + 1]) for i in range(flat.size) for v in points]
+            return self.losses(requests).real.reshape(flat.size, len(points))
+        if self.progress:
+            self.progress.planned(n)
+        return self.loss.single_moves(tensor, flat, points, self._tick)
+
+    def _tick(self) -> None:
+        self._tally[0] += 1
+        if self.progress:
+            self.progress.done(1)
 
     def losses(self, perturbations: Sequence[Perturbation]) -> np.ndarray:
         """Loss values, one per perturbation, in order."""

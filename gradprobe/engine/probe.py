@@ -26,6 +26,7 @@ TARGET_FLOOR_FRACTION = 1e-4  # ... nor below 1e-4 of the target's largest tenso
 
 
 ALONG_CHUNK = 1 << 16  # elements moved at a time along a direction
+KEPT = 1 << 15  # pairs a probe keeps for reuse (a coordinate asked again at the same step)
 SHRINKS = 40  # a step that meets a non-finite loss shrinks 16-fold down to x's resolution
 
 
@@ -160,6 +161,10 @@ class TensorProbe:
         # How much backward's rounding varies near the point (measured on first use, see
         # point.Point.jitter).
         self.jitter = jitter
+        # Pairs already evaluated, by (flat index, step asked for): the same pair asked
+        # again (a ladder's top row at a step a probe of the steps already took, the first
+        # pair as a probe's lowest level) is not evaluated again. At most KEPT of them.
+        self._kept: dict[tuple[int, float], tuple[float, float, float, float, float]] = {}
 
     @property
     def size(self) -> int:
@@ -212,11 +217,36 @@ class TensorProbe:
     # -- evaluations ------------------------------------------------------------------
 
     def pairs(self, flat: np.ndarray, h: np.ndarray) -> Pairs:
-        """The loss at x + h and x - h for each coordinate ``flat[i]``: one batch of 2n calls.
+        """The loss at x + h and x - h for each coordinate ``flat[i]``: one batch of at most
+        2n calls (a pair this probe evaluated before at the same step is reused).
 
         Where forward returns a non-finite value at a perturbed point (float32 overflow, a
         domain edge), the step of that coordinate shrinks 16-fold until it reaches a few units
         of x's resolution (a domain edge can sit any number of ulps away)."""
+        flat = np.asarray(flat)
+        h = np.broadcast_to(np.asarray(h, dtype=np.float64), flat.shape)
+        keys = list(zip(flat.tolist(), h.tolist())) if flat.size <= KEPT else None
+        known = [self._kept.get(k) for k in keys] if keys is not None and self._kept else None
+        if known is None or not any(v is not None for v in known):
+            p = self._new_pairs(flat, h)
+            self._keep(keys, p)
+            return p
+        todo = np.array([i for i, v in enumerate(known) if v is None], dtype=np.int64)
+        fields = np.array([v if v is not None else (np.nan,) * 5 for v in known]).T.copy()
+        if todo.size:
+            fresh = self._new_pairs(flat[todo], h[todo])
+            self._keep([keys[i] for i in todo.tolist()], fresh)
+            for mine, new in zip(fields, fresh.fields()):
+                mine[todo] = new
+        return Pairs(*fields)
+
+    def _keep(self, keys: list[tuple[int, float]] | None, p: Pairs) -> None:
+        if keys is None or len(self._kept) + len(keys) > KEPT:
+            return
+        self._kept.update(zip(keys, zip(*(f.tolist() for f in p.fields()))))
+
+    def _new_pairs(self, flat: np.ndarray, h: np.ndarray) -> Pairs:
+        """:meth:`pairs`, every one evaluated."""
         h = np.array(h, dtype=np.float64)
         fields = list(_fields(self._pairs(flat, h)))
         smallest = 4 * self.resolution(flat)
@@ -248,13 +278,8 @@ class TensorProbe:
 
     def _pairs(self, flat: np.ndarray, h: np.ndarray) -> Pairs:
         plus, minus, h_plus, h_minus = self.moved(flat, h)
-        requests: list[Perturbation] = []
-        for i in range(flat.size):
-            index = flat[i : i + 1]
-            requests.append(Perturbation(self.tensor, index, plus[i : i + 1]))
-            requests.append(Perturbation(self.tensor, index, minus[i : i + 1]))
-        values = self.evaluator.losses(requests)
-        f_plus, f_minus = values[0::2].real, values[1::2].real
+        values = self.evaluator.single_moves(self.tensor, flat, (plus, minus))
+        f_plus, f_minus = values[:, 0].copy(), values[:, 1].copy()
         noise = self.loss_noise(np.nan_to_num(f_plus), np.nan_to_num(f_minus))
         return Pairs(f_plus, f_minus, h_plus, h_minus, noise)
 
@@ -263,9 +288,7 @@ class TensorProbe:
         really moved; non-finite values stay in (the caller decides)."""
         plus, minus, h_plus, h_minus = self.moved(flat, h)
         points, moved = (plus, h_plus) if sign > 0 else (minus, h_minus)
-        requests = [Perturbation(self.tensor, flat[i : i + 1], points[i : i + 1])
-                    for i in range(flat.size)]
-        return self.evaluator.losses(requests).real, moved
+        return self.evaluator.single_moves(self.tensor, flat, (points,))[:, 0].copy(), moved
 
     def complex_losses(self, flat: np.ndarray, h: np.ndarray) -> np.ndarray:
         """The loss at x + i h for each coordinate (complex values; one call each)."""
