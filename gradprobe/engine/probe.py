@@ -26,7 +26,7 @@ TARGET_FLOOR_FRACTION = 1e-4  # ... nor below 1e-4 of the target's largest tenso
 
 
 ALONG_CHUNK = 1 << 16  # elements moved at a time along a direction
-KEPT = 1 << 15  # pairs a probe keeps for reuse (a coordinate asked again at the same step)
+KEPT = 1 << 14  # pairs a probe keeps for reuse (56 bytes each: a coordinate asked again at a step)
 SHRINKS = 40  # a step that meets a non-finite loss shrinks 16-fold down to x's resolution
 
 
@@ -163,8 +163,10 @@ class TensorProbe:
         self.jitter = jitter
         # Pairs already evaluated, by (flat index, step asked for): the same pair asked
         # again (a ladder's top row at a step a probe of the steps already took, the first
-        # pair as a probe's lowest level) is not evaluated again. At most KEPT of them.
-        self._kept: dict[tuple[int, float], tuple[float, float, float, float, float]] = {}
+        # pair as a probe's lowest level) is not evaluated again. At most KEPT of them, keyed
+        # by index + 1j * step (exact), sorted; their fields one row each.
+        self._kept_keys = np.empty(0, dtype=np.complex128)
+        self._kept_fields = np.empty((5, 0))
 
     @property
     def size(self) -> int:
@@ -225,25 +227,35 @@ class TensorProbe:
         of x's resolution (a domain edge can sit any number of ulps away)."""
         flat = np.asarray(flat)
         h = np.broadcast_to(np.asarray(h, dtype=np.float64), flat.shape)
-        keys = list(zip(flat.tolist(), h.tolist())) if flat.size <= KEPT else None
-        known = [self._kept.get(k) for k in keys] if keys is not None and self._kept else None
-        if known is None or not any(v is not None for v in known):
+        keys = flat.astype(np.float64) + 1j * h
+        where = self._kept_at(keys)
+        todo = np.flatnonzero(where < 0)
+        if todo.size == flat.size:
             p = self._new_pairs(flat, h)
             self._keep(keys, p)
             return p
-        todo = np.array([i for i, v in enumerate(known) if v is None], dtype=np.int64)
-        fields = np.array([v if v is not None else (np.nan,) * 5 for v in known]).T.copy()
+        fields = self._kept_fields[:, where]  # rows of those not kept are written below
         if todo.size:
             fresh = self._new_pairs(flat[todo], h[todo])
-            self._keep([keys[i] for i in todo.tolist()], fresh)
-            for mine, new in zip(fields, fresh.fields()):
-                mine[todo] = new
+            self._keep(keys[todo], fresh)
+            fields[:, todo] = np.array(fresh.fields())
         return Pairs(*fields)
 
-    def _keep(self, keys: list[tuple[int, float]] | None, p: Pairs) -> None:
-        if keys is None or len(self._kept) + len(keys) > KEPT:
+    def _kept_at(self, keys: np.ndarray) -> np.ndarray:
+        """Per key, its position among the kept pairs (-1 where not kept)."""
+        kept = self._kept_keys
+        if kept.size == 0 or keys.size == 0:
+            return np.full(keys.size, -1, dtype=np.int64)
+        at = np.minimum(np.searchsorted(kept, keys), kept.size - 1)
+        return np.where(kept[at] == keys, at, -1)
+
+    def _keep(self, keys: np.ndarray, p: Pairs) -> None:
+        if self._kept_keys.size + keys.size > KEPT:
             return
-        self._kept.update(zip(keys, zip(*(f.tolist() for f in p.fields()))))
+        both = np.concatenate([self._kept_keys, keys])
+        order = np.argsort(both, kind="stable")
+        self._kept_keys = both[order]
+        self._kept_fields = np.concatenate([self._kept_fields, np.array(p.fields())], axis=1)[:, order]
 
     def _new_pairs(self, flat: np.ndarray, h: np.ndarray) -> Pairs:
         """:meth:`pairs`, every one evaluated."""
