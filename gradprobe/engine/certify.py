@@ -32,7 +32,7 @@ SAFETY = 10.0  # the measured truncation scale is taken this many times larger
 GROWTH = 16.0  # the quotient's change from 4h to 16h against the change from h to 4h, ideally
 GROWTH_SLACK = 4.0  # ... within this factor either way
 WIDEST = 16.0  # a wider pair's step is at most this many first steps (the range measured)
-CAN_PASS_SLACK = 1e-6  # a wider pair is spent unless its least bound misses by more than this
+CAN_PASS_SLACK = 1e-9  # a wider pair is spent unless its least bound misses by more than this
 
 
 @dataclass(frozen=True)
@@ -92,10 +92,11 @@ def certify(
         wide = np.clip(best, h[noisy], WIDEST * h[noisy])
         x = np.abs(probe.x[flat[noisy]].astype(np.float64))
         wide = np.minimum(wide, np.maximum(np.maximum(x, probe.x_scale), h[noisy]))
-        # Not spent where the pair cannot pass: its bound, before any rounding noise above
-        # the loss's own scale, already exceeds the threshold (with room for the step's
-        # rounding to the distance really moved).
-        least = scale * wide**2 + probe.loss_noise(np.zeros(noisy.size)) / wide
+        # Not spent where the pair cannot pass: its bound at the distances it would really
+        # move, with no rounding above the loss's own scale, already exceeds the threshold.
+        _, _, h_plus, h_minus = probe.moved(flat[noisy], wide)
+        least = scale * (0.5 * (h_plus + h_minus)) ** 2 \
+            + 2.0 * probe.loss_noise(np.zeros(noisy.size)) / (h_plus + h_minus)
         can = 2.0 * least * (1.0 - CAN_PASS_SLACK) <= tol[noisy]
         noisy, wide = noisy[can], wide[can]
     if noisy.size:
