@@ -26,7 +26,6 @@ TARGET_FLOOR_FRACTION = 1e-4  # ... nor below 1e-4 of the target's largest tenso
 
 
 ALONG_CHUNK = 1 << 16  # elements moved at a time along a direction
-KEPT = 1 << 14  # pairs a probe keeps for reuse (56 bytes each: a coordinate asked again at a step)
 SHRINKS = 40  # a step that meets a non-finite loss shrinks 16-fold down to x's resolution
 
 
@@ -161,12 +160,6 @@ class TensorProbe:
         # How much backward's rounding varies near the point (measured on first use, see
         # point.Point.jitter).
         self.jitter = jitter
-        # Pairs already evaluated, by (flat index, step asked for): the same pair asked
-        # again (a ladder's top row at a step a probe of the steps already took, the first
-        # pair as a probe's lowest level) is not evaluated again. At most KEPT of them, keyed
-        # by index + 1j * step (exact), sorted; their fields one row each.
-        self._kept_keys = np.empty(0, dtype=np.complex128)
-        self._kept_fields = np.empty((5, 0))
 
     @property
     def size(self) -> int:
@@ -219,46 +212,11 @@ class TensorProbe:
     # -- evaluations ------------------------------------------------------------------
 
     def pairs(self, flat: np.ndarray, h: np.ndarray) -> Pairs:
-        """The loss at x + h and x - h for each coordinate ``flat[i]``: one batch of at most
-        2n calls (a pair this probe evaluated before at the same step is reused).
+        """The loss at x + h and x - h for each coordinate ``flat[i]``: one batch of 2n calls.
 
         Where forward returns a non-finite value at a perturbed point (float32 overflow, a
         domain edge), the step of that coordinate shrinks 16-fold until it reaches a few units
         of x's resolution (a domain edge can sit any number of ulps away)."""
-        flat = np.asarray(flat)
-        h = np.broadcast_to(np.asarray(h, dtype=np.float64), flat.shape)
-        keys = flat.astype(np.float64) + 1j * h
-        where = self._kept_at(keys)
-        todo = np.flatnonzero(where < 0)
-        if todo.size == flat.size:
-            p = self._new_pairs(flat, h)
-            self._keep(keys, p)
-            return p
-        fields = self._kept_fields[:, where]  # rows of those not kept are written below
-        if todo.size:
-            fresh = self._new_pairs(flat[todo], h[todo])
-            self._keep(keys[todo], fresh)
-            fields[:, todo] = np.array(fresh.fields())
-        return Pairs(*fields)
-
-    def _kept_at(self, keys: np.ndarray) -> np.ndarray:
-        """Per key, its position among the kept pairs (-1 where not kept)."""
-        kept = self._kept_keys
-        if kept.size == 0 or keys.size == 0:
-            return np.full(keys.size, -1, dtype=np.int64)
-        at = np.minimum(np.searchsorted(kept, keys), kept.size - 1)
-        return np.where(kept[at] == keys, at, -1)
-
-    def _keep(self, keys: np.ndarray, p: Pairs) -> None:
-        if self._kept_keys.size + keys.size > KEPT:
-            return
-        both = np.concatenate([self._kept_keys, keys])
-        order = np.argsort(both, kind="stable")
-        self._kept_keys = both[order]
-        self._kept_fields = np.concatenate([self._kept_fields, np.array(p.fields())], axis=1)[:, order]
-
-    def _new_pairs(self, flat: np.ndarray, h: np.ndarray) -> Pairs:
-        """:meth:`pairs`, every one evaluated."""
         h = np.array(h, dtype=np.float64)
         fields = list(_fields(self._pairs(flat, h)))
         smallest = 4 * self.resolution(flat)
