@@ -21,6 +21,7 @@ from .ladder import Estimate
 from .probe import Pairs, TensorProbe
 from .reconcile import narrow_reconciled, unabsorbed, unfuzzed
 from .refine import RATIO, ROWS, Ladder, Taken, climb, ladder_taken, one_sided, tiny_pair
+from .staircase import flat_through_sixteen_bits
 from .steps import SETTLE_FRACTION, gap_suspects, largest_smooth_step, start_steps, steps_down
 from .narrow import wide_estimate
 from .richardson import first_steps, joined, rows_of, settled, two_rows_settle
@@ -188,7 +189,8 @@ def _central(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
     start = start_steps(probe, flat[todo], _pick(first, todo), h[todo], taken)
     judged = judged.merged(todo, _ladder_verdicts(probe, flat[todo], start,
                                                   taken=taken))
-    return unabsorbed(probe, flat, _widened(probe, flat, judged, taken), first)
+    judged = unabsorbed(probe, flat, _widened(probe, flat, judged, taken), first)
+    return flat_through_sixteen_bits(probe, flat, judged)
 
 
 def _widened(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken: list[Taken]) -> Judged:

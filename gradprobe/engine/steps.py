@@ -61,7 +61,7 @@ def start_steps(probe: TensorProbe, flat: np.ndarray, first: Pairs, h: np.ndarra
     if climbing.size:
         start[climbing] = largest_smooth_step(probe, flat[climbing], h[climbing], up[climbing],
                                               [(flat, h, first)] if taken is None else taken)
-    start[torn] = h[torn] * TORN_RISE
+    start[torn] = h[torn] * _rise_within_scale(probe, flat[torn], h[torn])
     return start
 
 
@@ -77,6 +77,17 @@ def _torn(probe: TensorProbe, up: np.ndarray, down: np.ndarray) -> np.ndarray:
     if not is_narrow(probe.compute_dtype):
         return np.zeros(up.shape, dtype=bool)
     return (up > 0) & (down > 0)
+
+
+def _rise_within_scale(probe: TensorProbe, flat: np.ndarray, h: np.ndarray) -> np.ndarray:
+    """TORN_RISE, or the largest power of two at most that which keeps the ladder's top step
+    within the params' own scale (1 where the first step already reaches it): past it the
+    loss along a coordinate is another function (an oscillation seen over several periods
+    averages its slope away), and quotients that agree there prove nothing."""
+    scale = np.maximum(np.abs(probe.x[flat].astype(np.float64)), probe.x_scale)
+    with np.errstate(divide="ignore"):
+        room = np.floor(np.log2(np.maximum(scale / h, 1.0)))
+    return 2.0 ** np.clip(room, 0.0, np.log2(TORN_RISE))
 
 
 def largest_smooth_step(probe: TensorProbe, flat: np.ndarray, h: np.ndarray, up: np.ndarray,

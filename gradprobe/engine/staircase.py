@@ -1,0 +1,91 @@
+"""A failure read off a flat loss where a 16-bit cast inside, not found, would explain it.
+
+The look for a narrower type inside (:mod:`.precision`) finds 16-bit arithmetic only where
+the loss moves clearly at moves of 2**-4; code whose loss barely moves there is judged in its
+arrays' type, float32 or float64. A coordinate whose loss did not change at all at the
+steps tried (an estimate of exactly 0) is then failed as if the code resolved those steps;
+yet code that casts to bfloat16 inside ignores every move below bfloat16's spacing at the
+param (8 significant bits) and every change of the loss below bfloat16's resolution of it.
+
+Such a failure stands only where one pair of calls at a step that bfloat16 arithmetic, the
+coarsest there is, must resolve shows the loss unchanged on both sides: a step of at least
+SPACINGS of bfloat16's spacings at the param, at which the analytic gradient predicts a change
+of at least UNITS of bfloat16's units of the loss (of max(|f|, the loss scale measured)).
+A smooth loss with that slope changes there on one side at least (the two one-sided changes
+are a h + c h**2 and -a h + c h**2; both within half a unit needs |a h| within one), so
+a loss unchanged on both sides contradicts the gradient whatever the arithmetic inside.
+Where the loss changes at that step on both sides alike (the smaller change a tenth of the
+larger at least, as slope and curvature give; a change on one side only is a flat side
+beside a kink, or a slope the loss does not have), or the step lies beyond the params' own scale, the
+coordinate is undecided (the reasons below), never failed on arithmetic it may not have.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..common.status import FAIL, INCONCLUSIVE
+from .ladder import Estimate
+from .probe import TensorProbe
+from .verdict import Judged
+
+BFLOAT16_BITS = 8  # significant bits of bfloat16, the coarsest 16-bit type
+SPACINGS = 4.0  # the step spans this many of bfloat16's spacings at the param
+UNITS = 4.0  # and the predicted change this many of bfloat16's units of the loss
+BOTH_SIDES = 0.1  # the loss changes on both sides alike: the smaller change this share of the larger
+
+COARSER = (
+    "the loss does not change at all at the steps tried, and a step at which arithmetic as "
+    "coarse as bfloat16 inside would show this gradient reaches beyond the params' own scale: "
+    "a gradient this small is not told from 0 here"
+)
+CHANGES = (
+    "the loss does not change at all at the steps a decision needs, though it does at a step "
+    "that arithmetic as coarse as bfloat16 inside resolves: rounding inside absorbs the smaller "
+    "ones (a cast to a 16-bit type the look for one did not find?)"
+)
+
+
+def _wider_than_sixteen(probe: TensorProbe) -> bool:
+    return probe.narrow is None and probe.eps < 2.0 ** -(BFLOAT16_BITS + 2)
+
+
+def bfloat16_step(probe: TensorProbe, flat: np.ndarray) -> np.ndarray:
+    """The step at which bfloat16 arithmetic must show the analytic gradient (see above)."""
+    x = np.abs(probe.x[flat].astype(np.float64))
+    with np.errstate(divide="ignore"):
+        spacing = np.where(x > 0, 2.0 ** (np.floor(np.log2(np.where(x > 0, x, 1.0))) - (BFLOAT16_BITS - 1)), 0.0)
+        unit = 2.0 ** -(BFLOAT16_BITS - 1) * probe.loss_scale
+        needed = UNITS * unit / np.abs(probe.a[flat])
+    return np.maximum(SPACINGS * spacing, needed)
+
+
+def flat_through_sixteen_bits(probe: TensorProbe, flat: np.ndarray, judged: Judged) -> Judged:
+    """``judged`` with its failures read off a loss that did not change at all kept only where
+    a pair at :func:`bfloat16_step` does not change the loss on both sides alike (a flat side
+    beside a kink changes on one side only)."""
+    if not _wider_than_sixteen(probe):
+        return judged
+    zero = np.flatnonzero((judged.status == FAIL) & (judged.estimate.value == 0.0))
+    if zero.size == 0:
+        return judged
+    h = bfloat16_step(probe, flat[zero])
+    scale = np.maximum(np.abs(probe.x[flat[zero]].astype(np.float64)), probe.x_scale)
+    beyond = ~(h <= scale)
+    reasons = {}
+    inside = np.flatnonzero(~beyond)
+    if inside.size:
+        p = probe.pairs(flat[zero[inside]], h[inside])
+        up, down = np.abs(p.f_plus - probe.f0), np.abs(p.f_minus - probe.f0)
+        moved = (np.minimum(up, down) >= BOTH_SIDES * np.maximum(up, down)) & (np.maximum(up, down) > 0)
+        for k in inside[moved].tolist():
+            reasons[k] = CHANGES
+    for k in np.flatnonzero(beyond).tolist():
+        reasons[k] = COARSER
+    if not reasons:
+        return judged
+    which = np.array(sorted(reasons))
+    undecided = Judged(np.full(which.size, INCONCLUSIVE, dtype=judged.status.dtype),
+                       Estimate(judged.estimate.value[zero[which]], np.full(which.size, np.inf)),
+                       tuple(reasons[k] for k in which.tolist()), np.ones(which.size, dtype=bool))
+    return judged.merged(zero[which], undecided)
