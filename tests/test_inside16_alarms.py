@@ -78,3 +78,10 @@ def test_a_slope_claimed_where_the_loss_is_flat_still_fails():
     discount = [t for t in faint.tensors if t.name == "discount"][0]
     assert discount.status.value == "inconclusive"
     assert "bfloat16" in discount.inconclusive_reason
+
+
+def test_a_huge_bound_on_a_tiny_scale_leaks_no_warning():
+    """Case 8 (bfloat16 inside float32 arrays): a coordinate's error bound over a scale near
+    the smallest float overflowed while the tensor was summed; the summary takes it as inf."""
+    o = _judged(8)
+    assert o["own_warnings"] == [], o["own_warnings"]

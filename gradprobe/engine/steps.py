@@ -80,10 +80,15 @@ def _torn(probe: TensorProbe, up: np.ndarray, down: np.ndarray) -> np.ndarray:
 
 
 def _rise_within_scale(probe: TensorProbe, flat: np.ndarray, h: np.ndarray) -> np.ndarray:
-    """TORN_RISE, or the largest power of two at most that which keeps the ladder's top step
-    within the params' own scale (1 where the first step already reaches it): past it the
-    loss along a coordinate is another function (an oscillation seen over several periods
-    averages its slope away), and quotients that agree there prove nothing."""
+    """TORN_RISE, or for 16-bit arithmetic the largest power of two at most that which keeps
+    the ladder's top step within the params' own scale (1 where the first step already
+    reaches it): past it the loss along a coordinate is another function (an oscillation
+    seen over several periods averages its slope away), and quotients that agree there
+    prove nothing. (16-bit steps start near a sixth of max(1, |x|), so a rise of 16 puts
+    params of scale 0.1 tens of times beyond it; float32's start 64 times lower, and are
+    left as they were.)"""
+    if probe.compute_dtype.itemsize > 2:
+        return np.full(h.shape, TORN_RISE)
     scale = np.maximum(np.abs(probe.x[flat].astype(np.float64)), probe.x_scale)
     with np.errstate(divide="ignore"):
         room = np.floor(np.log2(np.maximum(scale / h, 1.0)))

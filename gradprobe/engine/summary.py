@@ -90,7 +90,7 @@ def tensor_result(
     estimates = outcome.error_estimate[np.isfinite(outcome.error_estimate)]
     failed = int(failing.sum())
     error_map = SparseErrors(shape, outcome.flat.copy(), outcome.rel.copy())
-    with np.errstate(divide="ignore", invalid="ignore"):
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         noise = outcome.error_estimate / outcome.scale
     ranks = s.astype(np.int8)  # the engine's codes are the statuses' codes
     coordinates = CheckedCoordinates(error_map.flat, error_map.rel, noise, ranks, outcome.numeric.copy(),
