@@ -122,6 +122,16 @@ def test_a_loss_near_the_float_range_leaks_no_warning_of_gradprobe_s_own():
     assert not o["false_alarm"], (o["status"], o["expect"])
 
 
+def test_a_pole_closer_than_the_steps_under_a_large_loss_is_no_failure():
+    """steep-6206: 1/(1 - u) with u = 0.99907 moves past its pole 3.6e-8 from p2[1, 1], under
+    a loss of 6.4e19 from another term: at every step from 1e-6 up the loss does not change at
+    all (an estimate of exactly 0), while the analytic -4.4e12 is right (mpmath). Not failed;
+    the planted bug (p1's dropped term, without effect at this point) stays quiet too."""
+    o = judge("steep", 6206)
+    assert not o["false_alarm"], (o["status"], o["expect"])
+    assert o["status"]["p2"] == "inconclusive"
+
+
 NO_RECHECK = [("scales", 1)] + [("steep", s) for s in range(4)] + [("kinks", s) for s in range(2)]
 
 

@@ -64,10 +64,54 @@ def bfloat16_step(probe: TensorProbe, flat: np.ndarray) -> np.ndarray:
     return np.maximum(SPACINGS * spacing, needed)
 
 
+FLOAT64_UNITS = 8.0  # float64: the smaller step's predicted change in units of the loss
+MOVED_UNITS = 2.0  # and each side's change at it beyond this many units: not rounding
+
+CLOSER = (
+    "the loss does not change at all at the steps tried, yet changes on both sides at a far "
+    "smaller step, where this gradient predicts a change of a few units of its rounding: a "
+    "pole or kink closer than the steps tried, and a gradient this steep is not resolved there"
+)
+
+
+def flat_below_the_steps(probe: TensorProbe, flat: np.ndarray, judged: Judged) -> Judged:
+    """Float64 code: a failure read off a loss that did not change at all at any step tried
+    (an estimate of exactly 0) stands only where the loss is flat at a far smaller step too,
+    one at which the analytic gradient predicts a change of FLOAT64_UNITS units of the loss.
+    A loss that does not depend on the param (the bug the failure names) is flat there as
+    well. A loss flat at the steps tried that moves on both sides alike (the smaller change a
+    tenth of the larger at least, each beyond MOVED_UNITS units) at the far smaller step is not
+    smooth between them (a smooth loss changes more at a larger step, not less): a pole or
+    kink lies closer than the steps, and the coordinate is undecided."""
+    zero = np.flatnonzero((judged.status == FAIL) & (judged.estimate.value == 0.0))
+    if zero.size == 0:
+        return judged
+    unit = float(np.finfo(np.float64).eps) * probe.loss_scale
+    with np.errstate(divide="ignore", over="ignore"):
+        h = FLOAT64_UNITS * unit / np.abs(probe.a[flat[zero]].astype(np.float64))
+    usable = np.isfinite(h) & (h > 0)
+    if not usable.any():
+        return judged
+    inside = np.flatnonzero(usable)
+    p = probe.pairs(flat[zero[inside]], h[inside])
+    up, down = np.abs(p.f_plus - probe.f0), np.abs(p.f_minus - probe.f0)
+    moved = ((np.minimum(up, down) >= BOTH_SIDES * np.maximum(up, down))
+             & (np.minimum(up, down) > MOVED_UNITS * unit))
+    which = inside[moved]
+    if which.size == 0:
+        return judged
+    undecided = Judged(np.full(which.size, INCONCLUSIVE, dtype=judged.status.dtype),
+                       Estimate(judged.estimate.value[zero[which]], np.full(which.size, np.inf)),
+                       (CLOSER,) * which.size, np.ones(which.size, dtype=bool))
+    return judged.merged(zero[which], undecided)
+
+
 def flat_through_sixteen_bits(probe: TensorProbe, flat: np.ndarray, judged: Judged) -> Judged:
     """``judged`` with its failures read off a loss that did not change at all kept only where
     a pair at :func:`bfloat16_step` does not change the loss on both sides alike (a flat side
-    beside a kink changes on one side only)."""
+    beside a kink changes on one side only). Float64 code: :func:`flat_below_the_steps`."""
+    if probe.narrow is None and probe.compute_dtype == np.dtype(np.float64):
+        return flat_below_the_steps(probe, flat, judged)
     if not _judged_as_float32(probe):
         return judged
     zero = np.flatnonzero((judged.status == FAIL) & (judged.estimate.value == 0.0))
