@@ -3,7 +3,8 @@
 At a ~10 us forward, start-up dominates what ``gradprobe check TARGET --json -`` costs
 (bench/cost.py). These tests run the command in a fresh process and look at ``sys.modules``
 afterwards: the terminal renderer (rich), the baseline comparison, the second-order engine,
-the process pool and numpy.ma are loaded only where a check asks for them. Not timed.
+the process pool, numpy.ma, the stack and autograd code and the TOML parser are loaded only
+where a check asks for them. Not timed.
 """
 
 from __future__ import annotations
@@ -54,6 +55,13 @@ NOT_ON_THE_PLAIN_PATH = (
     "gradprobe.engine.offpoint",  # the second look: coordinates at a kink only
     "gradprobe.engine.directional",  # random directions: sampled tensors only
     "gradprobe.report.baseline_file",  # --baseline only
+    "gradprobe.report.baseline_model",
+    "gradprobe.render.second_json",  # second derivatives checked only
+    "gradprobe.targets.autograd_hvp",
+    "gradprobe.targets.autograd",  # torch/jax targets with no backward only
+    "gradprobe.targets.stack_split",  # stacks (and --jobs workers) only
+    "gradprobe.report.blame",
+    "tomllib",  # read only where a pyproject.toml is found (none above tmp_path)
 )
 
 

@@ -12,14 +12,12 @@ from collections.abc import Callable
 from dataclasses import replace
 from typing import TYPE_CHECKING, Any
 
-from ..report.blame import OwnCheck, combine
 from .evaluate import Progress
 from .runner import run_check
 from ..common.errors import ProbeError
 from ..settings.options import CheckOptions
 from ..report.model import Report
 from ..targets.stack import StackTarget, end_to_end
-from ..targets.stack_split import base_activations, layer_targets
 from ..targets.target import Target
 
 if TYPE_CHECKING:
@@ -43,7 +41,9 @@ def run_stack(
 
 def _run_stack(st: StackTarget, options: CheckOptions, executor: Executor | None,
                progress: Progress | None, clock: Callable[[], float]) -> Report:
+    from ..report.blame import OwnCheck, combine  # stacks only: loaded then
     from ..targets.frameworks import frame_stack
+    from ..targets.stack_split import base_activations, layer_targets
 
     started = clock()
     try:

@@ -17,7 +17,6 @@ from ..report.model import (
     TensorResult,
 )
 from ..common.status import Status
-from .second_json import second_order_dict
 
 SCHEMA = "gradprobe.report/1"
 RUNS_SCHEMA = "gradprobe.runs/1"
@@ -165,8 +164,16 @@ def report_dict(report: Report) -> dict[str, Any]:
         "errors": list(report.errors),
         "notes": list(report.notes),
         **_run_baseline(report),
-        "second_order": second_order_dict(report.second_order),
+        "second_order": _second_order(report),
     }
+
+
+def _second_order(report: Report) -> dict[str, Any] | None:
+    if report.second_order is None:
+        return None
+    from .second_json import second_order_dict  # second derivatives checked only: loaded then
+
+    return second_order_dict(report.second_order)
 
 
 def _run_baseline(report: Report) -> dict[str, Any]:

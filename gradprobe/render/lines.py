@@ -6,7 +6,6 @@ between parts (or drops its optional tail), so numbers and names are never split
 
 from __future__ import annotations
 
-from ..report.baseline_model import Change
 from ..report.model import LayerResult, Report, TensorResult
 from ..common.status import Status
 from ..common.tensors import format_index
@@ -112,6 +111,8 @@ def _verdict(report: Report, width: int | None) -> str:
 
 def _baseline_parts(report: Report, n: int) -> list[str]:
     """What got worse since the baseline, for the verdict line."""
+    from ..report.baseline_model import Change  # --baseline only: loaded then
+
     changes = [t.baseline.change for t in report.changed_for_worse if t.baseline is not None]
     regressed, worse = changes.count(Change.REGRESSED), changes.count(Change.WORSE)
     parts = []

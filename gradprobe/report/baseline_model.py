@@ -6,25 +6,9 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 from enum import Enum
-from typing import Any
 
 from ..common.status import Status
-
-
-@dataclass(frozen=True)
-class CheckedCoordinates:
-    """Checked coordinates of a tensor: flat index, relative error, its relative noise (the
-    numeric estimate's error bound over the coordinate's scale), its status's code
-    (:attr:`gradprobe.common.status.Status.code`, 0 pass .. 3 fail), the numeric derivative and
-    the scale rel is taken against; arrays of one length (every checked coordinate in a
-    run; those a report lists in a baseline)."""
-
-    flat: Any
-    rel: Any
-    noise: Any
-    rank: Any  # status codes
-    numeric: Any
-    scale: Any  # the denominator of rel
+from .checked import CheckedCoordinates
 
 
 class Change(str, Enum):

@@ -10,10 +10,11 @@ import math
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
 
-from .baseline_model import CheckedCoordinates, RunBaseline, TensorBaseline
+from .checked import CheckedCoordinates
 from ..common.status import Status
 
-if TYPE_CHECKING:
+if TYPE_CHECKING:  # the baseline's side is loaded with --baseline only
+    from .baseline_model import RunBaseline, TensorBaseline
     from .second import SecondOrderResult
 
 

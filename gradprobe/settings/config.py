@@ -21,11 +21,6 @@ from typing import Any
 from ..common.errors import UsageProblem
 from .options import SETTING, SETTINGS
 
-if sys.version_info >= (3, 11):
-    import tomllib
-else:  # pragma: no cover - exercised on Python 3.10
-    import tomli as tomllib
-
 # key -> (accepted types, description): every setting, plus the targets to check.
 KEYS: dict[str, tuple[tuple[type, ...], str]] = {
     **{s.config_key: (s.types, s.what) for s in SETTINGS},
@@ -86,6 +81,10 @@ def load_config(start: Path) -> ProjectConfig:
     path = find_pyproject(start)
     if path is None:
         return ProjectConfig(None)
+    if sys.version_info >= (3, 11):  # the parser is loaded only where a pyproject.toml is found
+        import tomllib
+    else:  # pragma: no cover - exercised on Python 3.10
+        import tomli as tomllib
     try:
         data = tomllib.loads(path.read_text())
     except (OSError, tomllib.TOMLDecodeError) as exc:

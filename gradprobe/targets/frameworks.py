@@ -12,17 +12,18 @@ import sys
 from collections.abc import Callable, Iterator, Mapping
 from contextlib import contextmanager
 from dataclasses import dataclass, field, replace
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
-from .autograd import ReverseMode
-from .autograd_hvp import DoubleBackward
 from .boundary import NUMPY, Boundary, Kind, describe, rebuilt
 from ..common.errors import TargetLoadError
 from ..report.model import Report
 from .target import DOUBLE_FIX, MISSING_FIX, Target, no_double_backward
 from ..common.tensors import flatten
+
+if TYPE_CHECKING:  # loaded for a target with no backward only
+    from .autograd import ReverseMode
 
 AUTOGRAD_LIBRARIES = ("torch", "jax")
 NO_RULE = ("no hand-written derivative rule lies on forward's path (no {what}): the "
@@ -76,6 +77,8 @@ def frame(target: Target) -> tuple[Target, Framing]:
     if target.backward is not None:
         backward: Any = Framed(target.backward, boundary, "backward", target.spec)
     elif library in AUTOGRAD_LIBRARIES:
+        from .autograd import ReverseMode  # a target with no backward only: loaded then
+
         backward = framing.reverse = ReverseMode(_quiet(target.forward, library), boundary, library)
         framing.gradient_source = "autograd"
         forward = Framed(_quiet(target.forward, library, numeric=True), boundary, "forward",
@@ -100,6 +103,8 @@ def _second_order(target: Target, boundary: Boundary) -> dict[str, Any]:
         framed = Framed(target.hvp, boundary, "hvp")
         out["hvp"] = lambda p, i, v: framed(p, i, boundary.user_tree(v, {}))
     if target.double_backward:
+        from .autograd_hvp import DoubleBackward  # second derivatives by double backward only
+
         out["hvp"] = DoubleBackward(target.forward, boundary, boundary.library)
     return out
 

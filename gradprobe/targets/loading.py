@@ -15,7 +15,6 @@ from typing import Any
 from ..common.errors import ProbeError
 from ..common.guard import guarded
 from .stack import PART, StackTarget, is_stack, stack_from_object
-from .stack_split import worker_functions
 from .target import Target, _functions, resolve_object, target_from_object
 
 
@@ -45,6 +44,8 @@ def load_functions(spec: str) -> tuple[Callable[..., Any], Callable[..., Any]]:
     """forward and backward of ``spec``, for worker processes: setup() is not called again
     (the protocol calls it once per check; workers receive its arrays instead). A stack's
     composed functions, or one layer's, when ``spec`` names a stack (see :mod:`.stack`)."""
+    from .stack_split import worker_functions  # worker processes (--jobs) only: loaded then
+
     try:
         with guarded():
             obj = resolve_object(spec.split(PART)[0])
