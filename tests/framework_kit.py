@@ -43,3 +43,13 @@ def rel_gap(a: np.ndarray, b: np.ndarray) -> float:
     """The largest |a - b| relative to the largest |b| (a whole-tensor relative error)."""
     a, b = np.asarray(a, dtype=np.float64), np.asarray(b, dtype=np.float64)
     return float(np.max(np.abs(a - b)) / max(np.max(np.abs(b)), 1e-300))
+
+
+def assert_bfloat16_inside_verdict(report, factor: float) -> None:
+    """A rule computing in bfloat16 inside float32 arrays: judged on bfloat16 arithmetic; the
+    right rule (factor 1) fails nothing, a wrong one (2x, sign flipped) fails ``w``."""
+    assert report.compute_dtype == "bfloat16"
+    if factor == 1.0:
+        assert report.ok, [(t.name, t.status) for t in report.tensors]
+    else:
+        assert report.tensor("w").status == "fail"
