@@ -53,3 +53,15 @@ def assert_bfloat16_inside_verdict(report, factor: float) -> None:
         assert report.ok, [(t.name, t.status) for t in report.tensors]
     else:
         assert report.tensor("w").status == "fail"
+
+
+def check_ending(forward: Callable, params: dict, inputs: dict, ending: str) -> None:
+    """Run a check of the autograd-rule target ``forward`` that ends as ``ending`` says: "pass"
+    or "fail" (its verdict asserted), "crash" or "interrupt" (raised through to the caller)."""
+    from gradprobe.api import probe
+
+    if ending in ("pass", "fail"):
+        assert probe(forward, None, params, inputs).ok is (ending == "pass")
+    else:
+        with pytest.raises(Exception if ending == "crash" else KeyboardInterrupt):
+            probe(forward, None, params, inputs)
