@@ -24,6 +24,7 @@ from .refine import RATIO, ROWS, Ladder, Taken, climb, ladder_taken, one_sided, 
 from .staircase import flat_through_sixteen_bits
 from .steps import SETTLE_FRACTION, gap_suspects, largest_smooth_step, start_steps, steps_down
 from .narrow import wide_estimate
+from .own_rounding import judged_on_own_rounding
 from .richardson import first_steps, joined, rows_of, settled, two_rows_settle
 from ..common.roundoff import is_narrow
 from .verdict import NOISE, Judged, judge_ladder, judge_plain, judge_sides_apart, sides_differ
@@ -204,7 +205,7 @@ def _widened(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken: list[T
         return judged
     wide = judge_plain(probe, flat[noisy], wide_estimate(probe, flat[noisy], taken))
     decided = np.flatnonzero(wide.status != INCONCLUSIVE)
-    return judged.merged(noisy[decided], wide.pick(decided))
+    return judged_on_own_rounding(probe, flat, judged.merged(noisy[decided], wide.pick(decided)), taken)
 
 
 def _validated_failures(probe: TensorProbe, flat: np.ndarray, first: Pairs, h: np.ndarray, plain: Judged) -> Judged:

@@ -99,7 +99,8 @@ WIDE_NOISE = 2.0  # and the rounding it carries twice (as the ladder's tableau d
 SHRINK_LIMIT = 0.625  # differences of the quotients halve their steps' squares: 1/4, with room
 
 
-def wide_estimate(probe: TensorProbe, flat: np.ndarray, taken: list[Taken] | None = None) -> Estimate:
+def wide_estimate(probe: TensorProbe, flat: np.ndarray, taken: list[Taken] | None = None,
+                  plain: bool = False) -> Estimate:
     """The derivative of narrow code from central quotients at steps far larger than the
     ladder's, where rounding noise no longer hides it: narrow arithmetic puts the best
     central step near u**(1/3) of the scale, and the loss stays smooth well beyond.
@@ -115,11 +116,15 @@ def wide_estimate(probe: TensorProbe, flat: np.ndarray, taken: list[Taken] | Non
     next larger one (they shrink fourfold as the step halves), beyond rounding, and the
     one-sided quotients' gap shrinks with the step as curvature makes it (a kink within
     the window keeps it). The estimate with the smallest bound; one batch of pairs (those
-    ``taken`` before at the same coordinate and step are not evaluated again)."""
+    ``taken`` before at the same coordinate and step are not evaluated again; its own are added
+    to ``taken``)."""
     n = flat.size
     ks = np.arange(WIDE_FIRST, WIDE_LAST + WIDE_ROWS)
     h0 = probe.prior_steps(flat)
-    p = pairs_reusing(probe, np.tile(flat, ks.size), np.concatenate([h0 * 2.0**k for k in ks]), taken or [])
+    asked = np.concatenate([h0 * 2.0**k for k in ks])
+    p = pairs_reusing(probe, np.tile(flat, ks.size), asked, taken or [])
+    if taken is not None:  # for a second look at the same steps
+        taken.append((np.tile(flat, ks.size), asked, p))
     rows = ks.size
     d = p.central.reshape(rows, n)
     s = (0.5 * (p.h_plus + p.h_minus)).reshape(rows, n)
@@ -132,7 +137,10 @@ def wide_estimate(probe: TensorProbe, flat: np.ndarray, taken: list[Taken] | Non
     # Never beyond the params' own scale (as steps.largest_smooth_step): past it the loss
     # along a coordinate is another function, and agreement there proves nothing.
     scale = np.maximum(np.abs(probe.x[flat].astype(np.float64)), probe.x_scale)
-    return windowed(d, s, e, right - left, side_noise, asymmetry, scale)
+    rows = (d, s, e, right - left, side_noise, asymmetry, scale)
+    # ``plain``: also windows without extrapolation (:func:`plain_windowed`), for quotients
+    # that rounding rather than curvature limits.
+    return Estimate.better(windowed(*rows), plain_windowed(*rows)) if plain else windowed(*rows)
 
 
 def windowed(d: np.ndarray, s: np.ndarray, e: np.ndarray, apart: np.ndarray, side_noise: np.ndarray,

@@ -1,0 +1,163 @@
+"""The loss's rounding seen when one coordinate moves, for narrow code judged on its own
+arithmetic where the target's one figure leaves the coordinate undecided.
+
+The loss's rounding is measured once per target (:mod:`.noise`) by moving every tensor at
+once; one summand that rounds coarsely (exp of a large argument) then sets the figure for every
+coordinate. But when one coordinate moves alone, summands that do not depend on it are
+computed from the same values each time and round the same way: their rounding cancels in
+every difference of the loss along it. What remains is the rounding of what the coordinate
+does move, which the loss shows directly along the coordinate.
+
+Measured per coordinate at the points the wide steps use (the point, and the widest step on
+either side, :data:`.narrow.WIDE_LAST`): JITTER losses each, at moves DELTA apart along the
+coordinate, DELTA at least the move that changes the loss by CHANGE_ULPS units of its last
+place (as the analytic gradient predicts), so every move reaches past the loss's own
+rounding. Third differences cancel how the loss changes along the coordinate (the slope and
+curvature at that scale, whatever the gradient) and keep how its rounding varies from point to
+point: independent roundings of spread s give third differences of spread sqrt(20) s, and the
+largest of 3 (JITTER - 3) times 4 of them is about seven times s. The rounding of one loss
+value is taken as that largest third difference, never below the loss's own last place. A coordinate whose loss did not change at every move
+(a staircase coarser than the moves, or moves the gradient mispredicts) or left forward's
+domain keeps the target's figure: nothing was measured.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .narrow import WIDE_FIRST, WIDE_LAST, WIDE_ROWS, wide_estimate
+from .probe import Pairs, TensorProbe, as_seen
+from .refine import Taken
+from .verdict import NOISE, SIGNIFICANCE, Judged, judge_plain
+from ..common.status import INCONCLUSIVE
+
+JITTER = 7  # losses per measured point: four third differences
+CHANGE_ULPS = 2.0  # each move changes the loss by at least this many units of its last place
+SMALLEST_SHARE = 1.0 / 64.0  # moves are at least this share of the widest step
+LARGEST_SHARE = 0.25  # and at most this share (the measured points stay near the steps used)
+
+
+def own_rounding(probe: TensorProbe, flat: np.ndarray) -> np.ndarray:
+    """Per coordinate ``flat[i]``: the rounding of one loss value when that coordinate alone
+    moves over the wide steps' range (absolute), NaN where nothing was measured. JITTER times
+    3 calls per coordinate."""
+    n = flat.size
+    x = probe.x[flat]
+    widest = _widest(probe, flat)
+    eps = float(np.finfo(probe.compute_dtype).eps)
+    slope = np.maximum(np.abs(probe.a[flat]), probe.floor)
+    delta = np.clip(CHANGE_ULPS * eps * abs(probe.f0) / slope, SMALLEST_SHARE * widest, LARGEST_SHARE * widest)
+    offsets = np.arange(JITTER) - (JITTER - 1) / 2.0
+    points, seen = [], []
+    with np.errstate(over="ignore", invalid="ignore"):
+        for centre in (0.0, 1.0, -1.0):
+            for k in offsets:
+                moved = (x.astype(np.float64) + centre * widest + k * delta).astype(x.dtype)
+                points.append(moved)
+                seen.append(as_seen(moved, probe.compute_dtype))
+    values = probe.evaluator.single_moves(probe.tensor, flat, tuple(points))  # (n, 3 * JITTER)
+    where = np.stack(seen, axis=1)
+    rounding = np.full(n, np.nan)
+    for i in range(n):
+        rounding[i] = _measured(values[i].reshape(3, JITTER), where[i].reshape(3, JITTER), eps)
+    return rounding
+
+
+def _widest(probe: TensorProbe, flat: np.ndarray) -> np.ndarray:
+    """The widest step the wide estimate may use at each coordinate (as wide_estimate)."""
+    h0 = probe.prior_steps(flat)
+    limit = np.maximum(np.abs(probe.x[flat].astype(np.float64)), probe.x_scale)
+    ks = np.arange(WIDE_FIRST, WIDE_LAST + WIDE_ROWS)
+    steps = h0[None, :] * 2.0 ** ks[:, None]
+    fits = np.where(steps <= limit[None, :], steps, 0.0).max(axis=0)
+    return np.where(fits > 0, fits, h0 * 2.0**WIDE_FIRST)
+
+
+def _measured(values: np.ndarray, where: np.ndarray, eps: float) -> float:
+    """One coordinate's rounding from its rows of losses (a row per measured point) at the
+    positions the forward saw; NaN where a row says nothing."""
+    if not (np.all(np.isfinite(values)) and np.all(np.isfinite(where))):
+        return np.nan
+    worst = 0.0
+    for f, p in zip(values, where):
+        if np.any(np.diff(f) == 0) or np.any(np.diff(p) <= 0):
+            return np.nan  # a move the loss did not show, or one the type swallowed
+        # The moves really made are not evenly spaced (x + k delta rounds to the type's grid):
+        # the values are taken at evenly spaced points, the row's own slope across the gap.
+        even = np.linspace(p[0], p[-1], p.size)
+        g = f - (f[-1] - f[0]) / (p[-1] - p[0]) * (p - even)
+        third = np.abs(np.diff(g, n=3))
+        worst = max(worst, float(third.max()), eps * float(np.max(np.abs(f))))
+    return worst
+
+
+def _renoised(p: Pairs, flat: np.ndarray, rounding: dict[int, float], eps: float) -> Pairs:
+    """``p`` (pairs at coordinates ``flat``) with the measured rounding in place of the
+    target's figure where one was measured (never below the values' own last place)."""
+    own = np.array([rounding.get(int(k), np.nan) for k in flat])
+    mine = np.isfinite(own)
+    floor = eps * np.maximum(np.abs(p.f_plus), np.abs(p.f_minus))
+    noise = np.where(mine, np.maximum(np.nan_to_num(own), floor), p.noise)
+    return Pairs(p.f_plus, p.f_minus, p.h_plus, p.h_minus, noise)
+
+
+class _OwnRounding(TensorProbe):
+    """A probe whose pairs carry each coordinate's own measured rounding."""
+
+    rounding: dict[int, float]
+
+    def pairs(self, flat: np.ndarray, h: np.ndarray) -> Pairs:
+        return _renoised(super().pairs(flat, h), flat, self.rounding, self.eps)
+
+
+def _with_own(probe: TensorProbe, rounding: dict[int, float]) -> _OwnRounding:
+    view = _OwnRounding.__new__(_OwnRounding)
+    view.__dict__.update(probe.__dict__)
+    view.rounding = rounding
+    return view
+
+
+def judged_on_own_rounding(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken: list[Taken]) -> Judged:
+    """Coordinates ``flat`` that rounding left undecided in ``judged`` (the wide steps' verdicts
+    included) judged again on the wide steps with each one's own measured rounding (pairs
+    ``taken`` before are reused); where still undecided, the reason names the smallest
+    relative error its rounding would let show."""
+    noisy = np.flatnonzero((judged.status == INCONCLUSIVE) & np.array([r == NOISE for r in judged.reasons], dtype=bool))
+    if noisy.size == 0:
+        return judged
+    where = flat[noisy]
+    measured = own_rounding(probe, where)
+    rounding = {int(k): float(v) for k, v in zip(where, measured) if np.isfinite(v)}
+    if rounding:
+        view = _with_own(probe, rounding)
+        again = [(f, s, _renoised(p, f, rounding, probe.eps)) for f, s, p in taken]
+        mine = np.flatnonzero(np.isfinite(measured))
+        est = wide_estimate(view, where[mine], again, plain=True)
+        redo = judge_plain(view, where[mine], est)
+        decided = np.flatnonzero(redo.status != INCONCLUSIVE)
+        judged = judged.merged(noisy[mine[decided]], redo.pick(decided))
+    still = np.flatnonzero((judged.status[noisy] == INCONCLUSIVE))
+    if still.size == 0:
+        return judged
+    return _explained(probe, flat, judged, noisy[still], measured[still])
+
+
+def _explained(probe: TensorProbe, flat: np.ndarray, judged: Judged, which: np.ndarray, measured: np.ndarray) -> Judged:
+    """The NOISE reason of coordinates ``which`` with the smallest relative error that
+    rounding alone lets show on each: SIGNIFICANCE times the rounding of a central quotient
+    at the widest step on the coordinate's smooth range, over its scale."""
+    where = flat[which]
+    per_value = np.where(np.isfinite(measured), measured, probe.loss_noise(np.full(where.size, probe.f0)))
+    quotient = 2.0 * per_value / (2.0 * _widest(probe, where))
+    scale = probe.denominators(where, judged.estimate.value[which])
+    smallest = np.maximum(SIGNIFICANCE * quotient, probe.threshold * scale) / scale
+    how = ["measured when it moves" if np.isfinite(m) else "measured for the whole target" for m in measured]
+    reasons = list(judged.reasons)
+    for k, i in enumerate(which):
+        if reasons[i] == NOISE:
+            reasons[i] = (f"{NOISE}: its rounding ({how[k]}) hides any relative error below "
+                          f"{smallest[k]:.2g} on it, even at the widest step its scale allows")
+    return Judged(judged.status, judged.estimate, tuple(reasons), judged.noise_limited)
+
+
+__all__ = ["judged_on_own_rounding", "own_rounding"]

@@ -1,0 +1,101 @@
+"""float32 code whose loss is cast to float32 (no float64 run), where one large summand rounds
+far more coarsely than the rest: the rounding that matters for a coordinate is the loss's
+rounding seen when that coordinate moves, not one figure for the whole target.
+
+Scenario: a greenhouse's heating cost grows like exp(rate * (temperature - base)) (a large
+summand, ~2e5, whose float32 exp carries the rounding of its argument times ~10) plus a sum of squared errors of a linear fit of fan speeds to humidity readings
+(small, smooth). The fan-speed gradient is exact, or one element is 0.8% too large.
+
+References outside the project: d/dx exp(c x) = c exp(c x) and d/dx (c x - y)**2 =
+2 c (c x - y) (any table of derivatives, e.g. Abramowitz & Stegun 4.2.54 for exp, from
+memory); each analytic value below is also checked against mpmath's high-precision
+differentiation (mpmath.diff at 40 digits) of the same loss at the float32 values.
+"""
+
+from __future__ import annotations
+
+import mpmath
+import numpy as np
+import pytest
+
+from gradprobe import probe
+
+mpmath.mp.dps = 40
+
+RATE = np.float32(0.0136)
+KELVIN = np.float32(273.15)
+
+
+def _kilns(fan_factor: float = 1.0, wrong: int = 2):
+    """The target (forward, backward, params, inputs); ``fan_factor`` scales the fan gradient's
+    element ``wrong`` (1: correct). Firing temperatures in degrees Celsius: their conversion to
+    kelvin rounds at a few units of 6e-5, which exp(rate * kelvin), at an argument of ~20,
+    carries to ~0.1 in each kiln's cost of ~5e4; the fan fit's own terms round at the loss's
+    last place (~0.016)."""
+    rng = np.random.default_rng(7)
+    params = {"temp": np.array([1201.5, 1188.0, 1195.25], dtype=np.float32),
+              "fan": (10.0 + 2.0 * rng.normal(size=5)).astype(np.float32)}
+    c = (0.8 + 0.3 * rng.random(5)).astype(np.float32)
+    inputs = {"weight": np.array([1.1e-4, 0.9e-4, 1.0e-4], dtype=np.float32),
+              "c": c,
+              "y": (c * params["fan"] - 16.0 - 1.0 * rng.normal(size=5)).astype(np.float32)}
+
+    def forward(p, i):
+        heat = np.sum(i["weight"] * np.exp(RATE * (p["temp"] + KELVIN)))
+        r = i["c"] * p["fan"] - i["y"]
+        return np.float32(heat + np.sum(r * r))
+
+    def backward(p, i):
+        g_temp = i["weight"] * RATE * np.exp(RATE * (p["temp"] + KELVIN))
+        g_fan = 2 * i["c"] * (i["c"] * p["fan"] - i["y"])
+        g_fan = g_fan.copy()
+        g_fan[wrong] *= np.float32(fan_factor)
+        return {"temp": g_temp, "fan": g_fan}
+
+    return forward, backward, params, inputs
+
+
+def _mp_gradient(params, inputs):
+    """The exact gradient at the float32 values, by mpmath.diff of the loss in 40 digits."""
+    mp = lambda a: [mpmath.mpf(float(v)) for v in np.ravel(a)]  # noqa: E731
+    temp, fan, w, c, y = (mp(params["temp"]), mp(params["fan"]), mp(inputs["weight"]),
+                          mp(inputs["c"]), mp(inputs["y"]))
+    kelvin = mpmath.mpf(float(KELVIN))
+    rate = mpmath.mpf(float(RATE))
+
+    def loss(t, f):
+        return (sum(wk * mpmath.exp(rate * (tk + kelvin)) for wk, tk in zip(w, t))
+                + sum((ck * fk - yk) ** 2 for ck, fk, yk in zip(c, f, y)))
+
+    g_temp = [mpmath.diff(lambda v, k=k: loss(temp[:k] + [v] + temp[k + 1:], fan), temp[k]) for k in range(3)]
+    g_fan = [mpmath.diff(lambda v, k=k: loss(temp, fan[:k] + [v] + fan[k + 1:]), fan[k]) for k in range(5)]
+    return np.array([float(g) for g in g_temp]), np.array([float(g) for g in g_fan])
+
+
+def test_the_scenario_is_what_it_says():
+    forward, backward, params, inputs = _kilns()
+    loss = float(forward(params, inputs))
+    g = backward(params, inputs)
+    true_temp, true_fan = _mp_gradient(params, inputs)
+    assert 1e4 < loss < 1e6  # the exp summand dominates the loss
+    assert np.allclose(g["temp"], true_temp, rtol=1e-5)
+    assert np.allclose(g["fan"], true_fan, rtol=1e-5, atol=1e-5 * np.max(np.abs(true_fan)))
+    # the planted error is 0.8% of the exact element
+    wrong = _kilns(1.008)[1](params, inputs)["fan"][2]
+    assert abs(wrong / true_fan[2] - 1.0) == pytest.approx(0.008, abs=1e-4)
+
+
+def test_a_bug_beside_a_coarsely_rounding_summand_is_caught_and_located():
+    forward, backward, params, inputs = _kilns(1.008)
+    report = probe(forward, backward, params, inputs)
+    fan = report.tensor("fan")
+    assert fan.status.value == "fail", (fan.status, fan.inconclusive_reason, fan.details)
+    assert fan.worst_index == (2,) or (2,) in fan.bad_indices
+    assert report.tensor("temp").status.value != "fail"
+
+
+def test_the_correct_target_raises_no_alarm():
+    forward, backward, params, inputs = _kilns()
+    report = probe(forward, backward, params, inputs)
+    assert all(t.status.value in ("pass", "kink", "inconclusive") for t in report.tensors)
+    assert report.tensor("fan").status.value == "pass", report.tensor("fan").details
