@@ -13,7 +13,10 @@ Prints per category:
 - ``inconcl``: targets with an inconclusive tensor (correct ones, then buggy ones); below the
   table, the same among correct targets whose every coordinate would resolve an error of the
   threshold's size in the dtype (the rule ``recall`` uses for a bug): elsewhere the dtype's
-  arithmetic, not gradprobe, may be what leaves a tensor undecided;
+  arithmetic, not gradprobe, may be what leaves a tensor undecided; and the inconclusive correct
+  targets with no wider run by how far the loss's rounding, measured against mpmath along each
+  undecided coordinate over its smooth radius, lets an error of the threshold's size show
+  (tests/adversarial/rounding.py: below 1x no step can);
 - ``recall``: buggy targets with a bug above 1.5x the threshold and resolvable in the dtype whose
   every such tensor fails; ``missed``: one of them says pass or kink;
 - ``located``: one-element bugs found with the element in bad_indices or as worst_index;
@@ -166,6 +169,17 @@ def main(argv: list[str] | None = None) -> int:
           "size (as a bug must to be expected to fail): "
           + ", ".join(f"{c} {_rate(t['inc_resolving'], t['resolving'])}" for c, t in
                       ((c, tally(by[c])) for c in categories)))
+    measured = [o for o in outcomes if o.get("ratios") is not None]
+    if measured:
+        # The most resolvable coordinate each such target left undecided (tests/adversarial/rounding.py).
+        best = {o["name"]: max(o["ratios"], default=float("nan")) for o in measured}
+        low = sorted(n for n, r in best.items() if r < 1)
+        mid = sorted(n for n, r in best.items() if 1 <= r < 10)
+        high = sorted(n for n, r in best.items() if not r < 10)
+        print(f"inconclusive correct targets with no wider run, by how far the loss's rounding (against mpmath) "
+              f"lets an error of the threshold's size show on their most resolvable undecided coordinate: "
+              f"below 1x (no step can) {len(low)}, 1-10x {len(mid)} ({', '.join(f'{n} {best[n]:.2g}' for n in mid)}), "
+              f"10x and more {len(high)} ({', '.join(f'{n} {best[n]:.2g}' for n in high)})")
     print(f"{time.perf_counter() - wall:.1f} s wall, {time.process_time() - cpu:.1f} s CPU (this process)")
     leaks = defaultdict(list)
     for o in outcomes:

@@ -99,3 +99,48 @@ def test_the_correct_target_raises_no_alarm():
     report = probe(forward, backward, params, inputs)
     assert all(t.status.value in ("pass", "kink", "inconclusive") for t in report.tensors)
     assert report.tensor("fan").status.value == "pass", report.tensor("fan").details
+
+
+# -- what an undecided coordinate's reason says it could not see --------------------------
+
+def _seasonal(factor: float = 1.0):
+    """A shop's demand: a large base level (3e4 in float32, whose last place is ~0.002) plus
+    seasonal terms sin(w_k), the loss cast to float32; the gradient cos(w) (d/dx sin x =
+    cos x, any table of derivatives, from memory; checked against mpmath below), element 1
+    scaled by ``factor``."""
+    w = np.array([0.3, -0.8, 1.1], dtype=np.float32)
+
+    def forward(p, i):
+        return np.float32(i["base"] + np.sum(np.sin(p["w"])))
+
+    def backward(p, i):
+        g = np.cos(p["w"])
+        g[1] *= np.float32(factor)
+        return {"w": g}
+
+    return forward, backward, {"w": w}, {"base": np.float32(3.0e4)}
+
+
+def _smallest_seen(detail) -> float:
+    import re
+
+    found = re.search(r"hides any relative error below ([0-9.e+-]+) on it", detail.reason or "")
+    assert found, detail.reason
+    return float(found.group(1))
+
+
+def test_the_reason_names_the_smallest_error_rounding_lets_show_and_means_it():
+    forward, backward, params, inputs = _seasonal()
+    exact = float(mpmath.diff(mpmath.sin, mpmath.mpf(float(params["w"][1]))))
+    assert backward(params, inputs)["w"][1] == pytest.approx(exact, rel=1e-6)
+    t = probe(forward, backward, params, inputs).tensor("w")
+    assert t.status.value == "inconclusive"
+    (detail,) = [d for d in t.details if d.index == (1,)]
+    smallest = _smallest_seen(detail)
+    assert 5e-4 < smallest < 0.3  # above the float32 threshold, below gross errors
+    # An error three times that figure is seen; one a quarter of it is not failed (the reason
+    # says it is hidden). Relative errors as the protocol takes them: |a - g| / max(|a|, |g|).
+    for rel, seen in ((3 * smallest, True), (smallest / 4, False)):
+        f2, b2, p2, i2 = _seasonal(1.0 / (1.0 - rel))
+        status = probe(f2, b2, p2, i2).tensor("w").status.value
+        assert (status == "fail") == seen, (rel, status)

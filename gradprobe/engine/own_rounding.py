@@ -25,16 +25,19 @@ from __future__ import annotations
 
 import numpy as np
 
-from .narrow import WIDE_FIRST, WIDE_LAST, WIDE_ROWS, wide_estimate
+from .narrow import WIDE_FIRST, WIDE_LAST, WIDE_NOISE, WIDE_ROWS, wide_estimate
 from .probe import Pairs, TensorProbe, as_seen
 from .refine import Taken
 from .verdict import NOISE, SIGNIFICANCE, Judged, judge_plain
 from ..common.status import INCONCLUSIVE
 
+UNMODELLED = ("the loss along it does not follow the error model of central differences at the wide "
+              "steps that rounding needs")
 JITTER = 7  # losses per measured point: four third differences
 CHANGE_ULPS = 2.0  # each move changes the loss by at least this many units of its last place
 SMALLEST_SHARE = 1.0 / 64.0  # moves are at least this share of the widest step
 LARGEST_SHARE = 0.25  # and at most this share (the measured points stay near the steps used)
+DISTINCT = 2  # each measured point's losses take this many values at least (a step of a staircase)
 
 
 def own_rounding(probe: TensorProbe, flat: np.ndarray) -> np.ndarray:
@@ -80,8 +83,8 @@ def _measured(values: np.ndarray, where: np.ndarray, eps: float) -> float:
         return np.nan
     worst = 0.0
     for f, p in zip(values, where):
-        if np.any(np.diff(f) == 0) or np.any(np.diff(p) <= 0):
-            return np.nan  # a move the loss did not show, or one the type swallowed
+        if np.unique(f).size < DISTINCT or np.any(np.diff(p) <= 0):
+            return np.nan  # a staircase coarser than the moves, or a move the type swallowed
         # The moves really made are not evenly spaced (x + k delta rounds to the type's grid):
         # the values are taken at evenly spaced points, the row's own slope across the gap.
         even = np.linspace(p[0], p[-1], p.size)
@@ -144,17 +147,24 @@ def judged_on_own_rounding(probe: TensorProbe, flat: np.ndarray, judged: Judged,
 
 def _explained(probe: TensorProbe, flat: np.ndarray, judged: Judged, which: np.ndarray, measured: np.ndarray) -> Judged:
     """The NOISE reason of coordinates ``which`` with the smallest relative error that
-    rounding alone lets show on each: SIGNIFICANCE times the rounding of a central quotient
-    at the widest step on the coordinate's smooth range, over its scale."""
+    rounding alone lets show on each: SIGNIFICANCE times the least bound a wide-step window
+    can have, WIDE_NOISE times the rounding of the central quotient at half the widest step
+    on the coordinate's smooth range (the estimate of the widest window without
+    extrapolation), over its scale."""
     where = flat[which]
     per_value = np.where(np.isfinite(measured), measured, probe.loss_noise(np.full(where.size, probe.f0)))
-    quotient = 2.0 * per_value / (2.0 * _widest(probe, where))
+    quotient = WIDE_NOISE * 2.0 * per_value / _widest(probe, where)
     scale = probe.denominators(where, judged.estimate.value[which])
     smallest = np.maximum(SIGNIFICANCE * quotient, probe.threshold * scale) / scale
     how = ["measured when it moves" if np.isfinite(m) else "measured for the whole target" for m in measured]
     reasons = list(judged.reasons)
     for k, i in enumerate(which):
-        if reasons[i] == NOISE:
+        if reasons[i] != NOISE:
+            continue
+        if SIGNIFICANCE * quotient[k] <= probe.threshold * scale[k]:
+            reasons[i] = (f"{UNMODELLED} (its rounding, {how[k]}, would let an error of the "
+                          f"threshold show at the widest steps its scale allows)")
+        else:
             reasons[i] = (f"{NOISE}: its rounding ({how[k]}) hides any relative error below "
                           f"{smallest[k]:.2g} on it, even at the widest step its scale allows")
     return Judged(judged.status, judged.estimate, tuple(reasons), judged.noise_limited)

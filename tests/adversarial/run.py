@@ -19,7 +19,10 @@ Expected verdicts, decided honestly per tensor:
 - a crash is any exception from gradprobe on these valid targets (exit 2 or 3 on the CLI);
 - ``resolves``: a correct target whose every coordinate would resolve an error of the
   threshold's size by the same rule (where not, an inconclusive verdict can be the dtype's
-  arithmetic at its limit).
+  arithmetic at its limit);
+- ``ratios``: for a correct target with no wider run left inconclusive, per undecided
+  coordinate, how far its measured rounding lets an error of the threshold's size show
+  (:mod:`.rounding`: below 1 no step can show it).
 """
 
 from __future__ import annotations
@@ -36,6 +39,7 @@ from gradprobe.common.errors import ProbeError
 from .bugs import make_case
 from .case import Case, load
 from .reference import FULL, reference
+from .rounding import ratios
 
 SUBSET = 48  # elements of a big tensor the reference evaluates (plus a bug's element)
 
@@ -191,6 +195,8 @@ def judge(category: str, seed: int, **options) -> dict:
         expect[case.bug.tensor] = "any"
     out["expect"] = expect
     out["resolves"] = resolves_threshold(case, ref, report.threshold)
+    if case.correct and out["inconclusive"] and case.flavor != "generic":  # no wider run
+        out["ratios"] = [r for _, _, r in ratios(case, ns, ref, _floors(ref), report)]
     out["false_alarm"] = any(status.get(n) == "fail" for n, e in expect.items() if e == "quiet")
     must = [n for n, e in expect.items() if e == "fail"]
     out["expect_fail"] = bool(must)
