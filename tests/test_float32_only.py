@@ -33,3 +33,19 @@ def test_a_corner_between_wide_steps_is_no_false_alarm(seed):
     o = _judged(seed)
     assert not o["false_alarm"], (o["status"], o["expect"])
     assert o["correct"] or o["found"], (o["status"], o["expect"])
+
+
+# A coarsely rounding exp summand elsewhere in the loss (its rounding, when every tensor moves,
+# set one noise figure for the whole target) left these bugs undecided: 1248 (a wrong piece's
+# derivative, 65-180% off, on a tensor whose own effect on the loss is far above that rounding)
+# and 1309 (one element 20% off). Each coordinate's own rounding, measured when it moves, shows
+# them.
+OWN_ROUNDING_SEEDS = [1248, 1309]
+
+
+@pytest.mark.parametrize("seed", OWN_ROUNDING_SEEDS)
+def test_a_bug_beside_a_coarsely_rounding_summand_fails(seed):
+    o = _judged(seed)
+    assert not o["false_alarm"], (o["status"], o["expect"])
+    assert o["expect_fail"] and o["found"], (o["status"], o["expect"])
+    assert not o["to_locate"] or o["located"], o["status"]

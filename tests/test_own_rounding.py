@@ -2,14 +2,16 @@
 far more coarsely than the rest: the rounding that matters for a coordinate is the loss's
 rounding seen when that coordinate moves, not one figure for the whole target.
 
-Scenario: a greenhouse's heating cost grows like exp(rate * (temperature - base)) (a large
-summand, ~2e5, whose float32 exp carries the rounding of its argument times ~10) plus a sum of squared errors of a linear fit of fan speeds to humidity readings
-(small, smooth). The fan-speed gradient is exact, or one element is 0.8% too large.
+Scenarios: pottery kilns whose fuel cost grows like exp(rate * kelvin) (a large summand,
+~1.4e5, whose float32 exp carries the rounding of its argument, ~20, to ~0.1 per kiln) plus a
+sum of squared errors of a linear fit of fan speeds (small, smooth; the fan gradient exact,
+or one element 0.8% too large); and a shop's demand, a large base level plus seasonal terms,
+where rounding hides small errors and the reason says which.
 
-References outside the project: d/dx exp(c x) = c exp(c x) and d/dx (c x - y)**2 =
-2 c (c x - y) (any table of derivatives, e.g. Abramowitz & Stegun 4.2.54 for exp, from
-memory); each analytic value below is also checked against mpmath's high-precision
-differentiation (mpmath.diff at 40 digits) of the same loss at the float32 values.
+References outside the project: d/dx exp(c x) = c exp(c x), d/dx (c x - y)**2 =
+2 c (c x - y) and d/dx sin x = cos x (any table of derivatives, from memory); each analytic
+value used is also checked against mpmath's high-precision differentiation (mpmath.diff at
+40 digits) of the same loss at the float32 values.
 """
 
 from __future__ import annotations

@@ -1,5 +1,6 @@
-"""The loss's rounding seen when one coordinate moves, for narrow code judged on its own
-arithmetic where the target's one figure leaves the coordinate undecided.
+"""The loss's rounding seen when one coordinate moves, for float32 code judged on its own
+arithmetic where the target's one figure leaves the coordinate undecided (16-bit arithmetic,
+whose loss is a staircase of its own, is judged as before: :mod:`.along`).
 
 The loss's rounding is measured once per target (:mod:`.noise`) by moving every tensor at
 once; one summand that rounds coarsely (exp of a large argument) then sets the figure for every
@@ -11,14 +12,18 @@ does move, which the loss shows directly along the coordinate.
 Measured per coordinate at the points the wide steps use (the point, and the widest step on
 either side, :data:`.narrow.WIDE_LAST`): JITTER losses each, at moves DELTA apart along the
 coordinate, DELTA at least the move that changes the loss by CHANGE_ULPS units of its last
-place (as the analytic gradient predicts), so every move reaches past the loss's own
-rounding. Third differences cancel how the loss changes along the coordinate (the slope and
-curvature at that scale, whatever the gradient) and keep how its rounding varies from point to
-point: independent roundings of spread s give third differences of spread sqrt(20) s, and the
-largest of 3 (JITTER - 3) times 4 of them is about seven times s. The rounding of one loss
-value is taken as that largest third difference, never below the loss's own last place. A coordinate whose loss did not change at every move
-(a staircase coarser than the moves, or moves the gradient mispredicts) or left forward's
-domain keeps the target's figure: nothing was measured.
+place (as the analytic gradient predicts), so the moves reach past the loss's own rounding.
+Third differences cancel how the loss changes along the coordinate (the slope and curvature
+at that scale, whatever the gradient) and keep how its rounding varies from point to point:
+independent roundings of spread s give third differences of spread sqrt(20) s, and the
+largest of 3 (JITTER - 3) = 12 of them is about seven times s (a step of a staircase shows as
+one to two times its height). The rounding of one loss value is taken as that largest third
+difference, never below the loss's own last place. A coordinate whose loss took a single
+value at some measured point (a staircase coarser than all its moves, or moves the gradient
+mispredicts), or left forward's domain, keeps the target's figure: nothing was measured.
+At most MEASURED coordinates per tensor (as many as the ladders re-estimate); the wide
+steps are judged again with the measured figure, with windows without extrapolation too
+(:func:`.narrow.plain_windowed`: rounding, not curvature, limits these quotients).
 """
 
 from __future__ import annotations
@@ -29,6 +34,7 @@ from .narrow import WIDE_FIRST, WIDE_LAST, WIDE_NOISE, WIDE_ROWS, wide_estimate
 from .probe import Pairs, TensorProbe, as_seen
 from .refine import Taken
 from .verdict import NOISE, SIGNIFICANCE, Judged, judge_plain
+from ..common.roundoff import unit_roundoff
 from ..common.status import INCONCLUSIVE
 
 UNMODELLED = ("the loss along it does not follow the error model of central differences at the wide "
@@ -38,6 +44,7 @@ CHANGE_ULPS = 2.0  # each move changes the loss by at least this many units of i
 SMALLEST_SHARE = 1.0 / 64.0  # moves are at least this share of the widest step
 LARGEST_SHARE = 0.25  # and at most this share (the measured points stay near the steps used)
 DISTINCT = 2  # each measured point's losses take this many values at least (a step of a staircase)
+MEASURED = 400  # coordinates per tensor measured (the first undecided ones)
 
 
 def own_rounding(probe: TensorProbe, flat: np.ndarray) -> np.ndarray:
@@ -125,9 +132,12 @@ def judged_on_own_rounding(probe: TensorProbe, flat: np.ndarray, judged: Judged,
     included) judged again on the wide steps with each one's own measured rounding (pairs
     ``taken`` before are reused); where still undecided, the reason names the smallest
     relative error its rounding would let show."""
+    if unit_roundoff(probe.compute_dtype) >= unit_roundoff(np.float16):
+        return judged  # 16-bit arithmetic: a staircase of its own (see .along)
     noisy = np.flatnonzero((judged.status == INCONCLUSIVE) & np.array([r == NOISE for r in judged.reasons], dtype=bool))
     if noisy.size == 0:
         return judged
+    noisy = noisy[:MEASURED]
     where = flat[noisy]
     measured = own_rounding(probe, where)
     rounding = {int(k): float(v) for k, v in zip(where, measured) if np.isfinite(v)}
