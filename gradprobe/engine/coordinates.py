@@ -27,7 +27,8 @@ from .narrow import wide_estimate
 from .own_rounding import judged_on_own_rounding
 from .richardson import first_steps, joined, rows_of, settled, two_rows_settle
 from ..common.roundoff import is_narrow
-from .verdict import NOISE, Judged, judge_ladder, judge_plain, judge_sides_apart, sides_differ
+from .kinks import judge_ladder, judge_sides_apart, sides_differ
+from .verdict import NOISE, Judged, judge_plain
 
 RETRY_SHIFT = 6  # a second ladder starts 2**6 steps higher (noise) or lower (curvature)
 RECHECK_LIMIT = 400  # coordinates per tensor re-estimated on a ladder

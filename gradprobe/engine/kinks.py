@@ -1,0 +1,255 @@
+"""Verdicts from one-sided derivatives: a loss smooth at the point, a corner, or a kink at or
+near it.
+
+A ladder (:mod:`.refine`) gives each coordinate a central estimate and its left and right
+derivatives extrapolated each on its own. Where the sides agree, the loss is smooth or has a
+corner (only f'' jumps) and the central estimate or the sides' mean decides. Where they differ
+beyond their bounds and the threshold, a pair at a much smaller step tells a kink at the point
+(the jump stays) from one near it (the jump moves, and the clean side's derivative is the
+derivative here). A kink verdict needs that evidence: the sides seen to differ, and the
+analytic value one a kink between them could give. A value off sides that agree with each
+other, or that are not known well enough to tell, is a failure or undecided, never a kink.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..common.status import FAIL, INCONCLUSIVE, KINK, PASS
+from .ladder import Estimate
+from .probe import TensorProbe
+from .refine import Ladder, Tiny
+from .verdict import (CORNER_NEAR, CROWDED, NEAR_KINK, NOISE, SIGNIFICANCE, UNSETTLED, Judged,
+                      verdicts)
+
+LOPSIDED = 0.01  # a side whose bound is 100 times tighter than the other's has settled
+NEAR_SAFETY = 4.0  # bounds of a side estimated beside a kink are taken 4 times wider
+JUMP_KEPT = 0.05  # at a kink the jump seen at a tiny step stays within 5% of the ladder's
+CURVATURE_SLACK = 0.01  # first-order quotients at the tiny step may differ by 1% of the jump
+
+
+def _sides_apart(probe: TensorProbe, flat: np.ndarray, ladder: Ladder) -> tuple[np.ndarray, np.ndarray]:
+    """Where the one-sided derivatives differ beyond their bounds and the threshold, and the
+    tolerance at their mean."""
+    left, right = ladder.left, ladder.right
+    tol_sides = probe.tolerance(flat, 0.5 * (left.value + right.value))
+    return np.abs(right.value - left.value) > SIGNIFICANCE * (left.error + right.error) + tol_sides, tol_sides
+
+
+def sides_differ(probe: TensorProbe, flat: np.ndarray, ladder: Ladder) -> np.ndarray:
+    """Positions in ``flat`` whose one-sided derivatives differ: a kink at the point or near
+    it, which :func:`judge_ladder` tells apart with a pair at a tiny step
+    (:func:`.refine.tiny_pair`, given the jump ``right - left``)."""
+    return np.flatnonzero(_sides_apart(probe, flat, ladder)[0])
+
+
+def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, tiny: Tiny | None) -> Judged:
+    """Verdicts from a ladder's central and one-sided estimates (kinks and corners
+    included). ``tiny``: the tiny-step pair of the coordinates :func:`sides_differ` names
+    (None when it names none). Pure: judging spends no evaluations."""
+    a = probe.a[flat]
+    left, right = ladder.left, ladder.right
+    mid = 0.5 * (left.value + right.value)
+    differ, tol_sides = _sides_apart(probe, flat, ladder)
+    # Smooth, or a corner where only f'' jumps: the sides agree, and their mean is an
+    # estimate of f' that the central tableau (which assumes even powers of h) may not reach.
+    corner = Estimate(mid, np.maximum(left.error, right.error) + 0.5 * np.abs(right.value - left.value))
+    central = _central_where_sides_agree(ladder)
+    best = Estimate.better(central, corner)
+    status = verdicts(probe, a, best, probe.tolerance(flat, best.value))
+    # The sides' mean is f' where f'' jumps at the point; where it jumps anywhere within the
+    # smallest step it may be off by the jump times that step: a failure on the mean must
+    # stand that too (a pass on it, as before, takes the corner at the point).
+    by_corner = corner.error < central.error
+    if ladder.corner_reach is not None:
+        reach = Estimate(mid, corner.error + ladder.corner_reach)
+        withheld = by_corner & (status == FAIL) & (verdicts(probe, a, reach, probe.tolerance(flat, mid)) != FAIL)
+        status[withheld] = INCONCLUSIVE
+    else:
+        withheld = np.zeros(flat.size, dtype=bool)
+    # Sides too uncertain to be told apart, yet further apart than the central bound: at a
+    # kink the central quotients are the sides' mean, whatever their tableau's bound says,
+    # so a value the kink could explain is not a bug on this evidence (a second look off
+    # the point decides, see offpoint.py).
+    gap = np.abs(right.value - left.value)
+    tol_a = probe.tolerance(flat, a)
+    # A side with no trusted entry (an infinite bound), where the gap between the sides is seen
+    # (above the noise) to vanish with the step as a smooth loss's does, shows no kink: the
+    # side merely converges slowly. Two sides with bounds that lie apart still suggest one.
+    vanish = ladder.sides_vanish if ladder.sides_vanish is not None else np.zeros(a.shape, dtype=bool)
+    smooth = vanish & ~(np.isfinite(left.error) & np.isfinite(right.error))
+    # Judged by the central estimate as if it could be trusted: where the sides voided it, the
+    # kink they suggest is the verdict too (so the second look off the point checks it).
+    raw = Estimate.better(ladder.central, corner)
+    raw_fails = verdicts(probe, a, raw, probe.tolerance(flat, raw.value)) == FAIL
+    unresolved = (~differ & ~smooth & (gap > SIGNIFICANCE * raw.error) & (gap > tol_a) & raw_fails
+                  & (status != PASS))
+    margin = tol_a + SIGNIFICANCE * np.maximum(left.error, right.error)
+    between = (a >= np.minimum(left.value, right.value) - margin) & (a <= np.maximum(left.value, right.value) + margin)
+    status[unresolved & between] = KINK
+    # The sides' mean stands for f' where only f'' jumps at the point; where either side's
+    # quotients crossed kinks among the steps, more can lie closer than any step, and a
+    # failure judged by that mean is not evidence of a bug.
+    crossed_left, crossed_right = _crossed(ladder)
+    crowded = (status == FAIL) & by_corner & (crossed_left | crossed_right)
+    status[crowded] = INCONCLUSIVE
+    noisy = ladder.noise_share > 0.5
+    reasons: list[str | None] = [
+        (CROWDED if crowded[k] else CORNER_NEAR if withheld[k] else NOISE if noisy[k] else UNSETTLED)
+        if status[k] == INCONCLUSIVE else None
+        for k in range(flat.size)
+    ]
+    value, error = best.value.copy(), best.error.copy()
+    # One side settles and the other does not: a kink lies within the steps on that other
+    # side, not at the point, and the settled side's derivative is the derivative here.
+    settled_left = (left.error < LOPSIDED * right.error) & (right.error > tol_sides)
+    settled_right = (right.error < LOPSIDED * left.error) & (left.error > tol_sides)
+    # The central tableau is not to be trusted there, unless it settled more tightly than that
+    # side and agrees with it: then the other side merely converges slowly (a smooth loss
+    # whose one-sided expansion starts late), and nothing points at a kink.
+    settled = Estimate(np.where(settled_left, left.value, right.value),
+                       np.where(settled_left, left.error, right.error))
+    lopsided = np.flatnonzero(~differ & (settled_left | settled_right)
+                              & ~_confirms(ladder.central, settled))
+    if lopsided.size:
+        side = Estimate(np.where(settled_left, left.value, right.value)[lopsided],
+                        NEAR_SAFETY * np.where(settled_left, left.error, right.error)[lopsided])
+        status[lopsided] = verdicts(probe, a[lopsided], side, probe.tolerance(flat[lopsided], side.value))
+        value[lopsided], error[lopsided] = side.value, side.error
+        # A value the kink itself could explain is not taken as a bug on this evidence.
+        explained = _within_kink(a, left, right, probe.tolerance(flat, a))[lopsided]
+        status[lopsided[(status[lopsided] == FAIL) & explained]] = KINK
+        own = np.where(settled_left, crossed_left, crossed_right)[lopsided]
+        withdrawn = lopsided[(status[lopsided] == FAIL) & own]  # the settled side crossed kinks too
+        status[withdrawn] = INCONCLUSIVE
+        for k in lopsided.tolist():
+            reasons[k] = (CROWDED if k in withdrawn else NEAR_KINK) if status[k] == INCONCLUSIVE else None
+    which = np.flatnonzero(differ)
+    if which.size:
+        assert tiny is not None and tiny.right.size == which.size
+        _judge_sides(probe, flat, ladder.pick(which), tiny, which, status, value, error, reasons)
+    return Judged(status, Estimate(value, error), tuple(reasons), noisy)
+
+
+def _central_where_sides_agree(ladder: Ladder) -> Estimate:
+    """The central estimate, with no bound where the one-sided quotients were not seen to
+    agree the way a smooth loss's do (:func:`refine.sides_steady`)."""
+    central = ladder.central
+    if ladder.sides_steady is None:
+        return central
+    return Estimate(central.value, np.where(ladder.sides_steady, central.error, np.inf))
+
+
+def _confirms(central: Estimate, side: Estimate) -> np.ndarray:
+    """The central estimate is tighter than ``side`` and agrees with it within their bounds."""
+    agree = np.abs(central.value - side.value) <= SIGNIFICANCE * (central.error + side.error)
+    return agree & (central.error <= side.error)
+
+
+def _one_clean_side(
+    use_left: np.ndarray, use_right: np.ndarray, left: Estimate, right: Estimate, otherwise: Estimate
+) -> Estimate:
+    """The one side that qualifies where exactly one does, else ``otherwise``."""
+    return Estimate.where(use_left & ~use_right, left,
+                          Estimate.where(use_right & ~use_left, right, otherwise))
+
+
+def _within_kink(a: np.ndarray, left: Estimate, right: Estimate, tol: np.ndarray) -> np.ndarray:
+    """The analytic value is one a kink between these one-sided derivatives could give: between
+    them, or, where several kinks meet at the point, between 0 and their sum (see below)."""
+    margin = tol + SIGNIFICANCE * np.maximum(left.error, right.error)
+    total = left.value + right.value
+    low = np.minimum(np.minimum(left.value, right.value), np.minimum(total, 0.0)) - margin
+    high = np.maximum(np.maximum(left.value, right.value), np.maximum(total, 0.0)) + margin
+    return (a >= low) & (a <= high)
+
+
+def _crossed(ladder: Ladder) -> tuple[np.ndarray, np.ndarray]:
+    """Whether each side's quotients crossed a kink among the ladder's steps."""
+    none = np.zeros(ladder.smallest.shape, dtype=bool)
+    return (none if ladder.left_crossed is None else ladder.left_crossed,
+            none if ladder.right_crossed is None else ladder.right_crossed)
+
+
+def _judge_sides(
+    probe: TensorProbe, flat: np.ndarray, ladder: Ladder, tiny: Tiny, which: np.ndarray,
+    status: np.ndarray, value: np.ndarray, error: np.ndarray, reasons: list[str | None],
+) -> None:
+    """Coordinates whose one-sided derivatives differ: a kink at the point, or near it."""
+    f = flat[which]
+    a = probe.a[f]
+    left, right = ladder.left, ladder.right
+    crossed_left, crossed_right = _crossed(ladder)
+    jump = right.value - left.value
+    kept = np.abs(tiny.gap - jump) <= JUMP_KEPT * np.abs(jump) + 4.0 * tiny.one_sided_noise
+    # At the point: the analytic value must lie between the sides (a subgradient). Where
+    # several kinks meet at the point (a max tied in many rows at once, upstream gradients of
+    # both signs), the usual per-kink convention picks one side per kink, and the sum lies
+    # between the sums over any subset of them: from 0 (every kink on its resting side) to
+    # left + right (every kink on its moving side), which can be outside the two one-sided
+    # derivatives when they share a sign. Those extremes are allowed too; a value further
+    # out is taken as a bug.
+    inside = _within_kink(a, left, right, probe.tolerance(f, a))
+    nearer = np.where(np.abs(a - left.value) <= np.abs(a - right.value), left.value, right.value)
+    nearer_error = np.where(np.abs(a - left.value) <= np.abs(a - right.value), left.error, right.error)
+    # Near it: at the tiny step the side that crossed the kink has moved towards the other
+    # side (by jump * distance / step), the clean side has not, and the clean side's
+    # derivative is the derivative at the point. With both clean, the tiny step no longer
+    # reaches the kink and its central difference is smooth.
+    slack = tiny.one_sided_noise + CURVATURE_SLACK * np.abs(jump)
+    clean_right = np.abs(tiny.right - right.value) <= SIGNIFICANCE * (right.error + slack)
+    clean_left = np.abs(tiny.left - left.value) <= SIGNIFICANCE * (left.error + slack)
+    near = _one_clean_side(clean_left, clean_right, left, right, tiny.central)
+    only_left, only_right = clean_left & ~clean_right, clean_right & ~clean_left
+    near_crossed = (only_left & crossed_left) | (only_right & crossed_right)
+    near = Estimate(near.value, NEAR_SAFETY * near.error)
+    near_status = verdicts(probe, a, near, probe.tolerance(f, near.value))
+    for j, k in enumerate(which.tolist()):
+        if kept[j]:
+            # A value outside the sides is a bug only where the steps crossed no other kink:
+            # where they did, more can lie closer than any step, each adding its own jump
+            # (of either sign) to the values a correct gradient may take at the point.
+            crowded = crossed_left[j] | crossed_right[j]
+            status[k] = KINK if inside[j] else INCONCLUSIVE if crowded else FAIL
+            value[k], error[k] = nearer[j], nearer_error[j]
+            reasons[k] = CROWDED if status[k] == INCONCLUSIVE else None
+        elif near_status[j] != PASS and inside[j]:
+            # The jump moved at the tiny step, yet the value lies between the sides: more
+            # kinks meet close to the point (ties in many rows) and no step tells them
+            # apart; the value is consistent with a kink, not evidence of a bug.
+            status[k] = KINK
+            value[k], error[k] = nearer[j], nearer_error[j]
+            reasons[k] = None
+        elif near_status[j] == FAIL and near_crossed[j]:
+            # The side taken as clean crossed kinks of its own among the ladder's steps:
+            # they crowd the point, and the tiny step need not be below the nearest.
+            status[k] = INCONCLUSIVE
+            value[k], error[k] = near.value[j], near.error[j]
+            reasons[k] = CROWDED
+        else:
+            status[k] = near_status[j]
+            value[k], error[k] = near.value[j], near.error[j]
+            reasons[k] = NEAR_KINK if near_status[j] == INCONCLUSIVE else None
+
+
+def judge_sides_apart(
+    probe: TensorProbe, flat: np.ndarray, left: Estimate, right: Estimate
+) -> Judged:
+    """Verdicts from one-sided derivatives taken apart (:func:`refine.one_sided`): both sides
+    decided and agreeing, the better decides; a side that decides alone decides (the other
+    met a kink); sides that disagree are a kink at the point. A value a kink could give
+    is never a failure on this evidence."""
+    a = probe.a[flat]
+    tol = probe.tolerance(flat, a)
+    left = Estimate(left.value, NEAR_SAFETY * left.error)
+    right = Estimate(right.value, NEAR_SAFETY * right.error)
+    decides_left, decides_right = left.error <= tol, right.error <= tol
+    agree = np.abs(left.value - right.value) <= SIGNIFICANCE * (left.error + right.error) + tol
+    chosen = _one_clean_side(decides_left, decides_right, left, right, Estimate.better(left, right))
+    status = verdicts(probe, a, chosen, probe.tolerance(flat, chosen.value))
+    both = decides_left & decides_right
+    status[both & ~agree] = np.where(_within_kink(a, left, right, tol), KINK, FAIL)[both & ~agree]
+    status[~(decides_left | decides_right)] = INCONCLUSIVE
+    status[(status == FAIL) & _within_kink(a, left, right, tol)] = KINK
+    reasons = tuple(NEAR_KINK if s == INCONCLUSIVE else None for s in status)
+    return Judged(status, chosen, reasons, status == INCONCLUSIVE)
