@@ -84,9 +84,9 @@ def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, tiny: Tin
     raw_fails = verdicts(probe, a, raw, probe.tolerance(flat, raw.value)) == FAIL
     unresolved = (~differ & ~smooth & (gap > SIGNIFICANCE * raw.error) & (gap > tol_a) & raw_fails
                   & (status != PASS))
-    margin = tol_a + SIGNIFICANCE * np.maximum(left.error, right.error)
-    between = (a >= np.minimum(left.value, right.value) - margin) & (a <= np.maximum(left.value, right.value) + margin)
-    status[unresolved & between] = KINK
+    # Yet the sides are not seen to differ: a kink is not shown, so such a value is undecided
+    # (a value off both sides, beyond their bounds, keeps its verdict).
+    status[unresolved & _between(a, left, right, tol_a) & _near_a_side(a, left, right, tol_a)] = INCONCLUSIVE
     # The sides' mean stands for f' where only f'' jumps at the point; where either side's
     # quotients crossed kinks among the steps, more can lie closer than any step, and a
     # failure judged by that mean is not evidence of a bug.
@@ -116,9 +116,22 @@ def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, tiny: Tin
                         NEAR_SAFETY * np.where(settled_left, left.error, right.error)[lopsided])
         status[lopsided] = verdicts(probe, a[lopsided], side, probe.tolerance(flat[lopsided], side.value))
         value[lopsided], error[lopsided] = side.value, side.error
-        # A value the kink itself could explain is not taken as a bug on this evidence.
-        explained = _within_kink(a, left, right, probe.tolerance(flat, a))[lopsided]
-        status[lopsided[(status[lopsided] == FAIL) & explained]] = KINK
+        # A value a kink could explain is not taken as a bug on this evidence, where the sides
+        # are seen to differ: beyond both bounds, or, where the unsettled side's quotients
+        # crossed a kink among the steps, its value lies beyond the settled side's bound (then
+        # kinks explain the values :func:`_within_kink` allows, with that bound). Where the
+        # unsettled side is not known well enough to tell, a value it could give is undecided
+        # (a second ladder, and the sides taken apart, look further); a value off sides that
+        # agree is judged by the settled one.
+        tol_a = probe.tolerance(flat, a)
+        explained, undecided = _kink_evidence(a, left, right, tol_a)
+        other_crossed = np.where(settled_left, crossed_right, crossed_left)
+        seen_apart = other_crossed & (np.abs(right.value - left.value) > SIGNIFICANCE * settled.error + tol_a)
+        explained |= seen_apart & _within_kink(a, Estimate(left.value, settled.error),
+                                               Estimate(right.value, settled.error), tol_a)
+        failed = status[lopsided] == FAIL
+        status[lopsided[failed & explained[lopsided]]] = KINK
+        status[lopsided[failed & undecided[lopsided] & ~explained[lopsided]]] = INCONCLUSIVE
         own = np.where(settled_left, crossed_left, crossed_right)[lopsided]
         withdrawn = lopsided[(status[lopsided] == FAIL) & own]  # the settled side crossed kinks too
         status[withdrawn] = INCONCLUSIVE
@@ -152,6 +165,38 @@ def _one_clean_side(
     """The one side that qualifies where exactly one does, else ``otherwise``."""
     return Estimate.where(use_left & ~use_right, left,
                           Estimate.where(use_right & ~use_left, right, otherwise))
+
+
+def _apart(left: Estimate, right: Estimate, tol: np.ndarray) -> np.ndarray:
+    """The one-sided derivatives differ beyond SIGNIFICANCE times their bounds and ``tol``:
+    evidence of a jump in the derivative (a side with an infinite bound shows none)."""
+    with np.errstate(invalid="ignore"):
+        return np.abs(right.value - left.value) > SIGNIFICANCE * (left.error + right.error) + tol
+
+
+def _near_a_side(a: np.ndarray, left: Estimate, right: Estimate, tol: np.ndarray) -> np.ndarray:
+    """The analytic value agrees with one side within ``tol`` and SIGNIFICANCE of its bound."""
+    with np.errstate(invalid="ignore"):
+        return ((np.abs(a - left.value) <= tol + SIGNIFICANCE * left.error)
+                | (np.abs(a - right.value) <= tol + SIGNIFICANCE * right.error))
+
+
+def _between(a: np.ndarray, left: Estimate, right: Estimate, tol: np.ndarray) -> np.ndarray:
+    """The analytic value lies between the sides, within ``tol`` and SIGNIFICANCE of the
+    larger bound."""
+    margin = tol + SIGNIFICANCE * np.maximum(left.error, right.error)
+    return (a >= np.minimum(left.value, right.value) - margin) & (a <= np.maximum(left.value, right.value) + margin)
+
+
+def _kink_evidence(a: np.ndarray, left: Estimate, right: Estimate, tol: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Where a value the one-sided evidence does not pass is a kink, and where undecided.
+    A kink: the sides are seen to differ (:func:`_apart`) and the value is one a kink between
+    them could give (:func:`_within_kink`). Undecided: the sides are not seen to differ, yet
+    the value agrees with one of them within its bound (a side too uncertain to tell a kink
+    from none). Elsewhere the value lies off both sides, which agree with each other as far
+    as their bounds tell: no kink explains it."""
+    apart = _apart(left, right, tol)
+    return apart & _within_kink(a, left, right, tol), ~apart & _near_a_side(a, left, right, tol)
 
 
 def _within_kink(a: np.ndarray, left: Estimate, right: Estimate, tol: np.ndarray) -> np.ndarray:
@@ -199,10 +244,31 @@ def _judge_sides(
     slack = tiny.one_sided_noise + CURVATURE_SLACK * np.abs(jump)
     clean_right = np.abs(tiny.right - right.value) <= SIGNIFICANCE * (right.error + slack)
     clean_left = np.abs(tiny.left - left.value) <= SIGNIFICANCE * (left.error + slack)
+    # Where the jump moved, a value between the sides may still come from kinks crowding the
+    # point; beyond them (between 0 and their sum) only where the tiny step's own sides are seen
+    # to differ (a corner, where only f'' jumps, shows next to no gap there).
+    # A jump within the tiny step itself (its sides apart) is a kink at the point or closer
+    # than any step: a value between the tiny step's own sides is one it could give too.
+    tol_f = probe.tolerance(f, a)
+    tiny_apart = np.abs(tiny.gap) > SIGNIFICANCE * 2.0 * tiny.one_sided_noise + tol_f
+    tiny_inside = _within_kink(a, Estimate(tiny.left, tiny.one_sided_noise),
+                               Estimate(tiny.right, tiny.one_sided_noise), tol_f)
+    moved_inside = np.where(tiny_apart, inside | tiny_inside, _between(a, left, right, tol_f))
     near = _one_clean_side(clean_left, clean_right, left, right, tiny.central)
     only_left, only_right = clean_left & ~clean_right, clean_right & ~clean_left
     near_crossed = (only_left & crossed_left) | (only_right & crossed_right)
-    near = Estimate(near.value, NEAR_SAFETY * near.error)
+    # The clean side is the derivative here as far as its tiny quotient confirms it: to their
+    # difference (and that quotient's rounding), where that is wider than its own bound.
+    confirmed = np.where(only_left, np.abs(tiny.left - left.value),
+                         np.where(only_right, np.abs(tiny.right - right.value), 0.0)) + np.where(
+        only_left | only_right, tiny.one_sided_noise, 0.0)
+    # Neither side clean: the tiny step itself still reaches what the ladder's steps crossed.
+    # Its central quotient's bound is its rounding alone; a corner within the step moves it
+    # by as much as the jump of f'' times the step, which the ladder's reach bounds (at a
+    # larger step than the tiny one).
+    neither = ~clean_left & ~clean_right
+    reach = np.zeros(f.size) if ladder.corner_reach is None else np.nan_to_num(ladder.corner_reach, nan=np.inf)
+    near = Estimate(near.value, np.maximum(NEAR_SAFETY * near.error, confirmed) + np.where(neither, reach, 0.0))
     near_status = verdicts(probe, a, near, probe.tolerance(f, near.value))
     for j, k in enumerate(which.tolist()):
         if kept[j]:
@@ -213,7 +279,7 @@ def _judge_sides(
             status[k] = KINK if inside[j] else INCONCLUSIVE if crowded else FAIL
             value[k], error[k] = nearer[j], nearer_error[j]
             reasons[k] = CROWDED if status[k] == INCONCLUSIVE else None
-        elif near_status[j] != PASS and inside[j]:
+        elif near_status[j] != PASS and moved_inside[j]:
             # The jump moved at the tiny step, yet the value lies between the sides: more
             # kinks meet close to the point (ties in many rows) and no step tells them
             # apart; the value is consistent with a kink, not evidence of a bug.
@@ -237,8 +303,9 @@ def judge_sides_apart(
 ) -> Judged:
     """Verdicts from one-sided derivatives taken apart (:func:`refine.one_sided`): both sides
     decided and agreeing, the better decides; a side that decides alone decides (the other
-    met a kink); sides that disagree are a kink at the point. A value a kink could give
-    is never a failure on this evidence."""
+    met a kink); sides that disagree are a kink at the point. A failure is a kink where the
+    sides are seen to differ and a kink between them could give the value, undecided where
+    they are not and the value agrees with one side within its bound (:func:`_kink_evidence`)."""
     a = probe.a[flat]
     tol = probe.tolerance(flat, a)
     left = Estimate(left.value, NEAR_SAFETY * left.error)
@@ -250,6 +317,8 @@ def judge_sides_apart(
     both = decides_left & decides_right
     status[both & ~agree] = np.where(_within_kink(a, left, right, tol), KINK, FAIL)[both & ~agree]
     status[~(decides_left | decides_right)] = INCONCLUSIVE
-    status[(status == FAIL) & _within_kink(a, left, right, tol)] = KINK
+    explained, undecided = _kink_evidence(a, left, right, tol)
+    status[(status == FAIL) & explained] = KINK
+    status[(status == FAIL) & undecided] = INCONCLUSIVE
     reasons = tuple(NEAR_KINK if s == INCONCLUSIVE else None for s in status)
     return Judged(status, chosen, reasons, status == INCONCLUSIVE)
