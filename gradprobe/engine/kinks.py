@@ -84,13 +84,22 @@ def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, tiny: Tin
     raw_fails = verdicts(probe, a, raw, probe.tolerance(flat, raw.value)) == FAIL
     unresolved = (~differ & ~smooth & (gap > SIGNIFICANCE * raw.error) & (gap > tol_a) & raw_fails
                   & (status != PASS))
-    # Yet the sides are not seen to differ: a kink is not shown, so such a value is undecided
-    # (a value off both sides, beyond their bounds, keeps its verdict).
-    status[unresolved & _between(a, left, right, tol_a) & _near_a_side(a, left, right, tol_a)] = INCONCLUSIVE
+    # Yet the sides are not seen to differ beyond their bounds. Where their quotients crossed
+    # kinks among the steps and their values lie apart beyond the tighter bound (a finite one),
+    # the threshold and what a corner within the steps could make of them (:func:`_cornered`),
+    # the kinks are seen, and explain what :func:`_within_kink` allows with that bound;
+    # elsewhere a kink is not shown, and a value one side could give is undecided (a value
+    # off both sides, beyond their bounds, keeps its verdict).
+    crossed_left, crossed_right = _crossed(ladder)
+    tighter = np.minimum(left.error, right.error)
+    tighter = np.where(np.isfinite(tighter), tighter, 0.0)
+    seen = (crossed_left | crossed_right) & (gap > SIGNIFICANCE * tighter + tol_a + _cornered(ladder))
+    seen &= _within_kink(a, Estimate(left.value, tighter), Estimate(right.value, tighter), tol_a)
+    status[unresolved & seen] = KINK
+    status[unresolved & ~seen & _between(a, left, right, tol_a) & _near_a_side(a, left, right, tol_a)] = INCONCLUSIVE
     # The sides' mean stands for f' where only f'' jumps at the point; where either side's
     # quotients crossed kinks among the steps, more can lie closer than any step, and a
     # failure judged by that mean is not evidence of a bug.
-    crossed_left, crossed_right = _crossed(ladder)
     crowded = (status == FAIL) & by_corner & (crossed_left | crossed_right)
     status[crowded] = INCONCLUSIVE
     noisy = ladder.noise_share > 0.5
@@ -126,7 +135,8 @@ def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, tiny: Tin
         tol_a = probe.tolerance(flat, a)
         explained, undecided = _kink_evidence(a, left, right, tol_a)
         other_crossed = np.where(settled_left, crossed_right, crossed_left)
-        seen_apart = other_crossed & (np.abs(right.value - left.value) > SIGNIFICANCE * settled.error + tol_a)
+        seen_apart = other_crossed & (np.abs(right.value - left.value)
+                                      > SIGNIFICANCE * settled.error + tol_a + _cornered(ladder))
         explained |= seen_apart & _within_kink(a, Estimate(left.value, settled.error),
                                                Estimate(right.value, settled.error), tol_a)
         failed = status[lopsided] == FAIL
@@ -209,6 +219,14 @@ def _within_kink(a: np.ndarray, left: Estimate, right: Estimate, tol: np.ndarray
     return (a >= low) & (a <= high)
 
 
+def _cornered(ladder: Ladder) -> np.ndarray:
+    """How far apart a corner (a jump of f'' only) within the ladder's smallest step can set
+    the sides' extrapolations: the ladder's corner reach (:func:`.refine.corner_reach`)."""
+    if ladder.corner_reach is None:
+        return np.zeros(ladder.smallest.shape)
+    return np.nan_to_num(ladder.corner_reach, nan=np.inf)
+
+
 def _crossed(ladder: Ladder) -> tuple[np.ndarray, np.ndarray]:
     """Whether each side's quotients crossed a kink among the ladder's steps."""
     none = np.zeros(ladder.smallest.shape, dtype=bool)
@@ -267,8 +285,8 @@ def _judge_sides(
     # by as much as the jump of f'' times the step, which the ladder's reach bounds (at a
     # larger step than the tiny one).
     neither = ~clean_left & ~clean_right
-    reach = np.zeros(f.size) if ladder.corner_reach is None else np.nan_to_num(ladder.corner_reach, nan=np.inf)
-    near = Estimate(near.value, np.maximum(NEAR_SAFETY * near.error, confirmed) + np.where(neither, reach, 0.0))
+    near = Estimate(near.value, np.maximum(NEAR_SAFETY * near.error, confirmed)
+                    + np.where(neither, _cornered(ladder), 0.0))
     near_status = verdicts(probe, a, near, probe.tolerance(f, near.value))
     for j, k in enumerate(which.tolist()):
         if kept[j]:
