@@ -19,6 +19,7 @@ from ..common.status import FAIL, INCONCLUSIVE, KINK, PASS
 from .ladder import Estimate
 from .probe import TensorProbe
 from .refine import Ladder, Tiny
+from .kink_evidence import between, cornered, crossed, kink_evidence, near_a_side, within_kink
 from .verdict import (CORNER_NEAR, CROWDED, NEAR_KINK, NOISE, SIGNIFICANCE, UNSETTLED, Judged,
                       verdicts)
 
@@ -86,17 +87,17 @@ def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, tiny: Tin
                   & (status != PASS))
     # Yet the sides are not seen to differ beyond their bounds. Where their quotients crossed
     # kinks among the steps and their values lie apart beyond the tighter bound (a finite one),
-    # the threshold and what a corner within the steps could make of them (:func:`_cornered`),
-    # the kinks are seen, and explain what :func:`_within_kink` allows with that bound;
+    # the threshold and what a corner within the steps could make of them (:func:`cornered`),
+    # the kinks are seen, and explain what :func:`within_kink` allows with that bound;
     # elsewhere a kink is not shown, and a value one side could give is undecided (a value
     # off both sides, beyond their bounds, keeps its verdict).
-    crossed_left, crossed_right = _crossed(ladder)
+    crossed_left, crossed_right = crossed(ladder)
     tighter = np.minimum(left.error, right.error)
     tighter = np.where(np.isfinite(tighter), tighter, 0.0)
-    seen = (crossed_left | crossed_right) & (gap > SIGNIFICANCE * tighter + tol_a + _cornered(ladder))
-    seen &= _within_kink(a, Estimate(left.value, tighter), Estimate(right.value, tighter), tol_a)
+    seen = (crossed_left | crossed_right) & (gap > SIGNIFICANCE * tighter + tol_a + cornered(ladder))
+    seen &= within_kink(a, Estimate(left.value, tighter), Estimate(right.value, tighter), tol_a)
     status[unresolved & seen] = KINK
-    status[unresolved & ~seen & _between(a, left, right, tol_a) & _near_a_side(a, left, right, tol_a)] = INCONCLUSIVE
+    status[unresolved & ~seen & between(a, left, right, tol_a) & near_a_side(a, left, right, tol_a)] = INCONCLUSIVE
     # The sides' mean stands for f' where only f'' jumps at the point; where either side's
     # quotients crossed kinks among the steps, more can lie closer than any step, and a
     # failure judged by that mean is not evidence of a bug.
@@ -128,16 +129,16 @@ def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, tiny: Tin
         # A value a kink could explain is not taken as a bug on this evidence, where the sides
         # are seen to differ: beyond both bounds, or, where the unsettled side's quotients
         # crossed a kink among the steps, its value lies beyond the settled side's bound (then
-        # kinks explain the values :func:`_within_kink` allows, with that bound). Where the
+        # kinks explain the values :func:`within_kink` allows, with that bound). Where the
         # unsettled side is not known well enough to tell, a value it could give is undecided
         # (a second ladder, and the sides taken apart, look further); a value off sides that
         # agree is judged by the settled one.
         tol_a = probe.tolerance(flat, a)
-        explained, undecided = _kink_evidence(a, left, right, tol_a)
+        explained, undecided = kink_evidence(a, left, right, tol_a)
         other_crossed = np.where(settled_left, crossed_right, crossed_left)
         seen_apart = other_crossed & (np.abs(right.value - left.value)
-                                      > SIGNIFICANCE * settled.error + tol_a + _cornered(ladder))
-        explained |= seen_apart & _within_kink(a, Estimate(left.value, settled.error),
+                                      > SIGNIFICANCE * settled.error + tol_a + cornered(ladder))
+        explained |= seen_apart & within_kink(a, Estimate(left.value, settled.error),
                                                Estimate(right.value, settled.error), tol_a)
         failed = status[lopsided] == FAIL
         status[lopsided[failed & explained[lopsided]]] = KINK
@@ -177,63 +178,6 @@ def _one_clean_side(
                           Estimate.where(use_right & ~use_left, right, otherwise))
 
 
-def _apart(left: Estimate, right: Estimate, tol: np.ndarray) -> np.ndarray:
-    """The one-sided derivatives differ beyond SIGNIFICANCE times their bounds and ``tol``:
-    evidence of a jump in the derivative (a side with an infinite bound shows none)."""
-    with np.errstate(invalid="ignore"):
-        return np.abs(right.value - left.value) > SIGNIFICANCE * (left.error + right.error) + tol
-
-
-def _near_a_side(a: np.ndarray, left: Estimate, right: Estimate, tol: np.ndarray) -> np.ndarray:
-    """The analytic value agrees with one side within ``tol`` and SIGNIFICANCE of its bound."""
-    with np.errstate(invalid="ignore"):
-        return ((np.abs(a - left.value) <= tol + SIGNIFICANCE * left.error)
-                | (np.abs(a - right.value) <= tol + SIGNIFICANCE * right.error))
-
-
-def _between(a: np.ndarray, left: Estimate, right: Estimate, tol: np.ndarray) -> np.ndarray:
-    """The analytic value lies between the sides, within ``tol`` and SIGNIFICANCE of the
-    larger bound."""
-    margin = tol + SIGNIFICANCE * np.maximum(left.error, right.error)
-    return (a >= np.minimum(left.value, right.value) - margin) & (a <= np.maximum(left.value, right.value) + margin)
-
-
-def _kink_evidence(a: np.ndarray, left: Estimate, right: Estimate, tol: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Where a value the one-sided evidence does not pass is a kink, and where undecided.
-    A kink: the sides are seen to differ (:func:`_apart`) and the value is one a kink between
-    them could give (:func:`_within_kink`). Undecided: the sides are not seen to differ, yet
-    the value agrees with one of them within its bound (a side too uncertain to tell a kink
-    from none). Elsewhere the value lies off both sides, which agree with each other as far
-    as their bounds tell: no kink explains it."""
-    apart = _apart(left, right, tol)
-    return apart & _within_kink(a, left, right, tol), ~apart & _near_a_side(a, left, right, tol)
-
-
-def _within_kink(a: np.ndarray, left: Estimate, right: Estimate, tol: np.ndarray) -> np.ndarray:
-    """The analytic value is one a kink between these one-sided derivatives could give: between
-    them, or, where several kinks meet at the point, between 0 and their sum (see below)."""
-    margin = tol + SIGNIFICANCE * np.maximum(left.error, right.error)
-    total = left.value + right.value
-    low = np.minimum(np.minimum(left.value, right.value), np.minimum(total, 0.0)) - margin
-    high = np.maximum(np.maximum(left.value, right.value), np.maximum(total, 0.0)) + margin
-    return (a >= low) & (a <= high)
-
-
-def _cornered(ladder: Ladder) -> np.ndarray:
-    """How far apart a corner (a jump of f'' only) within the ladder's smallest step can set
-    the sides' extrapolations: the ladder's corner reach (:func:`.refine.corner_reach`)."""
-    if ladder.corner_reach is None:
-        return np.zeros(ladder.smallest.shape)
-    return np.nan_to_num(ladder.corner_reach, nan=np.inf)
-
-
-def _crossed(ladder: Ladder) -> tuple[np.ndarray, np.ndarray]:
-    """Whether each side's quotients crossed a kink among the ladder's steps."""
-    none = np.zeros(ladder.smallest.shape, dtype=bool)
-    return (none if ladder.left_crossed is None else ladder.left_crossed,
-            none if ladder.right_crossed is None else ladder.right_crossed)
-
-
 def _judge_sides(
     probe: TensorProbe, flat: np.ndarray, ladder: Ladder, tiny: Tiny, which: np.ndarray,
     status: np.ndarray, value: np.ndarray, error: np.ndarray, reasons: list[str | None],
@@ -242,7 +186,7 @@ def _judge_sides(
     f = flat[which]
     a = probe.a[f]
     left, right = ladder.left, ladder.right
-    crossed_left, crossed_right = _crossed(ladder)
+    crossed_left, crossed_right = crossed(ladder)
     jump = right.value - left.value
     kept = np.abs(tiny.gap - jump) <= JUMP_KEPT * np.abs(jump) + 4.0 * tiny.one_sided_noise
     # At the point: the analytic value must lie between the sides (a subgradient). Where
@@ -252,7 +196,7 @@ def _judge_sides(
     # left + right (every kink on its moving side), which can be outside the two one-sided
     # derivatives when they share a sign. Those extremes are allowed too; a value further
     # out is taken as a bug.
-    inside = _within_kink(a, left, right, probe.tolerance(f, a))
+    inside = within_kink(a, left, right, probe.tolerance(f, a))
     nearer = np.where(np.abs(a - left.value) <= np.abs(a - right.value), left.value, right.value)
     nearer_error = np.where(np.abs(a - left.value) <= np.abs(a - right.value), left.error, right.error)
     # Near it: at the tiny step the side that crossed the kink has moved towards the other
@@ -269,9 +213,9 @@ def _judge_sides(
     # than any step: a value between the tiny step's own sides is one it could give too.
     tol_f = probe.tolerance(f, a)
     tiny_apart = np.abs(tiny.gap) > SIGNIFICANCE * 2.0 * tiny.one_sided_noise + tol_f
-    tiny_inside = _within_kink(a, Estimate(tiny.left, tiny.one_sided_noise),
+    tiny_inside = within_kink(a, Estimate(tiny.left, tiny.one_sided_noise),
                                Estimate(tiny.right, tiny.one_sided_noise), tol_f)
-    moved_inside = np.where(tiny_apart, inside | tiny_inside, _between(a, left, right, tol_f))
+    moved_inside = np.where(tiny_apart, inside | tiny_inside, between(a, left, right, tol_f))
     near = _one_clean_side(clean_left, clean_right, left, right, tiny.central)
     only_left, only_right = clean_left & ~clean_right, clean_right & ~clean_left
     near_crossed = (only_left & crossed_left) | (only_right & crossed_right)
@@ -286,7 +230,7 @@ def _judge_sides(
     # larger step than the tiny one).
     neither = ~clean_left & ~clean_right
     near = Estimate(near.value, np.maximum(NEAR_SAFETY * near.error, confirmed)
-                    + np.where(neither, _cornered(ladder), 0.0))
+                    + np.where(neither, cornered(ladder), 0.0))
     near_status = verdicts(probe, a, near, probe.tolerance(f, near.value))
     for j, k in enumerate(which.tolist()):
         if kept[j]:
@@ -323,7 +267,7 @@ def judge_sides_apart(
     decided and agreeing, the better decides; a side that decides alone decides (the other
     met a kink); sides that disagree are a kink at the point. A failure is a kink where the
     sides are seen to differ and a kink between them could give the value, undecided where
-    they are not and the value agrees with one side within its bound (:func:`_kink_evidence`)."""
+    they are not and the value agrees with one side within its bound (:func:`kink_evidence`)."""
     a = probe.a[flat]
     tol = probe.tolerance(flat, a)
     left = Estimate(left.value, NEAR_SAFETY * left.error)
@@ -333,9 +277,9 @@ def judge_sides_apart(
     chosen = _one_clean_side(decides_left, decides_right, left, right, Estimate.better(left, right))
     status = verdicts(probe, a, chosen, probe.tolerance(flat, chosen.value))
     both = decides_left & decides_right
-    status[both & ~agree] = np.where(_within_kink(a, left, right, tol), KINK, FAIL)[both & ~agree]
+    status[both & ~agree] = np.where(within_kink(a, left, right, tol), KINK, FAIL)[both & ~agree]
     status[~(decides_left | decides_right)] = INCONCLUSIVE
-    explained, undecided = _kink_evidence(a, left, right, tol)
+    explained, undecided = kink_evidence(a, left, right, tol)
     status[(status == FAIL) & explained] = KINK
     status[(status == FAIL) & undecided] = INCONCLUSIVE
     reasons = tuple(NEAR_KINK if s == INCONCLUSIVE else None for s in status)
