@@ -25,6 +25,7 @@ from .staircase import flat_through_sixteen_bits
 from .steps import SETTLE_FRACTION, gap_suspects, largest_smooth_step, start_steps, steps_down
 from .narrow import wide_estimate
 from .own_rounding import judged_on_own_rounding
+from .sixteen import measured_passes
 from .richardson import first_steps, joined, rows_of, settled, two_rows_settle
 from ..common.roundoff import is_narrow
 from .kinks import judge_ladder, judge_sides_apart, sides_differ
@@ -206,7 +207,8 @@ def _widened(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken: list[T
         return judged
     wide = judge_plain(probe, flat[noisy], wide_estimate(probe, flat[noisy], taken))
     decided = np.flatnonzero(wide.status != INCONCLUSIVE)
-    return judged_on_own_rounding(probe, flat, judged.merged(noisy[decided], wide.pick(decided)), taken)
+    judged = judged_on_own_rounding(probe, flat, judged.merged(noisy[decided], wide.pick(decided)), taken)
+    return measured_passes(probe, flat, judged, taken)  # 16-bit arithmetic: passes on its measured rounding
 
 
 def _validated_failures(probe: TensorProbe, flat: np.ndarray, first: Pairs, h: np.ndarray, plain: Judged) -> Judged:

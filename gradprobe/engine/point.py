@@ -96,6 +96,7 @@ class Point:
     target_scale: float = 0.0
     _jitter: dict[str, np.ndarray] | None = field(default=None, repr=False)
     _narrow_jitter: dict[str, np.ndarray] | None = field(default=None, repr=False)
+    _coarse_jitter: dict[str, np.ndarray] | None = field(default=None, repr=False)
     _narrow_loss: tuple[float, float] | None = field(default=None, repr=False)
 
     @property
@@ -132,7 +133,7 @@ class Point:
         measured spreads, and a float64 run's workspace (memory: a second look's moved point
         is prepared next). The point then evaluates its own workspace, sharing the count."""
         self.keep_gradients(set())
-        self._jitter = self._narrow_jitter = None
+        self._jitter = self._narrow_jitter = self._coarse_jitter = None
         loss = self.evaluator.loss
         loss.release()
         if self.numerics.workspace is not self.ws:
@@ -147,6 +148,15 @@ class Point:
         if self._jitter is None:
             self._jitter = self._measured_jitter(self.numerics.workspace, self.gradients)
         return self._jitter.get(name)
+
+    def coarse_jitter(self, name: str) -> np.ndarray | None:
+        """As :meth:`jitter`, the points JITTER_ULPS units of the compute type's grid apart
+        where it is coarser than the arrays' (code rounding to 16 bits inside): the rounding
+        backward's own computation accumulates, which moves finer than its grid never show."""
+        if self._coarse_jitter is None:
+            self._coarse_jitter = self._measured_jitter(self.numerics.workspace, self.gradients,
+                                                        self.numerics.dtype)
+        return self._coarse_jitter.get(name)
 
     def narrow_spread(self, name: str) -> np.ndarray | None:
         """For narrow code checked on its float64 run, per flat coordinate of ``name``: how far
@@ -163,7 +173,8 @@ class Point:
                                    for k in set(fuzz) | set(moved)}
         return self._narrow_jitter.get(name)
 
-    def _measured_jitter(self, ws: Workspace, base: dict[str, np.ndarray]) -> dict[str, np.ndarray]:
+    def _measured_jitter(self, ws: Workspace, base: dict[str, np.ndarray],
+                         grid: np.dtype | None = None) -> dict[str, np.ndarray]:
         """The largest of |g(x + (k+2)d) - 2 g(x + (k+1)d) + g(x + kd)|, k = 1..JITTER_SPAN-2:
         second differences cancel how the gradient really changes along d and keep how its
         rounding varies from point to point; the points lie on one side of a kink at the
@@ -174,7 +185,10 @@ class Point:
         for name in base:
             x = ws.owners[name]
             signs = tensor_rng(self.seed, name, "jitter").choice([-1.0, 1.0], size=x.shape)
-            steps[name] = JITTER_ULPS * np.spacing(np.abs(x).astype(x.dtype)) * signs
+            spacing = np.spacing(np.abs(x).astype(x.dtype))
+            if grid is not None and np.finfo(grid).eps > np.finfo(x.dtype).eps:  # the grid it computes on
+                spacing = np.maximum(spacing, np.abs(np.spacing(np.abs(x).astype(grid))).astype(x.dtype))
+            steps[name] = JITTER_ULPS * spacing * signs
         fuzz: dict[str, np.ndarray] = {}
         before: list[dict[str, np.ndarray]] = []  # the last two points' gradients only
         absent: set[str] = set()  # tensors some point gave no usable gradient for
@@ -200,7 +214,7 @@ class Point:
         return TensorProbe(self.evaluator, name, n.workspace.owners[name].reshape(-1),
                            self.gradients[name], n.f0, n.dtype, threshold, self.target_scale,
                            loss_scale=self.loss_scale, narrow=self._narrow_probe(name),
-                           jitter=lambda: self.jitter(name))
+                           jitter=lambda: self.jitter(name), own_rounding=lambda: self.coarse_jitter(name))
 
     def _narrow_probe(self, name: str) -> TensorProbe | None:
         """For narrow code checked on its float64 run: the tensor probed on the narrow code

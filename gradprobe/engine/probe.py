@@ -135,6 +135,7 @@ class TensorProbe:
         loss_scale: float | None = None,
         narrow: TensorProbe | None = None,
         jitter: Callable[[], np.ndarray | None] | None = None,
+        own_rounding: Callable[[], np.ndarray | None] | None = None,
     ) -> None:
         self.evaluator = evaluator
         self.tensor = tensor
@@ -160,6 +161,9 @@ class TensorProbe:
         # How much backward's rounding varies near the point (measured on first use, see
         # point.Point.jitter).
         self.jitter = jitter
+        # The same on the grid of the type it computes in, where coarser (16-bit code inside
+        # wider arrays; point.Point.coarse_jitter).
+        self.own_rounding = own_rounding
 
     @property
     def size(self) -> int:

@@ -1,0 +1,128 @@
+"""16-bit code judged on its own arithmetic: a coordinate's rounding measured at the wide
+steps it is estimated on, so that a correct gradient can pass.
+
+Code that rounds to bfloat16 or float16 inside wider arrays has a loss that rounds at some
+units of the 16-bit type. Assumed as eps * max(|f|, the loss scale) for every loss value,
+that rounding hides the threshold at every wide step of most coordinates. Yet a pair moving
+one coordinate changes only the terms that coordinate reaches: the rounding of every other
+term is the same bits on both sides and cancels in the quotient. What is left is measured
+on the coordinate, at the steps used, never assumed:
+
+At each of LEVELS steps s, 2s, 4s, 8s (the widest the largest step of the wide estimate
+inside the params' scale), JITTERS central quotients at steps s (1 - k JITTER), k =
+0..JITTERS-1 (their moves differ by an eighth of the step, GRID_UNITS units of the grid at
+least, else the level's rounding is unknown: each term's rounding is drawn afresh, not read
+along one tooth of its staircase). A level's quotient is their mean (at the root mean
+square of their steps, where its truncation c2 s**2 is the mean of theirs); its rounding is
+MARGIN times the largest distance of one of them from the mean, over sqrt(JITTERS) (a
+conservative quantile: about twice the mean's spread, and the spread also carries how
+truncation changes across the jitter). The one-sided quotients' gap likewise. The levels
+are windows of :func:`.narrow.plain_windowed`, whose error model (quotients that follow
+c2 s**2, a gap that shrinks with the step, the bound WIDE_SAFETY times the measured
+curvature plus WIDE_NOISE times the rounding) is checked on the coordinate as for every
+wide estimate; the window with the smallest bound.
+
+A coordinate passes where the analytic value lies within the threshold of that estimate and
+the bound resolves the threshold: |a - n| <= tol and bound <= tol, tol the threshold times
+the coordinate's scale plus the rounding backward's own computation accumulates, measured
+(point.Point.coarse_jitter: how much the analytic value varies between points a few units
+of the 16-bit grid apart; it is not defined more finely). This only ever passes: a
+coordinate it does not pass stays as it was (a failure keeps needing the assumed
+rounding's bound), so recall is what it was.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..common.roundoff import is_narrow, unit_roundoff
+from ..common.status import INCONCLUSIVE, PASS
+from .ladder import Estimate
+from .narrow import WIDE_FIRST, WIDE_LAST, WIDE_ROWS, plain_windowed
+from .probe import TensorProbe
+from .refine import Taken, pairs_reusing
+from .verdict import NOISE, Judged
+
+LEVELS = 4  # steps s, 2s, 4s, 8s: two windows of plain_windowed
+JITTERS = 4  # quotients per level
+JITTER = 1.0 / 8.0  # of the level's step, between consecutive jittered steps
+GRID_UNITS = 4.0  # and at least this many units of the grid the forward sees
+MARGIN = 2.0  # a level's rounding: this many times the largest distance from the mean, over sqrt(JITTERS)
+
+
+def coarse(probe: TensorProbe) -> bool:
+    """16-bit arithmetic judged on its own (no wider run)."""
+    return (probe.narrow is None and is_narrow(probe.compute_dtype)
+            and unit_roundoff(probe.compute_dtype) >= unit_roundoff(np.float16))
+
+
+def _widest(probe: TensorProbe, flat: np.ndarray) -> np.ndarray:
+    """The widest step of :func:`.narrow.wide_estimate` within the params' scale (its
+    smallest where none is)."""
+    h0 = probe.prior_steps(flat)
+    scale = np.maximum(np.abs(probe.x[flat].astype(np.float64)), probe.x_scale)
+    top = h0 * 2.0 ** (WIDE_LAST + WIDE_ROWS - 1)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        halvings = np.where(top > scale, np.ceil(np.log2(top / np.where(scale > 0, scale, 1.0))), 0.0)
+    return np.maximum(top * 2.0 ** -np.clip(halvings, 0.0, None), h0 * 2.0**WIDE_FIRST)
+
+
+def _mean_and_noise(q: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Over axis 1 (the jitter): the mean, and its rounding as the module measures it."""
+    mean = q.mean(axis=1)
+    spread = np.abs(q - mean[:, None, :]).max(axis=1)
+    return mean, MARGIN * spread / np.sqrt(q.shape[1])
+
+
+def jittered_estimate(probe: TensorProbe, flat: np.ndarray, taken: list[Taken]) -> Estimate:
+    """The derivative at ``flat`` from jittered quotients at three wide levels (see the
+    module): LEVELS * JITTERS pairs a coordinate, those ``taken`` before not again."""
+    n = flat.size
+    top = _widest(probe, flat)
+    grid = probe.resolution(flat)
+    levels = top * 2.0 ** -np.arange(LEVELS - 1, -1, -1.0)[:, None]  # (levels, n), ascending
+    apart = JITTER * levels
+    fresh = apart >= GRID_UNITS * grid  # per level; else its roundings are not drawn afresh
+    steps = levels[:, None, :] - np.arange(JITTERS)[None, :, None] * apart[:, None, :]  # (levels, jitters, n)
+    where = np.tile(flat, LEVELS * JITTERS)
+    p = pairs_reusing(probe, where, steps.reshape(-1), taken)
+    taken.append((where, steps.reshape(-1), p))
+    shape = (LEVELS, JITTERS, n)
+    with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+        central = p.central.reshape(shape)
+        right, left = (q.reshape(shape) for q in p.sides(probe.f0))
+        d, e = _mean_and_noise(central)
+        gap, gap_noise = _mean_and_noise(right - left)
+        e, gap_noise = np.where(fresh, e, np.inf), np.where(fresh, gap_noise, np.inf)
+        hp, hm = p.h_plus.reshape(shape), p.h_minus.reshape(shape)
+        s = np.sqrt(np.mean((0.5 * (hp + hm)) ** 2, axis=1))
+        asymmetry = np.mean(np.abs(hp - hm) / np.maximum(hp + hm, 1e-300), axis=1)
+    scale = np.maximum(np.abs(probe.x[flat].astype(np.float64)), probe.x_scale)
+    # The gap's own rounding: at most twice the quotients' (each side's rounding over h,
+    # not 2h), and what its jitter shows.
+    side_noise = np.maximum(gap_noise, 2.0 * e)
+    return plain_windowed(d, s, e, gap, side_noise, asymmetry, scale)
+
+
+def measured_passes(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken: list[Taken]) -> Judged:
+    """``judged`` with coordinates that rounding noise left undecided passed where the
+    jittered estimate resolves the threshold and agrees within it (see the module)."""
+    if not coarse(probe):
+        return judged
+    noisy = np.flatnonzero((judged.status == INCONCLUSIVE)
+                           & np.array([r == NOISE for r in judged.reasons], dtype=bool))
+    if noisy.size == 0:
+        return judged
+    est = jittered_estimate(probe, flat[noisy], taken)
+    a = probe.a[flat[noisy]]
+    tol = probe.tolerance(flat[noisy], est.value)
+    fuzz = probe.own_rounding() if probe.own_rounding is not None else None
+    if fuzz is not None:  # the analytic value is not defined more finely than its own rounding
+        tol = tol + fuzz[flat[noisy]]
+    passed = np.isfinite(est.error) & (np.abs(a - est.value) <= tol) & (est.error <= tol)
+    if not passed.any():
+        return judged
+    which = noisy[passed]
+    now = Judged(np.full(which.size, PASS, dtype=judged.status.dtype), est.pick(np.flatnonzero(passed)),
+                 (None,) * which.size, np.zeros(which.size, dtype=bool))
+    return judged.merged(which, now)
