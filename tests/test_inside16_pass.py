@@ -197,8 +197,8 @@ def test_a_framework_rule_in_bfloat16_inside_passes_when_right(make, factor):
 # Correct cases of the adversarial generator (category inside16: float64 or float32 arrays
 # cast to bfloat16 or float16 inside) once inconclusive for rounding noise at every step,
 # now passed where the coordinate's rounding measured at the wide steps resolves the
-# threshold. 6, 17, 228: bfloat16; 69, 7: float16. Reference: mpmath through the judge.
-NOW_PASSING_SEEDS = [6, 17, 69, 228, 7]
+# threshold (all three float16 inside float64 or float32). Reference: mpmath through the judge.
+NOW_PASSING_SEEDS = [6, 202, 228]
 
 
 @pytest.mark.parametrize("seed", NOW_PASSING_SEEDS)

@@ -16,7 +16,11 @@ along one tooth of its staircase). A level's quotient is their mean (at the root
 square of their steps, where its truncation c2 s**2 is the mean of theirs); its rounding is
 MARGIN times the largest distance of one of them from the mean, over sqrt(JITTERS) (a
 conservative quantile: about twice the mean's spread, and the spread also carries how
-truncation changes across the jitter). The one-sided quotients' gap likewise. The levels
+truncation changes across the jitter). One loss value's rounding (a quotient's times its
+step) is the largest any level shows, taken at every level: a level whose roundings move
+together shows too little, one whose quotients all agree none, and where no level shows
+any there is no estimate. The one-sided quotients' gap likewise (at least twice the
+quotients' rounding). The levels
 are windows of :func:`.narrow.plain_windowed`, whose error model (quotients that follow
 c2 s**2, a gap that shrinks with the step, the bound WIDE_SAFETY times the measured
 curvature plus WIDE_NOISE times the rounding) is checked on the coordinate as for every
@@ -26,7 +30,11 @@ A coordinate passes where the analytic value lies within the threshold of that e
 the bound resolves the threshold: |a - n| <= tol and bound <= tol, tol the threshold times
 the coordinate's scale plus the rounding backward's own computation accumulates, measured
 (point.Point.coarse_jitter: how much the analytic value varies between points a few units
-of the 16-bit grid apart; it is not defined more finely). This only ever passes: a
+of the 16-bit grid apart; it is not defined more finely), and where the estimate lies
+within both bounds of the one the coordinate was left undecided with (a kink between the
+point and the wide steps, over which the wide quotients average, puts them apart; checked
+against mpmath on the adversarial inside16 set, the bounds hold wherever no kink lies within
+the steps). This only ever passes: a
 coordinate it does not pass stays as it was (a failure keeps needing the assumed
 rounding's bound), so recall is what it was.
 """
@@ -93,15 +101,19 @@ def jittered_estimate(probe: TensorProbe, flat: np.ndarray, taken: list[Taken]) 
         right, left = (q.reshape(shape) for q in p.sides(probe.f0))
         d, e = _mean_and_noise(central)
         gap, gap_noise = _mean_and_noise(right - left)
-        e, gap_noise = np.where(fresh, e, np.inf), np.where(fresh, gap_noise, np.inf)
         hp, hm = p.h_plus.reshape(shape), p.h_minus.reshape(shape)
         s = np.sqrt(np.mean((0.5 * (hp + hm)) ** 2, axis=1))
+        # One loss value's rounding (quotient's times step): the largest any level shows, for
+        # every level (one whose roundings move together shows too little of it, one whose
+        # quotients all agree none; where no level shows any, it is unknown). The gap's: at
+        # least twice the quotients' (each side's rounding over h, not 2h).
+        shown = fresh & (e > 0)
+        value = np.where(shown.any(axis=0), np.max(np.where(shown, e * s, 0.0), axis=0), np.inf)
+        e = np.where(fresh, value / s, np.inf)
+        gap_noise = np.where(fresh, np.maximum(np.max(np.where(fresh, gap_noise * s, 0.0), axis=0) / s, 2.0 * e), np.inf)
         asymmetry = np.mean(np.abs(hp - hm) / np.maximum(hp + hm, 1e-300), axis=1)
     scale = np.maximum(np.abs(probe.x[flat].astype(np.float64)), probe.x_scale)
-    # The gap's own rounding: at most twice the quotients' (each side's rounding over h,
-    # not 2h), and what its jitter shows.
-    side_noise = np.maximum(gap_noise, 2.0 * e)
-    return plain_windowed(d, s, e, gap, side_noise, asymmetry, scale)
+    return plain_windowed(d, s, e, gap, gap_noise, asymmetry, scale)
 
 
 def measured_passes(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken: list[Taken]) -> Judged:
@@ -119,7 +131,12 @@ def measured_passes(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken:
     fuzz = probe.own_rounding() if probe.own_rounding is not None else None
     if fuzz is not None:  # the analytic value is not defined more finely than its own rounding
         tol = tol + fuzz[flat[noisy]]
-    passed = np.isfinite(est.error) & (np.abs(a - est.value) <= tol) & (est.error <= tol)
+    # And it continues what the smaller steps saw: within both bounds of the estimate the
+    # coordinate was left undecided with (a kink between the point and the wide steps, which
+    # the wide quotients average over, puts them apart).
+    before = judged.estimate.pick(noisy)
+    continues = np.abs(est.value - before.value) <= est.error + before.error
+    passed = np.isfinite(est.error) & (np.abs(a - est.value) <= tol) & (est.error <= tol) & continues
     if not passed.any():
         return judged
     which = noisy[passed]
