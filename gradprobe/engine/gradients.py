@@ -58,8 +58,9 @@ def validate(result: Any, ws: Workspace, own_type: bool = False) -> Gradients:
     :func:`widened` to turn into float64 unless a float64 run replaces them."""
     if not isinstance(result, Mapping):
         raise BadOutputError(
-            f"backward must return a mapping of name -> gradient, not a {type(result).__name__}",
-            value=result,
+            "backward must return a mapping of name -> gradient, not "
+            + ("None" if result is None else f"a {type(result).__name__}"),
+            value=result, fix="return a dict nested like params, e.g. return {'w': grad_w}",
         )
     flat = flatten(result)
     names = set(flat)

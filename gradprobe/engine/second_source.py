@@ -20,6 +20,10 @@ from ..common.tensors import Workspace, flatten, is_float, nested
 from .gradients import validate
 from .preflight import call_backward
 
+HVP_FIX = "return H v as a dict nested like the params, e.g. return {'w': hv_w}"
+HESSIAN_FIX = ("return a finite square array of side n, n the number of floating-point param "
+               "elements")
+
 
 @dataclass(frozen=True)
 class Layout:
@@ -90,7 +94,8 @@ class GradientField:
         missing = [n for n in self.layout.names if n not in grads.values]
         if missing:
             raise BadOutputError(f"backward gave no usable gradient for {missing[0]} at a point "
-                                 "moved to check second derivatives")
+                                 "moved to check second derivatives",
+                                 fix="backward must return a finite gradient for every param there too")
         return self.layout.join(grads.values)
 
 
@@ -129,7 +134,7 @@ class HvpSource(HessianSource):
             raise UserCodeError(f"{self.form} raised {summarise(exc)}") from exc
         if not isinstance(out, Mapping):
             raise BadOutputError(f"hvp must return a mapping nested like the params, not a "
-                                 f"{type(out).__name__}", value=out)
+                                 f"{type(out).__name__}", value=out, fix=HVP_FIX)
         flat = flatten(out)
         result = np.zeros(self.layout.n)
         for name, shape in zip(self.layout.names, self.layout.shapes):
@@ -167,14 +172,14 @@ class DenseSource(HessianSource):
             matrix = np.asarray(out, dtype=np.float64)
         except (TypeError, ValueError) as exc:
             raise BadOutputError(f"hessian returned {type(out).__name__}, not a square array "
-                                 f"of side {n}", value=out) from exc
+                                 f"of side {n}", value=out, fix=HESSIAN_FIX) from exc
         if matrix.shape != (n, n):
             raise BadOutputError(
                 f"hessian returned shape {matrix.shape}, but the params have {n} floating-point "
                 f"elements, so it must be ({n}, {n}) in the order params are flattened",
-                value=out)
+                value=out, fix=HESSIAN_FIX)
         if not np.all(np.isfinite(matrix)):
-            raise BadOutputError("hessian returned non-finite values", value=out)
+            raise BadOutputError("hessian returned non-finite values", value=out, fix=HESSIAN_FIX)
         self.matrix = matrix
 
     def hv(self, w: np.ndarray) -> np.ndarray:

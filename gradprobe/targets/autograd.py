@@ -17,7 +17,7 @@ import numpy as np
 
 from .boundary import Boundary
 from ..common.errors import GraphLeftError, InPlaceWriteError, ProbeError, UserCodeError, summarise
-from ..common.tensors import Handed, flatten, is_float_dtype, unflatten
+from ..common.tensors import Handed, flatten, is_float_dtype, nested, unflatten
 
 LEFT = "forward leaves {lib}'s graph{why}, so no gradient flows back to its params"
 
@@ -159,8 +159,9 @@ class ReverseMode:
                 raise self._explained(exc) from exc
             b.check_writes({n: t for n, t in made.items() if n not in wrt}, "forward")
             flat = {n: b.result(g) for n, g in grads.items()}
-        return Handed({**unflatten({n: v for n, v in flat.items() if n in flatten(params)}, params),
-                       **unflatten({n: v for n, v in flat.items() if n in flatten(inputs)}, inputs)})
+        # integer and boolean tensors (labels, indices) have no gradient: nested() leaves them out
+        return Handed({**nested(params, {n: v for n, v in flat.items() if n in flatten(params)}),
+                       **nested(inputs, {n: v for n, v in flat.items() if n in flatten(inputs)})})
 
     def _gradients(self, p: Any, i: Any, wrt: dict[str, Any], seed: Any) -> dict[str, Any]:
         if self.library == "torch":
@@ -181,4 +182,5 @@ class ReverseMode:
         if ("numpy()" in text or "Tracer" in type(exc).__name__ or "Concretization" in type(exc).__name__
                 or "not a valid JAX type" in text or "__array__" in text):
             return GraphLeftError(LEFT.format(lib=self.library, why=f" ({summarise(exc)})"))
-        return UserCodeError(f"forward raised {summarise(exc)} while its gradient was taken")
+        return UserCodeError(f"forward, or a hand-written rule's backward on its path, raised "
+                             f"{summarise(exc)} while {self.library} took its gradient")

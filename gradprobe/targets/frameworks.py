@@ -263,8 +263,8 @@ def preserved(params: Mapping[str, Any], inputs: Mapping[str, Any]) -> Iterator[
         grad_mode, default = torch.is_grad_enabled(), torch.get_default_dtype()
         for what, tree in (("params", params), ("inputs", inputs)):
             for value in flatten(tree, what=what).values():
-                if isinstance(value, torch.Tensor):
-                    saved.append((value, value.requires_grad, value.grad))
+                if isinstance(value, torch.Tensor) and (value.is_leaf or value.retains_grad):
+                    saved.append((value, value.requires_grad, value.grad))  # a non-leaf has no .grad
     x64 = jax.config.read("jax_enable_x64") if jax is not None and hasattr(jax, "config") else None
     try:
         yield

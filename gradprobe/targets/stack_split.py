@@ -70,7 +70,8 @@ class LayerBackward:
         if not isinstance(own, Mapping):
             raise BadOutputError(
                 f"layer {f.name}'s backward must return its grads as a mapping, not "
-                f"{type(own).__name__}", value=own)
+                f"{type(own).__name__}", value=own,
+                fix="return (grads, grad_x), grads nested like the layer's params ({} when it has none)")
         out = dict(own)
         if floating(x):
             out[f.key] = grad_x
@@ -100,12 +101,12 @@ def base_activations(st: StackTarget) -> list[np.ndarray]:
         if isinstance(act, (tuple, list, dict, str, bytes)) or act is None:
             raise BadOutputError(
                 f"layer {st.names[k - 1]}'s forward returned a {type(act).__name__}, not an array",
-                value=act)
+                value=act, fix="return one array, the activation the next layer takes")
         out.append(np.array(act, copy=True))
     if np.size(acts[-1]) != 1:
         raise BadOutputError(
             f"the last layer, {st.names[-1]}, must return the scalar loss but returned shape "
-            f"{np.shape(acts[-1])}", value=acts[-1])
+            f"{np.shape(acts[-1])}", value=acts[-1], fix="sum or average it to one number there")
     return out
 
 
