@@ -177,7 +177,7 @@ class DenseSource(HessianSource):
             raise BadOutputError(
                 f"hessian returned shape {matrix.shape}, but the params have {n} floating-point "
                 f"elements, so it must be ({n}, {n}) in the order params are flattened",
-                value=out, fix=HESSIAN_FIX)
+                value=out, fix="")  # the message says the fix
         if not np.all(np.isfinite(matrix)):
             raise BadOutputError("hessian returned non-finite values", value=out, fix=HESSIAN_FIX)
         self.matrix = matrix

@@ -48,7 +48,7 @@ class CheckOptions:
 
     threshold: float | None = setting(
         "relative-error threshold", None, "Relative error above which a coordinate fails.", flag="fail-above", metavar="REL",
-        unset="1e-6; 2*sqrt(u) for code judged in its own narrower type (float32 4.9e-4, float16 0.044)", fixture=True)
+        unset="1e-6; 2*sqrt(u) for code judged in its own narrower type (float32 4.9e-4, float16 0.044, bfloat16 0.12)", fixture=True)
     seed: int = setting(
         "seed for every random draw", 0, "Seed for every random draw (grad_output, samples, directions); 0 or more.",
         metavar="N", fixture=True)

@@ -125,7 +125,8 @@ def call_layer_backward(name: str, layer: Any, p: Any, x: Any, inputs: Any, grad
     if not (isinstance(result, tuple) and len(result) == 2):
         got = f"a tuple of {len(result)}" if isinstance(result, tuple) else type(result).__name__
         raise BadOutputError(f"layer {name}'s backward must return (grads, grad_x) but returned {got}",
-                             value=result)
+                             value=result, fix="return the pair: grads nested like the layer's params "
+                                               "({} when it has none) and the gradient of its input x")
     return result
 
 
