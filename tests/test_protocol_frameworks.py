@@ -352,3 +352,34 @@ def test_framework_errors_are_one_sentence_and_exit_2(write_target, run_cli, sou
     assert words in result.output and "case.py:" in result.output
     assert "Traceback" not in result.output and "forward must return" not in result.output
     assert len([line for line in result.output.splitlines() if line.startswith("gradprobe: error")]) == 1
+
+
+@pytest.mark.parametrize("library, second", [("torch", False), ("jax", False), ("torch", True)])
+def test_evaluations_count_every_call_of_forward(library, second):
+    """Section 4: summary.evaluations is how many times forward was called, the calls the
+    framework's reverse mode (and double backward, with second_order = True) makes included."""
+    import types
+
+    from gradprobe.api import probe_target
+
+    calls = [0]
+    target = types.ModuleType("till_case")
+    if library == "torch":
+        target.params = {"w": torch.tensor(DEMAND)}
+
+        def forward(p, i):
+            calls[0] += 1
+            return (torch.sin(p["w"]) * p["w"]).sum()
+    else:
+        target.params = {"w": jnp.asarray(DEMAND, dtype=jnp.float32)}
+
+        def forward(p, i):
+            calls[0] += 1
+            return jnp.sum(_jvp_rule(1.0)(p["w"]))
+
+    target.forward = forward
+    if second:
+        target.second_order = True
+    report = probe_target(target)
+    assert report.ok and (report.second_order is not None) is second
+    assert report.evaluations == calls[0]

@@ -143,6 +143,11 @@ class ReverseMode:
         self.boundary = boundary
         self.library = library
         self.rules: bool | None = None  # a hand-written rule on the path (once known)
+        self.calls = 0  # forward's calls made here: the report's evaluations count them too
+
+    def _forward(self, params: Any, inputs: Any) -> Any:
+        self.calls += 1
+        return self.forward(params, inputs)
 
     def __call__(self, params: Any, inputs: Any, grad_output: np.ndarray | None = None) -> Any:
         b = self.boundary
@@ -167,13 +172,13 @@ class ReverseMode:
         if self.library == "torch":
             for t in wrt.values():
                 t.requires_grad_(True)
-            out, grads = torch_vjp(self.forward, p, i, wrt, seed)
+            out, grads = torch_vjp(self._forward, p, i, wrt, seed)
             if self.rules is None:
                 self.rules = torch_rules(out)
             return {n: g.detach() for n, g in grads.items()}
         if self.rules is None:
-            self.rules = jax_rules(self.forward, p, i, wrt)
-        return jax_vjp(self.forward, p, i, wrt, seed)[1]
+            self.rules = jax_rules(self._forward, p, i, wrt)
+        return jax_vjp(self._forward, p, i, wrt, seed)[1]
 
     def _explained(self, exc: Exception) -> ProbeError:
         text = str(exc)

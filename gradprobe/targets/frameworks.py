@@ -38,6 +38,7 @@ class Framing:
     gradient_source: str = "backward"
     devices: dict[str, str] = field(default_factory=dict)  # tensors not on the CPU
     reverse: ReverseMode | None = None
+    double: Any = None  # a DoubleBackward (second_order = True), which calls forward too
 
     def notes(self) -> list[str]:
         if self.reverse is None or self.reverse.rules is not False:
@@ -51,8 +52,11 @@ class Framing:
         layers = tuple(replace(layer, tensors=tuple(
             replace(t, device=self.devices[t.name]) if t.name in self.devices else t
             for t in layer.tensors)) for layer in report.layers)
+        # forward is called by the framework's reverse mode too (protocol 4: evaluations
+        # counts every call of forward)
+        calls = sum(getattr(source, "calls", 0) for source in (self.reverse, self.double))
         return replace(report, layers=layers, array_library=self.array_library,
-                       gradient_source=self.gradient_source,
+                       gradient_source=self.gradient_source, evaluations=report.evaluations + calls,
                        notes=report.notes + tuple(self.notes()))
 
 
@@ -90,8 +94,10 @@ def frame(target: Target) -> tuple[Target, Framing]:
             fix=MISSING_FIX["backward"])
     params = boundary.numpy_tree(target.params)
     inputs = boundary.numpy_tree(target.inputs)
+    second = _second_order(target, boundary)
+    framing.double = second.get("hvp") if target.double_backward else None
     return replace(target, forward=forward, backward=backward, params=params, inputs=inputs,
-                   spec=None, **_second_order(target, boundary)), framing
+                   spec=None, **second), framing
 
 
 def _second_order(target: Target, boundary: Boundary) -> dict[str, Any]:
