@@ -383,3 +383,88 @@ def test_evaluations_count_every_call_of_forward(library, second):
     report = probe_target(target)
     assert report.ok and (report.second_order is not None) is second
     assert report.evaluations == calls[0]
+
+
+class _TorchDense:
+    """A class-style dense layer holding torch tensors; it counts its calls in a tensor it
+    writes in place (state, like a running statistic). Input gradient g W^T times ``slip``
+    (d(x W + b)/dx = W^T: 1 is right)."""
+
+    def __init__(self, seed: int, n_in: int, n_out: int, slip: float = 1.0, bias_slip: float = 1.0):
+        g = torch.Generator().manual_seed(seed)
+        self.W = 0.5 * torch.randn(n_in, n_out, generator=g, dtype=torch.float64)
+        self.b = torch.zeros(n_out, dtype=torch.float64)
+        self.calls = torch.zeros(1, dtype=torch.float64)
+        self.slip, self.bias_slip = slip, bias_slip
+
+    def forward(self, x):
+        assert isinstance(x, torch.Tensor) and isinstance(self.W, torch.Tensor), type(x)
+        self.calls.add_(1.0)
+        self.x = x
+        return x @ self.W + self.b
+
+    def backward(self, g):
+        assert isinstance(g, torch.Tensor), type(g)
+        self.dW, self.db = self.x.T @ g, g.sum(0) * self.bias_slip
+        return (g @ self.W.T) * self.slip
+
+
+class _TorchTanh:
+    def forward(self, x):
+        self.out = torch.tanh(x)
+        return self.out
+
+    def backward(self, g):
+        return g * (1 - self.out ** 2)  # d tanh = 1 - tanh^2
+
+
+class _TorchSquaredError:
+    def forward(self, scores, target):
+        self.gap = scores - target
+        return 0.5 * (self.gap ** 2).sum()
+
+    def backward(self):
+        return self.gap
+
+
+SHOPS = torch.tensor(np.random.default_rng(5).normal(size=(6, 3)))  # 6 shops, 3 features
+SALES = torch.tensor(np.random.default_rng(6).normal(size=(6, 2)))  # 2 products
+
+
+def _left_as_it_was(layer, kept):
+    assert layer.W is kept["W"] and torch.equal(layer.W, kept["W_values"])
+    assert torch.equal(layer.calls, kept["calls"]) and not hasattr(layer, "x")
+
+
+def _kept(layer):
+    return {"W": layer.W, "W_values": layer.W.clone(), "calls": layer.calls.clone()}
+
+
+@pytest.mark.parametrize("bias_slip", [1.0, 2.0])
+def test_a_class_style_torch_layer_through_the_adapter(bias_slip):
+    """Section 5's adapter with section 6's arrays: the layer runs on torch tensors, its
+    stored gradients are read, and it is left as it was (its in-place counter included)."""
+    from gradprobe import layer_target, probe_target
+
+    layer = _TorchDense(1, 3, 2, bias_slip=bias_slip)
+    kept = _kept(layer)
+    report = probe_target(layer_target(layer, SHOPS, {"W": "dW", "b": "db"}))
+    assert report.ok is (bias_slip == 1.0)
+    assert report.array_library == "torch"
+    assert {n for n, s in _statuses(report).items() if s == "fail"} == (set() if bias_slip == 1.0 else {"_TorchDense.b"})
+    _left_as_it_was(layer, kept)
+
+
+@pytest.mark.parametrize("slip, enters", [(1.0, []), (1.3, ["_TorchDense2"])])
+def test_a_class_style_torch_object_stack(slip, enters):
+    """A stack of class-style torch layers and a loss object: a 30% slip in the second dense
+    layer's input gradient enters there; the layers are left as they were."""
+    from gradprobe import probe_target
+    from gradprobe.targets.object_stack import object_stack
+
+    layers = [_TorchDense(1, 3, 4), _TorchTanh(), _TorchDense(2, 4, 2, slip=slip)]
+    kept = _kept(layers[0])
+    report = probe_target(object_stack(layers, _TorchSquaredError(), SHOPS, SALES))
+    assert report.ok is (slip == 1.0)
+    assert list(report.error_enters_at) == enters and report.array_library == "torch"
+    _left_as_it_was(layers[0], kept)

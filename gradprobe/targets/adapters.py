@@ -90,8 +90,17 @@ def stored(layer: Any, slots: Mapping[str, tuple[Slot, Slot]]) -> dict[str, np.n
         value = grad.get(layer)
         if value is None:
             raise TargetLoadError(f"backward stored no gradient in {grad.label} for {name}")
-        out[name] = np.array(value, copy=True)
+        out[name] = own_kind(value)
     return out
+
+
+def own_kind(value: Any) -> Any:
+    """A private numpy copy of ``value``, or ``value`` itself when it is an array of another
+    library (torch, JAX, array-api-strict: protocol section 6), so that the layer is run
+    with arrays of its own library, which the engine copies and converts at each call."""
+    if isinstance(value, np.ndarray) or not hasattr(value, "__dlpack__"):
+        return np.array(value, copy=True)
+    return value
 
 
 def layer_target(
@@ -117,19 +126,19 @@ def layer_target(
         if not callable(getattr(layer, method, None)):
             raise TargetLoadError(f"the layer {type(layer).__name__} has no {method} method")
     slots = param_slots(layer, grads)
-    params = {name: {n: np.array(place.get(layer), copy=True) for n, (place, _) in slots.items()}}
-    inputs = {input_name: np.array(x, copy=True)}
+    params = {name: {n: own_kind(place.get(layer)) for n, (place, _) in slots.items()}}
+    inputs = {input_name: own_kind(x)}
 
     def forward(p: Mapping[str, Any], i: Mapping[str, Any]) -> Any:
         with preserved(layer):
             install(layer, slots, p[name])
-            return np.array(layer.forward(i[input_name]), copy=True)
+            return own_kind(layer.forward(i[input_name]))
 
     def backward(p: Mapping[str, Any], i: Mapping[str, Any], grad_output: np.ndarray) -> dict:
         with preserved(layer):
             install(layer, slots, p[name])
             layer.forward(i[input_name])  # refresh the caches for these params
-            dx = np.array(layer.backward(grad_output), copy=True)
+            dx = own_kind(layer.backward(grad_output))
             found = stored(layer, slots)
         return {name: found, input_name: dx}
 

@@ -22,7 +22,7 @@ from typing import Any
 
 import numpy as np
 
-from .adapters import Slot, install, param_slots, stored
+from .adapters import Slot, install, own_kind, param_slots, stored
 from ..common.errors import TargetLoadError
 from .objstate import preserved
 from .stack import StackTarget, stack
@@ -39,14 +39,14 @@ class ObjectLayer:
     def forward(self, params: Mapping[str, Any], x: Any, inputs: Mapping[str, Any]) -> Any:
         with preserved(self.obj):
             install(self.obj, self.slots, params)
-            return np.array(self.obj.forward(x), copy=True)
+            return own_kind(self.obj.forward(x))
 
     def backward(self, params: Mapping[str, Any], x: Any, inputs: Mapping[str, Any],
                  grad_y: Any) -> tuple[dict[str, Any], Any]:
         with preserved(self.obj):
             install(self.obj, self.slots, params)
             self.obj.forward(x)  # refresh the caches for these params and this input
-            grad_x = np.array(self.obj.backward(np.array(grad_y, copy=True)), copy=True)
+            grad_x = own_kind(self.obj.backward(own_kind(grad_y)))
             return stored(self.obj, self.slots), grad_x
 
 
@@ -62,15 +62,15 @@ class ObjectLoss:
 
     def forward(self, params: Mapping[str, Any], x: Any, inputs: Mapping[str, Any]) -> Any:
         with preserved(self.obj):
-            return np.array(self._forward(x, inputs), copy=True)
+            return own_kind(self._forward(x, inputs))
 
     def backward(self, params: Mapping[str, Any], x: Any, inputs: Mapping[str, Any],
                  grad_y: Any) -> tuple[dict[str, Any], Any]:
         with preserved(self.obj):
             self._forward(x, inputs)
             if self._takes_grad:
-                return {}, np.array(self.obj.backward(grad_y), copy=True)
-            return {}, np.array(self.obj.backward(), copy=True) * grad_y
+                return {}, own_kind(self.obj.backward(grad_y))
+            return {}, own_kind(self.obj.backward()) * grad_y
 
 
 def _required_arguments(fn: Any) -> int:
@@ -96,7 +96,9 @@ def _names(objects: Sequence[Any], given: Sequence[str] | None) -> list[str]:
 
 
 def _float_array(value: Any) -> bool:
-    return isinstance(value, np.ndarray) and np.issubdtype(value.dtype, np.floating)
+    if isinstance(value, np.ndarray):
+        return np.issubdtype(value.dtype, np.floating)
+    return hasattr(value, "__dlpack__") and "float" in str(getattr(value, "dtype", ""))  # torch, jax, ...
 
 
 def discover(obj: Any, x: Any) -> tuple[dict[str, str], list[str]]:
@@ -111,8 +113,11 @@ def discover(obj: Any, x: Any) -> tuple[dict[str, str], list[str]]:
     found: dict[str, str] = {}
     before = {k: id(v) for k, v in vars(obj).items() if _float_array(v) and not k.startswith("_")}
     with preserved(obj):
-        y = np.asarray(obj.forward(x))
-        obj.backward(np.ones_like(y, dtype=np.float64))
+        y = obj.forward(x)
+        if isinstance(y, np.ndarray) or not hasattr(y, "__dlpack__"):
+            obj.backward(np.ones_like(np.asarray(y), dtype=np.float64))
+        else:
+            obj.backward(y * 0 + 1)  # ones of the layer's own library
         grads = getattr(obj, "grads", None)
         for where in candidates:
             key = where.rpartition(".")[2]
@@ -122,7 +127,7 @@ def discover(obj: Any, x: Any) -> tuple[dict[str, str], list[str]]:
                 if location.startswith("grads.") and not isinstance(grads, Mapping):
                     continue
                 stored_value = place.get(obj)
-                if isinstance(stored_value, np.ndarray) and stored_value.shape == value.shape:
+                if _float_array(stored_value) and tuple(stored_value.shape) == tuple(value.shape):
                     found[where] = location
                     break
         kept = [k for k, i in before.items() if id(getattr(obj, k, None)) == i]
@@ -152,7 +157,7 @@ def object_stack(
                 what = "the loss" if k == len(layers) else f"layer {k}"
                 raise TargetLoadError(f"{what} ({type(obj).__name__}) has no {method} method")
     all_names = _names(objects, names)
-    x_private = np.array(x, copy=True)
+    x_private = own_kind(x)
     wrapped: list[Any] = []
     params: dict[str, dict[str, np.ndarray]] = {}
     activation = x_private
@@ -169,11 +174,10 @@ def object_stack(
                              "gradient stored for them; name them with grads= to check them)")
             wrapped.append(ObjectLayer(name, obj, slots))
             if slots:
-                params[name] = {n: np.array(place.get(obj), copy=True)
-                                for n, (place, _) in slots.items()}
-            activation = np.array(obj.forward(activation), copy=True)
+                params[name] = {n: own_kind(place.get(obj)) for n, (place, _) in slots.items()}
+            activation = own_kind(obj.forward(activation))
     inputs: dict[str, Any] = {"x": x_private}
     if labels is not None:
-        inputs[LABELS] = np.array(labels, copy=True)
+        inputs[LABELS] = own_kind(labels)
     wrapped.append(ObjectLoss(all_names[-1], loss, labels is not None))
     return replace(stack(wrapped, params, inputs, label), notes=tuple(notes))

@@ -10,6 +10,7 @@ arrays the user holds references to stay the very same objects with the same byt
 
 from __future__ import annotations
 
+import sys
 import types
 from collections.abc import Iterator
 from contextlib import contextmanager
@@ -39,6 +40,8 @@ class Snapshot:
         self._dicts: list[tuple[dict, list[tuple[Any, Any]]]] = []
         self._lists: list[tuple[list, list[Any]]] = []
         self._arrays: list[tuple[np.ndarray, np.ndarray]] = []
+        self._tensors: list[tuple[Any, Any]] = []  # torch tensors (written in place by torch ops)
+        self._torch = sys.modules.get("torch")
         for obj in objects:
             self._record(obj, 0)
 
@@ -51,6 +54,9 @@ class Snapshot:
         if isinstance(value, np.ndarray):
             if value.flags.writeable:  # a read-only array cannot have been written into
                 self._arrays.append((value, value.copy()))
+            return
+        if self._torch is not None and isinstance(value, self._torch.Tensor):
+            self._tensors.append((value, value.detach().clone()))
             return
         if isinstance(value, dict):
             self._dicts.append((value, list(value.items())))
@@ -96,6 +102,10 @@ class Snapshot:
         for array, saved in self._arrays:
             if array.shape == saved.shape and array.tobytes() != saved.tobytes():
                 np.copyto(array, saved)
+        for tensor, kept in self._tensors:
+            if tensor.shape == kept.shape and not self._torch.equal(tensor.detach(), kept):
+                with self._torch.no_grad():
+                    tensor.copy_(kept)
 
 
 @contextmanager
