@@ -146,3 +146,27 @@ def test_an_unusable_result_is_one_sentence_about_that_function(case, write_targ
     assert len(errors) == 1 and words in errors[0], result.output
     assert errors[0].endswith(".")
     assert "forward must return" not in result.output and "Traceback" not in result.output
+
+
+@pytest.mark.parametrize("narrow", ["bfloat16", "float16"])
+@pytest.mark.parametrize("right", [True, False])
+def test_a_backward_that_returns_its_gradient_in_a_fixed_narrow_type(narrow, right):
+    """Section 6 (ml_dtypes.bfloat16 in numpy arrays, numpy float16): a backward that always
+    rounds its result to the 16-bit type (written as that type, not as the params' dtype)
+    has no float64 run to compare with; the right one passes within its rounding, the wrong
+    one fails. d sin = cos (any table of derivatives); sin in its place is wrong."""
+    from framework_kit import need
+
+    kind = np.dtype(need("ml_dtypes").bfloat16) if narrow == "bfloat16" else np.dtype(np.float16)
+    rates = np.array([0.4, -0.9, 1.3, 0.2], dtype=kind)  # growth rates of four crop plots
+
+    def forward(p, i):
+        return float(np.sum(np.sin(p["rate"].astype(np.float64))))
+
+    def backward(p, i):
+        slope = np.cos if right else np.sin
+        return {"rate": slope(p["rate"].astype(np.float64)).astype(kind)}
+
+    report = probe(forward, backward, {"rate": rates})
+    assert report.ok is right, [(t.name, str(t.status), t.max_rel_error) for t in report.tensors]
+    assert report.tensors[0].dtype == narrow

@@ -468,3 +468,17 @@ def test_a_class_style_torch_object_stack(slip, enters):
     assert report.ok is (slip == 1.0)
     assert list(report.error_enters_at) == enters and report.array_library == "torch"
     _left_as_it_was(layers[0], kept)
+
+
+@pytest.mark.parametrize("right", [True, False])
+def test_a_torch_backward_that_returns_bfloat16_whatever_it_is_given(right):
+    """A hand-written backward that casts its result to torch.bfloat16 (not to the params'
+    dtype) has no float64 run: the right one passes within bfloat16's rounding (it was a
+    false alarm), the wrong one fails. d sin = cos (any table); sin in its place is wrong."""
+    w = torch.tensor([0.4, -0.9, 1.3, 0.2], dtype=torch.bfloat16)  # growth rates of four plots
+
+    def backward(p, i):
+        return {"w": (torch.cos if right else torch.sin)(p["w"].double()).to(torch.bfloat16)}
+
+    report = probe(lambda p, i: torch.sin(p["w"].double()).sum(), backward, {"w": w})
+    assert report.ok is right

@@ -21,7 +21,7 @@ from typing import Any
 import numpy as np
 
 from ..common.errors import ProbeError
-from ..common.tensors import Workspace, is_float
+from ..common.tensors import Workspace, is_float, is_float_dtype
 from .evaluate import Evaluator, LossFunction
 from .gradients import Gradients, validate
 from .precision import narrower_compute_type
@@ -94,7 +94,7 @@ def _all_float64(tree: Any) -> bool:
     if isinstance(tree, Mapping):
         return all(_all_float64(v) for v in tree.values())
     array = np.asarray(tree)
-    return not np.issubdtype(array.dtype, np.floating) or array.dtype == np.float64
+    return not is_float_dtype(array.dtype) or array.dtype == np.float64  # ml_dtypes' bfloat16 too
 
 
 def agreement(dtype: np.dtype) -> float:

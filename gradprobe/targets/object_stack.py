@@ -24,6 +24,7 @@ import numpy as np
 
 from .adapters import Slot, install, own_kind, param_slots, stored
 from ..common.errors import TargetLoadError
+from ..common.tensors import is_float_dtype
 from .objstate import preserved
 from .stack import StackTarget, stack
 
@@ -97,7 +98,7 @@ def _names(objects: Sequence[Any], given: Sequence[str] | None) -> list[str]:
 
 def _float_array(value: Any) -> bool:
     if isinstance(value, np.ndarray):
-        return np.issubdtype(value.dtype, np.floating)
+        return is_float_dtype(value.dtype)  # ml_dtypes' bfloat16 too
     return hasattr(value, "__dlpack__") and "float" in str(getattr(value, "dtype", ""))  # torch, jax, ...
 
 
