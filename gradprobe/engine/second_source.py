@@ -16,7 +16,7 @@ from typing import Any
 import numpy as np
 
 from ..common.errors import BadOutputError, ProbeError, UserCodeError, summarise
-from ..common.tensors import Workspace, flatten, is_float, nested
+from ..common.tensors import Workspace, flatten, is_float, is_float_dtype, nested
 from .gradients import validate
 from .preflight import call_backward
 
@@ -142,7 +142,7 @@ class HvpSource(HessianSource):
                 self.problems[name] = f"hvp returned no value for {name}"
                 continue
             value = np.asarray(flat[name])
-            if value.shape != shape or not np.issubdtype(value.dtype, np.number):
+            if value.shape != shape or not (np.issubdtype(value.dtype, np.number) or is_float_dtype(value.dtype)):
                 self.problems[name] = (f"hvp returned shape {value.shape} for {name}, whose "
                                        f"shape is {shape}")
                 continue

@@ -21,6 +21,7 @@ from ..common.errors import (
     UserCodeError,
     summarise,
 )
+from ..common.tensors import is_float_dtype
 from .target import Target, _arrays, _get
 
 INPUT = "x"  # the inputs key holding the first layer's input
@@ -188,7 +189,7 @@ class ComposedBackward:
 
 
 def floating(value: Any) -> bool:
-    return bool(np.issubdtype(np.asarray(value).dtype, np.floating))
+    return is_float_dtype(np.asarray(value).dtype)  # ml_dtypes' bfloat16 too
 
 
 def end_to_end(st: StackTarget) -> Target:
