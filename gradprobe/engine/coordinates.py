@@ -20,7 +20,8 @@ from .certify import certify
 from .ladder import Estimate
 from .probe import Pairs, TensorProbe
 from .reconcile import narrow_reconciled, unabsorbed, unfuzzed
-from .refine import RATIO, ROWS, Ladder, Taken, climb, ladder_taken, one_sided, tiny_pair
+from .grounds import drifting_sides, judged_ladder
+from .refine import RATIO, ROWS, Taken, climb, ladder_taken, one_sided_drift
 from .staircase import flat_through_sixteen_bits
 from .steps import SETTLE_FRACTION, gap_suspects, largest_smooth_step, start_steps, steps_down
 from .narrow import wide_estimate
@@ -28,7 +29,7 @@ from .own_rounding import judged_on_own_rounding
 from .sixteen import measured_passes
 from .richardson import first_steps, joined, rows_of, settled, two_rows_settle
 from ..common.roundoff import is_narrow
-from .kinks import judge_ladder, judge_sides_apart, sides_differ
+from .kinks import judge_sides_apart
 from .verdict import NOISE, Judged, judge_plain
 
 RETRY_SHIFT = 6  # a second ladder starts 2**6 steps higher (noise) or lower (curvature)
@@ -53,16 +54,6 @@ class CoordinateOutcome:
     note: str | None = None  # said once for the tensor (a method fallen back from)
 
 
-def _judged_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder) -> Judged:
-    """The ladder judged, after a pair at a tiny step for the coordinates whose sides differ."""
-    which = sides_differ(probe, flat, ladder)
-    tiny = None
-    if which.size:
-        jump = ladder.right.value[which] - ladder.left.value[which]
-        tiny = tiny_pair(probe, flat[which], ladder.smallest[which], jump)
-    return judge_ladder(probe, flat, ladder, tiny)
-
-
 def _ladder_verdicts(
     probe: TensorProbe, flat: np.ndarray, start: np.ndarray, rows: int = ROWS,
     taken: list[Taken] | None = None,
@@ -72,8 +63,8 @@ def _ladder_verdicts(
     ladders' own pairs are added to ``taken``."""
     before = [] if taken is None else taken
     ladder = climb(probe, flat, start, rows, taken=before)
+    first = judged_ladder(probe, flat, ladder, start, before)
     before.append(ladder_taken(flat, start, ladder))
-    first = _judged_ladder(probe, flat, ladder)
     again = np.flatnonzero(first.status == INCONCLUSIVE)
     if again.size == 0:
         return first
@@ -84,16 +75,17 @@ def _ladder_verdicts(
         shifted[which] = largest_smooth_step(probe, flat[again][which], start[again][which],
                                               np.full(which.size, float(RETRY_SHIFT)), before)
     second_ladder = climb(probe, flat[again], shifted, ROWS + 2, taken=before)
+    judged = first.merged(again, judged_ladder(probe, flat[again], second_ladder, shifted, before))
     before.append(ladder_taken(flat[again], shifted, second_ladder))
-    judged = first.merged(again, _judged_ladder(probe, flat[again], second_ladder))
     still = np.flatnonzero(judged.status == INCONCLUSIVE)
     if still.size == 0:
         return judged
     # Last: each side on its own, on steps growing away from the point (beside a kink the
     # clean side reaches steps that beat the noise).
     smallest = np.minimum(start[still], probe.prior_steps(flat[still]))
-    apart = judge_sides_apart(probe, flat[still], one_sided(probe, flat[still], smallest, -1.0),
-                              one_sided(probe, flat[still], smallest, 1.0))
+    (left, left_drift), (right, right_drift) = (one_sided_drift(probe, flat[still], smallest, s) for s in (-1.0, 1.0))
+    apart = drifting_sides(probe, flat[still], judge_sides_apart(probe, flat[still], left, right),
+                           left, right, left_drift, right_drift, judge_sides_apart)
     keep = apart.status != INCONCLUSIVE
     return judged.merged(still[keep], apart.pick(np.flatnonzero(keep)))
 
@@ -230,7 +222,7 @@ def _validated_failures(probe: TensorProbe, flat: np.ndarray, first: Pairs, h: n
         known = None if shrunk else _pick(first, which)
         start = h[which] * 2.0 ** -down[(down > 0) == shrunk]
         short = climb(probe, flat[which], start, SHORT_ROWS, known)
-        judged = judged.merged(which, _judged_ladder(probe, flat[which], short))
+        judged = judged.merged(which, judged_ladder(probe, flat[which], short))
     return judged
 
 
@@ -267,14 +259,14 @@ def _three_rows(probe: TensorProbe, flat: np.ndarray, h: np.ndarray, known: Pair
     which quotients aliased by a loss oscillating far faster than the steps can meet by
     chance)."""
     ladder = climb(probe, flat, h, 3, known)
-    judged = _judged_ladder(probe, flat, ladder)
+    judged = judged_ladder(probe, flat, ladder)
     if not recheck:  # no longer ladders: what the rows do not pass goes the central way
         return _central_decides(probe, flat, judged, np.flatnonzero(judged.status != PASS), recheck)
     # Not settled for want of smaller steps (not for rounding, which smaller steps only make
     # worse): the same ladder two rows further down (4 calls).
     wide = np.flatnonzero(~settled(probe, flat, judged) & ~judged.noise_limited)
     if wide.size:
-        longer = _judged_ladder(probe, flat[wide], climb(probe, flat[wide], h[wide], 5, ladder.rows_of(wide)))
+        longer = judged_ladder(probe, flat[wide], climb(probe, flat[wide], h[wide], 5, ladder.rows_of(wide)))
         better = np.flatnonzero((longer.estimate.error < judged.estimate.error[wide]) | (judged.status[wide] != PASS))
         judged = judged.merged(wide[better], longer.pick(better))
     loose = ~settled(probe, flat, judged)

@@ -219,6 +219,12 @@ SIDE_NOISE = 1024.0
 
 
 def one_sided(probe: TensorProbe, flat: np.ndarray, smallest: np.ndarray, sign: float) -> Estimate:
+    """:func:`one_sided_drift`'s estimate alone."""
+    return one_sided_drift(probe, flat, smallest, sign)[0]
+
+
+def one_sided_drift(probe: TensorProbe, flat: np.ndarray, smallest: np.ndarray, sign: float
+                    ) -> tuple[Estimate, np.ndarray]:
     """The derivative from one side only, on steps growing 4-fold from ``smallest``, or from
     the step that beats rounding noise where that is larger (as far as the params' own
     scale): for a point beside a kink, the side away from it reaches
@@ -239,4 +245,6 @@ def one_sided(probe: TensorProbe, flat: np.ndarray, smallest: np.ndarray, sign: 
     noise = 2.0 * probe.loss_noise(np.nan_to_num(values)) / moved
     estimate = tableau(np.nan_to_num(quotients), noise, SIDE_RATIO, 1)
     bad = ~np.isfinite(values).all(axis=0)
-    return Estimate(estimate.value, np.where(bad, np.inf, estimate.error))
+    q = np.nan_to_num(quotients)
+    drift = np.asarray(drifting(q, np.zeros_like(q), SIDE_RATIO).any(axis=0))
+    return Estimate(estimate.value, np.where(bad, np.inf, estimate.error)), drift

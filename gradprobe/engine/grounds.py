@@ -1,0 +1,190 @@
+"""A failure stands only on grounds checked on its own coordinate.
+
+Every failure rests on an error model: the central tableau on a loss smooth over the steps
+(its quotients approach the derivative as even powers of h), a one-sided estimate on a side
+smooth over its steps, a kink's sides on no other kink within reach. Each check here looks at
+one of those assumptions with evidence the ladders did not use, and withholds (or re-asks)
+only failures whose assumption the evidence contradicts; passes are never touched.
+
+- :func:`off_the_grid`: the ladder's steps halve exactly, so a loss that oscillates with a
+  period a power of two times the smallest step (a sine far finer than the steps) gives
+  quotients that converge, at the model's rate, to a wrong value (aliasing). One pair at a
+  step between two of the ladder's (the smallest over sqrt(2)) must fall where the central
+  tableau's estimate predicts it; where it does not, the steps were not in the model's
+  range, and the coordinate is undecided (a ladder far further down follows).
+- :func:`crossed_wider`: a kink confirmed at the point with a value outside its sides is a
+  bug only where no other kink is within reach (several kinks at the point leave the values
+  a correct gradient may take unbounded by the two sides). The pairs taken at steps wider
+  than the ladder's (the first pair, the start's probes) show a side's quotient away from
+  the line through the ladder's top two rows: a kink crossed between.
+- :func:`crossed_bound`: where a side crossed kinks among the ladder's steps, the loss is
+  not smooth there and the central tableau's even powers are not its error model: a failure
+  on it must also stand against the distance to the smallest step's quotient plus the last
+  change (the tail of a first-order series halving per row, what corners crossed within the
+  steps leave).
+- :func:`drifting_sides`: one-sided estimates on steps growing to the params' scale whose
+  quotients move like c/h (a fixed change of the loss at every step: a pole or kink closer
+  than the steps, its term dropping out) say nothing of the slope at the point.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from dataclasses import replace
+
+import numpy as np
+
+from ..common.roundoff import is_narrow
+from ..common.status import FAIL, INCONCLUSIVE
+from .ladder import NOISE_UNITS, PREDICTION_SLACK, SAFETY, Estimate
+from .probe import Pairs, TensorProbe
+from .refine import Ladder, Taken, tiny_pair
+from .kinks import judge_ladder, sides_differ
+from .verdict import SIGNIFICANCE, UNSETTLED, Judged
+
+OFF_GRID = 2.0**-0.5  # the check's step: the ladder's smallest over sqrt(2), between two rows
+WIDER_LIMIT = 2.0**8  # wider pairs considered up to this many times the ladder's top step
+WIDER_SLACK = 2.0  # a side's quotient at a wider step may leave the line by twice its slope's reach
+
+
+def judged_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, start: np.ndarray | None = None,
+                  taken: list[Taken] | None = None) -> Judged:
+    """The ladder judged, after a pair at a tiny step for the coordinates whose sides differ;
+    its failures kept only on grounds checked on the coordinate (below), with the wider
+    pairs ``taken`` before a ladder from ``start``."""
+    which = sides_differ(probe, flat, ladder)
+    tiny = None
+    if which.size:
+        jump = ladder.right.value[which] - ladder.left.value[which]
+        tiny = tiny_pair(probe, flat[which], ladder.smallest[which], jump)
+        if start is not None and taken:
+            ladder = crossed_wider(probe, flat, start, ladder, taken, which)
+    judged = crossed_bound(probe, flat, ladder, judge_ladder(probe, flat, ladder, tiny))
+    return off_the_grid(probe, flat, ladder, judged)
+
+
+def _rows(ladder: Ladder, n: int) -> int:
+    assert ladder.pairs is not None
+    return ladder.pairs.f_plus.size // n
+
+
+def off_the_grid(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Judged) -> Judged:
+    """``judged`` with failures that rest on the central tableau kept only where a pair at a
+    step off the ladder's grid agrees with the tableau's prediction (see the module's note);
+    the others undecided (UNSETTLED, not noise-limited, so a retry goes to smaller steps)."""
+    if is_narrow(probe.compute_dtype) or ladder.pairs is None:
+        return judged
+    central = ladder.central
+    which = np.flatnonzero((judged.status == FAIL) & np.isfinite(central.error)
+                           & (judged.estimate.value == central.value))
+    if which.size == 0:
+        return judged
+    n = flat.size
+    rows = _rows(ladder, n)
+    last = ladder.pairs.central.reshape(rows, n)[-1, which]
+    last_noise = (2 * ladder.pairs.noise / (ladder.pairs.h_plus + ladder.pairs.h_minus)).reshape(rows, n)[-1, which]
+    p = probe.pairs(flat[which], ladder.smallest[which] * OFF_GRID)
+    noise = 2 * p.noise / (p.h_plus + p.h_minus)
+    value, error = central.value[which], central.error[which]
+    with np.errstate(invalid="ignore", over="ignore"):
+        predicted = (PREDICTION_SLACK * OFF_GRID**2 * np.abs(last - value) + error
+                     + NOISE_UNITS * (noise + last_noise))
+        off = ~(np.abs(p.central - value) <= predicted)
+    return _undecided(judged, which[off])
+
+
+def crossed_bound(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Judged) -> Judged:
+    """``judged`` with failures that rest on the central tableau, where a side crossed kinks
+    among the ladder's steps, kept only beyond SIGNIFICANCE times the first-order tail (the
+    module's note); the others undecided (UNSETTLED). The estimate itself is left as it was."""
+    if ladder.pairs is None or ladder.left_crossed is None or ladder.right_crossed is None:
+        return judged
+    n = flat.size
+    rows = _rows(ladder, n)
+    if rows < 2:
+        return judged
+    central = ladder.central
+    crossed = ladder.left_crossed | ladder.right_crossed
+    which = np.flatnonzero((judged.status == FAIL) & crossed & (judged.estimate.value == central.value))
+    if which.size == 0:
+        return judged
+    q = ladder.pairs.central.reshape(rows, n)[:, which]
+    value = central.value[which]
+    with np.errstate(invalid="ignore", over="ignore"):
+        tail = SAFETY * (np.abs(value - q[-1]) + np.abs(q[-1] - q[-2])) + central.error[which]
+        within = ~(np.abs(probe.a[flat[which]] - value) > SIGNIFICANCE * tail)
+    return _undecided(judged, which[within])
+
+
+def _undecided(judged: Judged, k: np.ndarray) -> Judged:
+    """``judged`` with positions ``k`` undecided (UNSETTLED, not noise-limited: a retry goes
+    to smaller steps)."""
+    if k.size == 0:
+        return judged
+    undecided = Judged(np.full(k.size, INCONCLUSIVE, dtype=judged.status.dtype),
+                       Estimate(judged.estimate.value[k], np.full(k.size, np.inf)),
+                       (UNSETTLED,) * k.size, np.zeros(k.size, dtype=bool))
+    return judged.merged(k, undecided)
+
+
+def crossed_wider(probe: TensorProbe, flat: np.ndarray, start: np.ndarray, ladder: Ladder,
+                  taken: list[Taken], which: np.ndarray) -> Ladder:
+    """The ladder with each side's ``crossed`` flag set, at positions ``which`` (those whose
+    sides differ), where a pair ``taken`` at a wider step (up to WIDER_LIMIT times the top)
+    shows that side off the line through the ladder's top two rows (module's note)."""
+    if (which.size == 0 or not taken or ladder.pairs is None or ladder.left_crossed is None
+            or ladder.right_crossed is None):
+        return ladder
+    n = flat.size
+    rows = _rows(ladder, n)
+    if rows < 2:
+        return ladder
+    p = ladder.pairs
+    right, left = (s.reshape(rows, n) for s in p.sides(probe.f0))
+    hp, hm = p.h_plus.reshape(rows, n), p.h_minus.reshape(rows, n)
+    noise = p.noise.reshape(rows, n)
+    left_crossed, right_crossed = ladder.left_crossed.copy(), ladder.right_crossed.copy()
+    position = {int(f): j for j, f in enumerate(flat[which].tolist())}
+    for where, asked, got in taken:
+        for i, f in enumerate(where.tolist()):
+            j = position.get(int(f))
+            if j is None:
+                continue
+            k = which[j]
+            if not (start[k] * (1 + 1e-9) < asked[i] <= WIDER_LIMIT * start[k]):
+                continue
+            wide = Pairs(*(x[i:i + 1] for x in got.fields()))
+            w_right, w_left = (float(s[0]) for s in wide.sides(probe.f0))
+            for side, wide_q, h, crossed in ((right, w_right, hp, right_crossed), (left, w_left, hm, left_crossed)):
+                crossed[k] |= _off_line(side[0, k], side[1, k], h[0, k], h[1, k], wide_q,
+                                        float(wide.h_plus[0] if side is right else wide.h_minus[0]),
+                                        noise[0, k] + noise[1, k] + float(wide.noise[0]))
+    return replace(ladder, left_crossed=left_crossed, right_crossed=right_crossed)
+
+
+def _off_line(q0: float, q1: float, h0: float, h1: float, wide: float, big: float, noise: float) -> bool:
+    """A one-sided quotient ``wide`` at step ``big`` lies off the line through (h0, q0) and
+    (h1, q1) by more than WIDER_SLACK times the line's own change out to ``big`` plus the
+    quotients' rounding (each quotient's noise is 2 noise / its step)."""
+    with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+        slope = (q0 - q1) / (h0 - h1)
+        predicted = q0 + slope * (big - h0)
+        room = WIDER_SLACK * abs(slope) * (big - h0) + 2.0 * NOISE_UNITS * 2.0 * noise * (1.0 / h1 + 1.0 / big)
+        return bool(abs(wide - predicted) > room)
+
+
+def drifting_sides(probe: TensorProbe, flat: np.ndarray, apart: Judged, left: Estimate, right: Estimate,
+                   left_drift: np.ndarray, right_drift: np.ndarray,
+                   judge: Callable[[TensorProbe, np.ndarray, Estimate, Estimate], Judged]) -> Judged:
+    """``apart`` (verdicts of the one-sided estimates taken apart) with its failures judged
+    again with the sides whose quotients drift like c/h given no bound; a failure that does
+    not stand so takes that verdict (undecided where neither side decides alone)."""
+    which = np.flatnonzero((apart.status == FAIL) & (left_drift | right_drift))
+    if which.size == 0:
+        return apart
+    def voided(e: Estimate, d: np.ndarray) -> Estimate:
+        return Estimate(e.value[which], np.where(d[which], np.inf, e.error[which]))
+
+    again = judge(probe, flat[which], voided(left, left_drift), voided(right, right_drift))
+    gone = np.flatnonzero(again.status != FAIL)
+    return apart.merged(which[gone], again.pick(gone)) if gone.size else apart

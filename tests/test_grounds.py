@@ -1,0 +1,129 @@
+"""A failure stands only on grounds checked on its own coordinate (engine/grounds.py).
+
+Each class below once failed correct float64 code with a confident bound; each test checks
+that correct code is no longer failed and that a wrong value where the arithmetic resolves it
+still is. References: closed forms from the table of derivatives (d/dx sin u = u' cos u;
+d/dx 1/v = -v'/v**2; d/dx max(0, z) = 1 for z > 0 and 0 for z < 0), and mpmath through the
+adversarial generator's judge (tests/adversarial: each case's gradient differentiated at 50
+digits) for the cases as first found.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from adversarial import judge
+from probe_kit import make_probe
+
+from gradprobe.common.status import FAIL, PASS
+from gradprobe.engine.coordinates import check_coordinates
+from gradprobe.engine.probe import TensorProbe
+
+
+def _sine(detune: float, factor: float):
+    """w sin(a (x - k)) with a period 2**-19 / (1 + detune): the ladder's halving steps land
+    near whole periods, and their quotients converge, at the model's rate, to a wrong value."""
+    a = 2 * np.pi * (1 + detune) * 2.0**19
+    x = np.array([7.5e-4, -3.3e-3, 1.9e-3, 0.4])
+    k = x - 0.3 / a
+    exact = 0.9 * a * np.cos(a * (x - k))  # d/dx sin(u) = u' cos(u)
+    probe = make_probe(lambda v: float(np.sum(0.9 * np.sin(a * (v - k)))), x, factor * exact)
+    return check_coordinates(probe, np.arange(x.size))
+
+
+@pytest.mark.parametrize("detune", [0.001, 0.0022, 0.004])
+def test_a_sine_far_finer_than_the_steps_is_not_failed_by_aliased_quotients(detune):
+    """Once failed at every coordinate (numeric 2832..11329 against 2.8e6); a pair off the
+    ladder's grid contradicts the aliased quotients and a ladder far further down decides."""
+    assert np.all(_sine(detune, 1.0).status == PASS)
+    assert np.all(_sine(detune, 1.01).status == FAIL)
+
+
+def _pole(factor: float):
+    """w / (1 - a (x - k)) with its pole 1.5e-6 and 3e-6 from the point, under a loss of
+    -6.78e16 (its rounding, 120 per value, hides the pole term's slope at any step that
+    stays clear of the pole). The target's other tensors set a large gradient floor."""
+    a = np.array([-17335.0, -16375.0])
+    x = np.array([0.50200014, 0.34959533])
+    k = x - np.array([1.5e-6, 3.0e-6]) - 1.0 / a
+    w = np.array([2.5, -2.0])
+    exact = w * a / (1.0 - a * (x - k)) ** 2  # d/dx 1/v = -v'/v**2
+    base = make_probe(lambda v: -6.78e16 + float(np.sum(w / (1.0 - a * (v - k)))), x, factor * exact)
+    probe = TensorProbe(base.evaluator, "w", base.x, base.a, base.f0, np.dtype(np.float64), 1e-6,
+                        target_scale=3e16)
+    return check_coordinates(probe, np.arange(x.size))
+
+
+def test_one_sided_quotients_drifting_like_one_over_h_past_a_pole_fail_nothing():
+    """Once failed (one-sided estimates 4670 +- 1.2e5 on steps up to 0.08, each quotient
+    the pole term's value over h, against -6.4e7): no failure, a reason instead."""
+    out = _pole(1.0)
+    assert not np.any(out.status == FAIL), out.status
+    assert all(r for r, s in zip(out.reasons, out.status) if s != PASS)
+
+
+def _crowd(factor: float, far: float):
+    """ReLU residuals along one coordinate: three kinks exactly at the point (slopes of
+    both signs, so the values a correct gradient may take there are not bounded by the two
+    one-sided derivatives), one ``far`` to the left, the rest far away."""
+    s = np.array([-3.0, 3.0, 1.0, -2.0, 1.0, 3.0, -1.0, 2.0])
+    z0 = np.array([0.0, 0.0, 0.0, -2.0 * far, 5e-3, 0.5, 0.3, -0.2])
+    w = np.array([0.4027, -0.998, -0.433, 0.37, 0.9, 0.56, -0.7, 0.25])
+    x0 = 0.6180339887
+    exact = 49.43 * np.sum(w * s * (z0 > 0))  # d/dx max(0, z): 1 for z > 0, 0 for z <= 0 (the code's convention)
+    probe = make_probe(lambda v: 49.43 * float(np.sum(w * np.maximum(s * (v[0] - x0) + z0, 0.0))),
+                       np.array([x0]), np.array([factor * exact]))
+    return check_coordinates(probe, np.arange(1))
+
+
+def test_kinks_met_at_the_point_beside_a_kink_crossed_at_a_wider_step_are_not_a_bug():
+    """Left 102.4, right -7.27, the code's (correct) 162.1: once failed as a value outside
+    the sides; the first pair crossed the kink 2.5e-6 away, so kinks crowd the point."""
+    assert _crowd(1.0, 2.5e-6).status[0] != FAIL
+
+
+def test_a_value_outside_a_lone_kinks_sides_still_fails():
+    """|w - c| at its kink with 3.0 returned (common practice: a valid value lies in [-1, 1])."""
+    w = np.array([0.7, -0.2])
+    c = np.array([0.7, 0.4])
+    probe = make_probe(lambda v: float(np.sum(np.abs(v - c))), w, np.array([3.0, -1.0]))
+    assert check_coordinates(probe, np.arange(2)).status.tolist() == [FAIL, PASS]
+
+
+def _huber(factor: float):
+    """A sum of Huber terms along one coordinate whose residuals sit 0, 8e-12, 8e-8, ...,
+    8e-2 from the corners at |z| = 1 (kinks-9124's column): the central quotients cross
+    corners among the ladder's steps and change at a first-order rate within the tableau's
+    rate check (125.69231 +- 4e-5 was failed against 125.69247)."""
+    s = np.array([1, 2, 1, 0, -3, 3, 3, 3, 3, 0, 2, -2, -3, 3, 1, -2, -3, 1, 3, 1, 0, -2, -1, -3, 0], dtype=float)
+    d = np.array([8e-5, 0, -8e-8, -8e-6, 8e-3, -8e-2, 8e-3, 8e-8, 8e-5, 8e-7, 0, 8e-3, -8e-4, -8e-5, -8e-12,
+                  -8e-8, 8e-5, 8e-2, 8e-3, -8e-6, -8e-3, 8e-4, 8e-7, 0, -8e-8])
+    w = np.array([-0.196, 0.857, 0.307, 0.541, -0.894, -0.853, 0.903, 0.943, -0.513, -0.651, 0.320, -0.529,
+                  -0.862, 0.927, 0.658, 0.276, -0.880, 0.742, -0.183, 0.425, -0.987, 0.599, 0.293, 0.668, -0.877])
+    x0 = -3.625
+
+    def loss(v):
+        z = 1.0 + d + s * (v[0] - x0)
+        return 880.0 + 9.607 * float(np.sum(w * np.where(np.abs(z) <= 1, 0.5 * z * z, np.abs(z) - 0.5)))
+
+    z = 1.0 + d
+    exact = 9.607 * np.sum(w * s * np.where(np.abs(z) <= 1, z, np.sign(z)))  # Huber': z inside, sign(z) outside
+    return check_coordinates(make_probe(loss, np.array([x0]), np.array([factor * exact])), np.arange(1))
+
+
+def test_central_quotients_across_corners_within_the_steps_fail_only_beyond_their_tail():
+    assert _huber(1.0).status[0] != FAIL
+    assert _huber(1.001).status[0] == FAIL
+
+
+@pytest.mark.parametrize("category, seed", [("steep", 9127), ("kinks", 9124), ("kinks", 9207), ("steep", 2714)])
+def test_the_cases_as_first_found_are_no_false_alarm(category, seed):
+    """As generated: steep-9127 (the pole), kinks-9124 (Huber corners crossed among the
+    ladder's steps: central quotients changing at a first-order rate that the tableau's rate
+    check admitted, 125.65237 +- 4e-5 against mpmath's 125.65253), kinks-9207 (kinks met at
+    the point), steep-2714 (the fine sine). The planted bugs of 9124 and 2714 still fail."""
+    o = judge(category, seed)
+    assert not o["unverified"] and o["crash"] is None
+    assert not o["false_alarm"], (o["status"], o["expect"])
+    if o["expect_fail"]:
+        assert o["found"] and o["located"], o["status"]
