@@ -20,7 +20,7 @@ from .certify import certify
 from .ladder import Estimate
 from .probe import Pairs, TensorProbe
 from .reconcile import narrow_reconciled, unabsorbed, unfuzzed
-from .grounds import drifting_sides, judged_ladder
+from .grounds import drifting_sides, judged_ladder, sides_grown
 from .refine import RATIO, ROWS, Taken, climb, ladder_taken, one_sided_drift
 from .staircase import flat_through_sixteen_bits
 from .steps import SETTLE_FRACTION, gap_suspects, largest_smooth_step, start_steps, steps_down
@@ -75,7 +75,8 @@ def _ladder_verdicts(
         shifted[which] = largest_smooth_step(probe, flat[again][which], start[again][which],
                                               np.full(which.size, float(RETRY_SHIFT)), before)
     second_ladder = climb(probe, flat[again], shifted, ROWS + 2, taken=before)
-    judged = first.merged(again, judged_ladder(probe, flat[again], second_ladder, shifted, before))
+    grown = sides_grown(probe, ladder)[again]
+    judged = first.merged(again, judged_ladder(probe, flat[again], second_ladder, shifted, before, grown))
     before.append(ladder_taken(flat[again], shifted, second_ladder))
     still = np.flatnonzero(judged.status == INCONCLUSIVE)
     if still.size == 0:
@@ -84,8 +85,9 @@ def _ladder_verdicts(
     # clean side reaches steps that beat the noise).
     smallest = np.minimum(start[still], probe.prior_steps(flat[still]))
     (left, left_drift), (right, right_drift) = (one_sided_drift(probe, flat[still], smallest, s) for s in (-1.0, 1.0))
-    apart = drifting_sides(probe, flat[still], judge_sides_apart(probe, flat[still], left, right),
-                           left, right, left_drift, right_drift, judge_sides_apart)
+    apart = judge_sides_apart(probe, flat[still], left, right)
+    apart = drifting_sides(probe, flat[still], judged.pick(still), apart, left, right, left_drift, right_drift,
+                           judge_sides_apart)
     keep = apart.status != INCONCLUSIVE
     return judged.merged(still[keep], apart.pick(np.flatnonzero(keep)))
 

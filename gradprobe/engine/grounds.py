@@ -38,9 +38,9 @@ from ..common.roundoff import is_narrow
 from ..common.status import FAIL, INCONCLUSIVE
 from .ladder import NOISE_UNITS, PREDICTION_SLACK, SAFETY, Estimate
 from .probe import Pairs, TensorProbe
-from .refine import Ladder, Taken, tiny_pair
+from .refine import Ladder, Taken, grown_changes, tiny_pair
 from .kinks import judge_ladder, sides_differ
-from .verdict import SIGNIFICANCE, UNSETTLED, Judged
+from .verdict import CROWDED, SIGNIFICANCE, UNSETTLED, Judged
 
 OFF_GRID = 2.0**-0.5  # the check's step: the ladder's smallest over sqrt(2), between two rows
 WIDER_LIMIT = 2.0**8  # wider pairs considered up to this many times the ladder's top step
@@ -48,10 +48,11 @@ WIDER_SLACK = 2.0  # a side's quotient at a wider step may leave the line by twi
 
 
 def judged_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, start: np.ndarray | None = None,
-                  taken: list[Taken] | None = None) -> Judged:
+                  taken: list[Taken] | None = None, wider: np.ndarray | None = None) -> Judged:
     """The ladder judged, after a pair at a tiny step for the coordinates whose sides differ;
     its failures kept only on grounds checked on the coordinate (below), with the wider
-    pairs ``taken`` before a ladder from ``start``."""
+    pairs ``taken`` before a ladder from ``start`` and, per coordinate, whether a ladder at
+    wider steps crossed kinks (``wider``, :func:`sides_grown`)."""
     which = sides_differ(probe, flat, ladder)
     tiny = None
     if which.size:
@@ -59,7 +60,7 @@ def judged_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, start: n
         tiny = tiny_pair(probe, flat[which], ladder.smallest[which], jump)
         if start is not None and taken:
             ladder = crossed_wider(probe, flat, start, ladder, taken, which)
-    judged = crossed_bound(probe, flat, ladder, judge_ladder(probe, flat, ladder, tiny))
+    judged = crossed_bound(probe, flat, ladder, judge_ladder(probe, flat, ladder, tiny), wider)
     return off_the_grid(probe, flat, ladder, judged)
 
 
@@ -93,10 +94,29 @@ def off_the_grid(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: J
     return _undecided(judged, which[off])
 
 
-def crossed_bound(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Judged) -> Judged:
-    """``judged`` with failures that rest on the central tableau, where a side crossed kinks
-    among the ladder's steps, kept only beyond SIGNIFICANCE times the first-order tail (the
-    module's note); the others undecided (UNSETTLED). The estimate itself is left as it was."""
+def sides_grown(probe: TensorProbe, ladder: Ladder) -> np.ndarray:
+    """Per coordinate of the ladder: a side's quotients changed by more than the row before,
+    beyond the rounding (:func:`.refine.grown_changes`): kinks crossed among its steps."""
+    assert ladder.pairs is not None
+    p, n = ladder.pairs, ladder.smallest.size
+    rows = _rows(ladder, n)
+    right, left = (s.reshape(rows, n) for s in p.sides(probe.f0))
+    noise = p.noise.reshape(rows, n)
+    return (grown_changes(right, 2 * noise / p.h_plus.reshape(rows, n))
+            | grown_changes(left, 2 * noise / p.h_minus.reshape(rows, n)))
+
+
+def crossed_bound(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Judged,
+                  wider: np.ndarray | None = None) -> Judged:
+    """``judged`` with failures that rest on the central tableau withheld where a side crossed
+    kinks among the ladder's steps (module's note): where its quotients changed by more than
+    the row before, beyond the rounding, kinks were crossed and more can lie closer than any
+    step (CROWDED, as for the sides' mean; so too where a ladder at wider steps, ``wider``,
+    saw that and this one's sides cross kinks all the same), unless the sides' gap is seen
+    to vanish like h above the noise (a steep smooth loss, whose quotients' changes grow at
+    steps beyond its bend, not a kink); where they only drift like c/h (which a fixed
+    rounding offset does too), the failure must stand beyond SIGNIFICANCE times the
+    first-order tail (else UNSETTLED). The estimate itself is left as it was."""
     if ladder.pairs is None or ladder.left_crossed is None or ladder.right_crossed is None:
         return judged
     n = flat.size
@@ -109,21 +129,26 @@ def crossed_bound(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: 
     if which.size == 0:
         return judged
     q = ladder.pairs.central.reshape(rows, n)[:, which]
+    grown = sides_grown(probe, ladder)[which]
+    if wider is not None:
+        grown |= wider[which]
+    if ladder.sides_vanish is not None:  # the sides' gap vanishes like h above the noise:
+        grown &= ~ladder.sides_vanish[which]  # positive evidence of no kink at the last rows
     value = central.value[which]
     with np.errstate(invalid="ignore", over="ignore"):
         tail = SAFETY * (np.abs(value - q[-1]) + np.abs(q[-1] - q[-2])) + central.error[which]
         within = ~(np.abs(probe.a[flat[which]] - value) > SIGNIFICANCE * tail)
-    return _undecided(judged, which[within])
+    return _undecided(_undecided(judged, which[within & ~grown]), which[grown], CROWDED)
 
 
-def _undecided(judged: Judged, k: np.ndarray) -> Judged:
-    """``judged`` with positions ``k`` undecided (UNSETTLED, not noise-limited: a retry goes
-    to smaller steps)."""
+def _undecided(judged: Judged, k: np.ndarray, reason: str = UNSETTLED) -> Judged:
+    """``judged`` with positions ``k`` undecided (UNSETTLED by default; not noise-limited: a
+    retry goes to smaller steps)."""
     if k.size == 0:
         return judged
     undecided = Judged(np.full(k.size, INCONCLUSIVE, dtype=judged.status.dtype),
                        Estimate(judged.estimate.value[k], np.full(k.size, np.inf)),
-                       (UNSETTLED,) * k.size, np.zeros(k.size, dtype=bool))
+                       (reason,) * k.size, np.zeros(k.size, dtype=bool))
     return judged.merged(k, undecided)
 
 
@@ -173,12 +198,18 @@ def _off_line(q0: float, q1: float, h0: float, h1: float, wide: float, big: floa
         return bool(abs(wide - predicted) > room)
 
 
-def drifting_sides(probe: TensorProbe, flat: np.ndarray, apart: Judged, left: Estimate, right: Estimate,
-                   left_drift: np.ndarray, right_drift: np.ndarray,
+def drifting_sides(probe: TensorProbe, flat: np.ndarray, before: Judged, apart: Judged, left: Estimate,
+                   right: Estimate, left_drift: np.ndarray, right_drift: np.ndarray,
                    judge: Callable[[TensorProbe, np.ndarray, Estimate, Estimate], Judged]) -> Judged:
     """``apart`` (verdicts of the one-sided estimates taken apart) with its failures judged
     again with the sides whose quotients drift like c/h given no bound; a failure that does
-    not stand so takes that verdict (undecided where neither side decides alone)."""
+    not stand so takes that verdict (undecided where neither side decides alone). Where the
+    ladders found kinks crowding the point (``before``'s reason CROWDED), no failure from the
+    sides stands: its sides are the same two one-sided derivatives, which kinks crowding
+    the point do not let bound the values a correct gradient may take."""
+    crowded = np.array([r == CROWDED for r in before.reasons], dtype=bool)
+    kept = np.flatnonzero((apart.status == FAIL) & crowded)
+    apart = apart.merged(kept, before.pick(kept)) if kept.size else apart
     which = np.flatnonzero((apart.status == FAIL) & (left_drift | right_drift))
     if which.size == 0:
         return apart

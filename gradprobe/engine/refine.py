@@ -157,7 +157,14 @@ def crossed_kinks(side: np.ndarray, noise: np.ndarray) -> np.ndarray:
     change that grows is a kink between the point and the step, crossed, and a drift like
     1/h one closer than the steps (or, below the rounding, a fixed rounding offset: taken as
     a kink all the same, since this only withholds a failure at a kink)."""
-    out: np.ndarray = np.asarray(drifting(side, np.zeros_like(side), RATIO).any(axis=0))
+    return np.asarray(drifting(side, np.zeros_like(side), RATIO).any(axis=0)) | grown_changes(side, noise)
+
+
+def grown_changes(side: np.ndarray, noise: np.ndarray) -> np.ndarray:
+    """Per coordinate, from one side's quotients (rows, coordinates): some change between
+    rows is larger than the one before it beyond the rounding noise (a kink crossed between
+    the point and the step; see :func:`crossed_kinks`)."""
+    out = np.zeros(side.shape[1:], dtype=bool)
     with np.errstate(over="ignore", invalid="ignore"):  # quotients near the type's range
         change = np.abs(np.diff(side, axis=0))
         for k in range(1, change.shape[0]):
@@ -234,7 +241,8 @@ def one_sided_drift(probe: TensorProbe, flat: np.ndarray, smallest: np.ndarray, 
     # The top step beats rounding noise: its quotient's noise is a SIDE_NOISE-th of the
     # tolerance (the tableau's bound is built from the rows below it, each noisier).
     tol = probe.tolerance(flat, probe.a[flat])
-    beats_noise = SIDE_NOISE * 2.0 * probe.loss_noise(np.full(n, probe.f0)) / np.maximum(tol, 1e-300)
+    with np.errstate(over="ignore"):  # a tolerance near the smallest float: an infinite step, capped below
+        beats_noise = SIDE_NOISE * 2.0 * probe.loss_noise(np.full(n, probe.f0)) / np.maximum(tol, 1e-300)
     top = np.minimum(np.maximum(smallest * SIDE_RATIO ** (SIDE_ROWS - 1), beats_noise),
                      np.maximum(cap, smallest))
     steps = np.concatenate([top / SIDE_RATIO**k for k in range(SIDE_ROWS)])
