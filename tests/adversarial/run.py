@@ -151,7 +151,7 @@ def _found_off_the_point(t) -> bool:
         "moved off the kinks" in (d.reason or "") for d in failing)
 
 
-def judge(category: str, seed: int, **options) -> dict:
+def judge(category: str, seed: int, /, **options) -> dict:
     """Everything the bench and the tests count about one case."""
     case = make_case(category, seed)
     rng = np.random.default_rng([11, seed])
