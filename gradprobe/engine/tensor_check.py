@@ -30,7 +30,7 @@ def plan(options: CheckOptions, size: int, total: int) -> tuple[int, int]:
         coordinates = options.default_sample
     if options.directions is not None:
         directions = options.directions
-    elif not full or options.sample == 0:
+    elif not full or coordinates < size:  # a tensor sampled, by the plan or the user's --sample
         directions = options.default_directions
     else:
         directions = 0
