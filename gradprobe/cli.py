@@ -11,12 +11,12 @@ from __future__ import annotations
 import contextlib
 import os
 import sys
-from dataclasses import dataclass
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 import click
 
+from .common.classes import dataclass
 from .settings.config import load_config
 from .common.errors import ProbeError, UsageProblem
 from .settings.options import SETTINGS, CheckOptions, ReportFiles, split_values

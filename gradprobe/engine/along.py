@@ -27,10 +27,10 @@ own numeric estimates' departure from it, and one at random; the first that fail
 from __future__ import annotations
 
 from collections.abc import Iterator
-from dataclasses import dataclass
 
 import numpy as np
 
+from ..common.classes import dataclass
 from ..common.roundoff import is_narrow, unit_roundoff
 from ..common.status import FAIL, INCONCLUSIVE
 from ..report.model import DirectionResult

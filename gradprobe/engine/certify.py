@@ -18,10 +18,10 @@ certified this way.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 
 import numpy as np
 
+from ..common.classes import dataclass
 from .probe import Pairs, TensorProbe
 from .steps import SETTLE_FRACTION as SETTLED
 

@@ -10,10 +10,11 @@ coordinate fails only when its discrepancy exceeds both the threshold and its er
 
 from __future__ import annotations
 
-from dataclasses import dataclass, replace
+from dataclasses import replace
 
 import numpy as np
 
+from ..common.classes import dataclass
 from ..common.errors import BadOutputError, ComplexStepError, UserCodeError
 from ..common.status import FAIL, INCONCLUSIVE, PASS
 from .certify import certify

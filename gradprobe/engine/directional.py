@@ -12,10 +12,10 @@ directions could have seen.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 
 import numpy as np
 
+from ..common.classes import dataclass
 from ..report.model import DirectionResult
 from .directions import DIRECTION_SIGNIFICANCE as SIGNIFICANCE
 from .directions import DirectionCheck, Vector, check_direction, unit_direction

@@ -17,11 +17,11 @@ element shows up as long as its share of the discrepancy exceeds the error bound
 from __future__ import annotations
 
 from collections.abc import Iterator, Mapping, Sequence
-from dataclasses import dataclass
 from typing import Any, Union
 
 import numpy as np
 
+from ..common.classes import dataclass
 from .ladder import Estimate, tableau
 from .probe import TensorProbe, root_mean_square
 

@@ -11,11 +11,11 @@ from __future__ import annotations
 import math
 from collections import Counter
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass
 from typing import Any, Protocol
 
 import numpy as np
 
+from ..common.classes import dataclass
 from ..common.errors import BadOutputError, InPlaceWriteError, ProbeError, UserCodeError, summarise
 from ..common.guard import ExitAttempt, exit_error
 from ..common.tensors import Workspace, format_index, is_numeric_dtype

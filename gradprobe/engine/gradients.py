@@ -3,11 +3,12 @@
 from __future__ import annotations
 
 from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import field
 from typing import Any
 
 import numpy as np
 
+from ..common.classes import dataclass
 from ..common.errors import BadOutputError
 from ..common.tensors import Handed, Workspace, emptied, flatten, is_float, is_float_dtype, is_numeric_dtype
 

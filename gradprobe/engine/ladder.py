@@ -12,9 +12,9 @@ over functions, points and scales that span many decades.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-
 import numpy as np
+
+from ..common.classes import dataclass
 
 SAFETY = 2.0  # the neighbours' spread is multiplied by this
 NOISE_UNITS = 2.0  # and the propagated rounding noise by this

@@ -16,10 +16,10 @@ over the set more thinly than the checks resolve, and the set is handed back as 
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 
 import numpy as np
 
+from ..common.classes import dataclass
 from .directions import DIRECTION_SIGNIFICANCE as SIGNIFICANCE
 from .directions import Vector, check_direction
 from .probe import TensorProbe

@@ -9,11 +9,12 @@ it was given; a second look off a kink (:mod:`.offpoint`) prepares a nearby one 
 from __future__ import annotations
 
 from collections.abc import Callable
-from dataclasses import dataclass, field, replace
+from dataclasses import field, replace
 from typing import Any
 
 import numpy as np
 
+from ..common.classes import dataclass
 from ..common.errors import ProbeError
 from ..common.tensors import Workspace, is_float
 from .domain import quiet

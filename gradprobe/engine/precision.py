@@ -24,10 +24,10 @@ more leniently than its arithmetic, never more strictly.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 
 import numpy as np
 
+from ..common.classes import dataclass
 from ..common.errors import BadOutputError, UserCodeError
 from ..common.tensors import Workspace
 from .evaluate import Evaluator, Perturbation

@@ -4,11 +4,11 @@ and whether forward or backward write into the arrays they are given."""
 from __future__ import annotations
 
 from collections.abc import Callable
-from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
+from ..common.classes import dataclass
 from ..common.errors import (
     InPlaceWriteError,
     NondeterminismError,

@@ -10,11 +10,11 @@ direction (:meth:`TensorProbe.along`), and restrictions to part of the tensor.
 from __future__ import annotations
 
 from collections.abc import Callable, Iterable
-from dataclasses import dataclass
 from typing import Any, Protocol
 
 import numpy as np
 
+from ..common.classes import dataclass
 from ..common.errors import BadOutputError
 from .evaluate import Evaluator, Perturbation
 from ..common.roundoff import rounding_units

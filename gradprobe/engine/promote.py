@@ -15,11 +15,11 @@ underflow or a branch taken only in the narrow type).
 from __future__ import annotations
 
 from collections.abc import Callable, Mapping
-from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
+from ..common.classes import dataclass
 from ..common.errors import ProbeError
 from ..common.tensors import Workspace, is_float, is_float_dtype
 from .evaluate import Evaluator, LossFunction

@@ -8,11 +8,11 @@ end, by :meth:`TensorRecord.result`.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
 import numpy as np
 
+from ..common.classes import dataclass
 from ..report.model import DirectionResult, TensorResult
 from ..common.status import FAIL, Status
 from .coordinates import CoordinateOutcome

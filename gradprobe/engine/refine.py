@@ -10,10 +10,10 @@ where they disagree a pair of much smaller steps tells a kink at the point from 
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 
 import numpy as np
 
+from ..common.classes import dataclass
 from .ladder import NOISE_UNITS, Estimate, column_rates, drifting, tableau
 from .probe import Pairs, TensorProbe
 

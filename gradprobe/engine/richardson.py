@@ -13,10 +13,10 @@ the way a smooth loss's do.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 
 import numpy as np
 
+from ..common.classes import dataclass
 from ..common.roundoff import is_narrow
 from .ladder import NOISE_UNITS, Estimate, _build
 from .probe import Pairs, TensorProbe

@@ -9,10 +9,10 @@ error bound from how the three disagree and from the loss's measured rounding.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass
 
 import numpy as np
 
+from ..common.classes import dataclass
 from .evaluate import Evaluator, Perturbation
 from .second_numeric import power_of_two
 from .second_source import Layout

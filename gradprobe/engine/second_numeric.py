@@ -11,10 +11,10 @@ Forward's side (check 2) is :mod:`.second_forward`.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 
 import numpy as np
 
+from ..common.classes import dataclass
 from ..common.status import FAIL, INCONCLUSIVE, KINK, PASS
 from ..common.roundoff import FLOAT64_ROUNDING_UNITS as ROUNDING_UNITS  # a gradient value's rounding
 from .second_source import GradientField, HessianSource, Layout

@@ -10,11 +10,11 @@ moved point is backward called on a copy of the workspace with the moved tensors
 from __future__ import annotations
 
 from collections.abc import Callable, Mapping
-from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
+from ..common.classes import dataclass
 from ..common.errors import BadOutputError, ProbeError, UserCodeError, summarise
 from ..common.tensors import Workspace, flatten, is_float, is_float_dtype, nested
 from .gradients import validate

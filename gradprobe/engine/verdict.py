@@ -15,10 +15,10 @@ container and the vocabulary of reasons every stage shares.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 
 import numpy as np
 
+from ..common.classes import dataclass
 from .ladder import Estimate
 from .probe import TensorProbe
 from ..common.roundoff import is_narrow

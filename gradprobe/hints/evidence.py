@@ -2,9 +2,11 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import field
 
 import numpy as np
+
+from ..common.classes import dataclass
 
 EXPLAINED = 0.05  # a model must leave at most 5% of the discrepancy unexplained
 

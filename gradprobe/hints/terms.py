@@ -12,10 +12,10 @@ term of the same loop.
 from __future__ import annotations
 
 from collections.abc import Iterator
-from dataclasses import dataclass
 
 import numpy as np
 
+from ..common.classes import dataclass
 from .evidence import Context, Evidence, as_float64, norm
 
 RANK_TOL = 1e-8  # singular values below this share of the largest do not count

@@ -7,7 +7,7 @@ table.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
+from ..common.classes import dataclass
 
 GAP = 3  # a column's padding and divider, as the tables are drawn
 HINT_MIN = 20  # narrower than this, a hint column reads badly: hints go below the table

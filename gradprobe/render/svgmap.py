@@ -10,11 +10,11 @@ red from green. Cells of one colour are drawn as a single path, runs merged.
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 from html import escape
 
 import numpy as np
 
+from ..common.classes import dataclass
 from ..report.model import TensorResult
 from .heatmap import folded, reduce
 

@@ -11,7 +11,6 @@ from __future__ import annotations
 import io
 import textwrap
 from collections.abc import Iterable
-from dataclasses import dataclass
 from typing import IO
 
 from rich import box
@@ -19,6 +18,7 @@ from rich.console import Console, ConsoleOptions, RenderableType, RenderResult
 from rich.table import Table
 from rich.text import Text
 
+from ..common.classes import dataclass
 from ..report.model import Report, TargetRun, TensorResult
 from ..common.tensors import format_index
 from ..common.wording import plural

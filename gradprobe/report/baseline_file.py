@@ -12,11 +12,12 @@ import json
 import math
 import os
 from collections.abc import Callable, Mapping
-from dataclasses import dataclass, replace
+from dataclasses import replace
 from typing import Any
 
 import numpy as np
 
+from ..common.classes import dataclass
 from .baseline_model import BaselineReport, BaselineTensor
 from ..common.errors import UsageProblem
 from ..settings.options import CheckOptions

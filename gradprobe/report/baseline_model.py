@@ -4,9 +4,9 @@ tensor changed since (set by :func:`gradprobe.report.comparison.compare`, shown 
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 from enum import Enum
 
+from ..common.classes import dataclass
 from ..common.status import Status
 from .checked import CheckedCoordinates
 

@@ -10,8 +10,9 @@ gradient is wrong. Pure: reports in, a report out.
 from __future__ import annotations
 
 from collections.abc import Sequence
-from dataclasses import dataclass, replace
+from dataclasses import replace
 
+from ..common.classes import dataclass
 from .model import LayerResult, Report, TensorResult
 from ..common.status import Status, worst
 from ..common.tensors import INPUT_LAYER

@@ -3,8 +3,9 @@ report model), a baseline lists them (:mod:`gradprobe.report.baseline_model`).""
 
 from __future__ import annotations
 
-from dataclasses import dataclass
 from typing import Any
+
+from ..common.classes import dataclass
 
 
 @dataclass(frozen=True)

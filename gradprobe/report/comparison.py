@@ -23,10 +23,11 @@ coordinates.
 from __future__ import annotations
 
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass, replace
+from dataclasses import replace
 
 import numpy as np
 
+from ..common.classes import dataclass
 from .baseline_model import BaselineReport, BaselineTensor, Change, RunBaseline, TensorBaseline
 from .model import CheckedCoordinates, Report, TensorResult
 from ..common.status import Status, worst

@@ -7,9 +7,10 @@ renderers (terminal, JSON, JUnit, pytest messages) only read it.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import field
 from typing import TYPE_CHECKING, Any
 
+from ..common.classes import dataclass
 from .checked import CheckedCoordinates
 from ..common.status import Status
 

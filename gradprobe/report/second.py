@@ -7,9 +7,10 @@ Frozen dataclasses built by :mod:`gradprobe.engine.second_order`; renderers only
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import field
 from typing import Any
 
+from ..common.classes import dataclass
 from ..common.status import Status
 
 ENTERS = ("hessian", "gradient")  # the values of error_enters_at besides None

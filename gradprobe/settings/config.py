@@ -14,10 +14,11 @@ from __future__ import annotations
 
 import os
 import sys
-from dataclasses import dataclass, field
+from dataclasses import field
 from pathlib import Path
 from typing import Any
 
+from ..common.classes import dataclass
 from ..common.errors import UsageProblem
 from .options import SETTING, SETTINGS
 

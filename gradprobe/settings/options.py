@@ -14,9 +14,10 @@ import numbers
 import os
 import typing
 from collections.abc import Mapping
-from dataclasses import MISSING, Field, dataclass, field, fields, replace
+from dataclasses import MISSING, Field, field, fields, replace
 from typing import Any
 
+from ..common.classes import dataclass
 from ..common.errors import UsageProblem
 
 METHODS = ("central", "richardson", "complex")

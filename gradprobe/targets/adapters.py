@@ -13,11 +13,11 @@ object back as it was (parameters, caches, counters, running statistics; see
 from __future__ import annotations
 
 from collections.abc import Mapping
-from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
+from ..common.classes import dataclass
 from ..common.errors import TargetLoadError
 from .objstate import preserved
 from .target import Target

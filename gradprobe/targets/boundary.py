@@ -15,11 +15,12 @@ from __future__ import annotations
 
 from collections.abc import Mapping
 from contextlib import contextmanager
-from dataclasses import dataclass, field
+from dataclasses import field
 from typing import Any, Iterator
 
 import numpy as np
 
+from ..common.classes import dataclass
 from ..common.errors import InPlaceWriteError, ProbeError, TargetLoadError, summarise
 from ..common.tensors import Handed, flatten, unflatten
 

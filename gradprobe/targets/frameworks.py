@@ -11,11 +11,12 @@ from __future__ import annotations
 import sys
 from collections.abc import Callable, Iterator, Mapping
 from contextlib import contextmanager
-from dataclasses import dataclass, field, replace
+from dataclasses import field, replace
 from typing import TYPE_CHECKING, Any
 
 import numpy as np
 
+from ..common.classes import dataclass
 from .boundary import NUMPY, Boundary, Kind, describe, rebuilt
 from ..common.errors import TargetLoadError
 from ..report.model import Report

@@ -10,11 +10,12 @@ here); :mod:`gradprobe.targets.stack_split` gives each layer on its own.
 from __future__ import annotations
 
 from collections.abc import Callable, Mapping, Sequence
-from dataclasses import dataclass, field
+from dataclasses import field
 from typing import Any
 
 import numpy as np
 
+from ..common.classes import dataclass
 from ..common.errors import (
     BadOutputError,
     TargetLoadError,

@@ -9,11 +9,11 @@ gradient, for the loss layer it is 1.0. Other arrays of ``inputs`` pass through 
 from __future__ import annotations
 
 from collections.abc import Mapping
-from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
 
+from ..common.classes import dataclass
 from ..common.errors import BadOutputError, UserCodeError, summarise
 from .stack import (
     INPUT,

@@ -15,10 +15,11 @@ import sys
 import types
 import zlib
 from collections.abc import Callable, Mapping
-from dataclasses import dataclass, field
+from dataclasses import field
 from pathlib import Path
 from typing import Any
 
+from ..common.classes import dataclass
 from ..common.errors import TargetLoadError, summarise
 from ..common.guard import ExitAttempt, exit_error
 from ..common.spec import is_file_spec, split_spec
