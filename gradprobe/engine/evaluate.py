@@ -19,7 +19,7 @@ from ..common.classes import dataclass
 from ..common.errors import BadOutputError, InPlaceWriteError, ProbeError, UserCodeError, summarise
 from ..common.guard import ExitAttempt, exit_error
 from ..common.tensors import Workspace, format_index, is_numeric_dtype
-from .domain import Key, Watch
+from .domain import Key, MovedCalls, Watch
 
 # An integer index array at least this long that is one contiguous run becomes a slice.
 CONTIGUOUS_MIN = 64
@@ -167,11 +167,15 @@ class LossFunction:
         self._complex: dict[str, np.ndarray] = {}
         self._watch = Watch(show=not moved_copy)  # a moved copy's base shows no warnings
         self._unsure: tuple[set[Key], float | complex] | None = None  # warned, base not known
+        self._moved: MovedCalls | None = None  # serial calls at moved points (single_moves)
 
     def _call(self, params: Any, inputs: Any, p: Perturbation | _One | None, moved: bool = False) -> float | complex:
         moved = moved or p is not None
         try:
-            out, warned = self._watch.call(self.forward, params, inputs, moved)
+            if moved and self._moved is not None:
+                out, warned = self._moved.call(self.forward, params, inputs)
+            else:
+                out, warned = self._watch.call(self.forward, params, inputs, moved)
         except ProbeError as exc:  # the array boundary's own sentence (an in-place write)
             raise type(exc)(exc.message + self._where(p), value=exc.value) from exc
         except Exception as exc:
@@ -305,6 +309,16 @@ class LossFunction:
         params, inputs = self.workspace.params_tree, self.workspace.inputs_tree
         out = np.empty((flat.size, len(points)))
         one = _One(tensor, flat, points[0])
+        with self._watch.moved_calls() as self._moved:
+            try:
+                self._single_moves(owner, params, inputs, flat, points, one, out, tick)
+            finally:
+                self._moved = None
+        return out
+
+    def _single_moves(self, owner: np.ndarray, params: Any, inputs: Any, flat: np.ndarray,
+                      points: tuple[np.ndarray, ...], one: _One, out: np.ndarray,
+                      tick: Callable[[], None]) -> None:
         for i, k in enumerate(flat.tolist()):
             old = owner.flat[k]
             one.i = i
@@ -323,7 +337,6 @@ class LossFunction:
                     tick()
             finally:
                 owner.flat[k] = old
-        return out
 
     def _at_complex(self, p: Perturbation) -> complex:
         work = self._complex.get(p.tensor)
