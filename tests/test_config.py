@@ -140,3 +140,36 @@ def test_samples_folder_targets_all_pass_or_fail_as_documented(run_cli):
     result = run_cli("check", str(SAMPLES / "crop_yield.py"), str(SAMPLES / "sensor_mixer.py"),
                      f"{SAMPLES / 'stateful_layer.py'}:case", "-q")
     assert result.exit_code == 0
+
+
+# Every way TOML v1.0.0 (toml.io, sections "Table", "Keys" (dotted keys) and "Inline Table")
+# can declare [tool.gradprobe] is read: the file is parsed whenever it might hold the table.
+TABLE_FORMS = [
+    "[tool.gradprobe]\nseed = 3\n",
+    "[ \"tool\" . 'gradprobe' ]\nseed = 3\n",
+    "tool.gradprobe.seed = 3\n",
+    "tool = { gradprobe = { seed = 3 } }\n",
+    "[tool]\ngradprobe = { seed = 3 }\n",
+    "[tool]\nother = 1\n\"gradprobe\".seed = 3\n",
+]
+
+
+def test_every_toml_form_of_the_table_is_read(tmp_path):
+    from gradprobe.settings.config import load_config
+
+    for form in TABLE_FORMS:
+        (tmp_path / "pyproject.toml").write_text(form + '[project]\nname = "yields"\n')
+        assert load_config(tmp_path).values == {"seed": 3}, form
+
+
+def test_a_pyproject_without_the_table_is_not_parsed(tmp_path):
+    from gradprobe.settings.config import load_config, may_hold_our_table
+
+    # Other tools' tables and the word in other places (a package named after gradprobe):
+    text = '[project]\nname = "gradprobe-demo"\n[project.scripts]\ngradprobe-demo = "d:main"\n' \
+           '[tool.mypy]\nstrict = true\n[tool.setuptools.package-data]\ngradprobe = ["py.typed"]\n'
+    assert not may_hold_our_table(text) and not may_hold_our_table("[tool.ruff]\nx = 1\n")
+    assert all(may_hold_our_table(form) for form in TABLE_FORMS)
+    (tmp_path / "pyproject.toml").write_text(text)
+    config = load_config(tmp_path)
+    assert config.path == tmp_path / "pyproject.toml" and config.values == {}

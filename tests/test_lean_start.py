@@ -131,3 +131,16 @@ def test_version_loads_neither_numpy_nor_rich(tmp_path):
     code, modules, stdout = _run(tmp_path, "--version")
     assert code in (0, None) and stdout.startswith("gradprobe ")
     assert not _loaded(modules, "numpy") and not _loaded(modules, "rich")
+
+
+def test_a_pyproject_without_a_gradprobe_table_is_not_parsed(tmp_path):
+    # A project's pyproject.toml with other tools' tables: nothing for gradprobe, no parser.
+    (tmp_path / "gains.py").write_text(textwrap.dedent(TARGET))
+    (tmp_path / "pyproject.toml").write_text('[project]\nname = "gains"\n[tool.mypy]\nstrict = true\n')
+    code, modules, stdout = _run(tmp_path, "check", "gains.py", "--json", "-")
+    assert code == 0 and json.loads(stdout)["ok"] is True
+    assert "tomllib" not in modules and "gradprobe.settings.config" in modules
+    # The counterpart: with a [tool.gradprobe] table the parser is loaded and the table read.
+    (tmp_path / "pyproject.toml").write_text('[tool.gradprobe]\nseed = 4\n')
+    code, modules, stdout = _run(tmp_path, "check", "gains.py", "--json", "-")
+    assert code == 0 and "tomllib" in modules and json.loads(stdout)["seed"] == 4
