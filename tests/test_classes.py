@@ -131,3 +131,16 @@ def test_gradprobe_report_objects_pickle_and_compare():
     assert pickle.loads(pickle.dumps(t)) == t
     assert dataclasses.replace(t, failed=1) != t and hash(t) == hash(dataclasses.replace(t))
     assert TensorResult.__repr__.__module__ == "gradprobe.common.classes"
+
+
+def test_every_gradprobe_class_uses_this_dataclass():
+    # The start-up it saves is lost by any module that takes the standard one directly.
+    import re
+    from pathlib import Path
+
+    package = Path(__file__).resolve().parent.parent / "gradprobe"
+    direct = [str(p.relative_to(package)) for p in package.rglob("*.py")
+              if p.name != "classes.py" and re.search(
+                  r"^from dataclasses import .*\bdataclass\b|@dataclasses\.dataclass",
+                  p.read_text(), re.M)]
+    assert direct == [], f"import dataclass from gradprobe.common.classes in {direct}"
