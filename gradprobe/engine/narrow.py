@@ -137,10 +137,10 @@ def wide_estimate(probe: TensorProbe, flat: np.ndarray, taken: list[Taken] | Non
     # Never beyond the params' own scale (as steps.largest_smooth_step): past it the loss
     # along a coordinate is another function, and agreement there proves nothing.
     scale = np.maximum(np.abs(probe.x[flat].astype(np.float64)), probe.x_scale)
-    rows = (d, s, e, right - left, side_noise, asymmetry, scale)
+    table = (d, s, e, right - left, side_noise, asymmetry, scale)
     # ``plain``: also windows without extrapolation (:func:`plain_windowed`), for quotients
     # that rounding rather than curvature limits.
-    return Estimate.better(windowed(*rows), plain_windowed(*rows)) if plain else windowed(*rows)
+    return Estimate.better(windowed(*table), plain_windowed(*table)) if plain else windowed(*table)
 
 
 def windowed(d: np.ndarray, s: np.ndarray, e: np.ndarray, apart: np.ndarray, side_noise: np.ndarray,

@@ -102,9 +102,11 @@ class Snapshot:
         for array, saved in self._arrays:
             if array.shape == saved.shape and array.tobytes() != saved.tobytes():
                 np.copyto(array, saved)
+        torch = self._torch  # set whenever a tensor was kept
         for tensor, kept in self._tensors:
-            if tensor.shape == kept.shape and not self._torch.equal(tensor.detach(), kept):
-                with self._torch.no_grad():
+            assert torch is not None
+            if tensor.shape == kept.shape and not torch.equal(tensor.detach(), kept):
+                with torch.no_grad():
                     tensor.copy_(kept)
 
 
