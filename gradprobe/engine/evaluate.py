@@ -15,142 +15,16 @@ from typing import Any, Protocol
 
 import numpy as np
 
-from ..common.classes import dataclass
 from ..common.errors import BadOutputError, InPlaceWriteError, ProbeError, UserCodeError, summarise
 from ..common.guard import ExitAttempt, exit_error
-from ..common.tensors import Workspace, format_index, is_numeric_dtype
+from ..common.tensors import Workspace
 from .domain import Key, MovedCalls, Watch
+from .loss_value import is_read_only_write, output_to_loss, overflowed
+from .moves import One, Perturbation, covers, whole_view
 
-# An integer index array at least this long that is one contiguous run becomes a slice.
-CONTIGUOUS_MIN = 64
-
-
-def as_slice(index: np.ndarray) -> slice | None:
-    """``index`` as a slice when it is the run ``start, start+1, ..., stop-1``."""
-    if index.ndim != 1 or index.size < CONTIGUOUS_MIN:
-        return None
-    start, last = int(index[0]), int(index[-1])
-    if last - start + 1 != index.size or not bool(np.all(np.diff(index) == 1)):
-        return None
-    return slice(start, last + 1)
-
-
-@dataclass(frozen=True)
-class Perturbation:
-    """Set ``tensor.flat[index] = values`` for one forward call.
-
-    ``index`` is a 1-D array of flat indices or, for a contiguous range, a ``slice`` with
-    explicit start and stop (step 1): it pickles in a few bytes and is applied by slicing.
-    A long contiguous index array is turned into such a slice.
-    """
-
-    tensor: str
-    index: np.ndarray | slice
-    values: np.ndarray  # one value per index, in the tensor's dtype (complex for complex step)
-
-    def __post_init__(self) -> None:
-        if isinstance(self.index, np.ndarray):
-            run = as_slice(self.index)
-            if run is not None:
-                object.__setattr__(self, "index", run)
-
-    @property
-    def size(self) -> int:
-        """How many coordinates change."""
-        if isinstance(self.index, slice):
-            return int(self.index.stop) - int(self.index.start)
-        return int(np.size(self.index))
-
-    def describe(self, shape: tuple[int, ...]) -> str:
-        if self.size == 1:
-            first = self.index.start if isinstance(self.index, slice) else self.index[0]
-            where = tuple(int(i) for i in np.unravel_index(int(first), shape))
-            return f"{self.tensor}{format_index(where)}"
-        return f"{self.size} coordinates of {self.tensor}"
-
-
-def is_read_only_write(exc: BaseException) -> bool:
-    return isinstance(exc, ValueError) and "read-only" in str(exc)
-
-
-def output_to_loss(out: Any, grad_output: np.ndarray | None, where: str) -> float | complex:
-    """The scalar loss of one forward result; BadOutputError for anything unusable."""
-    if grad_output is None and type(out) in (float, np.float64, np.float32) and math.isfinite(out):
-        return float(out)  # the common case, kept cheap
-    if isinstance(out, (tuple, list, str, bytes, dict)) or out is None:
-        raise BadOutputError(
-            f"forward returned a {type(out).__name__}{where}, not a number or an array", value=out
-        )
-    try:
-        array = np.asarray(out)
-    except Exception as exc:
-        raise BadOutputError(f"forward returned {type(out).__name__}{where}", value=out) from exc
-    if not is_numeric_dtype(array.dtype):
-        raise BadOutputError(
-            f"forward returned an array of dtype {array.dtype}{where}, not numbers", value=out
-        )
-    finite = np.isfinite(array)
-    if not finite.all():
-        bad = int(array.size - finite.sum())
-        raise BadOutputError(
-            f"forward returned {bad} non-finite value{'s' if bad > 1 else ''}{where}", value=out
-        )
-    if grad_output is None:
-        if array.size != 1:
-            raise BadOutputError(
-                f"forward returned an array of shape {array.shape}{where} where a scalar was "
-                "returned before", value=out,
-            )
-        value = array.reshape(())[()]
-        return complex(value) if np.iscomplexobj(array) else float(np.float64(value))
-    if array.shape != grad_output.shape:
-        raise BadOutputError(
-            f"forward returned shape {array.shape}{where} where it returned "
-            f"{grad_output.shape} before", value=out,
-        )
-    if np.iscomplexobj(array):
-        return complex(np.sum(grad_output * array))
-    return float(np.sum(grad_output * array.astype(np.float64, copy=False)))
-
-
-def _overflowed(out: Any) -> bool:
-    """forward returned numbers, some of them not finite."""
-    if isinstance(out, (tuple, list, str, bytes, dict)) or out is None:
-        return False
-    try:
-        array = np.asarray(out)
-    except Exception:
-        return False
-    return bool(is_numeric_dtype(array.dtype) and not np.isfinite(array).all())
-
+__all__ = ["Backend", "Evaluator", "LossFunction", "Perturbation", "Progress", "output_to_loss"]
 
 OUTSIDE = "forward warned at a point moved off the base point (outside its domain there)"
-
-
-def _covers(p: Perturbation, owner: np.ndarray) -> bool:
-    """``p`` sets every element of ``owner`` (a real move of a real tensor)."""
-    return (isinstance(p.index, slice) and p.index.start == 0 and p.index.stop == owner.size
-            and p.values.dtype.kind != "c" and owner.dtype.kind != "c")
-
-
-def _whole_view(p: Perturbation, owner: np.ndarray) -> np.ndarray:
-    view = np.asarray(p.values, dtype=owner.dtype).reshape(owner.shape).view()
-    view.flags.writeable = False
-    return view
-
-
-class _One:
-    """One coordinate of ``tensor`` moved to ``values[i]`` (a :class:`Perturbation` is made
-    only where a message names it)."""
-
-    __slots__ = ("tensor", "flat", "values", "i")
-
-    def __init__(self, tensor: str, flat: np.ndarray, values: np.ndarray) -> None:
-        self.tensor, self.flat, self.values, self.i = tensor, flat, values, 0
-
-    def describe(self, shape: tuple[int, ...]) -> str:
-        i = self.i
-        return Perturbation(self.tensor, self.flat[i:i + 1], self.values[i:i + 1]).describe(shape)
 
 
 class LossFunction:
@@ -169,7 +43,7 @@ class LossFunction:
         self._unsure: tuple[set[Key], float | complex] | None = None  # warned, base not known
         self._moved: MovedCalls | None = None  # serial calls at moved points (single_moves)
 
-    def _call(self, params: Any, inputs: Any, p: Perturbation | _One | None, moved: bool = False) -> float | complex:
+    def _call(self, params: Any, inputs: Any, p: Perturbation | One | None, moved: bool = False) -> float | complex:
         moved = moved or p is not None
         try:
             if moved and self._moved is not None:
@@ -192,7 +66,7 @@ class LossFunction:
         try:
             value = output_to_loss(out, self.grad_output, "")
         except BadOutputError as exc:
-            if moved and _overflowed(out):
+            if moved and overflowed(out):
                 if p is None:
                     raise BadOutputError(exc.message + " at a moved point", value=out) from None
                 return math.nan  # a perturbed point outside forward's range: the caller
@@ -212,7 +86,7 @@ class LossFunction:
         worker's): one more forward call, at the workspace's own values."""
         self._call(self.workspace.params_tree, self.workspace.inputs_tree, None)
 
-    def _where(self, p: Perturbation | _One | None) -> str:
+    def _where(self, p: Perturbation | One | None) -> str:
         if p is None:
             return ""
         return f" when {p.describe(self.workspace.owners[p.tensor].shape)} was perturbed"
@@ -308,7 +182,7 @@ class LossFunction:
         owner = self.workspace.owners[tensor]
         params, inputs = self.workspace.params_tree, self.workspace.inputs_tree
         out = np.empty((flat.size, len(points)))
-        one = _One(tensor, flat, points[0])
+        one = One(tensor, flat, points[0])
         with self._watch.moved_calls() as self._moved:
             try:
                 self._single_moves(owner, params, inputs, flat, points, one, out, tick)
@@ -317,7 +191,7 @@ class LossFunction:
         return out
 
     def _single_moves(self, owner: np.ndarray, params: Any, inputs: Any, flat: np.ndarray,
-                      points: tuple[np.ndarray, ...], one: _One, out: np.ndarray,
+                      points: tuple[np.ndarray, ...], one: One, out: np.ndarray,
                       tick: Callable[[], None]) -> None:
         for i, k in enumerate(flat.tolist()):
             old = owner.flat[k]
@@ -420,8 +294,8 @@ class Evaluator:
         # A tensor moved as a whole is handed to forward as a read-only view of the new
         # values in its place (no copy of the old values to restore: memory on a large one).
         once = Counter(p.tensor for p in moves)
-        whole = {p.tensor: _whole_view(p, ws.owners[p.tensor]) for p in moves
-                 if once[p.tensor] == 1 and _covers(p, ws.owners[p.tensor])}
+        whole = {p.tensor: whole_view(p, ws.owners[p.tensor]) for p in moves
+                 if once[p.tensor] == 1 and covers(p, ws.owners[p.tensor])}
         parts = [p for p in moves if p.tensor not in whole]
         saved = [ws.owners[p.tensor].flat[p.index].copy() for p in parts]
         try:
