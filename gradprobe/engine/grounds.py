@@ -40,7 +40,7 @@ from .ladder import NOISE_UNITS, PREDICTION_SLACK, SAFETY, Estimate
 from .probe import Pairs, TensorProbe
 from .refine import Ladder, Taken, grown_changes, tiny_pair
 from .kinks import judge_ladder, sides_differ
-from .verdict import CROWDED, SIGNIFICANCE, UNSETTLED, Judged
+from .verdict import CROWDED, SIGNIFICANCE, UNRESOLVED, UNSETTLED, Judged
 
 OFF_GRID = 2.0**-0.5  # the check's step: the ladder's smallest over sqrt(2), between two rows
 WIDER_LIMIT = 2.0**8  # wider pairs considered up to this many times the ladder's top step
@@ -207,7 +207,7 @@ def drifting_sides(probe: TensorProbe, flat: np.ndarray, before: Judged, apart: 
     ladders found kinks crowding the point (``before``'s reason CROWDED), no failure from the
     sides stands: its sides are the same two one-sided derivatives, which kinks crowding
     the point do not let bound the values a correct gradient may take."""
-    crowded = np.array([r == CROWDED for r in before.reasons], dtype=bool)
+    crowded = np.array([r in (CROWDED, UNRESOLVED) for r in before.reasons], dtype=bool)
     kept = np.flatnonzero((apart.status == FAIL) & crowded)
     apart = apart.merged(kept, before.pick(kept)) if kept.size else apart
     which = np.flatnonzero((apart.status == FAIL) & (left_drift | right_drift))

@@ -20,13 +20,17 @@ from .ladder import Estimate
 from .probe import TensorProbe
 from .refine import Ladder, Tiny
 from .kink_evidence import between, cornered, crossed, kink_evidence, near_a_side, within_kink
-from .verdict import (CORNER_NEAR, CROWDED, NEAR_KINK, NOISE, SIGNIFICANCE, UNSETTLED, Judged,
-                      verdicts)
+from .verdict import (CORNER_NEAR, CROWDED, NEAR_KINK, NOISE, SIGNIFICANCE, UNRESOLVED, UNSETTLED,
+                      Judged, verdicts)
 
 LOPSIDED = 0.01  # a side whose bound is 100 times tighter than the other's has settled
 NEAR_SAFETY = 4.0  # bounds of a side estimated beside a kink are taken 4 times wider
 JUMP_KEPT = 0.05  # at a kink the jump seen at a tiny step stays within 5% of the ladder's
 CURVATURE_SLACK = 0.01  # first-order quotients at the tiny step may differ by 1% of the jump
+# A kink at the point bounds a correct value by its sides only where no other kink can hide
+# within the tiny step: taken as so where that step is within 2**12 spacings of x (2**-40 of
+# |x|), about where the code's own rounding of a residual already places a kink.
+RESOLVED_SPACINGS = 2.0**12
 
 
 def _sides_apart(probe: TensorProbe, flat: np.ndarray, ladder: Ladder) -> tuple[np.ndarray, np.ndarray]:
@@ -232,15 +236,21 @@ def _judge_sides(
     near = Estimate(near.value, np.maximum(NEAR_SAFETY * near.error, confirmed)
                     + np.where(neither, cornered(ladder), 0.0))
     near_status = verdicts(probe, a, near, probe.tolerance(f, near.value))
+    # The tiny step sees every kink within it as one at the point: one more closer than it
+    # (residuals 0 and 6e-14 from kinks, a step of 3e-11) sets each side across it, and the
+    # sides no longer bound a correct value (``hidden``: see RESOLVED_SPACINGS).
+    hidden = (np.zeros(f.size, dtype=bool) if tiny.step is None
+              else tiny.step > RESOLVED_SPACINGS * probe.resolution(f))
     for j, k in enumerate(which.tolist()):
         if kept[j]:
             # A value outside the sides is a bug only where the steps crossed no other kink:
             # where they did, more can lie closer than any step, each adding its own jump
-            # (of either sign) to the values a correct gradient may take at the point.
+            # (of either sign) to the values a correct gradient may take at the point; so too
+            # where the tiny step cannot rule out one closer than itself (``hidden``).
             crowded = crossed_left[j] | crossed_right[j]
-            status[k] = KINK if inside[j] else INCONCLUSIVE if crowded else FAIL
+            status[k] = KINK if inside[j] else INCONCLUSIVE if crowded or hidden[j] else FAIL
             value[k], error[k] = nearer[j], nearer_error[j]
-            reasons[k] = CROWDED if status[k] == INCONCLUSIVE else None
+            reasons[k] = (CROWDED if crowded else UNRESOLVED) if status[k] == INCONCLUSIVE else None
         elif near_status[j] != PASS and moved_inside[j]:
             # The jump moved at the tiny step, yet the value lies between the sides: more
             # kinks meet close to the point (ties in many rows) and no step tells them
@@ -248,12 +258,13 @@ def _judge_sides(
             status[k] = KINK
             value[k], error[k] = nearer[j], nearer_error[j]
             reasons[k] = None
-        elif near_status[j] == FAIL and near_crossed[j]:
-            # The side taken as clean crossed kinks of its own among the ladder's steps:
-            # they crowd the point, and the tiny step need not be below the nearest.
+        elif near_status[j] == FAIL and (near_crossed[j] or (tiny_apart[j] and hidden[j])):
+            # The side taken as clean crossed kinks of its own among the ladder's steps (they
+            # crowd the point, and the tiny step need not be below the nearest), or the tiny
+            # step's own sides differ (a kink within it, and more may hide beside it).
             status[k] = INCONCLUSIVE
             value[k], error[k] = near.value[j], near.error[j]
-            reasons[k] = CROWDED
+            reasons[k] = CROWDED if near_crossed[j] else UNRESOLVED
         else:
             status[k] = near_status[j]
             value[k], error[k] = near.value[j], near.error[j]

@@ -202,6 +202,7 @@ class Tiny:
     left: np.ndarray
     central: Estimate
     one_sided_noise: np.ndarray
+    step: np.ndarray | None = None  # the tiny step taken (the wider of its two sides)
 
     @property
     def gap(self) -> np.ndarray:
@@ -217,7 +218,7 @@ def tiny_pair(probe: TensorProbe, flat: np.ndarray, smallest: np.ndarray, jump: 
     p = probe.pairs(flat, step)
     qc, nc, qr, nr, ql, nl = _quotients(probe, p)
     return Tiny(right=qr, left=ql, central=Estimate(qc, 2.0 * nc),
-                one_sided_noise=np.maximum(nr, nl))
+                one_sided_noise=np.maximum(nr, nl), step=np.maximum(p.h_plus, p.h_minus))
 
 
 SIDE_ROWS = 5

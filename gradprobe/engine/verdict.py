@@ -38,6 +38,11 @@ CROWDED = (
     "that rounding noise allows): its one-sided derivatives do not bound the values a correct "
     "gradient may take here"
 )
+UNRESOLVED = (
+    "a kink sits at the point and no step that rounding noise allows comes near the point's own "
+    "resolution: more kinks may lie closer than any step, so its one-sided derivatives do not "
+    "bound the values a correct gradient may take here"
+)
 
 
 @dataclass(frozen=True)
@@ -102,5 +107,5 @@ def looked_at_again(status: np.ndarray, reasons: tuple[str | None, ...]) -> np.n
     """The coordinates a second look off the kinks checks (see offpoint.py): those at a kink,
     and those left undecided because the steps kept crossing kinks (an estimate that does
     not settle, a kink closer than any step), where a wrong gradient can hide just as well."""
-    crossing = np.array([r in (UNSETTLED, NEAR_KINK, CROWDED) for r in reasons], dtype=bool)
+    crossing = np.array([r in (UNSETTLED, NEAR_KINK, CROWDED, UNRESOLVED) for r in reasons], dtype=bool)
     return (status == KINK) | ((status == INCONCLUSIVE) & crossing)
