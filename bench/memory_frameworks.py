@@ -20,7 +20,9 @@ what the check holds.
 
 Cases (``MEMORY_PARAMS`` parameters, default 4M): the float32 torch network of
 bench/torch_targets.py with a hand-written backward and checked through autograd (a
-Function's backward), the same in float64, and bench/scale_targets.py's numpy tanh network.
+Function's backward), the same in float64, the same network in JAX (a ``custom_vjp`` rule,
+reverse mode) and in array-api-strict (a hand-written backward), float32 and float64
+(bench/array_targets.py), and bench/scale_targets.py's numpy tanh network (1M).
 Checks run with ``--sample 0`` (directional checks) and with default options.
 """
 
@@ -38,11 +40,16 @@ CASES = {
     "torch float32, backward": "bench/torch_targets.py:backward_4m",
     "torch float32, autograd": "bench/torch_targets.py:autograd_4m",
     "torch float64, backward": "bench/torch_targets.py:backward64_4m",
+    "jax float32, custom_vjp": "bench/array_targets.py:jax32_4m",
+    "jax float64, custom_vjp": "bench/array_targets.py:jax64_4m",
+    "array-api-strict float32": "bench/array_targets.py:strict32_4m",
+    "array-api-strict float64": "bench/array_targets.py:strict64_4m",
     "numpy float64, backward": "bench/scale_targets.py:tanh_1m",
 }
 
 RUN = r"""
 import ctypes, gc, json, sys
+import numpy as np
 from gradprobe.targets.loading import load_target
 from gradprobe.common.tensors import flatten
 from gradprobe.settings.options import CheckOptions
@@ -50,12 +57,17 @@ from gradprobe.engine.runner import run_check
 spec, sample0, allocators = sys.argv[1], sys.argv[2] == "1", sys.argv[3] == "1"
 target = load_target(spec)
 leaves = list(flatten(target.params).values())
-nbytes = sum(v.nbytes for v in leaves)
+nbytes = sum(v.nbytes if hasattr(v, "nbytes") else np.from_dlpack(v).nbytes for v in leaves)
 
 def users_own():
     if target.backward is not None:
         target.forward(target.params, target.inputs)
         target.backward(target.params, target.inputs)
+        return
+    if "jax" in sys.modules:  # a JAX target's reverse mode, as the user would take it
+        import jax
+        with jax.enable_x64(leaves[0].dtype.itemsize == 8):
+            jax.block_until_ready(jax.grad(target.forward, argnums=(0, 1))(target.params, target.inputs))
         return
     import torch  # a torch target's reverse mode, as the user would take it
     wrt = [t for t in [*leaves, *flatten(target.inputs).values()] if t.is_floating_point()]
@@ -113,7 +125,7 @@ print(json.dumps(out))
 
 def run(spec: str, sample0: bool, allocators: bool) -> dict:
     env = {**os.environ, "PYTHONPATH": f"{ROOT}{os.pathsep}{os.environ.get('PYTHONPATH', '')}"}
-    env.setdefault("MEMORY_PARAMS", "4000000" if "torch" in spec else "1000000")
+    env.setdefault("MEMORY_PARAMS", "1000000" if "scale_targets" in spec else "4000000")
     trace = Path("/tmp") / f"gradprobe-memory-{os.getpid()}.json"
     done = subprocess.run([sys.executable, "-c", RUN, spec, "1" if sample0 else "0",
                            "1" if allocators else "0", str(trace)],

@@ -57,25 +57,65 @@ def _bfloat16() -> np.dtype | None:
     return np.dtype(ml_dtypes.bfloat16)
 
 
+CHUNK = 1 << 16  # elements moved at a time (even: random signs drawn a chunk at a time are
+# the same stream as one draw for the whole tensor)
+
+
 def _moved(ws: Workspace, names: list[str], relative: float, grid: np.dtype,
-           signs: np.random.Generator | None = None) -> list[Perturbation]:
+           signs: np.random.Generator | None = None, in_place: bool = False) -> list[Perturbation]:
+    """Every tensor of ``names`` rounded to ``grid`` and moved by ``relative`` of its size (with
+    random signs if ``signs``), in the tensor's own dtype, a chunk at a time: one array of the
+    tensor's size each, or none with ``in_place`` (written into the workspace's own copies,
+    which the caller puts back, see :func:`_restored`)."""
     out = []
     for name in names:
         owner = ws.owners[name]
-        moved = owner.reshape(-1).astype(grid).astype(np.float64)
-        if signs is None:
-            moved *= 1.0 + relative  # in place: one array of the tensor's size
-        else:
-            moved *= 1.0 + relative * signs.choice([-1.0, 1.0], size=moved.size)
-        out.append(Perturbation(name, slice(0, owner.size), moved.astype(owner.dtype)))
+        flat = owner.reshape(-1)
+        moved = flat if in_place else np.empty_like(flat)
+        for lo in range(0, flat.size, CHUNK):
+            part = flat[lo:lo + CHUNK].astype(grid).astype(np.float64)
+            if signs is None:
+                part *= 1.0 + relative
+            else:
+                part *= 1.0 + relative * signs.choice([-1.0, 1.0], size=part.size)
+            moved[lo:lo + CHUNK] = part
+        out.append(Perturbation(name, slice(0, owner.size), moved))
     return out
 
 
+class _Looks:
+    """The loss with every tensor moved as :func:`_moved` says; with ``source`` (a workspace
+    whose copies equal these exactly once widened: the narrow code's own, for its float64
+    run), the moves are written into this workspace's copies and put back from ``source``
+    after each call (no moved copy of the params exists)."""
+
+    def __init__(self, evaluator: Evaluator, ws: Workspace, names: list[str],
+                 source: Workspace | None) -> None:
+        self.evaluator, self.ws, self.names, self.source = evaluator, ws, names, source
+
+    def loss(self, relative: float, grid: np.dtype, signs: np.random.Generator | None = None) -> float:
+        in_place = self.source is not None
+        try:
+            return self.evaluator.loss_with(_moved(self.ws, self.names, relative, grid, signs, in_place))
+        finally:
+            if in_place:
+                self._restore()
+
+    def _restore(self) -> None:
+        assert self.source is not None
+        for name in self.names:
+            flat, back = self.ws.owners[name].reshape(-1), self.source.owners[name].reshape(-1)
+            for lo in range(0, flat.size, CHUNK):
+                flat[lo:lo + CHUNK] = back[lo:lo + CHUNK]
+
+
 def narrower_compute_type(
-    evaluator: Evaluator, ws: Workspace, f0: float, out_dtype: np.dtype
+    evaluator: Evaluator, ws: Workspace, f0: float, out_dtype: np.dtype,
+    source: Workspace | None = None,
 ) -> HiddenType | None:
     """The narrower type a float64 or float32 forward demonstrably computes in, else None
-    (2 to 13 calls)."""
+    (2 to 13 calls). ``source``: a workspace holding ``ws``'s values exactly in a narrower
+    type (the moves are then made in place and put back from it, see :class:`_Looks`)."""
     out_dtype = np.dtype(out_dtype)
     if out_dtype not in (np.dtype(np.float64), np.dtype(np.float32)):
         return None
@@ -83,13 +123,14 @@ def narrower_compute_type(
     if not names:
         return None
     found: HiddenType | None = None
+    looks = _Looks(evaluator, ws, names, source)
     try:
         if out_dtype == np.float64:
-            rounded = evaluator.loss_with(_moved(ws, names, 0.0, np.dtype(np.float32)))
-            nudged = evaluator.loss_with(_moved(ws, names, SMALL, np.dtype(np.float32)))
+            rounded = looks.loss(0.0, np.dtype(np.float32))
+            nudged = looks.loss(SMALL, np.dtype(np.float32))
             if nudged != rounded:
                 return None
-            moved = evaluator.loss_with(_moved(ws, names, LARGE, np.dtype(np.float32)))
+            moved = looks.loss(LARGE, np.dtype(np.float32))
             expected = abs(moved - rounded) * (SMALL / LARGE)
             if expected > LIVE * np.finfo(np.float64).eps * max(abs(rounded), abs(f0)):
                 found = HiddenType(
@@ -99,21 +140,20 @@ def narrower_compute_type(
                 )
             elif moved != rounded:
                 return None  # it sees 2**-12 though the change is too small to tell: no evidence
-        return _sixteen_bits(evaluator, ws, names, f0, out_dtype) or found
+        return _sixteen_bits(looks, f0, out_dtype) or found
     except (UserCodeError, BadOutputError):
         return found  # the moved points are outside forward's domain: no more evidence
 
 
-def _sixteen_bits(evaluator: Evaluator, ws: Workspace, names: list[str], f0: float,
-                  out_dtype: np.dtype) -> HiddenType | None:
+def _sixteen_bits(looks: _Looks, f0: float, out_dtype: np.dtype) -> HiddenType | None:
     """float16 or bfloat16 when the loss ignores moves below their resolution (see the
     module's docstring), else None."""
     grid = _bfloat16() or np.dtype(np.float16)
-    rounded = evaluator.loss_with(_moved(ws, names, 0.0, grid))
+    rounded = looks.loss(0.0, grid)
     for tiny in (TINY, -TINY):  # float32 code sees both
-        if evaluator.loss_with(_moved(ws, names, tiny, grid)) != rounded:
+        if looks.loss(tiny, grid) != rounded:
             return None
-    up, down = (evaluator.loss_with(_moved(ws, names, move, grid)) for move in (SIXTEEN_LARGE, -SIXTEEN_LARGE))
+    up, down = (looks.loss(move, grid) for move in (SIXTEEN_LARGE, -SIXTEEN_LARGE))
     linear = 0.5 * abs(up - down) * (TINY / SIXTEEN_LARGE)  # the change's first-order part at TINY
     if not linear > SIXTEEN_LIVE * np.finfo(np.float32).eps * max(abs(rounded), abs(f0)):
         return None
@@ -123,10 +163,10 @@ def _sixteen_bits(evaluator: Evaluator, ws: Workspace, names: list[str], f0: flo
         return half
     rng = np.random.default_rng(0)  # fixed signs: the look is the same on every run
     for _ in range(SUB_UNIT_TRIES):  # below float16's resolution: float16 code ignores each
-        if evaluator.loss_with(_moved(ws, names, SUB_UNIT, grid, rng)) != rounded:
+        if looks.loss(SUB_UNIT, grid, rng) != rounded:
             return HiddenType(grid, said + "; float16 and bfloat16 could not be told apart, and the "
                                            "coarser is taken)")
     for signs in (None, rng):  # a unit of float16's: float16 code sees it
-        if evaluator.loss_with(_moved(ws, names, HALF_UNIT, grid, signs)) != rounded:
+        if looks.loss(HALF_UNIT, grid, signs) != rounded:
             return half
     return HiddenType(grid, said + ", and so did moves of 2**-10, below bfloat16's resolution)")

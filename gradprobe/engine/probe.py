@@ -277,13 +277,15 @@ class TensorProbe:
         """The loss with ``x[part] + c u`` for each scale ``c`` (one call each), and the
         analytic change ``a[part] . d`` for the moves ``d`` the forward really saw.
 
-        Serially one moved copy exists at a time, in reused buffers; a backend gets the whole
-        batch at once."""
+        Serially one moved copy exists at a time, in reused buffers (none for a float64 run
+        of narrow code moved as a whole: the tensor is moved in place and put back from the
+        narrow values, see :meth:`_restore_source`); a backend gets the whole batch at once."""
         x = self.x[part]
         a = self.a[part]
         coarser = np.finfo(self.compute_dtype).eps > np.finfo(x.dtype).eps
         serial = self.evaluator.backend is None
-        point = np.empty_like(x)
+        back = self._restore_source(part) if serial else None
+        point = x if back is not None else np.empty_like(x)
         values, requests, predicted = [], [], []
         for c in scales:
             if not serial:
@@ -291,20 +293,37 @@ class TensorProbe:
             change = 0.0
             # A chunk at a time: no float64 temporaries of the tensor's size.
             for lo, u_lo in zip(range(0, x.size, ALONG_CHUNK), _chunks(u, ALONG_CHUNK)):
-                part_x = x[lo:lo + ALONG_CHUNK]
-                moved = part_x + c * u_lo
+                part_x = x[lo:lo + ALONG_CHUNK] if back is None else back[lo:lo + ALONG_CHUNK].astype(x.dtype)
+                moved = c * u_lo
+                moved += part_x  # x + c u, one temporary of the chunk's size
                 point[lo:lo + ALONG_CHUNK] = moved
                 seen = point[lo:lo + ALONG_CHUNK]
                 if coarser:
                     d = as_seen(seen, self.compute_dtype) - as_seen(part_x, self.compute_dtype)
                 else:
-                    d = seen.astype(np.float64, copy=False) - part_x
+                    d = np.subtract(seen, part_x, out=moved if x.dtype == np.float64 else None)
                 change += float(a[lo:lo + ALONG_CHUNK] @ d)
             predicted.append(change)
             requests.append(Perturbation(self.tensor, part, point))
             if serial:
-                values.append(self.evaluator.losses(requests).real)
+                try:
+                    values.append(self.evaluator.losses(requests).real)
+                finally:
+                    if back is not None:  # put back exactly: no second moved copy exists
+                        for lo in range(0, x.size, ALONG_CHUNK):
+                            x[lo:lo + ALONG_CHUNK] = back[lo:lo + ALONG_CHUNK]
                 requests = []
         if requests:
             values.append(self.evaluator.losses(requests).real)
         return np.concatenate(values), np.array(predicted)
+
+    def _restore_source(self, part: slice) -> np.ndarray | None:
+        """For a float64 run of narrow code moved as a whole tensor: the narrow code's own
+        values of the tensor (equal to these once widened, exactly), from which the tensor
+        can be moved in place and put back; else None (a moved copy is made)."""
+        own = self.evaluator.loss.workspace.owners.get(self.tensor)
+        if (self.narrow is None or own is None or part.indices(self.size) != (0, self.size, 1)
+                or not own.flags.c_contiguous or not np.shares_memory(self.x, own)
+                or not own.flags.writeable):
+            return None
+        return self.narrow.x

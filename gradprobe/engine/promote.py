@@ -68,7 +68,7 @@ def promote(
         f64, dtype = wide_evaluator.base_with_type()
         if dtype != np.float64:
             return None
-        if narrower_compute_type(wide_evaluator, wide, f64, dtype) is not None:
+        if narrower_compute_type(wide_evaluator, wide, f64, dtype, source=ws) is not None:
             return None  # it casts to a narrower type inside: the float64 run is not float64
         if abs(f64 - f0) > AGREEMENT * max(abs(f0), abs(f64)):
             return None
