@@ -19,6 +19,7 @@ from framework_kit import need
 from gradprobe.common.tensors import Workspace
 from gradprobe.engine.directions import unit_direction
 from gradprobe.engine.evaluate import Evaluator, LossFunction
+from gradprobe.engine.gradients import validate
 from gradprobe.engine.point import prepare
 from gradprobe.engine.precision import CHUNK, _moved, narrower_compute_type
 from gradprobe.targets.frameworks import frame
@@ -117,3 +118,26 @@ def test_a_whole_tensor_moved_along_a_direction_is_moved_in_place_and_put_back()
         analytic = float(probe.a[:] @ ((x + c * np.asarray(u)) - x))
         assert abs(change - analytic) <= 1e-12 * max(abs(analytic), 1e-300) + 1e-12 * abs(value)
 
+
+
+def test_a_gradient_the_reverse_mode_made_is_kept_without_a_second_copy():
+    # forward only: the gradient is torch's reverse mode, 2 X^T (X W) for sum((X W)^2)
+    # (matrix calculus, d tr(A^T A) = 2 A^T dA: common practice).
+    params, inputs = _case(10000)
+    params = {"w": params["w"].double()}
+    inputs = {"x": inputs["x"].double()}
+    target, _ = frame(Target("sensor drift", forward, None, params, inputs))
+    ws = Workspace(target.params, target.inputs)
+    raw = target.backward(ws.params_tree, ws.inputs_tree)
+    nbytes = ws.owners["w"].nbytes
+    peak, grads = _peak(lambda: validate(raw, ws))
+    assert peak < 0.5 * nbytes, peak / nbytes  # a copy would be the gradient's size
+    X, W = inputs["x"].numpy(), params["w"].numpy()
+    exact = 2 * X.T @ (X @ W)
+    assert np.max(np.abs(grads.values["w"] - exact)) <= 1e-12 * np.max(np.abs(exact))
+    # A gradient the user's own backward returned is still copied (the user may hold it).
+    mine, _ = frame(Target("sensor drift", forward, backward, params, inputs))
+    handed = mine.backward(ws.params_tree, ws.inputs_tree)
+    kept = handed["w"]
+    again = validate(handed, ws).values["w"]
+    assert not np.shares_memory(again, kept)

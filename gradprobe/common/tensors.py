@@ -41,7 +41,11 @@ def flatten(tree: Mapping[str, Any], prefix: str = "", what: str = "the mapping"
 class Handed(dict[str, Any]):
     """A mapping gradprobe built from what the user's code returned (the array boundary's
     conversions): nothing else holds it, so whoever reads it may let go of its arrays one at a
-    time as it reads them (memory: a large gradient's converted copy is not held beside it)."""
+    time as it reads them (memory: a large gradient's converted copy is not held beside it).
+    ``fresh``: its arrays were made by a framework's reverse mode for this call and nothing of
+    the user's holds them (no user code returned them), so they may be kept without a copy."""
+
+    fresh = False
 
 
 def emptied(tree: Mapping[str, Any], built: bool = False) -> None:

@@ -25,7 +25,7 @@ class Gradients:
 
 
 def _problem(name: str, value: Any, tensor: np.ndarray, own_type: bool = False,
-             ) -> tuple[np.ndarray | None, str | None]:
+             fresh: bool = False) -> tuple[np.ndarray | None, str | None]:
     try:
         grad = np.asarray(value)
     except Exception:
@@ -44,8 +44,10 @@ def _problem(name: str, value: Any, tensor: np.ndarray, own_type: bool = False,
         bad = int(grad.size - finite.sum())
         return None, f"the gradient for {name} has {bad} non-finite value{'s' if bad > 1 else ''}"
     if own_type and is_narrow_float(grad.dtype):
-        return grad.copy(), None  # exact, and half of a float64 copy or less
-    return grad.astype(np.float64), None
+        return (grad if fresh else grad.copy()), None  # exact, and half of a float64 copy or less
+    # A gradient a framework's reverse mode made for this call is kept as it is (no second
+    # float64 copy of it beside the framework's, even for a moment); any other is copied.
+    return grad.astype(np.float64, copy=not fresh), None
 
 
 def is_narrow_float(dtype: np.dtype) -> bool:
@@ -66,6 +68,7 @@ def validate(result: Any, ws: Workspace, own_type: bool = False) -> Gradients:
     flat = flatten(result)
     names = set(flat)
     handed = isinstance(result, Handed)
+    fresh = handed and result.fresh
     emptied(result)  # one the boundary built: its arrays are let go of as they are read
     out = Gradients()
     for name in list(flat):
@@ -81,7 +84,7 @@ def validate(result: Any, ws: Workspace, own_type: bool = False) -> Gradients:
         if not is_float(tensor):
             out.notes.append(f"the gradient returned for {name} is ignored: its dtype is {tensor.dtype}")
             continue
-        grad, problem = _problem(name, value, tensor, own_type)
+        grad, problem = _problem(name, value, tensor, own_type, fresh)
         if problem or grad is None:
             out.problems[name] = problem or f"the gradient for {name} is not usable"
         else:

@@ -165,8 +165,10 @@ class ReverseMode:
             b.check_writes({n: t for n, t in made.items() if n not in wrt}, "forward")
             flat = {n: b.result(g) for n, g in grads.items()}
         # integer and boolean tensors (labels, indices) have no gradient: nested() leaves them out
-        return Handed({**nested(params, {n: v for n, v in flat.items() if n in flatten(params)}),
-                       **nested(inputs, {n: v for n, v in flat.items() if n in flatten(inputs)})})
+        out = Handed({**nested(params, {n: v for n, v in flat.items() if n in flatten(params)}),
+                      **nested(inputs, {n: v for n, v in flat.items() if n in flatten(inputs)})})
+        out.fresh = True  # made by the framework's reverse mode for this call alone
+        return out
 
     def _gradients(self, p: Any, i: Any, wrt: dict[str, Any], seed: Any) -> dict[str, Any]:
         if self.library == "torch":
