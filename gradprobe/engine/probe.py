@@ -294,14 +294,13 @@ class TensorProbe:
             # A chunk at a time: no float64 temporaries of the tensor's size.
             for lo, u_lo in zip(range(0, x.size, ALONG_CHUNK), _chunks(u, ALONG_CHUNK)):
                 part_x = x[lo:lo + ALONG_CHUNK] if back is None else back[lo:lo + ALONG_CHUNK].astype(x.dtype)
-                moved = c * u_lo
-                moved += part_x  # x + c u, one temporary of the chunk's size
+                moved = part_x + c * u_lo
                 point[lo:lo + ALONG_CHUNK] = moved
                 seen = point[lo:lo + ALONG_CHUNK]
                 if coarser:
                     d = as_seen(seen, self.compute_dtype) - as_seen(part_x, self.compute_dtype)
                 else:
-                    d = np.subtract(seen, part_x, out=moved if x.dtype == np.float64 else None)
+                    d = seen.astype(np.float64, copy=False) - part_x
                 change += float(a[lo:lo + ALONG_CHUNK] @ d)
             predicted.append(change)
             requests.append(Perturbation(self.tensor, part, point))
