@@ -8,10 +8,10 @@ heap to the system (``malloc_trim``), then resets the kernel's peak resident set
 (``/proc/self/clear_refs``, value 5) and reads the resident size; after the work it reads the
 peak (``VmHWM``). That is done for the user's own forward and backward once, then for the
 check. The figure is (check's peak - forward and backward's peak) / the params' bytes: what
-the check adds over running the target once; goal <= 3. The children run with glibc's mmap
+the check adds over running the target once; goal <= 3. The children start with glibc's mmap
 threshold fixed (``MALLOC_MMAP_THRESHOLD_=131072``, unless set): with its dynamic threshold the
-figure followed the heap's history rather than what the check holds (1.1x or 3.0x for the same
-numpy check, by unrelated commits). Imports and the caller's arrays are in
+heap's layout before the check followed the process's history, and the figure with it (1.1x or
+3.0x for the same numpy check, by unrelated commits); fixed, it is the same every run. Imports and the caller's arrays are in
 the "before", never in the figure, and the heap freed earlier is not there to hide arrays.
 
 ``--allocators``: the same cases, each in another fresh process, with the peak of numpy's
@@ -130,9 +130,10 @@ def run(spec: str, sample0: bool, allocators: bool) -> dict:
     env = {**os.environ, "PYTHONPATH": f"{ROOT}{os.pathsep}{os.environ.get('PYTHONPATH', '')}"}
     env.setdefault("MEMORY_PARAMS", "1000000" if "scale_targets" in spec else "4000000")
     # glibc raises its mmap threshold (up to 32 MB) after a large mmapped buffer is freed, so
-    # whether a later buffer comes back to the system on free depended on what ran before:
-    # the same check measured 1.1x or 3.0x by commit, on unrelated changes. A fixed threshold
-    # returns every large buffer on free, so the peak is what the check holds at once.
+    # where the target's and the imports' buffers lay before the check (gradprobe then sets
+    # its own mallopt values, common/heap.py) followed the process's history: the same numpy
+    # check measured 1.1x or 3.0x by commit, on unrelated changes. A fixed threshold at start
+    # gives the same history every time (3.0x for both); it is the larger of the two figures.
     env.setdefault("MALLOC_MMAP_THRESHOLD_", "131072")
     trace = Path("/tmp") / f"gradprobe-memory-{os.getpid()}.json"
     done = subprocess.run([sys.executable, "-c", RUN, spec, "1" if sample0 else "0",
