@@ -8,10 +8,7 @@ heap to the system (``malloc_trim``), then resets the kernel's peak resident set
 (``/proc/self/clear_refs``, value 5) and reads the resident size; after the work it reads the
 peak (``VmHWM``). That is done for the user's own forward and backward once, then for the
 check. The figure is (check's peak - forward and backward's peak) / the params' bytes: what
-the check adds over running the target once; goal <= 3. The children start with glibc's mmap
-threshold fixed (``MALLOC_MMAP_THRESHOLD_=131072``, unless set): with its dynamic threshold the
-heap's layout before the check followed the process's history, and the figure with it (1.1x or
-3.0x for the same numpy check, by unrelated commits); fixed, it is the same every run. Imports and the caller's arrays are in
+the check adds over running the target once; goal <= 3. Imports and the caller's arrays are in
 the "before", never in the figure, and the heap freed earlier is not there to hide arrays.
 
 ``--allocators``: the same cases, each in another fresh process, with the peak of numpy's
@@ -129,12 +126,6 @@ print(json.dumps(out))
 def run(spec: str, sample0: bool, allocators: bool) -> dict:
     env = {**os.environ, "PYTHONPATH": f"{ROOT}{os.pathsep}{os.environ.get('PYTHONPATH', '')}"}
     env.setdefault("MEMORY_PARAMS", "1000000" if "scale_targets" in spec else "4000000")
-    # glibc raises its mmap threshold (up to 32 MB) after a large mmapped buffer is freed, so
-    # where the target's and the imports' buffers lay before the check (gradprobe then sets
-    # its own mallopt values, common/heap.py) followed the process's history: the same numpy
-    # check measured 1.1x or 3.0x by commit, on unrelated changes. A fixed threshold at start
-    # gives the same history every time (3.0x for both); it is the larger of the two figures.
-    env.setdefault("MALLOC_MMAP_THRESHOLD_", "131072")
     trace = Path("/tmp") / f"gradprobe-memory-{os.getpid()}.json"
     done = subprocess.run([sys.executable, "-c", RUN, spec, "1" if sample0 else "0",
                            "1" if allocators else "0", str(trace)],
