@@ -68,7 +68,7 @@ def validate(result: Any, ws: Workspace, own_type: bool = False) -> Gradients:
     flat = flatten(result)
     names = set(flat)
     handed = isinstance(result, Handed)
-    fresh = handed and result.fresh
+    fresh = isinstance(result, Handed) and result.fresh
     emptied(result)  # one the boundary built: its arrays are let go of as they are read
     out = Gradients()
     for name in list(flat):
