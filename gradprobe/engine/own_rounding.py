@@ -12,7 +12,8 @@ does move, which the loss shows directly along the coordinate.
 Measured per coordinate at the points the wide steps use (the point, and the widest step on
 either side, :data:`.narrow.WIDE_LAST`): JITTER losses each, at moves DELTA apart along the
 coordinate, DELTA at least the move that changes the loss by CHANGE_ULPS units of its last
-place (as the analytic gradient predicts), so the moves reach past the loss's own rounding.
+place as the analytic gradient predicts (not the tensor's floor, which may lie far above a
+small gradient), so the moves reach past the loss's own rounding.
 Third differences cancel how the loss changes along the coordinate (the slope and curvature
 at that scale, whatever the gradient) and keep how its rounding varies from point to point:
 independent roundings of spread s give third differences of spread sqrt(20) s, and the
@@ -21,15 +22,21 @@ one to two times its height). The rounding of one loss value is taken as that la
 difference, never below the loss's own last place. A coordinate whose loss took a single
 value at some measured point (a staircase coarser than all its moves, or moves the gradient
 mispredicts), or left forward's domain, keeps the target's figure: nothing was measured.
-At most MEASURED coordinates per tensor (as many as the ladders re-estimate); the wide
-steps are judged again with the measured figure, with windows without extrapolation too
-(:func:`.narrow.plain_windowed`: rounding, not curvature, limits these quotients).
+Where only a side's row took one value while the point's own row spoke (a loss that
+saturates on that side, a sharp softplus), the rows are measured again NEARER_BY times
+nearer the point (at most NEARER times), and the figure holds for pairs whose moves stay
+within the reach measured (beyond it, the target's figure). At most MEASURED coordinates per
+tensor (as many as the ladders re-estimate); the wide steps are judged again with the
+measured figure, with windows without extrapolation too (:func:`.narrow.plain_windowed`:
+rounding, not curvature, limits these quotients); those still undecided by rounding, on the
+widest steps within reach averaged over jittered pairs (:mod:`.averaged`).
 """
 
 from __future__ import annotations
 
 import numpy as np
 
+from .averaged import averaged_estimate
 from .ladder import Estimate
 from .narrow import WIDE_FIRST, WIDE_LAST, WIDE_NOISE, WIDE_ROWS, wide_estimate
 from .probe import Pairs, TensorProbe, as_seen
@@ -49,17 +56,40 @@ SMALLEST_SHARE = 1.0 / 64.0  # moves are at least this share of the widest step
 LARGEST_SHARE = 0.25  # and at most this share (the measured points stay near the steps used)
 DISTINCT = 2  # each measured point's losses take this many values at least (a step of a staircase)
 MEASURED = 400  # coordinates per tensor measured (the first undecided ones)
+NEARER_BY = 8.0  # a side that says nothing is measured again this many times nearer the point
+NEARER = 2  # at most this many times (down to 1/64 of the widest step)
+REACH_SLACK = 1e-6  # a pair's moves within the measured reach (steps are rounded to the grid)
 
 
-def own_rounding(probe: TensorProbe, flat: np.ndarray) -> np.ndarray:
+def own_rounding(probe: TensorProbe, flat: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Per coordinate ``flat[i]``: the rounding of one loss value when that coordinate alone
-    moves over the wide steps' range (absolute), NaN where nothing was measured. JITTER times
-    3 calls per coordinate."""
+    moves (absolute) and the reach it was measured over (the distance of the farthest
+    measured points from the point), NaN where nothing was measured. Measured first at the widest
+    step; where a side says nothing there but the point does (a loss that saturates on one
+    side: a flat row is no measure of its rounding), again NEARER_BY times nearer, at most
+    NEARER times. JITTER times 3 calls per coordinate and try."""
+    n = flat.size
+    rounding, reach = np.full(n, np.nan), np.full(n, np.nan)
+    todo, w = np.arange(n), _widest(probe, flat)
+    for tries in range(NEARER + 1):
+        measured, spoke, extent = _rows_at(probe, flat[todo], w[todo])
+        done = np.isfinite(measured)
+        rounding[todo[done]], reach[todo[done]] = measured[done], extent[done]
+        todo = todo[~done & spoke]
+        if todo.size == 0 or tries == NEARER:
+            break
+        w[todo] /= NEARER_BY
+    return rounding, reach
+
+
+def _rows_at(probe: TensorProbe, flat: np.ndarray, widest: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The rounding measured from rows of JITTER losses at the point and at ``widest`` on
+    either side (NaN where a row says nothing), whether the point's own row spoke, and the
+    distance of the farthest measured points."""
     n = flat.size
     x = probe.x[flat]
-    widest = _widest(probe, flat)
     eps = float(np.finfo(probe.compute_dtype).eps)
-    slope = np.maximum(np.abs(probe.a[flat]), probe.floor)
+    slope = np.maximum(np.abs(probe.a[flat]), 1e-300)  # the change the analytic gradient predicts
     delta = np.clip(CHANGE_ULPS * eps * abs(probe.f0) / slope, SMALLEST_SHARE * widest, LARGEST_SHARE * widest)
     offsets = np.arange(JITTER) - (JITTER - 1) / 2.0
     points, seen = [], []
@@ -71,10 +101,12 @@ def own_rounding(probe: TensorProbe, flat: np.ndarray) -> np.ndarray:
                 seen.append(as_seen(moved, probe.compute_dtype))
     values = probe.evaluator.single_moves(probe.tensor, flat, tuple(points))  # (n, 3 * JITTER)
     where = np.stack(seen, axis=1)
-    rounding = np.full(n, np.nan)
+    rounding, spoke = np.full(n, np.nan), np.zeros(n, dtype=bool)
     for i in range(n):
-        rounding[i] = _measured(values[i].reshape(3, JITTER), where[i].reshape(3, JITTER), eps)
-    return rounding
+        rows, at = values[i].reshape(3, JITTER), where[i].reshape(3, JITTER)
+        rounding[i] = _measured(rows, at, eps)
+        spoke[i] = np.isfinite(_measured(rows[:1], at[:1], eps))
+    return rounding, spoke, widest + offsets[-1] * delta
 
 
 def _widest(probe: TensorProbe, flat: np.ndarray) -> np.ndarray:
@@ -105,26 +137,29 @@ def _measured(values: np.ndarray, where: np.ndarray, eps: float) -> float:
     return worst
 
 
-def _renoised(p: Pairs, flat: np.ndarray, rounding: dict[int, float], eps: float) -> Pairs:
+def _renoised(p: Pairs, flat: np.ndarray, rounding: dict[int, tuple[float, float]], eps: float) -> Pairs:
     """``p`` (pairs at coordinates ``flat``) with the measured rounding in place of the
-    target's figure where one was measured (never below the values' own last place)."""
-    own = np.array([rounding.get(int(k), np.nan) for k in flat])
-    mine = np.isfinite(own)
+    target's figure where one was measured and the pair's moves stay within the reach it was
+    measured over (never below the values' own last place)."""
+    own = np.array([rounding.get(int(k), (np.nan, np.nan)) for k in flat], dtype=np.float64).reshape(-1, 2)
+    figure, reach = own[:, 0], own[:, 1]
+    with np.errstate(invalid="ignore"):
+        mine = np.isfinite(figure) & (np.maximum(p.h_plus, p.h_minus) <= reach * (1.0 + REACH_SLACK))
     floor = eps * np.maximum(np.abs(p.f_plus), np.abs(p.f_minus))
-    noise = np.where(mine, np.maximum(np.nan_to_num(own), floor), p.noise)
+    noise = np.where(mine, np.maximum(np.nan_to_num(figure), floor), p.noise)
     return Pairs(p.f_plus, p.f_minus, p.h_plus, p.h_minus, noise)
 
 
 class _OwnRounding(TensorProbe):
     """A probe whose pairs carry each coordinate's own measured rounding."""
 
-    rounding: dict[int, float]
+    rounding: dict[int, tuple[float, float]]
 
     def pairs(self, flat: np.ndarray, h: np.ndarray) -> Pairs:
         return _renoised(super().pairs(flat, h), flat, self.rounding, self.eps)
 
 
-def _with_own(probe: TensorProbe, rounding: dict[int, float]) -> _OwnRounding:
+def _with_own(probe: TensorProbe, rounding: dict[int, tuple[float, float]]) -> _OwnRounding:
     view = _OwnRounding.__new__(_OwnRounding)
     view.__dict__.update(probe.__dict__)
     view.rounding = rounding
@@ -143,8 +178,8 @@ def judged_on_own_rounding(probe: TensorProbe, flat: np.ndarray, judged: Judged,
         return judged
     noisy = noisy[:MEASURED]
     where = flat[noisy]
-    measured = own_rounding(probe, where)
-    rounding = {int(k): float(v) for k, v in zip(where, measured) if np.isfinite(v)}
+    measured, reach = own_rounding(probe, where)
+    rounding = {int(k): (float(v), float(r)) for k, v, r in zip(where, measured, reach) if np.isfinite(v)}
     if rounding:
         view = _with_own(probe, rounding)
         again = [(f, s, _renoised(p, f, rounding, probe.eps)) for f, s, p in taken]
@@ -153,10 +188,27 @@ def judged_on_own_rounding(probe: TensorProbe, flat: np.ndarray, judged: Judged,
         redo = kinks_within_reach(view, where[mine], judge_plain(view, where[mine], est), again)
         decided = np.flatnonzero((redo.status != INCONCLUSIVE) | np.array([r == KINK_WITHIN for r in redo.reasons], dtype=bool))
         judged = judged.merged(noisy[mine[decided]], redo.pick(decided))
+        judged = _averaged(view, flat, judged, noisy[mine], reach[mine], again)
     still = np.flatnonzero((judged.status[noisy] == INCONCLUSIVE))
     if still.size == 0:
         return judged
-    return _explained(probe, flat, judged, noisy[still], measured[still])
+    return _explained(probe, flat, judged, noisy[still], measured[still], reach[still])
+
+
+def _averaged(view: _OwnRounding, flat: np.ndarray, judged: Judged, which: np.ndarray, reach: np.ndarray,
+              taken: list[Taken]) -> Judged:
+    """``judged`` with coordinates ``which`` (their own rounding measured over ``reach``) that
+    rounding still leaves undecided judged on wide steps averaged over jittered pairs
+    (:mod:`.averaged`: one more batch of evaluations before giving up)."""
+    left = np.flatnonzero((judged.status[which] == INCONCLUSIVE)
+                          & np.array([judged.reasons[k] == NOISE for k in which], dtype=bool))
+    if left.size == 0:
+        return judged
+    where = flat[which[left]]
+    est = averaged_estimate(view, where, reach[left], taken)
+    more = kinks_within_reach(view, where, judge_plain(view, where, est), taken)
+    decided = np.flatnonzero((more.status != INCONCLUSIVE) | np.array([r == KINK_WITHIN for r in more.reasons], dtype=bool))
+    return judged.merged(which[left[decided]], more.pick(decided))
 
 
 def kinks_within_reach(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken: list[Taken]) -> Judged:
@@ -202,28 +254,39 @@ def kinks_within_reach(probe: TensorProbe, flat: np.ndarray, judged: Judged, tak
     return Judged(status, Estimate(value, error), tuple(reasons), judged.noise_limited)
 
 
-def _explained(probe: TensorProbe, flat: np.ndarray, judged: Judged, which: np.ndarray, measured: np.ndarray) -> Judged:
+def _explained(probe: TensorProbe, flat: np.ndarray, judged: Judged, which: np.ndarray, measured: np.ndarray,
+               reach: np.ndarray) -> Judged:
     """The NOISE reason of coordinates ``which`` with the smallest relative error that
     rounding alone lets show on each: SIGNIFICANCE times the least bound a wide-step window
     can have, WIDE_NOISE times the rounding of the central quotient at half the widest step
     on the coordinate's smooth range (the estimate of the widest window without
-    extrapolation), over its scale."""
+    extrapolation), over its scale. The rounding is the one measured when the coordinate
+    moves, at steps within the reach it was measured over, or the target's figure at the
+    widest step its scale allows, whichever lets the smaller error show."""
     where = flat[which]
-    per_value = np.where(np.isfinite(measured), measured, probe.loss_noise(np.full(where.size, probe.f0)))
-    quotient = WIDE_NOISE * 2.0 * per_value / _widest(probe, where)
+    widest = _widest(probe, where)
+    target = WIDE_NOISE * 2.0 * probe.loss_noise(np.full(where.size, probe.f0)) / widest
+    with np.errstate(invalid="ignore", divide="ignore"):
+        own = np.where(np.isfinite(measured), WIDE_NOISE * 2.0 * measured / np.minimum(reach, widest), np.inf)
+    quotient = np.minimum(own, target)
     scale = probe.denominators(where, judged.estimate.value[which])
     smallest = np.maximum(SIGNIFICANCE * quotient, probe.threshold * scale) / scale
-    how = ["measured when it moves" if np.isfinite(m) else "measured for the whole target" for m in measured]
     reasons = list(judged.reasons)
     for k, i in enumerate(which):
         if reasons[i] != NOISE:
             continue
-        if SIGNIFICANCE * quotient[k] <= probe.threshold * scale[k]:
-            reasons[i] = (f"{UNMODELLED} (its rounding, {how[k]}, would let an error of the "
-                          f"threshold show at the widest steps its scale allows)")
+        if own[k] > target[k]:
+            how, steps = "measured for the whole target", "the widest step its scale allows"
+        elif reach[k] < widest[k]:
+            how, steps = "measured when it moves", f"the widest step its rounding was measured over ({reach[k]:.2g})"
         else:
-            reasons[i] = (f"{NOISE}: its rounding ({how[k]}) hides any relative error below "
-                          f"{smallest[k]:.2g} on it, even at the widest step its scale allows")
+            how, steps = "measured when it moves", "the widest step its scale allows"
+        if SIGNIFICANCE * quotient[k] <= probe.threshold * scale[k]:
+            reasons[i] = (f"{UNMODELLED} (its rounding, {how}, would let an error of the "
+                          f"threshold show at {steps.replace('the widest step', 'the widest steps')})")
+        else:
+            reasons[i] = (f"{NOISE}: its rounding ({how}) hides any relative error below "
+                          f"{smallest[k]:.2g} on it, even at {steps}")
     return Judged(judged.status, judged.estimate, tuple(reasons), judged.noise_limited)
 
 
