@@ -32,16 +32,22 @@ AVERAGED = 5  # the widest rows within reach (two windows of four steps, three o
 CHANGE_ULPS = 2.0  # neighbouring jittered points change the loss by this many units of its last place
 
 
-def averaged_estimate(probe: TensorProbe, flat: np.ndarray, reach: np.ndarray, taken: list[Taken]) -> Estimate:
-    """The wide steps' estimate at coordinates ``flat`` with the AVERAGED widest rows within
-    ``reach`` (per coordinate) averaged over JITTERS pairs; ``probe`` carries each coordinate's
-    measured rounding. (AVERAGED * JITTERS pairs per coordinate; the single pairs are those
-    ``taken`` before.)"""
+def within_reach(probe: TensorProbe, flat: np.ndarray, reach: np.ndarray, taken: list[Taken]) -> Estimate:
+    """The wide steps' estimate (:func:`.narrow.wide_estimate`, with windows without
+    extrapolation too) from windows whose steps stay within ``reach`` (per coordinate: where
+    ``probe``'s rounding was measured) as well as the params' scale; the pairs are those
+    ``taken`` before where there are."""
+    table, _ = _table(probe, flat, reach, taken)
+    return Estimate.better(windowed(*table), plain_windowed(*table))
+
+
+def _table(probe: TensorProbe, flat: np.ndarray, reach: np.ndarray, taken: list[Taken]) -> tuple[tuple[np.ndarray, ...], np.ndarray]:
+    """The wide steps' rows (as :func:`.narrow.wide_estimate` builds them) with each column's
+    largest step min(scale, ``reach``); and the steps asked."""
     n = flat.size
     ks = np.arange(WIDE_FIRST, WIDE_LAST + WIDE_ROWS)
     rows = ks.size
-    h0 = probe.prior_steps(flat)
-    steps = h0[None, :] * 2.0 ** ks[:, None]
+    steps = probe.prior_steps(flat)[None, :] * 2.0 ** ks[:, None]
     scale = np.maximum(np.abs(probe.x[flat].astype(np.float64)), probe.x_scale)
     limit = np.minimum(scale, reach)
     p = pairs_reusing(probe, np.tile(flat, rows), steps.reshape(-1), taken)
@@ -49,9 +55,19 @@ def averaged_estimate(probe: TensorProbe, flat: np.ndarray, reach: np.ndarray, t
     s = (0.5 * (p.h_plus + p.h_minus)).reshape(rows, n)
     e = (2.0 * p.noise / (p.h_plus + p.h_minus)).reshape(rows, n)
     right, left = (q.reshape(rows, n) for q in p.sides(probe.f0))
-    apart = right - left
     side_noise = (2.0 * p.noise / np.minimum(p.h_plus, p.h_minus)).reshape(rows, n)
     asymmetry = (np.abs(p.h_plus - p.h_minus) / np.maximum(p.h_plus + p.h_minus, 1e-300)).reshape(rows, n)
+    return (d, s, e, right - left, side_noise, asymmetry, limit), steps
+
+
+def averaged_estimate(probe: TensorProbe, flat: np.ndarray, reach: np.ndarray, taken: list[Taken]) -> Estimate:
+    """The wide steps' estimate at coordinates ``flat`` with the AVERAGED widest rows within
+    ``reach`` (per coordinate) averaged over JITTERS pairs; ``probe`` carries each coordinate's
+    measured rounding. (AVERAGED * JITTERS pairs per coordinate; the single pairs are those
+    ``taken`` before.)"""
+    n = flat.size
+    (d, s, e, apart, side_noise, asymmetry, limit), steps = _table(probe, flat, reach, taken)
+    d, s, e, apart, side_noise, asymmetry = (x.copy() for x in (d, s, e, apart, side_noise, asymmetry))
 
     # The AVERAGED widest rows within the limit, per coordinate (steps grow down the rows).
     top = (steps * (1.0 + SPREAD / 2.0) <= limit[None, :]).sum(axis=0)
@@ -121,4 +137,4 @@ def _pairs_where(probe: TensorProbe, where: np.ndarray, asked: np.ndarray, valid
     return Pairs(*fields)
 
 
-__all__ = ["averaged_estimate"]
+__all__ = ["averaged_estimate", "within_reach"]

@@ -36,9 +36,9 @@ from __future__ import annotations
 
 import numpy as np
 
-from .averaged import averaged_estimate
+from .averaged import averaged_estimate, within_reach
 from .ladder import Estimate
-from .narrow import WIDE_FIRST, WIDE_LAST, WIDE_NOISE, WIDE_ROWS, wide_estimate
+from .narrow import WIDE_FIRST, WIDE_LAST, WIDE_NOISE, WIDE_ROWS
 from .probe import Pairs, TensorProbe, as_seen
 from .refine import Taken, pairs_reusing
 from .verdict import NOISE, SIGNIFICANCE, Judged, judge_plain
@@ -52,7 +52,7 @@ UNMODELLED = ("the loss along it does not follow the error model of central diff
               "steps that rounding needs")
 JITTER = 7  # losses per measured point: four third differences
 CHANGE_ULPS = 2.0  # each move changes the loss by at least this many units of its last place
-SMALLEST_SHARE = 1.0 / 64.0  # moves are at least this share of the widest step
+SMALLEST_SHARE = 1.0 / 512.0  # moves are at least this share of the widest step
 LARGEST_SHARE = 0.25  # and at most this share (the measured points stay near the steps used)
 DISTINCT = 2  # each measured point's losses take this many values at least (a step of a staircase)
 MEASURED = 400  # coordinates per tensor measured (the first undecided ones)
@@ -184,7 +184,7 @@ def judged_on_own_rounding(probe: TensorProbe, flat: np.ndarray, judged: Judged,
         view = _with_own(probe, rounding)
         again = [(f, s, _renoised(p, f, rounding, probe.eps)) for f, s, p in taken]
         mine = np.flatnonzero(np.isfinite(measured))
-        est = wide_estimate(view, where[mine], again, plain=True)
+        est = within_reach(view, where[mine], reach[mine], again)
         redo = kinks_within_reach(view, where[mine], judge_plain(view, where[mine], est), again)
         decided = np.flatnonzero((redo.status != INCONCLUSIVE) | np.array([r == KINK_WITHIN for r in redo.reasons], dtype=bool))
         judged = judged.merged(noisy[mine[decided]], redo.pick(decided))
