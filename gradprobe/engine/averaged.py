@@ -12,8 +12,9 @@ that changes the loss by CHANGE_ULPS units of its last place (as :mod:`.own_roun
 requires of its moves), else a row keeps its single pair. Two checks on the coordinate, or
 the row keeps the rounding of one pair: the quotients scatter about their line in s**2 no
 more than one pair's rounding allows (rounding, not something else, moves them), and the
-means of the two halves (every other pair) agree within twice the mean's rounding (the
-roundings average out rather than move together). The windows of :func:`.narrow.windowed`
+means of the two halves (every other pair, less their line's share) agree within one
+pair's rounding, the sum of the two halves' own (the roundings average out rather than move
+together). The windows of :func:`.narrow.windowed`
 and :func:`.narrow.plain_windowed` then judge the rows, with their model checks.
 """
 
@@ -106,8 +107,9 @@ def averaged_estimate(probe: TensorProbe, flat: np.ndarray, reach: np.ndarray, t
         halves = np.abs(qd[..., 0::2].mean(axis=2) - qd[..., 1::2].mean(axis=2))
         # The halves' means differ by their s**2 terms too (every other jitter): the line's share.
         halves_trend = np.abs(beta * (s2[..., 0::2].mean(axis=2) - s2[..., 1::2].mean(axis=2)))
+        half_e = one / np.sqrt(JITTERS / 2.0)  # each half's mean's rounding
         ok = (valid & np.isfinite(qd).all(axis=2) & (apartness >= move[:, None])
-              & (scatter <= 2.0 * one) & (halves <= halves_trend + 2.0 * np.sqrt(2.0) * mean_e))
+              & (scatter <= 2.0 * one) & (halves <= halves_trend + 2.0 * half_e))
     for k, c in enumerate(cols.tolist()):
         for t in range(AVERAGED):
             row = r[k, t]
