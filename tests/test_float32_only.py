@@ -67,8 +67,9 @@ SMALL_SLOPE_SEEDS = [1115, 1244, 1247]
 SATURATING_SEEDS = [21, 1191]
 # Rounding still above the threshold at every single wide step: the widest steps within
 # reach averaged over jittered pairs, whose roundings are seen to scatter as measured and to
-# average out (the two halves agree).
-AVERAGED_SEEDS = [8, 234, 1102]
+# average out (the two halves agree); 1126 and 43024 need the mean's rounding from the
+# quotients' own spread, which lies well below the rounding measured along the coordinate.
+AVERAGED_SEEDS = [8, 234, 1102, 1126, 43024]
 
 
 @pytest.mark.parametrize("seed", SMALL_SLOPE_SEEDS + SATURATING_SEEDS + AVERAGED_SEEDS)

@@ -7,7 +7,10 @@ spread over [-1/2, 1/2] (JITTERS - 1) times, replace the single pair. Their cent
 carry the same truncation up to a term in (SPREAD t)**2 s**2 that the tableau's s**2 column
 absorbs (every row jitters by the same shares), and roundings that are independent from one
 pair to the next: the mean of JITTERS quotients, at the root mean square of their steps,
-rounds sqrt(JITTERS) times less than one. The jittered points are apart by at least the move
+rounds sqrt(JITTERS) times less than one: the mean's rounding is taken as one pair's
+measured rounding, or SPREAD_UNITS times the spread the quotients are seen to have about
+their line in s**2 where that is less (never below the loss's last place over the step),
+over sqrt(JITTERS). The jittered points are apart by at least the move
 that changes the loss by CHANGE_ULPS units of its last place (as :mod:`.own_rounding`
 requires of its moves), else a row keeps its single pair. Two checks on the coordinate, or
 the row keeps the rounding of one pair: the quotients scatter about their line in s**2 no
@@ -30,6 +33,7 @@ from .refine import Taken, pairs_reusing
 JITTERS = 8  # pairs per averaged step
 SPREAD = 1.0 / 4.0  # the jittered steps span this share of the step
 AVERAGED = 5  # the widest rows within reach (two windows of four steps, three of three)
+SPREAD_UNITS = 4.0  # a mean's rounding: this many times its quotients' seen spread over sqrt(JITTERS)
 CHANGE_ULPS = 2.0  # neighbouring jittered points change the loss by this many units of its last place
 
 
@@ -101,9 +105,12 @@ def averaged_estimate(probe: TensorProbe, flat: np.ndarray, reach: np.ndarray, t
         mean_s2 = s2.mean(axis=2)
         mean_d = qd.mean(axis=2)
         beta = ((s2 - mean_s2[..., None]) * (qd - mean_d[..., None])).sum(axis=2) / ((s2 - mean_s2[..., None]) ** 2).sum(axis=2)
-        scatter = np.abs(qd - mean_d[..., None] - beta[..., None] * (s2 - mean_s2[..., None])).max(axis=2)
-        one = qe.max(axis=2)  # one pair's rounding
-        mean_e = one / np.sqrt(JITTERS)
+        resid = qd - mean_d[..., None] - beta[..., None] * (s2 - mean_s2[..., None])
+        scatter = np.abs(resid).max(axis=2)
+        spread = np.sqrt((resid**2).sum(axis=2) / (JITTERS - 2))  # one quotient's, as seen
+        one = qe.max(axis=2)  # one pair's rounding, as measured along the coordinate
+        last = (eps * np.maximum(np.abs(q.f_plus), np.abs(q.f_minus))).reshape(shape).max(axis=2) / mean_s2**0.5
+        mean_e = np.maximum(np.minimum(one, SPREAD_UNITS * spread), last) / np.sqrt(JITTERS)
         halves = np.abs(qd[..., 0::2].mean(axis=2) - qd[..., 1::2].mean(axis=2))
         # The halves' means differ by their s**2 terms too (every other jitter): the line's share.
         halves_trend = np.abs(beta * (s2[..., 0::2].mean(axis=2) - s2[..., 1::2].mean(axis=2)))
