@@ -31,6 +31,7 @@ from .sixteen import measured_passes
 from .richardson import first_steps, joined, rows_of, settled, two_rows_settle
 from ..common.roundoff import is_narrow
 from .kinks import judge_sides_apart
+from .close_kinks import looked_closer
 from .verdict import NOISE, Judged, judge_plain
 
 RETRY_SHIFT = 6  # a second ladder starts 2**6 steps higher (noise) or lower (curvature)
@@ -79,6 +80,9 @@ def _ladder_verdicts(
     grown = sides_grown(probe, ladder)[again]
     judged = first.merged(again, judged_ladder(probe, flat[again], second_ladder, shifted, before, grown))
     before.append(ladder_taken(flat[again], shifted, second_ladder))
+    # Steps that kept crossing kinks: one-sided slopes down to rounding's floor, where the
+    # nearest kink on a side may lie beyond the steps (close_kinks.py).
+    judged, unresolved = looked_closer(probe, flat, judged, before)
     still = np.flatnonzero(judged.status == INCONCLUSIVE)
     if still.size == 0:
         return judged
@@ -90,7 +94,7 @@ def _ladder_verdicts(
     apart = drifting_sides(probe, flat[still], judged.pick(still), apart, left, right, left_drift, right_drift,
                            judge_sides_apart)
     keep = apart.status != INCONCLUSIVE
-    return judged.merged(still[keep], apart.pick(np.flatnonzero(keep)))
+    return unresolved(judged.merged(still[keep], apart.pick(np.flatnonzero(keep))))
 
 
 COMPLEX_STEP = 1e-20  # relative; any tiny step works since nothing is subtracted

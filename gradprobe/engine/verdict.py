@@ -44,6 +44,24 @@ UNRESOLVED = (
     "bound the values a correct gradient may take here"
 )
 
+# Left undecided by one-sided slopes taken down to the smallest step rounding allows
+# (:mod:`.close_kinks`): what was not resolved.
+CLOSE_NEITHER = (
+    "the one-sided slopes change at every step down to the smallest that rounding noise allows, "
+    "on both sides: kinks lie closer to the point than any resolvable step, and neither "
+    "one-sided derivative at the point is resolved"
+)
+CLOSE_ONE = (
+    "on one side the slope changes at every step down to the smallest that rounding noise "
+    "allows (a kink closer to the point than any resolvable step), and the analytic value is "
+    "not the derivative seen on the other side: the unresolved side's derivative is not known"
+)
+CLOSE_BOTH = (
+    "both one-sided derivatives are seen down to the smallest step that rounding noise allows, "
+    "and the analytic value is neither: kinks at the point or closer than any resolvable step "
+    "can still give it, and none of them is resolved"
+)
+
 
 @dataclass(frozen=True)
 class Judged:
@@ -103,9 +121,12 @@ def judge_plain(probe: TensorProbe, flat: np.ndarray, est: Estimate) -> Judged:
     return Judged(status, est, reasons, status == INCONCLUSIVE)
 
 
+CROSSING = (UNSETTLED, NEAR_KINK, CROWDED, UNRESOLVED, CLOSE_NEITHER, CLOSE_ONE, CLOSE_BOTH)
+
+
 def looked_at_again(status: np.ndarray, reasons: tuple[str | None, ...]) -> np.ndarray:
     """The coordinates a second look off the kinks checks (see offpoint.py): those at a kink,
     and those left undecided because the steps kept crossing kinks (an estimate that does
     not settle, a kink closer than any step), where a wrong gradient can hide just as well."""
-    crossing = np.array([r in (UNSETTLED, NEAR_KINK, CROWDED, UNRESOLVED) for r in reasons], dtype=bool)
+    crossing = np.array([r in CROSSING for r in reasons], dtype=bool)
     return (status == KINK) | ((status == INCONCLUSIVE) & crossing)
