@@ -32,6 +32,8 @@ SCALE = 768.0
 ONE_SIDE = (1.0e-11, -3.0e-9, 1.0e-7, -1.0e-6, 1.6e-6, 3.2e-3, -1.0e-2)  # nearest: 1e-11 above
 BOTH_SIDES = (2.0e-9, -3.0e-9, 1.0e-7, -1.0e-6, 1.6e-6, 3.2e-3, -1.0e-2)  # 2e-9 above, 3e-9 below
 CROWDED = (2.0e-13, -5.0e-13, 4.0e-13, -2.0e-12, 1.0e-6, 3.2e-3, -1.0e-2)  # within 1e-12 both ways
+AT = (0.0, -3.0e-9, 2.0e-9, -1.0e-6, 1.6e-6, 3.2e-3, -1.0e-2)  # one residual exactly 0
+AT_AND_CLOSE = (0.0, -1.0e-13, 3.0e-9, -1.0e-6, 1.6e-6, 3.2e-3, -1.0e-2)  # and one 1e-13 below
 
 
 def _offsets(kinks) -> np.ndarray:
@@ -66,10 +68,11 @@ def _column(kinks, analytic: float):
     return check_coordinates(p, np.arange(1))
 
 
-@pytest.mark.parametrize("kinks", [ONE_SIDE, BOTH_SIDES, CROWDED])
+@pytest.mark.parametrize("kinks", [ONE_SIDE, BOTH_SIDES, CROWDED, AT, AT_AND_CLOSE])
 def test_the_closed_form_is_mpmath_s_derivative(kinks):
-    """mpmath's derivative of the loss at 50 digits (a step far inside the nearest kink's
-    distance) agrees with the closed form."""
+    """mpmath's derivative of the loss at 50 digits (a central difference whose step lies far
+    inside the nearest kink's distance; at a kink at the point, the sides' mean, which is
+    what sign(0) = 0 gives) agrees with the closed form."""
     with mp.workdps(50):
         offset = [mp.mpf(float(o)) for o in _offsets(kinks)]
 
@@ -109,6 +112,36 @@ def test_a_wrong_value_is_never_a_kink_or_a_pass_there(kind, kinks):
                    lambda p, i: {"price": np.array([_wrong(kind, kinks, float(p["price"][0]))])},
                    {"price": np.array([PRICE])})
     assert report.tensor("price").status == "fail", render_text(report)
+
+
+def test_the_point_on_a_kink_of_a_piecewise_linear_loss_is_a_kink():
+    """One residual exactly 0 (the others' kinks 3e-9 below and 2e-9 above): both sides are
+    seen at the steps under 2e-9, a jump between them at every one, and the closed form's
+    value (sign(0) = 0: between the sides) is a kink's. Was undecided."""
+    out = _column(AT, _exact(AT))
+    assert out.status[0] == KINK, (out.numeric, out.reasons)
+
+
+@pytest.mark.parametrize("kind", ["1.01", "0.999", "-1", "piece", "dropped"])
+def test_a_wrong_value_at_a_kink_at_the_point_fails_off_it(kind):
+    """At the point a value between the sides is one a kink gives (the rule at every kink the
+    ladders see); the second look off the point fails the wrong backward."""
+    report = probe(lambda p, i: _loss(AT)(p["price"][0]),
+                   lambda p, i: {"price": np.array([_wrong(kind, AT, float(p["price"][0]))])},
+                   {"price": np.array([PRICE])})
+    assert report.tensor("price").status == "fail", render_text(report)
+    out = _column(AT, _wrong(kind, AT, PRICE))
+    assert out.status[0] != PASS, (out.numeric, out.reasons)
+
+
+def test_a_kink_at_the_point_with_another_closer_than_any_step_says_which_side():
+    """A residual exactly 0 and another 1e-13 below: the side above is seen (up to 3e-9),
+    the one below never (the second kink lies inside every step rounding allows), and the
+    closed form's value (between the sides at the point) is not the side above's: undecided,
+    not failed, with the reason naming the unresolved side."""
+    out = _column(AT_AND_CLOSE, _exact(AT_AND_CLOSE))
+    assert out.status[0] == INCONCLUSIVE, (out.numeric, out.reasons)
+    assert out.reasons[0] == CLOSE_ONE
 
 
 def test_kinks_closer_than_any_step_on_both_sides_say_so():

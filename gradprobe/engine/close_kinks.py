@@ -19,10 +19,14 @@ jump * distance / h, which the agreement across the span bounds below the loss's
 - The analytic value agrees with a seen side over such a run on both sides: pass.
 - On one side only: a kink (the value is that side's derivative; the other side crosses a
   kink at or closer than the steps).
+- Both sides seen at the same RUN steps, apart by more than twice the tolerance at each (a
+  jump that stays as the step shrinks 8-fold: the point on a kink of a piecewise-linear loss,
+  or one closer than the smallest step), and the value between them: a kink (the value a
+  kink between them gives, as at a kink the ladders see; see kinks.py).
 - Otherwise the coordinate stays undecided, and the reason says what was not resolved: the
   derivative on neither side (kinks closer than the smallest step on both), on one side only
   (and the value is not the other side's), or seen on both sides and the value neither
-  (kinks at the point, or closer than any step, may still give it).
+  between nor on them (more kinks at the point, or closer than any step, may still give it).
 
 Only passes and kinks come from here, never a failure: a value off the sides seen here can
 still be one that kinks hidden below the smallest step give (see test_kink_unresolved.py);
@@ -37,6 +41,7 @@ from collections.abc import Callable
 
 import numpy as np
 
+from ..common.classes import dataclass
 from ..common.roundoff import is_narrow
 from ..common.status import INCONCLUSIVE, KINK, PASS
 from .ladder import NOISE_UNITS, SAFETY, Estimate
@@ -52,8 +57,9 @@ NOISE_SHARE = 0.5  # the run's widest step has a noise of at most half the toler
 
 def close_steps(probe: TensorProbe, flat: np.ndarray) -> np.ndarray:
     """Per coordinate the smallest step h_lo (a power of two): 2 delta / h_lo is BELOW_NOISE
-    times the tolerance at the analytic value; the top step 2**(ROWS - 1) h_lo is kept within
-    the params' own scale (as every step grown to beat noise is)."""
+    times the tolerance at the analytic value (the one a side must show); the top step
+    2**(ROWS - 1) h_lo is kept within the params' own scale (as every step grown to beat noise
+    is)."""
     tol = probe.tolerance(flat, probe.a[flat])
     delta = probe.loss_noise(np.full(flat.size, probe.f0))
     with np.errstate(divide="ignore", over="ignore"):
@@ -63,14 +69,48 @@ def close_steps(probe: TensorProbe, flat: np.ndarray) -> np.ndarray:
     return np.maximum(top * 2.0 ** -(ROWS - 1), 4.0 * probe.resolution(flat))
 
 
-def _steady(q: np.ndarray, tol: np.ndarray, top_fine: np.ndarray) -> np.ndarray:
-    """Per coordinate: RUN consecutive rows whose quotients agree within ``tol`` (the side's
-    derivative seen, whatever the analytic value), the last with ``top_fine``."""
-    found = np.zeros(q.shape[1], dtype=bool)
+@dataclass(frozen=True)
+class Sides:
+    """One side's quotients (rows of ascending steps, coordinates), their rounding noise and
+    where the RUN rows ending at each row are steady (:func:`_steady_rows`)."""
+
+    q: np.ndarray
+    noise: np.ndarray
+    steady: np.ndarray
+
+
+def _steady_rows(q: np.ndarray, tol: np.ndarray, fine: np.ndarray) -> np.ndarray:
+    """Per row k >= RUN - 1 (rows, coordinates): the RUN rows ending at k agree within
+    ``tol`` (the side's derivative seen there, whatever the analytic value), and row k's
+    noise is ``fine``. Rows before RUN - 1 are False."""
+    out = np.zeros(q.shape, dtype=bool)
     for k in range(RUN - 1, q.shape[0]):
         w = q[k - RUN + 1:k + 1]
-        found |= (w.max(axis=0) - w.min(axis=0) <= tol) & top_fine[k]
-    return found
+        out[k] = (w.max(axis=0) - w.min(axis=0) <= tol) & fine[k]
+    return out
+
+
+def _kink_between(left: Sides, right: Sides, a: np.ndarray, tol: np.ndarray) -> tuple[np.ndarray, Estimate]:
+    """Per coordinate: at the same RUN steps both sides are seen (steady), they differ by
+    more than twice the tolerance at each of them (a jump that stays as the step shrinks
+    8-fold: a kink at the point, or closer than the smallest step), and the analytic value
+    lies between them (within the tolerance): a value a kink between them gives. And the
+    side nearer the value there (the estimate reported, with its run's spread and rounding)."""
+    found = np.zeros(a.shape, dtype=bool)
+    value, error = np.full(a.shape, np.nan), np.full(a.shape, np.inf)
+    for k in range(RUN - 1, left.q.shape[0]):
+        rows = slice(k - RUN + 1, k + 1)
+        apart = (np.abs(right.q[rows] - left.q[rows]) > 2.0 * tol).all(axis=0)
+        low, high = np.minimum(left.q[k], right.q[k]), np.maximum(left.q[k], right.q[k])
+        here = left.steady[k] & right.steady[k] & apart & (a >= low - tol) & (a <= high + tol) & ~found
+        use_left = np.abs(a - left.q[k]) <= np.abs(a - right.q[k])
+        for s_, mask in ((left, use_left), (right, ~use_left)):
+            w = s_.q[rows]
+            bound = SAFETY * (w.max(axis=0) - w.min(axis=0)) + NOISE_UNITS * s_.noise[k]
+            value = np.where(here & mask, s_.q[k], value)
+            error = np.where(here & mask, bound, error)
+        found |= here
+    return found, Estimate(value, error)
 
 
 def _agreeing(q: np.ndarray, noise: np.ndarray, a: np.ndarray, tol: np.ndarray) -> tuple[np.ndarray, Estimate]:
@@ -109,16 +149,22 @@ def close_look(probe: TensorProbe, flat: np.ndarray, taken: list[Taken]) -> Judg
     tol = probe.tolerance(flat, a)
     on_left, est_left = _agreeing(left, noise_l, a, tol)
     on_right, est_right = _agreeing(right, noise_r, a, tol)
-    seen_left = _steady(left, tol, noise_l <= NOISE_SHARE * tol)
-    seen_right = _steady(right, tol, noise_r <= NOISE_SHARE * tol)
+    # The sides themselves are judged at their own size (the analytic value may be far off).
+    tol_seen = probe.tolerance(flat, np.maximum(np.abs(left[-1]), np.abs(right[-1])))
+    sides = [Sides(q, e, _steady_rows(q, tol_seen, e <= NOISE_SHARE * tol_seen))
+             for q, e in ((left, noise_l), (right, noise_r))]
+    seen_left, seen_right = (np.asarray(s.steady.any(axis=0), dtype=bool) for s in sides)
     status = np.full(n, INCONCLUSIVE, dtype=np.int8)
+    between, nearer = _kink_between(sides[0], sides[1], a, tol_seen)
+    status[between] = KINK
     status[on_left | on_right] = KINK
     status[on_left & on_right] = PASS
     chosen = Estimate.better(est_left, est_right)
+    chosen = Estimate.where(np.isfinite(chosen.error), chosen, nearer)
     value = np.where(np.isfinite(chosen.error), chosen.value, np.nan)
     # Where no step of either side beats the noise (a tolerance near 0, steps capped by the
     # params' scale), rounding, not kinks, is what the steps could not resolve: no reason here.
-    resolves = (noise_l[-1] <= NOISE_SHARE * tol) | (noise_r[-1] <= NOISE_SHARE * tol)
+    resolves = (noise_l[-1] <= NOISE_SHARE * tol_seen) | (noise_r[-1] <= NOISE_SHARE * tol_seen)
     reasons: list[str | None] = []
     for k in range(n):
         if status[k] != INCONCLUSIVE or not resolves[k]:

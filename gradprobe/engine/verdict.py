@@ -58,8 +58,8 @@ CLOSE_ONE = (
 )
 CLOSE_BOTH = (
     "both one-sided derivatives are seen down to the smallest step that rounding noise allows, "
-    "and the analytic value is neither: kinks at the point or closer than any resolvable step "
-    "can still give it, and none of them is resolved"
+    "and the analytic value is neither of them nor between them: several kinks at the point or "
+    "closer than any resolvable step can still give it, and none of them is resolved"
 )
 
 
