@@ -21,7 +21,7 @@ from .boundary import NUMPY, Boundary, Kind, describe, rebuilt
 from ..common.errors import TargetLoadError
 from ..report.model import Report
 from .target import DOUBLE_FIX, MISSING_FIX, Target, no_double_backward
-from ..common.tensors import flatten
+from ..common.tensors import flatten, is_float_dtype
 
 if TYPE_CHECKING:  # loaded for a target with no backward only
     from .autograd import ReverseMode
@@ -202,6 +202,7 @@ class FramedLayer:
         self.layer = layer
         self.name = name
         self.boundary = boundary
+        self.out_dtypes: dict[np.dtype, np.dtype] = {}  # the dtype of y, per dtype of x seen
 
     def _args(self, p: Any, x: Any, inputs: Any, made: dict[str, Any]) -> tuple[Any, Any, Any]:
         b = self.boundary
@@ -213,12 +214,22 @@ class FramedLayer:
         out = self.layer.forward(*self._args(p, x, inputs, made))
         self.boundary.check_writes({n: t for n, t in made.items() if n in self.boundary.kinds},
                                    f"layer {self.name}'s forward")
-        return self.boundary.result(out)
+        y = self.boundary.result(out)
+        if isinstance(x, np.ndarray) and isinstance(y, np.ndarray):
+            self.out_dtypes[x.dtype] = y.dtype
+        return y
 
     def backward(self, p: Any, x: Any, inputs: Any, grad_y: Any) -> Any:
         made: dict[str, Any] = {}
         args = self._args(p, x, inputs, made)
-        g = self.boundary.like(grad_y, "x", {}) if isinstance(grad_y, np.ndarray) else grad_y
+        g = grad_y
+        if isinstance(grad_y, np.ndarray):
+            # the upstream gradient in the dtype of the layer's output (the engine draws it
+            # in float64; a float32 torch layer's matmul refuses it)
+            own = self.out_dtypes.get(x.dtype, x.dtype) if isinstance(x, np.ndarray) else grad_y.dtype
+            if is_float_dtype(own) and is_float_dtype(grad_y.dtype) and own != grad_y.dtype:
+                grad_y = grad_y.astype(own)
+            g = self.boundary.like(grad_y, "x", {})
         out = self.layer.backward(*args, g)
         if isinstance(out, tuple) and len(out) == 2:
             return self.boundary.result(out[0]), self.boundary.result(out[1])
