@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 from framework_kit import need
 
-from gradprobe.api import probe_stack
+from gradprobe.api import probe, probe_stack
 
 torch = need("torch")
 
@@ -72,3 +72,72 @@ def test_a_torch_stack_in_its_own_dtype(dtype, square):
     assert report.ok is square, [(t.name, t.status) for t in report.tensors]
     assert list(report.error_enters_at) == ([] if square else ["act"])
     assert act.upstream and all(kind is torch.Tensor and g == x for kind, g, x in act.upstream)
+
+
+# --- 16-bit code whose backward returns 16 bits whatever it is given -----------------------
+# Its forward runs in float64 (given float64 values), its backward does not: the float64
+# forward is the numeric reference, the 16-bit gradient judged at the type's threshold.
+# d/dz tanh(z)^2 = 2 tanh z (1 - tanh^2 z) (chain rule on d tanh = 1 - tanh^2, any table).
+
+LEVELS = RNG.normal(size=40) * 2.0  # reservoir levels, standardised; |z| up to ~4: tanh saturates
+WEIGHTS = RNG.normal(size=40)
+
+
+def _tanh_squared_case(factor, dtype):
+    dt = getattr(torch, dtype)
+
+    def forward(p, i):
+        return (i["c"] * torch.tanh(p["w"]) ** 2).sum()
+
+    def backward(p, i):
+        t = torch.tanh(p["w"])
+        return {"w": (factor * i["c"] * 2 * t * (1 - t * t)).to(dt)}  # always the 16-bit type
+
+    return forward, backward, {"w": torch.tensor(LEVELS, dtype=dt)}, {"c": torch.tensor(WEIGHTS, dtype=dt)}
+
+
+def test_the_tanh_squared_rule_is_right_by_mpmath():
+    import mpmath
+    from framework_kit import mp_gradient, rel_gap
+
+    w = LEVELS[:6]
+    exact = mp_gradient(lambda v: sum(WEIGHTS[k] * mpmath.tanh(v[k]) ** 2 for k in range(6)), w)
+    t = np.tanh(w)
+    assert rel_gap(WEIGHTS[:6] * 2 * t * (1 - t * t), exact) < 1e-12
+
+
+@pytest.mark.parametrize("dtype", ["bfloat16", "float16"])
+@pytest.mark.parametrize("factor", [1.0, 2.0, -1.0])
+def test_a_16_bit_backward_without_a_float64_run(dtype, factor):
+    """The right rule passes (elements where tanh saturates to 1 in 16 bits get 0, the
+    16-bit arithmetic's own answer: no false alarm); twice the gradient and a flipped sign
+    fail (they were left inconclusive by the 16-bit loss's staircase)."""
+    forward, backward, params, inputs = _tanh_squared_case(factor, dtype)
+    report = probe(forward, backward, params, inputs)
+    status = {t.name: t.status.value for t in report.tensors}
+    if factor == 1.0:
+        assert status["w"] == "pass", report.tensors[0].details[:3]
+    else:
+        assert status["w"] == "fail"
+    assert any("backward returns its" in n for n in report.notes)
+
+
+@pytest.mark.parametrize("factor", [1.0, 2.0])
+def test_ml_dtypes_bfloat16_numpy_backward_cast_to_bfloat16(factor):
+    """The same in numpy arrays of ml_dtypes.bfloat16, the backward's result cast with
+    .astype(ml_dtypes.bfloat16). d(c tanh w) = c (1 - tanh^2 w)."""
+    ml_dtypes = need("ml_dtypes")
+    bf16 = ml_dtypes.bfloat16
+    w, c = LEVELS[:12].astype(bf16), WEIGHTS[:12].astype(bf16)
+
+    def forward(p, i):
+        return np.sum(i["c"] * np.tanh(p["w"]))
+
+    def backward(p, i):
+        t = np.tanh(p["w"])
+        return {"w": (factor * i["c"] * (1 - t * t)).astype(bf16)}
+
+    report = probe(forward, backward, {"w": w}, {"c": c})
+    assert report.tensors[0].dtype == "bfloat16"
+    assert report.ok is (factor == 1.0), [(t.name, t.status, t.max_rel_error) for t in report.tensors]
+    assert report.tensors[0].status.value == ("pass" if factor == 1.0 else "fail")

@@ -20,7 +20,7 @@ from ..common.status import FAIL, INCONCLUSIVE, PASS
 from .certify import certify
 from .ladder import Estimate
 from .probe import Pairs, TensorProbe
-from .reconcile import narrow_reconciled, unabsorbed, unfuzzed
+from .reconcile import narrow_reconciled, own_code_reconciled, unabsorbed, unfuzzed
 from .grounds import drifting_sides, judged_ladder, sides_grown
 from .refine import RATIO, ROWS, Taken, climb, ladder_taken, one_sided_drift
 from .staircase import flat_through_sixteen_bits
@@ -305,6 +305,10 @@ def _outcome(probe: TensorProbe, flat: np.ndarray, judged: Judged, start_count: 
     if probe.narrow is not None:  # narrow code judged on its float64 run
         a, numeric, error_estimate, status, reasons, scale = narrow_reconciled(
             probe, flat, a, numeric, error_estimate, status, reasons, scale,
+            lambda own, where: _central(own, where, recheck))
+    if probe.own_code is not None:  # 16-bit code judged against its float64 forward alone
+        numeric, error_estimate, status, reasons, scale = own_code_reconciled(
+            probe.own_code, flat, numeric, error_estimate, status, reasons, scale,
             lambda own, where: _central(own, where, recheck))
     status, reasons = unfuzzed(probe, flat, a, numeric, error_estimate, status, reasons)
     err = np.abs(a - numeric)

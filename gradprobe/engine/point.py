@@ -42,6 +42,9 @@ class Numerics:
     narrow: dict[str, np.ndarray]  # the narrow gradients those replace
     why: str  # how the code's type was found, for the note
     terms: float = 0.0  # the size of the terms the loss is summed from (ForwardInfo.terms)
+    # 16-bit code whose backward stays 16-bit: its gradient (widened) against float64
+    # numeric derivatives of its forward's float64 run, at the 16-bit type's threshold
+    reference_only: bool = False
 
 
 def _compute_type(out_dtype: np.dtype, ws: Workspace) -> tuple[np.dtype, str]:
@@ -69,7 +72,11 @@ def _numerics(backward: Callable[..., Any], ws: Workspace, evaluator: Evaluator,
     """float64 numerics for narrow code that accepts float64 (1 forward and 1 backward
     call), else the code's own; with the loss the numeric side evaluates."""
     if is_narrow(dtype):
-        promoted = promote(evaluator, backward, ws, grads, info.f0)
+        promoted = promote(evaluator, backward, ws, grads, info.f0, dtype)
+        if promoted is not None and promoted.reference_only:
+            widened(grads)
+            return Numerics(promoted.workspace, promoted.f0, np.dtype(np.float64), dtype, {}, {}, why,
+                            info.terms, reference_only=True), promoted.loss
         if promoted is not None:  # the narrow gradients stay in their own type
             return Numerics(promoted.workspace, promoted.f0, np.dtype(np.float64), dtype,
                             promoted.analytic, promoted.narrow, why, info.terms), promoted.loss
@@ -147,7 +154,11 @@ class Point:
         the analytic value is not defined more finely than this. Measured for the whole
         target on first use; None if backward fails there."""
         if self._jitter is None:
-            self._jitter = self._measured_jitter(self.numerics.workspace, self.gradients)
+            n = self.numerics
+            if n.reference_only:  # the 16-bit backward at its own values, on its own grid
+                self._jitter = self._measured_jitter(self.ws, self.gradients, n.code_dtype)
+            else:
+                self._jitter = self._measured_jitter(n.workspace, self.gradients)
         return self._jitter.get(name)
 
     def coarse_jitter(self, name: str) -> np.ndarray | None:
@@ -212,10 +223,29 @@ class Point:
 
     def probe(self, name: str, threshold: float) -> TensorProbe:
         n = self.numerics
-        return TensorProbe(self.evaluator, name, n.workspace.owners[name].reshape(-1),
-                           self.gradients[name], n.f0, n.dtype, threshold, self.target_scale,
-                           loss_scale=self.loss_scale, narrow=self._narrow_probe(name),
-                           jitter=lambda: self.jitter(name), own_rounding=lambda: self.coarse_jitter(name))
+        probe = TensorProbe(self.evaluator, name, n.workspace.owners[name].reshape(-1),
+                            self.gradients[name], n.f0, n.dtype, threshold, self.target_scale,
+                            loss_scale=self.loss_scale, narrow=self._narrow_probe(name),
+                            jitter=lambda: self.jitter(name), own_rounding=lambda: self.coarse_jitter(name),
+                            own_code=self._own_code_probe(name) if n.reference_only else None)
+        if n.reference_only:
+            # A 16-bit backward rounds at u times the terms it combines, as large as the
+            # tensor's typical gradient even where one coordinate's is far smaller (a
+            # saturated tanh: 1 - t*t is 0 in 16 bits); moves of a few grid units do not show
+            # it there. Each coordinate is judged relative to that scale at least.
+            probe.floor = max(probe.floor, probe.grad_scale)
+        return probe
+
+    def own_numerics(self) -> Point:
+        """This point, or for 16-bit code judged against its float64 forward alone the same
+        point on its 16-bit code (where second derivatives are judged, as with no float64 run:
+        the 16-bit gradient's derivative has no float64 run either)."""
+        n = self.numerics
+        if not n.reference_only:
+            return self
+        own, f0, scale = self._narrow_loss_of(list(self.grads.values))
+        narrow = replace(n, workspace=self.ws, f0=f0, dtype=n.code_dtype, reference_only=False)
+        return replace(self, evaluator=own, numerics=narrow, loss_scale=scale)
 
     def _narrow_probe(self, name: str) -> TensorProbe | None:
         """For narrow code checked on its float64 run: the tensor probed on the narrow code
@@ -224,17 +254,33 @@ class Point:
         n = self.numerics
         if name not in n.narrow:
             return None
+        own, f0, scale = self._narrow_loss_of(list(n.narrow))
+        return TensorProbe(own, name, self.ws.owners[name].reshape(-1), Widened(n.narrow[name]), f0,
+                           n.code_dtype, agreement(n.code_dtype), loss_scale=scale,
+                           jitter=lambda: self.narrow_spread(name))
+
+    def _own_code_probe(self, name: str) -> TensorProbe:
+        """For 16-bit code judged against its float64 forward alone: the tensor probed on the
+        16-bit code itself, with the gradient it returns, at the type's own threshold."""
+        n = self.numerics
+        own, f0, scale = self._narrow_loss_of(list(self.grads.values))
+        return TensorProbe(own, name, self.ws.owners[name].reshape(-1), self.grads.values[name].reshape(-1),
+                           f0, n.code_dtype, agreement(n.code_dtype), loss_scale=scale,
+                           jitter=lambda: self.jitter(name))
+
+    def _narrow_loss_of(self, names: list[str]) -> tuple[Evaluator, float, float]:
+        """An evaluator of the narrow code itself, its loss and that loss's rounding (measured
+        once per target, moving ``names``)."""
+        n = self.numerics
         ev = self.evaluator
         own = ev.sibling(LossFunction(ev.loss.forward, self.ws, ev.loss.grad_output))
         if self._narrow_loss is None:  # the narrow loss and its rounding, once per target
             f0 = own.base()
-            seen = measured_rounding(own, self.ws, list(n.narrow), f0, tensor_rng(self.seed, "", "narrow noise"))
+            seen = measured_rounding(own, self.ws, names, f0, tensor_rng(self.seed, "", "narrow noise"))
             units = rounding_units(n.code_dtype) * float(np.finfo(n.code_dtype).eps)
             self._narrow_loss = (f0, max(n.terms, seen / units))
         f0, scale = self._narrow_loss
-        return TensorProbe(own, name, self.ws.owners[name].reshape(-1), Widened(n.narrow[name]), f0,
-                           n.code_dtype, agreement(n.code_dtype), loss_scale=scale,
-                           jitter=lambda: self.narrow_spread(name))
+        return own, f0, scale
 
 
 BackendFor = Callable[[Workspace, "np.ndarray | None"], "Backend | None"]

@@ -136,6 +136,7 @@ class TensorProbe:
         narrow: TensorProbe | None = None,
         jitter: Callable[[], np.ndarray | None] | None = None,
         own_rounding: Callable[[], np.ndarray | None] | None = None,
+        own_code: TensorProbe | None = None,
     ) -> None:
         self.evaluator = evaluator
         self.tensor = tensor
@@ -164,6 +165,9 @@ class TensorProbe:
         # The same on the grid of the type it computes in, where coarser (16-bit code inside
         # wider arrays; point.Point.coarse_jitter).
         self.own_rounding = own_rounding
+        # 16-bit code whose backward has no float64 run, judged against its float64 forward:
+        # the same tensor probed on the 16-bit code itself (reconcile.own_code_reconciled).
+        self.own_code = own_code
 
     @property
     def size(self) -> int:

@@ -26,7 +26,7 @@ from .evaluate import Evaluator, LossFunction
 from .gradients import Gradients, validate
 from .precision import narrower_compute_type
 from .preflight import call_backward
-from ..common.roundoff import default_threshold, is_narrow
+from ..common.roundoff import default_threshold, is_narrow, unit_roundoff
 
 # Narrow and float64 losses may differ by this share of |f| (narrow rounding in sums with
 # cancellation reaches percents; beyond this the float64 run computes something else).
@@ -40,6 +40,9 @@ class Promoted:
     f0: float
     analytic: dict[str, np.ndarray]  # the float64 run's gradient per tensor, flat
     narrow: dict[str, np.ndarray]  # the narrow gradient per tensor, flat
+    # 16-bit code whose backward returns its 16-bit gradient whatever it is given: only
+    # forward has a float64 run (analytic and narrow are then empty), see reference_only
+    reference_only: bool = False
 
 
 def _narrow_names(ws: Workspace) -> list[str]:
@@ -48,12 +51,14 @@ def _narrow_names(ws: Workspace) -> list[str]:
 
 def promote(
     evaluator: Evaluator, backward: Callable[..., Any], ws: Workspace,
-    grads: Gradients, f0: float,
+    grads: Gradients, f0: float, code_dtype: Any = None,
 ) -> Promoted | None:
     """float64 numerics for a narrow target, or None when its code does not take float64.
 
     Costs four forward calls (counted by ``evaluator``: the run, and three that look for a
-    narrower type inside, :func:`.precision.narrower_compute_type`) and one backward call."""
+    narrower type inside, :func:`.precision.narrower_compute_type`) and one backward call.
+    16-bit code (``code_dtype``) whose forward runs in float64 but whose backward returns
+    its 16-bit gradient whatever it is given gets a Promoted that is ``reference_only``."""
     names = _narrow_names(ws)
     if not names:
         return None
@@ -75,7 +80,12 @@ def promote(
         # backward was seen not to write into its arrays (the narrow call): no scratch copies.
         raw = call_backward(backward, wide, grad_output, scratch=False)
         if not _all_float64(raw):
-            return None  # backward rounds to the narrow type itself: no float64 run to compare with
+            # backward rounds to the narrow type itself: no float64 run of it to compare with;
+            # 16-bit code's forward is still the reference (its own staircase of a loss
+            # cannot tell a factor of 2 from rounding)
+            if code_dtype is not None and reference_only(np.dtype(code_dtype)):
+                return Promoted(wide, loss, f64, {}, {}, reference_only=True)
+            return None
         grads64 = validate(raw, wide)
     except (ProbeError, Exception):  # float64 is outside what this code accepts
         return None
@@ -88,6 +98,12 @@ def promote(
         analytic[name] = g64.reshape(-1)
         narrow[name] = g.reshape(-1)
     return Promoted(wide, loss, f64, analytic, narrow)
+
+
+def reference_only(dtype: np.dtype) -> bool:
+    """16-bit types (float16, bfloat16): judged against a float64 forward's numeric
+    derivatives where backward has no float64 run (coarser than float16's unit roundoff)."""
+    return unit_roundoff(dtype) >= unit_roundoff(np.float16)
 
 
 def _all_float64(tree: Any) -> bool:

@@ -17,7 +17,7 @@ from collections.abc import Callable
 
 import numpy as np
 
-from ..common.status import FAIL, INCONCLUSIVE, KINK
+from ..common.status import FAIL, INCONCLUSIVE, KINK, PASS
 from .ladder import Estimate
 from .probe import Pairs, TensorProbe
 from .narrow import kink_within_reach
@@ -133,6 +133,36 @@ def _changes_through(probe: TensorProbe, flat: np.ndarray, h: np.ndarray) -> np.
     alike = np.minimum(np.abs(up), np.abs(down)) >= BOTH_SIDES * np.maximum(np.abs(up), np.abs(down))
     alike &= np.maximum(np.abs(up), np.abs(down)) > 0
     return (alike & within[:levels]).any(axis=0)
+
+
+def own_code_reconciled(
+    own: TensorProbe, flat: np.ndarray, numeric: np.ndarray, error_estimate: np.ndarray,
+    status: np.ndarray, reasons: tuple[str | None, ...], scale: np.ndarray,
+    check: Callable[[TensorProbe, np.ndarray], Judged],
+) -> tuple[np.ndarray, np.ndarray, np.ndarray, tuple[str | None, ...], np.ndarray]:
+    """16-bit code whose backward returns 16 bits whatever it is given, judged against
+    numeric derivatives of its forward's float64 run: a coordinate failing there is checked
+    by ``check`` on the 16-bit code itself, and where that check passes it (or finds a
+    consistent kink) its verdict and numbers stand instead (the 16-bit forward has the
+    slope its 16-bit gradient gives: a saturated tanh, an underflow, a branch taken only in
+    16 bits, as the 16-bit backward computes it). A failure the 16-bit code cannot settle
+    stays a failure. Returns (numeric, error estimate, status, reasons, scale)."""
+    failing = np.flatnonzero(status == FAIL)
+    if failing.size == 0:
+        return numeric, error_estimate, status, reasons, scale
+    redo = check(own, flat[failing])  # counted with the check's calls
+    took = np.flatnonzero((redo.status == PASS) | (redo.status == KINK))
+    if took.size == 0:
+        return numeric, error_estimate, status, reasons, scale
+    k = failing[took]
+    numeric, error_estimate, status, scale = numeric.copy(), error_estimate.copy(), status.copy(), scale.copy()
+    numeric[k], error_estimate[k] = redo.estimate.value[took], redo.estimate.error[took]
+    status[k] = redo.status[took]
+    scale[k] = own.denominators(flat[k], numeric[k])
+    listed = list(reasons)
+    for j, r in zip(k.tolist(), took.tolist()):
+        listed[j] = redo.reasons[r]
+    return numeric, error_estimate, status, tuple(listed), scale
 
 
 def unfuzzed(

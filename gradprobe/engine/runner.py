@@ -67,6 +67,15 @@ def _promoted_note(dtype: np.dtype, why: str, threshold: float) -> str:
     )
 
 
+def _reference_note(dtype: np.dtype, why: str, threshold: float) -> str:
+    return (
+        f"forward computes in {dtype}{why} and also runs in float64, but backward returns its "
+        f"{dtype} gradient whatever it is given: that gradient was checked against float64 "
+        f"numeric derivatives of forward at the {dtype} values within {threshold:.2g} ({dtype} "
+        f"rounding) or within what its rounding is measured to vary by"
+    )
+
+
 def hint_context(ws: Workspace) -> HintContext:
     """Batch sizes (inputs' leading dimensions), integer and float inputs, float params in order."""
     batches = tuple(ws.owners[n].shape[0] for n in ws.input_names if ws.owners[n].ndim >= 1)
@@ -154,6 +163,8 @@ def _settings(options: CheckOptions, numerics: Numerics) -> tuple[CheckOptions, 
         threshold = options.threshold or default_threshold(np.dtype(np.float64))
         return replace(options, threshold=threshold), [_promoted_note(compute_dtype, numerics.why, threshold)]
     threshold = options.threshold or default_threshold(compute_dtype)
+    if numerics.reference_only:
+        return replace(options, threshold=threshold), [_reference_note(compute_dtype, numerics.why, threshold)]
     notes = [_threshold_note(compute_dtype, numerics.why)] if is_narrow(compute_dtype) else []
     return replace(options, threshold=threshold), notes
 
@@ -278,4 +289,4 @@ def _second_order(target: Target, settings: CheckOptions, point: Point,
         return None
     from .second_order import check_second_order  # local: a first-order check starts lean
 
-    return check_second_order(target, point, settings, settings.resolved_threshold)
+    return check_second_order(target, point.own_numerics(), settings, settings.resolved_threshold)
