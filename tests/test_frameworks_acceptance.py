@@ -141,3 +141,39 @@ def test_ml_dtypes_bfloat16_numpy_backward_cast_to_bfloat16(factor):
     assert report.tensors[0].dtype == "bfloat16"
     assert report.ok is (factor == 1.0), [(t.name, t.status, t.max_rel_error) for t in report.tensors]
     assert report.tensors[0].status.value == ("pass" if factor == 1.0 else "fail")
+
+
+def test_a_class_style_torch_layer_writing_into_its_input_leaves_the_callers_tensor():
+    """A class-style layer (section 5's adapter) that scales its torch input in place: the
+    check is the exit-2 error for a write, and the caller's tensor is bitwise what it was
+    (the adapter's first pass, which finds the layers' params, ran the layer on it)."""
+    from gradprobe.api import probe_target
+    from gradprobe.common.errors import InPlaceWriteError
+    from gradprobe.targets.object_stack import object_stack
+
+    class Gain:  # a sensor gain per channel
+        def __init__(self):
+            self.a = torch.tensor([1.5, 0.5, 2.0], dtype=torch.float64)
+
+        def forward(self, x):
+            self.x = x
+            x.mul_(1.25)  # the write
+            return x * self.a
+
+        def backward(self, d):
+            self.da = (d * self.x).sum(0)
+            return d * self.a
+
+    class Energy:
+        def forward(self, y, labels=None):
+            self.y = y
+            return 0.5 * (y ** 2).sum()
+
+        def backward(self, d=1.0):
+            return self.y * d
+
+    x = torch.tensor(FIELDS[:4], dtype=torch.float64)
+    bits = x.numpy().tobytes()
+    with pytest.raises(InPlaceWriteError):
+        probe_target(object_stack([Gain()], Energy(), x, grads={"Gain": {"a": "da"}}))
+    assert x.numpy().tobytes() == bits

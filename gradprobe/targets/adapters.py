@@ -94,6 +94,20 @@ def stored(layer: Any, slots: Mapping[str, tuple[Slot, Slot]]) -> dict[str, np.n
     return out
 
 
+def private_copy(value: Any) -> Any:
+    """A copy of ``value`` that the caller's code cannot reach: numpy's, or one of its own
+    library (a torch tensor cloned off its graph; an array-API array copied by its namespace;
+    immutable arrays such as JAX's as they are)."""
+    if isinstance(value, np.ndarray) or not hasattr(value, "__dlpack__"):
+        return np.array(value, copy=True)
+    if callable(getattr(value, "clone", None)) and callable(getattr(value, "detach", None)):
+        return value.detach().clone()  # torch
+    try:
+        return value.__array_namespace__().asarray(value, copy=True)
+    except Exception:  # noqa: BLE001 - a library without copies (JAX arrays are immutable)
+        return value
+
+
 def own_kind(value: Any) -> Any:
     """A private numpy copy of ``value``, or ``value`` itself when it is an array of another
     library (torch, JAX, array-api-strict: protocol section 6), so that the layer is run
@@ -126,8 +140,8 @@ def layer_target(
         if not callable(getattr(layer, method, None)):
             raise TargetLoadError(f"the layer {type(layer).__name__} has no {method} method")
     slots = param_slots(layer, grads)
-    params = {name: {n: own_kind(place.get(layer)) for n, (place, _) in slots.items()}}
-    inputs = {input_name: own_kind(x)}
+    params = {name: {n: private_copy(place.get(layer)) for n, (place, _) in slots.items()}}
+    inputs = {input_name: private_copy(x)}
 
     def forward(p: Mapping[str, Any], i: Mapping[str, Any]) -> Any:
         with preserved(layer):

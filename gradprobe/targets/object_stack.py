@@ -22,7 +22,7 @@ from typing import Any
 
 import numpy as np
 
-from .adapters import Slot, install, own_kind, param_slots, stored
+from .adapters import Slot, install, own_kind, param_slots, private_copy, stored
 from ..common.errors import TargetLoadError
 from ..common.tensors import is_float_dtype
 from .objstate import preserved
@@ -158,7 +158,7 @@ def object_stack(
                 what = "the loss" if k == len(layers) else f"layer {k}"
                 raise TargetLoadError(f"{what} ({type(obj).__name__}) has no {method} method")
     all_names = _names(objects, names)
-    x_private = own_kind(x)
+    x_private = private_copy(x)  # the layers run on it below: the caller's x stays as it is
     wrapped: list[Any] = []
     params: dict[str, dict[str, np.ndarray]] = {}
     activation = x_private
@@ -175,10 +175,10 @@ def object_stack(
                              "gradient stored for them; name them with grads= to check them)")
             wrapped.append(ObjectLayer(name, obj, slots))
             if slots:
-                params[name] = {n: own_kind(place.get(obj)) for n, (place, _) in slots.items()}
+                params[name] = {n: private_copy(place.get(obj)) for n, (place, _) in slots.items()}
             activation = own_kind(obj.forward(activation))
     inputs: dict[str, Any] = {"x": x_private}
     if labels is not None:
-        inputs[LABELS] = own_kind(labels)
+        inputs[LABELS] = private_copy(labels)
     wrapped.append(ObjectLoss(all_names[-1], loss, labels is not None))
     return replace(stack(wrapped, params, inputs, label), notes=tuple(notes))
