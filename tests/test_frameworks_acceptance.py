@@ -177,3 +177,40 @@ def test_a_class_style_torch_layer_writing_into_its_input_leaves_the_callers_ten
     with pytest.raises(InPlaceWriteError):
         probe_target(object_stack([Gain()], Energy(), x, grads={"Gain": {"a": "da"}}))
     assert x.numpy().tobytes() == bits
+
+
+class Softplus(torch.autograd.Function):
+    """d softplus z = sigmoid z (any table of derivatives)."""
+
+    @staticmethod
+    def forward(ctx, z):
+        ctx.save_for_backward(z)
+        return torch.nn.functional.softplus(z)
+
+    @staticmethod
+    def backward(ctx, g):
+        (z,) = ctx.saved_tensors
+        return g * torch.sigmoid(z)
+
+
+def test_every_renderer_says_the_arrays_library_and_the_gradients_source():
+    """JUnit properties, the HTML settings and the terminal header name torch and autograd
+    (JSON has array_library and gradient_source); a numpy target's stay as they were."""
+    from gradprobe.api import render_text
+    from gradprobe.report.model import TargetRun
+    from gradprobe.render.html import render_html
+    from gradprobe.render.junit import render_junit
+
+    w = torch.tensor(W1[:, 0], dtype=torch.float32)
+    report = probe(lambda p, i: Softplus.apply(p["w"] * 1.5).sum(), None, {"w": w})
+    assert report.ok
+    junit = render_junit([TargetRun("softplus", 0, report)], "2026-01-01T00:00:00", "host")
+    assert '<property name="array_library" value="torch" />' in junit
+    assert '<property name="gradient_source" value="autograd" />' in junit
+    html = render_html([TargetRun("softplus", 0, report)])
+    assert "<dd>torch</dd>" in html and "<dd>autograd</dd>" in html
+    assert "torch arrays, autograd gradient" in render_text(report).split("layer / tensor")[0]
+
+    plain = probe(lambda p, i: float(np.sum(p["w"] ** 2)), lambda p, i: {"w": 2 * p["w"]}, {"w": W1[:, 0]})
+    assert "arrays" not in render_text(plain).split("layer / tensor")[0]
+    assert "<dd>autograd</dd>" not in render_html([TargetRun("squares", 0, plain)])

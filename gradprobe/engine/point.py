@@ -72,7 +72,7 @@ def _numerics(backward: Callable[..., Any], ws: Workspace, evaluator: Evaluator,
     """float64 numerics for narrow code that accepts float64 (1 forward and 1 backward
     call), else the code's own; with the loss the numeric side evaluates."""
     if is_narrow(dtype):
-        promoted = promote(evaluator, backward, ws, grads, info.f0, dtype)
+        promoted = promote(evaluator, backward, ws, grads, info.f0, code_dtype=dtype)
         if promoted is not None and promoted.reference_only:
             widened(grads)
             return Numerics(promoted.workspace, promoted.f0, np.dtype(np.float64), dtype, {}, {}, why,

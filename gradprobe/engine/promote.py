@@ -51,7 +51,7 @@ def _narrow_names(ws: Workspace) -> list[str]:
 
 def promote(
     evaluator: Evaluator, backward: Callable[..., Any], ws: Workspace,
-    grads: Gradients, f0: float, code_dtype: Any = None,
+    grads: Gradients, f0: float, *, code_dtype: Any = None,
 ) -> Promoted | None:
     """float64 numerics for a narrow target, or None when its code does not take float64.
 

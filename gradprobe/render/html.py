@@ -162,6 +162,8 @@ def _settings(report: Report) -> str:
     items = [("threshold", f"{report.threshold:g}"), ("method", report.method),
              ("seed", str(report.seed)), ("computes in", report.compute_dtype),
              ("evaluations", str(report.evaluations)), ("time", f"{report.seconds:.2f} s")]
+    if report.array_library != "numpy" or report.gradient_source != "backward":  # section 6
+        items[4:4] = [("arrays", report.array_library), ("gradient from", report.gradient_source)]
     return '<dl class="settings">' + "".join(f"<dt>{k}</dt><dd>{_e(v)}</dd>" for k, v in items) + "</dl>"
 
 

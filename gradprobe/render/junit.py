@@ -100,7 +100,9 @@ def _suite(root: ET.Element, run: TargetRun, index: int, timestamp: str, hostnam
     if report:
         for name, value in (("threshold", f"{report.threshold:g}"), ("seed", str(report.seed)),
                             ("method", report.method), ("compute_dtype", report.compute_dtype),
-                            ("evaluations", str(report.evaluations))):
+                            ("evaluations", str(report.evaluations)),
+                            ("array_library", report.array_library),
+                            ("gradient_source", report.gradient_source)):
             ET.SubElement(props, "property", {"name": name, "value": value})
         for t in tensors:
             _testcase(suite, report, t, classname(run.target, t.layer))

@@ -26,7 +26,10 @@ def threshold_part(report: Report) -> str:
 
 
 def header_parts(report: Report) -> list[str]:
-    return ["gradprobe", report.target, report.method, threshold_part(report), f"seed {report.seed}"]
+    parts = ["gradprobe", report.target, report.method, threshold_part(report), f"seed {report.seed}"]
+    if report.array_library != "numpy" or report.gradient_source != "backward":  # section 6
+        parts.append(f"{report.array_library} arrays, {report.gradient_source} gradient")
+    return parts
 
 
 def wrap_parts(parts: list[str], width: int | None, indent: str = "  ") -> str:
