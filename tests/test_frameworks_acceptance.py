@@ -214,3 +214,32 @@ def test_every_renderer_says_the_arrays_library_and_the_gradients_source():
     plain = probe(lambda p, i: float(np.sum(p["w"] ** 2)), lambda p, i: {"w": 2 * p["w"]}, {"w": W1[:, 0]})
     assert "arrays" not in render_text(plain).split("layer / tensor")[0]
     assert "<dd>autograd</dd>" not in render_html([TargetRun("squares", 0, plain)])
+
+
+@pytest.mark.parametrize("factor", [1.0, 2.0, -1.0])
+def test_a_bfloat16_only_function_judged_on_its_own_arithmetic(factor):
+    """Code that takes bfloat16 and nothing else (forward and backward assert it, as a
+    kernel would) has no float64 run: judged on bfloat16 arithmetic, the right rule does not
+    fail and twice the gradient or a flipped sign fails. The rounding of the loss along a
+    direction was measured with moves rounded unevenly to the grid, so a wrong gradient's
+    own error showed as rounding (the larger the error, the larger): 2x stayed inconclusive.
+    d(c tanh w) = c (1 - tanh^2 w) (any table of derivatives)."""
+    valves = np.random.default_rng(4)
+    w0, c0 = valves.normal(size=7), valves.normal(size=7)  # seven valves' openings and flow weights
+    w, c = torch.tensor(w0, dtype=torch.bfloat16), torch.tensor(c0, dtype=torch.bfloat16)
+
+    def forward(p, i):
+        assert p["w"].dtype == torch.bfloat16
+        return (i["c"] * torch.tanh(p["w"])).sum()
+
+    def backward(p, i):
+        assert p["w"].dtype == torch.bfloat16
+        t = torch.tanh(p["w"])
+        return {"w": factor * i["c"] * (1 - t * t)}
+
+    report = probe(forward, backward, {"w": w}, {"c": c})
+    assert report.compute_dtype == "bfloat16" and not report.narrow_threshold
+    if factor == 1.0:
+        assert report.ok
+    else:
+        assert report.tensors[0].status.value == "fail"

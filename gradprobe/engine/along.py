@@ -99,18 +99,29 @@ class _Seen:
 
 def _rounding(probe: TensorProbe, d: np.ndarray, at: float) -> tuple[float, float, np.ndarray] | None:
     """The rounding of one loss value near x + at d, seen directly, relative to the loss's
-    size there: the loss at NOISE_SPAN + 1 points a few units of the type's grid apart along
-    d, less the analytic change of the moves, whose second differences cancel how it changes
-    and keep how its rounding varies
-    (SPREAD_MARGIN times the largest; see noise.measured_rounding), that size, and the
-    values. None where the loss did not change at all, or its second differences are all
-    0: that says nothing of its rounding."""
-    grid = np.abs(np.spacing(np.abs(probe.x).astype(probe.compute_dtype))).astype(np.float64)
+    size there: the loss at NOISE_SPAN + 1 points x + at d + k w, w a move along d of whole
+    pairs of each element's grid units (about NOISE_UNITS of them), less the analytic change
+    of the moves. Moves of whole grid units are exact (within a binade), so the moved
+    distances are k times one vector: how the loss really changes is then linear in k, and
+    so is the part an error in the analytic gradient leaves (with moves rounded unevenly to
+    the grid, that part showed as rounding, and the larger the error the larger the rounding
+    it seemed to measure). Second differences cancel both and keep how its rounding varies
+    (SPREAD_MARGIN times the largest; see noise.measured_rounding). With that size and the
+    values; None where the loss did not change at all, or its second differences are all
+    0, or no element moves a whole pair of units: that says nothing of its rounding."""
+    x = probe.x
+    with np.errstate(over="ignore", invalid="ignore"):
+        there = as_seen((x + at * d).astype(x.dtype), probe.compute_dtype)
+    grid = np.abs(np.spacing(np.abs(there).astype(probe.compute_dtype))).astype(np.float64)
     typical = float(np.sqrt(np.mean(d * d)))
     delta = NOISE_UNITS * float(np.sqrt(np.mean(grid * grid))) / max(typical, 1e-300)
-    values, predicted = probe.along(slice(0, probe.size), d, at + delta * np.arange(NOISE_SPAN + 1))
-    # Less the analytic change of the moves really made: the rounding of x + at d + k delta
-    # to the grid moves the elements unevenly, a staircase the quotients take into account.
+    pair = 2.0 * grid  # a multiple of the grid on either side of a binade's edge
+    whole = np.round(delta * d / pair) * pair
+    if not np.all(np.isfinite(whole)) or not np.any(whole):
+        return None
+    seen = [probe.along(slice(0, probe.size), at * d + k * whole, np.ones(1)) for k in range(NOISE_SPAN + 1)]
+    values = np.array([v[0] for v, _ in seen], dtype=np.float64)
+    predicted = np.array([p[0] for _, p in seen], dtype=np.float64)
     second = np.abs(np.diff(values - predicted, n=2))
     if not np.all(np.isfinite(second)) or not np.any(second) or np.all(values == values[0]):
         return None
@@ -166,9 +177,17 @@ def _measure(probe: TensorProbe, d: np.ndarray) -> _Seen | None:
     size = np.maximum(np.abs(f_plus), np.abs(f_minus))
     seen = [_rounding(probe, d, at) for at in (0.0, -float(steps[-1]), float(steps[-1]))]
     if all(r is not None for r in seen):  # measured at the point and at the widest steps
-        share = max(r[0] / max(r[1], 1e-300) for r in seen if r is not None)
-        every = np.concatenate([values, [probe.f0], *(r[2] for r in seen if r is not None)])
-        noise = np.maximum(share * np.maximum(size, abs(probe.f0)), _granularity(every))
+        measured = [r for r in seen if r is not None]
+        # The rounding is set by the sizes of the terms summed, not by the sum's: a point
+        # where the loss is small (terms cancelling) shows the same absolute rounding as the
+        # others, and taken relative to its loss it would inflate the rest tenfold. So the
+        # largest rounding seen, absolute; growing with the loss beyond the largest loss
+        # measured, at that point's share of it.
+        largest = max(measured, key=lambda r: r[1])
+        share = largest[0] / max(largest[1], 1e-300)
+        every = np.concatenate([values, [probe.f0], *(r[2] for r in measured)])
+        noise = np.maximum(np.maximum(max(r[0] for r in measured), share * np.maximum(size, abs(probe.f0))),
+                           _granularity(every))
     else:  # no measure: the probe's model of the type's rounding
         noise = probe.loss_noise(f_plus, f_minus)
     central = (f_plus - f_minus - p_plus - p_minus) / (2.0 * steps)
