@@ -243,3 +243,30 @@ def test_a_bfloat16_only_function_judged_on_its_own_arithmetic(factor):
         assert report.ok
     else:
         assert report.tensors[0].status.value == "fail"
+
+
+def test_a_bfloat16_only_bump_with_large_and_small_params_is_no_false_alarm():
+    """A bfloat16-only kernel z exp(-z^2) (d/dz = exp(-z^2) (1 - 2 z^2), product and chain
+    rules) whose params mix a few large values (where the bump is flat) with small ones: a
+    direction moved the small ones by the large ones' scale, far past the bump, where the
+    loss's change goes flat while the analytic change keeps growing, and the right rule
+    failed. The right rule does not fail; twice the gradient still does."""
+    rng = np.random.default_rng(3)
+    w = torch.tensor(rng.normal(size=12) * 2, dtype=torch.bfloat16)  # soil probes' offsets
+    c = torch.tensor(rng.normal(size=12), dtype=torch.bfloat16)
+    w64 = w.double().numpy()
+    assert np.sum(np.abs(w64) > 4) >= 3 and np.sum(np.abs(w64) < 1.2) >= 6  # both kinds
+
+    def forward(p, i):
+        assert p["w"].dtype == torch.bfloat16
+        return (i["c"] * p["w"] * torch.exp(-p["w"] * p["w"])).sum()
+
+    def make(factor):
+        def backward(p, i):
+            assert p["w"].dtype == torch.bfloat16
+            z = p["w"]
+            return {"w": factor * i["c"] * torch.exp(-z * z) * (1 - 2 * z * z)}
+        return backward
+
+    assert probe(forward, make(1.0), {"w": w}, {"c": c}).ok
+    assert probe(forward, make(2.0), {"w": w}, {"c": c}).tensors[0].status.value != "pass"

@@ -47,6 +47,7 @@ SKEW_SAFETY = 2.0  # the asymmetry of the rounded moves is taken twice
 CLEAN = 0.25  # moves whose rounding to the grid leaves them this asymmetric at most
 NOISE_SPAN = 6  # the loss's rounding: seven points along the direction, five second differences
 NOISE_UNITS = 4.0  # a typical element moves by this many units of the type's grid between them
+MOVED_SCALES = 2.0  # the widest move: at most this many times the rms of the elements moved
 KINK_SHRINK = 0.75  # the one-sided gap shrinks to at most this share as the step halves, or a kink
 
 
@@ -149,7 +150,14 @@ def _kinked(gap: np.ndarray, side_noise: np.ndarray) -> bool:
 def _measure(probe: TensorProbe, d: np.ndarray) -> _Seen | None:
     x = probe.x
     span = max(float(np.max(np.abs(d))), 1e-300)
-    top = probe.x_scale / span  # no element moves beyond the params' own scale
+    # No element moves beyond the params' own scale, nor beyond MOVED_SCALES times the
+    # scale of the elements the direction moves (their rms weighted by d; a sixteenth of
+    # the params' scale at least, for elements at 0): a few large params must not carry
+    # small ones, where most of the slope lies, far past where the loss levels off (a bump,
+    # a saturating unit: the loss's change goes flat while the analytic change keeps
+    # growing, and the quotients settle on -a.d as if converged).
+    moved = float(np.sqrt(np.sum((d * x.astype(np.float64)) ** 2) / max(float(np.sum(d * d)), 1e-300)))
+    top = min(probe.x_scale, max(MOVED_SCALES * moved, probe.x_scale / 16.0)) / span
     if not np.isfinite(top) or top <= 0:
         return None
     steps = top * 2.0 ** -np.arange(STEPS - 1, -1, -1.0)  # ascending
