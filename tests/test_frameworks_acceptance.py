@@ -270,3 +270,97 @@ def test_a_bfloat16_only_bump_with_large_and_small_params_is_no_false_alarm():
 
     assert probe(forward, make(1.0), {"w": w}, {"c": c}).ok
     assert probe(forward, make(2.0), {"w": w}, {"c": c}).tensors[0].status.value != "pass"
+
+
+class Heater(torch.autograd.Function):
+    """A greenhouse heater's response softplus(beta (x W + b)) / beta with a hand-written
+    backward: several inputs, a non-tensor argument (beta, whose gradient is None), ctx
+    attributes and needs_input_grad. ``slip`` scales the input gradient (10% off: 1.1)."""
+
+    @staticmethod
+    def forward(ctx, x, w, b, beta, slip):
+        z = x @ w + b
+        ctx.save_for_backward(x, w, z)
+        ctx.beta, ctx.slip = beta, slip
+        return torch.log1p(torch.exp(beta * z)) / beta
+
+    @staticmethod
+    def backward(ctx, g):
+        x, w, z = ctx.saved_tensors
+        gz = g * torch.sigmoid(ctx.beta * z)  # d softplus = sigmoid
+        gx = gz @ w.T * ctx.slip if ctx.needs_input_grad[0] else None
+        gw = x.T @ gz if ctx.needs_input_grad[1] else None
+        gb = gz.sum(0) if ctx.needs_input_grad[2] else None
+        return gx, gw, gb, None, None
+
+
+def _heater_loss_mp(x_flat):
+    """sum c * softplus(1.5 (x W1 + B1)) / 1.5 in mpmath, as a function of x (6 x 3)."""
+    import mpmath
+
+    total = mpmath.mpf(0)
+    for r in range(6):
+        for j in range(4):
+            z = sum(x_flat[r * 3 + k] * mpmath.mpf(W1[k, j]) for k in range(3)) + mpmath.mpf(B1[j])
+            total += mpmath.mpf(YIELDS[r, j % 2]) * mpmath.log(1 + mpmath.exp(1.5 * z)) / 1.5
+    return total
+
+
+@pytest.mark.parametrize("dtype", ["float64", "float32", "bfloat16"])
+@pytest.mark.parametrize("slip", [1.0, 1.1])
+def test_a_function_whose_input_gradient_alone_is_10_percent_off(dtype, slip):
+    """Only the input's gradient is wrong (10% off): x fails, W and b pass, in every dtype;
+    the right Function passes. The rule is checked against mpmath first."""
+    from framework_kit import mp_gradient, rel_gap
+
+    dt = getattr(torch, dtype)
+    c = torch.tensor(YIELDS[:, [0, 1, 0, 1]], dtype=dt)
+    x64 = torch.tensor(FIELDS, dtype=torch.float64, requires_grad=True)
+    c64 = torch.tensor(YIELDS[:, [0, 1, 0, 1]])
+    loss64 = (c64 * Heater.apply(x64, torch.tensor(W1), torch.tensor(B1), 1.5, 1.0)).sum()
+    (gx,) = torch.autograd.grad(loss64, (x64,))
+    assert rel_gap(gx.numpy(), mp_gradient(_heater_loss_mp, FIELDS)) < 1e-10
+
+    def forward(p, i):
+        return (i["c"] * Heater.apply(i["x"], p["heat"]["W"], p["heat"]["b"], 1.5, slip)).sum()
+
+    params = {"heat": {"W": torch.tensor(W1, dtype=dt), "b": torch.tensor(B1, dtype=dt)}}
+    report = probe(forward, None, params, {"x": torch.tensor(FIELDS, dtype=dt), "c": c})
+    status = {t.name: t.status.value for t in report.tensors}
+    assert status["heat.W"] == "pass" and status["heat.b"] == "pass"
+    assert status["x"] == ("pass" if slip == 1.0 else "fail")
+    assert report.gradient_source == "autograd" and report.tensor("x").dtype == dtype
+
+
+@pytest.mark.parametrize("dtype", ["float32", "bfloat16"])
+@pytest.mark.parametrize("off", [False, True])
+def test_a_custom_vjp_with_one_element_off_is_located(dtype, off):
+    """A JAX custom_vjp soft clip z / sqrt(1 + z^2), d/dz = (1 + z^2)^(-3/2) (quotient rule,
+    any table), whose backward gets element 2 wrong: w fails at [2] and only there; the
+    right rule passes. JAX's 64-bit flag is as it was."""
+    jax = need("jax")
+    jnp = jax.numpy
+
+    @jax.custom_vjp
+    def clip(z):
+        return z / jnp.sqrt(1 + z * z)
+
+    def fwd(z):
+        return clip(z), z
+
+    def bwd(z, g):
+        d = g * (1 + z * z) ** -1.5
+        return (d.at[2].set(d[2] * 1.5 + 0.3) if off else d,)
+
+    clip.defvjp(fwd, bwd)
+    meter = np.random.default_rng(11)  # water meters' readings, scaled, and their weights
+    w, s = jnp.asarray(meter.normal(size=6), dtype=dtype), jnp.asarray(meter.uniform(0.5, 1.5, 6), dtype=dtype)
+    flag = jax.config.jax_enable_x64
+    report = probe(lambda p, i: jnp.sum(clip(p["w"] * i["s"])), None, {"w": w}, {"s": s})
+    assert jax.config.jax_enable_x64 == flag
+    t = report.tensor("w")
+    if off:
+        assert t.status.value == "fail" and [tuple(b) for b in t.bad_indices] == [(2,)]
+    else:
+        assert report.ok and t.status.value == "pass"
+    assert report.array_library == "jax" and t.dtype == dtype
