@@ -134,6 +134,8 @@ def test_file_sibling_imports_work(write_target, run_cli):
          "notmap.py", "notmap.py: params must be a mapping of name -> array, not list; give a dict such as {'w': np.zeros(3)}."),
         ({"ctor.py": "class Case:\n    def __init__(self):\n        raise ValueError('no config')\n"},
          "ctor.py:Case", "ctor.py:Case: calling Case() raised ValueError: no config; fix it there (--traceback shows where)."),
+        ({"lazy.py": "def __getattr__(name):\n    raise ValueError('no plot named ' + name)\n"},
+         "lazy.py:plot_7", "lazy.py:plot_7: looking up plot_7 raised ValueError: no plot named plot_7; fix it there (--traceback shows where)."),
     ],
 )
 def test_load_errors_are_one_sentence_and_exit_2(write_target, run_cli, files, spec, expected):

@@ -125,8 +125,7 @@ class Point:
         else:
             scale = measured_loss_scale(self.evaluator, n.workspace, self.gradients, n.f0, units, rng)
         self.loss_scale = max(n.terms, scale)
-        self.target_scale = max((float(np.sqrt(np.mean(g**2))) if g.dtype == np.float64
-                                 else root_mean_square(g.reshape(-1))  # narrow, kept in its type
+        self.target_scale = max((root_mean_square(g.reshape(-1))  # narrow ones kept in their type
                                  for g in self.grads.values.values() if g.size), default=0.0)
 
     def keep_gradients(self, names: set[str]) -> None:

@@ -55,7 +55,12 @@ def root_mean_square(x: np.ndarray | Widened) -> float:
     if x.size == 0:
         return 0.0
     if isinstance(x, np.ndarray) and x.dtype == np.float64:
-        return float(np.sqrt(np.dot(x, x) / x.size))
+        with np.errstate(over="ignore"):
+            total = float(np.dot(x, x))
+        if total == np.inf:  # squares beyond float64 (gradients above ~1e154): scale first
+            top = float(np.max(np.abs(x)))
+            return top if not np.isfinite(top) else top * float(np.sqrt(np.dot(x / top, x / top) / x.size))
+        return float(np.sqrt(total / x.size))
     total = sum(float(np.dot(c, c)) for c in (x[k:k + 65536].astype(np.float64)
                                                for k in range(0, x.size, 65536)))
     return float(np.sqrt(total / x.size))

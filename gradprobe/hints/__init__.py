@@ -52,7 +52,13 @@ def hint_for(e: Evidence, ctx: Context) -> str | None:
 
 
 def diagnose(evidence: list[Evidence], ctx: Context) -> dict[str, str]:
-    """A hint per failing tensor name where the evidence supports one."""
+    """A hint per failing tensor name where the evidence supports one (a value out of float64's
+    range makes a model not fit; it never prints a warning)."""
+    with np.errstate(all="ignore"):
+        return _diagnosed(evidence, ctx)
+
+
+def _diagnosed(evidence: list[Evidence], ctx: Context) -> dict[str, str]:
     hints = swapped_pairs(evidence)
     own = bool(hints)  # an exchange of two gradients is no error passed down
     for name, text in term_hints(evidence, ctx).items():

@@ -19,10 +19,11 @@ def steady_ratio(c: float, e: Evidence) -> bool:
 
 
 def factor_hint(e: Evidence, ctx: Context) -> str | None:
-    n2 = float(e.numeric @ e.numeric)
-    if n2 == 0:
+    top = float(np.max(np.abs(e.numeric))) if e.numeric.size else 0.0
+    if top == 0 or not np.isfinite(top):
         return None
-    c = float(e.analytic @ e.numeric) / n2
+    unit = e.numeric / top  # the fitted factor is the same; squares of gradients ~1e154 overflow
+    c = float((e.analytic / top) @ unit) / float(unit @ unit)
     if abs(c) < 1e-12 or not explains(c * e.numeric, e) or not steady_ratio(c, e):
         return None
     if abs(c + 1) <= FACTOR_MATCH:

@@ -164,17 +164,27 @@ def resolve_object(spec: str) -> Any:
     module = _import_file(location) if is_file_spec(location) else _import_module(location)
     if attr is None:
         return module
-    if not hasattr(module, attr):
+    missing = object()
+    obj = _call_user(lambda: _attribute_or(module, attr, missing), f"looking up {attr}")
+    if obj is missing:
         import difflib
 
         close = difflib.get_close_matches(attr, _attribute_names(module), n=1)
         tip = f"; did you mean {close[0]!r}?" if close else ""
         raise TargetLoadError(f"{location} has no attribute {attr!r}{tip}", value=attr,
                               fix="" if tip else "name a function, class or object it defines")
-    obj = getattr(module, attr)
     if isinstance(obj, (type, types.FunctionType)):
         obj = _call_user(obj, f"calling {attr}()")
     return obj
+
+
+def _attribute_or(module: Any, attr: str, missing: Any) -> Any:
+    """``module.attr``, or ``missing`` where the module has no such attribute (a module's own
+    ``__getattr__`` may raise anything else, which is the user's error)."""
+    try:
+        return getattr(module, attr)
+    except AttributeError:
+        return missing
 
 
 def _functions(obj: Any, optional: bool = False) -> tuple[Callable[..., Any], Callable[..., Any]]:
