@@ -57,6 +57,17 @@ def test_non_finite_gradient_fails():
     assert t.status == "fail" and "1 non-finite value" in t.hint
 
 
+def test_non_finite_gradient_elements_are_named_and_located():
+    """A NaN and an inf in a 2-D gradient: the failure says where, in the hint and bad_indices."""
+    bad = 2 * W
+    bad[1, 0] = np.nan
+    bad[0, 2] = -np.inf
+    t = _run(grads(W=bad)).tensor("W")
+    assert t.status == "fail" and "2 non-finite values" in t.hint
+    assert "[1, 0]" in t.hint and "[0, 2]" in t.hint
+    assert set(t.bad_indices) == {(1, 0), (0, 2)} and t.failed == 2
+
+
 def test_input_gradients_are_optional_and_checked_when_returned():
     x = np.array([0.3, -0.7])
 

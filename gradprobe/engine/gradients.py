@@ -20,6 +20,7 @@ class Gradients:
 
     values: dict[str, np.ndarray] = field(default_factory=dict)
     problems: dict[str, str] = field(default_factory=dict)  # known tensor -> what is wrong
+    problem_at: dict[str, list[tuple[int, ...]]] = field(default_factory=dict)  # its wrong elements, where known
     unknown: dict[str, tuple[tuple[int, ...], str]] = field(default_factory=dict)
     notes: list[str] = field(default_factory=list)
 
@@ -41,13 +42,22 @@ def _problem(name: str, value: Any, tensor: np.ndarray, own_type: bool = False,
         return None, f"the gradient for {name} has shape {grad.shape} but the tensor is {tensor.shape}"
     finite = np.isfinite(grad)
     if not finite.all():
+        at = non_finite_at(grad)
         bad = int(grad.size - finite.sum())
-        return None, f"the gradient for {name} has {bad} non-finite value{'s' if bad > 1 else ''}"
+        shown = ", ".join(f"{'nan' if np.isnan(grad[i]) else 'inf'} at {list(i)}" for i in at[:3])
+        more = f" and {bad - 3} more" if bad > 3 else ""
+        return None, f"the gradient for {name} has {bad} non-finite value{'s' if bad > 1 else ''} ({shown}{more})"
     if own_type and is_narrow_float(grad.dtype):
         return (grad if fresh else grad.copy()), None  # exact, and half of a float64 copy or less
     # A gradient a framework's reverse mode made for this call is kept as it is (no second
     # float64 copy of it beside the framework's, even for a moment); any other is copied.
     return grad.astype(np.float64, copy=not fresh), None
+
+
+def non_finite_at(grad: np.ndarray, most: int = 100) -> list[tuple[int, ...]]:
+    """The indices of a gradient's NaN and infinite elements, the first ``most`` of them."""
+    flat = np.flatnonzero(~np.isfinite(grad.reshape(-1)))[:most]
+    return [tuple(int(v) for v in np.unravel_index(k, grad.shape)) for k in flat]
 
 
 def is_narrow_float(dtype: np.dtype) -> bool:
@@ -87,6 +97,8 @@ def validate(result: Any, ws: Workspace, own_type: bool = False) -> Gradients:
         grad, problem = _problem(name, value, tensor, own_type, fresh)
         if problem or grad is None:
             out.problems[name] = problem or f"the gradient for {name} is not usable"
+            if problem and "non-finite" in problem:
+                out.problem_at[name] = non_finite_at(np.asarray(value))
         else:
             out.values[name] = grad
     for name in ws.param_names:

@@ -38,6 +38,7 @@ class TensorRecord:
     shape: tuple[int, ...]
     dtype: str
     problem: str | None = None  # why its gradient could not be compared at all (it fails)
+    problem_at: tuple[tuple[int, ...], ...] = ()  # the elements the problem is in, where known
     # The check (tensor_check): coordinates, directions, localisation, and what they cost.
     outcome: CoordinateOutcome | None = None
     directions: tuple[DirectionResult, ...] = ()
@@ -76,8 +77,9 @@ class TensorRecord:
         if self.problem is not None or self.outcome is None:
             return TensorResult(
                 name=self.name, layer=self.layer, kind=self.kind, shape=tuple(self.shape),
-                dtype=self.dtype, checked=0, failed=0, kinks=0, status=Status.FAIL,
-                hint=self.problem)
+                dtype=self.dtype, checked=0, failed=len(self.problem_at), kinks=0, status=Status.FAIL,
+                hint=self.problem, bad_indices=self.problem_at,
+                worst_index=self.problem_at[0] if self.problem_at else None)
         spent = self.evaluations
         if self.moved is not None:  # the second look's calls for this tensor
             spent += self.moved.evaluations - self.outcome.evaluations

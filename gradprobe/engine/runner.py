@@ -189,7 +189,8 @@ def _all_records(point: Point) -> list[TensorRecord]:
         if name in grads.problems or name in grads.values:
             owner = ws.owners[name]
             records.append(TensorRecord(name, ws.layer(name), ws.kind(name), tuple(owner.shape),
-                                        str(owner.dtype), problem=grads.problems.get(name)))
+                                        str(owner.dtype), problem=grads.problems.get(name),
+                                        problem_at=tuple(grads.problem_at.get(name, ()))))
     for name, (shape, sentence) in grads.unknown.items():
         records.append(TensorRecord(name, layer_of(name), "unknown", tuple(shape), "unknown",
                                     problem=sentence))
