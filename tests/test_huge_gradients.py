@@ -65,3 +65,45 @@ def test_one_wrong_element_of_a_huge_gradient_fails_and_is_located(k, factor):
     t = _checked(_backward_off_at(k, factor))
     assert t.status.value == "fail"
     assert [tuple(i) for i in t.bad_indices] == [(k,)]
+
+
+# -- params beyond float32's range (1e100, and 1e250 where the steps' squares overflow): the
+# -- check for float32 code inside rounds nothing it cannot hold, and nothing prints a warning
+
+V = np.array([0.4, -1.3, 2.2, 0.9])  # star masses, in units of S
+
+
+def _scaled_forward(S):
+    def forward(p, i):
+        return float(np.sum(np.log1p((p["w"] / S) ** 2)))
+    return forward
+
+
+def _scaled_backward(S, off=1.0):
+    def backward(p, i):
+        u = p["w"] / S
+        g = 2 * u / (1 + u * u) / S  # table: d/dx log(1 + x^2) = 2x / (1 + x^2), chain rule for x = w / S
+        g[1] *= off
+        return {"w": g}
+    return backward
+
+
+@pytest.mark.parametrize("S", [1e100, 1e250])
+def test_the_scaled_closed_form_is_mpmaths(S):
+    g = _scaled_backward(S)({"w": V * S}, {})["w"]
+    with mpmath.workdps(40):
+        ref = [float(mpmath.diff(lambda t: mpmath.log(1 + (t / mpmath.mpf(S)) ** 2), mpmath.mpf(float(x)),
+                                 h=mpmath.mpf(S) * mpmath.mpf("1e-12"))) for x in V * S]
+    assert np.allclose(g, ref, rtol=1e-13, atol=0)
+
+
+@pytest.mark.parametrize("off, status", [(1.0, "pass"), (1.01, "fail")])
+@pytest.mark.parametrize("S", [1e100, 1e250])
+def test_params_beyond_float32s_range_are_judged_without_warnings(off, status, S):
+    with warnings.catch_warnings(record=True) as seen:
+        warnings.simplefilter("always")
+        t = probe(_scaled_forward(S), _scaled_backward(S, off), {"w": V * S}).tensor("w")
+    assert [str(w.message) for w in seen if "gradprobe" in str(w.filename)] == []
+    assert t.status.value == status
+    if status == "fail":
+        assert [tuple(i) for i in t.bad_indices] == [(1,)]

@@ -73,7 +73,7 @@ def _moved(ws: Workspace, names: list[str], relative: float, grid: np.dtype,
         flat = owner.reshape(-1)
         moved = flat if in_place else np.empty_like(flat)
         for lo in range(0, flat.size, CHUNK):
-            part = flat[lo:lo + CHUNK].astype(grid).astype(np.float64)
+            part = _on_grid(flat[lo:lo + CHUNK], grid)
             if signs is None:
                 part *= 1.0 + relative
             else:
@@ -81,6 +81,17 @@ def _moved(ws: Workspace, names: list[str], relative: float, grid: np.dtype,
             moved[lo:lo + CHUNK] = part
         out.append(Perturbation(name, slice(0, owner.size), moved))
     return out
+
+
+def _on_grid(values: np.ndarray, grid: np.dtype) -> np.ndarray:
+    """``values`` rounded to ``grid``, in float64; a value beyond the grid's range stays as it
+    is (code in that type cannot hold it, so it says nothing either way), without a warning."""
+    with np.errstate(over="ignore", invalid="ignore"):
+        rounded = values.astype(grid).astype(np.float64)
+    lost = ~np.isfinite(rounded) & np.isfinite(values)
+    if lost.any():
+        rounded[lost] = values[lost]
+    return rounded
 
 
 class _Looks:

@@ -114,7 +114,8 @@ def largest_smooth_step(probe: TensorProbe, flat: np.ndarray, h: np.ndarray, up:
     within = h[None, :] * factors[:, None] <= scale[None, :]
     p = _pairs_where(probe, flat, h, factors, wanted & within, taken or [])
     bends = slope_change(probe, p).reshape(levels, flat.size)
-    width = (0.5 * (p.h_plus + p.h_minus)) ** 2
+    with np.errstate(over="ignore"):  # steps beyond 1e154 (params that large): no second difference is seen
+        width = (0.5 * (p.h_plus + p.h_minus)) ** 2
     second = ((p.f_plus - 2 * probe.f0 + p.f_minus) / width).reshape(levels, flat.size)
     second_noise = (4 * p.noise / width).reshape(levels, flat.size)
     steady = np.ones((levels, flat.size), dtype=bool)
