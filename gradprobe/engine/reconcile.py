@@ -8,6 +8,9 @@ fuzz change about the verdict.
   (:func:`narrow_reconciled`);
 - a failure read off a loss that did not change at all is rounding absorbing the step
   (:func:`unabsorbed`);
+- a gradient exactly zero throughout, passed only on the target's floor, fails where the
+  numeric values are resolved and beyond the threshold at the tensor's own scale
+  (:func:`zero_at_own_scale`);
 - a failure backward's own rounding explains is undecided (:func:`unfuzzed`).
 """
 
@@ -17,9 +20,10 @@ from collections.abc import Callable
 
 import numpy as np
 
+from ..common.roundoff import is_narrow
 from ..common.status import FAIL, INCONCLUSIVE, KINK, PASS
 from .ladder import Estimate
-from .probe import Pairs, TensorProbe
+from .probe import FLOOR_FRACTION, Pairs, TensorProbe, root_mean_square
 from .narrow import kink_within_reach
 from .promote import disagreeing
 from .verdict import SIGNIFICANCE, Judged
@@ -188,3 +192,31 @@ def unfuzzed(
     for k in failing[fuzzy].tolist():
         listed[k] = FUZZY
     return status, tuple(listed)
+
+
+def zero_at_own_scale(probe: TensorProbe, flat: np.ndarray, a: np.ndarray, numeric: np.ndarray,
+                 error: np.ndarray, status: np.ndarray, scale: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """A gradient that is exactly zero at every checked coordinate, passed only on the target's
+    floor (1e-4 of its largest tensor's gradient scale), fails where the numeric value is
+    resolved (beyond SIGNIFICANCE error bounds) and beyond the threshold at the tensor's own
+    numeric scale (FLOOR_FRACTION of its rms): the floor is there for a zero gradient against
+    a numeric value that is rounding, not against a derivative of another size (a whole
+    gradient left out beside a tensor 1e10 times larger, near a pole, passed on it). Nonzero
+    analytic values keep the floor (their own rounding can reflect the other tensors' terms).
+    float64 numerics only; :func:`unfuzzed` then undecides what backward's rounding explains.
+    Returns the statuses and the scales (those of the coordinates failed so, their own)."""
+    passing = np.flatnonzero(status == PASS)
+    if passing.size == 0 or is_narrow(probe.compute_dtype) or probe.narrow is not None or np.any(a):
+        return status, scale
+    own = max(probe.tensor_floor, FLOOR_FRACTION * root_mean_square(np.asarray(numeric, dtype=np.float64)))
+    if own >= probe.floor:
+        return status, scale
+    err = np.abs(a[passing] - numeric[passing])
+    mine = np.maximum(np.maximum(np.abs(a[passing]), np.abs(numeric[passing])), own)
+    beyond = (err > probe.threshold * mine) & (err > SIGNIFICANCE * error[passing])
+    if not beyond.any():
+        return status, scale
+    status, scale = status.copy(), scale.copy()
+    status[passing[beyond]] = FAIL
+    scale[passing[beyond]] = mine[beyond]
+    return status, scale
