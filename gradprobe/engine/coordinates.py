@@ -65,6 +65,7 @@ def _ladder_verdicts(
     ladders' own pairs are added to ``taken``."""
     before = [] if taken is None else taken
     ladder = climb(probe, flat, start, rows, taken=before)
+    start = start if ladder.start is None else ladder.start  # restarted below a domain edge
     first = judged_ladder(probe, flat, ladder, start, before)
     before.append(ladder_taken(flat, start, ladder))
     again = np.flatnonzero(first.status == INCONCLUSIVE)
@@ -77,6 +78,7 @@ def _ladder_verdicts(
         shifted[which] = largest_smooth_step(probe, flat[again][which], start[again][which],
                                               np.full(which.size, float(RETRY_SHIFT)), before)
     second_ladder = climb(probe, flat[again], shifted, ROWS + 2, taken=before)
+    shifted = shifted if second_ladder.start is None else second_ladder.start
     grown = sides_grown(probe, ladder)[again]
     judged = first.merged(again, judged_ladder(probe, flat[again], second_ladder, shifted, before, grown))
     before.append(ladder_taken(flat[again], shifted, second_ladder))

@@ -179,6 +179,8 @@ def crossed_wider(probe: TensorProbe, flat: np.ndarray, start: np.ndarray, ladde
             if not (start[k] * (1 + 1e-9) < asked[i] <= WIDER_LIMIT * start[k]):
                 continue
             wide = Pairs(*(x[i:i + 1] for x in got.fields()))
+            if not min(float(wide.h_plus[0]), float(wide.h_minus[0])) > start[k]:
+                continue  # shrunk at a domain edge: not wider than the ladder after all
             w_right, w_left = (float(s[0]) for s in wide.sides(probe.f0))
             for side, wide_q, h, crossed in ((right, w_right, hp, right_crossed), (left, w_left, hm, left_crossed)):
                 crossed[k] |= _off_line(side[0, k], side[1, k], h[0, k], h[1, k], wide_q,

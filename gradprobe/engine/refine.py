@@ -42,6 +42,9 @@ class Ladder:
     # point but anywhere within the smallest step: |f''(right) - f''(left)| times that step,
     # the jump read off the central quotients' last change (see :func:`corner_reach`).
     corner_reach: np.ndarray | None = None
+    # The steps the ladder really started from: the ones asked for, or, where a domain edge
+    # lay within them, a restart below it (:func:`below_the_edge`).
+    start: np.ndarray | None = None
 
     def pick(self, which: np.ndarray) -> Ladder:
         steady = None if self.sides_steady is None else self.sides_steady[which]
@@ -51,7 +54,8 @@ class Ladder:
                       self.noise_share[which], self.smallest[which],
                       sides_steady=steady, sides_vanish=vanish,
                       left_crossed=crossed[0], right_crossed=crossed[1],
-                      corner_reach=None if self.corner_reach is None else self.corner_reach[which])
+                      corner_reach=None if self.corner_reach is None else self.corner_reach[which],
+                      start=None if self.start is None else self.start[which])
 
     def rows_of(self, which: np.ndarray) -> Pairs:
         """The pairs of every row for the coordinates at positions ``which``."""
@@ -88,6 +92,7 @@ def climb(
         p = pairs_reusing(probe, np.tile(flat, rows - done), steps, taken or [])
         if known is not None:
             p = Pairs(*(np.concatenate([a, b]) for a, b in zip(known.fields(), p.fields())))
+    p, start = below_the_edge(probe, flat, start, rows, p, taken or [])
     qc, nc, qr, nr, ql, nl = (q.reshape(rows, n) for q in _quotients(probe, p))
     central = tableau(qc, nc, RATIO, 2)
     steady, vanish = sides_steady(qr, ql, nr + nl)
@@ -104,12 +109,51 @@ def climb(
         left_crossed=crossed_kinks(ql, nl),
         right_crossed=crossed_kinks(qr, nr),
         corner_reach=corner_reach(qc),
+        start=start,
     )
 
 
+EDGE_SHRINK = 4.0  # a row that moved less than a quarter of its step was shrunk at an edge
+EDGE_MARGIN = 8.0  # the ladder restarts this many times below the widest finite step
+
+
+def below_the_edge(probe: TensorProbe, flat: np.ndarray, start: np.ndarray, rows: int, p: Pairs,
+                   taken: list[Taken]) -> tuple[Pairs, np.ndarray]:
+    """The ladder's pairs (row-major) and the steps it starts from, restarted below a domain
+    edge where one lies within its steps.
+
+    Where the loss is not finite at a row's step (a log or a pole closer than the step),
+    :meth:`.probe.TensorProbe.pairs` shrinks that row 16-fold until it is: the rows no longer
+    halve from one to the next, and the shrunk ones sit just inside the edge, where the
+    quotients are furthest from the derivative. The edge lies beyond the widest step at
+    which the loss was finite on both sides; a ladder starting EDGE_MARGIN times below that
+    step halves, as the tableau assumes, on steps a fraction of the distance to the edge,
+    where a loss smooth up to the edge converges (a pole at distance d adds terms in
+    (h/d)**2 to a central quotient). Coordinates whose rows all moved as asked are left."""
+    n = flat.size
+    asked = np.stack([start / RATIO**k for k in range(rows)])
+    moved = (0.5 * (p.h_plus + p.h_minus)).reshape(rows, n)
+    edge = np.flatnonzero((moved < asked / EDGE_SHRINK).any(axis=0))
+    if edge.size == 0:
+        return p, start
+    start = start.copy()
+    start[edge] = moved[:, edge].max(axis=0) / EDGE_MARGIN
+    steps = np.concatenate([start[edge] / RATIO**k for k in range(rows)])
+    again = pairs_reusing(probe, np.tile(flat[edge], rows), steps, taken)
+    fields = []
+    for mine, new in zip(p.fields(), again.fields()):
+        mine = mine.reshape(rows, n).copy()
+        mine[:, edge] = new.reshape(rows, edge.size)
+        fields.append(mine.reshape(-1))
+    return Pairs(*fields), start
+
+
 def ladder_taken(flat: np.ndarray, start: np.ndarray, ladder: Ladder) -> Taken:
-    """A ladder's pairs as taken from ``start`` over ``flat`` (for :func:`climb`)."""
+    """A ladder's pairs as taken from ``start`` over ``flat`` (for :func:`climb`; from the
+    steps the ladder really started from, where it restarted below a domain edge)."""
     assert ladder.pairs is not None
+    if ladder.start is not None:
+        start = ladder.start
     rows = ladder.pairs.f_plus.size // flat.size
     return np.tile(flat, rows), np.concatenate([start / RATIO**k for k in range(rows)]), ladder.pairs
 
