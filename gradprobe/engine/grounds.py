@@ -36,11 +36,11 @@ import numpy as np
 
 from ..common.roundoff import is_narrow
 from ..common.status import FAIL, INCONCLUSIVE
-from .ladder import NOISE_UNITS, PREDICTION_SLACK, SAFETY, Estimate
+from .ladder import NOISE_UNITS, PREDICTION_SLACK, SAFETY, Estimate, drifting
 from .probe import Pairs, TensorProbe
-from .refine import Ladder, Taken, grown_changes, tiny_pair
+from .refine import RATIO, Ladder, Taken, grown_changes, tiny_pair
 from .kinks import judge_ladder, sides_differ
-from .verdict import CROWDED, SIGNIFICANCE, UNRESOLVED, UNSETTLED, Judged
+from .verdict import BOTH_SIDES_MOVED, CROWDED, SIGNIFICANCE, UNRESOLVED, UNSETTLED, Judged
 
 OFF_GRID = 2.0**-0.5  # the check's step: the ladder's smallest over sqrt(2), between two rows
 WIDER_LIMIT = 2.0**8  # wider pairs considered up to this many times the ladder's top step
@@ -138,7 +138,26 @@ def crossed_bound(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: 
     with np.errstate(invalid="ignore", over="ignore"):
         tail = SAFETY * (np.abs(value - q[-1]) + np.abs(q[-1] - q[-2])) + central.error[which]
         within = ~(np.abs(probe.a[flat[which]] - value) > SIGNIFICANCE * tail)
-    return _undecided(_undecided(judged, which[within & ~grown]), which[grown], CROWDED)
+    judged = _undecided(_undecided(judged, which[within & ~grown]), which[grown], CROWDED)
+    return _undecided(judged, which[(judged.status[which] == FAIL) & both_sides_drift(probe, ladder)[which]],
+                      BOTH_SIDES_MOVED)
+
+
+def both_sides_drift(probe: TensorProbe, ladder: Ladder) -> np.ndarray:
+    """Per coordinate of the ladder: both sides' quotients drift like c/h
+    (:func:`.ladder.drifting`, at any size): the loss sits a fixed amount away from its value
+    at the point on either side, whatever the step. A smooth loss's one-sided changes shrink
+    with the step on both sides; fixed ones on both are a feature narrower than the smallest
+    step at the point (a pole crossed on one side, a spike), and central quotients steady at
+    such steps (the two offsets cancelling) are the slope beyond it, not at the point."""
+    assert ladder.pairs is not None
+    n = ladder.smallest.size
+    rows = _rows(ladder, n)
+    right, left = (s.reshape(rows, n) for s in ladder.pairs.sides(probe.f0))
+    zero = np.zeros_like(right)
+    with np.errstate(invalid="ignore", over="ignore"):
+        return (np.asarray(drifting(right, zero, RATIO).any(axis=0))
+                & np.asarray(drifting(left, zero, RATIO).any(axis=0)))
 
 
 def _undecided(judged: Judged, k: np.ndarray, reason: str = UNSETTLED) -> Judged:

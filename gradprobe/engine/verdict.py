@@ -61,6 +61,11 @@ CLOSE_BOTH = (
     "and the analytic value is neither of them nor between them: several kinks at the point or "
     "closer than any resolvable step can still give it, and none of them is resolved"
 )
+BOTH_SIDES_MOVED = (
+    "the loss moves away from its value at the point on both sides by amounts that stay fixed "
+    "as the step shrinks (a pole or kink closer to the point than the smallest step tried): "
+    "the quotients at those steps say nothing of the slope at the point"
+)
 
 
 @dataclass(frozen=True)
@@ -128,5 +133,5 @@ def looked_at_again(status: np.ndarray, reasons: tuple[str | None, ...]) -> np.n
     """The coordinates a second look off the kinks checks (see offpoint.py): those at a kink,
     and those left undecided because the steps kept crossing kinks (an estimate that does
     not settle, a kink closer than any step), where a wrong gradient can hide just as well."""
-    crossing = np.array([r in CROSSING for r in reasons], dtype=bool)
+    crossing = np.array([r in CROSSING or r == BOTH_SIDES_MOVED for r in reasons], dtype=bool)
     return (status == KINK) | ((status == INCONCLUSIVE) & crossing)
