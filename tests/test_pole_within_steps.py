@@ -87,8 +87,10 @@ def _judged(seed: int) -> dict:
 # Cases of the adversarial generator whose planted bug sat on a coordinate with a log pole
 # (or 1/(1 - u)) closer than the first steps: 1222 (1.5e-10 away, one element 0.1% off),
 # 1224, 9047, 18106, 23030. The shrunk rows sat just inside the edge and the ladder's
-# quotients did not settle.
-POLE_SEEDS = [1222, 1224, 9047, 18106, 23030]
+# quotients did not settle. 44275: 1/(1 - u) with its pole 3e-10 away, finite on both sides
+# (no edge to shrink at): the quotients grew as the two ladders' steps shrank (to 1.9e-9)
+# and nothing went further down.
+POLE_SEEDS = [1222, 1224, 9047, 18106, 23030, 44275]
 
 
 @pytest.mark.parametrize("seed", POLE_SEEDS)

@@ -1,0 +1,71 @@
+"""Ladders further down, for coordinates whose quotients were still moving away at the
+smallest step tried.
+
+A pole or kink closer to the point than every step of the two ladders (1/(c - x) with its
+pole 3e-10 away, finite on both sides) leaves the central quotients changing faster and
+faster as the step shrinks: the steps are not yet in the range where the tableau's error
+model holds, and nothing was decided. Where the loss's rounding still leaves room (the
+coordinate was not left undecided for noise), a ladder continues below the smallest step,
+DESCENTS times at most and never below RESOLUTION_UNITS spacings of x, until the coordinate
+is decided (a loss smooth once the steps are inside the pole's distance; the ladder that
+crosses the pole's distance has its upper rows beyond it, and the next one settles) or the
+rounding stops it.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .grounds import judged_ladder
+from .ladder import NOISE_UNITS
+from .probe import TensorProbe
+from .refine import RATIO, ROWS, Ladder, Taken, climb, ladder_taken
+from .verdict import Judged
+from ..common.status import INCONCLUSIVE
+
+DESCENTS = 3  # further ladders at most, each starting just below the last one's smallest step
+RESOLUTION_UNITS = 64.0
+GROWTH = 3.0  # quotients' changes growing this much per halving of the step: a pole within  # a ladder's smallest step stays above this many spacings of x
+
+
+def still_growing(ladder: Ladder) -> np.ndarray:
+    """Per coordinate: the central quotients' last three changes keep one sign and each is at
+    least GROWTH times the one before, beyond the rounding noise: quotients running away as the
+    step shrinks, as across a pole closer than the steps (a central quotient there goes like
+    1/h**2, its changes growing fourfold per halving and faster). Kinks closer than the steps
+    move the quotients like 1/h at most (changes doubling), within the sides' slopes."""
+    assert ladder.pairs is not None
+    n = ladder.smallest.size
+    p = ladder.pairs
+    rows = p.f_plus.size // n
+    if rows < 4:
+        return np.zeros(n, dtype=bool)
+    q = p.central.reshape(rows, n)
+    noise = (2 * p.noise / (p.h_plus + p.h_minus)).reshape(rows, n)
+    with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
+        c1, c2, c3 = q[-3] - q[-4], q[-2] - q[-3], q[-1] - q[-2]
+        same = ((c1 > 0) & (c2 > 0) & (c3 > 0)) | ((c1 < 0) & (c2 < 0) & (c3 < 0))
+        room = 2.0 * NOISE_UNITS * (noise[-1] + noise[-2])
+        return same & (np.abs(c2) >= GROWTH * np.abs(c1)) & (np.abs(c3) >= GROWTH * np.abs(c2)) & (np.abs(c3) > room)
+
+
+def descend(probe: TensorProbe, flat: np.ndarray, judged: Judged, ladder: Ladder, taken: list[Taken]) -> Judged:
+    """``judged`` (the verdicts of ``ladder``, the last one taken at ``flat``) with the
+    coordinates left undecided, not for noise, whose quotients were still growing, judged on
+    ladders further down (see the module's note); the pairs are added to ``taken``."""
+    which = np.arange(flat.size)
+    growing = still_growing(ladder)  # the first time; below, the quotients may settle late
+    for _ in range(DESCENTS):
+        smallest = ladder.smallest
+        pick = ((judged.status[which] == INCONCLUSIVE) & ~judged.noise_limited[which] & growing
+                & (smallest / RATIO ** (ROWS + 2) > RESOLUTION_UNITS * probe.resolution(flat[which])))
+        which, smallest = which[pick], smallest[pick]
+        growing = np.ones(which.size, dtype=bool)
+        if which.size == 0:
+            break
+        start = smallest / RATIO
+        ladder = climb(probe, flat[which], start, ROWS + 2, taken=taken)
+        start = start if ladder.start is None else ladder.start
+        judged = judged.merged(which, judged_ladder(probe, flat[which], ladder, start, taken))
+        taken.append(ladder_taken(flat[which], start, ladder))
+    return judged
