@@ -26,6 +26,7 @@ from .ladder import Estimate
 from .probe import FLOOR_FRACTION, Pairs, TensorProbe, root_mean_square
 from .narrow import kink_within_reach
 from .promote import disagreeing
+from .flat_zone import flat_zone
 from .verdict import SIGNIFICANCE, Judged
 
 FUZZY = (
@@ -103,7 +104,10 @@ def unabsorbed(probe: TensorProbe, flat: np.ndarray, judged: Judged, first: Pair
     zero_fail = (judged.status == FAIL) & (judged.estimate.value == 0.0)
     still = np.flatnonzero(zero_fail & (up == 0.0) & (down == 0.0))
     if still.size:  # not even the first pair changed the loss: does a larger step?
-        both[still] = _changes_through(probe, flat[still], 0.5 * (first.h_plus[still] + first.h_minus[still]))
+        h = 0.5 * (first.h_plus[still] + first.h_minus[still])
+        changes, flat_to = _changes_through(probe, flat[still], h)
+        # ... and is the loss's rounding that coarse, or a zone flat at every resolution?
+        both[still] = changes & ~flat_zone(probe, flat[still], h, flat_to)
     absorbed = np.flatnonzero(zero_fail & both)
     if absorbed.size == 0:
         return judged
@@ -117,26 +121,31 @@ RISE = 16.0  # the larger steps tried: 16, 256, ... times the first
 RISES = 6
 
 
-def _changes_through(probe: TensorProbe, flat: np.ndarray, h: np.ndarray) -> np.ndarray:
+def _changes_through(probe: TensorProbe, flat: np.ndarray, h: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Per coordinate: at some step h * RISE**k (k = 1..RISES, never beyond the params' own
     scale) the loss changes on both sides, the smaller change at least BOTH_SIDES of the
     larger: the smaller steps were absorbed, not the loss flat on one side of a kink (a unit
     switched off changes it on one side only). A zone where the loss is flat on both sides
-    of the point (a soft threshold) looks the same and is undecided too, never a pass.
-    One batch of pairs."""
+    of the point (a soft threshold) looks the same and is undecided too, never a pass
+    (:func:`.flat_zone.flat_zone` tells the two apart where it can). One batch of pairs.
+    Also, per coordinate, the largest step tried at which the loss changed on neither side
+    (``h`` where every step changed it)."""
     scale = np.maximum(np.abs(probe.x[flat].astype(np.float64)), probe.x_scale)
     factors = RISE ** np.arange(1, RISES + 1)
     steps = h[None, :] * factors[:, None]
     within = steps <= np.maximum(scale, h)[None, :]
     levels = int(within.any(axis=1).sum())
     if levels == 0:
-        return np.zeros(flat.size, dtype=bool)
+        return np.zeros(flat.size, dtype=bool), h
     p = probe.pairs(np.tile(flat, levels), steps[:levels].reshape(-1))
     up = (p.f_plus - probe.f0).reshape(levels, flat.size)
     down = (probe.f0 - p.f_minus).reshape(levels, flat.size)
     alike = np.minimum(np.abs(up), np.abs(down)) >= BOTH_SIDES * np.maximum(np.abs(up), np.abs(down))
     alike &= np.maximum(np.abs(up), np.abs(down)) > 0
-    return (alike & within[:levels]).any(axis=0)
+    unchanged = (up == 0.0) & (down == 0.0) & within[:levels]
+    first_change = np.argmax(~unchanged, axis=0)  # levels below it all left the loss as it was
+    flat_to = np.where(first_change > 0, steps[np.maximum(first_change - 1, 0), np.arange(flat.size)], h)
+    return (alike & within[:levels]).any(axis=0), flat_to
 
 
 def own_code_reconciled(
