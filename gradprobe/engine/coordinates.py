@@ -32,7 +32,7 @@ from .richardson import first_steps, joined, rows_of, settled, two_rows_settle
 from ..common.roundoff import is_narrow
 from .kinks import judge_sides_apart
 from .close_kinks import looked_closer
-from .descent import descend
+from .descent import between_levels, descend
 from .verdict import NOISE, Judged, judge_plain
 
 RETRY_SHIFT = 6  # a second ladder starts 2**6 steps higher (noise) or lower (curvature)
@@ -84,6 +84,7 @@ def _ladder_verdicts(
     judged = first.merged(again, judged_ladder(probe, flat[again], second_ladder, shifted, before, grown))
     before.append(ladder_taken(flat[again], shifted, second_ladder))
     judged = judged.merged(again, descend(probe, flat[again], judged.pick(again), second_ladder, before))
+    judged = judged.merged(again, between_levels(probe, flat[again], judged.pick(again), start[again], before))
     # Steps that kept crossing kinks: one-sided slopes down to rounding's floor, where the
     # nearest kink on a side may lie beyond the steps (close_kinks.py).
     judged, unresolved = looked_closer(probe, flat, judged, before)

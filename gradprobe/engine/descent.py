@@ -69,3 +69,34 @@ def descend(probe: TensorProbe, flat: np.ndarray, judged: Judged, ladder: Ladder
         judged = judged.merged(which, judged_ladder(probe, flat[which], ladder, start, taken))
         taken.append(ladder_taken(flat[which], start, ladder))
     return judged
+
+
+BETWEEN_RISE = 3  # the ladder between starts 2**3 times above the first ladder's start
+
+
+def between_levels(probe: TensorProbe, flat: np.ndarray, judged: Judged, start: np.ndarray,
+                   taken: list[Taken]) -> Judged:
+    """``judged`` with coordinates left undecided for noise, whose estimate lies off the
+    analytic value beyond the threshold, judged on one more ladder, from BETWEEN_RISE
+    halvings above the first ladder's ``start``, where that decides them. The first ladder
+    starts a 16-fold level below a step where the slope bends, and the retry for noise goes
+    up only in 16-fold levels that stay smooth: a slope that bends 10% at the first step
+    leaves the steps between unexplored, where truncation is still small and the rounding
+    noise 8 times smaller, enough to settle a discrepancy far beyond the threshold (a
+    factor of 2) that the threshold itself is out of reach for. Not for 16-bit arithmetic,
+    whose loss is a staircase on which a tableau's agreement can be chance."""
+    if probe.compute_dtype.itemsize <= 2:  # 16-bit arithmetic: a staircase, judged apart (sixteen.py)
+        return judged
+    value = judged.estimate.value
+    a = probe.a[flat]
+    which = np.flatnonzero((judged.status == INCONCLUSIVE) & judged.noise_limited & np.isfinite(value)
+                           & (np.abs(a - value) > probe.tolerance(flat, value)))
+    if which.size == 0:
+        return judged
+    top = start[which] * RATIO**BETWEEN_RISE
+    ladder = climb(probe, flat[which], top, ROWS, taken=taken)
+    top = top if ladder.start is None else ladder.start
+    again = judged_ladder(probe, flat[which], ladder, top, taken)
+    taken.append(ladder_taken(flat[which], top, ladder))
+    decided = np.flatnonzero(again.status != INCONCLUSIVE)
+    return judged.merged(which[decided], again.pick(decided))
