@@ -33,3 +33,30 @@ def test_a_bug_the_arithmetic_resolves_fails_though_the_threshold_does_not(categ
     o = _judged(category, seed)
     assert not o["false_alarm"], (o["status"], o["expect"])
     assert o["expect_fail"] and o["found"], (o["status"], o["expect"])
+
+
+def test_no_coordinate_passes_on_one_sided_quotients_drifting_like_c_over_h():
+    """steep-18015: 1/(1 - u) with poles 2e-4 to 1e-10 from the point, p3's gradient missing
+    its chain factor (about -3000). On p3[0] the loss's rounding (about 1e3) hides the slope
+    at every step inside the pole's distance, and the one-sided quotients further out moved
+    like 124 / h (the loss a fixed amount off at every step): the top one, -20, was taken as
+    the slope and passed the wrong -160. The correct gradient is the generator's backward
+    without the bug, checked against mpmath by its judge."""
+    import numpy as np
+    from adversarial.bugs import make_case
+    from adversarial.case import load
+
+    from gradprobe import probe
+
+    assert _judged("steep", 18015)["unverified"] is None
+    case = make_case("steep", 18015)
+    ns, right = load(case), load(case.with_bug(None))
+    params, inputs = ns["setup"]()
+    with np.errstate(all="ignore"):
+        truth = right["backward"](params, inputs)["p3"]
+    t = probe(ns["forward"], ns["backward"], params, inputs).tensor("p3")
+    assert t.status != "pass"
+    undecided = {d.index for d in t.details}
+    wrong = ns["backward"](params, inputs)["p3"]
+    assert abs(wrong[0] - truth[0]) > 0.5 * abs(truth[0])  # the bug is there, 3000-fold
+    assert (0,) in undecided

@@ -35,7 +35,7 @@ from dataclasses import replace
 import numpy as np
 
 from ..common.roundoff import is_narrow
-from ..common.status import FAIL, INCONCLUSIVE
+from ..common.status import FAIL, INCONCLUSIVE, PASS
 from .ladder import NOISE_UNITS, PREDICTION_SLACK, SAFETY, Estimate, drifting
 from .probe import Pairs, TensorProbe
 from .refine import RATIO, Ladder, Taken, grown_changes, tiny_pair
@@ -231,12 +231,14 @@ def drifting_sides(probe: TensorProbe, flat: np.ndarray, before: Judged, apart: 
     crowded = np.array([r in (CROWDED, UNRESOLVED) for r in before.reasons], dtype=bool)
     kept = np.flatnonzero((apart.status == FAIL) & crowded)
     apart = apart.merged(kept, before.pick(kept)) if kept.size else apart
-    which = np.flatnonzero((apart.status == FAIL) & (left_drift | right_drift))
+    # A pass on such a side is no better founded than a failure (a loss that sits a fixed
+    # amount off at every step shows a slope of c/h at the top step, whatever f' is).
+    which = np.flatnonzero(((apart.status == FAIL) | (apart.status == PASS)) & (left_drift | right_drift))
     if which.size == 0:
         return apart
     def voided(e: Estimate, d: np.ndarray) -> Estimate:
         return Estimate(e.value[which], np.where(d[which], np.inf, e.error[which]))
 
     again = judge(probe, flat[which], voided(left, left_drift), voided(right, right_drift))
-    gone = np.flatnonzero(again.status != FAIL)
+    gone = np.flatnonzero(again.status != apart.status[which])
     return apart.merged(which[gone], again.pick(gone)) if gone.size else apart
