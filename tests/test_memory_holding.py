@@ -2,7 +2,9 @@
 
 A direction over a large tensor is kept as generator states and drawn again where read; it
 must read back bit for bit what one draw of numpy's generator gives (the reference: numpy's
-own ``standard_normal`` of the whole length, normalised). Bitwise comparisons done a chunk at
+own ``standard_normal`` of the whole length), divided by its norm; that norm is summed a block
+at a time (no array of the tensor's size) and agrees with numpy's own to 1e-13 relative (sums
+of n squares in another order differ by a few n units of float64's roundoff: common practice). Bitwise comparisons done a chunk at
 a time must see a single flipped bit anywhere (IEEE 754: 0.0 and -0.0 differ in the sign bit).
 A whole tensor moved for one call is handed to forward without a saved copy, and the
 workspace reads back unchanged.
@@ -32,17 +34,19 @@ from gradprobe.engine.evaluate import Evaluator, LossFunction, Perturbation  # n
 SIZE = LAZY_DIRECTION + 3 * DRAW_BLOCK + 1234
 
 
-def _drawn_at_once(seed: int, size: int) -> tuple[np.ndarray, dict]:
+def _drawn_at_once(seed: int, size: int, norm: float | None = None) -> tuple[np.ndarray, dict]:
     rng = np.random.default_rng(seed)
     g = rng.standard_normal(size)
-    return g / np.linalg.norm(g), rng.bit_generator.state
+    if norm is not None:
+        assert abs(norm - np.linalg.norm(g)) <= 1e-13 * norm
+    return g / (np.linalg.norm(g) if norm is None else norm), rng.bit_generator.state
 
 
 def test_a_large_direction_reads_back_the_draw_of_one_call():
-    expected, state_after = _drawn_at_once(7, SIZE)
     rng = np.random.default_rng(7)
     u = unit_direction(SIZE, rng)
     assert isinstance(u, Direction)
+    expected, state_after = _drawn_at_once(7, SIZE, u.norm)
     assert rng.bit_generator.state == state_after  # the next direction draws what it did
     assert np.array_equal(np.asarray(u), expected)
     assert np.isclose(np.linalg.norm(np.asarray(u)), 1.0, rtol=1e-12)  # a unit vector
@@ -133,3 +137,24 @@ def test_a_float32_check_that_looks_again_off_its_kinks_still_reports_its_float3
     assert report.ok and report.compute_dtype == "float32"
     assert report.narrow_threshold is not None
     assert abs(report.narrow_threshold - 2 * np.sqrt(2.0**-24)) < 0.01 * 2 * np.sqrt(2.0**-24)
+
+
+def test_large_private_copies_start_on_an_aligned_boundary_in_the_arrays_own_order():
+    # Aligned to 64 bytes, a library sharing host memory through DLPack (JAX on the CPU)
+    # takes the engine's arrays without a copy; the numbers and the layout stay the caller's.
+    from gradprobe.common.tensors import ALIGNED_FROM, ALIGNMENT
+
+    rng = np.random.default_rng(4)
+    c_order = rng.normal(size=(300, 70))  # 168 kB
+    f_order = np.asfortranarray(rng.normal(size=(90, 130)).astype(np.float32))  # 47 kB
+    small = rng.normal(size=5)
+    more = {f"m{k}": rng.normal(size=8200 + 300 * k) for k in range(6)}  # 64 to 80 kB
+    ws = Workspace({"c": c_order, "f": f_order, "s": small, **more}, {})
+    for name, given in (("c", c_order), ("f", f_order), ("s", small), *more.items()):
+        owner = ws.owners[name]
+        assert np.array_equal(owner, given) and owner.dtype == given.dtype and owner.shape == given.shape
+        assert not np.shares_memory(owner, given)  # private
+        assert owner.flags.writeable and not ws.views[name].flags.writeable
+        if given.nbytes >= ALIGNED_FROM:
+            assert owner.ctypes.data % ALIGNMENT == 0
+    assert ws.owners["c"].flags.c_contiguous and ws.owners["f"].flags.f_contiguous

@@ -114,8 +114,31 @@ def is_float(array: np.ndarray) -> bool:
     return is_float_dtype(array.dtype)
 
 
+ALIGNMENT = 64  # bytes: a library that shares host memory through DLPack (JAX on the CPU)
+# takes an array this aligned without a copy, and copies any other
+ALIGNED_FROM = 1 << 16  # bytes: arrays this large are made aligned (a few bytes more each)
+
+
+def aligned_copy(array: np.ndarray, dtype: Any = None) -> np.ndarray:
+    """A copy of ``array`` (converted to ``dtype``) whose data starts on an ALIGNMENT-byte
+    boundary, in the array's own order (C, or Fortran for a Fortran-ordered one); a plain
+    copy for a small or non-contiguous array."""
+    dtype = np.dtype(array.dtype if dtype is None else dtype)
+    nbytes = array.size * dtype.itemsize
+    if nbytes < ALIGNED_FROM or not (array.flags.c_contiguous or array.flags.f_contiguous):
+        return array.astype(dtype, order="K")  # a copy, always
+    raw = np.empty(nbytes + ALIGNMENT, dtype=np.uint8)
+    start = -raw.ctypes.data % ALIGNMENT
+    order = "C" if array.flags.c_contiguous else "F"
+    out = raw[start:start + nbytes].view(dtype).reshape(array.shape, order=order)
+    np.copyto(out, array, casting="unsafe")
+    return out
+
+
 def as_array(value: Any, what: str) -> np.ndarray:
     """``value`` as a private numeric array, or a TargetLoadError naming ``what``."""
+    if isinstance(value, np.ndarray) and is_numeric_dtype(value.dtype) and value.nbytes >= ALIGNED_FROM:
+        return aligned_copy(value)
     try:
         array = np.array(value, copy=True, order="K")
     except Exception as exc:  # numpy raises many types for ragged or odd input

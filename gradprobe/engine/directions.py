@@ -80,6 +80,11 @@ class Direction:
     def size(self) -> int:
         return self.hi - self.lo
 
+    @property
+    def norm(self) -> float:
+        """The norm of the whole direction's draws, which its values are divided by."""
+        return self._norm
+
     def blocks(self, step: int) -> Iterator[np.ndarray]:
         """The values a block of ``step`` at a time, in order."""
         first = self.lo // DRAW_BLOCK
@@ -117,12 +122,26 @@ def unit_direction(size: int, rng: np.random.Generator) -> Vector:
         g = rng.standard_normal(size)
         g /= np.linalg.norm(g)  # in place: a large tensor's direction is one array
         return g
-    g = np.empty(size)
+    block = np.empty(DRAW_BLOCK)  # the draws a block at a time: no array of the tensor's size
     states = []
+    squares = 0.0
     for lo in range(0, size, DRAW_BLOCK):
         states.append(rng.bit_generator.state)
-        rng.standard_normal(out=g[lo:lo + DRAW_BLOCK])  # the same draws as one call
-    return Direction(states, type(rng.bit_generator), float(np.linalg.norm(g)), 0, size)
+        g = block[:min(DRAW_BLOCK, size - lo)]
+        rng.standard_normal(out=g)  # the same draws as one call
+        squares += float(g @ g)
+    return Direction(states, type(rng.bit_generator), float(np.sqrt(squares)), 0, size)
+
+
+def dot(a: np.ndarray, u: Vector) -> float:
+    """``a . u``; summed a block of DRAW_BLOCK at a time for a direction drawn again where
+    read (no array of the tensor's size) and for any over more than LAZY_DIRECTION elements
+    (the same sum, bit for bit, whichever form the direction is in)."""
+    if not isinstance(u, Direction) and u.size <= LAZY_DIRECTION:
+        return float(a @ u)
+    blocks = (u.blocks(DRAW_BLOCK) if isinstance(u, Direction)
+              else (u[k:k + DRAW_BLOCK] for k in range(0, u.size, DRAW_BLOCK)))
+    return float(sum(float(a[k:k + b.size] @ b) for k, b in zip(range(0, u.size, DRAW_BLOCK), blocks)))
 
 
 def _ladder(
@@ -205,7 +224,7 @@ def check_direction(
         wide_gap = abs(float(wide[2].value[0] - wide[1].value[0]))
         if wide_gap <= DIRECTION_SIGNIFICANCE * float(wide[1].error[0] + wide[2].error[0]):
             central = Estimate.better(central, wide[0])
-    analytic = float(probe.a[part] @ np.asarray(u))
+    analytic = dot(probe.a[part], u)
     if not kink and threshold:
         # Smooth but steeper than the steps: the bound cannot resolve the threshold while
         # truncation, not rounding, limits it. Steps 16 times smaller each time, a ladder

@@ -16,6 +16,7 @@ import numpy as np
 
 from ..common.classes import dataclass
 from ..common.errors import ProbeError
+from ..common.heap import release_heap
 from ..common.tensors import Workspace, is_float
 from .domain import quiet
 from .evaluate import Backend, Evaluator, LossFunction
@@ -303,6 +304,7 @@ def prepare(
     # Narrow gradients stay in their type until the float64 run is known (it replaces them
     # as the analytic side; they are widened where there is none).
     grads = validate(call_backward(backward, ws, info.grad_output, scratch), ws, own_type=True)
+    release_heap()  # preflight's scratch copies and backward's temporaries: their pages back
     numerics, loss = _numerics(backward, ws, evaluator, info, grads, dtype, why)
     where = backend(numerics.workspace, info.grad_output) if backend is not None else None
     point = Point(ws, evaluator.sibling(loss, where), info, grads, numerics, backward, seed)

@@ -21,7 +21,8 @@ import numpy as np
 
 from ..common.classes import dataclass
 from ..common.errors import ProbeError
-from ..common.tensors import Workspace, is_float, is_float_dtype
+from ..common.heap import release_heap
+from ..common.tensors import Workspace, aligned_copy, is_float, is_float_dtype
 from .evaluate import Evaluator, LossFunction
 from .gradients import Gradients, validate
 from .precision import narrower_compute_type
@@ -64,7 +65,7 @@ def promote(
         return None
     # The float64 copies are the new workspace's own (no second copy of them); its other
     # floating tensors are copies too, as a workspace's are (they are perturbed there).
-    wide = ws.replacing({n: ws.owners[n].astype(np.float64) if n in names else ws.owners[n].copy()
+    wide = ws.replacing({n: aligned_copy(ws.owners[n], np.float64) if n in names else aligned_copy(ws.owners[n])
                          for n in ws.names() if is_float(ws.owners[n])})
     grad_output = evaluator.loss.grad_output
     loss = LossFunction(evaluator.loss.forward, wide, grad_output)
@@ -78,6 +79,7 @@ def promote(
         if abs(f64 - f0) > AGREEMENT * max(abs(f0), abs(f64)):
             return None
         # backward was seen not to write into its arrays (the narrow call): no scratch copies.
+        release_heap()  # the looks' moved copies: their pages back before the float64 backward's
         raw = call_backward(backward, wide, grad_output, scratch=False)
         if not _all_float64(raw):
             # backward rounds to the narrow type itself: no float64 run of it to compare with;

@@ -22,7 +22,7 @@ import numpy as np
 
 from ..common.classes import dataclass
 from ..common.errors import InPlaceWriteError, ProbeError, TargetLoadError, summarise
-from ..common.tensors import Handed, flatten, unflatten
+from ..common.tensors import ALIGNMENT, Handed, flatten, unflatten
 
 NUMPY = "numpy"
 LIBRARIES = {"torch": "torch", "jax": "jax", "jaxlib": "jax", "cupy": "cupy",
@@ -132,11 +132,36 @@ class _Namespace:
 
     def from_numpy(self, a: np.ndarray, kind: Kind) -> Any:
         if kind.device is None or kind.handle is None:
+            if self.name == "jax":
+                shared = _shared_with_jax(self.xp, a)
+                if shared is not None:
+                    return shared
             return self.xp.asarray(a)  # zero-copy where the library shares host memory
         return self.xp.asarray(a, device=kind.handle)
 
     def written(self, made: Any) -> bool:
         return False  # its arrays are immutable, or share numpy's read-only memory
+
+
+def _shared_with_jax(jnp: Any, a: np.ndarray) -> Any:
+    """A JAX CPU array on ``a``'s own memory (DLPack), or None where JAX would copy anyway or
+    cannot take it: JAX shares host memory aligned to 64 bytes only, and DLPack carries no
+    read-only flag, so a read-only view of a writable array is shared through a writable
+    view of it (JAX arrays are immutable: the user's code cannot write through it). What
+    asarray would make otherwise is the same array, copied."""
+    if a.size == 0 or a.ctypes.data % ALIGNMENT or not (a.flags.c_contiguous or a.flags.f_contiguous):
+        return None
+    if not a.flags.writeable:
+        try:
+            a = a.view()
+            a.flags.writeable = True
+        except ValueError:
+            return None
+    try:
+        out = jnp.from_dlpack(a)
+    except (TypeError, BufferError, ValueError, RuntimeError):  # bfloat16 has no DLPack code
+        return None
+    return out if out.dtype == a.dtype else None  # JAX's 32-bit mode narrows: asarray does too
 
 
 def adapter(library: str, sample: Any) -> Any:
