@@ -36,7 +36,11 @@ SMALL = 2.0**-36
 LARGE = 2.0**-12
 TINY = 2.0**-18  # far below the 16-bit types' resolution, tens of units of float32's
 SIXTEEN_LARGE = 2.0**-4  # a move every 16-bit type resolves, up and down
+SIXTEEN_NEAR = 2.0**-7  # a move every 16-bit type resolves (one unit of bfloat16's at least)
+AGREE = 2.0  # the two pairs' first-order parts, scaled to one move, agree within this factor
 SIXTEEN_LIVE = 2.0  # float32 code changes by this many of its units at TINY at least
+WIDER_TINY = 2.0**-16  # still below the 16-bit types' resolution: float32 code whose values carry
+# an offset (a * (p - k), |k| about 100 |p|) drops a move of TINY but sees this one
 SUB_UNIT = 0.875 * 2.0**-12  # below float16's resolution (half a unit: 2**-12 to 2**-11)
 SUB_UNIT_TRIES = 4
 HALF_UNIT = 2.0**-10  # below bfloat16's resolution, a unit of float16's
@@ -156,6 +160,40 @@ def narrower_compute_type(
         return found  # the moved points are outside forward's domain: no more evidence
 
 
+def _on_a_grid(values: list[float], grid: np.dtype) -> bool:
+    """The losses are themselves values of ``grid`` or of float16 (16-bit code that returns its
+    loss in its own type), the first nonzero and three distinct at least: a float32 loss lies
+    on bfloat16's grid by chance once in 2**16, float16's once in 2**13 (unless it is 0 or is
+    made of a few numbers with short mantissas, hence three)."""
+    seen = np.asarray(values, np.float64)
+    if seen[0] == 0 or len(set(seen.tolist())) < 3:
+        return False
+    kinds = [grid] if grid == np.float16 else [grid, np.dtype(np.float16)]
+    with np.errstate(over="ignore"):
+        return any(bool(np.all(seen.astype(kind).astype(np.float64) == seen)) for kind in kinds)
+
+
+def _first_order(looks: _Looks, grid: np.dtype, rounded: float) -> float | None:
+    """The first-order part of the loss's change at a move of ``SIXTEEN_LARGE`` (which every
+    16-bit type resolves): half the difference of the losses at that move up and down (a loss
+    at its minimum changes by the move's square alike both ways). Trusted where the losses lie
+    on a 16-bit grid (:func:`_on_a_grid`), or where moves of ``SIXTEEN_NEAR`` up and down agree
+    about it; else None: a kink crossed on one side (a loss flat at the point changes on one
+    side only), or a bend between the moves, makes the wider pair's change no measure of the
+    loss's slope at the point."""
+    far = [looks.loss(move, grid) for move in (SIXTEEN_LARGE, -SIXTEEN_LARGE)]
+    near = [looks.loss(move, grid) for move in (SIXTEEN_NEAR, -SIXTEEN_NEAR)]
+    wide = 0.5 * abs(far[0] - far[1])
+    if _on_a_grid([rounded, *far, *near], grid):
+        return wide
+    if rounded in near:  # unchanged on a side that 16-bit code resolves: flat there
+        return None
+    close = 0.5 * abs(near[0] - near[1]) * (SIXTEEN_LARGE / SIXTEEN_NEAR)
+    if not (close <= AGREE * wide and wide <= AGREE * close):
+        return None
+    return min(wide, close)
+
+
 def _sixteen_bits(looks: _Looks, f0: float, out_dtype: np.dtype) -> HiddenType | None:
     """float16 or bfloat16 when the loss ignores moves below their resolution (see the
     module's docstring), else None."""
@@ -164,10 +202,12 @@ def _sixteen_bits(looks: _Looks, f0: float, out_dtype: np.dtype) -> HiddenType |
     for tiny in (TINY, -TINY):  # float32 code sees both
         if looks.loss(tiny, grid) != rounded:
             return None
-    up, down = (looks.loss(move, grid) for move in (SIXTEEN_LARGE, -SIXTEEN_LARGE))
-    linear = 0.5 * abs(up - down) * (TINY / SIXTEEN_LARGE)  # the change's first-order part at TINY
-    if not linear > SIXTEEN_LIVE * np.finfo(np.float32).eps * max(abs(rounded), abs(f0)):
+    linear = _first_order(looks, grid, rounded)
+    if linear is None or not linear * (TINY / SIXTEEN_LARGE) > SIXTEEN_LIVE * np.finfo(np.float32).eps * max(abs(rounded), abs(f0)):
         return None
+    for wider in (WIDER_TINY, -WIDER_TINY):  # float32 code whose values carry offsets sees these
+        if looks.loss(wider, grid) != rounded:
+            return None
     said = f" although its params are {out_dtype} (moving every param by 2**-18 of its size left the loss bitwise unchanged"
     half = HiddenType(np.dtype(np.float16), said + ")")
     if grid == np.float16:

@@ -1,0 +1,112 @@
+"""The type a forward computes in, found from how its loss responds to moves of its params:
+float32-only code (every array float32, the loss cast with np.float32) is float32 even where
+abs/relu kinks lie within the moves or the loss is locally flat, and is judged on float32's
+unit roundoff (2**-24), not bfloat16's (2**-8) or float16's (2**-11) (the three unit roundoffs:
+IEEE 754 binary32 and binary16, and bfloat16's 8 significant bits; common practice).
+
+Reference: the adversarial generator's cases (tests/adversarial) are float32-only by
+construction (every param and input is float32 and forward returns np.float32 of float32
+arithmetic) and their gradients are checked by its judge against mpmath at 50 digits; the
+hand-written targets below are float32 numpy code by inspection.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+import gradprobe
+
+# Kinks crossed by moves of 2**-4 made the loss's changes look like a coarser grid's:
+# 133 (abs and softplus terms, curved across the moves) and 290 (an exp term with an offset 100
+# times its param, so float32 itself drops a move of 2**-18) were taken as bfloat16; 43259 (every
+# relu unit off at the point: the loss is exactly 0 nearby) as bfloat16; 43297 (the same, with a
+# kink 2**-10 away on one side) as float16.
+KINKED_SEEDS = [133, 290, 43259, 43297]
+
+
+def _report(seed: int):
+    from adversarial import make_case
+    from adversarial.case import load
+
+    case = make_case("float32only", seed)
+    ns = load(case)
+    params, inputs = ns["setup"]()
+    return gradprobe.probe(ns["forward"], ns["backward"], params, inputs)
+
+
+@pytest.mark.parametrize("seed", KINKED_SEEDS)
+def test_float32_only_code_with_kinks_is_found_to_compute_in_float32(seed):
+    from adversarial import judge
+
+    o = judge("float32only", seed)
+    assert o["correct"] and o["dtype"] == "float32" and o["unverified"] is None, o
+    assert not o["false_alarm"], o["status"]
+    report = _report(seed)
+    assert report.compute_dtype == "float32", report.notes
+    assert not any("bfloat16" in n or "float16" in n for n in report.notes), report.notes
+
+
+def _shop_relu(claimed: float = 1.0):
+    """Demand shortfall priced per shop: every shop's shortfall is 0 at the point (relu off), a
+    kink 2**-10 of the price above it on one shop; float32 throughout."""
+    price = np.array([0.5, 0.75, 1.25, 2.0], np.float32)
+    floor = (price * np.float32(1 + 2.0**-10)).astype(np.float32)
+    floor[1:] = price[1:] * np.float32(1.5)
+    weight = np.array([3.0, 1.5, 2.0, 0.5], np.float32)
+
+    def forward(params, inputs):
+        p = np.asarray(params["price"], np.float32)
+        return np.float32(np.sum(weight * np.maximum(p - floor, np.float32(0))))
+
+    def backward(params, inputs):
+        p = np.asarray(params["price"], np.float32)
+        return {"price": (claimed * weight * (p > floor)).astype(np.float32)}
+
+    return forward, backward, {"price": price.copy()}
+
+
+def test_a_float32_loss_flat_at_the_point_is_not_taken_as_sixteen_bits():
+    """The loss is exactly 0 around the point and only one move of 2**-4 reaches a kink: no
+    grid of a coarser type is seen, so the code is judged as the float32 it is (its gradient,
+    0 at the point, is right: d/dp max(p - floor, 0) = 0 for p < floor)."""
+    forward, backward, params = _shop_relu()
+    report = gradprobe.probe(forward, backward, params, {})
+    assert report.compute_dtype == "float32", report.notes
+    assert report.ok
+
+
+def _crop_exp():
+    """Crop yield with an exponential response whose offset is about 100 times the param: float32 rounds
+    a move of 2**-18 of the param away in a * (p - k), yet float32 resolves 2**-16."""
+    k = np.array([-25.0, -40.0, -50.0], np.float32)
+    a = np.array([0.4, 0.25, 0.2], np.float32)
+    w = np.array([1.5, 0.7, 2.0], np.float32)
+    p0 = np.array([0.25, 0.375, 0.5], np.float32)
+
+    def forward(params, inputs):
+        p = np.asarray(params["p"], np.float32)
+        return np.float32(np.sum(w * np.exp(a * (p - k))))
+
+    def backward(params, inputs):
+        p = np.asarray(params["p"], np.float32)
+        return {"p": (w * a * np.exp(a * (p - k))).astype(np.float32)}
+
+    return forward, backward, {"p": p0.copy()}
+
+
+def test_float32_rounding_a_move_away_in_an_offset_is_not_taken_as_sixteen_bits():
+    forward, backward, params = _crop_exp()
+    report = gradprobe.probe(forward, backward, params, {})
+    assert report.compute_dtype == "float32", report.notes
+
+
+def test_the_crop_target_is_float32_code_that_drops_the_tiny_move():
+    """The premise of the test above, independent of gradprobe: the loss is bitwise unchanged at
+    a move of 2**-18 of every param rounded to bfloat16, and changes at 2**-16."""
+    ml_dtypes = pytest.importorskip("ml_dtypes")
+    forward, _, params = _crop_exp()
+    p = params["p"].astype(ml_dtypes.bfloat16).astype(np.float64)
+    at = {m: forward({"p": (p * (1 + m)).astype(np.float32)}, {}) for m in (0.0, 2.0**-18, -2.0**-18, 2.0**-16)}
+    assert at[2.0**-18] == at[0.0] == at[-2.0**-18]
+    assert at[2.0**-16] != at[0.0]
