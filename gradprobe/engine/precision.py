@@ -11,10 +11,18 @@ arithmetic): every param is rounded to bfloat16, a point on the grid of both 16-
 (bfloat16's values carry 8 significant bits, float16's 11), then moved by 2**-18 of its
 size, up and down: 16-bit code gives a bitwise identical loss where float32 code changes it
 by tens of its units (values computed from the params before the cast cross a 16-bit
-rounding boundary at such a move once in about 2**10). Moves of 2**-4 up and down (which every 16-bit type
-resolves) confirm that the loss depends on the params: half the difference of their losses
-is the change's first-order part (a loss at its minimum changes by the move's square alike
-both ways), scaled down to 2**-18 it must be two units of float32's at least. float16 rather than
+rounding boundary at such a move once in about 2**10); so must moves of 2**-16 (float32 code
+whose values carry an offset, a * (p - k) with |k| about 100 |p|, rounds 2**-18 away but not
+2**-16). Moves up and down of 2**-4 and 2**-7 (which every 16-bit type resolves) confirm that
+the loss depends on the params: half the difference of a pair's losses is the change's
+first-order part (a loss at its minimum changes by the move's square alike both ways), scaled
+down to the largest move the loss ignored (2**-18, or 2**-12 where float64 params rounded to
+float32 ignored it) it must be two units of float32's at least. The wider pair's part counts
+where the losses lie on a 16-bit grid (16-bit code returning its loss in its own type), or
+where it is within 4 times the nearer pair's; else the nearer pair's: a kink crossed by 2**-4
+(or a bend between the moves) makes the wider pair's change no measure of the slope at the
+point. A loss unchanged on a side of the nearer pair is flat there (a relu off at the point,
+in float32 code as much as in 16-bit code): no evidence. float16 rather than
 bfloat16 needs positive evidence: the loss ignores four moves of 0.875 * 2**-12 in random
 directions (below float16's resolution) and sees one of 2**-10 (a unit of float16's, below
 bfloat16's). Otherwise the coarser type is concluded (bfloat16 code whose params pass
@@ -37,7 +45,7 @@ LARGE = 2.0**-12
 TINY = 2.0**-18  # far below the 16-bit types' resolution, tens of units of float32's
 SIXTEEN_LARGE = 2.0**-4  # a move every 16-bit type resolves, up and down
 SIXTEEN_NEAR = 2.0**-7  # a move every 16-bit type resolves (one unit of bfloat16's at least)
-AGREE = 2.0  # the two pairs' first-order parts, scaled to one move, agree within this factor
+AGREE = 4.0  # the wider pair's first-order part is trusted up to this many times the nearer's
 SIXTEEN_LIVE = 2.0  # float32 code changes by this many of its units at TINY at least
 WIDER_TINY = 2.0**-16  # still below the 16-bit types' resolution: float32 code whose values carry
 # an offset (a * (p - k), |k| about 100 |p|) drops a move of TINY but sees this one
@@ -129,7 +137,7 @@ def narrower_compute_type(
     source: Workspace | None = None,
 ) -> HiddenType | None:
     """The narrower type a float64 or float32 forward demonstrably computes in, else None
-    (2 to 13 calls). ``source``: a workspace holding ``ws``'s values exactly in a narrower
+    (2 to 18 calls). ``source``: a workspace holding ``ws``'s values exactly in a narrower
     type (the moves are then made in place and put back from it, see :class:`_Looks`)."""
     out_dtype = np.dtype(out_dtype)
     if out_dtype not in (np.dtype(np.float64), np.dtype(np.float32)):
@@ -138,6 +146,7 @@ def narrower_compute_type(
     if not names:
         return None
     found: HiddenType | None = None
+    unchanged = TINY  # the largest move known to leave the loss bitwise unchanged
     looks = _Looks(evaluator, ws, names, source)
     try:
         if out_dtype == np.float64:
@@ -155,18 +164,20 @@ def narrower_compute_type(
                 )
             elif moved != rounded:
                 return None  # it sees 2**-12 though the change is too small to tell: no evidence
-        return _sixteen_bits(looks, f0, out_dtype) or found
+            else:
+                unchanged = LARGE  # wider code would see 2**-12 of a loss that changes at all
+        return _sixteen_bits(looks, f0, out_dtype, unchanged) or found
     except (UserCodeError, BadOutputError):
         return found  # the moved points are outside forward's domain: no more evidence
 
 
 def _on_a_grid(values: list[float], grid: np.dtype) -> bool:
     """The losses are themselves values of ``grid`` or of float16 (16-bit code that returns its
-    loss in its own type), the first nonzero and three distinct at least: a float32 loss lies
-    on bfloat16's grid by chance once in 2**16, float16's once in 2**13 (unless it is 0 or is
-    made of a few numbers with short mantissas, hence three)."""
+    loss in its own type), the first nonzero and two distinct at least: a float32 loss lies on
+    bfloat16's grid by chance once in 2**16, float16's once in 2**13 (a loss of 0, as where
+    every relu is off, lies on every grid)."""
     seen = np.asarray(values, np.float64)
-    if seen[0] == 0 or len(set(seen.tolist())) < 3:
+    if seen[0] == 0 or len(set(seen.tolist())) < 2:
         return False
     kinds = [grid] if grid == np.float16 else [grid, np.dtype(np.float16)]
     with np.errstate(over="ignore"):
@@ -175,12 +186,13 @@ def _on_a_grid(values: list[float], grid: np.dtype) -> bool:
 
 def _first_order(looks: _Looks, grid: np.dtype, rounded: float) -> float | None:
     """The first-order part of the loss's change at a move of ``SIXTEEN_LARGE`` (which every
-    16-bit type resolves): half the difference of the losses at that move up and down (a loss
-    at its minimum changes by the move's square alike both ways). Trusted where the losses lie
-    on a 16-bit grid (:func:`_on_a_grid`), or where moves of ``SIXTEEN_NEAR`` up and down agree
-    about it; else None: a kink crossed on one side (a loss flat at the point changes on one
-    side only), or a bend between the moves, makes the wider pair's change no measure of the
-    loss's slope at the point."""
+    16-bit type resolves), from half the difference of the losses at moves up and down (a loss
+    at its minimum changes by the move's square alike both ways): of ``SIXTEEN_LARGE``'s where
+    the losses lie on a 16-bit grid (:func:`_on_a_grid`) or agree with those of
+    ``SIXTEEN_NEAR``'s within ``AGREE`` (16-bit rounding makes the nearer pair's noisy), else of
+    ``SIXTEEN_NEAR``'s scaled up; None where a side of the nearer pair is unchanged (a loss
+    flat at the point changes on one side only, where a kink is crossed). A kink or a bend
+    between the two moves makes the wider pair's change no measure of the slope at the point."""
     far = [looks.loss(move, grid) for move in (SIXTEEN_LARGE, -SIXTEEN_LARGE)]
     near = [looks.loss(move, grid) for move in (SIXTEEN_NEAR, -SIXTEEN_NEAR)]
     wide = 0.5 * abs(far[0] - far[1])
@@ -189,21 +201,21 @@ def _first_order(looks: _Looks, grid: np.dtype, rounded: float) -> float | None:
     if rounded in near:  # unchanged on a side that 16-bit code resolves: flat there
         return None
     close = 0.5 * abs(near[0] - near[1]) * (SIXTEEN_LARGE / SIXTEEN_NEAR)
-    if not (close <= AGREE * wide and wide <= AGREE * close):
-        return None
-    return min(wide, close)
+    return wide if wide <= AGREE * close else close
 
 
-def _sixteen_bits(looks: _Looks, f0: float, out_dtype: np.dtype) -> HiddenType | None:
+def _sixteen_bits(looks: _Looks, f0: float, out_dtype: np.dtype, unchanged: float = TINY) -> HiddenType | None:
     """float16 or bfloat16 when the loss ignores moves below their resolution (see the
-    module's docstring), else None."""
+    module's docstring), else None. ``unchanged``: the largest move known to leave the loss
+    bitwise unchanged (2**-12 of float64 params rounded to float32, else TINY); the loss's
+    first-order change scaled down to it must be two units of float32's at least."""
     grid = _bfloat16() or np.dtype(np.float16)
     rounded = looks.loss(0.0, grid)
     for tiny in (TINY, -TINY):  # float32 code sees both
         if looks.loss(tiny, grid) != rounded:
             return None
     linear = _first_order(looks, grid, rounded)
-    if linear is None or not linear * (TINY / SIXTEEN_LARGE) > SIXTEEN_LIVE * np.finfo(np.float32).eps * max(abs(rounded), abs(f0)):
+    if linear is None or not linear * (max(unchanged, TINY) / SIXTEEN_LARGE) > SIXTEEN_LIVE * np.finfo(np.float32).eps * max(abs(rounded), abs(f0)):
         return None
     for wider in (WIDER_TINY, -WIDER_TINY):  # float32 code whose values carry offsets sees these
         if looks.loss(wider, grid) != rounded:
