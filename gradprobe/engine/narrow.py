@@ -58,28 +58,43 @@ def propagated_rounding(
     return spread
 
 
+KINK_ROWS = 5  # steps h, h/4, ..., h/256 from the narrow code's first step h
+KINK_KEEP = 0.5  # a kink's gap keeps at least this share as the step quarters; curvature's quarters
+
+
 def kink_within_reach(
     probe: TensorProbe, own: TensorProbe, flat: np.ndarray, narrow: np.ndarray, scale: np.ndarray
 ) -> tuple[np.ndarray, Estimate] | None:
     """Which narrow gradients that leave their float64 run are explained by a kink of the
-    float64 run within the narrow type's resolution: at one of the steps the narrow code would
-    take (its first step, and 16 and 256 times smaller) the one-sided quotients of the float64
-    run lie further apart than the narrow type's agreement and than curvature makes them, and
-    the narrow value lies between them (narrow rounding puts the code on the kink, or on its
-    other side, where the float64 run is just off it). With the estimate each is judged by."""
+    float64 run within the narrow type's resolution, with the estimate each is judged by.
+
+    The evidence of a kink is the one-sided quotients of the float64 run at steps h_k = h /
+    4**k (h the narrow code's first step, k < KINK_ROWS): at three consecutive steps their
+    gap keeps its sign and at least KINK_KEEP of its size each time the step quarters, beyond
+    their rounding, and lies further apart than the narrow type's agreement at the largest
+    of them; and the narrow value lies between them there (narrow rounding puts the code on
+    the kink, or on its other side, where the float64 run is just off it). A smooth loss's
+    gap is f'' h + f'''' h**3 / 12 + ... (Taylor): it quarters with the step, or shrinks
+    faster; across a kink at distance d it is the jump times (1 - d / h_k) plus that, which
+    keeps half of itself twice over from a step 28 d down. One batch of pairs."""
     n = flat.size
-    steps = np.concatenate([own.prior_steps(flat) / 16.0**k for k in range(3)])
-    p = probe.pairs(np.tile(flat, 3), steps)
-    right, left = (q.reshape(3, n) for q in p.sides(probe.f0))
-    noise = (2.0 * p.noise / np.minimum(p.h_plus, p.h_minus)).reshape(3, n)
+    rows = KINK_ROWS
+    steps = np.concatenate([own.prior_steps(flat) / 4.0**k for k in range(rows)])
+    p = probe.pairs(np.tile(flat, rows), steps)
+    right, left = (q.reshape(rows, n) for q in p.sides(probe.f0))
+    noise = (2.0 * p.noise / np.minimum(p.h_plus, p.h_minus)).reshape(rows, n)
     tol = own.threshold * scale
-    # The gap curvature alone would give at each step, from the smallest step's gap.
-    bend = np.abs(right[2] - left[2]) / steps.reshape(3, n)[2]
-    curved = 2.0 * bend * steps.reshape(3, n)
-    curved[2] = 0.0
-    apart = np.abs(right - left) > tol + 2.0 * noise + curved
-    between = (narrow >= np.minimum(left, right) - tol - noise) & (narrow <= np.maximum(left, right) + tol + noise)
-    fits = apart & between
+    gap = right - left
+    with np.errstate(invalid="ignore"):
+        # The gap at row k kept its size down to row k + 1: beyond rounding, in the same sign.
+        kept = ((np.abs(gap[1:]) - noise[1:] >= KINK_KEEP * (np.abs(gap[:-1]) + noise[:-1]))
+                & (gap[1:] * gap[:-1] > 0))
+        steady = np.zeros((rows, n), dtype=bool)
+        steady[:-2] = kept[:-1] & kept[1:]
+        apart = np.abs(gap) > tol + 2.0 * noise
+        between = ((narrow >= np.minimum(left, right) - tol - noise)
+                   & (narrow <= np.maximum(left, right) + tol + noise))
+    fits = steady & apart & between
     took = fits.any(axis=0)
     if not took.any():
         return None
