@@ -160,3 +160,48 @@ def test_a_wrong_16_bit_rule_still_fails(dtype_name, shape, loss, seed, factor):
     report = probe(_forward(swish, loss), None, params, inputs)
     assert {t.name: t.status for t in report.tensors} == {"w": "fail", "x": "fail", "t": "pass"}
 
+
+def test_a_16_bit_loss_summed_from_cancelling_terms_is_still_run_in_float64():
+    """Seed 3: the bfloat16 loss, 64 terms of total size 34 summing to -0.196 (float64), comes
+    out as -0.228: 16% off the float64 loss, yet within its own rounding (about u = 2**-8
+    times the terms' size, several times over). The float64 run is the same computation:
+    the check runs on it and the right rule passes (judged on bfloat16 arithmetic alone,
+    every weight's loss rounds above the threshold and stays undecided); the 10% wrong one
+    fails."""
+    swish, params, inputs = _shop("bfloat16", (16, 8, 4), seed=3)
+    forward = _forward(swish, "sum")
+    _assert_right_by_mpmath(forward, params, inputs, (16, 8, 4), "sum")
+    seen = {k: v.double().numpy() for k, v in {**params, **inputs}.items()}
+    z = seen["x"] @ seen["w"]
+    terms = z / (1 + np.exp(-z)) * seen["t"]
+    assert abs(float(forward(params, inputs)) - terms.sum()) > 0.1 * abs(terms.sum())
+    report = probe(forward, None, params, inputs)
+    assert [t.status for t in report.tensors] == ["pass"] * 3, [(t.name, t.status) for t in report.tensors]
+    swish, params, inputs = _shop("bfloat16", (16, 8, 4), factor=1.1, seed=3)
+    report = probe(_forward(swish, "sum"), None, params, inputs)
+    assert {t.name: t.status for t in report.tensors} == {"w": "fail", "x": "fail", "t": "pass"}
+
+
+@pytest.mark.parametrize("other", [1.15, 2.0])
+def test_a_float64_run_of_another_loss_is_not_used(other):
+    """Code whose float64 run computes another loss (a branch on the dtype scales it by
+    ``other``) is judged on its float16 arithmetic, not on that run: its 15% (or 100%) lies
+    far beyond the float16 loss's rounding (a few units of 2**-11 of a loss of a dozen terms
+    of one sign). Its backward, right for the float16 loss (d/dz tanh z = 1 - tanh(z)**2,
+    Abramowitz & Stegun 4.5.82, from memory), is not failed for the other one (float16 alone
+    may leave it undecided)."""
+    r = np.random.default_rng(2)
+    x, w, c = r.normal(size=(4, 3)), r.normal(size=(3, 3)) * 0.5, np.abs(r.normal(size=(4, 3)))
+
+    def forward(p, i):
+        scale = other if p["w"].dtype == np.float64 else 1.0
+        return np.sum((np.tanh(i["x"] @ p["w"]) + 2.0) * i["c"]) * scale
+
+    def backward(p, i):
+        t = np.tanh(i["x"] @ p["w"])
+        return {"w": i["x"].T @ (i["c"] * (1 - t * t))}
+
+    report = probe(forward, backward, {"w": w.astype(np.float16)},
+                   {"x": x.astype(np.float16), "c": c.astype(np.float16)})
+    assert not any("float64" in note for note in report.notes), report.notes
+    assert report.tensor("w").status in ("pass", "inconclusive")

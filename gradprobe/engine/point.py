@@ -68,12 +68,15 @@ def _code_type(ws: Workspace, evaluator: Evaluator, info: ForwardInfo) -> tuple[
 
 
 def _numerics(backward: Callable[..., Any], ws: Workspace, evaluator: Evaluator,
-              info: ForwardInfo, grads: Gradients, dtype: np.dtype, why: str,
+              info: ForwardInfo, grads: Gradients, dtype: np.dtype, why: str, seed: int,
               ) -> tuple[Numerics, LossFunction]:
     """float64 numerics for narrow code that accepts float64 (1 forward and 1 backward
     call), else the code's own; with the loss the numeric side evaluates."""
     if is_narrow(dtype):
-        promoted = promote(evaluator, backward, ws, grads, info.f0, code_dtype=dtype)
+        def rounding() -> float:  # the narrow loss's, where it leaves the float64 loss
+            return measured_rounding(evaluator, ws, list(grads.values), info.f0,
+                                     tensor_rng(seed, "", "narrow agreement"), dtype)
+        promoted = promote(evaluator, backward, ws, grads, info.f0, rounding, code_dtype=dtype)
         if promoted is not None and promoted.reference_only:
             widened(grads)
             return Numerics(promoted.workspace, promoted.f0, np.dtype(np.float64), dtype, {}, {}, why,
@@ -305,7 +308,7 @@ def prepare(
     # as the analytic side; they are widened where there is none).
     grads = validate(call_backward(backward, ws, info.grad_output, scratch), ws, own_type=True)
     release_heap()  # preflight's scratch copies and backward's temporaries: their pages back
-    numerics, loss = _numerics(backward, ws, evaluator, info, grads, dtype, why)
+    numerics, loss = _numerics(backward, ws, evaluator, info, grads, dtype, why, seed)
     where = backend(numerics.workspace, info.grad_output) if backend is not None else None
     point = Point(ws, evaluator.sibling(loss, where), info, grads, numerics, backward, seed)
     point._measure()

@@ -30,7 +30,8 @@ from .preflight import call_backward
 from ..common.roundoff import default_threshold, is_narrow, unit_roundoff
 
 # Narrow and float64 losses may differ by this share of |f| (narrow rounding in sums with
-# cancellation reaches percents; beyond this the float64 run computes something else).
+# cancellation reaches percents; beyond this the float64 run computes something else), or by
+# the narrow loss's own rounding, measured (a sum of terms far larger than itself).
 AGREEMENT = 0.1
 
 
@@ -52,12 +53,15 @@ def _narrow_names(ws: Workspace) -> list[str]:
 
 def promote(
     evaluator: Evaluator, backward: Callable[..., Any], ws: Workspace,
-    grads: Gradients, f0: float, *, code_dtype: Any = None,
+    grads: Gradients, f0: float, rounding: Callable[[], float] | None = None, *,
+    code_dtype: Any = None,
 ) -> Promoted | None:
     """float64 numerics for a narrow target, or None when its code does not take float64.
 
     Costs four forward calls (counted by ``evaluator``: the run, and three that look for a
-    narrower type inside, :func:`.precision.narrower_compute_type`) and one backward call.
+    narrower type inside, :func:`.precision.narrower_compute_type`) and one backward call;
+    ``rounding`` (the narrow loss's rounding, measured) is called where the two losses differ
+    by more than AGREEMENT of |f|: within it they are the same computation still.
     16-bit code (``code_dtype``) whose forward runs in float64 but whose backward returns
     its 16-bit gradient whatever it is given gets a Promoted that is ``reference_only``."""
     names = _narrow_names(ws)
@@ -76,7 +80,8 @@ def promote(
             return None
         if narrower_compute_type(wide_evaluator, wide, f64, dtype, source=ws) is not None:
             return None  # it casts to a narrower type inside: the float64 run is not float64
-        if abs(f64 - f0) > AGREEMENT * max(abs(f0), abs(f64)):
+        if abs(f64 - f0) > AGREEMENT * max(abs(f0), abs(f64)) and (
+                rounding is None or abs(f64 - f0) > rounding()):
             return None
         # backward was seen not to write into its arrays (the narrow call): no scratch copies.
         release_heap()  # the looks' moved copies: their pages back before the float64 backward's
