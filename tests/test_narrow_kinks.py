@@ -205,3 +205,39 @@ def test_a_float64_run_of_another_loss_is_not_used(other):
                    {"x": x.astype(np.float16), "c": c.astype(np.float16)})
     assert not any("float64" in note for note in report.notes), report.notes
     assert report.tensor("w").status in ("pass", "inconclusive")
+
+
+def _relu_shop(factor: float = 1.0):
+    """Shop demand through relu with a hand-written rule (relu' is 1 above 0 and 0 below, by
+    its definition), an array output (each element weighed by the check's own upstream
+    gradient): its bfloat16 loss leaves its float64 run by about 40%, within its rounding."""
+    from framework_kit import need
+
+    torch = need("torch")
+
+    class Relu(torch.autograd.Function):
+        @staticmethod
+        def forward(ctx, z):
+            ctx.save_for_backward(z)
+            return z.clamp(min=0)
+
+        @staticmethod
+        def backward(ctx, g):
+            (z,) = ctx.saved_tensors
+            return g * (z > 0).to(g.dtype) * factor
+
+    r = np.random.default_rng(1)
+    x = torch.tensor(r.normal(size=(32, 16))).to(torch.bfloat16)
+    w = torch.tensor(r.normal(size=(16, 8)) * 0.5).to(torch.bfloat16)
+    return lambda p, i: Relu.apply(i["x"] @ p["w"]), {"w": w}, {"x": x}
+
+
+@pytest.mark.parametrize("factor", [1.0, 1.1])
+def test_the_float64_run_gets_a_float64_upstream_gradient(factor):
+    """The float64 run taken for a bfloat16 loss within its rounding of it is called with the
+    upstream gradient in float64 (rounded to bfloat16 it would leave every float64 gradient
+    about 2**-9 off its numeric derivatives): the right rule passes, a 10% wrong one fails."""
+    forward, params, inputs = _relu_shop(factor)
+    report = probe(forward, None, params, inputs)
+    want = "pass" if factor == 1.0 else "fail"
+    assert {t.name: t.status for t in report.tensors} == {"w": want, "x": want}

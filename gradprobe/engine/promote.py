@@ -80,11 +80,11 @@ def promote(
             return None
         if narrower_compute_type(wide_evaluator, wide, f64, dtype, source=ws) is not None:
             return None  # it casts to a narrower type inside: the float64 run is not float64
-        if abs(f64 - f0) > AGREEMENT * max(abs(f0), abs(f64)) and (
-                rounding is None or abs(f64 - f0) > rounding()):
-            return None
+        apart = abs(f64 - f0) > AGREEMENT * max(abs(f0), abs(f64))
         # backward was seen not to write into its arrays (the narrow call): no scratch copies.
         release_heap()  # the looks' moved copies: their pages back before the float64 backward's
+        # Called before any narrow forward call: a framework's upstream gradient takes the
+        # type of the last forward's result (bfloat16 would round it).
         raw = call_backward(backward, wide, grad_output, scratch=False)
         if not _all_float64(raw):
             # backward rounds to the narrow type itself: no float64 run of it to compare with;
@@ -94,6 +94,8 @@ def promote(
                 return Promoted(wide, loss, f64, {}, {}, reference_only=True)
             return None
         grads64 = validate(raw, wide)
+        if apart and (rounding is None or abs(f64 - f0) > rounding()):
+            return None
     except (ProbeError, Exception):  # float64 is outside what this code accepts
         return None
     analytic: dict[str, np.ndarray] = {}
