@@ -39,13 +39,13 @@ def test_curvature_is_not_taken_for_a_kink():
     """50 (w - 0.999)**2 at w = 1: f' = 0.1, f'' = 100. At the smallest steps a kink would be
     looked for at (2**-10), the one-sided quotients are f' -+ 0.049, further apart than the
     threshold's 0.012; a narrow value between them (0.13) is not explained by a kink: their
-    gap halves with the step (exactly 100 h)."""
+    gap quarters as the step does (it is exactly 100 h)."""
     assert _judge(lambda w: 50.0 * (w[0] - 0.999) ** 2, 1.0, 0.1, 0.13) is None
 
 
 def test_a_fourth_order_bend_is_not_taken_for_a_kink():
-    """10 (w - 1)**4 + w at w = 1: f'' = 0, the gap 20 h**3 / 12 * 12 / 10 = 2 * 10 h**3 (0.31 at the
-    first step 0.25, beyond the threshold's 0.12) shrinks eightfold as the step halves."""
+    """10 (w - 1)**4 + w at w = 1: f'' = 0, the gap is 20 h**3 (0.31 at the first step 0.25,
+    beyond the threshold's 0.12): it shrinks 64-fold as the step quarters."""
     assert _judge(lambda w: 10.0 * (w[0] - 1.0) ** 4 + w[0], 1.0, 1.0, 1.2) is None
 
 
