@@ -76,7 +76,9 @@ def kink_within_reach(
     the kink, or on its other side, where the float64 run is just off it). A smooth loss's
     gap is f'' h + f'''' h**3 / 12 + ... (Taylor): it quarters with the step, or shrinks
     faster; across a kink at distance d it is the jump times (1 - d / h_k) plus that, which
-    keeps half of itself twice over from a step 28 d down. One batch of pairs."""
+    keeps half of itself twice over where the largest of the three steps is 28 d or more
+    (a kink further off, within the narrow type's reach, is left to the measured rounding
+    and to the narrow code's own check). One batch of pairs."""
     n = flat.size
     rows = KINK_ROWS
     steps = np.concatenate([own.prior_steps(flat) / 4.0**k for k in range(rows)])
