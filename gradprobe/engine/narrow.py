@@ -58,8 +58,12 @@ def propagated_rounding(
     return spread
 
 
-KINK_ROWS = 5  # steps h, h/4, ..., h/256 from the narrow code's first step h
-KINK_KEEP = 0.5  # a kink's gap keeps at least this share as the step quarters; curvature's quarters
+# Steps as fractions of the narrow code's first step h: h, h/2, h/4, then quartering to h/256.
+KINK_STEPS = (1.0, 0.5, 0.25, 1.0 / 16, 1.0 / 64, 1.0 / 256)
+# Three steps running (rows of KINK_STEPS, largest first) and the share of its gap a kink
+# keeps each time the step shrinks there: curvature's halves (quarters) as the step halves
+# (quarters), or shrinks faster.
+KINK_TRIPLES = ((0, 1, 2, 0.75), (0, 2, 3, 0.5), (2, 3, 4, 0.5), (3, 4, 5, 0.5))
 
 
 def kink_within_reach(
@@ -68,31 +72,35 @@ def kink_within_reach(
     """Which narrow gradients that leave their float64 run are explained by a kink of the
     float64 run within the narrow type's resolution, with the estimate each is judged by.
 
-    The evidence of a kink is the one-sided quotients of the float64 run at steps h_k = h /
-    4**k (h the narrow code's first step, k < KINK_ROWS): at three consecutive steps their
-    gap keeps its sign and at least KINK_KEEP of its size each time the step quarters, beyond
-    their rounding, and lies further apart than the narrow type's agreement at the largest
-    of them; and the narrow value lies between them there (narrow rounding puts the code on
-    the kink, or on its other side, where the float64 run is just off it). A smooth loss's
-    gap is f'' h + f'''' h**3 / 12 + ... (Taylor): it quarters with the step, or shrinks
-    faster; across a kink at distance d it is the jump times (1 - d / h_k) plus that, which
-    keeps half of itself twice over where the largest of the three steps is 28 d or more
-    (a kink further off, within the narrow type's reach, is left to the measured rounding
-    and to the narrow code's own check). One batch of pairs."""
+    The evidence of a kink is the one-sided quotients of the float64 run at the steps
+    KINK_STEPS: at three steps running (KINK_TRIPLES: halving from h, or quartering) their
+    gap keeps its sign and at least the triple's share of its size each time the step
+    shrinks, beyond their rounding, and lies further apart than the narrow type's agreement
+    at the largest of them; and the narrow value lies between them there (narrow rounding
+    puts the code on the kink, or on its other side, where the float64 run is just off it).
+    A smooth loss's gap is f'' h + f'''' h**3 / 12 + ... (Taylor): it halves with the step,
+    or shrinks faster; across a kink at distance d it is the jump times (1 - d / s) at step
+    s, plus that, which keeps three quarters of itself twice over as the step halves from h
+    where d <= h / 10 (half twice over as it quarters from s where d <= s / 28). A kink
+    further off, within the narrow type's reach, is left to the measured rounding and to the
+    narrow code's own check. One batch of pairs."""
     n = flat.size
-    rows = KINK_ROWS
-    steps = np.concatenate([own.prior_steps(flat) / 4.0**k for k in range(rows)])
+    rows = len(KINK_STEPS)
+    steps = np.concatenate([own.prior_steps(flat) * f for f in KINK_STEPS])
     p = probe.pairs(np.tile(flat, rows), steps)
     right, left = (q.reshape(rows, n) for q in p.sides(probe.f0))
     noise = (2.0 * p.noise / np.minimum(p.h_plus, p.h_minus)).reshape(rows, n)
     tol = own.threshold * scale
     gap = right - left
     with np.errstate(invalid="ignore"):
-        # The gap at row k kept its size down to row k + 1: beyond rounding, in the same sign.
-        kept = ((np.abs(gap[1:]) - noise[1:] >= KINK_KEEP * (np.abs(gap[:-1]) + noise[:-1]))
-                & (gap[1:] * gap[:-1] > 0))
+        def kept(a: int, b: int, share: float) -> np.ndarray:
+            """The gap at row a kept its share down to row b: beyond rounding, in one sign."""
+            return ((np.abs(gap[b]) - noise[b] >= share * (np.abs(gap[a]) + noise[a]))
+                    & (gap[a] * gap[b] > 0))
+
         steady = np.zeros((rows, n), dtype=bool)
-        steady[:-2] = kept[:-1] & kept[1:]
+        for a, b, c, share in KINK_TRIPLES:
+            steady[a] |= kept(a, b, share) & kept(b, c, share)
         apart = np.abs(gap) > tol + 2.0 * noise
         between = ((narrow >= np.minimum(left, right) - tol - noise)
                    & (narrow <= np.maximum(left, right) + tol + noise))
