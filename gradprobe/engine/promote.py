@@ -86,6 +86,8 @@ def promote(
         # Called before any narrow forward call: a framework's upstream gradient takes the
         # type of the last forward's result (bfloat16 would round it).
         raw = call_backward(backward, wide, grad_output, scratch=False)
+        if apart and (rounding is None or abs(f64 - f0) > rounding()):
+            return None  # another computation, beyond the narrow loss's own rounding
         if not _all_float64(raw):
             # backward rounds to the narrow type itself: no float64 run of it to compare with;
             # 16-bit code's forward is still the reference (its own staircase of a loss
@@ -94,8 +96,6 @@ def promote(
                 return Promoted(wide, loss, f64, {}, {}, reference_only=True)
             return None
         grads64 = validate(raw, wide)
-        if apart and (rounding is None or abs(f64 - f0) > rounding()):
-            return None
     except (ProbeError, Exception):  # float64 is outside what this code accepts
         return None
     analytic: dict[str, np.ndarray] = {}
