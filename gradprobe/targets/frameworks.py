@@ -226,7 +226,7 @@ class FramedLayer:
         if isinstance(grad_y, np.ndarray):
             # the upstream gradient in the dtype of the layer's output (the engine draws it
             # in float64; a float32 torch layer's matmul refuses it)
-            own = self.out_dtypes.get(x.dtype, x.dtype) if isinstance(x, np.ndarray) else grad_y.dtype
+            own = np.dtype(self.out_dtypes.get(x.dtype, x.dtype) if isinstance(x, np.ndarray) else grad_y.dtype)
             if is_float_dtype(own) and is_float_dtype(grad_y.dtype) and own != grad_y.dtype:
                 grad_y = grad_y.astype(own)
             g = self.boundary.like(grad_y, "x", {})
