@@ -122,6 +122,7 @@ WIDE_FIRST, WIDE_LAST = -2, 5  # windows start at the first step times 2**k, k i
 WIDE_SAFETY = 2.0  # the measured higher-order term is taken twice
 WIDE_NOISE = 2.0  # and the rounding it carries twice (as the ladder's tableau does)
 SHRINK_LIMIT = 0.625  # differences of the quotients halve their steps' squares: 1/4, with room
+STEP_GROWTH = 1.5  # a window's steps ascend, each at least this many times the last (about 2)
 
 
 def wide_estimate(probe: TensorProbe, flat: np.ndarray, taken: list[Taken] | None = None,
@@ -140,7 +141,8 @@ def wide_estimate(probe: TensorProbe, flat: np.ndarray, taken: list[Taken] | Non
     follow that model: each difference of consecutive quotients at most SHRINK_LIMIT of the
     next larger one (they shrink fourfold as the step halves), beyond rounding, and the
     one-sided quotients' gap shrinks with the step as curvature makes it (a kink within
-    the window keeps it). The estimate with the smallest bound; one batch of pairs (those
+    the window keeps it), and its steps ascend (:func:`_ascending`: a pair whose loss was not
+    finite shrank its step). The estimate with the smallest bound; one batch of pairs (those
     ``taken`` before at the same coordinate and step are not evaluated again; its own are added
     to ``taken``)."""
     n = flat.size
@@ -232,7 +234,7 @@ def windowed(d: np.ndarray, s: np.ndarray, e: np.ndarray, apart: np.ndarray, sid
             # seen at small steps, not a regime past a bend or an oscillation.
             for j in range(w):
                 follows &= np.abs(d[j] - r12) <= np.abs(d[i[0]] - r12) + WIDE_NOISE * e[j] + bound
-            follows &= s4 <= limit
+            follows &= _ascending(s, i, limit)
             bound = np.where(follows & np.isfinite(bound), bound, np.inf)
             take = bound < error
             value = np.where(take, r12, value)
@@ -248,6 +250,20 @@ def _agree(a: np.ndarray, slack_a: np.ndarray, b: np.ndarray, slack_b: np.ndarra
     high_a, high_b = np.abs(a) + room_a, np.abs(b) + room_b
     signs = (a * b > 0) | (low_a <= 0) | (low_b <= 0)
     return (low_a <= 2.0 * high_b) & (low_b <= 2.0 * high_a) & signs
+
+
+def _ascending(s: np.ndarray, rows: np.ndarray, limit: np.ndarray) -> np.ndarray:
+    """The window's steps ``s[rows]`` ascend as the model's do (each at least STEP_GROWTH
+    times the last) up to at most ``limit``, and every row before the window has a smaller
+    step than its first. Steps the pairs shrank (a loss not finite at the step asked: 16
+    times smaller) repeat smaller ones out of order; a window across them is no window of
+    the model, and its last step is not its widest."""
+    ok = s[rows[-1]] <= limit
+    for a, b in zip(rows[:-1], rows[1:]):
+        ok &= s[b] >= STEP_GROWTH * s[a]
+    for j in range(int(rows[0])):
+        ok &= s[j] < s[rows[0]]
+    return ok
 
 
 def _shrinking(signed: list[np.ndarray], noise: list[np.ndarray]) -> np.ndarray:
@@ -288,7 +304,7 @@ def plain_windowed(d: np.ndarray, s: np.ndarray, e: np.ndarray, apart: np.ndarra
             bound = WIDE_SAFETY * bend + WIDE_NOISE * e[i2]
             for j in range(w):
                 follows &= np.abs(d[j] - d[i2]) <= np.abs(d[i1] - d[i2]) + WIDE_NOISE * e[j] + bound
-            follows &= s[i3] <= limit
+            follows &= _ascending(s, np.arange(w, w + 3), limit)
             bound = np.where(follows & np.isfinite(bound), bound, np.inf)
             take = bound < error
             value = np.where(take, d[i2], value)
