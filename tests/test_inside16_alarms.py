@@ -45,6 +45,46 @@ def test_a_loss_flat_below_sixteen_bits_is_no_false_alarm(seed):
     assert not o["false_alarm"], (o["status"], o["expect"])
 
 
+# No 16-bit type found (moving every param by 2**-4 of its size barely moves these losses),
+# so judged as float64 on float64 arrays: a loss that did not change at all at any step
+# tried, nor at a far smaller one, failed gradients as if they were 0. Each rounds to
+# bfloat16 inside; the loss moves both ways, with the gradient's sign, at a step bfloat16
+# resolves.
+FLOAT64_STAIRCASE_SEEDS = [41101, 41138, 41162]
+
+
+@pytest.mark.parametrize("seed", FLOAT64_STAIRCASE_SEEDS)
+def test_a_loss_flat_below_sixteen_bits_on_float64_arrays_is_no_false_alarm(seed):
+    o = _judged(seed)
+    assert not o["false_alarm"], (o["status"], o["expect"])
+
+
+def test_a_param_a_float64_staircase_ignores_still_fails():
+    """Case 41162 (bfloat16 inside float64 arrays, not found) with one more param the loss
+    ignores while backward claims a slope of 1 for it (the loss's derivative there is 0, a
+    fact of calculus): its loss stays flat at every step out to the params' scale, where the
+    claimed slope would move it by many of the staircase's grains, so it fails; the case's
+    own tensors do not."""
+    import numpy as np
+
+    import gradprobe
+    from adversarial.bugs import make_case
+    from adversarial.case import load
+
+    ns = load(make_case("inside16", 41162))
+    params, inputs = ns["setup"]()
+
+    def backward(p, i):
+        g = ns["backward"]({k: v for k, v in p.items() if k != "unused"}, i)
+        return {**g, "unused": np.ones(3)}
+
+    report = gradprobe.probe(lambda p, i: ns["forward"]({k: v for k, v in p.items() if k != "unused"}, i),
+                             backward, {**params, "unused": np.array([0.75, -1.5, 2.0])}, inputs)
+    status = {t.name: t.status.value for t in report.tensors}
+    assert status["unused"] == "fail", status
+    assert "fail" not in [s for n, s in status.items() if n != "unused"], status
+
+
 def _shop_target(claimed: float):
     import numpy as np
 
@@ -85,3 +125,38 @@ def test_a_huge_bound_on_a_tiny_scale_leaks_no_warning():
     the smallest float overflowed while the tensor was summed; the summary takes it as inf."""
     o = _judged(8)
     assert o["own_warnings"] == [], o["own_warnings"]
+
+
+class _Line:
+    """A tensor's loss along a direction, for the staircase's grain (engine/staircase.py)."""
+
+    def __init__(self, loss, x, a):
+        import numpy as np
+
+        self.loss, self.x, self.a = loss, np.asarray(x, float), np.asarray(a, float)
+        self.size, self.x_scale = self.x.size, float(np.sqrt(np.mean(self.x**2)))
+        self.f0 = loss(self.x)
+        self.loss_scale = abs(self.f0)
+
+    def along(self, part, d, scales):
+        import numpy as np
+
+        return np.array([self.loss(self.x + c * d) for c in scales]), None
+
+
+def test_the_grain_of_a_loss_rounded_to_bfloat16_is_its_spacing():
+    """A loss near 100 rounded to bfloat16 last moves in whole steps of bfloat16's spacing
+    there, 2**(6 - 7) = 0.5 (8 significant bits: a fact of the format); the same loss unrounded
+    (float64, a quadratic) shows no grain, nor does one that ignores the params."""
+    import numpy as np
+
+    from gradprobe.engine.staircase import _grain
+
+    ml_dtypes = pytest.importorskip("ml_dtypes")
+    x = np.array([0.7, -1.2, 2.1])
+    smooth = lambda v: 100.0 + float(np.sum(3.0 * v**2 + v))  # noqa: E731
+    rounded = lambda v: float(np.float64(smooth(v)).astype(ml_dtypes.bfloat16))  # noqa: E731
+    a = 6.0 * x + 1.0
+    assert _grain(_Line(rounded, x, a)) == 0.5
+    assert _grain(_Line(smooth, x, a)) == 0.0
+    assert _grain(_Line(lambda v: 100.0, x, a)) == 0.0

@@ -19,6 +19,11 @@ Where the loss changes at that step on both sides alike (the smaller change a te
 larger at least, as slope and curvature give; a change on one side only is a flat side
 beside a kink, or a slope the loss does not have), or the step lies beyond the params' own scale, the
 coordinate is undecided (the reasons below), never failed on arithmetic it may not have.
+
+Code judged as float64 whose loss is flat at every step tried and at a far smaller one too
+(:func:`flat_below_the_steps`) keeps its failure unless the loss shows a staircase far
+coarser than float64's rounding (:func:`coarse_treads`): a 16-bit cast the look did not find
+(moving every param by 2**-4 of its size can leave such a loss nearly unchanged).
 """
 
 from __future__ import annotations
@@ -106,12 +111,97 @@ def flat_below_the_steps(probe: TensorProbe, flat: np.ndarray, judged: Judged) -
     return judged.merged(zero[which], undecided)
 
 
+TREADS = 8  # points on each side, evenly out to the bfloat16 step: a staircase shows a tread
+COARSE = 2.0**-23  # a tread this far from the loss at the point (relative): beyond float32's unit
+GRAIN_POINTS = 12  # points on each side along the analytic gradient, at steps shrinking by
+GRAIN_RATIO = 0.7  # this ratio (no power of two: a smooth loss's changes are no multiples)
+GRAIN_INTEGER = 1e-6  # how near an integer multiple of the grain each change lies (relative)
+GRAINS = 4.0  # a coordinate whose predicted change stays below this many grains can look flat
+
+STAIRCASE = (
+    "the loss does not change at all at the steps tried, nor at a far smaller one, yet it moves "
+    "as a staircase far coarser than float64's rounding (whole steps of one grain, or the same "
+    "value at neighbouring points away from the point), whose grain can hide this gradient "
+    "(a cast to a 16-bit type inside that the look for one did not find?)"
+)
+
+
+def _grain(probe: TensorProbe) -> float:
+    """The grain of a coarse staircase the loss shows along the analytic gradient, 0 where
+    none shows: at GRAIN_POINTS steps on each side (the params' own scale times powers of
+    GRAIN_RATIO) the loss's changes from its value at the point take three distinct sizes at
+    least, every one an integer multiple of the smallest, and that far above float64's
+    rounding (COARSE of the loss's size). A smooth loss's changes at such steps (a t + c t**2
+    at t in ratios of 0.7) are no multiples of each other; a loss rounded to a coarse grid
+    last changes by whole steps of it."""
+    a = probe.a.astype(np.float64).reshape(-1)
+    norm = float(np.linalg.norm(a))
+    if not np.isfinite(norm) or norm == 0.0:
+        return 0.0
+    d = a / norm
+    top = probe.x_scale / float(np.max(np.abs(d)))
+    t = top * GRAIN_RATIO ** np.arange(GRAIN_POINTS, dtype=np.float64)
+    values, _ = probe.along(slice(0, probe.size), d, np.concatenate([t, -t]))
+    change = np.abs(np.asarray(values, dtype=np.float64) - probe.f0)
+    sizes = np.unique(change[np.isfinite(change) & (change > 0)])
+    if sizes.size < 3 or sizes[0] <= COARSE * max(abs(probe.f0), probe.loss_scale):
+        return 0.0
+    q = sizes / sizes[0]
+    return float(sizes[0]) if np.all(np.abs(q - np.round(q)) <= GRAIN_INTEGER * q) else 0.0
+
+
+def coarse_treads(probe: TensorProbe, flat: np.ndarray, judged: Judged) -> Judged:
+    """Float64 code: a failure read off a loss that did not change at all, which
+    :func:`flat_below_the_steps` left standing, stands only where the loss shows no tread of
+    a coarse staircase: at TREADS points on each side, evenly out to :func:`bfloat16_step`
+    (within the params' own scale), two neighbours with the same value, which differs from
+    the loss at the point by more than COARSE of the loss's size. A smooth float64 loss flat
+    at the steps tried moves at most a few of its units there, and once it moves clearly it
+    takes a new value at every point; a loss that does not depend on the param (the bug the
+    failure names) stays flat throughout, and a flat side beside a kink (a unit switched off)
+    moves smoothly past it. A tread says rounding far coarser than float64's inside hides
+    the smaller steps, so the float64 bound the failure was read with does not hold: the
+    coordinate is undecided. So is one whose predicted change out there, |a| times the step,
+    stays below GRAINS grains of a staircase the loss shows along the analytic gradient
+    (:func:`_grain`): its flatness is what the staircase's grain allows."""
+    zero = np.flatnonzero((judged.status == FAIL) & (judged.estimate.value == 0.0))
+    if zero.size == 0:
+        return judged
+    scale = np.maximum(np.abs(probe.x[flat[zero]].astype(np.float64)), probe.x_scale)
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        h = np.minimum(bfloat16_step(probe, flat[zero]), scale)
+    usable = np.flatnonzero(np.isfinite(h) & (h > 0))
+    if usable.size == 0:
+        return judged
+    k = np.arange(1, TREADS + 1, dtype=np.float64)
+    where = np.repeat(flat[zero[usable]], TREADS)
+    p = probe.pairs(where, (h[usable][:, None] * k[None, :] / TREADS).reshape(-1))
+    size = COARSE * max(abs(probe.f0), probe.loss_scale)
+    tread = np.zeros(usable.size, dtype=bool)
+    for side in (p.f_plus, p.f_minus):
+        v = side.reshape(usable.size, TREADS)
+        same = (v[:, 1:] == v[:, :-1]) & (np.abs(v[:, 1:] - probe.f0) > size)
+        tread |= same.any(axis=1)
+    if not tread.all():
+        grain = _grain(probe)
+        if grain > 0:
+            tread |= np.abs(probe.a[flat[zero[usable]]].astype(np.float64)) * h[usable] < GRAINS * grain
+    which = usable[tread]
+    if which.size == 0:
+        return judged
+    undecided = Judged(np.full(which.size, INCONCLUSIVE, dtype=judged.status.dtype),
+                       Estimate(judged.estimate.value[zero[which]], np.full(which.size, np.inf)),
+                       (STAIRCASE,) * which.size, np.ones(which.size, dtype=bool))
+    return judged.merged(zero[which], undecided)
+
+
 def flat_through_sixteen_bits(probe: TensorProbe, flat: np.ndarray, judged: Judged) -> Judged:
     """``judged`` with its failures read off a loss that did not change at all kept only where
     a pair at :func:`bfloat16_step` does not change the loss on both sides alike (a flat side
-    beside a kink changes on one side only). Float64 code: :func:`flat_below_the_steps`."""
+    beside a kink changes on one side only). Float64 code: :func:`flat_below_the_steps`, then
+    :func:`coarse_treads`."""
     if probe.narrow is None and probe.compute_dtype == np.dtype(np.float64):
-        return flat_below_the_steps(probe, flat, judged)
+        return coarse_treads(probe, flat, flat_below_the_steps(probe, flat, judged))
     if not _judged_as_float32(probe):
         return judged
     zero = np.flatnonzero((judged.status == FAIL) & (judged.estimate.value == 0.0))
