@@ -150,6 +150,17 @@ def _grain(probe: TensorProbe) -> float:
     return float(sizes[0]) if np.all(np.abs(q - np.round(q)) <= GRAIN_INTEGER * q) else 0.0
 
 
+FINE = 2.0**-12  # a change below half a float16 unit of the loss: no 16-bit rounding made it
+
+
+def _fine_change(v: np.ndarray, below: float) -> np.ndarray:
+    """Per row of losses ``v``: two of its finite values differ, by less than ``below``."""
+    s = np.sort(np.where(np.isfinite(v), v, np.nan), axis=1)
+    d = np.diff(s, axis=1)
+    with np.errstate(invalid="ignore"):
+        return np.any((d > 0) & (d < below), axis=1)
+
+
 def coarse_treads(probe: TensorProbe, flat: np.ndarray, judged: Judged) -> Judged:
     """Float64 code: a failure read off a loss that did not change at all, which
     :func:`flat_below_the_steps` left standing, stands only where the loss shows no tread of
@@ -178,14 +189,19 @@ def coarse_treads(probe: TensorProbe, flat: np.ndarray, judged: Judged) -> Judge
     p = probe.pairs(where, (h[usable][:, None] * k[None, :] / TREADS).reshape(-1))
     size = COARSE * max(abs(probe.f0), probe.loss_scale)
     tread = np.zeros(usable.size, dtype=bool)
+    fine = np.zeros(usable.size, dtype=bool)
     for side in (p.f_plus, p.f_minus):
         v = side.reshape(usable.size, TREADS)
         same = (v[:, 1:] == v[:, :-1]) & (np.abs(v[:, 1:] - probe.f0) > size)
         tread |= same.any(axis=1)
+        fine |= _fine_change(v, FINE * max(abs(probe.f0), probe.loss_scale))
     if not tread.all():
         grain = _grain(probe)
         if grain > 0:
             tread |= np.abs(probe.a[flat[zero[usable]]].astype(np.float64)) * h[usable] < GRAINS * grain
+    # A change far finer than a 16-bit type's unit among them: the loss is not rounded to
+    # one (the plateaus are the loss's own, units switched on or off further out).
+    tread &= ~fine
     which = usable[tread]
     if which.size == 0:
         return judged
