@@ -65,3 +65,25 @@ def check_ending(forward: Callable, params: dict, inputs: dict, ending: str) -> 
     else:
         with pytest.raises(Exception if ending == "crash" else KeyboardInterrupt):
             probe(forward, None, params, inputs)
+
+
+def swish_function(factor: float = 1.0) -> type:
+    """A torch autograd Function: x * sigmoid(x) with a hand-written backward, its gradient
+    ``factor`` times the right one (1: right; d/dx x s(x) = s (1 + x (1 - s)), common
+    practice)."""
+    torch = need("torch")
+
+    class Swish(torch.autograd.Function):
+        @staticmethod
+        def forward(ctx, z):
+            ctx.save_for_backward(z)
+            return z * torch.sigmoid(z)
+
+        @staticmethod
+        def backward(ctx, g):
+            (z,) = ctx.saved_tensors
+            s = torch.sigmoid(z)
+            grad = g * (s * (1 + z * (1 - s)))
+            return grad if factor == 1.0 else grad * factor
+
+    return Swish

@@ -11,7 +11,7 @@ from __future__ import annotations
 import mpmath
 import numpy as np
 import pytest
-from framework_kit import assert_bfloat16_inside_verdict, check_ending, mp_gradient, need, rel_gap
+from framework_kit import assert_bfloat16_inside_verdict, check_ending, mp_gradient, need, rel_gap, swish_function
 
 from gradprobe.api import probe
 from gradprobe.common.errors import GraphLeftError, InPlaceWriteError, TargetLoadError
@@ -20,19 +20,7 @@ from gradprobe.render.json import report_dict
 torch = need("torch")
 
 
-class Swish(torch.autograd.Function):
-    """x * sigmoid(x) with a hand-written backward."""
-
-    @staticmethod
-    def forward(ctx, z):
-        ctx.save_for_backward(z)
-        return z * torch.sigmoid(z)
-
-    @staticmethod
-    def backward(ctx, g):
-        (z,) = ctx.saved_tensors
-        s = torch.sigmoid(z)
-        return g * (s * (1 + z * (1 - s)))
+Swish = swish_function()  # x * sigmoid(x) with a hand-written backward
 
 
 class SwishWrong(Swish):

@@ -72,22 +72,10 @@ def test_a_kink_within_the_narrow_types_reach_is_one(offset):
 # float64 run by more than the type's threshold at some coordinates while the loss is smooth.
 
 def _shop(dtype_name: str, shape: tuple[int, int, int], factor: float = 1.0, seed: int = 0):
-    from framework_kit import need
+    from framework_kit import need, swish_function
 
     torch = need("torch")
-
-    class Swish(torch.autograd.Function):
-        @staticmethod
-        def forward(ctx, z):
-            ctx.save_for_backward(z)
-            return z * torch.sigmoid(z)
-
-        @staticmethod
-        def backward(ctx, g):
-            (z,) = ctx.saved_tensors
-            s = torch.sigmoid(z)
-            return g * (s * (1 + z * (1 - s))) * factor
-
+    Swish = swish_function(factor)
     dtype = getattr(torch, dtype_name)
     r = np.random.default_rng(seed)
     x = torch.tensor(r.normal(size=shape[:2])).to(dtype)

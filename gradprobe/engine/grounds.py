@@ -163,12 +163,7 @@ def both_sides_drift(probe: TensorProbe, ladder: Ladder) -> np.ndarray:
 def _undecided(judged: Judged, k: np.ndarray, reason: str = UNSETTLED) -> Judged:
     """``judged`` with positions ``k`` undecided (UNSETTLED by default; not noise-limited: a
     retry goes to smaller steps)."""
-    if k.size == 0:
-        return judged
-    undecided = Judged(np.full(k.size, INCONCLUSIVE, dtype=judged.status.dtype),
-                       Estimate(judged.estimate.value[k], np.full(k.size, np.inf)),
-                       (reason,) * k.size, np.zeros(k.size, dtype=bool))
-    return judged.merged(k, undecided)
+    return judged.undecided(k, (reason,) * k.size, noise_limited=False)
 
 
 def crossed_wider(probe: TensorProbe, flat: np.ndarray, start: np.ndarray, ladder: Ladder,

@@ -30,8 +30,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..common.status import FAIL, INCONCLUSIVE
-from .ladder import Estimate
+from ..common.status import FAIL
 from .probe import TensorProbe
 from .verdict import Judged
 
@@ -105,10 +104,7 @@ def flat_below_the_steps(probe: TensorProbe, flat: np.ndarray, judged: Judged) -
     which = inside[moved]
     if which.size == 0:
         return judged
-    undecided = Judged(np.full(which.size, INCONCLUSIVE, dtype=judged.status.dtype),
-                       Estimate(judged.estimate.value[zero[which]], np.full(which.size, np.inf)),
-                       (CLOSER,) * which.size, np.ones(which.size, dtype=bool))
-    return judged.merged(zero[which], undecided)
+    return judged.undecided(zero[which], (CLOSER,) * which.size)
 
 
 TREADS = 8  # points on each side, evenly out to the bfloat16 step: a staircase shows a tread
@@ -134,7 +130,7 @@ def _grain(probe: TensorProbe) -> float:
     rounding (COARSE of the loss's size). A smooth loss's changes at such steps (a t + c t**2
     at t in ratios of 0.7) are no multiples of each other; a loss rounded to a coarse grid
     last changes by whole steps of it."""
-    a = probe.a.astype(np.float64).reshape(-1)
+    a = np.asarray(probe.a[:], dtype=np.float64).reshape(-1)  # an array or a Widened one
     norm = float(np.linalg.norm(a))
     if not np.isfinite(norm) or norm == 0.0:
         return 0.0
@@ -205,10 +201,7 @@ def coarse_treads(probe: TensorProbe, flat: np.ndarray, judged: Judged) -> Judge
     which = usable[tread]
     if which.size == 0:
         return judged
-    undecided = Judged(np.full(which.size, INCONCLUSIVE, dtype=judged.status.dtype),
-                       Estimate(judged.estimate.value[zero[which]], np.full(which.size, np.inf)),
-                       (STAIRCASE,) * which.size, np.ones(which.size, dtype=bool))
-    return judged.merged(zero[which], undecided)
+    return judged.undecided(zero[which], (STAIRCASE,) * which.size)
 
 
 def flat_through_sixteen_bits(probe: TensorProbe, flat: np.ndarray, judged: Judged) -> Judged:
@@ -239,7 +232,4 @@ def flat_through_sixteen_bits(probe: TensorProbe, flat: np.ndarray, judged: Judg
     if not reasons:
         return judged
     which = np.array(sorted(reasons))
-    undecided = Judged(np.full(which.size, INCONCLUSIVE, dtype=judged.status.dtype),
-                       Estimate(judged.estimate.value[zero[which]], np.full(which.size, np.inf)),
-                       tuple(reasons[k] for k in which.tolist()), np.ones(which.size, dtype=bool))
-    return judged.merged(zero[which], undecided)
+    return judged.undecided(zero[which], tuple(reasons[k] for k in which.tolist()))

@@ -97,6 +97,15 @@ class Judged:
             reasons[k] = r
         return Judged(status, Estimate(value, error), tuple(reasons), noisy)
 
+    def undecided(self, which: np.ndarray, reasons: tuple[str | None, ...], noise_limited: bool = True) -> Judged:
+        """These verdicts with positions ``which`` undecided, each for its reason, their
+        estimates kept and their bounds infinite."""
+        if which.size == 0:
+            return self
+        return self.merged(which, Judged(np.full(which.size, INCONCLUSIVE, dtype=self.status.dtype),
+                                         Estimate(self.estimate.value[which], np.full(which.size, np.inf)),
+                                         reasons, np.full(which.size, noise_limited)))
+
 
 def verdicts(probe: TensorProbe, a: np.ndarray, est: Estimate, tol: np.ndarray) -> np.ndarray:
     """Pass within the threshold (where the estimate is sharp enough), fail beyond both the
