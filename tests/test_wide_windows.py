@@ -1,4 +1,4 @@
-"""Wide-step windows (engine/narrow.py windowed, plain_windowed) on rows whose steps do not
+"""Wide-step windows (engine/wide_steps.py windowed, plain_windowed) on rows whose steps do not
 ascend: where the loss overflows at a wide step, the pair's step shrinks 16-fold
 (probe.TensorProbe.pairs), and the rows past it repeat smaller steps. A window across them
 is no window of the model (steps s, 2s, 4s, 8s), and its widest step is not its last.

@@ -6,8 +6,8 @@ loss that is a staircase of steps about u |L|: one coordinate's quotient needs s
 that curvature then hides all but gross errors. Along a unit direction d over the whole
 tensor the slope is g . d, which collects every element's share (along the analytic gradient
 itself |a| rather than one |a_i|). The discrepancy (g - a) . d is estimated as a coordinate's
-is on wide steps (:func:`.narrow.windowed`: Richardson windows whose error model is checked
-on the quotients, or :func:`.narrow.plain_windowed` without extrapolation) from the loss at
+is on wide steps (:func:`.wide_steps.windowed`: Richardson windows whose error model is checked
+on the quotients, or :func:`.wide_steps.plain_windowed` without extrapolation) from the loss at
 x +- t d for steps t, 2t, 4t, ... up to the params' own scale, the analytic change a . m of
 the moves m the forward really sees subtracted (so the rounding of x +- t d to the type's
 grid cancels). The loss's rounding is measured on the direction itself, at the point and at
@@ -36,7 +36,7 @@ from ..common.status import FAIL, INCONCLUSIVE
 from ..report.model import DirectionResult
 from .coordinates import CoordinateOutcome
 from .ladder import Estimate
-from .narrow import WIDE_NOISE, plain_windowed, windowed
+from .wide_steps import WIDE_NOISE, plain_windowed, windowed
 from .noise import SPREAD_MARGIN
 from .probe import TensorProbe, as_seen
 from .sampling import tensor_rng

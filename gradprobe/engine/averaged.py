@@ -1,7 +1,7 @@
 """Wide steps averaged over jittered pairs, for float32 code judged on its own arithmetic
 whose measured rounding (:mod:`.own_rounding`) still hides the threshold at every single step.
 
-At each of the AVERAGED widest steps s of :func:`.narrow.wide_estimate` within the reach the
+At each of the AVERAGED widest steps s of :func:`.wide_steps.wide_estimate` within the reach the
 coordinate's rounding was measured over, JITTERS pairs at steps s (1 + SPREAD t), t evenly
 spread over [-1/2, 1/2] (JITTERS - 1) times, replace the single pair. Their central quotients
 carry the same truncation up to a term in (SPREAD t)**2 s**2 that the tableau's s**2 column
@@ -17,8 +17,8 @@ the row keeps the rounding of one pair: the quotients scatter about their line i
 more than one pair's rounding allows (rounding, not something else, moves them), and the
 means of the two halves (every other pair, less their line's share) agree within one
 pair's rounding, the sum of the two halves' own (the roundings average out rather than move
-together). The windows of :func:`.narrow.windowed`
-and :func:`.narrow.plain_windowed` then judge the rows, with their model checks.
+together). The windows of :func:`.wide_steps.windowed`
+and :func:`.wide_steps.plain_windowed` then judge the rows, with their model checks.
 """
 
 from __future__ import annotations
@@ -26,7 +26,7 @@ from __future__ import annotations
 import numpy as np
 
 from .ladder import Estimate
-from .narrow import WIDE_FIRST, WIDE_LAST, WIDE_ROWS, plain_windowed, windowed
+from .wide_steps import WIDE_FIRST, WIDE_LAST, WIDE_ROWS, plain_windowed, windowed
 from .probe import Pairs, TensorProbe
 from .refine import Taken, pairs_reusing
 
@@ -38,7 +38,7 @@ CHANGE_ULPS = 2.0  # neighbouring jittered points change the loss by this many u
 
 
 def within_reach(probe: TensorProbe, flat: np.ndarray, reach: np.ndarray, taken: list[Taken]) -> Estimate:
-    """The wide steps' estimate (:func:`.narrow.wide_estimate`, with windows without
+    """The wide steps' estimate (:func:`.wide_steps.wide_estimate`, with windows without
     extrapolation too) from windows whose steps stay within ``reach`` (per coordinate: where
     ``probe``'s rounding was measured) as well as the params' scale; the pairs are those
     ``taken`` before where there are."""
@@ -47,7 +47,7 @@ def within_reach(probe: TensorProbe, flat: np.ndarray, reach: np.ndarray, taken:
 
 
 def _table(probe: TensorProbe, flat: np.ndarray, reach: np.ndarray, taken: list[Taken]) -> tuple[tuple[np.ndarray, ...], np.ndarray]:
-    """The wide steps' rows (as :func:`.narrow.wide_estimate` builds them) with each column's
+    """The wide steps' rows (as :func:`.wide_steps.wide_estimate` builds them) with each column's
     largest step min(scale, ``reach``); and the steps asked."""
     n = flat.size
     ks = np.arange(WIDE_FIRST, WIDE_LAST + WIDE_ROWS)

@@ -25,7 +25,7 @@ from .grounds import drifting_sides, judged_ladder, sides_grown
 from .refine import RATIO, ROWS, Taken, climb, ladder_taken, one_sided_drift
 from .staircase import flat_through_sixteen_bits
 from .steps import SETTLE_FRACTION, gap_suspects, largest_smooth_step, start_steps, steps_down
-from .narrow import wide_estimate
+from .wide_steps import wide_estimate
 from .own_rounding import judged_on_own_rounding
 from .sixteen import measured_passes
 from .richardson import first_steps, joined, rows_of, settled, two_rows_settle
@@ -203,7 +203,7 @@ def _central(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
 def _widened(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken: list[Taken]) -> Judged:
     """Narrow code judged on its own arithmetic: coordinates that rounding noise left
     undecided at every step of the ladders, judged on much wider steps
-    (:func:`.narrow.wide_estimate`) where those decide them."""
+    (:func:`.wide_steps.wide_estimate`) where those decide them."""
     if not is_narrow(probe.compute_dtype) or probe.narrow is not None:
         return judged
     noisy = np.flatnonzero((judged.status == INCONCLUSIVE) & np.array([r == NOISE for r in judged.reasons], dtype=bool))

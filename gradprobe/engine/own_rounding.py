@@ -10,7 +10,7 @@ every difference of the loss along it. What remains is the rounding of what the 
 does move, which the loss shows directly along the coordinate.
 
 Measured per coordinate at the points the wide steps use (the point, and the widest step on
-either side, :data:`.narrow.WIDE_LAST`): JITTER losses each, at moves DELTA apart along the
+either side, :data:`.wide_steps.WIDE_LAST`): JITTER losses each, at moves DELTA apart along the
 coordinate, DELTA at least the move that changes the loss by CHANGE_ULPS units of its last
 place as the analytic gradient predicts (not the tensor's floor, which may lie far above a
 small gradient), so the moves reach past the loss's own rounding.
@@ -27,7 +27,7 @@ saturates on that side, a sharp softplus), the rows are measured again NEARER_BY
 nearer the point (at most NEARER times), and the figure holds for pairs whose moves stay
 within the reach measured (beyond it, the target's figure). At most MEASURED coordinates per
 tensor (as many as the ladders re-estimate); the wide steps are judged again with the
-measured figure, with windows without extrapolation too (:func:`.narrow.plain_windowed`:
+measured figure, with windows without extrapolation too (:func:`.wide_steps.plain_windowed`:
 rounding, not curvature, limits these quotients); those still undecided by rounding, on the
 widest steps within reach averaged over jittered pairs (:mod:`.averaged`).
 """
@@ -38,7 +38,7 @@ import numpy as np
 
 from .averaged import averaged_estimate, within_reach
 from .ladder import Estimate
-from .narrow import WIDE_FIRST, WIDE_LAST, WIDE_NOISE, WIDE_ROWS
+from .wide_steps import WIDE_FIRST, WIDE_LAST, WIDE_NOISE, WIDE_ROWS
 from .probe import Pairs, TensorProbe, as_seen
 from .refine import Taken, pairs_reusing
 from .verdict import NOISE, SIGNIFICANCE, Judged, judge_plain

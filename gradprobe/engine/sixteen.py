@@ -21,7 +21,7 @@ step) is the largest any level shows, taken at every level: a level whose roundi
 together shows too little, one whose quotients all agree none, and where no level shows
 any there is no estimate. The one-sided quotients' gap likewise (at least twice the
 quotients' rounding). The levels
-are windows of :func:`.narrow.plain_windowed`, whose error model (quotients that follow
+are windows of :func:`.wide_steps.plain_windowed`, whose error model (quotients that follow
 c2 s**2, a gap that shrinks with the step, the bound WIDE_SAFETY times the measured
 curvature plus WIDE_NOISE times the rounding) is checked on the coordinate as for every
 wide estimate; the window with the smallest bound.
@@ -46,7 +46,7 @@ import numpy as np
 from ..common.roundoff import is_narrow, unit_roundoff
 from ..common.status import INCONCLUSIVE, PASS
 from .ladder import Estimate
-from .narrow import WIDE_FIRST, WIDE_LAST, WIDE_ROWS, plain_windowed
+from .wide_steps import WIDE_FIRST, WIDE_LAST, WIDE_ROWS, plain_windowed
 from .probe import TensorProbe
 from .refine import Taken, pairs_reusing
 from .verdict import NOISE, Judged
@@ -65,7 +65,7 @@ def coarse(probe: TensorProbe) -> bool:
 
 
 def _widest(probe: TensorProbe, flat: np.ndarray) -> np.ndarray:
-    """The widest step of :func:`.narrow.wide_estimate` within the params' scale (its
+    """The widest step of :func:`.wide_steps.wide_estimate` within the params' scale (its
     smallest where none is)."""
     h0 = probe.prior_steps(flat)
     scale = np.maximum(np.abs(probe.x[flat].astype(np.float64)), probe.x_scale)
