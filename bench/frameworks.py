@@ -33,7 +33,8 @@ import torch
 from gradprobe import probe
 from gradprobe.targets.boundary import describe
 from gradprobe.targets.frameworks import Framed
-from gradprobe.engine.evaluate import Evaluator, LossFunction, Perturbation
+from gradprobe.engine.evaluate import LossFunction, Perturbation
+from gradprobe.engine.evaluator import Evaluator
 from gradprobe.common.tensors import Workspace
 
 CALLS = 400

@@ -6,7 +6,8 @@ from collections.abc import Callable
 
 import numpy as np
 
-from gradprobe.engine.evaluate import Evaluator, LossFunction
+from gradprobe.engine.evaluate import LossFunction
+from gradprobe.engine.evaluator import Evaluator
 from gradprobe.engine.probe import TensorProbe
 from gradprobe.common.tensors import Workspace
 

@@ -6,7 +6,8 @@ import pickle
 
 import numpy as np
 
-from gradprobe.engine.evaluate import Evaluator, LossFunction, Perturbation
+from gradprobe.engine.evaluate import LossFunction, Perturbation
+from gradprobe.engine.evaluator import Evaluator
 from gradprobe.common.tensors import Workspace
 
 

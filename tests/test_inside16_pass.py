@@ -90,7 +90,8 @@ def test_the_jittered_bound_holds_the_mpmath_derivative():
     """The estimate taken with the rounding measured on each coordinate lies within its bound
     of mpmath's derivative of the bfloat16 loss (outside truth: mpmath at the bfloat16 values),
     and that bound resolves the threshold."""
-    from gradprobe.engine.evaluate import Evaluator, LossFunction
+    from gradprobe.engine.evaluate import LossFunction
+    from gradprobe.engine.evaluator import Evaluator
     from gradprobe.engine.probe import TensorProbe
     from gradprobe.engine.refine import Taken
     from gradprobe.engine.sixteen import jittered_estimate

@@ -13,7 +13,8 @@ import mpmath
 import numpy as np
 import pytest
 
-from gradprobe.engine.evaluate import Evaluator, LossFunction
+from gradprobe.engine.evaluate import LossFunction
+from gradprobe.engine.evaluator import Evaluator
 from gradprobe.engine.point import prepare
 from gradprobe.common.tensors import Workspace
 

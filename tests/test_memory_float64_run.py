@@ -18,7 +18,8 @@ from framework_kit import need
 
 from gradprobe.common.tensors import Workspace
 from gradprobe.engine.directions import unit_direction
-from gradprobe.engine.evaluate import Evaluator, LossFunction
+from gradprobe.engine.evaluate import LossFunction
+from gradprobe.engine.evaluator import Evaluator
 from gradprobe.engine.gradients import validate
 from gradprobe.engine.point import prepare
 from gradprobe.engine.precision import CHUNK, _moved, narrower_compute_type

@@ -29,7 +29,8 @@ from gradprobe.engine.directions import (  # noqa: E402
     check_direction,
     unit_direction,
 )
-from gradprobe.engine.evaluate import Evaluator, LossFunction, Perturbation  # noqa: E402
+from gradprobe.engine.evaluate import LossFunction, Perturbation  # noqa: E402
+from gradprobe.engine.evaluator import Evaluator  # noqa: E402
 
 SIZE = LAZY_DIRECTION + 3 * DRAW_BLOCK + 1234
 

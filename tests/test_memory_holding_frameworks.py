@@ -17,7 +17,8 @@ import numpy as np
 from framework_kit import need, rel_gap
 
 from gradprobe.common.tensors import Handed, Workspace
-from gradprobe.engine.evaluate import Evaluator, LossFunction, Perturbation
+from gradprobe.engine.evaluate import LossFunction, Perturbation
+from gradprobe.engine.evaluator import Evaluator
 from gradprobe.engine.gradients import validate
 from gradprobe.engine.point import prepare
 from gradprobe.engine.probe import Widened

@@ -18,7 +18,8 @@ from framework_kit import need
 from gradprobe.api import probe
 from gradprobe.common.tensors import ALIGNMENT, Workspace
 from gradprobe.engine.directions import Direction, unit_direction
-from gradprobe.engine.evaluate import Evaluator, LossFunction
+from gradprobe.engine.evaluate import LossFunction
+from gradprobe.engine.evaluator import Evaluator
 from gradprobe.engine.point import prepare
 from gradprobe.targets.frameworks import frame
 from gradprobe.targets.target import Target

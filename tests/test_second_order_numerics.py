@@ -9,7 +9,8 @@ import numpy as np
 import pytest
 
 from gradprobe import probe
-from gradprobe.engine.evaluate import Evaluator, LossFunction
+from gradprobe.engine.evaluate import LossFunction
+from gradprobe.engine.evaluator import Evaluator
 from gradprobe.engine.second_forward import mixed_difference
 from gradprobe.engine.second_numeric import KINK, PASS, Slopes
 from gradprobe.engine.second_source import GradientField, HessianSource, Layout

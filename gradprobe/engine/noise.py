@@ -14,7 +14,8 @@ import numpy as np
 
 from ..common.errors import BadOutputError, UserCodeError
 from ..common.tensors import Workspace
-from .evaluate import Evaluator, Perturbation
+from .evaluate import Perturbation
+from .evaluator import Evaluator
 
 CALLS = 3
 ULPS = 4.0  # each moved param moves by this many units of its own last place

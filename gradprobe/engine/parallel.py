@@ -1,6 +1,6 @@
 """Evaluating batches of perturbations in other processes or on a cluster.
 
-Two backends feed the one :class:`~gradprobe.engine.evaluate.Evaluator`:
+Two backends feed the one :class:`~gradprobe.engine.evaluator.Evaluator`:
 
 - :class:`WorkerPool` (``--jobs N``): N processes, each of which gets the forward (its entry
   point, loaded again in the worker, or the function itself) and the private copies of the

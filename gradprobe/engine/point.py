@@ -19,7 +19,8 @@ from ..common.errors import ProbeError
 from ..common.heap import release_heap
 from ..common.tensors import Workspace, is_float
 from .domain import quiet
-from .evaluate import Backend, Evaluator, LossFunction
+from .evaluate import LossFunction
+from .evaluator import Backend, Evaluator
 from .gradients import Gradients, validate, widened
 from .narrow import propagated_rounding
 from .noise import measured_loss_scale, measured_rounding

@@ -38,7 +38,8 @@ import numpy as np
 from ..common.classes import dataclass
 from ..common.errors import BadOutputError, UserCodeError
 from ..common.tensors import Workspace
-from .evaluate import Evaluator, Perturbation
+from .evaluate import Perturbation
+from .evaluator import Evaluator
 
 SMALL = 2.0**-36
 LARGE = 2.0**-12

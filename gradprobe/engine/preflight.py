@@ -17,7 +17,8 @@ from ..common.errors import (
     summarise,
 )
 from ..common.tensors import Workspace, is_float_dtype
-from .evaluate import Evaluator, output_to_loss
+from .evaluate import output_to_loss
+from .evaluator import Evaluator
 
 
 @dataclass(frozen=True)

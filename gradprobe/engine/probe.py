@@ -16,7 +16,8 @@ import numpy as np
 
 from ..common.classes import dataclass
 from ..common.errors import BadOutputError
-from .evaluate import Evaluator, Perturbation
+from .evaluate import Perturbation
+from .evaluator import Evaluator
 from ..common.roundoff import rounding_units
 
 # Rounding noise of one loss value is taken as rounding_units(type) * eps * max(|f|, L), L the

@@ -23,7 +23,8 @@ from ..common.classes import dataclass
 from ..common.errors import ProbeError
 from ..common.heap import release_heap
 from ..common.tensors import Workspace, aligned_copy, is_float, is_float_dtype
-from .evaluate import Evaluator, LossFunction
+from .evaluate import LossFunction
+from .evaluator import Evaluator
 from .gradients import Gradients, validate
 from .precision import narrower_compute_type
 from .preflight import call_backward

@@ -18,7 +18,8 @@ from ..report.model import LayerResult, Report, TensorResult
 from ..common.status import FAIL, Status
 from ..targets.target import Target
 from ..common.tensors import INPUT_LAYER, Workspace, is_float, layer_of
-from .evaluate import Backend, Evaluator, LossFunction, Progress
+from .evaluate import LossFunction
+from .evaluator import Backend, Evaluator, Progress
 from .point import Numerics, Point, prepare
 from .record import TensorRecord
 from .tensor_check import check_tensor

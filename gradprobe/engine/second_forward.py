@@ -13,7 +13,8 @@ import math
 import numpy as np
 
 from ..common.classes import dataclass
-from .evaluate import Evaluator, Perturbation
+from .evaluate import Perturbation
+from .evaluator import Evaluator
 from .second_numeric import power_of_two
 from .second_source import Layout
 

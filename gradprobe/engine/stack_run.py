@@ -12,7 +12,7 @@ from collections.abc import Callable
 from dataclasses import replace
 from typing import TYPE_CHECKING, Any
 
-from .evaluate import Progress
+from .evaluator import Progress
 from .runner import run_check
 from ..common.errors import ProbeError
 from ..settings.options import CheckOptions
