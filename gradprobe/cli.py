@@ -16,11 +16,11 @@ from typing import TYPE_CHECKING, Any
 
 import click
 
-from .common.classes import dataclass
 from .settings.config import load_config
 from .common.errors import ProbeError, UsageProblem
-from .settings.options import SETTINGS, CheckOptions, ReportFiles, split_values
+from .settings.options import SETTINGS, CheckOptions, split_values
 from .report.model import TargetRun
+from .cli_output import Output, console_for, progress_display, say_error, show, writable, write_report
 from .settings.command_line import (
     CheckCommand,
     effective_settings,
@@ -69,67 +69,6 @@ import failure, forward/backward raised or tried to end the process, ...);
 """
 
 
-@dataclass(frozen=True)
-class Output:
-    """Where and how results are shown."""
-
-    files: ReportFiles
-    quiet: bool
-    traceback: bool
-    maps: bool = False
-    command: str = ""  # the command line that reproduces the run (for the HTML page)
-
-    def stdout_free(self) -> bool:
-        return self.files.json != "-"
-
-
-def _console(stderr: bool = False) -> Console:
-    from rich.console import Console
-
-    from .render.terminal import plain_console
-
-    stream = sys.stderr if stderr else sys.stdout
-    if os.environ.get("NO_COLOR") or not stream.isatty():
-        columns = os.environ.get("COLUMNS", "")
-        return plain_console(stream, int(columns) if columns.isdigit() and int(columns) >= 20 else 120)
-    return Console(file=stream, highlight=False, emoji=False, markup=False)
-
-
-def _say_error(message: str, exc: BaseException | None, show_trace: bool) -> None:
-    if show_trace and exc is not None:
-        import traceback  # local: only a failed check asked to show it needs it
-
-        traceback.print_exception(type(exc), exc, exc.__traceback__, file=sys.stderr)
-    click.echo(f"gradprobe: error: {message}", err=True)
-
-
-def _progress() -> Any:
-    if not sys.stderr.isatty() or os.environ.get("CI"):
-        return None
-    from rich.console import Console
-
-    from .render.progress import TerminalProgress
-
-    return TerminalProgress(Console(file=sys.stderr))
-
-
-def writable(path: str, what: str) -> None:
-    """Refuse a report path that cannot be written, before any check runs ('-' is standard
-    output for the JSON report)."""
-    if path == "-" and what == "JSON report":
-        return
-    from .settings.report_files import check_writable
-
-    check_writable(path, what)
-
-
-def _write(path: str, text: str, what: str) -> None:
-    try:
-        Path(path).write_text(text)
-    except OSError as exc:
-        raise UsageProblem(f"cannot write the {what} to {path} ({exc.strerror})", value=path) from exc
-
-
 def check_one(spec: str, options: CheckOptions, out: Output, baseline: Baseline | None = None,
               alone: bool = True, others: list[str] | None = None) -> TargetRun:
     """Check one target and show its table; errors become a TargetRun with their exit code.
@@ -140,7 +79,7 @@ def check_one(spec: str, options: CheckOptions, out: Output, baseline: Baseline 
     from .targets.loading import load_any
     from .engine.stack_run import run_any
 
-    progress = _progress()
+    progress = progress_display()
     user_output = (contextlib.redirect_stdout(sys.stderr) if not out.stdout_free()
                    else contextlib.nullcontext())
     try:
@@ -160,18 +99,18 @@ def check_one(spec: str, options: CheckOptions, out: Output, baseline: Baseline 
                 progress.close()
     except ProbeError as exc:
         sentence = exc.with_target(spec).sentence()
-        _say_error(sentence, exc, out.traceback)
+        say_error(sentence, exc, out.traceback)
         return TargetRun(spec, exc.exit_code, error=sentence)
     except SystemExit as exc:  # past every guard: still never a pass
         from .common.guard import exit_error
 
         error = exit_error(exc, "the target's code").with_target(spec)
-        _say_error(error.sentence(), exc, out.traceback)
+        say_error(error.sentence(), exc, out.traceback)
         return TargetRun(spec, error.exit_code, error=error.sentence())
     except Exception as exc:  # a bug in gradprobe itself, not in the user's code
         sentence = (f"{spec}: internal error {type(exc).__name__}: {exc} (please report it; "
                     "--traceback shows where)")
-        _say_error(sentence, exc, out.traceback)
+        say_error(sentence, exc, out.traceback)
         return TargetRun(spec, EXIT_INTERNAL, error=sentence)
     quiet = out.quiet or not out.stdout_free()
     stream = sys.stdout if out.stdout_free() else sys.stderr
@@ -182,23 +121,10 @@ def check_one(spec: str, options: CheckOptions, out: Output, baseline: Baseline 
         return TargetRun(spec, EXIT_OK if report.ok else EXIT_FAIL, report=report)
     from .render.terminal import COLOUR, PLAIN, renderables
 
-    console = _console(stderr=not out.stdout_free())
+    console = console_for(stderr=not out.stdout_free())
     theme = PLAIN if console.no_color else COLOUR
-    _show(console, renderables(report, theme, quiet=quiet, with_maps=out.maps, width=console.width))
+    show(console, renderables(report, theme, quiet=quiet, with_maps=out.maps, width=console.width))
     return TargetRun(spec, EXIT_OK if report.ok else EXIT_FAIL, report=report)
-
-
-def _show(console: Console, items: Any) -> None:
-    """Print rich renderables; plain output (a pipe, a log) without the trailing spaces that
-    tables pad their cells with."""
-    if not console.no_color or console.is_terminal:
-        for item in items:
-            console.print(item, crop=False)
-        return
-    with console.capture() as captured:
-        for item in items:
-            console.print(item, crop=False)
-    console.file.write("".join(line.rstrip() + "\n" for line in captured.get().splitlines()))
 
 
 def usage_sentence(message: str, command: str) -> str:
@@ -287,7 +213,7 @@ def check_command(ctx: click.Context, targets: tuple[str, ...], show_maps: bool,
 
             baseline = baseline_of(options)
     except ProbeError as exc:
-        _say_error(exc.sentence(), exc, show_traceback)
+        say_error(exc.sentence(), exc, show_traceback)
         return exc.exit_code
     from .settings.report_files import reproduce
 
@@ -307,13 +233,13 @@ def _run(chosen: list[str], options: CheckOptions, out: Output, baseline: Baseli
     try:
         _reports(runs, out)
     except ProbeError as exc:
-        _say_error(exc.sentence(), exc, out.traceback)
+        say_error(exc.sentence(), exc, out.traceback)
         code = max(code, exc.exit_code)
     if len(runs) > 1:
         from .render.terminal import COLOUR, PLAIN, run_summary
 
-        console = _console(stderr=not out.stdout_free())
-        _show(console, [run_summary(runs, code, PLAIN if console.no_color else COLOUR)])
+        console = console_for(stderr=not out.stdout_free())
+        show(console, [run_summary(runs, code, PLAIN if console.no_color else COLOUR)])
     return code
 
 
@@ -325,7 +251,7 @@ def _reports(runs: list[TargetRun], out: Output) -> None:
         if out.files.json == "-":
             click.echo(text, nl=False)
         else:
-            _write(out.files.json, text, "JSON report")
+            write_report(out.files.json, text, "JSON report")
     if out.files.junit is None and out.files.html is None:
         return
     from datetime import datetime
@@ -336,11 +262,11 @@ def _reports(runs: list[TargetRun], out: Output) -> None:
 
         from .render.junit import render_junit
 
-        _write(out.files.junit, render_junit(runs, stamp, socket.gethostname()), "JUnit report")
+        write_report(out.files.junit, render_junit(runs, stamp, socket.gethostname()), "JUnit report")
     if out.files.html is not None:
         from .render.html import render_html
 
-        _write(out.files.html, render_html(runs, out.command, stamp), "HTML report")
+        write_report(out.files.html, render_html(runs, out.command, stamp), "HTML report")
 
 
 @cli.command("starter")
@@ -360,7 +286,7 @@ def starter_command(path: str, force: bool, stack: bool) -> int:
     try:
         write_starter(Path(path), force, stack)
     except ProbeError as exc:
-        _say_error(exc.sentence(), exc, False)
+        say_error(exc.sentence(), exc, False)
         return exc.exit_code
     click.echo(f"wrote {path}; run: gradprobe check {path}")
     return EXIT_OK
