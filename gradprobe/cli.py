@@ -20,7 +20,7 @@ from .settings.config import load_config
 from .common.errors import ProbeError, UsageProblem
 from .settings.options import SETTINGS, CheckOptions, split_values
 from .report.model import TargetRun
-from .cli_output import Output, console_for, progress_display, say_error, show, writable, write_report
+from .render.console import Output, console_for, progress_display, say_error, show, writable, write_report
 from .settings.command_line import (
     CheckCommand,
     effective_settings,

@@ -11,9 +11,9 @@ from typing import TYPE_CHECKING, Any
 
 import click
 
-from .common.classes import dataclass
-from .common.errors import UsageProblem
-from .settings.options import ReportFiles
+from ..common.classes import dataclass
+from ..common.errors import UsageProblem
+from ..settings.options import ReportFiles
 
 if TYPE_CHECKING:
     from rich.console import Console
@@ -36,7 +36,7 @@ class Output:
 def console_for(stderr: bool = False) -> Console:
     from rich.console import Console
 
-    from .render.terminal import plain_console
+    from .terminal import plain_console
 
     stream = sys.stderr if stderr else sys.stdout
     if os.environ.get("NO_COLOR") or not stream.isatty():
@@ -58,7 +58,7 @@ def progress_display() -> Any:
         return None
     from rich.console import Console
 
-    from .render.progress import TerminalProgress
+    from .progress import TerminalProgress
 
     return TerminalProgress(Console(file=sys.stderr))
 
@@ -68,7 +68,7 @@ def writable(path: str, what: str) -> None:
     output for the JSON report)."""
     if path == "-" and what == "JSON report":
         return
-    from .settings.report_files import check_writable
+    from ..settings.report_files import check_writable
 
     check_writable(path, what)
 
