@@ -27,6 +27,7 @@ from .staircase import flat_through_sixteen_bits
 from .steps import SETTLE_FRACTION, gap_suspects, largest_smooth_step, start_steps, steps_down
 from .wide_steps import wide_estimate
 from .own_rounding import judged_on_own_rounding
+from .loose_passes import tightened
 from .sixteen import measured_passes
 from .richardson import first_steps, joined, rows_of, settled, two_rows_settle
 from ..common.roundoff import is_narrow
@@ -206,6 +207,11 @@ def _widened(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken: list[T
     (:func:`.wide_steps.wide_estimate`) where those decide them."""
     if not is_narrow(probe.compute_dtype) or probe.narrow is not None:
         return judged
+    return tightened(probe, flat, judged, lambda j: _wide_steps(probe, flat, j, taken))
+
+
+def _wide_steps(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken: list[Taken]) -> Judged:
+    """The stage of :func:`_widened` on ``judged``: coordinates undecided by rounding noise."""
     noisy = np.flatnonzero((judged.status == INCONCLUSIVE) & np.array([r == NOISE for r in judged.reasons], dtype=bool))
     if noisy.size == 0:
         return judged

@@ -18,7 +18,7 @@ from ..common.classes import dataclass
 from ..common.errors import BadOutputError
 from .evaluate import Perturbation
 from .evaluator import Evaluator
-from ..common.roundoff import rounding_units
+from ..common.roundoff import is_narrow, rounding_units
 
 # Rounding noise of one loss value is taken as rounding_units(type) * eps * max(|f|, L), L the
 # loss scale measured on the target (see roundoff.py and noise.py).
@@ -26,6 +26,7 @@ FLOOR_FRACTION = 1e-3  # denominators never fall below 1e-3 of the tensor's grad
 TARGET_FLOOR_FRACTION = 1e-4  # ... nor below 1e-4 of the target's largest tensor scale
 
 
+SIXTEEN_BIT_EPS = float(np.finfo(np.float16).eps)  # 16-bit arithmetic keeps its own step rules (along.py)
 ALONG_CHUNK = 1 << 16  # elements moved at a time along a direction
 SHRINKS = 40  # a step that meets a non-finite loss shrinks 16-fold down to x's resolution
 
@@ -156,6 +157,11 @@ class TensorProbe:
         rms = root_mean_square(analytic)
         self.grad_scale = rms  # the tensor's typical gradient
         self.x_scale = root_mean_square(x)  # params' rms
+        if self.x_scale == 0 and is_narrow(self.compute_dtype) and self.eps < SIXTEEN_BIT_EPS:
+            # A tensor all at 0 (a bias as initialised) says nothing of the range over which
+            # the loss is smooth along it: the unit the first step assumes (max(1, |x|)),
+            # not 0, which held the wide steps narrow arithmetic needs near the first step.
+            self.x_scale = 1.0
         tiny = float(np.finfo(np.float64).tiny)
         self.tensor_floor = max(FLOOR_FRACTION * rms, tiny)  # the tensor's own scale only
         self.floor = max(self.tensor_floor, TARGET_FLOOR_FRACTION * target_scale)

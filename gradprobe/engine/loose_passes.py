@@ -1,0 +1,64 @@
+"""Passes of float32 code judged on its own arithmetic whose bound lies above the threshold,
+looked at again on the wide steps.
+
+In narrow arithmetic a pass needs the discrepancy within the threshold and a bound below the
+coordinate's scale (verdict._resolved): at the first steps the loss's rounding can leave a
+bound far above the threshold while the value agrees. Such a pass says only that the
+relative error lies below the threshold plus its bound, and a bug of that size can pass where
+the estimate's own error happens to cancel it (a bias element 0.5% off passed at a bound of
+3.8%). The wide steps that undecided coordinates get (:func:`.narrow.wide_estimate`, then each
+coordinate's own rounding and averaged pairs, :mod:`.own_rounding`) usually bound the
+derivative far more tightly: the LOOSE passes with the largest bounds over the threshold are
+judged there again. A failure found there stands (a discrepancy beyond the threshold and
+SIGNIFICANCE bounds of an estimate whose model was checked on the coordinate), as does a pass
+with a smaller bound; elsewhere the first pass stays as it was.
+16-bit arithmetic, a staircase of its own, keeps its rules (:mod:`.along`).
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+
+import numpy as np
+
+from ..common.roundoff import is_narrow, unit_roundoff
+from ..common.status import FAIL, INCONCLUSIVE, PASS
+from .probe import TensorProbe
+from .verdict import NOISE, Judged
+
+LOOSE = 400  # passes per tensor looked at again (the loosest first), as many as ladders re-estimate
+
+
+def loose_passes(probe: TensorProbe, flat: np.ndarray, judged: Judged) -> np.ndarray:
+    """Positions in ``flat`` of passes whose bound lies above the threshold (float32-like
+    narrow arithmetic only; the loosest LOOSE of them)."""
+    if not is_narrow(probe.compute_dtype) or unit_roundoff(probe.compute_dtype) >= unit_roundoff(np.float16):
+        return np.zeros(0, dtype=np.int64)
+    tol = probe.tolerance(flat, judged.estimate.value)
+    with np.errstate(invalid="ignore"):
+        over = judged.estimate.error / tol
+    loose = np.flatnonzero((judged.status == PASS) & (over > 1.0))
+    if loose.size > LOOSE:
+        loose = np.sort(loose[np.argsort(-over[loose], kind="stable")[:LOOSE]])
+    return loose
+
+
+def tightened(probe: TensorProbe, flat: np.ndarray, judged: Judged,
+              again: Callable[[Judged], Judged]) -> Judged:
+    """``judged`` with its loose passes judged again by ``again`` (the wide steps' stage, which
+    takes verdicts and re-judges those left undecided by rounding): failures and passes with a
+    smaller bound taken, every other loose pass kept as it was."""
+    loose = loose_passes(probe, flat, judged)
+    if loose.size == 0:
+        return again(judged)
+    reasons = list(judged.reasons)
+    for k in loose.tolist():
+        reasons[k] = NOISE
+    status = judged.status.copy()
+    status[loose] = INCONCLUSIVE
+    noisy = judged.noise_limited.copy()
+    noisy[loose] = True
+    redone = again(Judged(status, judged.estimate, tuple(reasons), noisy))
+    first, second = judged.pick(loose), redone.pick(loose)
+    take = (second.status == FAIL) | ((second.status == PASS) & (second.estimate.error < first.estimate.error))
+    return redone.merged(loose[~take], first.pick(np.flatnonzero(~take)))
