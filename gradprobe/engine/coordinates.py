@@ -27,7 +27,7 @@ from .staircase import flat_through_sixteen_bits
 from .steps import SETTLE_FRACTION, gap_suspects, largest_smooth_step, start_steps, steps_down
 from .wide_steps import wide_estimate
 from .own_rounding import judged_on_own_rounding
-from .loose_passes import tightened
+from .loose_passes import loose_note, tightened
 from .sixteen import measured_passes
 from .richardson import first_steps, joined, rows_of, settled, two_rows_settle
 from ..common.roundoff import is_narrow
@@ -324,10 +324,12 @@ def _outcome(probe: TensorProbe, flat: np.ndarray, judged: Judged, start_count: 
     status, scale = zero_at_own_scale(probe, flat, a, numeric, error_estimate, status, scale)
     status, reasons = unfuzzed(probe, flat, a, numeric, error_estimate, status, reasons)
     err = np.abs(a - numeric)
+    own = probe.narrow is None and probe.own_code is None  # judged on its own narrow arithmetic
     return CoordinateOutcome(
         flat=flat, analytic=a, numeric=numeric, error_estimate=error_estimate,
         rel=err / scale, abs=err, scale=scale, status=status,
         reasons=reasons, evaluations=probe.evaluator.count - start_count,
+        note=loose_note(probe, status, error_estimate, scale) if own else None,
     )
 
 

@@ -62,3 +62,20 @@ def tightened(probe: TensorProbe, flat: np.ndarray, judged: Judged,
     first, second = judged.pick(loose), redone.pick(loose)
     take = (second.status == FAIL) | ((second.status == PASS) & (second.estimate.error < first.estimate.error))
     return redone.merged(loose[~take], first.pick(np.flatnonzero(~take)))
+
+
+def loose_note(probe: TensorProbe, status: np.ndarray, bound: np.ndarray, scale: np.ndarray) -> str | None:
+    """What a tensor's passes with a bound (absolute; ``scale`` its denominators) above the
+    threshold say (after :func:`tightened`), or None where there are none."""
+    if not is_narrow(probe.compute_dtype) or unit_roundoff(probe.compute_dtype) >= unit_roundoff(np.float16):
+        return None
+    with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
+        relative_bound = bound / scale
+    loose = (status == PASS) & (relative_bound > probe.threshold)
+    if not loose.any():
+        return None
+    n, worst = int(loose.sum()), float(relative_bound[loose].max())
+    which = f"{n} passing coordinates carry" if n > 1 else "1 passing coordinate carries"
+    return (f"{probe.tensor}: {which} an error bound above the threshold (up to {worst:.2g} relative), the "
+            f"tightest the wide steps found in the loss's {probe.compute_dtype} rounding: there a pass says "
+            f"the relative error is below the threshold plus that bound")
