@@ -110,3 +110,13 @@ def test_an_unresolvable_coordinate_names_the_smallest_error_it_could_show(seed)
         said = re.search(r"hides any relative error below ([0-9.eE+-]+) on it", d.reason or "")
         assert said, d.reason
         assert float(said.group(1)) > report.threshold, d.reason
+
+
+# A wrong piece's derivative whose tensor passed on estimates that agreed within the threshold
+# while their bounds reached 14% of the coordinate's value (float32 rounding resolves those
+# coordinates no better): a pass must tell an error of ten thresholds from none, so the
+# coordinate stays undecided with the smallest error it could have seen, never `pass`.
+def test_a_bug_under_loose_bounds_is_not_passed():
+    o = _judged(45092)
+    assert not o["false_alarm"], (o["status"], o["expect"])
+    assert o["expect_fail"] and not o["missed"], (o["status"], o["expect"])
