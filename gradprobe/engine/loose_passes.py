@@ -6,8 +6,8 @@ coordinate's scale (verdict._resolved): at the first steps the loss's rounding c
 bound far above the threshold while the value agrees. Such a pass says only that the
 relative error lies below the threshold plus its bound, and a bug of that size can pass where
 the estimate's own error happens to cancel it (a bias element 0.5% off passed at a bound of
-3.8%). The wide steps that undecided coordinates get (:func:`.wide_steps.wide_estimate`, then each
-coordinate's own rounding and averaged pairs, :mod:`.own_rounding`) usually bound the
+3.8%). The wide steps that undecided coordinates get (:func:`.wide_steps.wide_estimate`,
+then each coordinate's own rounding and averaged pairs, :mod:`.own_rounding`) usually bound the
 derivative far more tightly: the LOOSE passes with the largest bounds over the threshold are
 judged there again. A failure found there stands (a discrepancy beyond the threshold and
 SIGNIFICANCE bounds of an estimate whose model was checked on the coordinate), as does a pass
