@@ -21,7 +21,7 @@ from gradprobe.engine.evaluate import LossFunction, Perturbation
 from gradprobe.engine.evaluator import Evaluator
 from gradprobe.engine.gradients import validate
 from gradprobe.engine.point import prepare
-from gradprobe.engine.probe import Widened
+from gradprobe.engine.widened import Widened
 from gradprobe.targets.frameworks import frame
 from gradprobe.targets.target import Target
 

@@ -38,7 +38,8 @@ from .coordinates import CoordinateOutcome
 from .ladder import Estimate
 from .wide_steps import WIDE_NOISE, plain_windowed, windowed
 from .noise import SPREAD_MARGIN
-from .probe import TensorProbe, as_seen
+from .probe import TensorProbe
+from .widened import as_seen
 from .sampling import tensor_rng
 from .verdict import SIGNIFICANCE
 

@@ -15,9 +15,9 @@ from dataclasses import replace
 import numpy as np
 
 from ..common.classes import dataclass
-from ..common.errors import BadOutputError, ComplexStepError, UserCodeError
 from ..common.status import FAIL, INCONCLUSIVE, PASS
 from .certify import certify
+from .complex_step import NOT_COMPLEX_SAFE, complex_step
 from .ladder import Estimate
 from .probe import Pairs, TensorProbe
 from .reconcile import narrow_reconciled, own_code_reconciled, unabsorbed, unfuzzed, zero_at_own_scale
@@ -103,39 +103,12 @@ def _ladder_verdicts(
     return unresolved(judged.merged(still[keep], apart.pick(np.flatnonzero(keep))))
 
 
-COMPLEX_STEP = 1e-20  # relative; any tiny step works since nothing is subtracted
-NOT_COMPLEX_SAFE = (
-    "forward is not complex-safe for {tensor} (the complex step and central differences "
-    "disagree: np.abs, np.var, conjugation or np.real in its path?), so central differences "
-    "were used for it"
-)
-
-
-def _complex_step(probe: TensorProbe, flat: np.ndarray) -> Estimate:
-    """Im f(x + ih) / h (Squire & Trapp, SIAM Review 40(1), 1998): one call a coordinate."""
-    h = COMPLEX_STEP * np.maximum(1.0, np.abs(probe.x[flat].astype(np.float64)))
-    try:
-        values = probe.complex_losses(flat, h)
-    except (UserCodeError, BadOutputError) as exc:
-        raise ComplexStepError(
-            f"forward cannot take complex inputs, so --method complex cannot be used "
-            f"({exc.message})"
-        ) from exc
-    if not np.any(values.imag) and np.any(probe.a[flat]):
-        raise ComplexStepError(
-            "forward drops the imaginary part of complex inputs, so --method complex cannot "
-            "be used (np.real, float(), astype(float) or abs() in forward?)"
-        )
-    numeric = values.imag / h
-    return Estimate(numeric, 8 * np.finfo(np.float64).eps * np.maximum(np.abs(numeric), np.abs(probe.a[flat])))
-
-
 def _complex_checked(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> CoordinateOutcome:
     """The complex step, never trusted alone: coordinates it does not pass are re-checked
     by central differences; where those pass, the forward is not complex-safe for this
     tensor and central differences decide every coordinate of it."""
     start_count = probe.evaluator.count
-    judged = judge_plain(probe, flat, _complex_step(probe, flat))
+    judged = judge_plain(probe, flat, complex_step(probe, flat))
     doubtful = np.flatnonzero(judged.status != PASS)
     if doubtful.size == 0:
         return _outcome(probe, flat, judged, start_count, recheck)

@@ -23,7 +23,8 @@ import numpy as np
 
 from ..common.classes import dataclass
 from .ladder import Estimate, tableau
-from .probe import TensorProbe, root_mean_square
+from .probe import TensorProbe
+from .widened import root_mean_square
 
 # A direction's discrepancy counts beyond 4 of its error bounds (a coordinate's beyond 3,
 # verdict.SIGNIFICANCE): a direction's bound covers a sum over the whole tensor from one

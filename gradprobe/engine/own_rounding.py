@@ -39,7 +39,8 @@ import numpy as np
 from .averaged import averaged_estimate, within_reach
 from .ladder import Estimate
 from .wide_steps import WIDE_FIRST, WIDE_LAST, WIDE_NOISE, WIDE_ROWS
-from .probe import Pairs, TensorProbe, as_seen
+from .probe import Pairs, TensorProbe
+from .widened import as_seen
 from .refine import Taken, pairs_reusing
 from .verdict import NOISE, SIGNIFICANCE, Judged, judge_plain
 from ..common.roundoff import unit_roundoff

@@ -26,7 +26,8 @@ from .narrow import propagated_rounding
 from .noise import measured_loss_scale, measured_rounding
 from .precision import narrower_compute_type
 from .preflight import ForwardInfo, call_backward, inspect_forward
-from .probe import TensorProbe, Widened, root_mean_square
+from .probe import TensorProbe
+from .widened import Widened, root_mean_square
 from .promote import agreement, promote
 from ..common.roundoff import is_narrow, rounding_units
 from .sampling import tensor_rng

@@ -23,7 +23,8 @@ import numpy as np
 from ..common.roundoff import is_narrow
 from ..common.status import FAIL, INCONCLUSIVE, KINK, PASS
 from .ladder import Estimate
-from .probe import FLOOR_FRACTION, Pairs, TensorProbe, root_mean_square
+from .probe import FLOOR_FRACTION, Pairs, TensorProbe
+from .widened import root_mean_square
 from .narrow import kink_within_reach
 from .promote import disagreeing
 from .flat_zone import flat_zone
