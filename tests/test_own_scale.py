@@ -67,3 +67,15 @@ def test_the_small_tensors_correct_gradient_passes():
 def test_the_small_tensors_gradient_left_out_fails():
     t = _check(np.zeros_like)
     assert t.status.value == "fail" and len(t.bad_indices) == 6
+
+
+def test_a_gradient_left_out_beside_tensors_1e11_times_larger_fails_by_the_generators_judge():
+    """Adversarial case scales-114: a tanh term whose gradients (~1e-4) sit 1e11 below the
+    other terms' (~6e6) and whose backward leaves them out. The generator's judge (mpmath at
+    50 digits) judges a gradient left out at the tensor's own scale, as gradprobe does: the
+    derivative is resolvable there, so the tensor must fail and the others must not."""
+    from adversarial import judge
+
+    o = judge("scales", 114)
+    assert o["expect"]["p1"] == "fail" and o["status"]["p1"] == "fail", o["status"]
+    assert not o["false_alarm"], (o["status"], o["expect"])
