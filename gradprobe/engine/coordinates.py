@@ -21,6 +21,7 @@ from .complex_step import NOT_COMPLEX_SAFE, complex_step
 from .ladder import Estimate
 from .probe import Pairs, TensorProbe
 from .reconcile import narrow_reconciled, own_code_reconciled, unabsorbed, unfuzzed, zero_at_own_scale
+from .unmoved import moved_at_own_scale
 from .grounds import drifting_sides, judged_ladder, sides_grown
 from .refine import RATIO, ROWS, Taken, climb, ladder_taken, one_sided_drift
 from .staircase import flat_through_sixteen_bits
@@ -294,6 +295,9 @@ def _outcome(probe: TensorProbe, flat: np.ndarray, judged: Judged, start_count: 
         numeric, error_estimate, status, reasons, scale = own_code_reconciled(
             probe.own_code, flat, numeric, error_estimate, status, reasons, scale,
             lambda own, where: _central(own, where, recheck))
+    if probe.own_code is None:  # a zero gradient read off a loss that did not move: at larger steps?
+        numeric, error_estimate, status, scale = moved_at_own_scale(
+            probe, flat, a, numeric, error_estimate, status, scale)
     status, scale = zero_at_own_scale(probe, flat, a, numeric, error_estimate, status, scale)
     status, reasons = unfuzzed(probe, flat, a, numeric, error_estimate, status, reasons)
     err = np.abs(a - numeric)
