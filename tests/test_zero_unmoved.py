@@ -91,12 +91,12 @@ def test_a_param_the_loss_ignores_passes():
 
 
 def test_a_unit_switched_off_on_both_sides_passes():
-    """relu(p2 - 2) - relu(-p2 - 2) with |p2| <= 1: the derivative at the point is 0 (common
-    practice), yet steps past 2 change the loss on both sides alike; a step's change there
-    is not proportional to it."""
+    """relu(p2 - c - 0.2) - relu(c - p2 - 0.2) at p2 = c: the derivative at the point is 0
+    (common practice), yet steps past 0.2 (the params' scale is ~0.6) change the loss on both
+    sides alike; a step's change there is not proportional to it."""
     def fwd(p, i):
-        q = p["p2"]
-        return big(p) + SMALL * float(np.sum(np.maximum(q - 2, 0) - np.maximum(-q - 2, 0)))
+        q = p["p2"] - P2
+        return big(p) + SMALL * float(np.sum(np.maximum(q - 0.2, 0) - np.maximum(-q - 0.2, 0)))
     assert _run(fwd, lambda p: np.zeros_like(P2)).status.value == "pass"
 
 
