@@ -43,18 +43,35 @@ def propagated_rounding(
     names = [n for n in wide.names() if is_float(wide.owners[n])]
     try:
         for _ in range(PROPAGATION_SAMPLES):
-            moved = {n: wide.owners[n] * (1.0 + PROPAGATION_UNITS * u * rng.choice([-1.0, 1.0], size=wide.owners[n].shape))
-                     for n in names}
+            moved = {n: _moved(wide.owners[n], PROPAGATION_UNITS * u, rng) for n in names}
             with quiet():  # a moved point: the code's warnings there are not shown
                 raw = call_backward(backward, wide.replacing(moved), grad_output, scratch=False)
+            del moved
             g = validate(raw, wide).values
+            del raw
             for name, b in base.items():
                 if name in g:
-                    change = np.abs(g[name].reshape(-1) - b)
-                    spread[name] = np.maximum(spread[name], change) if name in spread else change
+                    change = np.subtract(g.pop(name).reshape(-1), b)
+                    np.abs(change, out=change)
+                    if name in spread:
+                        np.maximum(spread[name], change, out=spread[name])
+                    else:
+                        spread[name] = change
+                    del change
+            del g
     except ProbeError:
         return {}
     return spread
+
+
+def _moved(x: np.ndarray, share: float, rng: np.random.Generator) -> np.ndarray:
+    """x * (1 + share * s), s = +-1 at random, in one array: the same operations in the same
+    order as written out, done in place."""
+    out = rng.choice([-1.0, 1.0], size=x.shape)
+    out *= share
+    out += 1.0
+    out *= x
+    return out
 
 
 # Steps as fractions of the narrow code's first step h: h, h/2, h/4, then quartering to h/256.

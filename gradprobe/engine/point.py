@@ -198,30 +198,37 @@ class Point:
         point, so a kink's jump is not taken for fuzz. JITTER_SPAN backward calls."""
         if self.backward is None or not base:
             return {}
-        steps = {}
-        for name in base:
-            x = ws.owners[name]
-            signs = tensor_rng(self.seed, name, "jitter").choice([-1.0, 1.0], size=x.shape)
-            spacing = np.spacing(np.abs(x).astype(x.dtype))
-            if grid is not None and np.finfo(grid).eps > np.finfo(x.dtype).eps:  # the grid it computes on
-                spacing = np.maximum(spacing, np.abs(np.spacing(np.abs(x).astype(grid))).astype(x.dtype))
-            steps[name] = JITTER_ULPS * spacing * signs
+        steps = {name: _jitter_step(ws.owners[name], tensor_rng(self.seed, name, "jitter"), grid)
+                 for name in base}
         fuzz: dict[str, np.ndarray] = {}
         before: list[dict[str, np.ndarray]] = []  # the last two points' gradients only
         absent: set[str] = set()  # tensors some point gave no usable gradient for
         try:
             for k in range(1, JITTER_SPAN + 1):
-                moved = {n: (ws.owners[n] + k * d).astype(ws.owners[n].dtype) for n, d in steps.items()}
+                # x + k d in the tensor's type, one array each: k d is exact there, and the sum
+                # rounds once, as the float64 sum cast back did.
+                moved = {}
+                for n, d in steps.items():
+                    moved[n] = np.multiply(d, k, dtype=d.dtype)
+                    moved[n] += ws.owners[n]
                 with quiet():  # a moved point: the code's warnings there are not shown
                     raw = call_backward(self.backward, ws.replacing(moved), self.info.grad_output, scratch=False)
-                g = validate(raw, ws).values
+                del moved
+                # Narrow gradients kept in their own type (exact); the differences in float64.
+                g = validate(raw, ws, own_type=True).values
+                del raw
                 absent |= {name for name in base if name not in g}
                 if len(before) == 2:
                     for name in base:
                         if name not in absent:
-                            second = np.abs(g[name] - 2.0 * before[1][name] + before[0][name]).reshape(-1)
-                            fuzz[name] = np.maximum(fuzz[name], second) if name in fuzz else second
+                            second = _second_difference(g[name], before[1][name], before[0][name])
+                            if name in fuzz:
+                                np.maximum(fuzz[name], second, out=fuzz[name])
+                            else:
+                                fuzz[name] = second
+                            del second
                 before = [*before[-1:], g]
+                del g
         except ProbeError:
             return {}
         return {name: v for name, v in fuzz.items() if name not in absent}
@@ -286,6 +293,28 @@ class Point:
             self._narrow_loss = (f0, max(n.terms, seen / units))
         f0, scale = self._narrow_loss
         return own, f0, scale
+
+
+def _jitter_step(x: np.ndarray, rng: np.random.Generator, grid: np.dtype | None) -> np.ndarray:
+    """JITTER_ULPS units of ``x``'s grid (or of ``grid`` where coarser), at random signs, in
+    ``x``'s own type: a power of two times a small whole number, exact there."""
+    negative = rng.choice([-1.0, 1.0], size=x.shape) < 0
+    step = np.spacing(np.abs(x).astype(x.dtype))
+    if grid is not None and np.finfo(grid).eps > np.finfo(x.dtype).eps:  # the grid it computes on
+        step = np.maximum(step, np.abs(np.spacing(np.abs(x).astype(grid))).astype(x.dtype))
+    step = np.asarray(step)  # a 0-d tensor's too, so the sign is set in place
+    step *= JITTER_ULPS
+    np.negative(step, out=step, where=negative)
+    return step
+
+
+def _second_difference(g: np.ndarray, mid: np.ndarray, first: np.ndarray) -> np.ndarray:
+    """|g - 2 mid + first| in float64, flat, in one array: the same operations in the same
+    order as on float64 copies of the three (-2 mid is exact, and a + (-b) is a - b)."""
+    out = np.multiply(mid, -2.0, dtype=np.float64).reshape(-1)
+    out += g.reshape(-1)
+    out += first.reshape(-1)
+    return np.abs(out, out=out)
 
 
 BackendFor = Callable[[Workspace, "np.ndarray | None"], "Backend | None"]
