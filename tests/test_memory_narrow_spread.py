@@ -78,3 +78,18 @@ def test_the_narrow_spread_is_the_measurement_written_out():
         (g,) = torch.autograd.grad(forward({"w": t}, {"x": torch.from_numpy(xi)}), [t])
         moved = np.maximum(moved, np.abs(g.numpy().reshape(-1) - base))
     assert np.array_equal(got, fuzz + moved)
+
+
+def test_random_signs_are_numpys_own_draws_a_chunk_at_a_time():
+    # Against numpy's Generator.choice itself, across chunk edges, and the generator left in
+    # the same state (the next tensor's signs are drawn from it too).
+    from gradprobe.engine.sampling import SIGN_CHUNK, random_negative, random_signs
+
+    for shape in [(), (1,), (SIGN_CHUNK,), (SIGN_CHUNK + 1,), (3, SIGN_CHUNK // 2 + 5), (0, 4)]:
+        ours, theirs = np.random.default_rng(11), np.random.default_rng(11)
+        signs = random_signs(ours, shape)
+        expected = theirs.choice([-1.0, 1.0], size=shape)
+        assert signs.shape == np.shape(expected) and np.array_equal(signs, expected)
+        assert ours.random() == theirs.random()
+        assert np.array_equal(random_negative(np.random.default_rng(3), shape),
+                              np.random.default_rng(3).choice([-1.0, 1.0], size=shape) < 0)

@@ -25,6 +25,7 @@ from .gradients import validate
 from .preflight import call_backward
 from .ladder import Estimate
 from .probe import TensorProbe
+from .sampling import random_signs
 from ..common.roundoff import unit_roundoff
 
 PROPAGATION_UNITS = 2.0  # each value moves by this many units of roundoff (its storage and one operation)
@@ -67,7 +68,7 @@ def propagated_rounding(
 def _moved(x: np.ndarray, share: float, rng: np.random.Generator) -> np.ndarray:
     """x * (1 + share * s), s = +-1 at random, in one array: the same operations in the same
     order as written out, done in place."""
-    out = rng.choice([-1.0, 1.0], size=x.shape)
+    out = random_signs(rng, np.shape(x))  # rng.choice([-1.0, 1.0]), drawn in chunks
     out *= share
     out += 1.0
     out *= x

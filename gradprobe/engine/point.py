@@ -30,6 +30,7 @@ from .probe import TensorProbe
 from .widened import Widened, root_mean_square
 from .promote import agreement, promote
 from ..common.roundoff import is_narrow, rounding_units
+from .jitter_steps import jitter_step, second_difference
 from .sampling import tensor_rng
 
 
@@ -198,7 +199,7 @@ class Point:
         point, so a kink's jump is not taken for fuzz. JITTER_SPAN backward calls."""
         if self.backward is None or not base:
             return {}
-        steps = {name: _jitter_step(ws.owners[name], tensor_rng(self.seed, name, "jitter"), grid)
+        steps = {name: jitter_step(ws.owners[name], JITTER_ULPS, tensor_rng(self.seed, name, "jitter"), grid)
                  for name in base}
         fuzz: dict[str, np.ndarray] = {}
         before: list[dict[str, np.ndarray]] = []  # the last two points' gradients only
@@ -221,7 +222,7 @@ class Point:
                 if len(before) == 2:
                     for name in base:
                         if name not in absent:
-                            second = _second_difference(g[name], before[1][name], before[0][name])
+                            second = second_difference(g[name], before[1][name], before[0][name])
                             if name in fuzz:
                                 np.maximum(fuzz[name], second, out=fuzz[name])
                             else:
@@ -293,28 +294,6 @@ class Point:
             self._narrow_loss = (f0, max(n.terms, seen / units))
         f0, scale = self._narrow_loss
         return own, f0, scale
-
-
-def _jitter_step(x: np.ndarray, rng: np.random.Generator, grid: np.dtype | None) -> np.ndarray:
-    """JITTER_ULPS units of ``x``'s grid (or of ``grid`` where coarser), at random signs, in
-    ``x``'s own type: a power of two times a small whole number, exact there."""
-    negative = rng.choice([-1.0, 1.0], size=x.shape) < 0
-    step = np.spacing(np.abs(x).astype(x.dtype))
-    if grid is not None and np.finfo(grid).eps > np.finfo(x.dtype).eps:  # the grid it computes on
-        step = np.maximum(step, np.abs(np.spacing(np.abs(x).astype(grid))).astype(x.dtype))
-    step = np.asarray(step)  # a 0-d tensor's too, so the sign is set in place
-    step *= JITTER_ULPS
-    np.negative(step, out=step, where=negative)
-    return step
-
-
-def _second_difference(g: np.ndarray, mid: np.ndarray, first: np.ndarray) -> np.ndarray:
-    """|g - 2 mid + first| in float64, flat, in one array: the same operations in the same
-    order as on float64 copies of the three (-2 mid is exact, and a + (-b) is a - b)."""
-    out = np.multiply(mid, -2.0, dtype=np.float64).reshape(-1)
-    out += g.reshape(-1)
-    out += first.reshape(-1)
-    return np.abs(out, out=out)
 
 
 BackendFor = Callable[[Workspace, "np.ndarray | None"], "Backend | None"]

@@ -43,3 +43,25 @@ def stratified(shape: tuple[int, ...], n: int, rng: np.random.Generator, analyti
         rest = np.setdiff1d(np.arange(size), np.fromiter(chosen, dtype=np.int64))
         chosen.update(rng.choice(rest, size=n - len(chosen), replace=False).tolist())
     return np.sort(np.fromiter(chosen, dtype=np.int64))
+
+
+SIGN_CHUNK = 1 << 16  # values drawn at a time by random_negative
+
+
+def random_negative(rng: np.random.Generator, shape: tuple[int, ...]) -> np.ndarray:
+    """Which values of ``shape`` take the sign -1 in ``rng.choice([-1.0, 1.0], size=shape)``,
+    the same draws (one uniform index per value, in order), a chunk at a time: a bool mask,
+    never the full-size int64 index and float64 copy that call builds at once."""
+    out = np.empty(shape, dtype=bool)
+    flat = out.reshape(-1)
+    for start in range(0, flat.size, SIGN_CHUNK):
+        stop = min(start + SIGN_CHUNK, flat.size)
+        flat[start:stop] = rng.integers(0, 2, size=stop - start) == 0
+    return out
+
+
+def random_signs(rng: np.random.Generator, shape: tuple[int, ...]) -> np.ndarray:
+    """``rng.choice([-1.0, 1.0], size=shape)`` as float64, drawn a chunk at a time."""
+    out = np.ones(shape, dtype=np.float64)
+    np.negative(out, out=out, where=random_negative(rng, shape))
+    return out
