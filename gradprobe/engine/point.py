@@ -187,8 +187,13 @@ class Point:
             fuzz = self._measured_jitter(self.ws, n.narrow)
             moved = propagated_rounding(self.backward, n.workspace, self.info.grad_output, n.code_dtype,
                                         n.analytic, tensor_rng(self.seed, "", "propagation")) if self.backward else {}
-            self._narrow_jitter = {k: np.asarray(fuzz.get(k, 0.0) + moved.get(k, 0.0), dtype=np.float64)
-                                   for k in set(fuzz) | set(moved)}
+            self._narrow_jitter = {}
+            for k in set(fuzz) | set(moved):  # their sum, in the first one's array (both float64)
+                parts = [v for v in (fuzz.pop(k, None), moved.pop(k, None)) if v is not None]
+                total = np.asarray(parts[0], dtype=np.float64)
+                for more in parts[1:]:
+                    total += more
+                self._narrow_jitter[k] = total
         return self._narrow_jitter.get(name)
 
     def _measured_jitter(self, ws: Workspace, base: dict[str, np.ndarray],
