@@ -106,7 +106,8 @@ def _slopes(probe: TensorProbe, flat: np.ndarray, size: np.ndarray, unit: float,
         live[which[exact & (got[0] == 0.0) & (got[1] == 0.0)]] = False  # flat from here down
     slope, bound = np.full(n, np.nan), np.full(n, np.nan)
     for i in range(n):
-        slope[i], bound[i] = _one(*(row[:, i] for row in rows), unit)
+        up, down, h_plus, h_minus = (row[:, i] for row in rows)
+        slope[i], bound[i] = _one(up, down, h_plus, h_minus, unit)
     return slope, bound
 
 
