@@ -23,6 +23,9 @@ jump * distance / h, which the agreement across the span bounds below the loss's
   jump that stays as the step shrinks 8-fold: the point on a kink of a piecewise-linear loss,
   or one closer than the smallest step), and the value between them: a kink (the value a
   kink between them gives, as at a kink the ladders see; see kinks.py).
+- Neither side seen (kinks closer than the smallest step on both): the slopes beyond those
+  kinks, from secants between the same steps, and a value between them is a kink
+  (kink_secants.py says when).
 - Otherwise the coordinate stays undecided, and the reason says what was not resolved: the
   derivative on neither side (kinks closer than the smallest step on both), on one side only
   (and the value is not the other side's), or seen on both sides and the value neither
@@ -44,6 +47,7 @@ import numpy as np
 from ..common.classes import dataclass
 from ..common.roundoff import is_narrow
 from ..common.status import INCONCLUSIVE, KINK, PASS
+from .kink_secants import kink_beyond, secant_side
 from .ladder import NOISE_UNITS, SAFETY, Estimate
 from .probe import TensorProbe
 from .refine import Taken, pairs_reusing
@@ -159,8 +163,17 @@ def close_look(probe: TensorProbe, flat: np.ndarray, taken: list[Taken]) -> Judg
     status[between] = KINK
     status[on_left | on_right] = KINK
     status[on_left & on_right] = PASS
+    # Kinks closer than any resolvable step on a side: the slopes beyond them (kink_secants.py).
+    plus, minus = p.f_plus.reshape(ROWS, n) - probe.f0, probe.f0 - p.f_minus.reshape(ROWS, n)
+    one_noise = p.noise.reshape(ROWS, n)
+    beyond, slopes = kink_beyond(secant_side(minus, p.h_minus.reshape(ROWS, n), one_noise, tol_seen),
+                                 secant_side(plus, p.h_plus.reshape(ROWS, n), one_noise, tol_seen),
+                                 a, tol)
+    beyond &= (status == INCONCLUSIVE) & ~seen_left & ~seen_right
+    status[beyond] = KINK
     chosen = Estimate.better(est_left, est_right)
     chosen = Estimate.where(np.isfinite(chosen.error), chosen, nearer)
+    chosen = Estimate.where(beyond, slopes, chosen)
     value = np.where(np.isfinite(chosen.error), chosen.value, np.nan)
     # Where no step of either side beats the noise (a tolerance near 0, steps capped by the
     # params' scale), rounding, not kinks, is what the steps could not resolve: no reason here.
