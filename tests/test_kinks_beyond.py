@@ -138,3 +138,41 @@ def test_jumps_in_the_loss_closer_than_any_step_are_not_taken_for_kinks():
 
     out = check_coordinates(make_probe(jumping, np.array([RATE]), np.array([_exact()])), np.arange(1))
     assert out.status[0] not in (PASS, KINK, FAIL), (out.numeric, out.reasons)
+
+
+@pytest.mark.parametrize("seed", [139, 46110, 48063, 48274])
+def test_generator_cases_with_kinks_crowding_both_sides_are_decided(seed):
+    """kinks-139, -46110, -48063 and -48274 as generated (absolute-error and ReLU residuals,
+    kinks 1e-12 .. 1e-8 of the scale around each coordinate of one tensor, some at the
+    point): that tensor was undecided; mpmath's gradient (the judge's reference) is the
+    code's, and every coordinate is now decided, none failed."""
+    from adversarial import judge
+
+    o = judge("kinks", seed)
+    assert o["correct"] and o["unverified"] is None and o["crash"] is None
+    assert not o["false_alarm"] and not o["inconclusive"], o["status"]
+
+
+@pytest.mark.parametrize("seed", [47034, 46145, 47109, 47126, 48175])
+def test_generator_bugs_beside_such_kinks_still_fail_and_no_wrong_coordinate_is_a_kink(seed):
+    """kinks-47034 (a transposed matrix gradient), -46145 and -47109 (a piece's derivative
+    wrong), -47126 (a term dropped), -48175 (a factor): tensors with crowded kinks now
+    decided as kinks; the planted bug's tensor still fails, and every coordinate given
+    `kink` holds the value of the correct backward (which the judge checks against mpmath)."""
+    from adversarial import judge
+    from adversarial.bugs import make_case
+    from adversarial.case import load
+
+    o = judge("kinks", seed)
+    assert not o["correct"] and o["unverified"] is None and o["crash"] is None
+    assert o["expect_fail"] and o["found"] and not o["missed"] and not o["false_alarm"], o["status"]
+    case = make_case("kinks", seed)
+    ns, right = load(case), load(case.with_bug(None))
+    params, inputs = ns["setup"]()
+    with np.errstate(all="ignore"):
+        truth, wrong = right["backward"](params, inputs), ns["backward"](params, inputs)
+    report = probe(ns["forward"], ns["backward"], params, inputs)
+    kinked = [(t.name, k) for t in report.tensors for k in t.kink_indices]
+    assert kinked
+    for name, k in kinked:
+        assert np.asarray(wrong[name])[k] == np.asarray(truth[name])[k], (name, k)
