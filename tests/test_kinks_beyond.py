@@ -23,6 +23,7 @@ from probe_kit import make_probe
 from gradprobe import probe, render_text
 from gradprobe.common.status import FAIL, KINK, PASS
 from gradprobe.engine.coordinates import check_coordinates
+from gradprobe.engine.kink_secants import secant_side
 
 RATE = 2.5
 SLOPE = np.array([3.0, -1.0, -3.0, 3.0, -2.0, 1.0, -3.0])  # each residual's change per unit of rate
@@ -78,6 +79,19 @@ def test_the_closed_form_is_mpmath_s_derivative():
         for at in (RATE, RATE - 1e-9, RATE + 1e-9):
             numeric = mp.diff(loss, mp.mpf(at), h=mp.mpf(10) ** -30)
             assert abs(float(numeric) - _exact(at)) <= 1e-12 * abs(_exact(at))
+
+
+def test_secants_beyond_kinks_show_the_slope_there():
+    """A loss that moves by D(h) = S h + C beyond kinks within the smallest step (C = -jump *
+    distance: a jump of 5 at 2e-10): the secants between steps are S exactly, the kinks are
+    seen crossed (the quotients are S + C / h); with C = 0 (no kink crossed) they are not."""
+    h = 1e-9 * 2.0 ** np.arange(9)[:, None]
+    noise = np.full(h.shape, 1e-20)
+    tol = np.array([1e-6])
+    for c, crossed in ((-5.0 * 2e-10, True), (0.0, False)):
+        side = secant_side(-2.5 * h + c, h, noise, tol)
+        assert side.found[0] and side.crossed[0] == crossed
+        assert abs(side.slope.value[0] + 2.5) <= 1e-9
 
 
 def test_convexity_puts_the_value_between_the_slopes_beyond():

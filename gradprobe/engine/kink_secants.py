@@ -69,7 +69,7 @@ def secant_side(moved: np.ndarray, h: np.ndarray, noise: np.ndarray, tol: np.nda
     width = np.diff(h, axis=0)
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         secant = np.diff(moved, axis=0) / width  # row k - 1: between steps k - 1 and k
-        secant_noise = (noise[1:] + noise[:-1]) / width
+        secant_noise = np.where(width > 0, (noise[1:] + noise[:-1]) / width, np.inf)  # steps that did not grow
         quotient = moved / h
         quotient_noise = 2.0 * noise / h
     found = np.zeros(n, dtype=bool)
