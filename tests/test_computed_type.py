@@ -135,3 +135,26 @@ def test_a_float16_kernel_in_float64_arrays_is_found(seed):
     o = judge("inside16", seed)
     assert o["unverified"] is None and not o["false_alarm"], o["status"]
     assert o["correct"] or o["found"], (o["status"], o["expect"])
+
+
+# An odd loss of params placed symmetrically about 0 (np.linspace(-1, 1, n)) cancels along the
+# even move of 2**-36 in float64 as well, and its tiny nonzero value (linspace's rounding) made the
+# move's expected change look resolvable: float64 code was taken as float32 and judged at 4.9e-4,
+# so a gradient 1e-4 off passed. Derivatives: d/dx sin x = cos x (Abramowitz & Stegun 4.3.105),
+# d/dx tanh x = sech^2 x = 1 - tanh^2 x (A&S 4.5.71 family).
+SYMMETRIC = {
+    "sin": (np.sin, np.cos),
+    "tanh": (np.tanh, lambda w: 1 - np.tanh(w) ** 2),
+}
+
+
+@pytest.mark.parametrize("n", [4, 5, 8])
+@pytest.mark.parametrize("name", sorted(SYMMETRIC))
+def test_float64_odd_loss_symmetric_about_zero_stays_float64(name, n):
+    fun, slope = SYMMETRIC[name]
+    w = np.linspace(-1.0, 1.0, n)
+    forward = lambda p, i: float(np.sum(fun(p["w"])))  # noqa: E731
+    right = gradprobe.probe(forward, lambda p, i: {"w": slope(p["w"])}, {"w": w}, {})
+    assert right.ok and right.compute_dtype == "float64" and right.threshold == 1e-6
+    wrong = gradprobe.probe(forward, lambda p, i: {"w": slope(p["w"]) * (1 + 1e-4)}, {"w": w}, {})
+    assert wrong.tensor("w").status == "fail"

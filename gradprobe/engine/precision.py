@@ -3,7 +3,9 @@
 float32 inside float64 arrays: every float64 param is first rounded to float32 (a point
 float32 code sees exactly) and then moved by 2**-36 of its size, far below float32's
 resolution (2**-24) but well above float64's (2**-53). Float64 code sees the move; float32
-code gives a bitwise identical loss. A third call with a move of 2**-12 confirms that the
+code gives a bitwise identical loss. So does float64 code whose loss cancels along that even
+move (an odd function of params placed symmetrically about 0, a scale-invariant loss): a
+float32 verdict also needs the loss unchanged by a move of random signs and sizes up to 2**-36. A third call with a move of 2**-12 confirms that the
 loss depends on the params at all, and how large the float64 change would have been.
 
 float16 or bfloat16 inside float64 or float32 arrays (a cast to a 16-bit type around the
@@ -75,9 +77,11 @@ CHUNK = 1 << 16  # elements moved at a time (even: random signs drawn a chunk at
 
 
 def _moved(ws: Workspace, names: list[str], relative: float, grid: np.dtype,
-           signs: np.random.Generator | None = None, in_place: bool = False) -> list[Perturbation]:
+           signs: np.random.Generator | None = None, in_place: bool = False,
+           spread: bool = False) -> list[Perturbation]:
     """Every tensor of ``names`` rounded to ``grid`` and moved by ``relative`` of its size (with
-    random signs if ``signs``), in the tensor's own dtype, a chunk at a time: one array of the
+    random signs if ``signs``, and random sizes from half of it to all of it if ``spread``), in
+    the tensor's own dtype, a chunk at a time: one array of the
     tensor's size each, or none with ``in_place`` (written into the workspace's own copies,
     which the caller puts back, see :func:`_restored`)."""
     out = []
@@ -90,7 +94,10 @@ def _moved(ws: Workspace, names: list[str], relative: float, grid: np.dtype,
             if signs is None:
                 part *= 1.0 + relative
             else:
-                part *= 1.0 + relative * signs.choice([-1.0, 1.0], size=part.size)
+                step = relative * signs.choice([-1.0, 1.0], size=part.size)
+                if spread:
+                    step *= signs.uniform(0.5, 1.0, size=part.size)
+                part *= 1.0 + step
             moved[lo:lo + CHUNK] = part
         out.append(Perturbation(name, slice(0, owner.size), moved))
     return out
@@ -117,10 +124,11 @@ class _Looks:
                  source: Workspace | None) -> None:
         self.evaluator, self.ws, self.names, self.source = evaluator, ws, names, source
 
-    def loss(self, relative: float, grid: np.dtype, signs: np.random.Generator | None = None) -> float:
+    def loss(self, relative: float, grid: np.dtype, signs: np.random.Generator | None = None,
+             spread: bool = False) -> float:
         in_place = self.source is not None
         try:
-            return self.evaluator.loss_with(_moved(self.ws, self.names, relative, grid, signs, in_place))
+            return self.evaluator.loss_with(_moved(self.ws, self.names, relative, grid, signs, in_place, spread))
         finally:
             if in_place:
                 self._restore()
@@ -158,6 +166,9 @@ def narrower_compute_type(
             moved = looks.loss(LARGE, np.dtype(np.float32))
             expected = abs(moved - rounded) * (SMALL / LARGE)
             if expected > LIVE * np.finfo(np.float64).eps * max(abs(rounded), abs(f0)):
+                if looks.loss(SMALL, np.dtype(np.float32), np.random.default_rng(1), spread=True) != rounded:
+                    return None  # the loss cancels along the even move (odd in params symmetric
+                    # about 0, or scale-invariant): float64 code sees a move of random signs and sizes
                 found = HiddenType(
                     np.dtype(np.float32),
                     " although its params are float64 (moving every param by 2**-36 of its size left "
