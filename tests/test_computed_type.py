@@ -158,3 +158,20 @@ def test_float64_odd_loss_symmetric_about_zero_stays_float64(name, n):
     assert right.ok and right.compute_dtype == "float64" and right.threshold == 1e-6
     wrong = gradprobe.probe(forward, lambda p, i: {"w": slope(p["w"]) * (1 + 1e-4)}, {"w": w}, {})
     assert wrong.tensor("w").status == "fail"
+
+
+# The same cancellation in float32 code fooled the 16-bit look (its moves are even too): float32
+# arctan of params symmetric about 0 was taken as bfloat16 and judged at 0.12, so a gradient 2%
+# off passed. d/dx arctan x = 1 / (1 + x^2) (Abramowitz & Stegun section 4.4, from memory).
+@pytest.mark.parametrize("n, half_width", [(7, 1.0), (10, 2.5)])
+def test_float32_odd_loss_symmetric_about_zero_is_not_sixteen_bits(n, half_width):
+    w = np.linspace(-half_width, half_width, n).astype(np.float32)
+    forward = lambda p, i: np.float32(np.sum(np.arctan(p["w"])))  # noqa: E731
+
+    def slope(p, factor):
+        return {"w": (factor / (1 + p["w"] ** 2)).astype(np.float32)}
+
+    right = gradprobe.probe(forward, lambda p, i: slope(p, 1.0), {"w": w}, {})
+    assert right.ok and right.compute_dtype == "float32"
+    wrong = gradprobe.probe(forward, lambda p, i: slope(p, 1.02), {"w": w}, {})
+    assert wrong.tensor("w").status == "fail"

@@ -11,7 +11,8 @@ loss depends on the params at all, and how large the float64 change would have b
 float16 or bfloat16 inside float64 or float32 arrays (a cast to a 16-bit type around the
 arithmetic): every param is rounded to bfloat16, a point on the grid of both 16-bit types
 (bfloat16's values carry 8 significant bits, float16's 11), then moved by 2**-18 of its
-size, up and down: 16-bit code gives a bitwise identical loss where float32 code changes it
+size, up and down, and by up to that much with random signs and sizes (a loss that cancels
+along the even moves sees those): 16-bit code gives a bitwise identical loss where float32 code changes it
 by tens of its units (values computed from the params before the cast cross a 16-bit
 rounding boundary at such a move once in about 2**10); so must moves of 2**-16 (float32 code
 whose values carry an offset, a * (p - k) with |k| about 100 |p|, rounds 2**-18 away but not
@@ -232,6 +233,8 @@ def _sixteen_bits(looks: _Looks, f0: float, out_dtype: np.dtype, unchanged: floa
     for wider in (WIDER_TINY, -WIDER_TINY):  # float32 code whose values carry offsets sees these
         if looks.loss(wider, grid) != rounded:
             return None
+    if looks.loss(TINY, grid, np.random.default_rng(1), spread=True) != rounded:
+        return None  # float32 code whose loss cancels along the even moves sees random signs and sizes
     said = f" although its params are {out_dtype} (moving every param by 2**-18 of its size left the loss bitwise unchanged"
     half = HiddenType(np.dtype(np.float16), said + ")")
     if grid == np.float16:
