@@ -358,3 +358,16 @@ def test_float32_code_checked_on_its_float64_run_compares_at_float64_resolution(
     x = _tensor(tmp_path / "now.json")
     assert x["baseline"]["change"] == "regressed" and result.exit_code == 1, result.output
     assert x["baseline"]["floor"] < 1e-9
+
+
+@pytest.mark.parametrize("options", [["--sample", "3"], ["--directions", "1"], ["--sample", "5", "--directions", "0"]])
+def test_a_baseline_from_other_sampling_says_so(arctan, run_cli, tmp_path, options):
+    """Protocol section 8: a baseline from other settings (threshold, method, seed, sampling) is
+    compared where it can be and says so in a note; the same sampling says nothing."""
+    assert run_cli("check", arctan(1e-9), "--json", "base.json").exit_code == 0
+    result = run_cli("check", arctan(1e-9), "--baseline", "base.json", *options, "--json", "now.json")
+    assert result.exit_code == 0, result.output
+    notes = json.loads((tmp_path / "now.json").read_text())["notes"]
+    assert any("sampling" in n for n in notes), notes
+    same = run_cli("check", arctan(1e-9), "--baseline", "base.json", "--json", "same.json")
+    assert not any("sampling" in n for n in json.loads((tmp_path / "same.json").read_text())["notes"])

@@ -273,6 +273,8 @@ def _check_all(
         inconclusive_fails=settings.inconclusive_fails,
         narrow_threshold=agreement(code_dtype) if promoted else None,
         second_order=second,
+        sample=settings.sample,
+        directions=settings.directions,
     )
 
 

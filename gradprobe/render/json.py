@@ -137,6 +137,7 @@ def report_dict(report: Report) -> dict[str, Any]:
         "array_library": report.array_library,
         "gradient_source": report.gradient_source,
         "inconclusive_fails": report.inconclusive_fails,
+        "sampling": {"sample": report.sample, "directions": report.directions},
         "summary": {
             "tensors": len(report.tensors),
             "checked": report.checked,

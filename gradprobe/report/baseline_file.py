@@ -117,7 +117,18 @@ def _report(raw: Any, path: str, where: str, prefix: str) -> BaselineReport:
         seed=seed, method=str(raw.get("method", "central")),
         compute_dtype=str(raw.get("compute_dtype", "float64")), tensors=tensors,
         numbers_dtype="float64" if raw.get("narrow_threshold") is not None
-        else str(raw.get("compute_dtype", "float64")))
+        else str(raw.get("compute_dtype", "float64")), sampling=_sampling(raw.get("sampling"), where))
+
+
+def _sampling(raw: Any, where: str) -> tuple[int | None, int | None] | None:
+    """The run's ``sampling`` object as (sample, directions); None where the report has none."""
+    if raw is None:
+        return None
+    _need(isinstance(raw, dict), where, "has a 'sampling' that is not an object")
+    values = tuple(raw.get(k) for k in ("sample", "directions"))
+    _need(all(v is None or (isinstance(v, int) and not isinstance(v, bool) and v >= 0) for v in values),
+          where, "has no valid 'sampling'")
+    return values[0], values[1]
 
 
 @dataclass(frozen=True)

@@ -56,6 +56,9 @@ class BaselineReport:
     numbers_dtype: str  # the type its relative errors were measured in (float64 for narrow
     # code checked on its float64 run)
     tensors: tuple[BaselineTensor, ...]
+    # (sample, directions) as that run asked for them (None each: decided from the target);
+    # None: the file does not say (written before reports recorded it)
+    sampling: tuple[int | None, int | None] | None = None
 
     def tensor(self, name: str) -> BaselineTensor | None:
         return next((t for t in self.tensors if t.name == name), None)

@@ -193,13 +193,22 @@ def _settings_note(report: Report, base: BaselineReport) -> str | None:
         ("target", base.target, report.target), ("seed", base.seed, report.seed),
         ("threshold", f"{base.threshold:g}", f"{report.threshold:g}"),
         ("method", base.method, report.method), ("compute type", base.compute_dtype, report.compute_dtype),
-    ) if then != now]
+        ("sampling", _sampling(base.sampling), _sampling((report.sample, report.directions))),
+    ) if then != now and then is not None]
     if not differ:
         return None
     listed = "; ".join(f"{what} {then} (this run: {now})" for what, then, now in differ)
     return (f"the baseline {base.path} differs from this run in {listed}: tensors are "
             "compared by name, on the coordinates both runs checked where the baseline lists them, "
             "and errors below their noise floor are not compared")
+
+
+def _sampling(asked: tuple[int | None, int | None] | None) -> str | None:
+    """--sample and --directions as a note names them; None where the baseline does not say."""
+    if asked is None:
+        return None
+    return ", ".join(f"{what} {'by default' if value is None else value}"
+                     for what, value in zip(("--sample", "--directions"), asked))
 
 
 def _same_coordinates(now: TensorResult, then: BaselineTensor, record: TensorBaseline) -> bool:

@@ -172,6 +172,9 @@ class Report:
     narrow_threshold: float | None = None
     baseline: RunBaseline | None = None  # the earlier run compared with (--baseline)
     second_order: SecondOrderResult | None = None  # protocol section 7; None: not given/checked
+    # --sample and --directions as asked (None: decided from the target), for later comparisons
+    sample: int | None = None
+    directions: int | None = None
 
     @property
     def tensors(self) -> tuple[TensorResult, ...]:
