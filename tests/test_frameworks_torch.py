@@ -420,3 +420,36 @@ def test_tensors_on_a_gpu_stay_there():
     assert report.ok and set(seen) == {"cuda"}
     w = next(t for t in report_dict(report)["layers"][0]["tensors"] if t["name"] == "w")
     assert w["device"].startswith("cuda")
+
+
+class Arctan(torch.autograd.Function):
+    """arctan with its derivative 1 / (1 + z^2) (Abramowitz & Stegun section 4.4, from memory)
+    times FACTOR[0], a deliberate relative error."""
+
+    FACTOR = [1.0]
+
+    @staticmethod
+    def forward(ctx, z):
+        ctx.save_for_backward(z)
+        return torch.atan(z)
+
+    @staticmethod
+    def backward(ctx, g):
+        (z,) = ctx.saved_tensors
+        return g / (1 + z ** 2) * Arctan.FACTOR[0]
+
+
+@pytest.mark.parametrize("n, half_width", [(4, 1.0), (7, 2.5)])
+def test_a_bfloat16_rule_at_params_symmetric_about_zero_is_judged_on_its_float64_run(n, half_width):
+    """The loss sum(arctan(w)) of w symmetric about 0 cancels along the even moves of the type
+    look: the Function's float64 run was taken as narrow, so a rule 25% off was judged on
+    bfloat16 itself and came out inconclusive. It computes in float64 and fails there."""
+    w = torch.linspace(-half_width, half_width, n, dtype=torch.bfloat16)
+    forward = lambda p, i: Arctan.apply(p["w"]).sum()  # noqa: E731
+    try:
+        Arctan.FACTOR[0] = 1.0
+        assert probe(forward, None, {"w": w}, {}).tensor("w").status == "pass"
+        Arctan.FACTOR[0] = 1.25
+        assert probe(forward, None, {"w": w}, {}).tensor("w").status == "fail"
+    finally:
+        Arctan.FACTOR[0] = 1.0
