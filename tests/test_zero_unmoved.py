@@ -116,3 +116,19 @@ def test_steep_28_fails_by_the_generators_judge():
     o = judge("steep", 28)
     assert o["expect"]["p2"] == "fail" and o["status"]["p2"] == "fail", o["status"]
     assert not o["false_alarm"], (o["status"], o["expect"])
+
+
+
+
+def test_steep_100050_fails_by_the_generators_judge():
+    """Adversarial case steep-100050: a term quadratic in p2 beside a log of 1e13 whose
+    gradient is 1e17, p2's gradient left out. At the first step the loss changes by a few
+    rounding units only: numeric -144 +- 232 against mpmath's -132.6, not 0 yet not
+    resolved, passed on the target's floor. Steps up to the params' scale resolve it (a
+    quadratic's central difference is exact at any step): the tensor must fail, with
+    mpmath's derivative (the generator's judge, 50 digits), and the others must not."""
+    from adversarial import judge
+
+    o = judge("steep", 100050)
+    assert o["expect"]["p2"] == "fail" and o["status"]["p2"] == "fail", o["status"]
+    assert not o["false_alarm"], (o["status"], o["expect"])

@@ -35,6 +35,7 @@ from ..common.roundoff import is_narrow
 from .kinks import judge_sides_apart
 from .close_kinks import looked_closer
 from .descent import between_levels, descend
+from .lopsided import kink_beside
 from .verdict import NOISE, Judged, judge_plain
 
 RETRY_SHIFT = 6  # a second ladder starts 2**6 steps higher (noise) or lower (curvature)
@@ -69,7 +70,7 @@ def _ladder_verdicts(
     before = [] if taken is None else taken
     ladder = climb(probe, flat, start, rows, taken=before)
     start = start if ladder.start is None else ladder.start  # restarted below a domain edge
-    first = judged_ladder(probe, flat, ladder, start, before)
+    first = kink_beside(probe, flat, ladder, judged_ladder(probe, flat, ladder, start, before))
     before.append(ladder_taken(flat, start, ladder))
     again = np.flatnonzero(first.status == INCONCLUSIVE)
     if again.size == 0:
@@ -83,7 +84,8 @@ def _ladder_verdicts(
     second_ladder = climb(probe, flat[again], shifted, ROWS + 2, taken=before)
     shifted = shifted if second_ladder.start is None else second_ladder.start
     grown = sides_grown(probe, ladder)[again]
-    judged = first.merged(again, judged_ladder(probe, flat[again], second_ladder, shifted, before, grown))
+    judged = first.merged(again, kink_beside(probe, flat[again], second_ladder,
+                                             judged_ladder(probe, flat[again], second_ladder, shifted, before, grown)))
     before.append(ladder_taken(flat[again], shifted, second_ladder))
     judged = judged.merged(again, descend(probe, flat[again], judged.pick(again), second_ladder, before))
     judged = judged.merged(again, between_levels(probe, flat[again], judged.pick(again), start[again], before))

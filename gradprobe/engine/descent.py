@@ -33,7 +33,9 @@ def still_growing(ladder: Ladder) -> np.ndarray:
     least GROWTH times the one before, beyond the rounding noise: quotients running away as the
     step shrinks, as across a pole closer than the steps (a central quotient there goes like
     1/h**2, its changes growing fourfold per halving and faster). Kinks closer than the steps
-    move the quotients like 1/h at most (changes doubling), within the sides' slopes."""
+    move the quotients like 1/h at most (changes doubling), within the sides' slopes.
+    Also where three such changes came earlier in the ladder and its last change is still
+    beyond the noise (:func:`turned`): the steps reached the pole's distance among its rows."""
     assert ladder.pairs is not None
     n = ladder.smallest.size
     p = ladder.pairs
@@ -43,10 +45,33 @@ def still_growing(ladder: Ladder) -> np.ndarray:
     q = p.central.reshape(rows, n)
     noise = (2 * p.noise / (p.h_plus + p.h_minus)).reshape(rows, n)
     with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
-        c1, c2, c3 = q[-3] - q[-4], q[-2] - q[-3], q[-1] - q[-2]
-        same = ((c1 > 0) & (c2 > 0) & (c3 > 0)) | ((c1 < 0) & (c2 < 0) & (c3 < 0))
+        runs = [_run_away(q[k - 3:k + 1]) for k in range(3, rows)]  # the changes ending at row k
         room = 2.0 * NOISE_UNITS * (noise[-1] + noise[-2])
-        return same & (np.abs(c2) >= GROWTH * np.abs(c1)) & (np.abs(c3) >= GROWTH * np.abs(c2)) & (np.abs(c3) > room)
+        last = np.abs(q[-1] - q[-2]) > room
+        return (runs[-1] & last) | turned(q, runs, last)
+
+
+def _run_away(q: np.ndarray) -> np.ndarray:
+    """Four rows of central quotients whose three changes keep one sign, each at least GROWTH
+    times the one before."""
+    c1, c2, c3 = q[1] - q[0], q[2] - q[1], q[3] - q[2]
+    same = ((c1 > 0) & (c2 > 0) & (c3 > 0)) | ((c1 < 0) & (c2 < 0) & (c3 < 0))
+    return same & (np.abs(c2) >= GROWTH * np.abs(c1)) & (np.abs(c3) >= GROWTH * np.abs(c2))
+
+
+def turned(q: np.ndarray, runs: list[np.ndarray], last: np.ndarray) -> np.ndarray:
+    """Quotients that ran away (:func:`_run_away`) among the upper rows, then turned: the
+    largest change came after the run, and the last change is smaller than it yet beyond the
+    noise (``last``). A pole at a distance between the ladder's steps: the rows below its
+    distance approach the derivative as a smooth loss's do, from a quotient the rows above
+    left far off, and a ladder below the smallest step settles it (a kink's quotients never
+    run away like that)."""
+    if len(runs) < 2:
+        return np.zeros(q.shape[1], dtype=bool)
+    before = np.any(np.array(runs[:-1]), axis=0)
+    changes = np.abs(np.diff(q, axis=0))
+    peak = np.argmax(changes, axis=0)
+    return before & last & (peak >= 3) & (peak < changes.shape[0] - 1)
 
 
 def descend(probe: TensorProbe, flat: np.ndarray, judged: Judged, ladder: Ladder, taken: list[Taken]) -> Judged:

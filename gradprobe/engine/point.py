@@ -113,6 +113,7 @@ class Point:
     _narrow_jitter: dict[str, np.ndarray] | None = field(default=None, repr=False)
     _coarse_jitter: dict[str, np.ndarray] | None = field(default=None, repr=False)
     _narrow_loss: tuple[float, float] | None = field(default=None, repr=False)
+    _own_loss_scales: dict[str, float] = field(default_factory=dict, repr=False)
 
     @property
     def gradients(self) -> dict[str, np.ndarray]:
@@ -243,7 +244,7 @@ class Point:
         n = self.numerics
         probe = TensorProbe(self.evaluator, name, n.workspace.owners[name].reshape(-1),
                             self.gradients[name], n.f0, n.dtype, threshold, self.target_scale,
-                            loss_scale=self.loss_scale, narrow=self._narrow_probe(name),
+                            loss_scale=self._tensor_loss_scale(name), narrow=self._narrow_probe(name),
                             jitter=lambda: self.jitter(name), own_rounding=lambda: self.coarse_jitter(name),
                             own_code=self._own_code_probe(name) if n.reference_only else None)
         if n.reference_only:
@@ -254,6 +255,20 @@ class Point:
             probe.floor = max(probe.floor, probe.grad_scale)
         return probe
 
+    def _tensor_loss_scale(self, name: str) -> float:
+        """The loss's rounding scale for moves of ``name`` alone, where the target's (moving
+        every tensor) rests on a measured rounding above the terms' size: the terms of the
+        other tensors round as they did at the point when only this one moves (3 calls, 7
+        where a slope the prediction misses is looked at; noise.measured_loss_scale)."""
+        n = self.numerics
+        if is_narrow(n.dtype) or self.loss_scale <= n.terms or len(self.gradients) < 2:
+            return self.loss_scale
+        if name not in self._own_loss_scales:
+            own = measured_loss_scale(self.evaluator, n.workspace, {name: self.gradients[name]}, n.f0,
+                                      rounding_units(n.dtype), tensor_rng(self.seed, name, "noise"))
+            self._own_loss_scales[name] = max(n.terms, own)
+        return self._own_loss_scales[name]
+
     def own_numerics(self) -> Point:
         """This point, or for 16-bit code judged against its float64 forward alone the same
         point on its 16-bit code (where second derivatives are judged, as with no float64 run:
@@ -263,7 +278,7 @@ class Point:
             return self
         own, f0, scale = self._narrow_loss_of(list(self.grads.values))
         narrow = replace(n, workspace=self.ws, f0=f0, dtype=n.code_dtype, reference_only=False)
-        return replace(self, evaluator=own, numerics=narrow, loss_scale=scale)
+        return replace(self, evaluator=own, numerics=narrow, loss_scale=scale, _own_loss_scales={})
 
     def _narrow_probe(self, name: str) -> TensorProbe | None:
         """For narrow code checked on its float64 run: the tensor probed on the narrow code

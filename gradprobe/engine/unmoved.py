@@ -3,7 +3,9 @@ did not change at the steps taken: a derivative too small for them, or none at a
 
 Float64 code. A term whose derivative is ~1e-11 of the loss's other terms' moves the loss by
 less than its rounding at the ordinary steps, so the numeric value reads exactly 0 and a
-backward that leaves that term's gradient out agrees with it. Steps up to the params' own
+backward that leaves that term's gradient out agrees with it. So too where the numeric value
+is not 0 but not resolved either (within SIGNIFICANCE of its bound: a change of a few
+rounding units at the first step) and passed on the target's floor. Steps up to the params' own
 scale (max(|x|, the tensor's rms), as :func:`.reconcile._changes_through` widens) show
 whether the loss changes: at the largest, in one pair per coordinate; where it does, a
 ladder of steps shrinking RATIO-fold down to where the loss is flat again. A derivative
@@ -45,13 +47,14 @@ def moved_at_own_scale(
     error: np.ndarray, status: np.ndarray, scale: np.ndarray,
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Per the module's note: the passes of a gradient exactly zero throughout read off a loss
-    that did not change (numeric exactly 0), looked at with steps up to the params' own
-    scale. Returns (numeric, error, status, scale), those of coordinates that show a slope
+    that did not change (numeric exactly 0) or changed by too little to resolve, looked at
+    with steps up to the params' own scale. Returns (numeric, error, status, scale), those of coordinates that show a slope
     replaced by it (its bound, a failure where resolved at the tensor's own scale)."""
+    unresolved = (numeric == 0.0) | ~(np.abs(numeric) > SIGNIFICANCE * error)
     if (probe.compute_dtype != np.dtype(np.float64) or probe.narrow is not None or np.any(a)
-            or not np.any(numeric == 0.0)):
+            or not np.any(unresolved)):
         return numeric, error, status, scale
-    todo = np.flatnonzero((status == PASS) & (numeric == 0.0))
+    todo = np.flatnonzero((status == PASS) & unresolved)
     size = np.maximum(np.abs(probe.x[flat[todo]].astype(np.float64)), probe.x_scale)
     todo, size = todo[(size > 0) & np.isfinite(size)], size[(size > 0) & np.isfinite(size)]
     if todo.size == 0:

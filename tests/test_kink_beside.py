@@ -1,0 +1,81 @@
+"""A bend far narrower than gradprobe's first steps, lying a little beside the point: the
+ladder's quotients on the far side keep changing while the near side settles. The near side
+is the derivative here unless the bend sits at the point itself; a pair at a step below the
+bend's distance tells (engine/lopsided.py).
+
+Scenario: irrigation valves whose flow switches on sharply, softplus(s (x - k)) / s with
+s = 1.2e10 per unit opening, each valve set 3.5e-8 to 6e-8 past its switch point (so the
+flow's derivative there is sigmoid(s (x - k)) = 1 to double precision, the valve fully on;
+the ladder's smallest steps, 3e-8 and 1.5e-8, lie below the switch on the valve's side). A
+backward that takes the sigmoid of the unscaled argument (sigmoid(x - k) = 0.5: the wrong
+piece) gives half the slope, a value between the two sides of the bend, once reported as a
+kink.
+
+Reference: mpmath.diff at 40 digits of the same loss (the softplus written as
+log(1 + exp(t)), no table needed), and the closed form d/dt log(1 + e^t) = 1 / (1 + e^-t)
+(the logistic function; standard table of derivatives, from memory) checked against it.
+"""
+
+from __future__ import annotations
+
+import mpmath
+import numpy as np
+
+from gradprobe import probe
+
+SHARP = 1.2e10
+RNG = np.random.default_rng(20087)
+X = RNG.uniform(0.005, 0.015, size=4)
+K = X - np.array([4e-8, 5e-8, 3.5e-8, 6e-8])  # each switch point 3.5-6e-8 below its valve
+W = RNG.uniform(0.5, 1.5, size=4)
+
+
+def _sigmoid(t):
+    return 0.5 * (1 + np.tanh(0.5 * t))
+
+
+def forward(p, i):
+    return float(np.sum(i["w"] * np.logaddexp(0, SHARP * (p["x"] - i["k"])) / SHARP))
+
+
+def right(p, i):
+    return {"x": i["w"] * _sigmoid(SHARP * (p["x"] - i["k"]))}
+
+
+def wrong_piece(p, i):
+    return {"x": i["w"] * _sigmoid(p["x"] - i["k"])}
+
+
+def mp_derivative(j):
+    with mpmath.workdps(40):
+        k, w, s = mpmath.mpf(float(K[j])), mpmath.mpf(float(W[j])), mpmath.mpf(SHARP)
+        def loss(t):
+            return w * mpmath.log(1 + mpmath.exp(s * (t - k))) / s
+        return float(mpmath.diff(loss, mpmath.mpf(float(X[j]))))
+
+
+def _run(backward):
+    return probe(forward, backward, {"x": X.copy()}, {"k": K, "w": W}).tensor("x")
+
+
+def test_the_closed_form_is_mpmaths_and_the_wrong_piece_is_half_of_it():
+    g = right({"x": X}, {"k": K, "w": W})["x"]
+    bad = wrong_piece({"x": X}, {"k": K, "w": W})["x"]
+    for j in range(X.size):
+        assert abs(g[j] - mp_derivative(j)) <= 1e-9 * abs(g[j])
+        assert abs(bad[j] / g[j] - 0.5) < 1e-6
+    # the bend is far narrower than the first step gradprobe takes (6e-6 |x| at least)
+    assert 20 / SHARP < 1e-3 * np.cbrt(np.finfo(float).eps)
+
+
+def test_a_derivative_from_the_wrong_piece_fails_with_the_derivative_mpmath_gives():
+    t = _run(wrong_piece)
+    assert t.status.value == "fail" and len(t.bad_indices) == X.size
+    for d in t.details:
+        truth = mp_derivative(d.index[0])
+        assert abs(d.numeric - truth) <= 3 * d.error_estimate < abs(truth) / 10
+
+
+def test_the_right_derivative_passes():
+    assert _run(right).status.value == "pass"
+
