@@ -37,6 +37,7 @@ from __future__ import annotations
 import numpy as np
 
 from .averaged import averaged_estimate, within_reach
+from .one_side import one_sided_passes
 from .ladder import Estimate
 from .wide_steps import WIDE_FIRST, WIDE_LAST, WIDE_NOISE, WIDE_ROWS
 from .probe import Pairs, TensorProbe
@@ -190,6 +191,9 @@ def judged_on_own_rounding(probe: TensorProbe, flat: np.ndarray, judged: Judged,
         decided = np.flatnonzero((redo.status != INCONCLUSIVE) | np.array([r == KINK_WITHIN for r in redo.reasons], dtype=bool))
         judged = judged.merged(noisy[mine[decided]], redo.pick(decided))
         judged = _averaged(view, flat, judged, noisy[mine], reach[mine], again)
+        judged = one_sided_passes(view, flat, judged, noisy, again)
+    else:
+        judged = one_sided_passes(probe, flat, judged, noisy, taken)
     still = np.flatnonzero((judged.status[noisy] == INCONCLUSIVE))
     if still.size == 0:
         return judged

@@ -1,0 +1,150 @@
+"""One side of a coordinate, for float32 code judged on its own arithmetic whose central
+quotients at the wide steps rounding needs cross a kink on the other side.
+
+A unit switched off just beside its kink (a ReLU whose argument sits 1e-3 below 0), or a
+corner of a Huber loss within the wide steps, breaks the central quotients' error model at
+every step wide enough to beat rounding, so :func:`.wide_steps.wide_estimate` and the
+coordinate's own rounding (:mod:`.own_rounding`) leave it undecided, though the loss along the
+other side may be smooth, often flat, out to the params' scale. There a one-sided quotient
+Q(s) = (f(x + s) - f(x)) / s = f' + c1 s + c2 s**2 + ... (Taylor) reaches the derivative.
+
+On each side, windows of three of the wide steps s1 < s2 < s3 (each about twice the last,
+the widest within the params' scale): the estimate Q(s2), its truncation c1 s2 measured from
+Q(s3) - Q(s2) (its rounding added) and taken WIDE_SAFETY times, plus WIDE_NOISE times Q(s2)'s
+own rounding (2 noise / s2: two loss values). A window is used only where its quotients follow
+that model, checked on the coordinate: Q(s2) - Q(s1) is at most SHRINK_LIMIT of Q(s3) - Q(s2)
+and in the same direction beyond rounding (a first-order term halves as the step halves; a
+kink on that side within the window makes the differences grow as the step shrinks), the
+steps ascend within the params' scale, and every one-sided quotient on that side at a smaller
+step (the wide rows below the window and the ladders' steps, down to rounding's floor) lies as
+close to the estimate as the window's smallest does, within its own rounding and the bound (a
+kink on that side nearer than the window would move the smaller steps' quotients).
+
+Only passes come from one side: the analytic value within the threshold of a side's estimate
+whose bound is at most REACH tolerances (the level at which a pass tells an error of ten
+thresholds from none, as :mod:`.loose_passes` keeps). A failure needs the central model or the
+kink logic (a kink nearer than every step makes one side's slope the other's). The pairs are
+those the wide steps took: no new evaluations.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..common.status import INCONCLUSIVE, PASS
+from .ladder import Estimate
+from .loose_passes import REACH
+from .probe import TensorProbe
+from .refine import Taken, pairs_reusing
+from .verdict import NOISE, Judged
+from .wide_steps import SHRINK_LIMIT, STEP_GROWTH, WIDE_FIRST, WIDE_LAST, WIDE_NOISE, WIDE_ROWS, WIDE_SAFETY
+
+
+def one_sided_passes(probe: TensorProbe, flat: np.ndarray, judged: Judged, which: np.ndarray,
+                     taken: list[Taken]) -> Judged:
+    """``judged`` with coordinates ``which`` (positions in ``flat``) that rounding left
+    undecided passed where one side's estimate agrees with the analytic value within the
+    threshold at a bound of at most REACH tolerances (the tighter side's estimate taken)."""
+    which = which[(judged.status[which] == INCONCLUSIVE)
+                  & np.array([judged.reasons[k] == NOISE for k in which], dtype=bool)]
+    if which.size == 0:
+        return judged
+    where = flat[which]
+    right, left = side_estimates(probe, where, taken)
+    a = probe.a[where]
+    best = None
+    for est in (right, left):
+        tol = probe.tolerance(where, est.value)
+        with np.errstate(invalid="ignore"):
+            ok = (np.abs(a - est.value) <= tol) & (est.error <= REACH * tol)
+        if best is None:
+            best = (ok, est)
+            continue
+        take = ok & (~best[0] | (est.error < best[1].error))
+        best = (best[0] | ok, Estimate(np.where(take, est.value, best[1].value),
+                                       np.where(take, est.error, best[1].error)))
+    assert best is not None
+    passed, est = best
+    if not passed.any():
+        return judged
+    k = np.flatnonzero(passed)
+    mine = Judged(np.full(k.size, PASS, dtype=judged.status.dtype), Estimate(est.value[k], est.error[k]),
+                  tuple(None for _ in k), np.zeros(k.size, dtype=bool))
+    return judged.merged(which[k], mine)
+
+
+def side_estimates(probe: TensorProbe, flat: np.ndarray, taken: list[Taken]) -> tuple[Estimate, Estimate]:
+    """The right and the left side's estimates of the derivative at coordinates ``flat`` from
+    the wide steps' pairs (those ``taken`` before; infinite bounds where no window follows the
+    model)."""
+    n = flat.size
+    ks = np.arange(WIDE_FIRST, WIDE_LAST + WIDE_ROWS)
+    rows = ks.size
+    first = probe.prior_steps(flat)
+    steps = first[None, :] * 2.0 ** ks[:, None]
+    p = pairs_reusing(probe, np.tile(flat, rows), steps.reshape(-1), taken)
+    right, left = (q.reshape(rows, n) for q in p.sides(probe.f0))
+    h_plus, h_minus = p.h_plus.reshape(rows, n), p.h_minus.reshape(rows, n)
+    noise = p.noise.reshape(rows, n)
+    limit = np.maximum(np.abs(probe.x[flat].astype(np.float64)), probe.x_scale)
+    below = first * 2.0**WIDE_FIRST
+    small_r, small_l = _smaller(probe, flat, below, taken)
+    return (_side(right, h_plus, 2.0 * noise / h_plus, limit, small_r),
+            _side(left, h_minus, 2.0 * noise / h_minus, limit, small_l))
+
+
+def _smaller(probe: TensorProbe, flat: np.ndarray, below: np.ndarray,
+             taken: list[Taken]) -> tuple[list[list[tuple[float, float]]], list[list[tuple[float, float]]]]:
+    """Per coordinate and side, the one-sided quotients (with their rounding) of the pairs
+    ``taken`` at steps below ``below`` (the ladders' steps under the wide ones)."""
+    pos = {int(c): i for i, c in enumerate(flat.tolist())}
+    right: list[list[tuple[float, float]]] = [[] for _ in range(flat.size)]
+    left: list[list[tuple[float, float]]] = [[] for _ in range(flat.size)]
+    for where, asked, p in taken:
+        q_r, q_l = p.sides(probe.f0)
+        for k, (c, s) in enumerate(zip(where.tolist(), asked.tolist())):
+            i = pos.get(int(c))
+            if i is None or not s < below[i]:
+                continue
+            if np.isfinite(q_r[k]) and p.h_plus[k] > 0:
+                right[i].append((float(q_r[k]), float(2.0 * p.noise[k] / p.h_plus[k])))
+            if np.isfinite(q_l[k]) and p.h_minus[k] > 0:
+                left[i].append((float(q_l[k]), float(2.0 * p.noise[k] / p.h_minus[k])))
+    return right, left
+
+
+def _side(q: np.ndarray, s: np.ndarray, e: np.ndarray, limit: np.ndarray,
+          smaller: list[list[tuple[float, float]]]) -> Estimate:
+    """One side's estimate from its quotients ``q`` at steps ``s`` (rows ascending, a column
+    per coordinate) with their rounding ``e``, windows whose steps stay within ``limit``, and
+    the quotients at ``smaller`` steps each estimate must continue."""
+    rows, n = q.shape
+    value = q[0].copy()
+    error = np.full(n, np.inf)
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        for w in range(rows - 2):
+            i1, i2, i3 = w, w + 1, w + 2
+            lower, upper = q[i2] - q[i1], q[i3] - q[i2]
+            follows = np.isfinite(q[i1]) & np.isfinite(q[i2]) & np.isfinite(q[i3])
+            room = 2.0 * WIDE_NOISE * (e[i1] + 2.0 * e[i2] + e[i3])
+            follows &= np.abs(lower) <= SHRINK_LIMIT * np.abs(upper) + room
+            follows &= (lower * upper > 0) | (np.minimum(np.abs(lower), np.abs(upper)) <= room)
+            follows &= (s[i2] >= STEP_GROWTH * s[i1]) & (s[i3] >= STEP_GROWTH * s[i2]) & (s[i3] <= limit)
+            trunc = (np.abs(upper) + e[i2] + e[i3]) * s[i2] / (s[i3] - s[i2])
+            bound = WIDE_SAFETY * trunc + WIDE_NOISE * e[i2]
+            near = np.abs(q[i1] - q[i2])
+            for j in range(w):
+                follows &= (s[j] < s[i1]) & (np.abs(q[j] - q[i2]) <= near + WIDE_NOISE * e[j] + bound)
+            for c in np.flatnonzero(follows):
+                for qj, ej in smaller[c]:
+                    if not abs(qj - q[i2, c]) <= near[c] + WIDE_NOISE * ej + bound[c]:
+                        follows[c] = False
+                        break
+            bound = np.where(follows & np.isfinite(bound), bound, np.inf)
+            take = bound < error
+            value = np.where(take, q[i2], value)
+            error = np.where(take, bound, error)
+    return Estimate(value, error)
+
+
+__all__ = ["one_sided_passes", "side_estimates"]
