@@ -16,7 +16,9 @@ Prints per category:
   arithmetic, not gradprobe, may be what leaves a tensor undecided; and the inconclusive correct
   targets with no wider run by how far the loss's rounding, measured against mpmath along each
   undecided coordinate over its smooth radius, lets an error of the threshold's size show
-  (tests/adversarial/rounding.py: below 1x no step can);
+  (tests/adversarial/rounding.py: below 1x no step can); and by their hardest undecided
+  coordinate's best single step, truncation or rounding against mpmath over the tolerance
+  (above 1 no single step resolves the threshold);
 - ``recall``: buggy targets with a bug above 1.5x the threshold and resolvable in the dtype whose
   every such tensor fails; ``missed``: one of them says pass or kink;
 - ``located``: one-element bugs found with the element in bad_indices or as worst_index;
@@ -180,6 +182,15 @@ def main(argv: list[str] | None = None) -> int:
               f"lets an error of the threshold's size show on their most resolvable undecided coordinate: "
               f"below 1x (no step can) {len(low)}, 1-10x {len(mid)} ({', '.join(f'{n} {best[n]:.2g}' for n in mid)}), "
               f"10x and more {len(high)} ({', '.join(f'{n} {best[n]:.2g}' for n in high)})")
+        # The hardest coordinate each left undecided: its best single step's error over the tolerance.
+        hard = {o["name"]: max(o.get("best_steps") or [float("nan")]) for o in measured}
+        fine = sorted(n for n, r in hard.items() if r < 0.1)
+        edge = sorted(n for n, r in hard.items() if 0.1 <= r < 1)
+        print(f"the same by their hardest undecided coordinate's best single step (truncation or rounding "
+              f"against mpmath, central or one-sided) over the tolerance: below 0.1 {len(fine)} "
+              f"({', '.join(f'{n} {hard[n]:.2g}' for n in fine)}), 0.1-1 {len(edge)} "
+              f"({', '.join(f'{n} {hard[n]:.2g}' for n in edge)}), 1 and more (no single step resolves the "
+              f"threshold) {len(hard) - len(fine) - len(edge)}")
     print(f"{time.perf_counter() - wall:.1f} s wall, {time.process_time() - cpu:.1f} s CPU (this process)")
     leaks = defaultdict(list)
     for o in outcomes:

@@ -113,3 +113,63 @@ def test_a_wrong_value_beside_the_kink_is_not_passed(wrong):
     report = probe(forward, backward, params, inputs, seed=0)
     detail = next(d for d in report.tensor("reading").details if tuple(d.index) == (0,))
     assert str(getattr(detail.status, "value", detail.status)) in ("fail", "inconclusive")
+
+
+# A second scenario: irrigation valves whose settings pay a Huber penalty on their distance from
+# a target, steep (u = a (v - k), a ~ -90): the quadratic piece |u| <= 1 is ~0.02 wide, and
+# the first valve sits 1.1e-3 inside its corner (f'' jumps there, f' does not). Every wide
+# step crosses the corner; below it the loss is quadratic along the valve, where a central
+# quotient is exact (truncation 0, common practice), and rounding alone remains.
+VALVE = np.array([[0.036485247, 0.008959815, 0.009984119], [0.023421833, -0.004365806, -0.008757290],
+                  [-0.008562819, -0.006278436, 0.008102605]], dtype=np.float32)
+VALVE_INPUTS = {
+    "a": np.array([[-92.047844, -59.942806, -79.255806], [-70.747627, -35.846722, -93.829437],
+                   [-92.282265, -74.354782, -57.128387]], dtype=np.float32),
+    "k": np.array([[0.026786478, 0.0029745286, 0.002364842], [0.01106877, -0.065827131, -0.026006613],
+                   [0.0049820296, -0.01972747, -0.01233178]], dtype=np.float32),
+    "w": np.array([[0.95367175, 0.069758385, 0.82512939], [0.46118101, -0.89590633, 0.48737401],
+                   [-0.65534967, -0.20075427, -0.62798476]], dtype=np.float32)}
+VALVE_SCALE = 0.6802129745483398
+
+
+def _valves(factor: float = 1.0):
+    def forward(p, i):
+        u = i["a"] * (p["valve"] - i["k"])
+        return np.float32(VALVE_SCALE * np.sum(i["w"] * np.where(np.abs(u) <= 1, 0.5 * u * u, np.abs(u) - 0.5)))
+
+    def backward(p, i):
+        u = i["a"] * (p["valve"] - i["k"])
+        g = np.asarray(VALVE_SCALE * i["w"] * np.clip(u, -1, 1) * i["a"], dtype=np.float32).copy()
+        g[0, 0] *= np.float32(factor)
+        return {"valve": g}
+
+    return forward, backward, {"valve": VALVE}, VALVE_INPUTS
+
+
+def test_the_valve_scenario_is_what_it_says():
+    forward, backward, params, inputs = _valves()
+    u0 = float(inputs["a"][0, 0]) * (float(VALVE[0, 0]) - float(inputs["k"][0, 0]))
+    corner = (1.0 + u0) / abs(float(inputs["a"][0, 0]))  # distance to u = -1 along the valve
+    assert -1.0 < u0 < 0.0 and 1e-3 < corner < 1.2e-3
+    mp = lambda v: mpmath.mpf(float(v))  # noqa: E731
+    a, k, w = mp(inputs["a"][0, 0]), mp(inputs["k"][0, 0]), mp(inputs["w"][0, 0])
+
+    def loss(v):  # the first valve's term (the others do not move with it)
+        u = a * (v - k)
+        return mpmath.mpf(VALVE_SCALE) * w * (u * u / 2 if abs(u) <= 1 else abs(u) - mpmath.mpf(0.5))
+
+    with mpmath.workdps(40):
+        exact = float(mpmath.diff(loss, mp(VALVE[0, 0])))
+    assert backward(params, inputs)["valve"][0, 0] == pytest.approx(exact, rel=1e-6)
+
+
+def test_a_valve_inside_its_corner_passes():
+    report = probe(*_valves(), seed=0)
+    assert report.tensor("valve").status == "pass", [d.reason for d in report.tensor("valve").details]
+
+
+@pytest.mark.parametrize("factor", [1.006, 0.99, 1.1])
+def test_a_wrong_valve_gradient_fails(factor):
+    report = probe(*_valves(factor), seed=0)
+    detail = next(d for d in report.tensor("valve").details if tuple(d.index) == (0, 0))
+    assert str(getattr(detail.status, "value", detail.status)) == "fail"

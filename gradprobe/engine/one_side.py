@@ -25,6 +25,11 @@ whose bound is at most REACH tolerances (the level at which a pass tells an erro
 thresholds from none, as :mod:`.loose_passes` keeps). A failure needs the central model or the
 kink logic (a kink nearer than every step makes one side's slope the other's). The pairs are
 those the wide steps took: no new evaluations.
+
+A corner just beyond the first wide step (:func:`narrow_passes`) breaks every wide window while
+the steps below it see a smooth, often quadratic, piece whose central quotients rounding alone
+moves: the wide steps' windows (:func:`.wide_steps.windowed`, :func:`.wide_steps.plain_windowed`,
+their model checks unchanged) on a table extended NARROW_ROWS rows below, passes only, as above.
 """
 
 from __future__ import annotations
@@ -37,7 +42,10 @@ from .loose_passes import REACH
 from .probe import TensorProbe
 from .refine import Taken, pairs_reusing
 from .verdict import NOISE, Judged
-from .wide_steps import SHRINK_LIMIT, STEP_GROWTH, WIDE_FIRST, WIDE_LAST, WIDE_NOISE, WIDE_ROWS, WIDE_SAFETY
+from .wide_steps import (SHRINK_LIMIT, STEP_GROWTH, WIDE_FIRST, WIDE_LAST, WIDE_NOISE, WIDE_ROWS, WIDE_SAFETY,
+                         plain_windowed, windowed)
+
+NARROW_ROWS = 3  # rows below the first wide step (h/8, h/16, h/32 of the first step h)
 
 
 def one_sided_passes(probe: TensorProbe, flat: np.ndarray, judged: Judged, which: np.ndarray,
@@ -45,30 +53,64 @@ def one_sided_passes(probe: TensorProbe, flat: np.ndarray, judged: Judged, which
     """``judged`` with coordinates ``which`` (positions in ``flat``) that rounding left
     undecided passed where one side's estimate agrees with the analytic value within the
     threshold at a bound of at most REACH tolerances (the tighter side's estimate taken)."""
-    which = which[(judged.status[which] == INCONCLUSIVE)
-                  & np.array([judged.reasons[k] == NOISE for k in which], dtype=bool)]
+    which = _undecided(judged, which)
+    if which.size == 0:
+        return judged
+    return _passed(probe, flat, judged, which, list(side_estimates(probe, flat[which], taken)))
+
+
+def narrow_passes(probe: TensorProbe, flat: np.ndarray, judged: Judged, which: np.ndarray,
+                  taken: list[Taken]) -> Judged:
+    """``judged`` with coordinates ``which`` that rounding left undecided passed where the wide
+    steps' windows, their table extended NARROW_ROWS rows below the first wide step, agree with
+    the analytic value within the threshold at a bound of at most REACH tolerances: a corner
+    (f'' jumps, a Huber loss's) just beyond the first wide step leaves the central quotients
+    exact on a quadratic piece below it, and every wide window crosses the corner. 2 NARROW_ROWS
+    calls per coordinate (the wide rows' pairs are reused)."""
+    which = _undecided(judged, which)
     if which.size == 0:
         return judged
     where = flat[which]
-    right, left = side_estimates(probe, where, taken)
+    n = where.size
+    ks = np.arange(WIDE_FIRST - NARROW_ROWS, WIDE_LAST + WIDE_ROWS)
+    steps = probe.prior_steps(where)[None, :] * 2.0 ** ks[:, None]
+    p = pairs_reusing(probe, np.tile(where, ks.size), steps.reshape(-1), taken)
+    rows = ks.size
+    d = p.central.reshape(rows, n)
+    s = (0.5 * (p.h_plus + p.h_minus)).reshape(rows, n)
+    e = (2.0 * p.noise / (p.h_plus + p.h_minus)).reshape(rows, n)
+    right, left = (q.reshape(rows, n) for q in p.sides(probe.f0))
+    side_noise = (2.0 * p.noise / np.minimum(p.h_plus, p.h_minus)).reshape(rows, n)
+    asymmetry = (np.abs(p.h_plus - p.h_minus) / np.maximum(p.h_plus + p.h_minus, 1e-300)).reshape(rows, n)
+    limit = np.maximum(np.abs(probe.x[where].astype(np.float64)), probe.x_scale)
+    table = (d, s, e, right - left, side_noise, asymmetry, limit)
+    return _passed(probe, flat, judged, which, [Estimate.better(windowed(*table), plain_windowed(*table))])
+
+
+def _undecided(judged: Judged, which: np.ndarray) -> np.ndarray:
+    return which[(judged.status[which] == INCONCLUSIVE)
+                 & np.array([judged.reasons[k] == NOISE for k in which], dtype=bool)]
+
+
+def _passed(probe: TensorProbe, flat: np.ndarray, judged: Judged, which: np.ndarray,
+            estimates: list[Estimate]) -> Judged:
+    """``judged`` with coordinates ``which`` passed where one of ``estimates`` (each for
+    ``flat[which]``) agrees with the analytic value within the threshold at a bound of at most
+    REACH tolerances (the tightest such estimate kept)."""
+    where = flat[which]
     a = probe.a[where]
-    best = None
-    for est in (right, left):
+    passed = np.zeros(where.size, dtype=bool)
+    value, error = np.full(where.size, np.nan), np.full(where.size, np.inf)
+    for est in estimates:
         tol = probe.tolerance(where, est.value)
         with np.errstate(invalid="ignore"):
-            ok = (np.abs(a - est.value) <= tol) & (est.error <= REACH * tol)
-        if best is None:
-            best = (ok, est)
-            continue
-        take = ok & (~best[0] | (est.error < best[1].error))
-        best = (best[0] | ok, Estimate(np.where(take, est.value, best[1].value),
-                                       np.where(take, est.error, best[1].error)))
-    assert best is not None
-    passed, est = best
+            ok = (np.abs(a - est.value) <= tol) & (est.error <= REACH * tol) & (est.error < error)
+        passed |= ok
+        value, error = np.where(ok, est.value, value), np.where(ok, est.error, error)
     if not passed.any():
         return judged
     k = np.flatnonzero(passed)
-    mine = Judged(np.full(k.size, PASS, dtype=judged.status.dtype), Estimate(est.value[k], est.error[k]),
+    mine = Judged(np.full(k.size, PASS, dtype=judged.status.dtype), Estimate(value[k], error[k]),
                   tuple(None for _ in k), np.zeros(k.size, dtype=bool))
     return judged.merged(which[k], mine)
 
@@ -147,4 +189,4 @@ def _side(q: np.ndarray, s: np.ndarray, e: np.ndarray, limit: np.ndarray,
     return Estimate(value, error)
 
 
-__all__ = ["one_sided_passes", "side_estimates"]
+__all__ = ["narrow_passes", "one_sided_passes", "side_estimates"]

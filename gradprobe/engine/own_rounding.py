@@ -37,7 +37,7 @@ from __future__ import annotations
 import numpy as np
 
 from .averaged import averaged_estimate, within_reach
-from .one_side import one_sided_passes
+from .one_side import narrow_passes, one_sided_passes
 from .ladder import Estimate
 from .wide_steps import WIDE_FIRST, WIDE_LAST, WIDE_NOISE, WIDE_ROWS
 from .probe import Pairs, TensorProbe
@@ -191,9 +191,9 @@ def judged_on_own_rounding(probe: TensorProbe, flat: np.ndarray, judged: Judged,
         decided = np.flatnonzero((redo.status != INCONCLUSIVE) | np.array([r == KINK_WITHIN for r in redo.reasons], dtype=bool))
         judged = judged.merged(noisy[mine[decided]], redo.pick(decided))
         judged = _averaged(view, flat, judged, noisy[mine], reach[mine], again)
-        judged = one_sided_passes(view, flat, judged, noisy, again)
+        judged = narrow_passes(view, flat, one_sided_passes(view, flat, judged, noisy, again), noisy, again)
     else:
-        judged = one_sided_passes(probe, flat, judged, noisy, taken)
+        judged = narrow_passes(probe, flat, one_sided_passes(probe, flat, judged, noisy, taken), noisy, taken)
     still = np.flatnonzero((judged.status[noisy] == INCONCLUSIVE))
     if still.size == 0:
         return judged
@@ -288,11 +288,20 @@ def _explained(probe: TensorProbe, flat: np.ndarray, judged: Judged, which: np.n
             how, steps = "measured when it moves", "the widest step its scale allows"
         if SIGNIFICANCE * quotient[k] <= probe.threshold * scale[k]:
             reasons[i] = (f"{UNMODELLED} (its rounding, {how}, would let an error of the "
-                          f"threshold show at {steps.replace('the widest step', 'the widest steps')})")
+                          f"threshold show at {steps.replace('the widest step', 'the widest steps')})"
+                          f"{_narrower(probe, judged.estimate.error[i], scale[k])}")
         else:
             reasons[i] = (f"{NOISE}: its rounding ({how}) hides any relative error below "
                           f"{smallest[k]:.2g} on it, even at {steps}")
     return Judged(judged.status, judged.estimate, tuple(reasons), judged.noise_limited)
+
+
+def _narrower(probe: TensorProbe, bound: float, scale: float) -> str:
+    """The smallest relative error the narrower steps (the ladders' bound, checked there) let
+    show, SIGNIFICANCE bounds over the scale; empty where they bound nothing finer."""
+    if not (np.isfinite(bound) and scale > 0 and SIGNIFICANCE * bound > probe.threshold * scale):
+        return ""
+    return f"; at the narrower steps where it does, rounding hides any relative error below {SIGNIFICANCE * bound / scale:.2g}"
 
 
 __all__ = ["judged_on_own_rounding", "own_rounding"]

@@ -22,7 +22,9 @@ Expected verdicts, decided honestly per tensor:
   arithmetic at its limit);
 - ``ratios``: for a correct target with no wider run left inconclusive, per undecided
   coordinate, how far its measured rounding lets an error of the threshold's size show
-  (:mod:`.rounding`: below 1 no step can show it).
+  (:mod:`.rounding`: below 1 no step can show it); ``best_steps``: per such coordinate, the
+  best single step's truncation or rounding (against mpmath) over the tolerance (above 1 no
+  single step resolves an error of the threshold's size).
 """
 
 from __future__ import annotations
@@ -39,7 +41,7 @@ from gradprobe.common.errors import ProbeError
 from .bugs import make_case
 from .case import Case, load
 from .reference import FULL, reference
-from .rounding import ratios
+from .rounding import best_steps, ratios
 
 SUBSET = 48  # elements of a big tensor the reference evaluates (plus a bug's element)
 
@@ -203,6 +205,7 @@ def judge(category: str, seed: int, /, **options) -> dict:
     out["resolves"] = resolves_threshold(case, ref, report.threshold)
     if case.correct and out["inconclusive"] and case.flavor != "generic":  # no wider run
         out["ratios"] = [r for _, _, r in ratios(case, ns, ref, _floors(ref), report)]
+        out["best_steps"] = [r for _, _, r in best_steps(case, ns, ref, _floors(ref), report)]
     out["false_alarm"] = any(status.get(n) == "fail" for n, e in expect.items() if e == "quiet")
     must = [n for n, e in expect.items() if e == "fail"]
     out["expect_fail"] = bool(must)
