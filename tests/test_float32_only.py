@@ -120,3 +120,18 @@ def test_a_bug_under_loose_bounds_is_not_passed():
     o = _judged(45092)
     assert not o["false_alarm"], (o["status"], o["expect"])
     assert o["expect_fail"] and not o["missed"], (o["status"], o["expect"])
+
+
+# Correct targets left undecided by a kink or a corner within every wide step, decided now on
+# the side away from it or on rows below the wide steps (engine/one_side.py): 46094 (a ReLU off
+# 8.3e-4 from its kink, the loss flat to the right), 2555 (an abs kink within the wide steps
+# whose central quotients had put a correct element at fail before the kink logic held it),
+# 43204 (a steep Huber element 1.1e-3 inside its corner, quadratic below it).
+SIDE_SEEDS = [46094, 2555, 43204]
+
+
+@pytest.mark.parametrize("seed", SIDE_SEEDS)
+def test_a_kink_on_one_side_of_the_wide_steps_is_decided(seed):
+    o = _judged(seed)
+    assert o["correct"] and not o["false_alarm"], (o["status"], o["expect"])
+    assert not o["inconclusive"], o["status"]

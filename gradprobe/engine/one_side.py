@@ -49,25 +49,26 @@ NARROW_ROWS = 3  # rows below the first wide step (h/8, h/16, h/32 of the first 
 
 
 def one_sided_passes(probe: TensorProbe, flat: np.ndarray, judged: Judged, which: np.ndarray,
-                     taken: list[Taken]) -> Judged:
+                     taken: list[Taken], reasons: tuple[str, ...] = (NOISE,)) -> Judged:
     """``judged`` with coordinates ``which`` (positions in ``flat``) that rounding left
-    undecided passed where one side's estimate agrees with the analytic value within the
-    threshold at a bound of at most REACH tolerances (the tighter side's estimate taken)."""
-    which = _undecided(judged, which)
+    undecided (for one of ``reasons``) passed where one side's estimate agrees with the analytic
+    value within the threshold at a bound of at most REACH tolerances (the tighter side's
+    estimate taken)."""
+    which = _undecided(judged, which, reasons)
     if which.size == 0:
         return judged
     return _passed(probe, flat, judged, which, list(side_estimates(probe, flat[which], taken)))
 
 
 def narrow_passes(probe: TensorProbe, flat: np.ndarray, judged: Judged, which: np.ndarray,
-                  taken: list[Taken]) -> Judged:
+                  taken: list[Taken], reasons: tuple[str, ...] = (NOISE,)) -> Judged:
     """``judged`` with coordinates ``which`` that rounding left undecided passed where the wide
     steps' windows, their table extended NARROW_ROWS rows below the first wide step, agree with
     the analytic value within the threshold at a bound of at most REACH tolerances: a corner
     (f'' jumps, a Huber loss's) just beyond the first wide step leaves the central quotients
     exact on a quadratic piece below it, and every wide window crosses the corner. 2 NARROW_ROWS
     calls per coordinate (the wide rows' pairs are reused)."""
-    which = _undecided(judged, which)
+    which = _undecided(judged, which, reasons)
     if which.size == 0:
         return judged
     where = flat[which]
@@ -87,9 +88,9 @@ def narrow_passes(probe: TensorProbe, flat: np.ndarray, judged: Judged, which: n
     return _passed(probe, flat, judged, which, [Estimate.better(windowed(*table), plain_windowed(*table))])
 
 
-def _undecided(judged: Judged, which: np.ndarray) -> np.ndarray:
+def _undecided(judged: Judged, which: np.ndarray, reasons: tuple[str, ...]) -> np.ndarray:
     return which[(judged.status[which] == INCONCLUSIVE)
-                 & np.array([judged.reasons[k] == NOISE for k in which], dtype=bool)]
+                 & np.array([judged.reasons[k] in reasons for k in which], dtype=bool)]
 
 
 def _passed(probe: TensorProbe, flat: np.ndarray, judged: Judged, which: np.ndarray,

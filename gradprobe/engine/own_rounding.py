@@ -191,13 +191,20 @@ def judged_on_own_rounding(probe: TensorProbe, flat: np.ndarray, judged: Judged,
         decided = np.flatnonzero((redo.status != INCONCLUSIVE) | np.array([r == KINK_WITHIN for r in redo.reasons], dtype=bool))
         judged = judged.merged(noisy[mine[decided]], redo.pick(decided))
         judged = _averaged(view, flat, judged, noisy[mine], reach[mine], again)
-        judged = narrow_passes(view, flat, one_sided_passes(view, flat, judged, noisy, again), noisy, again)
+        judged = _one_side(view, flat, judged, noisy, again)
     else:
-        judged = narrow_passes(probe, flat, one_sided_passes(probe, flat, judged, noisy, taken), noisy, taken)
+        judged = _one_side(probe, flat, judged, noisy, taken)
     still = np.flatnonzero((judged.status[noisy] == INCONCLUSIVE))
     if still.size == 0:
         return judged
     return _explained(probe, flat, judged, noisy[still], measured[still], reach[still])
+
+
+def _one_side(probe: TensorProbe, flat: np.ndarray, judged: Judged, which: np.ndarray, taken: list[Taken]) -> Judged:
+    """Coordinates ``which`` still undecided for rounding, or for a kink within the wide steps,
+    passed on one side's quotients or on rows below the wide steps (:mod:`.one_side`)."""
+    why = (NOISE, KINK_WITHIN)
+    return narrow_passes(probe, flat, one_sided_passes(probe, flat, judged, which, taken, why), which, taken, why)
 
 
 def _averaged(view: _OwnRounding, flat: np.ndarray, judged: Judged, which: np.ndarray, reach: np.ndarray,
