@@ -14,12 +14,17 @@ the kernel. :func:`keep_heap` sets, once per process (the main one and each work
 
 Setting a parameter explicitly also turns off glibc's dynamic adjustment of it (glibc manual,
 "Malloc Tunable Parameters"). :func:`release_heap` (``malloc_trim(0)``) gives the free memory
-back once a check is over. Off glibc (macOS, Windows, musl) both do nothing.
+back once a check is over. :func:`own_mappings` lowers the mmap threshold for a stage of a few
+calls that allocates and frees whole-tensor arrays: each gets its own mapping, handed back
+when freed, instead of holes in the heap that later arrays of other sizes do not fit. Off
+glibc (macOS, Windows, musl) they all do nothing.
 """
 
 from __future__ import annotations
 
 import sys
+from collections.abc import Iterator
+from contextlib import contextmanager
 from typing import Any
 
 M_TRIM_THRESHOLD, M_TOP_PAD, M_MMAP_THRESHOLD = -1, -2, -3
@@ -61,3 +66,32 @@ def release_heap() -> None:
     libc = _glibc()
     if libc and hasattr(libc, "malloc_trim"):
         libc.malloc_trim(0)
+
+
+OWN_MAPPING = 1 << 20  # bytes: inside own_mappings, blocks this large get their own mapping
+
+
+@contextmanager
+def own_mappings() -> Iterator[None]:
+    """Blocks of OWN_MAPPING bytes or more allocated inside get their own mapping (returned to
+    the system when freed), and the heap's free pages go back first (the mappings do not
+    reuse them); keep_heap's threshold is put back when the outermost one ends. Only where
+    keep_heap's settings are in force (else glibc's own dynamic threshold is left alone)."""
+    global _inside
+    libc = _glibc()
+    if not (libc and _done):
+        yield
+        return
+    if _inside == 0:
+        release_heap()
+        libc.mallopt(M_MMAP_THRESHOLD, OWN_MAPPING)
+    _inside += 1
+    try:
+        yield
+    finally:
+        _inside -= 1
+        if _inside == 0:
+            libc.mallopt(M_MMAP_THRESHOLD, SETTINGS[M_MMAP_THRESHOLD])
+
+
+_inside = 0  # own_mappings open now (nested ones leave the threshold to the outermost)

@@ -65,10 +65,12 @@ def is_narrow_float(dtype: np.dtype) -> bool:
     return is_float_dtype(dtype) and np.dtype(dtype).itemsize < 8
 
 
-def validate(result: Any, ws: Workspace, own_type: bool = False) -> Gradients:
+def validate(result: Any, ws: Workspace, own_type: bool = False, borrowed: bool = False) -> Gradients:
     """Sort backward's result into usable gradients and problems. ``own_type``: narrow
     floating gradients stay in the type backward returned them in (private copies), for
-    :func:`widened` to turn into float64 unless a float64 run replaces them."""
+    :func:`widened` to turn into float64 unless a float64 run replaces them. ``borrowed``:
+    the caller reads the gradients and lets go of them before the user's code runs again,
+    and never writes into them: arrays already of the type asked for are not copied."""
     if not isinstance(result, Mapping):
         raise BadOutputError(
             "backward must return a mapping of name -> gradient, not "
@@ -78,7 +80,7 @@ def validate(result: Any, ws: Workspace, own_type: bool = False) -> Gradients:
     flat = flatten(result)
     names = set(flat)
     handed = isinstance(result, Handed)
-    fresh = isinstance(result, Handed) and result.fresh
+    fresh = borrowed or (isinstance(result, Handed) and result.fresh)
     emptied(result)  # one the boundary built: its arrays are let go of as they are read
     out = Gradients()
     for name in list(flat):

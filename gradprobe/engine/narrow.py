@@ -25,7 +25,7 @@ from .gradients import validate
 from .preflight import call_backward
 from .ladder import Estimate
 from .probe import TensorProbe
-from .sampling import random_signs
+from .sampling import SIGN_CHUNK, random_signs
 from ..common.roundoff import unit_roundoff
 
 PROPAGATION_UNITS = 2.0  # each value moves by this many units of roundoff (its storage and one operation)
@@ -35,34 +35,88 @@ PROPAGATION_SAMPLES = 2  # backward calls, each at its own random signs
 def propagated_rounding(
     backward: Callable[..., Any], wide: Workspace, grad_output: np.ndarray | None,
     dtype: np.dtype, base: dict[str, np.ndarray], rng: np.random.Generator,
+    source: Workspace | None = None,
 ) -> dict[str, np.ndarray]:
     """Per tensor and flat coordinate, the largest change of the float64 gradient (``base``)
     when every floating value moves by PROPAGATION_UNITS * u of ``dtype``; {} when backward
-    fails there (no evidence: the narrow gradient is then held to the threshold alone)."""
+    fails there (no evidence: the narrow gradient is then held to the threshold alone).
+
+    ``source``: the workspace ``wide`` was copied from (its floating values exact in
+    ``wide``'s types, and ``wide`` at rest at them): the moved values are then written into
+    ``wide``'s own arrays a block at a time and put back from ``source`` after each call (no
+    moved copy of the params beside them); without it each moved tensor is a new array."""
     u = unit_roundoff(dtype)
     spread: dict[str, np.ndarray] = {}
     names = [n for n in wide.names() if is_float(wide.owners[n])]
+    in_place = source is not None and source is not wide and all(
+        _refillable(wide.owners[n], source.owners.get(n)) for n in names)
     try:
         for _ in range(PROPAGATION_SAMPLES):
-            moved = {n: _moved(wide.owners[n], PROPAGATION_UNITS * u, rng) for n in names}
-            with quiet():  # a moved point: the code's warnings there are not shown
-                raw = call_backward(backward, wide.replacing(moved), grad_output, scratch=False)
-            del moved
-            g = validate(raw, wide).values
+            try:
+                if in_place:
+                    for n in names:
+                        _move_in_place(wide.owners[n], PROPAGATION_UNITS * u, rng)
+                    at = wide
+                else:
+                    at = wide.replacing({n: _moved(wide.owners[n], PROPAGATION_UNITS * u, rng) for n in names})
+                with quiet():  # a moved point: the code's warnings there are not shown
+                    raw = call_backward(backward, at, grad_output, scratch=False)
+                del at
+            finally:
+                if in_place:
+                    assert source is not None
+                    for n in names:
+                        np.copyto(wide.owners[n], source.owners[n], casting="unsafe")
+            # read at once and let go of: no copies of the user's arrays
+            g = validate(raw, wide, borrowed=True).values
             del raw
             for name, b in base.items():
                 if name in g:
-                    change = np.subtract(g.pop(name).reshape(-1), b)
-                    np.abs(change, out=change)
-                    if name in spread:
-                        np.maximum(spread[name], change, out=spread[name])
-                    else:
-                        spread[name] = change
-                    del change
+                    spread[name] = _largest_change(spread.get(name), g.pop(name).reshape(-1), b)
             del g
     except ProbeError:
         return {}
     return spread
+
+
+BLOCK = 1 << 16  # values a block at a time
+
+
+def _refillable(x: np.ndarray, narrow: np.ndarray | None) -> bool:
+    """``x`` can be moved in place and refilled from ``narrow``: a float64 array of its own,
+    C-ordered, of the same shape."""
+    return (narrow is not None and x.dtype == np.float64 and x.flags.c_contiguous and x.flags.writeable
+            and narrow.shape == x.shape and not np.may_share_memory(x, narrow))
+
+
+def _move_in_place(x: np.ndarray, share: float, rng: np.random.Generator) -> None:
+    """x * (1 + share * s), s = +-1 at random, written into ``x`` a block at a time: the same
+    draws as :func:`_moved` (sampling.random_negative's chunks, in order) and the same
+    operations in the same order on each value."""
+    flat = x.reshape(-1)
+    for start in range(0, flat.size, SIGN_CHUNK):
+        stop = min(start + SIGN_CHUNK, flat.size)
+        out = np.ones(stop - start)
+        np.negative(out, out=out, where=rng.integers(0, 2, size=stop - start) == 0)
+        out *= share
+        out += 1.0
+        out *= flat[start:stop]
+        flat[start:stop] = out
+
+
+def _largest_change(most: np.ndarray | None, g: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """``most`` raised to |g - b| where that is larger, a block at a time (a new array when
+    ``most`` is None): the whole-size difference's values, without it."""
+    out = np.empty(g.size, dtype=np.result_type(g, b)) if most is None else most
+    for start in range(0, g.size, BLOCK):
+        part = slice(start, start + BLOCK)
+        change = np.subtract(g[part], b[part])
+        np.abs(change, out=change)
+        if most is None:
+            out[part] = change
+        else:
+            np.maximum(out[part], change, out=out[part])
+    return out
 
 
 def _moved(x: np.ndarray, share: float, rng: np.random.Generator) -> np.ndarray:

@@ -16,8 +16,8 @@ import numpy as np
 
 from ..common.classes import dataclass
 from ..common.errors import ProbeError
-from ..common.heap import release_heap
-from ..common.tensors import Workspace, is_float
+from ..common.heap import own_mappings, release_heap
+from ..common.tensors import Handed, Workspace, is_float
 from .domain import quiet
 from .evaluate import LossFunction
 from .evaluator import Backend, Evaluator
@@ -30,7 +30,7 @@ from .probe import TensorProbe
 from .widened import Widened, root_mean_square
 from .promote import agreement, promote
 from ..common.roundoff import is_narrow, rounding_units
-from .jitter_steps import jitter_step, second_difference
+from .jitter_steps import largest_second_difference, moved_point
 from .sampling import tensor_rng
 
 
@@ -185,9 +185,11 @@ class Point:
         use; None where neither could be measured."""
         if self._narrow_jitter is None:
             n = self.numerics
-            fuzz = self._measured_jitter(self.ws, n.narrow)
-            moved = propagated_rounding(self.backward, n.workspace, self.info.grad_output, n.code_dtype,
-                                        n.analytic, tensor_rng(self.seed, "", "propagation")) if self.backward else {}
+            with own_mappings():  # seven backward calls' whole-tensor arrays: no holes left
+                fuzz = self._measured_jitter(self.ws, n.narrow)
+                moved = propagated_rounding(self.backward, n.workspace, self.info.grad_output, n.code_dtype,
+                                            n.analytic, tensor_rng(self.seed, "", "propagation"),
+                                            source=self.ws) if self.backward else {}
             self._narrow_jitter = {}
             for k in set(fuzz) | set(moved):  # their sum, in the first one's array (both float64)
                 parts = [v for v in (fuzz.pop(k, None), moved.pop(k, None)) if v is not None]
@@ -205,36 +207,31 @@ class Point:
         point, so a kink's jump is not taken for fuzz. JITTER_SPAN backward calls."""
         if self.backward is None or not base:
             return {}
-        steps = {name: jitter_step(ws.owners[name], JITTER_ULPS, tensor_rng(self.seed, name, "jitter"), grid)
-                 for name in base}
         fuzz: dict[str, np.ndarray] = {}
         before: list[dict[str, np.ndarray]] = []  # the last two points' gradients only
         absent: set[str] = set()  # tensors some point gave no usable gradient for
         try:
             for k in range(1, JITTER_SPAN + 1):
-                # x + k d in the tensor's type, one array each: k d is exact there, and the sum
-                # rounds once, as the float64 sum cast back did.
-                moved = {}
-                for n, d in steps.items():
-                    moved[n] = np.multiply(d, k, dtype=d.dtype)
-                    moved[n] += ws.owners[n]
+                # x + k d, one array each; the steps are drawn again for every point
+                moved = {n: moved_point(ws.owners[n], k, JITTER_ULPS, tensor_rng(self.seed, n, "jitter"), grid)
+                         for n in base}
                 with quiet():  # a moved point: the code's warnings there are not shown
                     raw = call_backward(self.backward, ws.replacing(moved), self.info.grad_output, scratch=False)
                 del moved
-                # Narrow gradients kept in their own type (exact); the differences in float64.
-                g = validate(raw, ws, own_type=True).values
+                fresh = isinstance(raw, Handed) and raw.fresh
+                # Narrow gradients in their own type (exact), read before the code runs again;
+                # the differences in float64, a block at a time.
+                g = validate(raw, ws, own_type=True, borrowed=True).values
                 del raw
                 absent |= {name for name in base if name not in g}
                 if len(before) == 2:
                     for name in base:
                         if name not in absent:
-                            second = second_difference(g[name], before[1][name], before[0][name])
-                            if name in fuzz:
-                                np.maximum(fuzz[name], second, out=fuzz[name])
-                            else:
-                                fuzz[name] = second
-                            del second
-                before = [*before[-1:], g]
+                            fuzz[name] = largest_second_difference(fuzz.get(name), g[name], before[1][name],
+                                                                   before[0][name])
+                before = before[-1:]  # the oldest is let go of before the newest is kept
+                if k < JITTER_SPAN:  # a later difference reads it: a private copy unless fresh
+                    before.append({n: v if fresh else v.copy() for n, v in g.items()})
                 del g
         except ProbeError:
             return {}

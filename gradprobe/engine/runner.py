@@ -12,7 +12,7 @@ import numpy as np
 
 from ..common.errors import ProbeError, TargetLoadError, UsageProblem
 from ..common.guard import guarded
-from ..common.heap import keep_heap, release_heap
+from ..common.heap import keep_heap, own_mappings, release_heap
 from ..settings.options import CheckOptions, default_threshold
 from ..report.model import LayerResult, Report, TensorResult
 from ..common.status import FAIL, Status
@@ -134,7 +134,8 @@ def _run(
     started = clock()
     target, framing = frame(target)
     assert target.backward is not None  # framed: the framework's reverse mode where absent
-    ws = Workspace(target.params, target.inputs)
+    with own_mappings():  # the private copies live through the check: not amid the heap's holes
+        ws = Workspace(target.params, target.inputs)
     if not any(is_float(ws.owners[n]) for n in ws.param_names):
         raise TargetLoadError("the target has no floating-point params to check")
     releases: list[Callable[[], None]] = []
@@ -147,7 +148,8 @@ def _run(
     try:
         evaluator = Evaluator(LossFunction(target.forward, ws, None), None, progress)
         assert target.backward is not None  # framed: the framework's reverse mode where absent
-        point = prepare(target.forward, target.backward, ws, evaluator, options.seed, backend=backend)
+        with own_mappings():  # a few calls; the float64 run and the gradients live through the check
+            point = prepare(target.forward, target.backward, ws, evaluator, options.seed, backend=backend)
         release_heap()  # preflight's copies are gone: their pages back before the probing's
         report = _check_all(target, options, point, started, clock)
     finally:
