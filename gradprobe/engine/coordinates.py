@@ -17,6 +17,7 @@ import numpy as np
 from ..common.classes import dataclass
 from ..common.status import FAIL, INCONCLUSIVE, PASS
 from .certify import certify
+from .climbed import settled_on_levels
 from .complex_step import NOT_COMPLEX_SAFE, complex_step
 from .ladder import Estimate
 from .probe import Pairs, TensorProbe
@@ -171,8 +172,14 @@ def _central(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
         todo = np.sort(todo[order[:RECHECK_LIMIT]])
     taken = [(flat[todo], h[todo], _pick(first, todo))]  # every pair taken, for reuse
     start = start_steps(probe, flat[todo], _pick(first, todo), h[todo], taken)
-    judged = judged.merged(todo, _ladder_verdicts(probe, flat[todo], start,
-                                                  taken=taken))
+    # Climbed past rounding noise: the levels climbed through may settle it (one pair more at most).
+    on_levels, level_estimate = settled_on_levels(probe, flat[todo], h[todo], start, taken, suspects[todo])
+    if on_levels.any():
+        which = np.flatnonzero(on_levels)
+        judged = judged.merged(todo[which], judge_plain(probe, flat[todo[which]], level_estimate.pick(which)))
+        todo, start = todo[~on_levels], start[~on_levels]
+    if todo.size:
+        judged = judged.merged(todo, _ladder_verdicts(probe, flat[todo], start, taken=taken))
     judged = unabsorbed(probe, flat, _widened(probe, flat, judged, taken), first)
     return flat_through_sixteen_bits(probe, flat, judged)
 
