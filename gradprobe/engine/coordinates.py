@@ -30,6 +30,7 @@ from .steps import SETTLE_FRACTION, gap_suspects, largest_smooth_step, start_ste
 from .wide_steps import wide_estimate
 from .own_rounding import judged_on_own_rounding
 from .loose_passes import loose_note, tightened
+from .promote import coarse_note, coarse_passes
 from .sixteen import measured_passes
 from .richardson import first_steps, joined, rows_of, settled, two_rows_settle
 from ..common.roundoff import is_narrow
@@ -185,10 +186,11 @@ def _central(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
 
 
 def _widened(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken: list[Taken]) -> Judged:
-    """Narrow code judged on its own arithmetic: coordinates that rounding noise left
-    undecided at every step of the ladders, judged on much wider steps
-    (:func:`.wide_steps.wide_estimate`) where those decide them."""
-    if not is_narrow(probe.compute_dtype) or probe.narrow is not None:
+    """Narrow arithmetic on the numeric side (narrow code judged on its own, or 16-bit code on
+    its float32 run): coordinates that rounding noise left undecided at every step of the
+    ladders, judged on much wider steps (:func:`.wide_steps.wide_estimate`) where those
+    decide them."""
+    if not is_narrow(probe.compute_dtype):
         return judged
     return tightened(probe, flat, judged, lambda j: _wide_steps(probe, flat, j, taken))
 
@@ -296,6 +298,12 @@ def _outcome(probe: TensorProbe, flat: np.ndarray, judged: Judged, start_count: 
     status = judged.status
     error_estimate = judged.estimate.error
     reasons = judged.reasons
+    note = None
+    if probe.narrow is not None:  # 16-bit code on its float32 run: undecided there, at 16 bits?
+        status, reasons, passed = coarse_passes(probe.compute_dtype, probe.narrow.compute_dtype, a, numeric,
+                                                error_estimate, status, reasons, scale)
+        if passed:
+            note = coarse_note(probe.tensor, passed, probe.compute_dtype, probe.narrow.compute_dtype)
     if probe.narrow is not None:  # narrow code judged on its float64 run
         a, numeric, error_estimate, status, reasons, scale = narrow_reconciled(
             probe, flat, a, numeric, error_estimate, status, reasons, scale,
@@ -315,7 +323,7 @@ def _outcome(probe: TensorProbe, flat: np.ndarray, judged: Judged, start_count: 
         flat=flat, analytic=a, numeric=numeric, error_estimate=error_estimate,
         rel=err / scale, abs=err, scale=scale, status=status,
         reasons=reasons, evaluations=probe.evaluator.count - start_count,
-        note=loose_note(probe, status, error_estimate, scale) if own else None,
+        note=loose_note(probe, status, error_estimate, scale) if own else note,
     )
 
 

@@ -82,10 +82,10 @@ def _numerics(backward: Callable[..., Any], ws: Workspace, evaluator: Evaluator,
         promoted = promote(evaluator, backward, ws, grads, info.f0, rounding, code_dtype=dtype)
         if promoted is not None and promoted.reference_only:
             widened(grads)
-            return Numerics(promoted.workspace, promoted.f0, np.dtype(np.float64), dtype, {}, {}, why,
+            return Numerics(promoted.workspace, promoted.f0, promoted.dtype, dtype, {}, {}, why,
                             info.terms, reference_only=True), promoted.loss
         if promoted is not None:  # the narrow gradients stay in their own type
-            return Numerics(promoted.workspace, promoted.f0, np.dtype(np.float64), dtype,
+            return Numerics(promoted.workspace, promoted.f0, promoted.dtype, dtype,
                             promoted.analytic, promoted.narrow, why, info.terms), promoted.loss
     widened(grads)
     return Numerics(ws, info.f0, dtype, dtype, {}, {}, why, info.terms), evaluator.loss

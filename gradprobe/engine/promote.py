@@ -1,4 +1,5 @@
-"""Checking narrow code (float32, float16, ...) with float64 numerics, when it accepts float64.
+"""Checking narrow code (float32, float16, ...) with float64 numerics, when it accepts float64
+(16-bit code that refuses float64 but takes float32, as many kernels do: float32 numerics).
 
 The numeric side of a narrow check is limited by the type's rounding (central differences
 reach about u**(2/3) at best, u its unit roundoff, and sums with cancellation lose far more).
@@ -10,6 +11,14 @@ really returns must then agree with its float64 run to the narrow type's own thr
 (:func:`.roundoff.default_threshold`) or to what its rounding is measured to vary by (the
 caller's); a coordinate beyond both is checked on the narrow code itself (overflow,
 underflow or a branch taken only in the narrow type).
+
+16-bit code whose forward or backward raises on float64 (a kernel written for the types a
+GPU computes in), or whose float64 run is not float64, gets the same check on a float32 run
+where that one is float32 throughout: float32's unit roundoff is 2**-16 of bfloat16's, so its
+numeric derivatives resolve the float32 threshold (:func:`.roundoff.default_threshold`) where
+16-bit arithmetic resolves no threshold at all, and a bug in the backward's formulas is in
+both runs. The wider run is judged on float32 arithmetic (its own rounding measured, as for
+float32 code), the 16-bit gradient against it as above.
 """
 
 from __future__ import annotations
@@ -29,6 +38,8 @@ from .gradients import Gradients, validate
 from .precision import narrower_compute_type
 from .preflight import call_backward
 from ..common.roundoff import default_threshold, is_narrow, unit_roundoff
+from ..common.status import INCONCLUSIVE, PASS
+from .verdict import NOISE
 
 # Narrow and float64 losses may differ by this share of |f| (narrow rounding in sums with
 # cancellation reaches percents; beyond this the float64 run computes something else), or by
@@ -46,6 +57,11 @@ class Promoted:
     # 16-bit code whose backward returns its 16-bit gradient whatever it is given: only
     # forward has a float64 run (analytic and narrow are then empty), see reference_only
     reference_only: bool = False
+    dtype: np.dtype = np.dtype(np.float64)  # the wider run's type
+
+
+# The wider runs tried, widest first; float32 only for 16-bit code (float32 code has none).
+WIDER = (np.dtype(np.float64), np.dtype(np.float32))
 
 
 def _narrow_names(ws: Workspace) -> list[str]:
@@ -57,9 +73,10 @@ def promote(
     grads: Gradients, f0: float, rounding: Callable[[], float] | None = None, *,
     code_dtype: Any = None,
 ) -> Promoted | None:
-    """float64 numerics for a narrow target, or None when its code does not take float64.
+    """float64 numerics for a narrow target, else for 16-bit code float32 numerics
+    (:func:`wider_types`), or None when its code takes neither.
 
-    Costs four forward calls (counted by ``evaluator``: the run, and three that look for a
+    Costs, per wider type tried, four forward calls (counted by ``evaluator``: the run, and three that look for a
     narrower type inside, :func:`.precision.narrower_compute_type`) and one backward call;
     ``rounding`` (the narrow loss's rounding, measured) is called where the two losses differ
     by more than AGREEMENT of |f|: within it they are the same computation still.
@@ -68,16 +85,36 @@ def promote(
     names = _narrow_names(ws)
     if not names:
         return None
+    for wide_dtype in wider_types(ws, names, code_dtype):
+        found = _promoted(evaluator, backward, ws, grads, f0, rounding, code_dtype, names, wide_dtype)
+        if found is not None:
+            return found
+    return None
+
+
+def wider_types(ws: Workspace, names: list[str], code_dtype: Any) -> tuple[np.dtype, ...]:
+    """The wider runs to try: float64, and float32 where the code computes in a 16-bit type
+    and its narrow tensors are all narrower than float32."""
+    coarse = code_dtype is not None and reference_only(np.dtype(code_dtype))
+    narrower = all(unit_roundoff(ws.owners[n].dtype) > unit_roundoff(np.float32) for n in names)
+    return WIDER if coarse and narrower else WIDER[:1]
+
+
+def _promoted(
+    evaluator: Evaluator, backward: Callable[..., Any], ws: Workspace, grads: Gradients, f0: float,
+    rounding: Callable[[], float] | None, code_dtype: Any, names: list[str], wide_dtype: np.dtype,
+) -> Promoted | None:
+    """:func:`promote` on a run in ``wide_dtype``."""
     # The float64 copies are the new workspace's own (no second copy of them); its other
     # floating tensors are copies too, as a workspace's are (they are perturbed there).
-    wide = ws.replacing({n: aligned_copy(ws.owners[n], np.float64) if n in names else aligned_copy(ws.owners[n])
+    wide = ws.replacing({n: aligned_copy(ws.owners[n], wide_dtype) if n in names else aligned_copy(ws.owners[n])
                          for n in ws.names() if is_float(ws.owners[n])})
     grad_output = evaluator.loss.grad_output
     loss = LossFunction(evaluator.loss.forward, wide, grad_output)
     try:
         wide_evaluator = evaluator.sibling(loss)
         f64, dtype = wide_evaluator.base_with_type()
-        if dtype != np.float64:
+        if dtype != wide_dtype:
             return None
         if narrower_compute_type(wide_evaluator, wide, f64, dtype, source=ws) is not None:
             return None  # it casts to a narrower type inside: the float64 run is not float64
@@ -89,12 +126,12 @@ def promote(
         raw = call_backward(backward, wide, grad_output, scratch=False)
         if apart and (rounding is None or abs(f64 - f0) > rounding()):
             return None  # another computation, beyond the narrow loss's own rounding
-        if not _all_float64(raw):
+        if not _all_of(raw, wide_dtype):
             # backward rounds to the narrow type itself: no float64 run of it to compare with;
             # 16-bit code's forward is still the reference (its own staircase of a loss
             # cannot tell a factor of 2 from rounding)
             if code_dtype is not None and reference_only(np.dtype(code_dtype)):
-                return Promoted(wide, loss, f64, {}, {}, reference_only=True)
+                return Promoted(wide, loss, f64, {}, {}, reference_only=True, dtype=wide_dtype)
             return None
         grads64 = validate(raw, wide)
     except (ProbeError, Exception):  # float64 is outside what this code accepts
@@ -107,7 +144,7 @@ def promote(
             return None
         analytic[name] = g64.reshape(-1)
         narrow[name] = g.reshape(-1)
-    return Promoted(wide, loss, f64, analytic, narrow)
+    return Promoted(wide, loss, f64, analytic, narrow, dtype=wide_dtype)
 
 
 def reference_only(dtype: np.dtype) -> bool:
@@ -116,17 +153,50 @@ def reference_only(dtype: np.dtype) -> bool:
     return unit_roundoff(dtype) >= unit_roundoff(np.float16)
 
 
-def _all_float64(tree: Any) -> bool:
+def _all_of(tree: Any, dtype: np.dtype) -> bool:
+    """Every floating array of ``tree`` is ``dtype`` (ml_dtypes' bfloat16 counts as floating)."""
     if isinstance(tree, Mapping):
-        return all(_all_float64(v) for v in tree.values())
+        return all(_all_of(v, dtype) for v in tree.values())
     array = np.asarray(tree)
-    return not is_float_dtype(array.dtype) or array.dtype == np.float64  # ml_dtypes' bfloat16 too
+    return not is_float_dtype(array.dtype) or array.dtype == dtype
 
 
 def agreement(dtype: np.dtype) -> float:
     """The share of a coordinate's scale by which a gradient computed in ``dtype`` may leave
     its float64 run: the type's own threshold."""
     return default_threshold(dtype)
+
+
+def coarse_passes(wide_dtype: np.dtype, code_dtype: np.dtype, a: np.ndarray, numeric: np.ndarray,
+                  error: np.ndarray, status: np.ndarray, reasons: tuple[str | None, ...],
+                  scale: np.ndarray) -> tuple[np.ndarray, tuple[str | None, ...], int]:
+    """16-bit code checked on its float32 run: coordinates whose float32 numeric estimate
+    rounding leaves undecided at float32's threshold pass at the 16-bit type's (the threshold
+    the 16-bit code is held to on its own arithmetic) where the estimate's bound and its
+    distance from the float32 gradient both lie within that threshold times the coordinate's
+    scale (the derivative then lies within twice of it). The 16-bit gradient is still held to
+    the float32 one afterwards (narrow_reconciled). Returns the statuses, the reasons and how
+    many passed so."""
+    if not (is_narrow(wide_dtype) and reference_only(code_dtype)):
+        return status, reasons, 0
+    tol = agreement(code_dtype) * scale
+    noisy = np.array([s == INCONCLUSIVE and r is not None and r.startswith(NOISE)
+                      for s, r in zip(status.tolist(), reasons)], dtype=bool)
+    with np.errstate(invalid="ignore"):
+        passed = noisy & np.isfinite(error) & (error <= tol) & (np.abs(a - numeric) <= tol)
+    if not passed.any():
+        return status, reasons, 0
+    status = status.copy()
+    status[passed] = PASS
+    return status, tuple(None if p else r for p, r in zip(passed.tolist(), reasons)), int(passed.sum())
+
+
+def coarse_note(tensor: str, passed: int, wide_dtype: np.dtype, code_dtype: np.dtype) -> str:
+    """What :func:`coarse_passes` did, for the report's notes."""
+    which = f"{passed} coordinates" if passed > 1 else "1 coordinate"
+    return (f"{tensor}: {which} that {wide_dtype} rounding leaves undecided at {wide_dtype}'s threshold "
+            f"passed at {code_dtype}'s ({agreement(code_dtype):.2g}), the threshold its own arithmetic "
+            f"is held to: the {wide_dtype} estimate bounds the derivative within it")
 
 
 def disagreeing(narrow: np.ndarray, wide: np.ndarray, allowed: np.ndarray) -> np.ndarray:

@@ -36,7 +36,9 @@ point and the wide steps, over which the wide quotients average, puts them apart
 against mpmath on the adversarial inside16 set, the bounds hold wherever no kink lies within
 the steps). This only ever passes: a
 coordinate it does not pass stays as it was (a failure keeps needing the assumed
-rounding's bound), so recall is what it was.
+rounding's bound), so recall is what it was; its reason then names the smallest relative
+error that the jittered estimate's bound lets show on it (SIGNIFICANCE bounds over its
+scale), or says that no window bounded it.
 """
 
 from __future__ import annotations
@@ -49,7 +51,7 @@ from .ladder import Estimate
 from .wide_steps import WIDE_FIRST, WIDE_LAST, WIDE_ROWS, plain_windowed
 from .probe import TensorProbe
 from .refine import Taken, pairs_reusing
-from .verdict import NOISE, Judged
+from .verdict import NOISE, SIGNIFICANCE, Judged
 
 LEVELS = 4  # steps s, 2s, 4s, 8s: two windows of plain_windowed
 JITTERS = 4  # quotients per level
@@ -137,9 +139,29 @@ def measured_passes(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken:
     before = judged.estimate.pick(noisy)
     continues = np.abs(est.value - before.value) <= est.error + before.error
     passed = np.isfinite(est.error) & (np.abs(a - est.value) <= tol) & (est.error <= tol) & continues
+    judged = _explained(probe, flat, judged, noisy[~passed], est.pick(np.flatnonzero(~passed)))
     if not passed.any():
         return judged
     which = noisy[passed]
     now = Judged(np.full(which.size, PASS, dtype=judged.status.dtype), est.pick(np.flatnonzero(passed)),
                  (None,) * which.size, np.zeros(which.size, dtype=bool))
     return judged.merged(which, now)
+
+
+def _explained(probe: TensorProbe, flat: np.ndarray, judged: Judged, which: np.ndarray, est: Estimate) -> Judged:
+    """The reason of coordinates ``which`` (still undecided by rounding) with what the jittered
+    estimate ``est`` could resolve on each (see the module)."""
+    if which.size == 0:
+        return judged
+    scale = probe.denominators(flat[which], est.value)
+    smallest = np.maximum(SIGNIFICANCE * est.error, probe.tolerance(flat[which], est.value)) / scale
+    reasons = list(judged.reasons)
+    for k, i in enumerate(which.tolist()):
+        if np.isfinite(smallest[k]):
+            reasons[i] = (f"{NOISE}: its {probe.compute_dtype} rounding, measured at the widest steps its scale "
+                          f"allows, hides any relative error below {smallest[k]:.2g} on it")
+        else:
+            reasons[i] = (f"{NOISE}: no estimate at the widest steps its scale allows bounds it (the "
+                          f"{probe.compute_dtype} loss does not change measurably there, or its quotients do "
+                          f"not follow the error model of central differences)")
+    return Judged(judged.status, judged.estimate, tuple(reasons), judged.noise_limited)
