@@ -220,6 +220,13 @@ def _averaged(view: _OwnRounding, flat: np.ndarray, judged: Judged, which: np.nd
     est = averaged_estimate(view, where, reach[left], taken)
     more = kinks_within_reach(view, where, judge_plain(view, where, est), taken)
     decided = np.flatnonzero((more.status != INCONCLUSIVE) | np.array([r == KINK_WITHIN for r in more.reasons], dtype=bool))
+    # Still undecided by rounding: the tighter bound is kept, the verdict and reason as they
+    # were (16-bit code on its float32 run is judged on it at its own threshold, promote.py).
+    tighter = np.flatnonzero((more.status == INCONCLUSIVE) & np.array([r == NOISE for r in more.reasons], dtype=bool)
+                             & (more.estimate.error < judged.estimate.error[which[left]]))
+    kept = judged.pick(which[left[tighter]])
+    judged = judged.merged(which[left[tighter]], Judged(kept.status, more.estimate.pick(tighter), kept.reasons,
+                                                        kept.noise_limited))
     return judged.merged(which[left[decided]], more.pick(decided))
 
 

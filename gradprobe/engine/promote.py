@@ -94,9 +94,10 @@ def promote(
 
 def wider_types(ws: Workspace, names: list[str], code_dtype: Any) -> tuple[np.dtype, ...]:
     """The wider runs to try: float64, and float32 where the code computes in a 16-bit type
-    and its narrow tensors are all narrower than float32."""
+    and some of its tensors are narrower than float32 (those are run in float32, the
+    others in their own type)."""
     coarse = code_dtype is not None and reference_only(np.dtype(code_dtype))
-    narrower = all(unit_roundoff(ws.owners[n].dtype) > unit_roundoff(np.float32) for n in names)
+    narrower = any(unit_roundoff(ws.owners[n].dtype) > unit_roundoff(np.float32) for n in names)
     return WIDER if coarse and narrower else WIDER[:1]
 
 
@@ -107,7 +108,8 @@ def _promoted(
     """:func:`promote` on a run in ``wide_dtype``."""
     # The float64 copies are the new workspace's own (no second copy of them); its other
     # floating tensors are copies too, as a workspace's are (they are perturbed there).
-    wide = ws.replacing({n: aligned_copy(ws.owners[n], wide_dtype) if n in names else aligned_copy(ws.owners[n])
+    widened = [n for n in names if unit_roundoff(ws.owners[n].dtype) > unit_roundoff(wide_dtype)]
+    wide = ws.replacing({n: aligned_copy(ws.owners[n], wide_dtype) if n in widened else aligned_copy(ws.owners[n])
                          for n in ws.names() if is_float(ws.owners[n])})
     grad_output = evaluator.loss.grad_output
     loss = LossFunction(evaluator.loss.forward, wide, grad_output)
