@@ -20,7 +20,7 @@ from .grounds import judged_ladder
 from .ladder import NOISE_UNITS
 from .probe import TensorProbe
 from .refine import RATIO, ROWS, Ladder, Taken, climb, ladder_taken
-from .verdict import Judged
+from .verdict import SHARED_POINT, UNRESOLVED, Judged
 from ..common.status import INCONCLUSIVE
 
 DESCENTS = 3  # further ladders at most, each starting just below the last one's smallest step
@@ -114,8 +114,11 @@ def between_levels(probe: TensorProbe, flat: np.ndarray, judged: Judged, start: 
         return judged
     value = judged.estimate.value
     a = probe.a[flat]
+    # Not where a tiny step showed a kink at the point (its jump kept): a ladder at these
+    # steps would take the side that crossed no other kink for the derivative there.
+    at_a_kink = np.array([r in (UNRESOLVED, SHARED_POINT) for r in judged.reasons], dtype=bool)
     which = np.flatnonzero((judged.status == INCONCLUSIVE) & judged.noise_limited & np.isfinite(value)
-                           & (np.abs(a - value) > probe.tolerance(flat, value)))
+                           & (np.abs(a - value) > probe.tolerance(flat, value)) & ~at_a_kink)
     if which.size == 0:
         return judged
     top = start[which] * RATIO**BETWEEN_RISE

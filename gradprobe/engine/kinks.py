@@ -20,8 +20,8 @@ from .ladder import Estimate
 from .probe import TensorProbe
 from .refine import Ladder, Tiny
 from .kink_evidence import between, cornered, crossed, kink_evidence, near_a_side, within_kink
-from .verdict import (CORNER_NEAR, CROWDED, NEAR_KINK, NOISE, SIGNIFICANCE, UNRESOLVED, UNSETTLED,
-                      Judged, verdicts)
+from .verdict import (CORNER_NEAR, CROWDED, NEAR_KINK, NOISE, SHARED_POINT, SIGNIFICANCE, UNRESOLVED,
+                      UNSETTLED, Judged, verdicts)
 
 LOPSIDED = 0.01  # a side whose bound is 100 times tighter than the other's has settled
 NEAR_SAFETY = 4.0  # bounds of a side estimated beside a kink are taken 4 times wider
@@ -198,8 +198,9 @@ def _judge_sides(
     # both signs), the usual per-kink convention picks one side per kink, and the sum lies
     # between the sums over any subset of them: from 0 (every kink on its resting side) to
     # left + right (every kink on its moving side), which can be outside the two one-sided
-    # derivatives when they share a sign. Those extremes are allowed too; a value further
-    # out is taken as a bug.
+    # derivatives when they share a sign. Those extremes are allowed too; a value further out
+    # is undecided where the tiny step keeps the jump (a smooth part beside several kinks
+    # moves every such sum), and otherwise judged as below.
     inside = within_kink(a, left, right, probe.tolerance(f, a))
     nearer = np.where(np.abs(a - left.value) <= np.abs(a - right.value), left.value, right.value)
     nearer_error = np.where(np.abs(a - left.value) <= np.abs(a - right.value), left.error, right.error)
@@ -247,10 +248,16 @@ def _judge_sides(
             # where they did, more can lie closer than any step, each adding its own jump
             # (of either sign) to the values a correct gradient may take at the point; so too
             # where the tiny step cannot rule out one closer than itself (``hidden``).
+            # Nor does a single kink at the point bound it: where several meet there beside a
+            # smooth part S (right = S + the moving kinks' slopes on the right, left = S + those
+            # on the left), the per-kink convention gives S plus any subset of them, which no
+            # pair of one-sided derivatives fixes. Undecided here; the second look off the point
+            # (offpoint.py), where the kinks part, fails a wrong gradient.
             crowded = crossed_left[j] | crossed_right[j]
-            status[k] = KINK if inside[j] else INCONCLUSIVE if crowded or hidden[j] else FAIL
+            status[k] = KINK if inside[j] else INCONCLUSIVE
             value[k], error[k] = nearer[j], nearer_error[j]
-            reasons[k] = (CROWDED if crowded else UNRESOLVED) if status[k] == INCONCLUSIVE else None
+            reasons[k] = (None if inside[j] else CROWDED if crowded else UNRESOLVED if hidden[j]
+                          else SHARED_POINT)
         elif near_status[j] != PASS and moved_inside[j]:
             # The jump moved at the tiny step, yet the value lies between the sides: more
             # kinks meet close to the point (ties in many rows) and no step tells them
@@ -288,10 +295,14 @@ def judge_sides_apart(
     chosen = _one_clean_side(decides_left, decides_right, left, right, Estimate.better(left, right))
     status = verdicts(probe, a, chosen, probe.tolerance(flat, chosen.value))
     both = decides_left & decides_right
-    status[both & ~agree] = np.where(within_kink(a, left, right, tol), KINK, FAIL)[both & ~agree]
+    # Sides that disagree show a kink at the point; a value outside them is one several kinks
+    # meeting there beside a smooth part can give (see _judge_sides): undecided, not failed.
+    shared = both & ~agree & ~within_kink(a, left, right, tol)
+    status[both & ~agree] = np.where(shared, INCONCLUSIVE, KINK)[both & ~agree]
     status[~(decides_left | decides_right)] = INCONCLUSIVE
     explained, undecided = kink_evidence(a, left, right, tol)
     status[(status == FAIL) & explained] = KINK
     status[(status == FAIL) & undecided] = INCONCLUSIVE
-    reasons = tuple(NEAR_KINK if s == INCONCLUSIVE else None for s in status)
+    reasons = tuple((SHARED_POINT if shared[k] else NEAR_KINK) if s == INCONCLUSIVE else None
+                    for k, s in enumerate(status))
     return Judged(status, chosen, reasons, status == INCONCLUSIVE)

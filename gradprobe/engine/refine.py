@@ -18,6 +18,7 @@ from .ladder import NOISE_UNITS, Estimate, column_rates, drifting, tableau
 from .probe import Pairs, TensorProbe
 
 RATIO = 2.0
+ONE_SIDE_STILL = 0.125  # a side that moves under 1/8 of the other's move, as the step halves, is still
 ROWS = 5
 NOISE_SHARE_UNITS = 2.0  # the rounding share of a bound counts twice the quotients' noise
 TINY_NOISE_UNITS = 80.0  # the tiny step's one-sided noise (2 delta / t) is 1/40 of the jump
@@ -222,7 +223,8 @@ def sides_steady(right: np.ndarray, left: np.ndarray, noise: np.ndarray) -> tupl
     it behave at the last rows as a smooth loss's does, h f'' + O(h**2), its change at that
     model's rate and, extrapolated to a step of 0, no larger than its last change (a gap that
     stays, as at a kink at the point, does not vanish so)? Within the rounding noise, or shown
-    above it (the second array: positive evidence of no kink among the steps).
+    above it with both sides moving alike (the second array: positive evidence of no kink
+    among the steps).
 
     The central tableau assumes a loss smooth on the steps; where the sides do not agree in
     this way (a kink at or near the point: the gap stays, or changes like 1/h as the steps
@@ -233,8 +235,13 @@ def sides_steady(right: np.ndarray, left: np.ndarray, noise: np.ndarray) -> tupl
         slack = 2.0 * NOISE_UNITS * (noise[-1] + noise[-2])
         at_rate = column_rates(gap, noise, 1.0 / RATIO)[-1]
         vanishes = np.abs(gap[-1] + change) <= np.abs(change)
+        # A smooth loss's sides move apart alike (by -+h f''/4 as the step halves, their mean
+        # by O(h**2)); one side all but steady (under ONE_SIDE_STILL of the other's move) while
+        # the other moves is a kink crossed on that side, however the gap shrinks.
+        moved = np.abs(right[-1] - right[-2]), np.abs(left[-1] - left[-2])
+        alike = (np.minimum(*moved) > ONE_SIDE_STILL * np.maximum(*moved)) | (np.maximum(*moved) <= slack)
         return at_rate & (vanishes | (np.abs(gap[-1] + change) <= np.abs(change) + slack)), \
-            at_rate & vanishes & (np.abs(gap[-1]) > slack)
+            at_rate & vanishes & alike & (np.abs(gap[-1]) > slack)
 
 
 

@@ -46,6 +46,11 @@ UNRESOLVED = (
 
 # Left undecided by one-sided slopes taken down to the smallest step rounding allows
 # (:mod:`.close_kinks`): what was not resolved.
+SHARED_POINT = (
+    "a kink sits at the point and the analytic value lies outside its one-sided derivatives: "
+    "where several kinks meet at the point beside a smooth part, a correct gradient can take "
+    "such a value, and no step tells how many meet there"
+)
 CLOSE_NEITHER = (
     "the one-sided slopes change at every step down to the smallest that rounding noise allows, "
     "on both sides: kinks lie closer to the point than any resolvable step, and neither "
@@ -135,7 +140,7 @@ def judge_plain(probe: TensorProbe, flat: np.ndarray, est: Estimate) -> Judged:
     return Judged(status, est, reasons, status == INCONCLUSIVE)
 
 
-CROSSING = (UNSETTLED, NEAR_KINK, CROWDED, UNRESOLVED, CLOSE_NEITHER, CLOSE_ONE, CLOSE_BOTH)
+CROSSING = (UNSETTLED, NEAR_KINK, CROWDED, UNRESOLVED, SHARED_POINT, CLOSE_NEITHER, CLOSE_ONE, CLOSE_BOTH)
 
 
 def looked_at_again(status: np.ndarray, reasons: tuple[str | None, ...]) -> np.ndarray:
