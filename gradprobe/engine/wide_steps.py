@@ -195,7 +195,12 @@ def plain_windowed(d: np.ndarray, s: np.ndarray, e: np.ndarray, apart: np.ndarra
             follows &= gap[i1] <= gap[i3] * (s[i1] / s[i3]) * 2.0 + 2.0 * WIDE_NOISE * (side_noise[i1] + side_noise[i3])
             width = s[i3] ** 2 - s[i2] ** 2
             bend = (np.abs(upper) + e[i2] + e[i3]) * s[i2] ** 2 / width
-            bound = WIDE_SAFETY * bend + WIDE_NOISE * e[i2]
+            # The change below D2 measures the same c2 s2**2 (D2 - f' = c2 s2**2, and D2 - D1 =
+            # c2 (s2**2 - s1**2)): the bound holds what either change shows beyond rounding, as
+            # the room the test above grants lets D2 - D1 exceed what D3 - D2 predicts.
+            shown = np.maximum(np.abs(lower) - e[i1] - e[i2], 0.0)
+            below = shown * s[i2] ** 2 / (s[i2] ** 2 - s[i1] ** 2)
+            bound = WIDE_SAFETY * np.maximum(bend, below) + WIDE_NOISE * e[i2]
             for j in range(w):
                 follows &= np.abs(d[j] - d[i2]) <= np.abs(d[i1] - d[i2]) + WIDE_NOISE * e[j] + bound
             follows &= _ascending(s, np.arange(w, w + 3), limit)
