@@ -4,8 +4,9 @@ Every coordinate gets one pair of calls at x +- h. Where the central difference 
 the analytic value to a hundredth of the threshold and the one-sided slopes show nothing
 odd, that is the verdict (about 2 calls per coordinate). The others are re-estimated on a
 ladder of steps chosen from what the first pair showed (rounding noise: larger steps;
-curvature on the scale of the step: smaller ones) and judged by :mod:`.verdict`: a
-coordinate fails only when its discrepancy exceeds both the threshold and its error bound.
+curvature on the scale of the step: smaller ones; :mod:`.ladder_verdicts`) and judged by
+:mod:`.verdict`: a coordinate fails only when its discrepancy exceeds both the threshold and
+its error bound.
 """
 
 from __future__ import annotations
@@ -23,10 +24,10 @@ from .ladder import Estimate
 from .probe import Pairs, TensorProbe
 from .reconcile import narrow_reconciled, own_code_reconciled, unabsorbed, unfuzzed, zero_at_own_scale
 from .unmoved import moved_at_own_scale
-from .grounds import drifting_sides, judged_ladder, sides_grown
-from .refine import RATIO, ROWS, Taken, climb, ladder_taken, one_sided_drift
+from .grounds import judged_ladder
+from .refine import Taken, climb
 from .staircase import flat_through_sixteen_bits
-from .steps import SETTLE_FRACTION, gap_suspects, largest_smooth_step, start_steps, steps_down
+from .steps import SETTLE_FRACTION, gap_suspects, start_steps, steps_down
 from .wide_steps import wide_estimate
 from .own_rounding import judged_on_own_rounding
 from .loose_passes import loose_note, tightened
@@ -34,13 +35,9 @@ from .promote import coarse_note, coarse_passes
 from .sixteen import measured_passes
 from .richardson import first_steps, joined, rows_of, settled, two_rows_settle
 from ..common.roundoff import is_narrow
-from .kinks import judge_sides_apart
-from .close_kinks import looked_closer
-from .descent import between_levels, descend
-from .lopsided import kink_beside
+from .ladder_verdicts import ladder_verdicts
 from .verdict import NOISE, Judged, judge_plain
 
-RETRY_SHIFT = 6  # a second ladder starts 2**6 steps higher (noise) or lower (curvature)
 RECHECK_LIMIT = 400  # coordinates per tensor re-estimated on a ladder
 SHORT_ROWS = 4  # rows of the short ladder beyond that budget (the fourth checks the third)
 
@@ -60,52 +57,6 @@ class CoordinateOutcome:
     reasons: tuple[str | None, ...]
     evaluations: int
     note: str | None = None  # said once for the tensor (a method fallen back from)
-
-
-def _ladder_verdicts(
-    probe: TensorProbe, flat: np.ndarray, start: np.ndarray, rows: int = ROWS,
-    taken: list[Taken] | None = None,
-) -> Judged:
-    """Judge ``flat`` on a ladder from ``start``; undecided ones get a second ladder. Pairs
-    ``taken`` before (the first pairs) are not evaluated again where a ladder meets them; the
-    ladders' own pairs are added to ``taken``."""
-    before = [] if taken is None else taken
-    ladder = climb(probe, flat, start, rows, taken=before)
-    start = start if ladder.start is None else ladder.start  # restarted below a domain edge
-    first = kink_beside(probe, flat, ladder, judged_ladder(probe, flat, ladder, start, before))
-    before.append(ladder_taken(flat, start, ladder))
-    again = np.flatnonzero(first.status == INCONCLUSIVE)
-    if again.size == 0:
-        return first
-    noisy = first.noise_limited[again]
-    shifted = start[again] * RATIO**-RETRY_SHIFT
-    if noisy.any():  # larger steps, as far as the slope is seen to stay smooth
-        which = np.flatnonzero(noisy)
-        shifted[which] = largest_smooth_step(probe, flat[again][which], start[again][which],
-                                              np.full(which.size, float(RETRY_SHIFT)), before)
-    second_ladder = climb(probe, flat[again], shifted, ROWS + 2, taken=before)
-    shifted = shifted if second_ladder.start is None else second_ladder.start
-    grown = sides_grown(probe, ladder)[again]
-    judged = first.merged(again, kink_beside(probe, flat[again], second_ladder,
-                                             judged_ladder(probe, flat[again], second_ladder, shifted, before, grown)))
-    before.append(ladder_taken(flat[again], shifted, second_ladder))
-    judged = judged.merged(again, descend(probe, flat[again], judged.pick(again), second_ladder, before))
-    judged = judged.merged(again, between_levels(probe, flat[again], judged.pick(again), start[again], before))
-    # Steps that kept crossing kinks: one-sided slopes down to rounding's floor, where the
-    # nearest kink on a side may lie beyond the steps (close_kinks.py).
-    judged, unresolved = looked_closer(probe, flat, judged, before)
-    still = np.flatnonzero(judged.status == INCONCLUSIVE)
-    if still.size == 0:
-        return judged
-    # Last: each side on its own, on steps growing away from the point (beside a kink the
-    # clean side reaches steps that beat the noise).
-    smallest = np.minimum(start[still], probe.prior_steps(flat[still]))
-    (left, left_drift), (right, right_drift) = (one_sided_drift(probe, flat[still], smallest, s) for s in (-1.0, 1.0))
-    apart = judge_sides_apart(probe, flat[still], left, right)
-    apart = drifting_sides(probe, flat[still], judged.pick(still), apart, left, right, left_drift, right_drift,
-                           judge_sides_apart)
-    keep = apart.status != INCONCLUSIVE
-    return unresolved(judged.merged(still[keep], apart.pick(np.flatnonzero(keep))))
 
 
 def _complex_checked(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> CoordinateOutcome:
@@ -180,7 +131,7 @@ def _central(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
         judged = judged.merged(todo[which], judge_plain(probe, flat[todo[which]], level_estimate.pick(which)))
         todo, start = todo[~on_levels], start[~on_levels]
     if todo.size:
-        judged = judged.merged(todo, _ladder_verdicts(probe, flat[todo], start, taken=taken))
+        judged = judged.merged(todo, ladder_verdicts(probe, flat[todo], start, taken=taken))
     judged = unabsorbed(probe, flat, _widened(probe, flat, judged, taken), first)
     return flat_through_sixteen_bits(probe, flat, judged)
 

@@ -276,33 +276,3 @@ def _judge_sides(
             status[k] = near_status[j]
             value[k], error[k] = near.value[j], near.error[j]
             reasons[k] = NEAR_KINK if near_status[j] == INCONCLUSIVE else None
-
-
-def judge_sides_apart(
-    probe: TensorProbe, flat: np.ndarray, left: Estimate, right: Estimate
-) -> Judged:
-    """Verdicts from one-sided derivatives taken apart (:func:`refine.one_sided`): both sides
-    decided and agreeing, the better decides; a side that decides alone decides (the other
-    met a kink); sides that disagree are a kink at the point. A failure is a kink where the
-    sides are seen to differ and a kink between them could give the value, undecided where
-    they are not and the value agrees with one side within its bound (:func:`kink_evidence`)."""
-    a = probe.a[flat]
-    tol = probe.tolerance(flat, a)
-    left = Estimate(left.value, NEAR_SAFETY * left.error)
-    right = Estimate(right.value, NEAR_SAFETY * right.error)
-    decides_left, decides_right = left.error <= tol, right.error <= tol
-    agree = np.abs(left.value - right.value) <= SIGNIFICANCE * (left.error + right.error) + tol
-    chosen = _one_clean_side(decides_left, decides_right, left, right, Estimate.better(left, right))
-    status = verdicts(probe, a, chosen, probe.tolerance(flat, chosen.value))
-    both = decides_left & decides_right
-    # Sides that disagree show a kink at the point; a value outside them is one several kinks
-    # meeting there beside a smooth part can give (see _judge_sides): undecided, not failed.
-    shared = both & ~agree & ~within_kink(a, left, right, tol)
-    status[both & ~agree] = np.where(shared, INCONCLUSIVE, KINK)[both & ~agree]
-    status[~(decides_left | decides_right)] = INCONCLUSIVE
-    explained, undecided = kink_evidence(a, left, right, tol)
-    status[(status == FAIL) & explained] = KINK
-    status[(status == FAIL) & undecided] = INCONCLUSIVE
-    reasons = tuple((SHARED_POINT if shared[k] else NEAR_KINK) if s == INCONCLUSIVE else None
-                    for k, s in enumerate(status))
-    return Judged(status, chosen, reasons, status == INCONCLUSIVE)

@@ -2,8 +2,9 @@
 
 Preflight's calls, the backward call, the type the code computes in (narrow code rerun in
 float64 where it accepts it), the loss's measured rounding and the target-wide gradient
-scale: everything a :class:`TensorProbe` of one tensor needs. The check prepares the point
-it was given; a second look off a kink (:mod:`.offpoint`) prepares a nearby one the same way.
+scale: everything a :class:`TensorProbe` of one tensor needs (the type and the float64 run
+are found in :mod:`.numeric_side`). The check prepares the point it was given; a second look
+off a kink (:mod:`.offpoint`) prepares a nearby one the same way.
 """
 
 from __future__ import annotations
@@ -17,78 +18,21 @@ import numpy as np
 from ..common.classes import dataclass
 from ..common.errors import ProbeError
 from ..common.heap import own_mappings, release_heap
-from ..common.tensors import Handed, Workspace, is_float
+from ..common.tensors import Handed, Workspace
 from .domain import quiet
 from .evaluate import LossFunction
 from .evaluator import Backend, Evaluator
-from .gradients import Gradients, validate, widened
+from .gradients import Gradients, validate
 from .narrow import propagated_rounding
+from .numeric_side import Numerics, code_type, numeric_side
 from .noise import measured_loss_scale, measured_rounding
-from .precision import narrower_compute_type
 from .preflight import ForwardInfo, call_backward, inspect_forward
 from .probe import TensorProbe
 from .widened import Widened, root_mean_square
-from .promote import agreement, promote
+from .promote import agreement
 from ..common.roundoff import is_narrow, rounding_units
 from .jitter_steps import largest_second_difference, moved_point
 from .sampling import tensor_rng
-
-
-@dataclass(frozen=True)
-class Numerics:
-    """Where the numeric side works: the workspace perturbed, its base loss and type."""
-
-    workspace: Workspace
-    f0: float
-    dtype: np.dtype  # the type the numeric side computes in
-    code_dtype: np.dtype  # the type the user's code computes in
-    analytic: dict[str, np.ndarray]  # the float64 run's gradients, for narrow code promoted
-    narrow: dict[str, np.ndarray]  # the narrow gradients those replace
-    why: str  # how the code's type was found, for the note
-    terms: float = 0.0  # the size of the terms the loss is summed from (ForwardInfo.terms)
-    # 16-bit code whose backward stays 16-bit: its gradient (widened) against float64
-    # numeric derivatives of its forward's float64 run, at the 16-bit type's threshold
-    reference_only: bool = False
-
-
-def _compute_type(out_dtype: np.dtype, ws: Workspace) -> tuple[np.dtype, str]:
-    """The type forward computes in: its result's, or its params' when those are coarser
-    (float32 params whose loss is returned as a Python float still carry float32 noise)."""
-    kinds = [ws.owners[n].dtype for n in ws.param_names if is_float(ws.owners[n])]
-    coarsest = max(kinds, key=lambda d: np.finfo(d).eps)
-    if np.finfo(coarsest).eps > np.finfo(out_dtype).eps:
-        return np.dtype(coarsest), f" (its params are {coarsest}, though it returns {out_dtype})"
-    return np.dtype(out_dtype), ""
-
-
-def _code_type(ws: Workspace, evaluator: Evaluator, info: ForwardInfo) -> tuple[np.dtype, str]:
-    """The code's compute type (3 calls to look for hidden float32) and how it was found."""
-    dtype, why = _compute_type(info.out_dtype, ws)
-    hidden = narrower_compute_type(evaluator, ws, info.f0, dtype)
-    if hidden is not None:
-        dtype, why = hidden.dtype, hidden.evidence
-    return dtype, why
-
-
-def _numerics(backward: Callable[..., Any], ws: Workspace, evaluator: Evaluator,
-              info: ForwardInfo, grads: Gradients, dtype: np.dtype, why: str, seed: int,
-              ) -> tuple[Numerics, LossFunction]:
-    """float64 numerics for narrow code that accepts float64 (1 forward and 1 backward
-    call), else the code's own; with the loss the numeric side evaluates."""
-    if is_narrow(dtype):
-        def rounding() -> float:  # the narrow loss's, where it leaves the float64 loss
-            return measured_rounding(evaluator, ws, list(grads.values), info.f0,
-                                     tensor_rng(seed, "", "narrow agreement"), dtype)
-        promoted = promote(evaluator, backward, ws, grads, info.f0, rounding, code_dtype=dtype)
-        if promoted is not None and promoted.reference_only:
-            widened(grads)
-            return Numerics(promoted.workspace, promoted.f0, promoted.dtype, dtype, {}, {}, why,
-                            info.terms, reference_only=True), promoted.loss
-        if promoted is not None:  # the narrow gradients stay in their own type
-            return Numerics(promoted.workspace, promoted.f0, promoted.dtype, dtype,
-                            promoted.analytic, promoted.narrow, why, info.terms), promoted.loss
-    widened(grads)
-    return Numerics(ws, info.f0, dtype, dtype, {}, {}, why, info.terms), evaluator.loss
 
 
 JITTER_ULPS = 4.0  # units in the last place every checked tensor moves to measure the jitter
@@ -330,12 +274,12 @@ def prepare(
     info = inspect_forward(forward, ws, evaluator, rng, scratch)
     # The look for a hidden float32 type moves whole tensors: done before backward's
     # gradients exist, so that its moved copies and the gradients are not held at once.
-    dtype, why = _code_type(ws, evaluator, info)
+    dtype, why = code_type(ws, evaluator, info)
     # Narrow gradients stay in their type until the float64 run is known (it replaces them
     # as the analytic side; they are widened where there is none).
     grads = validate(call_backward(backward, ws, info.grad_output, scratch), ws, own_type=True)
     release_heap()  # preflight's scratch copies and backward's temporaries: their pages back
-    numerics, loss = _numerics(backward, ws, evaluator, info, grads, dtype, why, seed)
+    numerics, loss = numeric_side(backward, ws, evaluator, info, grads, dtype, why, seed)
     where = backend(numerics.workspace, info.grad_output) if backend is not None else None
     point = Point(ws, evaluator.sibling(loss, where), info, grads, numerics, backward, seed)
     point._measure()

@@ -20,7 +20,8 @@ from ..targets.target import Target
 from ..common.tensors import INPUT_LAYER, Workspace, is_float, layer_of
 from .evaluate import LossFunction
 from .evaluator import Backend, Evaluator, Progress
-from .point import Numerics, Point, prepare
+from .numeric_side import Numerics
+from .point import Point, prepare
 from .record import TensorRecord
 from .tensor_check import check_tensor
 from .promote import agreement

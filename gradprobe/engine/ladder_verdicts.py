@@ -1,0 +1,75 @@
+"""Verdicts on ladders for coordinates the first pair of calls did not settle.
+
+A ladder from the step the first pair chose (:mod:`.steps`); where that leaves a coordinate
+undecided, a second ladder 2**RETRY_SHIFT steps higher (rounding noise, as far as the slope
+stays smooth) or lower (curvature), then the descents below it and between the 16-fold
+levels (:mod:`.descent`), a closer look where the steps kept crossing kinks
+(:mod:`.close_kinks`), and last each side of the point on its own (:mod:`.sides_apart`).
+:mod:`.coordinates` calls it for the coordinates within its budget.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..common.status import INCONCLUSIVE
+from .close_kinks import looked_closer
+from .descent import between_levels, descend
+from .grounds import drifting_sides, judged_ladder, sides_grown
+from .lopsided import kink_beside
+from .probe import TensorProbe
+from .refine import RATIO, ROWS, Taken, climb, ladder_taken
+from .sides_apart import judge_sides_apart, one_sided_drift
+from .steps import largest_smooth_step
+from .verdict import Judged
+
+RETRY_SHIFT = 6  # a second ladder starts 2**6 steps higher (noise) or lower (curvature)
+
+
+def ladder_verdicts(
+    probe: TensorProbe, flat: np.ndarray, start: np.ndarray, rows: int = ROWS,
+    taken: list[Taken] | None = None,
+) -> Judged:
+    """Judge ``flat`` on a ladder from ``start``; undecided ones get a second ladder. Pairs
+    ``taken`` before (the first pairs) are not evaluated again where a ladder meets them; the
+    ladders' own pairs are added to ``taken``."""
+    before = [] if taken is None else taken
+    ladder = climb(probe, flat, start, rows, taken=before)
+    start = start if ladder.start is None else ladder.start  # restarted below a domain edge
+    first = kink_beside(probe, flat, ladder, judged_ladder(probe, flat, ladder, start, before))
+    before.append(ladder_taken(flat, start, ladder))
+    again = np.flatnonzero(first.status == INCONCLUSIVE)
+    if again.size == 0:
+        return first
+    noisy = first.noise_limited[again]
+    shifted = start[again] * RATIO**-RETRY_SHIFT
+    if noisy.any():  # larger steps, as far as the slope is seen to stay smooth
+        which = np.flatnonzero(noisy)
+        shifted[which] = largest_smooth_step(probe, flat[again][which], start[again][which],
+                                              np.full(which.size, float(RETRY_SHIFT)), before)
+    second_ladder = climb(probe, flat[again], shifted, ROWS + 2, taken=before)
+    shifted = shifted if second_ladder.start is None else second_ladder.start
+    grown = sides_grown(probe, ladder)[again]
+    judged = first.merged(again, kink_beside(probe, flat[again], second_ladder,
+                                             judged_ladder(probe, flat[again], second_ladder, shifted, before, grown)))
+    before.append(ladder_taken(flat[again], shifted, second_ladder))
+    judged = judged.merged(again, descend(probe, flat[again], judged.pick(again), second_ladder, before))
+    judged = judged.merged(again, between_levels(probe, flat[again], judged.pick(again), start[again], before))
+    # Steps that kept crossing kinks: one-sided slopes down to rounding's floor, where the
+    # nearest kink on a side may lie beyond the steps (close_kinks.py).
+    judged, unresolved = looked_closer(probe, flat, judged, before)
+    still = np.flatnonzero(judged.status == INCONCLUSIVE)
+    if still.size == 0:
+        return judged
+    # Last: each side on its own, on steps growing away from the point (beside a kink the
+    # clean side reaches steps that beat the noise).
+    smallest = np.minimum(start[still], probe.prior_steps(flat[still]))
+    (left, left_drift), (right, right_drift) = (one_sided_drift(probe, flat[still], smallest, s) for s in (-1.0, 1.0))
+    apart = judge_sides_apart(probe, flat[still], left, right)
+    apart = drifting_sides(probe, flat[still], judged.pick(still), apart, left, right, left_drift, right_drift,
+                           judge_sides_apart)
+    keep = apart.status != INCONCLUSIVE
+    return unresolved(judged.merged(still[keep], apart.pick(np.flatnonzero(keep))))
+
+
+__all__ = ["ladder_verdicts"]

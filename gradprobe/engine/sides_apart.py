@@ -1,0 +1,91 @@
+"""Each side of the point on its own: the last resort for coordinates the ladders leave
+undecided.
+
+Beside a kink a two-sided ladder's steps keep crossing it, and steps small enough not to
+reach it drown in rounding noise. Each side alone, on steps growing 4-fold away from the
+point (:func:`one_sided_drift`), reaches on the side away from the kink steps that beat
+the noise; :func:`judge_sides_apart` gives the verdicts from the two sides' derivatives
+(a kink where they differ and the value lies between them). :mod:`.coordinates` uses both
+after its ladders.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..common.status import FAIL, INCONCLUSIVE, KINK
+from .kink_evidence import kink_evidence, within_kink
+from .kinks import NEAR_SAFETY, _one_clean_side
+from .ladder import Estimate, drifting, tableau
+from .probe import TensorProbe
+from .verdict import NEAR_KINK, SHARED_POINT, SIGNIFICANCE, Judged, verdicts
+
+SIDE_ROWS = 5
+SIDE_RATIO = 4.0
+SIDE_NOISE = 1024.0
+
+
+def one_sided(probe: TensorProbe, flat: np.ndarray, smallest: np.ndarray, sign: float) -> Estimate:
+    """:func:`one_sided_drift`'s estimate alone."""
+    return one_sided_drift(probe, flat, smallest, sign)[0]
+
+
+def one_sided_drift(probe: TensorProbe, flat: np.ndarray, smallest: np.ndarray, sign: float
+                    ) -> tuple[Estimate, np.ndarray]:
+    """The derivative from one side only, on steps growing 4-fold from ``smallest``, or from
+    the step that beats rounding noise where that is larger (as far as the params' own
+    scale): for a point beside a kink, the side away from it reaches
+    steps large enough to beat rounding noise, which a two-sided ladder cannot."""
+    n = flat.size
+    cap = np.maximum(np.abs(probe.x[flat].astype(np.float64)), probe.x_scale)
+    # The top step beats rounding noise: its quotient's noise is a SIDE_NOISE-th of the
+    # tolerance (the tableau's bound is built from the rows below it, each noisier).
+    tol = probe.tolerance(flat, probe.a[flat])
+    with np.errstate(over="ignore"):  # a tolerance near the smallest float: an infinite step, capped below
+        beats_noise = SIDE_NOISE * 2.0 * probe.loss_noise(np.full(n, probe.f0)) / np.maximum(tol, 1e-300)
+    top = np.minimum(np.maximum(smallest * SIDE_RATIO ** (SIDE_ROWS - 1), beats_noise),
+                     np.maximum(cap, smallest))
+    steps = np.concatenate([top / SIDE_RATIO**k for k in range(SIDE_ROWS)])
+    values, moved = probe.one_side(np.tile(flat, SIDE_ROWS), steps, sign)
+    values, moved = values.reshape(SIDE_ROWS, n), moved.reshape(SIDE_ROWS, n)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        quotients = sign * (values - probe.f0) / moved
+    noise = 2.0 * probe.loss_noise(np.nan_to_num(values)) / moved
+    estimate = tableau(np.nan_to_num(quotients), noise, SIDE_RATIO, 1)
+    bad = ~np.isfinite(values).all(axis=0)
+    q = np.nan_to_num(quotients)
+    drift = np.asarray(drifting(q, np.zeros_like(q), SIDE_RATIO).any(axis=0))
+    return Estimate(estimate.value, np.where(bad, np.inf, estimate.error)), drift
+
+
+def judge_sides_apart(
+    probe: TensorProbe, flat: np.ndarray, left: Estimate, right: Estimate
+) -> Judged:
+    """Verdicts from one-sided derivatives taken apart (:func:`one_sided`): both sides
+    decided and agreeing, the better decides; a side that decides alone decides (the other
+    met a kink); sides that disagree are a kink at the point. A failure is a kink where the
+    sides are seen to differ and a kink between them could give the value, undecided where
+    they are not and the value agrees with one side within its bound (:func:`kink_evidence`)."""
+    a = probe.a[flat]
+    tol = probe.tolerance(flat, a)
+    left = Estimate(left.value, NEAR_SAFETY * left.error)
+    right = Estimate(right.value, NEAR_SAFETY * right.error)
+    decides_left, decides_right = left.error <= tol, right.error <= tol
+    agree = np.abs(left.value - right.value) <= SIGNIFICANCE * (left.error + right.error) + tol
+    chosen = _one_clean_side(decides_left, decides_right, left, right, Estimate.better(left, right))
+    status = verdicts(probe, a, chosen, probe.tolerance(flat, chosen.value))
+    both = decides_left & decides_right
+    # Sides that disagree show a kink at the point; a value outside them is one several kinks
+    # meeting there beside a smooth part can give (see _judge_sides): undecided, not failed.
+    shared = both & ~agree & ~within_kink(a, left, right, tol)
+    status[both & ~agree] = np.where(shared, INCONCLUSIVE, KINK)[both & ~agree]
+    status[~(decides_left | decides_right)] = INCONCLUSIVE
+    explained, undecided = kink_evidence(a, left, right, tol)
+    status[(status == FAIL) & explained] = KINK
+    status[(status == FAIL) & undecided] = INCONCLUSIVE
+    reasons = tuple((SHARED_POINT if shared[k] else NEAR_KINK) if s == INCONCLUSIVE else None
+                    for k, s in enumerate(status))
+    return Judged(status, chosen, reasons, status == INCONCLUSIVE)
+
+
+__all__ = ["judge_sides_apart", "one_sided", "one_sided_drift"]
