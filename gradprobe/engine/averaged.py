@@ -26,7 +26,7 @@ from __future__ import annotations
 import numpy as np
 
 from .ladder import Estimate
-from .wide_steps import WIDE_FIRST, WIDE_LAST, WIDE_ROWS, plain_windowed, windowed
+from .wide_steps import WIDE_FIRST, WIDE_LAST, WIDE_ROWS, plain_windowed, wide_table, windowed
 from .probe import Pairs, TensorProbe
 from .refine import Taken, pairs_reusing
 
@@ -49,20 +49,11 @@ def within_reach(probe: TensorProbe, flat: np.ndarray, reach: np.ndarray, taken:
 def _table(probe: TensorProbe, flat: np.ndarray, reach: np.ndarray, taken: list[Taken]) -> tuple[tuple[np.ndarray, ...], np.ndarray]:
     """The wide steps' rows (as :func:`.wide_steps.wide_estimate` builds them) with each column's
     largest step min(scale, ``reach``); and the steps asked."""
-    n = flat.size
     ks = np.arange(WIDE_FIRST, WIDE_LAST + WIDE_ROWS)
-    rows = ks.size
     steps = probe.prior_steps(flat)[None, :] * 2.0 ** ks[:, None]
     scale = np.maximum(np.abs(probe.x[flat].astype(np.float64)), probe.x_scale)
-    limit = np.minimum(scale, reach)
-    p = pairs_reusing(probe, np.tile(flat, rows), steps.reshape(-1), taken)
-    d = p.central.reshape(rows, n)
-    s = (0.5 * (p.h_plus + p.h_minus)).reshape(rows, n)
-    e = (2.0 * p.noise / (p.h_plus + p.h_minus)).reshape(rows, n)
-    right, left = (q.reshape(rows, n) for q in p.sides(probe.f0))
-    side_noise = (2.0 * p.noise / np.minimum(p.h_plus, p.h_minus)).reshape(rows, n)
-    asymmetry = (np.abs(p.h_plus - p.h_minus) / np.maximum(p.h_plus + p.h_minus, 1e-300)).reshape(rows, n)
-    return (d, s, e, right - left, side_noise, asymmetry, limit), steps
+    p = pairs_reusing(probe, np.tile(flat, ks.size), steps.reshape(-1), taken)
+    return wide_table(probe, p, ks.size, np.minimum(scale, reach)), steps
 
 
 def averaged_estimate(probe: TensorProbe, flat: np.ndarray, reach: np.ndarray, taken: list[Taken]) -> Estimate:

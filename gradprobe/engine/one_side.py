@@ -43,7 +43,7 @@ from .probe import TensorProbe
 from .refine import Taken, pairs_reusing
 from .verdict import NOISE, Judged
 from .wide_steps import (SHRINK_LIMIT, STEP_GROWTH, WIDE_FIRST, WIDE_LAST, WIDE_NOISE, WIDE_ROWS, WIDE_SAFETY,
-                         plain_windowed, windowed)
+                         plain_windowed, wide_table, windowed)
 
 NARROW_ROWS = 3  # rows below the first wide step (h/8, h/16, h/32 of the first step h)
 
@@ -72,19 +72,10 @@ def narrow_passes(probe: TensorProbe, flat: np.ndarray, judged: Judged, which: n
     if which.size == 0:
         return judged
     where = flat[which]
-    n = where.size
     ks = np.arange(WIDE_FIRST - NARROW_ROWS, WIDE_LAST + WIDE_ROWS)
     steps = probe.prior_steps(where)[None, :] * 2.0 ** ks[:, None]
     p = pairs_reusing(probe, np.tile(where, ks.size), steps.reshape(-1), taken)
-    rows = ks.size
-    d = p.central.reshape(rows, n)
-    s = (0.5 * (p.h_plus + p.h_minus)).reshape(rows, n)
-    e = (2.0 * p.noise / (p.h_plus + p.h_minus)).reshape(rows, n)
-    right, left = (q.reshape(rows, n) for q in p.sides(probe.f0))
-    side_noise = (2.0 * p.noise / np.minimum(p.h_plus, p.h_minus)).reshape(rows, n)
-    asymmetry = (np.abs(p.h_plus - p.h_minus) / np.maximum(p.h_plus + p.h_minus, 1e-300)).reshape(rows, n)
-    limit = np.maximum(np.abs(probe.x[where].astype(np.float64)), probe.x_scale)
-    table = (d, s, e, right - left, side_noise, asymmetry, limit)
+    table = wide_table(probe, p, ks.size, np.maximum(np.abs(probe.x[where].astype(np.float64)), probe.x_scale))
     return _passed(probe, flat, judged, which, [Estimate.better(windowed(*table), plain_windowed(*table))])
 
 

@@ -8,7 +8,7 @@ from __future__ import annotations
 import numpy as np
 
 from .ladder import Estimate
-from .probe import TensorProbe
+from .probe import Pairs, TensorProbe
 from .refine import Taken, pairs_reusing
 
 WIDE_ROWS = 4  # a window of four steps s, 2s, 4s, 8s
@@ -39,14 +39,24 @@ def wide_estimate(probe: TensorProbe, flat: np.ndarray, taken: list[Taken] | Non
     finite shrank its step). The estimate with the smallest bound; one batch of pairs (those
     ``taken`` before at the same coordinate and step are not evaluated again; its own are added
     to ``taken``)."""
-    n = flat.size
     ks = np.arange(WIDE_FIRST, WIDE_LAST + WIDE_ROWS)
-    h0 = probe.prior_steps(flat)
-    asked = np.concatenate([h0 * 2.0**k for k in ks])
-    p = pairs_reusing(probe, np.tile(flat, ks.size), asked, taken or [])
+    asked = probe.prior_steps(flat)[None, :] * 2.0 ** ks[:, None]
+    p = pairs_reusing(probe, np.tile(flat, ks.size), asked.reshape(-1), taken or [])
     if taken is not None:  # for a second look at the same steps
-        taken.append((np.tile(flat, ks.size), asked, p))
-    rows = ks.size
+        taken.append((np.tile(flat, ks.size), asked.reshape(-1), p))
+    # Never beyond the params' own scale (as steps.largest_smooth_step): past it the loss
+    # along a coordinate is another function, and agreement there proves nothing.
+    table = wide_table(probe, p, ks.size, np.maximum(np.abs(probe.x[flat].astype(np.float64)), probe.x_scale))
+    # ``plain``: also windows without extrapolation (:func:`plain_windowed`), for quotients
+    # that rounding rather than curvature limits.
+    return Estimate.better(windowed(*table), plain_windowed(*table)) if plain else windowed(*table)
+
+
+def wide_table(probe: TensorProbe, p: Pairs, rows: int, limit: np.ndarray) -> tuple[np.ndarray, ...]:
+    """The ``rows`` of wide-step pairs ``p`` (a row per step, a column per coordinate) as
+    :func:`windowed` and :func:`plain_windowed` take them: central quotients, steps, their
+    rounding, the one-sided gap, a side's rounding, the moves' asymmetry, and ``limit``."""
+    n = p.f_plus.size // rows
     d = p.central.reshape(rows, n)
     s = (0.5 * (p.h_plus + p.h_minus)).reshape(rows, n)
     e = (2.0 * p.noise / (p.h_plus + p.h_minus)).reshape(rows, n)  # each quotient's rounding
@@ -55,13 +65,7 @@ def wide_estimate(probe: TensorProbe, flat: np.ndarray, taken: list[Taken] | Non
     # Asymmetric moves (x + h and x - h rounded to the type's grid) leave a first-order term
     # f'' (h+ - h-) / 2 in a central quotient; f'' from the one-sided gap at the same step.
     asymmetry = (np.abs(p.h_plus - p.h_minus) / np.maximum(p.h_plus + p.h_minus, 1e-300)).reshape(rows, n)
-    # Never beyond the params' own scale (as steps.largest_smooth_step): past it the loss
-    # along a coordinate is another function, and agreement there proves nothing.
-    scale = np.maximum(np.abs(probe.x[flat].astype(np.float64)), probe.x_scale)
-    table = (d, s, e, right - left, side_noise, asymmetry, scale)
-    # ``plain``: also windows without extrapolation (:func:`plain_windowed`), for quotients
-    # that rounding rather than curvature limits.
-    return Estimate.better(windowed(*table), plain_windowed(*table)) if plain else windowed(*table)
+    return d, s, e, right - left, side_noise, asymmetry, limit
 
 
 def windowed(d: np.ndarray, s: np.ndarray, e: np.ndarray, apart: np.ndarray, side_noise: np.ndarray,
