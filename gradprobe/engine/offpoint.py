@@ -10,10 +10,12 @@ wrong gradient can hide in it.
 Moved by a small random step (every checked tensor at once, by MOVE of its scale, and at
 least MOVE_STEPS first steps), and again by the opposite step (a ReLU that the one step
 switches off, the other switches on), the kinks leave the point, the loss is smooth along those
-coordinates, and the code's gradient there agrees with the numeric one or it does not. Only
-a failure there changes the verdict: the coordinate fails, with the moved point's numbers
-and a reason that says so. Any other outcome (a pass, a kink that did not move, a point
-outside the code's domain) leaves the kink verdict as it was. Cost: the moved points'
+coordinates, and the code's gradient there agrees with the numeric one or it does not. A
+failure there fails the coordinate, with the moved point's numbers and a reason that says so.
+A coordinate left undecided for kinks that passes plainly at both moved points becomes a kink
+(several kinks meeting at the point leave no value a correct gradient cannot take; off them
+the code is right on both sides). Any other outcome (a pass at one point only, a kink that did
+not move, a point outside the code's domain) leaves the verdict as it was. Cost: the moved points'
 preparation (about 6 calls and one backward call each, once per target) and the
 coordinates' checks there.
 """
@@ -34,7 +36,7 @@ from .evaluate import LossFunction
 from .point import Point, prepare
 from .record import TensorRecord
 from .sampling import tensor_rng
-from ..common.status import FAIL
+from ..common.status import FAIL, INCONCLUSIVE, KINK, PASS
 from .verdict import SIGNIFICANCE, looked_at_again
 
 MOVE = 2.0**-10  # of each element's scale (its own size or its tensor's rms)
@@ -107,12 +109,16 @@ class SecondLook:
         kinked = {name: rk for name, rk in kinked.items() if rk[1].size}
         s = self._settings
         failed: list[str] = []
+        # Per tensor, the coordinates that pass plainly at every moved point (both needed).
+        agreed = {name: np.ones(which.size, dtype=bool) for name, (_, which) in kinked.items()}
         for sign in (1.0, -1.0):
             moved = self._prepared(sign, set(kinked))
             if moved is None:
+                agreed = {name: ok & False for name, ok in agreed.items()}
                 continue
             for name, (record, which) in kinked.items():
                 if name not in moved.grads.values:
+                    agreed[name][:] = False
                     continue
                 current = record.final
                 assert current is not None
@@ -120,14 +126,40 @@ class SecondLook:
                     there = check_coordinates(moved.probe(name, s.resolved_threshold), current.flat[which],
                                               s.method, s.recheck)
                 except ProbeError:
+                    agreed[name][:] = False
                     continue
+                agreed[name] &= there.status == PASS
                 merged = _failed_there(current, which, there)
                 if merged is not None:
                     record.moved = merged
                     failed += [] if name in failed else [name]
             moved.release()
             del moved  # one moved copy of the target at a time
+        for name, (record, which) in kinked.items():
+            upgraded = _kinks_borne_out(record.final, which, agreed[name])
+            if upgraded is not None:
+                record.moved = upgraded
         return failed
+
+
+def _kinks_borne_out(outcome: CoordinateOutcome | None, which: np.ndarray,
+                     agreed: np.ndarray) -> CoordinateOutcome | None:
+    """``outcome`` with the coordinates at positions ``which`` left undecided because the steps
+    kept crossing kinks, and passed at both moved points (``agreed``), judged `kink`: kinks are
+    seen there, several meeting at the point leave no value a correct gradient cannot take (see
+    kinks.py), and off them, on both sides, the code's gradient is the loss's. None where there
+    is none."""
+    if outcome is None:
+        return None
+    k = which[agreed & (outcome.status[which] == INCONCLUSIVE)]
+    if k.size == 0:
+        return None
+    status = outcome.status.copy()
+    status[k] = KINK
+    reasons = list(outcome.reasons)
+    for j in k.tolist():
+        reasons[j] = None
+    return replace(outcome, status=status, reasons=tuple(reasons))
 
 
 def _failed_there(outcome: CoordinateOutcome, which: np.ndarray, there: CoordinateOutcome) -> CoordinateOutcome | None:

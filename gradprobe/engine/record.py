@@ -47,7 +47,8 @@ class TensorRecord:
     unconfirmed: bool | str = False  # a direction disagrees that no coordinate confirms (why, if said)
     fails_along: str | None = None  # why the tensor fails along a direction though no coordinate does
     # The second look (offpoint): the outcome with kink coordinates that fail off the point
-    # failed (None: none did, or no second look).
+    # failed, and undecided ones borne out at both moved points made kinks (None: neither, or
+    # no second look).
     moved: CoordinateOutcome | None = None
     hint: str | None = None
 
