@@ -22,32 +22,17 @@ from gradprobe.engine.climbed import settled_on_levels
 from gradprobe.engine.coordinates import check_coordinates
 from gradprobe.engine.steps import start_steps
 
+from test_estimates import SHAPES  # the same five curves, numpy and mpmath
+
 mpmath.mp.dps = 50
 
-SHAPES = {
-    "exp_sin": (lambda z: np.exp(np.sin(z)), lambda z: mpmath.exp(mpmath.sin(z))),
-    "log1p_sq": (lambda z: np.log1p(z**2), lambda z: mpmath.log(1 + z**2)),
-    "tanh": (np.tanh, mpmath.tanh),
-    "softplus": (lambda z: np.logaddexp(0.0, 3 * z), lambda z: mpmath.log(1 + mpmath.exp(3 * z))),
-    "inverse": (lambda z: 1.0 / (1.0 + z**2), lambda z: 1 / (1 + z**2)),
-}
 UNITS = np.array([-1.7, -0.3, 0.05, 0.9, 2.4])  # points, in units of the bend's scale s
 
 
-def _levels_of(loss, points, analytic):
+def _on_levels(loss, points, analytic):
     """What the levels settle for ``points`` (first pairs, then the climb as the central
-    path takes them), and their estimates."""
-    probe = make_probe(loss, points, analytic)
-    flat = np.arange(points.size)
-    h = probe.prior_steps(flat)
-    first = probe.pairs(flat, h)
-    taken = [(flat, h, first)]
-    start = start_steps(probe, flat, first, h, taken)
-    return settled_on_levels(probe, flat, h, start, taken, np.zeros(flat.size, dtype=bool))
-
-
-def _spent_on_levels(loss, points, analytic):
-    """Forward calls the levels themselves spend (a short climb's one more pair)."""
+    path takes them), their estimates, and the forward calls the levels themselves spend (a
+    short climb's one more pair)."""
     probe = make_probe(loss, points, analytic)
     flat = np.arange(points.size)
     h = probe.prior_steps(flat)
@@ -55,8 +40,16 @@ def _spent_on_levels(loss, points, analytic):
     taken = [(flat, h, first)]
     start = start_steps(probe, flat, first, h, taken)
     before = probe.evaluator.count
-    settled_on_levels(probe, flat, h, start, taken, np.zeros(flat.size, dtype=bool))
-    return probe.evaluator.count - before
+    settled = settled_on_levels(probe, flat, h, start, taken, np.zeros(flat.size, dtype=bool))
+    return settled, probe.evaluator.count - before
+
+
+def _levels_of(loss, points, analytic):
+    return _on_levels(loss, points, analytic)[0]
+
+
+def _spent_on_levels(loss, points, analytic):
+    return _on_levels(loss, points, analytic)[1]
 
 
 def _case(name, s, offset):

@@ -21,11 +21,8 @@ from test_memory_holding_frameworks import _case, _prepared, forward
 torch = need("torch")
 
 
-def test_the_narrow_spread_holds_a_few_float64_copies_of_the_tensor_at_most():
-    params, inputs = _case(6000)  # w: 6000 x 40 float32, 0.96 MB
-    point = _prepared(params, inputs)
-    assert point.numerics.code_dtype == np.float32 and point.numerics.dtype == np.float64
-    nbytes = params["w"].numpy().nbytes
+def _traced_spread(point):
+    """The spread of ``w``, and what numpy held after it and at its peak (tracemalloc)."""
     tracemalloc.start()
     try:
         before = tracemalloc.get_traced_memory()[0]
@@ -33,6 +30,15 @@ def test_the_narrow_spread_holds_a_few_float64_copies_of_the_tensor_at_most():
         held, peak = (m - before for m in tracemalloc.get_traced_memory())
     finally:
         tracemalloc.stop()
+    return spread, held, peak
+
+
+def test_the_narrow_spread_holds_a_few_float64_copies_of_the_tensor_at_most():
+    params, inputs = _case(6000)  # w: 6000 x 40 float32, 0.96 MB
+    point = _prepared(params, inputs)
+    assert point.numerics.code_dtype == np.float32 and point.numerics.dtype == np.float64
+    nbytes = params["w"].numpy().nbytes
+    spread, held, peak = _traced_spread(point)
     assert spread is not None and spread.dtype == np.float64 and spread.size == params["w"].numel()
     # Kept: the spread itself, one float64 value per coordinate (2x the float32 tensor).
     assert held / nbytes < 2.5, held / nbytes
@@ -69,13 +75,7 @@ def _numpy_point(n: int, backward=_numpy_backward):
 def test_a_numpy_target_s_spread_holds_three_float64_tensors_at_once():
     point, params, _ = _numpy_point(25_000)  # w: 25000 x 40 float32, 4 MB
     nbytes = params["w"].nbytes
-    tracemalloc.start()
-    try:
-        before = tracemalloc.get_traced_memory()[0]
-        spread = point.narrow_spread("w")
-        held, peak = (m - before for m in tracemalloc.get_traced_memory())
-    finally:
-        tracemalloc.stop()
+    spread, held, peak = _traced_spread(point)
     assert spread is not None and spread.dtype == np.float64 and spread.size == params["w"].size
     assert held / nbytes < 2.5, held / nbytes  # the spread, one float64 value per coordinate
     # Everything here is numpy's, the target's own gradients too. At once: the two running
