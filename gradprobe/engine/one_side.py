@@ -42,8 +42,8 @@ from .loose_passes import REACH
 from .probe import TensorProbe
 from .refine import Taken, pairs_reusing
 from .verdict import NOISE, Judged
-from .wide_steps import (SHRINK_LIMIT, STEP_GROWTH, WIDE_FIRST, WIDE_LAST, WIDE_NOISE, WIDE_ROWS, WIDE_SAFETY,
-                         plain_windowed, wide_table, windowed)
+from .wide_steps import (STEP_GROWTH, WIDE_FIRST, WIDE_LAST, WIDE_NOISE, WIDE_ROWS, WIDE_SAFETY,
+                         plain_windowed, shrinking, wide_table, windowed)
 
 NARROW_ROWS = 3  # rows below the first wide step (h/8, h/16, h/32 of the first step h)
 
@@ -160,9 +160,7 @@ def _side(q: np.ndarray, s: np.ndarray, e: np.ndarray, limit: np.ndarray,
             i1, i2, i3 = w, w + 1, w + 2
             lower, upper = q[i2] - q[i1], q[i3] - q[i2]
             follows = np.isfinite(q[i1]) & np.isfinite(q[i2]) & np.isfinite(q[i3])
-            room = 2.0 * WIDE_NOISE * (e[i1] + 2.0 * e[i2] + e[i3])
-            follows &= np.abs(lower) <= SHRINK_LIMIT * np.abs(upper) + room
-            follows &= (lower * upper > 0) | (np.minimum(np.abs(lower), np.abs(upper)) <= room)
+            follows &= shrinking([lower, upper], [e[i1] + e[i2], e[i2] + e[i3]])
             follows &= (s[i2] >= STEP_GROWTH * s[i1]) & (s[i3] >= STEP_GROWTH * s[i2]) & (s[i3] <= limit)
             trunc = (np.abs(upper) + e[i2] + e[i3]) * s[i2] / (s[i3] - s[i2])
             bound = WIDE_SAFETY * trunc + WIDE_NOISE * e[i2]

@@ -110,7 +110,7 @@ def windowed(d: np.ndarray, s: np.ndarray, e: np.ndarray, apart: np.ndarray, sid
             # And the even part follows its own model as the odd part does: its changes shrink
             # with the step too (a corner where only f'' jumps, between the window's steps, puts
             # every quotient off the model while its changes can shrink fourfold by chance).
-            follows &= _shrinking([bend[i[k + 1]] - bend[i[k]] for k in range(3)],
+            follows &= shrinking([bend[i[k + 1]] - bend[i[k]] for k in range(3)],
                                   [bend_noise[i[k]] + bend_noise[i[k + 1]] for k in range(3)])
             follows &= gap[first] <= gap[last] * (s[first] / s[last]) * 2.0 + 2.0 * WIDE_NOISE * (side_noise[first] + side_noise[last])
             r12, n12 = richardson(i[0])
@@ -164,7 +164,7 @@ def _ascending(s: np.ndarray, rows: np.ndarray, limit: np.ndarray) -> np.ndarray
     return ok
 
 
-def _shrinking(signed: list[np.ndarray], noise: list[np.ndarray]) -> np.ndarray:
+def shrinking(signed: list[np.ndarray], noise: list[np.ndarray]) -> np.ndarray:
     """Consecutive changes (smallest step first) shrink as the step halves, at most
     SHRINK_LIMIT of the next larger one and in the same direction, beyond their rounding."""
     ok = np.ones(signed[0].shape, dtype=bool)
@@ -195,7 +195,7 @@ def plain_windowed(d: np.ndarray, s: np.ndarray, e: np.ndarray, apart: np.ndarra
         for w in range(rows - 2):
             i1, i2, i3 = w, w + 1, w + 2
             lower, upper = d[i2] - d[i1], d[i3] - d[i2]
-            follows = _shrinking([lower, upper], [e[i1] + e[i2], e[i2] + e[i3]])
+            follows = shrinking([lower, upper], [e[i1] + e[i2], e[i2] + e[i3]])
             follows &= gap[i1] <= gap[i3] * (s[i1] / s[i3]) * 2.0 + 2.0 * WIDE_NOISE * (side_noise[i1] + side_noise[i3])
             width = s[i3] ** 2 - s[i2] ** 2
             bend = (np.abs(upper) + e[i2] + e[i3]) * s[i2] ** 2 / width
