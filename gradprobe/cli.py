@@ -231,7 +231,7 @@ def _run(chosen: list[str], options: CheckOptions, out: Output, baseline: Baseli
         return EXIT_INTERRUPTED
     code = max(run.exit_code for run in runs)
     try:
-        _reports(runs, out)
+        _reports(runs, out, options)
     except ProbeError as exc:
         say_error(exc.sentence(), exc, out.traceback)
         code = max(code, exc.exit_code)
@@ -243,11 +243,11 @@ def _run(chosen: list[str], options: CheckOptions, out: Output, baseline: Baseli
     return code
 
 
-def _reports(runs: list[TargetRun], out: Output) -> None:
-    if out.files.json is not None and any(r.report for r in runs):
+def _reports(runs: list[TargetRun], out: Output, options: CheckOptions) -> None:
+    if out.files.json is not None:
         from .render.json import render_runs
 
-        text = render_runs(runs)
+        text = render_runs(runs, options.threshold, options.seed)
         if out.files.json == "-":
             click.echo(text, nl=False)
         else:

@@ -202,3 +202,30 @@ def test_ctrl_c_stops_the_run_with_130(write_target, run_cli):
     result = run_cli("check", "stop.py", "stop.py")
     assert result.exit_code == 130
     assert result.stderr.count("interrupted; your arrays are unchanged") == 1
+
+
+def test_a_target_that_cannot_run_still_gets_its_json_report(write_target, run_cli, tmp_path):
+    """A CI step reading the report finds why the check could not run, not a missing file."""
+    write_target("""
+        import numpy as np
+        def setup():
+            return {"w": np.ones(3)}, {}
+        def forward(params, inputs):
+            raise RuntimeError("pump offline")
+        def backward(params, inputs):
+            return {"w": np.ones(3)}
+        """, "pump.py")
+    result = run_cli("check", "pump.py", "--json", "report.json", "--fail-above", "1e-5", "--seed", "3")
+    assert result.exit_code == 2
+    report = json.loads((tmp_path / "report.json").read_text())
+    assert report["schema"] == "gradprobe.report/1" and report["target"] == "pump.py"
+    assert report["ok"] is False and report["exit_code"] == 2 and report["layers"] == []
+    assert report["threshold"] == 1e-5 and report["seed"] == 3
+    assert report["summary"]["tensors"] == 0 and report["summary"]["evaluations"] == 0
+    assert len(report["errors"]) == 1 and "pump offline" in report["errors"][0]
+    # several targets none of which runs: the runs document lists each one's sentence
+    result = run_cli("check", "pump.py", "absent.py", "--json", "-")
+    assert result.exit_code == 2
+    document = json.loads(result.stdout)
+    assert document["schema"] == "gradprobe.runs/1" and document["reports"] == []
+    assert [e["target"] for e in document["errors"]] == ["pump.py", "absent.py"]

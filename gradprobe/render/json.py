@@ -225,10 +225,25 @@ def render_json(report: Report) -> str:
     return dumps(report_dict(report))
 
 
-def render_runs(runs: list[TargetRun]) -> str:
-    """One target: its report as above. Several: ``gradprobe.runs/1`` holding each report."""
-    if len(runs) == 1 and runs[0].report is not None:
-        return render_json(runs[0].report)
+def unrun_dict(run: TargetRun, threshold: float | None, seed: int) -> dict[str, Any]:
+    """The report of one target that could not run: not ok, no layers, its sentence in
+    ``errors``, so a CI step reading the file finds why instead of a missing file."""
+    return {
+        "schema": SCHEMA, "target": run.target, "ok": False, "exit_code": run.exit_code,
+        "threshold": threshold, "seed": seed,
+        "summary": {"tensors": 0, "checked": 0, "failed": 0, "kinks": 0, "inconclusive": 0,
+                    "failed_tensors": 0, "evaluations": 0, "seconds": 0.0},
+        "layers": [], "errors": [run.error or "the check could not run"], "notes": [],
+    }
+
+
+def render_runs(runs: list[TargetRun], threshold: float | None = None, seed: int = 0) -> str:
+    """One target: its report as above (or, when it could not run, :func:`unrun_dict`).
+    Several: ``gradprobe.runs/1`` holding each report and each target's error."""
+    if len(runs) == 1:
+        run = runs[0]
+        return (render_json(run.report) if run.report is not None
+                else dumps(unrun_dict(run, threshold, seed)))
     document = {
         "schema": RUNS_SCHEMA,
         "ok": all(r.exit_code == 0 for r in runs),
