@@ -113,6 +113,24 @@ def test_nondeterministic_forward_is_reported():
         probe(dropout, backward, params, inputs)
 
 
+def test_nondeterminism_missed_by_the_first_two_calls_is_still_reported():
+    """Dropout over two units: the first two calls draw the same mask (a 1-in-4 chance
+    for a real one, fixed here), the rest do not. The moved points' scatter leaves the
+    tensors undecided; calls at the unmoved point again then show it, exit 2, not a shrug."""
+    rng = np.random.default_rng(11)
+    calls = []
+
+    def two_unit_dropout(p, i):
+        calls.append(1)
+        keep = np.ones(2) if len(calls) <= 2 else (rng.random(2) > 0.5)
+        hidden = np.tanh(i["x"][:2] @ p["layer"]["W"]).sum(axis=1)
+        return float(np.sum(hidden * keep))
+
+    params, inputs = _arrays()
+    with pytest.raises(NondeterminismError, match="not deterministic"):
+        probe(two_unit_dropout, backward, params, inputs)
+
+
 def test_forward_writing_into_an_input_is_named():
     def normalise_in_place(p, i):
         i["x"] -= i["x"].mean(axis=0)

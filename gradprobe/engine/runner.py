@@ -4,7 +4,6 @@ from __future__ import annotations
 
 import time
 from collections.abc import Callable
-from dataclasses import replace
 from functools import partial
 from typing import TYPE_CHECKING
 
@@ -13,19 +12,19 @@ import numpy as np
 from ..common.errors import ProbeError, TargetLoadError, UsageProblem
 from ..common.guard import guarded
 from ..common.heap import keep_heap, own_mappings, release_heap
-from ..settings.options import CheckOptions, default_threshold
+from ..settings.options import CheckOptions
 from ..report.model import LayerResult, Report, TensorResult
-from ..common.status import FAIL, Status
+from ..common.status import FAIL, INCONCLUSIVE, Status
 from ..targets.target import Target
 from ..common.tensors import INPUT_LAYER, Workspace, is_float, layer_of
 from .evaluate import LossFunction
 from .evaluator import Backend, Evaluator, Progress
-from .numeric_side import Numerics
 from .point import Point, prepare
+from .preflight import confirm_deterministic
 from .record import TensorRecord
 from .tensor_check import check_tensor
 from .promote import agreement
-from ..common.roundoff import is_narrow, unit_roundoff
+from .run_settings import resolved_settings
 
 if TYPE_CHECKING:
     from ..hints import Context as HintContext
@@ -48,34 +47,6 @@ def _backend(
     reload = partial(target.loader, target.spec) if target.loader and target.spec else None
     pool = WorkerPool(target.forward, ws, grad_output, options.jobs, reload=reload)
     return pool, pool.close
-
-
-def _threshold_note(dtype: np.dtype, why: str) -> str:
-    u = unit_roundoff(dtype)
-    return (
-        f"forward computes in {dtype}{why}: its unit roundoff is {u:.1e}, so central differences "
-        f"are good to about {u ** (2 / 3):.0e} relative at best, and the default threshold for "
-        f"it is {default_threshold(dtype):.2g} (2 sqrt(u))"
-    )
-
-
-def _promoted_note(dtype: np.dtype, why: str, threshold: float, wide: np.dtype) -> str:
-    return (
-        f"forward computes in {dtype}{why}; forward and backward also run in {wide}, so "
-        f"backward's {wide} gradient was checked against {wide} numeric derivatives at the "
-        f"{dtype} values within {threshold:g}, and its {dtype} gradient against that {wide} "
-        f"gradient within {agreement(dtype):.2g} ({dtype} rounding) or within what its rounding "
-        f"is measured to vary by"
-    )
-
-
-def _reference_note(dtype: np.dtype, why: str, threshold: float, wide: np.dtype) -> str:
-    return (
-        f"forward computes in {dtype}{why} and also runs in {wide}, but backward returns its "
-        f"{dtype} gradient whatever it is given: that gradient was checked against {wide} "
-        f"numeric derivatives of forward at the {dtype} values within {threshold:.2g} ({dtype} "
-        f"rounding) or within what its rounding is measured to vary by"
-    )
 
 
 def hint_context(ws: Workspace) -> HintContext:
@@ -159,22 +130,6 @@ def _run(
     return framing.annotate(report)
 
 
-def _settings(options: CheckOptions, numerics: Numerics) -> tuple[CheckOptions, list[str]]:
-    """``options`` with the threshold resolved for the type the check judges in, and the
-    notes that say so."""
-    compute_dtype = numerics.code_dtype
-    if numerics.analytic:  # the wider run's threshold (float64's, or float32's for 16-bit code)
-        threshold = options.threshold or default_threshold(numerics.dtype)
-        return replace(options, threshold=threshold), [_promoted_note(compute_dtype, numerics.why, threshold,
-                                                                      numerics.dtype)]
-    threshold = options.threshold or default_threshold(compute_dtype)
-    if numerics.reference_only:
-        return replace(options, threshold=threshold), [_reference_note(compute_dtype, numerics.why, threshold,
-                                                                       numerics.dtype)]
-    notes = [_threshold_note(compute_dtype, numerics.why)] if is_narrow(compute_dtype) else []
-    return replace(options, threshold=threshold), notes
-
-
 def _records(point: Point, settings: CheckOptions) -> list[TensorRecord]:
     """A record per tensor the report names, in the report's order: the workspace's tensors
     with a gradient (checked, or failed for a problem), then gradients for unknown names;
@@ -239,7 +194,7 @@ def _check_all(
     target: Target, options: CheckOptions, point: Point, started: float, clock: Callable[[], float],
 ) -> Report:
     ws, grads = point.ws, point.grads
-    settings, threshold_notes = _settings(options, point.numerics)
+    settings, threshold_notes = resolved_settings(options, point.numerics)
     # What the report says of the numerics, read now: the second look lets go of them.
     code_dtype, promoted = point.numerics.code_dtype, bool(point.numerics.analytic)
     notes = list(grads.notes) + threshold_notes
@@ -254,6 +209,8 @@ def _check_all(
             check_tensor(point.probe(record.name, settings.resolved_threshold), settings, total, record)
             if record.outcome is not None and record.outcome.note:
                 notes.append(record.outcome.note)
+    if any(r.final is not None and bool(np.any(r.final.status >= INCONCLUSIVE)) for r in records):
+        confirm_deterministic(point.evaluator, point.numerics.f0, point.numerics.dtype, point.numerics.code_dtype)
     second = _second_order(target, settings, point, notes)
     moved_note = _second_look(target, settings, point, records)
     if moved_note:
