@@ -89,6 +89,16 @@ def test_a_json_check_loads_no_renderer_baseline_or_second_order_code(tmp_path):
     assert [name for name in NOT_ON_THE_PLAIN_PATH if _loaded(modules, name)] == []
 
 
+def test_a_network_whose_coordinates_climb_the_step_levels_stays_lean(tmp_path):
+    # bench/cost.py's small case (1,312 coordinates of a tanh regression): its coordinates
+    # take the climbed pass, which once sorted with np.unique and so loaded numpy.ma.
+    code, modules, stdout = _run(tmp_path, "check", f"{ROOT / 'bench' / 'cost_cases.py'}:small",
+                                 "--json", "-")
+    assert code == 0 and json.loads(stdout)["summary"]["checked"] == 1312
+    assert "gradprobe.engine.climbed" in modules
+    assert [name for name in NOT_ON_THE_PLAIN_PATH if _loaded(modules, name)] == []
+
+
 def test_the_terminal_report_still_loads_rich(tmp_path):
     # The counterpart: the same look at sys.modules sees rich where the table is printed.
     (tmp_path / "gains.py").write_text(textwrap.dedent(TARGET))

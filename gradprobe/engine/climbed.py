@@ -111,7 +111,7 @@ def settled_on_levels(
         return passed, Estimate(value, error)
     top = _levels(start, h)
     top = _one_level_more(probe, flat, h, top, taken, suspects)
-    for levels in np.unique(top[top >= MIN_LEVELS - 1]).tolist():
+    for levels in sorted(set(top[top >= MIN_LEVELS - 1].tolist())):  # np.unique loads numpy.ma
         which = np.flatnonzero((top == levels) & ~suspects)
         if which.size == 0:
             continue
