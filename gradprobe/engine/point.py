@@ -30,6 +30,7 @@ from .preflight import ForwardInfo, call_backward, inspect_forward
 from .probe import TensorProbe
 from .widened import Widened, root_mean_square
 from .promote import agreement
+from .sixteen import coarse
 from ..common.roundoff import is_narrow, rounding_units
 from .jitter_steps import largest_second_difference, moved_point
 from .sampling import tensor_rng
@@ -188,11 +189,12 @@ class Point:
                             loss_scale=self._tensor_loss_scale(name), narrow=self._narrow_probe(name),
                             jitter=lambda: self.jitter(name), own_rounding=lambda: self.coarse_jitter(name),
                             own_code=self._own_code_probe(name) if n.reference_only else None)
-        if n.reference_only:
+        if n.reference_only or coarse(probe):
             # A 16-bit backward rounds at u times the terms it combines, as large as the
             # tensor's typical gradient even where one coordinate's is far smaller (a
             # saturated tanh: 1 - t*t is 0 in 16 bits); moves of a few grid units do not show
-            # it there. Each coordinate is judged relative to that scale at least.
+            # it there. Each coordinate is judged relative to that scale at least, on a wider
+            # run as on the 16-bit arithmetic itself (one model of the backward's rounding).
             probe.floor = max(probe.floor, probe.grad_scale)
         return probe
 

@@ -8,8 +8,12 @@ one coordinate changes only the terms that coordinate reaches: the rounding of e
 term is the same bits on both sides and cancels in the quotient. What is left is measured
 on the coordinate, at the steps used, never assumed:
 
-At each of LEVELS steps s, 2s, 4s, 8s (the widest the largest step of the wide estimate
-inside the params' scale), JITTERS central quotients at steps s (1 - k JITTER), k =
+At each of LEVELS steps s, 2s, 4s, 8s, 16s (the widest the largest step of the wide estimate
+within BEYOND times the params' scale: a loss smooth well past the params' size, a linear
+or quadratic one above all, is read where its rounding is smallest, and the windows' error
+model, checked on the coordinate, keeps a window past where the loss bends out; checked
+against mpmath on the adversarial inside16 set and on bfloat16 and float16 kernels of
+several shapes), JITTERS central quotients at steps s (1 - k JITTER), k =
 0..JITTERS-1 (their moves differ by an eighth of the step, GRID_UNITS units of the grid at
 least, else the level's rounding is unknown: each term's rounding is drawn afresh, not read
 along one tooth of its staircase). A level's quotient is their mean (at the root mean
@@ -17,9 +21,11 @@ square of their steps, where its truncation c2 s**2 is the mean of theirs); its 
 MARGIN times the largest distance of one of them from the mean, over sqrt(JITTERS) (a
 conservative quantile: about twice the mean's spread, and the spread also carries how
 truncation changes across the jitter). One loss value's rounding (a quotient's times its
-step) is the largest any level shows, taken at every level: a level whose roundings move
-together shows too little, one whose quotients all agree none, and where no level shows
-any there is no estimate. The one-sided quotients' gap likewise (at least twice the
+step) is the largest any level within the params' scale shows, taken at every level: a
+level whose roundings move together shows too little, one whose quotients all agree none;
+where none within the scale shows any, the level beyond it speaks, and where no level shows
+any there is no estimate. A level beyond the scale counts its own spread where larger (it
+also carries how truncation changes across its jitter, larger there), for itself alone. The one-sided quotients' gap likewise (at least twice the
 quotients' rounding). The levels
 are windows of :func:`.wide_steps.plain_windowed`, whose error model (quotients that follow
 c2 s**2, a gap that shrinks with the step, the bound WIDE_SAFETY times the measured
@@ -28,7 +34,9 @@ wide estimate; the window with the smallest bound.
 
 A coordinate passes where the analytic value lies within the threshold of that estimate and
 the bound resolves the threshold: |a - n| <= tol and bound <= tol, tol the threshold times
-the coordinate's scale plus the rounding backward's own computation accumulates, measured
+the coordinate's scale, the tensor's typical gradient at least (point.Point.probe: a
+16-bit backward rounds at u times the terms it combines, as large as that scale, judged on
+its own arithmetic as on a wider run), plus the rounding backward's own computation accumulates, measured
 (point.Point.coarse_jitter: how much the analytic value varies between points a few units
 of the 16-bit grid apart; it is not defined more finely), and where the estimate lies
 within both bounds of the one the coordinate was left undecided with (a kink between the
@@ -53,11 +61,12 @@ from .probe import TensorProbe
 from .refine import Taken, pairs_reusing
 from .verdict import NOISE, SIGNIFICANCE, Judged
 
-LEVELS = 4  # steps s, 2s, 4s, 8s: two windows of plain_windowed
+LEVELS = 5  # steps s, 2s, 4s, 8s, 16s: three windows of plain_windowed
 JITTERS = 4  # quotients per level
 JITTER = 1.0 / 8.0  # of the level's step, between consecutive jittered steps
 GRID_UNITS = 4.0  # and at least this many units of the grid the forward sees
 MARGIN = 2.0  # a level's rounding: this many times the largest distance from the mean, over sqrt(JITTERS)
+BEYOND = 2.0  # the widest level reaches at most this many times the params' scale
 
 
 def coarse(probe: TensorProbe) -> bool:
@@ -66,11 +75,16 @@ def coarse(probe: TensorProbe) -> bool:
             and unit_roundoff(probe.compute_dtype) >= unit_roundoff(np.float16))
 
 
+def _reach(probe: TensorProbe, flat: np.ndarray) -> np.ndarray:
+    """How far the levels may reach: BEYOND times the params' scale (see the module)."""
+    return BEYOND * np.maximum(np.abs(probe.x[flat].astype(np.float64)), probe.x_scale)
+
+
 def _widest(probe: TensorProbe, flat: np.ndarray) -> np.ndarray:
-    """The widest step of :func:`.wide_steps.wide_estimate` within the params' scale (its
+    """The widest step of :func:`.wide_steps.wide_estimate` within the levels' reach (its
     smallest where none is)."""
     h0 = probe.prior_steps(flat)
-    scale = np.maximum(np.abs(probe.x[flat].astype(np.float64)), probe.x_scale)
+    scale = _reach(probe, flat)
     top = h0 * 2.0 ** (WIDE_LAST + WIDE_ROWS - 1)
     with np.errstate(divide="ignore", invalid="ignore"):
         halvings = np.where(top > scale, np.ceil(np.log2(top / np.where(scale > 0, scale, 1.0))), 0.0)
@@ -109,13 +123,18 @@ def jittered_estimate(probe: TensorProbe, flat: np.ndarray, taken: list[Taken]) 
         # every level (one whose roundings move together shows too little of it, one whose
         # quotients all agree none; where no level shows any, it is unknown). The gap's: at
         # least twice the quotients' (each side's rounding over h, not 2h).
+        # Levels beyond the params' scale share it as the others do, but their own spread,
+        # where larger (it also carries how truncation changes across their jitter, larger
+        # there), counts for them alone: it says nothing of the rounding at narrower levels.
+        within = levels <= _reach(probe, flat) / BEYOND
         shown = fresh & (e > 0)
+        inner = shown & within
+        shown = np.where(inner.any(axis=0), inner, shown)
         value = np.where(shown.any(axis=0), np.max(np.where(shown, e * s, 0.0), axis=0), np.inf)
-        e = np.where(fresh, value / s, np.inf)
+        e = np.where(fresh, np.maximum(value, np.where(within, 0.0, e * s)) / s, np.inf)
         gap_noise = np.where(fresh, np.maximum(np.max(np.where(fresh, gap_noise * s, 0.0), axis=0) / s, 2.0 * e), np.inf)
         asymmetry = np.mean(np.abs(hp - hm) / np.maximum(hp + hm, 1e-300), axis=1)
-    scale = np.maximum(np.abs(probe.x[flat].astype(np.float64)), probe.x_scale)
-    return plain_windowed(d, s, e, gap, gap_noise, asymmetry, scale)
+    return plain_windowed(d, s, e, gap, gap_noise, asymmetry, _reach(probe, flat))
 
 
 def measured_passes(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken: list[Taken]) -> Judged:
