@@ -36,7 +36,7 @@ from .sixteen import measured_passes
 from .richardson import first_steps, joined, rows_of, settled, two_rows_settle
 from ..common.roundoff import is_narrow
 from .ladder_verdicts import ladder_verdicts
-from .verdict import NOISE, Judged, judge_plain
+from .verdict import NOISE, Judged, judge_plain, scaleless
 
 RECHECK_LIMIT = 400  # coordinates per tensor re-estimated on a ladder
 SHORT_ROWS = 4  # rows of the short ladder beyond that budget (the fourth checks the third)
@@ -268,6 +268,7 @@ def _outcome(probe: TensorProbe, flat: np.ndarray, judged: Judged, start_count: 
             probe, flat, a, numeric, error_estimate, status, scale)
     status, scale = zero_at_own_scale(probe, flat, a, numeric, error_estimate, status, scale)
     status, reasons = unfuzzed(probe, flat, a, numeric, error_estimate, status, reasons)
+    reasons = scaleless(status, reasons, scale)
     err = np.abs(a - numeric)
     own = probe.narrow is None and probe.own_code is None  # judged on its own narrow arithmetic
     return CoordinateOutcome(

@@ -14,12 +14,15 @@ either side, :data:`.wide_steps.WIDE_LAST`): JITTER losses each, at moves DELTA 
 coordinate, DELTA at least the move that changes the loss by CHANGE_ULPS units of its last
 place as the analytic gradient predicts (not the tensor's floor, which may lie far above a
 small gradient), so the moves reach past the loss's own rounding.
-Third differences cancel how the loss changes along the coordinate (the slope and curvature
-at that scale, whatever the gradient) and keep how its rounding varies from point to point:
-independent roundings of spread s give third differences of spread sqrt(20) s, and the
-largest of 3 (JITTER - 3) = 12 of them is about seven times s (a step of a staircase shows as
-one to two times its height). The rounding of one loss value is taken as that largest third
-difference, never below the loss's own last place. A coordinate whose loss took a single
+Fourth differences cancel how the loss changes along the coordinate (the slope, curvature
+and third-order term at that scale, whatever the gradient: third differences kept the
+last, which moves of a quarter of the widest step along a strongly curved loss put far above
+its rounding) and keep how its rounding varies from point to point: independent roundings of
+spread s give fourth differences of spread sqrt(70) s; FOURTH_AS_THIRD times the largest of
+3 (JITTER - 4) = 9 of them is about seven times s, as the largest of twelve third differences
+was (simulated: their distributions agree to 10%, the fourth's a little lower at the low
+end, which the factor covers; a step of a staircase shows as two to four times its height).
+The rounding of one loss value is taken as that, never below the loss's own last place. A coordinate whose loss took a single
 value at some measured point (a staircase coarser than all its moves, or moves the gradient
 mispredicts), or left forward's domain, keeps the target's figure: nothing was measured.
 Where only a side's row took one value while the point's own row spoke (a loss that
@@ -58,33 +61,40 @@ MEASURED = 400  # coordinates per tensor measured (the first undecided ones)
 NEARER_BY = 8.0  # a side that says nothing is measured again this many times nearer the point
 NEARER = 2  # at most this many times (down to 1/64 of the widest step)
 REACH_SLACK = 1e-6  # a pair's moves within the measured reach (steps are rounded to the grid)
+ORDER = 4  # differences of this order: they cancel the loss's change along the row to its cubic term
+FOURTH_AS_THIRD = 0.65  # scaled as third differences of the same roundings spread (see the note)
 
 
-def own_rounding(probe: TensorProbe, flat: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def own_rounding(probe: TensorProbe, flat: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Per coordinate ``flat[i]``: the rounding of one loss value when that coordinate alone
     moves (absolute) and the reach it was measured over (the distance of the farthest
-    measured points from the point), NaN where nothing was measured. Measured first at the widest
+    measured points from the point), NaN where nothing was measured; and where the loss took
+    one and the same value at every point measured (the coordinate moves it by less than its
+    rounding out to the widest step, or not at all). Measured first at the widest
     step; where a side says nothing there but the point does (a loss that saturates on one
     side: a flat row is no measure of its rounding), again NEARER_BY times nearer, at most
     NEARER times. JITTER times 3 calls per coordinate and try."""
     n = flat.size
     rounding, reach = np.full(n, np.nan), np.full(n, np.nan)
     todo, w = np.arange(n), _widest(probe, flat)
+    level = np.zeros(n, dtype=bool)
     for tries in range(NEARER + 1):
-        measured, spoke, extent = _rows_at(probe, flat[todo], w[todo])
+        measured, spoke, extent, one_value = _rows_at(probe, flat[todo], w[todo])
+        if tries == 0:
+            level = one_value
         done = np.isfinite(measured)
         rounding[todo[done]], reach[todo[done]] = measured[done], extent[done]
         todo = todo[~done & spoke]
         if todo.size == 0 or tries == NEARER:
             break
         w[todo] /= NEARER_BY
-    return rounding, reach
+    return rounding, reach, level
 
 
-def _rows_at(probe: TensorProbe, flat: np.ndarray, widest: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def _rows_at(probe: TensorProbe, flat: np.ndarray, widest: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """The rounding measured from rows of JITTER losses at the point and at ``widest`` on
-    either side (NaN where a row says nothing), whether the point's own row spoke, and the
-    distance of the farthest measured points."""
+    either side (NaN where a row says nothing), whether the point's own row spoke, the
+    distance of the farthest measured points, and whether every loss measured was f0."""
     n = flat.size
     x = probe.x[flat]
     eps = float(np.finfo(probe.compute_dtype).eps)
@@ -105,7 +115,8 @@ def _rows_at(probe: TensorProbe, flat: np.ndarray, widest: np.ndarray) -> tuple[
         rows, at = values[i].reshape(3, JITTER), where[i].reshape(3, JITTER)
         rounding[i] = _measured(rows, at, eps)
         spoke[i] = np.isfinite(_measured(rows[:1], at[:1], eps))
-    return rounding, spoke, widest + offsets[-1] * delta
+    one_value = np.all(values == probe.f0, axis=1)
+    return rounding, spoke, widest + offsets[-1] * delta, one_value
 
 
 def _widest(probe: TensorProbe, flat: np.ndarray) -> np.ndarray:
@@ -131,8 +142,8 @@ def _measured(values: np.ndarray, where: np.ndarray, eps: float) -> float:
         # the values are taken at evenly spaced points, the row's own slope across the gap.
         even = np.linspace(p[0], p[-1], p.size)
         g = f - (f[-1] - f[0]) / (p[-1] - p[0]) * (p - even)
-        third = np.abs(np.diff(g, n=3))
-        worst = max(worst, float(third.max()), eps * float(np.max(np.abs(f))))
+        fourth = FOURTH_AS_THIRD * np.abs(np.diff(g, n=ORDER))
+        worst = max(worst, float(fourth.max()), eps * float(np.max(np.abs(f))))
     return worst
 
 
@@ -177,7 +188,7 @@ def judged_on_own_rounding(probe: TensorProbe, flat: np.ndarray, judged: Judged,
         return judged
     noisy = noisy[:MEASURED]
     where = flat[noisy]
-    measured, reach = own_rounding(probe, where)
+    measured, reach, level = own_rounding(probe, where)
     rounding = {int(k): (float(v), float(r)) for k, v, r in zip(where, measured, reach) if np.isfinite(v)}
     if rounding:
         view = _with_own(probe, rounding)
@@ -194,7 +205,7 @@ def judged_on_own_rounding(probe: TensorProbe, flat: np.ndarray, judged: Judged,
     still = np.flatnonzero((judged.status[noisy] == INCONCLUSIVE))
     if still.size == 0:
         return judged
-    return _explained(probe, flat, judged, noisy[still], measured[still], reach[still])
+    return _explained(probe, flat, judged, noisy[still], measured[still], reach[still], level[still])
 
 
 def _one_side(probe: TensorProbe, flat: np.ndarray, judged: Judged, which: np.ndarray, taken: list[Taken]) -> Judged:
@@ -228,14 +239,17 @@ def _averaged(view: _OwnRounding, flat: np.ndarray, judged: Judged, which: np.nd
 
 
 def _explained(probe: TensorProbe, flat: np.ndarray, judged: Judged, which: np.ndarray, measured: np.ndarray,
-               reach: np.ndarray) -> Judged:
+               reach: np.ndarray, level: np.ndarray) -> Judged:
     """The NOISE reason of coordinates ``which`` with the smallest relative error that
     rounding alone lets show on each: SIGNIFICANCE times the least bound a wide-step window
     can have, WIDE_NOISE times the rounding of the central quotient at half the widest step
     on the coordinate's smooth range (the estimate of the widest window without
     extrapolation), over its scale. The rounding is the one measured when the coordinate
     moves, at steps within the reach it was measured over, or the target's figure at the
-    widest step its scale allows, whichever lets the smaller error show."""
+    widest step its scale allows, whichever lets the smaller error show. Where the loss took
+    one value at every point measured along the coordinate (``level``), the reason says so:
+    what the coordinate moves stays below the loss's rounding, which only the target's
+    figure bounds."""
     where = flat[which]
     widest = _widest(probe, where)
     target = WIDE_NOISE * 2.0 * probe.loss_noise(np.full(where.size, probe.f0)) / widest
@@ -254,7 +268,12 @@ def _explained(probe: TensorProbe, flat: np.ndarray, judged: Judged, which: np.n
             how, steps = "measured when it moves", f"the widest step its rounding was measured over ({reach[k]:.2g})"
         else:
             how, steps = "measured when it moves", "the widest step its scale allows"
-        if SIGNIFICANCE * quotient[k] <= probe.threshold * scale[k]:
+        if level[k] and SIGNIFICANCE * quotient[k] > probe.threshold * scale[k]:
+            reasons[i] = (f"{NOISE}: the loss took one and the same value at every point measured along it "
+                          f"(out to {widest[k]:.2g} on either side), so what it changes there is below the loss's "
+                          f"rounding, and that rounding (measured for the whole target) hides any relative error "
+                          f"below {smallest[k]:.2g} on it")
+        elif SIGNIFICANCE * quotient[k] <= probe.threshold * scale[k]:
             reasons[i] = (f"{UNMODELLED} (its rounding, {how}, would let an error of the "
                           f"threshold show at {steps.replace('the widest step', 'the widest steps')})"
                           f"{_narrower(probe, judged.estimate.error[i], scale[k])}")

@@ -72,6 +72,26 @@ BOTH_SIDES_MOVED = (
     "the quotients at those steps say nothing of the slope at the point"
 )
 
+NO_SCALE = (
+    "the analytic value and the numeric estimate are both exactly 0 and no gradient of the target is "
+    "nonzero here (every param 0?), so there is no scale to judge a relative error against: "
+    "check it at a point where the gradients are not all 0 (params drawn at random in setup)"
+)
+
+
+def scaleless(status: np.ndarray, reasons: tuple[str | None, ...], scale: np.ndarray) -> tuple[str | None, ...]:
+    """``reasons`` with NO_SCALE for undecided coordinates whose scale is 0 (the analytic value,
+    the estimate and the target's floor all 0; the floor is then the smallest normal float):
+    there the tolerance is 0, and no step or rounding, whatever the reason said, could have
+    decided them."""
+    which = np.flatnonzero((status == INCONCLUSIVE) & ~(scale > float(np.finfo(np.float64).tiny)))
+    if which.size == 0:
+        return reasons
+    out = list(reasons)
+    for k in which.tolist():
+        out[k] = NO_SCALE
+    return tuple(out)
+
 
 @dataclass(frozen=True)
 class Judged:
