@@ -216,3 +216,46 @@ def test_all_zero_params_say_there_is_no_scale():
     assert undecided
     assert all("no scale to judge a relative error against" in (d.reason or "") for d in undecided), \
         [d.reason for d in undecided]
+
+
+# Correct code whose rounding along a coordinate hides the threshold at every single step and
+# in the averaged rows: central quotients at 64 steps fitted as one curve in s**2
+# (engine/fitted.py) read the derivative with a standard error far below one quotient's
+# rounding. Reference: mpmath through the judge (every tensor within a third of the threshold).
+FITTED_SEEDS = [47110, 2130]
+
+
+@pytest.mark.parametrize("seed", FITTED_SEEDS)
+def test_quotients_fitted_over_many_steps_pass_correct_code(seed):
+    o = _judged(seed)
+    assert o["correct"] and set(o["expect"].values()) == {"quiet"}, o["expect"]
+    assert all(s in ("pass", "kink") for s in o["status"].values()), o["status"]
+
+
+@pytest.mark.parametrize("seed, element, factor", [(47110, 4, 1.005), (2130, 0, 0.995)])
+def test_quotients_fitted_over_many_steps_fail_a_planted_error(seed, element, factor):
+    """The element the fit decides, 0.5% off (ten thresholds; mpmath puts the correct
+    gradient within a third of the threshold): p0 fails (it was left undecided before)."""
+    import warnings
+
+    import numpy as np
+
+    import gradprobe
+    from adversarial import make_case
+    from adversarial.case import load
+
+    case = make_case("float32only", seed)
+    ns = load(case)
+
+    def backward(params, inputs):
+        g = dict(ns["backward"](params, inputs))
+        wrong = np.array(g["p0"], copy=True)
+        wrong.reshape(-1)[element] *= factor
+        g["p0"] = wrong
+        return g
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        report = gradprobe.probe(ns["forward"], backward, *ns["setup"](), label=case.name)
+    status = {t.name: str(getattr(t.status, "value", t.status)) for t in report.tensors}
+    assert status["p0"] == "fail", status

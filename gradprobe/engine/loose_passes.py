@@ -41,7 +41,7 @@ def loose_passes(probe: TensorProbe, flat: np.ndarray, judged: Judged) -> np.nda
     if not _finer_than_sixteen_bits(probe):
         return np.zeros(0, dtype=np.int64)
     tol = probe.tolerance(flat, judged.estimate.value)
-    with np.errstate(invalid="ignore"):
+    with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
         over = judged.estimate.error / tol
     loose = np.flatnonzero((judged.status == PASS) & (over > 1.0))
     if loose.size > LOOSE:

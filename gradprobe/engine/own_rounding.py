@@ -32,7 +32,8 @@ within the reach measured (beyond it, the target's figure). At most MEASURED coo
 tensor (as many as the ladders re-estimate); the wide steps are judged again with the
 measured figure, with windows without extrapolation too (:func:`.wide_steps.plain_windowed`:
 rounding, not curvature, limits these quotients); those still undecided by rounding, on the
-widest steps within reach averaged over jittered pairs (:mod:`.averaged`).
+widest steps within reach averaged over jittered pairs (:mod:`.averaged`), then on one side
+(:mod:`.one_side`), then on quotients at many steps fitted as one curve (:mod:`.fitted`).
 """
 
 from __future__ import annotations
@@ -40,6 +41,7 @@ from __future__ import annotations
 import numpy as np
 
 from .averaged import averaged_estimate, within_reach
+from .fitted import fitted_passes
 from .one_side import narrow_passes, one_sided_passes
 from .wide_steps import WIDE_FIRST, WIDE_LAST, WIDE_NOISE, WIDE_ROWS
 from .wide_step_kinks import KINK_WITHIN, kinks_within_reach
@@ -200,6 +202,7 @@ def judged_on_own_rounding(probe: TensorProbe, flat: np.ndarray, judged: Judged,
         judged = judged.merged(noisy[mine[decided]], redo.pick(decided))
         judged = _averaged(view, flat, judged, noisy[mine], reach[mine], again)
         judged = _one_side(view, flat, judged, noisy, again)
+        judged = fitted_passes(view, flat, judged, noisy, measured, reach, _widest(probe, where))
     else:
         judged = _one_side(probe, flat, judged, noisy, taken)
     still = np.flatnonzero((judged.status[noisy] == INCONCLUSIVE))
@@ -257,7 +260,8 @@ def _explained(probe: TensorProbe, flat: np.ndarray, judged: Judged, which: np.n
         own = np.where(np.isfinite(measured), WIDE_NOISE * 2.0 * measured / np.minimum(reach, widest), np.inf)
     quotient = np.minimum(own, target)
     scale = probe.denominators(where, judged.estimate.value[which])
-    smallest = np.maximum(SIGNIFICANCE * quotient, probe.threshold * scale) / scale
+    with np.errstate(over="ignore", divide="ignore", invalid="ignore"):  # a scale of the floor's tiny value
+        smallest = np.maximum(SIGNIFICANCE * quotient, probe.threshold * scale) / scale
     reasons = list(judged.reasons)
     for k, i in enumerate(which):
         if reasons[i] != NOISE:
