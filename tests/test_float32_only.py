@@ -259,3 +259,37 @@ def test_quotients_fitted_over_many_steps_fail_a_planted_error(seed, element, fa
         report = gradprobe.probe(ns["forward"], backward, *ns["setup"](), label=case.name)
     status = {t.name: str(getattr(t.status, "value", t.status)) for t in report.tensors}
     assert status["p0"] == "fail", status
+
+
+def test_a_coordinate_level_on_one_side_says_so():
+    """104: a ReLU unit switched off 1.7e-4 of its param from its kink (param scale 0.017), the
+    analytic gradient exactly 0 there and the loss level on the off side (the unit's
+    pre-activation a (p - k), from the case's own arrays, is below 0 over the whole side):
+    left undecided (mpmath puts the tensor within a third of the threshold, the judge), with
+    a reason that says the loss kept its value on that side and names an error above the
+    threshold, never a failure."""
+    import re
+    import warnings
+
+    import numpy as np
+
+    import gradprobe
+    from adversarial import make_case
+    from adversarial.case import load
+
+    o = _judged(104)
+    assert o["correct"] and not o["false_alarm"], o["status"]
+    case = make_case("float32only", 104)
+    x, a, k = (np.float64(v.reshape(-1)[7]) for v in (case.params["p0"], case.inputs["a0"], case.inputs["k0"]))
+    assert a * (x - k) < 0 and a > 0  # off, and off for every move to the left
+    ns = load(case)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        report = gradprobe.probe(ns["forward"], ns["backward"], *ns["setup"](), label=case.name)
+    seven = tuple(int(i) for i in np.unravel_index(7, case.params["p0"].shape))
+    detail = next(d for d in report.tensor("p0").details if tuple(int(i) for i in d.index) == seven)
+    assert str(getattr(detail.status, "value", detail.status)) == "inconclusive"
+    said = re.search(r"kept its value at the point at every point measured on one side of it .* below "
+                     r"([0-9.eE+-]+) on it", detail.reason or "")
+    assert said, detail.reason
+    assert float(said.group(1)) > report.threshold

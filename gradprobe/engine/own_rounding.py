@@ -70,16 +70,17 @@ FOURTH_AS_THIRD = 0.65  # scaled as third differences of the same roundings spre
 def own_rounding(probe: TensorProbe, flat: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Per coordinate ``flat[i]``: the rounding of one loss value when that coordinate alone
     moves (absolute) and the reach it was measured over (the distance of the farthest
-    measured points from the point), NaN where nothing was measured; and where the loss took
-    one and the same value at every point measured (the coordinate moves it by less than its
-    rounding out to the widest step, or not at all). Measured first at the widest
+    measured points from the point), NaN where nothing was measured; and on how many sides
+    (0, 1 or 2) of the point the loss took its value at the point at every point measured
+    (the coordinate moves it there by less than its rounding out to the widest step, or not
+    at all). Measured first at the widest
     step; where a side says nothing there but the point does (a loss that saturates on one
     side: a flat row is no measure of its rounding), again NEARER_BY times nearer, at most
     NEARER times. JITTER times 3 calls per coordinate and try."""
     n = flat.size
     rounding, reach = np.full(n, np.nan), np.full(n, np.nan)
     todo, w = np.arange(n), _widest(probe, flat)
-    level = np.zeros(n, dtype=bool)
+    level = np.zeros(n, dtype=np.int8)
     for tries in range(NEARER + 1):
         measured, spoke, extent, one_value = _rows_at(probe, flat[todo], w[todo])
         if tries == 0:
@@ -96,7 +97,8 @@ def own_rounding(probe: TensorProbe, flat: np.ndarray) -> tuple[np.ndarray, np.n
 def _rows_at(probe: TensorProbe, flat: np.ndarray, widest: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """The rounding measured from rows of JITTER losses at the point and at ``widest`` on
     either side (NaN where a row says nothing), whether the point's own row spoke, the
-    distance of the farthest measured points, and whether every loss measured was f0."""
+    distance of the farthest measured points, and on how many sides every loss measured
+    (the point's row's half and the side's row) was f0."""
     n = flat.size
     x = probe.x[flat]
     eps = float(np.finfo(probe.compute_dtype).eps)
@@ -117,8 +119,11 @@ def _rows_at(probe: TensorProbe, flat: np.ndarray, widest: np.ndarray) -> tuple[
         rows, at = values[i].reshape(3, JITTER), where[i].reshape(3, JITTER)
         rounding[i] = _measured(rows, at, eps)
         spoke[i] = np.isfinite(_measured(rows[:1], at[:1], eps))
-    one_value = np.all(values == probe.f0, axis=1)
-    return rounding, spoke, widest + offsets[-1] * delta, one_value
+    same = values == probe.f0  # (n, 3 * JITTER): rows at the point, at +widest, at -widest
+    half = JITTER // 2
+    right = same[:, half:JITTER].all(axis=1) & same[:, JITTER:2 * JITTER].all(axis=1)
+    left = same[:, :half + 1].all(axis=1) & same[:, 2 * JITTER:].all(axis=1)
+    return rounding, spoke, widest + offsets[-1] * delta, right.astype(np.int8) + left.astype(np.int8)
 
 
 def _widest(probe: TensorProbe, flat: np.ndarray) -> np.ndarray:
@@ -249,10 +254,10 @@ def _explained(probe: TensorProbe, flat: np.ndarray, judged: Judged, which: np.n
     on the coordinate's smooth range (the estimate of the widest window without
     extrapolation), over its scale. The rounding is the one measured when the coordinate
     moves, at steps within the reach it was measured over, or the target's figure at the
-    widest step its scale allows, whichever lets the smaller error show. Where the loss took
-    one value at every point measured along the coordinate (``level``), the reason says so:
-    what the coordinate moves stays below the loss's rounding, which only the target's
-    figure bounds."""
+    widest step its scale allows, whichever lets the smaller error show. Where the loss kept
+    its value at the point at every point measured on one side or both (``level``: 1 or 2),
+    the reason says so: what the coordinate moves there stays below the loss's rounding,
+    which only the target's figure bounds."""
     where = flat[which]
     widest = _widest(probe, where)
     target = WIDE_NOISE * 2.0 * probe.loss_noise(np.full(where.size, probe.f0)) / widest
@@ -273,10 +278,11 @@ def _explained(probe: TensorProbe, flat: np.ndarray, judged: Judged, which: np.n
         else:
             how, steps = "measured when it moves", "the widest step its scale allows"
         if level[k] and SIGNIFICANCE * quotient[k] > probe.threshold * scale[k]:
-            reasons[i] = (f"{NOISE}: the loss took one and the same value at every point measured along it "
-                          f"(out to {widest[k]:.2g} on either side), so what it changes there is below the loss's "
-                          f"rounding, and that rounding (measured for the whole target) hides any relative error "
-                          f"below {smallest[k]:.2g} on it")
+            where_level = "on either side" if level[k] == 2 else "on one side"
+            reasons[i] = (f"{NOISE}: the loss kept its value at the point at every point measured {where_level} "
+                          f"of it (out to {widest[k]:.2g}), so what the coordinate changes there stays below the "
+                          f"loss's rounding, and that rounding (measured for the whole target) hides any relative "
+                          f"error below {smallest[k]:.2g} on it")
         elif SIGNIFICANCE * quotient[k] <= probe.threshold * scale[k]:
             reasons[i] = (f"{UNMODELLED} (its rounding, {how}, would let an error of the "
                           f"threshold show at {steps.replace('the widest step', 'the widest steps')})"
