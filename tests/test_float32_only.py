@@ -207,9 +207,12 @@ def test_all_zero_params_say_there_is_no_scale():
         return {"W": inputs["X"].T @ gh, "v": 2.0 * h.T @ r}
 
     params = {"W": np.zeros((3, 2), np.float32), "v": np.zeros(2, np.float32)}
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
+    with warnings.catch_warnings(record=True) as seen:
+        warnings.simplefilter("always")
         report = gradprobe.probe(forward, backward, params, {"X": X, "y": y}, label="zero start")
+    assert [str(w.message) for w in seen] == []  # nothing of gradprobe's own reaches the console
+    # with no scale there is no relative noise to show (it once read 1e+298)
+    assert all(t.worst_noise is None for t in report.tensors if t.status.value == "inconclusive")
     details = [d for t in report.tensors for d in t.details]
     assert details and all(str(getattr(d.status, "value", d.status)) != "fail" for d in details)
     undecided = [d for d in details if str(getattr(d.status, "value", d.status)) == "inconclusive"]
@@ -293,3 +296,31 @@ def test_a_coordinate_level_on_one_side_says_so():
                      r"([0-9.eE+-]+) on it", detail.reason or "")
     assert said, detail.reason
     assert float(said.group(1)) > report.threshold
+
+
+def test_a_zero_start_shows_no_warning_of_gradprobe_and_no_relative_noise():
+    # A float32 sensor layer at zero weights: loss = sum(tanh(x W)**2), whose gradient at W = 0
+    # is exactly 0 (d/du tanh(u)**2 = 2 tanh(u) sech(u)**2 vanishes at u = 0; standard table,
+    # d/du tanh u = sech**2 u). The coordinates stay undecided (no scale), quietly.
+    import warnings
+
+    import numpy as np
+
+    import gradprobe
+
+    rng = np.random.default_rng(2)
+    x = rng.normal(size=(5, 3)).astype(np.float32)
+
+    def forward(params, inputs):
+        return np.float32(np.sum(np.tanh(inputs["x"] @ params["W"]) ** 2))
+
+    def backward(params, inputs):
+        t = np.tanh(inputs["x"] @ params["W"])
+        return {"W": inputs["x"].T @ (2 * t * (1 - t ** 2))}
+
+    with warnings.catch_warnings(record=True) as seen:
+        warnings.simplefilter("always")
+        report = gradprobe.probe(forward, backward, {"W": np.zeros((3, 2), np.float32)}, {"x": x})
+    assert [str(w.message) for w in seen] == []
+    w = report.tensor("W")
+    assert w.status.value == "inconclusive" and w.worst_noise is None

@@ -91,7 +91,8 @@ def _fitted_at(probe: TensorProbe, where: np.ndarray, top: np.ndarray, move: np.
     would lie within ``move``; none below LEAST) over [top / SPAN, top]; infinite bounds
     where no fit was made or a check failed."""
     value, bound = np.full(where.size, np.nan), np.full(where.size, np.inf)
-    count = np.minimum(STEPS, np.floor(top * (1.0 - 1.0 / SPAN) / move) + 1)
+    with np.errstate(divide="ignore", invalid="ignore"):  # no move: as many steps as fit
+        count = np.minimum(STEPS, np.floor(top * (1.0 - 1.0 / SPAN) / move) + 1)
     use = np.flatnonzero(np.nan_to_num(count) >= LEAST)
     if use.size == 0:
         return value, bound

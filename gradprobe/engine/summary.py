@@ -86,7 +86,8 @@ def tensor_result(
         worst = _index(outcome.flat[k], shape)
         max_rel = float(outcome.rel[k])
         max_abs = float(outcome.abs[judged].max())
-        worst_noise = float(outcome.error_estimate[k] / outcome.scale[k])
+        if outcome.scale[k] > np.finfo(np.float64).tiny:  # else no scale: every gradient 0
+            worst_noise = float(outcome.error_estimate[k] / outcome.scale[k])
     estimates = outcome.error_estimate[np.isfinite(outcome.error_estimate)]
     failed = int(failing.sum())
     error_map = SparseErrors(shape, outcome.flat.copy(), outcome.rel.copy())
