@@ -35,17 +35,99 @@ def second_difference(g: np.ndarray, mid: np.ndarray, first: np.ndarray) -> np.n
 BLOCK = 1 << 16  # values a block at a time: temporaries of a block, never of a whole tensor
 
 
-def largest_second_difference(most: np.ndarray | None, g: np.ndarray, mid: np.ndarray,
-                              first: np.ndarray) -> np.ndarray:
+class Narrowed:
+    """Non-negative float64 values kept as float32 where that holds them exactly, with the few
+    that it does not (index, float64 value) beside: half the memory of a float64 array, the
+    same values read back (:meth:`block`, :func:`widened`)."""
+
+    def __init__(self, size: int) -> None:
+        self.low = np.empty(size, dtype=np.float32)
+        self.at = np.empty(0, dtype=np.int64)  # sorted flat indices of the values float32 misses
+        self.exact = np.empty(0, dtype=np.float64)
+
+    @property
+    def size(self) -> int:
+        return self.low.size
+
+    def block(self, part: slice) -> np.ndarray:
+        """The float64 values of ``part`` (a slice with a start and stop), in a new array."""
+        out = self.low[part].astype(np.float64)
+        lo, hi = np.searchsorted(self.at, (part.start, part.stop))
+        out[self.at[lo:hi] - part.start] = self.exact[lo:hi]
+        return out
+
+    def widened_from(self, stop: int, at: np.ndarray, exact: np.ndarray) -> np.ndarray:
+        """As float64: values before ``stop`` with the exceptions ``at``/``exact``, values
+        from ``stop`` on with the exceptions kept until now."""
+        out = self.low.astype(np.float64)
+        later = self.at >= stop
+        out[self.at[later]] = self.exact[later]
+        out[at] = exact
+        return out
+
+
+def widened(values: np.ndarray | Narrowed) -> np.ndarray:
+    """``values`` as one float64 array (a :class:`Narrowed` widened, exactly)."""
+    if not isinstance(values, Narrowed):
+        return np.asarray(values, dtype=np.float64)
+    out = values.low.astype(np.float64)
+    out[values.at] = values.exact
+    return out
+
+
+def add_into(out: np.ndarray, values: np.ndarray | Narrowed) -> None:
+    """``out += values`` in float64, a block at a time (the same sums as on a widened copy)."""
+    if not isinstance(values, Narrowed):
+        out += values
+        return
+    for start in range(0, out.size, BLOCK):
+        part = slice(start, min(start + BLOCK, out.size))
+        out[part] += values.block(part)
+
+
+def largest_second_difference(most: np.ndarray | Narrowed | None, g: np.ndarray, mid: np.ndarray,
+                              first: np.ndarray, compact: bool = False) -> np.ndarray | Narrowed:
     """``most`` raised to :func:`second_difference` (g, mid, first) where that is larger, a
     block at a time (a new flat float64 array when ``most`` is None): the same values as the
-    whole-size difference and ``np.maximum``, with no whole-size temporary."""
+    whole-size difference and ``np.maximum``, with no whole-size temporary.
+
+    ``compact``: a new one is a :class:`Narrowed` (second differences of nearby float32
+    gradients are mostly exact in float32: half the memory), float64 once more than an
+    eighth of its values are not; read it with :func:`widened` or :func:`add_into`."""
     g, mid, first = (np.asarray(v).reshape(-1) for v in (g, mid, first))
-    out = np.empty(g.size, dtype=np.float64) if most is None else most
-    for start in range(0, g.size, BLOCK):
-        part = slice(start, start + BLOCK)
+    parts = [slice(s, min(s + BLOCK, g.size)) for s in range(0, g.size, BLOCK)]
+    if isinstance(most, Narrowed) or (most is None and compact):
+        kept = Narrowed(g.size) if most is None else most
+        at: list[np.ndarray] = []
+        exact: list[np.ndarray] = []
+        missing = 0
+        for k, part in enumerate(parts):
+            second = second_difference(g[part], mid[part], first[part])
+            if most is not None:
+                np.maximum(kept.block(part), second, out=second)
+            with np.errstate(over="ignore", under="ignore", invalid="ignore"):
+                narrowed = second.astype(np.float32)  # beyond float32's range: inf, not equal
+            kept.low[part] = narrowed
+            missed = np.flatnonzero(narrowed != second)
+            at.append(missed + part.start)
+            exact.append(second[missed])
+            missing += missed.size
+            if missing > g.size // 8:  # float64 from the next block on
+                whole = kept.widened_from(part.stop, np.concatenate(at), np.concatenate(exact))
+                return _raised(whole, g, mid, first, parts[k + 1:], fresh=most is None)
+        kept.at = np.concatenate([kept.at[:0], *at])
+        kept.exact = np.concatenate([kept.exact[:0], *exact])
+        return kept
+    fresh = most is None
+    return _raised(np.empty(g.size, dtype=np.float64) if fresh else most, g, mid, first, parts, fresh)
+
+
+def _raised(out: np.ndarray, g: np.ndarray, mid: np.ndarray, first: np.ndarray, parts: list[slice],
+            fresh: bool) -> np.ndarray:
+    """``out`` over ``parts`` set to (``fresh``) or raised to the second differences."""
+    for part in parts:
         second = second_difference(g[part], mid[part], first[part])
-        if most is None:
+        if fresh:
             out[part] = second
         else:
             np.maximum(out[part], second, out=out[part])

@@ -32,7 +32,7 @@ from .widened import Widened, root_mean_square
 from .promote import agreement
 from .sixteen import coarse
 from ..common.roundoff import is_narrow, rounding_units
-from .jitter_steps import largest_second_difference, moved_point
+from .jitter_steps import add_into, largest_second_difference, moved_point, widened
 from .sampling import tensor_rng
 
 
@@ -131,21 +131,23 @@ class Point:
         if self._narrow_jitter is None:
             n = self.numerics
             with own_mappings():  # seven backward calls' whole-tensor arrays: no holes left
-                fuzz = self._measured_jitter(self.ws, n.narrow)
+                fuzz = self._measured_jitter(self.ws, n.narrow, compact=True)
                 moved = propagated_rounding(self.backward, n.workspace, self.info.grad_output, n.code_dtype,
                                             n.analytic, tensor_rng(self.seed, "", "propagation"),
                                             source=self.ws) if self.backward else {}
             self._narrow_jitter = {}
-            for k in set(fuzz) | set(moved):  # their sum, in the first one's array (both float64)
-                parts = [v for v in (fuzz.pop(k, None), moved.pop(k, None)) if v is not None]
-                total = np.asarray(parts[0], dtype=np.float64)
-                for more in parts[1:]:
-                    total += more
-                self._narrow_jitter[k] = total
+            for k in set(fuzz) | set(moved):  # their sum (a + b is b + a, bit for bit), float64
+                jitter, spread = fuzz.pop(k, None), moved.pop(k, None)
+                if spread is None:
+                    self._narrow_jitter[k] = widened(jitter)
+                    continue
+                if jitter is not None:  # added in the float64 array, a block at a time
+                    add_into(spread, jitter)
+                self._narrow_jitter[k] = spread
         return self._narrow_jitter.get(name)
 
     def _measured_jitter(self, ws: Workspace, base: dict[str, np.ndarray],
-                         grid: np.dtype | None = None) -> dict[str, np.ndarray]:
+                         grid: np.dtype | None = None, compact: bool = False) -> dict[str, np.ndarray]:
         """The largest of |g(x + (k+2)d) - 2 g(x + (k+1)d) + g(x + kd)|, k = 1..JITTER_SPAN-2:
         second differences cancel how the gradient really changes along d and keep how its
         rounding varies from point to point; the points lie on one side of a kink at the
@@ -173,7 +175,7 @@ class Point:
                     for name in base:
                         if name not in absent:
                             fuzz[name] = largest_second_difference(fuzz.get(name), g[name], before[1][name],
-                                                                   before[0][name])
+                                                                   before[0][name], compact)
                 before = before[-1:]  # the oldest is let go of before the newest is kept
                 if k < JITTER_SPAN:  # a later difference reads it: a private copy unless fresh
                     before.append({n: v if fresh else v.copy() for n, v in g.items()})
