@@ -188,3 +188,58 @@ def test_second_differences_are_kept_in_float32_where_exact_and_read_back_as_wri
                                           rows[3], rows[2], rows[1])
         assert plain.dtype == np.float64 and np.array_equal(plain, expected)
     assert largest_second_difference(None, few[2], few[1], few[0], compact=True).at.size == 3
+
+
+def _two_forward(p, i):
+    return float(np.sum(np.tanh(i["x"] @ p["w"] + p["v"]) ** 2))
+
+
+def _two_backward(p, i):  # d tanh(z) = 1 - tanh(z)^2 (standard derivative table)
+    t = np.tanh(i["x"] @ p["w"] + p["v"])
+    d = 2 * t * (1 - t * t)
+    return {"w": i["x"].T @ d, "v": d.sum(axis=0)}
+
+
+def _two_point(n: int):
+    from gradprobe.common.tensors import Workspace
+    from gradprobe.engine.evaluate import LossFunction
+    from gradprobe.engine.evaluator import Evaluator
+    from gradprobe.engine.point import prepare
+
+    rng = np.random.default_rng(8)
+    params = {"w": (0.2 * rng.standard_normal((n, 40))).astype(np.float32),
+              "v": (0.1 * rng.standard_normal(40)).astype(np.float32)}
+    inputs = {"x": rng.standard_normal((6, n)).astype(np.float32)}
+    ws = Workspace(params, inputs)
+    point = prepare(_two_forward, _two_backward, ws, Evaluator(LossFunction(_two_forward, ws, None)), 0)
+    assert point.numerics.code_dtype == np.float32 and point.numerics.dtype == np.float64
+    return point, params
+
+
+def test_a_tensor_checked_before_the_spread_is_measured_is_not_held_and_no_spread_changes():
+    # Every tensor moves in every call either way; the spreads kept are those of the tensor
+    # asking and the ones not probed yet. The numbers against the spreads of a point that
+    # keeps every tensor's (itself checked against the definition written out above).
+    everything, params = _two_point(25_000)  # w: 25000 x 40 float32, 4 MB; v: 40
+    full = {name: everything.narrow_spread(name) for name in ("v", "w")}
+    point, _ = _two_point(25_000)
+    point.probe("w", 1e-3)  # w is checked first
+    spread, held, peak = _traced_spread_of(point, "v")
+    nbytes = params["w"].nbytes
+    assert np.array_equal(spread, full["v"])
+    assert held / nbytes < 0.1, held / nbytes  # w's spread is not kept
+    # At once: w moved (1x, float32) and its float32 gradient (1x), then its float64
+    # gradient (2x): no running maximum of w's size (5.3x while w's is kept).
+    assert peak / nbytes < 3.0, peak / nbytes
+    assert np.array_equal(point.narrow_spread("w"), full["w"])  # asked after all: measured then
+
+
+def _traced_spread_of(point, name):
+    tracemalloc.start()
+    try:
+        before = tracemalloc.get_traced_memory()[0]
+        spread = point.narrow_spread(name)
+        held, peak = (m - before for m in tracemalloc.get_traced_memory())
+    finally:
+        tracemalloc.stop()
+    return spread, held, peak

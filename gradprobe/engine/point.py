@@ -59,6 +59,8 @@ class Point:
     _coarse_jitter: dict[str, np.ndarray] | None = field(default=None, repr=False)
     _narrow_loss: tuple[float, float] | None = field(default=None, repr=False)
     _own_loss_scales: dict[str, float] = field(default_factory=dict, repr=False)
+    _probed: set[str] = field(default_factory=set, repr=False)  # tensors a probe was made for
+    _spread_kept: set[str] = field(default_factory=set, repr=False)  # measured in _narrow_jitter
 
     @property
     def gradients(self) -> dict[str, np.ndarray]:
@@ -94,6 +96,7 @@ class Point:
         is prepared next). The point then evaluates its own workspace, sharing the count."""
         self.keep_gradients(set())
         self._jitter = self._narrow_jitter = self._coarse_jitter = None
+        self._spread_kept = set()
         loss = self.evaluator.loss
         loss.release()
         if self.numerics.workspace is not self.ws:
@@ -127,15 +130,20 @@ class Point:
         its narrow gradient may leave that run by rounding, measured (see narrow.py): how much
         the narrow backward's rounding varies at the narrow values, plus how much rounding of
         every value to the narrow type moves the float64 gradient. Once per target, on first
-        use; None where neither could be measured."""
-        if self._narrow_jitter is None:
+        use; None where neither could be measured. Every tensor moves, but only the spreads
+        of ``name`` and of tensors not probed yet are kept: probes are made and checked one
+        tensor at a time (one probed before that asks is measured then: the same draws)."""
+        if self._narrow_jitter is None or name not in self._spread_kept:
             n = self.numerics
+            keep = {k for k in n.narrow if k == name or k not in self._probed}
             with own_mappings():  # seven backward calls' whole-tensor arrays: no holes left
-                fuzz = self._measured_jitter(self.ws, n.narrow, compact=True)
+                fuzz = self._measured_jitter(self.ws, n.narrow, compact=True, keep=keep)
                 moved = propagated_rounding(self.backward, n.workspace, self.info.grad_output, n.code_dtype,
-                                            n.analytic, tensor_rng(self.seed, "", "propagation"),
+                                            {k: v for k, v in n.analytic.items() if k in keep},
+                                            tensor_rng(self.seed, "", "propagation"),
                                             source=self.ws) if self.backward else {}
-            self._narrow_jitter = {}
+            self._narrow_jitter = self._narrow_jitter or {}
+            self._spread_kept |= keep | {name}
             for k in set(fuzz) | set(moved):  # their sum (a + b is b + a, bit for bit), float64
                 jitter, spread = fuzz.pop(k, None), moved.pop(k, None)
                 if spread is None:
@@ -147,13 +155,16 @@ class Point:
         return self._narrow_jitter.get(name)
 
     def _measured_jitter(self, ws: Workspace, base: dict[str, np.ndarray],
-                         grid: np.dtype | None = None, compact: bool = False) -> dict[str, np.ndarray]:
+                         grid: np.dtype | None = None, compact: bool = False,
+                         keep: set[str] | None = None) -> dict[str, np.ndarray]:
         """The largest of |g(x + (k+2)d) - 2 g(x + (k+1)d) + g(x + kd)|, k = 1..JITTER_SPAN-2:
         second differences cancel how the gradient really changes along d and keep how its
         rounding varies from point to point; the points lie on one side of a kink at the
-        point, so a kink's jump is not taken for fuzz. JITTER_SPAN backward calls."""
+        point, so a kink's jump is not taken for fuzz. JITTER_SPAN backward calls. Every
+        tensor of ``base`` moves; only those in ``keep`` (default: all) are measured."""
         if self.backward is None or not base:
             return {}
+        names = [name for name in base if keep is None or name in keep]
         fuzz: dict[str, np.ndarray] = {}
         before: list[dict[str, np.ndarray]] = []  # the last two points' gradients only
         absent: set[str] = set()  # tensors some point gave no usable gradient for
@@ -172,13 +183,13 @@ class Point:
                 del raw
                 absent |= {name for name in base if name not in g}
                 if len(before) == 2:
-                    for name in base:
+                    for name in names:
                         if name not in absent:
                             fuzz[name] = largest_second_difference(fuzz.get(name), g[name], before[1][name],
                                                                    before[0][name], compact)
                 before = before[-1:]  # the oldest is let go of before the newest is kept
                 if k < JITTER_SPAN:  # a later difference reads it: a private copy unless fresh
-                    before.append({n: v if fresh else v.copy() for n, v in g.items()})
+                    before.append({n: g[n] if fresh else g[n].copy() for n in names if n in g})
                 del g
         except ProbeError:
             return {}
@@ -186,6 +197,7 @@ class Point:
 
     def probe(self, name: str, threshold: float) -> TensorProbe:
         n = self.numerics
+        self._probed.add(name)
         probe = TensorProbe(self.evaluator, name, n.workspace.owners[name].reshape(-1),
                             self.gradients[name], n.f0, n.dtype, threshold, self.target_scale,
                             loss_scale=self._tensor_loss_scale(name), narrow=self._narrow_probe(name),
