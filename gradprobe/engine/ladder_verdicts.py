@@ -19,9 +19,9 @@ from .grounds import drifting_sides, judged_ladder, sides_grown
 from .lopsided import kink_beside
 from .probe import TensorProbe
 from .refine import RATIO, ROWS, Taken, climb, ladder_taken
-from .sides_apart import judge_sides_apart, one_sided_drift
+from .sides_apart import judge_sides_apart, one_sided_drift, outside_sides
 from .steps import largest_smooth_step
-from .verdict import Judged
+from .verdict import NOISE, OUTSIDE_SIDES, Judged
 
 RETRY_SHIFT = 6  # a second ladder starts 2**6 steps higher (noise) or lower (curvature)
 
@@ -69,6 +69,14 @@ def ladder_verdicts(
     apart = drifting_sides(probe, flat[still], judged.pick(still), apart, left, right, left_drift, right_drift,
                            judge_sides_apart)
     keep = apart.status != INCONCLUSIVE
+    # Undecided where the ladders saw only rounding noise, yet the sides show a kink and the
+    # value lies outside it: said so, and the second look (offpoint.py) checks it off the point.
+    outside = ~keep & outside_sides(probe, flat[still], left, right) & (np.array(judged.pick(still).reasons) == NOISE)
+    if outside.any():
+        k = np.flatnonzero(outside)
+        apart = apart.merged(k, Judged(apart.status[k], apart.estimate.pick(k), (OUTSIDE_SIDES,) * k.size,
+                                       apart.noise_limited[k]))
+        keep |= outside
     return unresolved(judged.merged(still[keep], apart.pick(np.flatnonzero(keep))))
 
 

@@ -37,7 +37,7 @@ from .point import Point, prepare
 from .record import TensorRecord
 from .sampling import tensor_rng
 from ..common.status import FAIL, INCONCLUSIVE, KINK, PASS
-from .verdict import SIGNIFICANCE, looked_at_again
+from .verdict import OUTSIDE_SIDES, SIGNIFICANCE, looked_at_again
 
 MOVE = 2.0**-10  # of each element's scale (its own size or its tensor's rms)
 MOVE_STEPS = 8.0  # and at least this many first steps, so that the kinks leave their reach
@@ -46,12 +46,22 @@ MOVE_STEPS = 8.0  # and at least this many first steps, so that the kinks leave 
 # bend test can sit inside steps grown to beat rounding noise, where the tableau's bound is
 # the least reliable (seen at 3.8 and 5.7 bounds on correct code; planted bugs at 3e3 and up).
 SAFETY = 10.0
+# Coordinates left undecided with a value outside a kink's resolved sides (OUTSIDE_SIDES: wrong
+# unless several kinks meet at the point) that both moves leave so (the kink not carried past
+# the steps that beat rounding noise) get one more pair of moves, WIDE of their scale, of the
+# tensors holding them alone; only a plain failure there counts.
+WIDE = 2.0**-2
 CHUNK = 1 << 16  # elements moved at a time
 
 MOVED_FAIL = (
     "at a kink here; at a point moved off the kinks (every checked tensor moved by about "
     "{move:.0e} of its scale) the analytic gradient disagrees with the numeric one (values shown "
     "are the moved point's)"
+)
+WIDE_FAIL = (
+    "undecided beside a kink here, and at points moved about {move:.0e} of the scale; at a point "
+    "moved further (this tensor alone moved by about {wide:.2g} of its scale) the analytic gradient "
+    "disagrees with the numeric one (values shown are that point's)"
 )
 
 
@@ -70,8 +80,9 @@ class SecondLook:
         self._settings = settings
         self._seed = settings.seed
         self._names = list(point.grads.values)  # the tensors that move: every checked one
+        self.wide_failed: list[str] = []  # of the names settle returns, those failed moved WIDE
 
-    def _moved(self, name: str, sign: float) -> np.ndarray:
+    def _moved(self, name: str, sign: float, move: float = MOVE) -> np.ndarray:
         """The tensor moved by ``sign`` times its random step, in its own dtype. Built in
         chunks, so that a large tensor costs one new array and no float64 temporaries."""
         x = self._point.ws.owners[name].reshape(-1)
@@ -82,15 +93,18 @@ class SecondLook:
         moved = np.empty_like(x)
         for lo in range(0, x.size, CHUNK):
             part = x[lo:lo + CHUNK].astype(np.float64)
-            size = np.maximum(MOVE * np.maximum(np.abs(part), rms), least * np.maximum(np.abs(part), 1.0))
+            size = np.maximum(move * np.maximum(np.abs(part), rms), least * np.maximum(np.abs(part), 1.0))
             u = rng.uniform(-1.0, 1.0, part.size)
             direction = 0.5 * (u + np.sign(u))  # uniform in (-1, -0.5) and (0.5, 1)
             moved[lo:lo + CHUNK] = part + sign * direction * size
         return moved.reshape(self._point.ws.owners[name].shape)
 
-    def _prepared(self, sign: float, names: set[str]) -> Point | None:
+    def _prepared(self, sign: float, names: set[str], move: float = MOVE) -> Point | None:
+        """The point moved by ``sign`` times each tensor's step (``move`` of its scale): every
+        checked tensor at the usual move, the tensors ``names`` alone at a wider one."""
         p = self._point
-        ws = p.ws.replacing({name: self._moved(name, sign) for name in self._names})
+        moving = self._names if move == MOVE else [n for n in self._names if n in names]
+        ws = p.ws.replacing({name: self._moved(name, sign, move) for name in moving})
         evaluator = p.evaluator.sibling(LossFunction(self._forward, ws, None, moved_copy=True))
         try:
             with quiet():  # a point gradprobe moved to: the code's warnings there are not shown
@@ -139,6 +153,42 @@ class SecondLook:
             upgraded = _kinks_borne_out(record.final, which, agreed[name])
             if upgraded is not None:
                 record.moved = upgraded
+        return self._wider(kinked, failed)
+
+    def _wider(self, kinked: dict[str, tuple[TensorRecord, np.ndarray]], failed: list[str]) -> list[str]:
+        """The coordinates of ``kinked`` still undecided for kinks, checked at two points
+        moved WIDE of their tensors' scale (those tensors alone); a plain failure at either
+        fails them. ``failed`` with the names of tensors failed here added."""
+        still = {}
+        for name, (record, which) in kinked.items():
+            final = record.final
+            assert final is not None
+            left = which[(final.status[which] == INCONCLUSIVE)
+                         & np.array([final.reasons[j] == OUTSIDE_SIDES for j in which], dtype=bool)]
+            if left.size:
+                still[name] = (record, left)
+        s = self._settings
+        for sign in ((1.0, -1.0) if still else ()):
+            moved = self._prepared(sign, set(still), WIDE)
+            if moved is None:
+                continue
+            for name, (record, which) in still.items():
+                current = record.final
+                assert current is not None
+                if name not in moved.grads.values or not np.any(current.status[which] == INCONCLUSIVE):
+                    continue
+                try:
+                    there = check_coordinates(moved.probe(name, s.resolved_threshold), current.flat[which],
+                                              s.method, s.recheck)
+                except ProbeError:
+                    continue
+                merged = _failed_there(current, which, there, WIDE)
+                if merged is not None:
+                    record.moved = merged
+                    failed += [] if name in failed else [name]
+                    self.wide_failed += [] if name in self.wide_failed else [name]
+            moved.release()
+            del moved
         return failed
 
 
@@ -162,7 +212,8 @@ def _kinks_borne_out(outcome: CoordinateOutcome | None, which: np.ndarray,
     return replace(outcome, status=status, reasons=tuple(reasons))
 
 
-def _failed_there(outcome: CoordinateOutcome, which: np.ndarray, there: CoordinateOutcome) -> CoordinateOutcome | None:
+def _failed_there(outcome: CoordinateOutcome, which: np.ndarray, there: CoordinateOutcome,
+                  move: float = MOVE) -> CoordinateOutcome | None:
     """``outcome`` with the coordinates at positions ``which`` that fail plainly in ``there``
     (the same coordinates checked at a moved point) failed, with the moved point's numbers
     where they fail worst; None when none does."""
@@ -178,6 +229,6 @@ def _failed_there(outcome: CoordinateOutcome, which: np.ndarray, there: Coordina
         values[where] = getattr(there, field)[k]
     reasons = list(outcome.reasons)
     for j in where.tolist():
-        reasons[j] = MOVED_FAIL.format(move=MOVE)
+        reasons[j] = MOVED_FAIL.format(move=move) if move == MOVE else WIDE_FAIL.format(move=MOVE, wide=move)
     return replace(outcome, reasons=tuple(reasons), evaluations=outcome.evaluations + there.evaluations,
                    **fields)

@@ -166,7 +166,7 @@ def _second_look(target: Target, settings: CheckOptions, point: Point,
     if not kinked:
         return None
     assert target.backward is not None  # framed in _run
-    from .offpoint import MOVE, SecondLook  # local: only where a coordinate sits at a kink
+    from .offpoint import MOVE, WIDE, SecondLook  # local: only where a coordinate sits at a kink
 
     look = SecondLook(target.forward, target.backward, point, settings)
     point.release()  # the check's own gradients and float64 run are no longer needed: memory
@@ -174,8 +174,9 @@ def _second_look(target: Target, settings: CheckOptions, point: Point,
     failed = look.settle(kinked)
     if not failed:
         return None
+    wide = f", or {', '.join(look.wide_failed)} alone by about {WIDE:.2g}" if look.wide_failed else ""
     return (f"{', '.join(failed)}: coordinates on a kink here fail at points moved off the kinks "
-            f"(every checked tensor moved by about {MOVE:.0e} of its scale); their numbers "
+            f"(every checked tensor moved by about {MOVE:.0e} of its scale{wide}); their numbers "
             f"are those points'")
 
 

@@ -88,4 +88,19 @@ def judge_sides_apart(
     return Judged(status, chosen, reasons, status == INCONCLUSIVE)
 
 
-__all__ = ["judge_sides_apart", "one_sided", "one_sided_drift"]
+def outside_sides(probe: TensorProbe, flat: np.ndarray, left: Estimate, right: Estimate) -> np.ndarray:
+    """Both sides resolved within the tolerance (each bound widened NEAR_SAFETY-fold, as
+    :func:`judge_sides_apart` takes them) and apart beyond SIGNIFICANCE times those bounds (a
+    kink at or near the point, however small its jump against the tolerance), and the
+    analytic value outside every value a kink between them could give (:func:`within_kink`,
+    on the sides' own bounds): one only several kinks meeting at the point could give."""
+    a = probe.a[flat]
+    tol = probe.tolerance(flat, a)
+    e_left, e_right = NEAR_SAFETY * left.error, NEAR_SAFETY * right.error
+    with np.errstate(invalid="ignore"):
+        shown = ((e_left <= tol) & (e_right <= tol)
+                 & (np.abs(left.value - right.value) > SIGNIFICANCE * (e_left + e_right)))
+    return shown & ~within_kink(a, left, right, tol)
+
+
+__all__ = ["judge_sides_apart", "one_sided", "one_sided_drift", "outside_sides"]

@@ -66,6 +66,13 @@ CLOSE_BOTH = (
     "and the analytic value is neither of them nor between them: several kinks at the point or "
     "closer than any resolvable step can still give it, and none of them is resolved"
 )
+# Left undecided by the sides taken apart (:mod:`.sides_apart`) where the ladders saw only
+# rounding noise: the second look checks it off the point, further off where need be.
+OUTSIDE_SIDES = (
+    "both one-sided derivatives are resolved and apart (a kink at the point or closer than any "
+    "step that rounding noise allows) and the analytic value lies outside them: only several "
+    "kinks meeting at the point could give it, and no step tells whether they do"
+)
 BOTH_SIDES_MOVED = (
     "the loss moves away from its value at the point on both sides by amounts that stay fixed "
     "as the step shrinks (a pole or kink closer to the point than the smallest step tried): "
@@ -160,7 +167,8 @@ def judge_plain(probe: TensorProbe, flat: np.ndarray, est: Estimate) -> Judged:
     return Judged(status, est, reasons, status == INCONCLUSIVE)
 
 
-CROSSING = (UNSETTLED, NEAR_KINK, CROWDED, UNRESOLVED, SHARED_POINT, CLOSE_NEITHER, CLOSE_ONE, CLOSE_BOTH)
+CROSSING = (UNSETTLED, NEAR_KINK, CROWDED, UNRESOLVED, SHARED_POINT, CLOSE_NEITHER, CLOSE_ONE, CLOSE_BOTH,
+            OUTSIDE_SIDES)
 
 
 def looked_at_again(status: np.ndarray, reasons: tuple[str | None, ...]) -> np.ndarray:
