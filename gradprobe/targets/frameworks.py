@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import sys
 from collections.abc import Callable, Iterator, Mapping
-from contextlib import contextmanager
+from contextlib import contextmanager, nullcontext
 from dataclasses import field, replace
 from typing import TYPE_CHECKING, Any
 
@@ -271,9 +271,9 @@ def _quiet(forward: Any, library: str, numeric: bool = False) -> Any:
 
 @contextmanager
 def preserved(params: Mapping[str, Any], inputs: Mapping[str, Any]) -> Iterator[None]:
-    """Puts back, whatever happens inside: torch's grad mode and default dtype, the
-    ``requires_grad`` and ``.grad`` of the caller's tensors, and JAX's 64-bit flag (only for
-    frameworks already imported: nothing here imports one)."""
+    """Puts back, whatever happens inside: torch's grad mode (inference mode is left inside) and
+    default dtype, the ``requires_grad`` and ``.grad`` of the caller's tensors, and JAX's 64-bit
+    flag (only for frameworks already imported: nothing here imports one)."""
     torch = sys.modules.get("torch")
     jax = sys.modules.get("jax")
     saved: list[tuple[Any, bool, Any]] = []
@@ -284,8 +284,11 @@ def preserved(params: Mapping[str, Any], inputs: Mapping[str, Any]) -> Iterator[
                 if isinstance(value, torch.Tensor) and (value.is_leaf or value.retains_grad):
                     saved.append((value, value.requires_grad, value.grad))  # a non-leaf has no .grad
     x64 = jax.config.read("jax_enable_x64") if jax is not None and hasattr(jax, "config") else None
+    # a caller in inference mode: the check's own tensors must still track writes and graphs
+    inference = torch is not None and torch.is_inference_mode_enabled()
     try:
-        yield
+        with torch.inference_mode(False) if inference else nullcontext():
+            yield
     finally:
         if torch is not None:
             torch.set_grad_enabled(grad_mode)

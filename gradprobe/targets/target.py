@@ -83,6 +83,9 @@ def _missing(exc: BaseException) -> str | None:
         if root in EXTRAS:
             return (f"the target is written with {root}, which is not installed here: install it "
                     f"with pip install 'gradprobe[{EXTRAS[root]}]'")
+        if root == "cupy":  # no extra: its wheels are built per CUDA version
+            return ("the target is written with cupy, which is not installed here: install the "
+                    "build for your CUDA version (pip install cupy-cuda12x) where that GPU is")
         return None
     text = str(exc)
     if any(s in text for s in ("CUDA", "cuda", "GPU", "not compiled with")):
