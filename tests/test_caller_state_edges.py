@@ -54,3 +54,19 @@ def test_cupy_not_installed_is_one_sentence_with_the_fix(write_target, run_cli, 
     assert result.exit_code == 2
     assert "written with cupy, which is not installed here" in result.output
     assert "pip install cupy" in result.output and "fix it there" not in result.output
+
+
+@pytest.mark.parametrize("make, words", [
+    ("torch.ones(3, device='meta')", "is a torch array whose values cannot be read"),
+    ("torch.eye(3, dtype=torch.float64).to_sparse()", "is a torch array whose values cannot be read"),
+], ids=["meta device", "sparse layout"])
+def test_a_tensor_without_readable_values_is_one_sentence(write_target, run_cli, make, words):
+    """Section 3: a param gradprobe cannot read (a meta tensor has no data, a sparse one no
+    dense values) is bad input, exit 2 naming the param and the fix; not an internal error."""
+    write_target(f"import torch\nparams = {{'w': {make}}}\n"
+                 "def forward(p, i):\n    return (p['w'] * p['w']).sum()\n")
+    result = run_cli("check", "case.py")
+    assert result.exit_code == 2, result.output
+    assert f"w {words}" in result.output and "internal error" not in result.output
+    assert "dense" in result.output
+

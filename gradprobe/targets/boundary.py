@@ -194,7 +194,17 @@ class Boundary:
         out = {}
         for name, value in flat.items():
             kind = self.kinds.get(name)
-            out[name] = self.adapters[kind.library].to_numpy(value) if kind else value
+            if kind is None:
+                out[name] = value
+                continue
+            try:
+                out[name] = self.adapters[kind.library].to_numpy(value)
+            except ProbeError:
+                raise
+            except Exception as exc:  # a meta tensor (no data), a sparse layout, ...
+                raise TargetLoadError(f"{name} is a {kind.library} array whose values cannot be read "
+                                      f"({summarise(exc)})", value=value,
+                                      fix="give it as a dense array of values on the CPU or a GPU") from exc
         return unflatten(out, tree)
 
     def user_tree(self, tree: Mapping[str, Any], made: dict[str, Any], prefix: str = "") -> dict[str, Any]:
