@@ -70,3 +70,28 @@ def test_a_tensor_without_readable_values_is_one_sentence(write_target, run_cli,
     assert f"w {words}" in result.output and "internal error" not in result.output
     assert "dense" in result.output
 
+
+@pytest.mark.parametrize("source", [
+    "import torch\nparams = {'w': torch.ones(3, dtype=torch.float64)}\n"
+    "def forward(p, i):\n    return (p['w'].cuda() ** 2).sum()\n",
+    "import jax, jax.numpy as jnp\nparams = {'w': jnp.ones(3)}\n"
+    "def forward(p, i):\n    return jnp.sum(jax.device_put(p['w'], jax.devices('gpu')[0]) ** 2)\n",
+], ids=["torch .cuda()", "jax gpu device"])
+def test_a_forward_that_asks_for_an_absent_gpu_names_the_fix(write_target, run_cli, source):
+    """Section 6 (issue 19's errors): a GPU the machine lacks, asked for inside forward rather
+    than in setup, is the same one sentence with the same fix, exit 2."""
+    if torch.cuda.is_available() or ("jax" in source and _jax_has_gpu()):
+        pytest.skip("this machine has a GPU")
+    write_target(source)
+    result = run_cli("check", "case.py")
+    assert result.exit_code == 2, result.output
+    assert "a GPU that this machine does not have" in result.output
+    assert "fix it there" not in result.output
+
+
+def _jax_has_gpu() -> bool:
+    jax = need("jax")
+    try:
+        return bool(jax.devices("gpu"))
+    except RuntimeError:
+        return False

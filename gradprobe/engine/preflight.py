@@ -17,6 +17,7 @@ from ..common.errors import (
     summarise,
 )
 from ..common.tensors import Workspace, is_float_dtype
+from ..targets.target import framework_fix
 from .evaluate import output_to_loss
 from .evaluator import Evaluator
 
@@ -63,9 +64,10 @@ SIGNATURES = {
 
 def _signature_fix(exc: Exception, who: str, vjp: bool = False) -> str | None:
     """For a call that failed on its arguments (a TypeError about how many were given), the
-    signature gradprobe calls it with; None (the error's own fix) otherwise."""
+    signature gradprobe calls it with; for a framework or a GPU that is not there, how to get
+    it (as when setup asks for one); None (the error's own fix) otherwise."""
     if not (isinstance(exc, TypeError) and "positional argument" in str(exc)):
-        return None
+        return framework_fix(exc)
     return SIGNATURES["vjp" if vjp else who]
 
 

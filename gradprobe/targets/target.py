@@ -68,7 +68,7 @@ def _call_user(fn: Callable[[], Any], what: str) -> Any:
         raise exit_error(exc, who) from exc
     except BaseException as exc:
         raise TargetLoadError(f"{what} raised {summarise(exc)}", value=fn,
-                              fix=_missing(exc) or "fix it there (--traceback shows where)") from exc
+                              fix=framework_fix(exc) or "fix it there (--traceback shows where)") from exc
 
 
 # Frameworks a target may be written with, and the extra of gradprobe that brings each.
@@ -76,7 +76,7 @@ EXTRAS = {"torch": "torch", "jax": "jax", "jaxlib": "jax", "array_api_strict": "
           "ml_dtypes": "frameworks"}
 
 
-def _missing(exc: BaseException) -> str | None:
+def framework_fix(exc: BaseException) -> str | None:
     """The fix for a framework that is not installed or a GPU that is not there (None if neither)."""
     if isinstance(exc, ModuleNotFoundError) and exc.name:
         root = exc.name.partition(".")[0]
@@ -88,7 +88,10 @@ def _missing(exc: BaseException) -> str | None:
                     "build for your CUDA version (pip install cupy-cuda12x) where that GPU is")
         return None
     text = str(exc)
-    if any(s in text for s in ("CUDA", "cuda", "GPU", "not compiled with")):
+    torch = sys.modules.get("torch")  # a GPU that is there: the error is about something else
+    if torch is not None and torch.cuda.is_available():
+        return None
+    if any(s in text for s in ("CUDA", "cuda", "GPU", "not compiled with", "NVIDIA driver", "'gpu'")):
         return ("the arrays ask for a GPU that this machine does not have: create them on the "
                 "CPU (device='cpu'), or run where that GPU is")
     return None
@@ -132,14 +135,14 @@ def _import_module(location: str) -> Any:
                 value=location, fix="",
             ) from exc
         raise TargetLoadError(f"importing it raised {summarise(exc)}", value=location,
-                              fix=_missing(exc) or "install the missing module or fix the import") from exc
+                              fix=framework_fix(exc) or "install the missing module or fix the import") from exc
     except KeyboardInterrupt:
         raise
     except (SystemExit, ExitAttempt) as exc:
         raise exit_error(exc, "the module") from exc
     except BaseException as exc:
         raise TargetLoadError(f"importing it raised {summarise(exc)}", value=location,
-                              fix=_missing(exc) or "fix the module so it imports (--traceback shows where)") from exc
+                              fix=framework_fix(exc) or "fix the module so it imports (--traceback shows where)") from exc
     finally:
         _remove_first(sys.path, here)
 
