@@ -7,6 +7,12 @@ one element of the biggest weight's gradient off by 1%, 0.1% and 20%, at an elem
 gradient is at least a tenth of the tensor's rms (a typical element, not a vanishing one).
 Each is checked at seeds 0..SEEDS-1. Prints per case: failed and located / inconclusive /
 missed (pass), evaluations, and for correct networks any tensor that is not pass or kink.
+
+``--float32`` adds float32 rows: tanh regressions of sensor readings (a mean squared
+error) whose params are float32, in two flavours: ``float32`` code computes in the type it
+is handed (a float64 run is possible) and ``float32only`` code casts every array and its
+loss to float32 (no wider run). Bugs of 1%, 0.1% and 20% in one element of the biggest weight.
+``--only float32`` runs those rows alone.
 """
 
 from __future__ import annotations
@@ -60,23 +66,68 @@ class Demand:
         return k
 
 
+class Sensors(Demand):
+    """A tanh regression of sensor readings in float32; ``cast``: the forward and backward
+    cast every array and the loss to float32 (no float64 run possible)."""
+
+    def __init__(self, shape: tuple[int, int, int], seed: int, cast: bool, batch: int = 64) -> None:
+        super().__init__(shape, seed, batch)
+        self.cast = cast
+        self.params = {layer: {k: v.astype(np.float32) for k, v in t.items()} for layer, t in self.params.items()}
+        self.inputs = {k: v.astype(np.float32) for k, v in self.inputs.items()}
+
+    def _arrays(self, p, i):
+        if not self.cast:
+            return p, i
+        return ({layer: {k: np.asarray(v, dtype=np.float32) for k, v in t.items()} for layer, t in p.items()},
+                {k: np.asarray(v, dtype=np.float32) for k, v in i.items()})
+
+    def forward(self, p, i):
+        p, i = self._arrays(p, i)
+        out = self._hidden(p, i) @ p["out"]["W"] + p["out"]["b"]
+        loss = 0.5 * np.mean((out - i["demand"]) ** 2)
+        return np.float32(loss) if self.cast else float(loss)
+
+    def exact(self, p, i):
+        return Demand.exact(self, *self._arrays(p, i))
+
+
+def rows(args) -> list[tuple[str, object, tuple[float | None, ...]]]:
+    """(label, network builder, bugs) for each network the run checks."""
+    out = []
+    if args.only != "float32":
+        for n, shape in enumerate(SHAPES[: args.nets]):
+            out.append(("float64", lambda n=n, shape=shape: Demand(shape, seed=n), (None, 0.01, 0.001, 0.2)))
+    if args.float32 or args.only == "float32":
+        for n, shape in enumerate(SHAPES[: args.nets]):
+            for cast in (False, True):
+                out.append(("float32only" if cast else "float32",
+                            lambda n=n, shape=shape, cast=cast: Sensors(shape, seed=n, cast=cast),
+                            (None, 0.01, 0.001, 0.2)))
+    return out
+
+
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--seeds", type=int, default=10)
     parser.add_argument("--nets", type=int, default=len(SHAPES))
+    parser.add_argument("--float32", action="store_true", help="add the float32 rows")
+    parser.add_argument("--only", choices=("float32",), default=None, help="the float32 rows alone")
     args = parser.parse_args()
     totals: dict[str, list[int]] = {}
     wall, cpu = time.perf_counter(), time.process_time()
-    for n, shape in enumerate(SHAPES[: args.nets]):
-        for rel in (None, 0.01, 0.001, 0.2):
-            net = Demand(shape, seed=n)
+    for n, (kind, build, bugs) in enumerate(rows(args)):
+        for rel in bugs:
+            net = build()
             k = net.plant(rel, n) if rel is not None else None
             counts = {"located": 0, "failed": 0, "inconclusive": 0, "pass": 0, "other": 0}
+            statuses: dict[str, int] = {}
             evaluations = []
             for seed in range(args.seeds):
                 report = gradprobe.probe(net.forward, net.backward, net.params, net.inputs, seed=seed)
                 evaluations.append(report.evaluations)
                 t = report.tensor("hidden.W")
+                statuses[t.status] = statuses.get(t.status, 0) + 1
                 if rel is None:
                     bad = [s.name for s in report.tensors if s.status not in ("pass", "kink")]
                     counts["pass" if not bad else "other"] += 1
@@ -99,13 +150,14 @@ def main() -> None:
                 line = (f"located {counts['located']}/{args.seeds}, failed elsewhere {counts['failed']}, "
                         f"inconclusive {counts['inconclusive']}, missed {counts['pass']}, "
                         f"another tensor failed {counts['other']}")
-            key = label
+            key = f"{kind} {label}"
             good = counts["pass"] if rel is None else counts["located"]
             totals.setdefault(key, [0, 0])
             totals[key][0] += good
             totals[key][1] += args.seeds
-            print(f"hidden.W {size:6d} elements, {label:9s}: {line}; evaluations median "
-                  f"{int(np.median(evaluations))}, max {max(evaluations)}")
+            print(f"{kind:11s} hidden.W {size:6d} elements, {label:9s}: {line}; hidden.W "
+                  + ", ".join(f"{s} {c}" for s, c in sorted(statuses.items()))
+                  + f"; evaluations median {int(np.median(evaluations))}, max {max(evaluations)}", flush=True)
     print("as expected (correct: every tensor pass or kink; bug: failed and located): " +
           "; ".join(f"{k} {a}/{b}" for k, (a, b) in totals.items()) +
           f"; {time.perf_counter() - wall:.0f} s wall, {time.process_time() - cpu:.0f} s CPU")

@@ -12,6 +12,14 @@ its own: where the sides still disagree, a kink lies within the steps, and the l
 to steps 16 times smaller, twice; a direction that is kinked at every step is no evidence
 either way and another direction is drawn. Because a random u weighs every element, a wrong
 element shows up as long as its share of the discrepancy exceeds the error bound.
+
+A smooth direction whose bound rounding limits (its propagated rounding half the bound or
+more: float32 code judged on its own arithmetic) and that does not yet resolve what it must
+(the threshold of its directional derivative; for a share in localisation, a fraction of
+its parent's discrepancy) climbs: ladders WIDER, WIDER**2, ... times wider, up to
+:func:`.direction_climb.widest_step`, each kept only where its sides agree and its central
+tableau bounds the discrepancy more tightly than the last; where rounding still limits,
+ladders jittered about the widest kept are averaged (:func:`.direction_climb.jittered`).
 """
 
 from __future__ import annotations
@@ -22,7 +30,8 @@ from typing import Any, Union
 import numpy as np
 
 from ..common.classes import dataclass
-from .ladder import Estimate, tableau
+from .direction_climb import jittered, widest_step
+from .ladder import NOISE_UNITS, Estimate, tableau
 from .probe import TensorProbe
 from .widened import root_mean_square
 
@@ -39,6 +48,10 @@ RETRIES = 2
 STEEP_SHRINKS = 5  # a smooth direction whose bound cannot resolve the threshold: steps 16**k smaller
 WIDE_ROWS = 2  # a widened ladder: its two rows give a bound from their spread
 DEEP_ROWS = 4  # a ladder limited by its steps' size is carried down to this many rows
+CLIMB = 4  # a smooth direction rounding still limits: wider ladders, each WIDER times the last
+WIDER = 4.0
+ELEMENT_AIM = 0.01  # one element off by 1%, at a typical weight, is what a direction climbs to show
+ROUNDING_SHARE = 0.25  # rounding limits a bound it carries this share of (propagated, NOISE_UNITS times)
 
 
 @dataclass(frozen=True)
@@ -191,6 +204,46 @@ def first_step(probe: TensorProbe, part: slice) -> float:
     return FIRST_STEP * probe.eps ** (1.0 / 3.0) * max(1.0, rms)
 
 
+def _done(probe: TensorProbe, central: Estimate, enough: float, analytic: float | None) -> bool:
+    tight = float(central.error[0]) <= enough
+    return tight and (analytic is None or resolves(probe, analytic, central))
+
+
+def _rounding_limited(central: Estimate, noise: float) -> bool:
+    return NOISE_UNITS * noise >= ROUNDING_SHARE * float(central.error[0])
+
+
+def _climbed(probe: TensorProbe, part: slice, u: Vector, t0: float, central: Estimate, noise: float,
+            enough: float, analytic: float | None) -> Estimate:
+    """``central`` (taken on the ladder from ``t0``, whose smallest step's quotient rounds by
+    ``noise``) improved by wider ladders and then jittered ones while rounding limits it and
+    it does not resolve what it must: the threshold of the directional derivative ``analytic``
+    (a direction of the tensor's check), else a bound of ``enough`` (a share in localisation)."""
+    t, widest, kept = t0, None, None  # kept: the widest step whose ladder rounding limited
+    for _ in range(CLIMB):
+        if _done(probe, central, enough, analytic):
+            return central
+        if not _rounding_limited(central, noise):
+            break
+        kept = t
+        if widest is None:
+            widest = widest_step(probe, part, u)
+        t *= WIDER
+        if t > widest:
+            break
+        wide = _ladder(probe, part, u, t, ROWS)
+        if not _sides_agree(wide) or not float(wide[0].error[0]) < float(central.error[0]):
+            break
+        central, noise = wide[0], wide[3]
+    else:
+        if _rounding_limited(central, noise):
+            kept = t
+    if kept is None or _done(probe, central, enough, analytic):
+        return central
+    mean = jittered(probe, part, u, kept, ROWS, RATIO)
+    return central if mean is None or not _sides_agree(mean) else Estimate.better(central, mean[0])
+
+
 def check_direction(
     probe: TensorProbe, part: slice, u: Vector, rows: int = ROWS, enough: float = 0.0,
     threshold: bool = False,
@@ -225,6 +278,12 @@ def check_direction(
         wide_gap = abs(float(wide[2].value[0] - wide[1].value[0]))
         if wide_gap <= DIRECTION_SIGNIFICANCE * float(wide[1].error[0] + wide[2].error[0]):
             central = Estimate.better(central, wide[0])
+            if float(central.error[0]) == float(wide[0].error[0]):
+                # A direction of the tensor's check climbs no further than it needs to show
+                # one element off by ELEMENT_AIM at a typical weight (1/sqrt(n)).
+                aim = max(enough, ELEMENT_AIM * probe.grad_scale / (DIRECTION_SIGNIFICANCE * probe.size ** 0.5))
+                central = _climbed(probe, part, u, t0 * SHRINK, central, wide[3], aim if threshold else enough,
+                                   dot(probe.a[part], u) if threshold else None)
     analytic = dot(probe.a[part], u)
     if not kink and threshold:
         # Smooth but steeper than the steps: the bound cannot resolve the threshold while
