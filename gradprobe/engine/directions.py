@@ -281,7 +281,7 @@ def check_direction(
             if float(central.error[0]) == float(wide[0].error[0]):
                 # A direction of the tensor's check climbs no further than it needs to show
                 # one element off by ELEMENT_AIM at a typical weight (1/sqrt(n)).
-                aim = max(enough, ELEMENT_AIM * probe.grad_scale / (DIRECTION_SIGNIFICANCE * probe.size ** 0.5))
+                aim = max(enough, ELEMENT_AIM * probe.grad_scale / (DIRECTION_SIGNIFICANCE * max(probe.size, 1) ** 0.5))
                 central = _climbed(probe, part, u, t0 * SHRINK, central, wide[3], aim if threshold else enough,
                                    dot(probe.a[part], u) if threshold else None)
     analytic = dot(probe.a[part], u)
