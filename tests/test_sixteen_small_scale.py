@@ -2,7 +2,8 @@
 whose bias lives on a small scale (|b| ~ 0.1): a 2x wrong bias gradient fails on the jittered
 wide-step estimate of engine/sixteen.py where its discrepancy lies beyond the threshold,
 SIGNIFICANCE bounds and any slope jump a kink within the steps could have; the right rule
-does not fail. And the kink-jump bound itself on one-sided quotients of closed forms.
+does not fail, nor does a right rule with a kink closer to the point than the steps. And the
+kink-jump bound itself on one-sided quotients of closed forms.
 
 References outside gradprobe: mpmath's numerical differentiation at 30 digits of the same
 loss written with mpmath (tests/framework_kit.mp_gradient), at the float16 values the kernel
@@ -91,6 +92,42 @@ def test_a_float16_only_kernel_with_a_small_bias_fails_a_2x_bias_rule_and_not_th
         assert statuses["b"] == "fail", (statuses, report.tensor("b").inconclusive_reason)
         assert statuses["W"] != "fail", statuses
     assert np.array_equal(params["b"], BIAS)  # the caller's arrays unchanged
+
+
+# Shop demand: eight prices on a scale of 0.1 (offsets from a list price), each with a penalty
+# |b - c| past a threshold c a few thousandths away, a quadratic cost and a linear revenue.
+_KINKED = np.random.default_rng(4)
+PRICE = (0.1 * _KINKED.normal(size=8)).astype(F16)
+_AWAY = np.where(_KINKED.random(8) < 0.5, -1.0, 1.0) * (np.abs(PRICE.astype(np.float64)) * 0.02 + 1e-3)
+THRESHOLD = (PRICE.astype(np.float64) + _AWAY).astype(F16)
+PENALTY = _KINKED.normal(size=8).astype(F16)
+COST = _KINKED.normal(size=8).astype(F16)
+
+
+def _kinked_forward(p, i):
+    _only16(p["b"], i["c"])
+    b = p["b"]
+    return np.sum(i["w"] * np.abs(b - i["c"]) + i["v"] * b * b + i["w"] * F16(3.0) * b) + F16(10.0)
+
+
+def _kinked_backward(p, i):
+    """d/dx |x| = sign(x) away from 0, d/dx x**2 = 2x (table of derivatives)."""
+    b = p["b"]
+    return {"b": i["w"] * np.sign(b - i["c"]) + F16(2.0) * i["v"] * b + i["w"] * F16(3.0)}
+
+
+def test_a_right_float16_rule_with_kinks_closer_than_the_wide_steps_does_not_fail():
+    inputs = {"c": THRESHOLD, "w": PENALTY, "v": COST}
+    gaps = np.abs(PRICE.astype(np.float64) - THRESHOLD.astype(np.float64))
+    assert gaps.max() < 0.005 and gaps.min() > 0  # every kink within the levels, none at the point
+    # The rule is the closed form at the float16 point, to float16 rounding.
+    b = PRICE.astype(np.float64)
+    exact = (PENALTY.astype(np.float64) * np.sign(b - THRESHOLD.astype(np.float64))
+             + 2 * COST.astype(np.float64) * b + 3 * PENALTY.astype(np.float64))
+    assert rel_gap(_kinked_backward({"b": PRICE}, inputs)["b"], exact) < 0.01
+    report = probe(_kinked_forward, _kinked_backward, {"b": PRICE.copy()}, inputs)
+    assert report.compute_dtype == "float16"
+    assert report.tensor("b").status.value != "fail", report.tensor("b").status
 
 
 def _one_sided_gaps(f, x: float, steps: np.ndarray) -> np.ndarray:
