@@ -16,10 +16,12 @@ from ..common.status import INCONCLUSIVE
 from .close_kinks import looked_closer
 from .descent import between_levels, descend
 from .grounds import drifting_sides, judged_ladder, sides_grown
+from .ladder import Estimate
 from .lopsided import kink_beside
 from .probe import TensorProbe
 from .refine import RATIO, ROWS, Taken, climb, ladder_taken
-from .sides_apart import judge_sides_apart, one_sided_drift, outside_sides
+from .side_failures import failures_on_own_rounding
+from .sides_apart import judge_sides_apart, one_sided_rows, outside_sides, side_estimate
 from .steps import largest_smooth_step
 from .verdict import NOISE, OUTSIDE_SIDES, Judged
 
@@ -64,14 +66,18 @@ def ladder_verdicts(
     # Last: each side on its own, on steps growing away from the point (beside a kink the
     # clean side reaches steps that beat the noise).
     smallest = np.minimum(start[still], probe.prior_steps(flat[still]))
-    (left, left_drift), (right, right_drift) = (one_sided_drift(probe, flat[still], smallest, s) for s in (-1.0, 1.0))
+    left_rows, right_rows = (one_sided_rows(probe, flat[still], smallest, s) for s in (-1.0, 1.0))
+    (left, left_drift), (right, right_drift) = side_estimate(probe, left_rows), side_estimate(probe, right_rows)
     apart = judge_sides_apart(probe, flat[still], left, right)
     apart = drifting_sides(probe, flat[still], judged.pick(still), apart, left, right, left_drift, right_drift,
                            judge_sides_apart)
+    # A failure stands only where the rows still fail on the coordinate's own rounding.
+    sides = [Estimate(e.value, np.where(d, np.inf, e.error)) for e, d in ((left, left_drift), (right, right_drift))]
+    apart, unsettled = failures_on_own_rounding(probe, flat[still], apart, *sides, (left_rows, right_rows), before)
     keep = apart.status != INCONCLUSIVE
     # Undecided where the ladders saw only rounding noise, yet the sides show a kink and the
     # value lies outside it: said so, and the second look (offpoint.py) checks it off the point.
-    outside = ~keep & outside_sides(probe, flat[still], left, right) & (np.array(judged.pick(still).reasons) == NOISE)
+    outside = ~keep & ~unsettled & outside_sides(probe, flat[still], left, right) & (np.array(judged.pick(still).reasons) == NOISE)
     if outside.any():
         k = np.flatnonzero(outside)
         apart = apart.merged(k, Judged(apart.status[k], apart.estimate.pick(k), (OUTSIDE_SIDES,) * k.size,

@@ -11,6 +11,8 @@ after its ladders.
 
 from __future__ import annotations
 
+from typing import NamedTuple
+
 import numpy as np
 
 from ..common.status import FAIL, INCONCLUSIVE, KINK
@@ -25,6 +27,15 @@ SIDE_RATIO = 4.0
 SIDE_NOISE = 1024.0
 
 
+class SideRows(NamedTuple):
+    """One side's rows (SIDE_ROWS, coordinates), the largest step first: the losses, the
+    distances the forward saw, the quotients."""
+
+    values: np.ndarray
+    moved: np.ndarray
+    quotients: np.ndarray
+
+
 def one_sided(probe: TensorProbe, flat: np.ndarray, smallest: np.ndarray, sign: float) -> Estimate:
     """:func:`one_sided_drift`'s estimate alone."""
     return one_sided_drift(probe, flat, smallest, sign)[0]
@@ -32,7 +43,12 @@ def one_sided(probe: TensorProbe, flat: np.ndarray, smallest: np.ndarray, sign: 
 
 def one_sided_drift(probe: TensorProbe, flat: np.ndarray, smallest: np.ndarray, sign: float
                     ) -> tuple[Estimate, np.ndarray]:
-    """The derivative from one side only, on steps growing 4-fold from ``smallest``, or from
+    """:func:`one_sided_rows`' estimate and drift, on the target's rounding figure."""
+    return side_estimate(probe, one_sided_rows(probe, flat, smallest, sign))
+
+
+def one_sided_rows(probe: TensorProbe, flat: np.ndarray, smallest: np.ndarray, sign: float) -> SideRows:
+    """The quotients from one side only, on steps growing 4-fold from ``smallest``, or from
     the step that beats rounding noise where that is larger (as far as the params' own
     scale): for a point beside a kink, the side away from it reaches
     steps large enough to beat rounding noise, which a two-sided ladder cannot."""
@@ -50,10 +66,19 @@ def one_sided_drift(probe: TensorProbe, flat: np.ndarray, smallest: np.ndarray, 
     values, moved = values.reshape(SIDE_ROWS, n), moved.reshape(SIDE_ROWS, n)
     with np.errstate(invalid="ignore", divide="ignore"):
         quotients = sign * (values - probe.f0) / moved
-    noise = 2.0 * probe.loss_noise(np.nan_to_num(values)) / moved
-    estimate = tableau(np.nan_to_num(quotients), noise, SIDE_RATIO, 1)
-    bad = ~np.isfinite(values).all(axis=0)
-    q = np.nan_to_num(quotients)
+    return SideRows(values, moved, quotients)
+
+
+def side_estimate(probe: TensorProbe, rows: SideRows, rounding: np.ndarray | None = None
+                  ) -> tuple[Estimate, np.ndarray]:
+    """The tableau's estimate of one side's ``rows`` and whether they drift like c/h, with
+    each loss value's rounding the target's figure, or ``rounding`` (per coordinate)."""
+    values = np.nan_to_num(rows.values)
+    one = probe.loss_noise(values) if rounding is None else np.broadcast_to(rounding, values.shape)
+    noise = 2.0 * one / rows.moved
+    q = np.nan_to_num(rows.quotients)
+    estimate = tableau(q, noise, SIDE_RATIO, 1)
+    bad = ~np.isfinite(rows.values).all(axis=0)
     drift = np.asarray(drifting(q, np.zeros_like(q), SIDE_RATIO).any(axis=0))
     return Estimate(estimate.value, np.where(bad, np.inf, estimate.error)), drift
 
@@ -103,4 +128,5 @@ def outside_sides(probe: TensorProbe, flat: np.ndarray, left: Estimate, right: E
     return shown & ~within_kink(a, left, right, tol)
 
 
-__all__ = ["judge_sides_apart", "one_sided", "one_sided_drift", "outside_sides"]
+__all__ = ["SideRows", "judge_sides_apart", "one_sided", "one_sided_drift",
+           "one_sided_rows", "outside_sides", "side_estimate"]
