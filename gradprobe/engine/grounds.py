@@ -61,7 +61,33 @@ def judged_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, start: n
         if start is not None and taken:
             ladder = crossed_wider(probe, flat, start, ladder, taken, which)
     judged = crossed_bound(probe, flat, ladder, judge_ladder(probe, flat, ladder, tiny), wider)
-    return off_the_grid(probe, flat, ladder, judged)
+    return rows_bear_out(probe, flat, ladder, off_the_grid(probe, flat, ladder, judged))
+
+
+def rows_bear_out(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Judged) -> Judged:
+    """``judged`` with failures undecided where one of the ladder's own central quotients,
+    whose rounding is below the discrepancy, lies within that rounding of the analytic value.
+
+    A measured quotient agreeing with backward to its own rounding, while the extrapolated
+    estimate says otherwise beyond its bound, shows the tableau's model (errors shrinking
+    4-fold per halving) does not hold on the coordinate: a corner of the second derivative at
+    the point (a Huber loss's residual exactly at its corner) leaves an error linear in the
+    step, which the rows' rounding hides until the smallest steps (kinks-54098)."""
+    if is_narrow(probe.compute_dtype) or ladder.pairs is None:
+        return judged
+    which = np.flatnonzero(judged.status == FAIL)
+    if which.size == 0:
+        return judged
+    n = flat.size
+    rows = _rows(ladder, n)
+    p = ladder.pairs
+    q = p.central.reshape(rows, n)[:, which]
+    noise = (2 * p.noise / (p.h_plus + p.h_minus)).reshape(rows, n)[:, which]
+    a = probe.a[flat[which]]
+    gap = np.abs(a - judged.estimate.value[which])
+    with np.errstate(invalid="ignore"):
+        agrees = ((np.abs(q - a) <= noise) & (noise < gap)).any(axis=0)
+    return _undecided(judged, which[agrees])
 
 
 def _rows(ladder: Ladder, n: int) -> int:
