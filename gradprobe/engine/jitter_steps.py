@@ -118,8 +118,9 @@ def largest_second_difference(most: np.ndarray | Narrowed | None, g: np.ndarray,
         kept.at = np.concatenate([kept.at[:0], *at])
         kept.exact = np.concatenate([kept.exact[:0], *exact])
         return kept
-    fresh = most is None
-    return _raised(np.empty(g.size, dtype=np.float64) if fresh else most, g, mid, first, parts, fresh)
+    if most is None:
+        return _raised(np.empty(g.size, dtype=np.float64), g, mid, first, parts, True)
+    return _raised(most, g, mid, first, parts, False)
 
 
 def _raised(out: np.ndarray, g: np.ndarray, mid: np.ndarray, first: np.ndarray, parts: list[slice],

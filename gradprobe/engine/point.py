@@ -32,7 +32,7 @@ from .widened import Widened, root_mean_square
 from .promote import agreement
 from .sixteen import coarse
 from ..common.roundoff import is_narrow, rounding_units
-from .jitter_steps import add_into, largest_second_difference, moved_point, widened
+from .jitter_steps import Narrowed, add_into, largest_second_difference, moved_point, widened
 from .sampling import tensor_rng
 
 
@@ -147,6 +147,7 @@ class Point:
             for k in set(fuzz) | set(moved):  # their sum (a + b is b + a, bit for bit), float64
                 jitter, spread = fuzz.pop(k, None), moved.pop(k, None)
                 if spread is None:
+                    assert jitter is not None  # k came from one of the two
                     self._narrow_jitter[k] = widened(jitter)
                     continue
                 if jitter is not None:  # added in the float64 array, a block at a time
@@ -165,7 +166,7 @@ class Point:
         if self.backward is None or not base:
             return {}
         names = [name for name in base if keep is None or name in keep]
-        fuzz: dict[str, np.ndarray] = {}
+        fuzz: dict[str, np.ndarray | Narrowed] = {}
         before: list[dict[str, np.ndarray]] = []  # the last two points' gradients only
         absent: set[str] = set()  # tensors some point gave no usable gradient for
         try:
@@ -193,7 +194,7 @@ class Point:
                 del g
         except ProbeError:
             return {}
-        return {name: v for name, v in fuzz.items() if name not in absent}
+        return {name: v for name, v in fuzz.items() if name not in absent}  # type: ignore[misc]  # compact: Narrowed
 
     def probe(self, name: str, threshold: float) -> TensorProbe:
         n = self.numerics

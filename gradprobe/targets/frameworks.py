@@ -287,7 +287,7 @@ def preserved(params: Mapping[str, Any], inputs: Mapping[str, Any]) -> Iterator[
     # a caller in inference mode: the check's own tensors must still track writes and graphs
     inference = torch is not None and torch.is_inference_mode_enabled()
     try:
-        with torch.inference_mode(False) if inference else nullcontext():
+        with torch.inference_mode(False) if inference and torch is not None else nullcontext():
             yield
     finally:
         if torch is not None:
