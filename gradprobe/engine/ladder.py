@@ -18,7 +18,9 @@ from ..common.classes import dataclass
 
 SAFETY = 2.0  # the neighbours' spread is multiplied by this
 NOISE_UNITS = 2.0  # and the propagated rounding noise by this
-RATE_SLACK = 2.0  # a column's change per row may be up to twice or half what its model says
+RATE_SLACK = 1.8  # a column's change per row may be up to 1.8 times what its model says (central
+# quotients: 0.45 of the change before, below the 0.5 of an error linear in the step, which a
+# corner of the second derivative at the point gives), or turn back by 1/1.8 of it
 PREDICTION_SLACK = 1.5  # a next quotient's distance may shrink 1.5 times less than the model says
 DRIFT_SLACK = 1.5  # changes growing by the step ratio, give or take this factor, drift like 1/h
 
