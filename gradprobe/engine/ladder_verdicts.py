@@ -72,9 +72,10 @@ def ladder_verdicts(
     apart = drifting_sides(probe, flat[still], judged.pick(still), apart, left, right, left_drift, right_drift,
                            judge_sides_apart)
     # A failure stands only where the rows still fail on the coordinate's own rounding.
-    sides = [Estimate(e.value, np.where(d, np.inf, e.error)) for e, d in ((left, left_drift), (right, right_drift))]
-    apart, unsettled = failures_on_own_rounding(probe, flat[still], apart, sides[0], sides[1], (left_rows, right_rows),
-                                                before)
+    left_side, right_side = (Estimate(e.value, np.where(d, np.inf, e.error))
+                             for e, d in ((left, left_drift), (right, right_drift)))
+    apart, unsettled = failures_on_own_rounding(probe, flat[still], apart, left_side, right_side,
+                                                (left_rows, right_rows), before)
     keep = apart.status != INCONCLUSIVE
     # Undecided where the ladders saw only rounding noise, yet the sides show a kink and the
     # value lies outside it: said so, and the second look (offpoint.py) checks it off the point.

@@ -3,7 +3,7 @@ undecided.
 
 Beside a kink a two-sided ladder's steps keep crossing it, and steps small enough not to
 reach it drown in rounding noise. Each side alone, on steps growing 4-fold away from the
-point (:func:`one_sided_drift`), reaches on the side away from the kink steps that beat
+point (:func:`one_sided_rows`, :func:`side_estimate`), reaches on the side away from the kink steps that beat
 the noise; :func:`judge_sides_apart` gives the verdicts from the two sides' derivatives
 (a kink where they differ and the value lies between them). :mod:`.coordinates` uses both
 after its ladders.
@@ -34,17 +34,6 @@ class SideRows(NamedTuple):
     values: np.ndarray
     moved: np.ndarray
     quotients: np.ndarray
-
-
-def one_sided(probe: TensorProbe, flat: np.ndarray, smallest: np.ndarray, sign: float) -> Estimate:
-    """:func:`one_sided_drift`'s estimate alone."""
-    return one_sided_drift(probe, flat, smallest, sign)[0]
-
-
-def one_sided_drift(probe: TensorProbe, flat: np.ndarray, smallest: np.ndarray, sign: float
-                    ) -> tuple[Estimate, np.ndarray]:
-    """:func:`one_sided_rows`' estimate and drift, on the target's rounding figure."""
-    return side_estimate(probe, one_sided_rows(probe, flat, smallest, sign))
 
 
 def one_sided_rows(probe: TensorProbe, flat: np.ndarray, smallest: np.ndarray, sign: float) -> SideRows:
@@ -128,5 +117,4 @@ def outside_sides(probe: TensorProbe, flat: np.ndarray, left: Estimate, right: E
     return shown & ~within_kink(a, left, right, tol)
 
 
-__all__ = ["SideRows", "judge_sides_apart", "one_sided", "one_sided_drift",
-           "one_sided_rows", "outside_sides", "side_estimate"]
+__all__ = ["SideRows", "judge_sides_apart", "one_sided_rows", "outside_sides", "side_estimate"]
