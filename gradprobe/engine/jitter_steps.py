@@ -41,7 +41,7 @@ class Narrowed:
     same values read back (:meth:`block`, :func:`widened`)."""
 
     def __init__(self, size: int) -> None:
-        self.low = np.empty(size, dtype=np.float32)
+        self.low = np.zeros(size, dtype=np.float32)  # not empty: a later block widened unwritten warns
         self.at = np.empty(0, dtype=np.int64)  # sorted flat indices of the values float32 misses
         self.exact = np.empty(0, dtype=np.float64)
 
