@@ -79,7 +79,7 @@ def jittered(probe: TensorProbe, part: slice, u, t: float, rows: int, ratio: flo
         last = probe.eps * np.maximum(np.abs(f_plus), np.abs(f_minus)).max(axis=0)  # per row
         if not np.all(np.abs(np.diff(p_plus, axis=0)) >= CHANGE_ULPS * last[None, :]):
             return None
-        one = (probe.loss_noise(f_plus, f_minus) / steps).max(axis=0)  # one quotient's rounding
+        one = (probe.moved_noise(f_plus, f_minus) / steps).max(axis=0)  # one quotient's rounding
         s2 = steps**2
         ds2, dq = s2 - s2.mean(axis=0), q - q.mean(axis=0)
         beta = (ds2 * dq).sum(axis=0) / (ds2**2).sum(axis=0)

@@ -20,6 +20,7 @@ from ..report.model import DirectionResult
 from .directions import DIRECTION_SIGNIFICANCE as SIGNIFICANCE
 from .directions import DirectionCheck, Vector, check_direction, unit_direction
 from .locate import locate
+from .move_noise import moved_loss_scale
 from .probe import TensorProbe
 from .sampling import tensor_rng
 
@@ -110,6 +111,7 @@ def directional(
     (``sampled``: coordinates are sampled beside them, which stand for kinked directions),
     the tensor is swept when small enough, else left unresolved with the reason."""
     rng = tensor_rng(seed, probe.tensor, "directions")
+    probe.moved_scale = max(probe.moved_scale, moved_loss_scale(probe, tensor_rng(seed, probe.tensor, "moved noise")))
     everything = slice(0, probe.size)
     checks: list[DirectionCheck] = []
     found: list[np.ndarray] = []

@@ -174,7 +174,7 @@ def _ladder(
     p_plus, p_minus = predicted[0::2], predicted[1::2]
     right = (f_plus - probe.f0 - p_plus) / steps
     left = (probe.f0 - f_minus + p_minus) / steps
-    noise = probe.loss_noise(f_plus, f_minus)
+    noise = probe.moved_noise(f_plus, f_minus)
     one_sided = (2.0 * noise / steps)[:, None]
     central = tableau(((right + left) / 2.0)[:, None], (noise / steps)[:, None], RATIO, 2)
     return (central, tableau(left[:, None], one_sided, RATIO, 1),

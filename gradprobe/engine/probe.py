@@ -118,6 +118,9 @@ class TensorProbe:
         # |f| can be far below the size of the terms that round (a sum of signed terms):
         # the loss scale, when known, is the larger of the two.
         self.loss_scale = max(abs(f0), loss_scale or 0.0)
+        # The same when every element of the tensor moves at once (a direction), where
+        # measured (directional.directional, move_noise.moved_loss_scale); 0 until then.
+        self.moved_scale = 0.0
         # Narrow code checked on its float64 run: the same tensor probed on the narrow code
         # itself, with the narrow gradient it really returns.
         self.narrow = narrow
@@ -151,6 +154,10 @@ class TensorProbe:
         for v in values:
             size = np.maximum(size, np.abs(v))
         return self.rounding_units * self.eps * size
+
+    def moved_noise(self, *values: np.ndarray) -> np.ndarray:
+        """The same for loss values at points where the whole tensor moved (a direction)."""
+        return np.maximum(self.loss_noise(*values), self.rounding_units * self.eps * self.moved_scale)
 
     # -- steps ------------------------------------------------------------------------
 
