@@ -17,7 +17,8 @@ size beyond the one moved copy that :meth:`.probe.TensorProbe.along` already kee
 
 from __future__ import annotations
 
-from collections.abc import Iterator
+from collections.abc import Iterator, Mapping
+from typing import Any
 
 import numpy as np
 
@@ -36,7 +37,7 @@ class UlpMoves:
     """ULPS units in the last place of each element of ``x`` (on the grid of ``dtype`` where
     coarser), with random signs: drawn again, bit for bit, a block at a time where read."""
 
-    def __init__(self, x: np.ndarray, dtype: np.dtype, state: dict) -> None:
+    def __init__(self, x: np.ndarray, dtype: np.dtype, state: Mapping[str, Any]) -> None:
         self._x, self._dtype, self._state = x, dtype, state
 
     @property
