@@ -101,6 +101,14 @@ def _undecided_reason(probe: TensorProbe, checks: list[DirectionCheck]) -> str:
             f"so {missed} could not be resolved")
 
 
+def _moved_rounding(probe: TensorProbe, seed: int) -> bool:
+    """Measure the loss's rounding on a move of the whole tensor (4 calls); True where it
+    is clearly above the probe's model and the directions now use it (move_noise)."""
+    scale = moved_loss_scale(probe, tensor_rng(seed, probe.tensor, "moved noise"))
+    probe.moved_scale = max(probe.moved_scale, scale)
+    return scale > 0.0
+
+
 def directional(
     probe: TensorProbe, count: int, seed: int, stop_early: bool = True, sampled: bool = False
 ) -> Directional:
@@ -111,7 +119,6 @@ def directional(
     (``sampled``: coordinates are sampled beside them, which stand for kinked directions),
     the tensor is swept when small enough, else left unresolved with the reason."""
     rng = tensor_rng(seed, probe.tensor, "directions")
-    probe.moved_scale = max(probe.moved_scale, moved_loss_scale(probe, tensor_rng(seed, probe.tensor, "moved noise")))
     everything = slice(0, probe.size)
     checks: list[DirectionCheck] = []
     found: list[np.ndarray] = []
@@ -119,9 +126,14 @@ def directional(
     located: int | None = None
     budget = count * (1 + EXTRA_DIRECTIONS)
     small = probe.size <= SWEEP_UNDECIDED
+    moved_measured = False
     while _evidence(checks) < count and len(checks) < budget:
         u = unit_direction(probe.size, rng)
         check = check_direction(probe, everything, u, enough=_enough(probe), threshold=True)
+        if not check.agrees and not moved_measured:
+            moved_measured = True  # once per tensor, where a direction first fails to agree
+            if _moved_rounding(probe, seed):
+                check = check_direction(probe, everything, u, enough=_enough(probe), threshold=True)
         checks.append(check)
         if check.unresolved and not check.significant and small:
             break  # steeper than any step resolves: the coordinates decide (swept below)
