@@ -211,6 +211,16 @@ def _measure(probe: TensorProbe, d: np.ndarray) -> _Seen | None:
     return _Seen(float(est.value[0]), float(est.error[0]), float(probe.a @ d), most)
 
 
+def _fuzz_along(probe: TensorProbe, d: np.ndarray) -> float:
+    """SIGNIFICANCE times what the analytic values' own rounding adds along ``d``: how much
+    each varies between points a few units of the type's grid apart (point.Point.coarse_jitter;
+    a coordinate's failure allows it as much, reconcile.unfuzzed), 0 where not measured."""
+    fuzz = probe.own_rounding() if probe.own_rounding is not None else None
+    if fuzz is None:
+        return 0.0
+    return SIGNIFICANCE * float(np.abs(d) @ np.asarray(fuzz, dtype=np.float64).reshape(-1))
+
+
 def along(probe: TensorProbe, outcome: CoordinateOutcome, seed: int) -> Along:
     """The directions of :func:`_directions`, each judged as the module says."""
     start = probe.evaluator.count
@@ -222,7 +232,7 @@ def along(probe: TensorProbe, outcome: CoordinateOutcome, seed: int) -> Along:
         if seen is None:
             continue
         value, error = seen.estimate_value, seen.estimate_error
-        limit = thr / (1.0 - thr) * seen.allowed
+        limit = thr / (1.0 - thr) * seen.allowed + _fuzz_along(probe, d)
         beyond = np.isfinite(error) and abs(value) > SIGNIFICANCE * error and abs(value) > limit
         scale = max(abs(seen.analytic), abs(seen.analytic + value), probe.floor)
         results.append(DirectionResult(

@@ -38,6 +38,13 @@ from .sampling import tensor_rng
 
 JITTER_ULPS = 4.0  # units in the last place every checked tensor moves to measure the jitter
 JITTER_SPAN = 5  # backward calls: points x + d ... x + 5d, three second differences
+# And for 16-bit code on its own arithmetic, again at these many units of its grid: 3 (3 and 4
+# coprime, a term with a period dividing one spacing shows at the other) and 2 (a period of
+# about ten units). Wider spacings are not taken: every element moves, and a smooth
+# gradient's second differences there grow to a share of the threshold. Nor are spacings
+# below a unit: the nearest point then rounds back onto the point, and a kink at the point
+# would be taken for fuzz.
+RIPPLE_ULPS = (3.0, 2.0)
 
 
 @dataclass
@@ -119,10 +126,20 @@ class Point:
     def coarse_jitter(self, name: str) -> np.ndarray | None:
         """As :meth:`jitter`, the points JITTER_ULPS units of the compute type's grid apart
         where it is coarser than the arrays' (code rounding to 16 bits inside): the rounding
-        backward's own computation accumulates, which moves finer than its grid never show."""
+        backward's own computation accumulates, which moves finer than its grid never show.
+        16-bit code judged on its own arithmetic: the largest of that and the same at each of
+        RIPPLE_ULPS units (a term varying with a period that divides JITTER_ULPS units, a
+        ripple below the loss's rounding, shows no second difference at one spacing; only one
+        of a single unit's period or less, constant on the grid, shows at none)."""
         if self._coarse_jitter is None:
-            self._coarse_jitter = self._measured_jitter(self.numerics.workspace, self.gradients,
-                                                        self.numerics.dtype)
+            n = self.numerics
+            self._coarse_jitter = self._measured_jitter(n.workspace, self.gradients, n.dtype)
+            if is_narrow(n.dtype) and np.finfo(n.dtype).eps >= np.finfo(np.float16).eps and not n.reference_only:
+                for ulps in RIPPLE_ULPS:
+                    other = self._measured_jitter(n.workspace, self.gradients, n.dtype, ulps=ulps)
+                    for k, v in other.items():
+                        if k in self._coarse_jitter:
+                            self._coarse_jitter[k] = np.maximum(widened(self._coarse_jitter[k]), widened(v))
         return self._coarse_jitter.get(name)
 
     def narrow_spread(self, name: str) -> np.ndarray | None:
@@ -157,7 +174,7 @@ class Point:
 
     def _measured_jitter(self, ws: Workspace, base: dict[str, np.ndarray],
                          grid: np.dtype | None = None, compact: bool = False,
-                         keep: set[str] | None = None) -> dict[str, np.ndarray]:
+                         keep: set[str] | None = None, ulps: float = JITTER_ULPS) -> dict[str, np.ndarray]:
         """The largest of |g(x + (k+2)d) - 2 g(x + (k+1)d) + g(x + kd)|, k = 1..JITTER_SPAN-2:
         second differences cancel how the gradient really changes along d and keep how its
         rounding varies from point to point; the points lie on one side of a kink at the
@@ -172,7 +189,7 @@ class Point:
         try:
             for k in range(1, JITTER_SPAN + 1):
                 # x + k d, one array each; the steps are drawn again for every point
-                moved = {n: moved_point(ws.owners[n], k, JITTER_ULPS, tensor_rng(self.seed, n, "jitter"), grid)
+                moved = {n: moved_point(ws.owners[n], k, ulps, tensor_rng(self.seed, n, "jitter"), grid)
                          for n in base}
                 with quiet():  # a moved point: the code's warnings there are not shown
                     raw = call_backward(self.backward, ws.replacing(moved), self.info.grad_output, scratch=False)

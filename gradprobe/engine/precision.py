@@ -56,6 +56,7 @@ WIDER_TINY = 2.0**-16  # still below the 16-bit types' resolution: float32 code 
 SUB_UNIT = 0.875 * 2.0**-12  # below float16's resolution (half a unit: 2**-12 to 2**-11)
 SUB_UNIT_TRIES = 4
 HALF_UNIT = 2.0**-10  # below bfloat16's resolution, a unit of float16's
+ACROSS = 2  # the seed of the random signs of a move across the even one (see _sixteen_bits)
 LIVE = 64.0  # the change a move would make in the finer type, in units of its eps times |f|
 
 
@@ -197,7 +198,17 @@ def _on_a_grid(values: list[float], grid: np.dtype) -> bool:
         return any(bool(np.all(seen.astype(kind).astype(np.float64) == seen)) for kind in kinds)
 
 
-def _first_order(looks: _Looks, grid: np.dtype, rounded: float) -> float | None:
+def on_a_sixteen_bit_grid(values: list[float]) -> bool:
+    """:func:`_on_a_grid` for bfloat16 (and float16), or float16 alone without ml_dtypes;
+    at least three distinct finite values (a float64 loss with few bits lands on float16's
+    grid more often than by chance, rarely three times over)."""
+    finite = [v for v in values if np.isfinite(v)]
+    if len(set(finite)) < 3 or len(finite) < len(values):
+        return False
+    return _on_a_grid(finite, _bfloat16() or np.dtype(np.float16))
+
+
+def _first_order(looks: _Looks, grid: np.dtype, rounded: float, seed: int | None = None) -> float | None:
     """The first-order part of the loss's change at a move of ``SIXTEEN_LARGE`` (which every
     16-bit type resolves), from half the difference of the losses at moves up and down (a loss
     at its minimum changes by the move's square alike both ways): of ``SIXTEEN_LARGE``'s where
@@ -205,9 +216,13 @@ def _first_order(looks: _Looks, grid: np.dtype, rounded: float) -> float | None:
     ``SIXTEEN_NEAR``'s within ``AGREE`` (16-bit rounding makes the nearer pair's noisy), else of
     ``SIXTEEN_NEAR``'s scaled up; None where a side of the nearer pair is unchanged (a loss
     flat at the point changes on one side only, where a kink is crossed). A kink or a bend
-    between the two moves makes the wider pair's change no measure of the slope at the point."""
-    far = [looks.loss(move, grid) for move in (SIXTEEN_LARGE, -SIXTEEN_LARGE)]
-    near = [looks.loss(move, grid) for move in (SIXTEEN_NEAR, -SIXTEEN_NEAR)]
+    between the two moves makes the wider pair's change no measure of the slope at the point.
+    With ``seed``: along moves of random signs drawn from it (the same direction up and down)."""
+    def loss(move: float) -> float:
+        return looks.loss(move, grid, None if seed is None else np.random.default_rng(seed))
+
+    far = [loss(move) for move in (SIXTEEN_LARGE, -SIXTEEN_LARGE)]
+    near = [loss(move) for move in (SIXTEEN_NEAR, -SIXTEEN_NEAR)]
     wide = 0.5 * abs(far[0] - far[1])
     if _on_a_grid([rounded, *far, *near], grid):
         return wide
@@ -227,9 +242,19 @@ def _sixteen_bits(looks: _Looks, f0: float, out_dtype: np.dtype, unchanged: floa
     for tiny in (TINY, -TINY):  # float32 code sees both
         if looks.loss(tiny, grid) != rounded:
             return None
-    linear = _first_order(looks, grid, rounded)
-    if linear is None or not linear * (max(unchanged, TINY) / SIXTEEN_LARGE) > SIXTEEN_LIVE * np.finfo(np.float32).eps * max(abs(rounded), abs(f0)):
-        return None
+    def live(linear: float | None) -> bool:
+        return linear is not None and linear * (max(unchanged, TINY) / SIXTEEN_LARGE) > \
+            SIXTEEN_LIVE * np.finfo(np.float32).eps * max(abs(rounded), abs(f0))
+
+    if not live(_first_order(looks, grid, rounded)):
+        # A loss near its minimum along the even move (every param scaled alike) barely changes
+        # along it: the evidence is then read along a move of random signs, which float32 code
+        # must see at TINY too (both ways, the same direction).
+        for tiny in (TINY, -TINY):
+            if looks.loss(tiny, grid, np.random.default_rng(ACROSS)) != rounded:
+                return None
+        if not live(_first_order(looks, grid, rounded, ACROSS)):
+            return None
     for wider in (WIDER_TINY, -WIDER_TINY):  # float32 code whose values carry offsets sees these
         if looks.loss(wider, grid) != rounded:
             return None

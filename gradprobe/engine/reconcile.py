@@ -28,6 +28,7 @@ from .widened import root_mean_square
 from .narrow import kink_within_reach
 from .promote import disagreeing
 from .flat_zone import flat_zone
+from .sixteen import coarse
 from .verdict import SIGNIFICANCE, Judged
 
 FUZZY = (
@@ -186,14 +187,23 @@ def unfuzzed(
     """Failures that the analytic value's own fuzz explains are undecided: where backward's
     rounding varies by the discrepancy's share between points a few units in the last place
     apart (a loss at the rounding level of its own terms), its value is not defined finely
-    enough for the discrepancy to be a bug's (see point.Point.jitter)."""
+    enough for the discrepancy to be a bug's (see point.Point.jitter). 16-bit code judged on
+    its own arithmetic: between points a few units of its own grid apart, at least
+    (point.Point.coarse_jitter; moves finer than its grid leave a 16-bit backward unchanged,
+    and a term of the loss that varies within a few of its units, a ripple below the loss's
+    rounding, adds to backward's value what no quotient shows, yet shows there)."""
     failing = np.flatnonzero(status == FAIL)
     if failing.size == 0 or probe.jitter is None:
         return status, reasons
     jitter = probe.jitter()
-    if jitter is None:
+    own = probe.own_rounding() if coarse(probe) and probe.own_rounding is not None else None
+    if jitter is None and own is None:
         return status, reasons
-    fuzzy = np.abs(a[failing] - numeric[failing]) <= SIGNIFICANCE * (error[failing] + jitter[flat[failing]])
+    off = np.abs(a[failing] - numeric[failing])
+    fine = 0.0 if jitter is None else jitter[flat[failing]]
+    # The coarse grid's variation is taken once, as where a 16-bit coordinate passes or fails
+    # on its jittered estimate (sixteen.measured_passes): it is a largest change already.
+    fuzzy = off <= SIGNIFICANCE * (error[failing] + fine) + (0.0 if own is None else own[flat[failing]])
     if not fuzzy.any():
         return status, reasons
     status = status.copy()

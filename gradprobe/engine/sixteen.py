@@ -113,6 +113,18 @@ def jittered_estimate(probe: TensorProbe, flat: np.ndarray, taken: list[Taken]) 
     return _jittered(probe, flat, taken)[0]
 
 
+def _flat_bound(probe: TensorProbe, widest: np.ndarray) -> np.ndarray:
+    """For a loss bitwise the loss at the point at every jittered step of every level, both
+    sides: how large its slope can be, one spacing of the type over the widest step (the
+    spacing of the binade above the loss's measured scale, the largest its terms reach). Two
+    values a spacing apart or more round to different points of the grid, and a sum absorbs
+    at most half a spacing of a term on each side; a loss flat on one side only (beside a
+    kink) moves on the other and is no such loss."""
+    spacing = probe.eps * 2.0 ** np.ceil(np.log2(max(probe.loss_scale, 1e-300)))
+    with np.errstate(divide="ignore"):
+        return spacing / widest
+
+
 def _kink_jump(gap: np.ndarray, gap_noise: np.ndarray, s: np.ndarray) -> np.ndarray:
     """The largest jump of slope that a kink within the levels' steps could have, per
     coordinate (levels by coordinates, ascending): the one-sided gap is f'' s plus, once the
@@ -129,6 +141,14 @@ def _kink_jump(gap: np.ndarray, gap_noise: np.ndarray, s: np.ndarray) -> np.ndar
 
 def _jittered(probe: TensorProbe, flat: np.ndarray, taken: list[Taken]) -> tuple[Estimate, np.ndarray]:
     """:func:`jittered_estimate`, and per coordinate :func:`_kink_jump` of its levels."""
+    est, jump, _, _ = _jittered_all(probe, flat, taken)
+    return est, jump
+
+
+def _jittered_all(probe: TensorProbe, flat: np.ndarray,
+                  taken: list[Taken]) -> tuple[Estimate, np.ndarray, np.ndarray, np.ndarray]:
+    """:func:`_jittered`, and per coordinate whether the loss was bitwise the loss at the
+    point at every step, and the widest step (the smallest of its jitter)."""
     n = flat.size
     top = _widest(probe, flat)
     grid = probe.resolution(flat)
@@ -144,9 +164,15 @@ def _jittered(probe: TensorProbe, flat: np.ndarray, taken: list[Taken]) -> tuple
         central = p.central.reshape(shape)
         right, left = (q.reshape(shape) for q in p.sides(probe.f0))
         d, e = _mean_and_noise(central)
-        gap, gap_noise = _mean_and_noise(right - left)
         hp, hm = p.h_plus.reshape(shape), p.h_minus.reshape(shape)
         s = np.sqrt(np.mean((0.5 * (hp + hm)) ** 2, axis=1))
+        # The one-sided gap is f'' times the step (curvature), which changes across the
+        # jitter by up to 3/8 of itself: its rounding is read off the spread of the gap over
+        # its own step (f'' there, constant to second order) times the level's step, as the
+        # quotients' is off theirs (a kink's jump over the step varies across the jitter, and
+        # its spread counts, larger).
+        gap = (right - left).mean(axis=1)
+        gap_noise = _mean_and_noise((right - left) / (0.5 * (hp + hm)))[1] * s
         # One loss value's rounding (quotient's times step): the largest any level shows, for
         # every level (one whose roundings move together shows too little of it, one whose
         # quotients all agree none; where no level shows any, it is unknown). The gap's: at
@@ -162,7 +188,10 @@ def _jittered(probe: TensorProbe, flat: np.ndarray, taken: list[Taken]) -> tuple
         e = np.where(fresh, np.maximum(value, np.where(within, 0.0, e * s)) / s, np.inf)
         gap_noise = np.where(fresh, np.maximum(np.max(np.where(fresh, gap_noise * s, 0.0), axis=0) / s, 2.0 * e), np.inf)
         asymmetry = np.mean(np.abs(hp - hm) / np.maximum(hp + hm, 1e-300), axis=1)
-    return plain_windowed(d, s, e, gap, gap_noise, asymmetry, _reach(probe, flat)), _kink_jump(gap, gap_noise, s)
+    unmoved = np.all((p.f_plus.reshape(shape) == probe.f0) & (p.f_minus.reshape(shape) == probe.f0), axis=(0, 1))
+    widest = np.minimum(hp[-1], hm[-1]).min(axis=0)
+    return (plain_windowed(d, s, e, gap, gap_noise, asymmetry, _reach(probe, flat)), _kink_jump(gap, gap_noise, s),
+            unmoved, widest)
 
 
 def measured_passes(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken: list[Taken]) -> Judged:
@@ -175,7 +204,11 @@ def measured_passes(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken:
                            & np.array([r == NOISE for r in judged.reasons], dtype=bool))
     if noisy.size == 0:
         return judged
-    est, jump = _jittered(probe, flat[noisy], taken)
+    est, jump, unmoved, widest = _jittered_all(probe, flat[noisy], taken)
+    # A loss flat at every level: a slope of 0 within its bound (:func:`_flat_bound`), judged
+    # as any estimate (flat on both sides, it straddles no kink that shows).
+    est = Estimate(np.where(unmoved, 0.0, est.value), np.where(unmoved, _flat_bound(probe, widest), est.error))
+    jump = np.where(unmoved, 0.0, jump)
     a = probe.a[flat[noisy]]
     tol = base = probe.tolerance(flat[noisy], est.value)
     fuzz = probe.own_rounding() if probe.own_rounding is not None else None
@@ -185,7 +218,7 @@ def measured_passes(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken:
     # coordinate was left undecided with (a kink between the point and the wide steps, which
     # the wide quotients average over, puts them apart).
     before = judged.estimate.pick(noisy)
-    continues = np.abs(est.value - before.value) <= est.error + before.error
+    continues = (np.abs(est.value - before.value) <= est.error + before.error) | unmoved
     off = np.abs(a - est.value)
     passed = np.isfinite(est.error) & (off <= tol) & (est.error <= tol) & continues
     # A discrepancy beyond the threshold and SIGNIFICANCE bounds (the analytic value's own

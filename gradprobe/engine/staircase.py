@@ -31,6 +31,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..common.status import FAIL
+from .precision import on_a_sixteen_bit_grid
 from .probe import TensorProbe
 from .verdict import Judged
 
@@ -191,6 +192,9 @@ def coarse_treads(probe: TensorProbe, flat: np.ndarray, judged: Judged) -> Judge
         same = (v[:, 1:] == v[:, :-1]) & (np.abs(v[:, 1:] - probe.f0) > size)
         tread |= same.any(axis=1)
         fine |= _fine_change(v, FINE * max(abs(probe.f0), probe.loss_scale))
+        # Every loss seen on a 16-bit grid (a float64 loss lands on one by chance once in
+        # 2**13 values at most): the loss is rounded to 16 bits, its treads hidden by curvature.
+        tread |= np.array([on_a_sixteen_bit_grid([probe.f0, *row]) for row in v.tolist()], dtype=bool)
     if not tread.all():
         grain = _grain(probe)
         if grain > 0:
