@@ -38,12 +38,9 @@ from .sampling import tensor_rng
 
 JITTER_ULPS = 4.0  # units in the last place every checked tensor moves to measure the jitter
 JITTER_SPAN = 5  # backward calls: points x + d ... x + 5d, three second differences
-# And for 16-bit code on its own arithmetic, again at these many units of its grid: 3 (3 and 4
-# coprime, a term with a period dividing one spacing shows at the other) and 2 (a period of
-# about ten units). Wider spacings are not taken: every element moves, and a smooth
-# gradient's second differences there grow to a share of the threshold. Nor are spacings
-# below a unit: the nearest point then rounds back onto the point, and a kink at the point
-# would be taken for fuzz.
+# 16-bit code on its own arithmetic: again at 3 and 2 units (a ripple whose period divides one
+# spacing shows at another); not wider (every element moves: a smooth gradient's second
+# differences grow), nor below a unit (the nearest point rounds back onto the point).
 RIPPLE_ULPS = (3.0, 2.0)
 
 
@@ -128,9 +125,7 @@ class Point:
         where it is coarser than the arrays' (code rounding to 16 bits inside): the rounding
         backward's own computation accumulates, which moves finer than its grid never show.
         16-bit code judged on its own arithmetic: the largest of that and the same at each of
-        RIPPLE_ULPS units (a term varying with a period that divides JITTER_ULPS units, a
-        ripple below the loss's rounding, shows no second difference at one spacing; only one
-        of a single unit's period or less, constant on the grid, shows at none)."""
+        RIPPLE_ULPS units (a ripple of the loss below its rounding varies backward's value)."""
         if self._coarse_jitter is None:
             n = self.numerics
             self._coarse_jitter = self._measured_jitter(n.workspace, self.gradients, n.dtype)

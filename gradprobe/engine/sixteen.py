@@ -25,8 +25,11 @@ step) is the largest any level within the params' scale shows, taken at every le
 level whose roundings move together shows too little, one whose quotients all agree none;
 where none within the scale shows any, the level beyond it speaks, and where no level shows
 any there is no estimate. A level beyond the scale counts its own spread where larger (it
-also carries how truncation changes across its jitter, larger there), for itself alone. The one-sided quotients' gap likewise (at least twice the
-quotients' rounding). The levels
+also carries how truncation changes across its jitter, larger there), for itself alone. The
+one-sided quotients' gap likewise (at least twice the quotients' rounding), its spread read
+over its own step: the gap is f'' times the step, and across a jitter of 3/8 of the step it
+changes by as much as 3/8 of itself, which is curvature, not rounding (read as rounding, it
+made the kink allowance below hide bugs of twice the gradient in bfloat16). The levels
 are windows of :func:`.wide_steps.plain_windowed`, whose error model (quotients that follow
 c2 s**2, a gap that shrinks with the step, the bound WIDE_SAFETY times the measured
 curvature plus WIDE_NOISE times the rounding) is checked on the coordinate as for every
@@ -53,7 +56,13 @@ mpmath on the adversarial inside16 and float16 sets: without the kink term 8 of 
 targets failed, with it none, while bugs of 16-bit code on small-scale params fail. What no
 step can tell apart stays a limit: a ripple of the loss smaller than its rounding and
 narrower than the smallest level (a * sin(k b) with a below the loss's rounding) changes no
-quotient beyond rounding yet adds a * k to the derivative. A coordinate neither passed nor failed stays as it was; its reason then names the
+quotient beyond rounding yet adds a * k to the derivative; the analytic value then varies
+between points a few units of the grid apart, and that variation (the fuzz above, measured
+at spacings of 4, 3 and 2 units) counts against a failure, here, in reconcile.unfuzzed and
+along a direction. A ripple whose period on the grid (after aliasing) spans tens of units
+shows in no such variation and stays a limit. A loss bitwise the loss at the point at every
+jittered step of every level is a slope of 0 within one spacing of the type, at the binade
+above the loss's measured scale, over the widest step (:func:`_flat_bound`). A coordinate neither passed nor failed stays as it was; its reason then names the
 smallest relative error that the jittered estimate's bound lets show on it (SIGNIFICANCE
 bounds over its scale), or says that no window bounded it.
 """
