@@ -247,7 +247,7 @@ def _reports(runs: list[TargetRun], out: Output, options: CheckOptions) -> None:
     if out.files.json is not None:
         from .render.json import render_runs
 
-        text = render_runs(runs, options.threshold, options.seed)
+        text = render_runs(runs, options.threshold, options.seed, options.method)
         if out.files.json == "-":
             click.echo(text, nl=False)
         else:

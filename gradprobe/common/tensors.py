@@ -21,7 +21,8 @@ def flatten(tree: Mapping[str, Any], prefix: str = "", what: str = "the mapping"
             _open: tuple[int, ...] = ()) -> dict[str, Any]:
     """Flatten a nested mapping to ``{"hidden.W": leaf, ...}`` in insertion order.
 
-    A mapping that contains itself (at any depth) is a TargetLoadError naming where.
+    A mapping that contains itself (at any depth), or two entries giving one name, is a
+    TargetLoadError naming where.
     """
     flat: dict[str, Any] = {}
     inside = (*_open, id(tree))
@@ -32,9 +33,14 @@ def flatten(tree: Mapping[str, Any], prefix: str = "", what: str = "the mapping"
                 raise TargetLoadError(
                     f"{what} contains itself at {name!r}, so it has no end to flatten into "
                     "arrays", value=name)
-            flat.update(flatten(value, prefix=f"{name}.", what=what, _open=inside))
+            inner = flatten(value, prefix=f"{name}.", what=what, _open=inside)
         else:
-            flat[name] = value
+            inner = {name: value}
+        for twice in inner.keys() & flat.keys():
+            raise TargetLoadError(
+                f"{what} names two entries {twice!r} (a key with a dot and a nesting give the "
+                "same name)", value=twice, fix="rename one so that each tensor has a name of its own")
+        flat.update(inner)
     return flat
 
 

@@ -10,6 +10,7 @@ import numpy as np
 
 from ..common.classes import dataclass
 from ..common.errors import (
+    BadOutputError,
     InPlaceWriteError,
     NondeterminismError,
     ProbeError,
@@ -92,6 +93,12 @@ def inspect_forward(
     if int(np.prod(shape, dtype=np.int64)) != 1 and np.ndim(out) > 0:
         grad_output = rng.standard_normal(shape)
     first = output_to_loss(out, grad_output, "")
+    if isinstance(first, complex):
+        raise BadOutputError(
+            f"forward returned a complex result ({np.asarray(out).dtype}) at real params, not a "
+            "real loss", value=out,
+            fix="return a real number: take np.real(...) of a complex computation, or keep "
+                "forward in real arithmetic")
     evaluator.loss.grad_output = grad_output
     second = evaluator.base()
     dtype = _result_dtype(out)

@@ -225,25 +225,32 @@ def render_json(report: Report) -> str:
     return dumps(report_dict(report))
 
 
-def unrun_dict(run: TargetRun, threshold: float | None, seed: int) -> dict[str, Any]:
+def unrun_dict(run: TargetRun, threshold: float | None, seed: int,
+               method: str | None = None) -> dict[str, Any]:
     """The report of one target that could not run: not ok, no layers, its sentence in
-    ``errors``, so a CI step reading the file finds why instead of a missing file."""
+    ``errors``, so a CI step reading the file finds why instead of a missing file. It has
+    every top-level and summary key of a report that ran (null where nothing was learnt)."""
     return {
         "schema": SCHEMA, "target": run.target, "ok": False, "exit_code": run.exit_code,
-        "threshold": threshold, "seed": seed,
+        "threshold": threshold, "seed": seed, "method": method, "compute_dtype": None,
+        "narrow_threshold": None, "array_library": None, "gradient_source": None,
+        "inconclusive_fails": None, "sampling": None,
         "summary": {"tensors": 0, "checked": 0, "failed": 0, "kinks": 0, "inconclusive": 0,
-                    "failed_tensors": 0, "evaluations": 0, "seconds": 0.0},
+                    "failed_tensors": 0, "evaluations": 0, "seconds": 0.0,
+                    "error_enters_at": None, "own_evaluations": None},
         "layers": [], "errors": [run.error or "the check could not run"], "notes": [],
+        "second_order": None,
     }
 
 
-def render_runs(runs: list[TargetRun], threshold: float | None = None, seed: int = 0) -> str:
+def render_runs(runs: list[TargetRun], threshold: float | None = None, seed: int = 0,
+                method: str | None = None) -> str:
     """One target: its report as above (or, when it could not run, :func:`unrun_dict`).
     Several: ``gradprobe.runs/1`` holding each report and each target's error."""
     if len(runs) == 1:
         run = runs[0]
         return (render_json(run.report) if run.report is not None
-                else dumps(unrun_dict(run, threshold, seed)))
+                else dumps(unrun_dict(run, threshold, seed, method)))
     document = {
         "schema": RUNS_SCHEMA,
         "ok": all(r.exit_code == 0 for r in runs),

@@ -23,6 +23,7 @@ from ..common.classes import dataclass
 from ..common.errors import TargetLoadError, summarise
 from ..common.guard import ExitAttempt, exit_error
 from ..common.spec import is_file_spec, split_spec
+from .neighbours import note_neighbours, own_neighbours
 
 
 @dataclass(frozen=True)
@@ -110,6 +111,7 @@ def _import_file(location: str) -> Any:
         raise TargetLoadError(f"{location} cannot be imported as a Python file", value=location)
     module = importlib.util.module_from_spec(spec)
     folder = str(resolved.parent)
+    before = own_neighbours(folder)
     sys.path.insert(0, folder)
     sys.modules[name] = module
     try:
@@ -119,7 +121,9 @@ def _import_file(location: str) -> Any:
         raise
     finally:
         _remove_first(sys.path, folder)
+        note_neighbours(before, folder)
     return module
+
 
 
 def _import_module(location: str) -> Any:
