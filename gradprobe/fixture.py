@@ -57,7 +57,7 @@ class GradProbe:
         __tracebackhide__ = True
         import pytest
 
-        from .common.errors import ProbeError
+        from .common.errors import ProbeError, UserCodeError
         from .render.lines import failure_line
         from .render.terminal import render_text
 
@@ -65,6 +65,8 @@ class GradProbe:
         try:
             report = run(**chosen)
         except ProbeError as exc:
+            if exc.fix == UserCodeError.fix:  # the command line's advice: pytest shows the frames
+                exc.fix = "the traceback above shows where in your code; fix it there"
             if exc.__cause__ is not None:
                 exc.__cause__.__traceback__ = _outside(exc.__cause__.__traceback__)
             raise exc.with_traceback(None) from exc.__cause__  # starts here: hidden

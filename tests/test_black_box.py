@@ -288,3 +288,36 @@ def test_kinks_a_step_away_and_a_tied_max_are_not_bugs_but_errors_beside_them_ar
             write_target(source.replace("FACTOR", bug).replace("EXTRA", bug))
             result = run_cli("check", "case.py", "-q")
             assert result.exit_code == code, result.stdout
+
+
+def test_in_pytest_a_forward_that_raises_is_not_told_to_add_a_command_line_option(pytester):
+    """README, *From pytest*: a check that cannot run fails the test with its one sentence
+    and the traceback already shows the user's frames; the command line's advice to add
+    --traceback (an option pytest does not have) is not given there."""
+    pytester.makepyfile("""
+        import numpy as np
+
+        def test_sensor(grad_probe):
+            grad_probe(lambda p, i: 1 / 0, lambda p, i: {"w": 2 * p["w"]}, {"w": np.ones(3)})
+        """)
+    result = pytester.runpytest("-p", "no:cacheprovider", "-p", "no:hypothesispytest", "-q")
+    result.assert_outcomes(failed=1)
+    result.stdout.fnmatch_lines(["*forward raised ZeroDivisionError: division by zero; the "
+                                 "traceback above shows where in your code*"])
+    assert "--traceback" not in result.stdout.str()
+
+
+def test_a_param_and_an_input_of_one_name_are_refused_with_what_to_do(run_cli, write_target):
+    """Every exit 2 says what is wrong and what to do (README, *Exit codes*)."""
+    write_target("""
+        import numpy as np
+        params = {"x": np.array([0.5, 1.0])}
+        inputs = {"x": np.array([2.0, 3.0])}
+        def forward(p, i): return float(np.sum(p["x"] ** 2 * i["x"]))
+        def backward(p, i): return {"x": 2 * p["x"] * i["x"]}
+    """)
+    result = run_cli("check", "case.py")
+    assert result.exit_code == 2
+    assert result.stderr.strip().splitlines()[-1] == (
+        "gradprobe: error: case.py: a param and an input share the name 'x'; rename one of "
+        "them, so that each tensor has a name of its own.")

@@ -178,7 +178,8 @@ class Workspace:
         flat_inputs = {n: as_array(v, f"input {n}") for n, v in flatten(inputs, what="inputs").items()}
         clash = sorted(set(flat_params) & set(flat_inputs))
         if clash:
-            raise TargetLoadError(f"a param and an input share the name {clash[0]!r}", value=clash)
+            raise TargetLoadError(f"a param and an input share the name {clash[0]!r}", value=clash,
+                                  fix="rename one of them, so that each tensor has a name of its own")
         self.param_names = list(flat_params)
         self._params = set(flat_params)
         self.input_names = list(flat_inputs)
