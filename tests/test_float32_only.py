@@ -70,9 +70,15 @@ SATURATING_SEEDS = [21, 1191]
 # average out (the two halves agree); 1126 and 43024 need the mean's rounding from the
 # quotients' own spread, which lies well below the rounding measured along the coordinate.
 AVERAGED_SEEDS = [8, 234, 1102, 1126, 43024]
+# A ReLU unit switched off: the loss keeps its value bit for bit on the off side, out to the
+# widest wide step and beyond the param's scale (29: a scale of 30, the side flat past 16;
+# 49110 and 49162: the flat stretch runs past the wide steps), where the windows within the
+# scale left rounding above the threshold; the side's quotients, exactly 0 at every step,
+# bound f' with the rounding the moving side shows (49040) or the target's figure at f0.
+FLAT_SIDE_SEEDS = [29, 49040, 49110, 49162]
 
 
-@pytest.mark.parametrize("seed", SMALL_SLOPE_SEEDS + SATURATING_SEEDS + AVERAGED_SEEDS)
+@pytest.mark.parametrize("seed", SMALL_SLOPE_SEEDS + SATURATING_SEEDS + AVERAGED_SEEDS + FLAT_SIDE_SEEDS)
 def test_correct_float32_code_resolved_on_its_own_rounding_passes(seed):
     o = _judged(seed)
     assert o["correct"], o["bug"]
@@ -264,38 +270,25 @@ def test_quotients_fitted_over_many_steps_fail_a_planted_error(seed, element, fa
     assert status["p0"] == "fail", status
 
 
-def test_a_coordinate_level_on_one_side_says_so():
+def test_a_coordinate_level_on_one_side_passes_on_that_side():
     """104: a ReLU unit switched off 1.7e-4 of its param from its kink (param scale 0.017), the
     analytic gradient exactly 0 there and the loss level on the off side (the unit's
-    pre-activation a (p - k), from the case's own arrays, is below 0 over the whole side):
-    left undecided (mpmath puts the tensor within a third of the threshold, the judge), with
-    a reason that says the loss kept its value on that side and names an error above the
-    threshold, never a failure."""
-    import re
-    import warnings
-
+    pre-activation a (p - k), from the case's own arrays, is below 0 over the whole side, so
+    the one-sided derivative there is exactly 0: d/du max(0, u) = 0 for u < 0, any table of
+    derivatives). Once left undecided (the windows stayed within the param's scale, where
+    rounding hid the threshold); the loss keeps its value bit for bit far beyond it, and the
+    side's quotients out there bound f' within the threshold: a pass (mpmath, through the
+    judge, puts the tensor within a third of the threshold), never a failure."""
     import numpy as np
 
-    import gradprobe
     from adversarial import make_case
-    from adversarial.case import load
 
     o = _judged(104)
     assert o["correct"] and not o["false_alarm"], o["status"]
+    assert o["status"] == {"p0": "pass"}, o["status"]
     case = make_case("float32only", 104)
     x, a, k = (np.float64(v.reshape(-1)[7]) for v in (case.params["p0"], case.inputs["a0"], case.inputs["k0"]))
     assert a * (x - k) < 0 and a > 0  # off, and off for every move to the left
-    ns = load(case)
-    with warnings.catch_warnings():
-        warnings.simplefilter("ignore")
-        report = gradprobe.probe(ns["forward"], ns["backward"], *ns["setup"](), label=case.name)
-    seven = tuple(int(i) for i in np.unravel_index(7, case.params["p0"].shape))
-    detail = next(d for d in report.tensor("p0").details if tuple(int(i) for i in d.index) == seven)
-    assert str(getattr(detail.status, "value", detail.status)) == "inconclusive"
-    said = re.search(r"kept its value at the point at every point measured on one side of it .* below "
-                     r"([0-9.eE+-]+) on it", detail.reason or "")
-    assert said, detail.reason
-    assert float(said.group(1)) > report.threshold
 
 
 def test_a_zero_start_shows_no_warning_of_gradprobe_and_no_relative_noise():

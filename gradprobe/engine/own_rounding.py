@@ -33,7 +33,10 @@ tensor (as many as the ladders re-estimate); the wide steps are judged again wit
 measured figure, with windows without extrapolation too (:func:`.wide_steps.plain_windowed`:
 rounding, not curvature, limits these quotients); those still undecided by rounding, on the
 widest steps within reach averaged over jittered pairs (:mod:`.averaged`), then on one side
-(:mod:`.one_side`), then on quotients at many steps fitted as one curve (:mod:`.fitted`).
+(:mod:`.one_side`), then on quotients at many steps fitted as one curve (:mod:`.fitted`);
+last, on a side where the loss kept its value at every step taken (:mod:`.flat_side`), with
+the rounding the moving side's row shows where nothing else was measured (a level row says
+nothing of its own rounding, :func:`_beside_flat`).
 """
 
 from __future__ import annotations
@@ -42,6 +45,7 @@ import numpy as np
 
 from .averaged import averaged_estimate, within_reach
 from .fitted import fitted_passes
+from .flat_side import flat_side_passes
 from .one_side import narrow_passes, one_sided_passes
 from .wide_steps import WIDE_FIRST, WIDE_LAST, WIDE_NOISE, WIDE_ROWS
 from .wide_step_kinks import KINK_WITHIN, kinks_within_reach
@@ -67,7 +71,7 @@ ORDER = 4  # differences of this order: they cancel the loss's change along the 
 FOURTH_AS_THIRD = 0.65  # scaled as third differences of the same roundings spread (see the note)
 
 
-def own_rounding(probe: TensorProbe, flat: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def own_rounding(probe: TensorProbe, flat: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Per coordinate ``flat[i]``: the rounding of one loss value when that coordinate alone
     moves (absolute) and the reach it was measured over (the distance of the farthest
     measured points from the point), NaN where nothing was measured; and on how many sides
@@ -76,29 +80,36 @@ def own_rounding(probe: TensorProbe, flat: np.ndarray) -> tuple[np.ndarray, np.n
     at all). Measured first at the widest
     step; where a side says nothing there but the point does (a loss that saturates on one
     side: a flat row is no measure of its rounding), again NEARER_BY times nearer, at most
-    NEARER times. JITTER times 3 calls per coordinate and try."""
+    NEARER times. JITTER times 3 calls per coordinate and try. Fourth: where the loss kept
+    its value at the point on one side at the widest step while the other side's row spoke
+    (:func:`_beside_flat`), that row's rounding, for the flat side's one-sided quotients
+    (NaN elsewhere; over the same reach)."""
     n = flat.size
     rounding, reach = np.full(n, np.nan), np.full(n, np.nan)
     todo, w = np.arange(n), _widest(probe, flat)
     level = np.zeros(n, dtype=np.int8)
+    beside = np.full(n, np.nan)
     for tries in range(NEARER + 1):
-        measured, spoke, extent, one_value = _rows_at(probe, flat[todo], w[todo])
+        measured, spoke, extent, one_value, flat_side = _rows_at(probe, flat[todo], w[todo])
         if tries == 0:
-            level = one_value
+            level, beside = one_value, flat_side
+            reach = np.where(np.isfinite(beside), extent, reach)
         done = np.isfinite(measured)
         rounding[todo[done]], reach[todo[done]] = measured[done], extent[done]
         todo = todo[~done & spoke]
         if todo.size == 0 or tries == NEARER:
             break
         w[todo] /= NEARER_BY
-    return rounding, reach, level
+    return rounding, reach, level, np.where(np.isfinite(rounding), np.nan, beside)
 
 
-def _rows_at(probe: TensorProbe, flat: np.ndarray, widest: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+def _rows_at(probe: TensorProbe, flat: np.ndarray, widest: np.ndarray
+             ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """The rounding measured from rows of JITTER losses at the point and at ``widest`` on
     either side (NaN where a row says nothing), whether the point's own row spoke, the
-    distance of the farthest measured points, and on how many sides every loss measured
-    (the point's row's half and the side's row) was f0."""
+    distance of the farthest measured points, on how many sides every loss measured
+    (the point's row's half and the side's row) was f0, and the rounding beside a flat
+    side (:func:`_beside_flat`)."""
     n = flat.size
     x = probe.x[flat]
     eps = float(np.finfo(probe.compute_dtype).eps)
@@ -123,7 +134,25 @@ def _rows_at(probe: TensorProbe, flat: np.ndarray, widest: np.ndarray) -> tuple[
     half = JITTER // 2
     right = same[:, half:JITTER].all(axis=1) & same[:, JITTER:2 * JITTER].all(axis=1)
     left = same[:, :half + 1].all(axis=1) & same[:, 2 * JITTER:].all(axis=1)
-    return rounding, spoke, widest + offsets[-1] * delta, right.astype(np.int8) + left.astype(np.int8)
+    beside = np.full(n, np.nan)
+    for j in np.flatnonzero(right ^ left).tolist():
+        beside[j] = _beside_flat(values[j].reshape(3, JITTER), where[j].reshape(3, JITTER), 2 if right[j] else 1, eps)
+    return rounding, spoke, widest + offsets[-1] * delta, right.astype(np.int8) + left.astype(np.int8), beside
+
+
+def _beside_flat(rows: np.ndarray, where: np.ndarray, other: int, eps: float) -> float:
+    """One coordinate's rounding where the loss kept its value at the point on one side (the
+    point's row's half and the side's row all f0), from row ``other`` (the far row on the
+    side that moves; NaN where it says nothing), never below the last place of any loss
+    measured. The flat side shows no rounding of its own (its losses are one value); what
+    could hide a slope there is the rounding of the same sum once the coordinate's share of
+    it changes, which the moving side's row shows at the same distance from the point, not
+    the rounding of the whole target's moves. The point's own row straddles the flat
+    stretch's end (often a kink) and is left out."""
+    figure = _measured(rows[other:other + 1], where[other:other + 1], eps)
+    if not np.isfinite(figure):
+        return np.nan
+    return max(figure, eps * float(np.max(np.abs(rows))))
 
 
 def _widest(probe: TensorProbe, flat: np.ndarray) -> np.ndarray:
@@ -195,8 +224,9 @@ def judged_on_own_rounding(probe: TensorProbe, flat: np.ndarray, judged: Judged,
         return judged
     noisy = noisy[:MEASURED]
     where = flat[noisy]
-    measured, reach, level = own_rounding(probe, where)
+    measured, reach, level, beside = own_rounding(probe, where)
     rounding = {int(k): (float(v), float(r)) for k, v, r in zip(where, measured, reach) if np.isfinite(v)}
+    flat_sides = {int(k): (float(v), float(r)) for k, v, r in zip(where, beside, reach) if np.isfinite(v)}
     if rounding:
         view = _with_own(probe, rounding)
         again = [(f, s, _renoised(p, f, rounding, probe.eps)) for f, s, p in taken]
@@ -210,6 +240,10 @@ def judged_on_own_rounding(probe: TensorProbe, flat: np.ndarray, judged: Judged,
         judged = fitted_passes(view, flat, judged, noisy, measured, reach, _widest(probe, where))
     else:
         judged = _one_side(probe, flat, judged, noisy, taken)
+    # A side where the loss kept its value, on its own quotients (passes only), with the
+    # rounding the moving side shows where nothing else was measured (see _beside_flat).
+    judged = flat_side_passes(_with_own(probe, {**rounding, **flat_sides}), flat, judged, noisy, taken,
+                              (NOISE, KINK_WITHIN))
     still = np.flatnonzero((judged.status[noisy] == INCONCLUSIVE))
     if still.size == 0:
         return judged
