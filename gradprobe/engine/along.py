@@ -37,7 +37,6 @@ from ..report.model import DirectionResult
 from .coordinates import CoordinateOutcome
 from .ladder import Estimate
 from .wide_steps import WIDE_NOISE, plain_windowed, windowed
-from .noise import SPREAD_MARGIN
 from .probe import TensorProbe
 from .widened import as_seen
 from .sampling import tensor_rng
@@ -46,7 +45,9 @@ from .verdict import SIGNIFICANCE
 STEPS = 10  # steps t, 2t, ..., 512t: the largest moves the params by their own scale
 SKEW_SAFETY = 2.0  # the asymmetry of the rounded moves is taken twice
 CLEAN = 0.25  # moves whose rounding to the grid leaves them this asymmetric at most
-NOISE_SPAN = 6  # the loss's rounding: seven points along the direction, five second differences
+NOISE_SPAN = 10  # the loss's rounding: eleven points along the direction, nine second differences
+SECOND_VARIANCE = 6.0  # a second difference of independent roundings of spread s spreads by sqrt(6) s
+ROUNDING_SPREADS = 4.0  # one loss value's rounding: this many times its spread (the largest of 400 seen: 3 to 4.3)
 NOISE_UNITS = 4.0  # a typical element moves by this many units of the type's grid between them
 MOVED_SCALES = 2.0  # the widest move: at most this many times the rms of the elements moved
 KINK_SHRINK = 0.75  # the one-sided gap shrinks to at most this share as the step halves, or a kink
@@ -124,10 +125,11 @@ def _rounding(probe: TensorProbe, d: np.ndarray, at: float) -> tuple[float, floa
     seen = [probe.along(slice(0, probe.size), at * d + k * whole, np.ones(1)) for k in range(NOISE_SPAN + 1)]
     values = np.array([v[0] for v, _ in seen], dtype=np.float64)
     predicted = np.array([p[0] for _, p in seen], dtype=np.float64)
-    second = np.abs(np.diff(values - predicted, n=2))
+    second = np.diff(values - predicted, n=2)
     if not np.all(np.isfinite(second)) or not np.any(second) or np.all(values == values[0]):
         return None
-    return SPREAD_MARGIN * float(second.max()), float(np.max(np.abs(values))), values
+    spread = float(np.sqrt(np.mean(second * second) / SECOND_VARIANCE))
+    return ROUNDING_SPREADS * spread, float(np.max(np.abs(values))), values
 
 
 def _granularity(values: np.ndarray) -> float:
@@ -186,27 +188,34 @@ def _measure(probe: TensorProbe, d: np.ndarray) -> _Seen | None:
     size = np.maximum(np.abs(f_plus), np.abs(f_minus))
     seen = [_rounding(probe, d, at) for at in (0.0, -float(steps[-1]), float(steps[-1]))]
     if all(r is not None for r in seen):  # measured at the point and at the widest steps
-        measured = [r for r in seen if r is not None]
+        at_point, below, above = (r for r in seen if r is not None)
         # The rounding is set by the sizes of the terms summed, not by the sum's: a point
         # where the loss is small (terms cancelling) shows the same absolute rounding as the
-        # others, and taken relative to its loss it would inflate the rest tenfold. So the
-        # largest rounding seen, absolute; growing with the loss beyond the largest loss
-        # measured, at that point's share of it.
-        largest = max(measured, key=lambda r: r[1])
+        # others, and taken relative to its loss it would inflate the rest tenfold. So on
+        # each side the larger rounding seen, absolute, at the point or at that side's widest
+        # step (the terms at the steps between lie between theirs); growing with the loss
+        # beyond the largest loss measured, at that point's share of it.
+        largest = max((at_point, below, above), key=lambda r: r[1])
         share = largest[0] / max(largest[1], 1e-300)
-        every = np.concatenate([values, [probe.f0], *(r[2] for r in measured)])
-        noise = np.maximum(np.maximum(max(r[0] for r in measured), share * np.maximum(size, abs(probe.f0))),
-                           _granularity(every))
+        every = np.concatenate([values, [probe.f0], *(r[2] for r in (at_point, below, above))])
+        grain = _granularity(every)
+        point_noise = max(at_point[0], share * abs(probe.f0), grain)
+        plus_noise, minus_noise = (
+            np.maximum(np.maximum(max(at_point[0], side[0]), share * np.maximum(np.abs(f), abs(probe.f0))), grain)
+            for side, f in ((above, f_plus), (below, f_minus)))
+        noise = 0.5 * (plus_noise + minus_noise)  # a central quotient's: (n+ + n-) / (2 t)
+        gap_noise = (plus_noise + minus_noise + 2.0 * point_noise) / steps  # right - left's
     else:  # no measure: the probe's model of the type's rounding
         noise = probe.loss_noise(f_plus, f_minus)
+        gap_noise = 2.0 * noise / steps
     central = (f_plus - f_minus - p_plus - p_minus) / (2.0 * steps)
     right = (f_plus - probe.f0 - p_plus) / steps
     left = (probe.f0 - f_minus - p_minus) / steps
-    if _kinked(np.abs(right - left), 2.0 * noise / steps):
+    if _kinked(np.abs(right - left), gap_noise):
         return None  # a kink along the direction: its slopes say nothing of the gradient
     column = lambda v: np.asarray(v, dtype=np.float64).reshape(STEPS, 1)  # noqa: E731
     rows = (column(central), column(steps), column(noise / steps), column(right - left),
-            column(2.0 * noise / steps), column(asymmetry), np.array([top]))
+            column(gap_noise), column(asymmetry), np.array([top]))
     est = Estimate.better(windowed(*rows), plain_windowed(*rows))
     return _Seen(float(est.value[0]), float(est.error[0]), float(probe.a @ d), most)
 
