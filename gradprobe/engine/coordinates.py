@@ -33,6 +33,7 @@ from .own_rounding import judged_on_own_rounding
 from .loose_passes import loose_note, tightened
 from .promote import coarse_note, coarse_passes
 from .sixteen import measured_passes
+from .steep_noise import on_measured_rounding
 from .richardson import first_steps, joined, rows_of, settled, two_rows_settle
 from ..common.roundoff import is_narrow
 from .ladder_verdicts import ladder_verdicts
@@ -132,6 +133,7 @@ def _central(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
         todo, start = todo[~on_levels], start[~on_levels]
     if todo.size:
         judged = judged.merged(todo, ladder_verdicts(probe, flat[todo], start, taken=taken))
+    judged = on_measured_rounding(probe, flat, judged, taken)  # float64: the rounding seen along it
     judged = unabsorbed(probe, flat, _widened(probe, flat, judged, taken), first)
     return flat_through_sixteen_bits(probe, flat, judged)
 

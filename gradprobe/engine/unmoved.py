@@ -31,6 +31,7 @@ import numpy as np
 
 from ..common.status import FAIL, PASS
 from .probe import FLOOR_FRACTION, TensorProbe
+from .steep_noise import chain_estimate
 from .verdict import SIGNIFICANCE
 from .widened import root_mean_square
 
@@ -69,6 +70,14 @@ def moved_at_own_scale(
     slope, bound = _slopes(probe, flat[todo], size, unit, (first_up, first_down,
                            first.h_plus[moved], first.h_minus[moved]))
     found = np.isfinite(slope)
+    # A slope its ladder shows but whose bound (rounding taken as UNITS units of eps |f|)
+    # does not resolve: the chain of halving steps with the rounding measured along it
+    # (steep_noise.chain_estimate), where that bounds it more tightly.
+    weak = np.flatnonzero(found & ~(np.abs(slope) > SIGNIFICANCE * bound))
+    if weak.size:
+        chain = chain_estimate(probe, flat[todo[weak]], size[weak])
+        better = np.isfinite(chain.error) & (chain.error < bound[weak])
+        slope[weak[better]], bound[weak[better]] = chain.value[better], chain.error[better]
     if not found.any():
         return numeric, error, status, scale
     k = todo[found]
