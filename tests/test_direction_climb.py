@@ -23,7 +23,8 @@ from large_models import Demand, Sensors  # noqa: E402
 
 from gradprobe import probe  # noqa: E402
 from gradprobe.common.tensors import Workspace  # noqa: E402
-from gradprobe.engine.directions import check_direction, unit_direction  # noqa: E402
+from gradprobe.engine.directions import check_direction
+from gradprobe.engine.drawn import unit_direction  # noqa: E402
 from gradprobe.engine.evaluate import LossFunction  # noqa: E402
 from gradprobe.engine.evaluator import Evaluator  # noqa: E402
 from gradprobe.engine.probe import TensorProbe  # noqa: E402

@@ -15,7 +15,8 @@ import pytest
 from probe_kit import make_probe
 
 from gradprobe import probe
-from gradprobe.engine.directions import check_direction, unit_direction
+from gradprobe.engine.directions import check_direction
+from gradprobe.engine.drawn import unit_direction
 
 RNG = np.random.default_rng(11)
 P = RNG.normal(scale=0.01, size=(3, 4))

@@ -23,7 +23,8 @@ import pytest
 from adversarial import judge
 from probe_kit import make_probe
 
-from gradprobe.engine.directions import check_direction, unit_direction
+from gradprobe.engine.directions import check_direction
+from gradprobe.engine.drawn import unit_direction
 from gradprobe.engine.locate import locate
 from gradprobe.engine.move_noise import moved_loss_scale
 

@@ -17,7 +17,7 @@ import numpy as np
 from framework_kit import need
 
 from gradprobe.common.tensors import Workspace
-from gradprobe.engine.directions import unit_direction
+from gradprobe.engine.drawn import unit_direction
 from gradprobe.engine.evaluate import LossFunction
 from gradprobe.engine.evaluator import Evaluator
 from gradprobe.engine.gradients import validate

@@ -22,13 +22,8 @@ sys.path.insert(0, str(Path(__file__).parent))
 from probe_kit import make_probe  # noqa: E402
 
 from gradprobe.common.tensors import SAME_BITS_CHUNK, Workspace, same_bits  # noqa: E402
-from gradprobe.engine.directions import (  # noqa: E402
-    DRAW_BLOCK,
-    LAZY_DIRECTION,
-    Direction,
-    check_direction,
-    unit_direction,
-)
+from gradprobe.engine.directions import check_direction  # noqa: E402
+from gradprobe.engine.drawn import DRAW_BLOCK, LAZY_DIRECTION, Direction, unit_direction  # noqa: E402
 from gradprobe.engine.evaluate import LossFunction, Perturbation  # noqa: E402
 from gradprobe.engine.evaluator import Evaluator  # noqa: E402
 

@@ -115,7 +115,7 @@ def test_the_narrow_spread_is_the_measurement_written_out():
     # The jitter, on float64 copies: steps of 4 float32 units at the point's random signs.
     from gradprobe.engine.sampling import tensor_rng
     from gradprobe.engine.narrow import PROPAGATION_SAMPLES, PROPAGATION_UNITS
-    from gradprobe.engine.point import JITTER_SPAN, JITTER_ULPS
+    from gradprobe.engine.jitter_steps import JITTER_SPAN, JITTER_ULPS
 
     x, xi32 = params["w"].numpy(), inputs["x"].numpy()  # both differentiated: both move
 

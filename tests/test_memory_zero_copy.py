@@ -17,7 +17,7 @@ from framework_kit import need
 
 from gradprobe.api import probe
 from gradprobe.common.tensors import ALIGNMENT, Workspace
-from gradprobe.engine.directions import Direction, unit_direction
+from gradprobe.engine.drawn import Direction, unit_direction
 from gradprobe.engine.evaluate import LossFunction
 from gradprobe.engine.evaluator import Evaluator
 from gradprobe.engine.point import prepare

@@ -29,7 +29,7 @@ from .refine import Taken, climb
 from .staircase import flat_through_sixteen_bits
 from .steps import SETTLE_FRACTION, gap_suspects, start_steps, steps_down
 from .wide_steps import wide_estimate
-from .own_rounding import judged_on_own_rounding
+from .own_judged import judged_on_own_rounding
 from .loose_passes import loose_note, tightened
 from .promote import coarse_note, coarse_passes
 from .sixteen import measured_passes

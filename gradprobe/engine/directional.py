@@ -18,7 +18,8 @@ import numpy as np
 from ..common.classes import dataclass
 from ..report.model import DirectionResult
 from .directions import DIRECTION_SIGNIFICANCE as SIGNIFICANCE
-from .directions import DirectionCheck, Vector, check_direction, unit_direction
+from .directions import DirectionCheck, check_direction
+from .drawn import Vector, unit_direction
 from .locate import locate
 from .move_noise import moved_loss_scale
 from .probe import TensorProbe

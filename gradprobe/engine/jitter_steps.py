@@ -1,12 +1,24 @@
-"""The moves and differences point.Point's jitter is measured with, each built in one array in
-the tensor's own type where that is exact: the same numbers as written out on float64 copies,
-without their full-size temporaries."""
+"""How backward's rounding varies near a point (:func:`measured_jitter`, what point.Point's
+jitter and spreads read), and the moves and differences it is measured with, each built in
+one array in the tensor's own type where that is exact: the same numbers as written out on
+float64 copies, without their full-size temporaries."""
 
 from __future__ import annotations
 
+from collections.abc import Callable
+from typing import Any
+
 import numpy as np
 
-from .sampling import random_negative
+from ..common.errors import ProbeError
+from ..common.tensors import Handed, Workspace
+from .domain import quiet
+from .gradients import validate
+from .preflight import call_backward
+from .sampling import random_negative, tensor_rng
+
+JITTER_ULPS = 4.0  # units in the last place every checked tensor moves to measure the jitter
+JITTER_SPAN = 5  # backward calls: points x + d ... x + 5d, three second differences
 
 
 def jitter_step(x: np.ndarray, ulps: float, rng: np.random.Generator, grid: np.dtype | None) -> np.ndarray:
@@ -145,3 +157,46 @@ def moved_point(x: np.ndarray, k: int, ulps: float, rng: np.random.Generator,
     np.multiply(moved, k, out=moved, dtype=moved.dtype)
     moved += x
     return moved
+
+
+def measured_jitter(backward: Callable[..., Any], grad_output: Any, ws: Workspace, base: dict[str, np.ndarray],
+                    seed: int, grid: np.dtype | None = None, compact: bool = False,
+                    keep: set[str] | None = None, ulps: float = JITTER_ULPS) -> dict[str, np.ndarray]:
+    """The largest of |g(x + (k+2)d) - 2 g(x + (k+1)d) + g(x + kd)|, k = 1..JITTER_SPAN-2:
+    second differences cancel how the gradient really changes along d and keep how its
+    rounding varies from point to point; the points lie on one side of a kink at the
+    point, so a kink's jump is not taken for fuzz. JITTER_SPAN backward calls (the run's
+    ``seed`` draws the signs). Every tensor of ``base`` moves; only those in ``keep``
+    (default: all) are measured."""
+    if not base:
+        return {}
+    names = [name for name in base if keep is None or name in keep]
+    fuzz: dict[str, np.ndarray | Narrowed] = {}
+    before: list[dict[str, np.ndarray]] = []  # the last two points' gradients only
+    absent: set[str] = set()  # tensors some point gave no usable gradient for
+    try:
+        for k in range(1, JITTER_SPAN + 1):
+            # x + k d, one array each; the steps are drawn again for every point
+            moved = {n: moved_point(ws.owners[n], k, ulps, tensor_rng(seed, n, "jitter"), grid)
+                     for n in base}
+            with quiet():  # a moved point: the code's warnings there are not shown
+                raw = call_backward(backward, ws.replacing(moved), grad_output, scratch=False)
+            del moved
+            fresh = isinstance(raw, Handed) and raw.fresh
+            # Narrow gradients in their own type (exact), read before the code runs again;
+            # the differences in float64, a block at a time.
+            g = validate(raw, ws, own_type=True, borrowed=True).values
+            del raw
+            absent |= {name for name in base if name not in g}
+            if len(before) == 2:
+                for name in names:
+                    if name not in absent:
+                        fuzz[name] = largest_second_difference(fuzz.get(name), g[name], before[1][name],
+                                                               before[0][name], compact)
+            before = before[-1:]  # the oldest is let go of before the newest is kept
+            if k < JITTER_SPAN:  # a later difference reads it: a private copy unless fresh
+                before.append({n: g[n] if fresh else g[n].copy() for n in names if n in g})
+            del g
+    except ProbeError:
+        return {}
+    return {name: v for name, v in fuzz.items() if name not in absent}  # type: ignore[misc]  # compact: Narrowed

@@ -21,7 +21,8 @@ import numpy as np
 
 from ..common.classes import dataclass
 from .directions import DIRECTION_SIGNIFICANCE as SIGNIFICANCE
-from .directions import Vector, check_direction
+from .directions import check_direction
+from .drawn import Vector
 from .probe import TensorProbe
 
 LEAF = 2

@@ -16,10 +16,8 @@ from typing import Any
 import numpy as np
 
 from ..common.classes import dataclass
-from ..common.errors import ProbeError
 from ..common.heap import own_mappings, release_heap
-from ..common.tensors import Handed, Workspace
-from .domain import quiet
+from ..common.tensors import Workspace
 from .evaluate import LossFunction
 from .evaluator import Backend, Evaluator
 from .gradients import Gradients, validate
@@ -32,12 +30,10 @@ from .widened import Widened, root_mean_square
 from .promote import agreement
 from .sixteen import coarse
 from ..common.roundoff import is_narrow, rounding_units
-from .jitter_steps import Narrowed, add_into, largest_second_difference, moved_point, widened
+from .jitter_steps import JITTER_ULPS, Narrowed, add_into, measured_jitter, widened
 from .sampling import tensor_rng
 
 
-JITTER_ULPS = 4.0  # units in the last place every checked tensor moves to measure the jitter
-JITTER_SPAN = 5  # backward calls: points x + d ... x + 5d, three second differences
 # 16-bit code on its own arithmetic: again at 3 and 2 units (a ripple whose period divides one
 # spacing shows at another); not wider (every element moves: a smooth gradient's second
 # differences grow), nor below a unit (the nearest point rounds back onto the point).
@@ -170,43 +166,10 @@ class Point:
     def _measured_jitter(self, ws: Workspace, base: dict[str, np.ndarray],
                          grid: np.dtype | None = None, compact: bool = False,
                          keep: set[str] | None = None, ulps: float = JITTER_ULPS) -> dict[str, np.ndarray]:
-        """The largest of |g(x + (k+2)d) - 2 g(x + (k+1)d) + g(x + kd)|, k = 1..JITTER_SPAN-2:
-        second differences cancel how the gradient really changes along d and keep how its
-        rounding varies from point to point; the points lie on one side of a kink at the
-        point, so a kink's jump is not taken for fuzz. JITTER_SPAN backward calls. Every
-        tensor of ``base`` moves; only those in ``keep`` (default: all) are measured."""
-        if self.backward is None or not base:
+        """How backward's rounding varies at this point (:func:`.jitter_steps.measured_jitter`)."""
+        if self.backward is None:
             return {}
-        names = [name for name in base if keep is None or name in keep]
-        fuzz: dict[str, np.ndarray | Narrowed] = {}
-        before: list[dict[str, np.ndarray]] = []  # the last two points' gradients only
-        absent: set[str] = set()  # tensors some point gave no usable gradient for
-        try:
-            for k in range(1, JITTER_SPAN + 1):
-                # x + k d, one array each; the steps are drawn again for every point
-                moved = {n: moved_point(ws.owners[n], k, ulps, tensor_rng(self.seed, n, "jitter"), grid)
-                         for n in base}
-                with quiet():  # a moved point: the code's warnings there are not shown
-                    raw = call_backward(self.backward, ws.replacing(moved), self.info.grad_output, scratch=False)
-                del moved
-                fresh = isinstance(raw, Handed) and raw.fresh
-                # Narrow gradients in their own type (exact), read before the code runs again;
-                # the differences in float64, a block at a time.
-                g = validate(raw, ws, own_type=True, borrowed=True).values
-                del raw
-                absent |= {name for name in base if name not in g}
-                if len(before) == 2:
-                    for name in names:
-                        if name not in absent:
-                            fuzz[name] = largest_second_difference(fuzz.get(name), g[name], before[1][name],
-                                                                   before[0][name], compact)
-                before = before[-1:]  # the oldest is let go of before the newest is kept
-                if k < JITTER_SPAN:  # a later difference reads it: a private copy unless fresh
-                    before.append({n: g[n] if fresh else g[n].copy() for n in names if n in g})
-                del g
-        except ProbeError:
-            return {}
-        return {name: v for name, v in fuzz.items() if name not in absent}  # type: ignore[misc]  # compact: Narrowed
+        return measured_jitter(self.backward, self.info.grad_output, ws, base, self.seed, grid, compact, keep, ulps)
 
     def probe(self, name: str, threshold: float) -> TensorProbe:
         n = self.numerics

@@ -37,7 +37,7 @@ def _fields(p: Pairs) -> tuple[np.ndarray, ...]:
 
 
 class DrawnAgain(Protocol):
-    """A vector kept as what draws it, read a block at a time (:class:`.directions.Direction`)."""
+    """A vector kept as what draws it, read a block at a time (:class:`.drawn.Direction`)."""
 
     @property
     def size(self) -> int: ...
@@ -118,8 +118,7 @@ class TensorProbe:
         # |f| can be far below the size of the terms that round (a sum of signed terms):
         # the loss scale, when known, is the larger of the two.
         self.loss_scale = max(abs(f0), loss_scale or 0.0)
-        # The same when every element of the tensor moves at once (a direction), where
-        # measured (directional.directional, move_noise.moved_loss_scale); 0 until then.
+        # The same for a move of every element at once, where measured (move_noise); else 0.
         self.moved_scale = 0.0
         # Narrow code checked on its float64 run: the same tensor probed on the narrow code
         # itself, with the narrow gradient it really returns.
