@@ -24,7 +24,7 @@ from .ladder import Estimate
 from .probe import Pairs, TensorProbe
 from .reconcile import narrow_reconciled, own_code_reconciled, unabsorbed, unfuzzed, zero_at_own_scale
 from .unmoved import moved_at_own_scale
-from .grounds import judged_ladder
+from .grounds import judged_ladder, rounding_only
 from .refine import Taken, climb
 from .staircase import flat_through_sixteen_bits
 from .steps import SETTLE_FRACTION, gap_suspects, start_steps, steps_down
@@ -134,6 +134,7 @@ def _central(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
     if todo.size:
         judged = judged.merged(todo, ladder_verdicts(probe, flat[todo], start, taken=taken))
     judged = on_measured_rounding(probe, flat, judged, taken)  # float64: the rounding seen along it
+    judged = rounding_only(probe, flat, judged, taken)  # a loss moved by rounding alone, everywhere
     judged = unabsorbed(probe, flat, _widened(probe, flat, judged, taken), first)
     return flat_through_sixteen_bits(probe, flat, judged)
 
