@@ -150,13 +150,32 @@ def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, tiny: Tin
         own = np.where(settled_left, crossed_left, crossed_right)[lopsided]
         withdrawn = lopsided[(status[lopsided] == FAIL) & own]  # the settled side crossed kinks too
         status[withdrawn] = INCONCLUSIVE
+        # The settled side's extrapolation is shifted by (A - B) d where f'' jumps at a distance
+        # d within the smallest step on that side, which its quotients do not show: a failure
+        # must stand that too (kinks-69119: Huber residuals 5e-4 from their corners).
+        cornered_out = _corner_withheld(probe, flat, ladder, lopsided, side, status)
         for k in lopsided.tolist():
-            reasons[k] = (CROWDED if k in withdrawn else NEAR_KINK) if status[k] == INCONCLUSIVE else None
+            reasons[k] = ((CROWDED if k in withdrawn else CORNER_NEAR if k in cornered_out else NEAR_KINK)
+                          if status[k] == INCONCLUSIVE else None)
     which = np.flatnonzero(differ)
     if which.size:
         assert tiny is not None and tiny.right.size == which.size
         _judge_sides(probe, flat, ladder.pick(which), tiny, which, status, value, error, reasons)
     return Judged(status, Estimate(value, error), tuple(reasons), noisy)
+
+
+def _corner_withheld(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, which: np.ndarray, side: Estimate,
+                     status: np.ndarray) -> set[int]:
+    """Positions ``which`` failed on one side's estimate ``side`` whose failure does not stand
+    against that estimate's bound widened by the ladder's corner reach (:func:`.refine.corner_reach`):
+    undecided in ``status``; their positions returned."""
+    if ladder.corner_reach is None:
+        return set()
+    a = probe.a[flat[which]]
+    reach = Estimate(side.value, side.error + np.nan_to_num(ladder.corner_reach[which], nan=np.inf))
+    out = which[(status[which] == FAIL) & (verdicts(probe, a, reach, probe.tolerance(flat[which], side.value)) != FAIL)]
+    status[out] = INCONCLUSIVE
+    return set(out.tolist())
 
 
 def _central_where_sides_agree(ladder: Ladder) -> Estimate:
