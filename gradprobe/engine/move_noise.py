@@ -37,16 +37,17 @@ class UlpMoves:
     """ULPS units in the last place of each element of ``x`` (on the grid of ``dtype`` where
     coarser), with random signs: drawn again, bit for bit, a block at a time where read."""
 
-    def __init__(self, x: np.ndarray, dtype: np.dtype, state: Mapping[str, Any]) -> None:
-        self._x, self._dtype, self._state = x, dtype, state
+    def __init__(self, x: np.ndarray, dtype: np.dtype, state: Mapping[str, Any], kind: type) -> None:
+        self._x, self._dtype, self._state, self._kind = x, dtype, state, kind
 
     @property
     def size(self) -> int:
         return int(self._x.size)
 
     def blocks(self, step: int) -> Iterator[np.ndarray]:
-        rng = np.random.default_rng()
-        rng.bit_generator.state = self._state
+        bits = self._kind()
+        bits.state = self._state
+        rng = np.random.Generator(bits)
         for lo in range(0, self.size, step):
             x = self._x[lo:lo + step]
             spacing = np.spacing(np.abs(x.astype(self._dtype))).astype(np.float64)
@@ -61,8 +62,7 @@ def moved_loss_scale(probe: TensorProbe, rng: np.random.Generator) -> float:
     tensor with no elements)."""
     if probe.size == 0:
         return 0.0
-    moves = UlpMoves(probe.x, probe.compute_dtype, rng.bit_generator.state)
-    rng.random()  # the state read above is not drawn again by later users of ``rng``
+    moves = UlpMoves(probe.x, probe.compute_dtype, rng.bit_generator.state, type(rng.bit_generator))
     try:
         values, _ = probe.along(slice(0, probe.size), moves, np.arange(1.0, SPAN + 1.0))
     except (UserCodeError, BadOutputError):
