@@ -13,11 +13,9 @@ import pytest
 
 
 def _judged(category: str, seed: int) -> dict:
-    from adversarial import judge
+    from adversarial import judged_cleanly
 
-    o = judge(category, seed)
-    assert o["unverified"] is None and o["crash"] is None, o
-    return o
+    return judged_cleanly(category, seed)
 
 
 # steep-9039: a u**7 term beside an exp term 1e13 times larger, its gradient doubled. The

@@ -66,12 +66,9 @@ def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, tiny: Tin
     # smallest step it may be off by the jump times that step: a failure on the mean must
     # stand that too (a pass on it, as before, takes the corner at the point).
     by_corner = corner.error < central.error
-    if ladder.corner_reach is not None:
-        reach = Estimate(mid, corner.error + ladder.corner_reach)
-        withheld = by_corner & (status == FAIL) & (verdicts(probe, a, reach, probe.tolerance(flat, mid)) != FAIL)
-        status[withheld] = INCONCLUSIVE
-    else:
-        withheld = np.zeros(flat.size, dtype=bool)
+    on_mean = np.flatnonzero(by_corner)
+    withheld = np.zeros(flat.size, dtype=bool)
+    withheld[list(_corner_withheld(probe, flat, ladder, on_mean, corner.pick(on_mean), status))] = True
     # Sides too uncertain to be told apart, yet further apart than the central bound: at a
     # kink the central quotients are the sides' mean, whatever their tableau's bound says,
     # so a value the kink could explain is not a bug on this evidence (a second look off
@@ -166,9 +163,9 @@ def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, tiny: Tin
 
 def _corner_withheld(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, which: np.ndarray, side: Estimate,
                      status: np.ndarray) -> set[int]:
-    """Positions ``which`` failed on one side's estimate ``side`` whose failure does not stand
-    against that estimate's bound widened by the ladder's corner reach (:func:`.refine.corner_reach`):
-    undecided in ``status``; their positions returned."""
+    """Positions ``which`` failed on ``side`` (one side's estimate, or the sides' mean) whose
+    failure does not stand against that estimate's bound widened by the ladder's corner reach
+    (:func:`.refine.corner_reach`): undecided in ``status``; their positions returned."""
     if ladder.corner_reach is None:
         return set()
     a = probe.a[flat[which]]

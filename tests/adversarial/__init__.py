@@ -11,4 +11,13 @@ from .bugs import make_case
 from .generate import ALL_CATEGORIES, CATEGORIES
 from .run import judge
 
-__all__ = ["ALL_CATEGORIES", "CATEGORIES", "judge", "make_case"]
+
+def judged_cleanly(category: str, seed: int, /, **options):
+    """:func:`judge` of a case that its reference verified and whose check did not crash
+    (asserted), for tests about one case's verdicts."""
+    o = judge(category, seed, **options)
+    assert o["unverified"] is None and o["crash"] is None, o
+    return o
+
+
+__all__ = ["ALL_CATEGORIES", "CATEGORIES", "judge", "judged_cleanly", "make_case"]
