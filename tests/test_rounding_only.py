@@ -24,3 +24,56 @@ def test_a_correct_slope_read_off_a_loss_moved_by_rounding_alone_is_not_failed()
     assert not outcome["false_alarm"], outcome["status"]
     assert outcome["status"]["p0"] != "fail"
     assert outcome["status"]["p1"] == "fail" and outcome["found"]  # the planted bug still fails
+
+
+def test_sines_a_few_roundings_high_beside_huge_losses_are_not_failed():
+    """steep-72373 (a sine of amplitude 0.32, six values' rounding, beside exp terms at 3e13)
+    and steep-73224 (amplitude about two values' rounding beside 4e12): the loss moves by no
+    more at steps of 1e-4 or 3e-2 than at 1e-6, while the correct slopes (7e5, 2e3) predict
+    1,400 and 7,000 roundings at the widest step. Reference: the generator's mpmath judge."""
+    for seed in (72373, 73224):
+        outcome = judge("steep", seed)
+        assert not outcome["false_alarm"], (seed, outcome["status"])
+
+
+def _huge_loss_beside(term, slope):
+    """A loss of 4e12 (last place 2**-10) plus ``term`` of one param, with ``slope`` as its
+    gradient."""
+    import numpy as np
+
+    base = np.array([4.0e12, 1.5e12])
+
+    def forward(p, i):
+        return float(np.sum(base * np.exp(i["scale"] * p["level"])) + term(float(p["x"][0])))
+
+    def backward(p, i):
+        return {"level": base * i["scale"] * np.exp(i["scale"] * p["level"]),
+                "x": np.array([slope(float(p["x"][0]))])}
+
+    params = {"level": np.array([0.0, 0.0]), "x": np.array([0.3])}
+    return forward, backward, params, {"scale": np.array([1e-3, 2e-3])}
+
+
+def test_a_wrong_slope_that_moves_the_loss_in_proportion_to_the_step_still_fails():
+    """50 x beside the huge loss, backward 60 (20% off; d/dx (c x) = c, a table's first entry):
+    the loss moves by 50 h, in proportion to the step and far beyond its rounding at the
+    ladder's steps, so the growth shows and the failure stands."""
+    from gradprobe import probe
+
+    forward, backward, params, inputs = _huge_loss_beside(lambda x: 50.0 * x, lambda x: 60.0)
+    assert probe(forward, backward, params, inputs).tensor("x").status.value == "fail"
+
+
+def test_a_steep_sine_at_the_rounding_level_is_not_failed():
+    """A sin(a x) with A = 2e-3 (two places of the loss's last digit) and a = 1e7 beside the
+    huge loss, backward A a cos(a x) (d/dx sin(a x) = a cos(a x), a table's entry): no step
+    rounding allows resolves the sine, and the loss's moves stay bounded however far the steps
+    go, so the correct slope (about 2e4) must not fail."""
+    import math
+
+    from gradprobe import probe
+
+    amplitude, rate = 2e-3, 1e7
+    forward, backward, params, inputs = _huge_loss_beside(
+        lambda x: amplitude * math.sin(rate * x), lambda x: amplitude * rate * math.cos(rate * x))
+    assert probe(forward, backward, params, inputs).tensor("x").status.value != "fail"

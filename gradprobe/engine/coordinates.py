@@ -24,7 +24,8 @@ from .ladder import Estimate
 from .probe import Pairs, TensorProbe
 from .reconcile import narrow_reconciled, own_code_reconciled, unabsorbed, unfuzzed, zero_at_own_scale
 from .unmoved import moved_at_own_scale
-from .grounds import judged_ladder, rounding_only
+from .bounded_moves import rounding_only
+from .grounds import judged_ladder
 from .refine import Taken, climb
 from .staircase import flat_through_sixteen_bits
 from .steps import SETTLE_FRACTION, gap_suspects, start_steps, steps_down

@@ -22,11 +22,12 @@ only failures whose assumption the evidence contradicts; passes are never touche
   on it must also stand against the distance to the smallest step's quotient plus the last
   change (the tail of a first-order series halving per row, what corners crossed within the
   steps leave).
-- :func:`rounding_only`: a coordinate that moved the loss only at its rounding level at every
-  step taken, against a slope that predicts far more, left the loss's linear range.
 - :func:`drifting_sides`: one-sided estimates on steps growing to the params' scale whose
   quotients move like c/h (a fixed change of the loss at every step: a pole or kink closer
   than the steps, its term dropping out) say nothing of the slope at the point.
+
+(A coordinate that moved the loss only at its rounding level at every step taken is
+:mod:`.bounded_moves`'s.)
 """
 
 from __future__ import annotations
@@ -265,36 +266,3 @@ def drifting_sides(probe: TensorProbe, flat: np.ndarray, before: Judged, apart: 
     again = judge(probe, flat[which], voided(left, left_drift), voided(right, right_drift))
     gone = np.flatnonzero(again.status != apart.status[which])
     return apart.merged(which[gone], again.pick(gone)) if gone.size else apart
-
-
-def rounding_only(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken: list[Taken]) -> Judged:
-    """``judged`` with float64 failures undecided where, at every pair ``taken`` on the
-    coordinate, the loss moved on each side by no more than two values' rounding, though not
-    by exactly nothing at all of them, while backward's slope predicts a change SIGNIFICANCE
-    times that at the widest step. The coordinate then reaches the loss only at its rounding
-    level: a term bounded below the rounding (a sine of a steep argument beside a loss of
-    4.9e15, whose last place is 1) changes by that little however far the steps go, and a
-    small quotient there says nothing of the slope at the point, whose linear range the
-    steps left (steep-65101: a correct slope of 3.7e5 read as 0 +- 9.9e3). A loss that never
-    changed at all keeps its reading as a zero slope."""
-    which = np.flatnonzero(judged.status == FAIL)
-    if which.size == 0 or not taken or is_narrow(probe.compute_dtype):
-        return judged
-    coords = np.concatenate([c for c, _, _ in taken])
-    up = np.concatenate([np.abs(p.f_plus - probe.f0) for _, _, p in taken])
-    down = np.concatenate([np.abs(probe.f0 - p.f_minus) for _, _, p in taken])
-    noise = np.concatenate([np.broadcast_to(p.noise, p.f_plus.shape) for _, _, p in taken])
-    h = np.concatenate([np.maximum(p.h_plus, p.h_minus) for _, _, p in taken])
-    doubted = []
-    for k in which:
-        mine = coords == flat[k]
-        if not mine.any():
-            continue
-        u, d, e, step = up[mine], down[mine], noise[mine], h[mine]
-        with np.errstate(invalid="ignore", over="ignore"):
-            within = bool(np.all((u <= 2.0 * e) & (d <= 2.0 * e)))
-            moved = bool(np.any((u > 0) | (d > 0)))
-            predicted = abs(float(probe.a[flat[k]])) * float(np.max(step)) > SIGNIFICANCE * 2.0 * float(np.max(e))
-        if within and moved and predicted:
-            doubted.append(k)
-    return _undecided(judged, np.array(doubted, dtype=np.int64))

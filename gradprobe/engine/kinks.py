@@ -58,10 +58,23 @@ def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, tiny: Tin
     differ, tol_sides = _sides_apart(probe, flat, ladder)
     # Smooth, or a corner where only f'' jumps: the sides agree, and their mean is an
     # estimate of f' that the central tableau (which assumes even powers of h) may not reach.
-    corner = Estimate(mid, np.maximum(left.error, right.error) + 0.5 * np.abs(right.value - left.value))
+    # Neither that mean nor the central quotients (the sides' mean at every row) is known
+    # closer than the sides' first-order extrapolations agree (:mod:`.sides_gap`).
+    apart = ladder.sides_apart_by if ladder.sides_apart_by is not None else np.zeros(a.shape)
+    corner = Estimate(mid, np.maximum(np.maximum(left.error, right.error) + 0.5 * np.abs(right.value - left.value),
+                                      apart))
     central = _central_where_sides_agree(ladder)
     best = Estimate.better(central, corner)
     status = verdicts(probe, a, best, probe.tolerance(flat, best.value))
+    # A failure on the central tableau where the sides' gap took both signs (kinks or corners
+    # crossed within the steps, :mod:`.sides_gap`) does not stand on it: its smooth model
+    # does not hold there. The sides' mean judges it, as where the sides were not steady.
+    turned = ladder.gap_turned if ladder.gap_turned is not None else np.zeros(a.shape, dtype=bool)
+    void = (status == FAIL) & turned & (central.error <= corner.error)
+    if void.any():
+        central = Estimate(central.value, np.where(void, np.inf, central.error))
+        best = Estimate.better(central, corner)
+        status = verdicts(probe, a, best, probe.tolerance(flat, best.value))
     # The sides' mean is f' where f'' jumps at the point; where it jumps anywhere within the
     # smallest step it may be off by the jump times that step: a failure on the mean must
     # stand that too (a pass on it, as before, takes the corner at the point).
@@ -100,9 +113,10 @@ def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, tiny: Tin
     status[unresolved & seen] = KINK
     status[unresolved & ~seen & between(a, left, right, tol_a) & near_a_side(a, left, right, tol_a)] = INCONCLUSIVE
     # The sides' mean stands for f' where only f'' jumps at the point; where either side's
-    # quotients crossed kinks among the steps, more can lie closer than any step, and a
-    # failure judged by that mean is not evidence of a bug.
-    crowded = (status == FAIL) & by_corner & (crossed_left | crossed_right)
+    # quotients crossed kinks among the steps (or the gap between them took both signs),
+    # more can lie closer than any step, and a failure judged by that mean is not evidence
+    # of a bug.
+    crowded = (status == FAIL) & by_corner & (crossed_left | crossed_right | turned)
     status[crowded] = INCONCLUSIVE
     noisy = ladder.noise_share > 0.5
     reasons: list[str | None] = [
@@ -177,11 +191,17 @@ def _corner_withheld(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, which
 
 def _central_where_sides_agree(ladder: Ladder) -> Estimate:
     """The central estimate, with no bound where the one-sided quotients were not seen to
-    agree the way a smooth loss's do (:func:`refine.sides_steady`)."""
+    agree the way a smooth loss's do (:func:`refine.sides_steady`), and a bound at least as
+    wide as the sides' first-order extrapolations lie apart (:mod:`.sides_gap`): the central
+    quotients are the sides' mean, and where kinks or corners within the steps part the
+    sides' extrapolations, f' may lie at either of them (kinks-71026)."""
     central = ladder.central
+    error = central.error
+    if ladder.sides_apart_by is not None:
+        error = np.maximum(error, ladder.sides_apart_by)
     if ladder.sides_steady is None:
-        return central
-    return Estimate(central.value, np.where(ladder.sides_steady, central.error, np.inf))
+        return Estimate(central.value, error)
+    return Estimate(central.value, np.where(ladder.sides_steady, error, np.inf))
 
 
 def _confirms(central: Estimate, side: Estimate) -> np.ndarray:

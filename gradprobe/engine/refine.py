@@ -16,6 +16,7 @@ import numpy as np
 from ..common.classes import dataclass
 from .ladder import NOISE_UNITS, Estimate, column_rates, drifting, tableau
 from .probe import Pairs, TensorProbe
+from .sides_gap import extrapolations_apart, gap_turns
 
 RATIO = 2.0
 ONE_SIDE_STILL = 0.125  # a side that moves under 1/8 of the other's move, as the step halves, is still
@@ -43,6 +44,10 @@ class Ladder:
     # point but anywhere within the smallest step: |f''(right) - f''(left)| times that step,
     # the jump read off the central quotients' last change (see :func:`corner_reach`).
     corner_reach: np.ndarray | None = None
+    # The sides' gap took both signs beyond its rounding, and how far the sides' first-order
+    # extrapolations lie apart beyond it (:mod:`.sides_gap`): kinks or corners within the steps.
+    gap_turned: np.ndarray | None = None
+    sides_apart_by: np.ndarray | None = None
     # The steps the ladder really started from: the ones asked for, or, where a domain edge
     # lay within them, a restart below it (:func:`below_the_edge`).
     start: np.ndarray | None = None
@@ -56,6 +61,8 @@ class Ladder:
                       sides_steady=steady, sides_vanish=vanish,
                       left_crossed=crossed[0], right_crossed=crossed[1],
                       corner_reach=None if self.corner_reach is None else self.corner_reach[which],
+                      gap_turned=None if self.gap_turned is None else self.gap_turned[which],
+                      sides_apart_by=None if self.sides_apart_by is None else self.sides_apart_by[which],
                       start=None if self.start is None else self.start[which])
 
     def rows_of(self, which: np.ndarray) -> Pairs:
@@ -97,6 +104,9 @@ def climb(
     qc, nc, qr, nr, ql, nl = (q.reshape(rows, n) for q in _quotients(probe, p))
     central = tableau(qc, nc, RATIO, 2)
     steady, vanish = sides_steady(qr, ql, nr + nl)
+    # A turn at wider rows says nothing where the last rows show the gap vanishing like h
+    # above the noise: what the wider steps crossed lies beyond the last ones.
+    turned = gap_turns(qr, ql, nr + nl) & ~vanish
     noise_share = np.minimum(1.0, NOISE_SHARE_UNITS * nc.max(axis=0) / np.maximum(central.error, 1e-300))
     return Ladder(
         central=central,
@@ -110,6 +120,8 @@ def climb(
         left_crossed=crossed_kinks(ql, nl),
         right_crossed=crossed_kinks(qr, nr),
         corner_reach=corner_reach(qc),
+        gap_turned=turned,
+        sides_apart_by=extrapolations_apart(qr, ql, nr + nl),
         start=start,
     )
 

@@ -158,6 +158,12 @@ def _resolved(probe: TensorProbe, est: Estimate, tol: np.ndarray) -> np.ndarray:
         return np.ones(tol.shape, dtype=bool)
     return est.error <= tol / probe.threshold
 
+BOUNDED = (
+    "the loss moved by no more than a fixed amount near its rounding at every step tried (a "
+    "term steeper than any step that rounding allows): the quotients say nothing of the slope "
+    "at the point"
+)
+
 
 def judge_plain(probe: TensorProbe, flat: np.ndarray, est: Estimate) -> Judged:
     """Verdicts from one estimate per coordinate (no kink analysis)."""
@@ -168,7 +174,7 @@ def judge_plain(probe: TensorProbe, flat: np.ndarray, est: Estimate) -> Judged:
 
 
 CROSSING = (UNSETTLED, NEAR_KINK, CROWDED, UNRESOLVED, SHARED_POINT, CLOSE_NEITHER, CLOSE_ONE, CLOSE_BOTH,
-            OUTSIDE_SIDES)
+            OUTSIDE_SIDES, BOUNDED)
 
 
 def looked_at_again(status: np.ndarray, reasons: tuple[str | None, ...]) -> np.ndarray:

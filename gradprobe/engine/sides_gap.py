@@ -1,0 +1,42 @@
+"""What the gap between the one-sided quotients (right minus left, per ladder row) says of
+the loss within the steps.
+
+Along a smooth loss the gap is (f(x+h) - 2 f(x) + f(x-h)) / h = f'' h + f'''' h**3 / 12 + ...:
+odd in h, one sign at every small step, halving with the step. So the sides' first-order
+extrapolations, 2 r(h/2) - r(h) and 2 l(h/2) - l(h), both equal f' - f''' h**2 / 12 to
+second order and differ only by 2 g(h/2) - g(h), which vanishes faster than any change of
+the central quotients. At a corner at the point (f'' jumping from A to B) the sides are
+f' + B h/2 and f' - A h/2, and their extrapolations meet at f' too. A gap that takes both
+signs beyond its rounding, or extrapolations that stay apart beyond it, show the steps
+crossing kinks or corners within them (kinks-72055: ReLU rows tied at 0 and at 3e-14,
+2e-12, 2e-10 away; kinks-71026: Huber corners from 0 to 8e-5 away): the central quotients,
+the sides' mean at every row, are then no estimate of f' to better than that disagreement.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .ladder import NOISE_UNITS
+
+
+def gap_turns(right: np.ndarray, left: np.ndarray, noise: np.ndarray) -> np.ndarray:
+    """Per coordinate, from the one-sided quotients and the gap's rounding (rows,
+    coordinates): the gap takes both signs at rows where it lies beyond 2 NOISE_UNITS times
+    its rounding."""
+    with np.errstate(invalid="ignore", over="ignore"):
+        gap = right - left
+        shown = np.abs(gap) > 2.0 * NOISE_UNITS * noise
+        return np.any(shown & (gap > 0), axis=0) & np.any(shown & (gap < 0), axis=0)
+
+
+def extrapolations_apart(right: np.ndarray, left: np.ndarray, noise: np.ndarray) -> np.ndarray:
+    """Per coordinate: how far the sides' first-order extrapolations from the last two rows
+    lie apart beyond 2 NOISE_UNITS times their rounding (0 within it; the gap's rounding
+    ``noise`` per row, the extrapolated gap 2 g[-1] - g[-2] carrying twice the last row's and
+    the row before's)."""
+    with np.errstate(invalid="ignore", over="ignore"):
+        gap = right - left
+        apart = np.abs(2.0 * gap[-1] - gap[-2])
+        room = 2.0 * NOISE_UNITS * (2.0 * noise[-1] + noise[-2])
+        return np.where(np.isfinite(apart), np.maximum(apart - room, 0.0), np.inf)
