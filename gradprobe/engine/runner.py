@@ -82,7 +82,7 @@ def run_check(
     ``executor`` spreads the evaluations over any ``concurrent.futures.Executor`` (a Dask
     client's ``get_executor()`` included); ``options.jobs > 1`` starts worker processes.
     """
-    from ..targets.frameworks import preserved  # local: the framework form of targets builds on this module
+    from ..targets.framework_state import preserved  # local: the framework form of targets builds on this module
 
     keep_heap()
     try:

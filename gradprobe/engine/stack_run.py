@@ -33,7 +33,7 @@ def run_stack(
     clock: Callable[[], float] = time.perf_counter,
 ) -> Report:
     """Check ``st``; ProbeError subclasses (naming the target) when the check cannot run."""
-    from ..targets.frameworks import preserved
+    from ..targets.framework_state import preserved
 
     with preserved(st.params, st.inputs):
         return _run_stack(st, options or CheckOptions(), executor, progress, clock)

@@ -24,6 +24,7 @@ from ..common.errors import TargetLoadError, summarise
 from ..common.guard import ExitAttempt, exit_error
 from ..common.spec import is_file_spec, split_spec
 from .neighbours import note_neighbours, own_neighbours
+from .second_rules import double_backward, second_order_functions
 
 
 @dataclass(frozen=True)
@@ -254,51 +255,7 @@ def target_from_object(obj: Any, label: str, spec: str | None = None) -> Target:
         if describe(params, inputs).library not in ("torch", "jax"):
             raise TargetLoadError("the target has no backward function", value="backward",
                                   fix=MISSING_FIX["backward"])
-    hvp, hessian = _second_order(obj)
-    double = _double_backward(obj, backward, hvp, hessian)
+    hvp, hessian = second_order_functions(obj, _get(obj, "hvp"), _get(obj, "hessian"))
+    double = double_backward(obj, _get(obj, "second_order"), backward, hvp, hessian)
     return Target(label, forward, backward, params, inputs, spec, hvp=hvp, hessian=hessian,
                   double_backward=double)
-
-
-def _second_order(obj: Any) -> tuple[Callable[..., Any] | None, Callable[..., Any] | None]:
-    """The target's ``hvp`` and ``hessian`` functions (protocol section 7), None if absent."""
-    found = []
-    for name in ("hvp", "hessian"):
-        fn = _get(obj, name)
-        if fn is not None and not callable(fn):
-            raise TargetLoadError(f"the target's {name} is a {type(fn).__name__}, not a function",
-                                  value=fn)
-        found.append(fn)
-    if found[0] is not None and found[1] is not None:
-        raise TargetLoadError("the target gives both hvp and hessian; give one of them",
-                              value=obj)
-    return found[0], found[1]
-
-
-
-DOUBLE_FIX = ("drop backward so the framework's reverse mode gives the gradient, or give "
-              "hvp(params, inputs, v) or hessian(params, inputs) instead of second_order = True")
-
-
-def _double_backward(obj: Any, backward: Any, hvp: Any, hessian: Any) -> bool:
-    """The target's ``second_order`` flag (protocol section 7): True asks for Hessian-vector
-    products through the framework, which only a forward-only torch or jax target has."""
-    flag = _get(obj, "second_order")
-    if flag is None or flag is False:
-        return False
-    if flag is not True:
-        raise TargetLoadError(f"the target's second_order is {flag!r}; it must be True or False",
-                              value=flag)
-    if hvp is not None or hessian is not None:
-        raise TargetLoadError("the target gives second_order = True and also "
-                              f"{'hvp' if hvp is not None else 'hessian'}; give one of them",
-                              value=obj)
-    if backward is not None:
-        raise TargetLoadError(no_double_backward("it gives its own backward"), value=backward,
-                              fix=DOUBLE_FIX)
-    return True
-
-
-def no_double_backward(why: str) -> str:
-    return ("second_order = True takes Hessian-vector products through the framework's double "
-            f"backward, so it needs a forward-only torch or jax target, but {why}")
