@@ -18,7 +18,7 @@ import numpy as np
 from ..common.classes import dataclass
 from ..report.model import DirectionResult
 from .directions import DIRECTION_SIGNIFICANCE as SIGNIFICANCE
-from .directions import DirectionCheck, check_direction
+from .directions import ELEMENT_AIM, DirectionCheck, check_direction
 from .drawn import Vector, unit_direction
 from .locate import locate
 from .move_noise import moved_loss_scale
@@ -38,6 +38,7 @@ class Directional:
     candidates: np.ndarray  # flat indices to check coordinate-wise (localised and swept)
     located_evaluations: int | None
     unresolved: str | None  # why a significant direction stays unexplained, or None
+    note: str | None = None  # what one element's error the directions could not show, if much
 
 
 def _enough(probe: TensorProbe) -> float:
@@ -77,13 +78,20 @@ def _resolution(probe: TensorProbe, checks: list[DirectionCheck]) -> float:
     return SIGNIFICANCE * min(bounds) * max(probe.size, 1) ** 0.5
 
 
+def _steep(check: DirectionCheck) -> bool:
+    """A direction whose bound cannot resolve the threshold for its steps' size (truncation,
+    which smaller steps, or a coordinate's, can resolve), not for the loss's rounding."""
+    return check.unresolved and not check.significant and not check.rounding
+
+
 def _evidence(checks: list[DirectionCheck]) -> int:
     """Directions that decided something: a significant discrepancy, or agreement."""
     return sum(1 for c in checks if c.significant or c.agrees)
 
 
-def _undecided_reason(probe: TensorProbe, checks: list[DirectionCheck]) -> str:
-    """Why no direction decided a tensor too large to sweep."""
+def _undecided_reason(probe: TensorProbe, checks: list[DirectionCheck], rounding: bool = False) -> str:
+    """Why no direction decided a tensor too large to sweep (``rounding``: or one whose
+    directions only the loss's rounding kept from the threshold, which a sweep resolves less)."""
     kinked = sum(1 for c in checks if c.kink)
     smooth = [c for c in checks if not c.kink]
     said = f"{len(checks)} random-direction checks could not resolve the threshold"
@@ -98,6 +106,10 @@ def _undecided_reason(probe: TensorProbe, checks: list[DirectionCheck]) -> str:
     seen = _resolution(probe, checks)
     missed = (f"one element's error below about {seen:.1e} ({seen / max(probe.grad_scale, 1e-300):.0e} "
               f"of the tensor's typical gradient)" if np.isfinite(seen) else "no element's error")
+    if rounding:
+        return (said + f", for the loss's rounding, which weighs more on each element's own steps than "
+                f"on a direction's, so no sweep of its {probe.size} elements resolves more: {missed} "
+                f"could not be resolved")
     return (said + f"; the tensor has {probe.size} elements, more than are swept ({SWEEP_UNDECIDED}), "
             f"so {missed} could not be resolved")
 
@@ -136,7 +148,7 @@ def directional(
             if _moved_rounding(probe, seed):
                 check = check_direction(probe, everything, u, enough=_enough(probe), threshold=True)
         checks.append(check)
-        if check.unresolved and not check.significant and small:
+        if _steep(check) and small:
             break  # steeper than any step resolves: the coordinates decide (swept below)
         if not check.significant:
             continue
@@ -149,11 +161,19 @@ def directional(
     candidates = np.unique(np.concatenate(found)) if found else np.empty(0, dtype=np.int64)
     unresolved = None
     blind = any(c.unresolved for c in checks)
+    steep = any(_steep(c) for c in checks)
     if (_evidence(checks) < count and not any(c.significant for c in checks)
-            and (not sampled or blind)) or (small and blind):
+            and (not sampled or blind)) or (small and steep):
         # Too few directions decided anything (bounds that cannot resolve the threshold, or
-        # kinks with no sampled coordinate beside them), or a small tensor had a direction
-        # that could not: none of them counts as agreement. The whole tensor is undecided.
+        # kinks with no sampled coordinate beside them), or a small tensor had a steep
+        # direction: none of them counts as agreement. The whole tensor is undecided.
+        if blind and not steep and not any(c.kink for c in checks):
+            # Only the loss's rounding kept the bounds from the threshold: a coordinate's
+            # steps stay within its element's own scale while a direction's reach sqrt(n)
+            # times further, so the same rounding weighs more on every coordinate than on a
+            # direction, and a sweep would spend a ladder per coordinate to resolve less.
+            return Directional(tuple(_result(probe, c) for c in checks), candidates, located,
+                               _undecided_reason(probe, checks, rounding=True))
         undecided.append((0, probe.size))
     if undecided:
         ranges = sorted(set(undecided))
@@ -173,4 +193,19 @@ def directional(
                 f"each below about {seen:.1e} ({seen / max(probe.grad_scale, 1e-300):.0e} of the "
                 f"tensor's typical gradient), could not be resolved"
             )
-    return Directional(tuple(_result(probe, c) for c in checks), candidates, located, unresolved)
+    return Directional(tuple(_result(probe, c) for c in checks), candidates, located, unresolved,
+                       None if unresolved else _blind_note(probe, checks))
+
+
+def _blind_note(probe: TensorProbe, checks: list[DirectionCheck]) -> str | None:
+    """Where the directions' tightest bound cannot show one element ELEMENT_AIM off at the
+    tensor's typical gradient (a typical weight, 1/sqrt(n)), the smallest error of one element
+    they could have shown: beyond the sampled coordinates, such an error passes unseen."""
+    seen = _resolution(probe, checks)
+    typical = max(probe.grad_scale, 1e-300)
+    if not np.isfinite(seen) or seen <= ELEMENT_AIM * typical:
+        return None
+    return (f"{probe.tensor}: its random-direction checks, at the tightest bound the loss's rounding "
+            f"and their steps allowed, show one element's error only above about {seen:.1e} "
+            f"({seen / typical:.0e} of its typical gradient); a smaller one outside the sampled "
+            f"coordinates was not resolved")

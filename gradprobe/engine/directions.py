@@ -62,6 +62,7 @@ class DirectionCheck:
     evaluations: int
     kink: bool  # kinks within every step tried: the discrepancy is not evidence
     unresolved: bool = False  # the bound cannot resolve the threshold: not evidence of agreement
+    rounding: bool = False  # the loss's rounding, not the steps' size, limits the bound (smaller steps only worsen it)
 
     @property
     def significant(self) -> bool:
@@ -200,6 +201,7 @@ def check_direction(
                 central = _climbed(probe, part, u, t0 * SHRINK, central, wide[3], aim if threshold else enough,
                                    dot(probe.a[part], u) if threshold else None)
     analytic = dot(probe.a[part], u)
+    shrunk = False  # smaller steps were taken for truncation (a steep direction)
     if not kink and threshold:
         # Smooth but steeper than the steps: the bound cannot resolve the threshold while
         # truncation, not rounding, limits it. Steps 16 times smaller each time, a ladder
@@ -209,6 +211,7 @@ def check_direction(
             if resolves(probe, analytic, central) or noise > 0.5 * float(central.error[0]):
                 break
             step /= SHRINK
+            shrunk = True
             small = _ladder(probe, part, u, step, rows)
             noise = small[3]
             if _sides_agree(small):
@@ -218,5 +221,5 @@ def check_direction(
     return DirectionCheck(
         discrepancy=float(central.value[0]), error=error,
         analytic=analytic, evaluations=probe.evaluator.count - before, kink=kink,
-        unresolved=unresolved,
+        unresolved=unresolved, rounding=not shrunk and noise > 0.5 * error,
     )

@@ -3,6 +3,8 @@ the whole tensor along directions where 16-bit rounding leaves its coordinates u
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 
 from ..settings.options import CheckOptions
@@ -59,6 +61,9 @@ def check_tensor(probe: TensorProbe, options: CheckOptions, total: int, record: 
         if seen.unresolved:
             record.unconfirmed = seen.unresolved
     record.outcome = check_coordinates(probe, flat, options.method, options.recheck)
+    if n_dirs and seen.note:  # what the directions could not show, beside the coordinates' note
+        said = "; ".join(n for n in (record.outcome.note, seen.note) if n)
+        record.outcome = replace(record.outcome, note=said)
     if wanted(probe, record.outcome):  # 16-bit arithmetic left coordinates undecided
         whole = along(probe, record.outcome, options.seed)
         record.directions = record.directions + whole.results
