@@ -122,6 +122,7 @@ def main() -> None:
             k = net.plant(rel, n) if rel is not None else None
             counts = {"located": 0, "failed": 0, "inconclusive": 0, "pass": 0, "other": 0}
             statuses: dict[str, int] = {}
+            others_seen: dict[str, int] = {}  # correct networks: tensors neither pass nor kink
             evaluations = []
             for seed in range(args.seeds):
                 report = gradprobe.probe(net.forward, net.backward, net.params, net.inputs, seed=seed)
@@ -129,8 +130,10 @@ def main() -> None:
                 t = report.tensor("hidden.W")
                 statuses[t.status] = statuses.get(t.status, 0) + 1
                 if rel is None:
-                    bad = [s.name for s in report.tensors if s.status not in ("pass", "kink")]
+                    bad = [s for s in report.tensors if s.status not in ("pass", "kink")]
                     counts["pass" if not bad else "other"] += 1
+                    for s in bad:
+                        others_seen[f"{s.name} {s.status}"] = others_seen.get(f"{s.name} {s.status}", 0) + 1
                     continue
                 index = tuple(int(v) for v in np.unravel_index(k, net.params["hidden"]["W"].shape))
                 others = [s.status for s in report.tensors if s.name != "hidden.W"]
@@ -146,6 +149,8 @@ def main() -> None:
             size = net.params["hidden"]["W"].size
             if rel is None:
                 line = f"every tensor pass or kink {counts['pass']}/{args.seeds}"
+                if others_seen:
+                    line += " (" + ", ".join(f"{k} {v}" for k, v in sorted(others_seen.items())) + ")"
             else:
                 line = (f"located {counts['located']}/{args.seeds}, failed elsewhere {counts['failed']}, "
                         f"inconclusive {counts['inconclusive']}, missed {counts['pass']}, "
