@@ -115,7 +115,9 @@ def _central(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
                 probe, flat[which], Estimate(certified.value[which], certified.bound[which])))
     if not recheck:  # no ladders; a failure still needs a bound checked on the coordinate
         return _validated_failures(probe, flat, first, h, judged)
-    todo = np.flatnonzero(~settled | suspects)
+    # Settled yet undecided: the first pair's rounding bound lies above the coordinate's scale
+    # (a loss level along it, an analytic value of 0): the ladders and their later stages decide.
+    todo = np.flatnonzero(~settled | suspects | (judged.status == INCONCLUSIVE))
     if todo.size == 0:
         return judged
     if todo.size > RECHECK_LIMIT:  # the worst first, within budget

@@ -6,7 +6,8 @@ The wide steps are judged again with the measured figure, with windows without
 extrapolation too (:func:`.wide_steps.plain_windowed`: rounding, not curvature, limits these
 quotients); those still undecided by rounding, on the widest steps within reach averaged over
 jittered pairs (:mod:`.averaged`), then on one side (:mod:`.one_side`), then on quotients at
-many steps fitted as one curve (:mod:`.fitted`); last, on a side where the loss kept its value
+many steps fitted as one curve (:mod:`.fitted`), then on the loss along one side fitted as one
+curve (:mod:`.side_fit`: a kink beside the point on the other); last, on a side where the loss kept its value
 at every step taken (:mod:`.flat_side`), with the rounding the moving side's row shows where
 nothing else was measured. What stays undecided says the smallest relative error its rounding
 lets show.
@@ -19,6 +20,7 @@ import numpy as np
 from .averaged import averaged_estimate, within_reach
 from .fitted import fitted_passes
 from .flat_side import flat_side_passes
+from .side_fit import side_fitted_passes
 from .one_side import narrow_passes, one_sided_passes
 from .wide_steps import WIDE_NOISE
 from .wide_step_kinks import KINK_WITHIN, kinks_within_reach
@@ -87,6 +89,8 @@ def judged_on_own_rounding(probe: TensorProbe, flat: np.ndarray, judged: Judged,
         judged = _averaged(view, flat, judged, noisy[mine], reach[mine], again)
         judged = _one_side(view, flat, judged, noisy, again)
         judged = fitted_passes(view, flat, judged, noisy, measured, reach, widest_steps(probe, where))
+        judged = side_fitted_passes(view, flat, judged, noisy, measured, reach, widest_steps(probe, where), again,
+                                    (NOISE, KINK_WITHIN))
     else:
         judged = _one_side(probe, flat, judged, noisy, taken)
     # A side where the loss kept its value, on its own quotients (passes only), with the

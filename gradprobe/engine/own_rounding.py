@@ -54,6 +54,8 @@ NEARER = 2  # at most this many times (down to 1/64 of the widest step)
 REACH_SLACK = 1e-6  # a pair's moves within the measured reach (steps are rounded to the grid)
 ORDER = 4  # differences of this order: they cancel the loss's change along the row to its cubic term
 FOURTH_AS_THIRD = 0.65  # scaled as third differences of the same roundings spread (see the note)
+OUTLIER = 4.0  # a row showing more than this many times the quietest row's figure is measured again
+FINER_BY = 8.0  # that many times nearer together
 
 
 def own_rounding(probe: TensorProbe, flat: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
@@ -110,11 +112,11 @@ def _rows_at(probe: TensorProbe, flat: np.ndarray, widest: np.ndarray
                 seen.append(as_seen(moved, probe.compute_dtype))
     values = probe.evaluator.single_moves(probe.tensor, flat, tuple(points))  # (n, 3 * JITTER)
     where = np.stack(seen, axis=1)
-    rounding, spoke = np.full(n, np.nan), np.zeros(n, dtype=bool)
-    for i in range(n):
-        rows, at = values[i].reshape(3, JITTER), where[i].reshape(3, JITTER)
-        rounding[i] = _measured(rows, at, eps)
-        spoke[i] = np.isfinite(_measured(rows[:1], at[:1], eps))
+    rows = np.array([[_measured(values[i].reshape(3, JITTER)[r:r + 1], where[i].reshape(3, JITTER)[r:r + 1], eps)
+                      for r in range(3)] for i in range(n)]).reshape(n, 3)
+    spoke = np.isfinite(rows[:, 0])
+    rows = _finer_rows(probe, flat, widest, delta, rows, eps)
+    rounding = np.where(np.isfinite(rows).all(axis=1), rows.max(axis=1), np.nan)
     same = values == probe.f0  # (n, 3 * JITTER): rows at the point, at +widest, at -widest
     half = JITTER // 2
     right = same[:, half:JITTER].all(axis=1) & same[:, JITTER:2 * JITTER].all(axis=1)
@@ -123,6 +125,43 @@ def _rows_at(probe: TensorProbe, flat: np.ndarray, widest: np.ndarray
     for j in np.flatnonzero(right ^ left).tolist():
         beside[j] = _beside_flat(values[j].reshape(3, JITTER), where[j].reshape(3, JITTER), 2 if right[j] else 1, eps)
     return rounding, spoke, widest + offsets[-1] * delta, right.astype(np.int8) + left.astype(np.int8), beside
+
+
+def _finer_rows(probe: TensorProbe, flat: np.ndarray, widest: np.ndarray, delta: np.ndarray, rows: np.ndarray,
+                eps: float) -> np.ndarray:
+    """The rows' figures ``rows`` (a row per centre: the point, +widest, -widest) with each row
+    whose figure is more than OUTLIER times the smallest of its coordinate's measured again
+    FINER_BY times nearer together (moves still at least the change of CHANGE_ULPS units of
+    the loss's last place the analytic gradient predicts, else it stays): rounding varies
+    little over the moves, what the loss does along the row does not (a kink among its
+    points, the loss's higher terms past the cubic), and a row that shows far more than the
+    others shows that. The finer row's figure replaces the coarser where smaller."""
+    least = np.where(np.isfinite(rows), rows, np.inf).min(axis=1)
+    with np.errstate(invalid="ignore", over="ignore"):
+        outlier = np.isfinite(rows) & np.isfinite(least)[:, None] & (rows > OUTLIER * least[:, None])
+    slope = np.maximum(np.abs(probe.a[flat]), 1e-300)
+    finer = delta / FINER_BY
+    outlier &= (finer >= CHANGE_ULPS * eps * abs(probe.f0) / slope)[:, None]
+    out = rows.copy()
+    x = probe.x[flat]
+    offsets = np.arange(JITTER) - (JITTER - 1) / 2.0
+    for r, centre in enumerate((0.0, 1.0, -1.0)):
+        todo = np.flatnonzero(outlier[:, r])
+        if todo.size == 0:
+            continue
+        points, seen = [], []
+        with np.errstate(over="ignore", invalid="ignore"):
+            for k in offsets:
+                moved = (x[todo].astype(np.float64) + centre * widest[todo] + k * finer[todo]).astype(x.dtype)
+                points.append(moved)
+                seen.append(as_seen(moved, probe.compute_dtype))
+        values = probe.evaluator.single_moves(probe.tensor, flat[todo], tuple(points))
+        at = np.stack(seen, axis=1)
+        for j, i in enumerate(todo.tolist()):
+            figure = _measured(values[j][None, :], at[j][None, :], eps)
+            if np.isfinite(figure) and figure < out[i, r]:
+                out[i, r] = figure
+    return out
 
 
 def _beside_flat(rows: np.ndarray, where: np.ndarray, other: int, eps: float) -> float:
