@@ -122,12 +122,12 @@ def side_estimates(probe: TensorProbe, flat: np.ndarray, taken: list[Taken]) -> 
     noise = p.noise.reshape(rows, n)
     limit = np.maximum(np.abs(probe.x[flat].astype(np.float64)), probe.x_scale)
     below = first * 2.0**WIDE_FIRST
-    small_r, small_l = _smaller(probe, flat, below, taken)
+    small_r, small_l = smaller_quotients(probe, flat, below, taken)
     return (_side(right, h_plus, 2.0 * noise / h_plus, limit, small_r),
             _side(left, h_minus, 2.0 * noise / h_minus, limit, small_l))
 
 
-def _smaller(probe: TensorProbe, flat: np.ndarray, below: np.ndarray,
+def smaller_quotients(probe: TensorProbe, flat: np.ndarray, below: np.ndarray,
              taken: list[Taken]) -> tuple[list[list[tuple[float, float]]], list[list[tuple[float, float]]]]:
     """Per coordinate and side, the one-sided quotients (with their rounding) of the pairs
     ``taken`` at steps below ``below`` (the ladders' steps under the wide ones)."""
@@ -179,4 +179,4 @@ def _side(q: np.ndarray, s: np.ndarray, e: np.ndarray, limit: np.ndarray,
     return Estimate(value, error)
 
 
-__all__ = ["narrow_passes", "one_sided_passes", "side_estimates"]
+__all__ = ["narrow_passes", "one_sided_passes", "side_estimates", "smaller_quotients"]

@@ -43,7 +43,7 @@ from ..common.errors import BadOutputError, UserCodeError
 from ..common.status import INCONCLUSIVE, PASS
 from .fitted import CHANGE_ULPS, FIGURE_SIGMAS, FITTED, PASS_SHARE, RESIDUAL_LIMIT
 from .ladder import Estimate
-from .one_side import _smaller
+from .one_side import smaller_quotients
 from .probe import TensorProbe
 from .refine import Taken
 from .verdict import SIGNIFICANCE, Judged
@@ -99,7 +99,7 @@ def side_fits(probe: TensorProbe, where: np.ndarray, top: np.ndarray, sigma_floo
     x = probe.x[where[use]].astype(np.float64)
     base = as_seen(probe.x[where[use]], probe.compute_dtype)
     first = top[use] / count[use]
-    smaller = _smaller(probe, where[use], first, taken)  # the quotients below the first move
+    smaller = smaller_quotients(probe, where[use], first, taken)  # the quotients below the first move
     for sign, below in ((1.0, smaller[0]), (-1.0, smaller[1])):
         points, seen = [], []
         with np.errstate(over="ignore", invalid="ignore"):
