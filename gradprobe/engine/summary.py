@@ -102,6 +102,8 @@ def tensor_result(
     reason = next((r for r, st in zip(outcome.reasons, s) if st == INCONCLUSIVE and r), None)
     if doubt is not None and status < Status.INCONCLUSIVE:
         status, reason = Status.INCONCLUSIVE, doubt
+    elif doubt is not None and status is Status.INCONCLUSIVE and reason and doubt not in reason:
+        reason = f"{reason}; and {doubt}"  # what the directions could not resolve is said too
     if fails is not None and status < Status.FAIL:
         status, hint = Status.FAIL, fails + (f"; {hint}" if hint else "")
     return TensorResult(
