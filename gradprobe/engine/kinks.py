@@ -6,7 +6,7 @@ derivatives extrapolated each on its own. Where the sides agree, the loss is smo
 corner (only f'' jumps) and the central estimate or the sides' mean decides. Where they differ
 beyond their bounds and the threshold, a pair at a much smaller step tells a kink at the point
 (the jump stays) from one near it (the jump moves, and the clean side's derivative is the
-derivative here). A kink verdict needs that evidence: the sides seen to differ, and the
+derivative here; :mod:`.kinks_at_point`). A kink verdict needs that evidence: the sides seen to differ, and the
 analytic value one a kink between them could give. A value off sides that agree with each
 other, or that are not known well enough to tell, is a failure or undecided, never a kink.
 """
@@ -19,18 +19,11 @@ from ..common.status import FAIL, INCONCLUSIVE, KINK, PASS
 from .ladder import Estimate
 from .probe import TensorProbe
 from .refine import Ladder, Tiny
+from .kinks_at_point import NEAR_SAFETY, judge_sides
 from .kink_evidence import between, cornered, crossed, kink_evidence, near_a_side, within_kink
-from .verdict import (CORNER_NEAR, CROWDED, NEAR_KINK, NOISE, SHARED_POINT, SIGNIFICANCE, UNRESOLVED,
-                      UNSETTLED, Judged, verdicts)
+from .verdict import CORNER_NEAR, CROWDED, NEAR_KINK, NOISE, SIGNIFICANCE, UNSETTLED, Judged, verdicts
 
 LOPSIDED = 0.01  # a side whose bound is 100 times tighter than the other's has settled
-NEAR_SAFETY = 4.0  # bounds of a side estimated beside a kink are taken 4 times wider
-JUMP_KEPT = 0.05  # at a kink the jump seen at a tiny step stays within 5% of the ladder's
-CURVATURE_SLACK = 0.01  # first-order quotients at the tiny step may differ by 1% of the jump
-# A kink at the point bounds a correct value by its sides only where no other kink can hide
-# within the tiny step: taken as so where that step is within 2**12 spacings of x (2**-40 of
-# |x|), about where the code's own rounding of a residual already places a kink.
-RESOLVED_SPACINGS = 2.0**12
 
 
 def _sides_apart(probe: TensorProbe, flat: np.ndarray, ladder: Ladder) -> tuple[np.ndarray, np.ndarray]:
@@ -171,7 +164,7 @@ def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, tiny: Tin
     which = np.flatnonzero(differ)
     if which.size:
         assert tiny is not None and tiny.right.size == which.size
-        _judge_sides(probe, flat, ladder.pick(which), tiny, which, status, value, error, reasons)
+        judge_sides(probe, flat, ladder.pick(which), tiny, which, status, value, error, reasons)
     return Judged(status, Estimate(value, error), tuple(reasons), noisy)
 
 
@@ -208,107 +201,3 @@ def _confirms(central: Estimate, side: Estimate) -> np.ndarray:
     """The central estimate is tighter than ``side`` and agrees with it within their bounds."""
     agree = np.abs(central.value - side.value) <= SIGNIFICANCE * (central.error + side.error)
     return agree & (central.error <= side.error)
-
-
-def _one_clean_side(
-    use_left: np.ndarray, use_right: np.ndarray, left: Estimate, right: Estimate, otherwise: Estimate
-) -> Estimate:
-    """The one side that qualifies where exactly one does, else ``otherwise``."""
-    return Estimate.where(use_left & ~use_right, left,
-                          Estimate.where(use_right & ~use_left, right, otherwise))
-
-
-def _judge_sides(
-    probe: TensorProbe, flat: np.ndarray, ladder: Ladder, tiny: Tiny, which: np.ndarray,
-    status: np.ndarray, value: np.ndarray, error: np.ndarray, reasons: list[str | None],
-) -> None:
-    """Coordinates whose one-sided derivatives differ: a kink at the point, or near it."""
-    f = flat[which]
-    a = probe.a[f]
-    left, right = ladder.left, ladder.right
-    crossed_left, crossed_right = crossed(ladder)
-    jump = right.value - left.value
-    kept = np.abs(tiny.gap - jump) <= JUMP_KEPT * np.abs(jump) + 4.0 * tiny.one_sided_noise
-    # At the point: the analytic value must lie between the sides (a subgradient). Where
-    # several kinks meet at the point (a max tied in many rows at once, upstream gradients of
-    # both signs), the usual per-kink convention picks one side per kink, and the sum lies
-    # between the sums over any subset of them: from 0 (every kink on its resting side) to
-    # left + right (every kink on its moving side), which can be outside the two one-sided
-    # derivatives when they share a sign. Those extremes are allowed too; a value further out
-    # is undecided where the tiny step keeps the jump (a smooth part beside several kinks
-    # moves every such sum), and otherwise judged as below.
-    inside = within_kink(a, left, right, probe.tolerance(f, a))
-    nearer = np.where(np.abs(a - left.value) <= np.abs(a - right.value), left.value, right.value)
-    nearer_error = np.where(np.abs(a - left.value) <= np.abs(a - right.value), left.error, right.error)
-    # Near it: at the tiny step the side that crossed the kink has moved towards the other
-    # side (by jump * distance / step), the clean side has not, and the clean side's
-    # derivative is the derivative at the point. With both clean, the tiny step no longer
-    # reaches the kink and its central difference is smooth.
-    slack = tiny.one_sided_noise + CURVATURE_SLACK * np.abs(jump)
-    clean_right = np.abs(tiny.right - right.value) <= SIGNIFICANCE * (right.error + slack)
-    clean_left = np.abs(tiny.left - left.value) <= SIGNIFICANCE * (left.error + slack)
-    # Where the jump moved, a value between the sides may still come from kinks crowding the
-    # point; beyond them (between 0 and their sum) only where the tiny step's own sides are seen
-    # to differ (a corner, where only f'' jumps, shows next to no gap there).
-    # A jump within the tiny step itself (its sides apart) is a kink at the point or closer
-    # than any step: a value between the tiny step's own sides is one it could give too.
-    tol_f = probe.tolerance(f, a)
-    tiny_apart = np.abs(tiny.gap) > SIGNIFICANCE * 2.0 * tiny.one_sided_noise + tol_f
-    tiny_inside = within_kink(a, Estimate(tiny.left, tiny.one_sided_noise),
-                               Estimate(tiny.right, tiny.one_sided_noise), tol_f)
-    moved_inside = np.where(tiny_apart, inside | tiny_inside, between(a, left, right, tol_f))
-    near = _one_clean_side(clean_left, clean_right, left, right, tiny.central)
-    only_left, only_right = clean_left & ~clean_right, clean_right & ~clean_left
-    near_crossed = (only_left & crossed_left) | (only_right & crossed_right)
-    # The clean side is the derivative here as far as its tiny quotient confirms it: to their
-    # difference (and that quotient's rounding), where that is wider than its own bound.
-    confirmed = np.where(only_left, np.abs(tiny.left - left.value),
-                         np.where(only_right, np.abs(tiny.right - right.value), 0.0)) + np.where(
-        only_left | only_right, tiny.one_sided_noise, 0.0)
-    # Neither side clean: the tiny step itself still reaches what the ladder's steps crossed.
-    # Its central quotient's bound is its rounding alone; a corner within the step moves it
-    # by as much as the jump of f'' times the step, which the ladder's reach bounds (at a
-    # larger step than the tiny one).
-    neither = ~clean_left & ~clean_right
-    near = Estimate(near.value, np.maximum(NEAR_SAFETY * near.error, confirmed)
-                    + np.where(neither, cornered(ladder), 0.0))
-    near_status = verdicts(probe, a, near, probe.tolerance(f, near.value))
-    # The tiny step sees every kink within it as one at the point: one more closer than it
-    # (residuals 0 and 6e-14 from kinks, a step of 3e-11) sets each side across it, and the
-    # sides no longer bound a correct value (``hidden``: see RESOLVED_SPACINGS).
-    hidden = (np.zeros(f.size, dtype=bool) if tiny.step is None
-              else tiny.step > RESOLVED_SPACINGS * probe.resolution(f))
-    for j, k in enumerate(which.tolist()):
-        if kept[j]:
-            # A value outside the sides is a bug only where the steps crossed no other kink:
-            # where they did, more can lie closer than any step, each adding its own jump
-            # (of either sign) to the values a correct gradient may take at the point; so too
-            # where the tiny step cannot rule out one closer than itself (``hidden``).
-            # Nor does a single kink at the point bound it: where several meet there beside a
-            # smooth part S (right = S + the moving kinks' slopes on the right, left = S + those
-            # on the left), the per-kink convention gives S plus any subset of them, which no
-            # pair of one-sided derivatives fixes. Undecided here; the second look off the point
-            # (offpoint.py), where the kinks part, fails a wrong gradient.
-            crowded = crossed_left[j] | crossed_right[j]
-            status[k] = KINK if inside[j] else INCONCLUSIVE
-            value[k], error[k] = nearer[j], nearer_error[j]
-            reasons[k] = (None if inside[j] else CROWDED if crowded else UNRESOLVED if hidden[j]
-                          else SHARED_POINT)
-        elif near_status[j] != PASS and moved_inside[j]:
-            # The jump moved at the tiny step, yet the value lies between the sides: more
-            # kinks meet close to the point (ties in many rows) and no step tells them
-            # apart; the value is consistent with a kink, not evidence of a bug.
-            status[k] = KINK
-            value[k], error[k] = nearer[j], nearer_error[j]
-            reasons[k] = None
-        elif near_status[j] == FAIL and (near_crossed[j] or (tiny_apart[j] and hidden[j])):
-            # The side taken as clean crossed kinks of its own among the ladder's steps (they
-            # crowd the point, and the tiny step need not be below the nearest), or the tiny
-            # step's own sides differ (a kink within it, and more may hide beside it).
-            status[k] = INCONCLUSIVE
-            value[k], error[k] = near.value[j], near.error[j]
-            reasons[k] = CROWDED if near_crossed[j] else UNRESOLVED
-        else:
-            status[k] = near_status[j]
-            value[k], error[k] = near.value[j], near.error[j]
-            reasons[k] = NEAR_KINK if near_status[j] == INCONCLUSIVE else None

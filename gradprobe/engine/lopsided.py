@@ -29,7 +29,8 @@ import numpy as np
 
 from ..common.status import INCONCLUSIVE, KINK
 from .kink_evidence import crossed
-from .kinks import LOPSIDED, NEAR_SAFETY, RESOLVED_SPACINGS, sides_differ
+from .kinks import LOPSIDED, sides_differ
+from .kinks_at_point import NEAR_SAFETY, RESOLVED_SPACINGS
 from .ladder import Estimate
 from .probe import TensorProbe
 from .refine import TINY_NOISE_UNITS, Ladder

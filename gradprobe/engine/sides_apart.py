@@ -17,7 +17,7 @@ import numpy as np
 
 from ..common.status import FAIL, INCONCLUSIVE, KINK
 from .kink_evidence import kink_evidence, within_kink
-from .kinks import NEAR_SAFETY, _one_clean_side
+from .kinks_at_point import NEAR_SAFETY, one_clean_side
 from .ladder import Estimate, drifting, tableau
 from .probe import TensorProbe
 from .verdict import NEAR_KINK, SHARED_POINT, SIGNIFICANCE, Judged, verdicts
@@ -86,11 +86,11 @@ def judge_sides_apart(
     right = Estimate(right.value, NEAR_SAFETY * right.error)
     decides_left, decides_right = left.error <= tol, right.error <= tol
     agree = np.abs(left.value - right.value) <= SIGNIFICANCE * (left.error + right.error) + tol
-    chosen = _one_clean_side(decides_left, decides_right, left, right, Estimate.better(left, right))
+    chosen = one_clean_side(decides_left, decides_right, left, right, Estimate.better(left, right))
     status = verdicts(probe, a, chosen, probe.tolerance(flat, chosen.value))
     both = decides_left & decides_right
     # Sides that disagree show a kink at the point; a value outside them is one several kinks
-    # meeting there beside a smooth part can give (see _judge_sides): undecided, not failed.
+    # meeting there beside a smooth part can give (see kinks_at_point.judge_sides): undecided, not failed.
     shared = both & ~agree & ~within_kink(a, left, right, tol)
     status[both & ~agree] = np.where(shared, INCONCLUSIVE, KINK)[both & ~agree]
     status[~(decides_left | decides_right)] = INCONCLUSIVE
