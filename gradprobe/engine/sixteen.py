@@ -19,8 +19,12 @@ least, else the level's rounding is unknown: each term's rounding is drawn afres
 along one tooth of its staircase). A level's quotient is their mean (at the root mean
 square of their steps, where its truncation c2 s**2 is the mean of theirs); its rounding is
 MARGIN times the largest distance of one of them from the mean, over sqrt(JITTERS) (a
-conservative quantile: about twice the mean's spread, and the spread also carries how
-truncation changes across the jitter). One loss value's rounding (a quotient's times its
+conservative quantile: about twice the mean's spread), or where smaller their largest
+distance from the level's line in s**2, widened for the degree of freedom the line takes:
+across a jitter of 3/8 of the step c2 s**2 changes by more than half of itself, which is
+curvature, not rounding (read as rounding, at the levels where curvature is largest and
+then at every level, it left float16 errors of 5 to 20% undecided that float16 resolves by
+a factor of ten; checked against a float64 copy of such losses). One loss value's rounding (a quotient's times its
 step) is the largest any level within the params' scale shows, taken at every level: a
 level whose roundings move together shows too little, one whose quotients all agree none;
 where none within the scale shows any, the level beyond it speaks, and where no level shows
@@ -29,11 +33,14 @@ also carries how truncation changes across its jitter, larger there), for itself
 one-sided quotients' gap likewise (at least twice the quotients' rounding), its spread read
 over its own step: the gap is f'' times the step, and across a jitter of 3/8 of the step it
 changes by as much as 3/8 of itself, which is curvature, not rounding (read as rounding, it
-made the kink allowance below hide bugs of twice the gradient in bfloat16). The levels
-are windows of :func:`.wide_steps.plain_windowed`, whose error model (quotients that follow
-c2 s**2, a gap that shrinks with the step, the bound WIDE_SAFETY times the measured
-curvature plus WIDE_NOISE times the rounding) is checked on the coordinate as for every
-wide estimate; the window with the smallest bound.
+made the kink allowance below hide bugs of twice the gradient in bfloat16); levels within
+the params' scale speak for the others as for the quotients. The levels are windows of
+:func:`.wide_steps.plain_windowed` and of :func:`.wide_steps.windowed` (Richardson's, where
+the level means follow c2 s**2 + c4 s**4 closely enough that one extrapolation gains more
+than it costs in rounding), whose error models (quotients that follow the model, a gap that
+shrinks with the step, the bound WIDE_SAFETY times the measured higher-order term plus
+WIDE_NOISE times the rounding) are checked on the coordinate as for every wide estimate;
+the window with the smallest bound.
 
 A coordinate passes where the analytic value lies within the threshold of that estimate and
 the bound resolves the threshold: |a - n| <= tol and bound <= tol, tol the threshold times
@@ -50,8 +57,10 @@ the analytic value lies beyond the threshold and beyond SIGNIFICANCE bounds of t
 plus the largest jump a kink within the levels could have (plus, on both, the analytic
 value's own rounding): a kink of jump J straddled by the steps puts their central quotients
 J / 2 from the one-sided value a correct gradient gives, and its jump shows in the one-sided
-gap of the two widest levels extrapolated to a step of 0 (:func:`_kink_jump`, with its
-rounding; a smooth loss shows only rounding and higher orders there). Checked against
+gap of two levels extrapolated to a step of 0 (:func:`_kink_jump`, with its rounding; a
+smooth loss shows only rounding and higher orders there): the widest two, or lines through
+the levels about the widest one the estimate takes, which carry far less of the gap's
+higher orders. Checked against
 mpmath on the adversarial inside16 and float16 sets: without the kink term 8 of 209 correct
 targets failed, with it none, while bugs of 16-bit code on small-scale params fail. What no
 step can tell apart stays a limit: a ripple of the loss smaller than its rounding and
@@ -74,7 +83,7 @@ import numpy as np
 from ..common.roundoff import is_narrow, unit_roundoff
 from ..common.status import FAIL, INCONCLUSIVE, PASS
 from .ladder import Estimate
-from .wide_steps import WIDE_FIRST, WIDE_LAST, WIDE_ROWS, plain_windowed
+from .wide_steps import WIDE_FIRST, WIDE_LAST, WIDE_ROWS, plain_windowed_at, windowed_at
 from .probe import TensorProbe
 from .refine import Taken, pairs_reusing
 from .verdict import NOISE, SIGNIFICANCE, Judged
@@ -109,11 +118,22 @@ def _widest(probe: TensorProbe, flat: np.ndarray) -> np.ndarray:
     return np.maximum(top * 2.0 ** -np.clip(halvings, 0.0, None), h0 * 2.0**WIDE_FIRST)
 
 
-def _mean_and_noise(q: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Over axis 1 (the jitter): the mean, and its rounding as the module measures it."""
+def _mean_and_noise(q: np.ndarray, s: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Over axis 1 (the jitter, at steps ``s``): the mean, and its rounding as the module
+    measures it: MARGIN times the largest distance from the mean over sqrt(JITTERS), or where
+    smaller the same off the level's line in s**2 (the truncation c2 s**2 changes across a
+    level's jitter by more than half of itself: curvature, not rounding), widened by the root
+    of the ratio of degrees of freedom the line leaves (JITTERS - 2 of JITTERS - 1)."""
+    jitters = q.shape[1]
     mean = q.mean(axis=1)
-    spread = np.abs(q - mean[:, None, :]).max(axis=1)
-    return mean, MARGIN * spread / np.sqrt(q.shape[1])
+    around = np.abs(q - mean[:, None, :]).max(axis=1)
+    x = s**2 - np.mean(s**2, axis=1, keepdims=True)
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        slope = np.sum(x * (q - mean[:, None, :]), axis=1) / np.sum(x * x, axis=1)
+        line = np.abs(q - mean[:, None, :] - np.where(np.isfinite(slope), slope, 0.0)[:, None, :] * x).max(axis=1)
+        line = line * np.sqrt((jitters - 1) / (jitters - 2))
+    spread = np.where(np.isfinite(line), np.minimum(around, line), around)
+    return mean, MARGIN * spread / np.sqrt(jitters)
 
 
 def jittered_estimate(probe: TensorProbe, flat: np.ndarray, taken: list[Taken]) -> Estimate:
@@ -134,18 +154,44 @@ def _flat_bound(probe: TensorProbe, widest: np.ndarray) -> np.ndarray:
         return spacing / widest
 
 
-def _kink_jump(gap: np.ndarray, gap_noise: np.ndarray, s: np.ndarray) -> np.ndarray:
+def _pair_jump(gap: np.ndarray, gap_noise: np.ndarray, s: np.ndarray, k: int) -> np.ndarray:
+    """The one-sided gap of levels k and k + 1 on its line extrapolated to s = 0, with its
+    rounding added (inf where unknown)."""
+    s0, s1 = s[k], s[k + 1]
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        w0, w1 = s1 / (s1 - s0), s0 / (s1 - s0)
+        jump = np.abs(w0 * gap[k] - w1 * gap[k + 1]) + w0 * gap_noise[k] + w1 * gap_noise[k + 1]
+    return np.where(np.isfinite(jump), jump, np.inf)
+
+
+def _kink_jump(gap: np.ndarray, gap_noise: np.ndarray, s: np.ndarray, top: np.ndarray | None = None) -> np.ndarray:
     """The largest jump of slope that a kink within the levels' steps could have, per
     coordinate (levels by coordinates, ascending): the one-sided gap is f'' s plus, once the
     steps straddle a kink, its jump; the two widest levels straddle every kink within the
     steps, and their line through the gap extrapolated to s = 0 (with its rounding added)
     shows the jump (inf where their gap is unknown). A smooth loss shows its rounding and
-    its gap's higher orders only, which make the bound larger, never smaller."""
-    s0, s1 = s[-2], s[-1]
-    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-        w0, w1 = s1 / (s1 - s0), s0 / (s1 - s0)
-        jump = np.abs(w0 * gap[-2] - w1 * gap[-1]) + w0 * gap_noise[-2] + w1 * gap_noise[-1]
-    return np.where(np.isfinite(jump), jump, np.inf)
+    its gap's higher orders only, which make the bound larger, never smaller.
+
+    With ``top`` (per coordinate, the widest level whose quotient the estimate takes, L): only
+    kinks within that level move the estimate, and a kink at distance t s_L moves a quotient
+    at s_L by (J / 2)(1 - t), a Richardson value of levels L - 1 and L by at most J / 2. The
+    line through the gaps of levels k, k + 1 (each twice the last) gives J (1 - 3 t s_L / (2
+    s_k)) for a kink within s_k: at least twice the move wherever s_k >= 2 s_L, and the larger
+    of the lines at L - 1 and at L at least 1.5 times it; each is a bound, the smallest taken
+    (the narrower levels' lines carry less of the gap's higher orders). The widest two as
+    above stay a bound in every case (where L is one below the widest, as checked against
+    mpmath on the adversarial inside16 and float16 sets before the narrower lines were added)."""
+    widest = _pair_jump(gap, gap_noise, s, s.shape[0] - 2)
+    if top is None:
+        return widest
+    pairs = [_pair_jump(gap, gap_noise, s, k) for k in range(s.shape[0] - 1)]
+    jump = widest  # never more than the widest two give, as where no level was taken
+    for L in range(1, s.shape[0] - 1):
+        here = np.maximum(pairs[L - 1], pairs[L])
+        for k in range(L + 1, s.shape[0] - 1):
+            here = np.minimum(here, pairs[k])
+        jump = np.where(top == L, np.minimum(here, widest), jump)
+    return jump
 
 
 def _jittered(probe: TensorProbe, flat: np.ndarray, taken: list[Taken]) -> tuple[Estimate, np.ndarray]:
@@ -172,8 +218,8 @@ def _jittered_all(probe: TensorProbe, flat: np.ndarray,
     with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
         central = p.central.reshape(shape)
         right, left = (q.reshape(shape) for q in p.sides(probe.f0))
-        d, e = _mean_and_noise(central)
         hp, hm = p.h_plus.reshape(shape), p.h_minus.reshape(shape)
+        d, e = _mean_and_noise(central, 0.5 * (hp + hm))
         s = np.sqrt(np.mean((0.5 * (hp + hm)) ** 2, axis=1))
         # The one-sided gap is f'' times the step (curvature), which changes across the
         # jitter by up to 3/8 of itself: its rounding is read off the spread of the gap over
@@ -181,7 +227,7 @@ def _jittered_all(probe: TensorProbe, flat: np.ndarray,
         # quotients' is off theirs (a kink's jump over the step varies across the jitter, and
         # its spread counts, larger).
         gap = (right - left).mean(axis=1)
-        gap_noise = _mean_and_noise((right - left) / (0.5 * (hp + hm)))[1] * s
+        gap_noise = _mean_and_noise((right - left) / (0.5 * (hp + hm)), 0.5 * (hp + hm))[1] * s
         # One loss value's rounding (quotient's times step): the largest any level shows, for
         # every level (one whose roundings move together shows too little of it, one whose
         # quotients all agree none; where no level shows any, it is unknown). The gap's: at
@@ -195,12 +241,21 @@ def _jittered_all(probe: TensorProbe, flat: np.ndarray,
         shown = np.where(inner.any(axis=0), inner, shown)
         value = np.where(shown.any(axis=0), np.max(np.where(shown, e * s, 0.0), axis=0), np.inf)
         e = np.where(fresh, np.maximum(value, np.where(within, 0.0, e * s)) / s, np.inf)
-        gap_noise = np.where(fresh, np.maximum(np.max(np.where(fresh, gap_noise * s, 0.0), axis=0) / s, 2.0 * e), np.inf)
+        # The gap's the same way: levels within the params' scale speak for all (where any is
+        # fresh), one beyond it also for itself where larger.
+        told = fresh & within
+        told = np.where(told.any(axis=0), told, fresh)
+        shared = np.max(np.where(told, gap_noise * s, 0.0), axis=0)
+        own = np.where(within, 0.0, gap_noise * s)
+        gap_noise = np.where(fresh, np.maximum(np.maximum(shared, own) / s, 2.0 * e), np.inf)
         asymmetry = np.mean(np.abs(hp - hm) / np.maximum(hp + hm, 1e-300), axis=1)
     unmoved = np.all((p.f_plus.reshape(shape) == probe.f0) & (p.f_minus.reshape(shape) == probe.f0), axis=(0, 1))
     widest = np.minimum(hp[-1], hm[-1]).min(axis=0)
-    return (plain_windowed(d, s, e, gap, gap_noise, asymmetry, _reach(probe, flat)), _kink_jump(gap, gap_noise, s),
-            unmoved, widest)
+    table = (d, s, e, gap, gap_noise, asymmetry, _reach(probe, flat))
+    (plain, plain_top), (extrapolated, extrapolated_top) = plain_windowed_at(*table), windowed_at(*table)
+    better = extrapolated.error < plain.error
+    est = Estimate.where(better, extrapolated, plain)
+    return est, _kink_jump(gap, gap_noise, s, np.where(better, extrapolated_top, plain_top)), unmoved, widest
 
 
 def measured_passes(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken: list[Taken]) -> Judged:

@@ -75,7 +75,15 @@ def windowed(d: np.ndarray, s: np.ndarray, e: np.ndarray, apart: np.ndarray, sid
     rounding ``e``, the one-sided quotients' difference ``apart`` (right - left) and its
     rounding ``side_noise``, the moves' relative ``asymmetry``, and the largest step each
     column may use (``limit``)."""
+    return windowed_at(d, s, e, apart, side_noise, asymmetry, limit)[0]
+
+
+def windowed_at(d: np.ndarray, s: np.ndarray, e: np.ndarray, apart: np.ndarray, side_noise: np.ndarray,
+                asymmetry: np.ndarray, limit: np.ndarray) -> tuple[Estimate, np.ndarray]:
+    """:func:`windowed`, and per column the row of the widest quotient its value takes (the
+    window's second; -1 where no window bounds it)."""
     rows, n = d.shape
+    top = np.full(n, -1)
     gap = np.abs(apart)
     # The second difference over the step's square, f'' + f'''' s**2 / 12 + ...: the even part
     # of the loss along the coordinate, with its rounding.
@@ -137,7 +145,8 @@ def windowed(d: np.ndarray, s: np.ndarray, e: np.ndarray, apart: np.ndarray, sid
             take = bound < error
             value = np.where(take, r12, value)
             error = np.where(take, bound, error)
-    return Estimate(value, error)
+            top = np.where(take, w + 1, top)
+    return Estimate(value, error), top
 
 
 def _agree(a: np.ndarray, slack_a: np.ndarray, b: np.ndarray, slack_b: np.ndarray) -> np.ndarray:
@@ -186,7 +195,15 @@ def plain_windowed(d: np.ndarray, s: np.ndarray, e: np.ndarray, apart: np.ndarra
     the same direction, beyond rounding (the quotients follow c2 s**2), the one-sided gap
     shrinks with the step, and every smaller step's quotient lies as close to the estimate
     as its rounding allows."""
+    return plain_windowed_at(d, s, e, apart, side_noise, asymmetry, limit)[0]
+
+
+def plain_windowed_at(d: np.ndarray, s: np.ndarray, e: np.ndarray, apart: np.ndarray, side_noise: np.ndarray,
+                      asymmetry: np.ndarray, limit: np.ndarray) -> tuple[Estimate, np.ndarray]:
+    """:func:`plain_windowed`, and per column the row of the quotient its value is (the
+    window's second; -1 where no window bounds it)."""
     rows, n = d.shape
+    top = np.full(n, -1)
     gap = np.abs(apart)
     e = e + gap * asymmetry
     value = d[0].copy()
@@ -212,4 +229,5 @@ def plain_windowed(d: np.ndarray, s: np.ndarray, e: np.ndarray, apart: np.ndarra
             take = bound < error
             value = np.where(take, d[i2], value)
             error = np.where(take, bound, error)
-    return Estimate(value, error)
+            top = np.where(take, i2, top)
+    return Estimate(value, error), top
