@@ -153,3 +153,62 @@ def test_the_kink_allowance_of_narrow_levels_is_theirs():
     for top in (1, 2, 3):
         assert _kink_jump(kinked, noise, s, np.array([top]))[0] > 1.0
 
+
+def _inside_float32(factor: float):
+    """The crop layer on float32 arrays cast to float16 inside, scored by the mean softplus of
+    the residuals (log(1 + e**r): a loss near 0.7 that barely moves when every param moves by
+    a unit of float16's), its loss returned as float32 after the float16 cast."""
+    rng = np.random.default_rng(0)
+    w = 0.5 * rng.normal(size=3)
+    x = rng.normal(size=(24, 3))
+    y = np.tanh(x @ w + 0.1) + 0.2 * rng.normal(size=24)
+    params = {"W": (w + 0.1 * rng.normal(size=3)).astype(np.float32), "b": np.array([0.3], np.float32)}
+    inputs = {"x": x.astype(np.float32), "y": y.astype(np.float32)}
+
+    def parts(p, i):
+        x16, y16 = i["x"].astype(F16), i["y"].astype(F16)
+        t = np.tanh(x16 @ p["W"].astype(F16) + p["b"].astype(F16)[0])
+        return x16, t, t - y16
+
+    def forward(p, i):
+        _, _, r = parts(p, i)
+        return np.float32(F16(np.mean(np.log(F16(1) + np.exp(r)))))
+
+    def backward(p, i):
+        x16, t, r = parts(p, i)
+        dz = F16(1) / (F16(1) + np.exp(-r)) / F16(r.size) * (F16(1) - t * t)  # softplus' = logistic
+        return {"W": (x16.T @ dz).astype(np.float32),
+                "b": (np.sum(dz, keepdims=True) * F16(factor)).astype(np.float32)}
+
+    return forward, backward, params, inputs
+
+
+def test_float16_inside_float32_is_told_from_bfloat16_by_its_loss_values():
+    """The losses this code returns are float16 values (11 significant bits), finer than
+    bfloat16's 8 (facts of the formats): float16 is found, not the coarser type taken for
+    want of a move of 2**-10 that the loss sees, and a bias gradient 10% off (more than twice
+    float16's threshold of 0.044 by mpmath) is never passed."""
+    forward, backward, params, inputs = _inside_float32(1.0)
+    seen = [float(forward({**params, "b": params["b"] + np.float32(d)}, inputs)) for d in (0.0, 0.05, -0.05)]
+    assert all(float(F16(v)) == v for v in seen) and len(set(seen)) == 3
+    bf16 = pytest.importorskip("ml_dtypes").bfloat16
+    assert any(float(np.float32(v).astype(bf16)) != v for v in seen)
+    p64 = {k: v.astype(np.float64).astype(F16).astype(np.float64) for k, v in params.items()}
+    i64 = {k: v.astype(F16).astype(np.float64) for k, v in inputs.items()}
+
+    def mp_loss(b):
+        total = 0
+        for row, t in zip(i64["x"], i64["y"]):
+            z = sum(mpmath.mpf(float(a)) * mpmath.mpf(float(c)) for a, c in zip(row, p64["W"])) + b
+            total += mpmath.log(1 + mpmath.exp(mpmath.tanh(z) - mpmath.mpf(float(t))))
+        return total / len(i64["y"])
+
+    with mpmath.workdps(30):
+        exact = float(mpmath.diff(mp_loss, mpmath.mpf(float(p64["b"][0]))))
+    given = float(backward(params, inputs)["b"][0])
+    assert abs(given / exact - 1.0) < 0.02
+    bad = float(_inside_float32(1.1)[1](params, inputs)["b"][0])
+    assert abs(bad / exact - 1.0) > 2 * 0.044
+    report = probe(*_inside_float32(1.1))
+    assert report.compute_dtype == "float16"
+    assert report.tensor("b").status.value != "pass"

@@ -26,7 +26,9 @@ where it is within 4 times the nearer pair's; else the nearer pair's: a kink cro
 (or a bend between the moves) makes the wider pair's change no measure of the slope at the
 point. A loss unchanged on a side of the nearer pair is flat there (a relu off at the point,
 in float32 code as much as in 16-bit code): no evidence. float16 rather than
-bfloat16 needs positive evidence: the loss ignores four moves of 0.875 * 2**-12 in random
+bfloat16 needs positive evidence: the loss values seen lie on float16's grid and not all on
+bfloat16's (code that returns its loss rounded to float16; a loss that barely depends on the
+params ignores every move below), or the loss ignores four moves of 0.875 * 2**-12 in random
 directions (below float16's resolution) and sees one of 2**-10 (a unit of float16's, below
 bfloat16's). Otherwise the coarser type is concluded (bfloat16 code whose params pass
 through float32 arithmetic before the cast can see a move of 2**-10), which judges code
@@ -125,15 +127,18 @@ class _Looks:
     def __init__(self, evaluator: Evaluator, ws: Workspace, names: list[str],
                  source: Workspace | None) -> None:
         self.evaluator, self.ws, self.names, self.source = evaluator, ws, names, source
+        self.seen: list[float] = []  # every loss value the looks gave
 
     def loss(self, relative: float, grid: np.dtype, signs: np.random.Generator | None = None,
              spread: bool = False) -> float:
         in_place = self.source is not None
         try:
-            return self.evaluator.loss_with(_moved(self.ws, self.names, relative, grid, signs, in_place, spread))
+            value = self.evaluator.loss_with(_moved(self.ws, self.names, relative, grid, signs, in_place, spread))
         finally:
             if in_place:
                 self._restore()
+        self.seen.append(float(value))
+        return value
 
     def _restore(self) -> None:
         assert self.source is not None
@@ -208,6 +213,20 @@ def on_a_sixteen_bit_grid(values: list[float]) -> bool:
     return _on_a_grid(finite, _bfloat16() or np.dtype(np.float16))
 
 
+def _finer_than(values: list[float], grid: np.dtype) -> bool:
+    """The losses lie on float16's grid, at least three distinct and finite, and one at least
+    not on ``grid`` (bfloat16's, whose 8 significant bits float16's 11 hold): code that
+    rounds its loss to float16 last, not bfloat16 code (a float32 value lies on float16's grid
+    by chance once in 2**13)."""
+    seen = np.asarray([v for v in values if np.isfinite(v)], np.float64)
+    if seen.size < len(values) or len(set(seen.tolist())) < 3:
+        return False
+    with np.errstate(over="ignore"):
+        half = seen.astype(np.float16).astype(np.float64)
+        coarse = seen.astype(grid).astype(np.float64)
+    return bool(np.all(half == seen) and np.any(coarse != seen))
+
+
 def _first_order(looks: _Looks, grid: np.dtype, rounded: float, seed: int | None = None) -> float | None:
     """The first-order part of the loss's change at a move of ``SIXTEEN_LARGE`` (which every
     16-bit type resolves), from half the difference of the losses at moves up and down (a loss
@@ -264,6 +283,8 @@ def _sixteen_bits(looks: _Looks, f0: float, out_dtype: np.dtype, unchanged: floa
     half = HiddenType(np.dtype(np.float16), said + ")")
     if grid == np.float16:
         return half
+    if _finer_than(looks.seen, grid):
+        return HiddenType(np.dtype(np.float16), said + "; its values lie on float16's grid, finer than bfloat16's)")
     rng = np.random.default_rng(0)  # fixed signs: the look is the same on every run
     for _ in range(SUB_UNIT_TRIES):  # below float16's resolution: float16 code ignores each
         if looks.loss(SUB_UNIT, grid, rng) != rounded:
