@@ -212,3 +212,16 @@ def test_float16_inside_float32_is_told_from_bfloat16_by_its_loss_values():
     report = probe(*_inside_float32(1.1))
     assert report.compute_dtype == "float16"
     assert report.tensor("b").status.value != "pass"
+
+
+def test_a_direction_whose_steps_straddle_a_kink_is_no_false_alarm():
+    """Case 49343 of the adversarial generator (tests/adversarial, category inside16; reference:
+    its mpmath judge), correct: abs terms in bfloat16 inside float64 arrays, one kink 1e-3 of
+    the param's scale from the point. Along the analytic gradient every step straddles it:
+    the one-sided gap stays near the jump (0.17 to 0.18 at the three widest steps) instead of
+    halving with the step, though rounding leaves no two consecutive gaps resolved, and the
+    central quotients sit half the jump off; the tensor failed on that direction."""
+    from adversarial import judged_cleanly
+
+    o = judged_cleanly("inside16", 49343)
+    assert not o["false_alarm"], (o["status"], o["expect"])

@@ -13,7 +13,9 @@ the moves m the forward really sees subtracted (so the rounding of x +- t d to t
 grid cancels). The loss's rounding is measured on the direction itself, at the point and at
 both widest steps (:func:`_rounding`), never below the spacing of the loss values seen (a
 loss rounded to 16 bits last takes only values that far apart). A direction whose one-sided
-slopes stay apart as the step halves crosses a kink and says nothing.
+slopes stay apart as the step halves crosses a kink and says nothing; so does one whose gap,
+on its line through the steps about the widest step the estimate takes, misses 0 by more
+than its rounding (:func:`_jump_shown`: a kink within that step).
 
 Where the discrepancy exceeds SIGNIFICANCE of its bound (a coordinate's margin: the bound is
 a coordinate's wide-step bound, checked on the quotients the same way) and also the most that
@@ -36,7 +38,7 @@ from ..common.status import FAIL, INCONCLUSIVE
 from ..report.model import DirectionResult
 from .coordinates import CoordinateOutcome
 from .ladder import Estimate
-from .wide_steps import WIDE_NOISE, plain_windowed, windowed
+from .wide_steps import WIDE_NOISE, plain_windowed_at, windowed_at
 from .probe import TensorProbe
 from .widened import as_seen
 from .sampling import tensor_rng
@@ -216,8 +218,29 @@ def _measure(probe: TensorProbe, d: np.ndarray) -> _Seen | None:
     column = lambda v: np.asarray(v, dtype=np.float64).reshape(STEPS, 1)  # noqa: E731
     rows = (column(central), column(steps), column(noise / steps), column(right - left),
             column(gap_noise), column(asymmetry), np.array([top]))
-    est = Estimate.better(windowed(*rows), plain_windowed(*rows))
+    (plain, plain_top), (extrapolated, extrapolated_top) = plain_windowed_at(*rows), windowed_at(*rows)
+    better = bool(extrapolated.error[0] < plain.error[0])
+    est = extrapolated if better else plain
+    if _jump_shown(right - left, gap_noise, steps, int((extrapolated_top if better else plain_top)[0])):
+        return None  # a kink within the steps the estimate takes: they say nothing of the gradient
     return _Seen(float(est.value[0]), float(est.error[0]), float(probe.a @ d), most)
+
+
+def _jump_shown(gap: np.ndarray, gap_noise: np.ndarray, steps: np.ndarray, top: int) -> bool:
+    """The one-sided gap on its line through steps L - 1 and L, or L and L + 1 (L = ``top``, the
+    widest step whose quotient the estimate takes), misses 0 by more than its rounding: a
+    kink lies within step L (curvature puts the line through 0, up to higher orders far
+    smaller there), moving the estimate by up to half its jump. A kink closer than the
+    smallest step keeps the gap near its jump at every step, which :func:`_kinked` misses
+    where rounding leaves consecutive gaps unresolved."""
+    for k in (top - 1, top):
+        if k < 0 or k + 1 >= steps.size:
+            continue
+        s0, s1 = steps[k], steps[k + 1]
+        w0, w1 = s1 / (s1 - s0), s0 / (s1 - s0)
+        if abs(w0 * gap[k] - w1 * gap[k + 1]) > w0 * gap_noise[k] + w1 * gap_noise[k + 1]:
+            return True
+    return False
 
 
 def _fuzz_along(probe: TensorProbe, d: np.ndarray) -> float:
