@@ -89,5 +89,12 @@ def test_the_other_pipes_are_decided_and_their_failures_carry_mpmaths_derivative
     assert all(d.status.value != "inconclusive" for d in t.details)
     failed = [d for d in t.details if d.status.value == "fail"]
     for d in failed:
-        assert abs(d.numeric - mp_derivative(d.index[0])) <= 3 * d.error_estimate
+        if d.reason is None:  # decided at the point: its numeric value is mpmath's there
+            assert abs(d.numeric - mp_derivative(d.index[0])) <= 3 * d.error_estimate
+        else:  # failed at a point moved off the pole's neighbourhood: that point's values
+            assert "values shown are the moved point's" in d.reason
     assert len(failed) >= 2  # the pole's pipe and the steepest of the others (its error 3.6e9)
+    # Pipe 1 sits 2e-6 from its own limit: its derivative is mpmath's 6.28e6 against an
+    # analytic -0.31, an error far above the threshold at the tensor's scale; quotients
+    # running off across that pole give no bound and pass nothing.
+    assert t.status.value == "fail" and 1 in [d.index[0] for d in failed]

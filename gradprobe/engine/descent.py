@@ -48,7 +48,7 @@ def still_growing(ladder: Ladder) -> np.ndarray:
         runs = [_run_away(q[k - 3:k + 1]) for k in range(3, rows)]  # the changes ending at row k
         room = 2.0 * NOISE_UNITS * (noise[-1] + noise[-2])
         last = np.abs(q[-1] - q[-2]) > room
-        return (runs[-1] & last) | turned(q, runs, last)
+        return (runs[-1] & last) | turned(q, runs, last) | crossed_at_last(q, runs, last)
 
 
 def _run_away(q: np.ndarray) -> np.ndarray:
@@ -72,6 +72,21 @@ def turned(q: np.ndarray, runs: list[np.ndarray], last: np.ndarray) -> np.ndarra
     changes = np.abs(np.diff(q, axis=0))
     peak = np.argmax(changes, axis=0)
     return before & last & (peak >= 3) & (peak < changes.shape[0] - 1)
+
+
+def crossed_at_last(q: np.ndarray, runs: list[np.ndarray], last: np.ndarray) -> np.ndarray:
+    """Quotients that ran away (:func:`_run_away`) up to the row before the last, whose last
+    change turned sign, beyond the noise (``last``), and is larger still than the one before:
+    the smallest step crossed the pole (a quotient across it takes the other sign, larger
+    yet), which lies between the last two steps; a ladder below them is inside its distance
+    (steep-73014: 1/(1 - u) with its pole 1.4e-9 away, the central quotients growing 4-fold
+    per halving to 3.8e15 at 1.9e-9, then -5.3e15 at 9.3e-10). Quotients scattering at a
+    kink after an early run change less than that."""
+    if len(runs) < 2:
+        return np.zeros(q.shape[1], dtype=bool)
+    c_last, c_before = q[-1] - q[-2], q[-2] - q[-3]
+    turn = (c_last * c_before < 0) & (np.abs(c_last) >= np.abs(c_before))
+    return runs[-2] & last & turn
 
 
 def descend(probe: TensorProbe, flat: np.ndarray, judged: Judged, ladder: Ladder, taken: list[Taken]) -> Judged:

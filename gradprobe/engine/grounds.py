@@ -22,6 +22,9 @@ only failures whose assumption the evidence contradicts; passes are never touche
   on it must also stand against the distance to the smallest step's quotient plus the last
   change (the tail of a first-order series halving per row, what corners crossed within the
   steps leave).
+- :func:`.taylor_range.unscaled_moves`: a ladder whose rows move the loss by amounts that do
+  not grow with the step (beyond the rounding) was not in the loss's Taylor range, whatever
+  its estimates agree on.
 - :func:`drifting_sides`: one-sided estimates on steps growing to the params' scale whose
   quotients move like c/h (a fixed change of the loss at every step: a pole or kink closer
   than the steps, its term dropping out) say nothing of the slope at the point.
@@ -43,6 +46,7 @@ from .ladder import NOISE_UNITS, PREDICTION_SLACK, SAFETY, Estimate, drifting
 from .probe import Pairs, TensorProbe
 from .refine import RATIO, Ladder, Taken, grown_changes, tiny_pair
 from .kinks import judge_ladder, sides_differ
+from .taylor_range import unscaled_moves
 from .verdict import BOTH_SIDES_MOVED, CROWDED, SIGNIFICANCE, UNRESOLVED, UNSETTLED, Judged
 
 OFF_GRID = 2.0**-0.5  # the check's step: the ladder's smallest over sqrt(2), between two rows
@@ -64,7 +68,8 @@ def judged_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, start: n
         if start is not None and taken:
             ladder = crossed_wider(probe, flat, start, ladder, taken, which)
     judged = crossed_bound(probe, flat, ladder, judge_ladder(probe, flat, ladder, tiny), wider)
-    return rows_bear_out(probe, flat, ladder, off_the_grid(probe, flat, ladder, judged))
+    judged = rows_bear_out(probe, flat, ladder, off_the_grid(probe, flat, ladder, judged))
+    return unscaled_moves(probe, flat, ladder, judged)
 
 
 def rows_bear_out(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Judged) -> Judged:

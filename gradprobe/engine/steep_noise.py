@@ -41,7 +41,7 @@ from .ladder import Estimate
 from .probe import Pairs, TensorProbe
 from .refine import Taken, pairs_reusing
 from .steps import slope_change
-from .verdict import NOISE, Judged, judge_plain
+from .verdict import NOISE, SIGNIFICANCE, Judged, judge_plain
 from .wide_steps import WIDE_NOISE, plain_windowed, wide_table, windowed
 
 MEASURED = 32  # coordinates per tensor measured (the first undecided ones)
@@ -113,10 +113,29 @@ def chain_estimate(probe: TensorProbe, flat: np.ndarray, top: np.ndarray, taken:
     table = wide_table(probe, chain, CHAIN, limit)
     seen = Estimate.better(windowed(*table), plain_windowed(*table))
     kinked = _kinked(np.abs(table[3]), table[4]) | _gap_turns(table[3], table[4])
+    with np.errstate(invalid="ignore"):
+        moved = np.maximum(np.abs(f_plus - probe.f0), np.abs(probe.f0 - f_minus))
+    steps = np.maximum(fields[2], fields[3])
+    kinked |= _rounding_alone(probe, flat[mine], moved, rounding, np.where(usable, steps, 0.0))
     seen = Estimate(seen.value, np.where(kinked, np.inf, seen.error))
     value, error = est.value.copy(), est.error.copy()
     value[mine], error[mine] = seen.value, seen.error
     return Estimate(value, np.where(np.isfinite(error), error, np.inf))
+
+
+def _rounding_alone(probe: TensorProbe, flat: np.ndarray, moved: np.ndarray, rounding: np.ndarray,
+                    steps: np.ndarray) -> np.ndarray:
+    """Per column of the chain: the loss moved by no more than two values' ``rounding`` (the
+    one measured) at every row, while backward's slope predicts SIGNIFICANCE times that at
+    the widest: as :func:`.grounds.rounding_only` on the target's figure, the coordinate
+    reaches the loss only at its rounding level here, and a flat reading says nothing of the
+    slope at the point (steep-73224: sines of amplitude 0.03 and period 1e-4 beside a loss of
+    4.4e12, their moves within the 0.07 measured along the coordinate at every step from
+    2.4e-4 to 3.1e-2, read as 0.3 +- 15 against a true -924)."""
+    with np.errstate(invalid="ignore", over="ignore"):
+        within = np.all(~(moved > 2.0 * rounding), axis=0)
+        predicted = np.abs(probe.a[flat]) * steps.max(axis=0) > SIGNIFICANCE * 2.0 * rounding
+    return within & predicted
 
 
 def _gap_turns(gap: np.ndarray, side_noise: np.ndarray) -> np.ndarray:
@@ -173,8 +192,9 @@ def measured_rounding(probe: TensorProbe, flat: np.ndarray, widest: np.ndarray) 
     n = flat.size
     x = probe.x[flat].astype(np.float64)
     slope = np.maximum(np.abs(probe.a[flat]), 1e-300)
-    delta = np.clip(CHANGE_ULPS * probe.eps * max(abs(probe.f0), 1e-300) / slope,
-                    SMALLEST_SHARE * widest, LARGEST_SHARE * widest)
+    with np.errstate(over="ignore"):  # a huge loss over a slope near 0: the largest share
+        delta = np.clip(CHANGE_ULPS * probe.eps * max(abs(probe.f0), 1e-300) / slope,
+                        SMALLEST_SHARE * widest, LARGEST_SHARE * widest)
     offsets = np.arange(POINTS) - (POINTS - 1) / 2.0
     points = []
     with np.errstate(over="ignore", invalid="ignore"):

@@ -152,7 +152,16 @@ def _pairs_where(probe: TensorProbe, flat: np.ndarray, h: np.ndarray, factors: n
 
 
 def gap_suspects(probe: TensorProbe, flat: np.ndarray, first: Pairs) -> np.ndarray:
+    """Per coordinate: the first pair's one-sided slopes lie apart by more than GAP_SUSPECT of
+    the larger, beyond their rounding, and by more than the tolerance. Such a pair does not
+    settle a coordinate, whatever its central quotient says: a kink may lie within it, or a
+    feature far narrower than the step (a pole 1.4e-9 away beneath a step of 2.4e-4: both
+    sides fall by the pole's term, their slopes +-1.7e10 against a central quotient of 7e4
+    and a true slope of 3e15, steep-73014). A gap within the tolerance is no concern on a
+    loss smooth over the step (the central quotient's truncation is then a fraction of it);
+    the slopes' size alone, not the target's floor, says whether the gap is large."""
     right, left = first.sides(probe.f0)
-    size = np.maximum(np.maximum(np.abs(left), np.abs(right)), probe.floor)
+    gap = np.abs(right - left)
+    size = np.maximum(np.abs(left), np.abs(right))
     noise = 4 * first.noise / np.minimum(first.h_plus, first.h_minus)
-    return np.abs(right - left) > GAP_SUSPECT * size + noise
+    return (gap > GAP_SUSPECT * size + noise) & (gap > probe.tolerance(flat, first.central))
