@@ -18,6 +18,10 @@ show the loss in its Taylor range.
   along the coordinate (0.07, the sines' ripple within it) moved the loss by less than two
   such roundings at every step from 2.4e-4 to 3.1e-2 and read 0.3 +- 15 against a true and
   analytic -924. No step resolves the threshold there either: never fail.
+- steep-89576, steep-87818 (correct, fresh seed ranges): sines whose amplitude is one to two
+  roundings of the loss, beneath the steps of the ladder between the 16-fold levels; its rows
+  moved the loss by 1 to 2.3 roundings at every step from 3.8e-6 to 6.1e-5, and read 5e6 +-
+  2.4e7 against a true 1.98e8 (89576). Never fail.
 
 Reference: mpmath at 50 digits through the adversarial generator (tests/adversarial: every
 piece's derivative from the standard tables, checked against mpmath's own differentiation of
@@ -45,6 +49,14 @@ def test_sines_moving_the_loss_within_its_measured_rounding_are_no_failure():
     assert o["correct"] and o["expect"]["p0"] == "quiet"
     assert not o["false_alarm"], o["status"]
     assert o["status"]["p0"] in ("pass", "inconclusive"), o["status"]
+
+
+def test_sines_of_a_few_roundings_beneath_the_steps_are_no_failure():
+    for seed, tensor in ((89576, "p1"), (87818, "p0")):
+        o = _judged(seed)
+        assert o["correct"] and o["expect"][tensor] == "quiet"
+        assert not o["false_alarm"], (seed, o["status"])
+        assert o["status"][tensor] in ("pass", "inconclusive"), (seed, o["status"])
 
 
 def test_a_gradient_left_out_beside_a_pole_closer_than_the_first_step_fails():

@@ -26,12 +26,15 @@ UNSCALED_GROWTH = 2.0  # ... moving the loss by at most twice the smallest row's
 
 def unscaled_moves(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Judged) -> Judged:
     """``judged`` with failures undecided (UNSETTLED, so a retry goes to smaller steps) where
-    every row at least UNSCALED_SPAN times the smallest step moved the loss by at most
-    UNSCALED_GROWTH times the smallest row's move, that one beyond twice two values' rounding.
-    In the Taylor range such a move grows at least 3.5-fold 8 times wider (7.5-fold 16 times
-    wider), whatever the derivatives. steep-73003: sines of period 3e-6 to 4e-6 beneath steps
-    of 1.2e-4 to 7.6e-6 moved a loss of 7.9e29 by about 1e16 at every step; the sides' mean
-    read 8.5e19 +- 2.1e21 against a true -1.85e22 and failed a correct gradient."""
+    the ladder's rows moved the loss beyond two values' rounding somewhere, yet no row at
+    least UNSCALED_SPAN times the smallest step moved it by more than UNSCALED_GROWTH times
+    the smallest row's move (or than two roundings, where that is larger): the coordinate
+    moves the loss by more than rounding can, and by no more at wider steps
+    (:func:`moves_unscaled`). steep-73003: sines of period 3e-6 to 4e-6 beneath steps of
+    1.2e-4 to 7.6e-6 moved a loss of 7.9e29 by about 1e16 at every step; the sides' mean read
+    8.5e19 +- 2.1e21 against a true -1.85e22 and failed a correct gradient. steep-89576: a
+    sine of amplitude 1.5 roundings beneath steps of 6.1e-5 to 3.8e-6, moves of 1 to 2.3
+    roundings at every step, read 5e6 +- 2.4e7 against a true 1.98e8."""
     if is_narrow(probe.compute_dtype) or ladder.pairs is None:
         return judged
     which = np.flatnonzero(judged.status == FAIL)
@@ -48,12 +51,17 @@ def unscaled_moves(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged:
     return judged.undecided(k, (UNSETTLED,) * k.size, noise_limited=False)
 
 
-
 def moves_unscaled(moved: np.ndarray, noise: np.ndarray, h: np.ndarray) -> np.ndarray:
-    """Per column of rows of pairs (rows, coordinates; NaN rows not taken): the larger
-    one-sided ``moved`` at the smallest step ``h`` lies beyond twice two values' rounding
-    (``noise``, one value's), and every row at least UNSCALED_SPAN times that step moved the
-    loss by at most UNSCALED_GROWTH times as much (there is one such row at least)."""
+    """Per column of rows of pairs (rows, coordinates; NaN rows not taken): some row's larger
+    one-sided move ``moved`` lies beyond two values' rounding (``noise``, one value's), and
+    every row at least UNSCALED_SPAN times the smallest step ``h`` moved the loss by at most
+    UNSCALED_GROWTH times the smallest row's move or two roundings, the larger (there is one
+    such row at least). In the Taylor range a move m at the smallest step gives at least
+    8 (m - 2 e) - 2 e eight times wider: beyond twice m from m = 4.5 e up. Below that, a
+    slope whose moves stay within four roundings at every step is what the rows could still
+    be: the withheld failures are those whose loss moves by more than rounding can, and by no
+    more at steps 8 to 64 times wider, where a bug resolved by the loss would move it in
+    proportion."""
     with np.errstate(invalid="ignore", over="ignore"):
         taken = np.isfinite(moved) & np.isfinite(h)
         h = np.where(taken, h, np.inf)
@@ -61,8 +69,10 @@ def moves_unscaled(moved: np.ndarray, noise: np.ndarray, h: np.ndarray) -> np.nd
         cols = np.arange(h.shape[1])
         smallest, step, rounding = moved[low, cols], h[low, cols], noise[low, cols]
         wide = taken & (h >= UNSCALED_SPAN * step * (1 - 1e-9))
-        held = np.all(np.where(wide, moved <= UNSCALED_GROWTH * smallest, True), axis=0)
-        return held & wide.any(axis=0) & (smallest > 4.0 * rounding)
+        reach = UNSCALED_GROWTH * np.maximum(smallest, 2.0 * rounding)
+        held = np.all(np.where(wide, moved <= reach, True), axis=0)
+        seen = np.any(taken & (moved > 2.0 * rounding), axis=0)
+        return held & wide.any(axis=0) & seen
 
 
 __all__ = ["unscaled_moves"]
