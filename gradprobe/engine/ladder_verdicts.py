@@ -12,9 +12,9 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..common.status import INCONCLUSIVE
+from ..common.status import INCONCLUSIVE, PASS
 from .close_kinks import looked_closer
-from .descent import between_levels, descend
+from .descent import between_levels, descend, still_growing
 from .grounds import drifting_sides, judged_ladder, sides_grown
 from .ladder import Estimate
 from .lopsided import kink_beside
@@ -23,7 +23,7 @@ from .refine import RATIO, ROWS, Taken, climb, ladder_taken
 from .side_failures import failures_on_own_rounding
 from .sides_apart import judge_sides_apart, one_sided_rows, outside_sides, side_estimate
 from .steps import largest_smooth_step
-from .verdict import NOISE, OUTSIDE_SIDES, Judged
+from .verdict import NOISE, OUTSIDE_SIDES, UNSETTLED, Judged
 
 RETRY_SHIFT = 6  # a second ladder starts 2**6 steps higher (noise) or lower (curvature)
 
@@ -40,6 +40,11 @@ def ladder_verdicts(
     start = start if ladder.start is None else ladder.start  # restarted below a domain edge
     first = kink_beside(probe, flat, ladder, judged_ladder(probe, flat, ladder, start, before))
     before.append(ladder_taken(flat, start, ladder))
+    # A pass on an estimate with no bound whose central quotients run away as the step shrinks
+    # (a pole closer than the steps: 1/(1 - u) 1.4e-9 away read 4e8 +- inf against a true 3e15
+    # and passed a gradient left out, steep-73014) is no pass: the ladders below decide it.
+    runaway = np.flatnonzero((first.status == PASS) & ~np.isfinite(first.estimate.error) & still_growing(ladder))
+    first = first.undecided(runaway, (UNSETTLED,) * runaway.size, noise_limited=False)
     again = np.flatnonzero(first.status == INCONCLUSIVE)
     if again.size == 0:
         return first

