@@ -22,6 +22,10 @@ show the loss in its Taylor range.
   roundings of the loss, beneath the steps of the ladder between the 16-fold levels; its rows
   moved the loss by 1 to 2.3 roundings at every step from 3.8e-6 to 6.1e-5, and read 5e6 +-
   2.4e7 against a true 1.98e8 (89576). Never fail.
+- steep-87144 (correct, fresh seed range): sines of smooth radius 1e-2 beside a loss of
+  2.1e26; the chain judged on the rounding measured along p2[1] ran from steps of 0.06 to 8,
+  its moves 2e11 to 9e11 at every step (no larger 128 times wider), and read 1.4e11 +- 4.5e11
+  against a true 2.56e13. Never fail.
 
 Reference: mpmath at 50 digits through the adversarial generator (tests/adversarial: every
 piece's derivative from the standard tables, checked against mpmath's own differentiation of
@@ -57,6 +61,13 @@ def test_sines_of_a_few_roundings_beneath_the_steps_are_no_failure():
         assert o["correct"] and o["expect"][tensor] == "quiet"
         assert not o["false_alarm"], (seed, o["status"])
         assert o["status"][tensor] in ("pass", "inconclusive"), (seed, o["status"])
+
+
+def test_a_chain_on_measured_rounding_beyond_the_sines_scale_is_no_failure():
+    o = _judged(87144)
+    assert o["correct"] and o["expect"]["p2"] == "quiet"
+    assert not o["false_alarm"], o["status"]
+    assert o["status"]["p2"] in ("pass", "inconclusive"), o["status"]
 
 
 def test_a_gradient_left_out_beside_a_pole_closer_than_the_first_step_fails():

@@ -25,8 +25,11 @@ So, for at most MEASURED coordinates per tensor whose ladders ended undecided fo
   first of its own rows that bends more, are judged on windows whose error model is checked
   on the quotients themselves (:func:`.wide_steps.windowed`, :func:`.wide_steps.plain_windowed`)
   with that rounding, unless the one-sided gap stops halving with the step somewhere along
-  the chain (a kink within it). A verdict reached there (pass or fail) is taken; elsewhere
-  the ladders' verdict and reason stand.
+  the chain (a kink within it), its moves lie beyond two roundings yet do not grow with the
+  step (:func:`.taylor_range.moves_unscaled`: steps beyond the loss's smooth scale), or they
+  stay within two roundings at every step while backward's slope predicts far more
+  (:func:`_rounding_alone`). A verdict reached there (pass or fail) is taken; elsewhere the
+  ladders' verdict and reason stand.
 
 A zero gradient whose loss shows a slope the assumed rounding leaves unresolved
 (:mod:`.unmoved`) gets the same chain from the params' own scale.
@@ -41,6 +44,7 @@ from .ladder import Estimate
 from .probe import Pairs, TensorProbe
 from .refine import Taken, pairs_reusing
 from .steps import slope_change
+from .taylor_range import moves_unscaled
 from .verdict import NOISE, SIGNIFICANCE, Judged, judge_plain
 from .wide_steps import WIDE_NOISE, plain_windowed, wide_table, windowed
 
@@ -117,6 +121,9 @@ def chain_estimate(probe: TensorProbe, flat: np.ndarray, top: np.ndarray, taken:
         moved = np.maximum(np.abs(f_plus - probe.f0), np.abs(probe.f0 - f_minus))
     steps = np.maximum(fields[2], fields[3])
     kinked |= _rounding_alone(probe, flat[mine], moved, rounding, np.where(usable, steps, 0.0))
+    # The chain's rows beyond the loss's Taylor range: moves beyond two roundings that do not
+    # grow with the step (steep-87144: steps of 0.06 to 8 beneath sines of radius 1e-2).
+    kinked |= moves_unscaled(moved, np.broadcast_to(rounding, moved.shape), np.where(usable, steps, np.nan))
     seen = Estimate(seen.value, np.where(kinked, np.inf, seen.error))
     value, error = est.value.copy(), est.error.copy()
     value[mine], error[mine] = seen.value, seen.error

@@ -7,7 +7,8 @@ moves it by two loss values' rounding at most. Rows whose moves stay the same si
 step grows 8- to 64-fold were taken beyond the loss's smooth scale (a sine far finer than the
 steps, whose quotients are its amplitude over the step), or on a loss whose rounding is not
 what their bounds took: the estimate's agreement among them says nothing of the slope at the
-point (:func:`unscaled_moves`; :mod:`.grounds` applies it to every ladder judged).
+point (:func:`unscaled_moves`; :mod:`.grounds` applies it to every ladder judged, and
+:mod:`.steep_noise` to its chain on the rounding measured along a coordinate).
 """
 
 from __future__ import annotations
@@ -75,4 +76,4 @@ def moves_unscaled(moved: np.ndarray, noise: np.ndarray, h: np.ndarray) -> np.nd
         return held & wide.any(axis=0) & seen
 
 
-__all__ = ["unscaled_moves"]
+__all__ = ["moves_unscaled", "unscaled_moves"]
