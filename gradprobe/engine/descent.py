@@ -20,8 +20,8 @@ from .grounds import judged_ladder
 from .ladder import NOISE_UNITS
 from .probe import TensorProbe
 from .refine import RATIO, ROWS, Ladder, Taken, climb, ladder_taken
-from .verdict import SHARED_POINT, UNRESOLVED, Judged
-from ..common.status import INCONCLUSIVE
+from .verdict import SHARED_POINT, UNRESOLVED, UNSETTLED, Judged
+from ..common.status import INCONCLUSIVE, PASS
 
 DESCENTS = 3  # further ladders at most, each starting just below the last one's smallest step
 RESOLUTION_UNITS = 64.0
@@ -89,6 +89,18 @@ def crossed_at_last(q: np.ndarray, runs: list[np.ndarray], last: np.ndarray) -> 
     return runs[-2] & last & turn
 
 
+def runaway_passes(judged: Judged, ladder: Ladder) -> Judged:
+    """``judged`` (the verdicts of ``ladder``) with its passes on estimates with no bound
+    undecided (UNSETTLED, not noise-limited) where the central quotients run away as the step
+    shrinks (:func:`still_growing`): a pole closer than the steps, the quotients telling
+    nothing of the slope at the point (1/(1 - u) 1.4e-9 away read 4e8 +- inf against a true
+    3e15 and passed a gradient left out, steep-73014); the ladders below decide them."""
+    if ladder.pairs is None:
+        return judged
+    k = np.flatnonzero((judged.status == PASS) & ~np.isfinite(judged.estimate.error) & still_growing(ladder))
+    return judged.undecided(k, (UNSETTLED,) * k.size, noise_limited=False)
+
+
 def descend(probe: TensorProbe, flat: np.ndarray, judged: Judged, ladder: Ladder, taken: list[Taken]) -> Judged:
     """``judged`` (the verdicts of ``ladder``, the last one taken at ``flat``) with the
     coordinates left undecided, not for noise, whose quotients were still growing, judged on
@@ -139,7 +151,7 @@ def between_levels(probe: TensorProbe, flat: np.ndarray, judged: Judged, start: 
     top = start[which] * RATIO**BETWEEN_RISE
     ladder = climb(probe, flat[which], top, ROWS, taken=taken)
     top = top if ladder.start is None else ladder.start
-    again = judged_ladder(probe, flat[which], ladder, top, taken)
+    again = runaway_passes(judged_ladder(probe, flat[which], ladder, top, taken), ladder)
     taken.append(ladder_taken(flat[which], top, ladder))
     decided = np.flatnonzero(again.status != INCONCLUSIVE)
     return judged.merged(which[decided], again.pick(decided))

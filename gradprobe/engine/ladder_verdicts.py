@@ -12,9 +12,9 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..common.status import INCONCLUSIVE, PASS
+from ..common.status import INCONCLUSIVE
 from .close_kinks import looked_closer
-from .descent import between_levels, descend, still_growing
+from .descent import between_levels, descend, runaway_passes
 from .grounds import drifting_sides, judged_ladder, sides_grown
 from .ladder import Estimate
 from .lopsided import kink_beside
@@ -23,7 +23,7 @@ from .refine import RATIO, ROWS, Taken, climb, ladder_taken
 from .side_failures import failures_on_own_rounding
 from .sides_apart import judge_sides_apart, one_sided_rows, outside_sides, side_estimate
 from .steps import largest_smooth_step
-from .verdict import NOISE, OUTSIDE_SIDES, UNSETTLED, Judged
+from .verdict import NOISE, OUTSIDE_SIDES, Judged
 
 RETRY_SHIFT = 6  # a second ladder starts 2**6 steps higher (noise) or lower (curvature)
 
@@ -40,11 +40,7 @@ def ladder_verdicts(
     start = start if ladder.start is None else ladder.start  # restarted below a domain edge
     first = kink_beside(probe, flat, ladder, judged_ladder(probe, flat, ladder, start, before))
     before.append(ladder_taken(flat, start, ladder))
-    # A pass on an estimate with no bound whose central quotients run away as the step shrinks
-    # (a pole closer than the steps: 1/(1 - u) 1.4e-9 away read 4e8 +- inf against a true 3e15
-    # and passed a gradient left out, steep-73014) is no pass: the ladders below decide it.
-    runaway = np.flatnonzero((first.status == PASS) & ~np.isfinite(first.estimate.error) & still_growing(ladder))
-    first = first.undecided(runaway, (UNSETTLED,) * runaway.size, noise_limited=False)
+    first = runaway_passes(first, ladder)  # no pass on quotients running off across a pole
     again = np.flatnonzero(first.status == INCONCLUSIVE)
     if again.size == 0:
         return first
@@ -57,8 +53,9 @@ def ladder_verdicts(
     second_ladder = climb(probe, flat[again], shifted, ROWS + 2, taken=before)
     shifted = shifted if second_ladder.start is None else second_ladder.start
     grown = sides_grown(probe, ladder)[again]
-    judged = first.merged(again, kink_beside(probe, flat[again], second_ladder,
-                                             judged_ladder(probe, flat[again], second_ladder, shifted, before, grown)))
+    judged = first.merged(again, runaway_passes(kink_beside(
+        probe, flat[again], second_ladder, judged_ladder(probe, flat[again], second_ladder, shifted, before, grown)),
+        second_ladder))
     before.append(ladder_taken(flat[again], shifted, second_ladder))
     judged = judged.merged(again, descend(probe, flat[again], judged.pick(again), second_ladder, before))
     judged = judged.merged(again, between_levels(probe, flat[again], judged.pick(again), start[again], before))
