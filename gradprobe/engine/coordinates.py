@@ -33,7 +33,7 @@ from .wide_steps import wide_estimate
 from .own_judged import judged_on_own_rounding
 from .loose_passes import loose_note, tightened
 from .promote import coarse_note, coarse_passes
-from .sixteen import measured_passes
+from .sixteen_verdicts import measured_passes
 from .steep_noise import on_measured_rounding
 from .richardson import first_steps, joined, rows_of, settled, two_rows_settle
 from ..common.roundoff import is_narrow

@@ -202,7 +202,7 @@ def unfuzzed(
     off = np.abs(a[failing] - numeric[failing])
     fine = 0.0 if jitter is None else jitter[flat[failing]]
     # The coarse grid's variation is taken once, as where a 16-bit coordinate passes or fails
-    # on its jittered estimate (sixteen.measured_passes): it is a largest change already.
+    # on its jittered estimate (sixteen_verdicts.measured_passes): it is a largest change already.
     fuzzy = off <= SIGNIFICANCE * (error[failing] + fine) + (0.0 if own is None else own[flat[failing]])
     if not fuzzy.any():
         return status, reasons
