@@ -52,6 +52,8 @@ SECOND_VARIANCE = 6.0  # a second difference of independent roundings of spread 
 ROUNDING_SPREADS = 4.0  # one loss value's rounding: this many times its spread (the largest of 400 seen: 3 to 4.3)
 NOISE_UNITS = 4.0  # a typical element moves by this many units of the type's grid between them
 MOVED_SCALES = 2.0  # the widest move: at most this many times the rms of the elements moved
+JOINT_SPREADS = 4.0  # a kink's jump shown jointly by the steps: beyond this many of its spreads
+JOINT_LEAST = 5  # steps the joint fit takes at least (three unknowns)
 KINK_SHRINK = 0.75  # the one-sided gap shrinks to at most this share as the step halves, or a kink
 
 
@@ -100,6 +102,7 @@ class _Seen:
     estimate_error: float
     analytic: float
     allowed: float
+    kink: float = 0.0  # the largest jump a kink the steps jointly show could have (0: none shown)
 
 
 def _rounding(probe: TensorProbe, d: np.ndarray, at: float) -> tuple[float, float, np.ndarray] | None:
@@ -207,9 +210,11 @@ def _measure(probe: TensorProbe, d: np.ndarray) -> _Seen | None:
             for side, f in ((above, f_plus), (below, f_minus)))
         noise = 0.5 * (plus_noise + minus_noise)  # a central quotient's: (n+ + n-) / (2 t)
         gap_noise = (plus_noise + minus_noise + 2.0 * point_noise) / steps  # right - left's
+        own_noise = (plus_noise + minus_noise) / steps  # without the point's, shared by every step
     else:  # no measure: the probe's model of the type's rounding
         noise = probe.loss_noise(f_plus, f_minus)
         gap_noise = 2.0 * noise / steps
+        own_noise = gap_noise
     central = (f_plus - f_minus - p_plus - p_minus) / (2.0 * steps)
     right = (f_plus - probe.f0 - p_plus) / steps
     left = (probe.f0 - f_minus - p_minus) / steps
@@ -223,7 +228,8 @@ def _measure(probe: TensorProbe, d: np.ndarray) -> _Seen | None:
     est = extrapolated if better else plain
     if _jump_shown(right - left, gap_noise, steps, int((extrapolated_top if better else plain_top)[0])):
         return None  # a kink within the steps the estimate takes: they say nothing of the gradient
-    return _Seen(float(est.value[0]), float(est.error[0]), float(probe.a @ d), most)
+    kink = _joint_jump(right - left, own_noise, steps, int((extrapolated_top if better else plain_top)[0]))
+    return _Seen(float(est.value[0]), float(est.error[0]), float(probe.a @ d), most, kink)
 
 
 def _jump_shown(gap: np.ndarray, gap_noise: np.ndarray, steps: np.ndarray, top: int) -> bool:
@@ -241,6 +247,36 @@ def _jump_shown(gap: np.ndarray, gap_noise: np.ndarray, steps: np.ndarray, top: 
         if abs(w0 * gap[k] - w1 * gap[k + 1]) > w0 * gap_noise[k] + w1 * gap_noise[k + 1]:
             return True
     return False
+
+
+def _joint_jump(gap: np.ndarray, own_noise: np.ndarray, steps: np.ndarray, top: int) -> float:
+    """The largest jump of slope a kink the steps show jointly could have, or 0 where they
+    show none. The one-sided gap at step s is J + f'' s + 2 e / s (J a kink's jump once the
+    steps straddle it, e the rounding of the loss at the point, shared by every step) plus
+    each step's own rounding, independent between steps (spread at most ``own_noise`` /
+    ROUNDING_SPREADS). A weighted least-squares fit of the three over the steps up to one
+    beyond ``top`` (the widest the estimate takes) gives J with its spread: the roundings
+    average out like 1/sqrt(n) while a gap that does not shrink with the step stays, so a
+    kink each pair of steps leaves within its rounding (:func:`_jump_shown`) shows jointly.
+    Shown where J exceeds JOINT_SPREADS of its spreads: then J plus ROUNDING_SPREADS of them
+    bounds the jump, which the quotients straddling it carry (the coordinates allow a kink
+    as much, sixteen_verdicts); a smooth loss shows none and keeps its full sensitivity."""
+    use = np.arange(min(top + 2, steps.size))
+    sigma = own_noise[use] / ROUNDING_SPREADS
+    use, sigma = use[np.isfinite(sigma) & (sigma > 0)], sigma[np.isfinite(sigma) & (sigma > 0)]
+    if use.size < JOINT_LEAST or not np.all(np.isfinite(gap[use])):
+        return 0.0
+    s = steps[use] / steps[use][-1]
+    basis = np.stack([np.ones_like(s), s, 1.0 / s], axis=1) / sigma[:, None]
+    try:
+        cov = np.linalg.inv(basis.T @ basis)
+    except np.linalg.LinAlgError:
+        return 0.0
+    jump = float((cov @ (basis.T @ (gap[use] / sigma)))[0])
+    spread = float(np.sqrt(cov[0, 0])) if cov[0, 0] > 0 else np.inf
+    if not (np.isfinite(jump) and np.isfinite(spread)) or abs(jump) <= JOINT_SPREADS * spread:
+        return 0.0
+    return abs(jump) + ROUNDING_SPREADS * spread
 
 
 def _fuzz_along(probe: TensorProbe, d: np.ndarray) -> float:
@@ -265,7 +301,8 @@ def along(probe: TensorProbe, outcome: CoordinateOutcome, seed: int) -> Along:
             continue
         value, error = seen.estimate_value, seen.estimate_error
         limit = thr / (1.0 - thr) * seen.allowed + _fuzz_along(probe, d)
-        beyond = np.isfinite(error) and abs(value) > SIGNIFICANCE * error and abs(value) > limit
+        beyond = (np.isfinite(error) and abs(value) > SIGNIFICANCE * error + seen.kink
+                  and abs(value) > limit)
         scale = max(abs(seen.analytic), abs(seen.analytic + value), probe.floor)
         results.append(DirectionResult(
             analytic=seen.analytic, numeric=seen.analytic + value, error_estimate=error,
