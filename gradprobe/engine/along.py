@@ -15,14 +15,16 @@ both widest steps (:func:`_rounding`), never below the spacing of the loss value
 loss rounded to 16 bits last takes only values that far apart). A direction whose one-sided
 slopes stay apart as the step halves crosses a kink and says nothing; so does one whose gap,
 on its line through the steps about the widest step the estimate takes, misses 0 by more
-than its rounding (:func:`_jump_shown`: a kink within that step).
+than its rounding (:func:`_jump_shown`: a kink within that step). A kink next to the point
+keeps the gap near its jump at every step, each step within its own rounding: the steps
+jointly show it (:func:`_joint_jump`), and the direction allows that jump as a coordinate does.
 
 Where the discrepancy exceeds SIGNIFICANCE of its bound (a coordinate's margin: the bound is
-a coordinate's wide-step bound, checked on the quotients the same way) and also the most that
-elements each within the threshold could add along d (thr / (1 - thr) * sum max(|a_i|,
-floor) |d_i|), some element is wrong beyond the threshold for certain: the tensor fails,
-though which element may stay undecided. A direction never passes a tensor (errors of
-several elements may cancel along it). Directions: the analytic gradient, the coordinates'
+a coordinate's wide-step bound, checked on the quotients the same way) plus any jointly
+shown kink's jump, and also the most that elements each within the threshold could add
+along d (thr / (1 - thr) * sum max(|a_i|, floor) |d_i|), some element is wrong beyond the
+threshold for certain: the tensor fails, though which element may stay undecided. A
+direction never passes a tensor (errors of several elements may cancel along it). Directions: the analytic gradient, the coordinates'
 own numeric estimates' departure from it, and one at random; the first that fails ends it.
 """
 
