@@ -24,8 +24,9 @@ a coordinate's wide-step bound, checked on the quotients the same way) plus any 
 shown kink's jump, and also the most that elements each within the threshold could add
 along d (thr / (1 - thr) * sum max(|a_i|, floor) |d_i|), some element is wrong beyond the
 threshold for certain: the tensor fails, though which element may stay undecided. A
-direction never passes a tensor (errors of several elements may cancel along it). Directions: the analytic gradient, the coordinates'
-own numeric estimates' departure from it, and one at random; the first that fails ends it.
+direction never passes a tensor (errors of several elements may cancel along it).
+Directions: the analytic gradient, the coordinates' own numeric estimates' departure from
+it, and one at random; the first that fails ends it.
 """
 
 from __future__ import annotations
