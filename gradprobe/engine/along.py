@@ -41,9 +41,10 @@ from ..common.status import FAIL, INCONCLUSIVE
 from ..report.model import DirectionResult
 from .coordinates import CoordinateOutcome
 from .ladder import Estimate
-from .wide_steps import WIDE_NOISE, plain_windowed_at, windowed_at
+from .wide_steps import plain_windowed_at, windowed_at
 from .probe import TensorProbe
 from .widened import as_seen
+from .along_gaps import ROUNDING_SPREADS, joint_jump, jump_shown, kinked
 from .sampling import tensor_rng
 from .verdict import SIGNIFICANCE
 
@@ -52,12 +53,8 @@ SKEW_SAFETY = 2.0  # the asymmetry of the rounded moves is taken twice
 CLEAN = 0.25  # moves whose rounding to the grid leaves them this asymmetric at most
 NOISE_SPAN = 10  # the loss's rounding: eleven points along the direction, nine second differences
 SECOND_VARIANCE = 6.0  # a second difference of independent roundings of spread s spreads by sqrt(6) s
-ROUNDING_SPREADS = 4.0  # one loss value's rounding: this many times its spread (the largest of 400 seen: 3 to 4.3)
 NOISE_UNITS = 4.0  # a typical element moves by this many units of the type's grid between them
 MOVED_SCALES = 2.0  # the widest move: at most this many times the rms of the elements moved
-JOINT_SPREADS = 4.0  # a kink's jump shown jointly by the steps: beyond this many of its spreads
-JOINT_LEAST = 5  # steps the joint fit takes at least (three unknowns)
-KINK_SHRINK = 0.75  # the one-sided gap shrinks to at most this share as the step halves, or a kink
 
 
 @dataclass(frozen=True)
@@ -149,15 +146,6 @@ def _granularity(values: np.ndarray) -> float:
     return float(steps.min()) if steps.size else 0.0
 
 
-def _kinked(gap: np.ndarray, side_noise: np.ndarray) -> bool:
-    """The one-sided slopes' gap does not halve with the step between two consecutive steps
-    where it is well beyond rounding (curvature makes it shrink in proportion): a kink lies
-    within the smaller step. Some window's own checks could pass it where rounding is large."""
-    resolved = gap > 2.0 * WIDE_NOISE * side_noise
-    both = resolved[:-1] & resolved[1:]
-    return bool(np.any(both & (gap[:-1] > KINK_SHRINK * gap[1:])))
-
-
 def _measure(probe: TensorProbe, d: np.ndarray) -> _Seen | None:
     x = probe.x
     span = max(float(np.max(np.abs(d))), 1e-300)
@@ -221,7 +209,7 @@ def _measure(probe: TensorProbe, d: np.ndarray) -> _Seen | None:
     central = (f_plus - f_minus - p_plus - p_minus) / (2.0 * steps)
     right = (f_plus - probe.f0 - p_plus) / steps
     left = (probe.f0 - f_minus - p_minus) / steps
-    if _kinked(np.abs(right - left), gap_noise):
+    if kinked(np.abs(right - left), gap_noise):
         return None  # a kink along the direction: its slopes say nothing of the gradient
     column = lambda v: np.asarray(v, dtype=np.float64).reshape(STEPS, 1)  # noqa: E731
     rows = (column(central), column(steps), column(noise / steps), column(right - left),
@@ -229,57 +217,10 @@ def _measure(probe: TensorProbe, d: np.ndarray) -> _Seen | None:
     (plain, plain_top), (extrapolated, extrapolated_top) = plain_windowed_at(*rows), windowed_at(*rows)
     better = bool(extrapolated.error[0] < plain.error[0])
     est = extrapolated if better else plain
-    if _jump_shown(right - left, gap_noise, steps, int((extrapolated_top if better else plain_top)[0])):
+    if jump_shown(right - left, gap_noise, steps, int((extrapolated_top if better else plain_top)[0])):
         return None  # a kink within the steps the estimate takes: they say nothing of the gradient
-    kink = _joint_jump(right - left, own_noise, steps, int((extrapolated_top if better else plain_top)[0]))
+    kink = joint_jump(right - left, own_noise, steps, int((extrapolated_top if better else plain_top)[0]))
     return _Seen(float(est.value[0]), float(est.error[0]), float(probe.a @ d), most, kink)
-
-
-def _jump_shown(gap: np.ndarray, gap_noise: np.ndarray, steps: np.ndarray, top: int) -> bool:
-    """The one-sided gap on its line through steps L - 1 and L, or L and L + 1 (L = ``top``, the
-    widest step whose quotient the estimate takes), misses 0 by more than its rounding: a
-    kink lies within step L (curvature puts the line through 0, up to higher orders far
-    smaller there), moving the estimate by up to half its jump. A kink closer than the
-    smallest step keeps the gap near its jump at every step, which :func:`_kinked` misses
-    where rounding leaves consecutive gaps unresolved."""
-    for k in (top - 1, top):
-        if k < 0 or k + 1 >= steps.size:
-            continue
-        s0, s1 = steps[k], steps[k + 1]
-        w0, w1 = s1 / (s1 - s0), s0 / (s1 - s0)
-        if abs(w0 * gap[k] - w1 * gap[k + 1]) > w0 * gap_noise[k] + w1 * gap_noise[k + 1]:
-            return True
-    return False
-
-
-def _joint_jump(gap: np.ndarray, own_noise: np.ndarray, steps: np.ndarray, top: int) -> float:
-    """The largest jump of slope a kink the steps show jointly could have, or 0 where they
-    show none. The one-sided gap at step s is J + f'' s + 2 e / s (J a kink's jump once the
-    steps straddle it, e the rounding of the loss at the point, shared by every step) plus
-    each step's own rounding, independent between steps (spread at most ``own_noise`` /
-    ROUNDING_SPREADS). A weighted least-squares fit of the three over the steps up to one
-    beyond ``top`` (the widest the estimate takes) gives J with its spread: the roundings
-    average out like 1/sqrt(n) while a gap that does not shrink with the step stays, so a
-    kink each pair of steps leaves within its rounding (:func:`_jump_shown`) shows jointly.
-    Shown where J exceeds JOINT_SPREADS of its spreads: then J plus ROUNDING_SPREADS of them
-    bounds the jump, which the quotients straddling it carry (the coordinates allow a kink
-    as much, sixteen_verdicts); a smooth loss shows none and keeps its full sensitivity."""
-    use = np.arange(min(top + 2, steps.size))
-    sigma = own_noise[use] / ROUNDING_SPREADS
-    use, sigma = use[np.isfinite(sigma) & (sigma > 0)], sigma[np.isfinite(sigma) & (sigma > 0)]
-    if use.size < JOINT_LEAST or not np.all(np.isfinite(gap[use])):
-        return 0.0
-    s = steps[use] / steps[use][-1]
-    basis = np.stack([np.ones_like(s), s, 1.0 / s], axis=1) / sigma[:, None]
-    try:
-        cov = np.linalg.inv(basis.T @ basis)
-    except np.linalg.LinAlgError:
-        return 0.0
-    jump = float((cov @ (basis.T @ (gap[use] / sigma)))[0])
-    spread = float(np.sqrt(cov[0, 0])) if cov[0, 0] > 0 else np.inf
-    if not (np.isfinite(jump) and np.isfinite(spread)) or abs(jump) <= JOINT_SPREADS * spread:
-        return 0.0
-    return abs(jump) + ROUNDING_SPREADS * spread
 
 
 def _fuzz_along(probe: TensorProbe, d: np.ndarray) -> float:
