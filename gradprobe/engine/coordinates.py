@@ -25,6 +25,7 @@ from .probe import Pairs, TensorProbe
 from .reconcile import narrow_reconciled, own_code_reconciled, unabsorbed, unfuzzed, zero_at_own_scale
 from .unmoved import moved_at_own_scale
 from .bounded_moves import rounding_only
+from .moved_below import moved_below
 from .grounds import judged_ladder
 from .refine import Taken, climb
 from .staircase import flat_through_sixteen_bits
@@ -139,6 +140,7 @@ def _central(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
     judged = on_measured_rounding(probe, flat, judged, taken)  # float64: the rounding seen along it
     judged = rounding_only(probe, flat, judged, taken)  # a loss moved by rounding alone, everywhere
     judged = unabsorbed(probe, flat, _widened(probe, flat, judged, taken), first)
+    judged = moved_below(probe, flat, judged, taken)  # a loss unmoved by the steps taken, moved below them
     return flat_through_sixteen_bits(probe, flat, judged)
 
 
