@@ -12,9 +12,12 @@ its pole and a tenth of the loss's last place at the point, which steps of 3e-7 
 jump over), and the quotients say nothing of the slope at the point, whose linear range lies
 below any step that shows it above rounding: undecided.
 
-Steps RATIO-fold smaller than the smallest taken, one batch of pairs per level, down to
-where backward's slope predicts a change of LEAST of the loss's last place (a feature closer
-than that is one the steps cannot find) or to a few units of x's resolution, LEVELS at most.
+Where to look: a term the steps taken jumped without changing the loss is within its
+rounding noise N (a pole's term falls to nothing beyond it), and backward's slope a comes
+from a feature that near, so it lies within about a few N / |a| of the point; one a tenth of
+the loss's last place high or less moves the loss over a window too narrow for the steps to
+find. Steps RATIO-fold smaller, one batch of pairs per level, from the smallest taken (at
+most HIGH N / |a|) down to N / (LOW |a|) or a few units of x's resolution, LEVELS at most.
 """
 
 from __future__ import annotations
@@ -29,7 +32,7 @@ from .verdict import Judged
 
 RATIO = 2.0 ** 0.5  # each step this many times smaller than the one above (a window near a pole is narrow)
 LEVELS = 48  # levels at most
-LEAST = 2.0 ** -10  # share of the loss's last place backward's slope predicts at the smallest step
+HIGH, LOW = 8.0, 256.0  # the search spans N / (LOW |a|) to HIGH N / |a| (module's note)
 
 BELOW = (
     "the loss does not change at any step the quotients took, yet does at a smaller one: it is "
@@ -49,19 +52,21 @@ def moved_below(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken: lis
     coords = np.concatenate([c for c, _, _ in taken])
     changed = np.concatenate([(p.f_plus != probe.f0) | (p.f_minus != probe.f0) for _, _, p in taken])
     step = np.concatenate([np.minimum(p.h_plus, p.h_minus) for _, _, p in taken])
-    keep, top = [], []
+    noise = np.concatenate([np.broadcast_to(p.noise, p.f_plus.shape) for _, _, p in taken])
+    keep, top, rounding = [], [], []
     for k in which:
         mine = coords == flat[k]
         if mine.any() and not changed[mine].any():
             keep.append(k)
             top.append(float(np.min(step[mine])))
+            rounding.append(float(np.max(noise[mine])))
     if not keep:
         return judged
-    which, top = np.array(keep, dtype=np.int64), np.array(top)
-    slope = np.abs(probe.a[flat[which]].astype(np.float64))
-    unit = probe.eps * max(abs(float(probe.f0)), 1e-300)
-    with np.errstate(divide="ignore"):
-        floor = np.maximum(4.0 * probe.resolution(flat[which]), LEAST * unit / slope)
+    which = np.array(keep, dtype=np.int64)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        near = np.array(rounding) / np.abs(probe.a[flat[which]].astype(np.float64))
+    top = np.minimum(np.array(top), HIGH * near)
+    floor = np.maximum(4.0 * probe.resolution(flat[which]), near / LOW)
     found = np.zeros(which.size, dtype=bool)
     h = top.copy()
     for _ in range(LEVELS):
