@@ -41,10 +41,11 @@ from ..common.status import FAIL, INCONCLUSIVE
 from ..report.model import DirectionResult
 from .coordinates import CoordinateOutcome
 from .ladder import Estimate
-from .wide_steps import plain_windowed_at, windowed_at
+from .wide_steps import WIDE_NOISE, plain_windowed_at, windowed_at
 from .probe import TensorProbe
 from .widened import as_seen
-from .along_gaps import ROUNDING_SPREADS, joint_jump, jump_shown, kinked
+from .along_gaps import ROUNDING_SPREADS, joint_jump, jump_shown
+from .sides_gap import does_not_halve
 from .sampling import tensor_rng
 from .verdict import SIGNIFICANCE
 
@@ -209,7 +210,7 @@ def _measure(probe: TensorProbe, d: np.ndarray) -> _Seen | None:
     central = (f_plus - f_minus - p_plus - p_minus) / (2.0 * steps)
     right = (f_plus - probe.f0 - p_plus) / steps
     left = (probe.f0 - f_minus - p_minus) / steps
-    if kinked(np.abs(right - left), gap_noise):
+    if does_not_halve(np.abs(right - left), 2.0 * WIDE_NOISE * gap_noise):
         return None  # a kink along the direction: its slopes say nothing of the gradient
     column = lambda v: np.asarray(v, dtype=np.float64).reshape(STEPS, 1)  # noqa: E731
     rows = (column(central), column(steps), column(noise / steps), column(right - left),

@@ -1,27 +1,17 @@
 """What the one-sided gap along a 16-bit direction says of a kink within its steps (for
-:mod:`.along`): a gap that does not halve with the step, one whose line through the steps
-about the estimate's widest misses 0, and a jump the steps show jointly.
+:mod:`.along`): one whose line through the steps about the estimate's widest misses 0, and a
+jump the steps show jointly (a gap that does not halve with the step is
+:func:`.sides_gap.does_not_halve`, shared with the ladders' chain).
 """
 
 from __future__ import annotations
 
 import numpy as np
 
-from .wide_steps import WIDE_NOISE
 
 ROUNDING_SPREADS = 4.0  # one loss value's rounding: this many times its spread (the largest of 400 seen: 3 to 4.3)
 JOINT_SPREADS = 4.0  # a kink's jump shown jointly by the steps: beyond this many of its spreads
 JOINT_LEAST = 5  # steps the joint fit takes at least (three unknowns)
-KINK_SHRINK = 0.75  # the one-sided gap shrinks to at most this share as the step halves, or a kink
-
-
-def kinked(gap: np.ndarray, side_noise: np.ndarray) -> bool:
-    """The one-sided slopes' gap does not halve with the step between two consecutive steps
-    where it is well beyond rounding (curvature makes it shrink in proportion): a kink lies
-    within the smaller step. Some window's own checks could pass it where rounding is large."""
-    resolved = gap > 2.0 * WIDE_NOISE * side_noise
-    both = resolved[:-1] & resolved[1:]
-    return bool(np.any(both & (gap[:-1] > KINK_SHRINK * gap[1:])))
 
 
 def jump_shown(gap: np.ndarray, gap_noise: np.ndarray, steps: np.ndarray, top: int) -> bool:
@@ -29,7 +19,7 @@ def jump_shown(gap: np.ndarray, gap_noise: np.ndarray, steps: np.ndarray, top: i
     widest step whose quotient the estimate takes), misses 0 by more than its rounding: a
     kink lies within step L (curvature puts the line through 0, up to higher orders far
     smaller there), moving the estimate by up to half its jump. A kink closer than the
-    smallest step keeps the gap near its jump at every step, which :func:`kinked` misses
+    smallest step keeps the gap near its jump at every step, which :func:`.sides_gap.does_not_halve` misses
     where rounding leaves consecutive gaps unresolved."""
     for k in (top - 1, top):
         if k < 0 or k + 1 >= steps.size:

@@ -19,17 +19,16 @@ import numpy as np
 
 from .ladder import NOISE_UNITS
 
+KINK_SHRINK = 0.75  # the one-sided gap shrinks to at most this share as the step halves, or a kink
 THIRD_ORDER_SLACK = 0.25  # the extrapolations' disagreement shrinks 8-fold per halving: a quarter allowed
 
 
 def gap_turns(right: np.ndarray, left: np.ndarray, noise: np.ndarray) -> np.ndarray:
     """Per coordinate, from the one-sided quotients and the gap's rounding (rows,
     coordinates): the gap takes both signs at rows where it lies beyond 2 NOISE_UNITS times
-    its rounding."""
+    its rounding (:func:`takes_both_signs`)."""
     with np.errstate(invalid="ignore", over="ignore"):
-        gap = right - left
-        shown = np.abs(gap) > 2.0 * NOISE_UNITS * noise
-        return np.any(shown & (gap > 0), axis=0) & np.any(shown & (gap < 0), axis=0)
+        return takes_both_signs(right - left, 2.0 * NOISE_UNITS * noise)
 
 
 def extrapolations_apart(right: np.ndarray, left: np.ndarray, noise: np.ndarray) -> np.ndarray:
@@ -51,3 +50,26 @@ def extrapolations_apart(right: np.ndarray, left: np.ndarray, noise: np.ndarray)
             return excess
         before = np.abs(2.0 * gap[-2] - gap[-3])
         return np.where(apart <= THIRD_ORDER_SLACK * before, 0.0, excess)
+
+
+def takes_both_signs(gap: np.ndarray, room: np.ndarray | float) -> np.ndarray:
+    """Per column (rows, coordinates; or one column): the gap takes both signs at rows where it
+    lies beyond ``room`` (its rounding, as the caller counts it). Along a smooth loss it is
+    f'' h to first order, one sign at every small step; a kink closer than the smallest step
+    bends one side at every row while curvature moves the other, and the gap turns
+    (kink-near-5055: a kink 1e-7 away, the left quotients held 1.8e-11 while the right grew
+    from the analytic 9.2e-12, and the central quotients settled between them)."""
+    with np.errstate(invalid="ignore", over="ignore"):
+        shown = np.abs(gap) > room
+        return np.any(shown & (gap > 0), axis=0) & np.any(shown & (gap < 0), axis=0)
+
+
+def does_not_halve(gap: np.ndarray, room: np.ndarray | float) -> np.ndarray:
+    """Per column (rows ascending in the step): the gap's size ``gap`` does not shrink to
+    KINK_SHRINK of itself as the step halves between two consecutive steps where both lie
+    beyond ``room`` (curvature makes it shrink in proportion): a kink lies within the smaller
+    step, and a window's own checks could pass it where rounding is large."""
+    with np.errstate(invalid="ignore", over="ignore"):
+        resolved = gap > room
+        both = resolved[:-1] & resolved[1:]
+        return np.any(both & (gap[:-1] > KINK_SHRINK * gap[1:]), axis=0)

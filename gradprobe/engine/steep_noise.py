@@ -43,6 +43,7 @@ from ..common.status import INCONCLUSIVE
 from .ladder import Estimate
 from .probe import Pairs, TensorProbe
 from .refine import Taken, pairs_reusing
+from .sides_gap import does_not_halve, takes_both_signs
 from .steps import slope_change
 from .taylor_range import moves_unscaled
 from .verdict import NOISE, SIGNIFICANCE, Judged, judge_plain
@@ -55,7 +56,6 @@ CHANGE_ULPS = 2.0  # each move changes the loss by about this many units of its 
 SMALLEST_SHARE, LARGEST_SHARE = 1.0 / 512.0, 1.0 / 64.0  # moves as shares of the widest step
 FOURTH_VARIANCE = 70.0  # a fourth difference of independent roundings of spread s spreads by sqrt(70) s
 SPREADS = 4.0  # one loss value's rounding: this many times its spread
-KINK_SHRINK = 0.75  # the one-sided gap shrinks to at most this share as the step halves, or a kink
 CHAIN_BEND = 0.5  # rows whose one-sided slopes differ by at most half the slope (as steps.slope_change)
 
 
@@ -116,7 +116,7 @@ def chain_estimate(probe: TensorProbe, flat: np.ndarray, top: np.ndarray, taken:
     limit = np.maximum(np.abs(probe.x[flat[mine]].astype(np.float64)), probe.x_scale)
     table = wide_table(probe, chain, CHAIN, limit)
     seen = Estimate.better(windowed(*table), plain_windowed(*table))
-    kinked = _kinked(np.abs(table[3]), table[4]) | _gap_turns(table[3], table[4])
+    kinked = does_not_halve(np.abs(table[3]), 2.0 * WIDE_NOISE * table[4]) | takes_both_signs(table[3], table[4])
     with np.errstate(invalid="ignore"):
         moved = np.maximum(np.abs(f_plus - probe.f0), np.abs(probe.f0 - f_minus))
     steps = np.maximum(fields[2], fields[3])
@@ -143,29 +143,6 @@ def _rounding_alone(probe: TensorProbe, flat: np.ndarray, moved: np.ndarray, rou
         within = np.all(~(moved > 2.0 * rounding), axis=0)
         predicted = np.abs(probe.a[flat]) * steps.max(axis=0) > SIGNIFICANCE * 2.0 * rounding
     return within & predicted
-
-
-def _gap_turns(gap: np.ndarray, side_noise: np.ndarray) -> np.ndarray:
-    """Per column of the chain: the one-sided slopes' gap (right minus left) takes both signs
-    at rows where it exceeds a side's rounding. Along a smooth loss the gap is f'' h to first
-    order, one sign at every small step; a kink closer than the chain's smallest step bends
-    one side at every row while curvature moves the other, and the gap turns (kink-near-5055:
-    a kink 1e-7 away, the left quotients held 1.8e-11 while the right grew from the analytic
-    9.2e-12, and the central quotients settled between them on neither side's slope)."""
-    with np.errstate(invalid="ignore"):
-        shown = np.abs(gap) > side_noise
-        return np.any(shown & (gap > 0), axis=0) & np.any(shown & (gap < 0), axis=0)
-
-
-def _kinked(gap: np.ndarray, side_noise: np.ndarray) -> np.ndarray:
-    """Per column of the chain (rows ascending): the one-sided slopes' gap does not halve with
-    the step between two consecutive steps where it is well beyond rounding (curvature makes
-    it shrink in proportion): a kink lies within the smaller step, and the windows' checks
-    could pass it where rounding is large."""
-    with np.errstate(invalid="ignore"):
-        resolved = gap > 2.0 * WIDE_NOISE * side_noise
-        both = resolved[:-1] & resolved[1:]
-        return np.any(both & (gap[:-1] > KINK_SHRINK * gap[1:]), axis=0)
 
 
 def _widest_smooth(probe: TensorProbe, where: np.ndarray, taken: list[Taken]) -> np.ndarray:
