@@ -26,6 +26,7 @@ from .reconcile import narrow_reconciled, own_code_reconciled, unabsorbed, unfuz
 from .unmoved import moved_at_own_scale
 from .bounded_moves import rounding_only
 from .moved_below import moved_below
+from .zero_loss import zero_loss
 from .grounds import judged_ladder
 from .refine import Taken, climb
 from .staircase import flat_through_sixteen_bits
@@ -141,6 +142,7 @@ def _central(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
     judged = rounding_only(probe, flat, judged, taken)  # a loss moved by rounding alone, everywhere
     judged = unabsorbed(probe, flat, _widened(probe, flat, judged, taken), first)
     judged = moved_below(probe, flat, judged, taken)  # a loss unmoved by the steps taken, moved below them
+    judged = zero_loss(probe, flat, judged)  # a loss exactly 0 throughout: rounding absorbed the slope?
     return flat_through_sixteen_bits(probe, flat, judged)
 
 
