@@ -121,3 +121,25 @@ def test_the_right_derivative_beside_a_bend_closer_than_every_step_is_no_failure
     # no step resolves the threshold there, so an honest verdict is inconclusive at best.
     t = _run_close(right)
     assert t.status.value != "fail", t.bad_indices
+
+
+def test_the_generator_s_bend_closer_than_every_step_is_found():
+    """steep-87786: softplus(1e4 u) / 1e4, u = a (p - k) with a ~ 1e7 (a bend 1e-11 wide)
+    1.7e-9, 5e-10 and 7.5e-10 beside the point, the sigmoid taken of u / 1e4 instead.
+    Reference: mpmath, through the adversarial generator's judge (50 digits)."""
+    from adversarial import judged_cleanly
+
+    o = judged_cleanly("steep", 87786)
+    assert o["found"] and not o["false_alarm"], (o["status"], o["expect"])
+
+
+def test_relu_kinks_meeting_at_the_point_with_jumps_that_nearly_cancel_are_no_failure():
+    """kinks-49059: ReLU residuals exactly 0 in three rows whose jumps (1.1, 1.3 and 0.26, of
+    both signs) leave a net jump of 0.39 at the point, one more kink 1.7e-11 beside it: the
+    per-kink convention's value lies off both sides, and a pair far below the ladder sees a
+    gap within three of its rounding bounds. The backward is correct (mpmath, through the
+    generator's judge), so no tensor may fail."""
+    from adversarial import judged_cleanly
+
+    o = judged_cleanly("kinks", 49059)
+    assert not o["false_alarm"], (o["status"], o["expect"])

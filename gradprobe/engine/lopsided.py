@@ -9,11 +9,18 @@ tableau spans rows on both sides of the kink). A pair at a step far below the la
 :func:`.refine.tiny_pair` chooses it, where the sides settle apart) tells: at the point the
 jump stays at that step; beside it both of its one-sided quotients are the settled side's
 slope (within the settled side's bound, the tiny step's rounding and CURVATURE_SLACK of the
-jump), and the loss is smooth within that step, so no kink sits at the point. The kink may
-lie anywhere from below the ladder's smallest step (the unsettled side's quotients never
-leave it behind: steep-87786, a bend 1.7e-9 beside the point, every step above 1e-8) to
-among its steps; kinks crowding the point on the settled side too keep their verdicts (that
-side crossed none of them).
+jump). That alone can be fooled by kinks meeting at the point whose jumps nearly cancel (ReLU
+residuals exactly 0 with upstream weights of both signs, kinks-49059: a net jump of 0.39
+between jumps of 1 to 3, within three of the tiny step's rounding bounds), so it must be borne
+out by one more piece of evidence on the coordinate:
+
+- the ladder's own rows: at its two smallest steps the unsettled side's quotients are the
+  settled side's slope (:func:`_joined`): the kink was crossed among the steps and left
+  behind (kinks crowding the point keep the sides apart at every step); or
+- the tiny step's two quotients agree with each other to one bound of their rounding (plus
+  CURVATURE_SLACK of the jump), not three: the loss is smooth within that step, as beside a
+  bend closer than every step of the ladder, which the unsettled side never leaves behind
+  (steep-87786: a bend 1.7e-9 beside the point, every step above 1e-8).
 
 Then the settled side judges the value: a softplus of sharpness 1e10 whose bend lies 4e-8
 beside the point, with a derivative taken from the wrong piece (half the slope), fails.
@@ -53,6 +60,7 @@ def kink_beside(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Ju
     one[sides_differ(probe, flat, ladder)] = False  # judged on a tiny pair already
     side = Estimate(np.where(settled_left, left.value, right.value),
                     NEAR_SAFETY * np.where(settled_left, left.error, right.error))
+    joined = _joined(probe, ladder, side, settled_left)
     which = np.flatnonzero(one)
     if which.size == 0:
         return judged
@@ -64,6 +72,7 @@ def kink_beside(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Ju
     highest = ladder.smallest[which] * 2.0**-4
     room = (lowest < highest) & np.isfinite(side.value)
     which, side, jump = which[room], side.pick(np.flatnonzero(room)), jump[room]
+    joined = joined[which]
     if which.size == 0:
         return judged
     visible = TINY_NOISE_UNITS * probe.loss_noise(np.full(which.size, probe.f0)) / np.maximum(jump, 1e-300)
@@ -73,6 +82,7 @@ def kink_beside(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Ju
     with np.errstate(invalid="ignore", over="ignore"):
         reach = SIGNIFICANCE * (side.error + noise) + CURVATURE_SLACK * jump
         smooth = (np.abs(right_q - side.value) <= reach) & (np.abs(left_q - side.value) <= reach)
+        smooth &= joined | (np.abs(right_q - left_q) <= noise + CURVATURE_SLACK * jump)
     k = np.flatnonzero(smooth)
     if k.size == 0:
         return judged
@@ -85,3 +95,24 @@ def kink_beside(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Ju
     again = Judged(status, estimate, reasons, np.zeros(k.size, dtype=bool))
     return judged.merged(which[k], again)
 
+
+def _joined(probe: TensorProbe, ladder: Ladder, side: Estimate, settled_left: np.ndarray) -> np.ndarray:
+    """Per coordinate: the unsettled side's quotients at the ladder's two smallest steps are
+    the settled side's ``side`` (within SIGNIFICANCE times its bound and their rounding, plus
+    twice what the settled side's own quotient there leaves its estimate by: the curvature
+    at that step): the kink that kept that side from settling was crossed among the steps
+    and left behind, and both sides agree below it. Kinks crowding the point leave the sides
+    apart at every step."""
+    assert ladder.pairs is not None
+    n = ladder.smallest.size
+    rows = ladder.pairs.f_plus.size // n
+    if rows < 2:
+        return np.zeros(n, dtype=bool)
+    right_q, left_q = (q.reshape(rows, n)[-2:] for q in ladder.pairs.sides(probe.f0))
+    noise = 2.0 * ladder.pairs.noise.reshape(rows, n)[-2:] / np.minimum(
+        ladder.pairs.h_plus, ladder.pairs.h_minus).reshape(rows, n)[-2:]
+    mine = np.where(settled_left, left_q, right_q)
+    other = np.where(settled_left, right_q, left_q)
+    with np.errstate(invalid="ignore", over="ignore"):
+        reach = SIGNIFICANCE * (side.error + noise) + 2.0 * np.abs(mine - side.value)
+        return np.all(np.abs(other - side.value) <= reach, axis=0)
