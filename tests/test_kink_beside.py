@@ -143,3 +143,14 @@ def test_relu_kinks_meeting_at_the_point_with_jumps_that_nearly_cancel_are_no_fa
 
     o = judged_cleanly("kinks", 49059)
     assert not o["false_alarm"], (o["status"], o["expect"])
+
+
+def test_relu_ties_within_the_tiny_step_are_no_failure():
+    """kinks-111135: one ReLU residual exactly 0, another 9.8e-16 from 0 (4,400 spacings of
+    x, closer than the pair far below the ladder may go), jumps 0.86 and -1.84: the tiny
+    pair's quotients agree to one bound of their rounding, yet no closer than 3% of the
+    value's distance from the settled side. Correct backward (mpmath, through the judge)."""
+    from adversarial import judged_cleanly
+
+    o = judged_cleanly("kinks", 111135)
+    assert not o["false_alarm"], (o["status"], o["expect"])

@@ -18,9 +18,14 @@ out by one more piece of evidence on the coordinate:
   settled side's slope (:func:`_joined`): the kink was crossed among the steps and left
   behind (kinks crowding the point keep the sides apart at every step); or
 - the tiny step's two quotients agree with each other to one bound of their rounding (plus
-  CURVATURE_SLACK of the jump), not three: the loss is smooth within that step, as beside a
-  bend closer than every step of the ladder, which the unsettled side never leaves behind
-  (steep-87786: a bend 1.7e-9 beside the point, every step above 1e-8).
+  CURVATURE_SLACK of the jump), not three, and that agreement (their gap plus that bound) is
+  within CANCEL of the distance D of the analytic value from the settled side: kinks at the
+  point that gave the value would have jumps of D at least, cancelling to that share. So
+  beside a bend closer than every step of the ladder, which the unsettled side never leaves
+  behind (steep-87786: a bend 1.7e-9 beside the point, every step above 1e-8, D 88042 and the
+  gap 0 within 0.04); not at ReLU ties within the tiny step (kinks-111135: a residual at 0 and
+  one 4,400 spacings of x away, jumps of 0.86 and -1.84, D 0.0105 against a gap of 3e-4
+  within a bound of 3e-4).
 
 Then the settled side judges the value: a softplus of sharpness 1e10 whose bend lies 4e-8
 beside the point, with a derivative taken from the wrong piece (half the slope), fails.
@@ -43,6 +48,10 @@ from .refine import TINY_NOISE_UNITS, Ladder
 from .verdict import NEAR_KINK, SIGNIFICANCE, Judged, verdicts
 
 CURVATURE_SLACK = 0.01  # the tiny step's quotients may leave the settled side by 1% of the jump
+# Kinks at the point that put a value D off the settled side have jumps of D at least; where
+# the tiny step shows their net jump within this share of D, they would have to cancel that
+# closely, which is not taken as chance (module's note).
+CANCEL = 0.01
 
 
 def kink_beside(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Judged) -> Judged:
@@ -82,7 +91,9 @@ def kink_beside(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Ju
     with np.errstate(invalid="ignore", over="ignore"):
         reach = SIGNIFICANCE * (side.error + noise) + CURVATURE_SLACK * jump
         smooth = (np.abs(right_q - side.value) <= reach) & (np.abs(left_q - side.value) <= reach)
-        smooth &= joined | (np.abs(right_q - left_q) <= noise + CURVATURE_SLACK * jump)
+        gap = np.abs(right_q - left_q)
+        off = np.abs(probe.a[flat[which]] - side.value)
+        smooth &= joined | ((gap <= noise + CURVATURE_SLACK * jump) & (gap + noise <= CANCEL * off))
     k = np.flatnonzero(smooth)
     if k.size == 0:
         return judged
