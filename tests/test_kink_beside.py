@@ -112,8 +112,10 @@ def test_a_wrong_piece_beside_a_bend_closer_than_every_step_fails():
     assert np.all(np.abs(bad - 0.5 * W) < 1e-6)  # half the on-slope, on and off alike
     t = _run_close(wrong_piece)
     assert t.status.value == "fail" and len(t.bad_indices) == X.size, (t.status, t.bad_indices)
+    # The level's rounding (bounds near 0.1 below the bend's distance) leaves the pair far below
+    # the ladder unable to rule out kinks at the point: the second look, off it, fails them.
     for d in t.details:
-        assert abs(d.numeric - _mp_close(d.index[0])) <= 3 * d.error_estimate + 1e-9 * W.max()
+        assert "moved off the kinks" in d.reason, d.reason
 
 
 def test_the_right_derivative_beside_a_bend_closer_than_every_step_is_no_failure():
