@@ -38,14 +38,14 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..common.status import INCONCLUSIVE, KINK
+from ..common.status import FAIL, INCONCLUSIVE, KINK
 from .kink_evidence import crossed
 from .kinks import LOPSIDED, sides_differ
 from .kinks_at_point import NEAR_SAFETY, RESOLVED_SPACINGS
 from .ladder import Estimate
 from .probe import TensorProbe
 from .refine import TINY_NOISE_UNITS, Ladder
-from .verdict import NEAR_KINK, SIGNIFICANCE, Judged, verdicts
+from .verdict import NEAR_KINK, SIGNIFICANCE, UNRESOLVED, Judged, verdicts
 
 CURVATURE_SLACK = 0.01  # the tiny step's quotients may leave the settled side by 1% of the jump
 # Kinks at the point that put a value D off the settled side have jumps of D at least; where
@@ -57,54 +57,104 @@ CANCEL = 0.01
 def kink_beside(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Judged) -> Judged:
     """``judged`` (the verdicts of ``ladder`` at ``flat``) with its kinks on one settled side
     looked at with a tiny step (module's note): where the loss is smooth at that step with
-    the settled side's slope, that side's estimate judges the coordinate (one pair each)."""
-    left, right = ladder.left, ladder.right
-    tol = probe.tolerance(flat, 0.5 * (left.value + right.value))
-    settled_left = (left.error < LOPSIDED * right.error) & (right.error > tol)
-    settled_right = (right.error < LOPSIDED * left.error) & (left.error > tol)
+    the settled side's slope, that side's estimate judges the coordinate (one pair each);
+    then its failures on a settled side checked there too (:func:`_settled_failures`)."""
+    settled_left, settled_right, side = _settled(probe, flat, ladder)
     crossed_left, crossed_right = crossed(ladder)
     # The settled side crossed no kink among the steps (else kinks crowd the point on both
     # sides, and what a tiny step shows of them need not be the derivative at the point).
     one = (judged.status == KINK) & ((settled_left & ~crossed_left) ^ (settled_right & ~crossed_right))
-    one[sides_differ(probe, flat, ladder)] = False  # judged on a tiny pair already
+    differ = sides_differ(probe, flat, ladder)
+    one[differ] = False  # judged on a tiny pair already
+    joined = _joined(probe, ladder, side, settled_left)
+    tiny = _tiny(probe, flat, ladder, side, np.flatnonzero(one))
+    if tiny is not None:
+        which, side_w, jump, right_q, left_q, noise = tiny
+        with np.errstate(invalid="ignore", over="ignore"):
+            reach = SIGNIFICANCE * (side_w.error + noise) + CURVATURE_SLACK * jump
+            smooth = (np.abs(right_q - side_w.value) <= reach) & (np.abs(left_q - side_w.value) <= reach)
+            gap = np.abs(right_q - left_q)
+            off = np.abs(probe.a[flat[which]] - side_w.value)
+            smooth &= joined[which] | ((gap <= noise + CURVATURE_SLACK * jump) & (gap + noise <= CANCEL * off))
+        k = np.flatnonzero(smooth)
+        if k.size:
+            # The settled side, as far as the tiny step's quotients confirm it.
+            confirmed = np.maximum(np.abs(right_q - side_w.value), np.abs(left_q - side_w.value)) + noise
+            estimate = Estimate(side_w.value[k], np.maximum(side_w.error, confirmed)[k])
+            a = probe.a[flat[which[k]]]
+            status = verdicts(probe, a, estimate, probe.tolerance(flat[which[k]], estimate.value))
+            reasons = tuple(NEAR_KINK if s == INCONCLUSIVE else None for s in status)
+            judged = judged.merged(which[k], Judged(status, estimate, reasons, np.zeros(k.size, dtype=bool)))
+    return _settled_failures(probe, flat, ladder, judged, settled_left, settled_right, side, differ)
+
+
+def _settled_failures(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Judged,
+                      settled_left: np.ndarray, settled_right: np.ndarray, side: Estimate,
+                      differ: np.ndarray) -> Judged:
+    """Failures judged by a settled side (:func:`.kinks.judge_ladder`) undecided where the
+    tiny step's quotient on that side leaves it: a side also settles where a kink lies closer
+    to the point than its smallest step (its quotients then miss the slope beyond the kink by
+    the jump times distance / step, too little to see at the ladder's steps), and its value
+    is the slope beyond that kink, not the derivative here (kinks-110040: an absolute value's
+    corner 6.5e-14 from the point, every step above 1e-10, the settled side off by 1,846);
+    and where the tiny step's own two sides differ (a kink within it)."""
+    on_side = (settled_left ^ settled_right) & (judged.status == FAIL) & (judged.estimate.value == side.value)
+    on_side[differ] = False
+    tiny = _tiny(probe, flat, ladder, side, np.flatnonzero(on_side))
+    if tiny is None:
+        return judged
+    which, side_w, jump, right_q, left_q, noise = tiny
+    mine = np.where(settled_left[which], left_q, right_q)
+    tol = probe.tolerance(flat[which], probe.a[flat[which]])
+    with np.errstate(invalid="ignore", over="ignore"):
+        holds = np.abs(mine - side_w.value) <= SIGNIFICANCE * (side_w.error + noise) + CURVATURE_SLACK * jump
+        # A kink within the tiny step, at the point or closer than any step may tell (the pair
+        # goes no lower than RESOLVED_SPACINGS spacings of x), where a value off the settled
+        # side by D can be a kink's: seen as the step's own sides apart, or not ruled out where
+        # kinks with jumps of D would only have to cancel to within CANCEL of D to hide in what
+        # that pair resolves (kinks-110191: absolute values' corners at 0 and 1,500 spacings of x
+        # either side, jumps of 4.87 and -4.90, D 0.127 against a gap of 0.005 within 0.003).
+        gap = np.abs(right_q - left_q)
+        off = np.abs(probe.a[flat[which]] - side_w.value)
+        apart = (gap > 2.0 * SIGNIFICANCE * noise + tol) | (gap + noise > CANCEL * off)
+    beyond, within = which[~holds & ~apart], which[apart]
+    judged = judged.undecided(beyond, (NEAR_KINK,) * beyond.size)
+    return judged.undecided(within, (UNRESOLVED,) * within.size)
+
+
+def _settled(probe: TensorProbe, flat: np.ndarray, ladder: Ladder) -> tuple[np.ndarray, np.ndarray, Estimate]:
+    """Where the left or the right side settled (its bound LOPSIDED of the other's) and that
+    side's estimate, its bound taken NEAR_SAFETY times wider (as :func:`.kinks.judge_ladder`
+    takes it)."""
+    left, right = ladder.left, ladder.right
+    tol = probe.tolerance(flat, 0.5 * (left.value + right.value))
+    settled_left = (left.error < LOPSIDED * right.error) & (right.error > tol)
+    settled_right = (right.error < LOPSIDED * left.error) & (left.error > tol)
     side = Estimate(np.where(settled_left, left.value, right.value),
                     NEAR_SAFETY * np.where(settled_left, left.error, right.error))
-    joined = _joined(probe, ladder, side, settled_left)
-    which = np.flatnonzero(one)
+    return settled_left, settled_right, side
+
+
+def _tiny(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, side: Estimate, which: np.ndarray):
+    """A pair per position ``which`` at the smallest step at which rounding leaves the sides'
+    jump plain to see (as tiny_pair's), yet RESOLVED_SPACINGS spacings of x at least and 16
+    times below the ladder's smallest: (positions with room for it, their side estimates,
+    jumps, right and left quotients, the quotients' rounding), or None."""
     if which.size == 0:
-        return judged
-    side = side.pick(which)
+        return None
+    left, right = ladder.left, ladder.right
     jump = np.abs(np.nan_to_num((right.value - left.value)[which]))
-    # The smallest step at which rounding leaves the jump plain to see (as tiny_pair's), yet
-    # RESOLVED_SPACINGS spacings of x at least, and 16 times below the ladder's smallest.
     lowest = 2.0 * RESOLVED_SPACINGS * probe.resolution(flat[which])
     highest = ladder.smallest[which] * 2.0**-4
-    room = (lowest < highest) & np.isfinite(side.value)
-    which, side, jump = which[room], side.pick(np.flatnonzero(room)), jump[room]
-    joined = joined[which]
+    room = (lowest < highest) & np.isfinite(side.value[which])
+    which, jump, lowest, highest = which[room], jump[room], lowest[room], highest[room]
     if which.size == 0:
-        return judged
+        return None
     visible = TINY_NOISE_UNITS * probe.loss_noise(np.full(which.size, probe.f0)) / np.maximum(jump, 1e-300)
-    p = probe.pairs(flat[which], np.clip(visible, lowest[room], highest[room]))
+    p = probe.pairs(flat[which], np.clip(visible, lowest, highest))
     right_q, left_q = p.sides(probe.f0)
     noise = 2.0 * p.noise / np.minimum(p.h_plus, p.h_minus)
-    with np.errstate(invalid="ignore", over="ignore"):
-        reach = SIGNIFICANCE * (side.error + noise) + CURVATURE_SLACK * jump
-        smooth = (np.abs(right_q - side.value) <= reach) & (np.abs(left_q - side.value) <= reach)
-        gap = np.abs(right_q - left_q)
-        off = np.abs(probe.a[flat[which]] - side.value)
-        smooth &= joined | ((gap <= noise + CURVATURE_SLACK * jump) & (gap + noise <= CANCEL * off))
-    k = np.flatnonzero(smooth)
-    if k.size == 0:
-        return judged
-    # The settled side, as far as the tiny step's quotients confirm it.
-    confirmed = np.maximum(np.abs(right_q - side.value), np.abs(left_q - side.value)) + noise
-    estimate = Estimate(side.value[k], np.maximum(side.error, confirmed)[k])
-    a = probe.a[flat[which[k]]]
-    status = verdicts(probe, a, estimate, probe.tolerance(flat[which[k]], estimate.value))
-    reasons = tuple(NEAR_KINK if s == INCONCLUSIVE else None for s in status)
-    again = Judged(status, estimate, reasons, np.zeros(k.size, dtype=bool))
-    return judged.merged(which[k], again)
+    return which, side.pick(which), jump, right_q, left_q, noise
 
 
 def _joined(probe: TensorProbe, ladder: Ladder, side: Estimate, settled_left: np.ndarray) -> np.ndarray:
