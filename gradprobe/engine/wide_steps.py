@@ -15,7 +15,7 @@ WIDE_ROWS = 4  # a window of four steps s, 2s, 4s, 8s
 WIDE_FIRST, WIDE_LAST = -2, 5  # windows start at the first step times 2**k, k in this range
 WIDE_SAFETY = 2.0  # the measured higher-order term is taken twice
 WIDE_NOISE = 2.0  # and the rounding it carries twice (as the ladder's tableau does)
-SHRINK_LIMIT = 0.625  # differences of the quotients halve their steps' squares: 1/4, with room
+SHRINK_LIMIT = 0.4  # differences of the quotients halve their steps' squares: 1/4, with room
 STEP_GROWTH = 1.5  # a window's steps ascend, each at least this many times the last (about 2)
 
 
