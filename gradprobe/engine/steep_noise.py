@@ -24,7 +24,8 @@ So, for at most MEASURED coordinates per tensor whose ladders ended undecided fo
   slopes that close, as at every step taken below it; reused where taken), cut above the
   first of its own rows that bends more, are judged on windows whose error model is checked
   on the quotients themselves (:func:`.wide_steps.windowed`, :func:`.wide_steps.plain_windowed`)
-  with that rounding, unless the one-sided gap stops halving with the step somewhere along
+  with that rounding, their changes shrinking to FIRST_ORDER_LIMIT of the next (a corner at the
+  point leaves a first-order error whose changes halve: kinks-120676), unless the one-sided gap stops halving with the step somewhere along
   the chain (a kink within it), its moves lie beyond two roundings yet do not grow with the
   step (:func:`.taylor_range.moves_unscaled`: steps beyond the loss's smooth scale), or they
   stay within two roundings at every step while backward's slope predicts far more
@@ -47,7 +48,7 @@ from .sides_gap import does_not_halve, takes_both_signs
 from .steps import slope_change
 from .taylor_range import moves_unscaled
 from .verdict import NOISE, SIGNIFICANCE, Judged, judge_plain
-from .wide_steps import WIDE_NOISE, plain_windowed, wide_table, windowed
+from .wide_steps import FIRST_ORDER_LIMIT, WIDE_NOISE, plain_windowed, wide_table, windowed
 
 MEASURED = 32  # coordinates per tensor measured (the first undecided ones)
 CHAIN = 8  # steps of the chain, each half the last
@@ -115,7 +116,8 @@ def chain_estimate(probe: TensorProbe, flat: np.ndarray, top: np.ndarray, taken:
                   noise.reshape(-1))
     limit = np.maximum(np.abs(probe.x[flat[mine]].astype(np.float64)), probe.x_scale)
     table = wide_table(probe, chain, CHAIN, limit)
-    seen = Estimate.better(windowed(*table), plain_windowed(*table))
+    # float64's small rounding tells a first-order error (a corner at the point) plainly
+    seen = Estimate.better(windowed(*table, shrink=FIRST_ORDER_LIMIT), plain_windowed(*table, shrink=FIRST_ORDER_LIMIT))
     kinked = does_not_halve(np.abs(table[3]), 2.0 * WIDE_NOISE * table[4]) | takes_both_signs(table[3], table[4])
     with np.errstate(invalid="ignore"):
         moved = np.maximum(np.abs(f_plus - probe.f0), np.abs(probe.f0 - f_minus))

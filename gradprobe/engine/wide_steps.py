@@ -15,7 +15,10 @@ WIDE_ROWS = 4  # a window of four steps s, 2s, 4s, 8s
 WIDE_FIRST, WIDE_LAST = -2, 5  # windows start at the first step times 2**k, k in this range
 WIDE_SAFETY = 2.0  # the measured higher-order term is taken twice
 WIDE_NOISE = 2.0  # and the rounding it carries twice (as the ladder's tableau does)
-SHRINK_LIMIT = 0.4  # differences of the quotients halve their steps' squares: 1/4, with room
+SHRINK_LIMIT = 0.625  # differences of the quotients halve their steps' squares: 1/4, with room
+# Where rounding is small (float64 code's chain on measured rounding), a first-order error's
+# differences, which halve (a corner at the point), are told from a second-order one's.
+FIRST_ORDER_LIMIT = 0.4
 STEP_GROWTH = 1.5  # a window's steps ascend, each at least this many times the last (about 2)
 
 
@@ -69,17 +72,17 @@ def wide_table(probe: TensorProbe, p: Pairs, rows: int, limit: np.ndarray) -> tu
 
 
 def windowed(d: np.ndarray, s: np.ndarray, e: np.ndarray, apart: np.ndarray, side_noise: np.ndarray,
-             asymmetry: np.ndarray, limit: np.ndarray) -> Estimate:
+             asymmetry: np.ndarray, limit: np.ndarray, *, shrink: float = SHRINK_LIMIT) -> Estimate:
     """The estimate of :func:`wide_estimate` from rows of central quotients ``d`` at steps
     ``s`` (each twice the last; rows x columns, a column per quantity estimated) with their
     rounding ``e``, the one-sided quotients' difference ``apart`` (right - left) and its
     rounding ``side_noise``, the moves' relative ``asymmetry``, and the largest step each
-    column may use (``limit``)."""
-    return windowed_at(d, s, e, apart, side_noise, asymmetry, limit)[0]
+    column may use (``limit``); consecutive differences shrink to ``shrink`` of the next."""
+    return windowed_at(d, s, e, apart, side_noise, asymmetry, limit, shrink=shrink)[0]
 
 
 def windowed_at(d: np.ndarray, s: np.ndarray, e: np.ndarray, apart: np.ndarray, side_noise: np.ndarray,
-                asymmetry: np.ndarray, limit: np.ndarray) -> tuple[Estimate, np.ndarray]:
+                asymmetry: np.ndarray, limit: np.ndarray, *, shrink: float = SHRINK_LIMIT) -> tuple[Estimate, np.ndarray]:
     """:func:`windowed`, and per column the row of the widest quotient its value takes (the
     window's second; -1 where no window bounds it)."""
     rows, n = d.shape
@@ -108,7 +111,7 @@ def windowed_at(d: np.ndarray, s: np.ndarray, e: np.ndarray, apart: np.ndarray, 
             follows = np.ones(n, dtype=bool)
             for k in range(2):
                 room = 2.0 * WIDE_NOISE * (noise[k] + noise[k + 1])
-                follows &= steps[k] <= SHRINK_LIMIT * steps[k + 1] + room
+                follows &= steps[k] <= shrink * steps[k + 1] + room
                 # nor faster than fourfold twice over, and in the same direction: past the
                 # scale on which the loss is smooth (an oscillation, a bend) quotients wander.
                 follows &= steps[k] >= steps[k + 1] / 16.0 - room
@@ -119,7 +122,7 @@ def windowed_at(d: np.ndarray, s: np.ndarray, e: np.ndarray, apart: np.ndarray, 
             # with the step too (a corner where only f'' jumps, between the window's steps, puts
             # every quotient off the model while its changes can shrink fourfold by chance).
             follows &= shrinking([bend[i[k + 1]] - bend[i[k]] for k in range(3)],
-                                  [bend_noise[i[k]] + bend_noise[i[k + 1]] for k in range(3)])
+                                  [bend_noise[i[k]] + bend_noise[i[k + 1]] for k in range(3)], shrink)
             follows &= gap[first] <= gap[last] * (s[first] / s[last]) * 2.0 + 2.0 * WIDE_NOISE * (side_noise[first] + side_noise[last])
             r12, n12 = richardson(i[0])
             r23, n23 = richardson(i[1])
@@ -173,20 +176,21 @@ def _ascending(s: np.ndarray, rows: np.ndarray, limit: np.ndarray) -> np.ndarray
     return ok
 
 
-def shrinking(signed: list[np.ndarray], noise: list[np.ndarray]) -> np.ndarray:
+def shrinking(signed: list[np.ndarray], noise: list[np.ndarray], limit: float = SHRINK_LIMIT) -> np.ndarray:
     """Consecutive changes (smallest step first) shrink as the step halves, at most
-    SHRINK_LIMIT of the next larger one and in the same direction, beyond their rounding."""
+    ``limit`` of the next larger one and in the same direction, beyond their rounding."""
     ok = np.ones(signed[0].shape, dtype=bool)
     for k in range(len(signed) - 1):
         room = 2.0 * WIDE_NOISE * (noise[k] + noise[k + 1])
         small, large = np.abs(signed[k]), np.abs(signed[k + 1])
-        ok &= small <= SHRINK_LIMIT * large + room
+        ok &= small <= limit * large + room
         ok &= (signed[k] * signed[k + 1] > 0) | (np.minimum(small, large) <= room)
     return ok
 
 
 def plain_windowed(d: np.ndarray, s: np.ndarray, e: np.ndarray, apart: np.ndarray,
-                   side_noise: np.ndarray, asymmetry: np.ndarray, limit: np.ndarray) -> Estimate:
+                   side_noise: np.ndarray, asymmetry: np.ndarray, limit: np.ndarray,
+                   *, shrink: float = SHRINK_LIMIT) -> Estimate:
     """As :func:`windowed` (the same arguments), from windows of three steps s1 < s2 < s3
     without extrapolation, for quotients that rounding rather than curvature limits (one
     extrapolation multiplies their rounding): the estimate D2 with c2 s2**2 measured from
@@ -195,11 +199,12 @@ def plain_windowed(d: np.ndarray, s: np.ndarray, e: np.ndarray, apart: np.ndarra
     the same direction, beyond rounding (the quotients follow c2 s**2), the one-sided gap
     shrinks with the step, and every smaller step's quotient lies as close to the estimate
     as its rounding allows."""
-    return plain_windowed_at(d, s, e, apart, side_noise, asymmetry, limit)[0]
+    return plain_windowed_at(d, s, e, apart, side_noise, asymmetry, limit, shrink=shrink)[0]
 
 
 def plain_windowed_at(d: np.ndarray, s: np.ndarray, e: np.ndarray, apart: np.ndarray, side_noise: np.ndarray,
-                      asymmetry: np.ndarray, limit: np.ndarray) -> tuple[Estimate, np.ndarray]:
+                      asymmetry: np.ndarray, limit: np.ndarray,
+                      *, shrink: float = SHRINK_LIMIT) -> tuple[Estimate, np.ndarray]:
     """:func:`plain_windowed`, and per column the row of the quotient its value is (the
     window's second; -1 where no window bounds it)."""
     rows, n = d.shape
@@ -212,7 +217,7 @@ def plain_windowed_at(d: np.ndarray, s: np.ndarray, e: np.ndarray, apart: np.nda
         for w in range(rows - 2):
             i1, i2, i3 = w, w + 1, w + 2
             lower, upper = d[i2] - d[i1], d[i3] - d[i2]
-            follows = shrinking([lower, upper], [e[i1] + e[i2], e[i2] + e[i3]])
+            follows = shrinking([lower, upper], [e[i1] + e[i2], e[i2] + e[i3]], shrink)
             follows &= gap[i1] <= gap[i3] * (s[i1] / s[i3]) * 2.0 + 2.0 * WIDE_NOISE * (side_noise[i1] + side_noise[i3])
             width = s[i3] ** 2 - s[i2] ** 2
             bend = (np.abs(upper) + e[i2] + e[i3]) * s[i2] ** 2 / width
