@@ -41,6 +41,12 @@ ABSORBED = (
     "ones: rounding in forward absorbs them (sums of much larger terms, or a cast to a narrower type "
     "inside?)"
 )
+STAIRS = (
+    "the loss does not change at all at any step tried, up to 64 times the params' scale, while "
+    "along other elements of the tensor it moves only in stairs taller than the change this "
+    "gradient predicts there: its rounding hides the slope (a loss at the rounding level of its "
+    "own terms, residuals within a unit of their targets?)"
+)
 
 
 def narrow_reconciled(
@@ -95,59 +101,79 @@ def unabsorbed(probe: TensorProbe, flat: np.ndarray, judged: Judged, first: Pair
     where the first pair saw it change on both sides alike (the smaller change at least
     BOTH_SIDES of the larger, as slope and curvature give), is rounding in forward absorbing the
     smaller steps (float32 sums of much larger terms), not evidence of a derivative of 0.
-    Where not even the first pair changed it, a larger step must (:func:`_changes_through`):
-    code that rounds to a type narrower than its arrays inside (a cast to bfloat16) has a
-    loss that is a staircase far coarser than the arrays' steps. (A loss flat near the
-    point, a unit switched off, changes on one side only: the step that reached the kink; a
-    loss that does not depend on the param never changes.)"""
+    Where not even the first pair changed it, a larger step must (:func:`_changes_through`),
+    on either side, where no change past the edge of the unchanged zone is smaller than a
+    staircase's stairs (:func:`.flat_zone.flat_zone`): code that rounds to a type narrower
+    than its arrays inside (a cast to bfloat16), or a loss at the rounding level of its own
+    terms (residuals within a unit of their targets: a float64 loss of 2e-38 that moves in
+    stairs as tall as itself, 1e14 times eps |f|), is a staircase far coarser than the
+    arrays' steps. (A loss flat near the point, a unit switched off, changes past the kink
+    continuously, as the bisection there shows; a loss that does not depend on the param
+    never changes.) A coordinate that never changed, up to BEYOND times the params' scale,
+    is undecided too where stairs are shown on others of the tensor and the smallest of them
+    is above the change its analytic slope predicts over the widest step tried (the stairs
+    would hide it; property case bug-derivative-61017: tensors the bug left unchanged failed on
+    0 +- 2e-47)."""
     first_central = first.central
     up, down = np.abs(first.f_plus - probe.f0), np.abs(first.f_minus - probe.f0)
     both = (np.minimum(up, down) >= BOTH_SIDES * np.maximum(up, down)) & (first_central != 0.0)
     zero_fail = (judged.status == FAIL) & (judged.estimate.value == 0.0)
     still = np.flatnonzero(zero_fail & (up == 0.0) & (down == 0.0))
+    hid: set[int] = set()
     if still.size:  # not even the first pair changed the loss: does a larger step?
         h = 0.5 * (first.h_plus[still] + first.h_minus[still])
-        changes, flat_to = _changes_through(probe, flat[still], h)
+        changes, flat_to, stair, tried = _changes_through(probe, flat[still], h)
         # ... and is the loss's rounding that coarse, or a zone flat at every resolution?
-        both[still] = changes & ~flat_zone(probe, flat[still], h, flat_to)
+        stairs = changes & ~flat_zone(probe, flat[still], h, flat_to)
+        both[still] = stairs
+        if stairs.any():  # unmoved at every step tried, yet the stairs shown would hide its slope?
+            hidden = ~changes & (np.abs(probe.a[flat[still]].astype(np.float64)) * tried < np.min(stair[stairs]))
+            both[still[hidden]] = True
+            hid = set(still[hidden].tolist())
     absorbed = np.flatnonzero(zero_fail & both)
     if absorbed.size == 0:
         return judged
+    said = tuple(STAIRS if k in hid else ABSORBED for k in absorbed.tolist())
     undecided = Judged(np.full(absorbed.size, INCONCLUSIVE, dtype=judged.status.dtype),
                        Estimate(first_central[absorbed], np.full(absorbed.size, np.inf)),
-                       (ABSORBED,) * absorbed.size, np.ones(absorbed.size, dtype=bool))
+                       said, np.ones(absorbed.size, dtype=bool))
     return judged.merged(absorbed, undecided)
 
 
 RISE = 16.0  # the larger steps tried: 16, 256, ... times the first
 RISES = 6
+BEYOND = 64.0  # the widest step: this many times the params' own scale (stairs can be wider)
 
 
-def _changes_through(probe: TensorProbe, flat: np.ndarray, h: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Per coordinate: at some step h * RISE**k (k = 1..RISES, never beyond the params' own
-    scale) the loss changes on both sides, the smaller change at least BOTH_SIDES of the
-    larger: the smaller steps were absorbed, not the loss flat on one side of a kink (a unit
-    switched off changes it on one side only). A zone where the loss is flat on both sides
-    of the point (a soft threshold) looks the same and is undecided too, never a pass
-    (:func:`.flat_zone.flat_zone` tells the two apart where it can). One batch of pairs.
-    Also, per coordinate, the largest step tried at which the loss changed on neither side
-    (``h`` where every step changed it)."""
+def _changes_through(probe: TensorProbe, flat: np.ndarray, h: np.ndarray
+                     ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Per coordinate: at some step h * RISE**k (k = 1..RISES, never beyond BEYOND times the
+    params' own scale) the loss changes, on either side: the smaller steps were absorbed, or
+    the loss is flat up to a kink (a unit switched off), which :func:`.flat_zone.flat_zone`
+    tells apart where it can (a zone flat on both sides, a soft threshold, is undecided too,
+    never a pass). One batch of pairs. Also, per coordinate, the largest step tried at which
+    the loss changed on neither side (``h`` where every step changed it), the smallest change
+    at the first step that changed it (inf where none did) and the widest step tried."""
     scale = np.maximum(np.abs(probe.x[flat].astype(np.float64)), probe.x_scale)
     factors = RISE ** np.arange(1, RISES + 1)
     steps = h[None, :] * factors[:, None]
-    within = steps <= np.maximum(scale, h)[None, :]
+    within = steps <= np.maximum(BEYOND * scale, h)[None, :]
     levels = int(within.any(axis=1).sum())
     if levels == 0:
-        return np.zeros(flat.size, dtype=bool), h
+        return np.zeros(flat.size, dtype=bool), h, np.full(flat.size, np.inf), h
     p = probe.pairs(np.tile(flat, levels), steps[:levels].reshape(-1))
     up = (p.f_plus - probe.f0).reshape(levels, flat.size)
     down = (probe.f0 - p.f_minus).reshape(levels, flat.size)
-    alike = np.minimum(np.abs(up), np.abs(down)) >= BOTH_SIDES * np.maximum(np.abs(up), np.abs(down))
-    alike &= np.maximum(np.abs(up), np.abs(down)) > 0
     unchanged = (up == 0.0) & (down == 0.0) & within[:levels]
     first_change = np.argmax(~unchanged, axis=0)  # levels below it all left the loss as it was
     flat_to = np.where(first_change > 0, steps[np.maximum(first_change - 1, 0), np.arange(flat.size)], h)
-    return (alike & within[:levels]).any(axis=0), flat_to
+    with np.errstate(invalid="ignore"):
+        moved = ((np.abs(up) > 0) | (np.abs(down) > 0)) & within[:levels]
+        sizes = np.where(np.abs(up) > 0, np.abs(up), np.inf), np.where(np.abs(down) > 0, np.abs(down), np.inf)
+    k = np.arange(flat.size)
+    stair = np.where(moved.any(axis=0), np.minimum(*sizes)[first_change, k], np.inf)
+    tried = np.max(np.where(within[:levels], steps[:levels], h[None, :]), axis=0)
+    return moved.any(axis=0), flat_to, stair, tried
 
 
 def own_code_reconciled(
