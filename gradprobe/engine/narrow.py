@@ -139,9 +139,10 @@ KINK_TRIPLES = ((0, 1, 2, 0.75), (0, 2, 3, 0.5), (2, 3, 4, 0.5), (3, 4, 5, 0.5))
 
 def kink_within_reach(
     probe: TensorProbe, own: TensorProbe, flat: np.ndarray, narrow: np.ndarray, scale: np.ndarray
-) -> tuple[np.ndarray, Estimate] | None:
+) -> tuple[np.ndarray, Estimate, np.ndarray] | None:
     """Which narrow gradients that leave their float64 run are explained by a kink of the
-    float64 run within the narrow type's resolution, with the estimate each is judged by.
+    float64 run within the narrow type's resolution, with the estimate each is judged by,
+    and which lie off the sides of a kink shown there (None where neither).
 
     The evidence of a kink is the one-sided quotients of the float64 run at the steps
     KINK_STEPS: at three steps running (KINK_TRIPLES: halving from h, or quartering) their
@@ -177,10 +178,11 @@ def kink_within_reach(
                    & (narrow <= np.maximum(left, right) + tol + noise))
     fits = steady & apart & between
     took = fits.any(axis=0)
-    if not took.any():
+    beside = (steady & apart).any(axis=0) & ~took  # a kink shown, the narrow value off its sides
+    if not (took.any() or beside.any()):
         return None
     row = np.argmax(fits, axis=0)  # the largest step that explains it
     cols = np.arange(n)
     lv, rv, nv = left[row, cols], right[row, cols], noise[row, cols]
     nearer = np.where(np.abs(narrow - lv) <= np.abs(narrow - rv), lv, rv)
-    return took, Estimate(nearer[took], nv[took])
+    return took, Estimate(nearer[took], nv[took]), beside

@@ -58,7 +58,9 @@ def narrow_reconciled(
     coordinates whose narrow gradient leaves that run by more than the narrow type's
     threshold settled: by a kink narrow rounding puts at the point
     (:func:`.narrow.kink_within_reach`); else, beyond SIGNIFICANCE times the rounding
-    measured for it (point.Point.narrow_spread) too, by ``check`` (the coordinate check) on
+    measured for it (point.Point.narrow_spread) too, or off the sides of a kink the float64
+    run shows within reach (that kink's jump, not rounding, is then what the narrow backward
+    varies by between nearby points: bug-sign-61003), by ``check`` (the coordinate check) on
     the narrow code itself, against that rounding, the worse verdict standing (where the
     narrow arithmetic cannot tell, undecided: the measured rounding need not cover all that
     the narrow type does differently). Returns (analytic, numeric, error estimate, status,
@@ -68,18 +70,22 @@ def narrow_reconciled(
     narrow_a = own.a[flat]
     off = np.flatnonzero(disagreeing(narrow_a, a, own.threshold * scale))
     status, numeric, error_estimate = status.copy(), numeric.copy(), error_estimate.copy()
+    beside = np.zeros(0, dtype=np.int64)
     if off.size:  # a kink that narrow rounding puts at the point, on the float64 run?
         sided = kink_within_reach(probe, own, flat[off], narrow_a[off], scale[off])
         if sided is not None:
-            took, side = sided
+            took, side, off_sides = sided
             k = off[took]
             status[k] = np.maximum(status[k], KINK)
             numeric[k], error_estimate[k] = side.value, side.error
             a[k] = narrow_a[k]
+            beside = off[off_sides]
             off = off[~took]
     spread = own.jitter() if off.size and own.jitter is not None else None
     if spread is not None:  # beyond the type's threshold: beyond its measured rounding too?
-        off = off[np.abs(narrow_a[off] - a[off]) > SIGNIFICANCE * spread[flat[off]]]
+        # Not where a kink is shown with the narrow value off its sides: the narrow backward's
+        # variation between points a few units apart is then that kink's jump, not rounding.
+        off = off[(np.abs(narrow_a[off] - a[off]) > SIGNIFICANCE * spread[flat[off]]) | np.isin(off, beside)]
     if off.size:  # the narrow value on the narrow code itself
         redo = check(own, flat[off])  # counted with the check's calls
         redone_status, redone_reasons = unfuzzed(own, flat[off], narrow_a[off], redo.estimate.value,
