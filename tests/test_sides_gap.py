@@ -135,3 +135,27 @@ def test_a_smooth_loss_s_third_order_disagreement_is_not_taken_for_kinks():
     assert extrapolations_apart(right, left, noise)[0] == 0.0
     right, left = sides(lambda x: math.exp(3 * x) - abs(x - 0.1 - 5e-3), 0.1)  # a kink 5e-3 away
     assert extrapolations_apart(right, left, noise)[0] > 0.1
+
+
+def test_a_kink_closer_than_every_step_beside_curvature_keeps_the_sides_apart():
+    """The chain of steps ascending from 4e-3 to 0.5 (as the chain on measured rounding takes
+    them). cosh(x) + 1e-5 |x - 1e-9| at 0.0: the gap is the jump 2e-5 (|u|' = sign(u), a table
+    entry) less a hair, plus cosh's f'' h = h: curvature halves, the jump stays, and
+    does_not_halve sees only the halving. The sides' extrapolations 2 g(h) - g(2 h) keep the
+    jump at every step; cosh alone (f'''' = 1, Taylor) parts them by h**3 / 2, eightfold less
+    per halving."""
+    from gradprobe.engine.sides_gap import does_not_halve, extrapolations_stay_apart
+
+    steps = 4e-3 * 2.0 ** np.arange(8)
+
+    def rows(f):
+        right = np.array([(f(h) - f(0.0)) / h for h in steps])[:, None]
+        left = np.array([(f(0.0) - f(-h)) / h for h in steps])[:, None]
+        return right - left
+
+    noise = (4.0 * np.finfo(np.float64).eps / steps)[:, None]
+    kinked = rows(lambda x: math.cosh(x) + 1e-5 * abs(x - 1e-9))
+    smooth = rows(math.cosh)
+    assert not does_not_halve(np.abs(kinked), 2.0 * noise)[0]
+    assert extrapolations_stay_apart(kinked, noise)[0]
+    assert not extrapolations_stay_apart(smooth, noise)[0]

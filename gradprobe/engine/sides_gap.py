@@ -73,3 +73,21 @@ def does_not_halve(gap: np.ndarray, room: np.ndarray | float) -> np.ndarray:
         resolved = gap > room
         both = resolved[:-1] & resolved[1:]
         return np.any(both & (gap[:-1] > KINK_SHRINK * gap[1:]), axis=0)
+
+
+def extrapolations_stay_apart(gap: np.ndarray, noise: np.ndarray) -> np.ndarray:
+    """Per column (rows ascending in the step, each twice the last; ``noise`` a side's
+    rounding per row): at two consecutive steps the sides' first-order extrapolations part,
+    by 2 g(h) - g(2 h), beyond 2 NOISE_UNITS times their rounding, and the one at the smaller
+    step did not shrink to THIRD_ORDER_SLACK of the other. Along a smooth loss that parting
+    is the third-order term, shrinking eightfold per halving; a kink closer to the point than
+    every step adds its jump to the gap at each, a share that stays while curvature's halves
+    and hides it from :func:`does_not_halve` (bug-transpose-61022: a jump of 1.05e-5 beside
+    a gap of 1.6e-5 to 5.7e-4 at steps 4e-3 to 0.5, a kink 1e-9 away, its half read as the
+    derivative's error)."""
+    with np.errstate(invalid="ignore", over="ignore"):
+        parted = np.abs(2.0 * gap[:-1] - gap[1:])
+        shown = parted > 2.0 * NOISE_UNITS * (2.0 * noise[:-1] + noise[1:])
+        stays = parted[:-1] > THIRD_ORDER_SLACK * parted[1:]
+        return np.any(shown[:-1] & shown[1:] & stays, axis=0)
+

@@ -44,7 +44,7 @@ from ..common.status import INCONCLUSIVE
 from .ladder import Estimate
 from .probe import Pairs, TensorProbe
 from .refine import Taken, pairs_reusing
-from .sides_gap import does_not_halve, takes_both_signs
+from .sides_gap import does_not_halve, extrapolations_stay_apart, takes_both_signs
 from .steps import slope_change
 from .taylor_range import moves_unscaled
 from .verdict import NOISE, SIGNIFICANCE, Judged, judge_plain
@@ -119,6 +119,7 @@ def chain_estimate(probe: TensorProbe, flat: np.ndarray, top: np.ndarray, taken:
     # float64's small rounding tells a first-order error (a corner at the point) plainly
     seen = Estimate.better(windowed(*table, shrink=FIRST_ORDER_LIMIT), plain_windowed(*table, shrink=FIRST_ORDER_LIMIT))
     kinked = does_not_halve(np.abs(table[3]), 2.0 * WIDE_NOISE * table[4]) | takes_both_signs(table[3], table[4])
+    kinked |= extrapolations_stay_apart(table[3], table[4])  # a kink closer than every step
     with np.errstate(invalid="ignore"):
         moved = np.maximum(np.abs(f_plus - probe.f0), np.abs(probe.f0 - f_minus))
     steps = np.maximum(fields[2], fields[3])
