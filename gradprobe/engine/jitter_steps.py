@@ -15,7 +15,7 @@ from ..common.tensors import Handed, Workspace
 from .domain import quiet
 from .gradients import validate
 from .preflight import call_backward
-from .sampling import random_negative, tensor_rng
+from .sampling import SIGN_CHUNK, random_negative, tensor_rng
 
 JITTER_ULPS = 4.0  # units in the last place every checked tensor moves to measure the jitter
 JITTER_SPAN = 5  # backward calls: points x + d ... x + 5d, three second differences
@@ -159,29 +159,58 @@ def moved_point(x: np.ndarray, k: int, ulps: float, rng: np.random.Generator,
     return moved
 
 
+def move_in_place(x: np.ndarray, k: int, ulps: float, rng: np.random.Generator,
+                  grid: np.dtype | None) -> None:
+    """:func:`moved_point` written into ``x`` itself (C-ordered), SIGN_CHUNK values at a time:
+    the same draws in the same order (sampling.random_negative's chunks) and the same
+    operations on each value, with no array of ``x``'s size beside it."""
+    flat = x.reshape(-1)
+    coarser = grid is not None and np.finfo(grid).eps > np.finfo(x.dtype).eps
+    for start in range(0, flat.size, SIGN_CHUNK):
+        part = flat[start:start + SIGN_CHUNK]
+        negative = rng.integers(0, 2, size=part.size) == 0
+        step = np.abs(part)
+        np.spacing(step, out=step)
+        if coarser:
+            step = np.maximum(step, np.abs(np.spacing(np.abs(part).astype(grid))).astype(x.dtype))
+        step *= ulps
+        np.negative(step, out=step, where=negative)
+        np.multiply(step, k, out=step, dtype=step.dtype)
+        step += part
+        part[...] = step
+
+
+def _refills(x: np.ndarray, other: np.ndarray | None) -> bool:
+    """``x`` can be moved in place and put back from ``other``, the same values in an array of
+    its own (the float64 run's copy of narrow params, or the narrow params of that run)."""
+    return (other is not None and x.flags.c_contiguous and x.flags.writeable and other.shape == x.shape
+            and not np.may_share_memory(x, other))
+
+
 def measured_jitter(backward: Callable[..., Any], grad_output: Any, ws: Workspace, base: dict[str, np.ndarray],
                     seed: int, grid: np.dtype | None = None, compact: bool = False,
-                    keep: set[str] | None = None, ulps: float = JITTER_ULPS) -> dict[str, np.ndarray]:
+                    keep: set[str] | None = None, ulps: float = JITTER_ULPS,
+                    source: Workspace | None = None) -> dict[str, np.ndarray]:
     """The largest of |g(x + (k+2)d) - 2 g(x + (k+1)d) + g(x + kd)|, k = 1..JITTER_SPAN-2:
     second differences cancel how the gradient really changes along d and keep how its
     rounding varies from point to point; the points lie on one side of a kink at the
     point, so a kink's jump is not taken for fuzz. JITTER_SPAN backward calls (the run's
     ``seed`` draws the signs). Every tensor of ``base`` moves; only those in ``keep``
-    (default: all) are measured."""
+    (default: all) are measured. ``source``: a workspace holding ``ws``'s values exactly in
+    another type, both at rest: the moved points are written into ``ws``'s own arrays and put
+    back from it after each call (no moved copy of the params beside them)."""
     if not base:
         return {}
     names = [name for name in base if keep is None or name in keep]
+    in_place = source is not None and source is not ws and all(
+        _refills(ws.owners[n], source.owners.get(n)) for n in base)
     fuzz: dict[str, np.ndarray | Narrowed] = {}
     before: list[dict[str, np.ndarray]] = []  # the last two points' gradients only
     absent: set[str] = set()  # tensors some point gave no usable gradient for
     try:
         for k in range(1, JITTER_SPAN + 1):
-            # x + k d, one array each; the steps are drawn again for every point
-            moved = {n: moved_point(ws.owners[n], k, ulps, tensor_rng(seed, n, "jitter"), grid)
-                     for n in base}
-            with quiet():  # a moved point: the code's warnings there are not shown
-                raw = call_backward(backward, ws.replacing(moved), grad_output, scratch=False)
-            del moved
+            # x + k d, one array each (or in place); the steps are drawn again for every point
+            raw = _at_moved(backward, grad_output, ws, base, k, ulps, seed, grid, source if in_place else None)
             fresh = isinstance(raw, Handed) and raw.fresh
             # Narrow gradients in their own type (exact), read before the code runs again;
             # the differences in float64, a block at a time.
@@ -200,3 +229,20 @@ def measured_jitter(backward: Callable[..., Any], grad_output: Any, ws: Workspac
     except ProbeError:
         return {}
     return {name: v for name, v in fuzz.items() if name not in absent}  # type: ignore[misc]  # compact: Narrowed
+
+
+def _at_moved(backward: Callable[..., Any], grad_output: Any, ws: Workspace, base: dict[str, np.ndarray],
+              k: int, ulps: float, seed: int, grid: np.dtype | None, source: Workspace | None) -> Any:
+    """backward's result at x + k d for every tensor of ``base`` (:func:`measured_jitter`)."""
+    if source is None:
+        moved = {n: moved_point(ws.owners[n], k, ulps, tensor_rng(seed, n, "jitter"), grid) for n in base}
+        with quiet():  # a moved point: the code's warnings there are not shown
+            return call_backward(backward, ws.replacing(moved), grad_output, scratch=False)
+    try:
+        for n in base:
+            move_in_place(ws.owners[n], k, ulps, tensor_rng(seed, n, "jitter"), grid)
+        with quiet():
+            return call_backward(backward, ws, grad_output, scratch=False)
+    finally:
+        for n in base:
+            np.copyto(ws.owners[n], source.owners[n], casting="unsafe")

@@ -169,7 +169,9 @@ class Point:
         """How backward's rounding varies at this point (:func:`.jitter_steps.measured_jitter`)."""
         if self.backward is None:
             return {}
-        return measured_jitter(self.backward, self.info.grad_output, ws, base, self.seed, grid, compact, keep, ulps)
+        other = self.numerics.workspace if ws is self.ws else self.ws  # the same values, another type
+        return measured_jitter(self.backward, self.info.grad_output, ws, base, self.seed, grid, compact, keep, ulps,
+                               source=None if other is ws else other)
 
     def probe(self, name: str, threshold: float) -> TensorProbe:
         n = self.numerics
