@@ -170,3 +170,14 @@ def test_a_settled_side_beside_kinks_closer_than_its_steps_is_no_failure(seed):
 
     o = judged_cleanly("kinks", seed)
     assert not o["false_alarm"], (o["status"], o["expect"])
+
+
+def test_kinks_cancelling_at_one_tiny_step_by_chance_are_no_failure():
+    """kinks-130108: an absolute value's corner at the point (jump 0.014) and another 8e-12
+    beside it, partly crossed by the tiny step (0.023 of jump): at that step the two nearly
+    cancel (a gap of 4e-5, within 1% of the value's distance from the settled side); at a step
+    four times wider they do not. Correct backward (mpmath, through the judge)."""
+    from adversarial import judged_cleanly
+
+    o = judged_cleanly("kinks", 130108)
+    assert not o["false_alarm"], (o["status"], o["expect"])
