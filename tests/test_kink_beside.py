@@ -159,13 +159,15 @@ def test_relu_ties_within_the_tiny_step_are_no_failure():
     assert not o["false_alarm"], (o["status"], o["expect"])
 
 
-@pytest.mark.parametrize("seed", [110040, 110191, 110759])
+@pytest.mark.parametrize("seed", [110040, 110191, 110759, 140045])
 def test_a_settled_side_beside_kinks_closer_than_its_steps_is_no_failure(seed):
-    """kinks-110040/110191/110759: absolute values and ReLUs with residuals exactly 0 and
+    """kinks-110040/110191/110759/140045: absolute values and ReLUs with residuals exactly 0 and
     others 1e-16 to 1e-13 beside them (closer than any step), one side of the ladder settled
     at the slope beyond them. That side is not the derivative at the point: the pair far below
     the ladder shows it (its quotient leaves the side) or cannot rule out kinks within it
-    whose jumps cancel. Correct backwards (mpmath, through the generator's judge)."""
+    whose jumps cancel; on every ladder, the ones further down and between the levels too
+    (kinks-140045: two ReLUs at the point, the ladder between the levels settled on the
+    right). Correct backwards (mpmath, through the generator's judge)."""
     from adversarial import judged_cleanly
 
     o = judged_cleanly("kinks", seed)

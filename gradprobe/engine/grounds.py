@@ -46,6 +46,7 @@ from .ladder import NOISE_UNITS, PREDICTION_SLACK, SAFETY, Estimate, drifting
 from .probe import Pairs, TensorProbe
 from .refine import RATIO, Ladder, Taken, grown_changes, tiny_pair
 from .kinks import judge_ladder, sides_differ
+from .lopsided import settled_failures
 from .taylor_range import unscaled_moves
 from .verdict import BOTH_SIDES_MOVED, CROWDED, SIGNIFICANCE, UNRESOLVED, UNSETTLED, Judged
 
@@ -67,7 +68,8 @@ def judged_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, start: n
         tiny = tiny_pair(probe, flat[which], ladder.smallest[which], jump)
         if start is not None and taken:
             ladder = crossed_wider(probe, flat, start, ladder, taken, which)
-    judged = crossed_bound(probe, flat, ladder, judge_ladder(probe, flat, ladder, tiny), wider)
+    judged = settled_failures(probe, flat, ladder, judge_ladder(probe, flat, ladder, tiny))  # a side settled beside a kink?
+    judged = crossed_bound(probe, flat, ladder, judged, wider)
     judged = rows_bear_out(probe, flat, ladder, off_the_grid(probe, flat, ladder, judged))
     return unscaled_moves(probe, flat, ladder, judged)
 

@@ -58,8 +58,7 @@ AGAIN = 4.0  # the second tiny pair's step, this many times the first's
 def kink_beside(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Judged) -> Judged:
     """``judged`` (the verdicts of ``ladder`` at ``flat``) with its kinks on one settled side
     looked at with a tiny step (module's note): where the loss is smooth at that step with
-    the settled side's slope, that side's estimate judges the coordinate (one pair each);
-    then its failures on a settled side checked there too (:func:`_settled_failures`)."""
+    the settled side's slope, that side's estimate judges the coordinate (one pair each)."""
     settled_left, settled_right, side = _settled(probe, flat, ladder)
     crossed_left, crossed_right = crossed(ladder)
     # The settled side crossed no kink among the steps (else kinks crowd the point on both
@@ -87,7 +86,7 @@ def kink_beside(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Ju
             status = verdicts(probe, a, estimate, probe.tolerance(flat[which[k]], estimate.value))
             reasons = tuple(NEAR_KINK if s == INCONCLUSIVE else None for s in status)
             judged = judged.merged(which[k], Judged(status, estimate, reasons, np.zeros(k.size, dtype=bool)))
-    return _settled_failures(probe, flat, ladder, judged, settled_left, settled_right, side, differ)
+    return judged
 
 
 def _smooth_again(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, side: Estimate,
@@ -112,16 +111,17 @@ def _smooth_again(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, side: Es
     return out
 
 
-def _settled_failures(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Judged,
-                      settled_left: np.ndarray, settled_right: np.ndarray, side: Estimate,
-                      differ: np.ndarray) -> Judged:
-    """Failures judged by a settled side (:func:`.kinks.judge_ladder`) undecided where the
+def settled_failures(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Judged) -> Judged:
+    """Failures of ``ladder``'s verdicts ``judged`` (:func:`.kinks.judge_ladder`, every
+    ladder's) judged by a settled side, undecided where the
     tiny step's quotient on that side leaves it: a side also settles where a kink lies closer
     to the point than its smallest step (its quotients then miss the slope beyond the kink by
     the jump times distance / step, too little to see at the ladder's steps), and its value
     is the slope beyond that kink, not the derivative here (kinks-110040: an absolute value's
     corner 6.5e-14 from the point, every step above 1e-10, the settled side off by 1,846);
     and where the tiny step's own two sides differ (a kink within it)."""
+    settled_left, settled_right, side = _settled(probe, flat, ladder)
+    differ = sides_differ(probe, flat, ladder)
     on_side = (settled_left ^ settled_right) & (judged.status == FAIL) & (judged.estimate.value == side.value)
     on_side[differ] = False
     tiny = _tiny(probe, flat, ladder, side, np.flatnonzero(on_side))
