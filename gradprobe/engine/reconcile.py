@@ -154,7 +154,8 @@ BEYOND = 64.0  # the widest step: this many times the params' own scale (stairs 
 def _changes_through(probe: TensorProbe, flat: np.ndarray, h: np.ndarray
                      ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Per coordinate: at some step h * RISE**k (k = 1..RISES, never beyond BEYOND times the
-    params' own scale) the loss changes, on either side: the smaller steps were absorbed, or
+    params' own scale; for narrow code, within that scale and on both sides alike, as before)
+    the loss changes, on either side: the smaller steps were absorbed, or
     the loss is flat up to a kink (a unit switched off), which :func:`.flat_zone.flat_zone`
     tells apart where it can (a zone flat on both sides, a soft threshold, is undecided too,
     never a pass). One batch of pairs. Also, per coordinate, the largest step tried at which
@@ -163,7 +164,8 @@ def _changes_through(probe: TensorProbe, flat: np.ndarray, h: np.ndarray
     scale = np.maximum(np.abs(probe.x[flat].astype(np.float64)), probe.x_scale)
     factors = RISE ** np.arange(1, RISES + 1)
     steps = h[None, :] * factors[:, None]
-    within = steps <= np.maximum(BEYOND * scale, h)[None, :]
+    wide = probe.compute_dtype == np.dtype(np.float64)  # narrow code: its own steps, both sides alike
+    within = steps <= np.maximum((BEYOND if wide else 1.0) * scale, h)[None, :]
     levels = int(within.any(axis=1).sum())
     if levels == 0:
         return np.zeros(flat.size, dtype=bool), h, np.full(flat.size, np.inf), h
@@ -175,6 +177,8 @@ def _changes_through(probe: TensorProbe, flat: np.ndarray, h: np.ndarray
     flat_to = np.where(first_change > 0, steps[np.maximum(first_change - 1, 0), np.arange(flat.size)], h)
     with np.errstate(invalid="ignore"):
         moved = ((np.abs(up) > 0) | (np.abs(down) > 0)) & within[:levels]
+        if not wide:  # a change on both sides alike (a unit switched off changes one side only)
+            moved &= np.minimum(np.abs(up), np.abs(down)) >= BOTH_SIDES * np.maximum(np.abs(up), np.abs(down))
         sizes = np.where(np.abs(up) > 0, np.abs(up), np.inf), np.where(np.abs(down) > 0, np.abs(down), np.inf)
     k = np.arange(flat.size)
     stair = np.where(moved.any(axis=0), np.minimum(*sizes)[first_change, k], np.inf)
