@@ -19,8 +19,11 @@ fit takes one more term (c6 s**6). Checked on the coordinate before any use: the
 spread no more than RESIDUAL_LIMIT times sigma allows (the quotients follow the curve: a kink
 or a bend within the steps shows), the fit with one more term reads the same f' within
 SIGNIFICANCE of its own standard error, and the fits on every other step (two halves, each
-its own roundings) agree within theirs. A verdict comes from here only at a bound within
-PASS_SHARE of the tolerance (a pass must tell an error of 1.5 thresholds from none): a pass
+its own roundings) agree within theirs; the loss is smooth across the steps beyond what the
+quotients show (:mod:`.smooth_across`: the pairs' even part shows no kink among them, and the
+quotients taken before at smaller steps continue the curve), and a failure also lies beyond
+the shift a kink the even part leaves unseen could make. A verdict comes from here only at a
+bound within PASS_SHARE of the tolerance (a pass must tell an error of 1.5 thresholds from none): a pass
 within the tolerance, a failure beyond both it and SIGNIFICANCE bounds. The fit is tried over
 the widest steps within reach and over half and a quarter of them (NARROWER: a loss that
 bends beyond the quartic over the widest keeps to it over narrower ones), the smallest bound
@@ -31,9 +34,12 @@ from __future__ import annotations
 
 import numpy as np
 
+from ..common.classes import dataclass
 from ..common.status import FAIL, INCONCLUSIVE, PASS
 from .ladder import Estimate
 from .probe import TensorProbe
+from .refine import Taken
+from .smooth_across import continued, even_part, smaller_central, unseen_kink
 from .verdict import NOISE, SIGNIFICANCE, Judged
 
 STEPS = 64  # pairs per coordinate
@@ -48,10 +54,11 @@ NARROWER = (1.0, 2.0, 4.0)  # fits over the widest steps within reach, and over 
 
 
 def fitted_passes(probe: TensorProbe, flat: np.ndarray, judged: Judged, which: np.ndarray,
-                  rounding: np.ndarray, reach: np.ndarray, widest: np.ndarray) -> Judged:
+                  rounding: np.ndarray, reach: np.ndarray, widest: np.ndarray, taken: list[Taken]) -> Judged:
     """``judged`` with coordinates ``which`` (positions in ``flat``; their measured rounding,
     its reach and the widest step the scale allows) still undecided for rounding judged on
-    the fitted curve where its bound lies within PASS_SHARE of the tolerance."""
+    the fitted curve where its bound lies within PASS_SHARE of the tolerance (the central
+    quotients ``taken`` before at smaller steps must continue it)."""
     left = np.flatnonzero((judged.status[which] == INCONCLUSIVE)
                           & np.array([judged.reasons[k] == NOISE for k in which], dtype=bool)
                           & np.isfinite(rounding))[:FITTED]
@@ -61,22 +68,24 @@ def fitted_passes(probe: TensorProbe, flat: np.ndarray, judged: Judged, which: n
     widest_top = np.minimum(reach[left], widest[left])
     eps = float(np.finfo(probe.compute_dtype).eps)
     move = CHANGE_ULPS * eps * abs(probe.f0) / np.maximum(np.abs(probe.a[where]), 1e-300)
-    value, bound = np.full(where.size, np.nan), np.full(where.size, np.inf)
+    value, bound, unseen = np.full(where.size, np.nan), np.full(where.size, np.inf), np.full(where.size, np.inf)
     for narrower in NARROWER:
         top = widest_top / narrower
-        got = _fitted_at(probe, where, top, move, rounding[left] / FIGURE_SIGMAS)
+        got = _fitted_at(probe, where, top, move, rounding[left] / FIGURE_SIGMAS, taken)
         better = got[1] < bound
-        value, bound = np.where(better, got[0], value), np.where(better, got[1], bound)
+        value, bound, unseen = (np.where(better, g, v) for g, v in zip(got, (value, bound, unseen)))
     use = np.flatnonzero(np.isfinite(bound))
     if use.size == 0:
         return judged
-    value, bound = value[use], bound[use]
+    value, bound, unseen = value[use], bound[use], unseen[use]
     a = probe.a[where[use]]
     tol = probe.tolerance(where[use], value)
     with np.errstate(invalid="ignore"):
         sharp = bound <= PASS_SHARE * tol
         passed = (np.abs(a - value) <= tol) & sharp
-        failed = (np.abs(a - value) > tol) & (np.abs(a - value) > SIGNIFICANCE * bound) & sharp
+        # A failure also lies beyond what a kink among the steps that the even part leaves
+        # unseen could move the derivative by (:func:`.smooth_across.unseen_kink`).
+        failed = (np.abs(a - value) > tol) & (np.abs(a - value) > SIGNIFICANCE * bound + unseen) & sharp
     k = np.flatnonzero(passed | failed)
     if k.size == 0:
         return judged
@@ -86,60 +95,94 @@ def fitted_passes(probe: TensorProbe, flat: np.ndarray, judged: Judged, which: n
 
 
 def _fitted_at(probe: TensorProbe, where: np.ndarray, top: np.ndarray, move: np.ndarray,
-               sigma_floor: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+               sigma_floor: np.ndarray, taken: list[Taken]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """f' and its bound at coordinates ``where`` from STEPS pairs (fewer where neighbours
-    would lie within ``move``; none below LEAST) over [top / SPAN, top]; infinite bounds
-    where no fit was made or a check failed."""
-    value, bound = np.full(where.size, np.nan), np.full(where.size, np.inf)
+    would lie within ``move``; none below LEAST) over [top / SPAN, top], and how far a kink
+    among the steps that the pairs' even part leaves unseen could put the derivative from
+    the fit's f'; infinite bounds where no fit was made or a check failed (the even part
+    shows a kink, the central quotients ``taken`` before at smaller steps leave the curve)."""
+    value, bound, unseen = np.full(where.size, np.nan), np.full(where.size, np.inf), np.full(where.size, np.inf)
     with np.errstate(divide="ignore", invalid="ignore"):  # no move: as many steps as fit
         count = np.minimum(STEPS, np.floor(top * (1.0 - 1.0 / SPAN) / move) + 1)
     use = np.flatnonzero(np.nan_to_num(count) >= LEAST)
     if use.size == 0:
-        return value, bound
+        return value, bound, unseen
     steps = np.full((use.size, STEPS), np.nan)  # fewer steps where the moves need it, evenly spread
     for r, i in enumerate(use):
         steps[r, :int(count[i])] = np.linspace(top[i] / SPAN, top[i], int(count[i]))
     asked = np.isfinite(steps)
     coords = np.broadcast_to(where[use][:, None], steps.shape)
     p = probe.pairs(coords[asked], steps[asked])
-    d, s = np.full(steps.shape, np.nan), np.full(steps.shape, np.nan)
+    d, s, even = np.full(steps.shape, np.nan), np.full(steps.shape, np.nan), np.full(steps.shape, np.nan)
     d[asked] = p.central
     s[asked] = 0.5 * (p.h_plus + p.h_minus)
+    even[asked] = even_part(p, probe.f0)
+    smaller = smaller_central(where[use], top[use] / SPAN, taken, probe.f0)
     for r, i in enumerate(use):
-        value[i], bound[i] = _fit(d[r, asked[r]], s[r, asked[r]], float(sigma_floor[i]))
-    return value, bound
+        got = _fit(d[r, asked[r]], s[r, asked[r]], float(sigma_floor[i]))
+        if got is None:
+            continue
+        fit, sigma = got
+        jump = unseen_kink(even[r, asked[r]], s[r, asked[r]], sigma, RESIDUAL_LIMIT)
+        if jump is None:
+            continue  # a kink among the steps: the odd part alone may not show it
+        if not continued(fit.at, fit.bound, smaller[r]):
+            continue  # the quotients at smaller steps leave the curve: it is not the loss's there
+        value[i], bound[i], unseen[i] = fit.value, fit.bound, jump * (1.0 + abs(fit.kink_pull))
+    return value, bound, unseen
 
 
-def _fit(d: np.ndarray, s: np.ndarray, sigma_floor: float) -> tuple[float, float]:
-    """f' and its bound from quotients ``d`` at steps ``s`` (see the module's note); an
-    infinite bound where a check fails."""
+@dataclass(frozen=True)
+class _Fit:
+    """A fitted curve D(s) = value + c2 s**2 + c4 s**4 (``coef`` in powers of (s / top)**2) and
+    its bound."""
+
+    value: float
+    bound: float
+    coef: np.ndarray
+    top: float
+    kink_pull: float  # what a kink of unit slope jump just inside the smallest step adds to value
+
+    def at(self, s: np.ndarray) -> np.ndarray:
+        u = (np.asarray(s, dtype=np.float64) / self.top) ** 2
+        return self.coef[0] + self.coef[1] * u + self.coef[2] * u**2
+
+
+def _fit(d: np.ndarray, s: np.ndarray, sigma_floor: float) -> tuple[_Fit, float] | None:
+    """The fitted curve with f' and its bound from quotients ``d`` at steps ``s`` (see the
+    module's note), and one loss value's rounding sigma; None where a check fails."""
     if d.size < LEAST or not (np.all(np.isfinite(d)) and np.all(np.diff(s) > 0)):
-        return float("nan"), float("inf")
+        return None
     weight = s * np.sqrt(2.0)  # 1 / each quotient's rounding, in units of sigma
-    value, se, resid = _least_squares(d, s, weight, 3)
-    value6, se6, _ = _least_squares(d, s, weight, 4)
+    value, se, resid, coef = _least_squares(d, s, weight, 3)
+    value6, se6, _, _ = _least_squares(d, s, weight, 4)
     seen = float(np.sqrt(np.sum((resid * weight) ** 2) / (d.size - 3)))  # sigma as the residuals show
     sigma = max(seen, sigma_floor)
     if not (seen <= RESIDUAL_LIMIT * sigma_floor and np.isfinite(value) and np.isfinite(value6)):
-        return float("nan"), float("inf")
+        return None
     if abs(value6 - value) > SIGNIFICANCE * se6 * sigma:
-        return float("nan"), float("inf")
-    even, se_even, _ = _least_squares(d[0::2], s[0::2], weight[0::2], 3)
-    odd, se_odd, _ = _least_squares(d[1::2], s[1::2], weight[1::2], 3)
+        return None
+    even, se_even, _, _ = _least_squares(d[0::2], s[0::2], weight[0::2], 3)
+    odd, se_odd, _, _ = _least_squares(d[1::2], s[1::2], weight[1::2], 3)
     if abs(even - odd) > SIGNIFICANCE * np.hypot(se_even, se_odd) * sigma:
-        return float("nan"), float("inf")
-    return value, SIGNIFICANCE * se * sigma + abs(value6 - value)
+        return None
+    # A kink at a distance e below every step adds jump * e / s to each quotient (its value's
+    # share of the fit: at most the fit of s.min() / s).
+    pull = _least_squares(s.min() / s, s, weight, 3)[0]
+    return _Fit(value, SIGNIFICANCE * se * sigma + abs(value6 - value), coef, float(s.max()), pull), sigma
 
 
-def _least_squares(d: np.ndarray, s: np.ndarray, weight: np.ndarray, terms: int) -> tuple[float, float, np.ndarray]:
+def _least_squares(d: np.ndarray, s: np.ndarray, weight: np.ndarray,
+                   terms: int) -> tuple[float, float, np.ndarray, np.ndarray]:
     """f' from D(s) = f' + c2 s**2 + ... (``terms`` coefficients) weighted by ``weight``, its
-    standard error per unit sigma, and the residuals."""
+    standard error per unit sigma, the residuals and the coefficients (in powers of
+    (s / s.max())**2)."""
     u = (s / s.max()) ** 2  # scaled: a well-conditioned design
     x = np.stack([u**k for k in range(terms)], axis=1)
     xw = x * weight[:, None]
     coef, *_ = np.linalg.lstsq(xw, d * weight, rcond=None)
     cov = np.linalg.pinv(xw.T @ xw)
-    return float(coef[0]), float(np.sqrt(max(cov[0, 0], 0.0))), d - x @ coef
+    return float(coef[0]), float(np.sqrt(max(cov[0, 0], 0.0))), d - x @ coef, coef
 
 
 __all__ = ["fitted_passes"]
