@@ -54,13 +54,16 @@ NARROWER = (1.0, 2.0, 4.0)  # fits over the widest steps within reach, and over 
 
 
 def fitted_passes(probe: TensorProbe, flat: np.ndarray, judged: Judged, which: np.ndarray,
-                  rounding: np.ndarray, reach: np.ndarray, widest: np.ndarray, taken: list[Taken]) -> Judged:
+                  rounding: np.ndarray, reach: np.ndarray, widest: np.ndarray, taken: list[Taken],
+                  why: tuple[str, ...] = (NOISE,)) -> Judged:
     """``judged`` with coordinates ``which`` (positions in ``flat``; their measured rounding,
     its reach and the widest step the scale allows) still undecided for rounding judged on
     the fitted curve where its bound lies within PASS_SHARE of the tolerance (the central
-    quotients ``taken`` before at smaller steps must continue it)."""
+    quotients ``taken`` before at smaller steps must continue it). ``why``: the reasons of
+    the undecided coordinates judged (a kink the wide steps may hold among them: the fit
+    checks for one itself)."""
     left = np.flatnonzero((judged.status[which] == INCONCLUSIVE)
-                          & np.array([judged.reasons[k] == NOISE for k in which], dtype=bool)
+                          & np.array([judged.reasons[k] in why for k in which], dtype=bool)
                           & np.isfinite(rounding))[:FITTED]
     if left.size == 0:
         return judged

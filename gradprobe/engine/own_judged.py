@@ -88,7 +88,8 @@ def judged_on_own_rounding(probe: TensorProbe, flat: np.ndarray, judged: Judged,
         judged = judged.merged(noisy[mine[decided]], redo.pick(decided))
         judged = _averaged(view, flat, judged, noisy[mine], reach[mine], again)
         judged = _one_side(view, flat, judged, noisy, again)
-        judged = fitted_passes(view, flat, judged, noisy, measured, reach, widest_steps(probe, where), again)
+        judged = fitted_passes(view, flat, judged, noisy, measured, reach, widest_steps(probe, where), again,
+                               (NOISE, KINK_WITHIN))
         judged = side_fitted_passes(view, flat, judged, noisy, measured, reach, widest_steps(probe, where), again,
                                     (NOISE, KINK_WITHIN))
     else:

@@ -19,6 +19,8 @@ Where the loss changes at that step on both sides alike (the smaller change a te
 larger at least, as slope and curvature give; a change on one side only is a flat side
 beside a kink, or a slope the loss does not have), or the step lies beyond the params' own scale, the
 coordinate is undecided (the reasons below), never failed on arithmetic it may not have.
+Where that step reaches beyond the params' scale, the grain the loss shows along the
+coordinate out to it (:mod:`.seen_grain`), where finer than bfloat16's unit, sets the step.
 
 Code judged as float64 whose loss is flat at every step tried and at a far smaller one too
 (:func:`flat_below_the_steps`) keeps its failure unless the loss shows a staircase far
@@ -33,6 +35,7 @@ import numpy as np
 from ..common.status import FAIL
 from .precision import on_a_sixteen_bit_grid
 from .probe import TensorProbe
+from .seen_grain import seen_grain
 from .verdict import Judged
 
 BFLOAT16_BITS = 8  # significant bits of bfloat16, the coarsest 16-bit type
@@ -59,13 +62,14 @@ def _judged_as_float32(probe: TensorProbe) -> bool:
     return probe.narrow is None and probe.compute_dtype == np.dtype(np.float32)
 
 
-def bfloat16_step(probe: TensorProbe, flat: np.ndarray) -> np.ndarray:
-    """The step at which bfloat16 arithmetic must show the analytic gradient (see above)."""
+def bfloat16_step(probe: TensorProbe, flat: np.ndarray, units: bool = True) -> np.ndarray:
+    """The step at which bfloat16 arithmetic must show the analytic gradient (see above);
+    ``units`` False: SPACINGS of bfloat16's spacings at the param alone."""
     x = np.abs(probe.x[flat].astype(np.float64))
     with np.errstate(divide="ignore"):
         spacing = np.where(x > 0, 2.0 ** (np.floor(np.log2(np.where(x > 0, x, 1.0))) - (BFLOAT16_BITS - 1)), 0.0)
         unit = 2.0 ** -(BFLOAT16_BITS - 1) * probe.loss_scale
-        needed = UNITS * unit / np.abs(probe.a[flat])
+        needed = UNITS * unit / np.abs(probe.a[flat]) if units else 0.0
     return np.maximum(SPACINGS * spacing, needed)
 
 
@@ -223,6 +227,12 @@ def flat_through_sixteen_bits(probe: TensorProbe, flat: np.ndarray, judged: Judg
     h = bfloat16_step(probe, flat[zero])
     scale = np.maximum(np.abs(probe.x[flat[zero]].astype(np.float64)), probe.x_scale)
     beyond = ~(h <= scale)
+    if beyond.any():  # the grain the loss shows along the coordinate, where finer (seen_grain.py)
+        far = np.flatnonzero(beyond)
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            finer = UNITS * seen_grain(probe, flat[zero[far]], scale[far]) / np.abs(probe.a[flat[zero[far]]])
+        h[far] = np.where(finer < h[far], np.maximum(finer, bfloat16_step(probe, flat[zero[far]], units=False)), h[far])
+        beyond = ~(h <= scale)
     reasons = {}
     inside = np.flatnonzero(~beyond)
     if inside.size:
