@@ -10,10 +10,9 @@ direction is checked against the closed form sum((x (w + c u))^2), evaluated in 
 
 from __future__ import annotations
 
-import gc
-import tracemalloc
 
 import numpy as np
+from memory_kit import traced_peak
 from framework_kit import need
 
 from gradprobe.common.tensors import Workspace
@@ -49,16 +48,6 @@ def _point(params: dict, inputs: dict):
     return prepare(target.forward, target.backward, ws, Evaluator(LossFunction(target.forward, ws, None)), 0)
 
 
-def _peak(work) -> tuple[float, object]:
-    gc.collect()
-    tracemalloc.start()
-    try:
-        before = tracemalloc.get_traced_memory()[0]
-        done = work()
-        return tracemalloc.get_traced_memory()[1] - before, done
-    finally:
-        tracemalloc.stop()
-
 
 def test_the_float64_run_looks_for_a_narrower_type_in_its_own_copies():
     params, inputs = _case(10000)  # 400k float32 params: 3.2 MB in float64
@@ -71,7 +60,7 @@ def test_the_float64_run_looks_for_a_narrower_type_in_its_own_copies():
     wide_bytes = wide.owners["w"].nbytes
     # 11 looks at moved params (float32 and 16-bit grids); a moved copy would be the float64
     # params' size each (two while it is made).
-    peak, found = _peak(lambda: narrower_compute_type(point.evaluator, wide, f64, np.dtype(np.float64),
+    peak, found = traced_peak(lambda: narrower_compute_type(point.evaluator, wide, f64, np.dtype(np.float64),
                                                       source=narrow))
     assert found is None  # the float64 run computes in float64
     assert peak < 0.5 * wide_bytes, peak / wide_bytes
@@ -106,7 +95,7 @@ def test_a_whole_tensor_moved_along_a_direction_is_moved_in_place_and_put_back()
     u = unit_direction(size, np.random.default_rng(1))
     x = probe.x.copy()
     scales = np.array([1e-3, -1e-3])
-    peak, (values, predicted) = _peak(lambda: probe.along(slice(0, size), u, scales))
+    peak, (values, predicted) = traced_peak(lambda: probe.along(slice(0, size), u, scales))
     assert peak < x.nbytes, peak / x.nbytes  # a moved copy alone would be x's size
     assert np.array_equal(probe.x, x)  # put back bit for bit
     assert np.array_equal(point.numerics.workspace.owners["w"].reshape(-1), x)
@@ -131,7 +120,7 @@ def test_a_gradient_the_reverse_mode_made_is_kept_without_a_second_copy():
     ws = Workspace(target.params, target.inputs)
     raw = target.backward(ws.params_tree, ws.inputs_tree)
     nbytes = ws.owners["w"].nbytes
-    peak, grads = _peak(lambda: validate(raw, ws))
+    peak, grads = traced_peak(lambda: validate(raw, ws))
     assert peak < 0.5 * nbytes, peak / nbytes  # a copy would be the gradient's size
     X, W = inputs["x"].numpy(), params["w"].numpy()
     exact = 2 * X.T @ (X @ W)

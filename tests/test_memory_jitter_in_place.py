@@ -10,10 +10,10 @@ back bit for bit. The gradient of sum(tanh(X W)^2) is 2 X^T (tanh(X W) (1 - tanh
 
 from __future__ import annotations
 
-import gc
 import tracemalloc
 
 import numpy as np
+from memory_kit import traced_peak
 
 from gradprobe.common.tensors import Workspace, aligned_copy
 from gradprobe.engine.jitter_steps import measured_jitter, move_in_place, moved_point
@@ -37,16 +37,6 @@ def _case(n: int):
     wide = ws.replacing({name: aligned_copy(a, np.float64) for name, a in ws.owners.items()})
     return w, ws, wide
 
-
-def _peak(work):
-    gc.collect()
-    tracemalloc.start()
-    try:
-        before = tracemalloc.get_traced_memory()[0]
-        done = work()
-        return tracemalloc.get_traced_memory()[1] - before, done
-    finally:
-        tracemalloc.stop()
 
 
 def test_a_point_moved_in_place_has_the_values_of_the_moved_copy():
@@ -76,9 +66,9 @@ def test_the_jitter_measured_in_place_is_the_one_measured_on_copies_with_no_move
         held.append(tracemalloc.get_traced_memory()[0])
         return backward(p, i)
 
-    _, on_copies = _peak(lambda: measured_jitter(seen, None, ws, base, 0))
+    _, on_copies = traced_peak(lambda: measured_jitter(seen, None, ws, base, 0))
     copies, held[:] = max(held), []
-    _, in_place = _peak(lambda: measured_jitter(seen, None, ws, base, 0, source=wide))
+    _, in_place = traced_peak(lambda: measured_jitter(seen, None, ws, base, 0, source=wide))
     assert np.array_equal(on_copies["w"], in_place["w"])  # the same values, bit for bit
     assert np.array_equal(ws.owners["w"], w)  # put back exactly
     assert np.array_equal(wide.owners["w"], w.astype(np.float64))
