@@ -35,7 +35,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..common.classes import dataclass
-from ..common.status import FAIL, INCONCLUSIVE, PASS
+from ..common.status import FAIL, PASS
 from .ladder import Estimate
 from .probe import TensorProbe
 from .refine import Taken
@@ -62,9 +62,7 @@ def fitted_passes(probe: TensorProbe, flat: np.ndarray, judged: Judged, which: n
     quotients ``taken`` before at smaller steps must continue it). ``why``: the reasons of
     the undecided coordinates judged (a kink the wide steps may hold among them: the fit
     checks for one itself)."""
-    left = np.flatnonzero((judged.status[which] == INCONCLUSIVE)
-                          & np.array([judged.reasons[k] in why for k in which], dtype=bool)
-                          & np.isfinite(rounding))[:FITTED]
+    left = np.flatnonzero(judged.left_for(which, why) & np.isfinite(rounding))[:FITTED]
     if left.size == 0:
         return judged
     where = flat[which[left]]

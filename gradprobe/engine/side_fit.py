@@ -40,7 +40,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..common.errors import BadOutputError, UserCodeError
-from ..common.status import INCONCLUSIVE, PASS
+from ..common.status import PASS
 from .fitted import CHANGE_ULPS, FIGURE_SIGMAS, FITTED, PASS_SHARE, RESIDUAL_LIMIT
 from .ladder import Estimate
 from .one_side import smaller_quotients
@@ -63,9 +63,7 @@ def side_fitted_passes(probe: TensorProbe, flat: np.ndarray, judged: Judged, whi
     reach and the widest step the scale allows) still undecided for one of ``reasons`` passed
     where one side's fitted estimate agrees with the analytic value within the threshold at a
     bound within PASS_SHARE of the tolerance (see the module's note)."""
-    left = np.flatnonzero((judged.status[which] == INCONCLUSIVE)
-                          & np.array([judged.reasons[k] in reasons for k in which], dtype=bool)
-                          & np.isfinite(rounding))[:FITTED]
+    left = np.flatnonzero(judged.left_for(which, reasons) & np.isfinite(rounding))[:FITTED]
     if left.size == 0:
         return judged
     where = flat[which[left]]

@@ -129,6 +129,10 @@ class Judged:
             reasons[k] = r
         return Judged(status, Estimate(value, error), tuple(reasons), noisy)
 
+    def left_for(self, which: np.ndarray, reasons: tuple[str, ...]) -> np.ndarray:
+        """Per position ``which``: still inconclusive, for one of ``reasons``."""
+        return (self.status[which] == INCONCLUSIVE) & np.array([self.reasons[k] in reasons for k in which], dtype=bool)
+
     def undecided(self, which: np.ndarray, reasons: tuple[str | None, ...], noise_limited: bool = True) -> Judged:
         """These verdicts with positions ``which`` undecided, each for its reason, their
         estimates kept and their bounds infinite."""
