@@ -183,3 +183,15 @@ def test_kinks_cancelling_at_one_tiny_step_by_chance_are_no_failure():
 
     o = judged_cleanly("kinks", 130108)
     assert not o["false_alarm"], (o["status"], o["expect"])
+
+
+@pytest.mark.parametrize("seed", [150306, 150681])
+def test_a_clean_side_is_no_derivative_where_the_tiny_step_cannot_rule_out_a_kink_at_the_point(seed):
+    """kinks-150306: ReLU residuals exactly 0 in six rows, the tiny step's own sides apart
+    (a kink at the point, several meeting there); kinks-150681: a loss of -1e5 whose tiny
+    step's rounding (bounds of 101) could not show a jump of the value's distance from the
+    clean side (453). Correct backwards (mpmath, through the generator's judge)."""
+    from adversarial import judged_cleanly
+
+    o = judged_cleanly("kinks", seed)
+    assert not o["false_alarm"], (o["status"], o["expect"])

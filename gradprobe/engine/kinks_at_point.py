@@ -94,6 +94,10 @@ def judge_sides(
     # sides no longer bound a correct value (``hidden``: see RESOLVED_SPACINGS).
     hidden = (np.zeros(f.size, dtype=bool) if tiny.step is None
               else tiny.step > RESOLVED_SPACINGS * probe.resolution(f))
+    # A kink at the point that would give the analytic value jumps by its distance from the
+    # clean side at least: a tiny step whose sides could not show such a jump rules none out.
+    with np.errstate(invalid="ignore"):
+        blind = np.abs(tiny.gap) + 2.0 * SIGNIFICANCE * tiny.one_sided_noise >= np.abs(a - near.value)
     for j, k in enumerate(which.tolist()):
         if kept[j]:
             # A value outside the sides is a bug only where the steps crossed no other kink:
@@ -117,13 +121,16 @@ def judge_sides(
             status[k] = KINK
             value[k], error[k] = nearer[j], nearer_error[j]
             reasons[k] = None
-        elif near_status[j] == FAIL and (near_crossed[j] or (tiny_apart[j] and hidden[j])):
+        elif near_status[j] == FAIL and (near_crossed[j] or tiny_apart[j] or blind[j]):
             # The side taken as clean crossed kinks of its own among the ladder's steps (they
-            # crowd the point, and the tiny step need not be below the nearest), or the tiny
-            # step's own sides differ (a kink within it, and more may hide beside it).
+            # crowd the point, and the tiny step need not be below the nearest); or the tiny
+            # step's own sides differ (a kink within it, at the point: several meeting there
+            # give values off both sides, kinks-150306); or that step could not have shown a
+            # kink at the point whose jump gives the value (kinks-150681: a gap of -336 within
+            # two bounds of 101 each, the value 453 off the clean side).
             status[k] = INCONCLUSIVE
             value[k], error[k] = near.value[j], near.error[j]
-            reasons[k] = CROWDED if near_crossed[j] else UNRESOLVED
+            reasons[k] = CROWDED if near_crossed[j] else SHARED_POINT if (tiny_apart[j] and not hidden[j]) else UNRESOLVED
         else:
             status[k] = near_status[j]
             value[k], error[k] = near.value[j], near.error[j]
