@@ -70,13 +70,12 @@ def kink_beside(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Ju
     tiny = _tiny(probe, flat, ladder, side, np.flatnonzero(one))
     if tiny is not None:
         which, side_w, jump, right_q, left_q, noise = tiny
-        with np.errstate(invalid="ignore", over="ignore"):
-            reach = SIGNIFICANCE * (side_w.error + noise) + CURVATURE_SLACK * jump
-            smooth = (np.abs(right_q - side_w.value) <= reach) & (np.abs(left_q - side_w.value) <= reach)
-            gap = np.abs(right_q - left_q)
-            off = np.abs(probe.a[flat[which]] - side_w.value)
-            smooth &= joined[which] | ((gap <= noise + CURVATURE_SLACK * jump) & (gap + noise <= CANCEL * off))
-        smooth &= joined[which] | _smooth_again(probe, flat, ladder, side, which, CANCEL * off)
+        at_side, together, seen = _smooth(side_w, jump, right_q, left_q, noise)
+        off = np.abs(probe.a[flat[which]] - side_w.value)
+        with np.errstate(invalid="ignore"):
+            smooth = at_side & (joined[which] | (together & (seen <= CANCEL * off)))
+        again = np.flatnonzero(smooth & ~joined[which])  # the tiny pair alone: borne out at a wider one?
+        smooth[again] = _smooth_again(probe, flat, ladder, side, which[again], CANCEL * off[again])
         k = np.flatnonzero(smooth)
         if k.size:
             # The settled side, as far as the tiny step's quotients confirm it.
@@ -102,13 +101,24 @@ def _smooth_again(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, side: Es
     if tiny is None:
         return out
     there, side_w, jump, right_q, left_q, noise = tiny
-    with np.errstate(invalid="ignore", over="ignore"):
-        reach = SIGNIFICANCE * (side_w.error + noise) + CURVATURE_SLACK * jump
-        gap = np.abs(right_q - left_q)
-        ok = ((np.abs(right_q - side_w.value) <= reach) & (np.abs(left_q - side_w.value) <= reach)
-              & (gap <= noise + CURVATURE_SLACK * jump) & (gap + noise <= allowed[np.searchsorted(which, there)]))
-    out[np.searchsorted(which, there)] = ok
+    at, = np.nonzero(np.isin(which, there))
+    at_side, together, seen = _smooth(side_w, jump, right_q, left_q, noise)
+    with np.errstate(invalid="ignore"):
+        out[at] = at_side & together & (seen <= allowed[at])
     return out
+
+
+def _smooth(side: Estimate, jump: np.ndarray, right_q: np.ndarray, left_q: np.ndarray,
+            noise: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """What a tiny pair shows of the loss: both quotients at the side's value (within
+    SIGNIFICANCE of its bound and their rounding, plus CURVATURE_SLACK of the jump), its two
+    quotients together to one bound of their rounding (plus that slack), and their gap plus
+    that bound."""
+    with np.errstate(invalid="ignore", over="ignore"):
+        reach = SIGNIFICANCE * (side.error + noise) + CURVATURE_SLACK * jump
+        at_side = (np.abs(right_q - side.value) <= reach) & (np.abs(left_q - side.value) <= reach)
+        gap = np.abs(right_q - left_q)
+        return at_side, gap <= noise + CURVATURE_SLACK * jump, gap + noise
 
 
 def settled_failures(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Judged) -> Judged:
