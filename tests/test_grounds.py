@@ -156,3 +156,68 @@ def test_the_cases_as_first_found_are_no_false_alarm(category, seed):
     assert not o["false_alarm"], (o["status"], o["expect"])
     if o["expect_fail"]:
         assert o["found"] and (o["located"] or not o["to_locate"]), o["status"]
+
+
+# kinks-210369's coordinate p1[1, 0]: Huber residuals on their corner (z = 1) and others
+# 3.2e-7 to 3.2e-1 beside it, at every decade, with slopes X of both signs.
+_Z0 = np.array([0.9968, 1.0000032, 1.000032, 0.9968, 1.0, 1.00032, 1.000032, 0.9968, 1.000032, 1.0, 1.32, 1.0,
+                1.0032, 0.968, 1.0, 0.99968, 1.0, 1.0032, 0.99999968, 1.000032, 0.68, 1.0, 0.968])
+_XS = np.array([-3.0, -3, 0, -1, 2, 1, -3, -3, -1, -2, 0, 2, -2, 1, 1, -2, 0, -3, -1, 3, 0, 2, 2])
+_WS = np.array([-0.42194346, -0.68483772, -0.71415336, -0.7406159, -0.50685891, 0.85799761, 0.58562119,
+                0.44734175, 0.93641727, -0.63974344, -0.19323337, 0.40086821, 0.66946674, -0.3915727,
+                0.19068091, -0.07954763, 0.64555814, -0.42949415, -0.64610837, -0.77957952, 0.47336796,
+                0.68804846, -0.16286239])
+
+
+def _huber_decades(factor: float):
+    scale = 478.24586147498115
+    x0 = -15.5
+
+    def loss(v):
+        z = _Z0 + _XS * (v[0] - x0)
+        return scale * float(np.sum(_WS * np.where(np.abs(z) <= 1, 0.5 * z * z, np.abs(z) - 0.5)))
+
+    exact = scale * np.sum(_WS * _XS * np.clip(_Z0, -1, 1))  # Huber': z inside, sign(z) outside
+    return check_coordinates(make_probe(loss, np.array([x0]), np.array([factor * exact])), np.arange(1))
+
+
+def test_central_quotients_at_a_turn_among_corners_at_every_decade_fail_nothing():
+    """Huber corners at every decade from 3e-7 to 3e-1 beside the point: the ladder's central
+    quotients (3e-5 to 5e-4) reach a turn of their curve, their last change 0.00028 after one
+    of 0.0074 (rates 0.43 and 0.038, each within the tableau's checks), and settled on
+    591.7715 +- 0.0064 against the true 591.7944 (Huber' = z inside the corners, sign(z)
+    outside: closed form). A pair 16 times below the ladder's smallest step (591.79) shows
+    the rows were not yet where the model holds. A value 1% off still fails."""
+    assert _huber_decades(1.0).status[0] != FAIL
+    assert _huber_decades(1.01).status[0] == FAIL
+
+
+def test_kinks_210369_as_first_found_is_no_false_alarm():
+    """The case as generated (correct backward; mpmath through the judge)."""
+    from adversarial import judged_cleanly
+
+    o = judged_cleanly("kinks", 210369)
+    assert not o["false_alarm"], (o["status"], o["expect"])
+
+
+def test_a_pair_below_the_ladder_moved_by_the_codes_own_rounding_keeps_a_bug_failing():
+    """steep-220075: 1/(1 - u) with 1 - u = 1.3e-7 (u rounded at 1e-16 inside the code): the
+    pair far below the ladder lies 7,000 off the estimate 3,291,299,875 +- 97 (mpmath:
+    3,291,299,909.5), moved by the code's rounding of the moved residual, not the loss's; the
+    bound widened to cover it still fails the planted factor of 1.5 (mpmath, through the
+    judge)."""
+    o = judge("steep", 220075)
+    assert not o["unverified"] and o["crash"] is None
+    assert o["expect_fail"] and o["found"] and not o["missed"], (o["status"], o["expect"])
+
+
+def test_a_value_outside_kinks_seen_among_noisy_sides_is_no_failure():
+    """kinks-300172: absolute values' residuals exactly 0 and at every distance down to 1e-12
+    along p3[3, 2]; a ladder below 1.5e-11 reads the sides as 3.67 +- 0.81 and 4.98 +- 0.11
+    (kinks crossed, apart beyond the tighter bound, yet not told apart beyond both) and the
+    central quotients as 4.31 +- 0.45, against a correct -1.41 that several kinks meeting at
+    the point give. Correct backward (mpmath, through the judge); undecided, not failed."""
+    from adversarial import judged_cleanly
+
+    o = judged_cleanly("kinks", 300172)
+    assert not o["false_alarm"], (o["status"], o["expect"])

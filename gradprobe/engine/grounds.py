@@ -11,7 +11,10 @@ only failures whose assumption the evidence contradicts; passes are never touche
   quotients that converge, at the model's rate, to a wrong value (aliasing). One pair at a
   step between two of the ladder's (the smallest over sqrt(2)) must fall where the central
   tableau's estimate predicts it; where it does not, the steps were not in the model's
-  range, and the coordinate is undecided (a ladder far further down follows).
+  range, and the coordinate is undecided (a ladder far further down follows). So must one
+  far below the ladder (2**-4.5 of its smallest step): corners at every distance from the
+  point can bend the quotients' curve into a turn among the ladder's rows, where they
+  settle by chance (kinks-210369).
 - :func:`crossed_wider`: a kink confirmed at the point with a value outside its sides is a
   bug only where no other kink is within reach (several kinks at the point leave the values
   a correct gradient may take unbounded by the two sides). The pairs taken at steps wider
@@ -46,11 +49,14 @@ from .ladder import NOISE_UNITS, PREDICTION_SLACK, SAFETY, Estimate, drifting
 from .probe import Pairs, TensorProbe
 from .refine import RATIO, Ladder, Taken, grown_changes, tiny_pair
 from .kinks import judge_ladder, sides_differ
-from .lopsided import settled_failures
+from .lopsided import clean_side_failures, settled_failures
 from .taylor_range import unscaled_moves
-from .verdict import BOTH_SIDES_MOVED, CROWDED, SIGNIFICANCE, UNRESOLVED, UNSETTLED, Judged
+from .verdict import BOTH_SIDES_MOVED, CROWDED, SIGNIFICANCE, UNRESOLVED, UNSETTLED, Judged, verdicts
 
 OFF_GRID = 2.0**-0.5  # the check's step: the ladder's smallest over sqrt(2), between two rows
+# A second pair far below the ladder: 2**-4.5 of its smallest step (off the grid too), or as
+# far below as rounding leaves a quarter of the discrepancy plain, up to 2**-2.5 of it.
+DEEP, DEEP_LIMIT = 2.0**-4.5, 2.0**-2.5
 WIDER_LIMIT = 2.0**8  # wider pairs considered up to this many times the ladder's top step
 WIDER_SLACK = 2.0  # a side's quotient at a wider step may leave the line by twice its slope's reach
 
@@ -69,6 +75,7 @@ def judged_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, start: n
         if start is not None and taken:
             ladder = crossed_wider(probe, flat, start, ladder, taken, which)
     judged = settled_failures(probe, flat, ladder, judge_ladder(probe, flat, ladder, tiny))  # a side settled beside a kink?
+    judged = clean_side_failures(probe, flat, ladder, judged)  # the tiny step's smooth loss borne out wider?
     judged = crossed_bound(probe, flat, ladder, judged, wider)
     judged = rows_bear_out(probe, flat, ladder, off_the_grid(probe, flat, ladder, judged))
     return unscaled_moves(probe, flat, ladder, judged)
@@ -107,8 +114,8 @@ def _rows(ladder: Ladder, n: int) -> int:
 
 def off_the_grid(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Judged) -> Judged:
     """``judged`` with failures that rest on the central tableau kept only where a pair at a
-    step off the ladder's grid agrees with the tableau's prediction (see the module's note);
-    the others undecided (UNSETTLED, not noise-limited, so a retry goes to smaller steps)."""
+    step off the ladder's grid, and then one far below it, agree with the tableau's
+    prediction (see the module's note); the others undecided (UNSETTLED, not noise-limited, so a retry goes to smaller steps)."""
     if is_narrow(probe.compute_dtype) or ladder.pairs is None:
         return judged
     central = ladder.central
@@ -120,14 +127,46 @@ def off_the_grid(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: J
     rows = _rows(ladder, n)
     last = ladder.pairs.central.reshape(rows, n)[-1, which]
     last_noise = (2 * ladder.pairs.noise / (ladder.pairs.h_plus + ladder.pairs.h_minus)).reshape(rows, n)[-1, which]
-    p = probe.pairs(flat[which], ladder.smallest[which] * OFF_GRID)
-    noise = 2 * p.noise / (p.h_plus + p.h_minus)
     value, error = central.value[which], central.error[which]
+    off, _ = _off_prediction(probe, flat[which], ladder.smallest[which] * OFF_GRID, value, error, last, last_noise,
+                             PREDICTION_SLACK * OFF_GRID**2)
+    judged = _undecided(judged, which[off])
+    # Below the ladder: the model's error shrinks with the step, so a pair far below its
+    # smallest step lies closer to the estimate than the smallest row did (first order, the
+    # most a corner at the point leaves); rows that met a turn of the quotients' curve among
+    # corners at every distance settle by chance above it (kinks-210369). Where it does not,
+    # the bound is widened to cover it (as the tableau widens one a next row contradicts) and
+    # the failure stands only against that: the code's own rounding of a moved residual, far
+    # above the loss's at such steps, moves the pair too, though never by the bug's size
+    # (steep-220075: a pole's 1 - u = 1.3e-7 rounded at 1e-16, the pair 7,000 off a slope of
+    # 3.3e9 against a value 50% off).
+    which, value, error, last, last_noise = (v[~off] for v in (which, value, error, last, last_noise))
+    if which.size == 0:
+        return judged
+    smallest = ladder.smallest[which]
+    gap = np.abs(probe.a[flat[which]] - value)
+    with np.errstate(divide="ignore", over="ignore"):
+        resolving = 4.0 * NOISE_UNITS * probe.loss_noise(np.full(which.size, probe.f0)) / gap
+    step = np.clip(resolving, smallest * DEEP, smallest * DEEP_LIMIT)
+    deep, q = _off_prediction(probe, flat[which], step, value, error, last, last_noise,
+                              PREDICTION_SLACK * step / smallest)
     with np.errstate(invalid="ignore", over="ignore"):
-        predicted = (PREDICTION_SLACK * OFF_GRID**2 * np.abs(last - value) + error
-                     + NOISE_UNITS * (noise + last_noise))
-        off = ~(np.abs(p.central - value) <= predicted)
-    return _undecided(judged, which[off])
+        widened = Estimate(value, SAFETY * np.abs(q - value) + error)
+    deep &= verdicts(probe, probe.a[flat[which]], widened, probe.tolerance(flat[which], value)) != FAIL
+    return _undecided(judged, which[deep])
+
+
+def _off_prediction(probe: TensorProbe, flat: np.ndarray, step: np.ndarray, value: np.ndarray, error: np.ndarray,
+                    last: np.ndarray, last_noise: np.ndarray, shrink: np.ndarray | float
+                    ) -> tuple[np.ndarray, np.ndarray]:
+    """Per coordinate: whether a pair at ``step`` lies off the central estimate ``value`` +-
+    ``error`` by more than ``shrink`` times the ladder's last quotient's distance ``last``
+    from it, plus both quotients' rounding; and that pair's quotient."""
+    p = probe.pairs(flat, step)
+    noise = 2 * p.noise / (p.h_plus + p.h_minus)
+    with np.errstate(invalid="ignore", over="ignore"):
+        predicted = shrink * np.abs(last - value) + error + NOISE_UNITS * (noise + last_noise)
+        return ~(np.abs(p.central - value) <= predicted), p.central
 
 
 def sides_grown(probe: TensorProbe, ladder: Ladder) -> np.ndarray:
