@@ -195,3 +195,28 @@ def test_a_clean_side_is_no_derivative_where_the_tiny_step_cannot_rule_out_a_kin
 
     o = judged_cleanly("kinks", seed)
     assert not o["false_alarm"], (o["status"], o["expect"])
+
+
+def test_a_kink_beside_the_point_cancelling_kinks_at_it_at_the_tiny_step_is_no_failure():
+    """kinks-221142: ReLU residuals exactly 0 in four rows (a net jump of 0.00138 at the
+    point) and one 3.1e-14 beside it (a jump of -0.00166), which the tiny step (1.3e-13)
+    crosses three quarters of: its two quotients agree (a gap of 1e-4 within its rounding of
+    9e-5) and look like the clean side's, yet at a step four times wider they part. The
+    correct value (0.009906, between the left side 0.009143 and the right side at the point
+    0.01052) once failed on the clean side. Correct backward (mpmath, through the judge)."""
+    from adversarial import judged_cleanly
+
+    o = judged_cleanly("kinks", 221142)
+    assert not o["false_alarm"], (o["status"], o["expect"])
+
+
+def test_a_side_decided_alone_after_the_ladders_is_no_derivative_at_a_kink_at_the_point():
+    """kinks-240855: an absolute value's residual at 0 (a kink at the point) and another
+    1e-10 beside it on the right, beyond which the right side's quotients settle only far
+    out; each side taken apart at the end decided on the left alone (-1.0729) and failed a
+    correct -1.7070 (the subgradient's midpoint of -1.0729 and the right side at the point,
+    -2.3412). Correct backward (mpmath, through the judge)."""
+    from adversarial import judged_cleanly
+
+    o = judged_cleanly("kinks", 240855)
+    assert not o["false_alarm"], (o["status"], o["expect"])

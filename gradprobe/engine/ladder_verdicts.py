@@ -17,7 +17,7 @@ from .close_kinks import looked_closer
 from .descent import between_levels, descend, runaway_passes
 from .grounds import drifting_sides, judged_ladder, sides_grown
 from .ladder import Estimate
-from .lopsided import kink_beside
+from .lopsided import alone_failures, kink_beside
 from .probe import TensorProbe
 from .refine import RATIO, ROWS, Taken, climb, ladder_taken
 from .side_failures import failures_on_own_rounding
@@ -78,6 +78,12 @@ def ladder_verdicts(
                              for e, d in ((left, left_drift), (right, right_drift)))
     apart, unsettled = failures_on_own_rounding(probe, flat[still], apart, left_side, right_side,
                                                 (left_rows, right_rows), before)
+    # A side that decided alone is the slope beside a kink, unless a tiny step shows it is the
+    # derivative here (no kink at the point).
+    rows_smallest = np.minimum(left_rows.moved[-1], right_rows.moved[-1])
+    undecided_before = apart.status == INCONCLUSIVE
+    apart = alone_failures(probe, flat[still], apart, left_side, right_side, rows_smallest)
+    unsettled |= (apart.status == INCONCLUSIVE) & ~undecided_before
     keep = apart.status != INCONCLUSIVE
     # Undecided where the ladders saw only rounding noise, yet the sides show a kink and the
     # value lies outside it: said so, and the second look (offpoint.py) checks it off the point.

@@ -134,7 +134,35 @@ def settled_failures(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judge
     differ = sides_differ(probe, flat, ladder)
     on_side = (settled_left ^ settled_right) & (judged.status == FAIL) & (judged.estimate.value == side.value)
     on_side[differ] = False
-    tiny = _tiny(probe, flat, ladder, side, np.flatnonzero(on_side))
+    return _held_by_tiny_pair(probe, flat, ladder, judged, np.flatnonzero(on_side), settled_left, side)
+
+
+def alone_failures(probe: TensorProbe, flat: np.ndarray, judged: Judged, left: Estimate, right: Estimate,
+                   smallest: np.ndarray) -> Judged:
+    """Failures of ``judged`` (each side taken apart, :func:`.sides_apart.judge_sides_apart`,
+    on steps from ``smallest``) that one side decided alone, the other not: as a settled
+    side's (:func:`settled_failures`), kept only where a tiny step's quotient on that side
+    holds its value and the step's own sides agree, else undecided. The side that decided
+    alone is the slope beside a kink, not the derivative at one at the point (kinks-240855:
+    an absolute value's residual at 0 and another 1e-10 beside it, the left side -1.073 alone,
+    a correct -1.707 between it and the right side at the point, -2.341)."""
+    tol = probe.tolerance(flat, probe.a[flat])  # as judge_sides_apart decides a side
+    decides_left, decides_right = NEAR_SAFETY * left.error <= tol, NEAR_SAFETY * right.error <= tol
+    alone = (decides_left ^ decides_right) & (judged.status == FAIL)
+    which = np.flatnonzero(alone)
+    if which.size == 0:
+        return judged
+    side = Estimate(np.where(decides_left, left.value, right.value),
+                    NEAR_SAFETY * np.where(decides_left, left.error, right.error))
+    sides = Ladder(Estimate.better(left, right), left, right, np.zeros(flat.size), smallest)
+    return _held_by_tiny_pair(probe, flat, sides, judged, which, decides_left, side)
+
+
+def _held_by_tiny_pair(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Judged, which: np.ndarray,
+                       settled_left: np.ndarray, side: Estimate) -> Judged:
+    """Failures ``which`` of ``judged`` on ``side`` (the left one where ``settled_left``), kept
+    as :func:`settled_failures` says; the others undecided."""
+    tiny = _tiny(probe, flat, ladder, side, which)
     if tiny is None:
         return judged
     which, side_w, jump, right_q, left_q, noise = tiny
@@ -160,6 +188,28 @@ def settled_failures(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judge
     beyond, within = which[~holds & ~apart], which[apart]
     judged = judged.undecided(beyond, (NEAR_KINK,) * beyond.size)
     return judged.undecided(within, (UNRESOLVED,) * within.size)
+
+
+def clean_side_failures(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Judged) -> Judged:
+    """Failures of ``judged`` where the ladder's sides differ and the clean side judged them
+    (:func:`.kinks_at_point.judge_sides`: at the tiny step the other side moved to it, so the
+    kink lay beside the point), kept only where a pair AGAIN times wider shows the loss
+    smooth with that side's slope too; else undecided (UNRESOLVED). Kinks at the point can
+    be cancelled at the tiny step by one beside it that the step crosses in part, by chance
+    (kinks-221142: ReLU ties at the point, a net jump of 0.0014, and a residual 3.1e-14
+    beside it, a jump of -0.0017, three quarters crossed at 1.3e-13); the share crossed
+    changes with the step."""
+    differ = np.zeros(flat.size, dtype=bool)
+    differ[sides_differ(probe, flat, ladder)] = True
+    value = judged.estimate.value
+    on_side = differ & (judged.status == FAIL) & ((value == ladder.left.value) | (value == ladder.right.value))
+    which = np.flatnonzero(on_side)
+    if which.size == 0:
+        return judged
+    side = Estimate(value, judged.estimate.error)
+    smooth = _smooth_again(probe, flat, ladder, side, which, np.full(which.size, np.inf))
+    gone = which[~smooth]
+    return judged.undecided(gone, (UNRESOLVED,) * gone.size)
 
 
 def _settled(probe: TensorProbe, flat: np.ndarray, ladder: Ladder) -> tuple[np.ndarray, np.ndarray, Estimate]:
