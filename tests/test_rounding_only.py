@@ -77,3 +77,49 @@ def test_a_steep_sine_at_the_rounding_level_is_not_failed():
     forward, backward, params, inputs = _huge_loss_beside(
         lambda x: amplitude * math.sin(rate * x), lambda x: amplitude * rate * math.cos(rate * x))
     assert probe(forward, backward, params, inputs).tensor("x").status.value != "fail"
+
+
+def test_a_steep_term_whose_whole_move_lies_below_the_rounding_is_not_failed():
+    """w / (1 - a (x - k)) with 1 - a (x - k) = 0.0068 and a = -5.5e5 (a pole 1.2e-8 away)
+    beside the huge loss: the term's slope at the point is w a / (1 - u)**2 (d/dx 1/v =
+    -v'/v**2, a table's entry), 6e3 for w = 4e-7, yet the whole term is 6e-5 and moves the
+    loss by less than its last place (2**-10) at every step short of the pole. The loss never
+    moves; the correct slope must not fail on that (steep-270370, below, as first found)."""
+    from gradprobe import probe
+
+    a, gap, w, x0 = -5.5e5, 0.0068, 4e-7, 0.3
+    k = x0 - (1 - gap) / a
+
+    def term(x):
+        return w / (1 - a * (x - k))
+
+    def slope(x):
+        return w * a / (1 - a * (x - k)) ** 2
+
+    forward, backward, params, inputs = _huge_loss_beside(term, slope)
+    assert probe(forward, backward, params, inputs).tensor("x").status.value != "fail"
+
+
+def test_steep_270370_as_first_found_is_no_false_alarm():
+    outcome = judge("steep", 270370)
+    assert not outcome["false_alarm"], outcome["status"]
+
+
+def test_a_gradient_for_a_param_the_loss_ignores_still_fails():
+    """backward gives 0.5 for a param the forward never reads (beside a loss of 3): the slope
+    would move the loss beyond its rounding at steps of 1e-15, a few spacings of x; the loss
+    never moves, and the coordinate fails."""
+    import numpy as np
+
+    from gradprobe import probe
+
+    def forward(p, i):
+        return float(np.sum(i["t"] * p["w"] ** 2))
+
+    def backward(p, i):
+        return {"w": 2 * i["t"] * p["w"], "unused": np.full(2, 0.5)}
+
+    params = {"w": np.array([0.7, -1.1]), "unused": np.array([0.0, 2.5])}
+    report = probe(forward, backward, params, {"t": np.array([1.5, 0.9])})
+    assert report.tensor("unused").status.value == "fail"
+    assert report.tensor("w").status.value == "pass"

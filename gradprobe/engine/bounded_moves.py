@@ -16,9 +16,10 @@ from ..common.status import FAIL
 from .probe import TensorProbe
 from .ladder import NOISE_UNITS
 from .refine import Taken
-from .verdict import BOUNDED, SIGNIFICANCE, Judged
+from .verdict import BOUNDED, NEVER_MOVED, SIGNIFICANCE, Judged
 
 BOUNDED_SPAN = 16.0  # the steps taken span at least this factor for a move's growth to show
+UNMOVED_REACH = 2.0**-30  # a slope first showing above this share of the param's scale can hide
 
 
 def rounding_only(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken: list[Taken]) -> Judged:
@@ -37,7 +38,9 @@ def rounding_only(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken: l
     steep-72373 and steep-73224: sines moving the loss by up to 8 and 4.5 values' rounding
     beside losses of 3e13 and 4e12, read as slopes of 1e4 and 2 against 7e5 and 2e3). A sine
     whose moves rise far above the rounding at the smaller steps shows its linear range there
-    and is judged by it; a loss that never changed at all keeps its reading as a zero slope."""
+    and is judged by it; a loss that never changed at all keeps its reading as a zero slope,
+    unless backward's slope would first show only at steps where a term may bend back
+    (:func:`_hides_a_slope`)."""
     which = np.flatnonzero(judged.status == FAIL)
     if which.size == 0 or not taken or is_narrow(probe.compute_dtype):
         return judged
@@ -46,7 +49,7 @@ def rounding_only(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken: l
     down = np.concatenate([np.abs(probe.f0 - p.f_minus) for _, _, p in taken])
     noise = np.concatenate([np.broadcast_to(p.noise, p.f_plus.shape) for _, _, p in taken])
     h = np.concatenate([np.maximum(p.h_plus, p.h_minus) for _, _, p in taken])
-    doubted = []
+    doubted, unmoved = [], []
     for k in which:
         mine = coords == flat[k]
         if not mine.any():
@@ -63,5 +66,22 @@ def rounding_only(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken: l
                          > SIGNIFICANCE * (float(np.max(move)) + pair_rounding))
         if (within or bounded) and moved and predicted:
             doubted.append(k)
-    where = np.array(doubted, dtype=np.int64)
-    return judged.undecided(where, (BOUNDED,) * where.size, noise_limited=False)
+        elif not moved and predicted and _hides_a_slope(probe, flat[k], pair_rounding):
+            unmoved.append(k)
+    where, still = np.array(doubted, dtype=np.int64), np.array(unmoved, dtype=np.int64)
+    judged = judged.undecided(where, (BOUNDED,) * where.size, noise_limited=False)
+    return judged.undecided(still, (NEVER_MOVED,) * still.size, noise_limited=False)
+
+
+def _hides_a_slope(probe: TensorProbe, k: int, pair_rounding: float) -> bool:
+    """A loss that did not move at all, at any step taken along coordinate ``k``, could still
+    have backward's slope there: it would first move the loss beyond SIGNIFICANCE pair
+    roundings at a step ``reach``, and where that lies above UNMOVED_REACH of the param's
+    scale (max(1, |x|)), a term that bends back within it (a pole's 1/(1 - u) beside a loss
+    of 1.3e18, 1.2e-8 from its pole: a slope of 6.8e8 whose whole term moves the loss by 8,
+    against a last place of 256, steep-270370) moves the loss by nothing at every step.
+    Below it, the term would have to bend within a few million spacings of x: a slope that
+    does not show there is taken as absent (a param the forward ignores, its gradient kept)."""
+    with np.errstate(divide="ignore", over="ignore"):
+        reach = SIGNIFICANCE * pair_rounding / abs(float(probe.a[k]))
+    return bool(reach > UNMOVED_REACH * max(1.0, abs(float(probe.x[k]))))

@@ -162,6 +162,11 @@ def _resolved(probe: TensorProbe, est: Estimate, tol: np.ndarray) -> np.ndarray:
         return np.ones(tol.shape, dtype=bool)
     return est.error <= tol / probe.threshold
 
+NEVER_MOVED = (
+    "the loss did not move at any step tried, and backward's slope would first show at steps "
+    "wide enough for a steep term to bend back within them (a pole or bend closer than any "
+    "step rounding allows): the unmoved loss says nothing of the slope at the point"
+)
 BOUNDED = (
     "the loss moved by no more than a fixed amount near its rounding at every step tried (a "
     "term steeper than any step that rounding allows): the quotients say nothing of the slope "
