@@ -28,7 +28,10 @@ def slope_change(probe: TensorProbe, p: Pairs, typical: float | None = None) -> 
     size = np.maximum(np.maximum(np.abs(p.central), np.abs(left)),
                       np.maximum(np.abs(right), typical or probe.tensor_floor))
     noise = 4 * p.noise / np.minimum(p.h_plus, p.h_minus)
-    return np.maximum(np.abs(right - left) - noise, 0.0) / size
+    with np.errstate(invalid="ignore"):
+        change = np.maximum(np.abs(right - left) - noise, 0.0) / size
+    # A side that overflowed (an infinite quotient) changes without bound: far smaller steps.
+    return np.where(np.isnan(change), np.inf, change)
 
 
 def steps_down(probe: TensorProbe, first: Pairs) -> np.ndarray:
@@ -55,7 +58,8 @@ def start_steps(probe: TensorProbe, flat: np.ndarray, first: Pairs, h: np.ndarra
     up[down > 0] = 0
     # A re-estimate for accuracy starts up to 4 steps higher, as far as the slope's change
     # stays small next to the tensor's typical gradient.
-    room = np.floor(np.log2(BEND_LIMIT / np.maximum(slope_change(probe, first, probe.grad_scale), 1e-300)))
+    with np.errstate(divide="ignore"):  # an unbounded change (an overflowed side): no room, -inf
+        room = np.floor(np.log2(BEND_LIMIT / np.maximum(slope_change(probe, first, probe.grad_scale), 1e-300)))
     start = h * 2.0 ** np.where(down > 0, -down, np.clip(room, 0, 2))
     climbing = np.flatnonzero(up > 2)
     if climbing.size:

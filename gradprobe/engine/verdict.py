@@ -146,9 +146,12 @@ class Judged:
 def verdicts(probe: TensorProbe, a: np.ndarray, est: Estimate, tol: np.ndarray) -> np.ndarray:
     """Pass within the threshold (where the estimate is sharp enough), fail beyond both the
     threshold and SIGNIFICANCE bounds, inconclusive between."""
-    err = np.abs(a - est.value)
+    with np.errstate(invalid="ignore"):
+        err = np.abs(a - est.value)
     status = np.full(a.shape, INCONCLUSIVE, dtype=np.int8)
-    status[(err <= tol) & _resolved(probe, est, tol)] = PASS
+    # An infinite estimate (a quotient across an overflow) has an infinite tolerance, within
+    # which every value lies: it passes nothing.
+    status[(err <= tol) & np.isfinite(est.value) & _resolved(probe, est, tol)] = PASS
     status[(err > tol) & (err > SIGNIFICANCE * est.error)] = FAIL
     return status
 
@@ -161,6 +164,7 @@ def _resolved(probe: TensorProbe, est: Estimate, tol: np.ndarray) -> np.ndarray:
     if not is_narrow(probe.compute_dtype):
         return np.ones(tol.shape, dtype=bool)
     return est.error <= tol / probe.threshold
+
 
 NEVER_MOVED = (
     "the loss did not move at any step tried, and backward's slope would first show at steps "
