@@ -220,3 +220,16 @@ def test_a_side_decided_alone_after_the_ladders_is_no_derivative_at_a_kink_at_th
 
     o = judged_cleanly("kinks", 240855)
     assert not o["false_alarm"], (o["status"], o["expect"])
+
+
+def test_a_tiny_step_reading_both_sides_alike_is_borne_out_at_a_wider_one():
+    """kinks-340214: ReLU ties at the point along p2[2, 3], the sides -0.00867 and -0.00726 at
+    every step from 2.3e-13 up to the kinks beside it; the tiny step (2.8e-14, a few thousand
+    spacings of x) read both as -0.00588, and its central quotient failed a correct -0.00674
+    (several kinks meeting at the point give it). Correct in p2 (mpmath, through the judge);
+    the planted bug in p1 still fails."""
+    from adversarial import judged_cleanly
+
+    o = judged_cleanly("kinks", 340214)
+    assert not o["false_alarm"], (o["status"], o["expect"])
+    assert o["found"], o["status"]

@@ -191,22 +191,23 @@ def _held_by_tiny_pair(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, jud
 
 
 def clean_side_failures(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Judged) -> Judged:
-    """Failures of ``judged`` where the ladder's sides differ and the clean side judged them
-    (:func:`.kinks_at_point.judge_sides`: at the tiny step the other side moved to it, so the
-    kink lay beside the point), kept only where a pair AGAIN times wider shows the loss
-    smooth with that side's slope too; else undecided (UNRESOLVED). Kinks at the point can
-    be cancelled at the tiny step by one beside it that the step crosses in part, by chance
-    (kinks-221142: ReLU ties at the point, a net jump of 0.0014, and a residual 3.1e-14
-    beside it, a jump of -0.0017, three quarters crossed at 1.3e-13); the share crossed
-    changes with the step."""
+    """Failures of ``judged`` where the ladder's sides differ, judged by the tiny step
+    (:func:`.kinks_at_point.judge_sides`: the clean side where the other moved to it, so the
+    kink lay beside the point; the tiny step's own central quotient where both moved), kept
+    only where a pair AGAIN times wider shows the loss smooth with that slope too; else
+    undecided (UNRESOLVED). Kinks at the point can be cancelled at the tiny step by one
+    beside it that the step crosses in part, by chance (kinks-221142: ReLU ties at the point,
+    a net jump of 0.0014, and a residual 3.1e-14 beside it, a jump of -0.0017, three quarters
+    crossed at 1.3e-13); the share crossed changes with the step. And a tiny step a few
+    thousand spacings of x wide can read both sides alike where the code's own rounding of
+    its residuals decides what it sees (kinks-340214: sides of -0.00867 and -0.00726 down to
+    2.3e-13, both -0.00588 at 2.8e-14)."""
     differ = np.zeros(flat.size, dtype=bool)
     differ[sides_differ(probe, flat, ladder)] = True
-    value = judged.estimate.value
-    on_side = differ & (judged.status == FAIL) & ((value == ladder.left.value) | (value == ladder.right.value))
-    which = np.flatnonzero(on_side)
+    which = np.flatnonzero(differ & (judged.status == FAIL))
     if which.size == 0:
         return judged
-    side = Estimate(value, judged.estimate.error)
+    side = judged.estimate
     smooth = _smooth_again(probe, flat, ladder, side, which, np.full(which.size, np.inf))
     gone = which[~smooth]
     return judged.undecided(gone, (UNRESOLVED,) * gone.size)
