@@ -233,3 +233,15 @@ def test_a_tiny_step_reading_both_sides_alike_is_borne_out_at_a_wider_one():
     o = judged_cleanly("kinks", 340214)
     assert not o["false_alarm"], (o["status"], o["expect"])
     assert o["found"], o["status"]
+
+
+def test_a_settled_side_with_no_room_for_a_tiny_step_fails_nothing():
+    """kinks-300980: params near 300 (a spacing of 5.7e-14), a ReLU residual tie at the point
+    and kinks 1e-10 to 1e-8 beside it on the right; the left side settles (-0.000653) at a
+    ladder whose smallest step is 7.5e-9, and no tiny step fits between 2**13 spacings of x
+    and that step over 16. The correct value (0.00178, the right side's slope at the point)
+    once failed on the left side. Correct backward (mpmath, through the judge)."""
+    from adversarial import judged_cleanly
+
+    o = judged_cleanly("kinks", 300980)
+    assert not o["false_alarm"], (o["status"], o["expect"])

@@ -161,8 +161,16 @@ def alone_failures(probe: TensorProbe, flat: np.ndarray, judged: Judged, left: E
 def _held_by_tiny_pair(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Judged, which: np.ndarray,
                        settled_left: np.ndarray, side: Estimate) -> Judged:
     """Failures ``which`` of ``judged`` on ``side`` (the left one where ``settled_left``), kept
-    as :func:`settled_failures` says; the others undecided."""
+    as :func:`settled_failures` says; the others undecided. So too where no tiny step fits
+    between RESOLVED_SPACINGS spacings of x and the ladder's smallest step over 16: nothing
+    then rules out a kink at the point (kinks-300980: params near 300, the settled side's
+    smallest step 7.5e-9, every pair below it within 2**13 spacings; a kink at the point, the
+    other side's slope at it 0.00178, a correct value)."""
+    if which.size == 0:
+        return judged
     tiny = _tiny(probe, flat, ladder, side, which)
+    roomless = which if tiny is None else np.setdiff1d(which, tiny[0])
+    judged = judged.undecided(roomless, (UNRESOLVED,) * roomless.size)
     if tiny is None:
         return judged
     which, side_w, jump, right_q, left_q, noise = tiny
