@@ -245,3 +245,18 @@ def test_a_settled_side_with_no_room_for_a_tiny_step_fails_nothing():
 
     o = judged_cleanly("kinks", 300980)
     assert not o["false_alarm"], (o["status"], o["expect"])
+
+
+def test_a_value_between_the_sides_of_a_kink_beside_the_point_is_judged_by_the_clean_side():
+    """kinks-250047: a Huber residual 1.25e-5 past its corner (z = 1.0000125), every ladder step
+    beyond the corner: the left side settles on the true slope (-197.91199), the right on the
+    other piece's (-197.9144). The planted bug takes z for the clipped residual and gives
+    -197.91446, between the sides: once reported as a kink. The tiny step and one four times
+    wider show the loss smooth with the left side's slope (the wider to within 1% of the
+    value's distance from it), so the clean side judges, and the bug fails (mpmath, through
+    the judge)."""
+    from adversarial import judged_cleanly
+
+    o = judged_cleanly("kinks", 250047)
+    assert not o["false_alarm"], (o["status"], o["expect"])
+    assert o["found"] and not o["missed"], (o["status"], o["expect"])

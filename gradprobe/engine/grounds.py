@@ -49,7 +49,7 @@ from .ladder import NOISE_UNITS, PREDICTION_SLACK, SAFETY, Estimate, drifting
 from .probe import Pairs, TensorProbe
 from .refine import RATIO, Ladder, Taken, grown_changes, tiny_pair
 from .kinks import judge_ladder, sides_differ
-from .lopsided import clean_side_failures, settled_failures
+from .lopsided import clean_side_failures, moved_kinks, settled_failures
 from .taylor_range import unscaled_moves
 from .verdict import BOTH_SIDES_MOVED, CROWDED, SIGNIFICANCE, UNRESOLVED, UNSETTLED, Judged, verdicts
 
@@ -76,6 +76,7 @@ def judged_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, start: n
             ladder = crossed_wider(probe, flat, start, ladder, taken, which)
     judged = settled_failures(probe, flat, ladder, judge_ladder(probe, flat, ladder, tiny))  # a side settled beside a kink?
     judged = clean_side_failures(probe, flat, ladder, judged)  # the tiny step's smooth loss borne out wider?
+    judged = moved_kinks(probe, flat, ladder, judged, tiny)  # a value between sides beside a kink: the clean side's?
     judged = crossed_bound(probe, flat, ladder, judged, wider)
     judged = rows_bear_out(probe, flat, ladder, off_the_grid(probe, flat, ladder, judged))
     return unscaled_moves(probe, flat, ladder, judged)

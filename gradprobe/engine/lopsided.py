@@ -39,12 +39,12 @@ from __future__ import annotations
 import numpy as np
 
 from ..common.status import FAIL, INCONCLUSIVE, KINK
-from .kink_evidence import crossed
+from .kink_evidence import between, crossed
 from .kinks import LOPSIDED, sides_differ
-from .kinks_at_point import NEAR_SAFETY, RESOLVED_SPACINGS
+from .kinks_at_point import JUMP_KEPT, NEAR_SAFETY, RESOLVED_SPACINGS
 from .ladder import Estimate
 from .probe import TensorProbe
-from .refine import TINY_NOISE_UNITS, Ladder
+from .refine import TINY_NOISE_UNITS, Ladder, Tiny
 from .verdict import NEAR_KINK, SIGNIFICANCE, UNRESOLVED, Judged, verdicts
 
 CURVATURE_SLACK = 0.01  # the tiny step's quotients may leave the settled side by 1% of the jump
@@ -96,16 +96,25 @@ def _smooth_again(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, side: Es
     the point, one 8e-12 beside it, crossed partly, a net gap of 4e-5 against jumps of 0.014
     and 0.023) do not at another: the share of a kink beside the point that a step crosses
     changes with the step."""
-    out = np.zeros(which.size, dtype=bool)
+    smooth, seen = _again(probe, flat, ladder, side, which)
+    with np.errstate(invalid="ignore"):
+        return smooth & (seen <= allowed)
+
+
+def _again(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, side: Estimate,
+           which: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Per position ``which``, at a pair AGAIN times the tiny step: both quotients at the
+    side's value and together (:func:`_smooth`), and their gap plus rounding (inf where no
+    pair fits)."""
+    smooth, seen = np.zeros(which.size, dtype=bool), np.full(which.size, np.inf)
     tiny = _tiny(probe, flat, ladder, side, which, AGAIN)
     if tiny is None:
-        return out
+        return smooth, seen
     there, side_w, jump, right_q, left_q, noise = tiny
     at, = np.nonzero(np.isin(which, there))
-    at_side, together, seen = _smooth(side_w, jump, right_q, left_q, noise)
-    with np.errstate(invalid="ignore"):
-        out[at] = at_side & together & (seen <= allowed[at])
-    return out
+    at_side, together, seen[at] = _smooth(side_w, jump, right_q, left_q, noise)
+    smooth[at] = at_side & together
+    return smooth, seen
 
 
 def _smooth(side: Estimate, jump: np.ndarray, right_q: np.ndarray, left_q: np.ndarray,
@@ -156,6 +165,54 @@ def alone_failures(probe: TensorProbe, flat: np.ndarray, judged: Judged, left: E
                     NEAR_SAFETY * np.where(decides_left, left.error, right.error))
     sides = Ladder(Estimate.better(left, right), left, right, np.zeros(flat.size), smallest)
     return _held_by_tiny_pair(probe, flat, sides, judged, which, decides_left, side)
+
+
+def moved_kinks(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Judged, tiny: Tiny | None) -> Judged:
+    """``judged`` with its kinks where the ladder's sides differ, the tiny step moved the jump
+    (one side clean, the other moved onto it, the step's two quotients together: a kink
+    beside the point, :func:`.kinks_at_point.judge_sides`) and the value lies between the
+    ladder's sides, judged by the clean side where the loss is shown smooth with its slope:
+    at the tiny step, and at a pair AGAIN times wider whose quotients agree to within CANCEL
+    of the value's distance D from that side. A value between the sides is a kink's only if
+    kinks at the point cancel at both steps, to 1% of D at one of them; beside the point the
+    clean side is the derivative, and a value off it is a bug (kinks-250047: a Huber piece
+    taken for the other, its corner 1.25e-5 beside the point, every ladder step beyond it:
+    the far side's value, once reported as a kink)."""
+    which = sides_differ(probe, flat, ladder)
+    if tiny is None or which.size == 0:
+        return judged
+    left, right = ladder.left.pick(which), ladder.right.pick(which)
+    jump = np.abs(right.value - left.value)
+    noise = tiny.one_sided_noise
+    with np.errstate(invalid="ignore", over="ignore"):
+        kept = np.abs(tiny.gap - (right.value - left.value)) <= JUMP_KEPT * jump + 4.0 * noise
+        slack = noise + CURVATURE_SLACK * jump
+        clean_right = np.abs(tiny.right - right.value) <= SIGNIFICANCE * (right.error + slack)
+        clean_left = np.abs(tiny.left - left.value) <= SIGNIFICANCE * (left.error + slack)
+    side = Estimate(np.where(clean_left, left.value, right.value),
+                    NEAR_SAFETY * np.where(clean_left, left.error, right.error))
+    at_side, together, seen = _smooth(side, jump, tiny.right, tiny.left, noise)
+    a = probe.a[flat[which]]
+    off = np.abs(a - side.value)
+    candidate = ((judged.status[which] == KINK) & ~kept & (clean_left ^ clean_right) & at_side & together
+                 & between(a, left, right, probe.tolerance(flat[which], a)))
+    k = np.flatnonzero(candidate)
+    if k.size == 0:
+        return judged
+    full = Estimate(np.zeros(flat.size), np.zeros(flat.size))
+    full.value[which], full.error[which] = side.value, side.error
+    smooth, seen_again = _again(probe, flat, ladder, full, which[k])
+    # Smooth at both steps, and within CANCEL of D at one of them (the wider pair's rounding
+    # is four times finer): kinks at the point would have to cancel beyond chance.
+    with np.errstate(invalid="ignore"):
+        k = k[smooth & ((seen[k] <= CANCEL * off[k]) | (seen_again <= CANCEL * off[k]))]
+    if k.size == 0:
+        return judged
+    confirmed = np.maximum(np.abs(tiny.right - side.value), np.abs(tiny.left - side.value)) + noise
+    estimate = Estimate(side.value[k], np.maximum(side.error, confirmed)[k])
+    status = verdicts(probe, a[k], estimate, probe.tolerance(flat[which[k]], estimate.value))
+    reasons = tuple(NEAR_KINK if s == INCONCLUSIVE else None for s in status)
+    return judged.merged(which[k], Judged(status, estimate, reasons, np.zeros(k.size, dtype=bool)))
 
 
 def _held_by_tiny_pair(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Judged, which: np.ndarray,
