@@ -260,3 +260,17 @@ def test_a_value_between_the_sides_of_a_kink_beside_the_point_is_judged_by_the_c
     o = judged_cleanly("kinks", 250047)
     assert not o["false_alarm"], (o["status"], o["expect"])
     assert o["found"] and not o["missed"], (o["status"], o["expect"])
+
+
+def test_the_second_tiny_pair_is_taken_at_another_step_where_the_first_sits_at_the_top_of_its_room():
+    """kinks-381008: an absolute value's residual at 0 (a jump of -44) and another kink about
+    2e-10 beside it on the right; the tiny step sat at the top of its room (the ladder's
+    smallest over 16, 9.3e-10), where the two kinks nearly cancel (-38.999 against the left
+    side's -38.988), and the pair meant to be four times wider was capped at the same step.
+    It is now taken four times narrower there (2.3e-10: -39.9), and the correct -60.96 (the
+    sides' midpoint at the point) is not failed on the left side. Correct backward (mpmath,
+    through the judge)."""
+    from adversarial import judged_cleanly
+
+    o = judged_cleanly("kinks", 381008)
+    assert not o["false_alarm"], (o["status"], o["expect"])

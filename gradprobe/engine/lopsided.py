@@ -295,9 +295,10 @@ def _tiny(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, side: Estimate, 
           wider: float = 1.0):
     """A pair per position ``which`` at the smallest step at which rounding leaves the sides'
     jump plain to see (as tiny_pair's), yet RESOLVED_SPACINGS spacings of x at least and 16
-    times below the ladder's smallest (that step ``wider`` times wider, within the same room):
-    (positions with room for it, their side estimates, jumps, right and left quotients, the
-    quotients' rounding), or None."""
+    times below the ladder's smallest (that step ``wider`` times wider, within the same room,
+    or as many times narrower where that room ends: a second pair at another step, never the
+    same one, kinks-381008): (positions with room for it, their side estimates, jumps, right
+    and left quotients, the quotients' rounding), or None."""
     if which.size == 0:
         return None
     left, right = ladder.left, ladder.right
@@ -309,7 +310,14 @@ def _tiny(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, side: Estimate, 
     if which.size == 0:
         return None
     visible = TINY_NOISE_UNITS * probe.loss_noise(np.full(which.size, probe.f0)) / np.maximum(jump, 1e-300)
-    p = probe.pairs(flat[which], np.minimum(wider * np.clip(visible, lowest, highest), highest))
+    step = np.clip(visible, lowest, highest)
+    if wider != 1.0:
+        step = np.where(wider * step <= highest, wider * step, step / wider)
+        fits = step >= lowest
+        which, jump, step = which[fits], jump[fits], step[fits]
+        if which.size == 0:
+            return None
+    p = probe.pairs(flat[which], step)
     right_q, left_q = p.sides(probe.f0)
     noise = 2.0 * p.noise / np.minimum(p.h_plus, p.h_minus)
     return which, side.pick(which), jump, right_q, left_q, noise
