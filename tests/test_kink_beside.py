@@ -274,3 +274,18 @@ def test_the_second_tiny_pair_is_taken_at_another_step_where_the_first_sits_at_t
 
     o = judged_cleanly("kinks", 381008)
     assert not o["false_alarm"], (o["status"], o["expect"])
+
+
+def test_a_bend_beside_the_point_with_a_coarse_tiny_step_still_fails_a_wrong_factor():
+    """steep-440226: softplus of sharpness 1e4, its bend beside the point; the left side
+    settles on -1198.0052 while the right crosses the bend. The planted factor (1.01) gives
+    -1209.99, within the values several kinks at the point could give (0 to left + right), so
+    a kink unless a tiny step shows the loss smooth there. The tiny step sits at the floor of
+    its room (a few thousand spacings of a small x) with a rounding of 0.2, above 1% of the
+    value's distance from the side (0.12); the pair four times wider resolves it (0.05), and
+    the settled side fails the value (mpmath, through the judge)."""
+    from adversarial import judged_cleanly
+
+    o = judged_cleanly("steep", 440226)
+    assert not o["false_alarm"], (o["status"], o["expect"])
+    assert o["found"] and not o["missed"], (o["status"], o["expect"])

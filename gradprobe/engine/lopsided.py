@@ -72,10 +72,16 @@ def kink_beside(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Ju
         which, side_w, jump, right_q, left_q, noise = tiny
         at_side, together, seen = _smooth(side_w, jump, right_q, left_q, noise)
         off = np.abs(probe.a[flat[which]] - side_w.value)
-        with np.errstate(invalid="ignore"):
-            smooth = at_side & (joined[which] | (together & (seen <= CANCEL * off)))
+        smooth = at_side & (joined[which] | together)
         again = np.flatnonzero(smooth & ~joined[which])  # the tiny pair alone: borne out at a wider one?
-        smooth[again] = _smooth_again(probe, flat, ladder, side, which[again], CANCEL * off[again])
+        if again.size:
+            # Smooth at both steps, and within CANCEL of D at one of them (as moved_kinks): the
+            # tiny step's rounding can be coarser than 1% of D where it sits at the room's floor,
+            # a few thousand spacings of a small x (steep-440226: a bend of sharpness 1e4 beside
+            # the point, the tiny step's rounding 0.2 against a D of 12; the wider pair's 0.05).
+            wider, seen_wider = _again(probe, flat, ladder, side, which[again])
+            with np.errstate(invalid="ignore"):
+                smooth[again] = wider & ((seen[again] <= CANCEL * off[again]) | (seen_wider <= CANCEL * off[again]))
         k = np.flatnonzero(smooth)
         if k.size:
             # The settled side, as far as the tiny step's quotients confirm it.
