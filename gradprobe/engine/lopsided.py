@@ -75,23 +75,37 @@ def kink_beside(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Ju
         smooth = at_side & (joined[which] | together)
         again = np.flatnonzero(smooth & ~joined[which])  # the tiny pair alone: borne out at a wider one?
         if again.size:
-            # Smooth at both steps, and within CANCEL of D at one of them (as moved_kinks): the
-            # tiny step's rounding can be coarser than 1% of D where it sits at the room's floor,
-            # a few thousand spacings of a small x (steep-440226: a bend of sharpness 1e4 beside
-            # the point, the tiny step's rounding 0.2 against a D of 12; the wider pair's 0.05).
-            wider, seen_wider = _again(probe, flat, ladder, side, which[again])
-            with np.errstate(invalid="ignore"):
-                smooth[again] = wider & ((seen[again] <= CANCEL * off[again]) | (seen_wider <= CANCEL * off[again]))
+            # The tiny step's rounding can be coarser than 1% of D where it sits at the room's
+            # floor, a few thousand spacings of a small x (steep-440226: a bend of sharpness 1e4
+            # beside the point, the tiny step's rounding 0.2 against a D of 12; the wider pair's
+            # 0.05): the CANCEL test may be met at either step (:func:`_borne_out`).
+            smooth[again] = _borne_out(probe, flat, ladder, side, which[again], seen[again], off[again])
         k = np.flatnonzero(smooth)
         if k.size:
-            # The settled side, as far as the tiny step's quotients confirm it.
-            confirmed = np.maximum(np.abs(right_q - side_w.value), np.abs(left_q - side_w.value)) + noise
-            estimate = Estimate(side_w.value[k], np.maximum(side_w.error, confirmed)[k])
-            a = probe.a[flat[which[k]]]
-            status = verdicts(probe, a, estimate, probe.tolerance(flat[which[k]], estimate.value))
-            reasons = tuple(NEAR_KINK if s == INCONCLUSIVE else None for s in status)
-            judged = judged.merged(which[k], Judged(status, estimate, reasons, np.zeros(k.size, dtype=bool)))
+            judged = _judged_by_side(probe, flat, judged, which[k], side_w.pick(k), right_q[k], left_q[k], noise[k])
     return judged
+
+
+def _borne_out(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, side: Estimate, which: np.ndarray,
+               seen: np.ndarray, off: np.ndarray) -> np.ndarray:
+    """Per position ``which``, whose tiny pair showed the loss smooth with ``side``'s slope
+    (its gap plus rounding ``seen``): the pair AGAIN times wider does too, and one of the two
+    agrees within CANCEL of the value's distance ``off`` from the side, so kinks at the point
+    would have to cancel at both steps, and to 1% at one, to give the value."""
+    smooth, seen_again = _again(probe, flat, ladder, side, which)
+    with np.errstate(invalid="ignore"):
+        return smooth & ((seen <= CANCEL * off) | (seen_again <= CANCEL * off))
+
+
+def _judged_by_side(probe: TensorProbe, flat: np.ndarray, judged: Judged, which: np.ndarray, side: Estimate,
+                    right_q: np.ndarray, left_q: np.ndarray, noise: np.ndarray) -> Judged:
+    """``judged`` with positions ``which`` judged by ``side``, as far as the tiny step's
+    quotients ``right_q`` and ``left_q`` (rounding ``noise``) confirm it."""
+    confirmed = np.maximum(np.abs(right_q - side.value), np.abs(left_q - side.value)) + noise
+    estimate = Estimate(side.value, np.maximum(side.error, confirmed))
+    status = verdicts(probe, probe.a[flat[which]], estimate, probe.tolerance(flat[which], estimate.value))
+    reasons = tuple(NEAR_KINK if s == INCONCLUSIVE else None for s in status)
+    return judged.merged(which, Judged(status, estimate, reasons, np.zeros(which.size, dtype=bool)))
 
 
 def _smooth_again(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, side: Estimate,
@@ -207,18 +221,10 @@ def moved_kinks(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Ju
         return judged
     full = Estimate(np.zeros(flat.size), np.zeros(flat.size))
     full.value[which], full.error[which] = side.value, side.error
-    smooth, seen_again = _again(probe, flat, ladder, full, which[k])
-    # Smooth at both steps, and within CANCEL of D at one of them (the wider pair's rounding
-    # is four times finer): kinks at the point would have to cancel beyond chance.
-    with np.errstate(invalid="ignore"):
-        k = k[smooth & ((seen[k] <= CANCEL * off[k]) | (seen_again <= CANCEL * off[k]))]
+    k = k[_borne_out(probe, flat, ladder, full, which[k], seen[k], off[k])]
     if k.size == 0:
         return judged
-    confirmed = np.maximum(np.abs(tiny.right - side.value), np.abs(tiny.left - side.value)) + noise
-    estimate = Estimate(side.value[k], np.maximum(side.error, confirmed)[k])
-    status = verdicts(probe, a[k], estimate, probe.tolerance(flat[which[k]], estimate.value))
-    reasons = tuple(NEAR_KINK if s == INCONCLUSIVE else None for s in status)
-    return judged.merged(which[k], Judged(status, estimate, reasons, np.zeros(k.size, dtype=bool)))
+    return _judged_by_side(probe, flat, judged, which[k], side.pick(k), tiny.right[k], tiny.left[k], noise[k])
 
 
 def _held_by_tiny_pair(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Judged, which: np.ndarray,
