@@ -33,6 +33,20 @@ def one_clean_side(
                           Estimate.where(use_right & ~use_left, right, otherwise))
 
 
+def tiny_reading(tiny: Tiny, left: Estimate, right: Estimate) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """What the tiny step shows of the ladder's sides ``left`` and ``right``: the jump kept
+    (a kink at the point), and each side clean (its tiny quotient still at the side's value,
+    within SIGNIFICANCE times its bound plus the step's rounding and CURVATURE_SLACK of the
+    jump; the side that crossed a kink beside the point moves)."""
+    jump = right.value - left.value
+    with np.errstate(invalid="ignore", over="ignore"):
+        kept = np.abs(tiny.gap - jump) <= JUMP_KEPT * np.abs(jump) + 4.0 * tiny.one_sided_noise
+        slack = tiny.one_sided_noise + CURVATURE_SLACK * np.abs(jump)
+        clean_right = np.abs(tiny.right - right.value) <= SIGNIFICANCE * (right.error + slack)
+        clean_left = np.abs(tiny.left - left.value) <= SIGNIFICANCE * (left.error + slack)
+    return kept, clean_left, clean_right
+
+
 def judge_sides(
     probe: TensorProbe, flat: np.ndarray, ladder: Ladder, tiny: Tiny, which: np.ndarray,
     status: np.ndarray, value: np.ndarray, error: np.ndarray, reasons: list[str | None],
@@ -43,8 +57,7 @@ def judge_sides(
     left, right = ladder.left, ladder.right
     crossed_left, crossed_right = crossed(ladder)
     tiny = _rounding_checked(tiny, left, right)
-    jump = right.value - left.value
-    kept = np.abs(tiny.gap - jump) <= JUMP_KEPT * np.abs(jump) + 4.0 * tiny.one_sided_noise
+    kept, clean_left, clean_right = tiny_reading(tiny, left, right)
     # At the point: the analytic value must lie between the sides (a subgradient). Where
     # several kinks meet at the point (a max tied in many rows at once, upstream gradients of
     # both signs), the usual per-kink convention picks one side per kink, and the sum lies
@@ -60,9 +73,6 @@ def judge_sides(
     # side (by jump * distance / step), the clean side has not, and the clean side's
     # derivative is the derivative at the point. With both clean, the tiny step no longer
     # reaches the kink and its central difference is smooth.
-    slack = tiny.one_sided_noise + CURVATURE_SLACK * np.abs(jump)
-    clean_right = np.abs(tiny.right - right.value) <= SIGNIFICANCE * (right.error + slack)
-    clean_left = np.abs(tiny.left - left.value) <= SIGNIFICANCE * (left.error + slack)
     # Where the jump moved, a value between the sides may still come from kinks crowding the
     # point; beyond them (between 0 and their sum) only where the tiny step's own sides are seen
     # to differ (a corner, where only f'' jumps, shows next to no gap there).

@@ -41,7 +41,7 @@ import numpy as np
 from ..common.status import FAIL, INCONCLUSIVE, KINK
 from .kink_evidence import between, crossed
 from .kinks import LOPSIDED, sides_differ
-from .kinks_at_point import JUMP_KEPT, NEAR_SAFETY, RESOLVED_SPACINGS
+from .kinks_at_point import NEAR_SAFETY, RESOLVED_SPACINGS, tiny_reading
 from .ladder import Estimate
 from .probe import TensorProbe
 from .refine import TINY_NOISE_UNITS, Ladder, Tiny
@@ -204,11 +204,7 @@ def moved_kinks(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Ju
     left, right = ladder.left.pick(which), ladder.right.pick(which)
     jump = np.abs(right.value - left.value)
     noise = tiny.one_sided_noise
-    with np.errstate(invalid="ignore", over="ignore"):
-        kept = np.abs(tiny.gap - (right.value - left.value)) <= JUMP_KEPT * jump + 4.0 * noise
-        slack = noise + CURVATURE_SLACK * jump
-        clean_right = np.abs(tiny.right - right.value) <= SIGNIFICANCE * (right.error + slack)
-        clean_left = np.abs(tiny.left - left.value) <= SIGNIFICANCE * (left.error + slack)
+    kept, clean_left, clean_right = tiny_reading(tiny, left, right)
     side = Estimate(np.where(clean_left, left.value, right.value),
                     NEAR_SAFETY * np.where(clean_left, left.error, right.error))
     at_side, together, seen = _smooth(side, jump, tiny.right, tiny.left, noise)
