@@ -70,3 +70,13 @@ def test_an_infinite_estimate_passes_no_analytic_value():
     est = Estimate(np.array([np.inf, -np.inf, np.inf]), np.array([0.0, 1.0, np.inf]))
     status = verdicts(p, a, est, p.tolerance(np.arange(3), est.value))
     assert not np.any(status == PASS), status
+
+
+def test_steep_460909_second_difference_overflow_leaks_no_warning():
+    """A chain-rule bug (adversarial steep-460909) whose smooth-range probe divides a huge
+    second difference by the square of a tiny step: the quotient overflows. It is no
+    evidence of a steady bend, and numpy's warning stays inside gradprobe."""
+    from adversarial import judged_cleanly
+
+    o = judged_cleanly("steep", 460909)
+    assert o["found"] and not o["own_warnings"], (o["status"], o["own_warnings"])

@@ -118,15 +118,17 @@ def largest_smooth_step(probe: TensorProbe, flat: np.ndarray, h: np.ndarray, up:
     within = h[None, :] * factors[:, None] <= scale[None, :]
     p = _pairs_where(probe, flat, h, factors, wanted & within, taken or [])
     bends = slope_change(probe, p).reshape(levels, flat.size)
-    with np.errstate(over="ignore"):  # steps beyond 1e154 (params that large): no second difference is seen
+    # Steps beyond 1e154 (params that large), or a huge second difference over a tiny step's
+    # square: a quotient that overflows is no second difference seen.
+    with np.errstate(over="ignore", divide="ignore", invalid="ignore"):
         width = (0.5 * (p.h_plus + p.h_minus)) ** 2
-    second = ((p.f_plus - 2 * probe.f0 + p.f_minus) / width).reshape(levels, flat.size)
-    second_noise = (4 * p.noise / width).reshape(levels, flat.size)
-    steady = np.ones((levels, flat.size), dtype=bool)
-    size = np.maximum(np.abs(second[1:]), np.abs(second[:-1]))
-    seen = np.abs(second) > 4.0 * second_noise  # a second difference above its noise
-    steady[1:] = (np.abs(second[1:] - second[:-1]) <= BEND_LIMIT * size + second_noise[1:] + second_noise[:-1]) \
-        & seen[1:] & seen[:-1]
+        second = ((p.f_plus - 2 * probe.f0 + p.f_minus) / width).reshape(levels, flat.size)
+        second_noise = (4 * p.noise / width).reshape(levels, flat.size)
+        steady = np.ones((levels, flat.size), dtype=bool)
+        size = np.maximum(np.abs(second[1:]), np.abs(second[:-1]))
+        seen = (np.abs(second) > 4.0 * second_noise) & np.isfinite(second) & np.isfinite(second_noise)
+        steady[1:] = (np.abs(second[1:] - second[:-1]) <= BEND_LIMIT * size + second_noise[1:] + second_noise[:-1]) \
+            & seen[1:] & seen[:-1]
     # Growing needs evidence, not the absence of it: the slope itself must stand above the
     # noise at that level (a loss that looks flat at every step shows nothing either way).
     slope_noise = (2 * p.noise / (p.h_plus + p.h_minus)).reshape(levels, flat.size)
