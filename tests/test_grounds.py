@@ -221,3 +221,51 @@ def test_a_value_outside_kinks_seen_among_noisy_sides_is_no_failure():
 
     o = judged_cleanly("kinks", 300172)
     assert not o["false_alarm"], (o["status"], o["expect"])
+
+
+# kinks-480855's coordinate p0[0, 0]: Huber residuals on their corner (z = 1 up to 8e-15) and
+# at 7.8e-13, 7.8e-11 and 7.8e-8 beside it, with slopes X of both signs, so that two corners
+# lie 3.9e-8 either side of the point; the loss is 0.06 (its rounding sets the steps).
+_Z1 = np.array([-0.013146797161395801, 1.0000000000000078, -0.0026620599322467464, 1.0000000000000078,
+                0.999999999921875, -0.009705375346683774, 1.0000000000007812, 0.013389178044258716,
+                0.015298489917542353, 1.000000078125, 0.9999999999218749, 0.999999921875, -0.013279523316700188,
+                1.000078125, 0.002848104094569745, 1.0000000000007812, 0.9999999999999922,
+                -0.005776090079430987, 0.999999921875, 0.0020038938050322835, 1.0000000000007812,
+                0.009467543173180628])
+_X1 = np.array([-3.0, -2, 1, 1, -2, 2, 1, 2, 0, 2, 2, 0, 2, 0, -3, 1, 2, 3, 2, 3, 2, 1])
+_W1 = np.array([0.6954821926481196, 0.017275021732785723, -0.9815908334241923, 0.12236178011297705,
+                0.5687146276493382, -0.08110595936438503, 0.7353373361892532, -0.7092695674232044,
+                -0.5664273348334632, -0.8494683906036606, 0.6874726284158796, -0.05475943738250044,
+                0.38896470415355666, -0.8458772312213287, -0.14687763950786015, -0.7648007528990011,
+                0.6149112942860957, 0.927762127921498, -0.6312046885101805, 0.1060814389072624,
+                0.7362604615231549, 0.8280038206998555])
+
+
+def _huber_pair_beside(factor: float):
+    scale, x0, rest = 0.010492147470944853, -0.0093994140625, 0.05846
+
+    def loss(v):
+        z = _Z1 + _X1 * (v[0] - x0)
+        return rest + scale * float(np.sum(_W1 * np.where(np.abs(z) <= 1, 0.5 * z * z, np.abs(z) - 0.5)))
+
+    exact = scale * np.sum(_W1 * _X1 * np.clip(_Z1, -1, 1))  # Huber': z inside, sign(z) outside
+    return check_coordinates(make_probe(loss, np.array([x0]), np.array([factor * exact])), np.arange(1))
+
+
+def test_a_plateau_shifted_by_corners_closer_than_any_resolving_step_fails_nothing():
+    """The ladder's central quotients (3e-5 down to 4.8e-7) approach at first order and settle
+    on 0.000344256556 +- 2.9e-10, 1.1e-9 (3.3e-6 of the value) below the true 0.000344257695
+    (Huber' = z inside the corners, sign(z) outside: closed form). The two corners 3.9e-8
+    either side shift every step above them by (A - B) d / 2 = 1.2e-9 (mpmath's exact
+    quotients: -1.14e-9 at 2**-20, -1.10e-9 at 2**-22, -0.23e-9 at 2**-26), and the pair below
+    the ladder (8.4e-8) rounds at 1.3e-9. Not failed; a value 1e-4 off still fails."""
+    assert _huber_pair_beside(1.0).status[0] != FAIL
+    assert _huber_pair_beside(1.0001).status[0] == FAIL
+
+
+def test_kinks_480855_as_first_found_is_no_false_alarm():
+    """The case as generated (correct backward; mpmath through the judge)."""
+    from adversarial import judged_cleanly
+
+    o = judged_cleanly("kinks", 480855)
+    assert not o["false_alarm"], (o["status"], o["expect"])
