@@ -120,7 +120,12 @@ def judge_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, tiny: Tin
     crowded = (status == FAIL) & by_corner & (crossed_left | crossed_right | turned)
     status[crowded] = INCONCLUSIVE
     crowded |= kinks_outside
-    noisy = ladder.noise_share > 0.5
+    # Rounding limits the decision only where the bound it makes up is too wide to decide
+    # at the threshold; a decisive bound left undecided by the sides asks for smaller steps
+    # (where they resolve), not wider ones (steep-461145: u**7 steep at 1e8, its sides'
+    # curvature terms 1e12 at the ladder's steps, the central bound 2.8).
+    decisive = SIGNIFICANCE * best.error <= probe.tolerance(flat, best.value)
+    noisy = (ladder.noise_share > 0.5) & ~decisive
     reasons: list[str | None] = [
         (CROWDED if crowded[k] else CORNER_NEAR if withheld[k] else NOISE if noisy[k] else UNSETTLED)
         if status[k] == INCONCLUSIVE else None
