@@ -143,29 +143,51 @@ def _checked_by_next_row(
     return np.where(at_rate, error, np.inf)
 
 
+def _column_checked(entry: np.ndarray, before: np.ndarray, noise: np.ndarray, best: np.ndarray,
+                    error: np.ndarray, shrink: float) -> np.ndarray:
+    """``error`` widened where an extrapolated column's entry at the next row contradicts the
+    estimate ``best``: where the column's model holds its distance from the derivative shrinks
+    by ``shrink`` per row, as the quotients' does (:func:`_checked_by_next_row`). An entry
+    further out shows the rows the estimate was built from agreed by chance (a turn of the
+    column among steps near the loss's bend: steep-490011, softplus of sharpness 100 x 525,
+    whose first extrapolations agreed to 3.6e-4 at steps of 1.5e-5 and 7.6e-6 and turned by
+    2.2e-3 at the next row, the estimate 2.4e-3 off with a bound of 7.7e-4)."""
+    predicted = PREDICTION_SLACK * shrink * np.abs(before - best) + error + NOISE_UNITS * noise
+    contradicted = np.abs(entry - best) > predicted
+    return np.where(contradicted, SAFETY * np.abs(entry - best) + error, error)
+
+
 RECEDING_ROWS = 2  # quotients moving away from the estimate this many rows running
+AWAY_ROWS = 3  # ... or this many, each move in the same direction, whatever their sizes
 
 
 def _receding(
     quotient: np.ndarray, before: np.ndarray, earlier: np.ndarray | None, best: np.ndarray,
-    error: np.ndarray, receding: np.ndarray,
-) -> tuple[np.ndarray, np.ndarray]:
+    error: np.ndarray, runs: tuple[np.ndarray, np.ndarray], away_rows: int | None = AWAY_ROWS,
+) -> tuple[np.ndarray, tuple[np.ndarray, np.ndarray]]:
     """``error`` widened where the quotients have moved away from the estimate ``best`` row
-    after row (RECEDING_ROWS times running, this row's included), each move in the same
-    direction as the one before and no larger (they converge, to another value), and now lie
-    beyond its bound. A sound estimate has the quotients close in on it as the step shrinks;
-    rounding moves them at random, by more the smaller the step. Quotients converging
-    steadily elsewhere, even by less than the rounding noise allows (which
-    :func:`_checked_by_next_row` leaves alone), show that the rows the estimate was taken
-    from were not yet where its model holds (a corner or kink between their steps and the
-    point). Returns the widened bound and the updated run counts."""
+    after row, each move in the same direction as the one before, and now lie beyond its
+    bound: RECEDING_ROWS times running (this row's included) with each move no larger than
+    the one before (they converge, to another value), or AWAY_ROWS times running whatever
+    the moves' sizes (``away_rows``; None: not counted). A sound estimate has the quotients close in on it as the step shrinks;
+    rounding moves them at random, by more the smaller the step, and seldom one way three
+    rows running. Quotients heading steadily elsewhere, even by less than the rounding noise
+    allows (which :func:`_checked_by_next_row` leaves alone), show that the rows the estimate
+    was taken from were not yet where its model holds (a corner or kink between their steps
+    and the point; kinks-500818: Huber corners at 1e-7 to 1e-6 beside the point, the
+    quotients moving 6.7e-10, 8.9e-10, 1.2e-9, 1.7e-9 away from an estimate of bound 2.6e-9
+    that their turn had settled, toward the true value 1e-8 off it). Returns the widened
+    bound and the updated run counts."""
+    receding, away = runs
     change = quotient - before
-    steady = np.zeros(change.shape, dtype=bool) if earlier is None else (
-        (change * (before - earlier) > 0) & (np.abs(change) <= np.abs(before - earlier)))
-    farther = (np.abs(quotient - best) > np.abs(before - best)) & steady
-    receding = np.where(farther, receding + 1, 0)  # (called within the tableau's errstate)
-    beyond = (receding >= RECEDING_ROWS) & (np.abs(quotient - best) > error)
-    return np.where(beyond, SAFETY * np.abs(quotient - best) + error, error), receding
+    same = np.zeros(change.shape, dtype=bool) if earlier is None else change * (before - earlier) > 0
+    steady = same & (np.abs(change) <= np.abs(before - earlier)) if earlier is not None else same
+    farther = np.abs(quotient - best) > np.abs(before - best)
+    receding = np.where(farther & steady, receding + 1, 0)  # (called within the tableau's errstate)
+    away = np.where(farther & same, away + 1, 0)
+    far = (away >= away_rows) if away_rows is not None else np.zeros(away.shape, dtype=bool)
+    beyond = ((receding >= RECEDING_ROWS) | far) & (np.abs(quotient - best) > error)
+    return np.where(beyond, SAFETY * np.abs(quotient - best) + error, error), (receding, away)
 
 
 def _build(quotients: np.ndarray, noise: np.ndarray, ratio: float, order_step: int
@@ -215,7 +237,9 @@ def tableau(quotients: np.ndarray, noise: np.ndarray, ratio: float, order_step: 
     at its model's rate on that coordinate (:func:`column_steady`; for the diagonal, whose
     column has one change only, the column below it), and each further row's quotient must
     fall where the estimate taken so far predicts, or its bound widens
-    (:func:`_checked_by_next_row`).
+    (:func:`_checked_by_next_row`). In the central tableau each extrapolated column's next
+    entry must too (:func:`_column_checked`), and quotients heading away from the estimate
+    three rows running widen it (:func:`_receding`).
     """
     rows, n = quotients.shape
     base = ratio**order_step
@@ -225,13 +249,19 @@ def tableau(quotients: np.ndarray, noise: np.ndarray, ratio: float, order_step: 
     at_rate[:2] = True  # no rate to compare yet
     best = quotients[0].copy()
     error = np.full(n, np.inf)
-    receding = np.zeros(n, dtype=int)  # rows in a row whose quotient lay farther from best
+    runs = (np.zeros(n, dtype=int), np.zeros(n, dtype=int))  # rows in a row whose quotient lay farther from best
+    # The central tableau's own checks on the rows after an estimate; a side's quotients
+    # (first order) keep the checks they had (a side crossing corners is the kink logic's).
+    away_rows = AWAY_ROWS if order_step == 2 else None
     with np.errstate(invalid="ignore", over="ignore"):
         for k in range(1, rows):
             error = _checked_by_next_row(quotients[k], quotients[k - 1], noise[k] + noise[k - 1],
                                          best, error, 1.0 / base, at_rate[k])
-            error, receding = _receding(quotients[k], quotients[k - 1], quotients[k - 2] if k >= 2 else None,
-                                        best, error, receding)
+            error, runs = _receding(quotients[k], quotients[k - 1], quotients[k - 2] if k >= 2 else None,
+                                    best, error, runs, away_rows)
+            for j in range(1, k) if away_rows is not None else ():  # each extrapolated column's next entry
+                error = _column_checked(entries[k][j], entries[k - 1][j], carried[k][j] + carried[k - 1][j],
+                                        best, error, base ** -(j + 1))
             for j in range(k + 1):
                 value = entries[k][j]
                 if j == 0:
@@ -250,6 +280,6 @@ def tableau(quotients: np.ndarray, noise: np.ndarray, ratio: float, order_step: 
                 take = (bound < error) & allowed
                 best = np.where(take, value, best)
                 error = np.where(take, bound, error)
-                receding = np.where(take, 0, receding)
+                runs = (np.where(take, 0, runs[0]), np.where(take, 0, runs[1]))
     error = np.where(np.isfinite(error), error, np.inf)
     return Estimate(best, error)
