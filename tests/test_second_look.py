@@ -178,3 +178,32 @@ def test_a_coordinate_passed_at_one_moved_point_only_stays_undecided():
     up = _kinks_borne_out(outcome, which, np.array([True, False, True]))
     assert up is not None and up.status.tolist() == [KINK, INCONCLUSIVE, PASS]
     assert up.reasons == (None, "crowded", None)
+
+
+def test_a_pass_only_under_the_tensors_floor_is_no_agreement_off_the_point():
+    """A moved point's pass counts toward a kink only where it holds at the coordinate's own
+    size: one whose gradient there lies far below its tensor's largest passes under the
+    tensor's floor whatever its error."""
+    from gradprobe.engine.coordinates import CoordinateOutcome
+    from gradprobe.engine.offpoint import _own_size
+    from gradprobe.common.status import PASS
+
+    analytic = np.array([1.2e3, 1.0, 1.0e9])
+    numeric = np.array([1.0e3, 1.0 + 1e-9, 1.0e9 * (1 + 2e-7)])
+    there = CoordinateOutcome(flat=np.arange(3), analytic=analytic, numeric=numeric,
+                              error_estimate=np.full(3, 1e-3), rel=np.abs(analytic - numeric) / 1e9,
+                              abs=np.abs(analytic - numeric), scale=np.full(3, 1e9),
+                              status=np.full(3, PASS), reasons=(None,) * 3, evaluations=0)
+    assert _own_size(there, 1e-6).tolist() == [False, True, True]
+
+
+def test_steep_520009_is_not_reported_as_a_kink():
+    """adversarial steep-520009: 1 / (1 - u) with its pole 6e-7 from the point, one element's
+    gradient 20% off (1.3e15 at the point). Undecided at the point, it passed at both moved
+    points only under its tensor's floor and was reported as a kink, the bug let through.
+    mpmath's gradient through the judge."""
+    from adversarial import judge
+
+    o = judge("steep", 520009)
+    assert o["crash"] is None and not o["false_alarm"]
+    assert not o["missed"] and o["status"]["p2"] != "kink", o["status"]
