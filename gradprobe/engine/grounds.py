@@ -44,12 +44,14 @@ from dataclasses import replace
 import numpy as np
 
 from ..common.roundoff import is_narrow
-from ..common.status import FAIL, INCONCLUSIVE, PASS
+from ..common.status import FAIL, PASS
 from .ladder import NOISE_UNITS, PREDICTION_SLACK, SAFETY, Estimate, drifting
 from .probe import Pairs, TensorProbe
 from .refine import RATIO, Ladder, Taken, grown_changes, tiny_pair
 from .kinks import judge_ladder, sides_differ
 from .lopsided import clean_side_failures, moved_kinks, settled_failures
+from .quarter_step import tiny_borne_out
+from .row_evidence import central_rows, curvature_seen, first_order_rows, smooth_rows
 from .taylor_range import unscaled_moves
 from .verdict import BOTH_SIDES_MOVED, CROWDED, SIGNIFICANCE, UNRESOLVED, UNSETTLED, Judged, verdicts
 
@@ -57,7 +59,6 @@ OFF_GRID = 2.0**-0.5  # the check's step: the ladder's smallest over sqrt(2), be
 # A second pair far below the ladder: 2**-4.5 of its smallest step (off the grid too), or as
 # far below as rounding leaves a quarter of the discrepancy plain, up to 2**-2.5 of it.
 DEEP, DEEP_LIMIT = 2.0**-4.5, 2.0**-2.5
-FIRST_ORDER = 0.375  # a change shrinking less than this per halving: first order (1/2), not h**2 (1/4)
 WIDER_LIMIT = 2.0**8  # wider pairs considered up to this many times the ladder's top step
 WIDER_SLACK = 2.0  # a side's quotient at a wider step may leave the line by twice its slope's reach
 
@@ -75,7 +76,8 @@ def judged_ladder(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, start: n
         tiny = tiny_pair(probe, flat[which], ladder.smallest[which], jump)
         if start is not None and taken:
             ladder = crossed_wider(probe, flat, start, ladder, taken, which)
-    judged = settled_failures(probe, flat, ladder, judge_ladder(probe, flat, ladder, tiny))  # a side settled beside a kink?
+    judged = tiny_borne_out(probe, flat, ladder, tiny, which, judge_ladder(probe, flat, ladder, tiny))
+    judged = settled_failures(probe, flat, ladder, judged)  # a side settled beside a kink?
     judged = clean_side_failures(probe, flat, ladder, judged)  # the tiny step's smooth loss borne out wider?
     judged = moved_kinks(probe, flat, ladder, judged, tiny)  # a value between sides beside a kink: the clean side's?
     judged = crossed_bound(probe, flat, ladder, judged, wider)
@@ -97,11 +99,7 @@ def rows_bear_out(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: 
     which = np.flatnonzero(judged.status == FAIL)
     if which.size == 0:
         return judged
-    n = flat.size
-    rows = _rows(ladder, n)
-    p = ladder.pairs
-    q = p.central.reshape(rows, n)[:, which]
-    noise = (2 * p.noise / (p.h_plus + p.h_minus)).reshape(rows, n)[:, which]
+    q, noise = central_rows(ladder, which)
     a = probe.a[flat[which]]
     gap = np.abs(a - judged.estimate.value[which])
     with np.errstate(invalid="ignore"):
@@ -164,40 +162,10 @@ def off_the_grid(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: J
         # rows settled 1.1e-9 off the true derivative against a curvature of 0.16, the pair
         # at 8.4e-8 rounding at 1.3e-9).
         blind = ~(np.abs(a - q) > tol + NOISE_UNITS * q_noise + shrink * np.abs(last - value))
-        blind &= _first_order(ladder, which) & (np.abs(a - value) <= _curvature(probe, ladder, which) * step)
+        blind &= first_order_rows(ladder, which) & (np.abs(a - value) <= curvature_seen(probe, ladder, which) * step)
     deep &= verdicts(probe, a, widened, tol) != FAIL
     deep |= blind
     return _undecided(judged, which[deep])
-
-
-def _first_order(ladder: Ladder, which: np.ndarray) -> np.ndarray:
-    """Per coordinate ``which`` of the ladder: two successive changes of its central
-    quotients, each above their rounding, shrink at a first-order rate (by more than
-    FIRST_ORDER per halving of the step, where a smooth loss's shrink by 1/4): f'' jumps
-    within the steps (corners)."""
-    assert ladder.pairs is not None
-    p, n = ladder.pairs, ladder.smallest.size
-    rows = _rows(ladder, n)
-    central = p.central.reshape(rows, n)[:, which]
-    noise = (2 * p.noise / (p.h_plus + p.h_minus)).reshape(rows, n)[:, which]
-    with np.errstate(over="ignore", invalid="ignore"):
-        change = np.abs(np.diff(central, axis=0))
-        seen = change > 2 * NOISE_UNITS * (noise[1:] + noise[:-1])
-        slow = seen[1:] & seen[:-1] & (change[1:] > FIRST_ORDER * change[:-1])
-    return slow.any(axis=0)
-
-
-def _curvature(probe: TensorProbe, ladder: Ladder, which: np.ndarray) -> np.ndarray:
-    """Per coordinate ``which`` of the ladder: the largest second difference its rows show
-    beyond their rounding (the curvature the loss is seen to have over its steps)."""
-    assert ladder.pairs is not None
-    p, n = ladder.pairs, ladder.smallest.size
-    rows = _rows(ladder, n)
-    width = (0.5 * (p.h_plus + p.h_minus)).reshape(rows, n)[:, which]
-    with np.errstate(over="ignore", invalid="ignore", divide="ignore"):
-        second = np.abs(p.f_plus + p.f_minus - 2 * probe.f0).reshape(rows, n)[:, which]
-        seen = (second - 4 * p.noise.reshape(rows, n)[:, which]) / width**2
-    return np.nan_to_num(np.maximum(seen, 0.0), nan=0.0).max(axis=0)
 
 
 def _off_prediction(probe: TensorProbe, flat: np.ndarray, step: np.ndarray, value: np.ndarray, error: np.ndarray,
@@ -243,6 +211,12 @@ def crossed_bound(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: 
     if rows < 2:
         return judged
     central = ladder.central
+    if wider is not None:  # kinks crossed wider, and no sign of the smooth model on these rows
+        on_central = (judged.status == FAIL) & wider & (judged.estimate.value == central.value)
+        if ladder.sides_vanish is not None:
+            on_central &= ~ladder.sides_vanish
+        blind = np.flatnonzero(on_central)
+        judged = _undecided(judged, blind[~smooth_rows(ladder, blind)], CROWDED)
     crossed = ladder.left_crossed | ladder.right_crossed
     which = np.flatnonzero((judged.status == FAIL) & crossed & (judged.estimate.value == central.value))
     if which.size == 0:
