@@ -26,15 +26,6 @@ show the loss in its Taylor range.
   2.1e26; the chain judged on the rounding measured along p2[1] ran from steps of 0.06 to 8,
   its moves 2e11 to 9e11 at every step (no larger 128 times wider), and read 1.4e11 +- 4.5e11
   against a true 2.56e13. Never fail.
-- steep-570211 and steep-580637 (buggy elsewhere, fresh seed ranges): sines of period 2.7e-4
-  (and finer) beside losses of 1.6e27 and 5.9e13. A ladder of steps 2e-3 to 1.2e-4 moved the
-  loss by the sine's amplitude at every step, 6 times the smallest row's move 16 times wider
-  (beyond the old allowance, twice it at every row 8 or more times wider), and read -9.3e15 +- 3.7e16
-  against a true 3.0e17 (570211's p0); 580637's p2 failed so at a moved point. From the
-  smallest row that moved the loss by m >= 3 roundings e, a row r >= 4 times wider must now
-  move it by r (m - 2e) - 2e at least (the Taylor range's least growth). The planted bugs
-  still fail, and so does steep-521082's dropped gradient on a quadratic, whose moves double
-  with the step.
 
 Reference: mpmath at 50 digits through the adversarial generator (tests/adversarial: every
 piece's derivative from the standard tables, checked against mpmath's own differentiation of
@@ -101,26 +92,3 @@ def test_no_warning_leaks_from_the_rounding_measured_along_a_coordinate():
     from gradprobe's own code on the user's console reads as the user's bug."""
     o = _judged(73406)
     assert o["own_warnings"] == [], o["own_warnings"]
-
-
-# Buggy targets whose planted bug is in another tensor: the sine's tensor must not fail.
-BESIDE_A_BUG = ((570211, "p0"), (580637, "p2"))
-
-
-@pytest.mark.parametrize("seed, tensor", BESIDE_A_BUG, ids=[f"steep-{s}" for s, _ in BESIDE_A_BUG])
-def test_a_fine_sine_beside_a_planted_bug_is_no_failure(seed, tensor):
-    o = _judged(seed)
-    assert not o["correct"] and o["expect"][tensor] == "quiet"
-    assert not o["false_alarm"] and o["status"][tensor] in ("pass", "inconclusive"), (seed, o["status"])
-    assert o["found"], (seed, o["status"], o["expect"])
-
-
-def test_a_dropped_gradient_whose_moves_grow_with_the_step_still_fails():
-    """steep-521082: p3's gradient (of a square) left out beside a far larger loss; the chain's
-    moves grow from 0.7 to 43 roundings as its steps grow 128-fold, doubling with the step from
-    2.5 roundings on: the Taylor range, and the gradient fails at its tensor's own scale."""
-    from adversarial import judge
-
-    o = judge("steep", 521082)
-    assert o["crash"] is None and not o["false_alarm"]
-    assert o["status"]["p3"] == "fail", (o["status"], o["expect"])

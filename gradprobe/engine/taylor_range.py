@@ -23,25 +23,19 @@ from .verdict import UNSETTLED, Judged
 
 UNSCALED_SPAN = 8.0  # rows this many times the smallest step or wider ...
 UNSCALED_GROWTH = 2.0  # ... moving the loss by at most twice the smallest row's move: not its Taylor range
-RESOLVED_MOVE = 3.0  # a row moving the loss by this many roundings or more ...
-SHORT_SPAN = 4.0  # ... predicts the least move of every row this many times wider or more
 
 
 def unscaled_moves(probe: TensorProbe, flat: np.ndarray, ladder: Ladder, judged: Judged) -> Judged:
     """``judged`` with failures undecided (UNSETTLED, so a retry goes to smaller steps) where
     the ladder's rows moved the loss beyond two values' rounding somewhere, yet no row at
     least UNSCALED_SPAN times the smallest step moved it by more than UNSCALED_GROWTH times
-    the smallest row's move (or than two roundings, where that is larger), or some row r >= 4
-    times wider than the smallest that moved it by three roundings moved it by less than the
-    Taylor range allows (:func:`moves_unscaled`): the coordinate
+    the smallest row's move (or than two roundings, where that is larger): the coordinate
     moves the loss by more than rounding can, and by no more at wider steps
     (:func:`moves_unscaled`). steep-73003: sines of period 3e-6 to 4e-6 beneath steps of
     1.2e-4 to 7.6e-6 moved a loss of 7.9e29 by about 1e16 at every step; the sides' mean read
     8.5e19 +- 2.1e21 against a true -1.85e22 and failed a correct gradient. steep-89576: a
     sine of amplitude 1.5 roundings beneath steps of 6.1e-5 to 3.8e-6, moves of 1 to 2.3
-    roundings at every step, read 5e6 +- 2.4e7 against a true 1.98e8. steep-570211: a sine of
-    period 2.7e-4 beneath steps of 2e-3 to 1.2e-4 beside a loss of 1.6e27, its moves 6 times
-    the smallest row's at 16 times its step, read -9.3e15 +- 3.7e16 against a true 3.0e17."""
+    roundings at every step, read 5e6 +- 2.4e7 against a true 1.98e8."""
     if is_narrow(probe.compute_dtype) or ladder.pairs is None:
         return judged
     which = np.flatnonzero(judged.status == FAIL)
@@ -68,11 +62,7 @@ def moves_unscaled(moved: np.ndarray, noise: np.ndarray, h: np.ndarray) -> np.nd
     slope whose moves stay within four roundings at every step is what the rows could still
     be: the withheld failures are those whose loss moves by more than rounding can, and by no
     more at steps 8 to 64 times wider, where a bug resolved by the loss would move it in
-    proportion. Nor is a column in the Taylor range where, from its smallest row that moved
-    the loss by m >= 3 e, a row r >= 4 times wider moved it by less than r (m - 2 e) - 2 e:
-    the larger one-sided move there, |f'| h + |f''| h**2 / 2 + ..., grows at least in
-    proportion to the step, whatever part each term has (a sine far finer than the steps
-    moves it by its amplitude at any step, some rows more than others)."""
+    proportion."""
     with np.errstate(invalid="ignore", over="ignore"):
         taken = np.isfinite(moved) & np.isfinite(h)
         h = np.where(taken, h, np.inf)
@@ -82,14 +72,6 @@ def moves_unscaled(moved: np.ndarray, noise: np.ndarray, h: np.ndarray) -> np.nd
         wide = taken & (h >= UNSCALED_SPAN * step * (1 - 1e-9))
         reach = UNSCALED_GROWTH * np.maximum(smallest, 2.0 * rounding)
         held = np.all(np.where(wide, moved <= reach, True), axis=0)
-        # From the smallest row that moved the loss by RESOLVED_MOVE roundings, every row r
-        # times wider (r >= SHORT_SPAN) moves it by at least r (m - 2 e) - 2 e in the Taylor range.
-        resolved = taken & (moved >= RESOLVED_MOVE * noise)
-        first = np.argmin(np.where(resolved, h, np.inf), axis=0)
-        m0, h0, e0 = moved[first, cols], h[first, cols], noise[first, cols]
-        r = h / h0
-        short = taken & (r >= SHORT_SPAN * (1 - 1e-9)) & (moved < r * (m0 - 2.0 * e0) - 2.0 * noise)
-        held |= resolved.any(axis=0) & short.any(axis=0)
         seen = np.any(taken & (moved > 2.0 * rounding), axis=0)
         return held & wide.any(axis=0) & seen
 
