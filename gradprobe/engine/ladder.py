@@ -168,10 +168,10 @@ def _receding(
     """``error`` widened where the quotients have moved away from the estimate ``best`` row
     after row, each move in the same direction as the one before, and now lie beyond its
     bound: RECEDING_ROWS times running (this row's included) with each move no larger than
-    the one before (they converge, to another value), or AWAY_ROWS times running whatever
-    the moves' sizes (``away_rows``; None: not counted). A sound estimate has the quotients close in on it as the step shrinks;
-    rounding moves them at random, by more the smaller the step, and seldom one way three
-    rows running. Quotients heading steadily elsewhere, even by less than the rounding noise
+    the one before (they converge, to another value), or ``away_rows`` times running
+    whatever the moves' sizes (None: not counted). A sound estimate has the quotients close
+    in on it as the step shrinks; rounding moves them at random, by more the smaller the
+    step, and seldom one way three rows running. Quotients heading steadily elsewhere, even by less than the rounding noise
     allows (which :func:`_checked_by_next_row` leaves alone), show that the rows the estimate
     was taken from were not yet where its model holds (a corner or kink between their steps
     and the point; kinks-500818: Huber corners at 1e-7 to 1e-6 beside the point, the
@@ -252,14 +252,15 @@ def tableau(quotients: np.ndarray, noise: np.ndarray, ratio: float, order_step: 
     runs = (np.zeros(n, dtype=int), np.zeros(n, dtype=int))  # rows in a row whose quotient lay farther from best
     # The central tableau's own checks on the rows after an estimate; a side's quotients
     # (first order) keep the checks they had (a side crossing corners is the kink logic's).
-    away_rows = AWAY_ROWS if order_step == 2 else None
+    central = order_step == 2
+    away_rows = AWAY_ROWS if central else None
     with np.errstate(invalid="ignore", over="ignore"):
         for k in range(1, rows):
             error = _checked_by_next_row(quotients[k], quotients[k - 1], noise[k] + noise[k - 1],
                                          best, error, 1.0 / base, at_rate[k])
             error, runs = _receding(quotients[k], quotients[k - 1], quotients[k - 2] if k >= 2 else None,
                                     best, error, runs, away_rows)
-            for j in range(1, k) if away_rows is not None else ():  # each extrapolated column's next entry
+            for j in range(1, k if central else 1):  # each extrapolated column's next entry
                 error = _column_checked(entries[k][j], entries[k - 1][j], carried[k][j] + carried[k - 1][j],
                                         best, error, base ** -(j + 1))
             for j in range(k + 1):
