@@ -43,7 +43,7 @@ from .probe import TensorProbe
 from .refine import Taken, pairs_reusing
 from .verdict import NOISE, Judged
 from .wide_steps import (STEP_GROWTH, WIDE_FIRST, WIDE_LAST, WIDE_NOISE, WIDE_ROWS, WIDE_SAFETY,
-                         plain_windowed, shrinking, wide_table, windowed)
+                         agree, plain_windowed, shrinking, wide_table, windowed)
 
 NARROW_ROWS = 3  # rows below the first wide step (h/8, h/16, h/32 of the first step h)
 
@@ -123,8 +123,9 @@ def side_estimates(probe: TensorProbe, flat: np.ndarray, taken: list[Taken]) -> 
     limit = np.maximum(np.abs(probe.x[flat].astype(np.float64)), probe.x_scale)
     below = first * 2.0**WIDE_FIRST
     small_r, small_l = smaller_quotients(probe, flat, below, taken)
-    return (_side(right, h_plus, 2.0 * noise / h_plus, limit, small_r),
-            _side(left, h_minus, 2.0 * noise / h_minus, limit, small_l))
+    return tuple(Estimate.better(_side(q, s, 2.0 * noise / s, limit, small),  # type: ignore[return-value]
+                                 _side_extrapolated(q, s, 2.0 * noise / s, limit, small))
+                 for q, s, small in ((right, h_plus, small_r), (left, h_minus, small_l)))
 
 
 def smaller_quotients(probe: TensorProbe, flat: np.ndarray, below: np.ndarray,
@@ -175,6 +176,68 @@ def _side(q: np.ndarray, s: np.ndarray, e: np.ndarray, limit: np.ndarray,
             bound = np.where(follows & np.isfinite(bound), bound, np.inf)
             take = bound < error
             value = np.where(take, q[i2], value)
+            error = np.where(take, bound, error)
+    return Estimate(value, error)
+
+
+def _side_extrapolated(q: np.ndarray, s: np.ndarray, e: np.ndarray, limit: np.ndarray,
+                       smaller: list[list[tuple[float, float]]]) -> Estimate:
+    """One side's estimate from its quotients ``q`` at steps ``s`` (as :func:`_side` takes
+    them), extrapolated: where the side's first-order term is seen above rounding, taking
+    Q(s) itself leaves c1 s in the bound, far above what the side resolves (a quadratic piece
+    beside a Huber corner on the other side: Q is f' + c1 s out to the params' scale).
+
+    Windows of four steps s1 < s2 < s3 < s4 (each about twice the last, within ``limit``).
+    Q = f' + c1 s + c2 s**2 + ...: the differences of consecutive quotients follow a
+    first-order term, seen beyond rounding at the window's widest, each between a quarter and
+    SHRINK_LIMIT of the next larger one (they halve as the step halves) and in the same
+    direction. Richardson's R12 = (s2 Q1 - s1 Q2) / (s2 - s1) = f' - c2 s1 s2 + ...; c2 is
+    measured twice, from R12 - R23 and from R23 - R34, each with its rounding added, and the two
+    must agree (to a factor of two, :func:`.wide_steps.agree`); the larger is taken WIDE_SAFETY
+    times, plus WIDE_NOISE times R12's own rounding. Every smaller step's quotient on that side
+    lies as close to the estimate as the window's smallest does, within its rounding and the
+    bound (a kink nearer than the window would move it)."""
+    rows, n = q.shape
+    value = q[0].copy()
+    error = np.full(n, np.inf)
+
+    def richardson(i: int) -> tuple[np.ndarray, np.ndarray]:
+        a, b = s[i], s[i + 1]
+        return (b * q[i] - a * q[i + 1]) / (b - a), (b * e[i] + a * e[i + 1]) / (b - a)
+
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        for w in range(rows - 3):
+            i = list(range(w, w + 4))
+            signed = [q[i[k + 1]] - q[i[k]] for k in range(3)]
+            noise = [e[i[k]] + e[i[k + 1]] for k in range(3)]
+            follows = np.all(np.isfinite(q[w:w + 4]), axis=0)
+            follows &= shrinking(signed, noise)
+            for k in range(2):  # nor faster than fourfold (a first-order term halves)
+                room = 2.0 * WIDE_NOISE * (noise[k] + noise[k + 1])
+                follows &= np.abs(signed[k]) >= np.abs(signed[k + 1]) / 4.0 - room
+            follows &= np.abs(signed[2]) > 2.0 * WIDE_NOISE * noise[2]  # the term is seen
+            for a, b in zip(i[:-1], i[1:]):
+                follows &= s[b] >= STEP_GROWTH * s[a]
+            follows &= s[i[-1]] <= limit
+            (r12, n12), (r23, n23), (r34, n34) = richardson(i[0]), richardson(i[1]), richardson(i[2])
+            s1, s2, s3, s4 = (s[k] for k in i)
+            wa, wb = s2 * (s3 - s1), s3 * (s4 - s2)
+            c2a, c2b = (r12 - r23) / wa, (r23 - r34) / wb
+            slack_a, slack_b = (n12 + n23) / wa, (n23 + n34) / wb
+            follows &= agree(c2a, slack_a, c2b, slack_b)
+            c2 = np.maximum(np.abs(c2a) + slack_a, np.abs(c2b) + slack_b)
+            bound = WIDE_SAFETY * c2 * s1 * s2 + WIDE_NOISE * n12
+            near = np.abs(q[i[0]] - r12)
+            for j in range(w):
+                follows &= (s[j] < s1) & (np.abs(q[j] - r12) <= near + WIDE_NOISE * e[j] + bound)
+            for c in np.flatnonzero(follows):
+                for qj, ej in smaller[c]:
+                    if not abs(qj - r12[c]) <= near[c] + WIDE_NOISE * ej + bound[c]:
+                        follows[c] = False
+                        break
+            bound = np.where(follows & np.isfinite(bound), bound, np.inf)
+            take = bound < error
+            value = np.where(take, r12, value)
             error = np.where(take, bound, error)
     return Estimate(value, error)
 

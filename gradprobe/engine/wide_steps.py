@@ -135,7 +135,7 @@ def windowed_at(d: np.ndarray, s: np.ndarray, e: np.ndarray, apart: np.ndarray, 
             # each moved by at most WIDE_NOISE times its own rounding; a corner or a kink
             # between the steps breaks that (a corner where only f'' jumps leaves a term in
             # s in every quotient: c4a is then 8 times c4b).
-            follows &= _agree(c4a, slack_a, c4b, slack_b)
+            follows &= agree(c4a, slack_a, c4b, slack_b)
             c4a, c4b = np.abs(c4a) + slack_a, np.abs(c4b) + slack_b
             bound = WIDE_SAFETY * np.maximum(c4a, c4b) * s1**2 * s2**2 + WIDE_NOISE * n12
             # Every smaller step's quotient lies at least as close to the estimate as the
@@ -152,7 +152,7 @@ def windowed_at(d: np.ndarray, s: np.ndarray, e: np.ndarray, apart: np.ndarray, 
     return Estimate(value, error), top
 
 
-def _agree(a: np.ndarray, slack_a: np.ndarray, b: np.ndarray, slack_b: np.ndarray) -> np.ndarray:
+def agree(a: np.ndarray, slack_a: np.ndarray, b: np.ndarray, slack_b: np.ndarray) -> np.ndarray:
     """Two measures of one quantity agree to a factor of two once each may move by WIDE_NOISE
     times its rounding (``slack_a``, ``slack_b``): of one sign, or one within its rounding of 0."""
     room_a, room_b = WIDE_NOISE * slack_a, WIDE_NOISE * slack_b
