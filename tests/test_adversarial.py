@@ -158,3 +158,24 @@ def test_richardson_without_recheck_agrees_with_mpmath(category, seed):
     assert o["crash"] is None, o["crash"]
     assert not o["false_alarm"], (o["status"], o["expect"])
     assert not o["expect_fail"] or o["found"], (o["status"], o["expect"])
+
+
+def test_a_bug_that_leaves_every_gradient_bit_for_bit_expects_no_failure():
+    """steep-820221: the planted bug scales p0's gradient by 1.01, but every element of it is
+    exactly 0 (a softplus's derivative written as 0.5 (1 + tanh(5000 u)), absorbed far in its
+    tail), so the buggy backward returns what the correct one does. p1, which the bug does
+    not touch, is a product of 1 - tanh(v)**2 near saturation, off mpmath by more than the
+    threshold through its own rounding: neither tensor is a bug gradprobe must fail (its
+    correct twin expects them quiet), while a tensor the bug changes still must."""
+    from adversarial import judged_cleanly
+    from adversarial.bugs import make_case
+    from adversarial.run import _gradients, _untouched, load
+
+    case = make_case("steep", 820221)
+    ns = load(case)
+    assert _untouched(case, _gradients(ns, *ns["setup"]())) == {"p0", "p1"}
+    o = judged_cleanly("steep", 820221)
+    assert "fail" not in o["expect"].values() and not o["missed"], o["expect"]
+    # a factor bug on a gradient it does change keeps its expectation (kinks-830535's p2)
+    o = judged_cleanly("kinks", 830535)
+    assert o["expect"]["p2"] == "fail" and o["status"]["p2"] == "fail"

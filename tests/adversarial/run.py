@@ -15,7 +15,10 @@ Expected verdicts, decided honestly per tensor:
   error is below a third of the threshold everywhere must not fail (else a false alarm), but
   for the planted bug's own tensor whose every failure was found at a point moved off a kink
   (gradprobe's second look): the backward is wrong there, only not at the point itself (a
-  dropped term or a chain factor where a ReLU is off), so that is a finding, not an alarm;
+  dropped term or a chain factor where a ReLU is off), so that is a finding, not an alarm; a
+  tensor whose gradient the buggy backward returns bit for bit as the correct one does is
+  judged as in the correct target (the bug did not reach it: an error there is the user's own
+  rounding, which the correct twin expects quiet);
 - a crash is any exception from gradprobe on these valid targets (exit 2 or 3 on the CLI);
 - ``resolves``: a correct target whose every coordinate would resolve an error of the
   threshold's size by the same rule (where not, an inconclusive verdict can be the dtype's
@@ -113,8 +116,12 @@ def verify(case: Case, ref, rng) -> list[str]:
     return out
 
 
-def expectations(case: Case, ref, grads: dict, threshold: float) -> dict[str, str]:
-    """Per tensor: 'fail' (must fail), 'quiet' (must not fail), or 'any'."""
+def expectations(case: Case, ref, grads: dict, threshold: float,
+                 untouched: frozenset[str] = frozenset()) -> dict[str, str]:
+    """Per tensor: 'fail' (must fail), 'quiet' (must not fail), or 'any'. ``untouched``: the
+    tensors whose gradient the bug leaves bit for bit as the correct version gives it; they are
+    judged as the correct version is (never 'fail': rounding in the user's own backward, as a
+    1 - tanh**2 near saturation, is not the bug)."""
     floors, u, out = _floors(ref), unit(case.dtype), {}
     for n, g in ref.grads.items():
         idx = ref.evaluated[n]
@@ -129,7 +136,7 @@ def expectations(case: Case, ref, grads: dict, threshold: float) -> dict[str, st
         rel = delta / np.maximum(np.maximum(np.abs(got), np.abs(true)), floor)
         radius = _flat(ref.radius[n], idx)
         resolvable = delta * radius >= 100 * u * ref.magnitude
-        if case.correct or case.bug.tensor != n and np.all(rel < threshold / 3):
+        if case.correct or n in untouched or case.bug.tensor != n and np.all(rel < threshold / 3):
             out[n] = "quiet" if np.all(rel < threshold / 3) or case.correct else "any"
         elif np.any((rel > 1.5 * threshold) & resolvable):
             out[n] = "fail"
@@ -150,6 +157,18 @@ def resolves_threshold(case: Case, ref, threshold: float) -> bool:
         if np.any(error * _flat(ref.radius[n], idx) < 100 * u * ref.magnitude):
             return False
     return True
+
+
+def _untouched(case: Case, grads: dict[str, np.ndarray]) -> frozenset[str]:
+    """The tensors whose gradient a buggy case's backward gives bit for bit as its correct
+    version's does (none for a correct case)."""
+    if case.correct:
+        return frozenset()
+    ns = load(case.with_bug(None))
+    with np.errstate(all="ignore"):
+        right = _gradients(ns, *ns["setup"]())
+    return frozenset(n for n, g in grads.items()
+                     if n in right and g.shape == right[n].shape and np.array_equal(g, right[n], equal_nan=True))
 
 
 def _found_off_the_point(t) -> bool:
@@ -197,7 +216,7 @@ def judge(category: str, seed: int, /, **options) -> dict:
     out["inconclusive"] = "inconclusive" in status.values()
     if out["unverified"]:
         return out
-    expect = expectations(case, ref, grads, report.threshold)
+    expect = expectations(case, ref, grads, report.threshold, _untouched(case, grads))
     if case.bug is not None and expect.get(case.bug.tensor) == "quiet" and _found_off_the_point(
             report.tensor(case.bug.tensor)):
         expect[case.bug.tensor] = "any"
