@@ -165,19 +165,31 @@ def _side(q: np.ndarray, s: np.ndarray, e: np.ndarray, limit: np.ndarray,
             follows &= (s[i2] >= STEP_GROWTH * s[i1]) & (s[i3] >= STEP_GROWTH * s[i2]) & (s[i3] <= limit)
             trunc = (np.abs(upper) + e[i2] + e[i3]) * s[i2] / (s[i3] - s[i2])
             bound = WIDE_SAFETY * trunc + WIDE_NOISE * e[i2]
-            near = np.abs(q[i1] - q[i2])
-            for j in range(w):
-                follows &= (s[j] < s[i1]) & (np.abs(q[j] - q[i2]) <= near + WIDE_NOISE * e[j] + bound)
-            for c in np.flatnonzero(follows):
-                for qj, ej in smaller[c]:
-                    if not abs(qj - q[i2, c]) <= near[c] + WIDE_NOISE * ej + bound[c]:
-                        follows[c] = False
-                        break
+            follows &= _continued(q, s, e, w, q[i2], bound, smaller, follows)
             bound = np.where(follows & np.isfinite(bound), bound, np.inf)
             take = bound < error
             value = np.where(take, q[i2], value)
             error = np.where(take, bound, error)
     return Estimate(value, error)
+
+
+def _continued(q: np.ndarray, s: np.ndarray, e: np.ndarray, w: int, estimate: np.ndarray, bound: np.ndarray,
+               smaller: list[list[tuple[float, float]]], follows: np.ndarray) -> np.ndarray:
+    """Per coordinate, of those ``follows`` holds for: every quotient on the side at a step
+    below the window starting at row ``w`` (the wide rows below it, with smaller steps, and
+    the ``smaller`` ones the ladders took) lies as close to ``estimate`` as the window's
+    smallest does, within its own rounding and ``bound`` (a kink on that side nearer than the
+    window would move it)."""
+    near = np.abs(q[w] - estimate)
+    ok = follows.copy()
+    for j in range(w):
+        ok &= (s[j] < s[w]) & (np.abs(q[j] - estimate) <= near + WIDE_NOISE * e[j] + bound)
+    for c in np.flatnonzero(ok):
+        for qj, ej in smaller[c]:
+            if not abs(qj - estimate[c]) <= near[c] + WIDE_NOISE * ej + bound[c]:
+                ok[c] = False
+                break
+    return ok
 
 
 def _side_extrapolated(q: np.ndarray, s: np.ndarray, e: np.ndarray, limit: np.ndarray,
@@ -227,14 +239,7 @@ def _side_extrapolated(q: np.ndarray, s: np.ndarray, e: np.ndarray, limit: np.nd
             follows &= agree(c2a, slack_a, c2b, slack_b)
             c2 = np.maximum(np.abs(c2a) + slack_a, np.abs(c2b) + slack_b)
             bound = WIDE_SAFETY * c2 * s1 * s2 + WIDE_NOISE * n12
-            near = np.abs(q[i[0]] - r12)
-            for j in range(w):
-                follows &= (s[j] < s1) & (np.abs(q[j] - r12) <= near + WIDE_NOISE * e[j] + bound)
-            for c in np.flatnonzero(follows):
-                for qj, ej in smaller[c]:
-                    if not abs(qj - r12[c]) <= near[c] + WIDE_NOISE * ej + bound[c]:
-                        follows[c] = False
-                        break
+            follows &= _continued(q, s, e, w, r12, bound, smaller, follows)
             bound = np.where(follows & np.isfinite(bound), bound, np.inf)
             take = bound < error
             value = np.where(take, r12, value)
