@@ -110,9 +110,10 @@ def main() -> None:
     parser.add_argument("--pairs", type=int, default=3)
     parser.add_argument("--only", choices=("regression", "small", "dense"))
     args = parser.parse_args()
-    import gradprobe
-
-    compileall.compile_dir(str(Path(gradprobe.__file__).parent), quiet=1)
+    # The tree the fresh processes import (PYTHONPATH=ROOT), byte-compiled as ``pip install``
+    # does: with PYTHONDONTWRITEBYTECODE set they would compile every module on every start
+    # (not the tree ``import gradprobe`` finds here, which may be another checkout's).
+    compileall.compile_dir(str(ROOT / "gradprobe"), quiet=1)
     print(f"{os.cpu_count()} cores, load average {os.getloadavg()[0]:.1f}")
     for name in ("regression", "small"):
         if args.only in (None, name):

@@ -98,9 +98,7 @@ def end_to_end(label: str, repeats: int) -> None:
     on every start)."""
     import compileall
 
-    import gradprobe
-
-    compileall.compile_dir(str(Path(gradprobe.__file__).parent), quiet=1)
+    compileall.compile_dir(str(HERE.parent / "gradprobe"), quiet=1)  # the tree the processes import
     case = make_case(*SIZES[label])
     n = probe(case.forward, case.backward, case.params, case.inputs).evaluations
     ours = [sys.executable, "-m", "gradprobe", "check", f"bench/overhead_cases.py:{label}", "-q"]
