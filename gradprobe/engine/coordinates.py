@@ -40,6 +40,7 @@ from .steep_noise import on_measured_rounding
 from .richardson import first_steps, joined, rows_of, settled, two_rows_settle
 from ..common.roundoff import is_narrow
 from .ladder_verdicts import ladder_verdicts
+from .measured_failures import failures_on_measured_rounding
 from .verdict import NOISE, Judged, judge_plain, scaleless
 
 RECHECK_LIMIT = 400  # coordinates per tensor re-estimated on a ladder
@@ -139,6 +140,10 @@ def _central(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
     if todo.size:
         judged = judged.merged(todo, ladder_verdicts(probe, flat[todo], start, taken=taken))
     judged = on_measured_rounding(probe, flat, judged, taken)  # float64: the rounding seen along it
+    if todo.size:  # float64 failures there stand where the ladders fail them on that rounding too
+        judged = judged.merged(todo, failures_on_measured_rounding(
+            probe, flat[todo], judged.pick(todo), start, taken,
+            lambda view, where, steps, again: ladder_verdicts(view, where, steps, taken=again)))
     judged = rounding_only(probe, flat, judged, taken)  # a loss moved by rounding alone, everywhere
     judged = unabsorbed(probe, flat, _widened(probe, flat, judged, taken), first)
     judged = moved_below(probe, flat, judged, taken)  # a loss unmoved by the steps taken, moved below them
