@@ -22,3 +22,14 @@ def test_kinks_830535_fails_only_the_planted_bug():
     o = judged_cleanly("kinks", 830535)
     assert not o["false_alarm"], (o["status"], o["expect"])
     assert o["status"]["p2"] == "fail" and o["found"], o["status"]
+
+
+def test_a_failure_the_ladders_cannot_speak_to_stands():
+    """steep-720310: a 20% element bug beside a log's pole, failed by the chain on the
+    rounding measured along the coordinate after the ladders were left undecided for rounding;
+    judged again on that rounding the ladders are still undecided for rounding, which says
+    nothing against the failure: it stands, located."""
+    from adversarial import judged_cleanly
+
+    o = judged_cleanly("steep", 720310)
+    assert o["found"] and o["located"], (o["status"], o["expect"])
