@@ -35,17 +35,18 @@ from collections.abc import Callable
 
 import numpy as np
 
-from ..common.status import FAIL, INCONCLUSIVE, PASS
-from .own_judged import _renoised, _with_own
+from ..common.status import FAIL, INCONCLUSIVE, KINK, PASS
+from .own_judged import _OwnRounding, _renoised, _with_own
 from .probe import TensorProbe
 from .refine import Taken
 from .steep_noise import CHANGE_ULPS, measured_rounding
-from .verdict import NOISE, UNSETTLED, Judged
+from .verdict import NOISE, SIGNIFICANCE, UNSETTLED, Judged
 
 MEASURED = 32  # failed coordinates per tensor measured at most
 BATCHES = (1, 1, 2, 4, 8, 16)  # the most decisive first, until a failure stands
 RATIO = 2.0  # the measured rounding is used where it is at most half the assumed figure
 SPAN = 64.0  # the measured rows lie this many natural moves from the point
+JUMP_UNITS = 12.0  # the jump test's step: a jump of the failure's size is this many one-sided roundings
 
 
 def failures_on_measured_rounding(
@@ -104,7 +105,8 @@ def _again(
     # Undecided for rounding alone says nothing against the failure: the ladders cannot speak
     # there (a steep coordinate the chain on measured rounding failed, steep-720310).
     silent = (redo.status == INCONCLUSIVE) & np.array([r == NOISE for r in redo.reasons], dtype=bool)
-    withheld = np.flatnonzero((redo.status != FAIL) & ~silent)
+    withheld = np.flatnonzero((redo.status != FAIL) & ~silent
+                               & _jump_seen(view, where, widest, redo, judged.estimate.value[failed]))
     if withheld.size:
         mine = redo.pick(withheld)
         status = np.where(mine.status == PASS, INCONCLUSIVE, mine.status).astype(mine.status.dtype)
@@ -112,6 +114,34 @@ def _again(
                         for s, r in zip(status.tolist(), mine.reasons))
         judged = judged.merged(failed[withheld], Judged(status, mine.estimate, reasons, mine.noise_limited))
     return judged, withheld.size < failed.size
+
+
+def _jump_seen(view: _OwnRounding, where: np.ndarray, widest: np.ndarray, redo: Judged,
+               before: np.ndarray) -> np.ndarray:
+    """Per coordinate: not a kink verdict, or one a jump at the point bears out. The kink
+    logic reads corners crossed among the steps (f'' jumps, f' continuous: a Huber loss's) as
+    kinks too, and on the measured rounding it sees more of them: a kink verdict withholds
+    the failure only where one pair, at the step where the measured rounding leaves a jump of
+    the failure's size (the analytic value's distance from ``before``, the estimate it failed
+    on) plain (JUMP_UNITS of its one-sided rounding), shows the one-sided quotients apart
+    beyond SIGNIFICANCE times twice their rounding and the threshold (test_grounds: Huber
+    corners 3.9e-8 either side of the point, a value 1e-4 off)."""
+    out = np.ones(where.size, dtype=bool)
+    kinked = np.flatnonzero(redo.status == KINK)
+    if kinked.size == 0:
+        return out
+    f = where[kinked]
+    a = view.a[f]
+    rounding = np.array([view.rounding[int(k)][0] for k in f])
+    with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        step = np.minimum(JUMP_UNITS * 2.0 * rounding / np.abs(a - before[kinked]), widest[kinked] / 16.0)
+    step = np.where(np.isfinite(step) & (step > 0), step, widest[kinked] / 16.0)
+    p = view.pairs(f, step)
+    right, left = p.sides(view.f0)
+    noise = 2.0 * p.noise / np.minimum(p.h_plus, p.h_minus)
+    with np.errstate(invalid="ignore"):
+        out[kinked] = np.abs(right - left) > SIGNIFICANCE * 2.0 * noise + view.tolerance(f, a)
+    return out
 
 
 __all__ = ["failures_on_measured_rounding"]
