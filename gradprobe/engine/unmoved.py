@@ -41,6 +41,7 @@ RESOLVED = 16.0  # the larger of two steps changes the loss by this many roundin
 ALIKE = 0.5  # both sides' changes: the smaller at least this share of the larger
 AGREE = 0.1  # relative agreement of the slopes (and of each change with its prediction)
 UNITS = 4.0  # rounding units of the loss each change may miss its prediction by
+EDGE_MARGIN = 2.0  # below a domain edge, the chain starts this many times below the widest finite step
 
 
 def moved_at_own_scale(
@@ -69,6 +70,18 @@ def moved_at_own_scale(
     first_up, first_down = first.f_plus[moved] - probe.f0, probe.f0 - first.f_minus[moved]
     slope, bound = _slopes(probe, flat[todo], size, unit, (first_up, first_down,
                            first.h_plus[moved], first.h_minus[moved]))
+    # A domain edge within the params' scale (a log's pole 2.5e-4 away) shrank the first pair:
+    # no ladder from there. The chain of halving steps on the rounding measured along the
+    # coordinate (steep_noise.chain_estimate) starts EDGE_MARGIN times below the step at which
+    # the loss was finite on both sides.
+    h_plus, h_minus = first.h_plus[moved], first.h_minus[moved]
+    edge = np.flatnonzero(~np.isfinite(slope) & ((np.abs(h_plus - size) > 1e-6 * size)
+                                                 | (np.abs(h_minus - size) > 1e-6 * size)))
+    if edge.size:
+        top = np.minimum(h_plus[edge], h_minus[edge]) / EDGE_MARGIN
+        chain = chain_estimate(probe, flat[todo[edge]], top)
+        seen = np.isfinite(chain.error)
+        slope[edge[seen]], bound[edge[seen]] = chain.value[seen], chain.error[seen]
     found = np.isfinite(slope)
     # A slope its ladder shows but whose bound (rounding taken as UNITS units of eps |f|)
     # does not resolve: the chain of halving steps with the rounding measured along it
