@@ -46,6 +46,7 @@ MEASURED = 32  # failed coordinates per tensor measured at most
 BATCHES = (1, 1, 2, 4, 8, 16)  # the most decisive first, until a failure stands
 RATIO = 2.0  # the measured rounding is used where it is at most half the assumed figure
 SPAN = 64.0  # the measured rows lie this many natural moves from the point
+SPACINGS = 8.0  # a natural move is at least this many spacings of x (the rows' moves then at least one)
 JUMP_UNITS = 12.0  # the jump test's step: a jump of the failure's size is this many one-sided roundings
 
 
@@ -92,7 +93,9 @@ def _again(
     # of it, where a kink close to the point adds at most about that much to them.
     with np.errstate(over="ignore", divide="ignore"):
         natural = CHANGE_ULPS * probe.eps * max(abs(probe.f0), 1e-300) / np.maximum(np.abs(probe.a[where]), 1e-300)
-    rounding = measured_rounding(probe, where, np.minimum(widest, SPAN * natural))
+    # ... and moves the params' grid resolves (the row's points at least a spacing of x apart)
+    grid = SPACINGS * np.spacing(np.abs(probe.x[where].astype(np.float64)))
+    rounding = measured_rounding(probe, where, np.minimum(widest, SPAN * np.maximum(natural, grid)))
     assumed = probe.loss_noise(np.full(where.size, probe.f0))
     with np.errstate(invalid="ignore"):
         smaller = np.isfinite(rounding) & (RATIO * rounding <= assumed)
