@@ -208,9 +208,12 @@ def _spread_of_rows(values: np.ndarray, where: np.ndarray, eps: float) -> float:
         # The moves really made are not evenly spaced (x + k delta rounds to the grid): the
         # values are taken at evenly spaced points, the row's own slope across the gap.
         even = np.linspace(p[0], p[-1], p.size)
-        g = f - (f[-1] - f[0]) / (p[-1] - p[0]) * (p - even)
-        fourth = np.diff(g, n=4)
-        worst = max(worst, SPREADS * float(np.sqrt(np.mean(fourth * fourth) / FOURTH_VARIANCE)))
+        with np.errstate(over="ignore", invalid="ignore"):  # losses near the type's range
+            g = f - (f[-1] - f[0]) / (p[-1] - p[0]) * (p - even)
+            fourth = np.diff(g, n=4)
+            top = float(np.max(np.abs(fourth)))
+            rms = top * float(np.sqrt(np.mean((fourth / top) ** 2))) if 0.0 < top < np.inf else top
+        worst = max(worst, SPREADS * rms / float(np.sqrt(FOURTH_VARIANCE)))
     return max(worst, eps * float(np.max(np.abs(values))))
 
 
