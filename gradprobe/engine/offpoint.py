@@ -130,6 +130,7 @@ class SecondLook:
         # Per tensor, the coordinates whose analytic value lies outside the one-sided
         # derivatives at every moved point too: kinks still crowd them there, or it is wrong.
         outside = {name: np.ones(which.size, dtype=bool) for name, (_, which) in kinked.items()}
+        kinked_off = {name: np.zeros(which.size, dtype=bool) for name, (_, which) in kinked.items()}
         for sign in (1.0, -1.0):
             moved = self._prepared(sign, set(kinked))
             if moved is None:
@@ -153,6 +154,9 @@ class SecondLook:
                 agreed[name] &= (there.status == PASS) & _own_size(there, s.resolved_threshold)
                 outside[name] &= (there.status == INCONCLUSIVE) & np.array(
                     [r in OFF_THE_SIDES for r in there.reasons], dtype=bool)
+                # a kink again at a moved point, the value beyond the threshold off the
+                # numeric one there (corners where only f'' jumps read as kinks: a Huber loss's)
+                kinked_off[name] |= (there.status == KINK) & (there.rel > s.resolved_threshold)
                 merged = _failed_there(current, which, there)
                 if merged is not None:
                     record.moved = merged
@@ -163,14 +167,18 @@ class SecondLook:
             upgraded = _kinks_borne_out(record.final, which, agreed[name])
             if upgraded is not None:
                 record.moved = upgraded
-        return self._wider(kinked, failed, outside)
+        return self._wider(kinked, failed, {name: outside[name] | (kinked_off[name] & ~agreed[name])
+                                            for name in outside})
 
     def _wider(self, kinked: dict[str, tuple[TensorRecord, np.ndarray]], failed: list[str],
                outside: dict[str, np.ndarray]) -> list[str]:
-        """The coordinates of ``kinked`` still undecided for kinks, or whose analytic value lay
-        outside the one-sided derivatives at both moved points (``outside``, per tensor over
-        its kinked coordinates; kinks-830368: absolute values' residuals down to 1e-9, an
-        element 20% off judged `kink` at the point and undecided so at both), checked at two
+        """The coordinates of ``kinked`` still undecided for kinks, or named in ``outside`` (per
+        tensor over its kinked coordinates): their analytic value lay outside the one-sided
+        derivatives at both moved points (kinks-830368: absolute values' residuals down to
+        1e-9, an element 20% off judged `kink` at the point and undecided so at both), or a
+        moved point judged them `kink` again beyond the threshold and none passed them
+        (kinks-850999: Huber corners at every distance, where only f'' jumps, read as a kink
+        at the point and at a moved point, an element 20% off), checked at two
         points moved WIDE of their tensors' scale (those tensors alone); a plain failure at
         either fails them. ``failed`` with the names of tensors failed here added."""
         still = {}
