@@ -10,6 +10,8 @@ levels (:mod:`.descent`), a closer look where the steps kept crossing kinks
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 
 from ..common.status import INCONCLUSIVE
@@ -23,6 +25,7 @@ from .refine import RATIO, ROWS, Taken, climb, ladder_taken
 from .side_failures import failures_on_own_rounding
 from .sides_apart import judge_sides_apart, one_sided_rows, outside_sides, side_estimate
 from .steps import largest_smooth_step
+from .kink_evidence import crossed as kinks_crossed
 from .verdict import NOISE, OUTSIDE_SIDES, Judged
 
 RETRY_SHIFT = 6  # a second ladder starts 2**6 steps higher (noise) or lower (curvature)
@@ -32,11 +35,23 @@ def ladder_verdicts(
     probe: TensorProbe, flat: np.ndarray, start: np.ndarray, rows: int = ROWS,
     taken: list[Taken] | None = None,
 ) -> Judged:
+    """:func:`_ladder_verdicts`, saying which coordinates' ladders crossed kinks among their
+    steps (``Judged.crossed``: a failure there is looked at just beside the point, sliver.py)."""
+    crossed = np.zeros(flat.size, dtype=bool)
+    judged = _ladder_verdicts(probe, flat, start, rows, taken, crossed)
+    return replace(judged, crossed=crossed)
+
+
+def _ladder_verdicts(
+    probe: TensorProbe, flat: np.ndarray, start: np.ndarray, rows: int,
+    taken: list[Taken] | None, crossed: np.ndarray,
+) -> Judged:
     """Judge ``flat`` on a ladder from ``start``; undecided ones get a second ladder. Pairs
     ``taken`` before (the first pairs) are not evaluated again where a ladder meets them; the
     ladders' own pairs are added to ``taken``."""
     before = [] if taken is None else taken
     ladder = climb(probe, flat, start, rows, taken=before)
+    crossed |= np.logical_or(*kinks_crossed(ladder))
     start = start if ladder.start is None else ladder.start  # restarted below a domain edge
     first = kink_beside(probe, flat, ladder, judged_ladder(probe, flat, ladder, start, before))
     before.append(ladder_taken(flat, start, ladder))
@@ -51,6 +66,7 @@ def ladder_verdicts(
         shifted[which] = largest_smooth_step(probe, flat[again][which], start[again][which],
                                               np.full(which.size, float(RETRY_SHIFT)), before)
     second_ladder = climb(probe, flat[again], shifted, ROWS + 2, taken=before)
+    crossed[again] |= np.logical_or(*kinks_crossed(second_ladder))
     shifted = shifted if second_ladder.start is None else second_ladder.start
     grown = sides_grown(probe, ladder)[again]
     judged = first.merged(again, runaway_passes(kink_beside(

@@ -24,6 +24,8 @@ from .gradients import Gradients, validate
 from .narrow import propagated_rounding
 from .numeric_side import Numerics, code_type, numeric_side
 from .noise import measured_loss_scale, measured_rounding
+from ..common.errors import ProbeError
+from .domain import quiet
 from .preflight import ForwardInfo, call_backward, inspect_forward
 from .probe import TensorProbe
 from .widened import Widened, root_mean_square
@@ -173,6 +175,31 @@ class Point:
         return measured_jitter(self.backward, self.info.grad_output, ws, base, self.seed, grid, compact, keep, ulps,
                                source=None if other is ws else other)
 
+    def beside(self, name: str, flat: np.ndarray, delta: np.ndarray) -> np.ndarray | None:
+        """backward's value for ``name`` at each coordinate ``flat[i]`` moved alone by
+        +``delta[i]`` and by -``delta[i]`` (rows: +, -), on the numeric side's workspace; None
+        where backward fails there or has no value for ``name``. Two backward calls each."""
+        if self.backward is None:
+            return None
+        ws = self.numerics.workspace
+        owner = ws.owners[name]
+        out = np.empty((2, flat.size))
+        try:
+            for i, (k, d) in enumerate(zip(flat.tolist(), delta.tolist())):
+                for row, sign in enumerate((1.0, -1.0)):
+                    moved = owner.copy()
+                    moved.reshape(-1)[k] = moved.reshape(-1)[k] + sign * d
+                    with quiet():  # a moved point: the code's warnings there are not shown
+                        raw = call_backward(self.backward, ws.replacing({name: moved}), self.info.grad_output,
+                                            scratch=False)
+                    g = validate(raw, ws, own_type=True).values.get(name)
+                    if g is None:
+                        return None
+                    out[row, i] = float(np.asarray(g, dtype=np.float64).reshape(-1)[k])
+        except ProbeError:
+            return None
+        return out
+
     def probe(self, name: str, threshold: float) -> TensorProbe:
         n = self.numerics
         self._probed.add(name)
@@ -180,7 +207,8 @@ class Point:
                             self.gradients[name], n.f0, n.dtype, threshold, self.target_scale,
                             loss_scale=self._tensor_loss_scale(name), narrow=self._narrow_probe(name),
                             jitter=lambda: self.jitter(name), own_rounding=lambda: self.coarse_jitter(name),
-                            own_code=self._own_code_probe(name) if n.reference_only else None)
+                            own_code=self._own_code_probe(name) if n.reference_only else None,
+                            beside=lambda flat, delta: self.beside(name, flat, delta))
         if n.reference_only or coarse(probe):
             # A 16-bit backward rounds at u times the terms it combines, as large as the
             # tensor's typical gradient even where one coordinate's is far smaller (a

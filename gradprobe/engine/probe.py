@@ -94,6 +94,7 @@ class TensorProbe:
         jitter: Callable[[], np.ndarray | None] | None = None,
         own_rounding: Callable[[], np.ndarray | None] | None = None,
         own_code: TensorProbe | None = None,
+        beside: Callable[[np.ndarray, np.ndarray], np.ndarray | None] | None = None,
     ) -> None:
         self.evaluator = evaluator
         self.tensor = tensor
@@ -132,6 +133,8 @@ class TensorProbe:
         # 16-bit code whose backward has no float64 run, judged against its float64 forward:
         # the same tensor probed on the 16-bit code itself (reconcile.own_code_reconciled).
         self.own_code = own_code
+        # backward's value at coordinates moved alone just beside the point (point.Point.beside)
+        self.beside = beside
 
     @property
     def size(self) -> int:

@@ -108,11 +108,14 @@ class Judged:
     estimate: Estimate
     reasons: tuple[str | None, ...]
     noise_limited: np.ndarray
+    # Per coordinate: its ladders' quotients crossed kinks among their steps (None: not known)
+    crossed: np.ndarray | None = None
 
     def pick(self, which: np.ndarray) -> Judged:
         """These verdicts at positions ``which`` only."""
         return Judged(self.status[which], self.estimate.pick(which),
-                      tuple(self.reasons[k] for k in which), self.noise_limited[which])
+                      tuple(self.reasons[k] for k in which), self.noise_limited[which],
+                      None if self.crossed is None else self.crossed[which])
 
     def merged(self, which: np.ndarray, other: Judged) -> Judged:
         """These verdicts with positions ``which`` replaced by ``other``'s."""
@@ -127,7 +130,11 @@ class Judged:
         noisy[which] = other.noise_limited
         for k, r in zip(which.tolist(), other.reasons):
             reasons[k] = r
-        return Judged(status, Estimate(value, error), tuple(reasons), noisy)
+        crossed = None
+        if self.crossed is not None or other.crossed is not None:
+            crossed = np.zeros(status.size, dtype=bool) if self.crossed is None else self.crossed.copy()
+            crossed[which] = False if other.crossed is None else other.crossed
+        return Judged(status, Estimate(value, error), tuple(reasons), noisy, crossed)
 
     def left_for(self, which: np.ndarray, reasons: tuple[str, ...]) -> np.ndarray:
         """Per position ``which``: still inconclusive, for one of ``reasons``."""
