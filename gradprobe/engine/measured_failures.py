@@ -40,7 +40,7 @@ from .own_judged import _OwnRounding, _renoised, _with_own
 from .probe import TensorProbe
 from .refine import Taken
 from .steep_noise import CHANGE_ULPS, measured_rounding
-from .verdict import NOISE, SIGNIFICANCE, UNSETTLED, Judged
+from .verdict import NOISE, SIGNIFICANCE, UNSETTLED, Judged, most_decisive
 
 MEASURED = 32  # failed coordinates per tensor measured at most
 BATCHES = (1, 1, 2, 4, 8, 16)  # the most decisive first, until a failure stands
@@ -64,10 +64,7 @@ def failures_on_measured_rounding(
     failed = np.flatnonzero(judged.status == FAIL)
     if failed.size == 0:
         return judged
-    est = judged.estimate.pick(failed)
-    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-        decisive = np.abs(probe.a[flat[failed]] - est.value) / np.maximum(est.error, 1e-300)
-    order = failed[np.argsort(-np.nan_to_num(decisive, nan=0.0), kind="stable")][:MEASURED]
+    order = most_decisive(probe, flat, judged, failed)[:MEASURED]
     done = 0
     for size in BATCHES:
         batch = order[done:done + size]

@@ -25,7 +25,7 @@ import numpy as np
 
 from ..common.status import FAIL, KINK
 from .probe import TensorProbe
-from .verdict import SIGNIFICANCE, Judged
+from .verdict import SIGNIFICANCE, Judged, most_decisive
 
 SLIVERS = 8  # failed coordinates per tensor looked at beside the point
 DELTA_SHARE = 2.0**-20  # of the coordinate's first step (eps**(1/3) max(1, |x|)): about 6e-12 there
@@ -40,10 +40,7 @@ def kinks_beside(probe: TensorProbe, flat: np.ndarray, judged: Judged) -> Judged
     failed = np.flatnonzero((judged.status == FAIL) & judged.crossed)
     if failed.size == 0:
         return judged
-    est = judged.estimate.pick(failed)
-    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
-        decisive = np.abs(probe.a[flat[failed]] - est.value) / np.maximum(est.error, 1e-300)
-    failed = failed[np.argsort(-np.nan_to_num(decisive, nan=0.0), kind="stable")][:SLIVERS]
+    failed = most_decisive(probe, flat, judged, failed)[:SLIVERS]
     where = flat[failed]
     x = np.abs(probe.x[where].astype(np.float64))
     delta = np.maximum(DELTA_SHARE * probe.prior_steps(where), SPACINGS * np.spacing(x))

@@ -197,6 +197,15 @@ CROSSING = (UNSETTLED, NEAR_KINK, CROWDED, UNRESOLVED, SHARED_POINT, CLOSE_NEITH
             OUTSIDE_SIDES, BOUNDED)
 
 
+def most_decisive(probe: TensorProbe, flat: np.ndarray, judged: Judged, which: np.ndarray) -> np.ndarray:
+    """Positions ``which`` (in ``flat``) ordered by how many of its bounds each one's analytic
+    value lies from its estimate in ``judged``, the most first (ties in their order)."""
+    est = judged.estimate.pick(which)
+    with np.errstate(invalid="ignore", divide="ignore", over="ignore"):
+        decisive = np.abs(probe.a[flat[which]] - est.value) / np.maximum(est.error, 1e-300)
+    return which[np.argsort(-np.nan_to_num(decisive, nan=0.0), kind="stable")]
+
+
 def looked_at_again(status: np.ndarray, reasons: tuple[str | None, ...]) -> np.ndarray:
     """The coordinates a second look off the kinks checks (see offpoint.py): those at a kink,
     and those left undecided because the steps kept crossing kinks (an estimate that does
