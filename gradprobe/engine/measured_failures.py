@@ -36,7 +36,7 @@ from collections.abc import Callable
 import numpy as np
 
 from ..common.status import FAIL, INCONCLUSIVE, KINK, PASS
-from .own_judged import _OwnRounding, _renoised, _with_own
+from .own_judged import OwnRounding, renoised_taken, with_own
 from .probe import TensorProbe
 from .refine import Taken
 from .steep_noise import CHANGE_ULPS, measured_rounding
@@ -99,8 +99,8 @@ def _again(
     if not smaller.all():
         return judged, True
     own = {int(k): (float(r), float(w)) for k, r, w in zip(where, rounding, widest)}
-    view = _with_own(probe, own)
-    again = [(f, s, _renoised(p, f, own, probe.eps)) for f, s, p in taken]
+    view = with_own(probe, own)
+    again = renoised_taken(taken, own, probe.eps)
     redo = judge(view, where, widest, again)
     # Undecided for rounding alone says nothing against the failure: the ladders cannot speak
     # there (a steep coordinate the chain on measured rounding failed, steep-720310).
@@ -116,7 +116,7 @@ def _again(
     return judged, withheld.size < failed.size
 
 
-def _jump_seen(view: _OwnRounding, where: np.ndarray, widest: np.ndarray, redo: Judged,
+def _jump_seen(view: OwnRounding, where: np.ndarray, widest: np.ndarray, redo: Judged,
                before: np.ndarray) -> np.ndarray:
     """Per coordinate: not a kink verdict, or one a jump at the point bears out. The kink
     logic reads corners crossed among the steps (f'' jumps, f' continuous: a Huber loss's) as

@@ -34,7 +34,7 @@ UNMODELLED = ("the loss along it does not follow the error model of central diff
               "steps that rounding needs")
 
 
-def _renoised(p: Pairs, flat: np.ndarray, rounding: dict[int, tuple[float, float]], eps: float) -> Pairs:
+def renoised(p: Pairs, flat: np.ndarray, rounding: dict[int, tuple[float, float]], eps: float) -> Pairs:
     """``p`` (pairs at coordinates ``flat``) with the measured rounding in place of the
     target's figure where one was measured and the pair's moves stay within the reach it was
     measured over (never below the values' own last place)."""
@@ -47,17 +47,23 @@ def _renoised(p: Pairs, flat: np.ndarray, rounding: dict[int, tuple[float, float
     return Pairs(p.f_plus, p.f_minus, p.h_plus, p.h_minus, noise)
 
 
-class _OwnRounding(TensorProbe):
+class OwnRounding(TensorProbe):
     """A probe whose pairs carry each coordinate's own measured rounding."""
 
     rounding: dict[int, tuple[float, float]]
 
     def pairs(self, flat: np.ndarray, h: np.ndarray) -> Pairs:
-        return _renoised(super().pairs(flat, h), flat, self.rounding, self.eps)
+        return renoised(super().pairs(flat, h), flat, self.rounding, self.eps)
 
 
-def _with_own(probe: TensorProbe, rounding: dict[int, tuple[float, float]]) -> _OwnRounding:
-    view = _OwnRounding.__new__(_OwnRounding)
+def renoised_taken(taken: list[Taken], rounding: dict[int, tuple[float, float]], eps: float) -> list[Taken]:
+    """The pairs ``taken`` with the measured ``rounding`` in place of the target's figure
+    (:func:`renoised`), for judging again on it."""
+    return [(f, s, renoised(p, f, rounding, eps)) for f, s, p in taken]
+
+
+def with_own(probe: TensorProbe, rounding: dict[int, tuple[float, float]]) -> OwnRounding:
+    view = OwnRounding.__new__(OwnRounding)
     view.__dict__.update(probe.__dict__)
     view.rounding = rounding
     return view
@@ -79,8 +85,8 @@ def judged_on_own_rounding(probe: TensorProbe, flat: np.ndarray, judged: Judged,
     rounding = {int(k): (float(v), float(r)) for k, v, r in zip(where, measured, reach) if np.isfinite(v)}
     flat_sides = {int(k): (float(v), float(r)) for k, v, r in zip(where, beside, reach) if np.isfinite(v)}
     if rounding:
-        view = _with_own(probe, rounding)
-        again = [(f, s, _renoised(p, f, rounding, probe.eps)) for f, s, p in taken]
+        view = with_own(probe, rounding)
+        again = renoised_taken(taken, rounding, probe.eps)
         mine = np.flatnonzero(np.isfinite(measured))
         est = within_reach(view, where[mine], reach[mine], again)
         redo = kinks_within_reach(view, where[mine], judge_plain(view, where[mine], est), again)
@@ -96,7 +102,7 @@ def judged_on_own_rounding(probe: TensorProbe, flat: np.ndarray, judged: Judged,
         judged = _one_side(probe, flat, judged, noisy, taken)
     # A side where the loss kept its value, on its own quotients (passes only), with the
     # rounding the moving side shows where nothing else was measured (see _beside_flat).
-    judged = flat_side_passes(_with_own(probe, {**rounding, **flat_sides}), flat, judged, noisy, taken,
+    judged = flat_side_passes(with_own(probe, {**rounding, **flat_sides}), flat, judged, noisy, taken,
                               (NOISE, KINK_WITHIN))
     still = np.flatnonzero((judged.status[noisy] == INCONCLUSIVE))
     if still.size == 0:
@@ -111,7 +117,7 @@ def _one_side(probe: TensorProbe, flat: np.ndarray, judged: Judged, which: np.nd
     return narrow_passes(probe, flat, one_sided_passes(probe, flat, judged, which, taken, why), which, taken, why)
 
 
-def _averaged(view: _OwnRounding, flat: np.ndarray, judged: Judged, which: np.ndarray, reach: np.ndarray,
+def _averaged(view: OwnRounding, flat: np.ndarray, judged: Judged, which: np.ndarray, reach: np.ndarray,
               taken: list[Taken]) -> Judged:
     """``judged`` with coordinates ``which`` (their own rounding measured over ``reach``) that
     rounding still leaves undecided judged on wide steps averaged over jittered pairs

@@ -182,20 +182,22 @@ class Point:
         if self.backward is None:
             return None
         ws = self.numerics.workspace
-        owner = ws.owners[name]
+        moved = ws.owners[name].copy()  # one private copy, each element put back after its calls
+        line = moved.reshape(-1)
+        beside = ws.replacing({name: moved})
         out = np.empty((2, flat.size))
         try:
             for i, (k, d) in enumerate(zip(flat.tolist(), delta.tolist())):
+                here = line[k].copy()
                 for row, sign in enumerate((1.0, -1.0)):
-                    moved = owner.copy()
-                    moved.reshape(-1)[k] = moved.reshape(-1)[k] + sign * d
+                    line[k] = here + sign * d
                     with quiet():  # a moved point: the code's warnings there are not shown
-                        raw = call_backward(self.backward, ws.replacing({name: moved}), self.info.grad_output,
-                                            scratch=False)
+                        raw = call_backward(self.backward, beside, self.info.grad_output, scratch=False)
                     g = validate(raw, ws, own_type=True).values.get(name)
                     if g is None:
                         return None
                     out[row, i] = float(np.asarray(g, dtype=np.float64).reshape(-1)[k])
+                line[k] = here
         except ProbeError:
             return None
         return out

@@ -32,7 +32,7 @@ DELTA_SHARE = 2.0**-20  # of the coordinate's first step (eps**(1/3) max(1, |x|)
 SPACINGS = 64.0  # and at least this many spacings of x
 
 
-def kinks_beside(probe: TensorProbe, flat: np.ndarray, judged: Judged) -> Judged:
+def sliver_kinks(probe: TensorProbe, flat: np.ndarray, judged: Judged) -> Judged:
     """``judged`` with the failures the module's note names judged `kink`."""
     if (probe.compute_dtype != np.dtype(np.float64) or probe.narrow is not None or probe.own_code is not None
             or probe.beside is None or judged.crossed is None):
@@ -59,4 +59,4 @@ def kinks_beside(probe: TensorProbe, flat: np.ndarray, judged: Judged) -> Judged
     return Judged(status, judged.estimate, judged.reasons, judged.noise_limited, judged.crossed)
 
 
-__all__ = ["kinks_beside"]
+__all__ = ["sliver_kinks"]
