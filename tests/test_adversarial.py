@@ -179,3 +179,23 @@ def test_a_bug_that_leaves_every_gradient_bit_for_bit_expects_no_failure():
     # a factor bug on a gradient it does change keeps its expectation (kinks-830535's p2)
     o = judged_cleanly("kinks", 830535)
     assert o["expect"]["p2"] == "fail" and o["status"]["p2"] == "fail"
+
+
+def test_a_failure_found_at_the_wider_move_off_a_kink_is_a_finding():
+    """kinks-900013: the planted bug takes a Huber loss's quadratic piece for its whole range in
+    p3's backward; at the point every residual is inside the piece (p3's gradient is right
+    there), but two residuals sit 4e-9 and 4e-6 from the piece's edge, and the second look's
+    wider move (p3 alone, a quarter of its scale) carries them past it, where the analytic
+    value is wrong. Such a failure is the bug found off the point, as at the narrower move."""
+    o = judge("kinks", 900013)
+    assert o["status"]["p3"] == "fail" and o["expect"]["p3"] == "any", (o["status"], o["expect"])
+    assert not o["false_alarm"], (o["status"], o["expect"])
+
+
+def test_a_huge_loss_over_a_tiny_slope_leaks_no_overflow_warning():
+    """steep-900694: a failure re-judged on measured rounding sizes its moves from the loss over
+    the analytic slope; a loss of 5e22 over a slope of exactly 0 (the planted bug drops p1's
+    gradient) overflowed there, and the warning reached the user's console."""
+    o = judge("steep", 900694)
+    assert o["own_warnings"] == [], o["own_warnings"]
+    assert not o["false_alarm"] and not o["missed"], (o["status"], o["expect"])

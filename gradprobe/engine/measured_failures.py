@@ -88,11 +88,13 @@ def _again(
     # Moves that change the loss by a couple of units of its last place (as the analytic slope
     # predicts): the rows measured lie within SPAN such moves of the point and of either side
     # of it, where a kink close to the point adds at most about that much to them.
+    # ... and moves the params' grid resolves (the row's points at least a spacing of x apart).
+    # A slope of 0 under a large loss makes these moves overflow to inf: the widest step bounds them.
+    grid = SPACINGS * np.spacing(np.abs(probe.x[where].astype(np.float64)))
     with np.errstate(over="ignore", divide="ignore"):
         natural = CHANGE_ULPS * probe.eps * max(abs(probe.f0), 1e-300) / np.maximum(np.abs(probe.a[where]), 1e-300)
-    # ... and moves the params' grid resolves (the row's points at least a spacing of x apart)
-    grid = SPACINGS * np.spacing(np.abs(probe.x[where].astype(np.float64)))
-    rounding = measured_rounding(probe, where, np.minimum(widest, SPAN * np.maximum(natural, grid)))
+        moves = np.minimum(widest, SPAN * np.maximum(natural, grid))
+    rounding = measured_rounding(probe, where, moves)
     assumed = probe.loss_noise(np.full(where.size, probe.f0))
     with np.errstate(invalid="ignore"):
         smaller = np.isfinite(rounding) & (RATIO * rounding <= assumed)
