@@ -199,3 +199,14 @@ def test_a_huge_loss_over_a_tiny_slope_leaks_no_overflow_warning():
     o = judge("steep", 900694)
     assert o["own_warnings"] == [], o["own_warnings"]
     assert not o["false_alarm"] and not o["missed"], (o["status"], o["expect"])
+
+
+def test_a_dropped_steep_gradient_beside_a_far_larger_one_fails_where_resolvable():
+    """steep-930795: p0's gradient (a twelfth power, the largest element 116) is left out, beside
+    p3's of 8e15 and a loss of 1.8e12. At the ordinary steps the loss does not move; the ladder
+    of steps up to p0's scale shows a slope only at p0[1, 3] (114 +- 69: the steps it reads
+    bend), where halving steps from that slope's own step resolve mpmath's 116 to a few units.
+    That coordinate fails at the tensor's own scale; the others stay below rounding."""
+    o = judge("steep", 930795)
+    assert o["status"]["p0"] == "fail", (o["status"], o["expect"])
+    assert not o["false_alarm"] and not o["missed"], (o["status"], o["expect"])

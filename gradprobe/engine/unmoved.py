@@ -68,8 +68,8 @@ def moved_at_own_scale(
     if todo.size == 0:
         return numeric, error, status, scale
     first_up, first_down = first.f_plus[moved] - probe.f0, probe.f0 - first.f_minus[moved]
-    slope, bound = _slopes(probe, flat[todo], size, unit, (first_up, first_down,
-                           first.h_plus[moved], first.h_minus[moved]))
+    slope, bound, seen_at = _slopes(probe, flat[todo], size, unit, (first_up, first_down,
+                                    first.h_plus[moved], first.h_minus[moved]))
     # A domain edge within the params' scale (a log's pole 2.5e-4 away) shrank the first pair:
     # no ladder from there. The chain of halving steps on the rounding measured along the
     # coordinate (steep_noise.chain_estimate) starts EDGE_MARGIN times below the step at which
@@ -85,12 +85,17 @@ def moved_at_own_scale(
     found = np.isfinite(slope)
     # A slope its ladder shows but whose bound (rounding taken as UNITS units of eps |f|)
     # does not resolve: the chain of halving steps with the rounding measured along it
-    # (steep_noise.chain_estimate), where that bounds it more tightly.
+    # (steep_noise.chain_estimate), from the params' scale and from the larger step of the
+    # pair that showed the slope (a steep coordinate bends at every step of the first chain),
+    # where one bounds it more tightly.
     weak = np.flatnonzero(found & ~(np.abs(slope) > SIGNIFICANCE * bound))
-    if weak.size:
-        chain = chain_estimate(probe, flat[todo[weak]], size[weak])
+    for top in (size[weak], seen_at[weak]):
+        if weak.size == 0:
+            break
+        chain = chain_estimate(probe, flat[todo[weak]], top)
         better = np.isfinite(chain.error) & (chain.error < bound[weak])
         slope[weak[better]], bound[weak[better]] = chain.value[better], chain.error[better]
+        weak = weak[~(np.abs(slope[weak]) > SIGNIFICANCE * bound[weak])]
     if not found.any():
         return numeric, error, status, scale
     k = todo[found]
@@ -105,10 +110,11 @@ def moved_at_own_scale(
 
 
 def _slopes(probe: TensorProbe, flat: np.ndarray, size: np.ndarray, unit: float,
-            largest: tuple[np.ndarray, ...]) -> tuple[np.ndarray, np.ndarray]:
-    """Per coordinate the slope the ladder shows (module's note) and its bound (the two
-    slopes' difference plus rounding), NaN where it shows none. ``largest``: the changes up
-    and down at the largest step and the distances moved, taken already."""
+            largest: tuple[np.ndarray, ...]) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Per coordinate the slope the ladder shows (module's note), its bound (the two
+    slopes' difference plus rounding) and the larger of the two steps that showed it, NaN
+    where it shows none. ``largest``: the changes up and down at the largest step and the
+    distances moved, taken already."""
     n = flat.size
     rows = [np.full((LEVELS + 1, n), np.nan) for _ in range(4)]  # up, down, h_plus, h_minus
     steps = size[None, :] * RATIO ** -np.arange(LEVELS + 1)[:, None]
@@ -129,25 +135,26 @@ def _slopes(probe: TensorProbe, flat: np.ndarray, size: np.ndarray, unit: float,
         for row, value in zip(rows, got):
             row[level, which[exact]] = value[exact]
         live[which[exact & (got[0] == 0.0) & (got[1] == 0.0)]] = False  # flat from here down
-    slope, bound = np.full(n, np.nan), np.full(n, np.nan)
+    slope, bound, seen_at = np.full(n, np.nan), np.full(n, np.nan), np.full(n, np.nan)
     for i in range(n):
         up, down, h_plus, h_minus = (row[:, i] for row in rows)
-        slope[i], bound[i] = _one(up, down, h_plus, h_minus, unit)
-    return slope, bound
+        slope[i], bound[i], seen_at[i] = _one(up, down, h_plus, h_minus, unit)
+    return slope, bound, seen_at
 
 
 def _one(up: np.ndarray, down: np.ndarray, h_plus: np.ndarray, h_minus: np.ndarray,
-         unit: float) -> tuple[float, float]:
+         unit: float) -> tuple[float, float, float]:
     """One coordinate's ladder (NaN past its last step): of the pairs of neighbouring steps
-    showing a slope that every finer step bears out, the one with the tightest bound."""
+    showing a slope that every finer step bears out, the one with the tightest bound (its
+    slope, bound and larger step)."""
     last = int(np.sum(np.isfinite(up))) - 1
     if last < 1 or not (up[last] == 0.0 and down[last] == 0.0):
-        return np.nan, np.nan  # the ladder stopped before the loss was flat again
+        return np.nan, np.nan, np.nan  # the ladder stopped before the loss was flat again
     steps = 0.5 * (h_plus + h_minus)
     central = (up + down) / (h_plus + h_minus)
     small, large = np.minimum(np.abs(up), np.abs(down)), np.maximum(np.abs(up), np.abs(down))
     alike = (up * down > 0) & (small >= ALIKE * large)
-    best = (np.nan, np.inf)
+    best = (np.nan, np.inf, np.nan)
     for j in range(last - 1, 0, -1):  # j the finer step, j - 1 the larger
         if not (alike[j] and alike[j - 1] and small[j - 1] >= RESOLVED * unit):
             continue
@@ -161,5 +168,5 @@ def _one(up: np.ndarray, down: np.ndarray, h_plus: np.ndarray, h_minus: np.ndarr
         if (np.all(np.abs(up[finer] - rise) <= UNITS * unit + AGREE * np.abs(rise))
                 and np.all(np.abs(down[finer] - fall) <= UNITS * unit + AGREE * np.abs(fall))
                 and apart + rounding < best[1]):
-            best = (float(g), float(apart + rounding))
-    return best if np.isfinite(best[1]) else (np.nan, np.nan)
+            best = (float(g), float(apart + rounding), float(steps[j - 1]))
+    return best if np.isfinite(best[1]) else (np.nan, np.nan, np.nan)
