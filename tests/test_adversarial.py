@@ -210,3 +210,8 @@ def test_a_dropped_steep_gradient_beside_a_far_larger_one_fails_where_resolvable
     o = judge("steep", 930795)
     assert o["status"]["p0"] == "fail", (o["status"], o["expect"])
     assert not o["false_alarm"] and not o["missed"], (o["status"], o["expect"])
+    # steep-960053: a slope found below a domain edge (no pair of the ladder showed it) has no
+    # step to start the second chain from; it once reached the chain as NaN.
+    o = judge("steep", 960053)
+    assert o["crash"] is None, o["crash"]
+    assert o["status"]["p0"] == "fail" and not o["false_alarm"], (o["status"], o["expect"])

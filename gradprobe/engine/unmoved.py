@@ -85,17 +85,18 @@ def moved_at_own_scale(
     found = np.isfinite(slope)
     # A slope its ladder shows but whose bound (rounding taken as UNITS units of eps |f|)
     # does not resolve: the chain of halving steps with the rounding measured along it
-    # (steep_noise.chain_estimate), from the params' scale and from the larger step of the
-    # pair that showed the slope (a steep coordinate bends at every step of the first chain),
-    # where one bounds it more tightly.
+    # (steep_noise.chain_estimate), from the params' scale and then from the larger step of
+    # the pair that showed the slope (a steep coordinate bends at every step of the first
+    # chain; a slope found below a domain edge has no such step), where one bounds it more
+    # tightly.
     weak = np.flatnonzero(found & ~(np.abs(slope) > SIGNIFICANCE * bound))
-    for top in (size[weak], seen_at[weak]):
+    for tops in (size, seen_at):
+        weak = weak[np.isfinite(tops[weak]) & ~(np.abs(slope[weak]) > SIGNIFICANCE * bound[weak])]
         if weak.size == 0:
             break
-        chain = chain_estimate(probe, flat[todo[weak]], top)
+        chain = chain_estimate(probe, flat[todo[weak]], tops[weak])
         better = np.isfinite(chain.error) & (chain.error < bound[weak])
         slope[weak[better]], bound[weak[better]] = chain.value[better], chain.error[better]
-        weak = weak[~(np.abs(slope[weak]) > SIGNIFICANCE * bound[weak])]
     if not found.any():
         return numeric, error, status, scale
     k = todo[found]
