@@ -215,3 +215,13 @@ def test_a_dropped_steep_gradient_beside_a_far_larger_one_fails_where_resolvable
     o = judge("steep", 960053)
     assert o["crash"] is None, o["crash"]
     assert o["status"]["p0"] == "fail" and not o["false_alarm"], (o["status"], o["expect"])
+
+
+def test_the_point_on_a_kink_with_closer_kinks_than_the_ladders_see_is_no_failure():
+    """kinks-850997: three ReLU residuals exactly at 0 along p0[2, 0] and more at every decade
+    from 6e-11 up; the ladders read 5.857 +- 0.13 beyond the close kinks, while the correct
+    0.614 lies between the one-sided derivatives at the point (-0.202 and 6.141), which steps of
+    a few spacings of x resolve (jump_at_point.py; tests/test_jump_at_point.py has its pattern)."""
+    o = judge("kinks", 850997)
+    assert not o["false_alarm"], (o["status"], o["expect"])
+    assert o["status"]["p0"] == "kink", o["status"]

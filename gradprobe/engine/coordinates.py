@@ -42,6 +42,7 @@ from ..common.roundoff import is_narrow
 from .ladder_verdicts import ladder_verdicts
 from .measured_failures import failures_on_measured_rounding
 from .sliver import sliver_kinks
+from .jump_at_point import jump_kinks
 from .verdict import NOISE, Judged, judge_plain, scaleless
 
 RECHECK_LIMIT = 400  # coordinates per tensor re-estimated on a ladder
@@ -146,6 +147,7 @@ def _central(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
             probe, flat[todo], judged.pick(todo), start, taken,
             lambda view, where, steps, again: ladder_verdicts(view, where, steps, taken=again)))
     judged = sliver_kinks(probe, flat, judged)  # a sliver between kinks closer than any step?
+    judged = jump_kinks(probe, flat, judged)  # the point itself on a kink, the ladders beyond close ones?
     judged = rounding_only(probe, flat, judged, taken)  # a loss moved by rounding alone, everywhere
     judged = unabsorbed(probe, flat, _widened(probe, flat, judged, taken), first)
     judged = moved_below(probe, flat, judged, taken)  # a loss unmoved by the steps taken, moved below them
