@@ -10,8 +10,9 @@ allows (its one-sided derivatives are -0.202 and 6.141). Backward just beside th
 (sliver.py) reads the slopes between the close kinks, not those at the point.
 
 Between the point and the nearest kink on either side the loss is linear, and one-sided
-quotients at steps from SPACINGS spacings of x, doubling ROWS - 1 times, read each side to
-within the loss's rounding (two loss values' noise over the step): a side is *seen* where
+quotients at steps from SPACINGS spacings of x (of the tensor's rms where x is smaller),
+doubling ROWS - 1 times, read each side to within the loss's rounding (two loss values'
+noise over the step): a side is *seen* where
 STEADY consecutive rows agree within their rounding, its value the widest step's quotient of
 the first such run. Where both sides are seen, apart by more than the tolerance and their
 bounds (a jump resolved), and the analytic value lies between them (within the tolerance and
@@ -46,7 +47,9 @@ def jump_kinks(probe: TensorProbe, flat: np.ndarray, judged: Judged) -> Judged:
     failed = most_decisive(probe, flat, judged, failed)[:LOOKED]
     where = flat[failed]
     n = where.size
-    asked = (SPACINGS * probe.resolution(where))[None, :] * 2.0 ** np.arange(ROWS)[:, None]
+    # spacings of x, or of the tensor's rms where x is far smaller (a bias at 0)
+    smallest = SPACINGS * np.spacing(np.maximum(np.abs(probe.x[where]), probe.x_scale))
+    asked = smallest[None, :] * 2.0 ** np.arange(ROWS)[:, None]
     p = probe.pairs(np.tile(where, ROWS), asked.reshape(-1))
     h_plus, h_minus = p.h_plus.reshape(ROWS, n), p.h_minus.reshape(ROWS, n)
     rounding = (p.noise.reshape(ROWS, n) + probe.loss_noise(np.full(n, probe.f0))[None, :])
