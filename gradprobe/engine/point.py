@@ -253,9 +253,12 @@ class Point:
         if name not in n.narrow:
             return None
         own, f0, scale = self._narrow_loss_of(list(n.narrow))
-        return TensorProbe(own, name, self.ws.owners[name].reshape(-1), Widened(n.narrow[name]), f0,
-                           n.code_dtype, agreement(n.code_dtype), loss_scale=scale,
-                           jitter=lambda: self.narrow_spread(name))
+        probe = TensorProbe(own, name, self.ws.owners[name].reshape(-1), Widened(n.narrow[name]), f0,
+                            n.code_dtype, agreement(n.code_dtype), loss_scale=scale,
+                            jitter=lambda: self.narrow_spread(name))
+        if coarse(probe):  # 16 bits: judged relative to the tensor's typical gradient at least (see probe)
+            probe.floor = max(probe.floor, probe.grad_scale)
+        return probe
 
     def _own_code_probe(self, name: str) -> TensorProbe:
         """For 16-bit code judged against its float64 forward alone: the tensor probed on the

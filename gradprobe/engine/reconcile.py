@@ -29,13 +29,18 @@ from .narrow import kink_within_reach
 from .promote import disagreeing
 from .flat_zone import flat_zone
 from .sixteen import coarse
-from .verdict import SIGNIFICANCE, Judged
+from .verdict import NOISE, SIGNIFICANCE, Judged
 
 FUZZY = (
     "backward's own rounding varies by as much as the discrepancy between points a few units "
     "in the last place apart: its value is not defined that finely here"
 )
 BOTH_SIDES = 0.1
+BEYOND_ROUNDING = (
+    "its {dtype} gradient leaves the float64 run by more than the type's threshold and several "
+    "times the rounding measured for it, and the {dtype} arithmetic cannot resolve its own "
+    "derivative here to explain it"
+)
 ABSORBED = (
     "the loss does not change at all at the steps a decision needs, though it does at larger "
     "ones: rounding in forward absorbs them (sums of much larger terms, or a cast to a narrower type "
@@ -61,14 +66,22 @@ def narrow_reconciled(
     measured for it (point.Point.narrow_spread) too, or off the sides of a kink the float64
     run shows within reach (that kink's jump, not rounding, is then what the narrow backward
     varies by between nearby points: bug-sign-61003), by ``check`` (the coordinate check) on
-    the narrow code itself, against that rounding, the worse verdict standing (where the
-    narrow arithmetic cannot tell, undecided: the measured rounding need not cover all that
-    the narrow type does differently). Returns (analytic, numeric, error estimate, status,
+    the narrow code itself, against that rounding, the worse verdict standing. Where the
+    narrow arithmetic cannot tell (rounding noise at every step), a narrow gradient beyond
+    SIGNIFICANCE times its measured rounding fails on the float64 run, the numeric
+    reference; with no rounding measured, undecided. 16-bit gradients are compared with that
+    run relative to the tensor's typical gradient at least (a 16-bit backward rounds at u
+    times the terms it combines). Returns (analytic, numeric, error estimate, status,
     reasons, scale)."""
     own = probe.narrow
     assert own is not None
     narrow_a = own.a[flat]
-    off = np.flatnonzero(disagreeing(narrow_a, a, own.threshold * scale))
+    # A 16-bit backward rounds at u times the terms it combines, as large as the tensor's
+    # typical gradient where one element's is far smaller (1 - t*t near saturation): its
+    # gradient is compared with the float64 run's at that scale at least, as the 16-bit
+    # arithmetic judges it (point.Point.probe).
+    allowed = own.threshold * (np.maximum(scale, own.floor) if coarse(own) else scale)
+    off = np.flatnonzero(disagreeing(narrow_a, a, allowed))
     status, numeric, error_estimate = status.copy(), numeric.copy(), error_estimate.copy()
     beside = np.zeros(0, dtype=np.int64)
     if off.size:  # a kink that narrow rounding puts at the point, on the float64 run?
@@ -90,13 +103,25 @@ def narrow_reconciled(
         redo = check(own, flat[off])  # counted with the check's calls
         redone_status, redone_reasons = unfuzzed(own, flat[off], narrow_a[off], redo.estimate.value,
                                                  redo.estimate.error, redo.status, redo.reasons)
+        # Where the narrow arithmetic cannot resolve its own derivative (rounding noise at
+        # every step) while the narrow gradient leaves the float64 run, the numeric reference,
+        # by more than the type's threshold and SIGNIFICANCE times the rounding measured for
+        # it, that run decides: a failure, with the run's numbers.
+        silent = np.zeros(off.size, dtype=bool)
+        if spread is not None:
+            noise = np.array([(r or "").startswith(NOISE) for r in redone_reasons], dtype=bool)
+            silent = (redone_status == INCONCLUSIVE) & noise & (
+                np.abs(narrow_a[off] - a[off]) > SIGNIFICANCE * spread[flat[off]])
+            redone_status = np.where(silent, FAIL, redone_status)
         # The worse verdict stands, with its own reason and numbers.
-        worse = redone_status >= status[off]
+        worse = (redone_status >= status[off]) & ~silent
         status[off] = np.maximum(status[off], redone_status)
         numeric[off[worse]] = redo.estimate.value[worse]
         error_estimate[off[worse]] = redo.estimate.error[worse]
         a[off] = narrow_a[off]  # report the value the code returns
         redone = {k: r for k, r, w in zip(off.tolist(), redone_reasons, worse) if w}
+        redone.update({k: BEYOND_ROUNDING.format(dtype=own.compute_dtype.name)
+                       for k in off[silent].tolist()})
         reasons = tuple(redone.get(k, r) for k, r in enumerate(reasons))
     scale = probe.denominators(flat, numeric)
     return a, numeric, error_estimate, status, reasons, scale
