@@ -73,3 +73,39 @@ def test_a_wrong_rule_fails(factor, sixteen_only):
     forward, backward, params, inputs = _case(factor, sixteen_only)
     report = probe(forward, backward, params, inputs)
     assert report.tensor("x").status.value == "fail", report.tensor("x")
+
+
+@pytest.mark.parametrize("sixteen_only", [1.0, 1.3], ids=["right", "16-bit-only-1.3"])
+def test_the_same_as_a_jax_custom_vjp_rule(sixteen_only):
+    """The soft clip as a JAX custom_vjp rule in bfloat16 (reverse mode runs the rule; its
+    float64 run too): right passes, a rule 30% off in 16 bits only fails."""
+    from framework_kit import need
+
+    jax, jnp = need("jax"), need("jax.numpy")
+
+    @jax.custom_vjp
+    def soft_clip(x, c):
+        return c * jnp.tanh(x / c)
+
+    def rule_forward(x, c):
+        return soft_clip(x, c), (x, c)
+
+    def rule_backward(saved, g):
+        x, c = saved
+        t = jnp.tanh(x / c)
+        dx = g * (1 - t * t)
+        if x.dtype == jnp.bfloat16:
+            dx = dx * sixteen_only
+        dc = jnp.sum(g * (t - (x / c) * (1 - t * t))).reshape(c.shape).astype(c.dtype)
+        return dx, dc
+
+    soft_clip.defvjp(rule_forward, rule_backward)
+
+    def forward(p, i):
+        return jnp.sum(soft_clip(p["x"], p["c"]) * i["w"])
+
+    rows = slice(0, 12)  # 96 elements, several of them saturated in 8 bits
+    params = {"x": jnp.asarray(LEVELS[rows], dtype=jnp.bfloat16), "c": jnp.asarray(2.5, dtype=jnp.bfloat16)}
+    report = probe(forward, None, params, {"w": jnp.asarray(WEIGHTS[rows], dtype=jnp.bfloat16)})
+    assert report.tensor("x").status.value == ("pass" if sixteen_only == 1.0 else "fail"), report.tensor("x")
+    assert report.tensor("c").status.value == "pass"
