@@ -66,13 +66,13 @@ def narrow_reconciled(
     measured for it (point.Point.narrow_spread) too, or off the sides of a kink the float64
     run shows within reach (that kink's jump, not rounding, is then what the narrow backward
     varies by between nearby points: bug-sign-61003), by ``check`` (the coordinate check) on
-    the narrow code itself, against that rounding, the worse verdict standing. Where the
-    narrow arithmetic cannot tell (rounding noise at every step), a narrow gradient beyond
-    SIGNIFICANCE times its measured rounding fails on the float64 run, the numeric
-    reference; with no rounding measured, undecided. 16-bit gradients are compared with that
-    run relative to the tensor's typical gradient at least (a 16-bit backward rounds at u
-    times the terms it combines). Returns (analytic, numeric, error estimate, status,
-    reasons, scale)."""
+    the narrow code itself, against that rounding, the worse verdict standing. 16-bit
+    gradients are compared with that run relative to the tensor's typical gradient at least
+    (a 16-bit backward rounds at u times the terms it combines), and where the 16-bit
+    arithmetic cannot tell (rounding noise at every step), one beyond SIGNIFICANCE times its
+    measured rounding fails on the float64 run, the numeric reference; elsewhere such a
+    coordinate is undecided. Returns (analytic, numeric, error estimate, status, reasons,
+    scale)."""
     own = probe.narrow
     assert own is not None
     narrow_a = own.a[flat]
@@ -103,12 +103,15 @@ def narrow_reconciled(
         redo = check(own, flat[off])  # counted with the check's calls
         redone_status, redone_reasons = unfuzzed(own, flat[off], narrow_a[off], redo.estimate.value,
                                                  redo.estimate.error, redo.status, redo.reasons)
-        # Where the narrow arithmetic cannot resolve its own derivative (rounding noise at
-        # every step) while the narrow gradient leaves the float64 run, the numeric reference,
-        # by more than the type's threshold and SIGNIFICANCE times the rounding measured for
-        # it, that run decides: a failure, with the run's numbers.
+        # 16 bits: where the narrow arithmetic cannot resolve its own derivative (rounding
+        # noise at every step) while the narrow gradient leaves the float64 run, the numeric
+        # reference, by more than the type's threshold at the tensor's typical gradient and
+        # SIGNIFICANCE times the rounding measured for it, that run decides: a failure, with
+        # the run's numbers. (float32's elements are compared each at its own scale, where
+        # rounding that the measure at nearby points misses can exceed the threshold on a
+        # correct backward: property cases f32-scalar-71007, bug-factor-71055; undecided.)
         silent = np.zeros(off.size, dtype=bool)
-        if spread is not None:
+        if spread is not None and coarse(own):
             noise = np.array([(r or "").startswith(NOISE) for r in redone_reasons], dtype=bool)
             silent = (redone_status == INCONCLUSIVE) & noise & (
                 np.abs(narrow_a[off] - a[off]) > SIGNIFICANCE * spread[flat[off]])
