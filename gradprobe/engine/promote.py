@@ -132,7 +132,7 @@ def _promoted(
             # backward rounds to the narrow type itself: no float64 run of it to compare with;
             # 16-bit code's forward is still the reference (its own staircase of a loss
             # cannot tell a factor of 2 from rounding)
-            if code_dtype is not None and reference_only(np.dtype(code_dtype)):
+            if code_dtype is not None and is_narrow(np.dtype(code_dtype)) and wide_dtype == np.dtype(np.float64):
                 return Promoted(wide, loss, f64, {}, {}, reference_only=True, dtype=wide_dtype)
             return None
         grads64 = validate(raw, wide)
