@@ -10,7 +10,8 @@ A case is a sum of terms ``T`` over params, times a loss scale ``S`` (``S*T`` or
 
 The backward is the hand-written reverse pass of exactly that, optionally with one planted bug.
 Targets are ``generic`` (they compute in whatever dtype the arrays have, so a wider run is
-possible) or ``cast`` (they cast every array to float32 and the loss with ``np.float32(...)``).
+possible), ``cast`` (they cast every array to float32 and the loss with ``np.float32(...)``) or
+``castback`` (generic, but backward casts every gradient to float32 whatever it is given).
 """
 
 from __future__ import annotations
@@ -50,7 +51,7 @@ class Case:
     category: str
     seed: int
     dtype: str
-    flavor: str  # generic | cast | inside64 | inside32
+    flavor: str  # generic | cast | castback | inside64 | inside32
     params: dict[str, np.ndarray]  # values, C-ordered; the layout is applied by setup()
     layouts: dict[str, str]
     inputs: dict[str, np.ndarray]
@@ -233,6 +234,8 @@ def source(case: Case, arrays_line: str = "ARRAYS = globals().get('ARRAYS', {})"
             body += [f"G['{n}'] = np.array(G['{n}'])", f"G['{n}'][{bug.index!r}] *= {bug.factor!r}"]
     if case.array_type is not None:
         body.append(f"return {{n: np.asarray(g).astype(np.{case.array_type}) for n, g in G.items()}}")
+    elif case.flavor == "castback":
+        body.append("return {n: np.asarray(g).astype(np.float32) for n, g in G.items()}")
     else:
         body.append("return G")
     bwd = ["def backward(params, inputs):"] + ["    " + x for x in body]

@@ -13,6 +13,8 @@ Categories (each draws its own scales, shapes, dtype and bug):
 - ``float32``, ``float32only`` (every array and the loss cast with np.float32: no wider run),
   ``float16``; ``inside16`` (by name only: float64 or float32 arrays, every one cast to
   bfloat16 or float16 inside, the loss and gradients cast back: no wider run);
+  ``float32back`` (by name only: float32 arrays, forward computing in whatever type it is
+  given, backward returning float32 whatever it is given: a wider run of forward only);
 - ``large``: one tensor of 20,000 .. 100,000 elements, correct or with one element 0.1%, 1%
   or 20% off.
 """
@@ -28,7 +30,7 @@ CATEGORIES = ("steep", "kinks", "scales", "shapes", "float32", "float32only", "f
 # Run by name only (``--categories inside16``), so that the default run's figures stay
 # comparable: code casting every array to bfloat16 or float16 inside while its arrays are
 # float64 or float32 (no wider run).
-EXTRA_CATEGORIES = ("inside16",)
+EXTRA_CATEGORIES = ("inside16", "float32back")
 ALL_CATEGORIES = CATEGORIES + EXTRA_CATEGORIES
 DISTANCES = (0.0, 1e-12, 1e-10, 1e-8, 1e-7, 1e-6, 1e-5, 1e-4, 1e-3, 1e-2)
 SHAPES = ((), (1,), (1, 1, 3), (1, 4, 1), (0,), (2, 0), (5,), (3, 4), (4, 3), (2, 3, 2))
@@ -276,7 +278,8 @@ def _large(b: Builder) -> Case:
 
 
 _BUILD = {"steep": _steep, "kinks": _kinks, "scales": _scales, "shapes": _shapes,
-          "float32": _low, "float32only": _low, "float16": _low, "large": _large, "inside16": _low}
+          "float32": _low, "float32only": _low, "float16": _low, "large": _large, "inside16": _low,
+          "float32back": _low}
 
 
 def dtype_of(name: str) -> np.dtype:
@@ -292,6 +295,8 @@ def _dtype(category: str, rng) -> tuple[str, str]:
         return category, "generic"
     if category == "float32only":
         return "float32", "cast"
+    if category == "float32back":
+        return "float32", "castback"
     if category == "inside16":
         return str(rng.choice(["bfloat16", "float16"])), str(rng.choice(["inside64", "inside32"]))
     if category in ("shapes", "large") and rng.random() < 0.25:

@@ -223,7 +223,7 @@ def judge(category: str, seed: int, /, **options) -> dict:
         expect[case.bug.tensor] = "any"
     out["expect"] = expect
     out["resolves"] = resolves_threshold(case, ref, report.threshold)
-    if case.correct and out["inconclusive"] and case.flavor != "generic":  # no wider run
+    if case.correct and out["inconclusive"] and case.flavor not in ("generic", "castback"):  # no wider run
         out["ratios"] = [r for _, _, r in ratios(case, ns, ref, _floors(ref), report)]
         out["best_steps"] = [r for _, _, r in best_steps(case, ns, ref, _floors(ref), report)]
     out["false_alarm"] = any(status.get(n) == "fail" for n, e in expect.items() if e == "quiet")
