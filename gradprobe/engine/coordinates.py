@@ -278,7 +278,7 @@ def _outcome(probe: TensorProbe, flat: np.ndarray, judged: Judged, start_count: 
         a, numeric, error_estimate, status, reasons, scale = narrow_reconciled(
             probe, flat, a, numeric, error_estimate, status, reasons, scale,
             lambda own, where: _central(own, where, recheck))
-    if probe.own_code is not None:  # 16-bit code judged against its float64 forward alone
+    if probe.own_code is not None:  # narrow code judged against its float64 forward alone
         numeric, error_estimate, status, reasons, scale = own_code_reconciled(
             probe.own_code, flat, numeric, error_estimate, status, reasons, scale,
             lambda own, where: _central(own, where, recheck))

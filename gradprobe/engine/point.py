@@ -112,7 +112,7 @@ class Point:
         target on first use; None if backward fails there."""
         if self._jitter is None:
             n = self.numerics
-            if n.reference_only:  # the 16-bit backward at its own values, on its own grid
+            if n.reference_only:  # the narrow backward at its own values, on its own grid
                 self._jitter = self._measured_jitter(self.ws, self.gradients, n.code_dtype)
             else:
                 self._jitter = self._measured_jitter(n.workspace, self.gradients)
@@ -212,11 +212,12 @@ class Point:
                             own_code=self._own_code_probe(name) if n.reference_only else None,
                             beside=lambda flat, delta: self.beside(name, flat, delta))
         if n.reference_only or coarse(probe):
-            # A 16-bit backward rounds at u times the terms it combines, as large as the
+            # A narrow backward rounds at u times the terms it combines, as large as the
             # tensor's typical gradient even where one coordinate's is far smaller (a
             # saturated tanh: 1 - t*t is 0 in 16 bits); moves of a few grid units do not show
             # it there. Each coordinate is judged relative to that scale at least, on a wider
-            # run as on the 16-bit arithmetic itself (one model of the backward's rounding).
+            # run as on the 16-bit arithmetic itself (one model of the backward's rounding;
+            # a float32 backward judged against its forward's float64 run alone too).
             probe.floor = max(probe.floor, probe.grad_scale)
         return probe
 
@@ -235,9 +236,9 @@ class Point:
         return self._own_loss_scales[name]
 
     def own_numerics(self) -> Point:
-        """This point, or for 16-bit code judged against its float64 forward alone the same
-        point on its 16-bit code (where second derivatives are judged, as with no float64 run:
-        the 16-bit gradient's derivative has no float64 run either)."""
+        """This point, or for narrow code judged against its float64 forward alone the same
+        point on its narrow code (where second derivatives are judged, as with no float64 run:
+        the narrow gradient's derivative has no float64 run either)."""
         n = self.numerics
         if not n.reference_only:
             return self
@@ -261,8 +262,8 @@ class Point:
         return probe
 
     def _own_code_probe(self, name: str) -> TensorProbe:
-        """For 16-bit code judged against its float64 forward alone: the tensor probed on the
-        16-bit code itself, with the gradient it returns, at the type's own threshold."""
+        """For narrow code judged against its float64 forward alone: the tensor probed on the
+        narrow code itself, with the gradient it returns, at the type's own threshold."""
         n = self.numerics
         own, f0, scale = self._narrow_loss_of(list(self.grads.values))
         return TensorProbe(own, name, self.ws.owners[name].reshape(-1), self.grads.values[name].reshape(-1),

@@ -130,8 +130,8 @@ class TensorProbe:
         # The same on the grid of the type it computes in, where coarser (16-bit code inside
         # wider arrays; point.Point.coarse_jitter).
         self.own_rounding = own_rounding
-        # 16-bit code whose backward has no float64 run, judged against its float64 forward:
-        # the same tensor probed on the 16-bit code itself (reconcile.own_code_reconciled).
+        # narrow code whose backward has no float64 run, judged against its float64 forward:
+        # the same tensor probed on the narrow code itself (reconcile.own_code_reconciled).
         self.own_code = own_code
         # backward's value at coordinates moved alone just beside the point (point.Point.beside)
         self.beside = beside

@@ -12,6 +12,14 @@ really returns must then agree with its float64 run to the narrow type's own thr
 caller's); a coordinate beyond both is checked on the narrow code itself (overflow,
 underflow or a branch taken only in the narrow type).
 
+Where forward runs in float64 but backward returns its narrow gradient whatever it is given
+(a cast at its end), forward's float64 run alone is the numeric reference (``reference_only``):
+the narrow gradient is judged against float64 numeric derivatives at the narrow values, at
+the narrow type's threshold relative to at least the tensor's typical gradient (a narrow
+backward rounds at u times the terms it combines), a failure there checked on the narrow code
+itself (reconcile.own_code_reconciled). float32 and 16-bit code alike: the float32 loss's own
+rounding leaves many small networks undecided that float64 numerics resolve.
+
 16-bit code whose forward or backward raises on float64 (a kernel written for the types a
 GPU computes in), or whose float64 run is not float64, gets the same check on a float32 run
 where that one is float32 throughout: float32's unit roundoff is 2**-16 of bfloat16's, so its
@@ -54,7 +62,7 @@ class Promoted:
     f0: float
     analytic: dict[str, np.ndarray]  # the float64 run's gradient per tensor, flat
     narrow: dict[str, np.ndarray]  # the narrow gradient per tensor, flat
-    # 16-bit code whose backward returns its 16-bit gradient whatever it is given: only
+    # narrow code whose backward returns its narrow gradient whatever it is given: only
     # forward has a float64 run (analytic and narrow are then empty), see reference_only
     reference_only: bool = False
     dtype: np.dtype = np.dtype(np.float64)  # the wider run's type
@@ -80,8 +88,9 @@ def promote(
     narrower type inside, :func:`.precision.narrower_compute_type`) and one backward call;
     ``rounding`` (the narrow loss's rounding, measured) is called where the two losses differ
     by more than AGREEMENT of |f|: within it they are the same computation still.
-    16-bit code (``code_dtype``) whose forward runs in float64 but whose backward returns
-    its 16-bit gradient whatever it is given gets a Promoted that is ``reference_only``."""
+    Narrow code (``code_dtype``) whose forward runs in float64 (16-bit code: or float32) but
+    whose backward returns its narrow gradient whatever it is given gets a Promoted that is
+    ``reference_only`` (:func:`_forward_reference`)."""
     names = _narrow_names(ws)
     if not names:
         return None
@@ -130,9 +139,10 @@ def _promoted(
             return None  # another computation, beyond the narrow loss's own rounding
         if not _all_of(raw, wide_dtype):
             # backward rounds to the narrow type itself: no float64 run of it to compare with;
-            # 16-bit code's forward is still the reference (its own staircase of a loss
-            # cannot tell a factor of 2 from rounding)
-            if code_dtype is not None and is_narrow(np.dtype(code_dtype)) and wide_dtype == np.dtype(np.float64):
+            # forward's wider run is still the reference (a 16-bit loss's own staircase cannot
+            # tell a factor of 2 from rounding, a float32 loss's rounding often hides the
+            # threshold)
+            if code_dtype is not None and _forward_reference(np.dtype(code_dtype), wide_dtype):
                 return Promoted(wide, loss, f64, {}, {}, reference_only=True, dtype=wide_dtype)
             return None
         grads64 = validate(raw, wide)
@@ -147,6 +157,15 @@ def _promoted(
         analytic[name] = g64.reshape(-1)
         narrow[name] = g.reshape(-1)
     return Promoted(wide, loss, f64, analytic, narrow, dtype=wide_dtype)
+
+
+def _forward_reference(code_dtype: np.dtype, wide_dtype: np.dtype) -> bool:
+    """Narrow code whose backward returns its narrow gradient whatever it is given: its
+    forward's wider run is the numeric reference where that run is float64 (float32 code
+    too: its own loss's rounding leaves a fifth of small float32 networks undecided where
+    float64 numerics resolve them), or float32 for 16-bit code (one model of unit roundoff:
+    the wider run resolves what the narrow arithmetic cannot)."""
+    return is_narrow(code_dtype) and (wide_dtype == np.dtype(np.float64) or reference_only(code_dtype))
 
 
 def reference_only(dtype: np.dtype) -> bool:

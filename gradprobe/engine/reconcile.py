@@ -219,13 +219,13 @@ def own_code_reconciled(
     status: np.ndarray, reasons: tuple[str | None, ...], scale: np.ndarray,
     check: Callable[[TensorProbe, np.ndarray], Judged],
 ) -> tuple[np.ndarray, np.ndarray, np.ndarray, tuple[str | None, ...], np.ndarray]:
-    """16-bit code whose backward returns 16 bits whatever it is given, judged against
-    numeric derivatives of its forward's float64 run: a coordinate failing there is checked
-    by ``check`` on the 16-bit code itself, and where that check passes it (or finds a
-    consistent kink) its verdict and numbers stand instead (the 16-bit forward has the
-    slope its 16-bit gradient gives: a saturated tanh, an underflow, a branch taken only in
-    16 bits, as the 16-bit backward computes it). A failure the 16-bit code cannot settle
-    stays a failure. Returns (numeric, error estimate, status, reasons, scale)."""
+    """Narrow code whose backward returns its narrow type whatever it is given, judged
+    against numeric derivatives of its forward's float64 run: a coordinate failing there is
+    checked by ``check`` on the narrow code itself, and where that check passes it (or finds
+    a consistent kink) its verdict and numbers stand instead (the narrow forward has the
+    slope its narrow gradient gives: a saturated tanh, an underflow, a branch taken only in
+    the narrow type, as the narrow backward computes it). A failure the narrow code cannot
+    settle stays a failure. Returns (numeric, error estimate, status, reasons, scale)."""
     failing = np.flatnonzero(status == FAIL)
     if failing.size == 0:
         return numeric, error_estimate, status, reasons, scale
