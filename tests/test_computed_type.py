@@ -175,3 +175,22 @@ def test_float32_odd_loss_symmetric_about_zero_is_not_sixteen_bits(n, half_width
     assert right.ok and right.compute_dtype == "float32"
     wrong = gradprobe.probe(forward, lambda p, i: slope(p, 1.02), {"w": w}, {})
     assert wrong.tensor("w").status == "fail"
+
+
+def test_bfloat16_inside_float32_arrays_with_a_small_slope_along_the_moves_is_found():
+    """inside16-1200851: bfloat16 arithmetic inside float32 arrays, whose loss (14.7) changes
+    along the even moves at first order by 0.031 per 2**-4: scaled to 2**-18 that is under two
+    units of float32's, no evidence, and the code was judged as float32 (a coordinate failed on
+    the bfloat16 staircase, 0 +- 9e-4 against -0.498). Moves of 2**-16 leave the loss unchanged
+    too, where float32 code would move it by eight units: bfloat16."""
+    from adversarial import judge, make_case
+    from adversarial.case import load
+
+    case = make_case("inside16", 1200851)
+    assert case.dtype == "bfloat16" and case.flavor == "inside32"
+    ns = load(case)
+    params, inputs = ns["setup"]()
+    report = gradprobe.probe(ns["forward"], ns["backward"], params, inputs)
+    assert report.compute_dtype == "bfloat16", report.notes
+    o = judge("inside16", 1200851)
+    assert not o["false_alarm"], o["status"]

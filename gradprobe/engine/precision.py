@@ -19,8 +19,8 @@ whose values carry an offset, a * (p - k) with |k| about 100 |p|, rounds 2**-18 
 2**-16). Moves up and down of 2**-4 and 2**-7 (which every 16-bit type resolves) confirm that
 the loss depends on the params: half the difference of a pair's losses is the change's
 first-order part (a loss at its minimum changes by the move's square alike both ways), scaled
-down to the largest move the loss ignored (2**-18, or 2**-12 where float64 params rounded to
-float32 ignored it) it must be two units of float32's at least. The wider pair's part counts
+down to the largest move the loss ignored (2**-16 or 2**-18, or 2**-12 where float64 params
+rounded to float32 ignored it) it must be two units of float32's at least. The wider pair's part counts
 where the losses lie on a 16-bit grid (16-bit code returning its loss in its own type), or
 where it is within 4 times the nearer pair's; else the nearer pair's: a kink crossed by 2**-4
 (or a bend between the moves) makes the wider pair's change no measure of the slope at the
@@ -265,6 +265,13 @@ def _sixteen_bits(looks: _Looks, f0: float, out_dtype: np.dtype, unchanged: floa
         return linear is not None and linear * (max(unchanged, TINY) / SIXTEEN_LARGE) > \
             SIXTEEN_LIVE * np.finfo(np.float32).eps * max(abs(rounded), abs(f0))
 
+    # Moves of WIDER_TINY (float32 code with offsets sees them; below 16-bit resolution) left
+    # the loss unchanged too: the first-order change is scaled down to them, four times TINY's
+    # (a loss whose slope along the moves is small, near its minimum, still shows float32's
+    # units there: inside16-1200851, bfloat16 inside float32 arrays, once taken for float32).
+    wider_unchanged = all(looks.loss(wider, grid) == rounded for wider in (WIDER_TINY, -WIDER_TINY))
+    if wider_unchanged:
+        unchanged = max(unchanged, WIDER_TINY)
     if not live(_first_order(looks, grid, rounded)):
         # A loss near its minimum along the even move (every param scaled alike) barely changes
         # along it: the evidence is then read along a move of random signs, which float32 code
@@ -274,9 +281,8 @@ def _sixteen_bits(looks: _Looks, f0: float, out_dtype: np.dtype, unchanged: floa
                 return None
         if not live(_first_order(looks, grid, rounded, ACROSS)):
             return None
-    for wider in (WIDER_TINY, -WIDER_TINY):  # float32 code whose values carry offsets sees these
-        if looks.loss(wider, grid) != rounded:
-            return None
+    if not wider_unchanged:  # float32 code whose values carry offsets sees these
+        return None
     if looks.loss(TINY, grid, np.random.default_rng(1), spread=True) != rounded:
         return None  # float32 code whose loss cancels along the even moves sees random signs and sizes
     said = f" although its params are {out_dtype} (moving every param by 2**-18 of its size left the loss bitwise unchanged"
