@@ -26,9 +26,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..common.status import FAIL, KINK
 from .probe import TensorProbe
-from .verdict import Judged, most_decisive
+from .verdict import Judged, as_kinks, crossed_failures
 
 LOOKED = 8  # failed coordinates per tensor looked at
 SPACINGS = 64.0  # the smallest step, in spacings of x
@@ -38,13 +37,11 @@ STEADY = 3  # consecutive rows agreeing within their rounding: a side seen (a 4-
 
 def jump_kinks(probe: TensorProbe, flat: np.ndarray, judged: Judged) -> Judged:
     """``judged`` with the failures the module's note names judged `kink`."""
-    if (probe.compute_dtype != np.dtype(np.float64) or probe.x.dtype != np.dtype(np.float64)
-            or probe.narrow is not None or probe.own_code is not None or judged.crossed is None):
+    if probe.x.dtype != np.dtype(np.float64):
         return judged
-    failed = np.flatnonzero((judged.status == FAIL) & judged.crossed)
+    failed = crossed_failures(probe, flat, judged, LOOKED)
     if failed.size == 0:
         return judged
-    failed = most_decisive(probe, flat, judged, failed)[:LOOKED]
     where = flat[failed]
     n = where.size
     # spacings of x, or of the tensor's rms where x is far smaller (a bias at 0)
@@ -64,12 +61,7 @@ def jump_kinks(probe: TensorProbe, flat: np.ndarray, judged: Judged) -> Judged:
     with np.errstate(invalid="ignore"):
         jump = hi - lo > tol + lo_err + hi_err
         between = (a >= lo - tol - lo_err) & (a <= hi + tol + hi_err)
-    k = failed[jump & between]
-    if k.size == 0:
-        return judged
-    status = judged.status.copy()
-    status[k] = KINK
-    return Judged(status, judged.estimate, judged.reasons, judged.noise_limited, judged.crossed)
+    return as_kinks(judged, failed[jump & between])
 
 
 def _seen(q: np.ndarray, noise: np.ndarray, moved: np.ndarray, asked: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

@@ -23,9 +23,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..common.status import FAIL, KINK
 from .probe import TensorProbe
-from .verdict import SIGNIFICANCE, Judged, most_decisive
+from .verdict import SIGNIFICANCE, Judged, as_kinks, crossed_failures
 
 SLIVERS = 8  # failed coordinates per tensor looked at beside the point
 DELTA_SHARE = 2.0**-20  # of the coordinate's first step (eps**(1/3) max(1, |x|)): about 6e-12 there
@@ -34,29 +33,21 @@ SPACINGS = 64.0  # and at least this many spacings of x
 
 def sliver_kinks(probe: TensorProbe, flat: np.ndarray, judged: Judged) -> Judged:
     """``judged`` with the failures the module's note names judged `kink`."""
-    if (probe.compute_dtype != np.dtype(np.float64) or probe.narrow is not None or probe.own_code is not None
-            or probe.beside is None or judged.crossed is None):
+    beside = probe.beside
+    failed = crossed_failures(probe, flat, judged, SLIVERS)
+    if beside is None or failed.size == 0:
         return judged
-    failed = np.flatnonzero((judged.status == FAIL) & judged.crossed)
-    if failed.size == 0:
-        return judged
-    failed = most_decisive(probe, flat, judged, failed)[:SLIVERS]
     where = flat[failed]
     x = np.abs(probe.x[where].astype(np.float64))
     delta = np.maximum(DELTA_SHARE * probe.prior_steps(where), SPACINGS * np.spacing(x))
-    values = probe.beside(where, delta)
+    values = beside(where, delta)
     if values is None:
         return judged
     n, err = judged.estimate.value[failed], judged.estimate.error[failed]
     allowed = probe.tolerance(where, n) + SIGNIFICANCE * err
     with np.errstate(invalid="ignore"):
         right = np.all(np.abs(values - n[None, :]) <= allowed[None, :], axis=0)
-    k = failed[right]
-    if k.size == 0:
-        return judged
-    status = judged.status.copy()
-    status[k] = KINK
-    return Judged(status, judged.estimate, judged.reasons, judged.noise_limited, judged.crossed)
+    return as_kinks(judged, failed[right])
 
 
 __all__ = ["sliver_kinks"]

@@ -197,6 +197,26 @@ CROSSING = (UNSETTLED, NEAR_KINK, CROWDED, UNRESOLVED, SHARED_POINT, CLOSE_NEITH
             OUTSIDE_SIDES, BOUNDED)
 
 
+def crossed_failures(probe: TensorProbe, flat: np.ndarray, judged: Judged, most: int) -> np.ndarray:
+    """Positions (in ``flat``) of the failures whose ladders crossed kinks among their steps,
+    of float64 code judged on its own run, the most decisive first, at most ``most`` (none
+    for other code, or where the ladders did not say)."""
+    if (probe.compute_dtype != np.dtype(np.float64) or probe.narrow is not None or probe.own_code is not None
+            or judged.crossed is None):
+        return np.zeros(0, dtype=np.int64)
+    failed = np.flatnonzero((judged.status == FAIL) & judged.crossed)
+    return most_decisive(probe, flat, judged, failed)[:most]
+
+
+def as_kinks(judged: Judged, which: np.ndarray) -> Judged:
+    """``judged`` with the coordinates at positions ``which`` judged `kink`."""
+    if which.size == 0:
+        return judged
+    status = judged.status.copy()
+    status[which] = KINK
+    return Judged(status, judged.estimate, judged.reasons, judged.noise_limited, judged.crossed)
+
+
 def most_decisive(probe: TensorProbe, flat: np.ndarray, judged: Judged, which: np.ndarray) -> np.ndarray:
     """Positions ``which`` (in ``flat``) ordered by how many of its bounds each one's analytic
     value lies from its estimate in ``judged``, the most first (ties in their order)."""
