@@ -49,7 +49,7 @@ def jump_kinks(probe: TensorProbe, flat: np.ndarray, judged: Judged) -> Judged:
     asked = smallest[None, :] * 2.0 ** np.arange(ROWS)[:, None]
     p = probe.pairs(np.tile(where, ROWS), asked.reshape(-1))
     h_plus, h_minus = p.h_plus.reshape(ROWS, n), p.h_minus.reshape(ROWS, n)
-    rounding = (p.noise.reshape(ROWS, n) + probe.loss_noise(np.full(n, probe.f0))[None, :])
+    rounding = p.noise.reshape(ROWS, n) + probe.loss_noise(np.full(n, probe.f0))[None, :]
     with np.errstate(invalid="ignore", over="ignore", divide="ignore"):
         right = _seen((p.f_plus.reshape(ROWS, n) - probe.f0) / h_plus, rounding / h_plus, h_plus, asked)
         left = _seen((probe.f0 - p.f_minus.reshape(ROWS, n)) / h_minus, rounding / h_minus, h_minus, asked)

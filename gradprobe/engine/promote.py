@@ -162,9 +162,10 @@ def _promoted(
 def _forward_reference(code_dtype: np.dtype, wide_dtype: np.dtype) -> bool:
     """Narrow code whose backward returns its narrow gradient whatever it is given: its
     forward's wider run is the numeric reference where that run is float64 (float32 code
-    too: its own loss's rounding leaves a fifth of small float32 networks undecided where
-    float64 numerics resolve them), or float32 for 16-bit code (one model of unit roundoff:
-    the wider run resolves what the narrow arithmetic cannot)."""
+    too: its own loss's rounding left 382 of 1,661 correct targets of the adversarial
+    generator's float32back category undecided, float64 numerics none), or float32 for 16-bit
+    code (one model of unit roundoff: the wider run resolves what the narrow arithmetic
+    cannot)."""
     return is_narrow(code_dtype) and (wide_dtype == np.dtype(np.float64) or reference_only(code_dtype))
 
 
