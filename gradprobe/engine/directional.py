@@ -19,7 +19,9 @@ from ..common.classes import dataclass
 from ..report.model import DirectionResult
 from .directions import DIRECTION_SIGNIFICANCE as SIGNIFICANCE
 from .directions import ELEMENT_AIM, DirectionCheck, check_direction
-from .drawn import Vector, unit_direction
+from .drawn import Vector, unit_direction, without
+from .kink_split import BUDGET as KINK_BUDGET
+from .kink_split import split_kinks
 from .locate import locate
 from .move_noise import moved_loss_scale
 from .probe import TensorProbe
@@ -89,9 +91,14 @@ def _evidence(checks: list[DirectionCheck]) -> int:
     return sum(1 for c in checks if c.significant or c.agrees)
 
 
-def _undecided_reason(probe: TensorProbe, checks: list[DirectionCheck], rounding: bool = False) -> str:
+def _undecided_reason(probe: TensorProbe, checks: list[DirectionCheck], rounding: bool = False,
+                      hidden: str | None = None) -> str:
     """Why no direction decided a tensor too large to sweep (``rounding``: or one whose
-    directions only the loss's rounding kept from the threshold, which a sweep resolves less)."""
+    directions only the loss's rounding kept from the threshold, which a sweep resolves less;
+    ``hidden``: why leaving out the elements at kinks at the point did not help)."""
+    if hidden is not None:
+        seen = f"{probe.size} elements, more than are swept ({SWEEP_UNDECIDED})"
+        return f"{hidden}; the tensor has {seen}, so no element's error outside the checked coordinates could be resolved"
     kinked = sum(1 for c in checks if c.kink)
     smooth = [c for c in checks if not c.kink]
     said = f"{len(checks)} random-direction checks could not resolve the threshold"
@@ -122,51 +129,114 @@ def _moved_rounding(probe: TensorProbe, seed: int) -> bool:
     return scale > 0.0
 
 
+@dataclass
+class _Drawn:
+    """The checks drawn so far, what their localisation found, and what it left undecided."""
+
+    checks: list[DirectionCheck]
+    found: list[np.ndarray]
+    undecided: list[tuple[int, int]]
+    located: int | None = None
+    moved_measured: bool = False
+    kinked: Vector | None = None  # the first direction kinked at every step
+
+
+def _draw(probe: TensorProbe, count: int, rng: np.random.Generator, seed: int, stop_early: bool,
+          drawn: _Drawn, holes: np.ndarray | None = None) -> None:
+    """Draw directions (with ``holes``: their elements left at 0) until ``count`` of them
+    decide something or the budget of replacements is spent; localise each significant one."""
+    everything = slice(0, probe.size)
+    small = probe.size <= SWEEP_UNDECIDED
+    start = len(drawn.checks)
+    budget = count * (1 + EXTRA_DIRECTIONS)
+    while _evidence(drawn.checks[start:]) < count and len(drawn.checks) - start < budget:
+        u = unit_direction(probe.size, rng)
+        if holes is not None:
+            u = without(u, holes)
+        check = check_direction(probe, everything, u, enough=_enough(probe), threshold=True)
+        if not check.agrees and not drawn.moved_measured:
+            drawn.moved_measured = True  # once per tensor, where a direction first fails to agree
+            if _moved_rounding(probe, seed):
+                check = check_direction(probe, everything, u, enough=_enough(probe), threshold=True)
+        drawn.checks.append(check)
+        if check.kink and drawn.kinked is None:
+            drawn.kinked = u
+        if _steep(check) and small:
+            break  # steeper than any step resolves: the coordinates decide (swept below)
+        if not check.significant:
+            continue
+        where = locate(probe, u, check.discrepancy, check.error)
+        drawn.located = (drawn.located or 0) + where.evaluations
+        drawn.found.append(where.candidates)
+        drawn.undecided.extend(where.undecided)
+        if stop_early and not where.undecided and _plain(probe, u, check, where.candidates):
+            break
+
+
+SPLIT_ROUNDS = 3  # splits of a kinked direction, each after directions that left out the last's finds
+
+
+def _hidden_by_kinks(probe: TensorProbe, count: int, rng: np.random.Generator, seed: int,
+                     stop_early: bool, drawn: _Drawn) -> tuple[bool, str | None]:
+    """Where kinks hid every direction: find their elements (:mod:`.kink_split`), check them
+    coordinate-wise, and draw directions that leave them out; where those are kinked still
+    (an element whose weight in the split direction hid its kink), split one of them too.
+    (still blind, why)."""
+    if (drawn.kinked is None or _evidence(drawn.checks) > 0
+            or any(c.significant for c in drawn.checks)):
+        return False, None
+    holes = np.empty(0, dtype=np.int64)
+    spent = 0
+    for _ in range(SPLIT_ROUNDS):
+        split = split_kinks(probe, drawn.kinked, KINK_BUDGET - spent)
+        spent += split.evaluations
+        drawn.located = (drawn.located or 0) + split.evaluations
+        holes = np.union1d(holes, split.kinked)
+        drawn.found.append(split.kinked)
+        if not split.complete:
+            return True, (f"random directions crossed kinks at the point at every step, at more elements "
+                          f"than {spent} evaluations could find (found {holes.size})")
+        if holes.size >= probe.size:
+            return False, None  # every element is kinked: the coordinates decide alone
+        start = len(drawn.checks)
+        drawn.kinked = None
+        _draw(probe, count, rng, seed, stop_early, drawn, holes=holes)
+        if (_evidence(drawn.checks[start:]) >= count or any(c.significant for c in drawn.checks[start:])
+                or drawn.kinked is None or split.kinked.size == 0):
+            break
+    if _evidence(drawn.checks[start:]) < count and not any(c.significant for c in drawn.checks[start:]):
+        return True, (f"random directions crossed kinks at every step, also without the "
+                      f"{holes.size} elements found at kinks at the point")
+    return False, None
+
+
 def directional(
     probe: TensorProbe, count: int, seed: int, stop_early: bool = True, sampled: bool = False
 ) -> Directional:
     """``count`` directional checks of the probed tensor (a direction hidden by kinks or
     whose bound cannot resolve the threshold is replaced, twice at most), each significant
     one localised; with ``stop_early`` (the default plan, not a count the user asked for),
-    none after one whose candidates plainly fail. Where too few directions decide anything
-    (``sampled``: coordinates are sampled beside them, which stand for kinked directions),
-    the tensor is swept when small enough, else left unresolved with the reason."""
+    none after one whose candidates plainly fail. Where kinks at the point hid every
+    direction, their elements are found and left out of directions drawn again. Where too
+    few directions decide anything (``sampled``: coordinates are sampled beside them, which
+    stand for directions kinked a step away), the tensor is swept when small enough, else
+    left unresolved with the reason."""
     rng = tensor_rng(seed, probe.tensor, "directions")
-    everything = slice(0, probe.size)
-    checks: list[DirectionCheck] = []
-    found: list[np.ndarray] = []
-    undecided: list[tuple[int, int]] = []
-    located: int | None = None
-    budget = count * (1 + EXTRA_DIRECTIONS)
+    drawn = _Drawn([], [], [])
+    _draw(probe, count, rng, seed, stop_early, drawn)
+    hidden, why = _hidden_by_kinks(probe, count, rng, seed, stop_early, drawn)
+    checks, undecided, located = drawn.checks, drawn.undecided, drawn.located
     small = probe.size <= SWEEP_UNDECIDED
-    moved_measured = False
-    while _evidence(checks) < count and len(checks) < budget:
-        u = unit_direction(probe.size, rng)
-        check = check_direction(probe, everything, u, enough=_enough(probe), threshold=True)
-        if not check.agrees and not moved_measured:
-            moved_measured = True  # once per tensor, where a direction first fails to agree
-            if _moved_rounding(probe, seed):
-                check = check_direction(probe, everything, u, enough=_enough(probe), threshold=True)
-        checks.append(check)
-        if _steep(check) and small:
-            break  # steeper than any step resolves: the coordinates decide (swept below)
-        if not check.significant:
-            continue
-        where = locate(probe, u, check.discrepancy, check.error)
-        located = (located or 0) + where.evaluations
-        found.append(where.candidates)
-        undecided.extend(where.undecided)
-        if stop_early and not where.undecided and _plain(probe, u, check, where.candidates):
-            break
-    candidates = np.unique(np.concatenate(found)) if found else np.empty(0, dtype=np.int64)
+    candidates = np.unique(np.concatenate(drawn.found)) if drawn.found else np.empty(0, dtype=np.int64)
     unresolved = None
     blind = any(c.unresolved for c in checks)
     steep = any(_steep(c) for c in checks)
     if (_evidence(checks) < count and not any(c.significant for c in checks)
-            and (not sampled or blind)) or (small and steep):
-        # Too few directions decided anything (bounds that cannot resolve the threshold, or
-        # kinks with no sampled coordinate beside them), or a small tensor had a steep
-        # direction: none of them counts as agreement. The whole tensor is undecided.
+            and (not sampled or blind or hidden)) or (small and steep):
+        # Too few directions decided anything (bounds that cannot resolve the threshold,
+        # kinks with no sampled coordinate beside them, or kinks at the point that could not
+        # be left out), or a small tensor had a steep direction: none of them counts as
+        # agreement. The whole tensor is undecided.
         if blind and not steep and not any(c.kink for c in checks):
             # Only the loss's rounding kept the bounds from the threshold: a coordinate's
             # steps stay within its element's own scale while a direction's reach sqrt(n)
@@ -182,7 +252,7 @@ def directional(
             swept = np.concatenate([np.arange(a, b, dtype=np.int64) for a, b in ranges])
             candidates = np.union1d(candidates, swept)
         elif not any(c.significant for c in checks):
-            unresolved = _undecided_reason(probe, checks)
+            unresolved = _undecided_reason(probe, checks, hidden=why)
         else:
             worst = max((c for c in checks if c.significant), key=lambda c: abs(c.discrepancy) / c.error)
             seen = _resolution(probe, checks)

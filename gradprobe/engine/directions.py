@@ -160,6 +160,27 @@ def _climbed(probe: TensorProbe, part: slice, u: Vector, t0: float, central: Est
     return central if mean is None or not _sides_agree(mean) else Estimate.better(central, mean[0])
 
 
+def kink_ladders(probe: TensorProbe, part: slice, u: Vector, rows: int) -> tuple[bool, float, tuple]:
+    """(kinked, the last ladder's first step, that ladder): ladders of ``rows`` steps from the
+    first step, then 16 and 4096 times smaller where the sides disagree (a kink within the
+    steps). A smaller ladder clears a kink only where it could have shown the gap seen before:
+    a kink at the point keeps its gap at every step, and where rounding swamps that gap the
+    sides merely cannot tell (a central estimate there is no evidence)."""
+    t0 = first_step(probe, part)
+    seen = 0.0  # the gap between the sides where a kink was last seen
+    for attempt in range(RETRIES + 1):
+        ladder = _ladder(probe, part, u, t0, rows)
+        left, right = ladder[1], ladder[2]
+        gap = abs(float(right.value[0] - left.value[0]))
+        reach = DIRECTION_SIGNIFICANCE * float(left.error[0] + right.error[0])
+        if gap <= reach and not 2.0 * reach > seen > 0.0:
+            return False, t0, ladder
+        seen = max(seen, gap) if gap > reach else seen
+        if attempt < RETRIES:
+            t0 /= SHRINK ** (attempt + 1)
+    return True, t0, ladder
+
+
 def check_direction(
     probe: TensorProbe, part: slice, u: Vector, rows: int = ROWS, enough: float = 0.0,
     threshold: bool = False,
@@ -171,15 +192,7 @@ def check_direction(
     where truncation keeps the bound from resolving the probe's threshold, and a check
     whose bound still cannot is marked unresolved (no evidence of agreement)."""
     before = probe.evaluator.count
-    t0 = first_step(probe, part)
-    kink = True
-    for attempt in range(RETRIES + 1):
-        central, left, right, noise, raw = _ladder(probe, part, u, t0, rows)
-        gap = abs(float(right.value[0] - left.value[0]))
-        kink = gap > DIRECTION_SIGNIFICANCE * float(left.error[0] + right.error[0])
-        if not kink:
-            break
-        t0 /= SHRINK ** (attempt + 1)
+    kink, t0, (central, left, right, noise, raw) = kink_ladders(probe, part, u, rows)
     bound = float(central.error[0])
     if not kink and bound > enough and noise <= 0.5 * bound and rows < DEEP_ROWS:
         # Smooth and limited by the steps' size, not by rounding: the same ladder further

@@ -25,8 +25,9 @@ class Direction:
     direction then holds no array of the tensor's size."""
 
     def __init__(self, states: Sequence[Mapping[str, Any]], kind: type, norm: float, lo: int,
-                 hi: int) -> None:
+                 hi: int, holes: np.ndarray | None = None) -> None:
         self._states, self._kind, self._norm, self.lo, self.hi = states, kind, norm, lo, hi
+        self._holes = holes  # sorted flat indices of the whole draw that read as 0, or None
 
     @property
     def size(self) -> int:
@@ -49,6 +50,9 @@ class Direction:
         for lo in range(self.lo, self.hi, step):
             g = rng.standard_normal(min(step, self.hi - lo))
             g /= self._norm
+            if self._holes is not None:
+                at = self._holes[np.searchsorted(self._holes, lo):np.searchsorted(self._holes, lo + g.size)]
+                g[at - lo] = 0.0
             yield g
 
     def __array__(self, dtype=None, copy=None) -> np.ndarray:
@@ -60,11 +64,50 @@ class Direction:
     def __getitem__(self, index):
         if isinstance(index, slice) and index.step in (None, 1):
             lo, hi, _ = index.indices(self.size)
-            return Direction(self._states, self._kind, self._norm, self.lo + lo, self.lo + max(hi, lo))
+            return Direction(self._states, self._kind, self._norm, self.lo + lo, self.lo + max(hi, lo),
+                             self._holes)
         return np.asarray(self)[index]
+
+    def scaled(self, factor: float, holes: np.ndarray | None = None) -> Direction:
+        """The same draws times ``factor`` (with ``holes``, flat indices of the whole draw,
+        read as 0 besides any already)."""
+        if holes is not None and self._holes is not None:
+            holes = np.union1d(self._holes, holes)
+        return Direction(self._states, self._kind, self._norm / factor, self.lo, self.hi,
+                         self._holes if holes is None else holes)
 
 
 Vector = Union[np.ndarray, Direction]  # a direction as an array, or drawn again where read
+
+
+def _square_sum(u: Vector) -> float:
+    if isinstance(u, Direction):
+        return float(sum(float(b @ b) for b in u.blocks(DRAW_BLOCK)))
+    return float(u @ u)
+
+
+def unit_part(u: Vector, lo: int, hi: int) -> Vector:
+    """``u[lo:hi]`` scaled to unit length (a part that is all 0 is returned as it is)."""
+    part = u[lo:hi]
+    norm = _square_sum(part) ** 0.5
+    if norm == 0.0:
+        return part
+    return part.scaled(1.0 / norm) if isinstance(part, Direction) else part / norm
+
+
+def without(u: Vector, holes: np.ndarray) -> Vector:
+    """The whole direction ``u`` with its elements at the flat indices ``holes`` set to 0,
+    scaled back to unit length (a direction drawn again where read stays so)."""
+    holes = np.unique(np.asarray(holes, dtype=np.int64))
+    if isinstance(u, Direction):
+        assert u.lo == 0, "holes are flat indices of the whole draw"
+        zeroed = u.scaled(1.0, holes)
+        norm = _square_sum(zeroed) ** 0.5
+        return zeroed if norm == 0.0 else zeroed.scaled(1.0 / norm)
+    v = np.array(u, dtype=np.float64)
+    v[holes] = 0.0
+    norm = float(np.linalg.norm(v))
+    return v if norm == 0.0 else v / norm
 
 
 def unit_direction(size: int, rng: np.random.Generator) -> Vector:
@@ -96,4 +139,5 @@ def dot(a: np.ndarray, u: Vector) -> float:
     return float(sum(float(a[k:k + b.size] @ b) for k, b in zip(range(0, u.size, DRAW_BLOCK), blocks)))
 
 
-__all__ = ["DRAW_BLOCK", "LAZY_DIRECTION", "Direction", "Vector", "dot", "unit_direction"]
+__all__ = ["DRAW_BLOCK", "LAZY_DIRECTION", "Direction", "Vector", "dot", "unit_direction", "unit_part",
+           "without"]
