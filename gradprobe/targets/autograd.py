@@ -29,10 +29,13 @@ def _wrt(boundary: Boundary, library: str) -> list[str]:
 
 
 def torch_vjp(forward: Callable[..., Any], params: Any, inputs: Any, wrt: Mapping[str, Any],
-              grad_output: Any = None, create_graph: bool = False) -> tuple[Any, dict[str, Any]]:
+              grad_output: Any = None, create_graph: bool = False,
+              given: frozenset[str] = frozenset()) -> tuple[Any, dict[str, Any]]:
     """forward's result and the gradient of ``sum(grad_output * forward)`` (of the scalar
     forward when ``grad_output`` is None) with respect to the tensors ``wrt`` (leaves that
-    require grad, used inside ``params``/``inputs``); zeros for tensors it does not use."""
+    require grad, used inside ``params``/``inputs``); zeros for tensors it does not use, or
+    whose rules give no gradient (None), except those named in ``given``, which are left out
+    (inputs: their gradient is optional, as a backward's entry for an input is)."""
     import torch
 
     with torch.enable_grad():
@@ -45,7 +48,8 @@ def torch_vjp(forward: Callable[..., Any], params: Any, inputs: Any, wrt: Mappin
         seed = torch.ones_like(out) if grad_output is None else grad_output.to(out.dtype).reshape(out.shape)
         found = torch.autograd.grad(out, list(wrt.values()), grad_outputs=seed, allow_unused=True,
                                     create_graph=create_graph)
-    grads = {n: torch.zeros_like(t) if g is None else g for (n, t), g in zip(wrt.items(), found)}
+    grads = {n: torch.zeros_like(t) if g is None else g for (n, t), g in zip(wrt.items(), found)
+             if g is not None or n not in given}
     return out, grads
 
 
@@ -174,7 +178,9 @@ class ReverseMode:
         if self.library == "torch":
             for t in wrt.values():
                 t.requires_grad_(True)
-            out, grads = torch_vjp(self._forward, p, i, wrt, seed)
+            # An input whose rules give no gradient (None: data, not differentiable by
+            # design) is not checked, as an input a backward leaves out is not.
+            out, grads = torch_vjp(self._forward, p, i, wrt, seed, given=frozenset(flatten(i)))
             if self.rules is None:
                 self.rules = torch_rules(out)
             return {n: g.detach() for n, g in grads.items()}
