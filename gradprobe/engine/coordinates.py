@@ -38,11 +38,12 @@ from .promote import coarse_note, coarse_passes
 from .sixteen_verdicts import measured_passes
 from .steep_noise import on_measured_rounding
 from .richardson import first_steps, joined, rows_of, settled, two_rows_settle
-from ..common.roundoff import is_narrow
+from ..common.roundoff import is_narrow, unit_roundoff
 from .ladder_verdicts import ladder_verdicts
 from .measured_failures import failures_on_measured_rounding
 from .sliver import sliver_kinks
 from .jump_at_point import jump_kinks
+from .below_windows import kept_where_contradicted
 from .verdict import NOISE, Judged, judge_plain, scaleless
 
 RECHECK_LIMIT = 400  # coordinates per tensor re-estimated on a ladder
@@ -125,8 +126,10 @@ def _central(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
     todo = np.flatnonzero(~settled | suspects | (judged.status == INCONCLUSIVE))
     if todo.size == 0:
         return judged
-    if todo.size > RECHECK_LIMIT:  # the worst first, within budget
-        order = np.argsort(-np.abs(a[todo] - c[todo]), kind="stable")
+    if todo.size > RECHECK_LIMIT:  # kinks the first pair flagged, then the worst, within budget
+        # (a kink's central quotient can agree exactly, |a - c| = 0, and pass on the first pair
+        # only where the budget ran short: pass or kink by how many others needed a ladder)
+        order = np.lexsort((-np.abs(a[todo] - c[todo]), ~suspects[todo]))
         beyond = np.sort(todo[order[RECHECK_LIMIT:]])
         judged = judged.merged(beyond, _validated_failures(probe, flat[beyond], _pick(first, beyond),
                                                            h[beyond], judged.pick(beyond)))
@@ -161,19 +164,31 @@ def _widened(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken: list[T
     ladders, judged on much wider steps (:func:`.wide_steps.wide_estimate`) where those
     decide them."""
     if not is_narrow(probe.compute_dtype):
-        return judged
+        return _wide_steps(probe, flat, judged, taken, narrow=False)
     return tightened(probe, flat, judged, lambda j: _wide_steps(probe, flat, j, taken))
 
 
-def _wide_steps(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken: list[Taken]) -> Judged:
-    """The stage of :func:`_widened` on ``judged``: coordinates undecided by rounding noise."""
+def _wide_steps(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken: list[Taken],
+                narrow: bool = True) -> Judged:
+    """The stage of :func:`_widened` on ``judged``: coordinates undecided by rounding noise
+    (``narrow``: narrow arithmetic, whose own measured rounding judges what stays undecided)."""
     noisy = np.flatnonzero((judged.status == INCONCLUSIVE) & np.array([r == NOISE for r in judged.reasons], dtype=bool))
     if noisy.size == 0:
         return judged
+    before = judged
     wide = judge_plain(probe, flat[noisy], wide_estimate(probe, flat[noisy], taken))
-    decided = np.flatnonzero(wide.status != INCONCLUSIVE)
-    judged = judged_on_own_rounding(probe, flat, judged.merged(noisy[decided], wide.pick(decided)), taken)
-    return measured_passes(probe, flat, judged, taken)  # 16-bit arithmetic: passes on its measured rounding
+    # float64 code: only agreement counts. Its ladders' kink and pole logic saw these
+    # coordinates at steps far below the windows', and a window past a pole can follow the
+    # model by chance (steep-880294 failed a correct coordinate at -2e9 against 6e5).
+    decided = np.flatnonzero(wide.status != INCONCLUSIVE if narrow else wide.status == PASS)
+    judged = judged.merged(noisy[decided], wide.pick(decided))
+    if narrow:
+        judged = judged_on_own_rounding(probe, flat, judged, taken)
+    if unit_roundoff(probe.compute_dtype) < unit_roundoff(np.float16):
+        # What the wide steps decided stands where the smaller steps' quotients agree with it
+        # (16-bit quotients below the wide steps are a staircase, not a rounding to allow for).
+        judged = kept_where_contradicted(probe, flat, before, judged, noisy, taken)
+    return measured_passes(probe, flat, judged, taken) if narrow else judged  # 16-bit: passes on measured rounding
 
 
 def _validated_failures(probe: TensorProbe, flat: np.ndarray, first: Pairs, h: np.ndarray, plain: Judged) -> Judged:
