@@ -138,7 +138,7 @@ def test_a_float16_kernel_in_float64_arrays_is_found(seed):
 
 
 # An odd loss of params placed symmetrically about 0 (np.linspace(-1, 1, n)) cancels along the
-# even move of 2**-36 in float64 as well, and its tiny nonzero value (linspace's rounding) made the
+# even move of 2**-30 (2**-36 then) in float64 as well, and its tiny nonzero value (linspace's rounding) made the
 # move's expected change look resolvable: float64 code was taken as float32 and judged at 4.9e-4,
 # so a gradient 1e-4 off passed. Derivatives: d/dx sin x = cos x (Abramowitz & Stegun 4.3.105),
 # d/dx tanh x = sech^2 x = 1 - tanh^2 x (A&S 4.5.71 family).

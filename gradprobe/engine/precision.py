@@ -1,12 +1,16 @@
 """Noticing a forward that computes in a narrower type than the arrays it is handed.
 
 float32 inside float64 arrays: every float64 param is first rounded to float32 (a point
-float32 code sees exactly) and then moved by 2**-36 of its size, far below float32's
-resolution (2**-24) but well above float64's (2**-53). Float64 code sees the move; float32
+float32 code sees exactly) and then moved by 2**-30 of its size, below half float32's
+spacing (2**-25 of a value at least, so float32 rounds it back) but far above float64's
+(2**-53). Float64 code sees the move; float32
 code gives a bitwise identical loss. So does float64 code whose loss cancels along that even
 move (an odd function of params placed symmetrically about 0, a scale-invariant loss): a
-float32 verdict also needs the loss unchanged by a move of random signs and sizes up to 2**-36. A third call with a move of 2**-12 confirms that the
-loss depends on the params at all, and how large the float64 change would have been.
+float32 verdict also needs the loss unchanged by a move of random signs and sizes up to 2**-30. A third call with a move of 2**-12 confirms that the
+loss depends on the params at all, and how large the float64 change would have been. Where the
+loss hardly changes along the even move (a norm layer is scale-invariant), the same two looks
+are taken along a move of random signs and sizes. Floating inputs are moved with the params
+(a softmax is shift-invariant in a scalar param, not in the logits it is fed).
 
 float16 or bfloat16 inside float64 or float32 arrays (a cast to a 16-bit type around the
 arithmetic): every param is rounded to bfloat16, a point on the grid of both 16-bit types
@@ -42,11 +46,11 @@ import numpy as np
 
 from ..common.classes import dataclass
 from ..common.errors import BadOutputError, UserCodeError
-from ..common.tensors import Workspace
+from ..common.tensors import Workspace, is_float
 from .evaluate import Perturbation
 from .evaluator import Evaluator
 
-SMALL = 2.0**-36
+SMALL = 2.0**-30  # below half float32's spacing (2**-25 of a value at least): it rounds back
 LARGE = 2.0**-12
 TINY = 2.0**-18  # far below the 16-bit types' resolution, tens of units of float32's
 SIXTEEN_LARGE = 2.0**-4  # a move every 16-bit type resolves, up and down
@@ -153,41 +157,67 @@ def narrower_compute_type(
     source: Workspace | None = None,
 ) -> HiddenType | None:
     """The narrower type a float64 or float32 forward demonstrably computes in, else None
-    (2 to 18 calls). ``source``: a workspace holding ``ws``'s values exactly in a narrower
+    (2 to 20 calls). ``source``: a workspace holding ``ws``'s values exactly in a narrower
     type (the moves are then made in place and put back from it, see :class:`_Looks`)."""
     out_dtype = np.dtype(out_dtype)
     if out_dtype not in (np.dtype(np.float64), np.dtype(np.float32)):
         return None
-    names = [n for n in ws.param_names if ws.owners[n].dtype == out_dtype and ws.owners[n].any()]
-    if not names:
+    params = [n for n in ws.param_names if ws.owners[n].dtype == out_dtype and ws.owners[n].any()]
+    inputs = [n for n in ws.names() if n not in ws.param_names and is_float(ws.owners[n])
+              and ws.owners[n].dtype == out_dtype and ws.owners[n].any()]
+    if not params and not inputs:
         return None
     found: HiddenType | None = None
     unchanged = TINY  # the largest move known to leave the loss bitwise unchanged
-    looks = _Looks(evaluator, ws, names, source)
+    looks = _Looks(evaluator, ws, params, source)
     try:
         if out_dtype == np.float64:
-            rounded = looks.loss(0.0, np.dtype(np.float32))
-            nudged = looks.loss(SMALL, np.dtype(np.float32))
-            if nudged != rounded:
-                return None
-            moved = looks.loss(LARGE, np.dtype(np.float32))
-            expected = abs(moved - rounded) * (SMALL / LARGE)
-            if expected > LIVE * np.finfo(np.float64).eps * max(abs(rounded), abs(f0)):
-                if looks.loss(SMALL, np.dtype(np.float32), np.random.default_rng(1), spread=True) != rounded:
-                    return None  # the loss cancels along the even move (odd in params symmetric
-                    # about 0, or scale-invariant): float64 code sees a move of random signs and sizes
-                found = HiddenType(
-                    np.dtype(np.float32),
-                    " although its params are float64 (moving every param by 2**-36 of its size left "
-                    "the loss bitwise unchanged)",
-                )
-            elif moved != rounded:
-                return None  # it sees 2**-12 though the change is too small to tell: no evidence
+            seen = _float32_inside(looks, f0) if params else SILENT
+            if seen == SILENT and inputs:
+                # The params' moves hardly change the loss (a softmax is shift-invariant in a
+                # scalar param): the same looks with the floating inputs moved too.
+                seen = _float32_inside(_Looks(evaluator, ws, params + inputs, source), f0)
+            if seen in (WIDER_SEEN, SILENT):
+                return None  # float64 code, or no evidence either way
+            if isinstance(seen, HiddenType):
+                found = seen
             else:
                 unchanged = LARGE  # wider code would see 2**-12 of a loss that changes at all
+        if not params:
+            return found  # the 16-bit looks move params alone (inputs may enter outside a kernel)
         return _sixteen_bits(looks, f0, out_dtype, unchanged) or found
     except (UserCodeError, BadOutputError):
         return found  # the moved points are outside forward's domain: no more evidence
+
+
+WIDER_SEEN, SILENT, UNMOVED = "wider", "silent", "unmoved"  # what the float32 looks showed
+
+
+def _float32_inside(looks: _Looks, f0: float) -> HiddenType | str:
+    """Float32 arithmetic inside float64 arrays, by moves of the looks' tensors rounded to
+    float32 (2 to 5 calls): the type found, WIDER_SEEN (float64 code), SILENT (no move
+    changes the loss enough to tell) or UNMOVED (nor at all: a loss that changes would
+    have shown a move of 2**-12)."""
+    rounded = looks.loss(0.0, np.dtype(np.float32))
+    if looks.loss(SMALL, np.dtype(np.float32)) != rounded:
+        return WIDER_SEEN
+    live = LIVE * np.finfo(np.float64).eps * max(abs(rounded), abs(f0))
+    moved = looks.loss(LARGE, np.dtype(np.float32))
+    if abs(moved - rounded) * (SMALL / LARGE) > live:
+        if looks.loss(SMALL, np.dtype(np.float32), np.random.default_rng(1), spread=True) != rounded:
+            return WIDER_SEEN  # the loss cancels along the even move (odd in params symmetric
+            # about 0, or scale-invariant): float64 code sees a move of random signs and sizes
+        return HiddenType(np.dtype(np.float32), " although its params are float64 (moving every param "
+                          "by 2**-30 of its size left the loss bitwise unchanged)")
+    # The loss hardly changes along the even move (scale-invariant code: a norm layer): the
+    # same look along a move of random signs and sizes.
+    spread = looks.loss(LARGE, np.dtype(np.float32), np.random.default_rng(2), spread=True)
+    if abs(spread - rounded) * (SMALL / LARGE) > live:
+        if looks.loss(SMALL, np.dtype(np.float32), np.random.default_rng(2), spread=True) != rounded:
+            return WIDER_SEEN
+        return HiddenType(np.dtype(np.float32), " although its params are float64 (moving every param "
+                          "by 2**-30 of its size, with random signs, left the loss bitwise unchanged)")
+    return SILENT if moved != rounded else UNMOVED  # 2**-12 seen though too small to tell: no evidence
 
 
 def _on_a_grid(values: list[float], grid: np.dtype) -> bool:
