@@ -1,4 +1,5 @@
-"""Verdicts taken on wide steps, checked against the quotients at the smaller steps.
+"""Verdicts taken on wide steps, checked against the quotients at the smaller steps, and
+failures there that a kink at the point explains.
 
 The wide-step windows (:mod:`.wide_steps` and the judgements on a coordinate's own rounding
 after them) check their error model on their own quotients only. Between the point and the
@@ -12,6 +13,16 @@ agrees with it: within twice its bound, plus how far the quotient at the smalles
 already lies from it (truncation shrinks as the step does where the model holds), plus
 AGREE_UNITS times the quotient's own rounding. Where one does not, the coordinate keeps the
 verdict it had, with the reason.
+
+A kink at the point puts every central quotient at the mean of its sides, however wide the
+steps, and narrow arithmetic's rounding can hide its one-sided gap from the windows' checks:
+16-bit quantile code whose residuals round to exactly 0 failed a correct coordinate at its
+left slope, -0.0208, against central quotients of 0.001 to 0.01. A narrow coordinate the wide
+steps fail is judged `kink` instead where, at two of the wide steps at least, its one-sided
+quotients lie apart beyond KINK_NOISE times their rounding, that gap does not shrink with the
+step as curvature's would (at a step half as wide or less it keeps KINK_STEADY of itself), and the
+analytic value is the same side's quotient at each, within SIDE_UNITS of that side's rounding
+and within SIDE_SHARE of the gap.
 """
 
 from __future__ import annotations
@@ -20,10 +31,14 @@ import numpy as np
 
 from .probe import TensorProbe
 from .refine import Taken
-from .verdict import Judged
+from .verdict import Judged, as_kinks
 from .wide_steps import WIDE_FIRST
 
 AGREE_UNITS = 8.0  # a smaller step's quotient may stray from the verdict by this many of its rounding
+KINK_NOISE = 8.0  # a one-sided gap counts beyond this many of its sides' rounding
+KINK_STEADY = 0.8  # and where it keeps this share of itself as the step halves (curvature's halves)
+SIDE_UNITS = 3.0  # the analytic value is a side's quotient within this many of its rounding
+SIDE_SHARE = 0.25  # and within this share of the gap: nearer that side than the mean of both
 BELOW = ("the quotients at steps below the wide steps disagree with what the wide steps show, "
          "beyond their rounding: the loss changes its character between those steps")
 
@@ -74,3 +89,41 @@ def kept_where_contradicted(probe: TensorProbe, flat: np.ndarray, before: Judged
     back = Judged(back.status, back.estimate, tuple(BELOW for _ in range(int(bad.sum()))), back.noise_limited,
                   back.crossed)
     return after.merged(changed[bad], back)
+
+
+def kinks_beside(probe: TensorProbe, flat: np.ndarray, before: Judged, after: Judged, which: np.ndarray,
+                 taken: list[Taken]) -> Judged:
+    """``after`` with the coordinates ``which`` that it fails (``before`` did not) judged `kink`
+    where a kink at the point explains the failure (see the module)."""
+    from ..common.status import FAIL  # local: the statuses this module needs are few
+
+    failed = which[(after.status[which] == FAIL) & (before.status[which] != FAIL)]
+    if failed.size == 0:
+        return after
+    first_wide = probe.prior_steps(flat[failed]) * 2.0 ** WIDE_FIRST
+    position = {int(k): j for j, k in enumerate(flat[failed])}
+    rows: list[dict[float, tuple[float, float, float]]] = [{} for _ in failed]  # step -> (right, left, rounding)
+    for where, _, pairs in taken:
+        steps = 0.5 * (pairs.h_plus + pairs.h_minus)
+        right, left = pairs.sides(probe.f0)
+        with np.errstate(invalid="ignore", divide="ignore"):
+            rounding = 2.0 * pairs.noise / np.minimum(pairs.h_plus, pairs.h_minus)
+        for i, k in enumerate(where.tolist()):
+            j = position.get(int(k))
+            if j is not None and steps[i] >= first_wide[j] and np.isfinite(right[i] + left[i] + rounding[i]):
+                rows[j][float(steps[i])] = (float(right[i]), float(left[i]), float(rounding[i]))
+    a = probe.a[flat[failed]]
+    kinked = np.zeros(failed.size, dtype=bool)
+    for j, seen in enumerate(rows):
+        apart = [(s, r, l, e) for s, (r, l, e) in sorted(seen.items()) if abs(r - l) > KINK_NOISE * e]
+        pairs = [(p, q) for n, p in enumerate(apart) for q in apart[n + 1:] if q[0] >= 2.0 * p[0]]
+        for (s1, r1, l1, e1), (s2, r2, l2, e2) in pairs:
+            steady = abs(r1 - l1) >= KINK_STEADY * abs(r2 - l2)  # steps twice apart at least
+            near1 = min(SIDE_UNITS * e1, SIDE_SHARE * abs(r1 - l1))
+            near2 = min(SIDE_UNITS * e2, SIDE_SHARE * abs(r2 - l2))
+            on_right = abs(a[j] - r1) <= near1 and abs(a[j] - r2) <= near2
+            on_left = abs(a[j] - l1) <= near1 and abs(a[j] - l2) <= near2
+            if steady and (on_right or on_left):
+                kinked[j] = True
+                break
+    return as_kinks(after, failed[kinked])

@@ -43,7 +43,7 @@ from .ladder_verdicts import ladder_verdicts
 from .measured_failures import failures_on_measured_rounding
 from .sliver import sliver_kinks
 from .jump_at_point import jump_kinks
-from .below_windows import kept_where_contradicted
+from .below_windows import kept_where_contradicted, kinks_beside
 from .verdict import NOISE, Judged, judge_plain, scaleless
 
 RECHECK_LIMIT = 400  # coordinates per tensor re-estimated on a ladder
@@ -188,7 +188,10 @@ def _wide_steps(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken: lis
         # What the wide steps decided stands where the smaller steps' quotients agree with it
         # (16-bit quotients below the wide steps are a staircase, not a rounding to allow for).
         judged = kept_where_contradicted(probe, flat, before, judged, noisy, taken)
-    return measured_passes(probe, flat, judged, taken) if narrow else judged  # 16-bit: passes on measured rounding
+    if not narrow:
+        return judged
+    judged = measured_passes(probe, flat, judged, taken)  # 16-bit arithmetic: passes on its measured rounding
+    return kinks_beside(probe, flat, before, judged, noisy, taken)  # a kink at the point explains a failure?
 
 
 def _validated_failures(probe: TensorProbe, flat: np.ndarray, first: Pairs, h: np.ndarray, plain: Judged) -> Judged:
