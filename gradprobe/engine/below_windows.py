@@ -116,8 +116,8 @@ def kinks_beside(probe: TensorProbe, flat: np.ndarray, before: Judged, after: Ju
     kinked = np.zeros(failed.size, dtype=bool)
     for j, seen in enumerate(rows):
         apart = [(s, r, l, e) for s, (r, l, e) in sorted(seen.items()) if abs(r - l) > KINK_NOISE * e]
-        pairs = [(p, q) for n, p in enumerate(apart) for q in apart[n + 1:] if q[0] >= 2.0 * p[0]]
-        for (s1, r1, l1, e1), (s2, r2, l2, e2) in pairs:
+        spans = [(p, q) for n, p in enumerate(apart) for q in apart[n + 1:] if q[0] >= 2.0 * p[0]]
+        for (s1, r1, l1, e1), (s2, r2, l2, e2) in spans:
             steady = abs(r1 - l1) >= KINK_STEADY * abs(r2 - l2)  # steps twice apart at least
             near1 = min(SIDE_UNITS * e1, SIDE_SHARE * abs(r1 - l1))
             near2 = min(SIDE_UNITS * e2, SIDE_SHARE * abs(r2 - l2))

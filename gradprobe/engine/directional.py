@@ -97,8 +97,8 @@ def _undecided_reason(probe: TensorProbe, checks: list[DirectionCheck], rounding
     directions only the loss's rounding kept from the threshold, which a sweep resolves less;
     ``hidden``: why leaving out the elements at kinks at the point did not help)."""
     if hidden is not None:
-        seen = f"{probe.size} elements, more than are swept ({SWEEP_UNDECIDED})"
-        return f"{hidden}; the tensor has {seen}, so no element's error outside the checked coordinates could be resolved"
+        return (f"{hidden}; the tensor has {probe.size} elements, more than are swept ({SWEEP_UNDECIDED}), "
+                f"so no element's error outside the checked coordinates could be resolved")
     kinked = sum(1 for c in checks if c.kink)
     smooth = [c for c in checks if not c.kink]
     said = f"{len(checks)} random-direction checks could not resolve the threshold"
