@@ -204,9 +204,13 @@ def _hidden_by_kinks(probe: TensorProbe, count: int, rng: np.random.Generator, s
         if (_evidence(drawn.checks[start:]) >= count or any(c.significant for c in drawn.checks[start:])
                 or drawn.kinked is None or split.kinked.size == 0):
             break
-    if _evidence(drawn.checks[start:]) < count and not any(c.significant for c in drawn.checks[start:]):
-        return True, (f"random directions crossed kinks at every step, also without the "
-                      f"{holes.size} elements found at kinks at the point")
+    again = drawn.checks[start:]
+    if _evidence(again) < count and not any(c.significant for c in again):
+        if any(c.kink for c in again):
+            return True, (f"random directions crossed kinks at every step, also without the "
+                          f"{holes.size} elements found at kinks at the point")
+        return True, (f"random directions without the {holes.size} elements found at kinks at the "
+                      f"point could not resolve the threshold")
     return False, None
 
 
