@@ -201,6 +201,15 @@ def test_a_huge_loss_over_a_tiny_slope_leaks_no_overflow_warning():
     assert not o["false_alarm"] and not o["missed"], (o["status"], o["expect"])
 
 
+def test_float64_wide_steps_past_an_overflow_leak_no_warning():
+    """steep-2800251: float64 coordinates that rounding leaves undecided now get the wide-step
+    windows; a side's quotient there overflowed to inf beside a symmetric move (asymmetry 0),
+    and their product printed "invalid value encountered in multiply" on the user's console."""
+    o = judge("steep", 2800251)
+    assert o["own_warnings"] == [], o["own_warnings"]
+    assert not o["false_alarm"] and not o["missed"], (o["status"], o["expect"])
+
+
 def test_a_dropped_steep_gradient_beside_a_far_larger_one_fails_where_resolvable():
     """steep-930795: p0's gradient (a twelfth power, the largest element 116) is left out, beside
     p3's of 8e15 and a loss of 1.8e12. At the ordinary steps the loss does not move; the ladder

@@ -68,7 +68,8 @@ def wide_table(probe: TensorProbe, p: Pairs, rows: int, limit: np.ndarray) -> tu
     # Asymmetric moves (x + h and x - h rounded to the type's grid) leave a first-order term
     # f'' (h+ - h-) / 2 in a central quotient; f'' from the one-sided gap at the same step.
     asymmetry = (np.abs(p.h_plus - p.h_minus) / np.maximum(p.h_plus + p.h_minus, 1e-300)).reshape(rows, n)
-    return d, s, e, right - left, side_noise, asymmetry, limit
+    with np.errstate(invalid="ignore"):  # both sides overflowed: no gap, judged as such
+        return d, s, e, right - left, side_noise, asymmetry, limit
 
 
 def windowed(d: np.ndarray, s: np.ndarray, e: np.ndarray, apart: np.ndarray, side_noise: np.ndarray,
@@ -90,9 +91,10 @@ def windowed_at(d: np.ndarray, s: np.ndarray, e: np.ndarray, apart: np.ndarray, 
     gap = np.abs(apart)
     # The second difference over the step's square, f'' + f'''' s**2 / 12 + ...: the even part
     # of the loss along the coordinate, with its rounding.
-    bend = apart / s
-    bend_noise = 2.0 * side_noise / s
-    e = e + gap * asymmetry
+    with np.errstate(invalid="ignore", over="ignore", divide="ignore"):  # an overflowed side: judged as such
+        bend = apart / s
+        bend_noise = 2.0 * side_noise / s
+        e = e + gap * asymmetry
 
     def richardson(i: int) -> tuple[np.ndarray, np.ndarray]:
         a2, b2 = s[i] ** 2, s[i + 1] ** 2
