@@ -208,6 +208,10 @@ def test_float64_wide_steps_past_an_overflow_leak_no_warning():
     o = judge("steep", 2800251)
     assert o["own_warnings"] == [], o["own_warnings"]
     assert not o["false_alarm"] and not o["missed"], (o["status"], o["expect"])
+    # steep-2900212 with --sample 3: a direction's one-sided quotient overflowed the same way.
+    o = judge("steep", 2900212, sample=3)
+    assert o["own_warnings"] == [], o["own_warnings"]
+    assert not o["false_alarm"], (o["status"], o["expect"])
 
 
 def test_a_dropped_steep_gradient_beside_a_far_larger_one_fails_where_resolvable():

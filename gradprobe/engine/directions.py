@@ -88,11 +88,12 @@ def _ladder(
         values, predicted = np.concatenate([known[0], values]), np.concatenate([known[1], predicted])
     f_plus, f_minus = values[0::2], values[1::2]
     p_plus, p_minus = predicted[0::2], predicted[1::2]
-    right = (f_plus - probe.f0 - p_plus) / steps
-    left = (probe.f0 - f_minus + p_minus) / steps
-    noise = probe.moved_noise(f_plus, f_minus)
-    one_sided = (2.0 * noise / steps)[:, None]
-    central = tableau(((right + left) / 2.0)[:, None], (noise / steps)[:, None], RATIO, 2)
+    with np.errstate(over="ignore", invalid="ignore"):  # losses near the type's range: inf, judged as such
+        right = (f_plus - probe.f0 - p_plus) / steps
+        left = (probe.f0 - f_minus + p_minus) / steps
+        noise = probe.moved_noise(f_plus, f_minus)
+        one_sided = (2.0 * noise / steps)[:, None]
+        central = tableau(((right + left) / 2.0)[:, None], (noise / steps)[:, None], RATIO, 2)
     return (central, tableau(left[:, None], one_sided, RATIO, 1),
             tableau(right[:, None], one_sided, RATIO, 1), float(noise.max() / steps[-1]),
             (values, predicted))
