@@ -36,7 +36,7 @@ from .wide_steps import WIDE_FIRST
 
 AGREE_UNITS = 8.0  # a smaller step's quotient may stray from the verdict by this many of its rounding
 KINK_NOISE = 8.0  # a one-sided gap counts beyond this many of its sides' rounding
-KINK_STEADY = 0.8  # and where it keeps this share of itself as the step halves (curvature's halves)
+KINK_STEADY = 0.8  # and where it keeps this share of itself at a step half as wide or less (curvature's halves)
 SIDE_UNITS = 3.0  # the analytic value is a side's quotient within this many of its rounding
 SIDE_SHARE = 0.25  # and within this share of the gap: nearer that side than the mean of both
 BELOW = ("the quotients at steps below the wide steps disagree with what the wide steps show, "

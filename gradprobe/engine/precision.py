@@ -3,14 +3,15 @@
 float32 inside float64 arrays: every float64 param is first rounded to float32 (a point
 float32 code sees exactly) and then moved by 2**-30 of its size, below half float32's
 spacing (2**-25 of a value at least, so float32 rounds it back) but far above float64's
-(2**-53). Float64 code sees the move; float32
-code gives a bitwise identical loss. So does float64 code whose loss cancels along that even
-move (an odd function of params placed symmetrically about 0, a scale-invariant loss): a
-float32 verdict also needs the loss unchanged by a move of random signs and sizes up to 2**-30. A third call with a move of 2**-12 confirms that the
-loss depends on the params at all, and how large the float64 change would have been. Where the
-loss hardly changes along the even move (a norm layer is scale-invariant), the same two looks
-are taken along a move of random signs and sizes. Floating inputs are moved with the params
-(a softmax is shift-invariant in a scalar param, not in the logits it is fed).
+(2**-53). Float64 code sees the move; float32 code gives a bitwise identical loss. So does
+float64 code whose loss cancels along that even move (an odd function of params placed
+symmetrically about 0, a scale-invariant loss): a float32 verdict also needs the loss
+unchanged by a move of random signs and sizes up to 2**-30. A third call with a move of
+2**-12 confirms that the loss depends on the params at all, and how large the float64 change
+would have been. Where the loss hardly changes along the even move (a norm layer is
+scale-invariant), the same two looks are taken along a move of random signs and sizes. Where
+the params' moves show nothing (a softmax's bias at 0, which no move in proportion to its
+size can shift), the floating inputs are moved with them.
 
 float16 or bfloat16 inside float64 or float32 arrays (a cast to a 16-bit type around the
 arithmetic): every param is rounded to bfloat16, a point on the grid of both 16-bit types
