@@ -214,6 +214,18 @@ def test_float64_wide_steps_past_an_overflow_leak_no_warning():
     assert not o["false_alarm"], (o["status"], o["expect"])
 
 
+def test_a_sixteen_bit_coordinate_no_step_bounds_leaks_no_warning():
+    """inside16-3300388: a float16-inside tensor whose gradient backward leaves out (0
+    everywhere); two coordinates' jittered wide-step estimates read 0 +- 1.7 and 0 +- 0.85,
+    over a scale that is the smallest normal float64 (no value to scale by): the smallest
+    relative error their reason quotes overflowed to inf and printed "overflow encountered in
+    divide" on the user's console. The reason says no estimate bounds them; the bug is
+    still caught."""
+    o = judge("inside16", 3300388)
+    assert o["own_warnings"] == [], o["own_warnings"]
+    assert o["status"]["p0"] == "fail" and not o["missed"], (o["status"], o["expect"])
+
+
 def test_a_dropped_steep_gradient_beside_a_far_larger_one_fails_where_resolvable():
     """steep-930795: p0's gradient (a twelfth power, the largest element 116) is left out, beside
     p3's of 8e15 and a loss of 1.8e12. At the ordinary steps the loss does not move; the ladder

@@ -95,7 +95,8 @@ def _explained(probe: TensorProbe, flat: np.ndarray, judged: Judged, which: np.n
     if which.size == 0:
         return judged
     scale = probe.denominators(flat[which], est.value)
-    smallest = np.maximum(SIGNIFICANCE * est.error, probe.tolerance(flat[which], est.value)) / scale
+    with np.errstate(over="ignore"):  # a bound over a scale of the smallest normal: none (inf)
+        smallest = np.maximum(SIGNIFICANCE * est.error, probe.tolerance(flat[which], est.value)) / scale
     reasons = list(judged.reasons)
     for k, i in enumerate(which.tolist()):
         if np.isfinite(smallest[k]):
