@@ -22,9 +22,13 @@ jointly show it (:func:`_joint_jump`), and the direction allows that jump as a c
 Where the discrepancy exceeds SIGNIFICANCE of its bound (a coordinate's margin: the bound is
 a coordinate's wide-step bound, checked on the quotients the same way) plus any jointly
 shown kink's jump, and also the most that elements each within the threshold could add
-along d (thr / (1 - thr) * sum max(|a_i|, floor) |d_i|), some element is wrong beyond the
-threshold for certain: the tensor fails, though which element may stay undecided. A
-direction never passes a tensor (errors of several elements may cancel along it).
+along d (thr / (1 - thr) * sum max(|a_i|, floor) |d_i|) and the share of a . d that elements
+moved far past their own size carry (:func:`.own_size.slope_beyond_own_size`: the loss's
+slope there may miss it), some element is wrong beyond the threshold for certain: the tensor
+fails, though which element may stay undecided. A discrepancy that the quotients below the
+window jointly put within BORNE_UNITS of their rounding of 0 is no evidence
+(:func:`_borne_out_below`). A direction never passes a tensor (errors of several elements
+may cancel along it).
 Directions: the analytic gradient, the coordinates' own numeric estimates' departure from
 it, and one at random; the first that fails ends it.
 """
@@ -41,6 +45,7 @@ from ..common.status import FAIL, INCONCLUSIVE
 from ..report.model import DirectionResult
 from .coordinates import CoordinateOutcome
 from .ladder import Estimate
+from .own_size import slope_beyond_own_size
 from .wide_steps import WIDE_NOISE, plain_windowed_at, windowed_at
 from .probe import TensorProbe
 from .widened import as_seen
@@ -56,6 +61,7 @@ NOISE_SPAN = 10  # the loss's rounding: eleven points along the direction, nine 
 SECOND_VARIANCE = 6.0  # a second difference of independent roundings of spread s spreads by sqrt(6) s
 NOISE_UNITS = 4.0  # a typical element moves by this many units of the type's grid between them
 MOVED_SCALES = 2.0  # the widest move: at most this many times the rms of the elements moved
+BORNE_UNITS = 2.0  # the steps below a window show its discrepancy beyond this many of their joint rounding
 
 
 @dataclass(frozen=True)
@@ -104,6 +110,8 @@ class _Seen:
     analytic: float
     allowed: float
     kink: float = 0.0  # the largest jump a kink the steps jointly show could have (0: none shown)
+    far: float = 0.0  # the analytic slope's share from elements moved far past their own size
+    borne: bool = True  # the steps below the window show a discrepancy too (else it is no evidence)
 
 
 def _rounding(probe: TensorProbe, d: np.ndarray, at: float) -> tuple[float, float, np.ndarray] | None:
@@ -218,10 +226,29 @@ def _measure(probe: TensorProbe, d: np.ndarray) -> _Seen | None:
     (plain, plain_top), (extrapolated, extrapolated_top) = plain_windowed_at(*rows), windowed_at(*rows)
     better = bool(extrapolated.error[0] < plain.error[0])
     est = extrapolated if better else plain
-    if jump_shown(right - left, gap_noise, steps, int((extrapolated_top if better else plain_top)[0])):
+    top_row = int((extrapolated_top if better else plain_top)[0])
+    if jump_shown(right - left, gap_noise, steps, top_row):
         return None  # a kink within the steps the estimate takes: they say nothing of the gradient
-    kink = joint_jump(right - left, own_noise, steps, int((extrapolated_top if better else plain_top)[0]))
-    return _Seen(float(est.value[0]), float(est.error[0]), float(probe.a @ d), most, kink)
+    kink = joint_jump(right - left, own_noise, steps, top_row)
+    first = max(top_row - 1, 0)  # the window's smallest step
+    far = slope_beyond_own_size(probe, d, float(steps[first]))
+    borne = _borne_out_below(central[:first], (noise / steps)[:first])
+    return _Seen(float(est.value[0]), float(est.error[0]), float(probe.a @ d), most, kink, far, borne)
+
+
+def _borne_out_below(central: np.ndarray, rounding: np.ndarray) -> bool:
+    """Whether the quotients at the steps below the estimate's window, ``central`` with their
+    ``rounding``, show a discrepancy too: their mean weighted by 1/rounding**2 lies beyond
+    BORNE_UNITS of its own rounding from 0 (true where there are none). A discrepancy only the
+    window's wide steps show, while the steps nearer the point jointly put it at 0, is a slope
+    that changes between them (ReLU corners crossed one after another as the steps grow:
+    quotients 0.0005, 0.048, 0.110, 0.128, 0.142, inside16-3300556), not the derivative here."""
+    seen = np.isfinite(central) & np.isfinite(rounding) & (rounding > 0)
+    if not seen.any():
+        return True
+    weight = 1.0 / rounding[seen] ** 2
+    mean = float(np.sum(weight * central[seen]) / np.sum(weight))
+    return abs(mean) >= BORNE_UNITS * float(1.0 / np.sqrt(np.sum(weight)))
 
 
 def _fuzz_along(probe: TensorProbe, d: np.ndarray) -> float:
@@ -245,9 +272,9 @@ def along(probe: TensorProbe, outcome: CoordinateOutcome, seed: int) -> Along:
         if seen is None:
             continue
         value, error = seen.estimate_value, seen.estimate_error
-        limit = thr / (1.0 - thr) * seen.allowed + _fuzz_along(probe, d)
+        limit = thr / (1.0 - thr) * seen.allowed + _fuzz_along(probe, d) + seen.far
         beyond = (np.isfinite(error) and abs(value) > SIGNIFICANCE * error + seen.kink
-                  and abs(value) > limit)
+                  and abs(value) > limit and seen.borne)
         scale = max(abs(seen.analytic), abs(seen.analytic + value), probe.floor)
         results.append(DirectionResult(
             analytic=seen.analytic, numeric=seen.analytic + value, error_estimate=error,
