@@ -22,11 +22,12 @@ jointly show it (:func:`_joint_jump`), and the direction allows that jump as a c
 Where the discrepancy exceeds SIGNIFICANCE of its bound (a coordinate's margin: the bound is
 a coordinate's wide-step bound, checked on the quotients the same way) plus any jointly
 shown kink's jump, and also the most that elements each within the threshold could add
-along d (thr / (1 - thr) * sum max(|a_i|, floor) |d_i|) and the share of a . d that elements
-moved far past their own size carry (:func:`.own_size.slope_beyond_own_size`: the loss's
-slope there may miss it), some element is wrong beyond the threshold for certain: the tensor
-fails, though which element may stay undecided. A discrepancy that the quotients below the
-window jointly put within BORNE_UNITS of their rounding of 0 is no evidence
+along d (thr / (1 - thr) * sum max(|a_i|, floor) |d_i|) and the shares of a . d that elements
+moved far past their own size (:func:`.own_size.slope_beyond_own_size`) and elements whose
+loss moves as across a jump at every step (:mod:`.steady_difference`) carry, which the
+loss's slope there may miss, some element is wrong beyond the threshold for certain: the
+tensor fails, though which element may stay undecided. A discrepancy that the quotients
+below the window jointly put within BORNE_UNITS of their rounding of 0 is no evidence
 (:func:`_borne_out_below`). A direction never passes a tensor (errors of several elements
 may cancel along it).
 Directions: the analytic gradient, the coordinates' own numeric estimates' departure from
@@ -46,6 +47,7 @@ from ..report.model import DirectionResult
 from .coordinates import CoordinateOutcome
 from .ladder import Estimate
 from .own_size import slope_beyond_own_size
+from .steady_difference import jumping
 from .wide_steps import WIDE_NOISE, plain_windowed_at, windowed_at
 from .probe import TensorProbe
 from .widened import as_seen
@@ -251,6 +253,12 @@ def _borne_out_below(central: np.ndarray, rounding: np.ndarray) -> bool:
     return abs(mean) >= BORNE_UNITS * float(1.0 / np.sqrt(np.sum(weight)))
 
 
+def _share(probe: TensorProbe, d: np.ndarray, which: np.ndarray) -> float:
+    """The share of the analytic slope along ``d`` that the elements ``which`` carry."""
+    assert isinstance(probe.a, np.ndarray)  # as in _directions
+    return float(np.abs(probe.a[which]) @ np.abs(d[which])) if which.any() else 0.0
+
+
 def _fuzz_along(probe: TensorProbe, d: np.ndarray) -> float:
     """SIGNIFICANCE times what the analytic values' own rounding adds along ``d``: how much
     each varies between points a few units of the type's grid apart (point.Point.coarse_jitter;
@@ -266,13 +274,16 @@ def along(probe: TensorProbe, outcome: CoordinateOutcome, seed: int) -> Along:
     start = probe.evaluator.count
     results: list[DirectionResult] = []
     thr = probe.threshold
+    # Elements whose loss moves as across a jump at every step (steady_difference.py): the
+    # loss's slope along a direction may miss their share of it at any step.
+    jumps = jumping(outcome.flat, outcome.reasons, probe.size)
     for what, d in _directions(probe, outcome, seed):
         before = probe.evaluator.count
         seen = _measure(probe, d)
         if seen is None:
             continue
         value, error = seen.estimate_value, seen.estimate_error
-        limit = thr / (1.0 - thr) * seen.allowed + _fuzz_along(probe, d) + seen.far
+        limit = thr / (1.0 - thr) * seen.allowed + _fuzz_along(probe, d) + seen.far + _share(probe, d, jumps)
         beyond = (np.isfinite(error) and abs(value) > SIGNIFICANCE * error + seen.kink
                   and abs(value) > limit and seen.borne)
         scale = max(abs(seen.analytic), abs(seen.analytic + value), probe.floor)

@@ -45,6 +45,7 @@ from .sliver import sliver_kinks
 from .jump_at_point import jump_kinks
 from .below_windows import kept_where_contradicted, kinks_beside
 from .own_size import failures_within_reach
+from .steady_difference import steady_moves
 from .verdict import NOISE, Judged, judge_plain, scaleless
 
 RECHECK_LIMIT = 400  # coordinates per tensor re-estimated on a ladder
@@ -157,7 +158,7 @@ def _central(probe: TensorProbe, flat: np.ndarray, recheck: bool) -> Judged:
     judged = moved_below(probe, flat, judged, taken)  # a loss unmoved by the steps taken, moved below them
     judged = zero_loss(probe, flat, judged)  # a loss exactly 0 throughout: rounding absorbed the slope?
     if unit_roundoff(probe.compute_dtype) >= unit_roundoff(np.float16):  # 16 bits: steps far past an element?
-        judged = failures_within_reach(probe, flat, judged, taken)
+        judged = steady_moves(probe, flat, failures_within_reach(probe, flat, judged, taken), taken)
     return flat_through_sixteen_bits(probe, flat, judged)
 
 
