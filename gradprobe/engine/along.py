@@ -23,7 +23,7 @@ Where the discrepancy exceeds SIGNIFICANCE of its bound (a coordinate's margin: 
 a coordinate's wide-step bound, checked on the quotients the same way) plus any jointly
 shown kink's jump, and also the most that elements each within the threshold could add
 along d (thr / (1 - thr) * sum max(|a_i|, floor) |d_i|) and the shares of a . d that elements
-moved far past their own size (:func:`.own_size.slope_beyond_own_size`) and elements whose
+moved far past their own size (:func:`.own_size.moved_beyond_own_size`) and elements whose
 loss moves as across a jump at every step (:mod:`.steady_difference`) carry, which the
 loss's slope there may miss, some element is wrong beyond the threshold for certain: the
 tensor fails, though which element may stay undecided. A discrepancy that the quotients
@@ -46,7 +46,7 @@ from ..common.status import FAIL, INCONCLUSIVE
 from ..report.model import DirectionResult
 from .coordinates import CoordinateOutcome
 from .ladder import Estimate
-from .own_size import slope_beyond_own_size
+from .own_size import moved_beyond_own_size
 from .steady_difference import jumping
 from .wide_steps import WIDE_NOISE, plain_windowed_at, windowed_at
 from .probe import TensorProbe
@@ -112,7 +112,7 @@ class _Seen:
     analytic: float
     allowed: float
     kink: float = 0.0  # the largest jump a kink the steps jointly show could have (0: none shown)
-    far: float = 0.0  # the analytic slope's share from elements moved far past their own size
+    far: np.ndarray | None = None  # elements the window's steps move far past their own size
     borne: bool = True  # the steps below the window show a discrepancy too (else it is no evidence)
 
 
@@ -233,7 +233,7 @@ def _measure(probe: TensorProbe, d: np.ndarray) -> _Seen | None:
         return None  # a kink within the steps the estimate takes: they say nothing of the gradient
     kink = joint_jump(right - left, own_noise, steps, top_row)
     first = max(top_row - 1, 0)  # the window's smallest step
-    far = slope_beyond_own_size(probe, d, float(steps[first]))
+    far = moved_beyond_own_size(probe, d, float(steps[first]))
     borne = _borne_out_below(central[:first], (noise / steps)[:first])
     return _Seen(float(est.value[0]), float(est.error[0]), float(probe.a @ d), most, kink, far, borne)
 
@@ -283,7 +283,8 @@ def along(probe: TensorProbe, outcome: CoordinateOutcome, seed: int) -> Along:
         if seen is None:
             continue
         value, error = seen.estimate_value, seen.estimate_error
-        limit = thr / (1.0 - thr) * seen.allowed + _fuzz_along(probe, d) + seen.far + _share(probe, d, jumps)
+        missed = jumps if seen.far is None else jumps | seen.far  # shares the loss's slope may miss
+        limit = thr / (1.0 - thr) * seen.allowed + _fuzz_along(probe, d) + _share(probe, d, missed)
         beyond = (np.isfinite(error) and abs(value) > SIGNIFICANCE * error + seen.kink
                   and abs(value) > limit and seen.borne)
         scale = max(abs(seen.analytic), abs(seen.analytic + value), probe.floor)

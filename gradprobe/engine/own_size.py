@@ -17,14 +17,14 @@ such an element's size read -176, -320, -480 and -575 for a correct -586. Elsewh
 failure is undecided and says why. An element at exactly 0 has no size of its own and keeps
 its verdict (a bias at its first value). Along a direction (:mod:`.along`) the share of the
 analytic slope such elements carry at the estimate's steps is what they may leave out of the
-loss's slope there (:func:`slope_beyond_own_size`).
+loss's slope there (:func:`moved_beyond_own_size`).
 """
 
 from __future__ import annotations
 
 import numpy as np
 
-from ..common.status import FAIL, INCONCLUSIVE
+from ..common.status import FAIL
 from .probe import TensorProbe
 from .refine import Taken
 from .verdict import SIGNIFICANCE, Judged
@@ -73,25 +73,15 @@ def failures_within_reach(probe: TensorProbe, flat: np.ndarray, judged: Judged, 
     shown = np.array([c is not None and abs(c[1] - a[j]) > SIGNIFICANCE * c[2] for j, c in enumerate(closest)],
                      dtype=bool)
     undecided = failed[~shown]
-    if undecided.size == 0:
-        return judged
-    status = judged.status.copy()
-    status[undecided] = INCONCLUSIVE
-    reasons = list(judged.reasons)
-    for k in undecided.tolist():
-        reasons[k] = BEYOND_OWN_SIZE.format(dtype=probe.compute_dtype, size=float(abs(probe.x[flat[k]])),
-                                            times=CLOSE)
-    noisy = judged.noise_limited.copy()
-    noisy[undecided] = True
-    return Judged(status, judged.estimate, tuple(reasons), noisy, judged.crossed)
+    return judged.undecided(undecided, tuple(
+        BEYOND_OWN_SIZE.format(dtype=probe.compute_dtype, size=float(abs(probe.x[flat[k]])), times=CLOSE)
+        for k in undecided.tolist()))
 
 
-def slope_beyond_own_size(probe: TensorProbe, d: np.ndarray, smallest: float) -> float:
-    """The share of the analytic slope along the unit direction ``d`` carried by nonzero
-    elements OWN_SIZE times smaller than the tensor's scale that ``smallest``, the estimate's
-    smallest step, moves more than OWN_SIZE times their own size: the loss's slope along those
-    steps may miss all of it."""
+def moved_beyond_own_size(probe: TensorProbe, d: np.ndarray, smallest: float) -> np.ndarray:
+    """A mask over the tensor: nonzero elements OWN_SIZE times smaller than its scale that
+    ``smallest``, the estimate's smallest step along the unit direction ``d``, moves more
+    than OWN_SIZE times their own size (the loss's slope along those steps may miss their
+    share of a . d)."""
     x = np.abs(probe.x.astype(np.float64))
-    assert isinstance(probe.a, np.ndarray)  # a tensor judged on its own arithmetic: its own gradient
-    far = (x > 0) & (OWN_SIZE * x < probe.x_scale) & (smallest * np.abs(d) > OWN_SIZE * x)
-    return float(np.abs(probe.a[far]) @ np.abs(d[far]))
+    return (x > 0) & (OWN_SIZE * x < probe.x_scale) & (smallest * np.abs(d) > OWN_SIZE * x)

@@ -59,19 +59,15 @@ def steady_moves(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken: li
             j = position.get(int(k))
             if j is not None and np.isfinite(moved[i]):
                 moves[j][float(steps[i])] = float(moved[i])
-    reasons = list(judged.reasons)
-    status = judged.status.copy()
-    noisy = judged.noise_limited.copy()
     grain = 2.0 * unit_roundoff(probe.compute_dtype) * abs(probe.f0)  # a unit of the loss's grid, about
+    which, reasons = [], []
     for j, seen in enumerate(moves):
         steps = np.array(sorted(seen))
-        if not jump_like(steps, np.array([seen[s] for s in steps]), grain):
-            continue
-        k = failed[j]
-        status[k], noisy[k] = INCONCLUSIVE, True
-        reasons[k] = STEADY_MOVES.format(move=float(np.median([seen[s] for s in steps])), low=float(steps[0]),
-                                         high=float(steps[-1]))
-    return Judged(status, judged.estimate, tuple(reasons), noisy, judged.crossed)
+        if jump_like(steps, np.array([seen[s] for s in steps]), grain):
+            which.append(int(failed[j]))
+            reasons.append(STEADY_MOVES.format(move=float(np.median([seen[s] for s in steps])),
+                                               low=float(steps[0]), high=float(steps[-1])))
+    return judged.undecided(np.array(which, dtype=np.int64), tuple(reasons))
 
 
 def jump_like(steps: np.ndarray, moves: np.ndarray, grain: float) -> bool:
