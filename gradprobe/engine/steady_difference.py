@@ -10,13 +10,13 @@ central quotients at 1, 2, 4 ... 32 units read -38, -21, -8, -4, -2, -1.06, the 
 
 So a 16-bit failure stands only where the loss's moves across the point grow with the step
 as a slope's do at the narrowest steps that show them. Read at the steps taken on the
-coordinate where the move exceeds a unit of the loss's grid (2 u |f|: a rounding's), from the narrowest such step up to SPAN times it: where there are
-STEADY or more, spanning half that or more, MAJORITY of them of one sign at least (rounding
-alone takes either sign as often; a jump's own rounding of a few units may flip a small one),
-and they grow more slowly than the step to the power GROWTH (a least-squares fit of
-log |move| on log step: a slope's grow with exponent 1, a jump's with 0), the slope is seen
-at no step: the coordinate is undecided (an undecided one too, with this reason), saying
-why. (Wider steps may see a loss that levels off, a saturated tanh: that is no jump.) A loss
+coordinate where the move exceeds two units of the loss's grid (4 u |f|: a rounding's),
+from the narrowest such step up to SPAN times it: where there are STEADY or more, spanning
+half that or more, MAJORITY of them of one sign at least (rounding alone takes either sign
+as often; a jump's own rounding of a few units may flip a small one), and they grow more
+slowly than the step to the power GROWTH (a least-squares fit of log |move| on log step: a
+slope's grow with exponent 1, a jump's with 0), the slope is seen at no step: the
+coordinate is undecided (an undecided one too, with this reason), saying why. (Wider steps may see a loss that levels off, a saturated tanh: that is no jump.) A loss
 that keeps its value, or moves by rounding of either sign, keeps its verdict (a slope claimed
 where the loss is flat still fails). Along a direction (:mod:`.along`) the share of the
 analytic slope that such elements carry is what the loss's slope may miss at any step.
@@ -59,7 +59,9 @@ def steady_moves(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken: li
             j = position.get(int(k))
             if j is not None and np.isfinite(moved[i]):
                 moves[j][float(steps[i])] = float(moved[i])
-    grain = 2.0 * unit_roundoff(probe.compute_dtype) * abs(probe.f0)  # a unit of the loss's grid, about
+    # Two units of the loss's grid (2 u |f| each, about): moves of a unit or two are a rounding's
+    # at any step, and of the sign the slope gives them (a bias whose loss barely moves).
+    grain = 4.0 * unit_roundoff(probe.compute_dtype) * abs(probe.f0)
     which, reasons = [], []
     for j, seen in enumerate(moves):
         steps = np.array(sorted(seen))
