@@ -65,23 +65,19 @@ def steady_moves(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken: li
     which, reasons = [], []
     for j, seen in enumerate(moves):
         steps = np.array(sorted(seen))
-        if jump_like(steps, np.array([seen[s] for s in steps]), grain):
+        values = np.array([seen[s] for s in steps])
+        if jump_like(steps, values, grain):
+            steps, values = narrowest(steps, values, grain)
             which.append(int(failed[j]))
-            reasons.append(STEADY_MOVES.format(move=float(np.median([seen[s] for s in steps])),
-                                               low=float(steps[0]), high=float(steps[-1])))
+            reasons.append(STEADY_MOVES.format(move=float(np.median(values)), low=float(steps[0]),
+                                               high=float(steps[-1])))
     return judged.undecided(np.array(which, dtype=np.int64), tuple(reasons))
 
 
 def jump_like(steps: np.ndarray, moves: np.ndarray, grain: float) -> bool:
     """Whether the loss's ``moves`` across the point at ascending ``steps`` are a jump's, not a
-    slope's (see the module): read at the narrowest steps where they exceed ``grain``, a unit
-    of the loss's grid (a rounding's move), up to SPAN times the first of them."""
-    beyond = np.isfinite(moves) & (np.abs(moves) > grain)
-    steps, moves = steps[beyond], moves[beyond]
-    if steps.size == 0:
-        return False
-    near = steps <= SPAN * steps[0]
-    steps, moves = steps[near], moves[near]
+    slope's (see the module), read at :func:`narrowest` of them."""
+    steps, moves = narrowest(steps, moves, grain)
     if steps.size < STEADY or steps[-1] < SPAN / 2.0 * steps[0]:
         return False
     if max(np.mean(moves > 0), np.mean(moves < 0)) < MAJORITY:
@@ -89,6 +85,15 @@ def jump_like(steps: np.ndarray, moves: np.ndarray, grain: float) -> bool:
     x, y = np.log(steps), np.log(np.abs(moves))
     x = x - x.mean()
     return float(np.sum(x * (y - y.mean())) / np.sum(x * x)) < GROWTH
+
+
+def narrowest(steps: np.ndarray, moves: np.ndarray, grain: float) -> tuple[np.ndarray, np.ndarray]:
+    """The ascending ``steps`` and their ``moves`` where the moves exceed ``grain`` (the most a
+    rounding moves the loss), from the narrowest such step up to SPAN times it."""
+    beyond = np.isfinite(moves) & (np.abs(moves) > grain)
+    steps, moves = steps[beyond], moves[beyond]
+    near = steps <= SPAN * steps[0] if steps.size else np.zeros(0, dtype=bool)
+    return steps[near], moves[near]
 
 
 def jumping(flat: np.ndarray, reasons: tuple[str | None, ...], size: int) -> np.ndarray:
