@@ -179,6 +179,22 @@ def test_the_grain_of_a_loss_rounded_to_bfloat16_is_its_spacing():
     assert _grain(_Line(lambda v: 100.0, x, a)) == 0.0
 
 
+# A ReLU element exactly at its corner in bfloat16 (its residual rounds to 0), left undecided
+# for rounding, kinked every direction that moved it; with a second corner 0.011 away the
+# widest steps read 0.92 +- 0.13 along the coordinates' departures from the gradient, which
+# the steps below bore out, and the correct tensor failed (3500379; 1200817 the same beside exp
+# and tanh terms). The element's one-sided quotients at the wide steps stay apart with the
+# analytic value on one side: it is `kink`, as a failing one would be.
+KINK_AT_POINT_SEEDS = [3500379, 1200817]
+
+
+@pytest.mark.parametrize("seed", KINK_AT_POINT_SEEDS)
+def test_an_undecided_element_at_its_corner_is_a_kink_not_a_failed_direction(seed):
+    o = _judged(seed)
+    assert not o["false_alarm"], (o["status"], o["expect"])
+    assert o["status"]["p1"] == "kink", o["status"]
+
+
 def test_a_discrepancy_the_steps_below_bear_out_still_fails():
     """3500377: a ReLU piece's gradient wrong in one element (the generator's 'piece' bug,
     beyond 1.5 times the threshold by mpmath, resolvable in float16): along the analytic

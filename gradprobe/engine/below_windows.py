@@ -18,11 +18,13 @@ A kink at the point puts every central quotient at the mean of its sides, howeve
 steps, and narrow arithmetic's rounding can hide its one-sided gap from the windows' checks:
 16-bit quantile code whose residuals round to exactly 0 failed a correct coordinate at its
 left slope, -0.0208, against central quotients of 0.001 to 0.01. A narrow coordinate the wide
-steps fail is judged `kink` instead where, at two of the wide steps at least, its one-sided
-quotients lie apart beyond KINK_NOISE times their rounding, that gap does not shrink with the
-step as curvature's would (at a step half as wide or less it keeps KINK_STEADY of itself), and the
-analytic value is the same side's quotient at each, within SIDE_UNITS of that side's rounding
-and within SIDE_SHARE of the gap.
+steps fail, or leave undecided, is judged `kink` instead where, at two of the wide steps at
+least, its one-sided quotients lie apart beyond KINK_NOISE times their rounding, that gap does
+not shrink with the step as curvature's would (at a step half as wide or less it keeps
+KINK_STEADY of itself), and the analytic value is the same side's quotient at each, within
+SIDE_UNITS of that side's rounding and within SIDE_SHARE of the gap. An undecided one matters
+too: a bfloat16 ReLU element exactly at its corner, left undecided, kinked every direction
+that moved it, and a direction failed the correct tensor (inside16-3500379: 0.92 +- 0.13).
 """
 
 from __future__ import annotations
@@ -93,11 +95,13 @@ def kept_where_contradicted(probe: TensorProbe, flat: np.ndarray, before: Judged
 
 def kinks_beside(probe: TensorProbe, flat: np.ndarray, before: Judged, after: Judged, which: np.ndarray,
                  taken: list[Taken]) -> Judged:
-    """``after`` with the coordinates ``which`` that it fails (``before`` did not) judged `kink`
-    where a kink at the point explains the failure (see the module)."""
-    from ..common.status import FAIL  # local: the statuses this module needs are few
+    """``after`` with the coordinates ``which`` that it fails (``before`` did not) or leaves
+    undecided judged `kink` where a kink at the point explains the discrepancy (see the
+    module)."""
+    from ..common.status import FAIL, INCONCLUSIVE  # local: the statuses this module needs are few
 
-    failed = which[(after.status[which] == FAIL) & (before.status[which] != FAIL)]
+    status = after.status[which]
+    failed = which[((status == FAIL) & (before.status[which] != FAIL)) | (status == INCONCLUSIVE)]
     if failed.size == 0:
         return after
     first_wide = probe.prior_steps(flat[failed]) * 2.0 ** WIDE_FIRST

@@ -195,7 +195,7 @@ def _wide_steps(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken: lis
     if not narrow:
         return judged
     judged = measured_passes(probe, flat, judged, taken)  # 16-bit arithmetic: passes on its measured rounding
-    return kinks_beside(probe, flat, before, judged, noisy, taken)  # a kink at the point explains a failure?
+    return kinks_beside(probe, flat, before, judged, noisy, taken)  # a kink at the point explains the discrepancy?
 
 
 def _validated_failures(probe: TensorProbe, flat: np.ndarray, first: Pairs, h: np.ndarray, plain: Judged) -> Judged:
