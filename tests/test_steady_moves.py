@@ -121,3 +121,44 @@ def test_jump_like_tells_a_jump_from_a_slope(moves, jump):
     smooth f, and the jump's size for a step across a jump, whatever the step."""
     steps = 2.0 ** np.arange(-8.0, 0.0)
     assert jump_like(steps, moves(steps), 1e-3) is jump
+
+
+def _shop_classes(batch_factor: float):
+    """Which of 5 product groups sells out first: a softmax cross-entropy in bfloat16 over 20
+    weeks, 5 of them promotion weeks whose logits lie tens apart (invented demo data); the
+    gradient ``batch_factor`` times the right one."""
+    bf16 = np.dtype(pytest.importorskip("ml_dtypes").bfloat16)
+    rng = np.random.default_rng(0)
+    x = rng.normal(size=(20, 4))
+    x[:5] *= 15.0
+    w, b = rng.normal(scale=0.8, size=(4, 5)), rng.normal(scale=0.2, size=5)
+    y = rng.integers(0, 5, size=20)
+    z = x @ w
+    y[:3], y[3:5] = np.argmax(z[:3], axis=1), np.argmin(z[3:5], axis=1)
+    n = bf16.type(20)
+
+    def logp(p, i):
+        z = (i["x"] @ p["W"]).astype(bf16) + p["b"]
+        m = np.max(z, axis=1, keepdims=True)
+        return z - (m + np.log(np.sum(np.exp(z - m), axis=1, keepdims=True)))
+
+    def forward(p, i):
+        return bf16.type(-np.sum(logp(p, i)[np.arange(20), i["y"]]) / n)
+
+    def backward(p, i):
+        d = np.exp(logp(p, i))
+        d[np.arange(20), i["y"]] -= bf16.type(1)
+        d = d / n * bf16.type(batch_factor)
+        return {"W": (i["x"].T @ d).astype(bf16), "b": np.sum(d, axis=0)}
+
+    return forward, backward, {"W": w.astype(bf16), "b": b.astype(bf16)}, {"x": x.astype(bf16), "y": y}
+
+
+def test_a_bias_whose_loss_moves_by_a_grid_unit_or_two_keeps_its_failure():
+    """The gradient not divided by the batch (20 times the right one): the bias's loss moves
+    by one or two units of bfloat16's grid at every step, with the slope's sign. Moves that
+    small are a rounding's, not a jump's: the bias still fails, and a right gradient does not."""
+    report = gradprobe.probe(*_shop_classes(20.0))
+    assert report.tensor("b").status == "fail", gradprobe.render_text(report)
+    right = gradprobe.probe(*_shop_classes(1.0))
+    assert right.tensor("b").status != "fail", gradprobe.render_text(right)
