@@ -101,12 +101,12 @@ def kinks_beside(probe: TensorProbe, flat: np.ndarray, before: Judged, after: Ju
     from ..common.status import FAIL, INCONCLUSIVE  # local: the statuses this module needs are few
 
     status = after.status[which]
-    failed = which[((status == FAIL) & (before.status[which] != FAIL)) | (status == INCONCLUSIVE)]
-    if failed.size == 0:
+    unsettled = which[((status == FAIL) & (before.status[which] != FAIL)) | (status == INCONCLUSIVE)]
+    if unsettled.size == 0:
         return after
-    first_wide = probe.prior_steps(flat[failed]) * 2.0 ** WIDE_FIRST
-    position = {int(k): j for j, k in enumerate(flat[failed])}
-    rows: list[dict[float, tuple[float, float, float]]] = [{} for _ in failed]  # step -> (right, left, rounding)
+    first_wide = probe.prior_steps(flat[unsettled]) * 2.0 ** WIDE_FIRST
+    position = {int(k): j for j, k in enumerate(flat[unsettled])}
+    rows: list[dict[float, tuple[float, float, float]]] = [{} for _ in unsettled]  # step -> (right, left, rounding)
     for where, _, pairs in taken:
         steps = 0.5 * (pairs.h_plus + pairs.h_minus)
         right, left = pairs.sides(probe.f0)
@@ -116,8 +116,8 @@ def kinks_beside(probe: TensorProbe, flat: np.ndarray, before: Judged, after: Ju
             j = position.get(int(k))
             if j is not None and steps[i] >= first_wide[j] and np.isfinite(right[i] + left[i] + rounding[i]):
                 rows[j][float(steps[i])] = (float(right[i]), float(left[i]), float(rounding[i]))
-    a = probe.a[flat[failed]]
-    kinked = np.zeros(failed.size, dtype=bool)
+    a = probe.a[flat[unsettled]]
+    kinked = np.zeros(unsettled.size, dtype=bool)
     for j, seen in enumerate(rows):
         apart = [(s, r, l, e) for s, (r, l, e) in sorted(seen.items()) if abs(r - l) > KINK_NOISE * e]
         spans = [(p, q) for n, p in enumerate(apart) for q in apart[n + 1:] if q[0] >= 2.0 * p[0]]
@@ -130,4 +130,4 @@ def kinks_beside(probe: TensorProbe, flat: np.ndarray, before: Judged, after: Ju
             if steady and (on_right or on_left):
                 kinked[j] = True
                 break
-    return as_kinks(after, failed[kinked])
+    return as_kinks(after, unsettled[kinked])

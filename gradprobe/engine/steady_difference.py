@@ -46,11 +46,11 @@ STEADY_MOVES = STEADY_START + (
 def steady_moves(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken: list[Taken]) -> Judged:
     """``judged`` with the failed and undecided coordinates the module's note names undecided,
     with its reason."""
-    failed = np.flatnonzero((judged.status == FAIL) | (judged.status == INCONCLUSIVE))  # the unsettled
-    if failed.size == 0:
+    unsettled = np.flatnonzero((judged.status == FAIL) | (judged.status == INCONCLUSIVE))
+    if unsettled.size == 0:
         return judged
-    position = {int(k): j for j, k in enumerate(flat[failed])}
-    moves: list[dict[float, float]] = [{} for _ in failed]  # step -> the loss's move across the point
+    position = {int(k): j for j, k in enumerate(flat[unsettled])}
+    moves: list[dict[float, float]] = [{} for _ in unsettled]  # step -> the loss's move across the point
     for where, _, pairs in taken:
         steps = 0.5 * (pairs.h_plus + pairs.h_minus)
         with np.errstate(over="ignore", invalid="ignore"):
@@ -68,7 +68,7 @@ def steady_moves(probe: TensorProbe, flat: np.ndarray, judged: Judged, taken: li
         values = np.array([seen[s] for s in steps])
         if jump_like(steps, values, grain):
             steps, values = narrowest(steps, values, grain)
-            which.append(int(failed[j]))
+            which.append(int(unsettled[j]))
             reasons.append(STEADY_MOVES.format(move=float(np.median(values)), low=float(steps[0]),
                                                high=float(steps[-1])))
     return judged.undecided(np.array(which, dtype=np.int64), tuple(reasons))
